@@ -1,0 +1,229 @@
+"""Whole-body thermal comfort, vectorised over spaces.
+
+PMV/PPD per ISO 7730:2005 (Fanger), PMV/PPD per ASHRAE 55-2020 (the elevated-air-speed
+method through SET and the cooling effect), SET (Gagge two-node model as in ASHRAE 55
+Normative Appendix D), the cooling effect of elevated air speed, and the air speed that
+would bring a warm space back to a target PMV. The models themselves come from
+pythermalcomfort (version pinned in pyproject.toml); applicability is decided here.
+
+Units: temperatures °C, air speed m/s, RH %, metabolic rate met, clothing clo.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+from pythermalcomfort.models import clo_tout as _ptc_clo_tout
+from pythermalcomfort.models import pmv_ppd_iso as _ptc_pmv_ppd_iso
+from pythermalcomfort.models import set_tmp as _ptc_set_tmp
+
+from thermowarden.core.columns import FloatArray
+from thermowarden.core.solve import IndexArray, illinois
+
+STILL_AIR = 0.1
+"""m/s: the still-air speed of ASHRAE 55's elevated-air-speed method."""
+
+MAX_ELEVATED_AIR_SPEED = 2.0
+"""m/s: upper air speed of the ASHRAE 55 SET-based method (and of the search for the speed
+needed)."""
+
+
+def relative_air_speed(air_speed: FloatArray, met: FloatArray) -> FloatArray:
+    """Relative air speed (m/s) including the body's own movement.
+
+    ISO 7730:2005 (C.2) and ASHRAE 55-2020 (5.3.2.1) use the same rule:
+    vr = v + 0.3 (M - 1) for M > 1 met, else v.
+    """
+    v = np.asarray(air_speed, dtype=np.float64)
+    m = np.asarray(met, dtype=np.float64)
+    result: FloatArray = np.where(m > 1.0, v + 0.3 * (m - 1.0), v)
+    return result
+
+
+def dynamic_clothing(clo: FloatArray, met: FloatArray) -> FloatArray:
+    """Dynamic clothing insulation (clo) for active people.
+
+    ASHRAE 55-2020 5.2.2.2: Icl,dyn = Icl (0.6 + 0.4 / M) for M > 1.2 met. We apply this rule
+    before both PMV variants (ISO 9920's correction is similar in size but needs walking
+    speed, which a building sensor does not know).
+    """
+    c = np.asarray(clo, dtype=np.float64)
+    m = np.asarray(met, dtype=np.float64)
+    result: FloatArray = np.where(m > 1.2, c * (0.6 + 0.4 / m), c)
+    return result
+
+
+def clothing_from_outdoor(outdoor_6am_c: FloatArray) -> FloatArray:
+    """Typical clothing (clo) predicted from the 06:00 outdoor temperature (°C).
+
+    Schiavon and Lee (2013), the dynamic clothing model of ASHRAE 55-2020 5.2.2.2, via
+    pythermalcomfort ``clo_tout``. NaN where the temperature is missing.
+    """
+    t = np.asarray(outdoor_6am_c, dtype=np.float64)
+    ok = np.isfinite(t)
+    out = np.full(t.shape, np.nan)
+    if ok.any():
+        out[ok] = np.asarray(_ptc_clo_tout(tout=t[ok]).clo_tout, dtype=np.float64)
+    return out
+
+
+def ppd_from_pmv(pmv: FloatArray) -> FloatArray:
+    """PPD (%) from PMV, ISO 7730:2005 eq. (5)."""
+    p = np.asarray(pmv, dtype=np.float64)
+    result: FloatArray = 100.0 - 95.0 * np.exp(-0.03353 * p**4 - 0.2179 * p**2)
+    return result
+
+
+def pmv_fanger(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: FloatArray,
+               met: FloatArray, clo: FloatArray) -> FloatArray:
+    """Fanger's PMV, ISO 7730:2005 eq. (1)-(4), external work 0; no range checks here."""
+    n = np.asarray(air_c).shape[0]
+    out = np.full(n, np.nan)
+    ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(rel_speed) & np.isfinite(rh)
+          & np.isfinite(met) & np.isfinite(clo))
+    if ok.any():
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = _ptc_pmv_ppd_iso(tdb=air_c[ok], tr=mrt_c[ok], vr=rel_speed[ok], rh=rh[ok],
+                                   met=met[ok], clo=clo[ok], limit_inputs=False,
+                                   round_output=False)
+        out[ok] = np.asarray(res.pmv, dtype=np.float64)
+    return out
+
+
+def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh: FloatArray,
+                    met: FloatArray, clo: FloatArray, *, for_cooling_effect: bool = False,
+                    pressure_pa: FloatArray | float = 101_325.0) -> FloatArray:
+    """Standard Effective Temperature (°C), Gagge two-node model, ASHRAE 55-2020 Appendix D.
+
+    ``for_cooling_effect`` selects the variant ASHRAE 55 uses inside the cooling-effect
+    calculation (no metabolic correction of the still-air reference). NaN where any input
+    is missing; no range checks here.
+    """
+    n = np.asarray(air_c).shape[0]
+    out = np.full(n, np.nan)
+    ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(speed) & np.isfinite(rh)
+          & np.isfinite(met) & np.isfinite(clo))
+    if ok.any():
+        p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = _ptc_set_tmp(tdb=air_c[ok], tr=mrt_c[ok], v=speed[ok], rh=rh[ok],
+                               met=met[ok], clo=clo[ok], p_atm=p[ok], limit_inputs=False,
+                               round_output=False, calculate_ce=for_cooling_effect)
+        out[ok] = np.asarray(res.set, dtype=np.float64)
+    return out
+
+
+def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: FloatArray,
+                   met: FloatArray, clo: FloatArray) -> FloatArray:
+    """Cooling effect (K) of elevated air speed, ASHRAE 55-2020 5.3.2.1 and Appendix D.
+
+    CE is the equal drop of air and mean radiant temperature that gives, at still air
+    (0.1 m/s), the SET of the actual conditions. 0 where vr <= 0.1 m/s. Solved for all
+    spaces at once by bracketed regula falsi on [0, 40] K to 0.005 K.
+    """
+    ta = np.asarray(air_c, dtype=np.float64)
+    tr = np.asarray(mrt_c, dtype=np.float64)
+    n = ta.shape[0]
+    ce = np.where(np.asarray(rel_speed) <= STILL_AIR, 0.0, np.nan)
+    todo = np.flatnonzero(np.isnan(ce) & np.isfinite(ta) & np.isfinite(tr)
+                          & np.isfinite(rel_speed) & np.isfinite(rh) & np.isfinite(met)
+                          & np.isfinite(clo))
+    if todo.size == 0:
+        return ce
+    ta_s, tr_s, rh_s, met_s, clo_s = ta[todo], tr[todo], rh[todo], met[todo], clo[todo]
+    still = np.full(todo.size, STILL_AIR)
+    target = set_temperature(ta_s, tr_s, rel_speed[todo], rh_s, met_s, clo_s,
+                             for_cooling_effect=True)
+
+    def residual(x: FloatArray, idx: IndexArray) -> FloatArray:
+        s = set_temperature(ta_s[idx] - x, tr_s[idx] - x, still[idx], rh_s[idx], met_s[idx],
+                            clo_s[idx], for_cooling_effect=True)
+        result: FloatArray = s - target[idx]
+        return result
+
+    all_idx = np.arange(todo.size)
+    lo = np.zeros(todo.size)
+    f_lo = residual(lo, all_idx)
+    # SET falls by roughly 1 K per K of equal air and radiant drop: start the upper bracket
+    # just beyond that estimate and widen only where it does not bracket.
+    hi = np.clip(f_lo * 1.5 + 0.5, 0.5, 40.0)
+    f_hi = residual(hi, all_idx)
+    wide = np.flatnonzero(f_hi > 0)
+    if wide.size:
+        hi[wide] = 40.0
+        f_hi[wide] = residual(hi[wide], wide)
+    sol = illinois(residual, lo, hi, f_lo, f_hi, tolerance=0.005)
+    # no bracket: the elevated speed does not cool (CE 0), as ASHRAE 55 / pythermalcomfort
+    sol = np.where(np.isnan(sol) & np.isfinite(f_lo), 0.0, sol)
+    ce[todo] = np.maximum(sol, 0.0)
+    return ce
+
+
+def pmv_ashrae(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: FloatArray,
+               met: FloatArray, clo: FloatArray, ce: FloatArray | None = None) -> FloatArray:
+    """PMV per ASHRAE 55-2020 5.3.2: above 0.1 m/s, Fanger's PMV at still air after
+    subtracting the cooling effect from both air and mean radiant temperature."""
+    if ce is None:
+        ce = cooling_effect(air_c, mrt_c, rel_speed, rh, met, clo)
+    speed = np.where(ce > 0, STILL_AIR, rel_speed)
+    return pmv_fanger(air_c - ce, mrt_c - ce, speed, rh, met, clo)
+
+
+def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray,
+                      rh: FloatArray, met: FloatArray, clo: FloatArray, target_pmv: FloatArray,
+                      max_speed: float = MAX_ELEVATED_AIR_SPEED) -> FloatArray:
+    """Relative air speed (m/s) at which the ASHRAE 55 PMV falls to ``target_pmv``.
+
+    The number behind fan advice. Steps (ASHRAE 55-2020 5.3.2 and Appendix D):
+    1. the cooling effect needed, CEn: Fanger's PMV at still air with ta - CEn and
+       tr - CEn equals the target (regula falsi on [0, 15] K);
+    2. the SET that cooling effect stands for: SET(ta - CEn, tr - CEn, 0.1 m/s);
+    3. the air speed whose SET equals it (regula falsi on [0.1, max_speed] m/s).
+    NaN where the space is not warmer than the target (no speed needed; the caller
+    reports the current speed) or where even ``max_speed`` does not suffice.
+    """
+    ta = np.asarray(air_c, dtype=np.float64)
+    tr = np.asarray(mrt_c, dtype=np.float64)
+    n = ta.shape[0]
+    out = np.full(n, np.nan)
+    still_pmv = pmv_fanger(ta, tr, np.full(n, STILL_AIR), rh, met, clo)
+    warm = np.flatnonzero(np.isfinite(still_pmv) & (still_pmv > target_pmv))
+    if warm.size == 0:
+        return out
+    ta_w, tr_w, rh_w, met_w, clo_w = ta[warm], tr[warm], rh[warm], met[warm], clo[warm]
+    tgt = np.broadcast_to(np.asarray(target_pmv, dtype=np.float64), (n,))[warm]
+    still = np.full(warm.size, STILL_AIR)
+
+    def pmv_residual(x: FloatArray, idx: IndexArray) -> FloatArray:
+        p = pmv_fanger(ta_w[idx] - x, tr_w[idx] - x, still[idx], rh_w[idx], met_w[idx],
+                       clo_w[idx])
+        result: FloatArray = tgt[idx] - p
+        return result
+
+    all_idx = np.arange(warm.size)
+    lo = np.zeros(warm.size)
+    hi = np.full(warm.size, 15.0)
+    ce_needed = illinois(pmv_residual, lo, hi, pmv_residual(lo, all_idx),
+                         pmv_residual(hi, all_idx), tolerance=0.002)
+    ok = np.isfinite(ce_needed)
+    target_set = np.full(warm.size, np.nan)
+    target_set[ok] = set_temperature(ta_w[ok] - ce_needed[ok], tr_w[ok] - ce_needed[ok],
+                                     still[ok], rh_w[ok], met_w[ok], clo_w[ok],
+                                     for_cooling_effect=True)
+
+    def set_residual(v: FloatArray, idx: IndexArray) -> FloatArray:
+        s = set_temperature(ta_w[idx], tr_w[idx], v, rh_w[idx], met_w[idx], clo_w[idx],
+                            for_cooling_effect=True)
+        result: FloatArray = target_set[idx] - s
+        return result
+
+    v_lo = np.full(warm.size, STILL_AIR)
+    v_hi = np.full(warm.size, max_speed)
+    f_lo = np.where(ok, set_residual(v_lo, all_idx), np.nan)
+    f_hi = np.where(ok, set_residual(v_hi, all_idx), np.nan)
+    speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.005)
+    out[warm] = speed
+    return out

@@ -1,0 +1,533 @@
+"""Every comfort and heat-stress index for N spaces at once.
+
+:func:`compute_indices` takes a :class:`SpaceInputs` (arrays of what each space measured,
+NaN where it lacks a quantity, plus per-space context) and returns an ordered mapping of
+index name -> :class:`IndexColumn`. Each index carries its unit, its method, and per space
+either a value or the reason it does not apply. This is the vectorised core: a handful of
+array calls per index whatever the number of spaces.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, fields
+from typing import Final
+
+import numpy as np
+import numpy.typing as npt
+
+from thermowarden.core import adaptive, comfort, heat_stress, local_discomfort, outdoor
+from thermowarden.core import psychrometrics as psy
+from thermowarden.core import radiation
+from thermowarden.core.columns import Applicability, BoolArray, FloatArray, IndexColumn, absent
+
+MET_W_M2: Final = 58.15
+"""1 met in W/m² (ISO 7730:2005, ISO 8996)."""
+
+ISO_CATEGORY_LABELS: Final = ("A", "B", "C", "outside C")
+
+
+def _nan(n: int) -> FloatArray:
+    return np.full(n, np.nan)
+
+
+@dataclass(frozen=True)
+class SpaceInputs:
+    """What N spaces measured and the context of the people in them.
+
+    Measured quantities are (N,) float64 arrays in SI units with NaN where a space lacks the
+    quantity or its reading is stale. Context arrays are (N,) too. Build with
+    :meth:`create`, which fills anything not given with "absent" or the documented default.
+    """
+
+    n: int
+    air_temperature: FloatArray
+    relative_humidity: FloatArray
+    globe_temperature: FloatArray
+    mean_radiant_temperature: FloatArray
+    air_speed: FloatArray
+    turbulence_intensity: FloatArray
+    natural_wet_bulb: FloatArray
+    psychrometric_wet_bulb: FloatArray
+    floor_temperature: FloatArray
+    air_temperature_head: FloatArray
+    air_temperature_ankle: FloatArray
+    surface_temperature_min: FloatArray
+    outdoor_air_temperature: FloatArray
+    wbgt_time_weighted: FloatArray
+    """Time-weighted WBGT over the assessment window (°C), supplied by the engine."""
+    running_mean_outdoor: FloatArray
+    plane_radiant: dict[str, FloatArray]
+    """Side (:data:`radiation.SIDES`) -> plane radiant temperature (°C)."""
+    met: FloatArray
+    """Metabolic rate, met (1 met = 58.15 W/m²)."""
+    clo: FloatArray
+    """Basic clothing insulation, clo; NaN -> predicted from the outdoor temperature."""
+    acclimatised: BoolArray
+    indoor: BoolArray
+    solar_load: BoolArray
+    hot_work: BoolArray
+    naturally_ventilated: BoolArray
+    pressure_pa: FloatArray
+    globe_diameter_m: FloatArray
+    globe_emissivity: FloatArray
+    clothing_adjustment_k: FloatArray
+    target_pmv: FloatArray
+    posture: tuple[str, ...] = field(default=())
+    phs_edition: str = "2023"
+
+    @classmethod
+    def create(cls, n: int, **given: object) -> SpaceInputs:
+        """Inputs for ``n`` spaces; every field not in ``given`` gets its default.
+
+        Defaults: measured quantities absent; met 1.2; clo absent; acclimatised false;
+        indoor true; no solar load; not hot work; mechanically ventilated; 101325 Pa;
+        150 mm globe of emissivity 0.95; no clothing adjustment; target PMV +0.5; standing.
+        """
+        defaults: dict[str, object] = {
+            "met": np.full(n, 1.2), "acclimatised": np.zeros(n, dtype=bool),
+            "indoor": np.ones(n, dtype=bool), "solar_load": np.zeros(n, dtype=bool),
+            "hot_work": np.zeros(n, dtype=bool),
+            "naturally_ventilated": np.zeros(n, dtype=bool),
+            "pressure_pa": np.full(n, psy.STANDARD_PRESSURE_PA),
+            "globe_diameter_m": np.full(n, 0.15), "globe_emissivity": np.full(n, 0.95),
+            "clothing_adjustment_k": np.zeros(n), "target_pmv": np.full(n, 0.5),
+            "posture": ("standing",) * n, "plane_radiant": {},
+        }
+        values: dict[str, object] = {"n": n}
+        for f in fields(cls):
+            if f.name == "n":
+                continue
+            if f.name in given:
+                v = given[f.name]
+                if isinstance(v, np.ndarray) and v.dtype != np.bool_:
+                    v = v.astype(np.float64, copy=False)
+                values[f.name] = v
+            elif f.name in defaults:
+                values[f.name] = defaults[f.name]
+            elif f.name == "phs_edition":
+                values[f.name] = "2023"
+            else:
+                values[f.name] = _nan(n)
+        unknown = set(given) - {f.name for f in fields(cls)}
+        if unknown:
+            raise TypeError(f"unknown SpaceInputs fields: {sorted(unknown)}")
+        return cls(**values)  # type: ignore[arg-type]
+
+
+IndexTable = dict[str, IndexColumn]
+
+
+def _between(x: FloatArray, lo: float, hi: float) -> BoolArray:
+    result: BoolArray = (x >= lo) & (x <= hi)
+    return result
+
+
+def _psychrometrics(s: SpaceInputs, out: IndexTable) -> FloatArray:
+    """Humidity indices; returns the relative humidity (%) the other indices use."""
+    n = s.n
+    rh_from_psy = psy.relative_humidity_from_wet_bulb(s.air_temperature, s.psychrometric_wet_bulb,
+                                                      s.pressure_pa)
+    rh = np.where(np.isfinite(s.relative_humidity), s.relative_humidity, rh_from_psy)
+    app = Applicability(n)
+    app.require(np.isfinite(s.relative_humidity) | np.isfinite(s.psychrometric_wet_bulb),
+                "input missing or stale: relative_humidity (or psychrometric_wet_bulb)")
+    app.require_present([("air_temperature", s.air_temperature)])
+    app.require(np.isfinite(rh), "wet bulb above dry bulb: impossible psychrometer reading")
+    method = np.where(np.isfinite(s.relative_humidity), 0, 1)
+    label = "measured" if not method.any() else (
+        "ASHRAE Handbook Fundamentals 2017 ch. 1 (from the wet/dry-bulb pair)"
+        if method.all() else "measured, or ASHRAE 2017 ch. 1 from the wet/dry-bulb pair")
+    out["relative_humidity"] = app.column(rh, "%", label)
+    ok = app.ok
+    ta = np.where(ok, s.air_temperature, np.nan)
+    rh_ok = np.where(ok, rh, np.nan)
+    method_psy = "ASHRAE Handbook Fundamentals 2017 ch. 1"
+    out["dew_point"] = app.column(psy.dew_point(ta, rh_ok), "°C", method_psy)
+    out["wet_bulb"] = app.column(psy.wet_bulb(ta, rh_ok, s.pressure_pa), "°C", method_psy)
+    out["humidity_ratio"] = app.column(psy.humidity_ratio(ta, rh_ok, s.pressure_pa), "kg/kg",
+                                       method_psy)
+    return rh_ok
+
+
+def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
+    """Mean radiant and operative temperature; returns (mrt, operative)."""
+    n = s.n
+    planes = s.plane_radiant
+    have_all_planes = all(side in planes for side in radiation.SIDES)
+    from_planes = _nan(n)
+    if have_all_planes:
+        by_posture = {p: radiation.mean_radiant_from_planes(planes, p)  # type: ignore[arg-type]
+                      for p in ("standing", "seated")}
+        seated = np.array([p == "seated" for p in s.posture], dtype=bool)
+        from_planes = np.where(seated, by_posture["seated"], by_posture["standing"])
+    speed_for_globe = np.where(np.isfinite(s.air_speed), s.air_speed, 0.0)
+    from_globe = radiation.mean_radiant_from_globe(s.globe_temperature, s.air_temperature,
+                                                   speed_for_globe, s.globe_diameter_m,
+                                                   s.globe_emissivity)
+    mrt = np.where(np.isfinite(s.mean_radiant_temperature), s.mean_radiant_temperature,
+                   np.where(np.isfinite(from_globe), from_globe, from_planes))
+    app = Applicability(n)
+    app.require(np.isfinite(mrt), "input missing or stale: mean_radiant_temperature (or "
+                "globe_temperature with air_temperature, or six plane radiant temperatures)")
+    out["mean_radiant_temperature"] = app.column(
+        mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
+        "convection; six planes: posture weights)")
+    op_app = Applicability(n)
+    op_app.require_present([("air_temperature", s.air_temperature),
+                            ("mean_radiant_temperature", mrt)])
+    op_app.require(np.isfinite(s.air_speed), "input missing or stale: air_speed (sets the "
+                   "weighting of air and radiant temperature)")
+    operative = radiation.operative_temperature(s.air_temperature, mrt, s.air_speed)
+    out["operative_temperature"] = op_app.column(operative, "°C",
+                                                 "ASHRAE 55-2020 Appendix A (A = 0.5/0.6/0.7)")
+    return np.where(app.ok, mrt, np.nan), np.where(op_app.ok, operative, np.nan)
+
+
+def _asymmetry(s: SpaceInputs, out: IndexTable) -> None:
+    """Radiant asymmetry (K) and its ISO 7730 percentage dissatisfied."""
+    n = s.n
+    p = s.plane_radiant
+    nan = _nan(n)
+    horizontal = p.get("front", nan) - p.get("back", nan)  # window side minus room side
+    vertical = p.get("up", nan) - p.get("down", nan)
+    pd_wall = np.where(horizontal >= 0, local_discomfort.warm_wall_pd(np.abs(horizontal)),
+                       local_discomfort.cool_wall_pd(np.abs(horizontal)))
+    pd_ceiling = np.where(vertical >= 0, local_discomfort.warm_ceiling_pd(np.abs(vertical)),
+                          local_discomfort.cool_ceiling_pd(np.abs(vertical)))
+    pd_wall = np.where(np.isnan(horizontal), np.nan, pd_wall)
+    pd_ceiling = np.where(np.isnan(vertical), np.nan, pd_ceiling)
+    asym = np.fmax(np.abs(horizontal), np.abs(vertical))
+    pd = np.fmax(pd_wall, pd_ceiling)
+    app = Applicability(n)
+    app.require(np.isfinite(asym), "input missing or stale: a pair of opposite plane radiant "
+                "temperatures (front/back = window/room, or up/down)")
+    valid = (np.isnan(horizontal) | np.where(horizontal >= 0, np.abs(horizontal) < 35,
+                                             np.abs(horizontal) < 15))
+    valid &= np.isnan(vertical) | np.where(vertical >= 0, np.abs(vertical) < 23,
+                                           np.abs(vertical) < 15)
+    app.require(valid, "outside ISO 7730 range: radiant asymmetry beyond the measured "
+                "curves (warm ceiling 23 K, cool wall/ceiling 15 K, warm wall 35 K)")
+    method = "ISO 7730:2005 6.5"
+    out["radiant_asymmetry_horizontal"] = app.column(horizontal, "K", method)
+    out["radiant_asymmetry_vertical"] = app.column(vertical, "K", method)
+    out["radiant_asymmetry"] = app.column(asym, "K", method)
+    out["radiant_asymmetry_pd"] = app.column(pd, "%", method)
+    out["radiant_asymmetry_category"] = app.column(
+        local_discomfort.category(pd, "radiant_asymmetry"), "category", "ISO 7730:2005 Table A.4",
+        ISO_CATEGORY_LABELS)
+
+
+def _local_discomfort(s: SpaceInputs, out: IndexTable) -> None:
+    n = s.n
+    tu = np.where(np.isfinite(s.turbulence_intensity), s.turbulence_intensity,
+                  local_discomfort.DEFAULT_TURBULENCE_INTENSITY)
+    app = Applicability(n)
+    app.require_present([("air_temperature", s.air_temperature), ("air_speed", s.air_speed)])
+    app.require(_between(s.air_temperature, 20.0, 26.0),
+                "outside ISO 7730 range: draught rate needs air_temperature 20-26 °C")
+    app.require(s.air_speed < 0.5, "outside ISO 7730 range: draught rate needs air_speed < 0.5 m/s")
+    app.require(_between(tu, 10.0, 60.0),
+                "outside ISO 7730 range: turbulence_intensity must be 10-60 %")
+    app.require(s.indoor, "draught rate applies to indoor spaces")
+    dr = local_discomfort.draught_rate(s.air_temperature, s.air_speed, tu)
+    out["draught_rate"] = app.column(dr, "%", "ISO 7730:2005 6.2")
+    out["draught_category"] = app.column(local_discomfort.category(dr, "draught_rate"),
+                                         "category", "ISO 7730:2005 Table A.2", ISO_CATEGORY_LABELS)
+
+    dv = s.air_temperature_head - s.air_temperature_ankle
+    app = Applicability(n)
+    app.require_present([("air_temperature_head", s.air_temperature_head),
+                         ("air_temperature_ankle", s.air_temperature_ankle)])
+    app.require(dv < 8.0, "outside ISO 7730 range: vertical difference must be below 8 K")
+    pd_v = local_discomfort.vertical_difference_pd(dv)
+    out["vertical_temperature_difference"] = app.column(dv, "K", "ISO 7726:1998 (head 1.1 m "
+                                                        "minus ankle 0.1 m, seated)")
+    out["vertical_temperature_difference_pd"] = app.column(pd_v, "%", "ISO 7730:2005 6.3")
+    out["vertical_temperature_difference_category"] = app.column(
+        local_discomfort.category(pd_v, "vertical"), "category", "ISO 7730:2005 Table A.3",
+        ISO_CATEGORY_LABELS)
+
+    app = Applicability(n)
+    app.require_present([("floor_temperature", s.floor_temperature)])
+    app.require(_between(s.floor_temperature, 10.0, 40.0),
+                "outside ISO 7730 range: floor_temperature 10-40 °C")
+    pd_f = local_discomfort.floor_temperature_pd(s.floor_temperature)
+    out["floor_temperature_pd"] = app.column(pd_f, "%", "ISO 7730:2005 6.4")
+    out["floor_temperature_category"] = app.column(local_discomfort.category(pd_f, "floor"),
+                                                   "category", "ISO 7730:2005 Table A.3",
+                                                   ISO_CATEGORY_LABELS)
+
+
+def _people(s: SpaceInputs) -> tuple[FloatArray, FloatArray, str]:
+    """Clothing (clo, basic) and where it came from."""
+    predicted = comfort.clothing_from_outdoor(
+        np.where(np.isnan(s.clo), s.outdoor_air_temperature, np.nan))
+    clo = np.where(np.isfinite(s.clo), s.clo, predicted)
+    return clo, predicted, "configured, or Schiavon and Lee (2013) from the outdoor temperature"
+
+
+def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatArray,
+             out: IndexTable) -> None:
+    n = s.n
+    clo, _, _ = _people(s)
+    met = s.met
+    vr = comfort.relative_air_speed(s.air_speed, met)
+    clo_d = comfort.dynamic_clothing(clo, met)
+    inputs_present = [("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
+                      ("air_speed", s.air_speed), ("relative_humidity", rh)]
+
+    iso = Applicability(n)
+    iso.require(s.indoor, "PMV applies to indoor spaces")
+    iso.require_present(inputs_present)
+    iso.require(np.isfinite(clo), "clothing not configured and no outdoor temperature to "
+                "predict it")
+    iso.require(_between(s.air_temperature, 10.0, 30.0),
+                "outside ISO 7730 range: air_temperature 10-30 °C")
+    iso.require(_between(mrt, 10.0, 40.0),
+                "outside ISO 7730 range: mean_radiant_temperature 10-40 °C")
+    iso.require(_between(vr, 0.0, 1.0), "outside ISO 7730 range: relative air speed 0-1 m/s")
+    iso.require(psy.vapour_pressure(s.air_temperature, rh) <= 2700.0,
+                "outside ISO 7730 range: water vapour pressure above 2700 Pa")
+    iso.require(_between(met, 0.8, 4.0), "outside ISO 7730 range: met 0.8-4")
+    iso.require(_between(clo_d, 0.0, 2.0), "outside ISO 7730 range: clo 0-2")
+    ok = iso.ok
+    pmv_i = comfort.pmv_fanger(np.where(ok, s.air_temperature, np.nan), mrt, vr, rh, met, clo_d)
+    iso.require(_between(pmv_i, -2.0, 2.0) | ~np.isfinite(pmv_i),
+                "outside ISO 7730 range: PMV beyond ±2 (use a heat or cold stress index)")
+    ppd_i = comfort.ppd_from_pmv(pmv_i)
+    method_iso = "ISO 7730:2005 (vr = v + 0.3 (M - 1); ASHRAE 55 dynamic clothing)"
+    out["pmv_iso"] = iso.column(pmv_i, "1", method_iso)
+    out["ppd_iso"] = iso.column(ppd_i, "%", "ISO 7730:2005 eq. (5)")
+    out["comfort_category_iso"] = iso.column(local_discomfort.category(ppd_i, "ppd"), "category",
+                                             "ISO 7730:2005 Table A.1", ISO_CATEGORY_LABELS)
+
+    ash = Applicability(n)
+    ash.require(s.indoor, "PMV applies to indoor spaces")
+    ash.require_present(inputs_present)
+    ash.require(np.isfinite(clo), "clothing not configured and no outdoor temperature to "
+                "predict it")
+    ash.require(_between(s.air_temperature, 10.0, 40.0),
+                "outside ASHRAE 55 range: air_temperature 10-40 °C")
+    ash.require(_between(mrt, 10.0, 40.0),
+                "outside ASHRAE 55 range: mean_radiant_temperature 10-40 °C")
+    ash.require(_between(vr, 0.0, 2.0), "outside ASHRAE 55 range: relative air speed 0-2 m/s")
+    ash.require(_between(met, 1.0, 2.0), "outside ASHRAE 55 scope: met 1.0-2.0")
+    ash.require(_between(clo_d, 0.0, 1.5), "outside ASHRAE 55 scope: clo 0-1.5")
+    ok = ash.ok
+    ta_a = np.where(ok, s.air_temperature, np.nan)
+    ce = comfort.cooling_effect(ta_a, mrt, vr, rh, met, clo_d)
+    pmv_a = comfort.pmv_ashrae(ta_a, mrt, vr, rh, met, clo_d, ce)
+    method_a = "ASHRAE 55-2020 5.3 (SET-based cooling effect above 0.1 m/s)"
+    out["pmv_ashrae"] = ash.column(pmv_a, "1", method_a)
+    out["ppd_ashrae"] = ash.column(comfort.ppd_from_pmv(pmv_a), "%", method_a)
+    out["cooling_effect"] = ash.column(ce, "K", "ASHRAE 55-2020 5.3.2 and Appendix D")
+    set_v = comfort.set_temperature(ta_a, mrt, vr, rh, met, clo_d, pressure_pa=s.pressure_pa)
+    out["set"] = ash.column(set_v, "°C", "ASHRAE 55-2020 Appendix D (Gagge two-node model)")
+
+    need = Applicability(n)
+    need.require(ok, "ASHRAE 55 PMV does not apply to this space")
+    need.require(~(pmv_a <= s.target_pmv), "not warmer than the target PMV: no extra air speed "
+                 "needed")
+    v_needed_rel = comfort.air_speed_for_pmv(np.where(need.ok, ta_a, np.nan), mrt, vr, rh, met,
+                                             clo_d, s.target_pmv)
+    need.require(np.isfinite(v_needed_rel) | ~need.ok, "no air speed up to 2 m/s brings PMV "
+                 "down to the target")
+    v_needed = np.where(met > 1.0, v_needed_rel - 0.3 * (met - 1.0), v_needed_rel)
+    out["cooling_air_speed_needed"] = need.column(
+        np.maximum(v_needed, 0.0), "m/s",
+        "ASHRAE 55-2020 5.3.2 (speed whose cooling effect brings PMV to the target)")
+
+    # Adaptive comfort, for naturally ventilated spaces.
+    rm_app = Applicability(n)
+    rm_app.require(np.isfinite(s.running_mean_outdoor),
+                   "input missing: seven daily outdoor means (newest first)")
+    out["running_mean_outdoor_temperature"] = rm_app.column(
+        s.running_mean_outdoor, "°C", "EN 16798-1:2019 eq. (B.2)")
+    tpma = s.running_mean_outdoor
+    a_app = Applicability(n)
+    a_app.require(s.indoor, "adaptive comfort applies to indoor spaces")
+    a_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
+    a_app.require(_between(tpma, 10.0, 33.5),
+                  "outside ASHRAE 55 adaptive range: prevailing mean outdoor 10-33.5 °C")
+    a_app.require(_between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: met 1.0-1.3")
+    t_cmf = adaptive.ashrae_comfort_temperature(tpma)
+    m55 = "ASHRAE 55-2020 5.4"
+    out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
+    for band, half in adaptive.ASHRAE_BANDS_K.items():
+        out[f"adaptive_ashrae_{band}_lower"] = a_app.column(t_cmf - half, "°C", m55)
+        out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half, "°C", m55)
+    en_app = Applicability(n)
+    en_app.require(s.indoor, "adaptive comfort applies to indoor spaces")
+    en_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
+    en_app.require(_between(tpma, 10.0, 30.0),
+                   "outside EN 16798-1 adaptive range: running mean outdoor 10-30 °C")
+    theta_c = adaptive.en_comfort_temperature(tpma)
+    m_en = "EN 16798-1:2019 Annex B"
+    out["adaptive_en_comfort"] = en_app.column(theta_c, "°C", m_en)
+    for cat, (up, down) in adaptive.EN_BANDS_K.items():
+        out[f"adaptive_en_{cat}_lower"] = en_app.column(theta_c - down, "°C", m_en)
+        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up, "°C", m_en)
+    en_app.require(np.isfinite(operative), "input missing or stale: operative temperature")
+    out["adaptive_en_category"] = en_app.column(adaptive.en_category(operative, theta_c),
+                                                "category", m_en, adaptive.EN_CATEGORY_LABELS)
+
+
+def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable,
+                 with_phs: bool) -> None:
+    n = s.n
+    # natural wet bulb: measured, else estimated indoors without radiant load
+    twb = psy.wet_bulb(s.air_temperature, rh, s.pressure_pa)
+    est = heat_stress.natural_wet_bulb_indoor(s.air_temperature, twb, s.air_speed)
+    est_app = Applicability(n)
+    est_app.require(np.isnan(s.natural_wet_bulb), "measured: natural_wet_bulb sensor present")
+    est_app.require(s.indoor, "no estimate outdoors: a natural_wet_bulb sensor is needed")
+    est_app.require_present([("air_temperature", s.air_temperature),
+                             ("relative_humidity", rh), ("air_speed", s.air_speed),
+                             ("globe_temperature", s.globe_temperature)])
+    est_app.require(np.abs(s.globe_temperature - s.air_temperature) <= 1.0,
+                    "no estimate under radiant load (globe more than 1 K from air): a "
+                    "natural_wet_bulb sensor is needed")
+    est_col = est_app.column(est, "°C", "Bernard and Pourmoghani (1999), indoor, no radiant load")
+    out["natural_wet_bulb_estimated"] = est_col
+    tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
+
+    w_app = Applicability(n)
+    w_app.require(np.isfinite(tnw), "input missing or stale: natural_wet_bulb (and no estimate "
+                  "possible)")
+    w_app.require_present([("globe_temperature", s.globe_temperature)])
+    w_app.require(~s.solar_load | np.isfinite(s.air_temperature),
+                  "input missing or stale: air_temperature (needed with solar load)")
+    w = heat_stress.wbgt(tnw, s.globe_temperature, s.air_temperature, s.solar_load)
+    out["wbgt"] = w_app.column(w, "°C", "ISO 7243:2017 eq. (1)/(2)")
+    twa_app = Applicability(n)
+    twa_app.require(np.isfinite(s.wbgt_time_weighted), "no time-weighted WBGT: fewer than "
+                    "48 of the last 60 minutes covered")
+    out["wbgt_time_weighted"] = twa_app.column(s.wbgt_time_weighted, "°C",
+                                               "ISO 7243:2017 (60-min time-weighted average)")
+    basis = np.where(np.isfinite(s.wbgt_time_weighted), s.wbgt_time_weighted, w)
+    eff = basis + s.clothing_adjustment_k
+    eff_app = Applicability(n)
+    eff_app.require(np.isfinite(basis), "no WBGT (see wbgt)")
+    out["wbgt_effective"] = eff_app.column(eff, "°C", "ISO 7243:2017 (time-weighted WBGT where "
+                                           "available, else spot value; plus clothing adjustment)")
+
+    m_w = heat_stress.metabolic_rate_w(s.met * MET_W_M2)
+    m_app = Applicability(n)
+    m_app.require(np.isfinite(m_w), "metabolic rate not configured")
+    m_app.require(_between(m_w, 100.0, 800.0),
+                  "outside ISO 7243 Annex A range: metabolic rate 100-800 W")
+    out["metabolic_rate"] = m_app.column(m_w, "W", "ISO 8996:2021 (standard person, 1.8 m²)")
+    ref_a = heat_stress.reference_acclimatised(m_w)
+    ref_u = heat_stress.reference_unacclimatised(m_w)
+    out["wbgt_reference_acclimatised"] = m_app.column(ref_a, "°C", heat_stress.REFERENCE_METHOD)
+    out["wbgt_reference_unacclimatised"] = m_app.column(ref_u, "°C", heat_stress.REFERENCE_METHOD)
+    margin_app = Applicability(n)
+    margin_app.require(m_app.ok, "no reference value (metabolic rate)")
+    margin_app.require(np.isfinite(eff), "no WBGT (see wbgt)")
+    out["wbgt_margin_acclimatised"] = margin_app.column(ref_a - eff, "K",
+                                                        heat_stress.REFERENCE_METHOD)
+    out["wbgt_margin_unacclimatised"] = margin_app.column(ref_u - eff, "K",
+                                                          heat_stress.REFERENCE_METHOD)
+
+    # ISO 7933 PHS, hot work only
+    method_phs = f"ISO 7933:{s.phs_edition}"
+    phs_names = {"t_re": ("phs_rectal_temperature", "°C"), "sweat_loss_g": ("phs_sweat_loss", "g"),
+                 "d_lim_t_re": ("phs_limit_rectal", "min"),
+                 "d_lim_loss_50": ("phs_limit_water_loss_50", "min"),
+                 "d_lim_loss_95": ("phs_limit_water_loss_95", "min")}
+    if not with_phs:
+        for name, unit in phs_names.values():
+            out[name] = absent(n, "PHS not requested for this evaluation", unit, method_phs)
+        return
+    clo, _, _ = _people(s)
+    app = Applicability(n)
+    app.require(s.hot_work, "PHS is computed only for spaces marked as hot work")
+    app.require_present([("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
+                         ("air_speed", s.air_speed), ("relative_humidity", rh)])
+    app.require(np.isfinite(clo), "clothing not configured")
+    app.require(_between(s.air_temperature, 15.0, 50.0),
+                "outside ISO 7933 range: air_temperature 15-50 °C")
+    app.require(_between(mrt - s.air_temperature, 0.0, 60.0),
+                "outside ISO 7933 range: mean radiant minus air temperature 0-60 K")
+    app.require(psy.vapour_pressure(s.air_temperature, rh) <= 4500.0,
+                "outside ISO 7933 range: water vapour pressure above 4.5 kPa")
+    app.require(_between(s.air_speed, 0.0, 3.0), "outside ISO 7933 range: air_speed 0-3 m/s")
+    app.require(_between(clo, 0.1, 1.0), "outside ISO 7933 range: clo 0.1-1.0")
+    m_wm2 = s.met * MET_W_M2
+    if s.phs_edition == "2004":
+        app.require(_between(m_wm2, 100.0, 450.0), "outside ISO 7933:2004 range: metabolic rate "
+                    "100-450 W/m²")
+    else:
+        app.require(_between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: metabolic rate "
+                    "56-250 W/m²")
+    ok = app.ok
+    res = heat_stress.predicted_heat_strain(
+        np.where(ok, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
+        list(s.posture), s.acclimatised.astype(np.float64), edition=s.phs_edition)
+    for key, (name, unit) in phs_names.items():
+        out[name] = app.column(res[key], unit, method_phs)
+
+
+def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -> None:
+    n = s.n
+    app = Applicability(n)
+    app.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
+    app.require(s.air_temperature >= 20.0, "heat index applies at air_temperature >= 20 °C")
+    out["heat_index"] = app.column(outdoor.heat_index(s.air_temperature, rh), "°C",
+                                   "NWS heat index (Rothfusz regression with adjustments)")
+    hx = Applicability(n)
+    hx.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
+    hx.require(s.air_temperature >= 20.0, "humidex applies at air_temperature >= 20 °C")
+    out["humidex"] = hx.column(outdoor.humidex(s.air_temperature, rh), "1",
+                               "Masterson and Richardson (1979), Environment Canada")
+    u = Applicability(n)
+    u.require(~s.indoor, "UTCI applies to outdoor spaces")
+    u.require_present([("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
+                       ("air_speed", s.air_speed), ("relative_humidity", rh)])
+    u.require(_between(s.air_temperature, -50.0, 50.0),
+              "outside UTCI range: air_temperature -50..50 °C")
+    u.require(_between(mrt - s.air_temperature, -30.0, 70.0),
+              "outside UTCI range: mean radiant minus air temperature -30..70 K")
+    u.require(_between(s.air_speed, 0.5, 17.0), "outside UTCI range: wind at 10 m 0.5-17 m/s")
+    u.require(psy.vapour_pressure(s.air_temperature, rh) <= 5000.0,
+              "outside UTCI range: water vapour pressure above 5 kPa")
+    ok = u.ok
+    out["utci"] = u.column(outdoor.utci(np.where(ok, s.air_temperature, np.nan), mrt, s.air_speed,
+                                        rh), "°C", "UTCI, Broede et al. (2012) polynomial")
+
+
+def _condensation(s: SpaceInputs, out: IndexTable) -> None:
+    app = Applicability(s.n)
+    app.require_present([("surface_temperature", s.surface_temperature_min)])
+    app.require(out["dew_point"].present, "no dew point (see dew_point)")
+    margin = s.surface_temperature_min - out["dew_point"].values
+    out["condensation_margin"] = app.column(margin, "K", "coldest monitored surface minus dew "
+                                            "point (ASHRAE 2017 ch. 1)")
+
+
+def compute_indices(s: SpaceInputs, with_phs: bool = True) -> IndexTable:
+    """Every index for every space in ``s``; see the module docstring.
+
+    ``with_phs=False`` skips ISO 7933 PHS (a 480-minute simulation per hot-work space),
+    which the engine runs on its own, slower schedule.
+    """
+    out: IndexTable = {}
+    mrt, operative = _radiant(s, out)
+    rh = _psychrometrics(s, out)
+    _asymmetry(s, out)
+    _local_discomfort(s, out)
+    _comfort(s, rh, mrt, operative, out)
+    _heat_stress(s, rh, mrt, out, with_phs)
+    _outdoor(s, rh, mrt, out)
+    _condensation(s, out)
+    return out
+
+
+def space_result(table: IndexTable, i: int) -> dict[str, dict[str, object]]:
+    """The JSON-ready result of space ``i``: index name -> value, unit, method, reason."""
+    return {name: col.as_dict(i) for name, col in table.items()}
+
+
+def select(table: IndexTable, index: npt.NDArray[np.intp]) -> IndexTable:
+    """The same table for a subset of spaces."""
+    return {k: v.take(index) for k, v in table.items()}
