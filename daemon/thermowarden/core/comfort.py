@@ -14,9 +14,10 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+from numba import float64, vectorize
 from pythermalcomfort.models import clo_tout as _ptc_clo_tout
 from pythermalcomfort.models import pmv_ppd_iso as _ptc_pmv_ppd_iso
-from pythermalcomfort.models import set_tmp as _ptc_set_tmp
+from pythermalcomfort.models.two_nodes_gagge import _gagge_two_nodes_optimized
 
 from thermowarden.core.columns import FloatArray
 from thermowarden.core.solve import IndexArray, illinois
@@ -92,6 +93,43 @@ def pmv_fanger(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: 
     return out
 
 
+BODY_SURFACE_AREA_SET = 1.8258
+"""m²: the body surface area pythermalcomfort's ``set_tmp`` uses by default."""
+
+
+_SET_SIGNATURE = [float64(float64, float64, float64, float64, float64, float64, float64)]
+
+
+@vectorize(_SET_SIGNATURE, target="parallel", cache=True)
+def _set_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
+                  vapor_pressure_torr: float, p_atm: float) -> float:  # pragma: no cover - numba
+    """SET of a standing person, compiled as a numpy ufunc over all cores.
+
+    pythermalcomfort 4.8.0 compiles only the cooling-effect variant as a (single-threaded)
+    ufunc; its public ``set_tmp`` loops over spaces in Python for the plain SET (about
+    8 us per space). This calls the same pinned two-node kernel for all spaces in compiled
+    code; a test checks it against ``set_tmp``. Call it from one thread at a time (numba's
+    default threading layer is not re-entrant): the engine thread is the only caller.
+    """
+    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
+                                      BODY_SURFACE_AREA_SET, p_atm, 1, False)[0]
+
+
+@vectorize(_SET_SIGNATURE, target="parallel", cache=True)
+def _set_for_ce_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
+                         vapor_pressure_torr: float, p_atm: float
+                         ) -> float:  # pragma: no cover - numba
+    """The SET variant ASHRAE 55's cooling effect uses (``set_tmp(calculate_ce=True)``)."""
+    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
+                                      BODY_SURFACE_AREA_SET, p_atm, 1, True)[0]
+
+
+def _p_sat_torr(t_c: FloatArray) -> FloatArray:
+    """Saturation pressure (torr) as the two-node model computes it (Antoine form)."""
+    result: FloatArray = np.exp(18.6686 - 4030.183 / (np.asarray(t_c) + 235.0))
+    return result
+
+
 def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh: FloatArray,
                     met: FloatArray, clo: FloatArray, *, for_cooling_effect: bool = False,
                     pressure_pa: FloatArray | float = 101_325.0) -> FloatArray:
@@ -105,14 +143,14 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
     out = np.full(n, np.nan)
     ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(speed) & np.isfinite(rh)
           & np.isfinite(met) & np.isfinite(clo))
-    if ok.any():
-        p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            res = _ptc_set_tmp(tdb=air_c[ok], tr=mrt_c[ok], v=speed[ok], rh=rh[ok],
-                               met=met[ok], clo=clo[ok], p_atm=p[ok], limit_inputs=False,
-                               round_output=False, calculate_ce=for_cooling_effect)
-        out[ok] = np.asarray(res.set, dtype=np.float64)
+    if not ok.any():
+        return out
+    p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
+    kernel = _set_for_ce_compiled if for_cooling_effect else _set_compiled
+    ta = air_c[ok]
+    vp = rh[ok] * _p_sat_torr(ta) / 100.0
+    with np.errstate(all="ignore"):
+        out[ok] = kernel(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok])
     return out
 
 
@@ -122,7 +160,8 @@ def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, 
 
     CE is the equal drop of air and mean radiant temperature that gives, at still air
     (0.1 m/s), the SET of the actual conditions. 0 where vr <= 0.1 m/s. Solved for all
-    spaces at once by bracketed regula falsi on [0, 40] K to 0.005 K.
+    spaces at once by bracketed regula falsi on [0, 40] K until the SET residual is within
+    0.01 K (CE to about 0.01 K: SET falls about 1 K per K of CE).
     """
     ta = np.asarray(air_c, dtype=np.float64)
     tr = np.asarray(mrt_c, dtype=np.float64)
@@ -149,13 +188,13 @@ def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, 
     f_lo = residual(lo, all_idx)
     # SET falls by roughly 1 K per K of equal air and radiant drop: start the upper bracket
     # just beyond that estimate and widen only where it does not bracket.
-    hi = np.clip(f_lo * 1.5 + 0.5, 0.5, 40.0)
+    hi = np.clip(f_lo * 1.2 + 0.05, 0.05, 40.0)
     f_hi = residual(hi, all_idx)
     wide = np.flatnonzero(f_hi > 0)
     if wide.size:
         hi[wide] = 40.0
         f_hi[wide] = residual(hi[wide], wide)
-    sol = illinois(residual, lo, hi, f_lo, f_hi, tolerance=0.005)
+    sol = illinois(residual, lo, hi, f_lo, f_hi, tolerance=0.005, residual_tolerance=0.01)
     # no bracket: the elevated speed does not cool (CE 0), as ASHRAE 55 / pythermalcomfort
     sol = np.where(np.isnan(sol) & np.isfinite(f_lo), 0.0, sol)
     ce[todo] = np.maximum(sol, 0.0)
@@ -207,23 +246,26 @@ def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArra
     lo = np.zeros(warm.size)
     hi = np.full(warm.size, 15.0)
     ce_needed = illinois(pmv_residual, lo, hi, pmv_residual(lo, all_idx),
-                         pmv_residual(hi, all_idx), tolerance=0.002)
+                         pmv_residual(hi, all_idx), tolerance=0.002,
+                         residual_tolerance=0.001)
     ok = np.isfinite(ce_needed)
     target_set = np.full(warm.size, np.nan)
     target_set[ok] = set_temperature(ta_w[ok] - ce_needed[ok], tr_w[ok] - ce_needed[ok],
                                      still[ok], rh_w[ok], met_w[ok], clo_w[ok],
                                      for_cooling_effect=True)
 
-    def set_residual(v: FloatArray, idx: IndexArray) -> FloatArray:
-        s = set_temperature(ta_w[idx], tr_w[idx], v, rh_w[idx], met_w[idx], clo_w[idx],
-                            for_cooling_effect=True)
+    # SET is close to linear in log(speed): search there.
+    def set_residual(log_v: FloatArray, idx: IndexArray) -> FloatArray:
+        s = set_temperature(ta_w[idx], tr_w[idx], np.exp(log_v), rh_w[idx], met_w[idx],
+                            clo_w[idx], for_cooling_effect=True)
         result: FloatArray = target_set[idx] - s
         return result
 
-    v_lo = np.full(warm.size, STILL_AIR)
-    v_hi = np.full(warm.size, max_speed)
+    v_lo = np.full(warm.size, np.log(STILL_AIR))
+    v_hi = np.full(warm.size, np.log(max_speed))
     f_lo = np.where(ok, set_residual(v_lo, all_idx), np.nan)
     f_hi = np.where(ok, set_residual(v_hi, all_idx), np.nan)
-    speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.005)
-    out[warm] = speed
+    log_speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.01,
+                         residual_tolerance=0.01)
+    out[warm] = np.exp(log_speed)
     return out

@@ -376,7 +376,7 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                  with_phs: bool) -> None:
     n = s.n
     # natural wet bulb: measured, else estimated indoors without radiant load
-    twb = psy.wet_bulb(s.air_temperature, rh, s.pressure_pa)
+    twb = out["wet_bulb"].values
     est = heat_stress.natural_wet_bulb_indoor(s.air_temperature, twb, s.air_speed)
     est_app = Applicability(n)
     est_app.require(np.isnan(s.natural_wet_bulb), "measured: natural_wet_bulb sensor present")

@@ -20,12 +20,13 @@ SubsetFunction = Callable[[FloatArray, IndexArray], FloatArray]
 
 
 def illinois(f: SubsetFunction, lo: FloatArray, hi: FloatArray, f_lo: FloatArray,
-             f_hi: FloatArray, tolerance: float, max_iterations: int = 40) -> FloatArray:
+             f_hi: FloatArray, tolerance: float, max_iterations: int = 40,
+             residual_tolerance: float = 0.0) -> FloatArray:
     """Bracketed regula falsi with the Illinois modification, per element.
 
     Requires f(lo) and f(hi) of opposite signs (elements without a bracket come back NaN).
     Converges superlinearly on smooth monotone functions; stops an element when its
-    bracket is narrower than ``tolerance`` or its residual is zero.
+    bracket is narrower than ``tolerance`` or its residual is within ``residual_tolerance``.
     """
     a = np.asarray(lo, dtype=np.float64).copy()
     b = np.asarray(hi, dtype=np.float64).copy()
@@ -62,7 +63,8 @@ def illinois(f: SubsetFunction, lo: FloatArray, hi: FloatArray, f_lo: FloatArray
         fb[active[halve_b]] *= 0.5
         fa[active[halve_a]] *= 0.5
         side[active] = kept
-        done = (np.abs(b[active] - a[active]) < tolerance) | (fc == 0) | ~np.isfinite(fc)
+        done = ((np.abs(b[active] - a[active]) < tolerance)
+                | (np.abs(fc) <= residual_tolerance) | ~np.isfinite(fc))
         finished = active[done]
         result[finished] = np.where(np.isfinite(fc[done]), c[done], np.nan)
         active = active[~done]

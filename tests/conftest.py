@@ -1,0 +1,32 @@
+"""Shared test fixtures and the published check values."""
+
+from __future__ import annotations
+
+import pathlib
+from typing import Any
+
+import pytest
+import yaml
+
+DATA = pathlib.Path(__file__).parent / "data"
+REPO = pathlib.Path(__file__).parent.parent
+
+
+def load_published() -> dict[str, Any]:
+    with open(DATA / "published_values.yaml", encoding="utf-8") as fh:
+        data: dict[str, Any] = yaml.safe_load(fh)
+    return data
+
+
+PUBLISHED = load_published()
+
+
+def table(name: str) -> list[dict[str, Any]]:
+    """Rows of one published table as dicts keyed by its columns."""
+    group = PUBLISHED[name]
+    return [dict(zip(group["columns"], row, strict=True)) for row in group["rows"]]
+
+
+@pytest.fixture
+def published() -> dict[str, Any]:
+    return PUBLISHED

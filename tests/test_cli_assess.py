@@ -1,0 +1,72 @@
+"""``thermowarden assess``: the spot-check contract, run as a user runs it."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import pytest
+
+REQUIRED = ["operative_temperature", "mean_radiant_temperature", "radiant_asymmetry",
+            "dew_point", "wet_bulb", "humidity_ratio", "relative_humidity", "pmv_iso", "ppd_iso",
+            "pmv_ashrae", "ppd_ashrae", "set", "cooling_effect", "draught_rate", "wbgt",
+            "wbgt_reference_acclimatised", "wbgt_reference_unacclimatised",
+            "phs_rectal_temperature", "phs_sweat_loss", "phs_limit_rectal",
+            "phs_limit_water_loss_50", "phs_limit_water_loss_95", "heat_index", "humidex", "utci",
+            "running_mean_outdoor_temperature", "adaptive_ashrae_comfort", "adaptive_en_comfort"]
+
+
+def run(payload: object, *args: str) -> subprocess.CompletedProcess[str]:
+    text = payload if isinstance(payload, str) else json.dumps(payload)
+    return subprocess.run([sys.executable, "-m", "thermowarden.cli", "assess", *args],
+                          input=text, capture_output=True, text=True, timeout=120)
+
+
+def test_office_spot_check_json():
+    r = run({"air_temperature": 24.0, "relative_humidity": 50, "globe_temperature": 25.0,
+             "air_speed": 0.15, "met": 1.2, "clo": 0.6,
+             "plane_radiant_temperature_window": 30.0, "plane_radiant_temperature_room": 24.0,
+             "outdoor_daily_means": [22.0, 20.5, 19.0, 18.5, 17.0, 16.5, 15.0]})
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    for key in REQUIRED:
+        assert key in out, key
+        assert set(out[key]) >= {"value", "unit", "method"}
+        if out[key]["value"] is None:
+            assert out[key]["reason"]
+    assert out["running_mean_outdoor_temperature"]["value"] == pytest.approx(19.42, abs=0.01)
+    assert out["radiant_asymmetry"]["value"] == pytest.approx(6.0)
+    assert out["pmv_iso"]["method"].startswith("ISO 7730:2005")
+    assert "NaN" not in r.stdout
+
+
+def test_hot_work_with_units_and_table():
+    r = run({"air_temperature": 95.0, "relative_humidity": 40, "globe_temperature": 40.0,
+             "natural_wet_bulb": 25.0, "air_speed": 60, "work_class": "moderate", "clo": 0.6,
+             "hot_work": True, "acclimatised": True,
+             "units": {"air_temperature": "°F", "air_speed": "fpm"}}, "--format", "table")
+    assert r.returncode == 0, r.stderr
+    assert "wbgt_reference_acclimatised" in r.stdout
+    assert "occupational hygienist" in r.stdout
+
+
+@pytest.mark.parametrize("payload,key", [
+    ({"air_temprature": 20}, "air_temprature"),
+    ({"air_temperature": "warm"}, "air_temperature"),
+    ({"relative_humidity": 140}, "relative_humidity"),
+    ({"air_speed": 1, "units": {"air_speed": "knots"}}, "units.air_speed"),
+    ({"work_class": "strenuous"}, "work_class"),
+    ({"outdoor_daily_means": [20, 21]}, "outdoor_daily_means"),
+    ([1, 2], "input"),
+])
+def test_bad_input_names_the_key(payload, key):
+    r = run(payload)
+    assert r.returncode != 0
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and key in lines[0], r.stderr
+
+
+def test_not_json():
+    r = run("{air_temperature: 20")
+    assert r.returncode != 0 and "not valid JSON" in r.stderr
