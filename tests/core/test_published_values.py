@@ -7,9 +7,16 @@ import numpy as np
 import pytest
 
 from tests.conftest import PUBLISHED, table
-from thermowarden.core import adaptive, comfort, heat_stress, local_discomfort, outdoor
+from thermowarden.core import (
+    adaptive,
+    comfort,
+    heat_stress,
+    local_discomfort,
+    outdoor,
+    radiation,
+    units,
+)
 from thermowarden.core import psychrometrics as psy
-from thermowarden.core import radiation, units
 
 
 def arr(*v: float) -> np.ndarray:

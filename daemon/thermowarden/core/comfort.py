@@ -100,7 +100,7 @@ BODY_SURFACE_AREA_SET = 1.8258
 _SET_SIGNATURE = [float64(float64, float64, float64, float64, float64, float64, float64)]
 
 
-@vectorize(_SET_SIGNATURE, target="parallel", cache=True)
+@vectorize(_SET_SIGNATURE, target="parallel", cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
 def _set_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
                   vapor_pressure_torr: float, p_atm: float) -> float:  # pragma: no cover - numba
     """SET of a standing person, compiled as a numpy ufunc over all cores.
@@ -115,7 +115,7 @@ def _set_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
                                       BODY_SURFACE_AREA_SET, p_atm, 1, False)[0]
 
 
-@vectorize(_SET_SIGNATURE, target="parallel", cache=True)
+@vectorize(_SET_SIGNATURE, target="parallel", cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
 def _set_for_ce_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
                          vapor_pressure_torr: float, p_atm: float
                          ) -> float:  # pragma: no cover - numba
@@ -165,7 +165,6 @@ def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, 
     """
     ta = np.asarray(air_c, dtype=np.float64)
     tr = np.asarray(mrt_c, dtype=np.float64)
-    n = ta.shape[0]
     ce = np.where(np.asarray(rel_speed) <= STILL_AIR, 0.0, np.nan)
     todo = np.flatnonzero(np.isnan(ce) & np.isfinite(ta) & np.isfinite(tr)
                           & np.isfinite(rel_speed) & np.isfinite(rh) & np.isfinite(met)

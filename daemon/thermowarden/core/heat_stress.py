@@ -15,7 +15,7 @@ from typing import Final
 import numpy as np
 from pythermalcomfort.models import phs as _ptc_phs
 
-from thermowarden.core.columns import FloatArray
+from thermowarden.core.columns import BoolArray, FloatArray
 
 BODY_SURFACE_AREA_M2: Final = 1.8
 """Standard person of ISO 7243:2017 Annex A and ISO 8996."""
@@ -50,7 +50,7 @@ def metabolic_rate_w(met_w_m2: FloatArray) -> FloatArray:
 
 
 def wbgt(natural_wet_bulb: FloatArray, globe: FloatArray, air: FloatArray | None = None,
-         solar_load: FloatArray | bool = False) -> FloatArray:
+         solar_load: BoolArray | bool = False) -> FloatArray:
     """WBGT (°C), ISO 7243:2017 eq. (1) and (2).
 
     Without solar load: 0.7 tnw + 0.3 tg. With solar load (outdoors in sun):

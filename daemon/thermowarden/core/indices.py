@@ -15,9 +15,8 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.core import adaptive, comfort, heat_stress, local_discomfort, outdoor
+from thermowarden.core import adaptive, comfort, heat_stress, local_discomfort, outdoor, radiation
 from thermowarden.core import psychrometrics as psy
-from thermowarden.core import radiation
 from thermowarden.core.columns import Applicability, BoolArray, FloatArray, IndexColumn, absent
 
 MET_W_M2: Final = 58.15
@@ -156,7 +155,7 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
     have_all_planes = all(side in planes for side in radiation.SIDES)
     from_planes = _nan(n)
     if have_all_planes:
-        by_posture = {p: radiation.mean_radiant_from_planes(planes, p)  # type: ignore[arg-type]
+        by_posture = {p: radiation.mean_radiant_from_planes(planes, p)
                       for p in ("standing", "seated")}
         seated = np.array([p == "seated" for p in s.posture], dtype=bool)
         from_planes = np.where(seated, by_posture["seated"], by_posture["standing"])

@@ -47,7 +47,8 @@ def vapour_pressure(t_c: FloatArray, rh_pct: FloatArray) -> FloatArray:
     return result
 
 
-def humidity_ratio_from_vapour_pressure(pw: FloatArray, pressure_pa: FloatArray | float) -> FloatArray:
+def humidity_ratio_from_vapour_pressure(pw: FloatArray,
+                                        pressure_pa: FloatArray | float) -> FloatArray:
     """Humidity ratio (kg/kg) from vapour pressure (Pa). ASHRAE 2017 ch. 1 eq. 20."""
     result: FloatArray = _MOLAR_RATIO * pw / (np.asarray(pressure_pa) - pw)
     return result

@@ -31,7 +31,8 @@ UNITS: Final[dict[str, dict[str, Converter]]] = {
     },
     "speed": {
         "m/s": lambda x: x, "fpm": lambda x: x * _FT / 60.0, "ft/min": lambda x: x * _FT / 60.0,
-        "ft/s": lambda x: x * _FT, "km/h": lambda x: x / 3.6, "mph": lambda x: x * 1609.344 / 3600.0,
+        "ft/s": lambda x: x * _FT, "km/h": lambda x: x / 3.6,
+        "mph": lambda x: x * 1609.344 / 3600.0,
     },
     "irradiance": {"W/m²": lambda x: x, "W/m2": lambda x: x},
     "pressure": {"Pa": lambda x: x, "hPa": lambda x: x * 100.0, "kPa": lambda x: x * 1000.0},
