@@ -1,0 +1,710 @@
+"""Configuration models, all in one place: the site file, its spaces and points, and (in
+:mod:`thermowarden.rules`) the rule packs, which are validated by models defined here too.
+
+Load a site with :func:`load_site`. Every problem comes back as a :class:`ConfigIssue`
+with the file, line and column, the offending value and what was expected; a misspelt key
+gets the closest valid one suggested. Environment variables override any setting:
+``THERMOWARDEN_BROKER__URL=mqtt://10.0.0.5:1883`` (``__`` separates levels). Secrets (the
+broker password) come from the environment or a file, never from the site file itself.
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import difflib
+import json
+import os
+import pathlib
+import re
+import zoneinfo
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Annotated, Any, Literal
+
+import yaml
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    SecretStr,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
+
+from thermowarden.core import heat_stress, radiation
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.topics import TemplateError, TopicTemplate
+from thermowarden.core.units import UNITS, UnitError, converter
+from thermowarden.yaml_positions import (
+    Path,
+    Position,
+    SourceMap,
+    YamlSourceError,
+    load_yaml_with_positions,
+)
+
+ENV_PREFIX = "THERMOWARDEN_"
+SLUG = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
+OUTDOOR_QUANTITIES = frozenset({"outdoor_air_temperature", "outdoor_relative_humidity",
+                                "solar_irradiance", "wind_speed", "barometric_pressure"})
+SIDED_QUANTITIES = frozenset({"plane_radiant_temperature", "radiant_flux"})
+WEEKDAYS = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")
+
+Quantity = Literal[
+    "air_temperature", "relative_humidity", "globe_temperature", "mean_radiant_temperature",
+    "plane_radiant_temperature", "radiant_flux", "air_speed", "turbulence_intensity",
+    "natural_wet_bulb", "psychrometric_wet_bulb", "surface_temperature", "floor_temperature",
+    "outdoor_air_temperature", "outdoor_relative_humidity", "wind_speed", "solar_irradiance",
+    "barometric_pressure", "shading_position", "fan_state", "occupancy",
+]
+Side = Literal["up", "down", "left", "right", "front", "back", "ceiling", "floor", "window",
+               "room"]
+Height = Literal["ankle", "abdomen", "head"]
+WorkClass = Literal["rest", "low", "moderate", "high", "very_high"]
+ClothingEnsemble = Literal["work_clothes", "cloth_coveralls", "double_layer_woven",
+                           "sms_polypropylene_coveralls", "polyolefin_coveralls",
+                           "limited_use_vapour_barrier_coveralls"]
+
+
+class Strict(BaseModel):
+    """Base of every configuration model: unknown keys are errors, values are frozen."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+# ----------------------------------------------------------------------------- payloads
+
+class NumberFormat(Strict):
+    """The payload is a plain number (ASCII), for example ``23.4``."""
+
+    type: Literal["number"] = "number"
+
+
+class JsonFormat(Strict):
+    """A JSON object; ``value_path`` (dots, list indices as numbers) locates the value.
+
+    ``time_path`` optionally locates a timestamp: epoch seconds or milliseconds (told apart
+    by size) or ISO 8601. ``unit_path`` optionally locates a unit string.
+    """
+
+    type: Literal["json"]
+    value_path: str = "value"
+    time_path: str | None = None
+    unit_path: str | None = None
+
+
+class SenmlFormat(Strict):
+    """SenML JSON (RFC 8428). ``name`` selects the record whose resolved name (base name +
+    name) it is; without a name the pack must hold exactly one record."""
+
+    type: Literal["senml"]
+    name: str | None = None
+
+
+class StateFormat(Strict):
+    """Equipment and occupancy states: booleans (true/false, on/off, 1/0, yes/no) or named
+    states mapped to numbers by ``states`` (for shading: % lowered)."""
+
+    type: Literal["state"]
+    value_path: str | None = None
+    states: dict[str, float] = Field(default_factory=dict)
+
+
+PayloadFormat = Annotated[NumberFormat | JsonFormat | SenmlFormat | StateFormat,
+                          Field(discriminator="type")]
+
+
+def _format_shorthand(value: object) -> object:
+    if isinstance(value, str):
+        return {"type": value}
+    return value
+
+
+# ----------------------------------------------------------------------------- points
+
+class PointBase(Strict):
+    """What a topic carries: quantity, unit, payload format, expected interval and tags."""
+
+    quantity: Quantity
+    unit: str | None = None
+    format: PayloadFormat = Field(default_factory=NumberFormat)
+    interval_s: float = Field(60.0, gt=0, le=86_400)
+    side: Side | None = None
+    height: Height | None = None
+    surface: str | None = None
+    sensor: str | None = None
+    globe_diameter_m: float | None = Field(None, ge=0.02, le=0.3)
+    globe_emissivity: float | None = Field(None, ge=0.5, le=1.0)
+
+    _shorthand = field_validator("format", mode="before")(_format_shorthand)
+
+    @field_validator("unit")
+    @classmethod
+    def _unit(cls, v: str | None, info: ValidationInfo) -> str | None:
+        quantity = info.data.get("quantity")
+        if v is not None and quantity is not None:
+            try:
+                converter(QUANTITIES[quantity].kind, v)
+            except UnitError as exc:
+                raise ValueError(str(exc)) from None
+        return v
+
+    @model_validator(mode="after")
+    def _check(self) -> PointBase:
+        if self.quantity in SIDED_QUANTITIES and self.side is None and "{side}" not in getattr(
+                self, "topic", ""):
+            raise ValueError(f"a {self.quantity} point needs the side it faces "
+                             f"(side: one of {', '.join(radiation.SIDES)}, or window/room/"
+                             "ceiling/floor)")
+        if self.quantity not in SIDED_QUANTITIES and self.side is not None:
+            raise ValueError(f"side applies only to {' and '.join(sorted(SIDED_QUANTITIES))}")
+        if (self.globe_diameter_m is not None or self.globe_emissivity is not None) and \
+                self.quantity != "globe_temperature":
+            raise ValueError("globe_diameter_m and globe_emissivity apply only to "
+                             "globe_temperature")
+        if isinstance(self.format, StateFormat) and self.quantity not in (
+                "shading_position", "fan_state", "occupancy"):
+            raise ValueError("format state applies to shading_position, fan_state, occupancy")
+        return self
+
+    @property
+    def canonical_unit(self) -> str:
+        return QUANTITIES[self.quantity].unit
+
+
+class PointConfig(PointBase):
+    """One explicit topic for one space (or for the site's outdoor points)."""
+
+    topic: str
+
+    @field_validator("topic")
+    @classmethod
+    def _topic(cls, v: str) -> str:
+        if not v or any(c in v for c in "+#\0") or "{" in v:
+            raise ValueError("an explicit topic has no wildcards (+, #) or placeholders; "
+                             "use templates for patterns")
+        return v
+
+
+class TemplateConfig(PointBase):
+    """A topic template binding one quantity for many spaces.
+
+    Placeholders: ``{space}`` (required, the space id), and optionally ``{side}`` (the side
+    a radiant sensor faces) and ``{sensor}`` (tells redundant sensors apart). ``spaces``
+    restricts the template to some spaces; by default it applies to every space.
+    """
+
+    topic: str
+    spaces: list[str] | None = None
+
+    @field_validator("topic")
+    @classmethod
+    def _topic(cls, v: str) -> str:
+        try:
+            t = TopicTemplate.parse(v)
+        except TemplateError as exc:
+            raise ValueError(str(exc)) from None
+        if "space" not in t.placeholders:
+            raise ValueError("a template needs a {space} placeholder")
+        return v
+
+
+# ----------------------------------------------------------------------------- spaces
+
+class PeopleConfig(Strict):
+    """The people in a space: metabolic rate, clothing, acclimatisation, posture."""
+
+    met: float | None = Field(None, ge=0.7, le=8.0)
+    work_class: WorkClass | None = None
+    clo: float | None = Field(None, ge=0.0, le=3.0)
+    clothing_model: Literal["fixed", "outdoor"] = "fixed"
+    acclimatised: bool = False
+    clothing: ClothingEnsemble | None = None
+    clothing_adjustment_k: float | None = Field(None, ge=0.0, le=20.0)
+    posture: Literal["standing", "seated", "crouching"] = "standing"
+
+    @model_validator(mode="after")
+    def _check(self) -> PeopleConfig:
+        if self.met is not None and self.work_class is not None:
+            raise ValueError("give either met or work_class, not both")
+        if self.clothing is not None and self.clothing_adjustment_k is not None:
+            raise ValueError("give either clothing or clothing_adjustment_k, not both")
+        if self.clothing_model == "fixed" and self.clo is None:
+            raise ValueError("clothing_model fixed needs clo (or use clothing_model: outdoor)")
+        return self
+
+    @property
+    def met_value(self) -> float:
+        if self.met is not None:
+            return self.met
+        if self.work_class is not None:
+            return heat_stress.WORK_CLASSES_W_M2[self.work_class] / 58.15
+        return 1.2
+
+    @property
+    def adjustment_k(self) -> float:
+        if self.clothing is not None:
+            return heat_stress.CLOTHING_ADJUSTMENTS_K[self.clothing]
+        return self.clothing_adjustment_k or 0.0
+
+
+_HOURS = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-4]):([0-5]\d)$")
+
+
+class OccupancyConfig(Strict):
+    """When a space is occupied: weekly hours in the site's time zone, holidays, and/or an
+    occupancy point (which wins while it is fresh)."""
+
+    hours: dict[Literal["mon", "tue", "wed", "thu", "fri", "sat", "sun"], list[str]] = Field(
+        default_factory=dict)
+    holidays: list[dt.date] = Field(default_factory=list)
+    always: bool = False
+
+    @field_validator("hours")
+    @classmethod
+    def _hours(cls, v: dict[str, list[str]]) -> dict[str, list[str]]:
+        for day, spans in v.items():
+            for span in spans:
+                m = _HOURS.match(span)
+                if not m:
+                    raise ValueError(f"{day}: {span!r} is not HH:MM-HH:MM")
+                if (m.group(3), m.group(4)) <= (m.group(1), m.group(2)):
+                    raise ValueError(f"{day}: {span!r} ends before it starts")
+        return v
+
+
+class ExternalIds(Strict):
+    """Identifiers of the space in other systems, echoed in everything published about it."""
+
+    brick_class: str | None = None
+    brick_uri: str | None = None
+    haystack_id: str | None = None
+    haystack_tags: list[str] = Field(default_factory=list)
+
+
+ParameterValue = float | bool | str
+
+
+class SpaceConfig(Strict):
+    """One space: what it is, who is in it, which rules apply, and its points."""
+
+    id: str = Field(pattern=SLUG)
+    name: str | None = None
+    kind: Literal["indoor", "outdoor"] = "indoor"
+    hot_work: bool = False
+    ventilation: Literal["mechanical", "natural"] = "mechanical"
+    people: PeopleConfig | None = None
+    occupancy: OccupancyConfig | None = None
+    rule_packs: list[str] | None = None
+    parameters: dict[str, ParameterValue] = Field(default_factory=dict)
+    external: ExternalIds | None = None
+    combine: Literal["mean", "height_weighted"] = "mean"
+    solar_load: bool | None = None
+    phs_edition: Literal["2023", "2004"] = "2023"
+    points: list[PointConfig] = Field(default_factory=list)
+
+    @field_validator("points")
+    @classmethod
+    def _no_outdoor(cls, v: list[PointConfig]) -> list[PointConfig]:
+        for p in v:
+            if p.quantity in OUTDOOR_QUANTITIES:
+                raise ValueError(f"{p.quantity} is a site-wide outdoor point: put it under "
+                                 "site.outdoor_points")
+        return v
+
+
+class SpaceDefaults(Strict):
+    """Settings every space gets unless it says otherwise."""
+
+    people: PeopleConfig = Field(default_factory=lambda: PeopleConfig(met=1.2, clo=0.7))
+    occupancy: OccupancyConfig = Field(default_factory=lambda: OccupancyConfig(always=True))
+    rule_packs: list[str] = Field(default_factory=list)
+    parameters: dict[str, ParameterValue] = Field(default_factory=dict)
+
+
+# ----------------------------------------------------------------------------- site
+
+class SiteInfo(Strict):
+    """The site: identifier, time zone, altitude or pressure, shared outdoor points."""
+
+    id: str = Field(pattern=SLUG)
+    name: str | None = None
+    timezone: str = "UTC"
+    altitude_m: float | None = Field(None, ge=-500, le=9000)
+    barometric_pressure_pa: float | None = Field(None, ge=30_000, le=110_000)
+    outdoor_points: list[PointConfig] = Field(default_factory=list)
+
+    @field_validator("timezone")
+    @classmethod
+    def _tz(cls, v: str) -> str:
+        try:
+            zoneinfo.ZoneInfo(v)
+        except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+            raise ValueError(f"unknown time zone {v!r} (expected an IANA name such as "
+                             "Europe/Berlin)") from None
+        return v
+
+    @model_validator(mode="after")
+    def _check(self) -> SiteInfo:
+        if self.altitude_m is not None and self.barometric_pressure_pa is not None:
+            raise ValueError("give either altitude_m or barometric_pressure_pa, not both")
+        for p in self.outdoor_points:
+            if p.quantity not in OUTDOOR_QUANTITIES:
+                raise ValueError(f"outdoor_points carry only {', '.join(sorted(OUTDOOR_QUANTITIES))}"
+                                 f"; {p.quantity} belongs to a space")
+        return self
+
+
+class TlsConfig(Strict):
+    ca_file: str | None = None
+    cert_file: str | None = None
+    key_file: str | None = None
+
+    @model_validator(mode="after")
+    def _pair(self) -> TlsConfig:
+        if (self.cert_file is None) != (self.key_file is None):
+            raise ValueError("cert_file and key_file go together")
+        return self
+
+
+class BrokerConfig(Strict):
+    """The MQTT broker. The password comes from THERMOWARDEN_BROKER__PASSWORD or
+    ``password_file``, never from the site file."""
+
+    url: str = "mqtt://127.0.0.1:1883"
+    client_id: str | None = None
+    protocol: Literal["5", "3.1.1"] = "5"
+    keepalive_s: int = Field(30, ge=5, le=3600)
+    username: str | None = None
+    password: SecretStr | None = None
+    password_file: str | None = None
+    tls: TlsConfig | None = None
+
+    @field_validator("url")
+    @classmethod
+    def _url(cls, v: str) -> str:
+        if not re.match(r"^(mqtt|mqtts)://[^/:\s]+(:\d{1,5})?/?$", v):
+            raise ValueError(f"{v!r} is not mqtt://host[:port] or mqtts://host[:port]")
+        return v
+
+    @field_validator("protocol", mode="before")
+    @classmethod
+    def _proto(cls, v: object) -> object:
+        return str(v) if isinstance(v, int | float) else v
+
+
+class OutputConfig(Strict):
+    prefix: str = "thermowarden"
+
+    @field_validator("prefix")
+    @classmethod
+    def _prefix(cls, v: str) -> str:
+        if not v or any(c in v for c in "+#\0") or v.startswith("/") or v.endswith("/"):
+            raise ValueError("the prefix is a topic without wildcards or leading/trailing /")
+        return v
+
+
+class IngestConfig(Strict):
+    """Limits applied to every message."""
+
+    max_payload_bytes: int = Field(4096, ge=16, le=1_048_576)
+    max_age_s: float = Field(900.0, gt=0)
+    future_skew_s: float = Field(30.0, ge=0)
+    stale_after_intervals: float = Field(3.0, ge=1.0)
+    air_speed_window_s: float = Field(180.0, gt=0)
+    wbgt_window_s: float = Field(3600.0, ge=600, le=3600)
+    disagreement_k: float = Field(2.0, gt=0)
+
+
+class EvaluationConfig(Strict):
+    tick_s: float = Field(10.0, ge=0.5, le=3600)
+
+
+class SiteConfig(Strict):
+    """The whole site file."""
+
+    site: SiteInfo
+    broker: BrokerConfig = Field(default_factory=BrokerConfig)
+    output: OutputConfig = Field(default_factory=OutputConfig)
+    ingest: IngestConfig = Field(default_factory=IngestConfig)
+    evaluation: EvaluationConfig = Field(default_factory=EvaluationConfig)
+    defaults: SpaceDefaults = Field(default_factory=SpaceDefaults)
+    templates: list[TemplateConfig] = Field(default_factory=list)
+    spaces: list[SpaceConfig] = Field(default_factory=list)
+    spaces_csv: str | None = None
+    rule_dirs: list[str] = Field(default_factory=list)
+
+    @model_validator(mode="after")
+    def _check(self) -> SiteConfig:
+        seen: set[str] = set()
+        for space in self.spaces:
+            if space.id in seen:
+                raise ValueError(f"space id {space.id!r} appears twice")
+            seen.add(space.id)
+        for t in self.templates:
+            for s in t.spaces or []:
+                if s not in seen:
+                    raise ValueError(f"template {t.topic!r} names unknown space {s!r}")
+        return self
+
+    def people(self, space: SpaceConfig) -> PeopleConfig:
+        return space.people or self.defaults.people
+
+    def occupancy(self, space: SpaceConfig) -> OccupancyConfig:
+        return space.occupancy or self.defaults.occupancy
+
+    def rule_packs(self, space: SpaceConfig) -> list[str]:
+        return space.rule_packs if space.rule_packs is not None else self.defaults.rule_packs
+
+    def parameters(self, space: SpaceConfig) -> dict[str, ParameterValue]:
+        return {**self.defaults.parameters, **space.parameters}
+
+
+# ----------------------------------------------------------------------------- loading
+
+@dataclass(frozen=True)
+class ConfigIssue:
+    """One problem in a configuration: where, and what is wrong."""
+
+    position: Position | None
+    message: str
+
+    def __str__(self) -> str:
+        where = str(self.position) if self.position else "<config>"
+        return f"{where}: {self.message}"
+
+
+class ConfigError(Exception):
+    """A configuration was refused; ``issues`` lists every problem found."""
+
+    def __init__(self, issues: list[ConfigIssue]) -> None:
+        super().__init__("\n".join(str(i) for i in issues))
+        self.issues = issues
+
+
+def _all_field_names() -> list[str]:
+    names: set[str] = set()
+    stack: list[type[BaseModel]] = [SiteConfig]
+    seen: set[type[BaseModel]] = set()
+    while stack:
+        model = stack.pop()
+        if model in seen:
+            continue
+        seen.add(model)
+        names.update(model.model_fields)
+        for sub in Strict.__subclasses__() + PointBase.__subclasses__():
+            stack.append(sub)
+    return sorted(names)
+
+
+def _suggest(word: str) -> str:
+    close = difflib.get_close_matches(word, _all_field_names(), n=1, cutoff=0.6)
+    return f"; did you mean {close[0]!r}?" if close else ""
+
+
+def _clip(value: object) -> str:
+    text = json.dumps(value, default=str, ensure_ascii=False)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _issues_from_validation(exc: ValidationError, smap: SourceMap,
+                            env_paths: dict[Path, str]) -> list[ConfigIssue]:
+    issues = []
+    for err in exc.errors():
+        # drop the union tags pydantic inserts for the discriminated payload formats
+        loc: Path = tuple(p for p in err["loc"] if p not in ("number", "json", "senml",
+                                                              "state"))
+        where = ".".join(str(p) for p in loc) or "(top level)"
+        if err["type"] == "extra_forbidden":
+            key = str(loc[-1])
+            pos = smap.find(loc, key=True)
+            msg = f"{where}: unknown key {key!r}{_suggest(key)}"
+        else:
+            pos = smap.find(loc)
+            text = str(err["msg"]).removeprefix("Value error, ")
+            value = err.get("input")
+            shown = "" if isinstance(value, dict | list) or err["type"] == "missing" else \
+                f" (got {_clip(value)})"
+            msg = f"{where}: {text}{shown}"
+        env = next((v for k, v in env_paths.items() if loc[:len(k)] == k), None)
+        if env is not None:
+            msg += f" [set by environment variable {env}]"
+        issues.append(ConfigIssue(pos, msg))
+    return issues
+
+
+def _set_path(data: dict[str, Any], path: list[str], value: Any) -> None:
+    node = data
+    for part in path[:-1]:
+        nxt = node.get(part)
+        if not isinstance(nxt, dict):
+            nxt = {}
+            node[part] = nxt
+        node = nxt
+    node[path[-1]] = value
+
+
+def _apply_environment(data: dict[str, Any], environ: Mapping[str, str]) -> dict[Path, str]:
+    """Override settings from THERMOWARDEN_SECTION__KEY variables; values parse as YAML."""
+    applied: dict[Path, str] = {}
+    for name, raw in sorted(environ.items()):
+        if not name.startswith(ENV_PREFIX) or "__" not in name:
+            continue
+        path = [p.lower() for p in name[len(ENV_PREFIX):].split("__") if p]
+        if not path:
+            continue
+        try:
+            value = yaml.safe_load(raw) if path[-1] != "password" else raw
+        except yaml.YAMLError:
+            value = raw
+        _set_path(data, path, value)
+        applied[tuple(path)] = name
+    return applied
+
+
+CSV_COLUMNS = ("id", "name", "kind", "hot_work", "ventilation", "met", "work_class", "clo",
+               "acclimatised", "clothing", "posture", "rule_packs", "brick_class", "brick_uri",
+               "haystack_id", "haystack_tags", "phs_edition")
+
+
+def _spaces_from_csv(path: pathlib.Path, shown: str) -> tuple[list[dict[str, Any]], SourceMap,
+                                                               list[ConfigIssue]]:
+    """Spaces listed one per row. People columns (met, work_class, clo, acclimatised,
+    clothing, posture) build the space's people; list columns use ``;``."""
+    spaces: list[dict[str, Any]] = []
+    smap = SourceMap()
+    issues: list[ConfigIssue] = []
+    with open(path, encoding="utf-8", newline="") as fh:
+        reader = csv.DictReader(fh)
+        header = reader.fieldnames or []
+        for col_no, col in enumerate(header, start=1):
+            if col not in CSV_COLUMNS:
+                close = difflib.get_close_matches(col, CSV_COLUMNS, n=1)
+                hint = f"; did you mean {close[0]!r}?" if close else ""
+                issues.append(ConfigIssue(Position(shown, 1, col_no),
+                                          f"unknown column {col!r}{hint}"))
+        if "id" not in header:
+            issues.append(ConfigIssue(Position(shown, 1, 1), "the table needs an id column"))
+        if issues:
+            return [], smap, issues
+        for i, row in enumerate(reader):
+            line = reader.line_num
+            space: dict[str, Any] = {}
+            people: dict[str, Any] = {}
+            external: dict[str, Any] = {}
+            for col_no, col in enumerate(header, start=1):
+                raw = (row.get(col) or "").strip()
+                if raw == "":
+                    continue
+                pos = Position(shown, line, col_no)
+                key: Path
+                if col in ("met", "work_class", "clo", "acclimatised", "clothing", "posture"):
+                    people[col] = yaml.safe_load(raw) if col in ("met", "clo", "acclimatised") \
+                        else raw
+                    key = ("people", col)
+                elif col in ("brick_class", "brick_uri", "haystack_id"):
+                    external[col] = raw
+                    key = ("external", col)
+                elif col == "haystack_tags":
+                    external[col] = [t.strip() for t in raw.split(";") if t.strip()]
+                    key = ("external", col)
+                elif col == "rule_packs":
+                    space[col] = [t.strip() for t in raw.split(";") if t.strip()]
+                    key = (col,)
+                elif col == "hot_work":
+                    space[col] = yaml.safe_load(raw)
+                    key = (col,)
+                else:
+                    space[col] = raw
+                    key = (col,)
+                smap.values[(i,) + key] = pos
+                smap.keys[(i,) + key] = pos
+            if people:
+                if "clo" not in people:
+                    people.setdefault("clothing_model", "outdoor")
+                space["people"] = people
+            if external:
+                space["external"] = external
+            smap.values[(i,)] = Position(shown, line, 1)
+            spaces.append(space)
+    return spaces, smap, issues
+
+
+def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = None
+              ) -> SiteConfig:
+    """Load and validate a site file (and the CSV it refers to).
+
+    Raises :class:`ConfigError` listing every problem with its file, line and column.
+    ``environ`` defaults to the process environment (the shell passes it; tests pass
+    their own).
+    """
+    environ = os.environ if environ is None else environ
+    p = pathlib.Path(path)
+    shown = str(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError([ConfigIssue(None, f"{shown}: cannot read: {exc.strerror}")]) from None
+    try:
+        data, smap = load_yaml_with_positions(text, shown)
+    except YamlSourceError as exc:
+        raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
+    if not isinstance(data, dict):
+        raise ConfigError([ConfigIssue(Position(shown, 1, 1), "the site file must be a "
+                                       "mapping with at least a 'site' section")])
+    issues: list[ConfigIssue] = []
+    broker = data.get("broker")
+    if isinstance(broker, dict) and "password" in broker:
+        issues.append(ConfigIssue(smap.find(("broker", "password"), key=True),
+                                  "broker.password: secrets do not belong in the site file; "
+                                  "set THERMOWARDEN_BROKER__PASSWORD or broker.password_file"))
+    env_paths = _apply_environment(data, environ)
+    csv_name = data.get("spaces_csv")
+    if isinstance(csv_name, str):
+        csv_path = (p.parent / csv_name) if not os.path.isabs(csv_name) else pathlib.Path(csv_name)
+        try:
+            rows, csv_map, csv_issues = _spaces_from_csv(csv_path, str(csv_path))
+        except OSError as exc:
+            issues.append(ConfigIssue(smap.find(("spaces_csv",)),
+                                      f"spaces_csv: cannot read {csv_path}: {exc.strerror}"))
+            rows, csv_map, csv_issues = [], SourceMap(), []
+        issues.extend(csv_issues)
+        spaces = data.get("spaces")
+        if spaces is None:
+            spaces = []
+        if isinstance(spaces, list):
+            offset = len(spaces)
+            data["spaces"] = spaces + rows
+            smap.update(csv_map, ("spaces",))
+            # re-key CSV rows after the YAML spaces
+            shifted = SourceMap()
+            for k, v in csv_map.values.items():
+                shifted.values[("spaces", offset + int(k[0])) + k[1:]] = v
+            for k, v in csv_map.keys.items():
+                shifted.keys[("spaces", offset + int(k[0])) + k[1:]] = v
+            smap.update(shifted, ())
+    try:
+        config = SiteConfig.model_validate(data)
+    except ValidationError as exc:
+        issues.extend(_issues_from_validation(exc, smap, env_paths))
+        raise ConfigError(issues) from None
+    if issues:
+        raise ConfigError(issues)
+    return config
+
+
+def read_password(broker: BrokerConfig) -> str | None:
+    """The broker password: from the environment override, else from ``password_file``."""
+    if broker.password is not None:
+        return broker.password.get_secret_value()
+    if broker.password_file:
+        return pathlib.Path(broker.password_file).read_text(encoding="utf-8").strip()
+    return None
+
+
+def known_units(quantity: str) -> list[str]:
+    """Units accepted for a quantity (for messages and docs)."""
+    return [u for u in UNITS[QUANTITIES[quantity].kind] if u]

@@ -1,0 +1,198 @@
+"""From an MQTT message to accepted readings in :class:`SiteState`, or counted rejections.
+
+Each message is matched to its point(s), decoded, converted to SI, and checked: size,
+unknown topic or space, malformed or non-numeric payload, non-finite value, unknown unit,
+physically implausible value, timestamp too old or in the future, duplicate (QoS 1
+redelivery: same point and payload timestamp) and out of order. A rejection is counted
+by reason and point and returned so the shell can log it at a limited rate. Nothing a
+sensor sends raises out of :meth:`Ingestor.ingest`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections import Counter
+from dataclasses import dataclass
+from typing import Final
+
+from thermowarden.config import JsonFormat, NumberFormat, SenmlFormat, StateFormat
+from thermowarden.core import payloads
+from thermowarden.core.payloads import Decoded, DecodeError
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.units import UnitError, converter
+from thermowarden.site_model import MAX_SENSORS_PER_SLOT, SiteModel, template_applies
+from thermowarden.space_state import SiteState
+
+PAYLOAD_TOO_LARGE: Final = "payload_too_large"
+UNKNOWN_TOPIC: Final = "unknown_topic"
+UNKNOWN_SPACE: Final = "unknown_space"
+IMPLAUSIBLE: Final = "implausible"
+TOO_OLD: Final = "too_old"
+IN_FUTURE: Final = "in_future"
+DUPLICATE: Final = "duplicate"
+OUT_OF_ORDER: Final = "out_of_order"
+TOO_MANY_SENSORS: Final = "too_many_sensors"
+NO_POINT: Final = "-"
+_NEGATIVE_CACHE_LIMIT: Final = 10_000
+
+
+@dataclass(frozen=True)
+class Rejection:
+    """A message (or one value of it) that was refused, and why."""
+
+    reason: str
+    point: str
+    topic: str
+    detail: str
+
+
+class Ingestor:
+    """Matches, decodes, converts and checks messages; stores good readings."""
+
+    def __init__(self, model: SiteModel, state: SiteState) -> None:
+        self.model = model
+        self.state = state
+        cfg = model.config.ingest
+        self.max_bytes = cfg.max_payload_bytes
+        self.max_age = cfg.max_age_s
+        self.skew = cfg.future_skew_s
+        self.received = 0
+        self.accepted = 0
+        self.rejected: Counter[tuple[str, str]] = Counter()
+        self._cache: dict[str, list[int]] = {t: list(p) for t, p in model.routes.items()}
+        self._negative: dict[str, Rejection] = {}
+        self._lazy_count: Counter[tuple[int, str]] = Counter()
+
+    # ---------------------------------------------------------------- routing
+    def _resolve(self, topic: str) -> list[int] | Rejection:
+        cached = self._cache.get(topic)
+        if cached is not None:
+            return cached
+        neg = self._negative.get(topic)
+        if neg is not None:
+            return neg
+        result = self._resolve_templates(topic)
+        if isinstance(result, list):
+            self._cache[topic] = result
+        elif len(self._negative) < _NEGATIVE_CACHE_LIMIT:
+            self._negative[topic] = result
+        return result
+
+    def _resolve_templates(self, topic: str) -> list[int] | Rejection:
+        segments = topic.split("/")
+        found: list[int] = []
+        rejection: Rejection | None = None
+        for tmpl, spec, allowed in self.model.templates:
+            values = tmpl.match(segments)
+            if values is None:
+                continue
+            space = self.model.space_index.get(values["space"])
+            if space is None:
+                rejection = Rejection(UNKNOWN_SPACE, NO_POINT, topic,
+                                      f"no space {values['space'][:40]!r} in the site")
+                continue
+            if not template_applies(self.model, allowed, space, spec.quantity):
+                continue
+            side = values.get("side")
+            if side is not None:
+                try:
+                    from thermowarden.core.radiation import canonical_side
+                    canonical_side(side)
+                except ValueError as exc:
+                    rejection = Rejection(UNKNOWN_TOPIC, NO_POINT, topic, str(exc))
+                    continue
+            slot = (space, f"{spec.quantity}:{side}")
+            if ("side" in values or "sensor" in values):
+                self._lazy_count[slot] += 1
+                if self._lazy_count[slot] > MAX_SENSORS_PER_SLOT:
+                    rejection = Rejection(TOO_MANY_SENSORS, NO_POINT, topic,
+                                          f"more than {MAX_SENSORS_PER_SLOT} sensors for one "
+                                          "quantity in one space")
+                    continue
+            found.append(self.model.add_point(space, spec, topic, side=side,
+                                              sensor=values.get("sensor")))
+        if found:
+            return found
+        return rejection or Rejection(UNKNOWN_TOPIC, NO_POINT, topic, "no point or template "
+                                      "matches this topic")
+
+    # ---------------------------------------------------------------- decoding
+    @staticmethod
+    def _decode(fmt: NumberFormat | JsonFormat | SenmlFormat | StateFormat, payload: bytes,
+                now: float, quantity: str) -> list[Decoded]:
+        if isinstance(fmt, NumberFormat):
+            return payloads.decode_number(payload)
+        if isinstance(fmt, JsonFormat):
+            return payloads.decode_json(payload, fmt.value_path, fmt.time_path, fmt.unit_path)
+        if isinstance(fmt, SenmlFormat):
+            return payloads.decode_senml(payload, now, fmt.name)
+        true_value = 100.0 if quantity == "shading_position" else 1.0
+        return payloads.decode_state(payload, fmt.states, fmt.value_path, true_value)
+
+    def _reject(self, reason: str, point: str, topic: str, detail: str) -> Rejection:
+        self.rejected[(reason, point)] += 1
+        return Rejection(reason, point, topic, detail)
+
+    # ---------------------------------------------------------------- the path
+    def ingest(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
+        """Take one message received at ``now`` (epoch s); return its rejections, if any."""
+        self.received += 1
+        route = self._resolve(topic)
+        if isinstance(route, Rejection):
+            return [self._reject(route.reason, route.point, topic, route.detail)]
+        if len(payload) > self.max_bytes:
+            key = self.model.points[route[0]].key
+            return [self._reject(PAYLOAD_TOO_LARGE, key, topic,
+                                 f"{len(payload)} bytes > {self.max_bytes}")]
+        out: list[Rejection] = []
+        for pid in route:
+            spec = self.model.points[pid]
+            try:
+                values = self._decode(spec.fmt, payload, now, spec.quantity)
+            except DecodeError as exc:
+                out.append(self._reject(exc.reason, spec.key, topic, exc.detail))
+                continue
+            except Exception as exc:  # noqa: BLE001 - nothing a sensor sends may escape
+                out.append(self._reject(payloads.MALFORMED, spec.key, topic,
+                                        f"undecodable: {type(exc).__name__}"))
+                continue
+            for d in values:
+                r = self._store(pid, d, now, topic)
+                if r is not None:
+                    out.append(r)
+        return out
+
+    def _store(self, pid: int, d: Decoded, now: float, topic: str) -> Rejection | None:
+        spec = self.model.points[pid]
+        convert = spec.convert
+        if d.unit is not None and d.unit != spec.unit:
+            try:
+                convert = converter(QUANTITIES[spec.quantity].kind, d.unit)
+            except UnitError as exc:
+                return self._reject(payloads.UNKNOWN_UNIT, spec.key, topic, str(exc))
+        value = convert(d.value)
+        if not math.isfinite(value):
+            return self._reject(payloads.NOT_FINITE, spec.key, topic, "converted value")
+        if not spec.low <= value <= spec.high:
+            return self._reject(IMPLAUSIBLE, spec.key, topic,
+                                f"{value:.6g} outside {spec.low:g}..{spec.high:g}")
+        t = now if d.time is None else d.time
+        if now - t > self.max_age:
+            return self._reject(TOO_OLD, spec.key, topic, f"{now - t:.0f} s old")
+        if t - now > self.skew:
+            return self._reject(IN_FUTURE, spec.key, topic, f"{t - now:.0f} s ahead")
+        state = self.state
+        if d.time is not None and t == state.last_source_time[pid]:
+            return self._reject(DUPLICATE, spec.key, topic, "same point and timestamp")
+        if t < state.last_time[pid]:
+            return self._reject(OUT_OF_ORDER, spec.key, topic, "older than the latest reading")
+        state.record(pid, t, value, t if d.time is not None else math.nan)
+        self.accepted += 1
+        return None
+
+    def rejected_by_reason(self) -> Counter[str]:
+        """Rejections summed over points (the default metric, no per-point labels)."""
+        out: Counter[str] = Counter()
+        for (reason, _), n in self.rejected.items():
+            out[reason] += n
+        return out

@@ -1,0 +1,1 @@
+"""The shell: MQTT, scheduler, SQLite store, signals, logging."""

@@ -1,0 +1,80 @@
+"""``thermowarden check``: validate a site file and describe what it resolves to."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
+from thermowarden.site_model import SITE, SiteModel, build_site_model
+
+
+@dataclass
+class CheckReport:
+    """The outcome of checking a site: the model when valid, issues, and warnings."""
+
+    config: SiteConfig | None = None
+    model: SiteModel | None = None
+    issues: list[ConfigIssue] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.issues
+
+
+def check_site(path: str) -> CheckReport:
+    """Validate the site file, the CSV it refers to, and the rule packs it names."""
+    report = CheckReport()
+    try:
+        config = load_site(path)
+    except ConfigError as exc:
+        report.issues = exc.issues
+        return report
+    report.config = config
+    report.model = build_site_model(config)
+    from thermowarden.rules import RulePackError, load_rule_packs, missing_inputs
+
+    names = sorted({n for s in config.spaces for n in config.rule_packs(s)})
+    try:
+        packs = load_rule_packs(names, config.rule_dirs, base=path)
+    except RulePackError as exc:
+        report.issues = exc.issues
+        return report
+    for i, space in enumerate(config.spaces):
+        for name in config.rule_packs(space):
+            for rule, missing in missing_inputs(packs[name], report.model, i):
+                report.warnings.append(
+                    f"space {space.id}: rule {name}.{rule} needs {', '.join(missing)}, which "
+                    "no point provides")
+    return report
+
+
+def resolved_map(model: SiteModel) -> list[str]:
+    """space -> quantity -> topic, unit, format, as lines for a person."""
+    lines: list[str] = []
+    by_space: dict[int, list[str]] = {}
+    for p in model.points:
+        tags = ", ".join(f"{k} {v}" for k, v in (("side", p.side), ("height", p.height),
+                                                  ("sensor", p.sensor)) if v)
+        fmt = p.fmt.type
+        line = f"    {p.quantity:<26} {p.topic}  [{p.unit or '-'}, {fmt}, every {p.interval_s:g} s"
+        line += f", {tags}]" if tags else "]"
+        by_space.setdefault(p.space, []).append(line)
+    if SITE in by_space:
+        lines.append(f"site {model.config.site.id} (outdoor, shared)")
+        lines.extend(by_space[SITE])
+    for i, sid in enumerate(model.space_ids):
+        space = model.space(i)
+        flags = [space.kind]
+        if space.hot_work:
+            flags.append("hot work")
+        if space.ventilation == "natural":
+            flags.append("naturally ventilated")
+        lines.append(f"space {sid} ({', '.join(flags)}): "
+                     f"rules {', '.join(model.config.rule_packs(space)) or '-'}")
+        lines.extend(by_space.get(i, ["    (no points yet)"]))
+    for tmpl, spec, _ in model.templates:
+        if tmpl.placeholders != {"space"}:
+            lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "
+                         "appear")
+    return lines

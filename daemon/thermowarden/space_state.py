@@ -1,0 +1,475 @@
+"""Per-space, per-point state: latest values, time windows, freshness, and the snapshot
+the index core takes.
+
+Everything is a numpy array indexed by point or by space; the engine thread is the only
+one that touches it. Time is always an argument (epoch seconds); nothing here reads a clock.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+import zoneinfo
+from dataclasses import dataclass
+from typing import Final
+
+import numpy as np
+import numpy.typing as npt
+
+from thermowarden.config import IngestConfig, OccupancyConfig, SiteConfig
+from thermowarden.core import heat_stress, radiation
+from thermowarden.core.adaptive import running_mean_outdoor
+from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.indices import SpaceInputs
+from thermowarden.core.psychrometrics import STANDARD_PRESSURE_PA, pressure_from_altitude
+from thermowarden.site_model import HEIGHT_WEIGHTS, SITE, SiteModel
+
+IntArray = npt.NDArray[np.int64]
+
+WBGT_BIN_S: Final = 60.0
+MIN_TWA_COVERAGE: Final = 0.8
+"""A time-weighted WBGT needs 48 of its 60 minutes covered."""
+DAILY_MEANS_KEPT: Final = 30
+SIMPLE_SLOTS: Final = ("relative_humidity", "globe_temperature", "mean_radiant_temperature",
+                       "natural_wet_bulb", "psychrometric_wet_bulb", "floor_temperature",
+                       "turbulence_intensity")
+STATE_QUANTITIES: Final = ("shading_position", "fan_state", "occupancy")
+OUTDOOR_SLOTS: Final = ("outdoor_air_temperature", "outdoor_relative_humidity", "wind_speed",
+                        "solar_irradiance", "barometric_pressure")
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """What the site looks like at ``now``: the index inputs and everything rules need."""
+
+    now: float
+    inputs: SpaceInputs
+    present: dict[str, BoolArray]
+    """quantity -> space has a fresh reading of it."""
+    states: dict[str, FloatArray]
+    """equipment / occupancy quantity -> latest fresh value per space (NaN if none)."""
+    occupied: BoolArray
+    disagreement: dict[str, FloatArray]
+    """quantity -> largest difference between fresh redundant sensors (NaN if < 2)."""
+    point_fresh: BoolArray
+    point_age_s: FloatArray
+    outdoor: dict[str, float]
+
+
+@dataclass
+class _Slot:
+    pids: IntArray
+    spaces: IntArray
+    weights: FloatArray
+
+
+class SiteState:
+    """Buffers for every point of a site and the per-space windows derived from them."""
+
+    def __init__(self, model: SiteModel) -> None:
+        self.model = model
+        cfg: SiteConfig = model.config
+        self.ingest_cfg: IngestConfig = cfg.ingest
+        self.tz = zoneinfo.ZoneInfo(cfg.site.timezone)
+        self._cap = max(16, len(model.points) * 2)
+        self.last_value = np.full(self._cap, np.nan)
+        self.last_time = np.full(self._cap, np.nan)
+        self.last_source_time = np.full(self._cap, np.nan)
+        self.interval = np.full(self._cap, np.inf)
+        self.ring_row = np.full(self._cap, -1, dtype=np.int64)
+        intervals = [p.interval_s for p in model.points if p.quantity == "air_speed"] or [10.0]
+        self.ring_len = int(min(256, max(8, math.ceil(self.ingest_cfg.air_speed_window_s
+                                                      / max(min(intervals), 1.0)) + 2)))
+        self._ring_cap = 16
+        self.ring_t = np.full((self._ring_cap, self.ring_len), np.nan)
+        self.ring_v = np.full((self._ring_cap, self.ring_len), np.nan)
+        self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
+        self._ring_rows = 0
+        self.n_points = 0
+        for pid in range(len(model.points)):
+            self._on_new_point(pid)
+        model.listeners.append(self._on_new_point)
+        n = model.n_spaces
+        self.wbgt_sum = np.zeros((n, 60))
+        self.wbgt_weight = np.zeros((n, 60))
+        self.wbgt_minute = np.full((n, 60), -1, dtype=np.int64)
+        self._last_wbgt_record: float | None = None
+        self.daily_means: list[float] = []
+        """Completed daily mean outdoor temperatures, newest first (°C)."""
+        self._day: dt.date | None = None
+        self._day_sum = 0.0
+        self._day_weight = 0.0
+        self._last_outdoor_t: float | None = None
+        self.outdoor_6am: float = math.nan
+        self._slots_version = -1
+        self._slots: dict[str, _Slot] = {}
+        self._context = self._build_context()
+
+    # ------------------------------------------------------------------ points
+    def _grow(self, need: int) -> None:
+        while self._cap < need:
+            self._cap *= 2
+        for name in ("last_value", "last_time", "last_source_time"):
+            old = getattr(self, name)
+            new = np.full(self._cap, np.nan)
+            new[:old.size] = old
+            setattr(self, name, new)
+        old_i = self.interval
+        self.interval = np.full(self._cap, np.inf)
+        self.interval[:old_i.size] = old_i
+        old_r = self.ring_row
+        self.ring_row = np.full(self._cap, -1, dtype=np.int64)
+        self.ring_row[:old_r.size] = old_r
+
+    def _on_new_point(self, pid: int) -> None:
+        spec = self.model.points[pid]
+        if pid >= self._cap:
+            self._grow(pid + 1)
+        self.interval[pid] = spec.interval_s
+        if spec.quantity == "air_speed" or (spec.quantity == "wind_speed"):
+            if self._ring_rows >= self._ring_cap:
+                self._ring_cap *= 2
+                for name in ("ring_t", "ring_v"):
+                    old = getattr(self, name)
+                    new = np.full((self._ring_cap, self.ring_len), np.nan)
+                    new[:old.shape[0]] = old
+                    setattr(self, name, new)
+                old_h = self.ring_head
+                self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
+                self.ring_head[:old_h.size] = old_h
+            self.ring_row[pid] = self._ring_rows
+            self._ring_rows += 1
+        self.n_points = max(self.n_points, pid + 1)
+
+    # ------------------------------------------------------------------ readings
+    def record(self, pid: int, t: float, value: float, source_time: float) -> None:
+        """Store an accepted reading (already converted, checked and deduplicated)."""
+        self.last_value[pid] = value
+        self.last_time[pid] = t
+        self.last_source_time[pid] = source_time
+        row = self.ring_row[pid]
+        if row >= 0:
+            h = self.ring_head[row]
+            self.ring_t[row, h] = t
+            self.ring_v[row, h] = value
+            self.ring_head[row] = (h + 1) % self.ring_len
+
+    # ------------------------------------------------------------------ context
+    def _build_context(self) -> dict[str, object]:
+        cfg = self.model.config
+        spaces = cfg.spaces
+        n = len(spaces)
+        people = [cfg.people(s) for s in spaces]
+        globe_d = np.full(n, 0.15)
+        globe_e = np.full(n, 0.95)
+        for p in self.model.points:
+            if p.space != SITE and p.quantity == "globe_temperature":
+                cfg_point = next((q for q in spaces[p.space].points if q.topic == p.topic), None)
+                if cfg_point is None:
+                    cfg_point = next((t for t in cfg.templates if t.quantity ==
+                                      "globe_temperature"), None)
+                if cfg_point is not None:
+                    if cfg_point.globe_diameter_m:
+                        globe_d[p.space] = cfg_point.globe_diameter_m
+                    if cfg_point.globe_emissivity:
+                        globe_e[p.space] = cfg_point.globe_emissivity
+        if cfg.site.barometric_pressure_pa is not None:
+            pressure = cfg.site.barometric_pressure_pa
+        elif cfg.site.altitude_m is not None:
+            pressure = float(pressure_from_altitude(cfg.site.altitude_m))
+        else:
+            pressure = STANDARD_PRESSURE_PA
+        indoor = np.array([s.kind == "indoor" for s in spaces], dtype=bool)
+        solar = np.array([(s.solar_load if s.solar_load is not None else s.kind == "outdoor")
+                          for s in spaces], dtype=bool)
+        editions = {s.phs_edition for s in spaces if s.hot_work}
+        return {
+            "met": np.array([p.met_value for p in people]),
+            "clo": np.array([p.clo if p.clothing_model == "fixed" and p.clo is not None
+                             else np.nan for p in people]),
+            "acclimatised": np.array([p.acclimatised for p in people], dtype=bool),
+            "clothing_adjustment_k": np.array([p.adjustment_k for p in people]),
+            "posture": tuple(p.posture for p in people),
+            "indoor": indoor, "solar_load": solar,
+            "hot_work": np.array([s.hot_work for s in spaces], dtype=bool),
+            "naturally_ventilated": np.array([s.ventilation == "natural" for s in spaces],
+                                             dtype=bool),
+            "pressure_pa": np.full(n, pressure),
+            "globe_diameter_m": globe_d, "globe_emissivity": globe_e,
+            "target_pmv": np.array([float(cfg.parameters(s).get("target_pmv", 0.5))
+                                    for s in spaces]),
+            "phs_edition": "2004" if editions == {"2004"} else "2023",
+        }
+
+    # ------------------------------------------------------------------ slots
+    def _build_slots(self) -> None:
+        model = self.model
+        groups: dict[str, tuple[list[int], list[int], list[float]]] = {}
+        combine = [s.combine for s in model.config.spaces]
+
+        def add(slot: str, pid: int, space: int, w: float) -> None:
+            g = groups.setdefault(slot, ([], [], []))
+            g[0].append(pid)
+            g[1].append(space)
+            g[2].append(w)
+
+        for pid, p in enumerate(model.points):
+            if p.space == SITE:
+                add(p.quantity, pid, 0, 1.0)
+                continue
+            w = HEIGHT_WEIGHTS[p.height] if combine[p.space] == "height_weighted" else 1.0
+            if p.quantity in ("plane_radiant_temperature", "radiant_flux"):
+                add(f"plane:{p.side}", pid, p.space, 1.0)
+            elif p.quantity == "air_temperature":
+                add("air_temperature", pid, p.space, w)
+                if p.height in ("head", "ankle"):
+                    add(f"air_temperature_{p.height}", pid, p.space, 1.0)
+            else:
+                add(p.quantity, pid, p.space, w)
+        self._slots = {k: _Slot(np.array(v[0], dtype=np.int64), np.array(v[1], dtype=np.int64),
+                                np.array(v[2], dtype=np.float64)) for k, v in groups.items()}
+        self._slots_version = len(model.points)
+
+    # ------------------------------------------------------------------ snapshot
+    def _fresh(self, now: float) -> tuple[BoolArray, FloatArray]:
+        n = self.n_points
+        age = now - self.last_time[:n]
+        limit = self.ingest_cfg.stale_after_intervals * self.interval[:n]
+        fresh: BoolArray = np.isfinite(age) & (age <= limit)
+        return fresh, age
+
+    def _combine(self, slot: _Slot, values: FloatArray, fresh: BoolArray, n: int
+                 ) -> tuple[FloatArray, FloatArray]:
+        """Weighted mean per space of fresh values, and the spread (max - min)."""
+        v = values[slot.pids]
+        ok = fresh[slot.pids] & np.isfinite(v)
+        w = np.where(ok, slot.weights, 0.0)
+        num = np.bincount(slot.spaces, weights=np.where(ok, v, 0.0) * w, minlength=n)
+        den = np.bincount(slot.spaces, weights=w, minlength=n)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(den > 0, num / den, np.nan)
+        hi = np.full(n, -np.inf)
+        lo = np.full(n, np.inf)
+        np.maximum.at(hi, slot.spaces[ok], v[ok])
+        np.minimum.at(lo, slot.spaces[ok], v[ok])
+        count = np.bincount(slot.spaces[ok], minlength=n)
+        spread = np.where(count >= 2, hi - lo, np.nan)
+        return mean, spread
+
+    def _air_speed_window(self, now: float, pids: IntArray) -> tuple[FloatArray, FloatArray]:
+        """Mean air speed over the window and turbulence intensity (%) per point.
+
+        ISO 7726:1998: the mean over the measuring period (3 min suggested) and the
+        turbulence intensity = 100 x standard deviation / mean.
+        """
+        rows = self.ring_row[pids]
+        t = self.ring_t[rows]
+        v = self.ring_v[rows]
+        inside = np.isfinite(t) & (t >= now - self.ingest_cfg.air_speed_window_s) & (t <= now)
+        cnt = inside.sum(axis=1)
+        s = np.where(inside, v, 0.0).sum(axis=1)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(cnt > 0, s / cnt, np.nan)
+            var = np.where(inside, (v - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(
+                cnt - 1, 1)
+            tu = np.where((cnt >= 3) & (mean > 0.05), 100.0 * np.sqrt(var) / mean, np.nan)
+        return mean, tu
+
+    def occupied(self, now: float, states: FloatArray) -> BoolArray:
+        """Occupied per space: a fresh occupancy point wins, else the weekly schedule."""
+        cfg = self.model.config
+        local = dt.datetime.fromtimestamp(now, self.tz)
+        day = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")[local.weekday()]
+        hhmm = local.strftime("%H:%M")
+        cache: dict[int, bool] = {}
+        out = np.zeros(self.model.n_spaces, dtype=bool)
+        for i, space in enumerate(cfg.spaces):
+            occ: OccupancyConfig = cfg.occupancy(space)
+            key = id(occ)
+            if key not in cache:
+                cache[key] = _scheduled(occ, local.date(), day, hhmm)
+            out[i] = cache[key]
+        return np.where(np.isfinite(states), states >= 0.5, out)
+
+    def _roll_outdoor(self, now: float, outdoor_t: float) -> None:
+        """Accumulate the local-day mean outdoor temperature; push it at local midnight."""
+        local = dt.datetime.fromtimestamp(now, self.tz)
+        today = local.date()
+        if self._day is not None and today != self._day:
+            if self._day_weight >= 0.5 * 86_400 * 0.5:  # at least 12 h of data
+                self.daily_means.insert(0, self._day_sum / self._day_weight)
+                del self.daily_means[DAILY_MEANS_KEPT:]
+            self._day_sum = 0.0
+            self._day_weight = 0.0
+        self._day = today
+        if self._last_outdoor_t is not None and math.isfinite(outdoor_t):
+            dt_s = min(now - self._last_outdoor_t, 3600.0)
+            if dt_s > 0:
+                self._day_sum += outdoor_t * dt_s
+                self._day_weight += dt_s
+        self._last_outdoor_t = now
+        if math.isfinite(outdoor_t) and local.hour == 6 and (
+                not math.isfinite(self.outdoor_6am) or local.minute < 5):
+            self.outdoor_6am = outdoor_t
+
+    def snapshot(self, now: float) -> Snapshot:
+        """All spaces at ``now``: index inputs (stale -> NaN), states, freshness."""
+        if self._slots_version != len(self.model.points):
+            self._build_slots()
+        n = self.model.n_spaces
+        fresh, age = self._fresh(now)
+        values = self.last_value[:self.n_points]
+        got: dict[str, FloatArray] = {}
+        spread: dict[str, FloatArray] = {}
+        outdoor: dict[str, float] = {}
+        for name in OUTDOOR_SLOTS:
+            slot = self._slots.get(name)
+            if slot is None:
+                outdoor[name] = math.nan
+                continue
+            v = values[slot.pids]
+            ok = fresh[slot.pids] & np.isfinite(v)
+            outdoor[name] = float(v[ok].mean()) if ok.any() else math.nan
+        for name, slot in self._slots.items():
+            if name in OUTDOOR_SLOTS or name == "air_speed" or name.startswith("plane:"):
+                continue
+            if name == "surface_temperature":
+                v = values[slot.pids]
+                ok = fresh[slot.pids] & np.isfinite(v)
+                low = np.full(n, np.inf)
+                np.minimum.at(low, slot.spaces[ok], v[ok])
+                got[name] = np.where(np.isfinite(low), low, np.nan)
+                continue
+            got[name], spread[name] = self._combine(slot, values, fresh, n)
+        planes: dict[str, FloatArray] = {}
+        for side in radiation.SIDES:
+            slot = self._slots.get(f"plane:{side}")
+            if slot is None:
+                continue
+            vals = values.copy()
+            flux = np.array([self.model.points[p].quantity == "radiant_flux" for p in slot.pids])
+            if flux.any():
+                vals[slot.pids[flux]] = radiation.plane_radiant_temperature_from_flux(
+                    values[slot.pids[flux]])
+            planes[side], spread[f"plane_radiant_temperature_{side}"] = self._combine(
+                slot, vals, fresh, n)
+        speed = np.full(n, np.nan)
+        turbulence = np.full(n, np.nan)
+        slot = self._slots.get("air_speed")
+        if slot is not None:
+            mean_v, tu = self._air_speed_window(now, slot.pids)
+            point_vals = np.full(self.n_points, np.nan)
+            point_tu = np.full(self.n_points, np.nan)
+            point_vals[slot.pids] = mean_v
+            point_tu[slot.pids] = tu
+            speed, spread["air_speed"] = self._combine(slot, point_vals, fresh, n)
+            turbulence, _ = self._combine(slot, point_tu, fresh, n)
+        measured_tu = got.get("turbulence_intensity", np.full(n, np.nan))
+        turbulence = np.where(np.isfinite(measured_tu), measured_tu, turbulence)
+
+        ctx = self._context
+        indoor = ctx["indoor"]
+        assert isinstance(indoor, np.ndarray)
+        outdoor_space = ~indoor
+        air = got.get("air_temperature", np.full(n, np.nan))
+        rh = got.get("relative_humidity", np.full(n, np.nan))
+        # outdoor spaces without their own sensors use the site's outdoor points
+        air = np.where(outdoor_space & np.isnan(air), outdoor["outdoor_air_temperature"], air)
+        rh = np.where(outdoor_space & np.isnan(rh), outdoor["outdoor_relative_humidity"], rh)
+        speed = np.where(outdoor_space & np.isnan(speed), outdoor["wind_speed"], speed)
+
+        self._roll_outdoor(now, outdoor["outdoor_air_temperature"])
+        rm = running_mean_outdoor([self.daily_means]) if len(self.daily_means) >= 7 else \
+            np.array([np.nan])
+        clo_outdoor = self.outdoor_6am if math.isfinite(self.outdoor_6am) else \
+            outdoor["outdoor_air_temperature"]
+        states = {}
+        for q in STATE_QUANTITIES:
+            slot = self._slots.get(q)
+            if slot is None:
+                states[q] = np.full(n, np.nan)
+                continue
+            v = values[slot.pids]
+            ok = fresh[slot.pids] & np.isfinite(v)
+            hi = np.full(n, -np.inf)
+            np.maximum.at(hi, slot.spaces[ok], v[ok])
+            states[q] = np.where(np.isfinite(hi), hi, np.nan)
+        inputs = SpaceInputs.create(
+            n,
+            air_temperature=air, relative_humidity=rh, air_speed=speed,
+            turbulence_intensity=turbulence,
+            globe_temperature=got.get("globe_temperature", np.full(n, np.nan)),
+            mean_radiant_temperature=got.get("mean_radiant_temperature", np.full(n, np.nan)),
+            natural_wet_bulb=got.get("natural_wet_bulb", np.full(n, np.nan)),
+            psychrometric_wet_bulb=got.get("psychrometric_wet_bulb", np.full(n, np.nan)),
+            floor_temperature=got.get("floor_temperature", np.full(n, np.nan)),
+            air_temperature_head=got.get("air_temperature_head", np.full(n, np.nan)),
+            air_temperature_ankle=got.get("air_temperature_ankle", np.full(n, np.nan)),
+            surface_temperature_min=got.get("surface_temperature", np.full(n, np.nan)),
+            outdoor_air_temperature=np.full(n, clo_outdoor),
+            wbgt_time_weighted=self.wbgt_time_weighted(now),
+            running_mean_outdoor=np.full(n, rm[0]),
+            plane_radiant=planes,
+            **ctx,
+        )
+        present = {k: np.isfinite(v) for k, v in (
+            ("air_temperature", air), ("relative_humidity", rh), ("air_speed", speed))}
+        for k, v in got.items():
+            present.setdefault(k, np.isfinite(v))
+        for side, v in planes.items():
+            present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
+        return Snapshot(now, inputs, present, states, self.occupied(now, states["occupancy"]),
+                        spread, fresh, age, outdoor)
+
+    # ------------------------------------------------------------------ WBGT history
+    def record_wbgt(self, now: float, wbgt: FloatArray) -> None:
+        """Add this tick's WBGT (°C per space) to the per-minute bins of the 60-min window.
+
+        Each tick's value holds from the previous tick to this one (sample and hold, at most
+        two minutes), which is the time weighting of ISO 7243 / NIOSH for sampled data.
+        """
+        last = self._last_wbgt_record
+        self._last_wbgt_record = now
+        if last is None:
+            return
+        dt_s = min(now - last, 2 * WBGT_BIN_S)
+        if dt_s <= 0:
+            return
+        minute = int(now // WBGT_BIN_S)
+        slot = minute % 60
+        stale = self.wbgt_minute[:, slot] != minute
+        self.wbgt_sum[stale, slot] = 0.0
+        self.wbgt_weight[stale, slot] = 0.0
+        self.wbgt_minute[:, slot] = minute
+        ok = np.isfinite(wbgt)
+        self.wbgt_sum[ok, slot] += wbgt[ok] * dt_s
+        self.wbgt_weight[ok, slot] += dt_s
+
+    def wbgt_time_weighted(self, now: float) -> FloatArray:
+        """Time-weighted WBGT over the last hour (°C); NaN below 80 % coverage."""
+        minute = int(now // WBGT_BIN_S)
+        valid = (self.wbgt_minute > minute - 60) & (self.wbgt_minute <= minute)
+        s = np.where(valid, self.wbgt_sum, 0.0).sum(axis=1)
+        w = np.where(valid, self.wbgt_weight, 0.0).sum(axis=1)
+        window = self.ingest_cfg.wbgt_window_s
+        with np.errstate(invalid="ignore", divide="ignore"):
+            result: FloatArray = np.where(w >= MIN_TWA_COVERAGE * min(window, 3600.0), s / w,
+                                          np.nan)
+        return result
+
+
+def _scheduled(occ: OccupancyConfig, date: dt.date, day: str, hhmm: str) -> bool:
+    if occ.always:
+        return True
+    if date in occ.holidays:
+        return False
+    for span in occ.hours.get(day, []):  # type: ignore[call-overload]
+        start, end = span.split("-")
+        if start <= hhmm < end:
+            return True
+    return False
+
+
+def metabolic_w(met: FloatArray) -> FloatArray:
+    """Whole-body metabolic rate (W) for met values (1 met = 58.15 W/m², 1.8 m²)."""
+    return heat_stress.metabolic_rate_w(np.asarray(met) * 58.15)

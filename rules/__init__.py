@@ -1,0 +1,1 @@
+"""Default rule packs (YAML data files, validated by thermowarden.config models)."""

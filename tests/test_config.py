@@ -1,0 +1,133 @@
+"""Site configuration: the sample loads, errors point at file, line and column."""
+
+from __future__ import annotations
+
+import pathlib
+import textwrap
+
+import pytest
+
+from tests.conftest import REPO
+from thermowarden.config import ConfigError, load_site
+
+MINIMAL = """\
+site:
+  id: test-site
+spaces:
+  - id: room-1
+    points:
+      - topic: t/room-1/temp
+        quantity: air_temperature
+"""
+
+
+def write(tmp_path: pathlib.Path, text: str, name: str = "site.yaml") -> pathlib.Path:
+    p = tmp_path / name
+    p.write_text(textwrap.dedent(text), encoding="utf-8")
+    return p
+
+
+def issues(path: pathlib.Path, environ: dict[str, str] | None = None) -> list[str]:
+    with pytest.raises(ConfigError) as exc:
+        load_site(path, environ or {})
+    return [str(i) for i in exc.value.issues]
+
+
+def test_every_sample_config_in_the_repo_loads():
+    samples = sorted((REPO / "deploy").glob("*.yaml")) + sorted(
+        (REPO / "simulated_feeds").glob("**/*.yaml"))
+    assert samples, "no sample configs found"
+    for path in samples:
+        if path.name.startswith(("mosquitto", "broker")):
+            continue
+        config = load_site(path, {})
+        assert config.spaces, path
+
+
+def test_example_site_content():
+    c = load_site(REPO / "deploy" / "example-site.yaml", {})
+    ids = [s.id for s in c.spaces]
+    assert ids == ["office-west", "bakery-floor", "loading-yard", "studio-north"]
+    bakery = c.spaces[1]
+    assert bakery.hot_work and c.people(bakery).acclimatised
+    assert c.site.timezone == "Europe/London"
+
+
+def test_misspelt_key_points_at_line_and_suggests(tmp_path):
+    p = write(tmp_path, MINIMAL.replace("    points:", "    hot_wrok: true\n    points:"))
+    (msg,) = issues(p)
+    assert msg.startswith(f"{p}:5:5: ")
+    assert "unknown key 'hot_wrok'" in msg and "did you mean 'hot_work'" in msg
+
+
+def test_bad_value_names_value_and_expectation(tmp_path):
+    p = write(tmp_path, MINIMAL.replace("quantity: air_temperature",
+                                        "quantity: air_temperature\n        unit: furlongs"))
+    (msg,) = issues(p)
+    assert f"{p}:8:" in msg
+    assert "'furlongs' does not fit a temperature" in msg
+
+
+def test_unknown_quantity(tmp_path):
+    p = write(tmp_path, MINIMAL.replace("quantity: air_temperature", "quantity: air_temp"))
+    (msg,) = issues(p)
+    assert f"{p}:7:19" in msg and "air_temp" in msg
+
+
+def test_yaml_syntax_error_has_position(tmp_path):
+    p = write(tmp_path, "site:\n  id: [unclosed\n")
+    (msg,) = issues(p)
+    assert msg.startswith(f"{p}:") and "not valid YAML" in msg
+
+
+def test_password_in_file_is_refused(tmp_path):
+    p = write(tmp_path, MINIMAL + "broker:\n  password: hunter2\n")
+    (msg,) = issues(p)
+    assert "THERMOWARDEN_BROKER__PASSWORD" in msg and f"{p}:9:3" in msg
+
+
+def test_environment_overrides_and_secret(tmp_path):
+    p = write(tmp_path, MINIMAL)
+    c = load_site(p, {"THERMOWARDEN_BROKER__URL": "mqtt://10.1.2.3:1884",
+                      "THERMOWARDEN_BROKER__PASSWORD": "s3cret",
+                      "THERMOWARDEN_EVALUATION__TICK_S": "5"})
+    assert c.broker.url == "mqtt://10.1.2.3:1884"
+    assert c.broker.password is not None and c.broker.password.get_secret_value() == "s3cret"
+    assert c.evaluation.tick_s == 5
+    assert "s3cret" not in repr(c)
+
+
+def test_bad_environment_override_is_named(tmp_path):
+    p = write(tmp_path, MINIMAL)
+    (msg,) = issues(p, {"THERMOWARDEN_BROKER__URL": "http://x"})
+    assert "THERMOWARDEN_BROKER__URL" in msg
+
+
+def test_duplicate_space_and_template_checks(tmp_path):
+    p = write(tmp_path, MINIMAL + "  - id: room-1\n")
+    assert any("appears twice" in m for m in issues(p))
+    p = write(tmp_path, MINIMAL + "templates:\n  - topic: t/{room}/x\n    quantity: air_speed\n")
+    assert any("unknown placeholder {room}" in m for m in issues(p))
+
+
+def test_csv_spaces_with_row_positions(tmp_path):
+    write(tmp_path, "id,name,kind,work_class,clo,rule_packs\n"
+                    "bay-1,Bay 1,indoor,moderate,0.6,comfort;humidity\n"
+                    "bay-2,Bay 2,sideways,low,0.6,comfort\n", "spaces.csv")
+    p = write(tmp_path, "site: {id: s}\nspaces_csv: spaces.csv\n")
+    (msg,) = issues(p)
+    assert msg.startswith(f"{tmp_path / 'spaces.csv'}:3:3") and "sideways" in msg
+
+
+def test_csv_unknown_column_suggests(tmp_path):
+    write(tmp_path, "id,wrok_class\nbay-1,low\n", "spaces.csv")
+    p = write(tmp_path, "site: {id: s}\nspaces_csv: spaces.csv\n")
+    (msg,) = issues(p)
+    assert "unknown column 'wrok_class'" in msg and "work_class" in msg
+
+
+def test_sided_point_needs_side(tmp_path):
+    p = write(tmp_path, MINIMAL.replace("quantity: air_temperature",
+                                        "quantity: plane_radiant_temperature"))
+    (msg,) = issues(p)
+    assert "needs the side it faces" in msg
