@@ -2,11 +2,14 @@
 
 Sub-commands:
   assess   spot check of one space: readings as JSON on stdin or --input, every index out
+  check    validate a site file, its CSV and rule packs; print what it resolves to
+  replay   run the rules offline over a recorded feed and print every advisory event
 """
 
 from __future__ import annotations
 
 import argparse
+import gzip
 import json
 import sys
 from collections.abc import Sequence
@@ -78,6 +81,64 @@ def cmd_assess(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_check(args: argparse.Namespace) -> int:
+    """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
+    from thermowarden.site_check import check_site, resolved_map
+
+    report = check_site(args.config)
+    if not report.ok:
+        for issue in report.issues:
+            print(issue, file=sys.stderr)
+        print(f"thermowarden check: {len(report.issues)} problem(s); nothing was started",
+              file=sys.stderr)
+        return 1
+    assert report.model is not None
+    if not args.quiet:
+        print("\n".join(resolved_map(report.model)))
+    for w in report.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+    n = report.model.n_spaces
+    print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
+          f"{len(report.model.points)} points, {len(report.warnings)} warning(s))",
+          file=sys.stderr)
+    return 0
+
+
+def cmd_replay(args: argparse.Namespace) -> int:
+    """Replay a recorded feed offline; print events as JSON lines (or a summary)."""
+    from thermowarden.config import ConfigError, load_site
+    from thermowarden.replay import FeedError, read_feed, replay, summarise
+
+    try:
+        config = load_site(args.config)
+    except ConfigError as exc:
+        for issue in exc.issues:
+            print(issue, file=sys.stderr)
+        return 1
+    try:
+        opener = gzip.open if args.feed.endswith(".gz") else open
+        with opener(args.feed, "rt", encoding="utf-8") as fh:
+            result = replay(config, read_feed(fh, args.feed), base=args.config,
+                            full_events=args.full, tick_s=args.tick)
+    except OSError as exc:
+        print(f"thermowarden replay: cannot read {args.feed}: {exc.strerror}", file=sys.stderr)
+        return 2
+    except FeedError as exc:
+        print(f"thermowarden replay: {exc}", file=sys.stderr)
+        return 2
+    except ConfigError as exc:
+        for issue in exc.issues:
+            print(issue, file=sys.stderr)
+        return 1
+    if args.summary:
+        json.dump(summarise(result), sys.stdout, indent=2, ensure_ascii=False)
+        print()
+    else:
+        for e in result.events:
+            print(json.dumps(e, ensure_ascii=False))
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="thermowarden",
@@ -89,6 +150,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--input", metavar="FILE", help="JSON file of readings (default: stdin)")
     p.add_argument("--format", choices=("json", "table"), default="json")
     p.set_defaults(func=cmd_assess)
+
+    p = sub.add_parser("check", help="validate a site file, its CSV and rule packs")
+    p.add_argument("config", metavar="SITE", help="site configuration (YAML)")
+    p.add_argument("--quiet", action="store_true", help="do not print the resolved map")
+    p.set_defaults(func=cmd_check)
+
+    p = sub.add_parser("replay", help="run the rules offline over a recorded feed")
+    p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
+    p.add_argument("feed", metavar="FEED", help="JSON lines of {t, topic, payload}")
+    p.add_argument("--summary", action="store_true",
+                   help="per rule and audience: advisories raised, time active, notifications")
+    p.add_argument("--full", action="store_true", help="print whole event payloads")
+    p.add_argument("--tick", type=float, metavar="SECONDS",
+                   help="evaluation interval in feed time (default: the site's tick_s)")
+    p.set_defaults(func=cmd_replay)
     return parser
 
 

@@ -336,6 +336,10 @@ class SiteInfo(Strict):
     altitude_m: float | None = Field(None, ge=-500, le=9000)
     barometric_pressure_pa: float | None = Field(None, ge=30_000, le=110_000)
     outdoor_points: list[PointConfig] = Field(default_factory=list)
+    outdoor_daily_means: list[Annotated[float, Field(ge=-60, le=60)]] = Field(
+        default_factory=list, max_length=30)
+    """Recent daily mean outdoor temperatures (°C, yesterday first) to start the running
+    mean with until the service has measured seven days of its own."""
 
     @field_validator("timezone")
     @classmethod
@@ -708,3 +712,117 @@ def read_password(broker: BrokerConfig) -> str | None:
 def known_units(quantity: str) -> list[str]:
     """Units accepted for a quantity (for messages and docs)."""
     return [u for u in UNITS[QUANTITIES[quantity].kind] if u]
+
+
+# ----------------------------------------------------------------------------- rule packs
+
+Audience = Literal["facilities", "safety", "integrator"]
+Priority = Literal["low", "medium", "high", "urgent"]
+PRIORITIES: tuple[str, ...] = ("low", "medium", "high", "urgent")
+RULE_ID = r"^[a-z][a-z0-9_]{0,47}$"
+
+
+class AppliesTo(Strict):
+    """Which spaces a rule applies to (besides having its pack enabled)."""
+
+    kind: Literal["indoor", "outdoor"] | None = None
+    hot_work: bool | None = None
+    ventilation: Literal["mechanical", "natural"] | None = None
+
+
+class RuleLevel(Strict):
+    """One priority level of an escalating rule: the priority while ``when`` holds."""
+
+    priority: Priority
+    when: str
+
+
+class RuleMessages(Strict):
+    """Message templates: ``{name}`` or ``{name:.1f}`` inserts a number (see the rule
+    language in the README), ``{space_name}`` and ``{site_name}`` the names."""
+
+    title: str
+    advice: str
+    rationale: str
+
+
+class RuleNumber(Strict):
+    """A number shown with an advisory, optionally with the threshold it is compared to."""
+
+    name: str
+    threshold: str | None = None
+
+
+class RuleConfig(Strict):
+    """One rule of a pack. See rules/*.yaml for the default packs."""
+
+    id: str = Field(pattern=RULE_ID)
+    title: str
+    audience: Audience
+    priority: Priority = "medium"
+    applies_to: AppliesTo = Field(default_factory=AppliesTo)
+    needs: list[str] = Field(default_factory=list)
+    condition: str | None = None
+    levels: list[RuleLevel] = Field(default_factory=list)
+    clear: str | None = None
+    on_delay_s: float = Field(0.0, ge=0, le=86_400)
+    off_delay_s: float = Field(0.0, ge=0, le=86_400)
+    renotify_s: float | None = Field(None, ge=60, le=7 * 86_400)
+    occupied_only: bool = False
+    hold_back: str | None = None
+    acted_on: str | None = None
+    parameters: dict[str, float | bool] = Field(default_factory=dict)
+    numbers: list[RuleNumber] = Field(default_factory=list)
+    benefit: dict[str, str] = Field(default_factory=dict)
+    messages: RuleMessages
+    max_shelve_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    heat_stress_cautions: bool = False
+
+    @field_validator("numbers", mode="before")
+    @classmethod
+    def _numbers(cls, v: object) -> object:
+        if isinstance(v, list):
+            return [{"name": x} if isinstance(x, str) else x for x in v]
+        return v
+
+    @model_validator(mode="after")
+    def _check(self) -> RuleConfig:
+        if self.condition is None and not self.levels:
+            raise ValueError("a rule needs a condition or levels")
+        order = [PRIORITIES.index(level.priority) for level in self.levels]
+        if order != sorted(order) or len(set(order)) != len(order):
+            raise ValueError("levels go from the lowest priority to the highest, each once")
+        return self
+
+
+class RulePackConfig(Strict):
+    """A rule pack file: a name, a description and its rules."""
+
+    pack: str = Field(pattern=RULE_ID)
+    description: str
+    rules: list[RuleConfig]
+
+    @model_validator(mode="after")
+    def _unique(self) -> RulePackConfig:
+        ids = [r.id for r in self.rules]
+        dup = {i for i in ids if ids.count(i) > 1}
+        if dup:
+            raise ValueError(f"rule ids appear twice: {', '.join(sorted(dup))}")
+        return self
+
+
+def load_rule_pack_file(path: str | os.PathLike[str]) -> tuple[RulePackConfig, SourceMap]:
+    """Load one rule pack file; raises :class:`ConfigError` with positions."""
+    shown = str(path)
+    try:
+        text = pathlib.Path(path).read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError([ConfigIssue(None, f"{shown}: cannot read: {exc.strerror}")]) from None
+    try:
+        data, smap = load_yaml_with_positions(text, shown)
+    except YamlSourceError as exc:
+        raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
+    try:
+        return RulePackConfig.model_validate(data), smap
+    except ValidationError as exc:
+        raise ConfigError(_issues_from_validation(exc, smap, {})) from None

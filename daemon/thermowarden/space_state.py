@@ -94,7 +94,7 @@ class SiteState:
         self.wbgt_weight = np.zeros((n, 60))
         self.wbgt_minute = np.full((n, 60), -1, dtype=np.int64)
         self._last_wbgt_record: float | None = None
-        self.daily_means: list[float] = []
+        self.daily_means: list[float] = list(cfg.site.outdoor_daily_means)
         """Completed daily mean outdoor temperatures, newest first (°C)."""
         self._day: dt.date | None = None
         self._day_sum = 0.0
@@ -226,6 +226,10 @@ class SiteState:
                     add(f"air_temperature_{p.height}", pid, p.space, 1.0)
             else:
                 add(p.quantity, pid, p.space, w)
+            # redundant sensors are compared only with sensors at the same height (and
+            # radiant sensors only with sensors facing the same side, below)
+            if p.side is None:
+                add(f"height:{p.height or 'any'}:{p.quantity}", pid, p.space, 1.0)
         self._slots = {k: _Slot(np.array(v[0], dtype=np.int64), np.array(v[1], dtype=np.int64),
                                 np.array(v[2], dtype=np.float64)) for k, v in groups.items()}
         self._slots_version = len(model.points)
@@ -333,6 +337,12 @@ class SiteState:
         for name, slot in self._slots.items():
             if name in OUTDOOR_SLOTS or name == "air_speed" or name.startswith("plane:"):
                 continue
+            if name.startswith("height:"):
+                # sensors at one height may be compared; different heights differ by design
+                _, hspread = self._combine(slot, values, fresh, n)
+                q = name.split(":", 2)[2]
+                spread[q] = np.fmax(spread.get(q, np.full(n, np.nan)), hspread)
+                continue
             if name == "surface_temperature":
                 v = values[slot.pids]
                 ok = fresh[slot.pids] & np.isfinite(v)
@@ -340,7 +350,7 @@ class SiteState:
                 np.minimum.at(low, slot.spaces[ok], v[ok])
                 got[name] = np.where(np.isfinite(low), low, np.nan)
                 continue
-            got[name], spread[name] = self._combine(slot, values, fresh, n)
+            got[name], _ = self._combine(slot, values, fresh, n)
         planes: dict[str, FloatArray] = {}
         for side in radiation.SIDES:
             slot = self._slots.get(f"plane:{side}")

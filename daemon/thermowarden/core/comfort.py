@@ -124,6 +124,28 @@ def _set_for_ce_compiled(tdb: float, tr: float, v: float, met: float, clo: float
                                       BODY_SURFACE_AREA_SET, p_atm, 1, True)[0]
 
 
+@vectorize(_SET_SIGNATURE, cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
+def _set_compiled_serial(tdb: float, tr: float, v: float, met: float, clo: float,
+                         vapor_pressure_torr: float, p_atm: float
+                         ) -> float:  # pragma: no cover - numba
+    """:func:`_set_compiled` on one core, for small batches (thread start-up costs more)."""
+    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
+                                      BODY_SURFACE_AREA_SET, p_atm, 1, False)[0]
+
+
+@vectorize(_SET_SIGNATURE, cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
+def _set_for_ce_compiled_serial(tdb: float, tr: float, v: float, met: float, clo: float,
+                                vapor_pressure_torr: float, p_atm: float
+                                ) -> float:  # pragma: no cover - numba
+    """:func:`_set_for_ce_compiled` on one core, for small batches."""
+    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
+                                      BODY_SURFACE_AREA_SET, p_atm, 1, True)[0]
+
+
+PARALLEL_FROM = 512
+"""Batches of at least this many spaces use the multi-core SET kernels."""
+
+
 def _p_sat_torr(t_c: FloatArray) -> FloatArray:
     """Saturation pressure (torr) as the two-node model computes it (Antoine form)."""
     result: FloatArray = np.exp(18.6686 - 4030.183 / (np.asarray(t_c) + 235.0))
@@ -146,7 +168,11 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
     if not ok.any():
         return out
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
-    kernel = _set_for_ce_compiled if for_cooling_effect else _set_compiled
+    big = int(ok.sum()) >= PARALLEL_FROM
+    if for_cooling_effect:
+        kernel = _set_for_ce_compiled if big else _set_for_ce_compiled_serial
+    else:
+        kernel = _set_compiled if big else _set_compiled_serial
     ta = air_c[ok]
     vp = rh[ok] * _p_sat_torr(ta) / 100.0
     with np.errstate(all="ignore"):

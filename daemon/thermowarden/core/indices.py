@@ -335,6 +335,11 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     out["cooling_air_speed_needed"] = need.column(
         np.maximum(v_needed, 0.0), "m/s",
         "ASHRAE 55-2020 5.3.2 (speed whose cooling effect brings PMV to the target)")
+    ok_need = need.ok
+    set_after = comfort.set_temperature(np.where(ok_need, ta_a, np.nan), mrt, v_needed_rel, rh,
+                                        met, clo_d, pressure_pa=s.pressure_pa)
+    out["set_at_cooling_air_speed"] = need.column(
+        set_after, "°C", "ASHRAE 55-2020 Appendix D, at cooling_air_speed_needed")
 
     # Adaptive comfort, for naturally ventilated spaces.
     rm_app = Applicability(n)

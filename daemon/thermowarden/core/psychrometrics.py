@@ -6,8 +6,9 @@ standard atmospheric pressure from altitude (eq. 3), humidity ratio (eq. 20/22),
 wet-bulb relation (eqs. 33 and 35). Temperatures in °C, pressures in Pa, relative
 humidity in %, humidity ratio in kg water / kg dry air.
 
-Iterative inversions (dew point, wet bulb) are done for all spaces at once by bisection
-on arrays, so one call costs the same few dozen array operations for 1 or 10,000 spaces.
+Iterative inversions (dew point by Newton's method, wet bulb by bracketed regula falsi) are
+done for all spaces at once on arrays, so one call costs the same few dozen array
+operations for 1 or 10,000 spaces.
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from thermowarden.core.columns import FloatArray
+from thermowarden.core.solve import IndexArray, illinois
 
 STANDARD_PRESSURE_PA = 101_325.0
 _MOLAR_RATIO = 0.621945  # ratio of molar masses water / dry air (ASHRAE 2017 ch. 1 eq. 20)
@@ -60,22 +62,14 @@ def humidity_ratio(t_c: FloatArray, rh_pct: FloatArray,
     return humidity_ratio_from_vapour_pressure(vapour_pressure(t_c, rh_pct), pressure_pa)
 
 
-def _bisect(func: object, lo: FloatArray, hi: FloatArray, iterations: int = 34) -> FloatArray:
-    """Vectorised bisection for an increasing function ``func(x) -> residual``.
-
-    Finds x in [lo, hi] with residual 0 for every element; 34 halvings of a 150 K bracket
-    leave an error below 1e-8 K.
-    """
-    f = func  # typed loosely: a callable FloatArray -> FloatArray
-    lo = lo.copy()
-    hi = hi.copy()
-    for _ in range(iterations):
-        mid = 0.5 * (lo + hi)
-        r = f(mid)  # type: ignore[operator]
-        above = r > 0
-        hi = np.where(above, mid, hi)
-        lo = np.where(above, lo, mid)
-    result: FloatArray = 0.5 * (lo + hi)
+def _dln_saturation_dt(t_c: FloatArray) -> FloatArray:
+    """d ln(pws) / dT (1/K) of the ASHRAE 2017 saturation equations (analytic)."""
+    t = np.asarray(t_c, dtype=np.float64) + 273.15
+    d_ice = (5.6745359e03 / t**2 - 9.6778430e-03 + 2 * 6.2215701e-07 * t
+             + 3 * 2.0747825e-09 * t**2 - 4 * 9.4840240e-13 * t**3 + 4.1635019 / t)
+    d_water = (5.8002206e03 / t**2 - 4.8640239e-02 + 2 * 4.1764768e-05 * t
+               - 3 * 1.4452093e-08 * t**2 + 6.5459673 / t)
+    result: FloatArray = np.where(t < 273.15, d_ice, d_water)
     return result
 
 
@@ -83,16 +77,19 @@ def dew_point(t_c: FloatArray, rh_pct: FloatArray) -> FloatArray:
     """Dew-point (frost-point below 0 °C) temperature (°C).
 
     Inverts the ASHRAE 2017 saturation-pressure equations: the temperature at which the
-    saturation pressure equals the actual vapour pressure. NaN where RH <= 0.
+    saturation pressure equals the actual vapour pressure. Newton's method on ln(pws) from
+    the Magnus estimate; six steps take it below 1e-9 K. NaN where RH <= 0.
     """
     t = np.asarray(t_c, dtype=np.float64)
     pw = vapour_pressure(t, rh_pct)
-    safe_pw = np.where(pw > 0, pw, np.nan)
-    ln_pw = np.log(safe_pw)
-    lo = np.full_like(t, -100.0)
-    hi = np.where(np.isfinite(t), np.maximum(t, -100.0) + 0.01, 0.0)
-    td = _bisect(lambda x: np.log(saturation_pressure(x)) - ln_pw, lo, hi)
-    result: FloatArray = np.where(np.isfinite(ln_pw) & np.isfinite(t), td, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ln_pw = np.log(np.where(pw > 0, pw, np.nan))
+        # Magnus (Alduchov and Eskridge 1996) start, good to about 0.1 K
+        gamma = ln_pw - np.log(610.94)
+        td = 243.04 * gamma / (17.625 - gamma)
+        for _ in range(6):
+            td = td - (np.log(saturation_pressure(td)) - ln_pw) / _dln_saturation_dt(td)
+    result: FloatArray = np.where(np.isfinite(ln_pw) & np.isfinite(t), np.minimum(td, t), np.nan)
     return result
 
 
@@ -121,10 +118,21 @@ def wet_bulb(t_c: FloatArray, rh_pct: FloatArray,
     t = np.asarray(t_c, dtype=np.float64)
     w = humidity_ratio(t, rh_pct, pressure_pa)
     td = dew_point(t, rh_pct)
-    lo = np.where(np.isfinite(td), td - 0.01, -100.0)
-    hi = np.where(np.isfinite(t), t + 0.01, 0.0)
-    twb = _bisect(lambda x: _humidity_ratio_from_wet_bulb(t, x, pressure_pa) - w, lo, hi)
-    result: FloatArray = np.where(np.isfinite(w) & np.isfinite(td), twb, np.nan)
+    ok = np.isfinite(w) & np.isfinite(td)
+    lo = np.where(ok, td - 0.01, 0.0)
+    hi = np.where(ok, t + 0.01, 1.0)
+    p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), t.shape)
+
+    def residual(x: FloatArray, idx: IndexArray) -> FloatArray:
+        result: FloatArray = _humidity_ratio_from_wet_bulb(t[idx], x, p[idx]) - w[idx]
+        return result
+
+    idx = np.flatnonzero(ok)
+    twb = np.full(t.shape, np.nan)
+    if idx.size:
+        twb[idx] = illinois(residual, lo[idx], hi[idx], residual(lo[idx], idx),
+                            residual(hi[idx], idx), tolerance=1e-7, residual_tolerance=1e-10)
+    result: FloatArray = np.where(ok, twb, np.nan)
     return result
 
 

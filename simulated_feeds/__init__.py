@@ -1,0 +1,1 @@
+"""Scenario generators for invented sites, and recorded feeds (recorded/*.jsonl.gz)."""
