@@ -42,7 +42,7 @@ def test_template_and_explicit_points(site):
     assert latest(model, state, "office-west/air_speed") == pytest.approx(0.1016)
     # °F on the studio globe
     assert ing.ingest("larkfield/studio-north/globe", b"77", NOW) == []
-    assert latest(model, state, "studio-north/globe_temperature") == pytest.approx(25.0)
+    assert latest(model, state, "studio-north/globe_temperature/west") == pytest.approx(25.0)
 
 
 def test_senml_pack_feeds_two_points(site):

@@ -122,16 +122,20 @@ def wet_bulb(t_c: FloatArray, rh_pct: FloatArray,
     lo = np.where(ok, td - 0.01, 0.0)
     hi = np.where(ok, t + 0.01, 1.0)
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), t.shape)
+    idx = np.flatnonzero(ok)
+    t_s, w_s, p_s = t[idx], w[idx], p[idx]
 
-    def residual(x: FloatArray, idx: IndexArray) -> FloatArray:
-        result: FloatArray = _humidity_ratio_from_wet_bulb(t[idx], x, p[idx]) - w[idx]
+    def residual(x: FloatArray, sub: IndexArray) -> FloatArray:
+        """Residual for the spaces ``sub`` (positions within the solvable subset)."""
+        result: FloatArray = _humidity_ratio_from_wet_bulb(t_s[sub], x, p_s[sub]) - w_s[sub]
         return result
 
-    idx = np.flatnonzero(ok)
     twb = np.full(t.shape, np.nan)
     if idx.size:
-        twb[idx] = illinois(residual, lo[idx], hi[idx], residual(lo[idx], idx),
-                            residual(hi[idx], idx), tolerance=1e-7, residual_tolerance=1e-10)
+        every = np.arange(idx.size)
+        lo_s, hi_s = lo[idx], hi[idx]
+        twb[idx] = illinois(residual, lo_s, hi_s, residual(lo_s, every),
+                            residual(hi_s, every), tolerance=1e-7, residual_tolerance=1e-10)
     result: FloatArray = np.where(ok, twb, np.nan)
     return result
 
