@@ -9,12 +9,22 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   (median of repeats).
 - indices_vs_loop_ratio: the same functions called one space at a time (timed on a sample
   of spaces and scaled to 10,000) divided by the vectorised time.
+- ingest_msgs_per_s: decode, validate and store, in process, no broker, mixed payloads
+  (plain numbers, JSON with a time, SenML packs, equipment states) for 1,000 spaces;
+  ingest_vs_json_ratio: that rate divided by a bare json.loads loop over the same payloads.
+- bytes_per_space: resident memory per space for 10,000 spaces with six points at 10 s
+  intervals and full windows (3-minute air-speed window, 60-minute WBGT history).
+- rules_10k_ms: rule evaluation and lifecycle for 10,000 spaces with the default packs, one
+  steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
+  (messages rendered for every space that crosses a threshold).
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
+import pathlib
 import statistics
 import sys
 import time
@@ -23,6 +33,7 @@ import numpy as np
 
 sys.path.insert(0, str(__import__("pathlib").Path(__file__).resolve().parent.parent / "daemon"))
 
+from thermowarden.config import SiteConfig  # noqa: E402
 from thermowarden.core.indices import SpaceInputs, compute_indices  # noqa: E402
 
 
@@ -84,12 +95,170 @@ def bench_indices(quick: bool) -> dict[str, float]:
             "indices_vs_loop_ratio": round(loop_per_space * n / vec, 1)}
 
 
+def _site(n: int, packs: list[str]) -> SiteConfig:
+    templates = [
+        {"topic": "b/{space}/ta", "quantity": "air_temperature", "interval_s": 10},
+        {"topic": "b/{space}/rh", "quantity": "relative_humidity", "interval_s": 10,
+         "format": {"type": "json", "value_path": "v", "time_path": "t"}},
+        {"topic": "b/{space}/heat", "quantity": "globe_temperature", "interval_s": 10,
+         "format": {"type": "senml", "name": "tg"}},
+        {"topic": "b/{space}/heat", "quantity": "natural_wet_bulb", "interval_s": 10,
+         "format": {"type": "senml", "name": "tnw"}},
+        {"topic": "b/{space}/v", "quantity": "air_speed", "interval_s": 10, "unit": "fpm"},
+        {"topic": "b/{space}/fan", "quantity": "fan_state", "interval_s": 10,
+         "format": {"type": "state"}},
+    ]
+    spaces = [{"id": f"s{i:05d}", "hot_work": i % 10 == 0,
+               "kind": "outdoor" if i % 20 == 7 else "indoor"} for i in range(n)]
+    return SiteConfig.model_validate({
+        "site": {"id": "bench", "timezone": "UTC"}, "templates": templates, "spaces": spaces,
+        "defaults": {"rule_packs": packs, "occupancy": {"always": True},
+                     "people": {"met": 1.2, "clo": 0.6}}})
+
+
+def _messages(n_spaces: int, count: int, t0: float) -> list[tuple[str, bytes, float]]:
+    rng = np.random.default_rng(11)
+    out = []
+    for k in range(count):
+        i = k % n_spaces
+        rnd = k // n_spaces
+        t = t0 + rnd * 10.0 + (i % 10) * 0.5
+        kind = k % 5
+        if kind == 0:
+            out.append((f"b/s{i:05d}/ta", f"{rng.uniform(20, 30):.2f}".encode(), t))
+        elif kind == 1:
+            out.append((f"b/s{i:05d}/rh", json.dumps({"v": round(rng.uniform(30, 70), 1),
+                                                      "t": int(t * 1000)}).encode(), t))
+        elif kind == 2:
+            out.append((f"b/s{i:05d}/heat", json.dumps([
+                {"bn": "", "bt": t, "n": "tg", "u": "Cel", "v": round(rng.uniform(25, 40), 2)},
+                {"n": "tnw", "u": "Cel", "v": round(rng.uniform(18, 27), 2)}]).encode(), t))
+        elif kind == 3:
+            out.append((f"b/s{i:05d}/v", f"{rng.uniform(10, 120):.1f}".encode(), t))
+        else:
+            out.append((f"b/s{i:05d}/fan", b"on" if rng.random() < 0.5 else b"off", t))
+    return out
+
+
+def bench_ingest(quick: bool) -> dict[str, float]:
+    from thermowarden.ingest import Ingestor
+    from thermowarden.site_model import build_site_model
+    from thermowarden.space_state import SiteState
+
+    n = 1000
+    config = _site(n, [])
+    model = build_site_model(config)
+    state = SiteState(model)
+    ingest = Ingestor(model, state)
+    msgs = _messages(n, 60_000 if quick else 200_000, 1_780_000_000.0)
+    for topic, payload, t in msgs[:n * 5]:  # resolve every topic once (warm the cache)
+        ingest.ingest(topic, payload, t)
+    body = msgs[n * 5:]
+    t0 = time.perf_counter()
+    for topic, payload, t in body:
+        ingest.ingest(topic, payload, t)
+    ours = len(body) / (time.perf_counter() - t0)
+    rejected = sum(ingest.rejected.values())
+    t0 = time.perf_counter()
+    for _, payload, _ in body:
+        try:
+            json.loads(payload)
+        except ValueError:
+            pass
+    bare = len(body) / (time.perf_counter() - t0)
+    if rejected:
+        print(f"warning: {rejected} bench messages rejected", file=sys.stderr)
+    return {"ingest_msgs_per_s": round(ours), "ingest_vs_json_ratio": round(ours / bare, 3)}
+
+
+def _rss_bytes() -> int:
+    with open("/proc/self/statm") as fh:
+        return int(fh.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
+
+
+def bench_memory() -> dict[str, float]:
+    """Resident memory per space; built in a child process so nothing else is counted."""
+    import subprocess
+
+    here = str(pathlib.Path(__file__).resolve().parent)
+    daemon = str(pathlib.Path(__file__).resolve().parent.parent / "daemon")
+    code = (f"import sys; sys.path.insert(0, {here!r}); sys.path.insert(0, {daemon!r})\n"
+            "import run\nprint(run._memory_child())\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True, timeout=600)
+    return {"bytes_per_space": float(out.stdout.strip().splitlines()[-1])}
+
+
+def _memory_child() -> int:
+    import gc
+
+    from thermowarden.site_model import build_site_model
+    from thermowarden.space_state import SiteState
+
+    n = 10_000
+    gc.collect()
+    before = _rss_bytes()
+    config = _site(n, [])
+    model = build_site_model(config)
+    state = SiteState(model)
+    now = 1_780_000_000.0
+    for k in range(state.ring_len + 2):  # full air-speed windows (and every point written)
+        t = now + 10.0 * k
+        for pid in range(len(model.points)):
+            state.record(pid, t, 20.0 + (k % 3), t)
+    end = now + 10.0 * (state.ring_len + 2)
+    for k in range(361):  # a full hour of WBGT history
+        state.record_wbgt(end + 10.0 * k, np.full(n, 25.0))
+    state.snapshot(end + 3600.0)
+    gc.collect()
+    return int((_rss_bytes() - before) / n)
+
+
+def bench_rules(quick: bool) -> dict[str, float]:
+    from thermowarden.engine import Engine
+    from thermowarden.rules import builtin_pack_names, load_rule_packs
+    from thermowarden.site_model import build_site_model
+
+    n = 10_000
+    packs = load_rule_packs(builtin_pack_names())
+    config = _site(n, builtin_pack_names())
+    engine = Engine(config, build_site_model(config), packs, conditions_every_s=0, start=0.0)
+    spaces = invented_spaces(n)
+    table = compute_indices(spaces, with_phs=False)
+    snap = engine.state.snapshot(0.0)
+    env = engine._environment(snap, table, 0.0)
+    for k in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb"):
+        env[k] = getattr(spaces, k)
+    env["relative_humidity"] = spaces.relative_humidity
+    env["occupied"] = np.ones(n, dtype=bool)
+    engine.last_table = table
+    engine.last_snapshot = snap
+
+    def one_tick(now: float) -> float:
+        effects: list = []
+        t0 = time.perf_counter()
+        for rt in engine.rules:
+            engine._evaluate_rule(rt, env, now, effects)
+        engine._flush_summaries(now, effects)
+        return time.perf_counter() - t0
+
+    one_tick(0.0)  # pending
+    raise_s = one_tick(3600.0)  # every on-delay elapsed: advisories raised
+    steady = statistics.median(one_tick(3600.0 + 10.0 * k) for k in range(1, 4 if quick else 8))
+    live = len(engine.live_advisories())
+    print(f"rules bench: {live} live advisories after the raising tick", file=sys.stderr)
+    return {"rules_10k_ms": round(steady * 1000, 1), "rules_10k_raise_ms": round(raise_s * 1000)}
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats (under a minute)")
     args = parser.parse_args()
     figures: dict[str, float] = {}
     figures.update(bench_indices(args.quick))
+    figures.update(bench_ingest(args.quick))
+    figures.update(bench_memory())
+    figures.update(bench_rules(args.quick))
     for k, v in figures.items():
         print(f"{k:>28}: {v}", file=sys.stderr)
     print(json.dumps(figures))

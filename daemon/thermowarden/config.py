@@ -357,8 +357,9 @@ class SiteInfo(Strict):
             raise ValueError("give either altitude_m or barometric_pressure_pa, not both")
         for p in self.outdoor_points:
             if p.quantity not in OUTDOOR_QUANTITIES:
-                raise ValueError(f"outdoor_points carry only {', '.join(sorted(OUTDOOR_QUANTITIES))}"
-                                 f"; {p.quantity} belongs to a space")
+                allowed = ", ".join(sorted(OUTDOOR_QUANTITIES))
+                raise ValueError(f"outdoor_points carry only {allowed}; {p.quantity} belongs "
+                                 "to a space")
         return self
 
 

@@ -30,6 +30,7 @@ from thermowarden.rules import (
     CompiledPack,
     CompiledRule,
     missing_inputs,
+    provided_inputs,
     rule_applies,
 )
 from thermowarden.site_model import SITE, SiteModel
@@ -130,13 +131,14 @@ class Engine:
         n = model.n_spaces
         self.n = n
         self.rules: list[RuleRuntime] = []
+        provided = provided_inputs(model)
         for pack_name in sorted(packs):
             pack = packs[pack_name]
             enabled = np.array([pack_name in config.rule_packs(s) for s in config.spaces],
                                dtype=bool)
             lacking: set[tuple[str, int]] = set()
             for i in np.flatnonzero(enabled):
-                for rule_id, _ in missing_inputs(pack, model, int(i)):
+                for rule_id, _ in missing_inputs(pack, model, int(i), provided):
                     lacking.add((rule_id, int(i)))
             for rule in pack.rules:
                 applies = np.array([rule_applies(rule.config, s)

@@ -127,7 +127,7 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     rules: dict[str, dict[str, Any]] = {}
     open_at: dict[str, float] = {}
     notifications: dict[str, int] = {}
-    for e in result.events:
+    for e in (event_line(x) if "schema" in x else x for x in result.events):
         notifications[e["audience"]] = notifications.get(e["audience"], 0) + 1
         if e["event"] == "summary":
             continue

@@ -251,38 +251,67 @@ def builtin_pack_names() -> list[str]:
     return sorted(p.stem for p in builtin_pack_dir().glob("*.yaml"))
 
 
-def missing_inputs(pack: CompiledPack, model: object, space: int) -> list[tuple[str, list[str]]]:
-    """Rules of ``pack`` that apply to ``space`` and the inputs (``needs``) no point gives.
-
-    The engine does not evaluate such a rule for that space (it could only ever be
-    unknown); ``thermowarden check`` warns about each one.
-    """
+def provided_inputs(model: object) -> list[set[str]]:
+    """Per space, the input names its points provide (one pass over all points)."""
     from thermowarden.site_model import SITE, SiteModel
 
     assert isinstance(model, SiteModel)
-    cfg = model.space(space)
-    provided: set[str] = set()
+    n = model.n_spaces
+    provided: list[set[str]] = [set() for _ in range(n)]
+    site_wide: set[str] = set()
+    outdoor_extra: set[str] = set()
     for p in model.points:
-        if p.space == space:
-            provided.add(p.quantity)
-            if p.side:
-                provided.add(f"plane_radiant_temperature_{p.side}")
-        elif p.space == SITE:
-            provided.add(p.quantity)
-            if cfg.kind == "outdoor":
-                provided.add({"outdoor_air_temperature": "air_temperature",
-                              "outdoor_relative_humidity": "relative_humidity",
-                              "wind_speed": "air_speed"}.get(p.quantity, p.quantity))
+        if p.space == SITE:
+            site_wide.add(p.quantity)
+            alias = {"outdoor_air_temperature": "air_temperature",
+                     "outdoor_relative_humidity": "relative_humidity",
+                     "wind_speed": "air_speed"}.get(p.quantity)
+            if alias:
+                outdoor_extra.add(alias)
+            continue
+        provided[p.space].add(p.quantity)
+        if p.side:
+            provided[p.space].add(f"plane_radiant_temperature_{p.side}")
+    lazy_all: set[str] = set()
+    lazy_some: list[tuple[frozenset[int], set[str]]] = []
     for tmpl, spec, allowed in model.templates:
-        if tmpl.placeholders != {"space"} and (allowed is None or space in allowed):
-            provided.add(spec.quantity)
-            if "side" in tmpl.placeholders:
-                provided.update(f"plane_radiant_temperature_{s}" for s in radiation.SIDES)
+        if tmpl.placeholders == {"space"}:
+            continue
+        names: set[str] = {spec.quantity}
+        if "side" in tmpl.placeholders:
+            names.update(f"plane_radiant_temperature_{s}" for s in radiation.SIDES)
+        if allowed is None:
+            lazy_all |= names
+        else:
+            lazy_some.append((allowed, names))
+    for i in range(n):
+        provided[i] |= site_wide | lazy_all
+        if model.space(i).kind == "outdoor":
+            provided[i] |= outdoor_extra
+    for allowed, names in lazy_some:
+        for i in allowed:
+            provided[i] |= names
+    return provided
+
+
+def missing_inputs(pack: CompiledPack, model: object, space: int,
+                   provided: list[set[str]] | None = None) -> list[tuple[str, list[str]]]:
+    """Rules of ``pack`` that apply to ``space`` and the inputs (``needs``) no point gives.
+
+    The engine does not evaluate such a rule for that space (it could only ever be
+    unknown); ``thermowarden check`` warns about each one. Pass ``provided`` (from
+    :func:`provided_inputs`) when asking for many spaces.
+    """
+    from thermowarden.site_model import SiteModel
+
+    assert isinstance(model, SiteModel)
+    have = (provided or provided_inputs(model))[space]
+    cfg = model.space(space)
     out = []
     for rule in pack.rules:
         if not rule_applies(rule.config, cfg):
             continue
-        missing = sorted(n for n in rule.needs if n not in provided)
+        missing = sorted(n for n in rule.needs if n not in have)
         if missing:
             out.append((rule.config.id, missing))
     return out

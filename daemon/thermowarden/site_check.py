@@ -32,7 +32,12 @@ def check_site(path: str) -> CheckReport:
         return report
     report.config = config
     report.model = build_site_model(config)
-    from thermowarden.rules import RulePackError, load_rule_packs, missing_inputs
+    from thermowarden.rules import (
+        RulePackError,
+        load_rule_packs,
+        missing_inputs,
+        provided_inputs,
+    )
 
     names = sorted({n for s in config.spaces for n in config.rule_packs(s)})
     try:
@@ -40,9 +45,10 @@ def check_site(path: str) -> CheckReport:
     except RulePackError as exc:
         report.issues = exc.issues
         return report
+    provided = provided_inputs(report.model)
     for i, space in enumerate(config.spaces):
         for name in config.rule_packs(space):
-            for rule, missing in missing_inputs(packs[name], report.model, i):
+            for rule, missing in missing_inputs(packs[name], report.model, i, provided):
                 report.warnings.append(
                     f"space {space.id}: rule {name}.{rule} needs {', '.join(missing)}, which "
                     "no point provides")
@@ -65,7 +71,7 @@ def resolved_map(model: SiteModel) -> list[str]:
         lines.extend(by_space[SITE])
     for i, sid in enumerate(model.space_ids):
         space = model.space(i)
-        flags = [space.kind]
+        flags: list[str] = [space.kind]
         if space.hot_work:
             flags.append("hot work")
         if space.ventilation == "natural":

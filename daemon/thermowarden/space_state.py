@@ -16,7 +16,7 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.config import IngestConfig, OccupancyConfig, SiteConfig
+from thermowarden.config import IngestConfig, OccupancyConfig, PointBase, SiteConfig
 from thermowarden.core import heat_stress, radiation
 from thermowarden.core.adaptive import running_mean_outdoor
 from thermowarden.core.columns import BoolArray, FloatArray
@@ -164,7 +164,8 @@ class SiteState:
         globe_e = np.full(n, 0.95)
         for p in self.model.points:
             if p.space != SITE and p.quantity == "globe_temperature":
-                cfg_point = next((q for q in spaces[p.space].points if q.topic == p.topic), None)
+                cfg_point: PointBase | None = next(
+                    (q for q in spaces[p.space].points if q.topic == p.topic), None)
                 if cfg_point is None:
                     cfg_point = next((t for t in cfg.templates if t.quantity ==
                                       "globe_temperature"), None)

@@ -376,8 +376,8 @@ def _eval(node: Node, env: Environment, n: int) -> Value:
     if isinstance(node, Name):
         arr = env[node.name]
         if arr.dtype == np.bool_:
-            return Truth(arr, np.ones(n, dtype=bool))
-        return arr
+            return Truth(np.asarray(arr, dtype=bool), np.ones(n, dtype=bool))
+        return np.asarray(arr, dtype=np.float64)
     if isinstance(node, Call):
         if node.func == "known":
             v = _eval(node.args[0], env, n)

@@ -37,8 +37,8 @@ class TopicTemplate:
             if seg.startswith("{") and seg.endswith("}") and seg.count("{") == 1:
                 name = seg[1:-1]
                 if name not in PLACEHOLDERS:
-                    raise TemplateError(f"unknown placeholder {{{name}}} (known: "
-                                        f"{', '.join('{' + p + '}' for p in sorted(PLACEHOLDERS))})")
+                    known = ", ".join("{" + p + "}" for p in sorted(PLACEHOLDERS))
+                    raise TemplateError(f"unknown placeholder {{{name}}} (known: {known})")
                 if name in seen:
                     raise TemplateError(f"placeholder {{{name}}} used twice")
                 seen.add(name)

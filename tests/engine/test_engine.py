@@ -1,0 +1,229 @@
+"""The engine on a synthetic site with a fake clock: lifecycle, delays, unknowns, commands,
+floods, chattering, payload schemas."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from tests.engine.conftest import validate_effects
+from thermowarden.effects import Persist, Publish
+
+
+def feed(engine, t, **temps):
+    for space, value in temps.items():
+        engine.message(f"lab/{space}/ta", str(value).encode(), t)
+
+
+def events(effects, space=None, rule=None):
+    out = [e.payload for e in effects if isinstance(e, Publish) and "/events/" in e.topic]
+    return [(p["event"], p["advisory"]["rule"] if "advisory" in p else None,
+             p["advisory"]["priority"] if "advisory" in p else None)
+            for p in out if (space is None or p.get("advisory", {}).get("space", {}).get("id")
+                             == space)
+            and (rule is None or p.get("advisory", {}).get("rule") == rule)]
+
+
+def run(engine, t0, t1, step=10, **temps):
+    """Feed constant temperatures and tick from t0 to t1; return all effects."""
+    effects = []
+    t = t0
+    while t <= t1:
+        feed(engine, t, **temps)
+        effects += engine.tick(t)
+        t += step
+    validate_effects(effects)
+    return effects
+
+
+def test_on_delay_raise_renotify_and_clear_after_off_delay(lab):
+    e = run(lab, 0, 50, **{"room-1": 31, "room-2": 25})
+    assert events(e) == []  # on-delay of 60 s not yet over
+    e = run(lab, 60, 70, **{"room-1": 31, "room-2": 25})
+    assert events(e) == [("raised", "testpack.hot", "medium")]
+    adv = next(x for x in e if isinstance(x, Publish) and "/advisories/" in x.topic)
+    assert adv.topic == "tw/lab/spaces/room-1/advisories/testpack.hot" and adv.retain
+    assert adv.payload["numbers"]["air_temperature"] == {
+        "value": 31.0, "unit": "°C", "method": "measured", "threshold": 30.0}
+    assert adv.payload["title"] == "room-1 is hot"
+    e = run(lab, 80, 660, **{"room-1": 31, "room-2": 25})
+    assert events(e) == [("renotified", "testpack.hot", "medium")]
+    # in the deadband (29..30) it neither raises again nor clears
+    e = run(lab, 670, 1000, **{"room-1": 29.5, "room-2": 25})
+    assert events(e) == []
+    e = run(lab, 1010, 1120, **{"room-1": 28, "room-2": 25})
+    assert events(e) == []  # off-delay 120 s
+    e = run(lab, 1130, 1140, **{"room-1": 28, "room-2": 25})
+    assert events(e) == [("cleared", "testpack.hot", "medium")]
+    empty = [x for x in e if isinstance(x, Publish) and "/advisories/" in x.topic]
+    assert empty and empty[-1].payload is None and empty[-1].retain
+    assert any(isinstance(x, Persist) and x.kind == "advisory" and x.record is None for x in e)
+
+
+def test_unknown_never_raises_and_never_clears(lab):
+    # pending, then the sensor goes quiet before the on-delay is over: no advisory
+    run(lab, 0, 0, **{"room-1": 31})
+    effects = []
+    for t in range(190, 400, 10):  # stale after 3 x 60 s
+        effects += lab.tick(t)
+    assert events(effects) == []
+    # raise the escalating rule, then let the sensor go stale: it must stay raised
+    e = run(lab, 400, 500, **{"room-1": 36})
+    assert ("raised", "testpack.levels", "high") in events(e)
+    quiet = []
+    for t in range(510, 4000, 10):
+        quiet += lab.tick(t)
+    assert "cleared" not in [ev for ev, *_ in events(quiet)]
+    assert any(a.rule == "testpack.levels" for a in lab.live_advisories())
+
+
+def test_escalation_is_one_advisory_and_deescalates_after_a_hold(lab):
+    lv = "testpack.levels"
+    e = run(lab, 0, 20, **{"room-2": 34})
+    assert events(e, "room-2", lv) == [("raised", "testpack.levels", "medium")]
+    e = run(lab, 30, 40, **{"room-2": 38})
+    assert events(e, "room-2", lv) == [("escalated", "testpack.levels", "urgent")]
+    ids = {a.id for a in lab.live_advisories() if a.rule == "testpack.levels"}
+    assert len(ids) == 1
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.levels")
+    assert adv.cautions and "occupational hygienist" in adv.cautions[-1]
+    e = run(lab, 50, 330, **{"room-2": 34})
+    assert events(e, "room-2", lv) == []  # lower level must hold 5 minutes
+    e = run(lab, 340, 360, **{"room-2": 34})
+    assert events(e, "room-2", lv) == [("deescalated", "testpack.levels", "medium")]
+
+
+def test_acted_on_is_recorded_and_cleared_after(lab):
+    run(lab, 0, 70, **{"room-1": 31})
+    lab.message("lab/room-1/blinds", b"100", 80)
+    e = run(lab, 80, 90, **{"room-1": 31})
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.hot")
+    assert adv.acted_on is not None and adv.acted_on["cleared_after"] is None
+    e = run(lab, 100, 300, **{"room-1": 27})
+    cleared = [x.payload for x in e if isinstance(x, Publish) and "/events/" in x.topic
+               and x.payload["event"] == "cleared"]
+    assert cleared and cleared[0]["advisory"]["acted_on"]["cleared_after"] is True
+
+
+def command(engine, verb, t, **body):
+    reply, effects = engine.command(verb, json.dumps(body).encode(), t)
+    validate_effects(effects)
+    return reply, effects
+
+
+def test_commands_acknowledge_shelve_unshelve(lab):
+    run(lab, 0, 70, **{"room-1": 31})
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.hot")
+    reply, eff = command(lab, "acknowledge", 80, advisory_id=adv.id, by="Ana (facilities)",
+                         note="on it")
+    assert reply["ok"] and ("acknowledged", "testpack.hot", "medium") in events(eff)
+    assert adv.acknowledged == {"by": "Ana (facilities)", "at": "1970-01-01T00:01:20Z",
+                                "note": "on it"}
+    reply, _ = command(lab, "acknowledge", 81, advisory_id=adv.id, by="Ana")
+    assert not reply["ok"] and "acknowledged" in reply["error"]
+    reply, _ = command(lab, "shelve", 90, advisory_id=adv.id, by="Ana", reason="contractor",
+                       duration_s=7200)
+    assert not reply["ok"] and "at most 3600" in reply["error"]
+    assert adv.state.name == "ACKNOWLEDGED"  # nothing changed
+    reply, eff = command(lab, "shelve", 90, advisory_id=adv.id, by="Ana", reason="contractor",
+                         duration_s=300)
+    assert reply["ok"] and adv.shelved["until"] == "1970-01-01T00:06:30Z"
+    e = run(lab, 100, 400, **{"room-1": 31})
+    assert ("unshelved", "testpack.hot", "medium") in events(e)  # shelving expires by itself
+    reply, _ = command(lab, "unshelve", 410, advisory_id=adv.id, by="Ana")
+    assert not reply["ok"]
+    assert [h["event"] for h in adv.history] == ["raised", "acknowledged", "shelved",
+                                                 "unshelved"]
+    assert adv.history[1]["by"] == "Ana (facilities)"
+
+
+@pytest.mark.parametrize("verb,body,error", [
+    ("acknowledge", b"{not json", "not a JSON object"),
+    ("acknowledge", b"[]", "not a JSON object"),
+    ("acknowledge", json.dumps({"advisory_id": "nope", "by": "x"}).encode(), "no live advisory"),
+    ("delete", json.dumps({"advisory_id": "x", "by": "x"}).encode(), "unknown command"),
+    ("acknowledge", json.dumps({"advisory_id": "x", "by": "x", "evil": 1}).encode(),
+     "unknown field"),
+])
+def test_bad_commands_change_nothing(lab, verb, body, error):
+    run(lab, 0, 70, **{"room-1": 31})
+    before = [(a.id, a.state, len(a.history)) for a in lab.live_advisories()]
+    reply, effects = lab.command(verb, body, 80)
+    assert not reply["ok"] and error in reply["error"] and effects == []
+    assert [(a.id, a.state, len(a.history)) for a in lab.live_advisories()] == before
+    validate_effects([Publish("r", reply)])
+
+
+def test_missing_by_is_refused(lab):
+    run(lab, 0, 70, **{"room-1": 31})
+    adv = lab.live_advisories()[0]
+    reply, _ = command(lab, "acknowledge", 80, advisory_id=adv.id)
+    assert not reply["ok"] and "who acted" in reply["error"]
+
+
+def test_chattering_is_flagged_and_held(lab):
+    t = 0
+    raised = 0
+    for _ in range(3):
+        e = run(lab, t, t + 70, **{"room-1": 31})
+        raised += sum(1 for ev in events(e, "room-1") if ev[0] == "raised")
+        e = run(lab, t + 80, t + 300, **{"room-1": 27})
+        t += 310
+    assert raised == 3
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.hot")
+    assert adv.chattering  # third activation within the hour: held active
+    e = run(lab, t, t + 600, **{"room-1": 27})
+    assert "cleared" not in [ev for ev, *_ in events(e, "room-1")]
+
+
+def test_flood_is_summarised(tmp_path):
+    """ISA-18.2 practice: more than 10 notifications in 10 minutes to one audience are
+    summarised in one message; urgent ones always go out on their own."""
+    from tests.engine.conftest import PACK
+    from thermowarden.config import load_site
+    from thermowarden.engine import Engine
+    from thermowarden.rules import load_rule_packs
+    from thermowarden.site_model import build_site_model
+
+    (tmp_path / "packs").mkdir()
+    (tmp_path / "packs" / "testpack.yaml").write_text(PACK)
+    rooms = [f"r{k:02d}" for k in range(14)]
+    text = ("site: {id: big, timezone: UTC}\noutput: {prefix: tw/big}\nrule_dirs: [packs]\n"
+            "defaults: {occupancy: {always: true}, rule_packs: [testpack]}\n"
+            "templates:\n  - {topic: 'big/{space}/ta', quantity: air_temperature}\n"
+            "spaces:\n" + "".join(f"  - id: {r}\n" for r in rooms))
+    site = tmp_path / "site.yaml"
+    site.write_text(text)
+    config = load_site(site, {})
+    engine = Engine(config, build_site_model(config),
+                    load_rule_packs(["testpack"], config.rule_dirs, base=site),
+                    conditions_every_s=0, start=0.0)
+    effects = []
+    for t in range(0, 130, 10):
+        for r in rooms:
+            engine.message(f"big/{r}/ta", b"31", t)
+        effects += engine.tick(t)
+    validate_effects(effects)
+    sent = [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic]
+    individual = [p for p in sent if p["event"] != "summary"]
+    summaries = [p for p in sent if p["event"] == "summary"]
+    assert len(individual) == 10
+    assert len(summaries) == 1 and summaries[0]["count"] == 4
+    assert summaries[0]["audience"] == "facilities"
+    held = {i["space"] for i in summaries[0]["items"]}
+    assert len(held) == 4
+    # every event is still stored
+    stored = [x for x in effects if isinstance(x, Persist) and x.kind == "event"]
+    assert len(stored) == 15
+
+
+def test_conditions_published_with_reasons(lab):
+    e = run(lab, 0, 0, **{"room-1": 24})
+    cond = [x for x in e if isinstance(x, Publish) and x.topic.endswith("/conditions")]
+    assert {c.topic for c in cond} == {"tw/lab/spaces/room-1/conditions",
+                                       "tw/lab/spaces/room-2/conditions"}
+    p = next(c.payload for c in cond if "room-1" in c.topic)
+    assert p["indices"]["pmv_iso"]["value"] is None and p["indices"]["pmv_iso"]["reason"]
+    assert p["inputs"]["air_temperature"]["fresh"] is True
+    assert cond[0].retain and cond[0].expiry_s

@@ -1,0 +1,127 @@
+"""Rule packs: every pack in the repository loads; bad packs are refused with the file,
+line, rule id and the column of the error."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+from tests.conftest import REPO
+from thermowarden.config import load_rule_pack_file
+from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_packs
+
+
+def test_every_rule_file_in_the_repo_loads():
+    files = sorted((REPO / "rules").glob("*.yaml"))
+    assert len(files) == 8
+    assert [f.stem for f in files] == builtin_pack_names()
+    packs = load_rule_packs(builtin_pack_names())
+    for f in files:
+        config, _ = load_rule_pack_file(f)
+        assert config.pack == f.stem
+        assert len(packs[f.stem].rules) == len(config.rules)
+        for rule in config.rules:
+            assert rule.messages.rationale.strip()
+
+
+def test_heat_stress_rules_carry_cautions():
+    packs = load_rule_packs(["heat_stress", "outdoor_heat"])
+    for pack in packs.values():
+        for rule in pack.rules:
+            assert rule.config.heat_stress_cautions
+            assert rule.config.audience == "safety"
+
+
+BAD = """\
+pack: custom
+description: test
+rules:
+  - id: warm
+    title: Warm
+    audience: facilities
+    condition: operative_temprature > 26 and occupied
+    messages: {title: t, advice: a, rationale: r}
+"""
+
+
+def write_pack(tmp_path, text, name="custom"):
+    d = tmp_path / "packs"
+    d.mkdir(exist_ok=True)
+    (d / f"{name}.yaml").write_text(textwrap.dedent(text))
+    return d
+
+
+def test_bad_expression_names_rule_line_and_column(tmp_path):
+    d = write_pack(tmp_path, BAD)
+    with pytest.raises(RulePackError) as exc:
+        load_rule_packs(["custom"], [str(d)])
+    (issue,) = exc.value.issues
+    text = str(issue)
+    assert text.startswith(f"{d / 'custom.yaml'}:7:16: rule warm: condition: ")
+    assert "unknown name 'operative_temprature' (did you mean 'operative_temperature'?)" in text
+    assert "at column 1" in text
+
+
+def test_bad_message_field(tmp_path):
+    d = write_pack(tmp_path, BAD.replace("operative_temprature", "operative_temperature")
+                   .replace("title: t,", "title: '{oprative_temperature:.1f}',"))
+    with pytest.raises(RulePackError, match="messages.title: unknown name"):
+        load_rule_packs(["custom"], [str(d)])
+
+
+def test_schema_errors_have_positions(tmp_path):
+    d = write_pack(tmp_path, BAD.replace("audience: facilities", "audience: everyone"))
+    with pytest.raises(RulePackError) as exc:
+        load_rule_packs(["custom"], [str(d)])
+    assert ":6:15:" in str(exc.value.issues[0]) and "everyone" in str(exc.value.issues[0])
+
+
+def test_unknown_pack_lists_builtins():
+    with pytest.raises(RulePackError, match="built-in packs: comfort"):
+        load_rule_packs(["nonexistent"])
+
+
+def run_check(path):
+    return subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(path)],
+                          capture_output=True, text=True, timeout=120)
+
+
+def test_check_cli_valid_example_prints_map():
+    r = run_check(REPO / "deploy" / "example-site.yaml")
+    assert r.returncode == 0, r.stderr
+    assert "space bakery-floor (indoor, hot work)" in r.stdout
+    assert "larkfield/bakery-floor/senml" in r.stdout
+    assert "valid (4 spaces" in r.stderr
+    assert "warning: space studio-north: rule humidity.condensation_risk needs " \
+           "surface_temperature" in r.stderr
+
+
+def test_check_cli_reports_every_problem_and_fails(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: Mars/Olympus}
+        defaults: {rule_packs: [custom]}
+        rule_dirs: [packs]
+        spaces:
+          - id: a
+            kindd: indoor
+        """))
+    write_pack(tmp_path, BAD)
+    r = run_check(site)
+    assert r.returncode == 1
+    lines = r.stderr.strip().splitlines()
+    assert any(f"{site}:1:" in ln and "Mars/Olympus" in ln for ln in lines)
+    assert any(f"{site}:6:5:" in ln and "did you mean 'kind'" in ln for ln in lines)
+    assert "nothing was started" in lines[-1]
+
+
+def test_check_cli_reports_rule_pack_errors(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text("site: {id: s}\ndefaults: {rule_packs: [custom]}\nrule_dirs: [packs]\n"
+                    "spaces:\n  - id: a\n")
+    write_pack(tmp_path, BAD)
+    r = run_check(site)
+    assert r.returncode == 1 and "rule warm: condition" in r.stderr
