@@ -4,6 +4,7 @@ Sub-commands:
   assess   spot check of one space: readings as JSON on stdin or --input, every index out
   check    validate a site file, its CSV and rule packs; print what it resolves to
   replay   run the rules offline over a recorded feed and print every advisory event
+  run      the service: subscribe, evaluate, publish advisories (advisory only)
 """
 
 from __future__ import annotations
@@ -139,6 +140,54 @@ def cmd_replay(args: argparse.Namespace) -> int:
     return 0
 
 
+def _shard(text: str) -> tuple[int, int]:
+    try:
+        index, count = (int(x) for x in text.split("/"))
+    except ValueError:
+        raise argparse.ArgumentTypeError("expected INDEX/COUNT, for example 0/2") from None
+    if not 0 <= index < count:
+        raise argparse.ArgumentTypeError("INDEX must be 0 to COUNT-1")
+    return index, count
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    """Run the service until SIGTERM or Ctrl-C."""
+    import logging
+    import signal
+
+    from thermowarden.config import ConfigError
+    from thermowarden.shell.bootstrap import bootstrap
+    from thermowarden.shell.logs import setup_logging
+
+    setup_logging(args.log_format, args.log_level)
+    log = logging.getLogger("thermowarden")
+    try:
+        running = bootstrap(args.config, broker_url=args.broker, http_port=args.http_port,
+                            state_dir=args.state_dir, shard=args.shard,
+                            spaces=args.spaces.split(",") if args.spaces else None)
+    except ConfigError as exc:
+        for issue in exc.issues:
+            print(issue, file=sys.stderr)
+        print("thermowarden run: the configuration was refused; nothing was started",
+              file=sys.stderr)
+        return 1
+    except (OSError, ValueError) as exc:
+        print(f"thermowarden run: {exc}", file=sys.stderr)
+        return 1
+    service = running.service
+
+    def stop(signum: int, frame: object) -> None:
+        log.info("signal %s received", signal.Signals(signum).name)
+        service.request_stop()
+
+    signal.signal(signal.SIGTERM, stop)
+    signal.signal(signal.SIGINT, stop)
+    service.run()
+    if running.http is not None:
+        running.http.shutdown()
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="thermowarden",
@@ -165,6 +214,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--tick", type=float, metavar="SECONDS",
                    help="evaluation interval in feed time (default: the site's tick_s)")
     p.set_defaults(func=cmd_replay)
+
+    p = sub.add_parser("run", help="run the service on a broker (advisory only)")
+    p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
+    p.add_argument("--broker", metavar="URL", help="override the site's broker "
+                   "(mqtt://host:port or mqtts://host:port)")
+    p.add_argument("--http-port", type=int, metavar="N",
+                   help="serve /healthz, /readyz and /metrics on 127.0.0.1:N")
+    p.add_argument("--state-dir", metavar="DIR",
+                   help="where the SQLite store lives (default $STATE_DIRECTORY or ./state)")
+    p.add_argument("--shard", type=_shard, metavar="INDEX/COUNT",
+                   help="evaluate only this shard of the spaces (stable hash of the space id)")
+    p.add_argument("--spaces", metavar="ID,ID", help="evaluate only these spaces")
+    p.add_argument("--log-format", choices=("text", "json"), default="text")
+    p.add_argument("--log-level", choices=("debug", "info", "warning", "error"), default="info")
+    p.set_defaults(func=cmd_run)
     return parser
 
 

@@ -55,6 +55,8 @@ PHS_EVERY_S: Final = 300.0
 ADVISORY_EXPIRY_S: Final = 900
 ADVISORY_REFRESH_S: Final = 300.0
 CONDITIONS_EXPIRY_S: Final = 600
+CONDITIONS_MIN_S: Final = 5.0
+"""Conditions of a space with new readings go out at most this often (else every minute)."""
 TEMPERATURE_SPREADS: Final = ("air_temperature", "globe_temperature", "natural_wet_bulb",
                               "mean_radiant_temperature", "floor_temperature")
 SITE_TOPIC_SPACE: Final = "_site"
@@ -151,6 +153,7 @@ class Engine:
                 self.rules.append(RuleRuntime(rule, enabled & applies, params))
         self.by_id: dict[str, tuple[RuleRuntime, int]] = {}
         self.last_conditions = np.full(n, -np.inf)
+        self.touched = np.zeros(n, dtype=bool)
         self.last_refresh = -math.inf
         self.implausible: list[deque[float]] = [deque(maxlen=200) for _ in range(n)]
         self.last_change = np.full(0, np.nan)
@@ -159,6 +162,8 @@ class Engine:
                                                                      "integrator")}
         self.suppressed: dict[str, list[dict[str, Any]]] = {a: [] for a in self.flood}
         self.last_summary: dict[str, float] = dict.fromkeys(self.flood, -math.inf)
+        self.raised_count: dict[str, int] = dict.fromkeys(self.flood, 0)
+        self.cleared_count: dict[str, int] = dict.fromkeys(self.flood, 0)
         self.last_table: IndexTable | None = None
         self.last_phs = -math.inf
         self.phs_columns: IndexTable = {}
@@ -169,7 +174,13 @@ class Engine:
     # ------------------------------------------------------------------ input
     def message(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
         """A sensor message received at ``now``; returns its rejections (already counted)."""
+        before = self.ingest.accepted
         rejections = self.ingest.ingest(topic, payload, now)
+        if self.ingest.accepted != before:
+            for pid in self.ingest.last_points:
+                space = self.model.points[pid].space
+                if space != SITE:
+                    self.touched[space] = True
         for r in rejections:
             if r.reason == IMPLAUSIBLE:
                 pid = self.model.point_by_key.get(r.point)
@@ -258,7 +269,11 @@ class Engine:
         if self.start is None:
             self.start = now
         effects: list[Effect] = []
+        known_days = len(self.state.daily_means)
         snap = self.state.snapshot(now)
+        if len(self.state.daily_means) != known_days and self.state.daily_means:
+            effects.append(Persist("daily_means", "outdoor",
+                                   {"newest_first": list(self.state.daily_means)}))
         phs_due = bool(snap.inputs.hot_work.any()) and now - self.last_phs >= PHS_EVERY_S
         table = compute_indices(snap.inputs, with_phs=phs_due)
         if phs_due:
@@ -552,15 +567,63 @@ class Engine:
                        expiry_s=ADVISORY_EXPIRY_S)
 
     def _advisory_persist(self, adv: Advisory) -> Persist:
+        """The stored form: the payload plus the lifecycle timers a restart needs."""
         key = f"{self.model.space_ids[adv.space]}/{adv.rule}"
         if adv.cleared_at is not None:
             return Persist("advisory", key, None)
-        return Persist("advisory", key, self.advisory_payload(adv))
+        rt, i = self.by_id[adv.id]
+        return Persist("advisory", key, {
+            "payload": self.advisory_payload(adv), "space": self.model.space_ids[i],
+            "rule": adv.rule, "state": int(rt.state[i]), "level": int(rt.level[i]),
+            "raised_at": adv.raised_at, "updated_at": adv.updated_at,
+            "last_notified": _num(float(rt.last_notified[i])),
+            "shelved_until": _num(float(rt.shelved_until[i])),
+            "raised_times": list(rt.raised_times.get(i, ())),
+        })
+
+    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+        """Bring back live advisories stored before a restart, without raising them again.
+
+        Returns a note for each record that could not be restored (its space or rule is
+        no longer configured). Conditions are re-evaluated from fresh readings; until then
+        an advisory stays as it was (unknown never clears).
+        """
+        notes: list[str] = []
+        rules = {rt.rule.key: rt for rt in self.rules}
+        for rec in records:
+            rt = rules.get(rec.get("rule", ""))
+            i = self.model.space_index.get(rec.get("space", ""))
+            if rt is None or i is None:
+                notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
+                             "its space or rule is no longer configured")
+                continue
+            p = rec["payload"]
+            adv = Advisory(
+                id=p["id"], space=i, rule=rt.rule.key, audience=p["audience"],
+                priority=p["priority"], state=State(rec["state"]), raised_at=rec["raised_at"],
+                updated_at=rec["updated_at"], title=p["title"], advice=p["advice"],
+                rationale=p["rationale"], numbers=p["numbers"], benefit=p["benefit"],
+                cautions=p["cautions"], acknowledged=p["acknowledged"], shelved=p["shelved"],
+                acted_on=p["acted_on"], chattering=p["chattering"], history=p["history"])
+            rt.state[i] = adv.state
+            rt.level[i] = rec["level"]
+            ln = rec.get("last_notified")
+            rt.last_notified[i] = ln if ln is not None else rec["raised_at"]
+            su = rec.get("shelved_until")
+            rt.shelved_until[i] = su if su is not None else np.nan
+            rt.raised_times[i] = deque(rec.get("raised_times", []))
+            rt.advisories[i] = adv
+            self.by_id[adv.id] = (rt, i)
+        return notes
 
     def _emit(self, rt: RuleRuntime, adv: Advisory, event: str, now: float,
               effects: list[Effect]) -> None:
         payload = {"schema": EVENT_SCHEMA, "event": event, "at": iso(now),
                    "advisory": self.advisory_payload(adv)}
+        if event == "raised":
+            self.raised_count[adv.audience] += 1
+        elif event == "cleared":
+            self.cleared_count[adv.audience] += 1
         effects.append(self._advisory_publish(adv))
         effects.append(self._advisory_persist(adv))
         effects.append(Persist("event", adv.id, payload))
@@ -620,9 +683,12 @@ class Engine:
                     effects: list[Effect]) -> None:
         if self.conditions_every_s <= 0:
             return
-        due = np.flatnonzero(now - self.last_conditions >= self.conditions_every_s)
+        age = now - self.last_conditions
+        due = np.flatnonzero((age >= self.conditions_every_s)
+                             | (self.touched & (age >= CONDITIONS_MIN_S)))
         for i in due:
             self.last_conditions[i] = now
+            self.touched[i] = False
             effects.append(Publish(f"{self.prefix}/spaces/{self.model.space_ids[i]}/conditions",
                                    self.conditions_payload(int(i)), retain=True, qos=0,
                                    expiry_s=CONDITIONS_EXPIRY_S))
@@ -695,6 +761,31 @@ class Engine:
         else:
             self._apply(rt, i, Trigger.UNSHELVE, None, now, effects, by=by,
                         extra={"note": note} if note else None)
+        return effects
+
+    # ------------------------------------------------------------------ digest
+    def digest(self, now: float, since: float) -> list[Effect]:
+        """One daily summary event per audience: what was raised and cleared since
+        ``since``, and what is still live."""
+        effects: list[Effect] = []
+        for audience in self.flood:
+            live = [a for a in self.live_advisories() if a.audience == audience]
+            items = [{"event": "live", "advisory_id": a.id,
+                      "space": self.model.space_ids[a.space], "rule": a.rule,
+                      "priority": a.priority, "title": a.title, "at": iso(a.updated_at)}
+                     for a in live]
+            payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
+                       "audience": audience, "count": max(len(items), 1),
+                       "items": items, "digest": {
+                           "since": iso(since), "live": len(live),
+                           "raised": self.raised_count[audience],
+                           "cleared": self.cleared_count[audience]},
+                       "note": "daily digest"}
+            self.raised_count[audience] = 0
+            self.cleared_count[audience] = 0
+            effects.append(Publish(f"{self.prefix}/events/{audience}/{SITE_TOPIC_SPACE}",
+                                   payload, qos=1))
+            effects.append(Persist("event", f"digest.{audience}.{int(now)}", payload))
         return effects
 
     # ------------------------------------------------------------------ queries

@@ -62,6 +62,8 @@ class Ingestor:
         self._cache: dict[str, list[int]] = {t: list(p) for t, p in model.routes.items()}
         self._negative: dict[str, Rejection] = {}
         self._lazy_count: Counter[tuple[int, str]] = Counter()
+        self.last_points: list[int] = []
+        """Points that took a reading from the last message."""
 
     # ---------------------------------------------------------------- routing
     def _resolve(self, topic: str) -> list[int] | Rejection:
@@ -137,6 +139,7 @@ class Ingestor:
     def ingest(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
         """Take one message received at ``now`` (epoch s); return its rejections, if any."""
         self.received += 1
+        self.last_points: list[int] = []
         route = self._resolve(topic)
         if isinstance(route, Rejection):
             return [self._reject(route.reason, route.point, topic, route.detail)]
@@ -188,6 +191,7 @@ class Ingestor:
             return self._reject(OUT_OF_ORDER, spec.key, topic, "older than the latest reading")
         state.record(pid, t, value, t if d.time is not None else math.nan)
         self.accepted += 1
+        self.last_points.append(pid)
         return None
 
     def rejected_by_reason(self) -> Counter[str]:

@@ -111,10 +111,21 @@ class SiteModel:
             listener(pid)
         return pid
 
-    def subscriptions(self) -> list[str]:
-        """MQTT subscription filters covering every configured topic."""
+    def subscriptions(self, per_space: bool = False) -> list[str]:
+        """MQTT subscription filters covering every configured topic.
+
+        ``per_space`` renders each template for each of this model's spaces (a shard
+        subscribes only to its own spaces' topics) instead of one wildcard per template.
+        """
         subs = set(self.routes)
-        subs.update(t.subscription for t, _, _ in self.templates)
+        for tmpl, _, allowed in self.templates:
+            if not per_space:
+                subs.add(tmpl.subscription)
+                continue
+            others = {p: "+" for p in tmpl.placeholders if p != "space"}
+            for i, sid in enumerate(self.space_ids):
+                if allowed is None or i in allowed:
+                    subs.add(tmpl.render(space=sid, **others))
         return sorted(subs)
 
 

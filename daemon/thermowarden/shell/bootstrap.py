@@ -1,0 +1,127 @@
+"""The composition root: one function that builds the running service from a site file."""
+
+from __future__ import annotations
+
+import logging
+import os
+import pathlib
+import queue
+import zlib
+from dataclasses import dataclass
+from http.server import ThreadingHTTPServer
+
+import numpy as np
+from pydantic import ValidationError
+
+from thermowarden import __version__
+from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConfig, load_site
+from thermowarden.core.indices import SpaceInputs, compute_indices
+from thermowarden.engine import Engine, iso
+from thermowarden.rules import load_rule_packs
+from thermowarden.shell.http_ops import start_http
+from thermowarden.shell.metrics import Metrics
+from thermowarden.shell.mqtt_link import Control, Incoming, MqttLink
+from thermowarden.shell.service import Clock, Service
+from thermowarden.shell.store import Store
+from thermowarden.site_model import build_site_model
+
+log = logging.getLogger("thermowarden")
+
+INBOX_SIZE = 100_000
+
+
+@dataclass
+class Running:
+    service: Service
+    http: ThreadingHTTPServer | None
+
+
+def shard_spaces(config: SiteConfig, index: int, count: int) -> SiteConfig:
+    """Keep the spaces of shard ``index`` of ``count`` (a stable hash of the space id)."""
+    keep = [s for s in config.spaces if zlib.crc32(s.id.encode()) % count == index]
+    return config.model_copy(update={"spaces": keep})
+
+
+def only_spaces(config: SiteConfig, ids: list[str]) -> SiteConfig:
+    wanted = set(ids)
+    unknown = wanted - {s.id for s in config.spaces}
+    if unknown:
+        raise ValueError(f"--spaces names unknown space(s): {', '.join(sorted(unknown))}")
+    return config.model_copy(update={"spaces": [s for s in config.spaces if s.id in wanted]})
+
+
+def warm_up() -> None:
+    """Load (or compile, once) the numba models before reporting ready."""
+    s = SpaceInputs.create(
+        2, air_temperature=np.array([24.0, 33.0]), relative_humidity=np.array([50.0, 40.0]),
+        mean_radiant_temperature=np.array([25.0, 40.0]), air_speed=np.array([0.3, 0.6]),
+        globe_temperature=np.array([25.0, 40.0]), natural_wet_bulb=np.array([18.0, 25.0]),
+        clo=np.array([0.6, 0.6]), hot_work=np.array([False, True]),
+        indoor=np.array([True, False]))
+    compute_indices(s, with_phs=True)
+
+
+def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
+              state_dir: str | None = None, shard: tuple[int, int] | None = None,
+              spaces: list[str] | None = None) -> Running:
+    """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
+
+    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
+    """
+    config = load_site(config_path)
+    if broker_url:
+        try:
+            broker = BrokerConfig.model_validate({**config.broker.model_dump(), "url": broker_url})
+        except ValidationError as exc:
+            raise ConfigError([ConfigIssue(None, f"--broker: {e['msg']}")
+                               for e in exc.errors()]) from None
+        config = config.model_copy(update={"broker": broker})
+    if shard is not None:
+        config = shard_spaces(config, *shard)
+    if spaces:
+        config = only_spaces(config, spaces)
+    names = {n for s in config.spaces for n in config.rule_packs(s)}
+    packs = load_rule_packs(names, config.rule_dirs, base=config_path)
+    model = build_site_model(config)
+    warm_up()
+    clock = Clock()
+    state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
+    suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""
+    store = Store(state / f"{config.site.id}{suffix}.sqlite3")
+    engine = Engine(config, model, packs, start=clock.now())
+    notes = engine.restore(store.advisories())
+    for note in notes:
+        log.warning(note)
+    restored = len(engine.live_advisories())
+    if restored:
+        log.info("restored %d live advisory(ies) from %s", restored, store.path)
+    stored_means = store.get("daily_means")
+    if stored_means:
+        seeds = list(config.site.outdoor_daily_means)
+        engine.state.daily_means = (list(stored_means) + seeds[len(stored_means):])[:30]
+    metrics = Metrics()
+    inbox: queue.Queue[Incoming] = queue.Queue(maxsize=INBOX_SIZE)
+    control: queue.Queue[Control] = queue.Queue()
+    prefix = config.output.prefix
+    since = iso(clock.now())
+    instance = config.broker.client_id or f"thermowarden-{config.site.id}"
+    if shard:
+        instance += f"-{shard[0]}of{shard[1]}"
+    status = {"schema": "thermowarden.status/1", "site": config.site.id, "instance": instance,
+              "since": since, "version": __version__, "spaces": model.n_spaces,
+              "advisory_only": True}
+    status_topic = f"{prefix}/status" + (f"/{instance}" if shard else "")
+    subs = model.subscriptions(per_space=shard is not None or bool(spaces))
+    subs.append(f"{prefix}/commands/+")
+    link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
+                    {**status, "state": "offline"}, inbox, control, metrics, instance)
+    service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
+                      f"{prefix}/replies", clock)
+    http = None
+    if http_port is not None:
+        http = start_http(http_port, metrics, service.alive, service.ready)
+    log.info("thermowarden %s: site %s, %d space(s), %d point(s), %d rule pack(s), broker %s",
+             __version__, config.site.id, model.n_spaces, len(model.points), len(packs),
+             config.broker.url)
+    return Running(service, http)
+

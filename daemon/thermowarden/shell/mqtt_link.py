@@ -1,0 +1,235 @@
+"""The MQTT client: paho-mqtt 2.x, callback API version 2, MQTT 5 (or 3.1.1).
+
+A thread of our own runs the network loop and reconnects with capped exponential backoff
+and jitter. Callbacks do nothing but enqueue: sensor messages and commands onto the
+bounded ``inbox`` (overflow is counted), connection events and publish acknowledgements
+onto the unbounded ``control`` queue. Publishing is done by the engine thread through
+:meth:`MqttLink.publish`; paho's client is safe to publish from another thread.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import queue
+import random
+import ssl
+import threading
+import time
+import urllib.parse
+from dataclasses import dataclass
+from typing import Any
+
+import paho.mqtt.client as mqtt
+from paho.mqtt.enums import CallbackAPIVersion
+from paho.mqtt.packettypes import PacketTypes
+from paho.mqtt.properties import Properties
+
+from thermowarden.config import BrokerConfig, read_password
+from thermowarden.shell.metrics import Metrics
+
+log = logging.getLogger("thermowarden.mqtt")
+
+BACKOFF_START_S = 0.5
+BACKOFF_CAP_S = 30.0
+
+
+@dataclass(frozen=True)
+class Incoming:
+    """A message from the broker, as the engine thread receives it."""
+
+    topic: str
+    payload: bytes
+    received: float
+    response_topic: str | None = None
+    correlation: bytes | None = None
+
+
+@dataclass(frozen=True)
+class Control:
+    """A connection event or a publish acknowledgement."""
+
+    kind: str  # "connected", "disconnected", "subscribed", "puback", "refused"
+    mid: int = 0
+    reason: str = ""
+    failed: bool = False
+
+
+def parse_url(url: str) -> tuple[str, int, bool]:
+    u = urllib.parse.urlparse(url)
+    tls = u.scheme == "mqtts"
+    return u.hostname or "127.0.0.1", u.port or (8883 if tls else 1883), tls
+
+
+class MqttLink:
+    """See the module docstring."""
+
+    def __init__(self, cfg: BrokerConfig, subscriptions: list[str], status_topic: str,
+                 status_online: dict[str, Any], status_offline: dict[str, Any],
+                 inbox: queue.Queue[Incoming], control: queue.Queue[Control],
+                 metrics: Metrics, client_id: str) -> None:
+        self.cfg = cfg
+        self.subscriptions = subscriptions
+        self.status_topic = status_topic
+        self.status_online = status_online
+        self.status_offline = status_offline
+        self.inbox = inbox
+        self.control = control
+        self.metrics = metrics
+        self.v5 = cfg.protocol == "5"
+        self.host, self.port, tls = parse_url(cfg.url)
+        self.client = mqtt.Client(
+            callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
+            protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
+            reconnect_on_failure=False)
+        self.client.max_queued_messages_set(0)
+        if cfg.username:
+            self.client.username_pw_set(cfg.username, read_password(cfg))
+        if tls or cfg.tls is not None:
+            t = cfg.tls
+            self.client.tls_set(ca_certs=t.ca_file if t else None,
+                                certfile=t.cert_file if t else None,
+                                keyfile=t.key_file if t else None,
+                                cert_reqs=ssl.CERT_REQUIRED, tls_version=ssl.PROTOCOL_TLS_CLIENT)
+            self.client.tls_insecure_set(False)  # the broker's host name is checked
+        self.client.will_set(status_topic, json.dumps(status_offline), qos=1, retain=True)
+        self.client.on_connect = self._on_connect
+        self.client.on_disconnect = self._on_disconnect
+        self.client.on_message = self._on_message
+        self.client.on_publish = self._on_publish
+        self.client.on_subscribe = self._on_subscribe
+        self.connected = threading.Event()
+        self.subscribed = threading.Event()
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+        self._connects = 0
+        self._pending_subs: set[int] = set()
+
+    # ---------------------------------------------------------------- callbacks (enqueue only)
+    def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
+                    properties: Any) -> None:
+        if reason.is_failure:
+            self.control.put(Control("refused", reason=str(reason)))
+            return
+        self._connects += 1
+        if self._connects > 1:
+            self.metrics.reconnects.inc()
+        self.connected.set()
+        self.metrics.connected.set(1)
+        client.publish(self.status_topic, json.dumps(self.status_online), qos=1, retain=True)
+        # subscribe again on every connect
+        self.subscribed.clear()
+        self._pending_subs = set()
+        for topic in self.subscriptions:
+            _, mid = client.subscribe(topic, qos=1)
+            self._pending_subs.add(mid)
+        self.control.put(Control("connected"))
+
+    def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
+                       properties: Any) -> None:
+        self.connected.clear()
+        self.subscribed.clear()
+        self.metrics.connected.set(0)
+        self.control.put(Control("disconnected", reason=str(reason)))
+
+    def _on_subscribe(self, client: mqtt.Client, userdata: Any, mid: int, reasons: Any,
+                      properties: Any) -> None:
+        failed = [str(r) for r in reasons if getattr(r, "is_failure", False)]
+        if failed:
+            self.control.put(Control("refused", mid=mid,
+                                     reason=f"subscription refused: {', '.join(failed)}"))
+        self._pending_subs.discard(mid)
+        if not self._pending_subs:
+            self.subscribed.set()
+            self.control.put(Control("subscribed"))
+
+    def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
+        props = getattr(msg, "properties", None)
+        response = getattr(props, "ResponseTopic", None) if props is not None else None
+        corr = getattr(props, "CorrelationData", None) if props is not None else None
+        self.metrics.received.inc()
+        try:
+            self.inbox.put_nowait(Incoming(msg.topic, bytes(msg.payload), time.time(), response,
+                                           corr))
+        except queue.Full:
+            self.metrics.queue_overflow.inc()
+
+    def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
+                    properties: Any) -> None:
+        failed = bool(getattr(reason, "is_failure", False))
+        self.control.put(Control("puback", mid=mid, reason=str(reason), failed=failed))
+
+    # ---------------------------------------------------------------- network thread
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name="mqtt", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        backoff = BACKOFF_START_S
+        first = True
+        while not self._stop.is_set():
+            try:
+                if first:
+                    if self.v5:
+                        props = Properties(PacketTypes.CONNECT)
+                        props.SessionExpiryInterval = 0
+                        self.client.connect(self.host, self.port, self.cfg.keepalive_s,
+                                            clean_start=True, properties=props)
+                    else:
+                        self.client.connect(self.host, self.port, self.cfg.keepalive_s)
+                    first = False
+                else:
+                    self.client.reconnect()
+            except (OSError, ssl.SSLError, ValueError) as exc:
+                wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
+                log.warning("cannot reach broker %s:%s (%s); retrying in %.1f s", self.host,
+                            self.port, exc, wait)
+                backoff = min(BACKOFF_CAP_S, backoff * 2)
+                self._stop.wait(wait)
+                continue
+            while not self._stop.is_set():
+                rc = self.client.loop(timeout=0.1)
+                if rc != mqtt.MQTT_ERR_SUCCESS:
+                    break
+                if self.connected.is_set():
+                    backoff = BACKOFF_START_S
+            if self._stop.is_set():
+                break
+            self.connected.clear()
+            wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
+            log.warning("connection to the broker lost; reconnecting in %.1f s", wait)
+            backoff = min(BACKOFF_CAP_S, backoff * 2)
+            self._stop.wait(wait)
+
+    # ---------------------------------------------------------------- publishing
+    def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,
+                expiry_s: int | None = None, correlation: bytes | None = None) -> int | None:
+        """Publish now if connected; returns the message id, or None when not connected."""
+        if not self.connected.is_set():
+            return None
+        props = None
+        if self.v5 and (expiry_s or correlation):
+            props = Properties(PacketTypes.PUBLISH)
+            if expiry_s:
+                props.MessageExpiryInterval = int(expiry_s)
+            if correlation:
+                props.CorrelationData = correlation
+        body = b"" if payload is None else json.dumps(payload, ensure_ascii=False).encode()
+        info = self.client.publish(topic, body, qos=qos, retain=retain, properties=props)
+        if info.rc != mqtt.MQTT_ERR_SUCCESS:
+            return None
+        return int(info.mid)
+
+    def stop(self, timeout: float = 5.0) -> None:
+        """Publish the offline status ourselves (an orderly stop), then disconnect."""
+        if self.connected.is_set():
+            info = self.client.publish(self.status_topic, json.dumps(self.status_offline),
+                                       qos=1, retain=True)
+            deadline = time.monotonic() + timeout
+            while not info.is_published() and time.monotonic() < deadline and \
+                    self.connected.is_set():
+                time.sleep(0.02)
+            self.client.disconnect()
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(timeout)
