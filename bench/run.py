@@ -17,6 +17,7 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
 - rules_10k_ms: rule evaluation and lifecycle for 10,000 spaces with the default packs, one
   steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
   (messages rendered for every space that crosses a threshold).
+- e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
 """
 
 from __future__ import annotations
@@ -32,6 +33,7 @@ import time
 import numpy as np
 
 sys.path.insert(0, str(__import__("pathlib").Path(__file__).resolve().parent.parent / "daemon"))
+sys.path.insert(0, str(__import__("pathlib").Path(__file__).resolve().parent))
 
 from thermowarden.config import SiteConfig  # noqa: E402
 from thermowarden.core.indices import SpaceInputs, compute_indices  # noqa: E402
@@ -253,12 +255,18 @@ def bench_rules(quick: bool) -> dict[str, float]:
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats (under a minute)")
+    parser.add_argument("--no-broker", action="store_true",
+                        help="skip the end-to-end figures (they need mosquitto)")
     args = parser.parse_args()
     figures: dict[str, float] = {}
     figures.update(bench_indices(args.quick))
     figures.update(bench_ingest(args.quick))
     figures.update(bench_memory())
     figures.update(bench_rules(args.quick))
+    if not args.no_broker:
+        from e2e import bench_e2e
+
+        figures.update(bench_e2e(args.quick))
     for k, v in figures.items():
         print(f"{k:>28}: {v}", file=sys.stderr)
     print(json.dumps(figures))

@@ -425,7 +425,12 @@ class IngestConfig(Strict):
 
 
 class EvaluationConfig(Strict):
+    """How often spaces are evaluated, and the notification-flood guard (ISA-18.2 practice:
+    about 10 notifications in 10 minutes per audience; urgent ones always go out)."""
+
     tick_s: float = Field(10.0, ge=0.5, le=3600)
+    flood_limit: int = Field(10, ge=1, le=100_000)
+    flood_window_s: float = Field(600.0, ge=10, le=86_400)
 
 
 class SiteConfig(Strict):

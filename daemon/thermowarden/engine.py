@@ -42,8 +42,6 @@ CONDITIONS_SCHEMA: Final = "thermowarden.conditions/1"
 REPLY_SCHEMA: Final = "thermowarden.reply/1"
 UNKNOWN_LONG_S: Final = 1800.0
 STUCK_AFTER_S: Final = 3 * 3600.0
-FLOOD_WINDOW_S: Final = 600.0
-FLOOD_LIMIT: Final = 10
 SUMMARY_INTERVAL_S: Final = 60.0
 CHATTER_WINDOW_S: Final = 3600.0
 CHATTER_COUNT: Final = 3
@@ -55,7 +53,7 @@ PHS_EVERY_S: Final = 300.0
 ADVISORY_EXPIRY_S: Final = 900
 ADVISORY_REFRESH_S: Final = 300.0
 CONDITIONS_EXPIRY_S: Final = 600
-CONDITIONS_MIN_S: Final = 5.0
+CONDITIONS_MIN_S: Final = 15.0
 """Conditions of a space with new readings go out at most this often (else every minute)."""
 TEMPERATURE_SPREADS: Final = ("air_temperature", "globe_temperature", "natural_wet_bulb",
                               "mean_radiant_temperature", "floor_temperature")
@@ -129,6 +127,8 @@ class Engine:
         self.ingest = Ingestor(model, self.state)
         self.prefix = config.output.prefix
         self.conditions_every_s = conditions_every_s
+        self.flood_limit = config.evaluation.flood_limit
+        self.flood_window_s = config.evaluation.flood_window_s
         self.start = start
         n = model.n_spaces
         self.n = n
@@ -183,9 +183,9 @@ class Engine:
                     self.touched[space] = True
         for r in rejections:
             if r.reason == IMPLAUSIBLE:
-                pid = self.model.point_by_key.get(r.point)
-                if pid is not None and self.model.points[pid].space != SITE:
-                    self.implausible[self.model.points[pid].space].append(now)
+                found = self.model.point_by_key.get(r.point)
+                if found is not None and self.model.points[found].space != SITE:
+                    self.implausible[self.model.points[found].space].append(now)
         return rejections
 
     # ------------------------------------------------------------------ health
@@ -629,9 +629,9 @@ class Engine:
         effects.append(Persist("event", adv.id, payload))
         audience = adv.audience
         window = self.flood[audience]
-        while window and window[0] < now - FLOOD_WINDOW_S:
+        while window and window[0] < now - self.flood_window_s:
             window.popleft()
-        if len(window) >= FLOOD_LIMIT and adv.priority != "urgent":
+        if len(window) >= self.flood_limit and adv.priority != "urgent":
             self.suppressed[audience].append(payload)
             return
         window.append(now)
@@ -650,8 +650,8 @@ class Engine:
                       "at": p["at"]} for p in held]
             payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
                        "audience": audience, "count": len(items), "items": items,
-                       "note": f"more than {FLOOD_LIMIT} notifications in "
-                               f"{int(FLOOD_WINDOW_S // 60)} minutes to {audience}; "
+                       "note": f"more than {self.flood_limit} notifications in "
+                               f"{self.flood_window_s / 60:g} minutes to {audience}; "
                                "summarised in one message"}
             self.suppressed[audience] = []
             effects.append(Publish(f"{self.prefix}/events/{audience}/{SITE_TOPIC_SPACE}",

@@ -139,7 +139,7 @@ class Ingestor:
     def ingest(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
         """Take one message received at ``now`` (epoch s); return its rejections, if any."""
         self.received += 1
-        self.last_points: list[int] = []
+        self.last_points = []
         route = self._resolve(topic)
         if isinstance(route, Rejection):
             return [self._reject(route.reason, route.point, topic, route.detail)]

@@ -20,7 +20,7 @@ from thermowarden.engine import Engine, iso
 from thermowarden.rules import load_rule_packs
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Incoming, MqttLink
+from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store
 from thermowarden.site_model import build_site_model
@@ -100,7 +100,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         seeds = list(config.site.outdoor_daily_means)
         engine.state.daily_means = (list(stored_means) + seeds[len(stored_means):])[:30]
     metrics = Metrics()
-    inbox: queue.Queue[Incoming] = queue.Queue(maxsize=INBOX_SIZE)
+    inbox = Inbox(INBOX_SIZE)
     control: queue.Queue[Control] = queue.Queue()
     prefix = config.output.prefix
     since = iso(clock.now())
@@ -114,7 +114,8 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     subs = model.subscriptions(per_space=shard is not None or bool(spaces))
     subs.append(f"{prefix}/commands/+")
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
-                    {**status, "state": "offline"}, inbox, control, metrics, instance)
+                    {**status, "state": "offline"}, inbox, control, metrics, instance,
+                    command_prefix=f"{prefix}/commands/")
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
                       f"{prefix}/replies", clock)
     http = None

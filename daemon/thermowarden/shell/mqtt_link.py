@@ -17,6 +17,7 @@ import ssl
 import threading
 import time
 import urllib.parse
+from collections import deque
 from dataclasses import dataclass
 from typing import Any
 
@@ -34,7 +35,7 @@ BACKOFF_START_S = 0.5
 BACKOFF_CAP_S = 30.0
 
 
-@dataclass(frozen=True)
+@dataclass(slots=True)
 class Incoming:
     """A message from the broker, as the engine thread receives it."""
 
@@ -55,6 +56,44 @@ class Control:
     failed: bool = False
 
 
+class Inbox:
+    """A bounded hand-over from the network thread to the engine thread.
+
+    A deque (append and popleft are atomic in CPython) with a wake-up event: cheaper per
+    message than ``queue.Queue``, which takes a lock and a condition for every item.
+    ``put`` refuses (returns False) when full; the caller counts the overflow.
+    """
+
+    def __init__(self, maxsize: int) -> None:
+        self.maxsize = maxsize
+        self.items: deque[Incoming] = deque()
+        self.ready = threading.Event()
+
+    def put(self, item: Incoming) -> bool:
+        if len(self.items) >= self.maxsize:
+            return False
+        self.items.append(item)
+        if not self.ready.is_set():  # the flag read is cheap; set() takes a lock
+            self.ready.set()
+        return True
+
+    def wait(self, timeout: float) -> None:
+        """Block until something arrives (or ``timeout``)."""
+        if not self.items:
+            self.ready.wait(timeout)
+        self.ready.clear()
+
+    def take(self, limit: int) -> list[Incoming]:
+        out: list[Incoming] = []
+        items = self.items
+        while items and len(out) < limit:
+            out.append(items.popleft())
+        return out
+
+    def qsize(self) -> int:
+        return len(self.items)
+
+
 def parse_url(url: str) -> tuple[str, int, bool]:
     u = urllib.parse.urlparse(url)
     tls = u.scheme == "mqtts"
@@ -66,13 +105,14 @@ class MqttLink:
 
     def __init__(self, cfg: BrokerConfig, subscriptions: list[str], status_topic: str,
                  status_online: dict[str, Any], status_offline: dict[str, Any],
-                 inbox: queue.Queue[Incoming], control: queue.Queue[Control],
-                 metrics: Metrics, client_id: str) -> None:
+                 inbox: Inbox, control: queue.Queue[Control],
+                 metrics: Metrics, client_id: str, command_prefix: str = "\0") -> None:
         self.cfg = cfg
         self.subscriptions = subscriptions
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
+        self.command_prefix = command_prefix
         self.inbox = inbox
         self.control = control
         self.metrics = metrics
@@ -103,6 +143,8 @@ class MqttLink:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._connects = 0
+        self.received = 0
+        """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
 
     # ---------------------------------------------------------------- callbacks (enqueue only)
@@ -122,7 +164,8 @@ class MqttLink:
         self._pending_subs = set()
         for topic in self.subscriptions:
             _, mid = client.subscribe(topic, qos=1)
-            self._pending_subs.add(mid)
+            if mid is not None:
+                self._pending_subs.add(mid)
         self.control.put(Control("connected"))
 
     def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
@@ -144,14 +187,16 @@ class MqttLink:
             self.control.put(Control("subscribed"))
 
     def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
-        props = getattr(msg, "properties", None)
-        response = getattr(props, "ResponseTopic", None) if props is not None else None
-        corr = getattr(props, "CorrelationData", None) if props is not None else None
-        self.metrics.received.inc()
-        try:
-            self.inbox.put_nowait(Incoming(msg.topic, bytes(msg.payload), time.time(), response,
-                                           corr))
-        except queue.Full:
+        self.received += 1
+        topic = msg.topic
+        if topic.startswith(self.command_prefix):  # only commands carry reply properties
+            props = getattr(msg, "properties", None)
+            item = Incoming(topic, bytes(msg.payload), time.time(),
+                            getattr(props, "ResponseTopic", None),
+                            getattr(props, "CorrelationData", None))
+        else:
+            item = Incoming(topic, msg.payload, time.time())
+        if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
 
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
@@ -171,7 +216,7 @@ class MqttLink:
             try:
                 if first:
                     if self.v5:
-                        props = Properties(PacketTypes.CONNECT)
+                        props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
                         props.SessionExpiryInterval = 0
                         self.client.connect(self.host, self.port, self.cfg.keepalive_s,
                                             clean_start=True, properties=props)
@@ -209,7 +254,7 @@ class MqttLink:
             return None
         props = None
         if self.v5 and (expiry_s or correlation):
-            props = Properties(PacketTypes.PUBLISH)
+            props = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
             if expiry_s:
                 props.MessageExpiryInterval = int(expiry_s)
             if correlation:
