@@ -195,7 +195,7 @@ class MqttLink:
                             getattr(props, "ResponseTopic", None),
                             getattr(props, "CorrelationData", None))
         else:
-            item = Incoming(topic, msg.payload, time.time())
+            item = Incoming(topic, bytes(msg.payload), time.time())
         if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
 
