@@ -36,9 +36,9 @@ TZ = zoneinfo.ZoneInfo("Europe/London")
 DAY = dt.date(2026, 7, 14)
 
 
-def _local(h: float) -> float:
+def _local(h: float, day: dt.date = DAY) -> float:
     hh, mm = int(h), int(round((h - int(h)) * 60))
-    return dt.datetime.combine(DAY, dt.time(hh, mm), TZ).timestamp()
+    return dt.datetime.combine(day, dt.time(hh, mm), TZ).timestamp()
 
 
 def _ramp(h: float, h0: float, h1: float, v0: float, v1: float) -> float:
@@ -58,9 +58,13 @@ def _bump(h: float, start: float, peak: float, end: float) -> float:
     return math.sin(0.5 * math.pi * (end - h) / (end - peak))
 
 
+HEAT = {"wave": 0.0}
+"""Extra degrees at the afternoon peak, set per day of a multi-day run (a heat wave)."""
+
+
 def outdoor(h: float) -> tuple[float, float, float, float]:
     """Outdoor air (°C), RH (%), wind (km/h) and solar irradiance (W/m²) at hour h."""
-    t = 18.0 + 13.0 * _bump(h, 4.0, 16.0, 28.0)
+    t = 18.0 + (13.0 + HEAT["wave"]) * _bump(h, 4.0, 16.0, 28.0)
     rh = 82.0 - 45.0 * _bump(h, 4.0, 16.0, 28.0)
     wind = 8.0 + 6.0 * _bump(h, 8.0, 15.0, 21.0)
     sun = 860.0 * _bump(h, 5.0, 13.5, 21.5)
@@ -117,11 +121,25 @@ def _rec(t: float, topic: str, payload: Any) -> dict[str, Any]:
     return {"t": round(t, 3), "topic": topic, "payload": payload}
 
 
+def larkfield_days(days: int = 3, seed: int = 20260714, step_s: float = 60.0
+                   ) -> Iterator[dict[str, Any]]:
+    """Several whole days (00:00-24:00) of a building heat wave, each 1.5 K hotter at the
+    afternoon peak than the one before, so the studio's running mean outdoor temperature
+    moves. The same timeline repeats each day."""
+    for d in range(days):
+        HEAT["wave"] = 1.5 * d
+        try:
+            yield from larkfield_day(seed + d, 0.0, 24.0, step_s,
+                                     day=DAY + dt.timedelta(days=d))
+        finally:
+            HEAT["wave"] = 0.0
+
+
 def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.0,
-                  step_s: float = 60.0) -> Iterator[dict[str, Any]]:
+                  step_s: float = 60.0, day: dt.date = DAY) -> Iterator[dict[str, Any]]:
     """The feed records, in time order: {t, topic, payload}."""
     rng = np.random.default_rng(seed)
-    t0 = _local(start_h)
+    t0 = _local(start_h, day)
     steps = int((end_h - start_h) * 3600 / step_s)
 
     def noise(scale: float) -> float:

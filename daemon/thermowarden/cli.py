@@ -5,6 +5,9 @@ Sub-commands:
   check    validate a site file, its CSV and rule packs; print what it resolves to
   replay   run the rules offline over a recorded feed and print every advisory event
   run      the service: subscribe, evaluate, publish advisories (advisory only)
+  demo     the whole job on an invented site in a couple of minutes
+  simulate publish an invented scenario to a broker, or write it as a feed file
+  report   an HTML report per site and period, from the service's store or a feed
 """
 
 from __future__ import annotations
@@ -164,7 +167,8 @@ def cmd_run(args: argparse.Namespace) -> int:
     try:
         running = bootstrap(args.config, broker_url=args.broker, http_port=args.http_port,
                             state_dir=args.state_dir, shard=args.shard,
-                            spaces=args.spaces.split(",") if args.spaces else None)
+                            spaces=args.spaces.split(",") if args.spaces else None,
+                            http_host=args.http_host)
     except ConfigError as exc:
         for issue in exc.issues:
             print(issue, file=sys.stderr)
@@ -185,6 +189,118 @@ def cmd_run(args: argparse.Namespace) -> int:
     service.run()
     if running.http is not None:
         running.http.shutdown()
+    return 0
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    """Run the demo: embedded broker (unless --broker), service, simulator, live view."""
+    from thermowarden.demo import run_demo
+
+    view = sys.stdout.isatty() and not args.plain
+    return run_demo(args.broker, args.duration, args.speed, view)
+
+
+def cmd_simulate(args: argparse.Namespace) -> int:
+    """Publish a scenario live, or write it as a feed for replay."""
+    from thermowarden.config import ConfigError, load_site, read_password
+    from thermowarden.demo import example_site
+    from thermowarden.shell.mqtt_link import parse_url
+    from thermowarden.simulate import publish_live, scenario_records, write_feed
+
+    args.config = args.config or str(example_site())
+    try:
+        records = scenario_records(args.scenario, args.days, args.seed)
+    except ValueError as exc:
+        print(f"thermowarden simulate: {exc}", file=sys.stderr)
+        return 2
+    if args.output:
+        n = write_feed(records, args.output)
+        print(f"{n} readings written to {args.output}", file=sys.stderr)
+        return 0
+    try:
+        config = load_site(args.config)
+    except ConfigError as exc:
+        for issue in exc.issues:
+            print(issue, file=sys.stderr)
+        return 1
+    host, port, _ = parse_url(args.broker or config.broker.url)
+    try:
+        n = publish_live(records, host, port, args.protocol or config.broker.protocol,
+                         args.speed, username=config.broker.username,
+                         password=read_password(config.broker))
+    except OSError as exc:
+        print(f"thermowarden simulate: cannot reach the broker {host}:{port}: {exc}",
+              file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        return 0
+    print(f"{n} readings published", file=sys.stderr)
+    return 0
+
+
+def _when(text: str) -> float:
+    import datetime as dt
+
+    try:
+        d = dt.datetime.fromisoformat(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a date or ISO 8601 time") from None
+    if d.tzinfo is None:
+        d = d.replace(tzinfo=dt.UTC)
+    return d.timestamp()
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    """Write the HTML report for a period."""
+    import pathlib
+
+    from thermowarden.config import ConfigError, load_site
+    from thermowarden.replay import FeedError, read_feed, replay
+    from thermowarden.report import build_report, render_html
+
+    try:
+        config = load_site(args.config)
+    except ConfigError as exc:
+        for issue in exc.issues:
+            print(issue, file=sys.stderr)
+        return 1
+    if args.feed:
+        opener = gzip.open if args.feed.endswith(".gz") else open
+        try:
+            with opener(args.feed, "rt", encoding="utf-8") as fh:
+                result = replay(config, read_feed(fh, args.feed), base=args.config,
+                                full_events=True, tick_s=60.0, samples=True)
+        except (OSError, FeedError) as exc:
+            print(f"thermowarden report: {exc}", file=sys.stderr)
+            return 2
+        samples, events = result.samples, result.events
+        start = args.start if args.start is not None else result.start
+        end = args.end if args.end is not None else result.end + 1
+    else:
+        from thermowarden.shell.store import Store
+
+        path = pathlib.Path(args.state_dir) / f"{config.site.id}.sqlite3"
+        if not path.exists():
+            print(f"thermowarden report: no store at {path} (give --state-dir or --feed)",
+                  file=sys.stderr)
+            return 2
+        if args.start is None or args.end is None:
+            print("thermowarden report: --from and --to are needed with a store",
+                  file=sys.stderr)
+            return 2
+        store = Store(path)
+        samples = store.samples_between(args.start, args.end)
+        events = store.events_between(args.start - 7 * 86_400, args.end)
+        store.close()
+        start, end = args.start, args.end
+    if end <= start:
+        print("thermowarden report: --to must be after --from", file=sys.stderr)
+        return 2
+    html_text = render_html(config, build_report(config, samples, events, start, end),
+                            start, end)
+    out = args.output or f"{config.site.id}-report.html"
+    pathlib.Path(out).write_text(html_text, encoding="utf-8")
+    print(f"report written to {out}", file=sys.stderr)
     return 0
 
 
@@ -221,6 +337,9 @@ def build_parser() -> argparse.ArgumentParser:
                    "(mqtt://host:port or mqtts://host:port)")
     p.add_argument("--http-port", type=int, metavar="N",
                    help="serve /healthz, /readyz and /metrics on 127.0.0.1:N")
+    p.add_argument("--http-host", default="127.0.0.1", metavar="ADDRESS",
+                   help="address for the HTTP endpoint (default 127.0.0.1; 0.0.0.0 in a "
+                        "container)")
     p.add_argument("--state-dir", metavar="DIR",
                    help="where the SQLite store lives (default $STATE_DIRECTORY or ./state)")
     p.add_argument("--shard", type=_shard, metavar="INDEX/COUNT",
@@ -229,6 +348,48 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--log-format", choices=("text", "json"), default="text")
     p.add_argument("--log-level", choices=("debug", "info", "warning", "error"), default="info")
     p.set_defaults(func=cmd_run)
+
+    p = sub.add_parser("demo", help="the whole job on an invented site, in about two minutes")
+    p.add_argument("--broker", metavar="URL", help="use this broker instead of an embedded one")
+    p.add_argument("--duration", type=float, metavar="SECONDS",
+                   help="cap the demo at this many seconds (the day runs faster)")
+    p.add_argument("--speed", type=float, default=450.0,
+                   help="simulated seconds per real second (default 450: a working day in "
+                        "about two minutes)")
+    p.add_argument("--plain", action="store_true",
+                   help="print events line by line instead of the live view")
+    p.set_defaults(func=cmd_demo)
+
+    from thermowarden.simulate import SCENARIOS
+
+    p = sub.add_parser("simulate", help="publish an invented scenario, or write it as a feed",
+                       description="Scenarios: " + "; ".join(f"{k}: {v}"
+                                                             for k, v in SCENARIOS.items()))
+    p.add_argument("--config", default=None, metavar="SITE",
+                   help="site whose broker to publish to (default: the example site)")
+    p.add_argument("--scenario", default="larkfield-day", choices=sorted(SCENARIOS))
+    p.add_argument("--broker", metavar="URL", help="override the site's broker")
+    p.add_argument("--protocol", choices=("5", "3.1.1"), help="MQTT version to publish with")
+    p.add_argument("--speed", type=float, default=1.0,
+                   help="scenario seconds per real second (default 1: real time)")
+    p.add_argument("--days", type=int, default=3, help="days of the heat-wave scenario")
+    p.add_argument("--seed", type=int, help="random seed (the default gives the recorded feed)")
+    p.add_argument("--output", metavar="FEED", help="write a feed file (.jsonl or .jsonl.gz) "
+                   "instead of publishing")
+    p.set_defaults(func=cmd_simulate)
+
+    p = sub.add_parser("report", help="an HTML report per site and period")
+    p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
+    p.add_argument("--from", dest="start", type=_when, metavar="WHEN",
+                   help="start (ISO 8601; UTC unless an offset is given)")
+    p.add_argument("--to", dest="end", type=_when, metavar="WHEN", help="end (ISO 8601)")
+    p.add_argument("--feed", metavar="FEED", help="report on a recorded feed instead of the "
+                   "service's store")
+    p.add_argument("--state-dir", default="state", metavar="DIR",
+                   help="the service's state directory (default ./state)")
+    p.add_argument("--output", metavar="FILE", help="HTML file to write "
+                   "(default SITE-report.html)")
+    p.set_defaults(func=cmd_report)
     return parser
 
 

@@ -48,6 +48,8 @@ CHATTER_COUNT: Final = 3
 CHATTER_HOLD_S: Final = 3600.0
 HISTORY_KEPT: Final = 50
 DEESCALATE_HOLD_S: Final = 300.0
+SAMPLE_EVERY_S: Final = 300.0
+"""Every 5 minutes the key indices of every space are stored for reports."""
 PHS_EVERY_S: Final = 300.0
 """ISO 7933 PHS simulates a whole work period per space: it is refreshed every 5 minutes."""
 ADVISORY_EXPIRY_S: Final = 900
@@ -120,7 +122,8 @@ class Engine:
     """Evaluates a site; see the module docstring."""
 
     def __init__(self, config: SiteConfig, model: SiteModel, packs: Mapping[str, CompiledPack],
-                 *, conditions_every_s: float = 60.0, start: float | None = None) -> None:
+                 *, conditions_every_s: float = 60.0, start: float | None = None,
+                 sample_every_s: float = SAMPLE_EVERY_S) -> None:
         self.config = config
         self.model = model
         self.state = SiteState(model)
@@ -166,6 +169,8 @@ class Engine:
         self.cleared_count: dict[str, int] = dict.fromkeys(self.flood, 0)
         self.last_table: IndexTable | None = None
         self.last_phs = -math.inf
+        self.sample_every_s = sample_every_s
+        self.last_sample = -math.inf
         self.phs_columns: IndexTable = {}
         self.last_snapshot: Snapshot | None = None
         self.ticks = 0
@@ -289,6 +294,9 @@ class Engine:
             self._evaluate_rule(rt, env, now, effects)
         self._flush_summaries(now, effects)
         self._conditions(snap, table, now, effects)
+        if self.sample_every_s > 0 and now - self.last_sample >= self.sample_every_s:
+            self.last_sample = now
+            effects.append(Persist("sample", str(int(now)), self._sample(table, now)))
         if now - self.last_refresh >= ADVISORY_REFRESH_S:
             self.last_refresh = now
             for rt in self.rules:
@@ -762,6 +770,28 @@ class Engine:
             self._apply(rt, i, Trigger.UNSHELVE, None, now, effects, by=by,
                         extra={"note": note} if note else None)
         return effects
+
+    def _sample(self, table: IndexTable, now: float) -> dict[str, Any]:
+        """The report sample: a few indices of every space, NaN as null."""
+
+        def col(name: str) -> list[float | None]:
+            c = table[name]
+            return [None if not ok else round(float(v), 3)
+                    for v, ok in zip(c.values, c.present, strict=True)]
+
+        low = [float(self.config.parameters(s).get("comfort_low_c", 20.0))
+               for s in self.config.spaces]
+        high = [float(self.config.parameters(s).get("comfort_limit_c", 26.0))
+                for s in self.config.spaces]
+        return {"t": now, "spaces": list(self.model.space_ids),
+                "operative": col("operative_temperature"), "pmv": col("pmv_iso"),
+                "category_iso": col("comfort_category_iso"),
+                "category_en": col("adaptive_en_category"),
+                "en_lower": col("adaptive_en_II_lower"), "en_upper": col("adaptive_en_II_upper"),
+                "band_lower": low, "band_upper": high,
+                "wbgt": col("wbgt_effective"), "ref_unacclimatised":
+                    col("wbgt_reference_unacclimatised"),
+                "ref_acclimatised": col("wbgt_reference_acclimatised")}
 
     # ------------------------------------------------------------------ digest
     def digest(self, now: float, since: float) -> list[Effect]:

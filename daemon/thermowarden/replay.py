@@ -16,7 +16,7 @@ from typing import Any
 
 from thermowarden.config import SiteConfig
 from thermowarden.core.payloads import DecodeError, parse_timestamp
-from thermowarden.effects import Publish
+from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.site_model import build_site_model
@@ -59,6 +59,8 @@ def read_feed(lines: Iterable[str], name: str = "feed") -> Iterator[FeedRecord]:
 @dataclass
 class ReplayResult:
     events: list[dict[str, Any]] = field(default_factory=list)
+    samples: list[dict[str, Any]] = field(default_factory=list)
+    """Report samples (every 5 minutes of feed time), when asked for."""
     rejected: dict[str, int] = field(default_factory=dict)
     messages: int = 0
     start: float = math.nan
@@ -78,7 +80,8 @@ def event_line(payload: dict[str, Any]) -> dict[str, Any]:
 
 def replay(config: SiteConfig, records: Iterable[FeedRecord],
            packs: dict[str, CompiledPack] | None = None, base: str | None = None,
-           full_events: bool = False, tick_s: float | None = None) -> ReplayResult:
+           full_events: bool = False, tick_s: float | None = None,
+           samples: bool = False) -> ReplayResult:
     """Replay a feed through a fresh engine; collect every published event.
 
     ``tick_s`` overrides the site's evaluation interval (a coarser tick replays faster;
@@ -88,7 +91,8 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     if packs is None:
         names = {n for s in config.spaces for n in config.rule_packs(s)}
         packs = load_rule_packs(names, config.rule_dirs, base=base)
-    engine = Engine(config, model, packs, conditions_every_s=0)
+    engine = Engine(config, model, packs, conditions_every_s=0,
+                    sample_every_s=300.0 if samples else 0.0)
     tick_s = tick_s or config.evaluation.tick_s
     result = ReplayResult()
     next_tick: float | None = None
@@ -97,6 +101,8 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
         for eff in engine.tick(t):
             if isinstance(eff, Publish) and "/events/" in eff.topic and eff.payload:
                 result.events.append(eff.payload if full_events else event_line(eff.payload))
+            elif isinstance(eff, Persist) and eff.kind == "sample" and eff.record:
+                result.samples.append(eff.record)
 
     last_t = None
     for rec in records:

@@ -63,15 +63,19 @@ def warm_up() -> None:
 
 def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
               state_dir: str | None = None, shard: tuple[int, int] | None = None,
-              spaces: list[str] | None = None) -> Running:
+              spaces: list[str] | None = None, protocol: str | None = None,
+              clock: Clock | None = None, http_host: str = "127.0.0.1",
+              overrides: dict[str, str] | None = None) -> Running:
     """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
 
     Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
+    ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
     """
-    config = load_site(config_path)
-    if broker_url:
+    config = load_site(config_path, {**os.environ, **(overrides or {})})
+    if broker_url or protocol:
+        override = {k: v for k, v in (("url", broker_url), ("protocol", protocol)) if v}
         try:
-            broker = BrokerConfig.model_validate({**config.broker.model_dump(), "url": broker_url})
+            broker = BrokerConfig.model_validate({**config.broker.model_dump(), **override})
         except ValidationError as exc:
             raise ConfigError([ConfigIssue(None, f"--broker: {e['msg']}")
                                for e in exc.errors()]) from None
@@ -84,7 +88,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     packs = load_rule_packs(names, config.rule_dirs, base=config_path)
     model = build_site_model(config)
     warm_up()
-    clock = Clock()
+    clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""
     store = Store(state / f"{config.site.id}{suffix}.sqlite3")
@@ -115,12 +119,12 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     subs.append(f"{prefix}/commands/+")
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
                     {**status, "state": "offline"}, inbox, control, metrics, instance,
-                    command_prefix=f"{prefix}/commands/")
+                    command_prefix=f"{prefix}/commands/", now=clock.now)
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
                       f"{prefix}/replies", clock)
     http = None
     if http_port is not None:
-        http = start_http(http_port, metrics, service.alive, service.ready)
+        http = start_http(http_port, metrics, service.alive, service.ready, host=http_host)
     log.info("thermowarden %s: site %s, %d space(s), %d point(s), %d rule pack(s), broker %s",
              __version__, config.site.id, model.n_spaces, len(model.points), len(packs),
              config.broker.url)

@@ -18,6 +18,7 @@ import threading
 import time
 import urllib.parse
 from collections import deque
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -106,13 +107,15 @@ class MqttLink:
     def __init__(self, cfg: BrokerConfig, subscriptions: list[str], status_topic: str,
                  status_online: dict[str, Any], status_offline: dict[str, Any],
                  inbox: Inbox, control: queue.Queue[Control],
-                 metrics: Metrics, client_id: str, command_prefix: str = "\0") -> None:
+                 metrics: Metrics, client_id: str, command_prefix: str = "\0",
+                 now: Callable[[], float] = time.time) -> None:
         self.cfg = cfg
         self.subscriptions = subscriptions
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
         self.command_prefix = command_prefix
+        self.now = now
         self.inbox = inbox
         self.control = control
         self.metrics = metrics
@@ -191,11 +194,11 @@ class MqttLink:
         topic = msg.topic
         if topic.startswith(self.command_prefix):  # only commands carry reply properties
             props = getattr(msg, "properties", None)
-            item = Incoming(topic, bytes(msg.payload), time.time(),
+            item = Incoming(topic, bytes(msg.payload), self.now(),
                             getattr(props, "ResponseTopic", None),
                             getattr(props, "CorrelationData", None))
         else:
-            item = Incoming(topic, bytes(msg.payload), time.time())
+            item = Incoming(topic, bytes(msg.payload), self.now())
         if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
 

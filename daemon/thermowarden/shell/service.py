@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import json
 import logging
+import pathlib
 import queue
 import threading
 import time
@@ -36,14 +37,19 @@ BATCH_PAUSE_S = 0.005
 
 
 class Clock:
-    """Epoch seconds that advance with the monotonic clock (delays survive wall-clock steps)."""
+    """Epoch seconds that advance with the monotonic clock (delays survive wall-clock steps).
 
-    def __init__(self) -> None:
-        self.anchor = time.time()
+    ``start`` and ``speed`` are for the demo only: a simulated day starting at ``start``
+    that runs ``speed`` times faster than real time.
+    """
+
+    def __init__(self, start: float | None = None, speed: float = 1.0) -> None:
+        self.anchor = time.time() if start is None else start
         self.mono = time.monotonic()
+        self.speed = speed
 
     def now(self) -> float:
-        return self.anchor + (time.monotonic() - self.mono)
+        return self.anchor + (time.monotonic() - self.mono) * self.speed
 
 
 class Service:
@@ -70,6 +76,7 @@ class Service:
         self.inflight: dict[int, int] = {}  # message id -> outbox seq
         self.pending_retained: dict[str, Publish] = {}
         self.dirty = False
+        self.prompt_eval_s = min(PROMPT_EVAL_S, engine.config.evaluation.tick_s / clock.speed)
         self.received_seen = 0
         self.last_eval = 0.0
         self.last_loop = time.monotonic()
@@ -94,8 +101,13 @@ class Service:
 
     # ------------------------------------------------------------------ scheduler
     def _schedule(self) -> None:
-        tick = self.engine.config.evaluation.tick_s
         sched = self.scheduler
+        sched.add_listener(self._job_event, EVENT_JOB_ERROR | EVENT_JOB_MISSED)
+        if self.clock.speed != 1.0:
+            # a simulated clock (the demo): the engine loop ticks by itself and there are
+            # no calendar jobs
+            return
+        tick = self.engine.config.evaluation.tick_s
         sched.add_job(self.jobs.put, IntervalTrigger(seconds=tick), args=["tick"], id="tick")
         sched.add_job(self.jobs.put, CronTrigger(hour=0, minute=0, second=30),
                       args=["rollup"], id="rollup")
@@ -103,7 +115,8 @@ class Service:
                       id="prune")
         sched.add_job(self.jobs.put, CronTrigger(hour=7, minute=0), args=["digest"],
                       id="digest")
-        sched.add_listener(self._job_event, EVENT_JOB_ERROR | EVENT_JOB_MISSED)
+        sched.add_job(self.jobs.put, CronTrigger(hour=6, minute=30), args=["report"],
+                      id="report")
         sched.start()
 
     def _job_event(self, event: JobExecutionEvent) -> None:
@@ -140,6 +153,9 @@ class Service:
         elif e.kind == "event":
             assert e.record is not None
             self.store.add_event(e.key, now, e.record)
+        elif e.kind == "sample":
+            assert e.record is not None
+            self.store.add_sample(float(e.record["t"]), e.record)
         elif e.kind == "daily_means":
             assert e.record is not None
             self.store.put("daily_means", e.record["newest_first"])
@@ -238,14 +254,42 @@ class Service:
             self.evaluate()
         elif name == "prune":
             n = self.store.prune_events(now - EVENT_RETENTION_DAYS * 86_400)
-            log.info("pruned %d event(s) older than %d days", n, EVENT_RETENTION_DAYS)
+            m = self.store.prune_samples(now - EVENT_RETENTION_DAYS * 86_400)
+            log.info("pruned %d event(s) and %d sample(s) older than %d days", n, m,
+                     EVENT_RETENTION_DAYS)
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
+        elif name == "report":
+            self.daily_report(now)
+
+    def daily_report(self, now: float) -> pathlib.Path:
+        """Write yesterday's report (local calendar day) next to the store."""
+        import datetime as dt
+
+        from thermowarden.report import build_report, render_html
+
+        tz = self.engine.state.tz
+        today = dt.datetime.fromtimestamp(now, tz).date()
+        day = today - dt.timedelta(days=1)
+        start = dt.datetime.combine(day, dt.time(0), tz).timestamp()
+        end = dt.datetime.combine(today, dt.time(0), tz).timestamp()
+        config = self.engine.config
+        text = render_html(config, build_report(
+            config, self.store.samples_between(start, end),
+            self.store.events_between(start - 7 * 86_400, end), start, end), start, end)
+        folder = self.store.path.parent / "reports"
+        folder.mkdir(parents=True, exist_ok=True)
+        path = folder / f"{config.site.id}-{day.isoformat()}.html"
+        path.write_text(text, encoding="utf-8")
+        log.info("daily report written to %s", path)
+        return path
 
     def run(self) -> None:
         """The engine thread: runs until :meth:`request_stop`; then stops in order."""
         self._schedule()
+        if self.clock.speed != 1.0:
+            self.scheduler.start()
         self.link.start()
         self.evaluate()
         ready_sent = False
@@ -271,7 +315,9 @@ class Service:
                     # let messages gather for a moment: fewer wake-ups, less contention
                     # with the network thread for the interpreter lock
                     time.sleep(BATCH_PAUSE_S)
-                if self.dirty and time.monotonic() - self.last_eval >= PROMPT_EVAL_S:
+                since = time.monotonic() - self.last_eval
+                if (self.dirty and since >= self.prompt_eval_s) or (
+                        self.clock.speed != 1.0 and since >= self.prompt_eval_s):
                     self.evaluate()
                 ok, _ = self.ready()
                 if ok and not ready_sent:
@@ -294,7 +340,8 @@ class Service:
         self.notify("STOPPING=1")
         log.info("stopping: finishing the evaluation and flushing the outbox")
         try:
-            self.scheduler.shutdown(wait=False)
+            if self.scheduler.running:
+                self.scheduler.shutdown(wait=False)
         except Exception:  # noqa: BLE001 - stopping regardless
             pass
         try:

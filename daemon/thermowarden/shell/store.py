@@ -30,6 +30,10 @@ CREATE TABLE IF NOT EXISTS outbox (
     payload TEXT NOT NULL,
     created REAL NOT NULL
 );
+CREATE TABLE IF NOT EXISTS samples (
+    t REAL PRIMARY KEY,
+    record TEXT NOT NULL
+);
 CREATE TABLE IF NOT EXISTS kv (
     key TEXT PRIMARY KEY,
     value TEXT NOT NULL
@@ -94,6 +98,19 @@ class Store:
     def outbox_depth(self) -> int:
         row = self.db.execute("SELECT COUNT(*) FROM outbox").fetchone()
         return int(row[0])
+
+    # report samples
+    def add_sample(self, t: float, record: dict[str, Any]) -> None:
+        self.db.execute("INSERT OR REPLACE INTO samples(t, record) VALUES(?, ?)",
+                        (t, json.dumps(record)))
+
+    def samples_between(self, start: float, end: float) -> list[dict[str, Any]]:
+        rows = self.db.execute("SELECT record FROM samples WHERE t >= ? AND t < ? ORDER BY t",
+                               (start, end)).fetchall()
+        return [json.loads(r[0]) for r in rows]
+
+    def prune_samples(self, older_than: float) -> int:
+        return self.db.execute("DELETE FROM samples WHERE t < ?", (older_than,)).rowcount
 
     # key-value (daily means)
     def put(self, key: str, value: Any) -> None:

@@ -1,0 +1,208 @@
+"""``thermowarden demo``: the whole job in a couple of minutes, nothing to set up.
+
+Starts an embedded broker when no ``--broker`` is given, runs the service on the invented
+example site (Larkfield Works) with a simulated clock, publishes the scenario's sensor
+data in the site's own topic and payload formats, and shows what each audience receives
+as it happens. Ends by itself after the scenario (or ``--duration``) with a summary, or
+cleanly on Ctrl-C.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import importlib.resources
+import json
+import logging
+import pathlib
+import shutil
+import sys
+import tempfile
+import threading
+import time
+from collections import Counter
+from dataclasses import dataclass, field
+from typing import Any, TextIO
+
+import paho.mqtt.client as mqtt
+from paho.mqtt.enums import CallbackAPIVersion
+
+VIEW_INDICES = (("operative_temperature", "op °C"), ("pmv_iso", "PMV"),
+                ("relative_humidity", "RH %"), ("wbgt_effective", "WBGT"),
+                ("utci", "UTCI"))
+PRIORITY_MARK = {"low": "·", "medium": "!", "high": "!!", "urgent": "!!!"}
+
+
+def example_site() -> pathlib.Path:
+    return pathlib.Path(str(importlib.resources.files("thermowarden.deploy"))) / \
+        "example-site.yaml"
+
+
+@dataclass
+class DemoView:
+    """What the audiences received, kept for the live view and the summary."""
+
+    prefix: str
+    tz: dt.tzinfo
+    conditions: dict[str, dict[str, Any]] = field(default_factory=dict)
+    events: list[dict[str, Any]] = field(default_factory=list)
+    counts: Counter[str] = field(default_factory=Counter)
+    acted: list[str] = field(default_factory=list)
+    lock: threading.Lock = field(default_factory=threading.Lock)
+
+    def on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
+        if not msg.payload:
+            return
+        try:
+            data = json.loads(msg.payload)
+        except ValueError:
+            return
+        with self.lock:
+            if msg.topic.endswith("/conditions"):
+                self.conditions[data["space"]["id"]] = data
+            elif "/events/" in msg.topic and data.get("event"):
+                self.events.append(data)
+                aud = msg.topic.split("/events/")[1].split("/")[0]
+                self.counts[f"{aud}:{data['event']}"] += 1
+                adv = data.get("advisory")
+                if adv and data["event"] == "cleared" and adv.get("acted_on"):
+                    self.acted.append(f"{adv['space']['id']}: {adv['title']}")
+
+    def event_line(self, e: dict[str, Any]) -> str:
+        at = dt.datetime.fromisoformat(e["at"].replace("Z", "+00:00")).astimezone(self.tz)
+        if e["event"] == "summary":
+            return (f"{at:%H:%M} {e['audience']:<10} summary: {e['count']} notification(s) "
+                    "held back and summarised")
+        a = e["advisory"]
+        mark = PRIORITY_MARK.get(a["priority"], "")
+        return (f"{at:%H:%M} {a['audience']:<10} {e['event']:<11} {mark:<3} "
+                f"{a['priority']:<6} {a['title']}")
+
+    def render(self, now: float, start: float, end: float, out: TextIO) -> None:
+        local = dt.datetime.fromtimestamp(now, self.tz)
+        frac = min(max((now - start) / (end - start), 0.0), 1.0)
+        bar = "#" * int(frac * 40) + "-" * (40 - int(frac * 40))
+        lines = [f"thermowarden demo - Larkfield Works (invented site), "
+                 f"{local:%a %d %b %H:%M} [{bar}] {frac * 100:3.0f}%",
+                 "advisory only: nothing is switched or moved", ""]
+        head = f"{'space':<14}" + "".join(f"{label:>9}" for _, label in VIEW_INDICES)
+        lines.append(head)
+        with self.lock:
+            for sid, c in sorted(self.conditions.items()):
+                cells = []
+                for key, _ in VIEW_INDICES:
+                    v = c["indices"].get(key, {}).get("value")
+                    cells.append(f"{v:>9.1f}" if isinstance(v, int | float) else f"{'-':>9}")
+                lines.append(f"{sid:<14}" + "".join(cells))
+            lines.append("")
+            lines.append("what each audience received (latest last):")
+            lines.extend("  " + self.event_line(e) for e in self.events[-14:])
+        out.write("\x1b[H\x1b[2J" + "\n".join(lines) + "\n")
+        out.flush()
+
+    def summary(self) -> str:
+        with self.lock:
+            raised = Counter(e["advisory"]["audience"] for e in self.events
+                             if e["event"] == "raised")
+            cleared = sum(1 for e in self.events if e["event"] == "cleared")
+            escalated = sum(1 for e in self.events if e["event"] == "escalated")
+            out = ["", "demo summary", "------------",
+                   f"advisories raised: {sum(raised.values())} "
+                   f"({', '.join(f'{k} {v}' for k, v in sorted(raised.items()))}); "
+                   f"escalated {escalated} time(s); cleared {cleared}"]
+            if self.acted:
+                out.append("cleared after people acted on the advice:")
+                out.extend(f"  {a}" for a in self.acted)
+            out.append("heat-stress alerts are screening advice: follow local regulations "
+                       "and a qualified occupational hygienist.")
+        return "\n".join(out)
+
+
+def run_demo(broker_url: str | None, duration: float | None, speed: float, view: bool,
+             out: TextIO = sys.stdout) -> int:
+    """Run the demo; returns the exit status (0 when it ends or is interrupted)."""
+    from thermowarden.config import load_site
+    from thermowarden.shell.bootstrap import bootstrap
+    from thermowarden.shell.embedded_broker import EmbeddedBroker
+    from thermowarden.shell.mqtt_link import parse_url
+    from thermowarden.shell.service import Clock
+    from thermowarden.simulated_feeds.larkfield import larkfield_day
+
+    if speed <= 0:
+        raise ValueError("--speed must be positive")
+    logging.basicConfig(level=logging.ERROR, format="%(levelname)s %(name)s: %(message)s")
+    logging.getLogger("apscheduler").setLevel(logging.ERROR)
+    embedded = None
+    if broker_url is None:
+        embedded = EmbeddedBroker().start()
+        broker_url = f"mqtt://127.0.0.1:{embedded.port}"
+        out.write(f"started an embedded MQTT broker on 127.0.0.1:{embedded.port} (MQTT 3.1.1)\n")
+    site_path = example_site()
+    config = load_site(site_path)
+    records = list(larkfield_day())
+    start, end = records[0]["t"], records[-1]["t"]
+    stop_at = time.monotonic() + duration if duration is not None else float("inf")
+    state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
+    clock = Clock(start=start - 1.0, speed=speed)
+    # at hundreds of times real speed a few milliseconds of scheduling delay are whole
+    # sensor intervals: allow more missed intervals before a point counts as stale
+    running = bootstrap(str(site_path), broker_url=broker_url, state_dir=state_dir,
+                        protocol="3.1.1" if embedded else None, clock=clock,
+                        overrides={"THERMOWARDEN_INGEST__STALE_AFTER_INTERVALS": "6"})
+    service = running.service
+    engine_thread = threading.Thread(target=service.run, name="engine", daemon=True)
+    engine_thread.start()
+    host, port, _ = parse_url(broker_url)
+    dv = DemoView(config.output.prefix, service.engine.state.tz)
+    watcher = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
+                          protocol=mqtt.MQTTv311)
+    watcher.on_message = dv.on_message
+    watcher.connect(host, port, 30)
+    watcher.subscribe(f"{config.output.prefix}/#", qos=1)
+    watcher.loop_start()
+    sensors = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
+                          protocol=mqtt.MQTTv311)
+    sensors.connect(host, port, 30)
+    sensors.loop_start()
+    interrupted = False
+    try:
+        deadline = time.monotonic() + 60
+        while not service.ready()[0] and time.monotonic() < deadline:
+            time.sleep(0.05)
+        last_view = 0.0
+        shown = 0
+        for rec in records:
+            if time.monotonic() >= stop_at:
+                break
+            while clock.now() < rec["t"]:
+                time.sleep(0.005)
+                if view and time.monotonic() - last_view > 0.5:
+                    dv.render(clock.now(), start, end, out)
+                    last_view = time.monotonic()
+            p = rec["payload"]
+            body = p if isinstance(p, str) else json.dumps(p)
+            sensors.publish(rec["topic"], body, qos=0)
+            if not view:
+                with dv.lock:
+                    fresh = dv.events[shown:]
+                    shown = len(dv.events)
+                for e in fresh:
+                    out.write(dv.event_line(e) + "\n")
+        time.sleep(1.0)
+        if view:
+            dv.render(clock.now(), start, end, out)
+    except KeyboardInterrupt:
+        interrupted = True
+    finally:
+        service.request_stop()
+        engine_thread.join(30)
+        sensors.loop_stop()
+        watcher.loop_stop()
+        for c in (sensors, watcher):
+            c.disconnect()
+        if embedded is not None:
+            embedded.stop()
+        shutil.rmtree(state_dir, ignore_errors=True)
+    out.write(dv.summary() + "\n")
+    if interrupted:
+        out.write("interrupted; stopped cleanly\n")
+    return 0

@@ -1,0 +1,1 @@
+"""Deployment samples; the example site ships with the package for the demo."""

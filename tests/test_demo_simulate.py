@@ -1,0 +1,72 @@
+"""The demo (embedded broker, service, simulator, summary), `simulate`, and the service's
+daily report."""
+
+from __future__ import annotations
+
+import gzip
+import json
+import subprocess
+import sys
+
+from tests.conftest import REPO
+from thermowarden.simulate import retime, scenario_records
+
+SITE = REPO / "deploy" / "example-site.yaml"
+
+
+def test_demo_runs_on_its_own_and_exits_zero():
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "demo", "--duration", "35",
+                        "--plain"], capture_output=True, text=True, timeout=240)
+    assert r.returncode == 0, r.stderr[-3000:]
+    out = r.stdout
+    assert "started an embedded MQTT broker" in out
+    assert "demo summary" in out and "advisories raised:" in out
+    assert " raised " in out  # events shown as they happen
+    assert "occupational hygienist" in out
+
+
+def test_simulate_writes_a_replayable_feed(tmp_path):
+    feed = tmp_path / "heatwave.jsonl.gz"
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "simulate", "--scenario",
+                        "larkfield-heatwave", "--days", "2", "--output", str(feed)],
+                       capture_output=True, text=True, timeout=300)
+    assert r.returncode == 0, r.stderr
+    with gzip.open(feed, "rt") as fh:
+        lines = fh.readlines()
+    assert len(lines) > 50_000
+    first, last = json.loads(lines[0]), json.loads(lines[-1])
+    assert last["t"] - first["t"] > 47 * 3600  # two whole days
+
+
+def test_scenarios_are_seeded():
+    a = [r for _, r in zip(range(200), scenario_records("larkfield-day"), strict=False)]
+    b = [r for _, r in zip(range(200), scenario_records("larkfield-day"), strict=False)]
+    assert a == b
+
+
+def test_retime_moves_embedded_timestamps():
+    p = [{"bn": "x:", "bt": 1000.0, "n": "a", "v": 1}, {"n": "b", "v": 2}]
+    assert retime(p, 1000.0, 5000.0)[0]["bt"] == 5000.0
+    j = {"temp_c": 20, "ts": 1000}
+    assert retime(j, 1000.0, 1060.0)["ts"] == 1060
+    iso = {"time": "1970-01-01T00:16:40+00:00"}
+    assert retime(iso, 1000.0, 1060.0)["time"].startswith("1970-01-01T00:17:40")
+    assert retime("21.5", 1000.0, 2000.0) == "21.5"
+
+
+def test_service_writes_a_daily_report(tmp_path):
+    from thermowarden.shell.bootstrap import bootstrap
+
+    running = bootstrap(str(SITE), broker_url="mqtt://127.0.0.1:9", state_dir=str(tmp_path))
+    svc = running.service
+    engine = svc.engine
+    now = svc.clock.now()
+    for k in range(3):
+        engine.message("larkfield/office-west/air/temperature", b"24.0", now + k)
+        engine.sample_every_s = 1.0
+        svc.execute(engine.tick(now + k + 0.5))
+    path = svc.daily_report(now + 86_400)
+    text = path.read_text()
+    assert path.name.startswith("larkfield-") and "Second floor office, west facade" in text
+    assert "<h2>Summary</h2>" in text
+    svc.store.close()
