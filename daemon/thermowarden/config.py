@@ -483,8 +483,7 @@ class ConfigIssue:
     message: str
 
     def __str__(self) -> str:
-        where = str(self.position) if self.position else "<config>"
-        return f"{where}: {self.message}"
+        return f"{self.position}: {self.message}" if self.position else self.message
 
 
 class ConfigError(Exception):

@@ -77,8 +77,9 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         try:
             broker = BrokerConfig.model_validate({**config.broker.model_dump(), **override})
         except ValidationError as exc:
-            raise ConfigError([ConfigIssue(None, f"--broker: {e['msg']}")
-                               for e in exc.errors()]) from None
+            raise ConfigError([
+                ConfigIssue(None, "--broker: " + str(e["msg"]).removeprefix("Value error, "))
+                for e in exc.errors()]) from None
         config = config.model_copy(update={"broker": broker})
     if shard is not None:
         config = shard_spaces(config, *shard)
