@@ -160,6 +160,7 @@ class Engine:
         self.last_refresh = -math.inf
         self.implausible: list[deque[float]] = [deque(maxlen=200) for _ in range(n)]
         self.last_change = np.full(0, np.nan)
+        self._point_cache: tuple[int, Any, Any] = (-1, None, None)
         self.last_seen_value = np.full(0, np.nan)
         self.flood: dict[str, deque[float]] = {a: deque() for a in ("facilities", "safety",
                                                                      "integrator")}
@@ -207,13 +208,17 @@ class Engine:
         seen = np.isfinite(st.last_time[:npts])
         self.last_change = np.where(changed & seen, now, self.last_change)
         self.last_seen_value = values.copy()
-        spaces = np.array([p.space for p in self.model.points], dtype=np.int64)
+        if self._point_cache[0] != npts:
+            self._point_cache = (npts, np.array([p.space for p in self.model.points],
+                                                dtype=np.int64),
+                                 np.array([p.quantity in ("shading_position", "fan_state",
+                                                          "occupancy")
+                                           for p in self.model.points], dtype=bool))
+        _, spaces, state_q = self._point_cache
         indoor_pts = spaces >= 0
         start = self.start if self.start is not None else now
         grace = (now - start) > st.ingest_cfg.stale_after_intervals * st.interval[:npts]
         stale = ~snap.point_fresh & (seen | grace) & indoor_pts
-        state_q = np.array([p.quantity in ("shading_position", "fan_state", "occupancy")
-                            for p in self.model.points], dtype=bool)
         stuck = (snap.point_fresh & indoor_pts & ~state_q
                  & (now - self.last_change > STUCK_AFTER_S))
         sp = np.where(indoor_pts, spaces, 0)

@@ -61,6 +61,8 @@ class _Slot:
     pids: IntArray
     spaces: IntArray
     weights: FloatArray
+    flux: BoolArray | None = None
+    """For plane slots: which points measure radiant flux (converted to a temperature)."""
 
 
 class SiteState:
@@ -233,6 +235,10 @@ class SiteState:
                 add(f"height:{p.height or 'any'}:{p.quantity}", pid, p.space, 1.0)
         self._slots = {k: _Slot(np.array(v[0], dtype=np.int64), np.array(v[1], dtype=np.int64),
                                 np.array(v[2], dtype=np.float64)) for k, v in groups.items()}
+        for name, slot in self._slots.items():
+            if name.startswith("plane:"):
+                slot.flux = np.array([model.points[p].quantity == "radiant_flux"
+                                      for p in slot.pids], dtype=bool)
         self._slots_version = len(model.points)
 
     # ------------------------------------------------------------------ snapshot
@@ -358,7 +364,7 @@ class SiteState:
             if slot is None:
                 continue
             vals = values.copy()
-            flux = np.array([self.model.points[p].quantity == "radiant_flux" for p in slot.pids])
+            flux = slot.flux if slot.flux is not None else np.zeros(slot.pids.size, dtype=bool)
             if flux.any():
                 vals[slot.pids[flux]] = radiation.plane_radiant_temperature_from_flux(
                     values[slot.pids[flux]])

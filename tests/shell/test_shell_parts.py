@@ -1,0 +1,71 @@
+"""Small shell parts without a broker: systemd notification, log rate limiting and JSON
+lines, the store, the simulated clock."""
+
+from __future__ import annotations
+
+import json
+import logging
+import socket
+
+from thermowarden.shell import systemd
+from thermowarden.shell.logs import JsonFormatter, RateLimiter
+from thermowarden.shell.service import Clock
+from thermowarden.shell.store import Store
+
+
+def test_sd_notify_datagram(tmp_path):
+    path = str(tmp_path / "notify.sock")
+    with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as sock:
+        sock.bind(path)
+        assert systemd.notify("READY=1", {"NOTIFY_SOCKET": path})
+        assert sock.recv(100) == b"READY=1"
+    assert not systemd.notify("READY=1", {})
+    assert systemd.watchdog_interval_s({"WATCHDOG_USEC": "60000000"}) == 30.0
+    assert systemd.watchdog_interval_s({}) is None
+
+
+def test_rate_limiter_counts_what_it_suppresses():
+    now = [0.0]
+    rl = RateLimiter(per_minute=6, burst=3, clock=lambda: now[0])
+    assert [rl.allow("k")[0] for _ in range(5)] == [True, True, True, False, False]
+    now[0] += 10.0  # one token back (6 per minute)
+    assert rl.allow("k") == (True, 2)
+    assert rl.allow("other")[0]
+
+
+def test_json_log_lines():
+    rec = logging.LogRecord("thermowarden", logging.WARNING, __file__, 1, "rejected %s",
+                            ("implausible",), None)
+    rec.space = "office-west"
+    line = json.loads(JsonFormatter().format(rec))
+    assert line["level"] == "warning" and line["message"] == "rejected implausible"
+    assert line["space"] == "office-west"
+
+
+def test_store_round_trips_and_outbox_order(tmp_path):
+    s = Store(tmp_path / "x" / "site.sqlite3")
+    s.put_advisory("a/r", {"state": 2})
+    s.put_advisory("a/r", {"state": 3})
+    assert s.advisories() == [{"state": 3}]
+    s.put_advisory("a/r", None)
+    assert s.advisories() == []
+    seqs = [s.outbox_add(f"t/{k}", {"k": k}, 1.0) for k in range(3)]
+    s.outbox_done(seqs[1])
+    assert [t for _, t, _ in s.outbox()] == ["t/0", "t/2"]
+    s.add_event("e", 5.0, {"event": "raised"})
+    assert s.events_between(0, 10) == [{"event": "raised"}]
+    assert s.prune_events(6.0) == 1
+    s.put("daily_means", [20.5, 19.0])
+    assert s.get("daily_means") == [20.5, 19.0]
+    s.close()
+    assert (tmp_path / "x" / "site.sqlite3").exists()
+
+
+def test_simulated_clock_runs_faster():
+    import time
+
+    c = Clock(start=1000.0, speed=100.0)
+    t0 = c.now()
+    time.sleep(0.05)
+    assert 1000.0 <= t0 < 1010.0
+    assert c.now() - t0 >= 4.0
