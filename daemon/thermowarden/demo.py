@@ -142,7 +142,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     start, end = records[0]["t"], records[-1]["t"]
     stop_at = time.monotonic() + duration if duration is not None else float("inf")
     state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
-    clock = Clock(start=start - 1.0, speed=speed)
+    clock = Clock(start=start - 1.0, speed=speed, paused=True)
     # at hundreds of times real speed a few milliseconds of scheduling delay are whole
     # sensor intervals: allow more missed intervals before a point counts as stale
     running = bootstrap(str(site_path), broker_url=broker_url, state_dir=state_dir,
@@ -153,21 +153,29 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     engine_thread.start()
     host, port, _ = parse_url(broker_url)
     dv = DemoView(config.output.prefix, service.engine.state.tz)
+    # one client at a time: the service first, then the watcher, then the sensors (the
+    # embedded broker does not like concurrent first subscriptions)
+    deadline = time.monotonic() + 60
+    while not service.ready()[0] and time.monotonic() < deadline:
+        time.sleep(0.05)
+    subscribed = threading.Event()
     watcher = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
                           protocol=mqtt.MQTTv311)
     watcher.on_message = dv.on_message
+    watcher.on_subscribe = lambda *a: subscribed.set()
     watcher.connect(host, port, 30)
     watcher.subscribe(f"{config.output.prefix}/#", qos=1)
     watcher.loop_start()
+    subscribed.wait(10)
     sensors = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
                           protocol=mqtt.MQTTv311)
     sensors.connect(host, port, 30)
     sensors.loop_start()
     interrupted = False
     try:
-        deadline = time.monotonic() + 60
-        while not service.ready()[0] and time.monotonic() < deadline:
-            time.sleep(0.05)
+        time.sleep(0.3)
+        clock.resume()
+        service.engine.start = clock.now()
         last_view = 0.0
         shown = 0
         for rec in records:

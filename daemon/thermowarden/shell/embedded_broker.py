@@ -52,6 +52,10 @@ class EmbeddedBroker:
         loop = asyncio.new_event_loop()
         self._loop = loop
         asyncio.set_event_loop(loop)
+        log = logging.getLogger("thermowarden.embedded_broker")
+        loop.set_exception_handler(
+            lambda _loop, ctx: log.warning("embedded broker: %s (%s)", ctx.get("message"),
+                                           ctx.get("exception")))
         config = {
             "listeners": {"default": {"type": "tcp", "bind": f"127.0.0.1:{self.port}"}},
             "plugins": {"amqtt.plugins.authentication.AnonymousAuthPlugin":

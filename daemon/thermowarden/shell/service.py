@@ -43,13 +43,23 @@ class Clock:
     that runs ``speed`` times faster than real time.
     """
 
-    def __init__(self, start: float | None = None, speed: float = 1.0) -> None:
+    def __init__(self, start: float | None = None, speed: float = 1.0,
+                 paused: bool = False) -> None:
         self.anchor = time.time() if start is None else start
         self.mono = time.monotonic()
         self.speed = speed
+        self.paused = paused
 
     def now(self) -> float:
+        if self.paused:
+            return self.anchor
         return self.anchor + (time.monotonic() - self.mono) * self.speed
+
+    def resume(self) -> None:
+        """Start a paused (demo) clock from its anchor."""
+        if self.paused:
+            self.mono = time.monotonic()
+            self.paused = False
 
 
 class Service:
