@@ -161,6 +161,7 @@ class Engine:
         self.implausible: list[deque[float]] = [deque(maxlen=200) for _ in range(n)]
         self.last_change = np.full(0, np.nan)
         self._point_cache: tuple[int, Any, Any] = (-1, None, None)
+        self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
         self.last_seen_value = np.full(0, np.nan)
         self.flood: dict[str, deque[float]] = {a: deque() for a in ("facilities", "safety",
                                                                      "integrator")}
@@ -688,9 +689,33 @@ class Engine:
             "occupied": bool(snap.occupied[i]),
             "states": {k: _num(float(v[i])) for k, v in snap.states.items()},
             "inputs": inputs,
-            "indices": {name: col.as_dict(i) for name, col in self.last_table.items()},
+            "indices": self._indices_at(i),
             "advisory_only": True,
         }
+
+    def _indices_at(self, i: int) -> dict[str, dict[str, Any]]:
+        """``IndexColumn.as_dict`` for every index of space ``i``, with the per-column work
+        (rounding, list conversion) done once per evaluation rather than once per space."""
+        table = self.last_table
+        assert table is not None
+        if self._indices_cache[0] is not table:
+            prepared = []
+            for name, col in table.items():
+                digits = 5 if col.unit == "kg/kg" else 2
+                values = np.round(np.where(col.present, col.values, 0.0), digits).tolist()
+                prepared.append((name, col, values, col.codes.tolist()))
+            self._indices_cache = (table, prepared)
+        out: dict[str, dict[str, Any]] = {}
+        for name, col, values, codes in self._indices_cache[1]:
+            code = codes[i]
+            if code:
+                out[name] = {"value": None, "unit": col.unit, "method": col.method,
+                             "reason": col.reasons[code]}
+            else:
+                v = values[i]
+                out[name] = {"value": col.labels[int(v)] if col.labels is not None else v,
+                             "unit": col.unit, "method": col.method}
+        return out
 
     def _conditions(self, snap: Snapshot, table: IndexTable, now: float,
                     effects: list[Effect]) -> None:
