@@ -17,7 +17,10 @@ import gzip
 import json
 import sys
 from collections.abc import Sequence
-from typing import TextIO
+from typing import TYPE_CHECKING, TextIO
+
+if TYPE_CHECKING:
+    from thermowarden.config import SiteConfig
 
 CAUTION = ("Heat-stress figures are screening values, not a diagnosis: individual factors "
            "(acclimatisation, hydration, fitness, medication, clothing) change the risk. "
@@ -47,6 +50,23 @@ def _format_table(result: dict[str, dict[str, object]]) -> str:
             shown = f"{shown:<16} {item['method']}"
         lines.append(f"{name:<{width}}  {shown}")
     return "\n".join(lines)
+
+
+def _print_issues(exc: Exception) -> None:
+    """Print every problem of a refused configuration, one per line."""
+    for issue in getattr(exc, "issues", [exc]):
+        print(issue, file=sys.stderr)
+
+
+def _load_or_report(path: str) -> SiteConfig | None:
+    """The site, or None after printing why it was refused."""
+    from thermowarden.config import ConfigError, load_site
+
+    try:
+        return load_site(path)
+    except ConfigError as exc:
+        _print_issues(exc)
+        return None
 
 
 def cmd_assess(args: argparse.Namespace) -> int:
@@ -110,14 +130,11 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def cmd_replay(args: argparse.Namespace) -> int:
     """Replay a recorded feed offline; print events as JSON lines (or a summary)."""
-    from thermowarden.config import ConfigError, load_site
+    from thermowarden.config import ConfigError
     from thermowarden.replay import FeedError, read_feed, replay, summarise
 
-    try:
-        config = load_site(args.config)
-    except ConfigError as exc:
-        for issue in exc.issues:
-            print(issue, file=sys.stderr)
+    config = _load_or_report(args.config)
+    if config is None:
         return 1
     try:
         opener = gzip.open if args.feed.endswith(".gz") else open
@@ -131,8 +148,7 @@ def cmd_replay(args: argparse.Namespace) -> int:
         print(f"thermowarden replay: {exc}", file=sys.stderr)
         return 2
     except ConfigError as exc:
-        for issue in exc.issues:
-            print(issue, file=sys.stderr)
+        _print_issues(exc)
         return 1
     if args.summary:
         json.dump(summarise(result), sys.stdout, indent=2, ensure_ascii=False)
@@ -170,8 +186,7 @@ def cmd_run(args: argparse.Namespace) -> int:
                             spaces=args.spaces.split(",") if args.spaces else None,
                             http_host=args.http_host)
     except ConfigError as exc:
-        for issue in exc.issues:
-            print(issue, file=sys.stderr)
+        _print_issues(exc)
         print("thermowarden run: the configuration was refused; nothing was started",
               file=sys.stderr)
         return 1
@@ -202,7 +217,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
 def cmd_simulate(args: argparse.Namespace) -> int:
     """Publish a scenario live, or write it as a feed for replay."""
-    from thermowarden.config import ConfigError, load_site, read_password
+    from thermowarden.config import read_password
     from thermowarden.demo import example_site
     from thermowarden.shell.mqtt_link import parse_url
     from thermowarden.simulate import publish_live, scenario_records, write_feed
@@ -217,11 +232,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         n = write_feed(records, args.output)
         print(f"{n} readings written to {args.output}", file=sys.stderr)
         return 0
-    try:
-        config = load_site(args.config)
-    except ConfigError as exc:
-        for issue in exc.issues:
-            print(issue, file=sys.stderr)
+    config = _load_or_report(args.config)
+    if config is None:
         return 1
     host, port, _ = parse_url(args.broker or config.broker.url)
     try:
@@ -254,15 +266,11 @@ def cmd_report(args: argparse.Namespace) -> int:
     """Write the HTML report for a period."""
     import pathlib
 
-    from thermowarden.config import ConfigError, load_site
     from thermowarden.replay import FeedError, read_feed, replay
     from thermowarden.report import build_report, render_html
 
-    try:
-        config = load_site(args.config)
-    except ConfigError as exc:
-        for issue in exc.issues:
-            print(issue, file=sys.stderr)
+    config = _load_or_report(args.config)
+    if config is None:
         return 1
     if args.feed:
         opener = gzip.open if args.feed.endswith(".gz") else open

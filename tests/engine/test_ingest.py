@@ -143,15 +143,19 @@ json_values = st.recursive(
     max_leaves=12)
 
 
-@settings(max_examples=300, deadline=None)
-@given(topic_index=st.integers(0, 50), raw=st.binary(max_size=300))
-def test_fuzz_bytes_only_readings_or_counted_rejections(topic_index, raw):
+def fresh_site(topic_index: int):
+    """A new example site (model, state, ingest) and one of its topics."""
     config = load_site(REPO / "deploy" / "example-site.yaml", {})
     model = build_site_model(config)
     state = SiteState(model)
-    ing = Ingestor(model, state)
     topics = sorted({p.topic for p in model.points})
-    topic = topics[topic_index % len(topics)]
+    return model, state, Ingestor(model, state), topics[topic_index % len(topics)]
+
+
+@settings(max_examples=300, deadline=None)
+@given(topic_index=st.integers(0, 50), raw=st.binary(max_size=300))
+def test_fuzz_bytes_only_readings_or_counted_rejections(topic_index, raw):
+    model, state, ing, topic = fresh_site(topic_index)
     before = ing.accepted + sum(ing.rejected.values())
     rejections = ing.ingest(topic, raw, NOW)
     after = ing.accepted + sum(ing.rejected.values())
@@ -164,12 +168,7 @@ def test_fuzz_bytes_only_readings_or_counted_rejections(topic_index, raw):
 @settings(max_examples=300, deadline=None)
 @given(topic_index=st.integers(0, 50), doc=json_values)
 def test_fuzz_json_shapes(topic_index, doc):
-    config = load_site(REPO / "deploy" / "example-site.yaml", {})
-    model = build_site_model(config)
-    state = SiteState(model)
-    ing = Ingestor(model, state)
-    topics = sorted({p.topic for p in model.points})
-    topic = topics[topic_index % len(topics)]
+    model, state, ing, topic = fresh_site(topic_index)
     payload = json.dumps(doc, allow_nan=True).encode()
     rejections = ing.ingest(topic, payload, NOW)
     assert ing.accepted + len(rejections) >= 1
