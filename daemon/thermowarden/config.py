@@ -37,7 +37,7 @@ from pydantic import (
 from thermowarden.core import heat_stress, radiation
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.topics import TemplateError, TopicTemplate
-from thermowarden.core.units import UNITS, UnitError, converter
+from thermowarden.core.units import UnitError, converter
 from thermowarden.yaml_positions import (
     Path,
     Position,
@@ -642,6 +642,19 @@ def _spaces_from_csv(path: pathlib.Path, shown: str) -> tuple[list[dict[str, Any
     return spaces, smap, issues
 
 
+def _read_yaml_file(path: str | os.PathLike[str]) -> tuple[Any, SourceMap]:
+    """Read and parse a YAML file, keeping positions; problems become :class:`ConfigError`."""
+    shown = str(path)
+    try:
+        text = pathlib.Path(path).read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ConfigError([ConfigIssue(None, f"{shown}: cannot read: {exc.strerror}")]) from None
+    try:
+        return load_yaml_with_positions(text, shown)
+    except YamlSourceError as exc:
+        raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
+
+
 def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = None
               ) -> SiteConfig:
     """Load and validate a site file (and the CSV it refers to).
@@ -653,14 +666,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     environ = os.environ if environ is None else environ
     p = pathlib.Path(path)
     shown = str(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise ConfigError([ConfigIssue(None, f"{shown}: cannot read: {exc.strerror}")]) from None
-    try:
-        data, smap = load_yaml_with_positions(text, shown)
-    except YamlSourceError as exc:
-        raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
+    data, smap = _read_yaml_file(path)
     if not isinstance(data, dict):
         raise ConfigError([ConfigIssue(Position(shown, 1, 1), "the site file must be a "
                                        "mapping with at least a 'site' section")])
@@ -713,10 +719,6 @@ def read_password(broker: BrokerConfig) -> str | None:
         return pathlib.Path(broker.password_file).read_text(encoding="utf-8").strip()
     return None
 
-
-def known_units(quantity: str) -> list[str]:
-    """Units accepted for a quantity (for messages and docs)."""
-    return [u for u in UNITS[QUANTITIES[quantity].kind] if u]
 
 
 # ----------------------------------------------------------------------------- rule packs
@@ -818,15 +820,7 @@ class RulePackConfig(Strict):
 
 def load_rule_pack_file(path: str | os.PathLike[str]) -> tuple[RulePackConfig, SourceMap]:
     """Load one rule pack file; raises :class:`ConfigError` with positions."""
-    shown = str(path)
-    try:
-        text = pathlib.Path(path).read_text(encoding="utf-8")
-    except OSError as exc:
-        raise ConfigError([ConfigIssue(None, f"{shown}: cannot read: {exc.strerror}")]) from None
-    try:
-        data, smap = load_yaml_with_positions(text, shown)
-    except YamlSourceError as exc:
-        raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
+    data, smap = _read_yaml_file(path)
     try:
         return RulePackConfig.model_validate(data), smap
     except ValidationError as exc:

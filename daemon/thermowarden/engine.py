@@ -19,7 +19,7 @@ import numpy as np
 
 from thermowarden.config import PRIORITIES, SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray
-from thermowarden.core.expressions import Truth
+from thermowarden.core.expressions import Expression, Truth
 from thermowarden.core.indices import IndexTable, compute_indices
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.core.quantities import QUANTITIES
@@ -425,10 +425,16 @@ class Engine:
         table = self.last_table
         numbers: dict[str, Any] = {}
         fields: dict[str, object] = {}
-        for name, arr in env.items():
+        for name in rule.template_names:
+            arr = env.get(name)
             if isinstance(arr, np.ndarray) and arr.dtype != np.bool_ and arr.shape == (self.n,):
                 fields[name] = float(arr[i])
-        n = self.n
+
+        def at(expr: Expression) -> float:
+            """One space's value of an expression (not the whole site's)."""
+            one = {name: env[name][i:i + 1] for name in expr.names}
+            return float(expr.evaluate_number(one, 1)[0])
+
         for name, th in rule.numbers:
             v = float(env[name][i]) if name in env else math.nan
             item: dict[str, Any] = {"value": _num(v)}
@@ -445,11 +451,11 @@ class Engine:
                 if not math.isfinite(v):
                     item["reason"] = "input missing or stale"
             if th is not None:
-                item["threshold"] = _num(float(th.evaluate_number(env, n)[i]))
+                item["threshold"] = _num(at(th))
             numbers[name] = item
         benefit: dict[str, Any] = {}
         for name, expr in rule.benefit:
-            v = float(expr.evaluate_number(env, n)[i])
+            v = at(expr)
             benefit[name] = {"value": _num(v)}
             fields[name] = v
         space = self.model.space(i)

@@ -179,6 +179,13 @@ def _plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> str:
     def num(t: float) -> float:
         return float(mdates.date2num(dt.datetime.fromtimestamp(t, tz)))  # type: ignore[no-untyped-call]
 
+    def finish(ax: Any) -> None:
+        ax.set_ylabel("°C")
+        ax.xaxis_date(tz)
+        ax.xaxis.set_major_formatter(fmt)
+        ax.legend(loc="upper left", fontsize=8, frameon=False)
+        ax.grid(alpha=0.3)
+
     times = [num(t) for t in rep.t]
     fmt = mdates.DateFormatter("%H:%M" if end - start <= 2 * 86_400 else "%d %b",  # type: ignore[no-untyped-call]
                                tz=tz)
@@ -191,11 +198,7 @@ def _plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> str:
                             label="EN 16798-1 category II band" if rep.natural else
                             f"comfort band {lo:g}-{hi:g} °C (space parameters)")
         ax.plot(times, rep.operative, color="#1f4e79", lw=1.4, label="operative temperature")
-        ax.set_ylabel("°C")
-        ax.xaxis_date(tz)
-        ax.xaxis.set_major_formatter(fmt)
-        ax.legend(loc="upper left", fontsize=8, frameon=False)
-        ax.grid(alpha=0.3)
+        finish(ax)
         out.append(_svg(fig))
     if rep.hot_work and any(math.isfinite(v) for v in rep.wbgt):
         fig, ax = plt.subplots(figsize=(9, 2.6))
@@ -205,11 +208,7 @@ def _plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> str:
                 label="unacclimatised reference (action)")
         ax.plot(times, rep.ref_a, color="#555555", lw=1, ls=":",
                 label="acclimatised reference (limit)")
-        ax.set_ylabel("°C")
-        ax.xaxis_date(tz)
-        ax.xaxis.set_major_formatter(fmt)
-        ax.legend(loc="upper left", fontsize=8, frameon=False)
-        ax.grid(alpha=0.3)
+        finish(ax)
         out.append(_svg(fig))
     if rep.advisories:
         fig, ax = plt.subplots(figsize=(9, 0.5 + 0.28 * len(rep.advisories)))

@@ -125,6 +125,12 @@ class CompiledRule:
     def key(self) -> str:
         return f"{self.pack}.{self.config.id}"
 
+    @functools.cached_property
+    def template_names(self) -> frozenset[str]:
+        """Names the three message templates insert."""
+        return frozenset(name for t in (self.title, self.advice, self.rationale)
+                         for name, _ in t.fields)
+
     @property
     def base_priority(self) -> int:
         return PRIORITIES.index(self.config.priority)

@@ -12,9 +12,6 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Final
 
-import numpy as np
-import numpy.typing as npt
-
 from thermowarden.config import (
     JsonFormat,
     NumberFormat,
@@ -159,7 +156,3 @@ def template_applies(model: SiteModel, allowed: frozenset[int] | None, space: in
     return (allowed is None or space in allowed) and (space, quantity) not in \
         model.explicit_quantities
 
-
-def point_arrays(model: SiteModel) -> dict[str, npt.NDArray[np.float64]]:
-    """Per-point numeric columns (for vectorised freshness checks)."""
-    return {"interval_s": np.array([p.interval_s for p in model.points], dtype=np.float64)}

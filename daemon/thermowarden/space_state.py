@@ -17,7 +17,7 @@ import numpy as np
 import numpy.typing as npt
 
 from thermowarden.config import IngestConfig, OccupancyConfig, PointBase, SiteConfig
-from thermowarden.core import heat_stress, radiation
+from thermowarden.core import radiation
 from thermowarden.core.adaptive import running_mean_outdoor
 from thermowarden.core.columns import BoolArray, FloatArray
 from thermowarden.core.indices import SpaceInputs
@@ -106,6 +106,13 @@ class SiteState:
         self._slots_version = -1
         self._slots: dict[str, _Slot] = {}
         self._context = self._build_context()
+        groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
+        for i, space in enumerate(cfg.spaces):
+            occ = cfg.occupancy(space)
+            groups.setdefault(id(occ), (occ, []))[1].append(i)
+        self._occupancy_groups = [(occ, np.array(m, dtype=np.int64))
+                                  for occ, m in groups.values()]
+        """Spaces sharing one occupancy schedule, so a tick evaluates each schedule once."""
 
     # ------------------------------------------------------------------ points
     def _grow(self, need: int) -> None:
@@ -288,18 +295,12 @@ class SiteState:
 
     def occupied(self, now: float, states: FloatArray) -> BoolArray:
         """Occupied per space: a fresh occupancy point wins, else the weekly schedule."""
-        cfg = self.model.config
         local = dt.datetime.fromtimestamp(now, self.tz)
         day = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")[local.weekday()]
         hhmm = local.strftime("%H:%M")
-        cache: dict[int, bool] = {}
         out = np.zeros(self.model.n_spaces, dtype=bool)
-        for i, space in enumerate(cfg.spaces):
-            occ: OccupancyConfig = cfg.occupancy(space)
-            key = id(occ)
-            if key not in cache:
-                cache[key] = _scheduled(occ, local.date(), day, hhmm)
-            out[i] = cache[key]
+        for occ, members in self._occupancy_groups:
+            out[members] = _scheduled(occ, local.date(), day, hhmm)
         return np.where(np.isfinite(states), states >= 0.5, out)
 
     def _roll_outdoor(self, now: float, outdoor_t: float) -> None:
@@ -486,7 +487,3 @@ def _scheduled(occ: OccupancyConfig, date: dt.date, day: str, hhmm: str) -> bool
             return True
     return False
 
-
-def metabolic_w(met: FloatArray) -> FloatArray:
-    """Whole-body metabolic rate (W) for met values (1 met = 58.15 W/m², 1.8 m²)."""
-    return heat_stress.metabolic_rate_w(np.asarray(met) * 58.15)

@@ -104,33 +104,6 @@ def reference_unacclimatised(metabolic_w: FloatArray) -> FloatArray:
     return result
 
 
-def time_weighted_mean(times_s: FloatArray, values: FloatArray, start_s: float, end_s: float,
-                       min_coverage: float = 0.8) -> FloatArray:
-    """Time-weighted mean of sampled values over [start_s, end_s] (ISO 7243 / NIOSH 1-h TWA).
-
-    ``times_s`` (T,) ascending sample times shared by all spaces; ``values`` (N, T), NaN
-    where a space has no sample. Each sample holds until the next one (or ``end_s``);
-    time before a space's first sample inside the window is not counted. NaN where the
-    samples cover less than ``min_coverage`` of the window.
-    """
-    t = np.asarray(times_s, dtype=np.float64)
-    v = np.atleast_2d(np.asarray(values, dtype=np.float64))
-    if t.size == 0:
-        return np.full(v.shape[0], np.nan)
-    t_next = np.append(t[1:], end_s)
-    lo = np.clip(t, start_s, end_s)
-    hi = np.clip(t_next, start_s, end_s)
-    dt = np.maximum(hi - lo, 0.0)  # (T,)
-    have = np.isfinite(v)
-    weights = np.where(have, dt[None, :], 0.0)
-    covered = weights.sum(axis=1)
-    total = np.where(have, v, 0.0) @ dt
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = total / covered
-    window = max(end_s - start_s, 1e-9)
-    result: FloatArray = np.where(covered >= min_coverage * window, mean, np.nan)
-    return result
-
 
 PHS_EDITIONS: Final = ("2023", "2004")
 

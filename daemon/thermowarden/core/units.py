@@ -10,10 +10,6 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Final
 
-import numpy as np
-
-from thermowarden.core.columns import FloatArray
-
 Converter = Callable[[float], float]
 
 _FT: Final = 0.3048
@@ -67,9 +63,3 @@ def convert(value: float, kind: str, unit: str) -> float:
     """``value`` in ``unit`` converted to the canonical unit of ``kind``."""
     return converter(kind, unit)(value)
 
-
-def convert_array(values: FloatArray, kind: str, unit: str) -> FloatArray:
-    """Element-wise :func:`convert` on an array (the converters are affine, so this is exact)."""
-    f = converter(kind, unit)
-    result: FloatArray = np.asarray(f(np.asarray(values, dtype=np.float64)), dtype=np.float64)  # type: ignore[arg-type]
-    return result
