@@ -143,9 +143,9 @@ def _messages(n_spaces: int, count: int, t0: float) -> list[tuple[str, bytes, fl
 
 
 def bench_ingest(quick: bool) -> dict[str, float]:
-    from thermowarden.ingest import Ingestor
+    from thermowarden.engine.ingest import Ingestor
+    from thermowarden.engine.state import SiteState
     from thermowarden.site_model import build_site_model
-    from thermowarden.space_state import SiteState
 
     n = 1000
     config = _site(n, [])
@@ -194,8 +194,8 @@ def bench_memory() -> dict[str, float]:
 def _memory_child() -> int:
     import gc
 
+    from thermowarden.engine.state import SiteState
     from thermowarden.site_model import build_site_model
-    from thermowarden.space_state import SiteState
 
     n = 10_000
     gc.collect()
@@ -218,6 +218,7 @@ def _memory_child() -> int:
 
 def bench_rules(quick: bool) -> dict[str, float]:
     from thermowarden.engine import Engine
+    from thermowarden.engine.evaluation import rule_truths
     from thermowarden.rules import builtin_pack_names, load_rule_packs
     from thermowarden.site_model import build_site_model
 
@@ -228,7 +229,8 @@ def bench_rules(quick: bool) -> dict[str, float]:
     spaces = invented_spaces(n)
     table = compute_indices(spaces, with_phs=False)
     snap = engine.state.snapshot(0.0)
-    env = engine._environment(snap, table, 0.0)
+    book = engine.advisories
+    env = engine.evaluation.environment(snap, table, 0.0, 0.0, book.unknown_long(0.0))
     for k in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb"):
         env[k] = getattr(spaces, k)
     env["relative_humidity"] = spaces.relative_humidity
@@ -239,9 +241,10 @@ def bench_rules(quick: bool) -> dict[str, float]:
     def one_tick(now: float) -> float:
         effects: list = []
         t0 = time.perf_counter()
-        for rt in engine.rules:
-            engine._evaluate_rule(rt, env, now, effects)
-        engine._flush_summaries(now, effects)
+        book.begin(env, table)
+        for rt in book.rules:
+            book.step(rt, rule_truths(rt.rule, rt.params, rt.mask, env, n), now, effects)
+        book.flush_summaries(now, effects)
         return time.perf_counter() - t0
 
     one_tick(0.0)  # pending

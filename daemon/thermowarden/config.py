@@ -726,6 +726,7 @@ def read_password(broker: BrokerConfig) -> str | None:
 Audience = Literal["facilities", "safety", "integrator"]
 Priority = Literal["low", "medium", "high", "urgent"]
 PRIORITIES: tuple[str, ...] = ("low", "medium", "high", "urgent")
+AUDIENCES: tuple[str, ...] = ("facilities", "safety", "integrator")
 RULE_ID = r"^[a-z][a-z0-9_]{0,47}$"
 
 

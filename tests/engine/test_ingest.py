@@ -13,9 +13,9 @@ from hypothesis import strategies as st
 
 from tests.conftest import REPO
 from thermowarden.config import load_site
-from thermowarden.ingest import Ingestor
+from thermowarden.engine.ingest import Ingestor
+from thermowarden.engine.state import SiteState
 from thermowarden.site_model import build_site_model
-from thermowarden.space_state import SiteState
 
 NOW = 1_780_000_000.0
 

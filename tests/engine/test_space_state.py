@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 
 from thermowarden.config import load_site
-from thermowarden.ingest import Ingestor
+from thermowarden.engine.ingest import Ingestor
+from thermowarden.engine.state import SiteState
 from thermowarden.site_model import build_site_model
-from thermowarden.space_state import SiteState
 
 # Tuesday 2026-06-02 12:00 UTC (13:00 in London)
 NOON = dt.datetime(2026, 6, 2, 12, 0, tzinfo=dt.UTC).timestamp()

@@ -182,8 +182,7 @@ class Service:
         for topic, e in list(self.pending_retained.items()):
             if self.link.publish(topic, e.payload, e.qos, True, e.expiry_s) is not None:
                 self.pending_retained.pop(topic, None)
-        self.engine.last_refresh = float("-inf")  # republish live advisories at the next tick
-        self.engine.last_conditions[:] = float("-inf")  # and every space's conditions
+        self.engine.republish_all()  # live advisories and conditions at the next tick
         self.dirty = True
 
     # ------------------------------------------------------------------ the loop

@@ -20,8 +20,8 @@ from thermowarden.core import payloads
 from thermowarden.core.payloads import Decoded, DecodeError
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.units import UnitError, converter
+from thermowarden.engine.state import SiteState
 from thermowarden.site_model import MAX_SENSORS_PER_SLOT, SiteModel, template_applies
-from thermowarden.space_state import SiteState
 
 PAYLOAD_TOO_LARGE: Final = "payload_too_large"
 UNKNOWN_TOPIC: Final = "unknown_topic"

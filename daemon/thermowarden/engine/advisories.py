@@ -1,0 +1,515 @@
+"""Advisories: rule truths -> the lifecycle per (space, rule), levels, commands, floods.
+
+Each rule keeps its lifecycle as arrays over the spaces (:class:`RuleRuntime`); an
+:class:`Advisory` exists for every (space, rule) that is live. Every transition goes
+through the table of :mod:`thermowarden.core.lifecycle`: an illegal one raises and changes
+nothing. Notifications to one audience beyond the flood limit are held back and summarised.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections import deque
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any, Final
+
+import numpy as np
+
+from thermowarden.config import AUDIENCES, PRIORITIES, SiteConfig
+from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.indices import IndexTable
+from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
+from thermowarden.effects import Effect, Persist
+from thermowarden.engine.evaluation import RuleTruths
+from thermowarden.engine.publication import (
+    EVENT_SCHEMA,
+    REPLY_SCHEMA,
+    Publication,
+    iso,
+    num,
+)
+from thermowarden.engine.texts import Texts
+from thermowarden.rules import (
+    HEAT_STRESS_CAUTIONS,
+    CompiledPack,
+    CompiledRule,
+    missing_inputs,
+    provided_inputs,
+    rule_applies,
+)
+from thermowarden.site_model import SiteModel
+
+UNKNOWN_LONG_S: Final = 1800.0
+"""A rule unknown this long in a space (an input it needs missing) counts for sensor health."""
+SUMMARY_INTERVAL_S: Final = 60.0
+CHATTER_WINDOW_S: Final = 3600.0
+CHATTER_COUNT: Final = 3
+"""Raised this often within ``CHATTER_WINDOW_S``: the advisory is chattering."""
+CHATTER_HOLD_S: Final = 3600.0
+HISTORY_KEPT: Final = 50
+DEESCALATE_HOLD_S: Final = 300.0
+ADVISORY_REFRESH_S: Final = 300.0
+"""Live advisories are republished (retained) this often."""
+
+
+@dataclass
+class Advisory:
+    """One occurrence of an advisory for one space and rule."""
+
+    id: str
+    space: int
+    rule: str
+    audience: str
+    priority: str
+    state: State
+    raised_at: float
+    updated_at: float
+    title: str = ""
+    advice: str = ""
+    rationale: str = ""
+    numbers: dict[str, Any] = field(default_factory=dict)
+    benefit: dict[str, Any] = field(default_factory=dict)
+    cautions: list[str] = field(default_factory=list)
+    cleared_at: float | None = None
+    acknowledged: dict[str, Any] | None = None
+    shelved: dict[str, Any] | None = None
+    acted_on: dict[str, Any] | None = None
+    chattering: bool = False
+    history: list[dict[str, Any]] = field(default_factory=list)
+
+
+class CommandError(ValueError):
+    """A command that changes nothing; the message goes back in the reply."""
+
+
+class RuleRuntime:
+    """Arrays of one rule's lifecycle across all spaces."""
+
+    def __init__(self, rule: CompiledRule, mask: BoolArray, params: dict[str, FloatArray]):
+        n = mask.size
+        self.rule = rule
+        self.mask = mask
+        self.params = params
+        self.state = np.zeros(n, dtype=np.int8)
+        self.level = np.full(n, rule.base_priority, dtype=np.int8)
+        self.pending_since = np.full(n, np.nan)
+        self.clear_since = np.full(n, np.nan)
+        self.last_notified = np.full(n, np.nan)
+        self.shelved_until = np.full(n, np.nan)
+        self.unknown_since = np.full(n, np.nan)
+        self.lower_since = np.full(n, np.nan)
+        self.advisories: dict[int, Advisory] = {}
+        self.raised_times: dict[int, deque[float]] = {}
+
+
+def build_rule_runtimes(config: SiteConfig, model: SiteModel,
+                        packs: Mapping[str, CompiledPack]) -> list[RuleRuntime]:
+    """One runtime per rule of every pack, masked to the spaces that enable the pack, match
+    the rule's filters and have a point for every input it needs; per-space parameters."""
+    rules: list[RuleRuntime] = []
+    provided = provided_inputs(model)
+    for pack_name in sorted(packs):
+        pack = packs[pack_name]
+        enabled = np.array([pack_name in config.rule_packs(s) for s in config.spaces],
+                           dtype=bool)
+        lacking: set[tuple[str, int]] = set()
+        for i in np.flatnonzero(enabled):
+            for rule_id, _ in missing_inputs(pack, model, int(i), provided):
+                lacking.add((rule_id, int(i)))
+        for rule in pack.rules:
+            applies = np.array([rule_applies(rule.config, s)
+                                and (rule.config.id, i) not in lacking
+                                for i, s in enumerate(config.spaces)], dtype=bool)
+            params: dict[str, FloatArray] = {}
+            for pname, default in rule.config.parameters.items():
+                values = [config.parameters(s).get(pname, default) for s in config.spaces]
+                params[pname] = np.array([float(v) for v in values], dtype=np.float64)
+            rules.append(RuleRuntime(rule, enabled & applies, params))
+    return rules
+
+
+@dataclass
+class _Context:
+    """The evaluation in progress, for rendering texts with the numbers of the moment."""
+
+    base: Mapping[str, Any]
+    table: IndexTable | None
+
+
+class Advisories:
+    """The live advisories of a site, their lifecycle, commands and notification floods."""
+
+    def __init__(self, config: SiteConfig, model: SiteModel, packs: Mapping[str, CompiledPack],
+                 publication: Publication, texts: Texts) -> None:
+        self.config = config
+        self.model = model
+        self.pub = publication
+        self.texts = texts
+        self.n = model.n_spaces
+        self.rules = build_rule_runtimes(config, model, packs)
+        self.by_id: dict[str, tuple[RuleRuntime, int]] = {}
+        self.flood_limit = config.evaluation.flood_limit
+        self.flood_window_s = config.evaluation.flood_window_s
+        self.flood: dict[str, deque[float]] = {a: deque() for a in AUDIENCES}
+        self.suppressed: dict[str, list[dict[str, Any]]] = {a: [] for a in AUDIENCES}
+        self.last_summary: dict[str, float] = dict.fromkeys(AUDIENCES, -math.inf)
+        self.raised_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
+        self.cleared_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
+        self.last_refresh = -math.inf
+        self._ctx = _Context({}, None)
+
+    # ------------------------------------------------------------------ evaluation
+    def unknown_long(self, now: float) -> FloatArray:
+        """Per space: how many rules (other than sensor health) have been unknown for want
+        of an input for at least ``UNKNOWN_LONG_S``."""
+        unknown = np.zeros(self.n)
+        for rt in self.rules:
+            if rt.rule.pack == "sensor_health":
+                continue
+            unknown += (now - rt.unknown_since >= UNKNOWN_LONG_S)
+        return unknown
+
+    def begin(self, base: Mapping[str, Any], table: IndexTable | None) -> None:
+        """Start an evaluation: texts rendered from now on use these values."""
+        self._ctx = _Context(base, table)
+
+    def step(self, rt: RuleRuntime, truths: RuleTruths, now: float,
+             effects: list[Effect]) -> None:
+        """Advance one rule's lifecycle in every space from its truths at ``now``."""
+        cfg = rt.rule.config
+        cond, clear, hold, level_idx = truths.raise_, truths.clear, truths.hold, truths.level
+        rt.unknown_since = np.where(rt.mask & truths.lacking & ~cond.known,
+                                    np.fmin(rt.unknown_since, now), np.nan)
+        state = rt.state
+        # idle -> pending
+        start = (state == State.IDLE) & cond.true & ~hold
+        rt.pending_since = np.where(start, now, rt.pending_since)
+        state[start] = State.PENDING
+        # pending -> idle (false, unknown, or held back)
+        drop = (state == State.PENDING) & ~(cond.true & ~hold)
+        state[drop] = State.IDLE
+        rt.pending_since[drop] = np.nan
+        # pending -> active
+        due = (state == State.PENDING) & cond.true & (now - rt.pending_since >= cfg.on_delay_s)
+        for i in np.flatnonzero(due):
+            self._raise(rt, int(i), int(level_idx[i]), now, effects)
+        live = state >= State.ACTIVE
+        if not live.any():
+            return
+        rt.clear_since = np.where(live & clear.true, np.fmin(rt.clear_since, now), np.nan)
+        # acted on
+        if truths.acted_on is not None:
+            for i in np.flatnonzero(truths.acted_on & live):
+                adv = rt.advisories[int(i)]
+                if adv.acted_on is None:
+                    adv.acted_on = {"at": iso(now), "cleared_after": None}
+                    adv.updated_at = now
+                    self._note(adv, now, "acted_on")
+                    effects.append(self.pub.advisory_publish(adv))
+                    effects.append(self._persist(adv))
+        # cleared
+        off = np.full(self.n, cfg.off_delay_s)
+        for i in np.flatnonzero(live):
+            if rt.advisories[int(i)].chattering:
+                off[i] = max(cfg.off_delay_s, CHATTER_HOLD_S)
+        gone = live & clear.true & (now - rt.clear_since >= off)
+        for i in np.flatnonzero(gone):
+            self._apply(rt, int(i), Trigger.OFF_DELAY_ELAPSED, now, effects)
+        live &= ~gone
+        # shelving expiry
+        expired = live & (state == State.SHELVED) & (now >= rt.shelved_until)
+        for i in np.flatnonzero(expired):
+            self._apply(rt, int(i), Trigger.SHELVE_EXPIRED, now, effects)
+        # escalation within one advisory: up at once, down only after the lower level has
+        # held for the rule's off-delay (at least 5 minutes), so noise near a band edge
+        # does not make the priority chatter
+        if rt.rule.levels:
+            up = live & (level_idx > rt.level)
+            lower = live & (level_idx >= 0) & (level_idx < rt.level) & cond.known
+            rt.lower_since = np.where(lower, np.fmin(rt.lower_since, now), np.nan)
+            down = lower & (now - rt.lower_since >= max(cfg.off_delay_s, DEESCALATE_HOLD_S))
+            for i in np.flatnonzero(up):
+                rt.level[i] = level_idx[i]
+                rt.lower_since[i] = np.nan
+                self._apply(rt, int(i), Trigger.ESCALATE, now, effects)
+            for i in np.flatnonzero(down):
+                rt.level[i] = level_idx[i]
+                rt.lower_since[i] = np.nan
+                self._apply(rt, int(i), Trigger.DEESCALATE, now, effects)
+        # re-notify
+        if cfg.renotify_s:
+            again = live & (state == State.ACTIVE) & (now - rt.last_notified >= cfg.renotify_s)
+            for i in np.flatnonzero(again):
+                self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
+
+    def refresh_due(self, now: float) -> list[Effect]:
+        """Republish every live advisory (retained) every ``ADVISORY_REFRESH_S``."""
+        if now - self.last_refresh < ADVISORY_REFRESH_S:
+            return []
+        self.last_refresh = now
+        return [self.pub.advisory_publish(adv) for adv in self.live()]
+
+    # ------------------------------------------------------------------ transitions
+    def _render(self, rt: RuleRuntime, adv: Advisory) -> None:
+        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table)
+
+    def _raise(self, rt: RuleRuntime, i: int, level: int, now: float,
+               effects: list[Effect]) -> None:
+        rule = rt.rule
+        new_state, event = transition(State(rt.state[i]), Trigger.ON_DELAY_ELAPSED)
+        level = level if level >= 0 else rule.base_priority
+        rt.level[i] = level
+        space = self.model.space(i)
+        adv = Advisory(
+            id=f"{space.id}.{rule.key}.{int(now)}", space=i, rule=rule.key,
+            audience=rule.config.audience, priority=PRIORITIES[level], state=new_state,
+            raised_at=now, updated_at=now,
+            cautions=list(HEAT_STRESS_CAUTIONS) if rule.config.heat_stress_cautions else [])
+        times = rt.raised_times.setdefault(i, deque())
+        times.append(now)
+        while times and times[0] < now - CHATTER_WINDOW_S:
+            times.popleft()
+        adv.chattering = len(times) >= CHATTER_COUNT
+        self._render(rt, adv)
+        rt.state[i] = new_state
+        rt.pending_since[i] = np.nan
+        rt.clear_since[i] = np.nan
+        rt.last_notified[i] = now
+        rt.advisories[i] = adv
+        self.by_id[adv.id] = (rt, i)
+        assert event is not None
+        self._note(adv, now, event)
+        self._emit(rt, adv, event, now, effects)
+
+    def _apply(self, rt: RuleRuntime, i: int, trigger: Trigger, now: float,
+               effects: list[Effect], by: str | None = None,
+               extra: dict[str, Any] | None = None) -> Advisory:
+        """Run one table transition for an existing advisory (raises if illegal)."""
+        adv = rt.advisories[i]
+        new_state, event = transition(State(rt.state[i]), trigger)
+        rt.state[i] = new_state
+        adv.state = new_state
+        adv.updated_at = now
+        adv.priority = PRIORITIES[int(rt.level[i])]
+        if trigger in (Trigger.ESCALATE, Trigger.DEESCALATE, Trigger.RENOTIFY_DUE):
+            self._render(rt, adv)
+        if trigger == Trigger.ESCALATE and adv.shelved is not None:
+            adv.shelved = None
+        if trigger in (Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED):
+            adv.shelved = None
+            rt.shelved_until[i] = np.nan
+        if trigger == Trigger.ESCALATE:
+            adv.acknowledged = None
+        if event in ("raised", "escalated", "renotified", "unshelved"):
+            rt.last_notified[i] = now
+        if new_state == State.IDLE:
+            adv.cleared_at = now
+            if adv.acted_on is not None:
+                adv.acted_on["cleared_after"] = True
+            del rt.advisories[i]
+            self.by_id.pop(adv.id, None)
+            rt.clear_since[i] = np.nan
+            rt.shelved_until[i] = np.nan
+            rt.level[i] = rt.rule.base_priority
+        if event is not None:
+            self._note(adv, now, event, by, extra)
+            self._emit(rt, adv, event, now, effects)
+        return adv
+
+    @staticmethod
+    def _note(adv: Advisory, now: float, event: str, by: str | None = None,
+              extra: dict[str, Any] | None = None) -> None:
+        entry: dict[str, Any] = {"at": iso(now), "event": event}
+        if by:
+            entry["by"] = by
+        if extra:
+            entry.update(extra)
+        adv.history.append(entry)
+        del adv.history[:-HISTORY_KEPT]
+
+    def _persist(self, adv: Advisory) -> Effect:
+        if adv.cleared_at is not None:
+            return self.pub.advisory_persist(adv, {})
+        rt, i = self.by_id[adv.id]
+        return self.pub.advisory_persist(adv, {
+            "state": int(rt.state[i]), "level": int(rt.level[i]),
+            "last_notified": num(float(rt.last_notified[i])),
+            "shelved_until": num(float(rt.shelved_until[i])),
+            "raised_times": list(rt.raised_times.get(i, ())),
+        })
+
+    def _emit(self, rt: RuleRuntime, adv: Advisory, event: str, now: float,
+              effects: list[Effect]) -> None:
+        payload = self.pub.event_payload(adv, event, now)
+        if event == "raised":
+            self.raised_count[adv.audience] += 1
+        elif event == "cleared":
+            self.cleared_count[adv.audience] += 1
+        effects.append(self.pub.advisory_publish(adv))
+        effects.append(self._persist(adv))
+        effects.append(Persist("event", adv.id, payload))
+        window = self.flood[adv.audience]
+        while window and window[0] < now - self.flood_window_s:
+            window.popleft()
+        if len(window) >= self.flood_limit and adv.priority != "urgent":
+            self.suppressed[adv.audience].append(payload)
+            return
+        window.append(now)
+        effects.append(self.pub.event_publish(adv, payload))
+
+    def flush_summaries(self, now: float, effects: list[Effect]) -> None:
+        """Events held back by the flood limit go out as one summary per audience."""
+        for audience, held in self.suppressed.items():
+            if not held or now - self.last_summary[audience] < SUMMARY_INTERVAL_S:
+                continue
+            self.last_summary[audience] = now
+            items = [{"event": p["event"], "advisory_id": p["advisory"]["id"],
+                      "space": p["advisory"]["space"]["id"], "rule": p["advisory"]["rule"],
+                      "priority": p["advisory"]["priority"], "title": p["advisory"]["title"],
+                      "at": p["at"]} for p in held]
+            payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
+                       "audience": audience, "count": len(items), "items": items,
+                       "note": f"more than {self.flood_limit} notifications in "
+                               f"{self.flood_window_s / 60:g} minutes to {audience}; "
+                               "summarised in one message"}
+            self.suppressed[audience] = []
+            effects.extend(self.pub.site_event(audience, payload,
+                                               f"summary.{audience}.{int(now)}"))
+
+    # ------------------------------------------------------------------ restore
+    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+        """Bring back live advisories stored before a restart, without raising them again.
+
+        Returns a note for each record that could not be restored (its space or rule is
+        no longer configured). Conditions are re-evaluated from fresh readings; until then
+        an advisory stays as it was (unknown never clears).
+        """
+        notes: list[str] = []
+        rules = {rt.rule.key: rt for rt in self.rules}
+        for rec in records:
+            rt = rules.get(rec.get("rule", ""))
+            i = self.model.space_index.get(rec.get("space", ""))
+            if rt is None or i is None:
+                notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
+                             "its space or rule is no longer configured")
+                continue
+            p = rec["payload"]
+            adv = Advisory(
+                id=p["id"], space=i, rule=rt.rule.key, audience=p["audience"],
+                priority=p["priority"], state=State(rec["state"]), raised_at=rec["raised_at"],
+                updated_at=rec["updated_at"], title=p["title"], advice=p["advice"],
+                rationale=p["rationale"], numbers=p["numbers"], benefit=p["benefit"],
+                cautions=p["cautions"], acknowledged=p["acknowledged"], shelved=p["shelved"],
+                acted_on=p["acted_on"], chattering=p["chattering"], history=p["history"])
+            rt.state[i] = adv.state
+            rt.level[i] = rec["level"]
+            ln = rec.get("last_notified")
+            rt.last_notified[i] = ln if ln is not None else rec["raised_at"]
+            su = rec.get("shelved_until")
+            rt.shelved_until[i] = su if su is not None else np.nan
+            rt.raised_times[i] = deque(rec.get("raised_times", []))
+            rt.advisories[i] = adv
+            self.by_id[adv.id] = (rt, i)
+        return notes
+
+    # ------------------------------------------------------------------ commands
+    def command(self, verb: str, body: bytes, now: float) -> tuple[dict[str, Any], list[Effect]]:
+        """Acknowledge, shelve or unshelve an advisory. Returns the reply and the effects;
+        on any error nothing changes and the reply says why."""
+        request_id = None
+        try:
+            try:
+                data = json.loads(body.decode("utf-8"))
+            except (UnicodeDecodeError, ValueError, RecursionError):
+                raise CommandError("the body is not a JSON object") from None
+            if not isinstance(data, dict):
+                raise CommandError("the body is not a JSON object")
+            request_id = data.get("request_id")
+            effects = self._command(verb, data, now)
+            reply = {"schema": REPLY_SCHEMA, "ok": True, "verb": verb,
+                     "advisory_id": data.get("advisory_id"), "request_id": request_id,
+                     "at": iso(now)}
+            return reply, effects
+        except (CommandError, IllegalTransition) as exc:
+            return ({"schema": REPLY_SCHEMA, "ok": False, "verb": verb, "error": str(exc),
+                     "request_id": request_id, "at": iso(now)}, [])
+
+    def _command(self, verb: str, data: dict[str, Any], now: float) -> list[Effect]:
+        allowed = {"acknowledge": {"advisory_id", "by", "note", "request_id", "reply_to"},
+                   "shelve": {"advisory_id", "by", "reason", "duration_s", "request_id",
+                              "reply_to"},
+                   "unshelve": {"advisory_id", "by", "note", "request_id", "reply_to"}}
+        if verb not in allowed:
+            raise CommandError(f"unknown command {verb!r} (acknowledge, shelve, unshelve)")
+        extra = set(data) - allowed[verb]
+        if extra:
+            raise CommandError(f"unknown field(s) {', '.join(sorted(extra))}")
+        adv_id = data.get("advisory_id")
+        by = data.get("by")
+        if not isinstance(adv_id, str) or adv_id not in self.by_id:
+            raise CommandError(f"no live advisory {adv_id!r}")
+        if not isinstance(by, str) or not by.strip() or len(by) > 100:
+            raise CommandError("'by' must name who acted")
+        rt, i = self.by_id[adv_id]
+        adv = rt.advisories[i]
+        effects: list[Effect] = []
+        note = data.get("note")
+        if note is not None and (not isinstance(note, str) or len(note) > 1000):
+            raise CommandError("'note' must be text of at most 1000 characters")
+        if verb == "acknowledge":
+            transition(State(rt.state[i]), Trigger.ACKNOWLEDGE)  # raises before any change
+            adv.acknowledged = {"by": by, "at": iso(now), "note": note}
+            self._apply(rt, i, Trigger.ACKNOWLEDGE, now, effects, by=by,
+                        extra={"note": note} if note else None)
+        elif verb == "shelve":
+            dur = data.get("duration_s")
+            reason = data.get("reason")
+            if isinstance(dur, bool) or not isinstance(dur, int | float) or not dur > 0:
+                raise CommandError("'duration_s' must be a positive number of seconds")
+            limit = rt.rule.config.max_shelve_s
+            if dur > limit:
+                raise CommandError(f"rule {rt.rule.key} may be shelved for at most {limit:g} s")
+            if not isinstance(reason, str) or not reason.strip():
+                raise CommandError("'reason' must say why it is shelved")
+            transition(State(rt.state[i]), Trigger.SHELVE)  # raises before any change
+            rt.shelved_until[i] = now + float(dur)
+            adv.shelved = {"by": by, "at": iso(now), "reason": reason,
+                           "until": iso(now + float(dur))}
+            self._apply(rt, i, Trigger.SHELVE, now, effects, by=by,
+                        extra={"reason": reason, "until": iso(now + float(dur))})
+        else:
+            self._apply(rt, i, Trigger.UNSHELVE, now, effects, by=by,
+                        extra={"note": note} if note else None)
+        return effects
+
+    # ------------------------------------------------------------------ digest
+    def digest(self, now: float, since: float) -> list[Effect]:
+        """One daily summary event per audience: what was raised and cleared since
+        ``since``, and what is still live."""
+        effects: list[Effect] = []
+        for audience in self.flood:
+            live = [a for a in self.live() if a.audience == audience]
+            items = [{"event": "live", "advisory_id": a.id,
+                      "space": self.model.space_ids[a.space], "rule": a.rule,
+                      "priority": a.priority, "title": a.title, "at": iso(a.updated_at)}
+                     for a in live]
+            payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
+                       "audience": audience, "count": max(len(items), 1),
+                       "items": items, "digest": {
+                           "since": iso(since), "live": len(live),
+                           "raised": self.raised_count[audience],
+                           "cleared": self.cleared_count[audience]},
+                       "note": "daily digest"}
+            self.raised_count[audience] = 0
+            self.cleared_count[audience] = 0
+            effects.extend(self.pub.site_event(audience, payload,
+                                               f"digest.{audience}.{int(now)}"))
+        return effects
+
+    # ------------------------------------------------------------------ queries
+    def live(self) -> list[Advisory]:
+        """Every live advisory (active, acknowledged or shelved)."""
+        return [a for rt in self.rules for a in rt.advisories.values()]
+

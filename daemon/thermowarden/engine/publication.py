@@ -1,0 +1,229 @@
+"""Publication: advisories, events and conditions turned into payloads, topics and records.
+
+The last step of the engine's path. Everything here builds JSON-ready payloads (their
+schemas ship in ``thermowarden/schemas``) and the effects that carry them; nothing here
+decides *whether* something is published, only *what* and *where*. NaN never leaves the
+process: a value that is not known is ``null`` with a reason.
+
+Topics (``<prefix>`` is ``output.prefix``)::
+
+    <prefix>/spaces/<space>/conditions          retained
+    <prefix>/spaces/<space>/advisories/<rule>   retained, emptied when cleared
+    <prefix>/events/<audience>/<space>          QoS 1, lifecycle transitions
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from typing import TYPE_CHECKING, Any, Final
+
+import numpy as np
+
+from thermowarden.config import SiteConfig
+from thermowarden.core.indices import IndexTable
+from thermowarden.effects import Effect, Persist, Publish
+from thermowarden.site_model import SiteModel
+
+if TYPE_CHECKING:
+    from thermowarden.engine.advisories import Advisory
+    from thermowarden.engine.state import Snapshot
+
+ADVISORY_SCHEMA: Final = "thermowarden.advisory/1"
+EVENT_SCHEMA: Final = "thermowarden.event/1"
+CONDITIONS_SCHEMA: Final = "thermowarden.conditions/1"
+REPLY_SCHEMA: Final = "thermowarden.reply/1"
+ADVISORY_EXPIRY_S: Final = 900
+"""MQTT 5 message expiry of a retained advisory; it is republished well before."""
+CONDITIONS_EXPIRY_S: Final = 600
+CONDITIONS_MIN_S: Final = 15.0
+"""Conditions of a space with new readings go out at most this often (else every minute)."""
+SITE_TOPIC_SPACE: Final = "_site"
+"""The space part of event topics for site-wide messages (summaries, digests)."""
+
+
+def iso(t: float) -> str:
+    """UTC ISO 8601 with seconds, for payloads."""
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace(
+        "+00:00", "Z")
+
+
+def num(v: float) -> float | None:
+    """A JSON number, or null for NaN/inf (NaN never leaves the process)."""
+    return round(v, 3) if math.isfinite(v) else None
+
+
+def space_ref(space: Any) -> dict[str, Any]:
+    """How a space is named in every payload: id, name, kind and its external references."""
+    ref: dict[str, Any] = {"id": space.id, "name": space.name or space.id, "kind": space.kind,
+                           "hot_work": space.hot_work}
+    if space.external is not None:
+        ref["external"] = space.external.model_dump(exclude_none=True)
+    return ref
+
+
+class Publication:
+    """Payloads and topics of one site; also paces the retained conditions per space."""
+
+    def __init__(self, config: SiteConfig, model: SiteModel,
+                 conditions_every_s: float = 60.0) -> None:
+        self.config = config
+        self.model = model
+        self.prefix = config.output.prefix
+        self.conditions_every_s = conditions_every_s
+        n = model.n_spaces
+        self.last_conditions = np.full(n, -np.inf)
+        self.touched = np.zeros(n, dtype=bool)
+        """Spaces with new readings since their conditions last went out."""
+        self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
+
+    # ------------------------------------------------------------------ advisories
+    def advisory_payload(self, adv: Advisory) -> dict[str, Any]:
+        """The advisory as published (schema ``thermowarden.advisory/1``)."""
+        space = self.model.space(adv.space)
+        state = "cleared" if adv.cleared_at is not None else adv.state.name.lower()
+        return {
+            "schema": ADVISORY_SCHEMA,
+            "id": adv.id,
+            "site": self.config.site.id,
+            "space": space_ref(space),
+            "rule": adv.rule,
+            "audience": adv.audience,
+            "priority": adv.priority,
+            "state": state,
+            "title": adv.title,
+            "advice": adv.advice,
+            "rationale": adv.rationale,
+            "numbers": adv.numbers,
+            "benefit": adv.benefit,
+            "cautions": adv.cautions,
+            "advisory_only": True,
+            "raised_at": iso(adv.raised_at),
+            "updated_at": iso(adv.updated_at),
+            "cleared_at": iso(adv.cleared_at) if adv.cleared_at is not None else None,
+            "acknowledged": adv.acknowledged,
+            "shelved": adv.shelved,
+            "acted_on": adv.acted_on,
+            "chattering": adv.chattering,
+            "history": list(adv.history),
+        }
+
+    def advisory_topic(self, adv: Advisory) -> str:
+        return f"{self.prefix}/spaces/{self.model.space_ids[adv.space]}/advisories/{adv.rule}"
+
+    def advisory_publish(self, adv: Advisory) -> Publish:
+        """The retained advisory message; an empty retained message once it has cleared."""
+        if adv.cleared_at is not None:
+            return Publish(self.advisory_topic(adv), None, retain=True, qos=1)
+        return Publish(self.advisory_topic(adv), self.advisory_payload(adv), retain=True, qos=1,
+                       expiry_s=ADVISORY_EXPIRY_S)
+
+    def advisory_persist(self, adv: Advisory, timers: dict[str, Any]) -> Persist:
+        """The stored form: the payload plus the lifecycle ``timers`` a restart needs."""
+        key = f"{self.model.space_ids[adv.space]}/{adv.rule}"
+        if adv.cleared_at is not None:
+            return Persist("advisory", key, None)
+        return Persist("advisory", key, {
+            "payload": self.advisory_payload(adv), "space": self.model.space_ids[adv.space],
+            "rule": adv.rule, "raised_at": adv.raised_at, "updated_at": adv.updated_at,
+            **timers})
+
+    # ------------------------------------------------------------------ events
+    def event_payload(self, adv: Advisory, event: str, now: float) -> dict[str, Any]:
+        """One lifecycle transition of an advisory, as each audience receives it."""
+        return {"schema": EVENT_SCHEMA, "event": event, "at": iso(now),
+                "advisory": self.advisory_payload(adv)}
+
+    def event_publish(self, adv: Advisory, payload: dict[str, Any]) -> Publish:
+        space_id = self.model.space_ids[adv.space]
+        return Publish(f"{self.prefix}/events/{adv.audience}/{space_id}", payload, qos=1)
+
+    def site_event(self, audience: str, payload: dict[str, Any], key: str) -> list[Effect]:
+        """A site-wide event (summary, digest): published and stored."""
+        return [Publish(f"{self.prefix}/events/{audience}/{SITE_TOPIC_SPACE}", payload, qos=1),
+                Persist("event", key, payload)]
+
+    # ------------------------------------------------------------------ conditions
+    def conditions_payload(self, snap: Snapshot, table: IndexTable, i: int) -> dict[str, Any]:
+        """The published conditions of space ``i`` (schema ``thermowarden.conditions/1``)."""
+        space = self.model.space(i)
+        inputs: dict[str, Any] = {}
+        for q, mask in snap.present.items():
+            inputs[q] = {"fresh": bool(mask[i])}
+        return {
+            "schema": CONDITIONS_SCHEMA,
+            "site": self.config.site.id,
+            "space": space_ref(space),
+            "at": iso(snap.now),
+            "occupied": bool(snap.occupied[i]),
+            "states": {k: num(float(v[i])) for k, v in snap.states.items()},
+            "inputs": inputs,
+            "indices": self.indices_at(table, i),
+            "advisory_only": True,
+        }
+
+    def indices_at(self, table: IndexTable, i: int) -> dict[str, dict[str, Any]]:
+        """``IndexColumn.as_dict`` for every index of space ``i``, with the per-column work
+        (rounding, list conversion) done once per evaluation rather than once per space."""
+        if self._indices_cache[0] is not table:
+            prepared = []
+            for name, col in table.items():
+                digits = 5 if col.unit == "kg/kg" else 2
+                values = np.round(np.where(col.present, col.values, 0.0), digits).tolist()
+                prepared.append((name, col, values, col.codes.tolist()))
+            self._indices_cache = (table, prepared)
+        out: dict[str, dict[str, Any]] = {}
+        for name, col, values, codes in self._indices_cache[1]:
+            code = codes[i]
+            if code:
+                out[name] = {"value": None, "unit": col.unit, "method": col.method,
+                             "reason": col.reasons[code]}
+            else:
+                v = values[i]
+                out[name] = {"value": col.labels[int(v)] if col.labels is not None else v,
+                             "unit": col.unit, "method": col.method}
+        return out
+
+    def conditions_due(self, snap: Snapshot, table: IndexTable, now: float) -> list[Effect]:
+        """Retained conditions of the spaces that are due: new readings (at most every
+        ``CONDITIONS_MIN_S``) or ``conditions_every_s`` since the last time."""
+        if self.conditions_every_s <= 0:
+            return []
+        age = now - self.last_conditions
+        due = np.flatnonzero((age >= self.conditions_every_s)
+                             | (self.touched & (age >= CONDITIONS_MIN_S)))
+        effects: list[Effect] = []
+        for i in due:
+            self.last_conditions[i] = now
+            self.touched[i] = False
+            effects.append(Publish(f"{self.prefix}/spaces/{self.model.space_ids[i]}/conditions",
+                                   self.conditions_payload(snap, table, int(i)), retain=True,
+                                   qos=0, expiry_s=CONDITIONS_EXPIRY_S))
+        return effects
+
+    def republish_conditions(self) -> None:
+        """Send every space's conditions at the next evaluation (after a reconnect)."""
+        self.last_conditions[:] = -np.inf
+
+    # ------------------------------------------------------------------ report samples
+    def sample(self, table: IndexTable, now: float) -> dict[str, Any]:
+        """The report sample: a few indices of every space, NaN as null."""
+
+        def col(name: str) -> list[float | None]:
+            c = table[name]
+            return [None if not ok else round(float(v), 3)
+                    for v, ok in zip(c.values, c.present, strict=True)]
+
+        low = [float(self.config.parameters(s).get("comfort_low_c", 20.0))
+               for s in self.config.spaces]
+        high = [float(self.config.parameters(s).get("comfort_limit_c", 26.0))
+                for s in self.config.spaces]
+        return {"t": now, "spaces": list(self.model.space_ids),
+                "operative": col("operative_temperature"), "pmv": col("pmv_iso"),
+                "category_iso": col("comfort_category_iso"),
+                "category_en": col("adaptive_en_category"),
+                "en_lower": col("adaptive_en_II_lower"), "en_upper": col("adaptive_en_II_upper"),
+                "band_lower": low, "band_upper": high,
+                "wbgt": col("wbgt_effective"), "ref_unacclimatised":
+                    col("wbgt_reference_unacclimatised"),
+                "ref_acclimatised": col("wbgt_reference_acclimatised")}

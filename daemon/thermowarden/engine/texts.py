@@ -1,0 +1,92 @@
+"""What an advisory says: its numbers, expected benefit, title, advice and rationale for one
+space, rendered from the rule's templates with the values of the moment."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+
+from thermowarden.config import SiteConfig
+from thermowarden.core.expressions import Expression
+from thermowarden.core.indices import IndexTable
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.engine.publication import num
+from thermowarden.rules import CompiledRule
+from thermowarden.site_model import SiteModel
+
+
+def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, Any],
+              table: IndexTable | None, i: int, n: int
+              ) -> tuple[dict[str, Any], dict[str, Any], dict[str, object]]:
+    """The advisory's ``numbers`` (value, unit, method, threshold, reason when absent), its
+    ``benefit`` and the template fields of space ``i``, from the environment ``env``
+    (name -> array over the ``n`` spaces) and the rule's per-space ``params``."""
+    numbers: dict[str, Any] = {}
+    fields: dict[str, object] = {}
+
+    def lookup(name: str) -> Any:
+        return params[name] if name in params else env.get(name)
+
+    for name in rule.template_names:
+        arr = lookup(name)
+        if isinstance(arr, np.ndarray) and arr.dtype != np.bool_ and arr.shape == (n,):
+            fields[name] = float(arr[i])
+
+    def at(expr: Expression) -> float:
+        """One space's value of an expression (not the whole site's)."""
+        one = {name: lookup(name)[i:i + 1] for name in expr.names}
+        return float(expr.evaluate_number(one, 1)[0])
+
+    for name, th in rule.numbers:
+        arr = lookup(name)
+        v = float(arr[i]) if arr is not None else math.nan
+        item: dict[str, Any] = {"value": num(v)}
+        if table is not None and name in table:
+            col = table[name]
+            item["unit"] = col.unit
+            item["method"] = col.method
+            if not math.isfinite(v):
+                item["reason"] = col.reason_at(i) or "input missing or stale"
+        else:
+            q = QUANTITIES.get(name)
+            item["unit"] = q.unit if q else ""
+            item["method"] = "measured" if q else "thermowarden"
+            if not math.isfinite(v):
+                item["reason"] = "input missing or stale"
+        if th is not None:
+            item["threshold"] = num(at(th))
+        numbers[name] = item
+    benefit: dict[str, Any] = {}
+    for name, expr in rule.benefit:
+        v = at(expr)
+        benefit[name] = {"value": num(v)}
+        fields[name] = v
+    return numbers, benefit, fields
+
+
+class Texts:
+    """Renders advisories of one site."""
+
+    def __init__(self, config: SiteConfig, model: SiteModel) -> None:
+        self.config = config
+        self.model = model
+        self.site_name = config.site.name or config.site.id
+
+    def render(self, rule: CompiledRule, adv: Any, env: Mapping[str, Any],
+               params: Mapping[str, Any], table: IndexTable | None) -> None:
+        """Fill ``adv``'s numbers, benefit, title, advice and rationale with the values of
+        the moment (``env`` and ``table`` are the current evaluation)."""
+        i = adv.space
+        numbers, benefit, fields = values_at(rule, env, params, table, i, self.model.n_spaces)
+        space = self.model.space(i)
+        fields["space_name"] = space.name or space.id
+        fields["space_id"] = space.id
+        fields["site_name"] = self.site_name
+        adv.numbers = numbers
+        adv.benefit = benefit
+        adv.title = rule.title.render(fields)
+        adv.advice = " ".join(rule.advice.render(fields).split())
+        adv.rationale = " ".join(rule.rationale.render(fields).split())
