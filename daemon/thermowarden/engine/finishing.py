@@ -45,45 +45,67 @@ class Unfinishable:
     missing: tuple[str, ...]
 
 
+SCENES: Final = (
+    {},                                                            # mild
+    {"air_temperature": 30.0, "globe_temperature": 31.0, "mean_radiant_temperature": 31.0,
+     "plane_radiant_temperature": 31.0, "natural_wet_bulb": 25.0, "air_speed": 0.1,
+     "relative_humidity": 55.0, "outdoor_air_temperature": 32.0},  # hot, still air
+    {"air_temperature": 27.0, "globe_temperature": 27.5, "mean_radiant_temperature": 27.5,
+     "plane_radiant_temperature": 27.5, "air_speed": 0.1},          # warm, still air
+    {"air_temperature": 20.0, "globe_temperature": 19.5, "mean_radiant_temperature": 19.5,
+     "plane_radiant_temperature": 19.0, "air_speed": 0.3, "floor_temperature": 19.0,
+     "outdoor_air_temperature": 12.0},                             # cool, moving air
+)
+"""Invented conditions (for this test only): an index that applies in one of them can be
+known in the space; many indices only apply in part of their inputs' range."""
+
+
 def available_names(model: SiteModel, parameters: Mapping[int, set[str]]) -> list[set[str]]:
     """Per space, every name a rule may read that can be known there."""
-    state = SiteState(model)
-    for pid, p in enumerate(model.points):
-        v = TYPICAL.get(p.quantity)
-        if v is not None:
-            for k in range(12):  # a few minutes of readings fill the air-speed window
-                state.record(pid, T0 - 60.0 * (11 - k), v, T0 - 60.0 * (11 - k))
-    snap = state.snapshot(T0)
-    table = compute_indices(snap.inputs, with_phs=True)
     n = model.n_spaces
-    out: list[set[str]] = []
-    inputs = snap.inputs
+    out: list[set[str]] = [set() for _ in range(n)]
+    for scene in SCENES:
+        values = {**TYPICAL, **scene}
+        state = SiteState(model)
+        for pid, p in enumerate(model.points):
+            v = values.get(p.quantity)
+            if v is None:
+                continue
+            for k in range(12):  # a few minutes of readings fill the air-speed window
+                wobble = 1.0 + (0.2 if k % 2 else -0.2) * (p.quantity == "air_speed")
+                t = T0 - 60.0 * (11 - k)
+                state.record(pid, t, v * wobble, t)
+        snap = state.snapshot(T0)
+        table = compute_indices(snap.inputs, with_phs=True)
+        inputs = snap.inputs
+        for i in range(n):
+            names = out[i]
+            names.update(name for name, col in table.items() if bool(col.present[i]))
+            if "wbgt" in names:
+                names.add("wbgt_time_weighted")  # built by the engine from the spot WBGT
+            for name in ("air_temperature", "globe_temperature", "air_speed",
+                         "natural_wet_bulb", "psychrometric_wet_bulb", "floor_temperature",
+                         "turbulence_intensity"):
+                if np.isfinite(getattr(inputs, name)[i]):
+                    names.add(name)
+            if np.isfinite(inputs.mean_radiant_temperature[i]):
+                names.add("mean_radiant_temperature_measured")
+            if np.isfinite(inputs.surface_temperature_min[i]):
+                names.add("surface_temperature")
+            for side, arr in inputs.plane_radiant.items():
+                if np.isfinite(arr[i]):
+                    names.add(f"plane_radiant_temperature_{side}")
+            for q, present in snap.present.items():
+                if bool(present[i]):
+                    names.add(q)
+            for q, value in snap.outdoor.items():
+                if np.isfinite(value):
+                    names.add(q)
     for i in range(n):
-        names = {name for name, col in table.items() if bool(col.present[i])}
-        if "wbgt" in names:
-            names.add("wbgt_time_weighted")  # built by the engine from the spot WBGT
-        for name in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb",
-                     "psychrometric_wet_bulb", "floor_temperature", "turbulence_intensity"):
-            if np.isfinite(getattr(inputs, name)[i]):
-                names.add(name)
-        if np.isfinite(inputs.mean_radiant_temperature[i]):
-            names.add("mean_radiant_temperature_measured")
-        if np.isfinite(inputs.surface_temperature_min[i]):
-            names.add("surface_temperature")
-        for side, arr in inputs.plane_radiant.items():
-            if np.isfinite(arr[i]):
-                names.add(f"plane_radiant_temperature_{side}")
-        for q, present in snap.present.items():
-            if bool(present[i]):
-                names.add(q)
-        for q, value in snap.outdoor.items():
-            if np.isfinite(value):
-                names.add(q)
-        names.update(("met", "clo", "target_pmv"))
-        names.update(FLAGS)
-        names.update(HEALTH)
-        names.update(parameters.get(i, set()))
-        out.append(names)
+        out[i].update(("met", "clo", "target_pmv"))
+        out[i].update(FLAGS)
+        out[i].update(HEALTH)
+        out[i].update(parameters.get(i, set()))
     return out
 
 
