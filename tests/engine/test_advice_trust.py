@@ -198,7 +198,7 @@ def test_a_site_wide_flood_is_counted_and_clears(tmp_path):
         t = t0 + 60 * minute
         hot = 60 <= minute < 120
         for k in range(n):
-            ta = (29.5 if hot else 23.0) + 0.01 * k
+            ta = (28.0 if hot else 24.5) + 0.005 * k  # inside ISO 7730's 10-30 °C
             for q, v in (("ta", ta), ("rh", 50.0), ("globe", ta + 0.5), ("v", 0.1)):
                 engine.message(f"flood/desk-{k:03d}/{q}", f"{v:.2f}".encode(), t)
         tick(t + 30)
@@ -278,9 +278,10 @@ def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_pa
                     start=0.0)
     t0 = 1_780_000_000.0
     events = []
-    for minute in range(90):
+    for minute in range(120):
         t = t0 + 60 * minute
-        for topic, v in (("s/p/ta", 24.0), ("s/p/rh", 45.0), ("s/p/window", 36.0),
+        window = 36.0 if minute < 30 else 25.0  # sun, then cloud: clear is now unknown
+        for topic, v in (("s/p/ta", 24.0), ("s/p/rh", 45.0), ("s/p/window", window),
                          ("s/p/room", 24.0)):
             engine.message(topic, f"{v}".encode(), t)
         events += [e.payload for e in engine.tick(t + 1) if isinstance(e, Publish)

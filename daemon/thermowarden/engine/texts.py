@@ -67,6 +67,10 @@ def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, A
     return numbers, benefit, fields
 
 
+NOT_NOW = ("The measurements behind this advisory are not available at the moment; see its "
+           "numbers for the reasons.")
+
+
 class Texts:
     """Renders advisories of one site."""
 
@@ -99,8 +103,10 @@ class Texts:
         title_t, advice_t = rule.texts_at(level)
         adv.numbers = numbers
         adv.benefit = benefit
-        adv.title = title_t.render(fields, holds) or rule.config.title
-        adv.advice = advice_t.render(fields, holds)
-        adv.rationale = rule.rationale.render(fields, holds)
+        # where every sentence needs a number that is not known now, the last text stays
+        # (or a plain sentence, the first time); it never says "unknown"
+        adv.title = title_t.render(fields, holds) or adv.title or rule.config.title
+        adv.advice = advice_t.render(fields, holds) or adv.advice or NOT_NOW
+        adv.rationale = rule.rationale.render(fields, holds) or adv.rationale or NOT_NOW
         adv.no_effect_text = (rule.no_effect.render(fields, holds)
                               if rule.no_effect is not None else "")
