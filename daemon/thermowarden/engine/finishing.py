@@ -45,7 +45,7 @@ class Unfinishable:
     missing: tuple[str, ...]
 
 
-SCENES: Final = (
+SCENES: Final[tuple[dict[str, float], ...]] = (
     {},                                                            # mild
     {"air_temperature": 30.0, "globe_temperature": 31.0, "mean_radiant_temperature": 31.0,
      "plane_radiant_temperature": 31.0, "natural_wet_bulb": 25.0, "air_speed": 0.1,
