@@ -47,7 +47,7 @@ def test_every_sample_config_in_the_repo_loads():
 def test_example_site_content():
     c = load_site(REPO / "deploy" / "example-site.yaml", {})
     ids = [s.id for s in c.spaces]
-    assert ids == ["office-west", "bakery-floor", "loading-yard", "studio-north"]
+    assert ids == ["office-west", "bakery-floor", "loading-yard", "staff-garden", "studio-north"]
     bakery = c.spaces[1]
     assert bakery.hot_work and c.people(bakery).acclimatised
     assert c.site.timezone == "Europe/London"

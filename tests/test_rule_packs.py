@@ -94,7 +94,7 @@ def test_check_cli_valid_example_prints_map():
     assert r.returncode == 0, r.stderr
     assert "space bakery-floor (indoor, hot work)" in r.stdout
     assert "larkfield/bakery-floor/senml" in r.stdout
-    assert "valid (4 spaces" in r.stderr
+    assert "valid (5 spaces" in r.stderr
     assert "warning: space studio-north: rule humidity.condensation_risk needs " \
            "surface_temperature" in r.stderr
 

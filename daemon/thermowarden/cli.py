@@ -281,7 +281,8 @@ def cmd_report(args: argparse.Namespace) -> int:
         except (OSError, FeedError) as exc:
             print(f"thermowarden report: {exc}", file=sys.stderr)
             return 2
-        samples, events = result.samples, result.events
+        # every event the engine raised, also those held back under a flood summary
+        samples, events = result.samples, result.raised_events
         start = args.start if args.start is not None else result.start
         end = args.end if args.end is not None else result.end + 1
     else:

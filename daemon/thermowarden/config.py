@@ -739,10 +739,15 @@ class AppliesTo(Strict):
 
 
 class RuleLevel(Strict):
-    """One priority level of an escalating rule: the priority while ``when`` holds."""
+    """One priority level of an escalating rule: the priority while ``when`` holds, with
+    its own title and advice (what "approaching" asks is not what "above the limit" asks)
+    and its own renotification interval (None: the rule's)."""
 
     priority: Priority
     when: str
+    title: str | None = None
+    advice: str | None = None
+    renotify_s: float | None = Field(None, ge=60, le=7 * 86_400)
 
 
 class RuleMessages(Strict):
@@ -752,6 +757,21 @@ class RuleMessages(Strict):
     title: str
     advice: str
     rationale: str
+    no_effect: str | None = None
+    """Sent once when the advice was acted on (``acted_on``) but the condition has not
+    cleared ``effect.wait_s`` later; it should name the numbers and what to check."""
+
+
+class RuleEffect(Strict):
+    """How to tell whether acting on the advice helped: ``quantity`` (a name) is recorded
+    when the advice is acted on and at ``checks_s`` afterwards, and compared with
+    ``predicted`` (a benefit name: the value expected after the action)."""
+
+    quantity: str
+    predicted: str | None = None
+    wait_s: float = Field(1800.0, ge=60, le=86_400)
+    """The advice helped when the advisory cleared within this time of being acted on."""
+    checks_s: list[float] = Field(default_factory=lambda: [900.0, 1800.0, 3600.0])
 
 
 class RuleNumber(Strict):
@@ -785,6 +805,7 @@ class RuleConfig(Strict):
     messages: RuleMessages
     max_shelve_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
     heat_stress_cautions: bool = False
+    effect: RuleEffect | None = None
 
     @field_validator("numbers", mode="before")
     @classmethod

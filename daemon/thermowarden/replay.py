@@ -59,6 +59,10 @@ def read_feed(lines: Iterable[str], name: str = "feed") -> Iterator[FeedRecord]:
 @dataclass
 class ReplayResult:
     events: list[dict[str, Any]] = field(default_factory=list)
+    """What the audiences received (published events, flood summaries included)."""
+    raised_events: list[dict[str, Any]] = field(default_factory=list)
+    """Every lifecycle event the engine raised, one line each, whether it was sent or held
+    back under a flood summary (the engine's own count)."""
     samples: list[dict[str, Any]] = field(default_factory=list)
     """Report samples (every 5 minutes of feed time), when asked for."""
     rejected: dict[str, int] = field(default_factory=dict)
@@ -73,9 +77,12 @@ def event_line(payload: dict[str, Any]) -> dict[str, Any]:
         return {"at": payload["at"], "event": "summary", "space": None, "rule": None,
                 "audience": payload["audience"], "priority": None, "count": payload["count"]}
     adv = payload["advisory"]
-    return {"at": payload["at"], "event": payload["event"], "space": adv["space"]["id"],
+    line = {"at": payload["at"], "event": payload["event"], "space": adv["space"]["id"],
             "rule": adv["rule"], "audience": adv["audience"], "priority": adv["priority"],
-            "advisory_id": adv["id"], "title": adv["title"]}
+            "advisory_id": adv["id"], "title": adv["title"], "advice": adv["advice"]}
+    if adv.get("acted_on"):
+        line["acted_on"] = adv["acted_on"]
+    return line
 
 
 def replay(config: SiteConfig, records: Iterable[FeedRecord],
@@ -103,6 +110,10 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
                 result.events.append(eff.payload if full_events else event_line(eff.payload))
             elif isinstance(eff, Persist) and eff.kind == "sample" and eff.record:
                 result.samples.append(eff.record)
+            elif (isinstance(eff, Persist) and eff.kind == "event" and eff.record
+                  and eff.record.get("event") != "summary"):
+                result.raised_events.append(eff.record if full_events
+                                            else event_line(eff.record))
 
     last_t = None
     for rec in records:
@@ -122,35 +133,75 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     return result
 
 
-def summarise(result: ReplayResult) -> dict[str, Any]:
-    """Per rule and audience: advisories raised, how long they stayed active, and how many
-    notifications each audience would have received."""
+ORDER = ("low", "medium", "high", "urgent")
+
+
+def _ts(s: str) -> float:
     import datetime as dt
 
-    def ts(s: str) -> float:
-        return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
+    return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
 
+
+def summarise(result: ReplayResult) -> dict[str, Any]:
+    """What a replay means for the people receiving it.
+
+    ``rules``: per rule and audience, advisories raised (by the engine, whether notified or
+    held back in a flood summary), cleared, still live, time active. ``audiences``: per
+    audience, the notifications sent (flood summaries count one each), per day, in the
+    busiest 10 minutes, how many were reminders, and what was raised but held back.
+    ``standing``: the advisories that stood longest. ``effectiveness``: per rule and space,
+    advice given, followed (and how soon), helped (cleared within the rule's expected
+    time), and the realised change of the target quantity against the predicted one.
+    """
+    engine_events = [event_line(x) if "schema" in x else x
+                     for x in result.raised_events] or [
+        event_line(x) if "schema" in x else x for x in result.events
+        if (x.get("event") if "schema" not in x else x["event"]) != "summary"]
+    sent = [event_line(x) if "schema" in x else x for x in result.events]
     rules: dict[str, dict[str, Any]] = {}
-    open_at: dict[str, float] = {}
-    notifications: dict[str, int] = {}
-    for e in (event_line(x) if "schema" in x else x for x in result.events):
-        notifications[e["audience"]] = notifications.get(e["audience"], 0) + 1
-        if e["event"] == "summary":
-            continue
+    open_at: dict[str, tuple[float, dict[str, Any]]] = {}
+    standing: list[dict[str, Any]] = []
+    effect: dict[tuple[str, str], dict[str, Any]] = {}
+    for e in engine_events:
         key = f"{e['rule']}|{e['audience']}"
         r = rules.setdefault(key, {"rule": e["rule"], "audience": e["audience"], "raised": 0,
                                    "cleared": 0, "active_s": [], "max_priority": "low"})
-        order = ("low", "medium", "high", "urgent")
-        if order.index(e["priority"]) > order.index(r["max_priority"]):
+        if ORDER.index(e["priority"]) > ORDER.index(r["max_priority"]):
             r["max_priority"] = e["priority"]
         if e["event"] == "raised":
             r["raised"] += 1
-            open_at[e["advisory_id"]] = ts(e["at"])
+            open_at[e["advisory_id"]] = (_ts(e["at"]), e)
         elif e["event"] == "cleared":
             r["cleared"] += 1
-            start = open_at.pop(e["advisory_id"], None)
-            if start is not None:
-                r["active_s"].append(ts(e["at"]) - start)
+            opened = open_at.pop(e["advisory_id"], None)
+            if opened is not None:
+                r["active_s"].append(_ts(e["at"]) - opened[0])
+                standing.append({"advisory_id": e["advisory_id"], "space": e["space"],
+                                 "rule": e["rule"], "raised": opened[1]["at"],
+                                 "cleared": e["at"],
+                                 "minutes": round((_ts(e["at"]) - opened[0]) / 60, 1)})
+            acted = e.get("acted_on")
+            eff = effect.setdefault((e["rule"], e["space"]), {
+                "rule": e["rule"], "space": e["space"], "given": 0, "followed": 0,
+                "minutes_to_follow": [], "helped": 0, "predicted_change": [],
+                "realised_change": []})
+            eff["given"] += 1
+            if acted:
+                eff["followed"] += 1
+                if acted.get("minutes_after_raised") is not None:
+                    eff["minutes_to_follow"].append(acted["minutes_after_raised"])
+                if acted.get("helped"):
+                    eff["helped"] += 1
+                change = acted.get("effect") or {}
+                if change.get("predicted_change") is not None:
+                    eff["predicted_change"].append(change["predicted_change"])
+                if change.get("realised_change") is not None:
+                    eff["realised_change"].append(change["realised_change"])
+    end = result.end if math.isfinite(result.end) else None
+    for adv_id, (t0, e) in open_at.items():
+        standing.append({"advisory_id": adv_id, "space": e["space"], "rule": e["rule"],
+                         "raised": e["at"], "cleared": None,
+                         "minutes": round((end - t0) / 60, 1) if end is not None else None})
     out_rules = []
     for r in sorted(rules.values(), key=lambda x: (x["audience"], x["rule"])):
         d = r.pop("active_s")
@@ -158,5 +209,44 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
         r["max_active_min"] = round(max(d) / 60, 1) if d else None
         r["still_active"] = r["raised"] - r["cleared"]
         out_rules.append(r)
+    audiences: dict[str, dict[str, Any]] = {}
+    for aud in sorted({e["audience"] for e in sent} | {e["audience"] for e in engine_events}):
+        mine = [e for e in sent if e["audience"] == aud]
+        times = sorted(_ts(e["at"]) for e in mine)
+        busiest = 0
+        j = 0
+        for k, t in enumerate(times):
+            while times[j] <= t - 600.0:
+                j += 1
+            busiest = max(busiest, k - j + 1)
+        days = max(1.0, ((result.end - result.start) / 86400.0)
+                   if math.isfinite(result.end) and math.isfinite(result.start) else 1.0)
+        raised_here = [e for e in engine_events if e["audience"] == aud]
+        sent_ids = {(e.get("advisory_id"), e["event"], e["at"]) for e in mine}
+        held = sum(1 for e in raised_here
+                   if (e.get("advisory_id"), e["event"], e["at"]) not in sent_ids)
+        audiences[aud] = {
+            "notifications": len(mine),
+            "notifications_per_day": round(len(mine) / days, 1),
+            "busiest_10_min": busiest,
+            "renotifications": sum(1 for e in mine if e["event"] == "renotified"),
+            "flood_summaries": sum(1 for e in mine if e["event"] == "summary"),
+            "events_raised_by_engine": len(raised_here),
+            "held_back_in_summaries": held,
+        }
+    effectiveness = []
+    for eff in sorted(effect.values(), key=lambda x: (x["rule"], x["space"])):
+        if eff["followed"] == 0 and not any(e["rule"] == eff["rule"] and e.get("acted_on")
+                                            for e in engine_events):
+            continue
+        m, p, rz = eff.pop("minutes_to_follow"), eff.pop("predicted_change"), eff.pop(
+            "realised_change")
+        eff["mean_minutes_to_follow"] = round(sum(m) / len(m), 1) if m else None
+        eff["mean_predicted_change"] = round(sum(p) / len(p), 2) if p else None
+        eff["mean_realised_change"] = round(sum(rz) / len(rz), 2) if rz else None
+        effectiveness.append(eff)
+    standing.sort(key=lambda x: -(x["minutes"] or 0))
     return {"messages": result.messages, "rejected": result.rejected, "rules": out_rules,
-            "notifications_by_audience": dict(sorted(notifications.items()))}
+            "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
+            "audiences": audiences, "standing": standing[:5],
+            "effectiveness": effectiveness}

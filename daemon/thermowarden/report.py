@@ -61,6 +61,10 @@ class SpaceReport:
     wbgt: list[float] = field(default_factory=list)
     ref_u: list[float] = field(default_factory=list)
     ref_a: list[float] = field(default_factory=list)
+    heat_index: list[float] = field(default_factory=list)
+    utci: list[float] = field(default_factory=list)
+    hours_occupied: float = 0.0
+    helped: int = 0
 
 
 def _weights(times: list[float], end: float) -> np.ndarray:
@@ -104,11 +108,19 @@ def build_report(config: SiteConfig, samples: list[dict[str, Any]],
                 rep.wbgt.append(wb)
                 rep.ref_u.append(ru)
                 rep.ref_a.append(ra)
+                rep.heat_index.append(_f((sample.get("heat_index") or [None] * (i + 1))[i]))
+                rep.utci.append(_f((sample.get("utci") or [None] * (i + 1))[i]))
+                occ = sample.get("occupied")
+                # comfort categories count the hours people were there (older samples
+                # without occupancy count every hour)
+                occupied = True if occ is None else bool(occ[i])
+                if occupied:
+                    rep.hours_occupied += w[k]
                 cat = sample["category_iso"][i]
-                if cat is not None:
+                if cat is not None and occupied and not rep.outdoor:
                     rep.hours_iso[ISO_LABELS[int(cat)]] += w[k]
                 en = sample["category_en"][i]
-                if en is not None and natural:
+                if en is not None and natural and occupied:
                     rep.hours_en[EN_LABELS[int(en)]] += w[k]
                 if math.isfinite(wb) and math.isfinite(ru):
                     rep.hours_wbgt_known += w[k]
@@ -145,9 +157,14 @@ def build_report(config: SiteConfig, samples: list[dict[str, Any]],
             entry["cleared"] = at
         if a.get("acted_on") and entry["acted"] is None:
             entry["acted"] = _ts(a["acted_on"]["at"])
+        if a.get("acted_on"):
+            entry["helped"] = a["acted_on"].get("helped")
+            entry["effect"] = a["acted_on"].get("effect")
     for entry in seen.values():
         rep = entry.pop("space")
         rep.advisories.append(entry)
+        if entry.get("helped"):
+            rep.helped += 1
         if entry["acted"] is not None:
             rep.acted_on += 1
             rep.minutes_to_act.append((entry["acted"] - entry["raised"]) / 60.0)
@@ -189,7 +206,13 @@ def _plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> str:
     times = [num(t) for t in rep.t]
     fmt = mdates.DateFormatter("%H:%M" if end - start <= 2 * 86_400 else "%d %b",  # type: ignore[no-untyped-call]
                                tz=tz)
-    if any(math.isfinite(v) for v in rep.operative):
+    if rep.outdoor and any(math.isfinite(v) for v in rep.heat_index + rep.utci):
+        fig, ax = plt.subplots(figsize=(9, 2.6))
+        ax.plot(times, rep.heat_index, color="#b5651d", lw=1.4, label="heat index (NWS)")
+        ax.plot(times, rep.utci, color="#6a3d9a", lw=1.2, label="UTCI")
+        finish(ax)
+        out.append(_svg(fig))
+    if not rep.outdoor and any(math.isfinite(v) for v in rep.operative):
         fig, ax = plt.subplots(figsize=(9, 2.6))
         if not rep.hot_work and not rep.outdoor:  # a comfort band means nothing there
             lo = next((v for v in rep.band_lower if math.isfinite(v)), math.nan)
@@ -253,10 +276,11 @@ svg{{max-width:100%;height:auto}}
 <p>{s0:%A %d %B %Y %H:%M} to {s1:%A %d %B %Y %H:%M} ({e(config.site.timezone)}).
 Advisory only: nothing was switched or moved by thermowarden.</p>
 <p class=caution>{e(CAUTION)}</p>
-<h2>Summary</h2><table><tr><th>space</th><th>ISO 7730 A/B/C/outside (h)</th>
-<th>EN 16798-1 I/II/III/outside (h)</th><th>WBGT &gt; action (h)</th>
+<h2>Summary</h2><table><tr><th>space</th><th>occupied (h)</th>
+<th>ISO 7730 A/B/C/outside (occupied h)</th>
+<th>EN 16798-1 I/II/III/outside (occupied h)</th><th>WBGT &gt; action (h)</th>
 <th>WBGT &gt; limit (h)</th><th>raised</th><th>acknowledged</th><th>cleared</th>
-<th>acted on, median min</th></tr>"""]
+<th>acted on, median min</th><th>helped</th></tr>"""]
 
     def hours(d: dict[str, float]) -> str:
         return " / ".join(f"{v:.1f}" for v in d.values())
@@ -264,13 +288,18 @@ Advisory only: nothing was switched or moved by thermowarden.</p>
     for rep in spaces.values():
         med = (f"{statistics.median(rep.minutes_to_act):.0f}" if rep.minutes_to_act else "-")
         parts.append(
-            f"<tr><td>{e(rep.name)}</td><td>{hours(rep.hours_iso)}</td>"
+            f"<tr><td>{e(rep.name)}</td><td>{rep.hours_occupied:.1f}</td>"
+            f"<td>{'-' if rep.outdoor else hours(rep.hours_iso)}</td>"
             f"<td>{hours(rep.hours_en) if rep.natural else '-'}</td>"
             + (f"<td>{rep.hours_wbgt_action:.1f}</td><td>{rep.hours_wbgt_limit:.1f}</td>"
                if rep.hot_work else "<td>-</td><td>-</td>") +
             f"<td>{rep.raised}</td><td>{rep.acknowledged}</td><td>{rep.cleared}</td>"
-            f"<td>{rep.acted_on} ({med})</td></tr>")
-    parts.append("</table><p class=note>Hours are counted from 5-minute samples. ISO 7730 "
+            f"<td>{rep.acted_on} ({med})</td><td>{rep.helped}</td></tr>")
+    parts.append("</table><p class=note>Hours are counted from 5-minute samples; comfort "
+                 "categories over the hours the space was occupied, and not for outdoor "
+                 "spaces (ISO 7730 does not apply there: see their heat index and UTCI). "
+                 "Helped: the advice was acted on and the condition cleared within the "
+                 "rule's expected time. ISO 7730 "
                  "categories from the predicted percentage dissatisfied (A &lt; 6 %, B &lt; "
                  "10 %, C &lt; 15 %); WBGT action = ISO 7243 Annex A unacclimatised "
                  "reference (NIOSH RAL), limit = acclimatised reference (NIOSH REL), both "
@@ -281,14 +310,27 @@ Advisory only: nothing was switched or moved by thermowarden.</p>
         parts.append(_plots(rep, tz, start, end))
         if rep.advisories:
             parts.append("<table><tr><th>advisory</th><th>priority</th><th>raised</th>"
-                         "<th>acted on</th><th>cleared</th></tr>")
+                         "<th>acted on</th><th>cleared</th><th>effect</th></tr>")
             for a in rep.advisories:
                 def when(t: float | None) -> str:
                     return "-" if t is None else f"{dt.datetime.fromtimestamp(t, tz):%H:%M}"
                 parts.append(f"<tr><td>{e(a['title'])}</td><td>{a['priority']}</td>"
                              f"<td>{when(a['raised'])}</td><td>{when(a['acted'])}</td>"
-                             f"<td>{when(a['cleared'])}</td></tr>")
+                             f"<td>{when(a['cleared'])}</td><td>{e(_effect_text(a))}</td>"
+                             "</tr>")
             parts.append("</table>")
     parts.append("<p class=note>Generated by thermowarden. Methods: ISO 7730:2005, "
                  "EN 16798-1:2019, ISO 7243:2017, ASHRAE 55-2020.</p></body></html>")
     return "\n".join(parts)
+
+
+def _effect_text(a: dict[str, Any]) -> str:
+    """``helped; -4.3 realised against -3.0 predicted`` for an acted-on advisory."""
+    if a.get("acted") is None:
+        return "-"
+    words = {True: "helped", False: "did not clear in time", None: "pending"}[a.get("helped")]
+    eff = a.get("effect") or {}
+    if eff.get("realised_change") is not None and eff.get("predicted_change") is not None:
+        words += (f"; {eff['quantity']} {eff['realised_change']:+.1f} realised, "
+                  f"{eff['predicted_change']:+.1f} predicted")
+    return words

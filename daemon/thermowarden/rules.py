@@ -8,12 +8,13 @@ column of the error.
 
 from __future__ import annotations
 
+import dataclasses
 import functools
 import importlib.resources
 import os
 import pathlib
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from typing import Final
 
@@ -43,7 +44,11 @@ INPUTS: Final = ("air_temperature", "relative_humidity", "globe_temperature",
 STATES: Final = ("shading_position", "fan_state", "occupancy")
 HEALTH: Final = ("stale_points", "stuck_points", "implausible_recent", "max_disagreement",
                  "rules_unknown_long", "points_total")
-TEXT_NAMES: Final = ("space_name", "space_id", "site_name")
+TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stuck_detail",
+                      "implausible_detail", "disagreement_detail", "rules_unknown_detail",
+                      "wbgt_basis", "acted_minutes_ago", "effect_predicted")
+"""Fields a message may insert besides numbers: names, sensor descriptions, the basis of a
+WBGT, and minutes since the advice was acted on."""
 HEAT_STRESS_CAUTIONS: Final = (
     "WBGT and its reference values are a screening method for a standard person, not a "
     "diagnosis.",
@@ -84,23 +89,72 @@ class RulePackError(ConfigError):
 
 
 @dataclass(frozen=True)
-class MessageTemplate:
-    """A message with ``{name}`` / ``{name:.1f}`` fields checked against the names."""
+class TemplatePart:
+    """A piece of a message: plain text, or an optional ``[[...]]`` segment (left out when
+    a number in it is not known) or ``[[when EXPR: ...]]`` (kept only while EXPR is true)."""
 
     text: str
     fields: tuple[tuple[str, str | None], ...]
+    optional: bool = False
+    when: Expression | None = None
 
-    def render(self, values: Mapping[str, object]) -> str:
-        def sub(m: re.Match[str]) -> str:
-            v = values.get(m.group(1))
-            if v is None or (isinstance(v, float) and not np.isfinite(v)):
-                return "unknown"
-            if isinstance(v, str):
-                return v
-            spec = m.group(2) or ".1f"
-            return format(float(v) if spec != "d" else int(float(v)), spec)  # type: ignore[arg-type]
 
-        return _TEMPLATE_FIELD.sub(sub, self.text)
+def _known(v: object) -> bool:
+    return v is not None and not (isinstance(v, float) and not np.isfinite(v))
+
+
+def _format(v: object, spec: str | None) -> str:
+    if isinstance(v, str):
+        return v
+    spec = spec or ".1f"
+    return format(float(v) if spec != "d" else int(float(v)), spec)  # type: ignore[arg-type]
+
+
+def _fill(text: str, values: Mapping[str, object]) -> str:
+    return _TEMPLATE_FIELD.sub(lambda m: _format(values.get(m.group(1)), m.group(2)), text)
+
+
+_SENTENCE_END: Final = re.compile(r"(?<=[.!?])\s+")
+
+
+@dataclass(frozen=True)
+class MessageTemplate:
+    """A message with ``{name}`` / ``{name:.1f}`` fields checked against the names.
+
+    A message a person reads never says "unknown": a sentence whose number is not known is
+    left out, an optional segment ``[[...]]`` is left out when a number in it is not known,
+    and ``[[when EXPR: ...]]`` is kept only while the rule expression EXPR is true.
+    """
+
+    text: str
+    fields: tuple[tuple[str, str | None], ...]
+    parts: tuple[TemplatePart, ...] = ()
+
+    def render(self, values: Mapping[str, object],
+               holds: Callable[[Expression], bool] | None = None) -> str:
+        """The message for ``values``; ``holds(expr)`` says whether a ``when`` holds."""
+        parts = self.parts or (TemplatePart(self.text, self.fields),)
+        out: list[str] = []
+        for part in parts:
+            if part.optional:
+                if part.when is not None and (holds is None or not holds(part.when)):
+                    continue
+                if all(_known(values.get(name)) for name, _ in part.fields):
+                    out.append(_fill(part.text, values))
+                continue
+            kept = []
+            for sentence in _SENTENCE_END.split(part.text):
+                names = [m.group(1) for m in _TEMPLATE_FIELD.finditer(sentence)]
+                if all(_known(values.get(name)) for name in names):
+                    kept.append(_fill(sentence, values))
+            lead = " " if part.text[:1].isspace() else ""
+            trail = " " if part.text[-1:].isspace() else ""
+            out.append(lead + " ".join(kept) + trail)
+        text = " ".join("".join(out).split())
+        return _SPACE_BEFORE_PUNCTUATION.sub(r"\1", text)
+
+
+_SPACE_BEFORE_PUNCTUATION: Final = re.compile(r"\s+([,;.)])")
 
 
 @dataclass(frozen=True)
@@ -120,16 +174,36 @@ class CompiledRule:
     advice: MessageTemplate
     rationale: MessageTemplate
     needs: frozenset[str]
+    level_texts: Mapping[int, tuple[MessageTemplate | None, MessageTemplate | None]] = \
+        dataclasses.field(default_factory=dict)
+    """priority index -> (title, advice) of that level, where the level has its own."""
+    no_effect: MessageTemplate | None = None
+    effect_quantity: Expression | None = None
 
     @property
     def key(self) -> str:
         return f"{self.pack}.{self.config.id}"
 
+    def texts_at(self, level: int) -> tuple[MessageTemplate, MessageTemplate]:
+        """Title and advice at priority index ``level``."""
+        title, advice = self.level_texts.get(level, (None, None))
+        return title or self.title, advice or self.advice
+
+    def renotify_at(self, level: int) -> float | None:
+        """Seconds between reminders at priority index ``level`` (None: no reminders)."""
+        for lv in self.config.levels:
+            if PRIORITIES.index(lv.priority) == level and lv.renotify_s is not None:
+                return lv.renotify_s
+        return self.config.renotify_s
+
     @functools.cached_property
     def template_names(self) -> frozenset[str]:
-        """Names the three message templates insert."""
-        return frozenset(name for t in (self.title, self.advice, self.rationale)
-                         for name, _ in t.fields)
+        """Names the message templates insert."""
+        templates = [self.title, self.advice, self.rationale]
+        templates += [t for pair in self.level_texts.values() for t in pair if t is not None]
+        if self.no_effect is not None:
+            templates.append(self.no_effect)
+        return frozenset(name for t in templates for name, _ in t.fields)
 
     @property
     def base_priority(self) -> int:
@@ -144,17 +218,49 @@ class CompiledPack:
     source: str
 
 
-def _template(text: str, allowed: set[str]) -> MessageTemplate:
+_SEGMENT: Final = re.compile(r"\[\[(?:when\s+(?P<when>[^:\]]+):)?(?P<body>.*?)\]\]", re.S)
+
+
+def _fields(text: str, allowed: set[str], offset: int, whole: str
+            ) -> tuple[tuple[str, str | None], ...]:
     fields = []
     for m in _TEMPLATE_FIELD.finditer(text):
         if m.group(1) not in allowed:
-            raise ExpressionError(f"unknown name {m.group(1)!r} in message", m.start(), text)
+            raise ExpressionError(f"unknown name {m.group(1)!r} in message", offset + m.start(),
+                                  whole)
         fields.append((m.group(1), m.group(2)))
     stray = _TEMPLATE_FIELD.sub("", text)
     if "{" in stray or "}" in stray:
         pos = min(i for i in (stray.find("{"), stray.find("}")) if i >= 0)
-        raise ExpressionError("a message field is {name} or {name:.1f}", pos, text)
-    return MessageTemplate(text, tuple(fields))
+        raise ExpressionError("a message field is {name} or {name:.1f}", offset + pos, whole)
+    return tuple(fields)
+
+
+def _template(text: str, allowed: set[str], names: Mapping[str, Kind] | None = None
+              ) -> MessageTemplate:
+    parts: list[TemplatePart] = []
+    pos = 0
+    for m in _SEGMENT.finditer(text):
+        if m.start() > pos:
+            parts.append(TemplatePart(text[pos:m.start()],
+                                      _fields(text[pos:m.start()], allowed, pos, text)))
+        body = m.group("body")
+        when = None
+        if m.group("when") is not None:
+            if names is None:
+                raise ExpressionError("[[when ...]] is not allowed here", m.start(), text)
+            when = parse_expression(m.group("when").strip(), names, "bool")
+        parts.append(TemplatePart(body, _fields(body, allowed, m.start("body"), text),
+                                  optional=True, when=when))
+        pos = m.end()
+    if pos < len(text):
+        parts.append(TemplatePart(text[pos:], _fields(text[pos:], allowed, pos, text)))
+    rest = _SEGMENT.sub("", text)
+    if "[[" in rest or "]]" in rest:
+        raise ExpressionError("an optional segment is [[...]] or [[when EXPR: ...]]",
+                              max(rest.find("[["), rest.find("]]")), text)
+    fields = tuple(f for p in parts for f in p.fields)
+    return MessageTemplate(text, fields, tuple(parts))
 
 
 def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
@@ -184,22 +290,39 @@ def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
         th = expr(("numbers", i, "threshold"), num.threshold, "number") if num.threshold else None
         numbers.append((num.name, th))
     allowed = set(names) | {k for k, _ in benefit} | set(TEXT_NAMES)
-    templates = []
-    for field in ("title", "advice", "rationale"):
-        text = getattr(rule.messages, field)
+
+    def template(field_path: tuple[str | int, ...], text: str) -> MessageTemplate:
         try:
-            templates.append(_template(text, allowed))
+            return _template(text, allowed, names)
         except ExpressionError as exc:
-            pos = smap.find(path + ("messages", field)) if smap else None
-            raise RulePackError([ConfigIssue(pos, f"rule {rule.id}: messages.{field}: "
-                                                  f"{exc}")]) from None
+            pos = smap.find(path + field_path) if smap else None
+            label = ".".join(str(p) for p in field_path)
+            raise RulePackError([ConfigIssue(pos, f"rule {rule.id}: {label}: {exc}")]) from None
+
+    templates = [template(("messages", f), getattr(rule.messages, f))
+                 for f in ("title", "advice", "rationale")]
+    level_texts = {
+        PRIORITIES.index(lv.priority): (
+            template(("levels", i, "title"), lv.title) if lv.title else None,
+            template(("levels", i, "advice"), lv.advice) if lv.advice else None)
+        for i, lv in enumerate(rule.levels) if lv.title or lv.advice}
+    no_effect = (template(("messages", "no_effect"), rule.messages.no_effect)
+                 if rule.messages.no_effect else None)
+    effect_quantity = None
+    if rule.effect is not None:
+        effect_quantity = expr(("effect", "quantity"), rule.effect.quantity, "number")
+        if rule.effect.predicted is not None and rule.effect.predicted not in dict(benefit):
+            pos = smap.find(path + ("effect", "predicted")) if smap else None
+            raise RulePackError([ConfigIssue(pos, f"rule {rule.id}: effect.predicted: "
+                                                  f"{rule.effect.predicted!r} is not a "
+                                                  "benefit of this rule")])
     for n in rule.needs:
         if n not in names:
             expr(("needs",), n, "number")
     used: set[str] = set(rule.needs)
     return CompiledRule(pack, rule, condition, levels, clear, hold_back, acted_on, benefit,
                         tuple(numbers), templates[0], templates[1], templates[2],
-                        frozenset(used))
+                        frozenset(used), level_texts, no_effect, effect_quantity)
 
 
 def compile_pack(config: RulePackConfig, smap: SourceMap | None, source: str) -> CompiledPack:

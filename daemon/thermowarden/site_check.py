@@ -46,12 +46,30 @@ def check_site(path: str) -> CheckReport:
         report.issues = exc.issues
         return report
     provided = provided_inputs(report.model)
+    lacking: set[tuple[str, str]] = set()
     for i, space in enumerate(config.spaces):
         for name in config.rule_packs(space):
             for rule, missing in missing_inputs(packs[name], report.model, i, provided):
+                lacking.add((space.id, f"{name}.{rule}"))
                 report.warnings.append(
                     f"space {space.id}: rule {name}.{rule} needs {', '.join(missing)}, which "
                     "no point provides")
+    from thermowarden.engine.finishing import unfinishable_rules
+
+    for u in unfinishable_rules(report.model, packs):
+        if (u.space, u.rule) in lacking:
+            continue
+        because = f"{', '.join(u.missing)} can never be known there" if u.missing else \
+            "its expression can never be true"
+        if u.which == "clear":
+            report.warnings.append(
+                f"space {u.space}: rule {u.rule} could raise but never clear on its own: "
+                f"its clear condition reads {because} (add the point, or write the clear "
+                "condition with the same inputs as the raise condition)")
+        else:
+            report.warnings.append(
+                f"space {u.space}: rule {u.rule} can never raise: its condition reads "
+                f"{because}")
     return report
 
 

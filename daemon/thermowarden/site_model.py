@@ -123,7 +123,35 @@ class SiteModel:
             for i, sid in enumerate(self.space_ids):
                 if allowed is None or i in allowed:
                     subs.add(tmpl.render(space=sid, **others))
-        return sorted(subs)
+        return minimal_filters(subs)
+
+
+def filter_covers(wide: str, narrow: str) -> bool:
+    """Whether every topic matched by MQTT filter ``narrow`` is matched by ``wide``
+    (MQTT 3.1.1 / 5.0 section 4.7: ``+`` one level, ``#`` any remaining levels)."""
+    w, n = wide.split("/"), narrow.split("/")
+    for k, part in enumerate(w):
+        if part == "#":
+            return True
+        if k >= len(n):
+            return False
+        if n[k] == "#":
+            return False
+        if part != "+" and (part != n[k] or n[k] == "+"):
+            return False
+    return len(w) == len(n)
+
+
+def minimal_filters(filters: set[str]) -> list[str]:
+    """One subscription per topic: drop every filter another one already covers, so
+    that overlapping template and explicit topics do not make the broker deliver a
+    message twice (once per matching subscription)."""
+    kept = sorted(filters, key=lambda f: (f.count("#"), f.count("+")), reverse=True)
+    out: list[str] = []
+    for f in kept:
+        if not any(filter_covers(g, f) for g in out):
+            out.append(f)
+    return sorted(out)
 
 
 def build_site_model(config: SiteConfig) -> SiteModel:

@@ -236,6 +236,10 @@ def pmv_ashrae(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: 
     return pmv_fanger(air_c - ce, mrt_c - ce, speed, rh, met, clo)
 
 
+SPEED_GRID_POINTS = 12
+"""Log-spaced speeds scanned between still air and the bound before refining."""
+
+
 def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray,
                       rh: FloatArray, met: FloatArray, clo: FloatArray, target_pmv: FloatArray,
                       max_speed: float = MAX_ELEVATED_AIR_SPEED) -> FloatArray:
@@ -286,11 +290,23 @@ def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArra
         result: FloatArray = target_set[idx] - s
         return result
 
-    v_lo = np.full(warm.size, np.log(STILL_AIR))
-    v_hi = np.full(warm.size, np.log(max_speed))
-    f_lo = np.where(ok, set_residual(v_lo, all_idx), np.nan)
-    f_hi = np.where(ok, set_residual(v_hi, all_idx), np.nan)
-    log_speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.01,
+    # SET is not monotone in speed everywhere (the convective coefficient has a floor at
+    # low speeds), so a bracket from the two ends can miss a root: scan a log-spaced grid
+    # first and refine between the first pair of grid speeds that brackets the target.
+    grid = np.linspace(np.log(STILL_AIR), np.log(max_speed), SPEED_GRID_POINTS)
+    f_grid = np.stack([np.where(ok, set_residual(np.full(warm.size, g), all_idx), np.nan)
+                       for g in grid])
+    crossing = (f_grid[:-1] <= 0) & (f_grid[1:] >= 0)
+    has = crossing.any(axis=0)
+    first = np.argmax(crossing, axis=0)
+    cols = np.arange(warm.size)
+    v_lo = np.where(has, grid[first], np.nan)
+    v_hi = np.where(has, grid[np.minimum(first + 1, grid.size - 1)], np.nan)
+    f_lo = np.where(has, f_grid[first, cols], np.nan)
+    f_hi = np.where(has, f_grid[np.minimum(first + 1, grid.size - 1), cols], np.nan)
+    log_speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.005,
                          residual_tolerance=0.01)
-    out[warm] = np.exp(log_speed)
+    speed = np.exp(log_speed)
+    speed = np.where(ok & (f_grid[0] >= 0), STILL_AIR, speed)  # still air already suffices
+    out[warm] = speed
     return out

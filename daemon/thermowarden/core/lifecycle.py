@@ -47,10 +47,12 @@ class Trigger(IntEnum):
     RENOTIFY_DUE = 9
     ESCALATE = 10
     DEESCALATE = 11
+    EFFECT_OVERDUE = 12
+    """The advice was acted on but the condition has not cleared in the expected time."""
 
 
-EVENTS: Final = ("raised", "escalated", "deescalated", "renotified", "acknowledged", "shelved",
-                 "unshelved", "cleared", "summary")
+EVENTS: Final = ("raised", "escalated", "deescalated", "renotified", "no_effect",
+                 "acknowledged", "shelved", "unshelved", "cleared", "summary")
 """Every event name an audience can receive."""
 
 S, T = State, Trigger
@@ -73,6 +75,8 @@ TABLE: Final[dict[tuple[State, Trigger], tuple[State, str | None]]] = {
     (S.ACTIVE, T.ESCALATE): (S.ACTIVE, "escalated"),
     (S.ACKNOWLEDGED, T.ESCALATE): (S.ACTIVE, "escalated"),  # a worse level needs a new ack
     (S.SHELVED, T.ESCALATE): (S.ACTIVE, "escalated"),  # a worse level ends the shelving
+    (S.ACTIVE, T.EFFECT_OVERDUE): (S.ACTIVE, "no_effect"),
+    (S.ACKNOWLEDGED, T.EFFECT_OVERDUE): (S.ACKNOWLEDGED, "no_effect"),
     (S.ACTIVE, T.DEESCALATE): (S.ACTIVE, "deescalated"),
     (S.ACKNOWLEDGED, T.DEESCALATE): (S.ACKNOWLEDGED, "deescalated"),
     (S.SHELVED, T.DEESCALATE): (S.SHELVED, "deescalated"),

@@ -11,7 +11,7 @@ from __future__ import annotations
 import json
 import math
 from collections import deque
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, Final
 
@@ -78,6 +78,10 @@ class Advisory:
     acted_on: dict[str, Any] | None = None
     chattering: bool = False
     history: list[dict[str, Any]] = field(default_factory=list)
+    no_effect_text: str = ""
+    """What to say if the advice is acted on and does not help (rendered with the rest)."""
+    effect_overdue: bool = False
+    """Acted on, not cleared in the expected time, and said so."""
 
 
 class CommandError(ValueError):
@@ -100,8 +104,19 @@ class RuleRuntime:
         self.shelved_until = np.full(n, np.nan)
         self.unknown_since = np.full(n, np.nan)
         self.lower_since = np.full(n, np.nan)
+        self.acted_now = np.zeros(n, dtype=bool)
+        """The equipment is in the state the advice asks for (blinds lowered, fans on)."""
         self.advisories: dict[int, Advisory] = {}
         self.raised_times: dict[int, deque[float]] = {}
+        every = [rule.renotify_at(k) for k in range(len(PRIORITIES))]
+        self._renotify: FloatArray | None = (
+            None if all(e is None for e in every)
+            else np.array([math.inf if e is None else e for e in every]))
+
+    def renotify_intervals(self) -> FloatArray | None:
+        """Seconds between reminders per priority index (inf: none), or None if the rule
+        never reminds."""
+        return self._renotify
 
 
 def build_rule_runtimes(config: SiteConfig, model: SiteModel,
@@ -130,12 +145,18 @@ def build_rule_runtimes(config: SiteConfig, model: SiteModel,
     return rules
 
 
+def _no_details(i: int) -> dict[str, object]:
+    return {}
+
+
 @dataclass
 class _Context:
     """The evaluation in progress, for rendering texts with the numbers of the moment."""
 
     base: Mapping[str, Any]
     table: IndexTable | None
+    details: Callable[[int], dict[str, object]] = _no_details
+    """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
 
 
 class Advisories:
@@ -171,17 +192,38 @@ class Advisories:
             unknown += (now - rt.unknown_since >= UNKNOWN_LONG_S)
         return unknown
 
-    def begin(self, base: Mapping[str, Any], table: IndexTable | None) -> None:
+    def unknown_detail(self, i: int, now: float) -> str:
+        """Which rules of space ``i`` have been unknown for ``UNKNOWN_LONG_S`` and the names
+        they read that are not known, e.g. ``shading.lower_shading (mean_radiant_temperature)``."""
+        parts: list[str] = []
+        env = self._ctx.base
+        for rt in self.rules:
+            if rt.rule.pack == "sensor_health" or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
+                continue
+            exprs = [e for _, e in rt.rule.levels] + [
+                e for e in (rt.rule.condition, rt.rule.clear) if e is not None]
+            names = sorted({n for e in exprs for n in e.names
+                            if n not in rt.params and isinstance(env.get(n), np.ndarray)
+                            and env[n].dtype != np.bool_ and not np.isfinite(env[n][i])})
+            parts.append(f"{rt.rule.key} ({', '.join(names) or 'inputs out of range'})")
+        return "; ".join(parts)
+
+    def begin(self, base: Mapping[str, Any], table: IndexTable | None,
+              details: Callable[[int], dict[str, object]] = _no_details) -> None:
         """Start an evaluation: texts rendered from now on use these values."""
-        self._ctx = _Context(base, table)
+        self._ctx = _Context(base, table, details)
 
     def step(self, rt: RuleRuntime, truths: RuleTruths, now: float,
              effects: list[Effect]) -> None:
         """Advance one rule's lifecycle in every space from its truths at ``now``."""
         cfg = rt.rule.config
         cond, clear, hold, level_idx = truths.raise_, truths.clear, truths.hold, truths.level
-        rt.unknown_since = np.where(rt.mask & truths.lacking & ~cond.known,
-                                    np.fmin(rt.unknown_since, now), np.nan)
+        live_before = rt.state >= State.ACTIVE
+        # unknown for want of an input: the raise condition while an input it needs is
+        # missing, or the clear condition of a live advisory whatever the reason (unknown
+        # never clears, so such an advisory would stand for ever)
+        stuck = rt.mask & ((truths.lacking & ~cond.known) | (live_before & ~clear.known))
+        rt.unknown_since = np.where(stuck, np.fmin(rt.unknown_since, now), np.nan)
         state = rt.state
         # idle -> pending
         start = (state == State.IDLE) & cond.true & ~hold
@@ -199,16 +241,19 @@ class Advisories:
         if not live.any():
             return
         rt.clear_since = np.where(live & clear.true, np.fmin(rt.clear_since, now), np.nan)
-        # acted on
+        # acted on: record it once, follow its effect, and wait for it
         if truths.acted_on is not None:
-            for i in np.flatnonzero(truths.acted_on & live):
+            rt.acted_now = truths.acted_on & live
+            for i in np.flatnonzero(rt.acted_now):
                 adv = rt.advisories[int(i)]
                 if adv.acted_on is None:
-                    adv.acted_on = {"at": iso(now), "cleared_after": None}
-                    adv.updated_at = now
-                    self._note(adv, now, "acted_on")
+                    self._acted(rt, adv, now)
                     effects.append(self.pub.advisory_publish(adv))
                     effects.append(self._persist(adv))
+            for i in np.flatnonzero(live):
+                adv = rt.advisories[int(i)]
+                if adv.acted_on is not None:
+                    self._follow_effect(rt, adv, now, effects)
         # cleared
         off = np.full(self.n, cfg.off_delay_s)
         for i in np.flatnonzero(live):
@@ -238,22 +283,98 @@ class Advisories:
                 rt.level[i] = level_idx[i]
                 rt.lower_since[i] = np.nan
                 self._apply(rt, int(i), Trigger.DEESCALATE, now, effects)
-        # re-notify
-        if cfg.renotify_s:
-            again = live & (state == State.ACTIVE) & (now - rt.last_notified >= cfg.renotify_s)
+        # re-notify: a reminder that the hazard persists, with the numbers of now; never
+        # while the equipment is already in the state the advice asks for
+        intervals = rt.renotify_intervals()
+        if intervals is not None:
+            every = intervals[rt.level]
+            again = (live & (state == State.ACTIVE) & ~rt.acted_now
+                     & (now - rt.last_notified >= every))
             for i in np.flatnonzero(again):
                 self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
 
     def refresh_due(self, now: float) -> list[Effect]:
-        """Republish every live advisory (retained) every ``ADVISORY_REFRESH_S``."""
+        """Republish every live advisory (retained) every ``ADVISORY_REFRESH_S``, with the
+        numbers of the moment."""
         if now - self.last_refresh < ADVISORY_REFRESH_S:
             return []
         self.last_refresh = now
-        return [self.pub.advisory_publish(adv) for adv in self.live()]
+        out: list[Effect] = []
+        for rt in self.rules:
+            for adv in rt.advisories.values():
+                if self._ctx.table is not None:
+                    self._render(rt, adv, now)
+                out.append(self.pub.advisory_publish(adv))
+        return out
+
+    # ------------------------------------------------------------------ acted on
+    def _acted(self, rt: RuleRuntime, adv: Advisory, now: float) -> None:
+        """The equipment went into the state the advice asks for: note the target
+        quantity and the value the advice predicted."""
+        self._render(rt, adv, now)
+        record: dict[str, Any] = {"at": iso(now), "cleared_after": None,
+                                  "cleared_after_min": None, "helped": None,
+                                  "minutes_after_raised": round((now - adv.raised_at) / 60, 1),
+                                  "effect": None, "_t": now}
+        eff = rt.rule.config.effect
+        if eff is not None and rt.rule.effect_quantity is not None:
+            value = self._value_at(rt, rt.rule.effect_quantity, adv.space)
+            predicted = (adv.benefit.get(eff.predicted, {}).get("value")
+                         if eff.predicted else None)
+            record["effect"] = {
+                "quantity": eff.quantity, "value_then": num(value), "predicted": predicted,
+                "predicted_change": (num(predicted - value) if predicted is not None
+                                     and math.isfinite(value) else None),
+                "realised_change": None, "checks": []}
+        adv.acted_on = record
+        adv.updated_at = now
+        self._note(adv, now, "acted_on")
+
+    def _follow_effect(self, rt: RuleRuntime, adv: Advisory, now: float,
+                       effects: list[Effect]) -> None:
+        """Record the target quantity at the rule's check times after the action; once the
+        expected time has passed without the condition clearing, say so, once."""
+        rec = adv.acted_on
+        assert rec is not None
+        eff = rt.rule.config.effect
+        t0 = float(rec.get("_t", adv.updated_at))
+        wait_s = eff.wait_s if eff is not None else 1800.0
+        if eff is not None and rec.get("effect") is not None and rt.rule.effect_quantity:
+            done = {c["after_min"] for c in rec["effect"]["checks"]}
+            for after in eff.checks_s:
+                if now - t0 >= after and after / 60 not in done:
+                    v = self._value_at(rt, rt.rule.effect_quantity, adv.space)
+                    rec["effect"]["checks"].append({"after_min": after / 60, "value": num(v)})
+                    then = rec["effect"]["value_then"]
+                    if then is not None and math.isfinite(v):
+                        rec["effect"]["realised_change"] = num(v - then)
+        i = adv.space
+        if (not adv.effect_overdue and now - t0 >= wait_s and rt.acted_now[i]
+                and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED)):
+            adv.effect_overdue = True
+            rec["helped"] = False
+            self._apply(rt, i, Trigger.EFFECT_OVERDUE, now, effects,
+                        extra={"waited_min": round((now - t0) / 60)})
+
+    def _value_at(self, rt: RuleRuntime, expr: Any, i: int) -> float:
+        env = self._ctx.base
+        one = {name: (rt.params[name] if name in rt.params else env[name])[i:i + 1]
+               for name in expr.names}
+        return float(expr.evaluate_number(one, 1)[0])
 
     # ------------------------------------------------------------------ transitions
-    def _render(self, rt: RuleRuntime, adv: Advisory) -> None:
-        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table)
+    def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None) -> None:
+        extra = dict(self._ctx.details(adv.space))
+        if adv.acted_on is not None and now is not None:
+            t0 = float(adv.acted_on.get("_t", adv.updated_at))
+            extra["acted_minutes_ago"] = max(0.0, (now - t0) / 60)
+            effect = adv.acted_on.get("effect")
+            if effect is not None and effect.get("predicted") is not None:
+                extra["effect_predicted"] = effect["predicted"]
+        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table,
+                          int(rt.level[adv.space]), extra)
+        if adv.effect_overdue and adv.no_effect_text:
+            adv.advice = adv.no_effect_text
 
     def _raise(self, rt: RuleRuntime, i: int, level: int, now: float,
                effects: list[Effect]) -> None:
@@ -272,7 +393,7 @@ class Advisories:
         while times and times[0] < now - CHATTER_WINDOW_S:
             times.popleft()
         adv.chattering = len(times) >= CHATTER_COUNT
-        self._render(rt, adv)
+        self._render(rt, adv, now)
         rt.state[i] = new_state
         rt.pending_since[i] = np.nan
         rt.clear_since[i] = np.nan
@@ -293,8 +414,10 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if trigger in (Trigger.ESCALATE, Trigger.DEESCALATE, Trigger.RENOTIFY_DUE):
-            self._render(rt, adv)
+        if trigger in (Trigger.ESCALATE, Trigger.DEESCALATE, Trigger.RENOTIFY_DUE,
+                       Trigger.EFFECT_OVERDUE, Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED,
+                       ) and self._ctx.table is not None:
+            self._render(rt, adv, now)
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
             adv.shelved = None
         if trigger in (Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED):
@@ -302,12 +425,24 @@ class Advisories:
             rt.shelved_until[i] = np.nan
         if trigger == Trigger.ESCALATE:
             adv.acknowledged = None
-        if event in ("raised", "escalated", "renotified", "unshelved"):
+        if event in ("raised", "escalated", "renotified", "unshelved", "no_effect"):
             rt.last_notified[i] = now
         if new_state == State.IDLE:
             adv.cleared_at = now
-            if adv.acted_on is not None:
-                adv.acted_on["cleared_after"] = True
+            rec = adv.acted_on
+            if rec is not None:
+                t0 = float(rec.get("_t", now))
+                rec["cleared_after"] = True
+                rec["cleared_after_min"] = round((now - t0) / 60, 1)
+                eff = rt.rule.config.effect
+                wait_s = eff.wait_s if eff is not None else 1800.0
+                rec["helped"] = bool(now - t0 <= wait_s)
+                if rec.get("effect") is not None and rt.rule.effect_quantity is not None \
+                        and self._ctx.table is not None:
+                    v = self._value_at(rt, rt.rule.effect_quantity, i)
+                    then = rec["effect"]["value_then"]
+                    if then is not None and math.isfinite(v):
+                        rec["effect"]["realised_change"] = num(v - then)
             del rt.advisories[i]
             self.by_id.pop(adv.id, None)
             rt.clear_since[i] = np.nan
@@ -410,6 +545,9 @@ class Advisories:
             su = rec.get("shelved_until")
             rt.shelved_until[i] = su if su is not None else np.nan
             rt.raised_times[i] = deque(rec.get("raised_times", []))
+            if adv.acted_on is not None:
+                adv.acted_on["_t"] = _epoch(adv.acted_on["at"])
+                adv.effect_overdue = adv.acted_on.get("helped") is False
             rt.advisories[i] = adv
             self.by_id[adv.id] = (rt, i)
         return notes
@@ -513,3 +651,9 @@ class Advisories:
         """Every live advisory (active, acknowledged or shelved)."""
         return [a for rt in self.rules for a in rt.advisories.values()]
 
+
+
+def _epoch(text: str) -> float:
+    import datetime as dt
+
+    return dt.datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()

@@ -93,7 +93,7 @@ class Engine:
         self.last_snapshot = snap
         book = self.advisories
         env = self.evaluation.environment(snap, table, now, self.start, book.unknown_long(now))
-        book.begin(env, table)
+        book.begin(env, table, lambda i: self._text_fields(snap, table, now, i))
         for rt in book.rules:
             if not rt.mask.any() and not rt.advisories:
                 continue
@@ -104,10 +104,25 @@ class Engine:
         if self.sample_every_s > 0 and now - self.last_sample >= self.sample_every_s:
             self.last_sample = now
             effects.append(Persist("sample", str(int(now)),
-                                   self.publication.sample(table, now)))
+                                   self.publication.sample(table, now, snap.occupied)))
         effects.extend(book.refresh_due(now))
         self.ticks += 1
         return effects
+
+    def _text_fields(self, snap: Snapshot, table: IndexTable, now: float, i: int
+                     ) -> dict[str, object]:
+        """Words for the messages of space ``i`` that are not numbers: which sensors the
+        health columns are about, which rules cannot be evaluated and why, and what a WBGT
+        rests on."""
+        fields: dict[str, object] = dict(self.health.details(i, snap))
+        twa = table.get("wbgt_time_weighted")
+        fields["wbgt_basis"] = (
+            "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
+            else "the spot value (the 60-minute mean is not complete yet)")
+        unknown = self.advisories.unknown_detail(i, now)
+        if unknown:
+            fields["rules_unknown_detail"] = unknown
+        return fields
 
     def republish_all(self) -> None:
         """Send every space's conditions and every live advisory at the next evaluation

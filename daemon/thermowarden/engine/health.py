@@ -5,12 +5,15 @@ These columns feed the ``sensor_health`` rule pack like any index.
 
 from __future__ import annotations
 
+import datetime as dt
+import math
 from collections import deque
 from typing import Any, Final
 
 import numpy as np
 
-from thermowarden.core.columns import FloatArray
+from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.quantities import QUANTITIES
 from thermowarden.engine.state import SiteState, Snapshot
 from thermowarden.site_model import SITE, SiteModel
 
@@ -34,12 +37,17 @@ class PointHealth:
         self.last_change = np.full(0, np.nan)
         self.last_seen_value = np.full(0, np.nan)
         self._point_cache: tuple[int, Any, Any] = (-1, None, None)
+        self.stale = np.zeros(0, dtype=bool)
+        self.stuck = np.zeros(0, dtype=bool)
+        self.implausible_points: list[dict[str, float]] = [{} for _ in range(self.n)]
+        """space -> point key -> when a reading of it was last refused as implausible."""
 
     def note_implausible(self, point_key: str, now: float) -> None:
         """A reading of ``point_key`` was refused as physically implausible at ``now``."""
         found = self.model.point_by_key.get(point_key)
         if found is not None and self.model.points[found].space != SITE:
             self.implausible[self.model.points[found].space].append(now)
+            self.implausible_points[self.model.points[found].space][point_key] = now
 
     def columns(self, snap: Snapshot, now: float, start: float) -> dict[str, FloatArray]:
         """Per-space counts at ``now`` (epoch s): ``points_total``, ``stale_points``,
@@ -69,6 +77,7 @@ class PointHealth:
         stale = ~snap.point_fresh & (seen | grace) & indoor_pts
         stuck = (snap.point_fresh & indoor_pts & ~state_q
                  & (now - self.last_change > STUCK_AFTER_S))
+        self.stale, self.stuck = stale, stuck
         sp = np.where(indoor_pts, spaces, 0)
         health = {
             "points_total": np.bincount(sp[indoor_pts], minlength=n).astype(np.float64),
@@ -84,3 +93,66 @@ class PointHealth:
                 spread = np.fmax(spread, arr)
         health["max_disagreement"] = spread
         return health
+
+    # ------------------------------------------------------------------ what to say
+    def _describe(self, pid: int, with_value: bool = True) -> str:
+        """``air speed (site/x/v, sensor b): 0.12 m/s at 14:02`` for point ``pid``."""
+        p = self.model.points[pid]
+        q = QUANTITIES.get(p.quantity)
+        label = p.quantity.replace("_", " ")
+        tags = ", ".join(x for x in (p.topic, f"sensor {p.sensor}" if p.sensor else "",
+                                     f"{p.side} side" if p.side else "",
+                                     p.height or "") if x)
+        text = f"{label} ({tags})"
+        if not with_value:
+            return text
+        v = float(self.state.last_value[pid])
+        t = float(self.state.last_time[pid])
+        if not math.isfinite(t):
+            return f"{text}: never reported"
+        unit = q.unit if q else ""
+        local = dt.datetime.fromtimestamp(t, self.state.tz)
+        value = f"{v:.1f} {unit}".strip() if math.isfinite(v) else "no value"
+        return f"{text}: last {value} at {local:%H:%M} {local:%Z}".rstrip()
+
+    def _points_of(self, space: int, mask: BoolArray) -> list[int]:
+        _, spaces, _ = self._point_cache
+        if spaces is None or mask.size == 0:
+            return []
+        return [int(p) for p in np.flatnonzero(mask & (spaces[:mask.size] == space))]
+
+    def details(self, space: int, snap: Snapshot) -> dict[str, str]:
+        """Sentences that name the sensors behind the health columns of ``space``:
+        ``stale_detail``, ``stuck_detail``, ``implausible_detail``, ``disagreement_detail``
+        (absent where there is nothing to say)."""
+        out: dict[str, str] = {}
+        stale = self._points_of(space, self.stale)
+        if stale:
+            out["stale_detail"] = "; ".join(self._describe(p) for p in stale[:5]) + (
+                f"; and {len(stale) - 5} more" if len(stale) > 5 else "")
+        stuck = self._points_of(space, self.stuck)
+        if stuck:
+            out["stuck_detail"] = "; ".join(self._describe(p) for p in stuck[:5])
+        bad = self.implausible_points[space]
+        if bad:
+            recent = sorted(bad, key=lambda k: -bad[k])[:3]
+            out["implausible_detail"] = "; ".join(
+                self._describe(self.model.point_by_key[k], with_value=False) for k in recent)
+        worst: tuple[float, str] | None = None
+        for q, arr in snap.disagreement.items():
+            spread = float(arr[space])
+            if not math.isfinite(spread) or (worst is not None and spread <= worst[0]):
+                continue
+            pts = [p for p in self._points_of(space, snap.point_fresh)
+                   if self.model.points[p].quantity == q]
+            if len(pts) < 2:
+                continue
+            values = self.state.last_value
+            hi = max(pts, key=lambda p: float(values[p]))
+            lo = min(pts, key=lambda p: float(values[p]))
+            unit = QUANTITIES[q].unit if q in QUANTITIES else "K"
+            worst = (spread, f"{self._describe(hi)} and {self._describe(lo)} differ by "
+                             f"{spread:.1f} {'K' if unit == '°C' else unit}")
+        if worst is not None:
+            out["disagreement_detail"] = worst[1]
+        return out

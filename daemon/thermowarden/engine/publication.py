@@ -14,6 +14,7 @@ Topics (``<prefix>`` is ``output.prefix``)::
 
 from __future__ import annotations
 
+import copy
 import datetime as dt
 import math
 from typing import TYPE_CHECKING, Any, Final
@@ -62,6 +63,14 @@ def space_ref(space: Any) -> dict[str, Any]:
     return ref
 
 
+def _public(record: dict[str, Any] | None) -> dict[str, Any] | None:
+    """A copy of ``record`` as it is now (later changes do not reach payloads already
+    built), without its private keys (``_t``)."""
+    if record is None:
+        return None
+    return copy.deepcopy({k: v for k, v in record.items() if not k.startswith("_")})
+
+
 class Publication:
     """Payloads and topics of one site; also paces the retained conditions per space."""
 
@@ -101,11 +110,11 @@ class Publication:
             "raised_at": iso(adv.raised_at),
             "updated_at": iso(adv.updated_at),
             "cleared_at": iso(adv.cleared_at) if adv.cleared_at is not None else None,
-            "acknowledged": adv.acknowledged,
-            "shelved": adv.shelved,
-            "acted_on": adv.acted_on,
+            "acknowledged": dict(adv.acknowledged) if adv.acknowledged else None,
+            "shelved": dict(adv.shelved) if adv.shelved else None,
+            "acted_on": _public(adv.acted_on),
             "chattering": adv.chattering,
-            "history": list(adv.history),
+            "history": [dict(h) for h in adv.history],
         }
 
     def advisory_topic(self, adv: Advisory) -> str:
@@ -206,8 +215,10 @@ class Publication:
         self.last_conditions[:] = -np.inf
 
     # ------------------------------------------------------------------ report samples
-    def sample(self, table: IndexTable, now: float) -> dict[str, Any]:
-        """The report sample: a few indices of every space, NaN as null."""
+    def sample(self, table: IndexTable, now: float,
+               occupied: Any = None) -> dict[str, Any]:
+        """The report sample: a few indices of every space and whether it was occupied
+        (boolean array over the spaces), NaN as null."""
 
         def col(name: str) -> list[float | None]:
             c = table[name]
@@ -226,4 +237,7 @@ class Publication:
                 "band_lower": low, "band_upper": high,
                 "wbgt": col("wbgt_effective"), "ref_unacclimatised":
                     col("wbgt_reference_unacclimatised"),
-                "ref_acclimatised": col("wbgt_reference_acclimatised")}
+                "ref_acclimatised": col("wbgt_reference_acclimatised"),
+                "heat_index": col("heat_index"), "utci": col("utci"),
+                "occupied": (None if occupied is None
+                             else [bool(x) for x in occupied])}

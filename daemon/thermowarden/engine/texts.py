@@ -67,6 +67,10 @@ def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, A
     return numbers, benefit, fields
 
 
+NOT_NOW = ("The measurements behind this advisory are not available at the moment; see its "
+           "numbers for the reasons.")
+
+
 class Texts:
     """Renders advisories of one site."""
 
@@ -76,17 +80,33 @@ class Texts:
         self.site_name = config.site.name or config.site.id
 
     def render(self, rule: CompiledRule, adv: Any, env: Mapping[str, Any],
-               params: Mapping[str, Any], table: IndexTable | None) -> None:
+               params: Mapping[str, Any], table: IndexTable | None, level: int,
+               extra: Mapping[str, object] | None = None) -> None:
         """Fill ``adv``'s numbers, benefit, title, advice and rationale with the values of
-        the moment (``env`` and ``table`` are the current evaluation)."""
+        the moment (``env`` and ``table`` are the current evaluation) at priority index
+        ``level``; ``extra`` adds text fields (sensor names, the basis of a WBGT)."""
         i = adv.space
-        numbers, benefit, fields = values_at(rule, env, params, table, i, self.model.n_spaces)
+        n = self.model.n_spaces
+        numbers, benefit, fields = values_at(rule, env, params, table, i, n)
         space = self.model.space(i)
         fields["space_name"] = space.name or space.id
         fields["space_id"] = space.id
         fields["site_name"] = self.site_name
+        if extra:
+            fields.update(extra)
+
+        def holds(expr: Expression) -> bool:
+            one = {name: (params[name] if name in params else env[name])[i:i + 1]
+                   for name in expr.names}
+            return bool(expr.evaluate_truth(one, 1).true[0])
+
+        title_t, advice_t = rule.texts_at(level)
         adv.numbers = numbers
         adv.benefit = benefit
-        adv.title = rule.title.render(fields)
-        adv.advice = " ".join(rule.advice.render(fields).split())
-        adv.rationale = " ".join(rule.rationale.render(fields).split())
+        # where every sentence needs a number that is not known now, the last text stays
+        # (or a plain sentence, the first time); it never says "unknown"
+        adv.title = title_t.render(fields, holds) or adv.title or rule.config.title
+        adv.advice = advice_t.render(fields, holds) or adv.advice or NOT_NOW
+        adv.rationale = rule.rationale.render(fields, holds) or adv.rationale or NOT_NOW
+        adv.no_effect_text = (rule.no_effect.render(fields, holds)
+                              if rule.no_effect is not None else "")
