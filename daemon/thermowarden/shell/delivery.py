@@ -266,8 +266,10 @@ class Delivery:
                 for a, d in config.audiences.items() if d.quiet_hours}
 
     def _audience(self, name: str) -> AudienceDelivery | None:
-        audiences: dict[str, AudienceDelivery] = dict(self.config.audiences)
-        return audiences.get(name)
+        for key, aud in self.config.audiences.items():
+            if key == name:
+                return aud
+        return None
 
     def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
         """Take a reloaded configuration; stored deliveries stay and follow the new one."""
