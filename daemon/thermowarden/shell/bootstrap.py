@@ -18,6 +18,7 @@ from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConf
 from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.engine import Engine, iso
 from thermowarden.rules import load_rule_packs
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
@@ -121,8 +122,12 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
                     {**status, "state": "offline"}, inbox, control, metrics, instance,
                     command_prefix=f"{prefix}/commands/", now=clock.now)
+    delivery = None
+    if config.delivery.audiences:
+        delivery = Delivery(config.delivery, config.site.timezone, store.path,
+                            registry=metrics.registry, now=clock.now)
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
-                      f"{prefix}/replies", clock)
+                      f"{prefix}/replies", clock, delivery=delivery)
     http = None
     if http_port is not None:
         http = start_http(http_port, metrics, service.alive, service.ready, host=http_host)

@@ -22,6 +22,7 @@ from apscheduler.triggers.interval import IntervalTrigger
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.shell import systemd
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
@@ -31,7 +32,6 @@ log = logging.getLogger("thermowarden.service")
 
 PROMPT_EVAL_S = 0.25
 """A space with new readings is evaluated within this long (not only at the next tick)."""
-EVENT_RETENTION_DAYS = 90
 DRAIN_BATCH = 5000
 BATCH_PAUSE_S = 0.005
 
@@ -68,7 +68,8 @@ class Service:
     def __init__(self, engine: Engine, link: MqttLink, store: Store, metrics: Metrics,
                  inbox: Inbox, control: queue.Queue[Control],
                  command_prefix: str, reply_topic: str, clock: Clock,
-                 notify: Callable[[str], bool] = systemd.notify) -> None:
+                 notify: Callable[[str], bool] = systemd.notify,
+                 delivery: Delivery | None = None) -> None:
         self.engine = engine
         self.link = link
         self.store = store
@@ -79,6 +80,8 @@ class Service:
         self.reply_topic = reply_topic
         self.clock = clock
         self.notify = notify
+        self.delivery = delivery
+        """Webhook and e-mail delivery (its own worker thread), when configured."""
         self.stop_requested = threading.Event()
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
@@ -147,6 +150,9 @@ class Service:
                 mid = self.link.publish(e.topic, e.payload, 1, False)
                 if mid is not None:
                     self.inflight[mid] = seq
+                if self.delivery is not None:
+                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
+                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -262,10 +268,11 @@ class Service:
         if name == "tick" or name == "rollup":
             self.evaluate()
         elif name == "prune":
-            n = self.store.prune_events(now - EVENT_RETENTION_DAYS * 86_400)
-            m = self.store.prune_samples(now - EVENT_RETENTION_DAYS * 86_400)
-            log.info("pruned %d event(s) and %d sample(s) older than %d days", n, m,
-                     EVENT_RETENTION_DAYS)
+            keep = self.engine.config.retention
+            n = self.store.prune_events(now - keep.events_days * 86_400)
+            m = self.store.prune_samples(now - keep.samples_days * 86_400)
+            log.info("pruned %d event(s) older than %g days and %d sample(s) older than %g "
+                     "days", n, keep.events_days, m, keep.samples_days)
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
@@ -299,6 +306,8 @@ class Service:
         self._schedule()
         if self.clock.speed != 1.0:
             self.scheduler.start()
+        if self.delivery is not None:
+            self.delivery.start()
         self.link.start()
         self.evaluate()
         ready_sent = False
@@ -364,6 +373,8 @@ class Service:
             except queue.Empty:
                 pass
         self.link.stop()
+        if self.delivery is not None:
+            self.delivery.stop()
         depth = self.store.outbox_depth()
         if depth:
             log.warning("%d event(s) not yet acknowledged stay in the outbox for the next start",
