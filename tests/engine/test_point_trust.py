@@ -9,9 +9,9 @@ import textwrap
 import pytest
 
 from thermowarden.config import ConfigError, load_site
-from thermowarden.ingest import IMPLAUSIBLE, IMPLAUSIBLE_CHANGE, Ingestor
+from thermowarden.engine.ingest import IMPLAUSIBLE, IMPLAUSIBLE_CHANGE, Ingestor
+from thermowarden.engine.state import SiteState
 from thermowarden.site_model import build_site_model
-from thermowarden.space_state import SiteState
 
 NOW = 1_780_000_000.0
 
@@ -119,3 +119,66 @@ def test_bad_point_settings_refused_with_position(tmp_path, point, message):
     shown = str(exc.value)
     assert message in shown
     assert "site.yaml:5:" in shown
+
+
+ENGINE_SITE = """\
+site: {id: trust, timezone: UTC}
+defaults: {occupancy: {always: true}, rule_packs: [sensor_health]}
+spaces:
+  - id: office
+    points:
+      - topic: t/office/ta
+        quantity: air_temperature
+        interval_s: 60
+        stuck_after_s: 1800
+        plausible_max: 40
+        max_change_per_min: 1
+  - id: store
+    points:
+      - {topic: t/store/ta, quantity: air_temperature, interval_s: 60}
+"""
+
+
+def _engine(tmp_path):
+    from thermowarden.engine import Engine
+    from thermowarden.rules import load_rule_packs
+
+    config = _site(tmp_path, ENGINE_SITE)
+    packs = load_rule_packs(["sensor_health"], [], base=tmp_path / "site.yaml")
+    return Engine(config, build_site_model(config), packs, start=NOW)
+
+
+def _raised(effects):
+    from thermowarden.effects import Publish
+
+    return [(e.payload["advisory"]["space"]["id"], e.payload["advisory"]["rule"])
+            for e in effects if isinstance(e, Publish) and "/events/" in e.topic
+            and e.payload and e.payload.get("event") == "raised"]
+
+
+def test_stuck_window_per_point(tmp_path):
+    engine = _engine(tmp_path)
+    raised = []
+    # both report the same value every minute for 2.5 hours
+    for minute in range(151):
+        t = NOW + 60 * minute
+        engine.message("t/office/ta", b"22.0", t)
+        engine.message("t/store/ta", b"18.0", t)
+        raised += [(t - NOW, r) for r in _raised(engine.tick(t + 1))]
+    stuck = [(after, space) for after, (space, rule) in raised
+             if rule == "sensor_health.stuck_value"]
+    # the office's window is 30 minutes; the store keeps the 3-hour default
+    assert [space for _, space in stuck] == ["office"]
+    assert 1800 <= stuck[0][0] <= 1800 + 120
+
+
+def test_refused_spikes_and_out_of_range_count_as_implausible(tmp_path):
+    engine = _engine(tmp_path)
+    engine.message("t/office/ta", b"22.0", NOW)
+    assert _raised(engine.tick(NOW + 1)) == []
+    (r,) = engine.message("t/office/ta", b"30.0", NOW + 60)  # +8 K in a minute
+    assert r.reason == IMPLAUSIBLE_CHANGE
+    assert ("office", "sensor_health.implausible_values") in _raised(engine.tick(NOW + 61))
+    (r,) = engine.message("t/store/ta", b"95", NOW + 70)  # outside the physical range
+    assert r.reason == IMPLAUSIBLE
+    assert ("store", "sensor_health.implausible_values") in _raised(engine.tick(NOW + 71))
