@@ -200,8 +200,13 @@ def cmd_run(args: argparse.Namespace) -> int:
         log.info("signal %s received", signal.Signals(signum).name)
         service.request_stop()
 
+    def reload(signum: int, frame: object) -> None:
+        log.info("signal SIGHUP received: reloading the configuration")
+        service.request_reload()
+
     signal.signal(signal.SIGTERM, stop)
     signal.signal(signal.SIGINT, stop)
+    signal.signal(signal.SIGHUP, reload)
     service.run()
     if running.http is not None:
         running.http.shutdown()

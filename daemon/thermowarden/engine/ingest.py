@@ -73,6 +73,10 @@ class Ingestor:
         """Points that took a reading from the last message."""
 
     # ---------------------------------------------------------------- routing
+    def resolve(self, topic: str) -> list[int] | Rejection:
+        """The points a topic feeds (creating template points on first use), or why none."""
+        return self._resolve(topic)
+
     def _resolve(self, topic: str) -> list[int] | Rejection:
         cached = self._cache.get(topic)
         if cached is not None:

@@ -26,6 +26,7 @@ from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
+from thermowarden.shell.reloading import Reloaded, ReloadRefused
 from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")
@@ -69,7 +70,9 @@ class Service:
                  inbox: Inbox, control: queue.Queue[Control],
                  command_prefix: str, reply_topic: str, clock: Clock,
                  notify: Callable[[str], bool] = systemd.notify,
-                 delivery: Delivery | None = None) -> None:
+                 delivery: Delivery | None = None,
+                 reloader: Callable[[Engine], Reloaded] | None = None,
+                 per_space_subscriptions: bool = False) -> None:
         self.engine = engine
         self.link = link
         self.store = store
@@ -82,6 +85,8 @@ class Service:
         self.notify = notify
         self.delivery = delivery
         """Webhook and e-mail delivery (its own worker thread), when configured."""
+        self.reloader = reloader
+        self.per_space_subscriptions = per_space_subscriptions
         self.stop_requested = threading.Event()
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
@@ -273,11 +278,50 @@ class Service:
             m = self.store.prune_samples(now - keep.samples_days * 86_400)
             log.info("pruned %d event(s) older than %g days and %d sample(s) older than %g "
                      "days", n, keep.events_days, m, keep.samples_days)
+        elif name == "reload":
+            self.reload()
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
         elif name == "report":
             self.daily_report(now)
+
+    def request_reload(self) -> None:
+        """Ask the engine thread to reload the configuration (from a signal handler)."""
+        self.jobs.put("reload")
+
+    def reload(self) -> bool:
+        """Read the site and rule packs again (engine thread). An invalid configuration is
+        refused, logged with the same messages as ``check``, and the old one keeps running;
+        a valid one replaces the engine, keeping the state of what did not change."""
+        if self.reloader is None:
+            log.warning("reload requested but not available here")
+            return False
+        self.notify("RELOADING=1")
+        try:
+            try:
+                result = self.reloader(self.engine)
+            except ReloadRefused as exc:
+                for line in exc.lines:
+                    log.error("reload refused: %s", line)
+                log.error("reload refused: %d problem(s); still running the previous "
+                          "configuration", len(exc.lines))
+                return False
+            self.engine = result.engine
+            for note in result.notes:
+                log.info("%s", note)
+            self.execute(result.effects)
+            config = result.engine.config
+            subs = result.model.subscriptions(per_space=self.per_space_subscriptions)
+            self.link.set_subscriptions(subs + [f"{self.command_prefix}+"])
+            if self.delivery is not None:
+                self.delivery.reconfigure(config.delivery, config.site.timezone)
+            self.dirty = True
+            log.info("reloaded: %d space(s), %d point(s), %d rule(s)",
+                     result.model.n_spaces, len(result.model.points), len(result.engine.rules))
+            return True
+        finally:
+            self.notify("READY=1")
 
     def daily_report(self, now: float) -> pathlib.Path:
         """Write yesterday's report (local calendar day) next to the store."""
