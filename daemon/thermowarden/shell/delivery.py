@@ -73,6 +73,9 @@ TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
 DELIVERY_HEADER = "X-Thermowarden-Delivery"
 RETRY_STATUS = frozenset({408, 425, 429})
 IDLE_WAIT_S = 1.0
+FAILED_KEPT_S = 30 * 86_400.0
+"""Deliveries that failed for good stay in the store this long, for inspection."""
+PRUNE_EVERY_S = 3600.0
 
 
 class DeliveryFailed(Exception):
@@ -315,8 +318,13 @@ class Delivery:
 
     def _run(self) -> None:
         db = self._connect()
+        last_prune = -PRUNE_EVERY_S
         try:
             while not self.stopping.is_set():
+                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
+                    last_prune = time.monotonic()
+                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND created < ?",
+                               (self.now() - FAILED_KEPT_S,))
                 self._take(db)
                 wait = self._work(db)
                 self.m_pending.set(self.pending_count(db))

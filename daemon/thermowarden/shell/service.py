@@ -297,7 +297,7 @@ class Service:
         if self.reloader is None:
             log.warning("reload requested but not available here")
             return False
-        self.notify("RELOADING=1")
+        self.notify(f"RELOADING=1\nMONOTONIC_USEC={time.monotonic_ns() // 1000}")
         try:
             try:
                 result = self.reloader(self.engine)
