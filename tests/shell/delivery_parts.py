@@ -98,6 +98,8 @@ class Receiver:
                     status = outer.statuses.pop(0) if outer.statuses else 200
                     outer.requests.append((dict(self.headers.items()), body))
                 self.send_response(status)
+                if 300 <= status < 400:
+                    self.send_header("Location", "/elsewhere")
                 self.send_header("Content-Length", "0")
                 self.end_headers()
 

@@ -133,6 +133,21 @@ def test_permanent_refusal_and_giving_up(tmp_path, events):
         rec.close()
 
 
+def test_redirect_is_not_followed(tmp_path, events):
+    # urllib would repeat the POST as a GET without its body: a redirect is a failure
+    rec = Receiver(statuses=[302])
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, rec.url)}, clock, registry=reg)
+    try:
+        d.offer("safety", events[("kiln-hall", "hot")])
+        wait_until(lambda: metric(reg, "webhook", "failed") == 1, what="the failure")
+        assert len(rec.requests) == 1  # nothing went to /elsewhere
+    finally:
+        d.stop()
+        rec.close()
+
+
 def test_email_through_the_relay_with_retry(tmp_path, events):
     sink = SmtpSink(replies=["451 4.3.0 try again later"])
     reg = CollectorRegistry()

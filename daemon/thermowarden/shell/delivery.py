@@ -12,13 +12,15 @@ Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`
 seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
 over ``<timestamp>.<body>``, RFC 2104) and ``X-Thermowarden-Delivery`` (the same id on every
 retry, so a receiver can drop repeats). 2xx is delivered; 408, 425, 429 and 5xx and network
-errors are retried; any other status is a permanent failure. E-mail: a plain-text message
-through the SMTP relay (smtplib); 4xx replies and network errors are retried, 5xx are not.
+errors are retried; any other status (redirects included) is a permanent failure. E-mail: a
+plain-text message through the SMTP relay (smtplib); 4xx replies and network errors are
+retried, 5xx are not.
 """
 
 from __future__ import annotations
 
 import datetime as dt
+import email.utils
 import hashlib
 import hmac
 import json
@@ -105,6 +107,18 @@ def _secret(value: Any, file: str | None) -> str | None:
     return None
 
 
+class _NoRedirect(urllib.request.HTTPRedirectHandler):
+    """A redirect is answered as an error: urllib would repeat a POST as a GET without its
+    body (and without a signature worth the name)."""
+
+    def redirect_request(self, req: urllib.request.Request, fp: Any, code: int, msg: str,
+                         headers: Any, newurl: str) -> None:
+        return None
+
+
+_OPENER = urllib.request.build_opener(_NoRedirect)
+
+
 def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
                  now: float) -> None:
     """One webhook attempt; raises :class:`DeliveryFailed`."""
@@ -117,7 +131,7 @@ def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
         TIMESTAMP_HEADER: stamp, SIGNATURE_HEADER: sign(secret.encode("utf-8"), stamp, body),
         DELIVERY_HEADER: delivery_id})
     try:
-        with urllib.request.urlopen(request, timeout=cfg.timeout_s) as response:
+        with _OPENER.open(request, timeout=cfg.timeout_s) as response:
             response.read(1024)
     except urllib.error.HTTPError as exc:
         retry = exc.code in RETRY_STATUS or exc.code >= 500
@@ -177,7 +191,7 @@ def send_email(cfg: EmailConfig, payload: dict[str, Any], delivery_id: str,
     msg["Subject"] = f"{cfg.subject_prefix} {subject}".strip()
     msg["From"] = cfg.sender
     msg["To"] = ", ".join(cfg.to)
-    msg["Date"] = dt.datetime.fromtimestamp(now, dt.UTC).strftime("%a, %d %b %Y %H:%M:%S +0000")
+    msg["Date"] = email.utils.formatdate(now, usegmt=True)
     msg["Message-ID"] = f"<{delivery_id}@thermowarden>"
     msg.set_content(text)
     smtp = cfg.smtp
