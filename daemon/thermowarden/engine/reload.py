@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from thermowarden.core.columns import BoolArray
 from thermowarden.effects import Effect
 from thermowarden.engine.advisories import RuleRuntime
 from thermowarden.engine.engine import Engine
@@ -42,11 +43,13 @@ def _point_signature(p: PointSpec) -> tuple[Any, ...]:
             p.fmt, p.topic, p.offset, p.scale, p.max_change_per_s, p.stuck_after_s)
 
 
-def _space_points(model: SiteModel) -> dict[int, list[tuple[Any, ...]]]:
-    out: dict[int, list[tuple[Any, ...]]] = {}
-    for p in model.points:
-        out.setdefault(p.space, []).append(_point_signature(p))
-    return {k: sorted(v, key=repr) for k, v in out.items()}
+def _space_points(model: SiteModel, signatures: list[tuple[Any, ...]]
+                  ) -> dict[int, dict[str, tuple[Any, ...]]]:
+    """Per space: point key -> signature."""
+    out: dict[int, dict[str, tuple[Any, ...]]] = {}
+    for p, sig in zip(model.points, signatures, strict=True):
+        out.setdefault(p.space, {})[p.key] = sig
+    return out
 
 
 def _space_config(engine: Engine, i: int) -> tuple[Any, ...]:
@@ -65,25 +68,27 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
     for p in old.model.points:
         if p.key not in new.model.point_by_key:
             new.ingest.resolve(p.topic)
+    old_sigs = [_point_signature(p) for p in old.model.points]
+    new_sigs = [_point_signature(p) for p in new.model.points]
     point_map: list[tuple[int, int]] = []
     for pid, p in enumerate(old.model.points):
         q = new.model.point_by_key.get(p.key)
-        if q is not None and _point_signature(p) == _point_signature(new.model.points[q]):
+        if q is not None and old_sigs[pid] == new_sigs[q]:
             point_map.append((pid, q))
     _carry_points(old, new, point_map)
 
-    old_points = _space_points(old.model)
-    new_points = _space_points(new.model)
+    old_points = _space_points(old.model, old_sigs)
+    new_points = _space_points(new.model, new_sigs)
     same_points: list[tuple[int, int]] = []
-    same_config: set[int] = set()
+    same_config = np.zeros(new.model.n_spaces, dtype=bool)
     for j, sid in enumerate(new.model.space_ids):
         i = old.model.space_index.get(sid)
         if i is None:
             continue
-        if old_points.get(i, []) == new_points.get(j, []):
+        if old_points.get(i, {}) == new_points.get(j, {}):
             same_points.append((i, j))
             if _space_config(old, i) == _space_config(new, j):
-                same_config.add(j)
+                same_config[j] = True
     _carry_spaces(old, new, same_points)
     effects = _carry_rules(old, new, same_config, notes)
 
@@ -156,25 +161,38 @@ def _carry_spaces(old: Engine, new: Engine, pairs: list[tuple[int, int]]) -> Non
         pn.touched[j] = po.touched[i]
 
 
-def _carry_rules(old: Engine, new: Engine, same_config: set[int],
+def _carry_rules(old: Engine, new: Engine, same_config: BoolArray,
                  notes: list[str]) -> list[Effect]:
     effects: list[Effect] = []
     new_rules = {rt.rule.key: rt for rt in new.rules}
+    # spaces present before and after: old index -> new index
+    pairs = [(i, new.model.space_index[sid]) for i, sid in enumerate(old.model.space_ids)
+             if sid in new.model.space_index]
+    src = np.array([i for i, _ in pairs], dtype=np.int64)
+    dst = np.array([j for _, j in pairs], dtype=np.int64)
     for ro in old.rules:
         rn = new_rules.get(ro.rule.key)
-        same_rule = rn is not None and rn.rule.config == ro.rule.config
-        for i, sid in enumerate(old.model.space_ids):
+        kept: set[int] = set()
+        if rn is not None and rn.rule.config == ro.rule.config and src.size:
+            keep = same_config[dst] & (rn.mask[dst] == ro.mask[src])
+            if set(ro.params) != set(rn.params):
+                keep[:] = False
+            for name in ro.params:
+                if name in rn.params:
+                    keep &= ro.params[name][src] == rn.params[name][dst]
+            i_keep, j_keep = src[keep], dst[keep]
+            for name in _LIFECYCLE:
+                getattr(rn, name)[j_keep] = getattr(ro, name)[i_keep]
+            new_of = dict(zip(i_keep.tolist(), j_keep.tolist(), strict=True))
+            for i in set(ro.advisories) | set(ro.raised_times):
+                if i in new_of:
+                    _move_advisory(new, ro, i, rn, new_of[i])
+                    kept.add(i)
+        for i, adv in list(ro.advisories.items()):
+            if i in kept:
+                continue
+            sid = old.model.space_ids[i]
             j = new.model.space_index.get(sid)
-            if rn is not None and j is not None and same_rule and j in same_config \
-                    and bool(rn.mask[j]) == bool(ro.mask[i]) \
-                    and _params_equal(ro, i, rn, j):
-                for name in _LIFECYCLE:
-                    getattr(rn, name)[j] = getattr(ro, name)[i]
-                _move_advisory(new, ro, i, rn, j)
-                continue
-            if i not in ro.advisories:
-                continue
-            adv = ro.advisories[i]
             if rn is not None and j is not None:
                 for name in _AS_AFTER_RESTART:
                     getattr(rn, name)[j] = getattr(ro, name)[i]
@@ -188,12 +206,6 @@ def _carry_rules(old: Engine, new: Engine, same_config: set[int],
             notes.append(f"reload: advisory {adv.id} ({sid}, {ro.rule.key}) withdrawn: its "
                          "space or rule is no longer configured")
     return effects
-
-
-def _params_equal(ro: RuleRuntime, i: int, rn: RuleRuntime, j: int) -> bool:
-    if set(ro.params) != set(rn.params):
-        return False
-    return all(ro.params[k][i] == rn.params[k][j] for k in ro.params)
 
 
 def _move_advisory(new: Engine, ro: RuleRuntime, i: int, rn: RuleRuntime, j: int) -> None:
