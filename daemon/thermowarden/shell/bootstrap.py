@@ -23,7 +23,7 @@ from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
-from thermowarden.shell.reloading import reload_engine
+from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store
 from thermowarden.site_model import build_site_model
@@ -143,7 +143,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                         registry=metrics.registry, now=clock.now)
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
                       f"{prefix}/replies", clock, delivery=delivery,
-                      reloader=lambda old: reload_engine(old, load),
+                      reloader=lambda old: prepare_reload(old, load),
                       per_space_subscriptions=shard is not None or bool(spaces))
     http = None
     if http_port is not None:

@@ -33,6 +33,14 @@ class ReloadRefused(Exception):
 
 
 @dataclass
+class Prepared:
+    """A new engine built from the reloaded configuration, not yet holding any state."""
+
+    engine: Engine
+    model: SiteModel
+
+
+@dataclass
 class Reloaded:
     engine: Engine
     model: SiteModel
@@ -52,9 +60,10 @@ def restart_only_changes(old: SiteConfig, new: SiteConfig) -> list[str]:
     return [name for name in RESTART_ONLY if _get(old, name) != _get(new, name)]
 
 
-def reload_engine(old: Engine, load: Loader) -> Reloaded:
-    """Build an engine from the configuration ``load`` returns and carry ``old``'s state
-    into it; raises :class:`ReloadRefused` and changes nothing when it cannot."""
+def prepare_reload(old: Engine, load: Loader) -> Prepared:
+    """Load, validate and build the new engine: the slow part, which may run beside the
+    engine thread (it only reads ``old``'s frozen configuration). Raises
+    :class:`ReloadRefused` when the configuration cannot be taken."""
     try:
         config, packs = load()
     except ConfigError as exc:
@@ -68,5 +77,15 @@ def reload_engine(old: Engine, load: Loader) -> Reloaded:
     model = build_site_model(config)
     engine = Engine(config, model, packs, conditions_every_s=old.publication.conditions_every_s,
                     start=old.start, sample_every_s=old.sample_every_s)
-    effects, notes = carry_over(old, engine)
-    return Reloaded(engine, model, effects, notes)
+    return Prepared(engine, model)
+
+
+def finish_reload(old: Engine, prepared: Prepared) -> Reloaded:
+    """Carry ``old``'s state into the prepared engine (on the engine thread)."""
+    effects, notes = carry_over(old, prepared.engine)
+    return Reloaded(prepared.engine, prepared.model, effects, notes)
+
+
+def reload_engine(old: Engine, load: Loader) -> Reloaded:
+    """Both steps at once (replay, tests, the bench)."""
+    return finish_reload(old, prepare_reload(old, load))

@@ -26,7 +26,7 @@ from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
-from thermowarden.shell.reloading import Reloaded, ReloadRefused
+from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
 from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")
@@ -71,7 +71,7 @@ class Service:
                  command_prefix: str, reply_topic: str, clock: Clock,
                  notify: Callable[[str], bool] = systemd.notify,
                  delivery: Delivery | None = None,
-                 reloader: Callable[[Engine], Reloaded] | None = None,
+                 reloader: Callable[[Engine], Prepared] | None = None,
                  per_space_subscriptions: bool = False) -> None:
         self.engine = engine
         self.link = link
@@ -86,7 +86,10 @@ class Service:
         self.delivery = delivery
         """Webhook and e-mail delivery (its own worker thread), when configured."""
         self.reloader = reloader
+        """Loads and builds a new engine for a reload (run beside the engine thread)."""
         self.per_space_subscriptions = per_space_subscriptions
+        self.reloads: queue.Queue[Prepared] = queue.Queue()
+        self.reloading = threading.Event()
         self.stop_requested = threading.Event()
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
@@ -279,7 +282,7 @@ class Service:
             log.info("pruned %d event(s) older than %g days and %d sample(s) older than %g "
                      "days", n, keep.events_days, m, keep.samples_days)
         elif name == "reload":
-            self.reload()
+            self._start_reload()
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
@@ -287,26 +290,43 @@ class Service:
             self.daily_report(now)
 
     def request_reload(self) -> None:
-        """Ask the engine thread to reload the configuration (from a signal handler)."""
+        """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
         self.jobs.put("reload")
 
-    def reload(self) -> bool:
-        """Read the site and rule packs again (engine thread). An invalid configuration is
-        refused, logged with the same messages as ``check``, and the old one keeps running;
-        a valid one replaces the engine, keeping the state of what did not change."""
+    def _start_reload(self) -> None:
+        """Load and build the new configuration beside the engine thread, which goes on
+        evaluating meanwhile; :meth:`_finish_reload` swaps it in."""
         if self.reloader is None:
             log.warning("reload requested but not available here")
-            return False
+            return
+        if self.reloading.is_set():
+            log.info("a reload is already in progress")
+            return
+        self.reloading.set()
         self.notify(f"RELOADING=1\nMONOTONIC_USEC={time.monotonic_ns() // 1000}")
-        try:
+        old = self.engine
+        reloader = self.reloader
+
+        def prepare() -> None:
             try:
-                result = self.reloader(self.engine)
+                self.reloads.put(reloader(old))
+                return
             except ReloadRefused as exc:
                 for line in exc.lines:
                     log.error("reload refused: %s", line)
                 log.error("reload refused: %d problem(s); still running the previous "
                           "configuration", len(exc.lines))
-                return False
+            except Exception:  # noqa: BLE001 - a failed reload must not stop the service
+                log.exception("reload failed; still running the previous configuration")
+            self.reloading.clear()
+            self.notify("READY=1")
+
+        threading.Thread(target=prepare, name="thermowarden-reload", daemon=True).start()
+
+    def _finish_reload(self, prepared: Prepared) -> None:
+        """Carry the running state into the new engine and swap it in (engine thread)."""
+        try:
+            result = finish_reload(self.engine, prepared)
             self.engine = result.engine
             for note in result.notes:
                 log.info("%s", note)
@@ -319,8 +339,8 @@ class Service:
             self.dirty = True
             log.info("reloaded: %d space(s), %d point(s), %d rule(s)",
                      result.model.n_spaces, len(result.model.points), len(result.engine.rules))
-            return True
         finally:
+            self.reloading.clear()
             self.notify("READY=1")
 
     def daily_report(self, now: float) -> pathlib.Path:
@@ -366,6 +386,10 @@ class Service:
                 try:
                     while True:
                         self._job(self.jobs.get_nowait())
+                except queue.Empty:
+                    pass
+                try:
+                    self._finish_reload(self.reloads.get_nowait())
                 except queue.Empty:
                     pass
                 self.inbox.wait(0.05)
