@@ -182,3 +182,19 @@ def test_refused_spikes_and_out_of_range_count_as_implausible(tmp_path):
     (r,) = engine.message("t/store/ta", b"95", NOW + 70)  # outside the physical range
     assert r.reason == IMPLAUSIBLE
     assert ("store", "sensor_health.implausible_values") in _raised(engine.tick(NOW + 71))
+
+
+def test_check_shows_each_points_own_settings(tmp_path):
+    from thermowarden.site_check import check_site, resolved_map
+
+    _site(tmp_path)
+    report = check_site(str(tmp_path / "site.yaml"))
+    assert report.ok and report.model is not None
+    lines = resolved_map(report.model)
+    (ta,) = [line for line in lines if "t/office/ta " in line]
+    assert ta.endswith("(x 1 -1.5 °C; plausible 5..40 °C; at most 2 °C/min; "
+                       "stuck after 1800 s)")
+    (spare,) = [line for line in lines if "t/office/ta-f" in line]
+    assert spare.endswith("(x 1.02 +0.2 °C)")
+    (rh,) = [line for line in lines if "t/office/rh" in line]
+    assert rh.endswith("]")
