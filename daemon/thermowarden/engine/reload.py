@@ -17,11 +17,13 @@ may be added, removed or reordered):
 - site-wide: the daily outdoor means, today's outdoor mean so far, flood windows and held
   summaries, the daily digest counters, the counters of ingest.
 
-Pure: no I/O; returns the effects of withdrawn advisories and notes for the log.
+Pure: no I/O, and the old engine is left as it was (so a failed carry-over changes
+nothing); returns the effects of withdrawn advisories and notes for the log.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from collections import deque
 from typing import Any
 
@@ -200,9 +202,9 @@ def _carry_rules(old: Engine, new: Engine, same_config: BoolArray,
                 notes.append(f"reload: advisory {adv.id} ({sid}, {ro.rule.key}) stays live; "
                              "its rule or space changed, so its timers start again")
                 continue
-            adv.cleared_at = adv.updated_at
-            effects.append(old.publication.advisory_publish(adv))
-            effects.append(old.publication.advisory_persist(adv, {}))
+            gone = dataclasses.replace(adv, cleared_at=adv.updated_at)
+            effects.append(old.publication.advisory_publish(gone))
+            effects.append(old.publication.advisory_persist(gone, {}))
             notes.append(f"reload: advisory {adv.id} ({sid}, {ro.rule.key}) withdrawn: its "
                          "space or rule is no longer configured")
     return effects
@@ -214,6 +216,6 @@ def _move_advisory(new: Engine, ro: RuleRuntime, i: int, rn: RuleRuntime, j: int
         rn.raised_times[j] = deque(ro.raised_times[i])
     if adv is None:
         return
-    adv.space = j
-    rn.advisories[j] = adv
-    new.advisories.by_id[adv.id] = (rn, j)
+    moved = dataclasses.replace(adv, space=j)  # the old engine stays intact
+    rn.advisories[j] = moved
+    new.advisories.by_id[moved.id] = (rn, j)

@@ -326,7 +326,11 @@ class Service:
     def _finish_reload(self, prepared: Prepared) -> None:
         """Carry the running state into the new engine and swap it in (engine thread)."""
         try:
-            result = finish_reload(self.engine, prepared)
+            try:
+                result = finish_reload(self.engine, prepared)
+            except Exception:  # noqa: BLE001 - the old engine is intact: keep running it
+                log.exception("reload failed; still running the previous configuration")
+                return
             self.engine = result.engine
             for note in result.notes:
                 log.info("%s", note)
