@@ -124,6 +124,9 @@ def test_reload_keeps_unchanged_windows_and_advisories(tmp_path):
     live_c = [a for a in new.live_advisories() if new.model.space_ids[a.space] == "c"]
     assert [a.id for a in live_c] == [adv_c.id]
     assert result.effects == []
+    # the old engine was left as it was (a failed swap would keep running it)
+    assert adv_c.space == running.model.space_index["c"] == 2
+    assert running.live_advisories() == [adv_c]
 
     events = []
     for minute in range(70, 80):
