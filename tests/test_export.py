@@ -29,7 +29,8 @@ KEYS = {"operative_temperature": "operative", "pmv_iso": "pmv",
         "adaptive_en_II_lower": "en_lower", "adaptive_en_II_upper": "en_upper",
         "comfort_band_lower": "band_lower", "comfort_band_upper": "band_upper",
         "wbgt_effective": "wbgt", "wbgt_reference_unacclimatised": "ref_unacclimatised",
-        "wbgt_reference_acclimatised": "ref_acclimatised"}
+        "wbgt_reference_acclimatised": "ref_acclimatised", "heat_index": "heat_index",
+        "utci": "utci", "occupied": "occupied"}
 
 
 @pytest.fixture(scope="module")
@@ -87,12 +88,17 @@ def test_csv_round_trip(stored, tmp_path):
                 assert row[col] == ""
             elif col in CATEGORIES:
                 assert row[col] == v
+            elif col == "occupied":
+                assert row[col] == str(v)
             else:
                 assert float(row[col]) == v  # the same value, not merely close
                 present += 1
     assert present > 1000
-    # some WBGT values are in the day (the bakery), and categories were exported as labels
+    # some WBGT values are in the day (the bakery), UTCI outdoors, occupied and vacant
+    # hours, and categories were exported as labels
     assert any(r["wbgt_effective"] for r in got)
+    assert any(r["utci"] for r in got)
+    assert {r["occupied"] for r in got} == {"True", "False"}
     assert {r["comfort_category_iso"] for r in got} & {"A", "B", "C", "outside C"}
 
 

@@ -20,7 +20,12 @@ comfort_band_lower / _upper               °C      the space's comfort band (its
 wbgt_effective                            °C      ISO 7243 WBGT plus clothing adjustment
 wbgt_reference_unacclimatised             °C      ISO 7243 Annex A reference value
 wbgt_reference_acclimatised               °C      ISO 7243 Annex A reference value
+heat_index                                °C      NWS heat index (outdoor spaces)
+utci                                      °C      UTCI (outdoor spaces)
+occupied                                  -       whether the space counted as occupied
 ========================================  ======  ============================================
+
+A column a stored sample does not have (samples written by an older version) is empty.
 """
 
 from __future__ import annotations
@@ -47,7 +52,11 @@ COLUMNS: Final = (
     ("wbgt_effective", "wbgt", None),
     ("wbgt_reference_unacclimatised", "ref_unacclimatised", None),
     ("wbgt_reference_acclimatised", "ref_acclimatised", None),
+    ("heat_index", "heat_index", None),
+    ("utci", "utci", None),
+    ("occupied", "occupied", None),
 )
+BOOLEAN: Final = frozenset({"occupied"})
 HEADER: Final = ("time_utc", "epoch_s", "space") + tuple(c for c, _, _ in COLUMNS)
 FORMATS: Final = (".csv", ".parquet")
 
@@ -117,7 +126,8 @@ def _write_parquet(table: Iterator[dict[str, Any]], path: str | pathlib.Path) ->
     labelled = {name for name, _, labels in COLUMNS if labels is not None}
     fields = [pa.field("time_utc", pa.timestamp("s", tz="UTC")),
               pa.field("epoch_s", pa.float64()), pa.field("space", pa.string())]
-    fields += [pa.field(name, pa.string() if name in labelled else pa.float64())
+    fields += [pa.field(name, pa.string() if name in labelled else
+                        pa.bool_() if name in BOOLEAN else pa.float64())
                for name, _, _ in COLUMNS]
     schema = pa.schema(fields)
     data: dict[str, list[Any]] = {f.name: [] for f in fields}

@@ -36,7 +36,7 @@ from thermowarden.engine.engine import Engine
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
-              "shelved_until", "unknown_since", "lower_since")
+              "shelved_until", "unknown_since", "lower_since", "acted_now")
 _AS_AFTER_RESTART = ("state", "level", "last_notified", "shelved_until")
 
 
@@ -159,6 +159,7 @@ def _carry_spaces(old: Engine, new: Engine, pairs: list[tuple[int, int]]) -> Non
         sn.wbgt_weight[j] = so.wbgt_weight[i]
         sn.wbgt_minute[j] = so.wbgt_minute[i]
         new.health.implausible[j] = deque(old.health.implausible[i], maxlen=200)
+        new.health.implausible_points[j] = dict(old.health.implausible_points[i])
         pn.last_conditions[j] = po.last_conditions[i]
         pn.touched[j] = po.touched[i]
 
