@@ -255,6 +255,66 @@ def bench_rules(quick: bool) -> dict[str, float]:
     return {"rules_10k_ms": round(steady * 1000, 1), "rules_10k_raise_ms": round(raise_s * 1000)}
 
 
+def bench_reload(quick: bool) -> dict[str, float]:
+    """Hot reload of a 10,000-space site with full windows and live advisories, unchanged:
+    the pause of the engine thread (carrying the state over and swapping) and the time to
+    load and build the new engine beside it, against building the engine alone (the
+    baseline a restart pays, before its windows start again from nothing)."""
+    from thermowarden.engine import Engine
+    from thermowarden.rules import builtin_pack_names, load_rule_packs
+    from thermowarden.shell.reloading import finish_reload, prepare_reload
+    from thermowarden.site_model import build_site_model
+
+    n = 10_000
+    packs = load_rule_packs(builtin_pack_names())
+    config = _site(n, builtin_pack_names())
+    t0 = time.perf_counter()
+    engine = Engine(config, build_site_model(config), packs, conditions_every_s=0, start=0.0)
+    build_s = time.perf_counter() - t0
+    start = 1_780_000_000.0
+    for topic, payload, t in _messages(n, n * 5 * (2 if quick else 6), start):
+        engine.ingest.ingest(topic, payload, t)
+    engine.tick(start + 120.0)
+    prepare, pause = [], []
+    for _ in range(1 if quick else 3):
+        t0 = time.perf_counter()
+        prepared = prepare_reload(engine, lambda: (config, packs))
+        t1 = time.perf_counter()
+        engine = finish_reload(engine, prepared).engine
+        pause.append(time.perf_counter() - t1)
+        prepare.append(t1 - t0)
+    return {"reload_10k_pause_ms": round(statistics.median(pause) * 1000),
+            "reload_pause_vs_build_ratio": round(statistics.median(pause) / build_s, 2),
+            "reload_prepare_vs_build_ratio": round(statistics.median(prepare) / build_s, 2)}
+
+
+def bench_trusted_ingest(quick: bool) -> dict[str, float]:
+    """Ingest with calibration, a plausible range and a rate limit on every point, against
+    the same messages on points without them."""
+    from thermowarden.engine.ingest import Ingestor
+    from thermowarden.engine.state import SiteState
+    from thermowarden.site_model import build_site_model
+
+    n = 1000
+    plain = _site(n, [])
+    trusted = plain.model_copy(update={"templates": [
+        t.model_copy(update={"offset": 0.1, "scale": 1.01, "max_change_per_min": 1000.0})
+        if t.quantity not in ("fan_state",) else t for t in plain.templates]})
+    msgs = _messages(n, 60_000 if quick else 200_000, 1_780_000_000.0)
+    rates = {}
+    for name, config in (("plain", plain), ("trusted", trusted)):
+        model = build_site_model(config)
+        ingest = Ingestor(model, SiteState(model))
+        for topic, payload, t in msgs[:n * 5]:
+            ingest.ingest(topic, payload, t)
+        body = msgs[n * 5:]
+        t0 = time.perf_counter()
+        for topic, payload, t in body:
+            ingest.ingest(topic, payload, t)
+        rates[name] = len(body) / (time.perf_counter() - t0)
+    return {"ingest_trusted_vs_plain_ratio": round(rates["trusted"] / rates["plain"], 3)}
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats (under a minute)")
@@ -266,6 +326,8 @@ def main() -> int:
     figures.update(bench_ingest(args.quick))
     figures.update(bench_memory())
     figures.update(bench_rules(args.quick))
+    figures.update(bench_reload(args.quick))
+    figures.update(bench_trusted_ingest(args.quick))
     if not args.no_broker:
         from e2e import bench_e2e
 

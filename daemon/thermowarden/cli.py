@@ -8,6 +8,7 @@ Sub-commands:
   demo     the whole job on an invented site in a couple of minutes
   simulate publish an invented scenario to a broker, or write it as a feed file
   report   an HTML report per site and period, from the service's store or a feed
+  export   the conditions history from the service's store to CSV or Parquet
 """
 
 from __future__ import annotations
@@ -199,8 +200,13 @@ def cmd_run(args: argparse.Namespace) -> int:
         log.info("signal %s received", signal.Signals(signum).name)
         service.request_stop()
 
+    def reload(signum: int, frame: object) -> None:
+        log.info("signal SIGHUP received: reloading the configuration")
+        service.request_reload()
+
     signal.signal(signal.SIGTERM, stop)
     signal.signal(signal.SIGINT, stop)
+    signal.signal(signal.SIGHUP, reload)
     service.run()
     if running.http is not None:
         running.http.shutdown()
@@ -313,6 +319,66 @@ def cmd_report(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_export(args: argparse.Namespace) -> int:
+    """Export the conditions history from the service's store to CSV or Parquet."""
+    import datetime as dt
+    import pathlib
+    import zoneinfo
+
+    from thermowarden.export import ExportError, format_of, write
+    from thermowarden.shell.store import Store
+
+    config = _load_or_report(args.config)
+    if config is None:
+        return 1
+    try:
+        format_of(args.output)
+    except ExportError as exc:
+        print(f"thermowarden export: {exc}", file=sys.stderr)
+        return 2
+    start, end = args.start, args.end
+    if args.day is not None:
+        tz = zoneinfo.ZoneInfo(config.site.timezone)
+        start = dt.datetime.combine(args.day, dt.time(0), tz).timestamp()
+        end = dt.datetime.combine(args.day + dt.timedelta(days=1), dt.time(0), tz).timestamp()
+    if start is None or end is None or end <= start:
+        print("thermowarden export: give --day, or --from and --to (--to after --from)",
+              file=sys.stderr)
+        return 2
+    path = pathlib.Path(args.store) if args.store else \
+        pathlib.Path(args.state_dir) / f"{config.site.id}.sqlite3"
+    if not path.exists():
+        print(f"thermowarden export: no store at {path} (give --state-dir or --store)",
+              file=sys.stderr)
+        return 2
+    store = Store(path)
+    try:
+        samples = store.samples_between(start, end)
+    finally:
+        store.close()
+    spaces = set(args.spaces.split(",")) if args.spaces else None
+    try:
+        n = write(samples, args.output, spaces)
+    except ExportError as exc:
+        print(f"thermowarden export: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:
+        print(f"thermowarden export: cannot write {args.output}: {exc.strerror}",
+              file=sys.stderr)
+        return 2
+    print(f"{n} row(s) written to {args.output}", file=sys.stderr)
+    return 0
+
+
+def _day(text: str) -> object:
+    import datetime as dt
+
+    try:
+        return dt.date.fromisoformat(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a date (YYYY-MM-DD)") from None
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="thermowarden",
@@ -399,6 +465,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--output", metavar="FILE", help="HTML file to write "
                    "(default SITE-report.html)")
     p.set_defaults(func=cmd_report)
+
+    p = sub.add_parser("export", help="the conditions history from the store to CSV or Parquet")
+    p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
+    p.add_argument("output", metavar="FILE", help="FILE.csv or FILE.parquet (Parquet needs "
+                   "the parquet extra)")
+    p.add_argument("--day", type=_day, metavar="YYYY-MM-DD",
+                   help="one calendar day in the site's time zone")
+    p.add_argument("--from", dest="start", type=_when, metavar="WHEN", help="start (ISO 8601)")
+    p.add_argument("--to", dest="end", type=_when, metavar="WHEN", help="end (ISO 8601)")
+    p.add_argument("--spaces", metavar="ID,ID", help="only these spaces")
+    p.add_argument("--state-dir", default="state", metavar="DIR",
+                   help="the service's state directory (default ./state)")
+    p.add_argument("--store", metavar="FILE", help="the SQLite store itself (for a shard)")
+    p.set_defaults(func=cmd_export)
     return parser
 
 

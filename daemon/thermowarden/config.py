@@ -35,7 +35,7 @@ from pydantic import (
 )
 
 from thermowarden.core import heat_stress, radiation
-from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.quantities import QUANTITIES, STATE_QUANTITIES
 from thermowarden.core.topics import TemplateError, TopicTemplate
 from thermowarden.core.units import UnitError, converter
 from thermowarden.yaml_positions import (
@@ -138,6 +138,23 @@ class PointBase(Strict):
     sensor: str | None = None
     globe_diameter_m: float | None = Field(None, ge=0.02, le=0.3)
     globe_emissivity: float | None = Field(None, ge=0.5, le=1.0)
+    offset: float = Field(0.0, ge=-1e6, le=1e6)
+    """Calibration: added after the reading is converted to the canonical unit (and scaled),
+    for example ``-1.5`` for a sensor that reads 1.5 K high."""
+    scale: float = Field(1.0, gt=0.0, le=1e6)
+    """Calibration: the canonical value is multiplied by this before ``offset`` is added."""
+    plausible_min: float | None = None
+    """Lowest believable value for this point, in the canonical unit (°C, %, m/s, W/m²,
+    Pa); narrows the physical range of the quantity. Values below are refused as implausible."""
+    plausible_max: float | None = None
+    """Highest believable value for this point, in the canonical unit."""
+    max_change_per_min: float | None = Field(None, gt=0.0)
+    """Largest believable change per minute (canonical unit) between accepted readings; a
+    larger jump is refused as implausible (a spike), and later readings are compared with
+    the last accepted one."""
+    stuck_after_s: float | None = Field(None, ge=60.0, le=30 * 86_400)
+    """A fresh point whose value has not changed for this long counts as stuck (sensor
+    health); default 3 hours."""
 
     _shorthand = field_validator("format", mode="before")(_format_shorthand)
 
@@ -168,6 +185,23 @@ class PointBase(Strict):
         if isinstance(self.format, StateFormat) and self.quantity not in (
                 "shading_position", "fan_state", "occupancy"):
             raise ValueError("format state applies to shading_position, fan_state, occupancy")
+        q = QUANTITIES[self.quantity]
+        if isinstance(self.format, StateFormat) or self.quantity in STATE_QUANTITIES:
+            tuned = [k for k in ("offset", "scale", "max_change_per_min", "stuck_after_s")
+                     if k in self.model_fields_set]
+            if tuned:
+                raise ValueError(f"{', '.join(tuned)} apply to measured quantities, not to the "
+                                 f"state {self.quantity}")
+        low = q.low if self.plausible_min is None else self.plausible_min
+        high = q.high if self.plausible_max is None else self.plausible_max
+        if low >= high:
+            raise ValueError(f"plausible_min ({low:g}) must be below plausible_max ({high:g}) "
+                             f"in {q.unit}")
+        for name, value in (("plausible_min", self.plausible_min),
+                            ("plausible_max", self.plausible_max)):
+            if value is not None and not q.low <= value <= q.high:
+                raise ValueError(f"{name} {value:g} is outside the physical range of "
+                                 f"{self.quantity} ({q.low:g}..{q.high:g} {q.unit})")
         return self
 
     @property
@@ -433,6 +467,125 @@ class EvaluationConfig(Strict):
     flood_window_s: float = Field(600.0, ge=10, le=86_400)
 
 
+class RetentionConfig(Strict):
+    """How long the store keeps the event history and the report samples (the 5-minute
+    conditions behind reports and ``thermowarden export``), in days."""
+
+    events_days: float = Field(90.0, ge=1, le=3660)
+    samples_days: float = Field(90.0, ge=1, le=3660)
+
+
+# ----------------------------------------------------------------------------- delivery
+
+DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
+                         "shelved", "unshelved", "cleared", "summary"]
+
+
+class WebhookConfig(Strict):
+    """POST each event as JSON to ``url``, signed with HMAC-SHA256 over ``<timestamp>.<body>``
+    with a shared secret (from the environment, e.g.
+    THERMOWARDEN_DELIVERY__AUDIENCES__SAFETY__WEBHOOK__SECRET, or ``secret_file``)."""
+
+    url: str
+    secret: SecretStr | None = None
+    secret_file: str | None = None
+    timeout_s: float = Field(10.0, gt=0, le=300)
+
+    @field_validator("url")
+    @classmethod
+    def _url(cls, v: str) -> str:
+        if not re.match(r"^https?://[^/\s]+(/\S*)?$", v):
+            raise ValueError(f"{v!r} is not an http:// or https:// URL")
+        return v
+
+    @model_validator(mode="after")
+    def _secret(self) -> WebhookConfig:
+        if self.secret is None and self.secret_file is None:
+            raise ValueError("a webhook needs a shared secret: secret_file, or the environment "
+                             "variable ..._WEBHOOK__SECRET")
+        return self
+
+
+class SmtpConfig(Strict):
+    """The SMTP relay. ``tls``: ``starttls`` (default), ``ssl`` (implicit TLS) or ``none``
+    (a relay on the same host only). The password comes from the environment or
+    ``password_file``, never from the site file."""
+
+    host: str
+    port: int = Field(587, ge=1, le=65535)
+    tls: Literal["starttls", "ssl", "none"] = "starttls"
+    username: str | None = None
+    password: SecretStr | None = None
+    password_file: str | None = None
+    timeout_s: float = Field(30.0, gt=0, le=300)
+
+
+class EmailConfig(Strict):
+    """Send each event (or digest) as a plain-text e-mail through an SMTP relay."""
+
+    smtp: SmtpConfig
+    sender: str = Field(alias="from", pattern=r"^[^@\s]+@[^@\s]+$")
+    to: list[Annotated[str, Field(pattern=r"^[^@\s]+@[^@\s]+$")]] = Field(min_length=1)
+    subject_prefix: str = "[thermowarden]"
+
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+def _default_events() -> list[DeliveredEvent]:
+    return ["raised", "escalated", "renotified", "cleared", "summary"]
+
+
+_QUIET = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-3]):([0-5]\d)$")
+
+
+class AudienceDelivery(Strict):
+    """How one audience is reached besides MQTT. ``quiet_hours`` (site time zone,
+    ``HH:MM-HH:MM``, may span midnight): events other than urgent ones wait and go out as one
+    digest when the quiet hours end; urgent ones always go out at once. Low-priority events
+    are collected into one digest every ``low_priority_digest_s`` (0: sent one by one)."""
+
+    webhook: WebhookConfig | None = None
+    email: EmailConfig | None = None
+    events: list[DeliveredEvent] = Field(default_factory=_default_events)
+    quiet_hours: str | None = None
+    low_priority_digest_s: float = Field(3600.0, ge=0, le=7 * 86_400)
+
+    @field_validator("quiet_hours")
+    @classmethod
+    def _quiet(cls, v: str | None) -> str | None:
+        if v is not None:
+            m = _QUIET.match(v)
+            if not m:
+                raise ValueError(f"{v!r} is not HH:MM-HH:MM (site time zone)")
+            if (m.group(1), m.group(2)) == (m.group(3), m.group(4)):
+                raise ValueError(f"{v!r} starts and ends at the same time")
+        return v
+
+    @model_validator(mode="after")
+    def _some_channel(self) -> AudienceDelivery:
+        if self.webhook is None and self.email is None:
+            raise ValueError("give a webhook, an email, or both")
+        return self
+
+
+class RetryConfig(Strict):
+    """Retries of a failed delivery: exponential backoff from ``first_s`` doubling up to
+    ``max_s`` (with ±20 % jitter), at most ``max_attempts`` attempts in all."""
+
+    first_s: float = Field(5.0, ge=0.01, le=3600)
+    max_s: float = Field(900.0, ge=0.01, le=86_400)
+    max_attempts: int = Field(12, ge=1, le=1000)
+
+
+class DeliveryConfig(Strict):
+    """Delivery of events to people by webhook and e-mail, per audience (optional)."""
+
+    audiences: dict[Literal["facilities", "safety", "integrator"], AudienceDelivery] = Field(
+        default_factory=dict)
+    retry: RetryConfig = Field(default_factory=RetryConfig)
+    queue_size: int = Field(10_000, ge=10, le=1_000_000)
+
+
 class SiteConfig(Strict):
     """The whole site file."""
 
@@ -446,6 +599,8 @@ class SiteConfig(Strict):
     spaces: list[SpaceConfig] = Field(default_factory=list)
     spaces_csv: str | None = None
     rule_dirs: list[str] = Field(default_factory=list)
+    retention: RetentionConfig = Field(default_factory=RetentionConfig)
+    delivery: DeliveryConfig = Field(default_factory=DeliveryConfig)
 
     @model_validator(mode="after")
     def _check(self) -> SiteConfig:
@@ -655,6 +810,30 @@ def _read_yaml_file(path: str | os.PathLike[str]) -> tuple[Any, SourceMap]:
         raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
 
 
+def _secrets_in_file(data: dict[str, Any], smap: SourceMap) -> list[ConfigIssue]:
+    """Delivery secrets written into the site file are refused (like the broker password)."""
+    issues: list[ConfigIssue] = []
+    delivery = data.get("delivery")
+    audiences = delivery.get("audiences") if isinstance(delivery, dict) else None
+    if not isinstance(audiences, dict):
+        return issues
+    for name, aud in audiences.items():
+        if not isinstance(aud, dict):
+            continue
+        for path in (("webhook", "secret"), ("email", "smtp", "password")):
+            node: Any = aud
+            for part in path[:-1]:
+                node = node.get(part) if isinstance(node, dict) else None
+            if isinstance(node, dict) and path[-1] in node:
+                where = ("delivery", "audiences", name) + path
+                env = ENV_PREFIX + "__".join(str(p).upper() for p in where)
+                issues.append(ConfigIssue(smap.find(where, key=True),
+                                          f"{'.'.join(map(str, where))}: secrets do not belong "
+                                          f"in the site file; set {env} or "
+                                          f"{path[-1]}_file"))
+    return issues
+
+
 def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = None
               ) -> SiteConfig:
     """Load and validate a site file (and the CSV it refers to).
@@ -676,6 +855,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
         issues.append(ConfigIssue(smap.find(("broker", "password"), key=True),
                                   "broker.password: secrets do not belong in the site file; "
                                   "set THERMOWARDEN_BROKER__PASSWORD or broker.password_file"))
+    issues.extend(_secrets_in_file(data, smap))
     env_paths = _apply_environment(data, environ)
     csv_name = data.get("spaces_csv")
     if isinstance(csv_name, str):

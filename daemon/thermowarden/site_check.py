@@ -5,7 +5,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
-from thermowarden.site_model import SITE, SiteModel, build_site_model
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.site_model import (
+    DEFAULT_STUCK_AFTER_S,
+    SITE,
+    PointSpec,
+    SiteModel,
+    build_site_model,
+)
 
 
 @dataclass
@@ -83,6 +90,7 @@ def resolved_map(model: SiteModel) -> list[str]:
         fmt = p.fmt.type
         line = f"    {p.quantity:<26} {p.topic}  [{p.unit or '-'}, {fmt}, every {p.interval_s:g} s"
         line += f", {tags}]" if tags else "]"
+        line += _trust(p)
         by_space.setdefault(p.space, []).append(line)
     if SITE in by_space:
         lines.append(f"site {model.config.site.id} (outdoor, shared)")
@@ -102,3 +110,18 @@ def resolved_map(model: SiteModel) -> list[str]:
             lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "
                          "appear")
     return lines
+
+
+def _trust(p: PointSpec) -> str:
+    """The point's own calibration and limits, when it has any, for the resolved map."""
+    q = QUANTITIES[p.quantity]
+    parts = []
+    if p.scale != 1.0 or p.offset != 0.0:
+        parts.append(f"x {p.scale:g} {p.offset:+g} {q.unit}")
+    if (p.low, p.high) != (q.low, q.high):
+        parts.append(f"plausible {p.low:g}..{p.high:g} {q.unit}")
+    if p.max_change_per_s != float("inf"):
+        parts.append(f"at most {p.max_change_per_s * 60:g} {q.unit}/min")
+    if p.stuck_after_s != DEFAULT_STUCK_AFTER_S:
+        parts.append(f"stuck after {p.stuck_after_s:g} s")
+    return f" ({'; '.join(parts)})" if parts else ""

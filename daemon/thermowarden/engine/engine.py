@@ -23,7 +23,7 @@ from thermowarden.effects import Effect, Persist
 from thermowarden.engine.advisories import Advisories, Advisory, RuleRuntime
 from thermowarden.engine.evaluation import Evaluation, rule_truths
 from thermowarden.engine.health import PointHealth
-from thermowarden.engine.ingest import IMPLAUSIBLE, Ingestor, Rejection
+from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
 from thermowarden.engine.state import SiteState, Snapshot
 from thermowarden.engine.texts import Texts
@@ -73,7 +73,7 @@ class Engine:
                 if space != SITE:
                     self.publication.touched[space] = True
         for r in rejections:
-            if r.reason == IMPLAUSIBLE:
+            if r.reason in IMPLAUSIBLE_REASONS:
                 self.health.note_implausible(r.point, now)
         return rejections
 

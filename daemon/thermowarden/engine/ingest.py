@@ -1,9 +1,13 @@
 """From an MQTT message to accepted readings in :class:`SiteState`, or counted rejections.
 
-Each message is matched to its point(s), decoded, converted to SI, and checked: size,
-unknown topic or space, malformed or non-numeric payload, non-finite value, unknown unit,
-physically implausible value, timestamp too old or in the future, duplicate (QoS 1
-redelivery: same point and payload timestamp) and out of order. A rejection is counted
+Each message is matched to its point(s), decoded, converted to SI, corrected by the
+point's calibration (``value * scale + offset``), and checked: size, unknown topic or space,
+malformed or non-numeric payload, non-finite value, unknown unit, implausible value (outside
+the physical range of the quantity narrowed by the point's ``plausible_min``/``max``),
+timestamp too old or in the future, duplicate (QoS 1 redelivery: same point and payload
+timestamp), out of order, and a change since the last accepted reading faster than the
+point's ``max_change_per_min`` (a spike; the next readings are compared with the last
+accepted one, so a real step is accepted once enough time has passed). A rejection is counted
 by reason and point and returned so the shell can log it at a limited rate. Nothing a
 sensor sends raises out of :meth:`Ingestor.ingest`.
 """
@@ -27,6 +31,9 @@ PAYLOAD_TOO_LARGE: Final = "payload_too_large"
 UNKNOWN_TOPIC: Final = "unknown_topic"
 UNKNOWN_SPACE: Final = "unknown_space"
 IMPLAUSIBLE: Final = "implausible"
+IMPLAUSIBLE_CHANGE: Final = "implausible_change"
+IMPLAUSIBLE_REASONS: Final = frozenset({IMPLAUSIBLE, IMPLAUSIBLE_CHANGE})
+"""Rejections that count as implausible readings in sensor health."""
 TOO_OLD: Final = "too_old"
 IN_FUTURE: Final = "in_future"
 DUPLICATE: Final = "duplicate"
@@ -66,6 +73,10 @@ class Ingestor:
         """Points that took a reading from the last message."""
 
     # ---------------------------------------------------------------- routing
+    def resolve(self, topic: str) -> list[int] | Rejection:
+        """The points a topic feeds (creating template points on first use), or why none."""
+        return self._resolve(topic)
+
     def _resolve(self, topic: str) -> list[int] | Rejection:
         cached = self._cache.get(topic)
         if cached is not None:
@@ -173,7 +184,7 @@ class Ingestor:
                 convert = converter(QUANTITIES[spec.quantity].kind, d.unit)
             except UnitError as exc:
                 return self._reject(payloads.UNKNOWN_UNIT, spec.key, topic, str(exc))
-        value = convert(d.value)
+        value = convert(d.value) * spec.scale + spec.offset
         if not math.isfinite(value):
             return self._reject(payloads.NOT_FINITE, spec.key, topic, "converted value")
         if not spec.low <= value <= spec.high:
@@ -187,8 +198,16 @@ class Ingestor:
         state = self.state
         if d.time is not None and t == state.last_source_time[pid]:
             return self._reject(DUPLICATE, spec.key, topic, "same point and timestamp")
-        if t < state.last_time[pid]:
+        last_t = state.last_time[pid]
+        if t < last_t:
             return self._reject(OUT_OF_ORDER, spec.key, topic, "older than the latest reading")
+        if spec.max_change_per_s != math.inf and last_t == last_t:  # a previous reading
+            change = abs(value - state.last_value[pid])
+            allowed = spec.max_change_per_s * (t - last_t)
+            if change > allowed + 1e-9:
+                return self._reject(IMPLAUSIBLE_CHANGE, spec.key, topic,
+                                    f"changed {change:.4g} in {t - last_t:.0f} s, more than "
+                                    f"{spec.max_change_per_s * 60:g} per minute")
         state.record(pid, t, value, t if d.time is not None else math.nan)
         self.accepted += 1
         self.last_points.append(pid)

@@ -7,6 +7,7 @@ import os
 import pathlib
 import queue
 import zlib
+from collections.abc import Mapping
 from dataclasses import dataclass
 from http.server import ThreadingHTTPServer
 
@@ -17,10 +18,12 @@ from thermowarden import __version__
 from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConfig, load_site
 from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.engine import Engine, iso
-from thermowarden.rules import load_rule_packs
+from thermowarden.rules import CompiledPack, load_rule_packs
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
+from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store
 from thermowarden.site_model import build_site_model
@@ -61,16 +64,13 @@ def warm_up() -> None:
     compute_indices(s, with_phs=True)
 
 
-def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
-              state_dir: str | None = None, shard: tuple[int, int] | None = None,
-              spaces: list[str] | None = None, protocol: str | None = None,
-              clock: Clock | None = None, http_host: str = "127.0.0.1",
-              overrides: dict[str, str] | None = None) -> Running:
-    """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
-
-    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
-    ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
-    """
+def load_configuration(config_path: str, *, broker_url: str | None = None,
+                       protocol: str | None = None, shard: tuple[int, int] | None = None,
+                       spaces: list[str] | None = None, overrides: dict[str, str] | None = None
+                       ) -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
+    """The site (with the command line's overrides and this instance's spaces) and its rule
+    packs, validated as ``check`` does; at start and at every reload. Raises
+    :class:`ConfigError` (or ValueError for ``--spaces`` naming an unknown space)."""
     config = load_site(config_path, {**os.environ, **(overrides or {})})
     if broker_url or protocol:
         override = {k: v for k, v in (("url", broker_url), ("protocol", protocol)) if v}
@@ -86,7 +86,24 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     if spaces:
         config = only_spaces(config, spaces)
     names = {n for s in config.spaces for n in config.rule_packs(s)}
-    packs = load_rule_packs(names, config.rule_dirs, base=config_path)
+    return config, load_rule_packs(names, config.rule_dirs, base=config_path)
+
+
+def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
+              state_dir: str | None = None, shard: tuple[int, int] | None = None,
+              spaces: list[str] | None = None, protocol: str | None = None,
+              clock: Clock | None = None, http_host: str = "127.0.0.1",
+              overrides: dict[str, str] | None = None) -> Running:
+    """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
+
+    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
+    ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
+    """
+    def load() -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
+        return load_configuration(config_path, broker_url=broker_url, protocol=protocol,
+                                  shard=shard, spaces=spaces, overrides=overrides)
+
+    config, packs = load()
     model = build_site_model(config)
     warm_up()
     clock = clock or Clock()
@@ -121,8 +138,13 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
                     {**status, "state": "offline"}, inbox, control, metrics, instance,
                     command_prefix=f"{prefix}/commands/", now=clock.now)
+    # always there, so a reload can turn delivery on; idle without audiences
+    delivery = Delivery(config.delivery, config.site.timezone, store.path,
+                        registry=metrics.registry, now=clock.now)
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
-                      f"{prefix}/replies", clock)
+                      f"{prefix}/replies", clock, delivery=delivery,
+                      reloader=lambda old: prepare_reload(old, load),
+                      per_space_subscriptions=shard is not None or bool(spaces))
     http = None
     if http_port is not None:
         http = start_http(http_port, metrics, service.alive, service.ready, host=http_host)

@@ -171,6 +171,21 @@ class MqttLink:
                 self._pending_subs.add(mid)
         self.control.put(Control("connected"))
 
+    def set_subscriptions(self, subscriptions: list[str]) -> None:
+        """Change the topic filters (after a reload): unsubscribe what is gone, subscribe
+        what is new; every later connect subscribes to the new list."""
+        old = set(self.subscriptions)
+        self.subscriptions = list(subscriptions)
+        if not self.connected.is_set():
+            return
+        removed = sorted(old - set(subscriptions))
+        if removed:
+            self.client.unsubscribe(removed)
+        for topic in sorted(set(subscriptions) - old):
+            _, mid = self.client.subscribe(topic, qos=1)
+            if mid is not None:
+                self._pending_subs.add(mid)
+
     def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
                        properties: Any) -> None:
         self.connected.clear()

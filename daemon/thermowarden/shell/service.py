@@ -22,16 +22,17 @@ from apscheduler.triggers.interval import IntervalTrigger
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.shell import systemd
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
+from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
 from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")
 
 PROMPT_EVAL_S = 0.25
 """A space with new readings is evaluated within this long (not only at the next tick)."""
-EVENT_RETENTION_DAYS = 90
 DRAIN_BATCH = 5000
 BATCH_PAUSE_S = 0.005
 
@@ -68,7 +69,10 @@ class Service:
     def __init__(self, engine: Engine, link: MqttLink, store: Store, metrics: Metrics,
                  inbox: Inbox, control: queue.Queue[Control],
                  command_prefix: str, reply_topic: str, clock: Clock,
-                 notify: Callable[[str], bool] = systemd.notify) -> None:
+                 notify: Callable[[str], bool] = systemd.notify,
+                 delivery: Delivery | None = None,
+                 reloader: Callable[[Engine], Prepared] | None = None,
+                 per_space_subscriptions: bool = False) -> None:
         self.engine = engine
         self.link = link
         self.store = store
@@ -79,6 +83,13 @@ class Service:
         self.reply_topic = reply_topic
         self.clock = clock
         self.notify = notify
+        self.delivery = delivery
+        """Webhook and e-mail delivery (its own worker thread), when configured."""
+        self.reloader = reloader
+        """Loads and builds a new engine for a reload (run beside the engine thread)."""
+        self.per_space_subscriptions = per_space_subscriptions
+        self.reloads: queue.Queue[Prepared] = queue.Queue()
+        self.reloading = threading.Event()
         self.stop_requested = threading.Event()
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
@@ -147,6 +158,9 @@ class Service:
                 mid = self.link.publish(e.topic, e.payload, 1, False)
                 if mid is not None:
                     self.inflight[mid] = seq
+                if self.delivery is not None:
+                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
+                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -262,15 +276,76 @@ class Service:
         if name == "tick" or name == "rollup":
             self.evaluate()
         elif name == "prune":
-            n = self.store.prune_events(now - EVENT_RETENTION_DAYS * 86_400)
-            m = self.store.prune_samples(now - EVENT_RETENTION_DAYS * 86_400)
-            log.info("pruned %d event(s) and %d sample(s) older than %d days", n, m,
-                     EVENT_RETENTION_DAYS)
+            keep = self.engine.config.retention
+            n = self.store.prune_events(now - keep.events_days * 86_400)
+            m = self.store.prune_samples(now - keep.samples_days * 86_400)
+            log.info("pruned %d event(s) older than %g days and %d sample(s) older than %g "
+                     "days", n, keep.events_days, m, keep.samples_days)
+        elif name == "reload":
+            self._start_reload()
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
         elif name == "report":
             self.daily_report(now)
+
+    def request_reload(self) -> None:
+        """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
+        self.jobs.put("reload")
+
+    def _start_reload(self) -> None:
+        """Load and build the new configuration beside the engine thread, which goes on
+        evaluating meanwhile; :meth:`_finish_reload` swaps it in."""
+        if self.reloader is None:
+            log.warning("reload requested but not available here")
+            return
+        if self.reloading.is_set():
+            log.info("a reload is already in progress")
+            return
+        self.reloading.set()
+        self.notify(f"RELOADING=1\nMONOTONIC_USEC={time.monotonic_ns() // 1000}")
+        old = self.engine
+        reloader = self.reloader
+
+        def prepare() -> None:
+            try:
+                self.reloads.put(reloader(old))
+                return
+            except ReloadRefused as exc:
+                for line in exc.lines:
+                    log.error("reload refused: %s", line)
+                log.error("reload refused: %d problem(s); still running the previous "
+                          "configuration", len(exc.lines))
+            except Exception:  # noqa: BLE001 - a failed reload must not stop the service
+                log.exception("reload failed; still running the previous configuration")
+            self.reloading.clear()
+            self.notify("READY=1")
+
+        threading.Thread(target=prepare, name="thermowarden-reload", daemon=True).start()
+
+    def _finish_reload(self, prepared: Prepared) -> None:
+        """Carry the running state into the new engine and swap it in (engine thread)."""
+        try:
+            try:
+                result = finish_reload(self.engine, prepared)
+            except Exception:  # noqa: BLE001 - the old engine is intact: keep running it
+                log.exception("reload failed; still running the previous configuration")
+                return
+            self.engine = result.engine
+            for note in result.notes:
+                log.info("%s", note)
+            self.execute(result.effects)
+            config = result.engine.config
+            subs = result.model.subscriptions(per_space=self.per_space_subscriptions)
+            self.link.set_subscriptions(subs + [f"{self.command_prefix}+"])
+            if self.delivery is not None:
+                self.delivery.reconfigure(config.delivery, config.site.timezone)
+            self.dirty = True
+            log.info("reloaded: %d space(s), %d point(s), %d rule(s)",
+                     result.model.n_spaces, len(result.model.points), len(result.engine.rules))
+        finally:
+            self.reloading.clear()
+            self.notify("READY=1")
 
     def daily_report(self, now: float) -> pathlib.Path:
         """Write yesterday's report (local calendar day) next to the store."""
@@ -299,6 +374,8 @@ class Service:
         self._schedule()
         if self.clock.speed != 1.0:
             self.scheduler.start()
+        if self.delivery is not None:
+            self.delivery.start()
         self.link.start()
         self.evaluate()
         ready_sent = False
@@ -313,6 +390,10 @@ class Service:
                 try:
                     while True:
                         self._job(self.jobs.get_nowait())
+                except queue.Empty:
+                    pass
+                try:
+                    self._finish_reload(self.reloads.get_nowait())
                 except queue.Empty:
                     pass
                 self.inbox.wait(0.05)
@@ -364,6 +445,8 @@ class Service:
             except queue.Empty:
                 pass
         self.link.stop()
+        if self.delivery is not None:
+            self.delivery.stop()
         depth = self.store.outbox_depth()
         if depth:
             log.warning("%d event(s) not yet acknowledged stay in the outbox for the next start",
