@@ -188,7 +188,8 @@ def natural_wet_bulb_liljegren(air_c: FloatArray, rh: FloatArray, air_speed: Flo
 
     all_sub = np.arange(idx.size)
     lo = np.full(idx.size, -40.0)
-    hi = np.maximum(ta[idx], tr_k - 273.15) + 5.0
+    # the wick stays below boiling: bracket up to 20 K above the air at most
+    hi = np.minimum(np.maximum(ta[idx], tr_k - 273.15) + 5.0, ta[idx] + 20.0)
     tw = illinois(residual, lo, hi, residual(lo, all_sub), residual(hi, all_sub),
                   tolerance=1e-3, max_iterations=100, residual_tolerance=1e-4)
     out[idx] = tw

@@ -502,8 +502,8 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                     "estimate's range: air_temperature 0-50 °C (a liquid wick)")
     est_app.require(_between(s.air_speed, 0.0, 10.0), "outside the natural wet-bulb "
                     "estimate's range: air_speed 0-10 m/s")
-    est_app.require(_between(mrt - s.air_temperature, -10.0, 60.0), "outside the natural "
-                    "wet-bulb estimate's range: mean radiant minus air temperature -10..60 K")
+    est_app.require(_between(mrt - s.air_temperature, -10.0, 70.0), "outside the natural "
+                    "wet-bulb estimate's range: mean radiant minus air temperature -10..70 K")
     est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
                              "radiation exchanged with the mean radiant temperature")
     out["natural_wet_bulb_estimated"] = est_col
