@@ -600,9 +600,10 @@ HEAT_INDEX_MAX_C: Final = 60.0
 temperature tables (about 136-140 °F), where the NWS regression only extrapolates
 (decision; the NWS states the regression is not valid beyond Steadman's data)."""
 
-HUMIDEX_MAX_DEW_POINT_C: Final = 35.0
-"""Humidex is not given above this dew point: beyond the dew points of Environment Canada's
-humidex tables (decision, from the tables' extent as recalled)."""
+HUMIDEX_MAX_DEW_POINT_C: Final = 40.0
+"""Humidex is not given above this dew point: outdoor dew points have not been observed much
+above 35 °C (from memory), so beyond 40 °C the reading, not the weather, is in question
+(decision)."""
 
 
 def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -> None:
@@ -626,8 +627,8 @@ def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -
     hx.require(_between(s.air_temperature, 20.0, 50.0),
                "humidex applies at air_temperature 20-50 °C")
     hx.require(~(psy.dew_point(s.air_temperature, rh) > HUMIDEX_MAX_DEW_POINT_C),
-               "humidex not given above a dew point of 35 °C (beyond Environment Canada's "
-               "tables)")
+               "humidex not given above a dew point of 40 °C (beyond any outdoor dew point "
+               "observed: check the humidity sensor)")
     out["humidex"] = hx.column(outdoor.humidex(s.air_temperature, rh), "1",
                                "Environment Canada humidex (Masterson and Richardson 1979; "
                                "vapour pressure from the dew point)")
