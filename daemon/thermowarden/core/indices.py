@@ -541,7 +541,7 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     out["wbgt_reference_acclimatised"] = m_app.column(ref_a, "°C", heat_stress.REFERENCE_METHOD)
     out["wbgt_reference_unacclimatised"] = m_app.column(ref_u, "°C", heat_stress.REFERENCE_METHOD)
     margin_app = Applicability(n)
-    margin_app.require(m_app.ok, "no reference value (see metabolic_rate)")
+    margin_app.require_from(m_app)
     margin_app.require(np.isfinite(eff), "no WBGT (see wbgt)")
     out["wbgt_margin_acclimatised"] = margin_app.column(ref_a - eff, "K",
                                                         heat_stress.REFERENCE_METHOD)
