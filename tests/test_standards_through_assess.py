@@ -188,7 +188,8 @@ def test_natural_wet_bulb_liljegren(row, monkeypatch, capsys):
                 "air_speed": row["v"], "mean_radiant_temperature": row["tr"],
                 "barometric_pressure": row["p_hpa"]}, monkeypatch, capsys)
     got = value(r, "natural_wet_bulb_estimated")
-    assert got == pytest.approx(row["tnw"], abs=PUBLISHED["natural_wet_bulb_liljegren"]["tolerance"])
+    tol = PUBLISHED["natural_wet_bulb_liljegren"]["tolerance"]
+    assert got == pytest.approx(row["tnw"], abs=tol)
 
 
 @pytest.mark.parametrize("row", table("natural_wet_bulb_liljegren_sun"))

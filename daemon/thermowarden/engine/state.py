@@ -430,6 +430,8 @@ class SiteState:
         air = np.where(outdoor_space & np.isnan(air), outdoor["outdoor_air_temperature"], air)
         rh = np.where(outdoor_space & np.isnan(rh), outdoor["outdoor_relative_humidity"], rh)
         from_wind = outdoor_space & np.isnan(speed)
+        speed_height = ctx["air_speed_height_m"]
+        assert isinstance(speed_height, np.ndarray)
         speed = np.where(from_wind, outdoor["wind_speed"], speed)
 
         self._roll_outdoor(now, outdoor["outdoor_air_temperature"])
@@ -465,7 +467,7 @@ class SiteState:
             running_mean_outdoor=np.full(n, rm[0]),
             plane_radiant=planes,
             **{**ctx, "air_speed_height_m": np.where(from_wind, self.wind_height_m,
-                                                     ctx["air_speed_height_m"])},
+                                                     speed_height)},
         )
         present = {k: np.isfinite(v) for k, v in (
             ("air_temperature", air), ("relative_humidity", rh), ("air_speed", speed))}
