@@ -128,7 +128,7 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
         raise InputError("units", "expected an object of key -> unit")
     units: dict[str, str] = {}
     for k, u in units_raw.items():
-        if k not in MEASURED and k not in _SIDE_KEYS:
+        if k not in MEASURED and k not in _SIDE_KEYS and k != "barometric_pressure":
             raise InputError(f"units.{k}", f"not a measured key{_suggest(k)}")
         if not isinstance(u, str):
             raise InputError(f"units.{k}", "expected a unit name")
