@@ -165,3 +165,22 @@ def test_indoor_spaces_get_no_outdoor_weather_indices(conditions):
     for key in ("heat_index", "humidex", "utci"):
         assert conditions["office"][key]["value"] is None
         assert conditions["office"][key]["reason"]
+
+
+def test_config_posture_spellings_and_height_m(tmp_path):
+    """The site accepts common posture spellings; height_m belongs to speed sensors only."""
+    from thermowarden.config import ConfigError
+
+    ok = tmp_path / "ok.yaml"
+    ok.write_text("site: {id: p, timezone: UTC}\nspaces:\n  - id: a\n"
+                  "    people: {met: 1.2, clo: 0.5, posture: Seated}\n"
+                  "    points:\n      - {topic: p/a/v, quantity: air_speed, height_m: 1.5}\n")
+    config = load_site(ok, {})
+    assert config.spaces[0].people is not None and config.spaces[0].people.posture == "seated"
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("site: {id: p, timezone: UTC}\nspaces:\n  - id: a\n"
+                   "    points:\n      - {topic: p/a/ta, quantity: air_temperature, "
+                   "height_m: 1.5}\n")
+    with pytest.raises(ConfigError) as err:
+        load_site(bad, {})
+    assert "height_m applies only to air_speed and wind_speed" in str(err.value.issues)
