@@ -2,9 +2,10 @@
 
 A small invented site whose spaces reproduce, fed reading by reading through MQTT topics
 and evaluated by ticks: ISO 7730 Table D.1 row 12 (1.6 met), the ASHRAE 55 SET table row
-at 2.0 met, an ISO 7933:2004 case for a seated hot-work space, Liljegren et al.'s natural
-wet bulb (their reference code), and UTCI from a wind sensor at 2 m. A hot-work space with no
-metabolic rate configured gets WBGT but no reference value, with a reason. Values and
+at 2.0 met, ISO 7933:2004 Annex F's first example and a seated hot-work case (both in the
+2004 edition while the site's other hot-work spaces use 2023), Liljegren et al.'s natural
+wet bulb (their reference code), and UTCI from a wind sensor at 2 m. A hot-work space with
+no metabolic rate configured gets WBGT but no reference value, with a reason. Values and
 sources: tests/data/published_values.yaml.
 """
 
@@ -26,6 +27,7 @@ from thermowarden.site_model import build_site_model
 LILJEGREN = table("natural_wet_bulb_liljegren")[0]  # 30 °C, 1.0 m/s, 1013.25 hPa
 SEATED_PHS = next(r for r in table("phs_iso_7933_2004_more") if r["posture"] == "sitting"
                   and not r["acclimatised"])
+ANNEX_F = table("phs_iso_7933_2004_annex_f")[0]  # acclimatised, standing, 40 °C
 UTCI_ROW = table("utci")[0]
 WIND_FACTOR_2M = next(r for r in table("utci_wind_height") if r["height_m"] == 2.0)
 
@@ -54,6 +56,10 @@ SITE = textwrap.dedent(f"""\
         hot_work: true
         phs_edition: "2004"
         people: {{met: {SEATED_PHS["met"]}, clo: {SEATED_PHS["clo"]}, posture: Sitting}}
+      - id: forge
+        hot_work: true
+        phs_edition: "2004"
+        people: {{met: {ANNEX_F["met_w_m2"] / 58.15}, clo: {ANNEX_F["clo"]}, acclimatised: true}}
       - id: store
         hot_work: true
         people: {{clo: 0.6}}
@@ -75,6 +81,8 @@ READINGS: dict[str, dict[str, float]] = {
     # ISO 7933:2004 case, seated, unacclimatised
     "furnace": {"ta": SEATED_PHS["ta"], "tr": SEATED_PHS["tr"], "rh": SEATED_PHS["rh"],
                 "v": SEATED_PHS["va"]},
+    # ISO 7933:2004 Annex F, first worked example
+    "forge": {"ta": ANNEX_F["ta"], "tr": ANNEX_F["tr"], "rh": ANNEX_F["rh"], "v": ANNEX_F["va"]},
     "store": {"ta": 30.0, "tr": 32.0, "rh": 50.0, "v": 0.3, "tg": 31.0, "tnw": 23.0},
     # Liljegren reference code, no sun
     "kiln": {"ta": LILJEGREN["ta"], "tr": LILJEGREN["tr"], "rh": LILJEGREN["rh"],
@@ -133,6 +141,20 @@ def test_seated_hot_work_space(conditions):
     assert value(c, "phs_sweat_loss") == pytest.approx(SEATED_PHS["sweat_g"], abs=tol["sweat"])
     assert value(c, "phs_limit_water_loss_95") == pytest.approx(SEATED_PHS["d_lim_loss_95"],
                                                                 abs=tol["duration"])
+
+
+def test_iso_7933_2004_annex_f(conditions):
+    """ISO 7933:2004 Annex F, first example: 37.5 °C, 6168 g, 480 and 298 min; the site
+    mixes editions and each space gets its own."""
+    tol = PUBLISHED["phs_iso_7933_2004_annex_f"]["tolerance"]
+    c = conditions["forge"]
+    assert value(c, "phs_rectal_temperature") == pytest.approx(ANNEX_F["t_re"], abs=tol["t_re"])
+    assert value(c, "phs_sweat_loss") == pytest.approx(ANNEX_F["sweat_g"], abs=tol["sweat"])
+    assert value(c, "phs_limit_rectal") == pytest.approx(ANNEX_F["d_lim_t_re"],
+                                                         abs=tol["duration"])
+    assert value(c, "phs_limit_water_loss_95") == pytest.approx(ANNEX_F["d_lim_loss_95"],
+                                                                abs=tol["duration"])
+    assert c["phs_rectal_temperature"]["method"].startswith("ISO 7933:2023 or 2004")
 
 
 def test_no_metabolic_rate_no_reference(conditions):

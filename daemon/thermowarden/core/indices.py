@@ -78,7 +78,8 @@ class SpaceInputs:
     clothing_adjustment_k: FloatArray
     target_pmv: FloatArray
     posture: tuple[str, ...] = field(default=())
-    phs_edition: str = "2023"
+    phs_edition: str | tuple[str, ...] = "2023"
+    """ISO 7933 edition, "2023" or "2004": one for every space, or one per space."""
 
     @classmethod
     def create(cls, n: int, **given: object) -> SpaceInputs:
@@ -548,8 +549,12 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     out["wbgt_margin_unacclimatised"] = margin_app.column(ref_u - eff, "K",
                                                           heat_stress.REFERENCE_METHOD)
 
-    # ISO 7933 PHS, hot work only
-    method_phs = f"ISO 7933:{s.phs_edition}"
+    # ISO 7933 PHS, hot work only; each space in the edition it asks for
+    editions = np.array(s.phs_edition if isinstance(s.phs_edition, tuple)
+                        else (s.phs_edition,) * n, dtype=object)
+    used = sorted({str(e) for e in editions}, reverse=True)
+    method_phs = (f"ISO 7933:{used[0]}" if len(used) == 1
+                  else "ISO 7933:2023 or 2004 (the phs_edition of each space)")
     phs_names = {"t_re": ("phs_rectal_temperature", "°C"), "sweat_loss_g": ("phs_sweat_loss", "g"),
                  "d_lim_t_re": ("phs_limit_rectal", "min"),
                  "d_lim_loss_50": ("phs_limit_water_loss_50", "min"),
@@ -558,6 +563,7 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
         for name, unit in phs_names.values():
             out[name] = absent(n, "PHS not requested for this evaluation", unit, method_phs)
         return
+    is_2004 = editions == "2004"
     clo, _, _ = _people(s)
     app = Applicability(n)
     app.require(s.hot_work, "PHS is computed only for spaces marked as hot work")
@@ -575,22 +581,26 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     pa = psy.vapour_pressure(s.air_temperature, rh)
     app.require(pa <= 4500.0 + UPPER_TOLERANCE,
                 "outside ISO 7933 range: water vapour pressure above 4.5 kPa")
-    if s.phs_edition != "2004":
-        app.require(pa >= 500.0 - UPPER_TOLERANCE, "outside ISO 7933:2023 range: water vapour "
-                    "pressure below 0.5 kPa")
+    app.require(is_2004 | (pa >= 500.0 - UPPER_TOLERANCE), "outside ISO 7933:2023 range: water "
+                "vapour pressure below 0.5 kPa")
     app.require(_between(s.air_speed, 0.0, 3.0), "outside ISO 7933 range: air_speed 0-3 m/s")
     app.require(_between(clo, 0.1, 1.0), "outside ISO 7933 range: clo 0.1-1.0")
     m_wm2 = s.met * MET_W_M2
-    if s.phs_edition == "2004":
-        app.require(_between(m_wm2, 100.0, 450.0), "outside ISO 7933:2004 range: metabolic rate "
-                    "100-450 W/m²")
-    else:
-        app.require(_between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: metabolic rate "
-                    "56-250 W/m²")
+    app.require(~is_2004 | _between(m_wm2, 100.0, 450.0), "outside ISO 7933:2004 range: "
+                "metabolic rate 100-450 W/m²")
+    app.require(is_2004 | _between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: "
+                "metabolic rate 56-250 W/m²")
     ok = app.ok
-    res = heat_stress.predicted_heat_strain(
-        np.where(ok, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
-        list(s.posture), s.acclimatised.astype(np.float64), edition=s.phs_edition)
+    res = {k: np.full(n, np.nan) for k in phs_names}
+    for edition in used:
+        sel = ok & (editions == edition)
+        if not sel.any():
+            continue
+        part = heat_stress.predicted_heat_strain(
+            np.where(sel, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
+            list(s.posture), s.acclimatised.astype(np.float64), edition=edition)
+        for key in phs_names:
+            res[key] = np.where(sel, part[key], res[key])
     for key, (name, unit) in phs_names.items():
         out[name] = app.column(res[key], unit, method_phs)
 

@@ -226,7 +226,6 @@ class SiteState:
         indoor = np.array([s.kind == "indoor" for s in spaces], dtype=bool)
         solar = np.array([(s.solar_load if s.solar_load is not None else s.kind == "outdoor")
                           for s in spaces], dtype=bool)
-        editions = {s.phs_edition for s in spaces if s.hot_work}
         return {
             "met": np.array([p.met_value for p in people]),
             "clo": np.array([p.clo if p.clothing_model == "fixed" and p.clo is not None
@@ -243,7 +242,7 @@ class SiteState:
             "globe_diameter_m": globe_d, "globe_emissivity": globe_e,
             "target_pmv": np.array([float(cfg.parameters(s).get("target_pmv", 0.5))
                                     for s in spaces]),
-            "phs_edition": "2004" if editions == {"2004"} else "2023",
+            "phs_edition": tuple(s.phs_edition for s in spaces),
         }
 
     # ------------------------------------------------------------------ slots
