@@ -70,3 +70,48 @@ def test_bad_input_names_the_key(payload, key):
 def test_not_json():
     r = run("{air_temperature: 20")
     assert r.returncode != 0 and "not valid JSON" in r.stderr
+
+
+@pytest.mark.parametrize("text", ["", "   \n", "{air_temperature: 20", "[1, 2"])
+def test_empty_and_invalid_json_exit_2(text):
+    """The README's contract: bad input exits 2 with one line."""
+    r = run(text)
+    assert r.returncode == 2, r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+
+
+@pytest.mark.parametrize("pressure,units", [(101325, None), (1013.25, None), (101.325, None),
+                                            (1013.25, "hPa"), (101.325, "kPa")])
+def test_pressure_in_pa_hpa_or_kpa(pressure, units):
+    payload = {"air_temperature": 30, "relative_humidity": 70, "barometric_pressure": pressure}
+    if units:
+        payload["units"] = {"barometric_pressure": units}
+    r = run(payload)
+    assert r.returncode == 0, r.stderr
+    # psychrolib 2.5 (ASHRAE 2017 equations) [lib]: 30 °C, 70 % -> wet bulb 25.50 °C
+    assert json.loads(r.stdout)["wet_bulb"]["value"] == pytest.approx(25.50, abs=0.05)
+
+
+def test_impossible_pressure_says_what_is_expected():
+    r = run({"air_temperature": 30, "barometric_pressure": 5})
+    assert r.returncode == 2
+    assert "barometric_pressure" in r.stderr and "hPa" in r.stderr and "kPa" in r.stderr
+
+
+def test_psychrometer_pair_and_dry_air():
+    """A wet bulb far below the dry bulb is called too low, not "above dry bulb"; RH 0 %
+    still has a wet bulb."""
+    low = json.loads(run({"air_temperature": 30, "psychrometric_wet_bulb": 2}).stdout)
+    assert "too low" in low["relative_humidity"]["reason"]
+    dry = json.loads(run({"air_temperature": 30, "relative_humidity": 0}).stdout)
+    assert dry["wet_bulb"]["value"] is not None
+    assert dry["dew_point"]["value"] is None and dry["dew_point"]["reason"]
+
+
+def test_no_metabolic_rate_gives_no_heat_stress_reference():
+    r = run({"air_temperature": 30, "relative_humidity": 50, "globe_temperature": 32,
+             "natural_wet_bulb": 23, "hot_work": True, "clo": 0.6})
+    out = json.loads(r.stdout)
+    assert out["wbgt"]["value"] is not None
+    for key in ("wbgt_reference_acclimatised", "wbgt_margin_acclimatised", "metabolic_rate"):
+        assert out[key]["value"] is None and "metabolic rate" in out[key]["reason"]

@@ -30,12 +30,18 @@ CAUTION = ("Heat-stress figures are screening values, not a diagnosis: individua
 
 
 def _read_json(stream: TextIO, name: str) -> object:
+    """The JSON in ``stream``; bad or empty input exits 2 (bad input) with one line."""
     text = stream.read()
+    if not text.strip():
+        print(f"thermowarden assess: {name}: no input (expected a JSON object of readings)",
+              file=sys.stderr)
+        raise SystemExit(2)
     try:
         return json.loads(text)
     except json.JSONDecodeError as exc:
-        raise SystemExit(f"thermowarden assess: {name}: not valid JSON: {exc.msg} at line "
-                         f"{exc.lineno} column {exc.colno}") from None
+        print(f"thermowarden assess: {name}: not valid JSON: {exc.msg} at line "
+              f"{exc.lineno} column {exc.colno}", file=sys.stderr)
+        raise SystemExit(2) from None
 
 
 def _format_table(result: dict[str, dict[str, object]]) -> str:

@@ -155,6 +155,9 @@ class PointBase(Strict):
     stuck_after_s: float | None = Field(None, ge=60.0, le=30 * 86_400)
     """A fresh point whose value has not changed for this long counts as stuck (sensor
     health); default 3 hours."""
+    height_m: float | None = Field(None, gt=0.01, le=200.0)
+    """Height of an air_speed or wind_speed sensor above ground (m); UTCI converts the speed
+    to 10 m from it (default 1.1 m for a space's air_speed, 10 m for the site's wind_speed)."""
 
     _shorthand = field_validator("format", mode="before")(_format_shorthand)
 
@@ -178,6 +181,8 @@ class PointBase(Strict):
                              "ceiling/floor)")
         if self.quantity not in SIDED_QUANTITIES and self.side is not None:
             raise ValueError(f"side applies only to {' and '.join(sorted(SIDED_QUANTITIES))}")
+        if self.height_m is not None and self.quantity not in ("air_speed", "wind_speed"):
+            raise ValueError("height_m applies only to air_speed and wind_speed")
         if (self.globe_diameter_m is not None or self.globe_emissivity is not None) and \
                 self.quantity != "globe_temperature":
             raise ValueError("globe_diameter_m and globe_emissivity apply only to "
@@ -260,6 +265,12 @@ class PeopleConfig(Strict):
     clothing_adjustment_k: float | None = Field(None, ge=0.0, le=20.0)
     posture: Literal["standing", "seated", "crouching"] = "standing"
 
+    @field_validator("posture", mode="before")
+    @classmethod
+    def _posture(cls, v: object) -> object:
+        """Accept the common spellings (sitting, sit, stand, crouch, squatting...)."""
+        return heat_stress.canonical_posture(v) or v
+
     @model_validator(mode="after")
     def _check(self) -> PeopleConfig:
         if self.met is not None and self.work_class is not None:
@@ -272,11 +283,13 @@ class PeopleConfig(Strict):
 
     @property
     def met_value(self) -> float:
+        """met, from met or work_class; NaN when neither is given (no heat-stress reference
+        value is then computed; the comfort indices assume 1.2 met and say so)."""
         if self.met is not None:
             return self.met
         if self.work_class is not None:
             return heat_stress.WORK_CLASSES_W_M2[self.work_class] / 58.15
-        return 1.2
+        return float("nan")
 
     @property
     def adjustment_k(self) -> float:
@@ -353,7 +366,7 @@ class SpaceConfig(Strict):
 class SpaceDefaults(Strict):
     """Settings every space gets unless it says otherwise."""
 
-    people: PeopleConfig = Field(default_factory=lambda: PeopleConfig(met=1.2, clo=0.7))
+    people: PeopleConfig = Field(default_factory=lambda: PeopleConfig(clo=0.7))
     occupancy: OccupancyConfig = Field(default_factory=lambda: OccupancyConfig(always=True))
     rule_packs: list[str] = Field(default_factory=list)
     parameters: dict[str, ParameterValue] = Field(default_factory=dict)

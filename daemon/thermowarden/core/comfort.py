@@ -31,10 +31,12 @@ needed)."""
 
 
 def relative_air_speed(air_speed: FloatArray, met: FloatArray) -> FloatArray:
-    """Relative air speed (m/s) including the body's own movement.
+    """Relative air speed (m/s) by ASHRAE 55's rule for the body's own movement.
 
-    ISO 7730:2005 (C.2) and ASHRAE 55-2020 (5.3.2.1) use the same rule:
-    vr = v + 0.3 (M - 1) for M > 1 met, else v.
+    ASHRAE 55-2020 5.3.2 (and its Appendix B): vr = v + 0.3 (M - 1) for M > 1 met, else v,
+    with v the average air speed. This is ASHRAE 55's rule only: ISO 7730:2005 takes the
+    relative air speed as an input (Table D.1, Annex E) and has no such addition, so the
+    ISO 7730 PMV gets a measured relative air speed, or the air speed itself.
     """
     v = np.asarray(air_speed, dtype=np.float64)
     m = np.asarray(met, dtype=np.float64)
@@ -43,11 +45,13 @@ def relative_air_speed(air_speed: FloatArray, met: FloatArray) -> FloatArray:
 
 
 def dynamic_clothing(clo: FloatArray, met: FloatArray) -> FloatArray:
-    """Dynamic clothing insulation (clo) for active people.
+    """Dynamic clothing insulation (clo) for active people, ASHRAE 55's rule.
 
-    ASHRAE 55-2020 5.2.2.2: Icl,dyn = Icl (0.6 + 0.4 / M) for M > 1.2 met. We apply this rule
-    before both PMV variants (ISO 9920's correction is similar in size but needs walking
-    speed, which a building sensor does not know).
+    ASHRAE 55-2020 5.2.2.2: Icl,dyn = Icl (0.6 + 0.4 / M) for M > 1.2 met. Used for the
+    ASHRAE 55 PMV and its cooling effect only. ISO 7730:2005 uses the static (basic)
+    clothing insulation (its Table D.1 and Annex E are computed that way; its own
+    correction for clothing in motion is ISO 9920's, which needs walking speed), and SET
+    (ASHRAE 55 Appendix D) is computed with the static clothing, as in its check table.
     """
     c = np.asarray(clo, dtype=np.float64)
     m = np.asarray(met, dtype=np.float64)

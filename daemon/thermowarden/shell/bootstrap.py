@@ -59,7 +59,7 @@ def warm_up() -> None:
         2, air_temperature=np.array([24.0, 33.0]), relative_humidity=np.array([50.0, 40.0]),
         mean_radiant_temperature=np.array([25.0, 40.0]), air_speed=np.array([0.3, 0.6]),
         globe_temperature=np.array([25.0, 40.0]), natural_wet_bulb=np.array([18.0, 25.0]),
-        clo=np.array([0.6, 0.6]), hot_work=np.array([False, True]),
+        clo=np.array([0.6, 0.6]), met=np.array([1.2, 2.5]), hot_work=np.array([False, True]),
         indoor=np.array([True, False]))
     compute_indices(s, with_phs=True)
 
