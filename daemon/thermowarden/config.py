@@ -825,6 +825,9 @@ class RuleConfig(Strict):
     benefit: dict[str, str] = Field(default_factory=dict)
     messages: RuleMessages
     max_shelve_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    max_shelved_per_day_s: float | None = Field(None, ge=60, le=86_400)
+    """Total time one advisory of this rule may spend shelved in any 24 hours, however
+    often it is shelved (default: ``max_shelve_s``, at most a day)."""
     heat_stress_cautions: bool = False
     effect: RuleEffect | None = None
 

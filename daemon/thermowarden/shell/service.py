@@ -16,7 +16,6 @@ carries an ``event_id`` (also an MQTT 5 user property), the same on every copy.
 
 from __future__ import annotations
 
-import inspect
 import json
 import logging
 import pathlib
@@ -163,8 +162,7 @@ class Service:
         self.watchdog_s = systemd.watchdog_interval_s()
         self.last_watchdog = 0.0
         self.last_digest = clock.now()
-        self._engine_audience = "audience" in inspect.signature(engine.command).parameters
-        self._engine_retained = "retained" in inspect.signature(engine.message).parameters
+        self.failures_seen: set[tuple[int, str]] = set()
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
@@ -388,11 +386,7 @@ class Service:
             self._sys(m.topic, m.payload)
             return
         self.last_sensor = self.clock.monotonic()
-        if m.retained and self._engine_retained:
-            rejections = self.engine.message(m.topic, m.payload, m.received,
-                                             retained=True)  # type: ignore[call-arg,unused-ignore]
-        else:
-            rejections = self.engine.message(m.topic, m.payload, m.received)
+        rejections = self.engine.message(m.topic, m.payload, m.received, m.retained)
         self.dirty = True
         for r in rejections:
             self.metrics.rejected.labels(reason=r.reason).inc()
@@ -428,11 +422,8 @@ class Service:
             effects = []
         else:
             identity = m.identity or (parts[2] if len(parts) == 3 else None)
-            if self._engine_audience:
-                reply, effects = self.engine.command(  # type: ignore[call-arg,unused-ignore]
-                    verb, m.payload, now, audience=audience, identity=identity)
-            else:
-                reply, effects = self.engine.command(verb, m.payload, now)
+            reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
+                                                 identity=identity)
         label = verb if verb in KNOWN_VERBS else "unknown"
         self.metrics.commands.labels(verb=label, ok=str(reply["ok"]).lower()).inc()
         self.execute(effects)
@@ -503,9 +494,24 @@ class Service:
             self.metrics.active.labels(rule=rule, priority=prio).set(count)
         self.dirty = False
         self.last_eval = self.clock.monotonic()
+        self._report_failures()
         if not self.first_evaluation.is_set():
             self.first_evaluation.set()
             log.info("first evaluation done in %.0f ms", took * 1000)
+
+    def _report_failures(self) -> None:
+        """Log and count each index computation that started failing for a space (the
+        integrator also gets the sensor_health advisory naming the space and the index)."""
+        failures = self.engine.evaluation.failures
+        now_failing = {(i, group) for i, (group, _) in failures.items()}
+        for i, group in now_failing - self.failures_seen:
+            self.metrics.computation_failures.labels(index=group).inc()
+            log.error("space %s: the %s computation failed (%s); the other spaces go on",
+                      self.engine.model.space_ids[i], group, failures[i][1])
+        for i, group in self.failures_seen - now_failing:
+            log.info("space %s: the %s computation works again",
+                     self.engine.model.space_ids[i], group)
+        self.failures_seen = now_failing
 
     def _job(self, name: str) -> None:
         now = self.clock.now()
