@@ -87,10 +87,12 @@ def test_every_event_has_its_own_identity_kept_across_a_restore(lab, tmp_path):
     adv = next(a for a in lab.live_advisories() if a.rule == "testpack.levels")
     _, eff = command(lab, "acknowledge", 210, advisory_id=adv.id, by="Ana")
     effects += eff
+    effects += run(lab, 220, 500, **{"room-1": 36, "room-2": 25})  # room-2 clears
     sent = [e.payload for e in effects if isinstance(e, Publish) and "/events/" in e.topic]
     stored = [e.record for e in effects if isinstance(e, Persist) and e.kind == "event"]
     ids = [p["event_id"] for p in sent]
     assert len(ids) == len(set(ids)) >= 3
+    assert "cleared" in {p["event"] for p in sent}
     assert {p["event_id"] for p in stored} == set(ids)
     # after a restart the next event of the advisory does not reuse an identity
     records = [e.record for e in effects if isinstance(e, Persist) and e.kind == "advisory"

@@ -472,13 +472,14 @@ class Advisories:
                         rec["effect"]["realised_change"] = num(v - then)
             del rt.advisories[i]
             self.by_id.pop(adv.id, None)
-            rt.event_count.pop(i, None)
             rt.clear_since[i] = np.nan
             rt.shelved_until[i] = np.nan
             rt.level[i] = rt.rule.base_priority
         if event is not None:
             self._note(adv, now, event, by, extra)
             self._emit(rt, adv, event, now, effects)
+        if new_state == State.IDLE:
+            rt.event_count.pop(i, None)  # after its last event: the next advisory starts anew
         return adv
 
     @staticmethod

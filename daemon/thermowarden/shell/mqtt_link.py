@@ -13,7 +13,11 @@ reconnects, and sends it again (DUP set, same packet id) after a reconnect: the 
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
 Retained commands are never executed (a retained command would run again at every
-reconnect): they are counted and cleared. Command bodies over the limit are not decoded.
+reconnect): they are counted and cleared. Under MQTT 5 the command subscription asks for
+the retain flag as published, so even the first, live delivery of a retained command is
+refused; MQTT 3.1.1 cannot tell a live retained message from a plain one, so there the
+service clears the topic's retained message after every command it executes. Command
+bodies over the limit are not decoded.
 Under MQTT 5 the client announces a maximum packet size, so the broker does not send a
 larger message at all (the limit is applied before paho buffers it); under MQTT 3.1.1 the
 broker's own ``max_packet_size`` must do that (see deploy/broker/mosquitto.conf).
@@ -39,6 +43,7 @@ import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
+from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
 from thermowarden.shell.metrics import Metrics
@@ -200,7 +205,13 @@ class MqttLink:
         self.subscribed.clear()
         self._pending_subs = set()
         for topic in self.subscriptions:
-            _, mid = client.subscribe(topic, qos=1)
+            if self.v5 and topic.startswith(self.command_prefix):
+                # see the retain flag on live deliveries too: a retained command is never
+                # executed, not even once
+                _, mid = client.subscribe(topic, options=SubscribeOptions(
+                    qos=1, retainAsPublished=True))
+            else:
+                _, mid = client.subscribe(topic, qos=1)
             if mid is not None:
                 self._pending_subs.add(mid)
         if self.read_sys:

@@ -433,6 +433,9 @@ class Service:
                 if wanted and wanted.startswith(self.reply_topic + "/"):
                     target = wanted
         self.link.publish(target, reply, 1, False, correlation=m.correlation)
+        if not self.link.v5:
+            # MQTT 3.1.1 cannot say whether this was retained: clear it in case it was
+            self.link.client.publish(m.topic, b"", qos=1, retain=True)
         if not reply["ok"]:
             ok, dropped = self.limiter.allow(f"command|{label}")
             if ok:
