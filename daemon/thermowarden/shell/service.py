@@ -153,6 +153,8 @@ class Service:
         self.last_sensor: float | None = None
         self.silence_limit_s = cfg.ingest.silence_limit_s
         self.publishing_ok = True
+        """MQTT 3.1.1: False from an event never seen back until the next one is."""
+        self.last_refusal = -float("inf")
         self.outbox_max = cfg.outbox.max_events
         self.outbox_max_age_s = cfg.outbox.max_age_s
         self.last_expire = -float("inf")
@@ -178,9 +180,15 @@ class Service:
         parts = {"connected": self.link.connected.is_set(),
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
-                 "publishing": self.publishing_ok,
+                 "publishing": self.publishing(),
                  "receiving": receiving}
         return all(parts.values()), parts
+
+    def publishing(self) -> bool:
+        """The broker takes what we publish: no event waits after a refusal, no refusal in
+        the last ``RETRY_REFUSED_S``, and (MQTT 3.1.1) the last event came back."""
+        return (not self.refused and self.publishing_ok
+                and self.clock.monotonic() - self.last_refusal >= RETRY_REFUSED_S)
 
     # ------------------------------------------------------------------ calendar jobs
     def _schedule(self) -> None:
@@ -355,7 +363,7 @@ class Service:
                 self.handed.pop(seq, None)
             if c.failed:
                 self.metrics.publish_failures.labels(reason=c.reason[:40]).inc()
-                self.publishing_ok = False
+                self.last_refusal = self.clock.monotonic()
                 if seq is not None:
                     self.refused[seq] = self.clock.monotonic()
                 ok, dropped = self.limiter.allow("publish-refused")
@@ -364,8 +372,6 @@ class Service:
                               "outbox until they expire", c.reason,
                               f" ({dropped} similar suppressed)" if dropped else "")
             else:
-                if not self.echo:
-                    self.publishing_ok = True
                 if seq is not None:
                     self.store.outbox_done(seq)
                     if self.echo:
