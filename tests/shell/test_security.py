@@ -41,7 +41,7 @@ def _site(tmp_path, url, tls=""):
 def test_sample_acl_least_privilege(tmp_path):
     pw = tmp_path / "passwd"
     users = {"thermowarden": "tw-secret", "gateway": "gw-secret", "safety-desk": "sd-secret",
-             "facilities-desk": "fd-secret"}
+             "facilities-desk": "fd-secret", "safety-alice": "sa-secret"}
     for i, (u, p) in enumerate(users.items()):
         subprocess.run(["mosquitto_passwd", "-b"] + (["-c"] if i == 0 else []) +
                        [str(pw), u, p], check=True, capture_output=True)
@@ -84,6 +84,28 @@ def test_sample_acl_least_privilege(tmp_path):
                         json.dumps({"advisory_id": adv["id"], "by": "gw", "reason": "x",
                                     "duration_s": 60}))
         assert svc.metric("thermowarden_commands_total") == 1
+        # per person: safety-alice may write only to topics ending in her own name; the
+        # service records that name as who acted, as the broker vouches
+        alice = Collector(broker.port, [], username="safety-alice",
+                          password=users["safety-alice"])
+        wait_for(lambda: any(e["event"] == "raised" and e["advisory"]["audience"] == "safety"
+                             for e in desk.events("thermowarden/larkfield")), 15,
+                 "the safety advisory")
+        sadv = next(e for e in desk.events("thermowarden/larkfield")
+                    if e["event"] == "raised" and e["advisory"]["audience"] == "safety")
+        ack = {"advisory_id": sadv["advisory"]["id"], "by": "someone else", "request_id": "p-1"}
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/bob",
+                      json.dumps(ack))  # not her name: the broker drops it
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/safety-alice",
+                      json.dumps(ack))
+        wait_for(lambda: any(e["event"] == "acknowledged" and e["advisory"]["audience"] ==
+                             "safety" for e in desk.events("thermowarden/larkfield")), 15,
+                 "the acknowledgement by safety-alice")
+        acked = next(e for e in desk.events("thermowarden/larkfield")
+                     if e["event"] == "acknowledged" and e["advisory"]["audience"] == "safety")
+        assert acked["advisory"]["acknowledged"]["identity"] == "safety-alice"
+        assert svc.metric("thermowarden_commands_total") == 2
+        alice.close()
     finally:
         for c in (desk, gateway, safety):
             if c:

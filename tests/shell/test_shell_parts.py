@@ -69,3 +69,39 @@ def test_simulated_clock_runs_faster():
     time.sleep(0.05)
     assert 1000.0 <= t0 < 1010.0
     assert c.now() - t0 >= 4.0
+
+
+def test_store_transaction_is_all_or_nothing(tmp_path):
+    import pytest
+
+    s = Store(tmp_path / "site.sqlite3")
+    with pytest.raises(RuntimeError), s.transaction():
+        s.put_advisory("a/r", {"state": 2})
+        s.outbox_add("t/e", {"event": "raised"}, 1.0)
+        raise RuntimeError("crash between the writes")
+    assert s.advisories() == [] and s.outbox_depth() == 0
+    with s.transaction():
+        s.put_advisory("a/r", {"state": 2})
+        s.outbox_add("t/e", {"event": "raised"}, 1.0)
+    assert s.advisories() == [{"state": 2}] and s.outbox_depth() == 1
+    s.close()
+
+
+def test_outbox_expires_by_age_and_by_bound(tmp_path):
+    s = Store(tmp_path / "site.sqlite3")
+    for k in range(10):
+        s.outbox_add(f"t/{k}", {"event_id": f"e{k}"}, float(k))
+    gone = s.outbox_expire(older_than=3.0, keep=5)  # 0, 1, 2 by age; then 3, 4 beyond 5 rows
+    assert [p["event_id"] for _, p in gone] == ["e0", "e1", "e2", "e3", "e4"]
+    assert [t for _, t, _ in s.outbox()] == [f"t/{k}" for k in range(5, 10)]
+    assert s.outbox_depth() == 5
+    assert s.outbox_expire(older_than=0.0, keep=100) == []
+    s.close()
+
+
+def test_clock_follows_the_wall_clock_and_durations_do_not():
+    wall = [1000.0]
+    mono = [5.0]
+    c = Clock(wall=lambda: wall[0], mono=lambda: mono[0])
+    wall[0] += 3600.0  # the system clock is corrected
+    assert c.now() == 4600.0 and c.monotonic() == 5.0
