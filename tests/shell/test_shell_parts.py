@@ -105,3 +105,31 @@ def test_clock_follows_the_wall_clock_and_durations_do_not():
     c = Clock(wall=lambda: wall[0], mono=lambda: mono[0])
     wall[0] += 3600.0  # the system clock is corrected
     assert c.now() == 4600.0 and c.monotonic() == 5.0
+
+
+def test_reconnect_wait_ends_as_soon_as_a_broker_answers(tmp_path):
+    """While the link waits out its backoff (here up to 60 s) it probes the broker's port;
+    once a broker answers it stops waiting (and the backoff starts over)."""
+    import queue
+    import threading
+
+    from tests.shell.conftest import Mosquitto, free_port, wait_for
+    from thermowarden.config import BrokerConfig
+    from thermowarden.shell.metrics import Metrics
+    from thermowarden.shell.mqtt_link import Inbox, MqttLink
+
+    port = free_port()
+    link = MqttLink(BrokerConfig(url=f"mqtt://127.0.0.1:{port}"), [], "t/status", {}, {},
+                    Inbox(10), queue.Queue(), Metrics(), "backoff-test")
+    result: list[bool] = []
+    waiter = threading.Thread(target=lambda: result.append(link._wait(60.0, probe=True)))
+    waiter.start()
+    assert not link._probe()  # nothing listens yet
+    broker = Mosquitto(tmp_path, port=port).start()
+    try:
+        wait_for(lambda: not waiter.is_alive(), 30, "the wait to end early")
+    finally:
+        link._stop.set()
+        waiter.join(5)
+        broker.stop()
+    assert result == [True]

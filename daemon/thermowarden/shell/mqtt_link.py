@@ -348,10 +348,10 @@ class MqttLink:
             log.warning("connection to the broker lost; reconnecting in %.1f s", wait)
             backoff = min(BACKOFF_CAP_S, backoff * 2)
             # a broker that refused us answers its port too: no early retry then
-            if not refused and self._wait(wait, probe=not self.connected.is_set()):
-                backoff = BACKOFF_START_S
-            elif refused:
+            if refused:
                 self._wait(wait, probe=False)
+            elif self._wait(wait, probe=True):
+                backoff = BACKOFF_START_S
 
     # ---------------------------------------------------------------- publishing
     def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,
