@@ -27,6 +27,9 @@ CAUTION = ("Heat-stress figures are screening values, not a diagnosis: individua
            "(acclimatisation, hydration, fitness, medication, clothing) change the risk. "
            "thermowarden is advisory only; follow local regulations and consult a qualified "
            "occupational hygienist.")
+EXIT_STORE = 78
+"""`run` exit status for a store that cannot be used (EX_CONFIG; the systemd unit does
+not restart on it, so a damaged store does not become a restart loop)."""
 
 
 def _read_json(stream: TextIO, name: str) -> object:
@@ -184,6 +187,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     from thermowarden.config import ConfigError
     from thermowarden.shell.bootstrap import bootstrap
     from thermowarden.shell.logs import setup_logging
+    from thermowarden.shell.store import StoreError
 
     setup_logging(args.log_format, args.log_level)
     log = logging.getLogger("thermowarden")
@@ -191,12 +195,16 @@ def cmd_run(args: argparse.Namespace) -> int:
         running = bootstrap(args.config, broker_url=args.broker, http_port=args.http_port,
                             state_dir=args.state_dir, shard=args.shard,
                             spaces=args.spaces.split(",") if args.spaces else None,
-                            http_host=args.http_host)
+                            http_host=args.http_host,
+                            move_damaged_store=args.move_damaged_store)
     except ConfigError as exc:
         _print_issues(exc)
         print("thermowarden run: the configuration was refused; nothing was started",
               file=sys.stderr)
         return 1
+    except StoreError as exc:
+        print(f"thermowarden run: {exc}", file=sys.stderr)
+        return EXIT_STORE
     except (OSError, ValueError) as exc:
         print(f"thermowarden run: {exc}", file=sys.stderr)
         return 1
@@ -426,6 +434,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--shard", type=_shard, metavar="INDEX/COUNT",
                    help="evaluate only this shard of the spaces (stable hash of the space id)")
     p.add_argument("--spaces", metavar="ID,ID", help="evaluate only these spaces")
+    p.add_argument("--move-damaged-store", action="store_true",
+                   help="if the store fails its check, rename it aside (*.damaged-<time>) and "
+                        "start with an empty one; the site file is not touched")
     p.add_argument("--log-format", choices=("text", "json"), default="text")
     p.add_argument("--log-level", choices=("debug", "info", "warning", "error"), default="info")
     p.set_defaults(func=cmd_run)

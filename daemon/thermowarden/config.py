@@ -469,6 +469,8 @@ class IngestConfig(Strict):
     air_speed_window_s: float = Field(180.0, gt=0)
     wbgt_window_s: float = Field(3600.0, ge=600, le=3600)
     disagreement_k: float = Field(2.0, gt=0)
+    silence_limit_s: float | None = Field(600.0, gt=0)
+    """/readyz answers 503 when no sensor message arrived for this long (null: never)."""
 
 
 class EvaluationConfig(Strict):
@@ -599,6 +601,23 @@ class DeliveryConfig(Strict):
     queue_size: int = Field(10_000, ge=10, le=1_000_000)
 
 
+class OutboxConfig(Strict):
+    """Events kept for the broker until it acknowledges them: at most ``max_events``, none
+    older than ``max_age_s``; what expires undelivered is counted and reported."""
+
+    max_events: int = Field(10_000, ge=10, le=10_000_000)
+    max_age_s: float = Field(86_400.0, ge=60, le=30 * 86_400)
+
+
+class CommandsConfig(Strict):
+    """Inbound commands: a body size limit, and the MQTT 5 user property that carries the
+    sender's authenticated identity (set by a trusted gateway or broker plugin; a client
+    cannot be trusted to set it itself)."""
+
+    max_body_bytes: int = Field(2048, ge=256, le=65_536)
+    identity_property: str | None = None
+
+
 class SiteConfig(Strict):
     """The whole site file."""
 
@@ -607,6 +626,8 @@ class SiteConfig(Strict):
     output: OutputConfig = Field(default_factory=OutputConfig)
     ingest: IngestConfig = Field(default_factory=IngestConfig)
     evaluation: EvaluationConfig = Field(default_factory=EvaluationConfig)
+    outbox: OutboxConfig = Field(default_factory=OutboxConfig)
+    commands: CommandsConfig = Field(default_factory=CommandsConfig)
     defaults: SpaceDefaults = Field(default_factory=SpaceDefaults)
     templates: list[TemplateConfig] = Field(default_factory=list)
     spaces: list[SpaceConfig] = Field(default_factory=list)
@@ -997,6 +1018,9 @@ class RuleConfig(Strict):
     benefit: dict[str, str] = Field(default_factory=dict)
     messages: RuleMessages
     max_shelve_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    max_shelved_per_day_s: float | None = Field(None, ge=60, le=86_400)
+    """Total time one advisory of this rule may spend shelved in any 24 hours, however
+    often it is shelved (default: ``max_shelve_s``, at most a day)."""
     heat_stress_cautions: bool = False
     effect: RuleEffect | None = None
 

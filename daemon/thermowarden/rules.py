@@ -43,7 +43,7 @@ INPUTS: Final = ("air_temperature", "relative_humidity", "globe_temperature",
     f"plane_radiant_temperature_{s}" for s in radiation.SIDES)
 STATES: Final = ("shading_position", "fan_state", "occupancy")
 HEALTH: Final = ("stale_points", "stuck_points", "implausible_recent", "max_disagreement",
-                 "rules_unknown_long", "points_total")
+                 "rules_unknown_long", "points_total", "failed_phs", "failed_indices")
 TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stuck_detail",
                       "implausible_detail", "disagreement_detail", "rules_unknown_detail",
                       "wbgt_basis", "acted_minutes_ago", "effect_predicted")

@@ -32,6 +32,9 @@ def test_every_default_rule_fires(day):
     raised = {e["advisory"]["rule"] for e in day.events if e["event"] == "raised"}
     packs = load_rule_packs(builtin_pack_names())
     every = {r.key for p in packs.values() for r in p.rules}
+    # a failing computation is not in a recorded day of good inputs: these two are raised
+    # by tests/engine/test_faults.py::test_a_failing_computation_stays_in_its_space
+    every -= {"sensor_health.phs_failed", "sensor_health.indices_failed"}
     assert every <= raised, sorted(every - raised)
 
 

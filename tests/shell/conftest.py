@@ -103,11 +103,28 @@ class Mosquitto:
 
     def stop(self) -> None:
         if self.proc and self.proc.poll() is None:
+            os.kill(self.proc.pid, signal.SIGCONT)  # in case a test left it stopped
             self.proc.terminate()
             self.proc.wait(10)
-        if self.proc:
+        if self.proc and not self._logfh.closed:
             self._logfh.close()
         wait_for(lambda: not port_open(self.port), 10, "mosquitto to stop")
+
+    def hang(self) -> None:
+        """SIGSTOP: the broker keeps its sockets open and answers nothing."""
+        assert self.proc is not None
+        os.kill(self.proc.pid, signal.SIGSTOP)
+
+    def kill(self) -> None:
+        """SIGKILL (from a hang or not): whatever it had not saved is gone."""
+        assert self.proc is not None
+        self.proc.kill()
+        self.proc.wait(10)
+        self._logfh.close()
+        wait_for(lambda: not port_open(self.port), 10, "mosquitto to die")
+
+    def log(self) -> str:
+        return (self.dir / f"mosq-{self.port}.log").read_text(errors="replace")
 
 
 @pytest.fixture
@@ -182,7 +199,8 @@ class Collector:
 
 
 def write_site(tmp: pathlib.Path, prefix: str, port: int, spaces: list[str], *,
-               extra_broker: str = "", url: str | None = None) -> pathlib.Path:
+               extra_broker: str = "", url: str | None = None,
+               evaluation: str = "{tick_s: 1}", extra: str = "") -> pathlib.Path:
     (tmp / "packs").mkdir(exist_ok=True)
     (tmp / "packs" / "fast.yaml").write_text(FAST_PACK)
     broker_url = url or f"mqtt://127.0.0.1:{port}"
@@ -193,15 +211,14 @@ def write_site(tmp: pathlib.Path, prefix: str, port: int, spaces: list[str], *,
           client_id: tw-{uuid.uuid4().hex[:8]}
         {extra_broker}
         output: {{prefix: {prefix}}}
-        evaluation: {{tick_s: 1}}
+        evaluation: {evaluation}
         rule_dirs: [packs]
         defaults:
           occupancy: {{always: true}}
           rule_packs: [fast, sensor_health]
         templates:
           - {{topic: "{prefix}-in/{{space}}/ta", quantity: air_temperature, interval_s: 60}}
-        spaces:
-        """) + "".join(f"  - id: {s}\n" for s in spaces)
+        """) + extra + "spaces:\n" + "".join(f"  - id: {s}\n" for s in spaces)
     p = tmp / "site.yaml"
     p.write_text(text)
     return p

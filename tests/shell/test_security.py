@@ -40,7 +40,8 @@ def _site(tmp_path, url, tls=""):
 
 def test_sample_acl_least_privilege(tmp_path):
     pw = tmp_path / "passwd"
-    users = {"thermowarden": "tw-secret", "gateway": "gw-secret", "safety-desk": "sd-secret"}
+    users = {"thermowarden": "tw-secret", "gateway": "gw-secret", "safety-desk": "sd-secret",
+             "facilities-desk": "fd-secret", "safety-alice": "sa-secret"}
     for i, (u, p) in enumerate(users.items()):
         subprocess.run(["mosquitto_passwd", "-b"] + (["-c"] if i == 0 else []) +
                        [str(pw), u, p], check=True, capture_output=True)
@@ -54,31 +55,59 @@ def test_sample_acl_least_privilege(tmp_path):
     svc = ServiceProcess(site, tmp_path / "state", env={
         "THERMOWARDEN_BROKER__USERNAME": "thermowarden",
         "THERMOWARDEN_BROKER__PASSWORD": users["thermowarden"]})
-    desk = gateway = None
+    desk = gateway = safety = None
     try:
         svc.start()
-        desk = Collector(broker.port, ["thermowarden/larkfield/#"], username="safety-desk",
-                         password=users["safety-desk"])
+        desk = Collector(broker.port, ["thermowarden/larkfield/#"], username="facilities-desk",
+                         password=users["facilities-desk"])
+        safety = Collector(broker.port, [], username="safety-desk",
+                           password=users["safety-desk"])
         gateway = Collector(broker.port, [], username="gateway", password=users["gateway"])
         gateway.publish("larkfield/office-west/air/temperature", "31.2")
         wait_for(lambda: any(e["event"] == "raised" for e in desk.events(
             "thermowarden/larkfield")), 15, "the raised event under the ACL")
         adv = next(e for e in desk.events("thermowarden/larkfield")
                    if e["event"] == "raised")["advisory"]
-        desk.publish("thermowarden/larkfield/commands/acknowledge",
-                     json.dumps({"advisory_id": adv["id"], "by": "safety desk",
+        # the safety desk may not act on a facilities advisory: the broker drops it
+        safety.publish("thermowarden/larkfield/commands/facilities/shelve",
+                       json.dumps({"advisory_id": adv["id"], "by": "sd", "reason": "x",
+                                   "duration_s": 60}))
+        desk.publish("thermowarden/larkfield/commands/facilities/acknowledge",
+                     json.dumps({"advisory_id": adv["id"], "by": "facilities desk",
                                  "request_id": "acl-1"}))
         wait_for(lambda: any(r.get("request_id") == "acl-1" and r["ok"] for r in
                              desk.json_on("thermowarden/larkfield/replies")), 15,
                  "the acknowledgement reply")
         assert svc.metric("thermowarden_publish_failures_total") == 0
         # the gateway may not send commands: the broker drops them, nothing changes
-        gateway.publish("thermowarden/larkfield/commands/shelve",
+        gateway.publish("thermowarden/larkfield/commands/facilities/shelve",
                         json.dumps({"advisory_id": adv["id"], "by": "gw", "reason": "x",
                                     "duration_s": 60}))
         assert svc.metric("thermowarden_commands_total") == 1
+        # per person: safety-alice may write only to topics ending in her own name; the
+        # service records that name as who acted, as the broker vouches
+        alice = Collector(broker.port, [], username="safety-alice",
+                          password=users["safety-alice"])
+        wait_for(lambda: any(e["event"] == "raised" and e["advisory"]["audience"] == "safety"
+                             for e in desk.events("thermowarden/larkfield")), 15,
+                 "the safety advisory")
+        sadv = next(e for e in desk.events("thermowarden/larkfield")
+                    if e["event"] == "raised" and e["advisory"]["audience"] == "safety")
+        ack = {"advisory_id": sadv["advisory"]["id"], "by": "someone else", "request_id": "p-1"}
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/bob",
+                      json.dumps(ack))  # not her name: the broker drops it
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/safety-alice",
+                      json.dumps(ack))
+        wait_for(lambda: any(e["event"] == "acknowledged" and e["advisory"]["audience"] ==
+                             "safety" for e in desk.events("thermowarden/larkfield")), 15,
+                 "the acknowledgement by safety-alice")
+        acked = next(e for e in desk.events("thermowarden/larkfield")
+                     if e["event"] == "acknowledged" and e["advisory"]["audience"] == "safety")
+        assert acked["advisory"]["acknowledged"]["identity"] == "safety-alice"
+        assert svc.metric("thermowarden_commands_total") == 2
+        alice.close()
     finally:
-        for c in (desk, gateway):
+        for c in (desk, gateway, safety):
             if c:
                 c.close()
         svc.stop()

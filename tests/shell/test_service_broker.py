@@ -44,12 +44,11 @@ def test_end_to_end_on_the_system_broker(tmp_path, system_broker_port):
         assert raised["advisory"]["numbers"]["air_temperature"]["value"] == 31.5
         wait_for(lambda: watcher.json_on(f"{prefix}/spaces/room-a/advisories/fast.hot"), 5,
                  "retained advisory")
-        wait_for(lambda: watcher.json_on(f"{prefix}/spaces/room-b/conditions"), 5,
-                 "conditions")
-        cond = watcher.json_on(f"{prefix}/spaces/room-b/conditions")[-1]
-        assert cond["inputs"]["air_temperature"]["fresh"] is True
+        # conditions of a space with new readings go out within CONDITIONS_MIN_S (15 s)
+        wait_for(lambda: any(c["inputs"]["air_temperature"]["fresh"] for c in watcher.json_on(
+            f"{prefix}/spaces/room-b/conditions")), 30, "conditions with a fresh input")
         # acknowledge over MQTT, reply on the reply topic
-        sensor.publish(f"{prefix}/commands/acknowledge", json.dumps(
+        sensor.publish(f"{prefix}/commands/facilities/acknowledge", json.dumps(
             {"advisory_id": raised["advisory"]["id"], "by": "test-operator",
              "request_id": "r1"}))
         wait_for(lambda: any(r.get("request_id") == "r1" for r in watcher.json_on(
@@ -134,7 +133,7 @@ def test_sigkill_restart_restores_without_raising_twice(tmp_path, system_broker_
         assert svc.metric("thermowarden_advisories_active") == 2
         # still live: it can be acknowledged by the id it had before the crash
         adv_id = raised[0]["advisory"]["id"]
-        sensor.publish(f"{prefix}/commands/acknowledge",
+        sensor.publish(f"{prefix}/commands/facilities/acknowledge",
                        json.dumps({"advisory_id": adv_id, "by": "night shift",
                                    "request_id": "k1"}))
         wait_for(lambda: any(r.get("request_id") == "k1" and r["ok"]

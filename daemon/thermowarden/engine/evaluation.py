@@ -3,10 +3,17 @@
 Indices are computed for all spaces in one vectorised call (ISO 7933 PHS, which simulates a
 whole work period, only every ``PHS_EVERY_S``). Rule conditions are three-valued over the
 spaces (true / false / unknown); unknown never raises and never clears.
+
+A computation that raises for one space's inputs fails for that space alone: the spaces are
+split until the failing ones are found, the others are computed as usual, and the failing
+space's indices are absent with the reason ``COMPUTATION_FAILED``. Each failure is kept in
+:attr:`Evaluation.failures` (space -> index group and error) for the health columns, the
+integrator's advisory and the metrics.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from collections import ChainMap
 from dataclasses import dataclass
 from typing import Any, Final
@@ -14,9 +21,9 @@ from typing import Any, Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Truth
-from thermowarden.core.indices import IndexTable, compute_indices
+from thermowarden.core.indices import IndexTable, SpaceInputs, compute_indices
 from thermowarden.core.radiation import SIDES
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.state import SiteState, Snapshot
@@ -24,6 +31,54 @@ from thermowarden.rules import CompiledRule
 
 PHS_EVERY_S: Final = 300.0
 """ISO 7933 PHS simulates a whole work period per space: it is refreshed every 5 minutes."""
+COMPUTATION_FAILED: Final = "the computation failed for this space's inputs"
+PHS_GROUP: Final = "phs"
+ALL_GROUP: Final = "indices"
+
+
+def take_inputs(s: SpaceInputs, idx: npt.NDArray[np.intp]) -> SpaceInputs:
+    """The inputs of the spaces ``idx`` only."""
+    changes: dict[str, Any] = {"n": int(idx.size)}
+    for f in dataclasses.fields(s):
+        v = getattr(s, f.name)
+        if isinstance(v, np.ndarray):
+            changes[f.name] = v[idx]
+        elif isinstance(v, dict):
+            changes[f.name] = {k: a[idx] for k, a in v.items()}
+        elif isinstance(v, tuple) and len(v) == s.n:
+            changes[f.name] = tuple(v[int(i)] for i in idx)
+    return dataclasses.replace(s, **changes)
+
+
+def merge_tables(n: int, parts: list[tuple[npt.NDArray[np.intp], IndexTable]]) -> IndexTable:
+    """One table over ``n`` spaces from tables of subsets; columns missing for a space (its
+    computation failed) are absent with :data:`COMPUTATION_FAILED`."""
+    names: dict[str, IndexColumn] = {}
+    for _, t in parts:
+        for name, col in t.items():
+            names.setdefault(name, col)
+    out: IndexTable = {}
+    for name, proto in names.items():
+        reasons: list[str] = ["", COMPUTATION_FAILED]
+        values = np.full(n, np.nan)
+        codes = np.ones(n, dtype=proto.codes.dtype)
+        for idx, t in parts:
+            part = t.get(name)
+            if part is None:
+                continue
+            remap = np.array([0] + [_reason_code(reasons, r) for r in part.reasons[1:]],
+                             dtype=proto.codes.dtype)
+            values[idx] = part.values
+            codes[idx] = remap[part.codes]
+        out[name] = IndexColumn(values, codes, tuple(reasons), proto.unit, proto.method,
+                                proto.labels)
+    return out
+
+
+def _reason_code(reasons: list[str], reason: str) -> int:
+    if reason not in reasons:
+        reasons.append(reason)
+    return reasons.index(reason)
 
 
 @dataclass(frozen=True)
@@ -53,12 +108,17 @@ class Evaluation:
         self.n = state.model.n_spaces
         self.last_phs = -np.inf
         self.phs_columns: IndexTable = {}
+        self.failures: dict[int, tuple[str, str]] = {}
+        """Space -> (index group that failed, the error), at the last computation."""
+        self.failure_count = 0
+        """Failed computations (space and group) since start, for the metrics."""
+        self._phs_failures: dict[int, tuple[str, str]] = {}
 
     def indices(self, snap: Snapshot, now: float) -> IndexTable:
         """Every index of every space at ``now``; PHS columns are carried between their
         five-minutely refreshes. Records the WBGT into the 60-minute windows."""
         phs_due = bool(snap.inputs.hot_work.any()) and now - self.last_phs >= PHS_EVERY_S
-        table = compute_indices(snap.inputs, with_phs=phs_due)
+        table = self._isolated(snap.inputs, phs_due)
         if phs_due:
             self.last_phs = now
             self.phs_columns = {k: v for k, v in table.items() if k.startswith("phs_")}
@@ -66,6 +126,77 @@ class Evaluation:
             table.update(self.phs_columns)
         self.state.record_wbgt(now, table["wbgt"].values)
         return table
+
+    def _isolated(self, inputs: SpaceInputs, with_phs: bool) -> IndexTable:
+        """:func:`compute_indices` for every space; a space whose inputs make it raise is
+        found by splitting, retried without PHS, and left without those indices."""
+        failed: dict[int, tuple[str, str]] = {}
+        known_bad = [i for i in self.failures if self.failures[i][0] == ALL_GROUP
+                     or (with_phs and self.failures[i][0] == PHS_GROUP)]
+        try:
+            if not known_bad:
+                table = compute_indices(inputs, with_phs=with_phs)
+                self._note(failed, with_phs)
+                return table
+        except Exception:  # noqa: BLE001 - found and isolated below
+            pass
+        parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
+        bad = set(known_bad)
+        good = np.array([i for i in range(self.n) if i not in bad], dtype=np.intp)
+        self._split(inputs, good, with_phs, parts, failed)
+        for i in sorted(bad):
+            self._split(inputs, np.array([i], dtype=np.intp), with_phs, parts, failed)
+        self._note(failed, with_phs)
+        table = merge_tables(self.n, parts)
+        phs_failed = [i for i, (group, _) in failed.items() if group == PHS_GROUP]
+        if phs_failed:
+            for name, col in table.items():
+                if name.startswith("phs_"):
+                    col.codes[phs_failed] = col.reasons.index(COMPUTATION_FAILED)
+                    col.values[phs_failed] = np.nan
+        return table
+
+    def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp], with_phs: bool,
+               parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+               failed: dict[int, tuple[str, str]]) -> None:
+        if idx.size == 0:
+            return
+        try:
+            parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=with_phs)))
+            return
+        except Exception as exc:  # noqa: BLE001 - isolated to the spaces that fail
+            error = f"{type(exc).__name__}: {exc}"[:300]
+        if idx.size > 1:
+            half = idx.size // 2
+            self._split(inputs, idx[:half], with_phs, parts, failed)
+            self._split(inputs, idx[half:], with_phs, parts, failed)
+            return
+        i = int(idx[0])
+        if with_phs:
+            try:
+                parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=False)))
+                failed[i] = (PHS_GROUP, error)
+                return
+            except Exception as exc:  # noqa: BLE001
+                error = f"{type(exc).__name__}: {exc}"[:300]
+        failed[i] = (ALL_GROUP, error)
+
+    def _note(self, failed: dict[int, tuple[str, str]], with_phs: bool) -> None:
+        """Keep the failures of this computation (PHS ones until PHS is computed again)."""
+        if with_phs:
+            self._phs_failures = {i: f for i, f in failed.items() if f[0] == PHS_GROUP}
+        self.failure_count += len(failed)
+        merged = dict(self._phs_failures)
+        merged.update({i: f for i, f in failed.items() if f[0] == ALL_GROUP})
+        self.failures = merged
+
+    def failure_columns(self) -> dict[str, FloatArray]:
+        """Per space: ``failed_phs`` 1 where ISO 7933 PHS failed, ``failed_indices`` 1
+        where every index failed, at the last computation."""
+        cols = {"failed_phs": np.zeros(self.n), "failed_indices": np.zeros(self.n)}
+        for i, (group, _) in self.failures.items():
+            cols["failed_phs" if group == PHS_GROUP else "failed_indices"][i] = 1.0
+        return cols
 
     def environment(self, snap: Snapshot, table: IndexTable, now: float, start: float,
                     rules_unknown_long: FloatArray) -> dict[str, Any]:
@@ -97,6 +228,7 @@ class Evaluation:
             env[f"plane_radiant_temperature_{side}"] = s.plane_radiant.get(side, nan)
         env.update(snap.states)
         env.update(self.health.columns(snap, now, start))
+        env.update(self.failure_columns())
         env["rules_unknown_long"] = rules_unknown_long
         env["_present"] = snap.present
         return env

@@ -39,6 +39,11 @@ IN_FUTURE: Final = "in_future"
 DUPLICATE: Final = "duplicate"
 OUT_OF_ORDER: Final = "out_of_order"
 TOO_MANY_SENSORS: Final = "too_many_sensors"
+RETAINED_WITHOUT_TIME: Final = "retained_without_time"
+"""A retained value without a timestamp: of unknown age (it may be a dead sensor's last
+word), so it is never taken as fresh."""
+GAP_FACTOR: Final = 1.5
+"""A gap longer than this many reporting intervals counts the readings missed in it."""
 NO_POINT: Final = "-"
 _NEGATIVE_CACHE_LIMIT: Final = 10_000
 
@@ -71,6 +76,9 @@ class Ingestor:
         self._lazy_count: Counter[tuple[int, str]] = Counter()
         self.last_points: list[int] = []
         """Points that took a reading from the last message."""
+        self.accepted_by_quantity: Counter[str] = Counter()
+        self.missed_by_quantity: Counter[str] = Counter()
+        """Readings missing in gaps longer than a point's interval (sequence gaps)."""
 
     # ---------------------------------------------------------------- routing
     def resolve(self, topic: str) -> list[int] | Rejection:
@@ -147,8 +155,12 @@ class Ingestor:
         return Rejection(reason, point, topic, detail)
 
     # ---------------------------------------------------------------- the path
-    def ingest(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
-        """Take one message received at ``now`` (epoch s); return its rejections, if any."""
+    def ingest(self, topic: str, payload: bytes, now: float,
+               retained: bool = False) -> list[Rejection]:
+        """Take one message received at ``now`` (epoch s); return its rejections, if any.
+
+        ``retained``: the broker kept it from before we subscribed; without a timestamp in
+        the payload its age is unknown and it is refused (``retained_without_time``)."""
         self.received += 1
         self.last_points = []
         route = self._resolve(topic)
@@ -171,6 +183,10 @@ class Ingestor:
                                         f"undecodable: {type(exc).__name__}"))
                 continue
             for d in values:
+                if retained and d.time is None:
+                    out.append(self._reject(RETAINED_WITHOUT_TIME, spec.key, topic,
+                                            "retained value of unknown age"))
+                    continue
                 r = self._store(pid, d, now, topic)
                 if r is not None:
                     out.append(r)
@@ -208,7 +224,12 @@ class Ingestor:
                 return self._reject(IMPLAUSIBLE_CHANGE, spec.key, topic,
                                     f"changed {change:.4g} in {t - last_t:.0f} s, more than "
                                     f"{spec.max_change_per_s * 60:g} per minute")
+        last = state.last_time[pid]
+        interval = state.interval[pid]
+        if t - last > GAP_FACTOR * interval:  # false for the first reading (last is not set)
+            self.missed_by_quantity[spec.quantity] += int(round((t - last) / interval)) - 1
         state.record(pid, t, value, t if d.time is not None else math.nan)
+        self.accepted_by_quantity[spec.quantity] += 1
         self.accepted += 1
         self.last_points.append(pid)
         return None

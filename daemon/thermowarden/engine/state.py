@@ -166,6 +166,13 @@ class SiteState:
         self.n_points = max(self.n_points, pid + 1)
 
     # ------------------------------------------------------------------ readings
+    def clock_stepped_back(self, now: float) -> None:
+        """The wall clock went back: receipt times after ``now`` become ``now`` (they were
+        taken on the clock before its correction), so new readings are not out of order."""
+        n = self.n_points
+        t = self.last_time[:n]
+        self.last_time[:n] = np.where(t > now, now, t)  # NaN (never seen) stays NaN
+
     def record(self, pid: int, t: float, value: float, source_time: float) -> None:
         """Store an accepted reading (already converted, checked and deduplicated)."""
         self.last_value[pid] = value

@@ -25,12 +25,15 @@ from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
-from thermowarden.shell.store import Store
+from thermowarden.shell.store import Store, StoreError, move_aside
 from thermowarden.site_model import build_site_model
 
 log = logging.getLogger("thermowarden")
 
 INBOX_SIZE = 100_000
+PACKET_OVERHEAD = 4096
+"""Room for the topic and properties on top of the largest payload we accept (MQTT 5
+maximum packet size sent to the broker)."""
 
 
 @dataclass
@@ -93,11 +96,15 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
               state_dir: str | None = None, shard: tuple[int, int] | None = None,
               spaces: list[str] | None = None, protocol: str | None = None,
               clock: Clock | None = None, http_host: str = "127.0.0.1",
-              overrides: dict[str, str] | None = None) -> Running:
+              overrides: dict[str, str] | None = None,
+              move_damaged_store: bool = False) -> Running:
     """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
 
-    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
+    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site,
+    :class:`StoreError` (one line: the file and what to do) for a store that cannot be used.
     ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
+    ``move_damaged_store``: a store that fails its check is renamed aside and a new one
+    begins (live advisories are raised again from fresh readings).
     """
     def load() -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
         return load_configuration(config_path, broker_url=broker_url, protocol=protocol,
@@ -109,7 +116,16 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""
-    store = Store(state / f"{config.site.id}{suffix}.sqlite3")
+    store_path = state / f"{config.site.id}{suffix}.sqlite3"
+    try:
+        store = Store(store_path)
+    except StoreError:
+        if not move_damaged_store:
+            raise
+        moved = move_aside(store_path, clock.now())
+        log.warning("the damaged store was moved aside to %s; starting with an empty store",
+                    moved)
+        store = Store(store_path)
     engine = Engine(config, model, packs, start=clock.now())
     notes = engine.restore(store.advisories())
     for note in notes:
@@ -134,10 +150,16 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
               "advisory_only": True}
     status_topic = f"{prefix}/status" + (f"/{instance}" if shard else "")
     subs = model.subscriptions(per_space=shard is not None or bool(spaces))
-    subs.append(f"{prefix}/commands/+")
+    subs.append(f"{prefix}/commands/#")
+    v311 = config.broker.protocol == "3.1.1"
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
                     {**status, "state": "offline"}, inbox, control, metrics, instance,
-                    command_prefix=f"{prefix}/commands/", now=clock.now)
+                    command_prefix=f"{prefix}/commands/", now=clock.now,
+                    max_packet_bytes=max(config.ingest.max_payload_bytes,
+                                         config.commands.max_body_bytes) + PACKET_OVERHEAD,
+                    max_command_bytes=config.commands.max_body_bytes,
+                    identity_property=config.commands.identity_property,
+                    echo_prefix=f"{prefix}/events/" if v311 else None)
     # always there, so a reload can turn delivery on; idle without audiences
     delivery = Delivery(config.delivery, config.site.timezone, store.path,
                         registry=metrics.registry, now=clock.now)
