@@ -41,6 +41,30 @@ def test_office_spot_check_json():
     assert "NaN" not in r.stdout
 
 
+def test_the_readme_example():
+    """The README's spot check, run as written there; WBGT by ISO 7243:2017 eq. (1)
+    (0.7 tnw + 0.3 tg) [std, calc] and the moderate-work reference values of
+    tests/data/published_values.yaml (work_class_references)."""
+    from tests.conftest import REPO, table
+
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    example = readme.split("| thermowarden assess --format table")[0].rsplit("echo '", 1)[1]
+    payload = json.loads(example.rsplit("'", 1)[0])
+    r = run(payload)
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    wbgt = 0.7 * payload["natural_wet_bulb"] + 0.3 * payload["globe_temperature"]
+    assert out["wbgt"]["value"] == pytest.approx(wbgt, abs=0.01)
+    ref = next(row for row in table("work_class_references")
+               if row["work_class"] == payload["work_class"])
+    assert out["wbgt_reference_unacclimatised"]["value"] == pytest.approx(
+        ref["unacclimatised"], abs=0.01)
+    assert out["wbgt_margin_unacclimatised"]["value"] == pytest.approx(
+        ref["unacclimatised"] - wbgt, abs=0.02)
+    table_run = run(payload, "--format", "table")
+    assert table_run.returncode == 0, table_run.stderr
+
+
 def test_hot_work_with_units_and_table():
     r = run({"air_temperature": 95.0, "relative_humidity": 40, "globe_temperature": 40.0,
              "natural_wet_bulb": 25.0, "air_speed": 60, "work_class": "moderate", "clo": 0.6,

@@ -98,6 +98,10 @@ def cmd_assess(args: argparse.Namespace) -> int:
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
+    from thermowarden.shell.warmup import is_compiled, say_on_stderr, warm_up
+
+    if not is_compiled():
+        warm_up(say_on_stderr)
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":

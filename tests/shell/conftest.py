@@ -264,7 +264,11 @@ class ServiceProcess:
         self.proc = subprocess.Popen(self.cmd, env=self.env, stdout=subprocess.DEVNULL,
                                      stderr=self._logfh)
         if wait_ready:
-            wait_for(self.ready, 180, f"the service to be ready (log {self.log})")
+            try:
+                wait_for(self.ready, 180, f"the service to be ready (log {self.log})")
+            except BaseException:
+                self.kill()  # leave no process or open log behind a failed start
+                raise
         return self
 
     def get(self, path: str) -> tuple[int, str]:
@@ -307,7 +311,8 @@ class ServiceProcess:
 
     def kill(self) -> None:
         assert self.proc is not None
-        self.proc.send_signal(signal.SIGKILL)
+        if self.proc.poll() is None:
+            self.proc.send_signal(signal.SIGKILL)
         self.proc.wait(SLOW)
         self._logfh.close()
 

@@ -188,7 +188,12 @@ def test_two_shards_evaluate_every_space_once(tmp_path, system_broker_port):
     site = write_site(tmp_path, prefix, port, spaces)
     watcher = Collector(port, [f"{prefix}/#"])
     a = ServiceProcess(site, tmp_path / "s0", "--shard", "0/2").start()
-    b = ServiceProcess(site, tmp_path / "s1", "--shard", "1/2").start()
+    try:
+        b = ServiceProcess(site, tmp_path / "s1", "--shard", "1/2").start()
+    except BaseException:
+        a.stop()
+        watcher.close()
+        raise
     try:
         sensor = Collector(port, [])
         for s in spaces:
