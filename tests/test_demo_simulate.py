@@ -23,6 +23,33 @@ def test_demo_runs_on_its_own_and_exits_zero():
     assert "demo summary" in out and "advisories raised:" in out
     assert " raised " in out  # events shown as they happen
     assert "occupational hygienist" in out
+    # every event counted in the summary was printed, the late ones too
+    raised_lines = [ln for ln in out.splitlines() if len(ln.split()) > 2
+                    and ln.split()[2] == "raised"]
+    counted = int(out.split("advisories raised: ")[1].split()[0])
+    assert len(raised_lines) == counted
+
+
+def test_demo_live_view_fits_80_columns_and_shows_the_newest_advice():
+    import datetime as dt
+    import io
+
+    from thermowarden.demo import DemoView
+
+    dv = DemoView("p", dt.timezone.utc, width=80)
+    advisory = {"id": "a1", "space": {"id": "office-west"}, "audience": "facilities",
+                "priority": "medium", "title": "Lower the blinds on the west facade " * 3,
+                "advice": "Lower the west blinds to cut the radiant load by the window; "
+                          "the operative temperature should fall by about a degree. " * 2}
+    dv.events.append({"event": "raised", "at": "2026-07-15T13:00:00Z",
+                      "advisory": advisory})
+    dv.conditions["office-west"] = {"indices": {"operative_temperature": {"value": 27.3}}}
+    buf = io.StringIO()
+    dv.render(1_784_120_400.0, 1_784_073_600.0, 1_784_160_000.0, buf)
+    lines = buf.getvalue().replace("\x1b[H\x1b[2J", "").splitlines()
+    assert max(len(ln) for ln in lines) <= 80
+    assert any(ln.startswith("newest advice (office-west, facilities): Lower the west")
+               for ln in lines)
 
 
 def test_simulate_writes_a_replayable_feed(tmp_path):

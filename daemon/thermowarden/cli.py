@@ -98,10 +98,7 @@ def cmd_assess(args: argparse.Namespace) -> int:
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
-    from thermowarden.shell.warmup import is_compiled, say_on_stderr, warm_up
-
-    if not is_compiled():
-        warm_up(say_on_stderr)
+    _prepare_models()
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":
@@ -147,11 +144,21 @@ def cmd_replay(args: argparse.Namespace) -> int:
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    _prepare_models()
+    progress = _Progress(config.site.timezone) if sys.stderr.isatty() else None
+
+    def emit(event: dict[str, object]) -> None:
+        if progress is not None:
+            progress.clear()
+        print(json.dumps(event, ensure_ascii=False), flush=True)
+
     try:
         opener = gzip.open if args.feed.endswith(".gz") else open
         with opener(args.feed, "rt", encoding="utf-8") as fh:
             result = replay(config, read_feed(fh, args.feed), base=args.config,
-                            full_events=args.full, tick_s=args.tick)
+                            full_events=args.full, tick_s=args.tick,
+                            on_event=None if args.summary else emit,
+                            on_tick=progress.update if progress is not None else None)
     except OSError as exc:
         print(f"thermowarden replay: cannot read {args.feed}: {exc.strerror}", file=sys.stderr)
         return 2
@@ -161,13 +168,52 @@ def cmd_replay(args: argparse.Namespace) -> int:
     except ConfigError as exc:
         _print_issues(exc)
         return 1
+    finally:
+        if progress is not None:
+            progress.clear()
     if args.summary:
         json.dump(summarise(result), sys.stdout, indent=2, ensure_ascii=False)
         print()
-    else:
-        for e in result.events:
-            print(json.dumps(e, ensure_ascii=False))
     return 0
+
+
+class _Progress:
+    """One self-overwriting line on a terminal's stderr: feed time (site's zone), messages."""
+
+    def __init__(self, timezone: str) -> None:
+        import zoneinfo
+
+        self.tz = zoneinfo.ZoneInfo(timezone)
+        self.last = 0.0
+        self.shown = False
+
+    def update(self, t: float, messages: int) -> None:
+        import datetime as dt
+        import time
+
+        now = time.monotonic()
+        if now - self.last < 0.2:
+            return
+        self.last = now
+        when = dt.datetime.fromtimestamp(t, self.tz)
+        sys.stderr.write(f"\rreplaying: feed time {when:%Y-%m-%d %H:%M %Z}, "
+                         f"{messages:,} messages\x1b[K")
+        sys.stderr.flush()
+        self.shown = True
+
+    def clear(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r\x1b[K")
+            sys.stderr.flush()
+            self.shown = False
+
+
+def _prepare_models() -> None:
+    """Load the comfort models, saying so on stderr when they are compiled (once)."""
+    from thermowarden.shell.warmup import is_compiled, say_on_stderr, warm_up
+
+    if not is_compiled():
+        warm_up(say_on_stderr)
 
 
 def _shard(text: str) -> tuple[int, int]:
@@ -228,6 +274,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from thermowarden.demo import run_demo
 
     view = sys.stdout.isatty() and not args.plain
+    _prepare_models()
     return run_demo(args.broker, args.duration, args.speed, view)
 
 
@@ -288,6 +335,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    _prepare_models()
     if args.feed:
         opener = gzip.open if args.feed.endswith(".gz") else open
         try:
