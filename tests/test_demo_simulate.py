@@ -36,7 +36,7 @@ def test_demo_live_view_fits_80_columns_and_shows_the_newest_advice():
 
     from thermowarden.demo import DemoView
 
-    dv = DemoView("p", dt.timezone.utc, width=80)
+    dv = DemoView("p", dt.UTC, width=80)
     advisory = {"id": "a1", "space": {"id": "office-west"}, "audience": "facilities",
                 "priority": "medium", "title": "Lower the blinds on the west facade " * 3,
                 "advice": "Lower the west blinds to cut the radiant load by the window; "

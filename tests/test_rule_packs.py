@@ -16,7 +16,7 @@ from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_pack
 
 def test_every_rule_file_in_the_repo_loads():
     files = sorted((REPO / "rules").glob("*.yaml"))
-    assert len(files) == 8
+    assert len(files) == 9
     assert [f.stem for f in files] == builtin_pack_names()
     packs = load_rule_packs(builtin_pack_names())
     for f in files:
@@ -95,8 +95,67 @@ def test_check_cli_valid_example_prints_map():
     assert "space bakery-floor (indoor, hot work)" in r.stdout
     assert "larkfield/bakery-floor/senml" in r.stdout
     assert "valid (5 spaces" in r.stderr
-    assert "warning: space studio-north: rule humidity.condensation_risk needs " \
-           "surface_temperature" in r.stderr
+    assert "0 warning(s)" in r.stderr  # the complete example gives no warnings of its own
+    assert "warning:" not in r.stderr
+
+
+def test_check_names_a_misspelt_pack_with_position_and_suggestion(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: UTC}
+        defaults: {rule_packs: [comfrot]}
+        templates:
+          - {topic: "b/{space}/t", quantity: air_temperature}
+        spaces:
+          - id: a
+            rule_packs: [comfort, humdity]
+          - id: b
+            rule_packs: [comfort]
+        """))
+    r = run_check(site)
+    assert r.returncode == 1
+    # defaults.rule_packs is checked although every space names its own packs
+    assert (f"{site}:2:25: defaults.rule_packs.0: unknown rule pack 'comfrot'; did you mean "
+            "'comfort'?") in r.stderr
+    assert (f"{site}:7:27: spaces.0.rule_packs.1: unknown rule pack 'humdity'; did you mean "
+            "'humidity'?") in r.stderr
+
+
+def test_check_groups_identical_warnings(tmp_path):
+    site = tmp_path / "site.yaml"
+    spaces = "".join(f"  - id: s{i:04d}\n" for i in range(300))
+    site.write_text("site: {id: s, timezone: UTC}\ndefaults: {rule_packs: [humidity]}\n"
+                    "templates:\n  - {topic: \"b/{space}/t\", quantity: air_temperature}\n"
+                    "spaces:\n" + spaces)
+    r = run_check(site)
+    assert r.returncode == 0, r.stderr
+    warnings = [ln for ln in r.stderr.splitlines() if ln.startswith("warning:")]
+    assert len(warnings) == 2  # too_humid and too_dry, each once for all 300 spaces
+    assert warnings[0].startswith("warning: 300 spaces (s0000, s0001, s0002 and 297 more): "
+                                  "rule humidity.")
+    assert "600 warning(s) in 2 group(s)" in r.stderr
+
+
+def test_environment_overrides_top_level_keys(tmp_path):
+    import os
+
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "own.yaml").write_text(
+        (REPO / "rules" / "humidity.yaml").read_text().replace("pack: humidity", "pack: own"))
+    site = tmp_path / "site.yaml"
+    site.write_text("site: {id: s, timezone: UTC}\ndefaults: {rule_packs: [own]}\n"
+                    "templates:\n  - {topic: \"b/{space}/rh\", quantity: relative_humidity}\n"
+                    "spaces:\n  - id: a\n")
+    env = {**os.environ, "THERMOWARDEN_RULE_DIRS": "[mine]"}
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(site)],
+                       capture_output=True, text=True, timeout=120, env=env)
+    assert r.returncode == 0, r.stderr
+    env = {**os.environ, "THERMOWARDEN_RULE_DIR": "[mine]"}
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(site)],
+                       capture_output=True, text=True, timeout=120, env=env)
+    assert r.returncode == 1
+    assert "THERMOWARDEN_RULE_DIR: no top-level setting 'rule_dir'; did you mean " \
+           "THERMOWARDEN_RULE_DIRS?" in r.stderr
 
 
 def test_check_cli_reports_every_problem_and_fails(tmp_path):

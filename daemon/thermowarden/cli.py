@@ -115,7 +115,7 @@ def cmd_assess(args: argparse.Namespace) -> int:
 
 def cmd_check(args: argparse.Namespace) -> int:
     """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
-    from thermowarden.site_check import check_site, resolved_map
+    from thermowarden.site_check import check_site, grouped_warnings, resolved_map
 
     report = check_site(args.config)
     if not report.ok:
@@ -127,11 +127,13 @@ def cmd_check(args: argparse.Namespace) -> int:
     assert report.model is not None
     if not args.quiet:
         print("\n".join(resolved_map(report.model)))
-    for w in report.warnings:
+    groups = grouped_warnings(report.warnings)
+    for w in groups:
         print(f"warning: {w}", file=sys.stderr)
     n = report.model.n_spaces
+    grouped = f" in {len(groups)} group(s)" if len(groups) < len(report.warnings) else ""
     print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
-          f"{len(report.model.points)} points, {len(report.warnings)} warning(s))",
+          f"{len(report.model.points)} points, {len(report.warnings)} warning(s){grouped})",
           file=sys.stderr)
     return 0
 

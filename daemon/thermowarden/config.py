@@ -724,14 +724,28 @@ def _set_path(data: dict[str, Any], path: list[str], value: Any) -> None:
     node[path[-1]] = value
 
 
-def _apply_environment(data: dict[str, Any], environ: Mapping[str, str]) -> dict[Path, str]:
-    """Override settings from THERMOWARDEN_SECTION__KEY variables; values parse as YAML."""
+def _apply_environment(data: dict[str, Any], environ: Mapping[str, str],
+                       issues: list[ConfigIssue] | None = None) -> dict[Path, str]:
+    """Override settings from THERMOWARDEN_SECTION__KEY variables, or THERMOWARDEN_KEY for a
+    top-level key (``rule_dirs``, ``spaces_csv``, a whole section); values parse as YAML.
+
+    A single-level name that is no top-level key is left alone (it may belong to something
+    else), unless it is close to one: then it is refused with the likely name.
+    """
     applied: dict[Path, str] = {}
+    top = sorted(SiteConfig.model_fields)
     for name, raw in sorted(environ.items()):
-        if not name.startswith(ENV_PREFIX) or "__" not in name:
+        if not name.startswith(ENV_PREFIX):
             continue
         path = [p.lower() for p in name[len(ENV_PREFIX):].split("__") if p]
         if not path:
+            continue
+        if "__" not in name and path[0] not in top:
+            close = difflib.get_close_matches(path[0], top, n=1, cutoff=0.8)
+            if close and issues is not None:
+                issues.append(ConfigIssue(None, f"environment variable {name}: no top-level "
+                                                f"setting {path[0]!r}; did you mean "
+                                                f"{ENV_PREFIX}{close[0].upper()}?"))
             continue
         try:
             value = yaml.safe_load(raw) if path[-1] != "password" else raw
@@ -869,7 +883,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
                                   "broker.password: secrets do not belong in the site file; "
                                   "set THERMOWARDEN_BROKER__PASSWORD or broker.password_file"))
     issues.extend(_secrets_in_file(data, smap))
-    env_paths = _apply_environment(data, environ)
+    env_paths = _apply_environment(data, environ, issues)
     csv_name = data.get("spaces_csv")
     if isinstance(csv_name, str):
         csv_path = (p.parent / csv_name) if not os.path.isabs(csv_name) else pathlib.Path(csv_name)
@@ -899,9 +913,41 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     except ValidationError as exc:
         issues.extend(_issues_from_validation(exc, smap, env_paths))
         raise ConfigError(issues) from None
+    issues.extend(_rule_pack_name_issues(config, smap, p))
     if issues:
         raise ConfigError(issues)
     return config
+
+
+def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathlib.Path
+                           ) -> list[ConfigIssue]:
+    """Every rule pack name that names no pack (in ``rule_dirs`` or built in), with its
+    position and the closest existing name; ``defaults.rule_packs`` is checked even when
+    every space names its own packs."""
+    import importlib.resources
+
+    dirs = [pathlib.Path(d) if os.path.isabs(d) else site_path.parent / d
+            for d in config.rule_dirs]
+    dirs.append(pathlib.Path(str(importlib.resources.files("thermowarden.rulepacks"))))
+    available = sorted({f.stem for d in dirs if d.is_dir() for f in d.glob("*.yaml")})
+    issues: list[ConfigIssue] = []
+
+    def check(names: list[str], path: tuple[str | int, ...]) -> None:
+        for k, name in enumerate(names):
+            if name in available:
+                continue
+            close = difflib.get_close_matches(name, available, n=1)
+            hint = (f"; did you mean {close[0]!r}?" if close
+                    else f"; available: {', '.join(available)}")
+            where = ".".join(str(x) for x in (*path, k))
+            issues.append(ConfigIssue(smap.find((*path, k)),
+                                      f"{where}: unknown rule pack {name!r}{hint}"))
+
+    check(config.defaults.rule_packs, ("defaults", "rule_packs"))
+    for i, space in enumerate(config.spaces):
+        if space.rule_packs is not None:
+            check(space.rule_packs, ("spaces", i, "rule_packs"))
+    return issues
 
 
 def read_password(broker: BrokerConfig) -> str | None:

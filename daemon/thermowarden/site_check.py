@@ -80,6 +80,35 @@ def check_site(path: str) -> CheckReport:
     return report
 
 
+def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
+    """Warnings that differ only in the space they name, as one line each:
+    ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``."""
+    groups: dict[str, list[str]] = {}
+    order: list[str] = []
+    for w in warnings:
+        space, sep, rest = w.partition(": ")
+        if not sep or not space.startswith("space "):
+            key, who = w, ""
+        else:
+            key, who = rest, space.removeprefix("space ")
+        if key not in groups:
+            groups[key] = []
+            order.append(key)
+        if who:
+            groups[key].append(who)
+    lines = []
+    for key in order:
+        who = groups[key]
+        if not who:
+            lines.append(key)
+        elif len(who) == 1:
+            lines.append(f"space {who[0]}: {key}")
+        else:
+            more = f" and {len(who) - shown} more" if len(who) > shown else ""
+            lines.append(f"{len(who)} spaces ({', '.join(who[:shown])}{more}): {key}")
+    return lines
+
+
 def resolved_map(model: SiteModel) -> list[str]:
     """space -> quantity -> topic, unit, format, as lines for a person."""
     lines: list[str] = []
