@@ -139,3 +139,31 @@ def test_no_metabolic_rate_gives_no_heat_stress_reference():
     assert out["wbgt"]["value"] is not None
     for key in ("wbgt_reference_acclimatised", "wbgt_margin_acclimatised", "metabolic_rate"):
         assert out[key]["value"] is None and "metabolic rate" in out[key]["reason"]
+
+
+def test_table_for_a_person():
+    """At most 100 columns, a verdict first, one number of decimals per unit, humidex with
+    its reading scale."""
+    r = run({"air_temperature": 31.2, "relative_humidity": 44, "globe_temperature": 34.6,
+             "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate",
+             "clo": 0.6}, "--format", "table")
+    assert r.returncode == 0, r.stderr
+    lines = r.stdout.splitlines()
+    assert max(len(ln) for ln in lines) <= 100
+    # WBGT 0.7 x 22.8 + 0.3 x 34.6 = 26.34 (ISO 7243:2017 eq. 1); moderate work references
+    # 25.03 / 28.26 (tests/data/published_values.yaml, work_class_references)
+    assert lines[0].startswith("HEAT STRESS (unacclimatised): WBGT 26.3 °C vs reference "
+                               "25.0 °C (+1.3 K; acclimatised 28.3 °C)")
+    rows = {ln.split()[0]: ln.split()[1:3] for ln in lines[2:] if ln and not ln[0].isspace()}
+    assert rows["metabolic_rate"] == ["297", "W"]
+    assert rows["wbgt_margin_unacclimatised"] == ["-1.3", "K"]
+    assert rows["dew_point"][1] == "°C" and len(rows["dew_point"][0].split(".")[1]) == 1
+    assert rows["humidex"][1] == "(°C"
+
+
+def test_a_margin_inside_instrument_accuracy_is_called_reached():
+    r = run({"air_temperature": 30, "relative_humidity": 50, "globe_temperature": 33.5,
+             "natural_wet_bulb": 21.4, "air_speed": 0.3, "work_class": "moderate"},
+            "--format", "table")
+    assert r.returncode == 0, r.stderr
+    assert "treat as reached" in r.stdout.split("\n\n")[0]

@@ -17,6 +17,7 @@ import argparse
 import gzip
 import json
 import sys
+import textwrap
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, TextIO
 
@@ -44,19 +45,76 @@ def _read_json(stream: TextIO, name: str) -> object:
         raise SystemExit(2) from None
 
 
+TABLE_WIDTH = 100
+"""Columns of ``assess --format table``: every line fits."""
+
+DECIMALS = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 0, "m/s": 2, "1": 2}
+"""Decimals shown per unit in the table (the JSON output keeps every digit)."""
+
+SHOWN_UNIT = {"humidex": "(°C equivalent)"}
+"""Units shown for dimensionless indices that are read on a temperature scale."""
+
+
+def _shown_value(name: str, value: object, unit: str) -> str:
+    if not isinstance(value, int | float) or isinstance(value, bool):
+        return str(value)
+    digits = 1 if name in SHOWN_UNIT else DECIMALS.get(unit, 2)
+    text = f"{value:.{digits}f}"
+    label = SHOWN_UNIT.get(name, "" if unit in ("1", "category", "") else unit)
+    return f"{text} {label}".rstrip()
+
+
+def _fit(text: str, width: int) -> str:
+    return text if len(text) <= width else text[:width - 3] + "..."
+
+
 def _format_table(result: dict[str, dict[str, object]]) -> str:
+    """One line per index, at most TABLE_WIDTH columns: name, value and unit, then the
+    method (or why there is no value), shortened to fit; the JSON output has them in full."""
     width = max(len(k) for k in result)
     lines = []
     for name, item in result.items():
         value = item["value"]
         if value is None:
-            shown = f"-   ({item.get('reason')})"
+            shown, note = "-", f"({item.get('reason')})"
         else:
-            unit = item["unit"]
-            shown = f"{value} {unit}" if unit not in ("1", "category") else f"{value}"
-            shown = f"{shown:<16} {item['method']}"
-        lines.append(f"{name:<{width}}  {shown}")
+            shown, note = _shown_value(name, value, str(item["unit"])), str(item["method"])
+        line = f"{name:<{width}}  {shown:<20} {note}"
+        lines.append(_fit(line, TABLE_WIDTH))
     return "\n".join(lines)
+
+
+def _verdict(result: dict[str, dict[str, object]]) -> str:
+    """One line for a person: the heat-stress margin when WBGT is known, else comfort."""
+    def num(key: str) -> float | None:
+        v = result.get(key, {}).get("value")
+        return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
+
+    wbgt = num("wbgt_effective")
+    ref_u, ref_a = num("wbgt_reference_unacclimatised"), num("wbgt_reference_acclimatised")
+    if wbgt is not None and ref_u is not None and ref_a is not None:
+        def diff(ref: float) -> str:
+            d = wbgt - ref
+            # a margin smaller than the instruments' accuracy is no margin
+            return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
+        if wbgt - ref_a > -0.5:
+            head, ref, other = "HEAT STRESS (acclimatised too)", ref_a, ("unacclimatised", ref_u)
+        elif wbgt - ref_u > -0.5:
+            head, ref, other = ("HEAT STRESS (unacclimatised)", ref_u,
+                                ("acclimatised", ref_a))
+        else:
+            head, ref, other = "below the WBGT references", ref_u, ("acclimatised", ref_a)
+        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref:.1f} °C ({diff(ref)}; "
+                f"{other[0]} {other[1]:.1f} °C)")
+    pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
+    if pmv is not None:
+        feel = ("neutral" if abs(pmv) <= 0.5 else
+                ("warm" if pmv > 0 else "cool") if abs(pmv) <= 1.5 else
+                ("hot" if pmv > 0 else "cold"))
+        cat = result.get("comfort_category_iso", {}).get("value")
+        extra = f", ISO 7730 category {cat}" if cat else ""
+        return f"thermal sensation {feel} (PMV {pmv:+.2f}{extra})"
+    return "no WBGT or PMV from these readings (the reasons are below)"
 
 
 def _print_issues(exc: Exception) -> None:
@@ -90,6 +148,12 @@ def cmd_assess(args: argparse.Namespace) -> int:
                   file=sys.stderr)
             return 2
     else:
+        if sys.stdin.isatty():
+            print("thermowarden assess: reading one space's readings as a JSON object from "
+                  "stdin; end with Ctrl-D (or use --input FILE). For example:\n"
+                  '  {"air_temperature": 31.2, "relative_humidity": 44, '
+                  '"globe_temperature": 34.6, "air_speed": 0.4, "work_class": "moderate"}',
+                  file=sys.stderr, flush=True)
         data = _read_json(sys.stdin, "stdin")
     try:
         if not isinstance(data, dict):
@@ -102,10 +166,12 @@ def cmd_assess(args: argparse.Namespace) -> int:
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":
+        print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
             print()
-            print(CAUTION)
+            print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
         result["caution"] = {"value": None, "unit": "", "method": "", "reason": CAUTION}
         json.dump(result, sys.stdout, ensure_ascii=False, indent=2)
