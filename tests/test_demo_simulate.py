@@ -8,6 +8,8 @@ import json
 import subprocess
 import sys
 
+import pytest
+
 from tests.conftest import REPO
 from thermowarden.simulate import retime, scenario_records
 
@@ -79,6 +81,18 @@ def test_retime_moves_embedded_timestamps():
     iso = {"time": "1970-01-01T00:16:40+00:00"}
     assert retime(iso, 1000.0, 1060.0)["time"].startswith("1970-01-01T00:17:40")
     assert retime("21.5", 1000.0, 2000.0) == "21.5"
+
+
+def test_retime_keeps_readings_apart_at_high_speed():
+    """At --speed 450, readings 60 s apart in the scenario are 0.13 s apart live: their
+    stamps (epoch seconds given as integers) must stay distinct, or the service rejects
+    the second one as a duplicate."""
+    wall = 1_790_000_000.2
+    a = retime({"ts": 1000}, 1000.0, wall)["ts"]
+    b = retime({"ts": 1060}, 1060.0, wall + 60 / 450)["ts"]
+    assert a != b and b - a == pytest.approx(60 / 450, abs=0.002)
+    ms = retime({"ts": 1_700_000_000_000}, 1_700_000_000.0, wall)["ts"]
+    assert isinstance(ms, int | float) and abs(ms / 1000 - wall) < 0.002
 
 
 def test_service_writes_a_daily_report(tmp_path):

@@ -71,6 +71,9 @@ def test_end_to_end_on_the_system_broker(tmp_path, system_broker_port):
         sensor.close()
     finally:
         assert svc.stop() == 0
+        # an orderly stop is no lost connection
+        assert "connection to the broker lost" not in svc.logtext()
+        assert "disconnected from the broker" not in svc.logtext()
         wait_for(lambda: any(m.get("state") == "offline" for m in watcher.json_on(
             f"{prefix}/status")), SLOW, "offline status on an orderly stop")
         online = next(m for m in watcher.json_on(f"{prefix}/status") if m["state"] == "online")

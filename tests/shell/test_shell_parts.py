@@ -72,3 +72,25 @@ def test_simulated_clock_runs_faster():
     elapsed = time.monotonic() - before
     assert 1000.0 <= t0 <= t1 <= 1000.0 + 100.0 * elapsed + 1.0
     assert t1 - t0 >= 4.0
+
+
+def test_a_busy_http_port_is_named(tmp_path):
+    """`run --http-port` on a port another process holds: exit 1, naming the port."""
+    import socket
+    import subprocess
+    import sys
+
+    from tests.shell.conftest import REPO
+
+    with socket.socket() as holder:
+        holder.bind(("127.0.0.1", 0))
+        holder.listen(1)
+        port = holder.getsockname()[1]
+        r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "run", "--config",
+                            str(REPO / "deploy" / "example-site.yaml"), "--broker",
+                            "mqtt://127.0.0.1:9", "--state-dir", str(tmp_path),
+                            "--http-port", str(port)],
+                           capture_output=True, text=True, timeout=300)
+    assert r.returncode == 1
+    assert f"cannot serve the operations endpoint on 127.0.0.1:{port}: Address already in use" \
+        in r.stderr
