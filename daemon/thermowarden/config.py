@@ -335,6 +335,54 @@ class ExternalIds(Strict):
 ParameterValue = float | bool | str
 
 
+MRT_ASSUMPTION = re.compile(r"^air(?:\s*([+-])\s*(\d+(?:\.\d+)?))?$")
+
+
+class Assumptions(Strict):
+    """What a space assumes for quantities it does not measure (a zone with only a
+    thermostat reports air temperature and humidity). An assumption fills in only while no
+    fresh reading of the quantity exists, is used by every index, and is shown beside the
+    numbers in conditions and advisories. Clothing and activity are ``people``."""
+
+    air_speed: float | None = Field(None, ge=0.0, le=1.0)
+    """m/s; 0.1 is still air (ASHRAE 55's still-air speed)."""
+    mean_radiant_temperature: str | None = None
+    """``air`` (equal to the air temperature: no warm or cold surfaces) or ``air+2`` /
+    ``air-1.5`` (offset in K from it)."""
+
+    @field_validator("mean_radiant_temperature")
+    @classmethod
+    def _mrt(cls, v: str | None) -> str | None:
+        if v is not None and not MRT_ASSUMPTION.match(v.strip()):
+            raise ValueError("expected 'air' or 'air+K' / 'air-K' (an offset in kelvin), "
+                             f"got {v!r}")
+        return v
+
+    @property
+    def mrt_offset_k(self) -> float | None:
+        """The assumed mean radiant temperature minus the air temperature (K), or None."""
+        if self.mean_radiant_temperature is None:
+            return None
+        m = MRT_ASSUMPTION.match(self.mean_radiant_temperature.strip())
+        assert m is not None
+        if m.group(1) is None:
+            return 0.0
+        return float(m.group(2)) * (1.0 if m.group(1) == "+" else -1.0)
+
+    def notes(self) -> dict[str, str]:
+        """quantity -> how it is shown ("assumed: still air (0.1 m/s)")."""
+        out: dict[str, str] = {}
+        if self.air_speed is not None:
+            still = "still air, " if self.air_speed <= 0.1 else ""
+            out["air_speed"] = f"assumed: {still}{self.air_speed:g} m/s"
+        off = self.mrt_offset_k
+        if off is not None:
+            out["mean_radiant_temperature"] = (
+                "assumed: equal to the air temperature" if off == 0.0 else
+                f"assumed: air temperature {off:+g} K")
+        return out
+
+
 class SpaceConfig(Strict):
     """One space: what it is, who is in it, which rules apply, and its points."""
 
@@ -351,6 +399,7 @@ class SpaceConfig(Strict):
     combine: Literal["mean", "height_weighted"] = "mean"
     solar_load: bool | None = None
     phs_edition: Literal["2023", "2004"] = "2023"
+    assume: Assumptions | None = None
     points: list[PointConfig] = Field(default_factory=list)
 
     @field_validator("points")
@@ -370,6 +419,7 @@ class SpaceDefaults(Strict):
     occupancy: OccupancyConfig = Field(default_factory=lambda: OccupancyConfig(always=True))
     rule_packs: list[str] = Field(default_factory=list)
     parameters: dict[str, ParameterValue] = Field(default_factory=dict)
+    assume: Assumptions | None = None
 
 
 # ----------------------------------------------------------------------------- site
@@ -633,6 +683,16 @@ class SiteConfig(Strict):
 
     def occupancy(self, space: SpaceConfig) -> OccupancyConfig:
         return space.occupancy or self.defaults.occupancy
+
+    def assumptions(self, space: SpaceConfig) -> Assumptions:
+        """The space's assumptions, each one falling back to ``defaults.assume``."""
+        base = self.defaults.assume or Assumptions()
+        own = space.assume or Assumptions()
+        return Assumptions(
+            air_speed=own.air_speed if own.air_speed is not None else base.air_speed,
+            mean_radiant_temperature=(own.mean_radiant_temperature
+                                      if own.mean_radiant_temperature is not None
+                                      else base.mean_radiant_temperature))
 
     def rule_packs(self, space: SpaceConfig) -> list[str]:
         return space.rule_packs if space.rule_packs is not None else self.defaults.rule_packs

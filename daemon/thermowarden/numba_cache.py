@@ -21,7 +21,7 @@ import os
 from numba.core.caching import UserProvidedCacheLocator
 
 
-class ContentKeyedCacheLocator(UserProvidedCacheLocator):  # type: ignore[misc]
+class ContentKeyedCacheLocator(UserProvidedCacheLocator):
     """``UserProvidedCacheLocator`` whose sub-folder is named by the source file's content."""
 
     @classmethod

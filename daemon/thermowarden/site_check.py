@@ -98,14 +98,14 @@ def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
             groups[key].append(who)
     lines = []
     for key in order:
-        who = groups[key]
-        if not who:
+        ids = groups[key]
+        if not ids:
             lines.append(key)
-        elif len(who) == 1:
-            lines.append(f"space {who[0]}: {key}")
+        elif len(ids) == 1:
+            lines.append(f"space {ids[0]}: {key}")
         else:
-            more = f" and {len(who) - shown} more" if len(who) > shown else ""
-            lines.append(f"{len(who)} spaces ({', '.join(who[:shown])}{more}): {key}")
+            more = f" and {len(ids) - shown} more" if len(ids) > shown else ""
+            lines.append(f"{len(ids)} spaces ({', '.join(ids[:shown])}{more}): {key}")
     return lines
 
 

@@ -99,6 +99,7 @@ class Evaluation:
         env.update(self.health.columns(snap, now, start))
         env["rules_unknown_long"] = rules_unknown_long
         env["_present"] = snap.present
+        env["_assumed"] = snap.assumed
         return env
 
 
