@@ -360,6 +360,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         print(f"thermowarden simulate: {exc}", file=sys.stderr)
         return 2
     if args.output:
+        print(f"writing scenario {args.scenario} ({args.days} day(s)) to {args.output} ...",
+              file=sys.stderr, flush=True)
         n = write_feed(records, args.output)
         print(f"{n} readings written to {args.output}", file=sys.stderr)
         return 0
@@ -368,6 +370,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         return 1
     host, port, _ = parse_url(args.broker or config.broker.url)
     try:
+        print(f"publishing scenario {args.scenario} to {host}:{port}, {args.speed:g} times "
+              "real time (Ctrl-C stops) ...", file=sys.stderr, flush=True)
         n = publish_live(records, host, port, args.protocol or config.broker.protocol,
                          args.speed, username=config.broker.username,
                          password=read_password(config.broker))
