@@ -184,3 +184,14 @@ def test_check_cli_reports_rule_pack_errors(tmp_path):
     write_pack(tmp_path, BAD)
     r = run_check(site)
     assert r.returncode == 1 and "rule warm: condition" in r.stderr
+
+
+def test_check_loads_no_comfort_model():
+    """`check` answers without numba or pythermalcomfort (they take seconds to load)."""
+    code = ("import sys\nfrom thermowarden.cli import main\n"
+            f"rc = main(['check', '--quiet', {str(REPO / 'deploy' / 'example-site.yaml')!r}])\n"
+            "loaded = sorted({m.split('.')[0] for m in sys.modules} & {'numba', "
+            "'pythermalcomfort'})\nprint(rc, loaded)\n")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                       timeout=120)
+    assert r.stdout.strip().splitlines()[-1] == "0 []", r.stdout + r.stderr
