@@ -8,6 +8,8 @@ import sys
 
 import pytest
 
+from tests.conftest import COMMAND_LIMIT_S
+
 REQUIRED = ["operative_temperature", "mean_radiant_temperature", "radiant_asymmetry",
             "dew_point", "wet_bulb", "humidity_ratio", "relative_humidity", "pmv_iso", "ppd_iso",
             "pmv_ashrae", "ppd_ashrae", "set", "cooling_effect", "draught_rate", "wbgt",
@@ -20,7 +22,7 @@ REQUIRED = ["operative_temperature", "mean_radiant_temperature", "radiant_asymme
 def run(payload: object, *args: str) -> subprocess.CompletedProcess[str]:
     text = payload if isinstance(payload, str) else json.dumps(payload)
     return subprocess.run([sys.executable, "-m", "thermowarden.cli", "assess", *args],
-                          input=text, capture_output=True, text=True, timeout=120)
+                          input=text, capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
 
 
 def test_office_spot_check_json():

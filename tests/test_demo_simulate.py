@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-from tests.conftest import REPO
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.simulate import retime, scenario_records
 
 SITE = REPO / "deploy" / "example-site.yaml"
@@ -18,7 +18,7 @@ SITE = REPO / "deploy" / "example-site.yaml"
 
 def test_demo_runs_on_its_own_and_exits_zero():
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "demo", "--duration", "35",
-                        "--plain"], capture_output=True, text=True, timeout=240)
+                        "--plain"], capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr[-3000:]
     out = r.stdout
     assert "started an embedded MQTT broker" in out
@@ -58,7 +58,7 @@ def test_simulate_writes_a_replayable_feed(tmp_path):
     feed = tmp_path / "heatwave.jsonl.gz"
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "simulate", "--scenario",
                         "larkfield-heatwave", "--days", "2", "--output", str(feed)],
-                       capture_output=True, text=True, timeout=300)
+                       capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr
     with gzip.open(feed, "rt") as fh:
         lines = fh.readlines()

@@ -9,7 +9,7 @@ import textwrap
 
 import pytest
 
-from tests.conftest import REPO
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.config import load_rule_pack_file
 from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_packs
 
@@ -86,7 +86,7 @@ def test_unknown_pack_lists_builtins():
 
 def run_check(path):
     return subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(path)],
-                          capture_output=True, text=True, timeout=120)
+                          capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
 
 
 def test_check_cli_valid_example_prints_map():
@@ -193,5 +193,5 @@ def test_check_loads_no_comfort_model():
             "loaded = sorted({m.split('.')[0] for m in sys.modules} & {'numba', "
             "'pythermalcomfort'})\nprint(rc, loaded)\n")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                       timeout=120)
+                       timeout=COMMAND_LIMIT_S)
     assert r.stdout.strip().splitlines()[-1] == "0 []", r.stdout + r.stderr

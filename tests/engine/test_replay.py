@@ -10,7 +10,7 @@ import sys
 
 import pytest
 
-from tests.conftest import REPO
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from tests.engine.conftest import validator
 from thermowarden.config import load_site
 from thermowarden.replay import read_feed, replay, summarise
@@ -82,8 +82,8 @@ def test_cli_replay_is_deterministic(tmp_path):
         part.write_text("".join(itertools.islice(fh, 5000)))
     cmd = [sys.executable, "-m", "thermowarden.cli", "replay", "--config", str(SITE),
            str(part), "--tick", "30"]
-    a = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
-    b = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    a = subprocess.run(cmd, capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
+    b = subprocess.run(cmd, capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert a.returncode == 0, a.stderr
     assert a.stdout == b.stdout and a.stdout.strip()
     import json
@@ -98,7 +98,8 @@ def test_cli_replay_rejects_a_bad_feed(tmp_path):
     bad.write_text('{"t": 1, "topic": "x", "payload": 1}\n{"t": "yesterday", "topic": "x", '
                    '"payload": 1}\n')
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "replay", "--config",
-                        str(SITE), str(bad)], capture_output=True, text=True, timeout=120)
+                        str(SITE), str(bad)], capture_output=True, text=True,
+                       timeout=COMMAND_LIMIT_S)
     assert r.returncode == 2 and f"{bad}:2: t:" in r.stderr
 
 

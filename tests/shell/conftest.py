@@ -23,6 +23,8 @@ import paho.mqtt.client as mqtt
 import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
+from tests.conftest import COMMAND_LIMIT_S
+
 REPO = pathlib.Path(__file__).resolve().parents[2]
 MOSQUITTO = shutil.which("mosquitto") or (
     "/usr/sbin/mosquitto" if os.access("/usr/sbin/mosquitto", os.X_OK) else None)
@@ -265,7 +267,9 @@ class ServiceProcess:
                                      stderr=self._logfh)
         if wait_ready:
             try:
-                wait_for(self.ready, 180, f"the service to be ready (log {self.log})")
+                # (a first start compiles the comfort models: minutes on a loaded machine)
+                wait_for(self.ready, COMMAND_LIMIT_S,
+                         f"the service to be ready (log {self.log})")
             except BaseException:
                 self.kill()  # leave no process or open log behind a failed start
                 raise

@@ -80,6 +80,7 @@ def test_a_busy_http_port_is_named(tmp_path):
     import subprocess
     import sys
 
+    from tests.conftest import COMMAND_LIMIT_S
     from tests.shell.conftest import REPO
 
     with socket.socket() as holder:
@@ -90,7 +91,7 @@ def test_a_busy_http_port_is_named(tmp_path):
                             str(REPO / "deploy" / "example-site.yaml"), "--broker",
                             "mqtt://127.0.0.1:9", "--state-dir", str(tmp_path),
                             "--http-port", str(port)],
-                           capture_output=True, text=True, timeout=300)
+                           capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 1
     assert f"cannot serve the operations endpoint on 127.0.0.1:{port}: Address already in use" \
         in r.stderr
