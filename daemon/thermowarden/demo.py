@@ -179,7 +179,6 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     config = load_site(site_path)
     records = list(larkfield_day())
     start, end = records[0]["t"], records[-1]["t"]
-    stop_at = time.monotonic() + duration if duration is not None else float("inf")
     state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
     clock = Clock(start=start - 1.0, speed=speed, paused=True)
     # at hundreds of times real speed a few milliseconds of scheduling delay are whole
@@ -216,6 +215,9 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         time.sleep(0.3)
         clock.resume()
         service.engine.start = clock.now()
+        # --duration counts from the start of the simulated day, not from the start-up (a
+        # loaded machine may take a while to start the service)
+        stop_at = time.monotonic() + duration if duration is not None else float("inf")
         last_view = 0.0
         shown = 0
         for rec in records:
