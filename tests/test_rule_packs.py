@@ -186,12 +186,15 @@ def test_check_cli_reports_rule_pack_errors(tmp_path):
     assert r.returncode == 1 and "rule warm: condition" in r.stderr
 
 
-def test_check_loads_no_comfort_model():
-    """`check` answers without numba or pythermalcomfort (they take seconds to load)."""
+def test_check_reports_a_bad_file_without_loading_the_comfort_models(tmp_path):
+    """`check` of a file it refuses answers without numba or pythermalcomfort (they take
+    seconds to load; a valid site loads them to see which rules can ever finish)."""
+    bad = tmp_path / "site.yaml"
+    bad.write_text("site: {id: x\n  name: [\n")
     code = ("import sys\nfrom thermowarden.cli import main\n"
-            f"rc = main(['check', '--quiet', {str(REPO / 'deploy' / 'example-site.yaml')!r}])\n"
+            f"rc = main(['check', '--quiet', {str(bad)!r}])\n"
             "loaded = sorted({m.split('.')[0] for m in sys.modules} & {'numba', "
             "'pythermalcomfort'})\nprint(rc, loaded)\n")
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                        timeout=COMMAND_LIMIT_S)
-    assert r.stdout.strip().splitlines()[-1] == "0 []", r.stdout + r.stderr
+    assert r.stdout.strip().splitlines()[-1] == "1 []", r.stdout + r.stderr

@@ -183,7 +183,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
     from thermowarden.site_check import check_site, grouped_warnings, resolved_map
 
-    report = check_site(args.config)
+    report = check_site(args.config, prepare=_prepare_models)
     if not report.ok:
         for issue in report.issues:
             print(issue, file=sys.stderr)

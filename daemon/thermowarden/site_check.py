@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
@@ -29,7 +30,7 @@ class CheckReport:
         return not self.issues
 
 
-def check_site(path: str) -> CheckReport:
+def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckReport:
     """Validate the site file, the CSV it refers to, and the rule packs it names."""
     report = CheckReport()
     try:
@@ -63,6 +64,8 @@ def check_site(path: str) -> CheckReport:
                     "no point provides")
     from thermowarden.engine.finishing import unfinishable_rules
 
+    if prepare is not None:
+        prepare()  # the comfort models load (or compile, once) only for a valid site
     for u in unfinishable_rules(report.model, packs):
         if (u.space, u.rule) in lacking:
             continue
