@@ -160,7 +160,10 @@ def test_table_for_a_person():
     assert rows["metabolic_rate"] == ["297", "W"]
     assert rows["wbgt_margin_unacclimatised"] == ["-1.3", "K"]
     assert rows["dew_point"][1] == "°C" and len(rows["dew_point"][0].split(".")[1]) == 1
-    assert rows["humidex"][1] == "(°C"
+    outdoor = run({"air_temperature": 31.2, "relative_humidity": 44, "environment": "outdoor"},
+                  "--format", "table")
+    humidex = next(ln for ln in outdoor.stdout.splitlines() if ln.startswith("humidex "))
+    assert humidex.split()[2:4] == ["(°C", "equivalent)"]  # dimensionless, read as °C
 
 
 def test_a_margin_inside_instrument_accuracy_is_called_reached():
