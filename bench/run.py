@@ -18,6 +18,13 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
   (messages rendered for every space that crosses a threshold).
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
+- python_start_s: a bare ``python -c pass``, the baseline of the start-up figures below
+  (each the median wall time of a fresh ``python -m thermowarden.cli`` process):
+  cold_assess_s: the README's ``assess`` example with an empty numba cache (kernels
+  compiled); warm_assess_s: the same once cached; clone_assess_s: the same from a copy of
+  the package at another path, sharing the cache (a second checkout of the same version);
+  check_error_s: ``check`` of a site with a YAML syntax error (skipped with --no-cold:
+  cold_assess_s).
 """
 
 from __future__ import annotations
@@ -315,13 +322,68 @@ def bench_trusted_ingest(quick: bool) -> dict[str, float]:
     return {"ingest_trusted_vs_plain_ratio": round(rates["trusted"] / rates["plain"], 3)}
 
 
+README_EXAMPLE = json.dumps({
+    "air_temperature": 31.2, "relative_humidity": 44, "globe_temperature": 34.6,
+    "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate", "clo": 0.6})
+
+
+def _wall(cmd: list[str], env: dict[str, str], stdin: str = "") -> float:
+    import subprocess
+
+    t0 = time.perf_counter()
+    subprocess.run(cmd, input=stdin, env=env, capture_output=True, text=True, timeout=900)
+    return time.perf_counter() - t0
+
+
+def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
+    """Start-up of the commands a new user runs first, each in a fresh process."""
+    import shutil
+    import tempfile
+
+    repeats = 3 if quick else 5
+    root = pathlib.Path(__file__).resolve().parent.parent
+    out: dict[str, float] = {}
+    with tempfile.TemporaryDirectory(prefix="tw-bench-") as tmp:
+        env = {**os.environ, "NUMBA_CACHE_DIR": str(pathlib.Path(tmp) / "numba"),
+               "PYTHONPATH": str(root / "daemon")}
+        assess = [sys.executable, "-m", "thermowarden.cli", "assess", "--format", "table"]
+        out["python_start_s"] = statistics.median(
+            _wall([sys.executable, "-c", "pass"], env) for _ in range(repeats))
+        if cold:
+            out["cold_assess_s"] = _wall(assess, env, README_EXAMPLE)
+        else:
+            _wall(assess, env, README_EXAMPLE)  # fill the cache
+        out["warm_assess_s"] = statistics.median(
+            _wall(assess, env, README_EXAMPLE) for _ in range(repeats))
+        clone = pathlib.Path(tmp) / "second-checkout" / "daemon"
+        shutil.copytree(root / "daemon" / "thermowarden", clone / "thermowarden",
+                        ignore=shutil.ignore_patterns("__pycache__"))
+        clone_env = {**env, "PYTHONPATH": str(clone)}
+        out["clone_assess_s"] = statistics.median(
+            _wall(assess, clone_env, README_EXAMPLE) for _ in range(repeats))
+        bad = pathlib.Path(tmp) / "site.yaml"
+        bad.write_text("site: {id: x\n  name: [\n", encoding="utf-8")
+        out["check_error_s"] = statistics.median(
+            _wall([sys.executable, "-m", "thermowarden.cli", "check", str(bad)], env)
+            for _ in range(repeats))
+    return out
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats (under a minute)")
     parser.add_argument("--no-broker", action="store_true",
                         help="skip the end-to-end figures (they need mosquitto)")
+    parser.add_argument("--no-cold", action="store_true",
+                        help="skip cold_assess_s (compiling the kernels takes a minute)")
+    parser.add_argument("--startup-only", action="store_true",
+                        help="only the start-up figures")
     args = parser.parse_args()
     figures: dict[str, float] = {}
+    figures.update(bench_startup(args.quick, not args.no_cold))
+    if args.startup_only:
+        print(json.dumps(figures))
+        return 0
     figures.update(bench_indices(args.quick))
     figures.update(bench_ingest(args.quick))
     figures.update(bench_memory())

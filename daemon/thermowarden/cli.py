@@ -17,6 +17,7 @@ import argparse
 import gzip
 import json
 import sys
+import textwrap
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, TextIO
 
@@ -47,19 +48,76 @@ def _read_json(stream: TextIO, name: str) -> object:
         raise SystemExit(2) from None
 
 
+TABLE_WIDTH = 100
+"""Columns of ``assess --format table``: every line fits."""
+
+DECIMALS = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 0, "m/s": 2, "1": 2}
+"""Decimals shown per unit in the table (the JSON output keeps every digit)."""
+
+SHOWN_UNIT = {"humidex": "(°C equivalent)"}
+"""Units shown for dimensionless indices that are read on a temperature scale."""
+
+
+def _shown_value(name: str, value: object, unit: str) -> str:
+    if not isinstance(value, int | float) or isinstance(value, bool):
+        return str(value)
+    digits = 1 if name in SHOWN_UNIT else DECIMALS.get(unit, 2)
+    text = f"{value:.{digits}f}"
+    label = SHOWN_UNIT.get(name, "" if unit in ("1", "category", "") else unit)
+    return f"{text} {label}".rstrip()
+
+
+def _fit(text: str, width: int) -> str:
+    return text if len(text) <= width else text[:width - 3] + "..."
+
+
 def _format_table(result: dict[str, dict[str, object]]) -> str:
+    """One line per index, at most TABLE_WIDTH columns: name, value and unit, then the
+    method (or why there is no value), shortened to fit; the JSON output has them in full."""
     width = max(len(k) for k in result)
     lines = []
     for name, item in result.items():
         value = item["value"]
         if value is None:
-            shown = f"-   ({item.get('reason')})"
+            shown, note = "-", f"({item.get('reason')})"
         else:
-            unit = item["unit"]
-            shown = f"{value} {unit}" if unit not in ("1", "category") else f"{value}"
-            shown = f"{shown:<16} {item['method']}"
-        lines.append(f"{name:<{width}}  {shown}")
+            shown, note = _shown_value(name, value, str(item["unit"])), str(item["method"])
+        line = f"{name:<{width}}  {shown:<20} {note}"
+        lines.append(_fit(line, TABLE_WIDTH))
     return "\n".join(lines)
+
+
+def _verdict(result: dict[str, dict[str, object]]) -> str:
+    """One line for a person: the heat-stress margin when WBGT is known, else comfort."""
+    def num(key: str) -> float | None:
+        v = result.get(key, {}).get("value")
+        return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
+
+    wbgt = num("wbgt_effective")
+    ref_u, ref_a = num("wbgt_reference_unacclimatised"), num("wbgt_reference_acclimatised")
+    if wbgt is not None and ref_u is not None and ref_a is not None:
+        def diff(ref: float) -> str:
+            d = wbgt - ref
+            # a margin smaller than the instruments' accuracy is no margin
+            return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
+        if wbgt - ref_a > -0.5:
+            head, ref, other = "HEAT STRESS (acclimatised too)", ref_a, ("unacclimatised", ref_u)
+        elif wbgt - ref_u > -0.5:
+            head, ref, other = ("HEAT STRESS (unacclimatised)", ref_u,
+                                ("acclimatised", ref_a))
+        else:
+            head, ref, other = "below the WBGT references", ref_u, ("acclimatised", ref_a)
+        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref:.1f} °C ({diff(ref)}; "
+                f"{other[0]} {other[1]:.1f} °C)")
+    pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
+    if pmv is not None:
+        feel = ("neutral" if abs(pmv) <= 0.5 else
+                ("warm" if pmv > 0 else "cool") if abs(pmv) <= 1.5 else
+                ("hot" if pmv > 0 else "cold"))
+        cat = result.get("comfort_category_iso", {}).get("value")
+        extra = f", ISO 7730 category {cat}" if cat else ""
+        return f"thermal sensation {feel} (PMV {pmv:+.2f}{extra})"
+    return "no WBGT or PMV from these readings (the reasons are below)"
 
 
 def _print_issues(exc: Exception) -> None:
@@ -93,6 +151,12 @@ def cmd_assess(args: argparse.Namespace) -> int:
                   file=sys.stderr)
             return 2
     else:
+        if sys.stdin.isatty():
+            print("thermowarden assess: reading one space's readings as a JSON object from "
+                  "stdin; end with Ctrl-D (or use --input FILE). For example:\n"
+                  '  {"air_temperature": 31.2, "relative_humidity": 44, '
+                  '"globe_temperature": 34.6, "air_speed": 0.4, "work_class": "moderate"}',
+                  file=sys.stderr, flush=True)
         data = _read_json(sys.stdin, "stdin")
     try:
         if not isinstance(data, dict):
@@ -101,13 +165,16 @@ def cmd_assess(args: argparse.Namespace) -> int:
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
+    _prepare_models()
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":
+        print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
             print()
-            print(CAUTION)
+            print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
         result["caution"] = {"value": None, "unit": "", "method": "", "reason": CAUTION}
         json.dump(result, sys.stdout, ensure_ascii=False, indent=2)
@@ -117,9 +184,9 @@ def cmd_assess(args: argparse.Namespace) -> int:
 
 def cmd_check(args: argparse.Namespace) -> int:
     """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
-    from thermowarden.site_check import check_site, resolved_map
+    from thermowarden.site_check import check_site, grouped_warnings, resolved_map
 
-    report = check_site(args.config)
+    report = check_site(args.config, prepare=_prepare_models)
     if not report.ok:
         for issue in report.issues:
             print(issue, file=sys.stderr)
@@ -129,11 +196,13 @@ def cmd_check(args: argparse.Namespace) -> int:
     assert report.model is not None
     if not args.quiet:
         print("\n".join(resolved_map(report.model)))
-    for w in report.warnings:
+    groups = grouped_warnings(report.warnings)
+    for w in groups:
         print(f"warning: {w}", file=sys.stderr)
     n = report.model.n_spaces
+    grouped = f" in {len(groups)} group(s)" if len(groups) < len(report.warnings) else ""
     print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
-          f"{len(report.model.points)} points, {len(report.warnings)} warning(s))",
+          f"{len(report.model.points)} points, {len(report.warnings)} warning(s){grouped})",
           file=sys.stderr)
     return 0
 
@@ -146,11 +215,21 @@ def cmd_replay(args: argparse.Namespace) -> int:
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    _prepare_models()
+    progress = _Progress(config.site.timezone) if sys.stderr.isatty() else None
+
+    def emit(event: dict[str, object]) -> None:
+        if progress is not None:
+            progress.clear()
+        print(json.dumps(event, ensure_ascii=False), flush=True)
+
     try:
         opener = gzip.open if args.feed.endswith(".gz") else open
         with opener(args.feed, "rt", encoding="utf-8") as fh:
             result = replay(config, read_feed(fh, args.feed), base=args.config,
-                            full_events=args.full, tick_s=args.tick)
+                            full_events=args.full, tick_s=args.tick,
+                            on_event=None if args.summary else emit,
+                            on_tick=progress.update if progress is not None else None)
     except OSError as exc:
         print(f"thermowarden replay: cannot read {args.feed}: {exc.strerror}", file=sys.stderr)
         return 2
@@ -160,13 +239,52 @@ def cmd_replay(args: argparse.Namespace) -> int:
     except ConfigError as exc:
         _print_issues(exc)
         return 1
+    finally:
+        if progress is not None:
+            progress.clear()
     if args.summary:
         json.dump(summarise(result), sys.stdout, indent=2, ensure_ascii=False)
         print()
-    else:
-        for e in result.events:
-            print(json.dumps(e, ensure_ascii=False))
     return 0
+
+
+class _Progress:
+    """One self-overwriting line on a terminal's stderr: feed time (site's zone), messages."""
+
+    def __init__(self, timezone: str) -> None:
+        import zoneinfo
+
+        self.tz = zoneinfo.ZoneInfo(timezone)
+        self.last = 0.0
+        self.shown = False
+
+    def update(self, t: float, messages: int) -> None:
+        import datetime as dt
+        import time
+
+        now = time.monotonic()
+        if now - self.last < 0.2:
+            return
+        self.last = now
+        when = dt.datetime.fromtimestamp(t, self.tz)
+        sys.stderr.write(f"\rreplaying: feed time {when:%Y-%m-%d %H:%M %Z}, "
+                         f"{messages:,} messages\x1b[K")
+        sys.stderr.flush()
+        self.shown = True
+
+    def clear(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r\x1b[K")
+            sys.stderr.flush()
+            self.shown = False
+
+
+def _prepare_models() -> None:
+    """Load the comfort models, saying so on stderr when they are compiled (once)."""
+    from thermowarden.shell.warmup import is_compiled, say_on_stderr, warm_up
+
+    if not is_compiled():
+        warm_up(say_on_stderr)
 
 
 def _shard(text: str) -> tuple[int, int]:
@@ -232,6 +350,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from thermowarden.demo import run_demo
 
     view = sys.stdout.isatty() and not args.plain
+    _prepare_models()
     return run_demo(args.broker, args.duration, args.speed, view)
 
 
@@ -249,6 +368,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         print(f"thermowarden simulate: {exc}", file=sys.stderr)
         return 2
     if args.output:
+        print(f"writing scenario {args.scenario} ({args.days} day(s)) to {args.output} ...",
+              file=sys.stderr, flush=True)
         n = write_feed(records, args.output)
         print(f"{n} readings written to {args.output}", file=sys.stderr)
         return 0
@@ -257,6 +378,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         return 1
     host, port, _ = parse_url(args.broker or config.broker.url)
     try:
+        print(f"publishing scenario {args.scenario} to {host}:{port}, {args.speed:g} times "
+              "real time (Ctrl-C stops) ...", file=sys.stderr, flush=True)
         n = publish_live(records, host, port, args.protocol or config.broker.protocol,
                          args.speed, username=config.broker.username,
                          password=read_password(config.broker))
@@ -292,6 +415,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    _prepare_models()
     if args.feed:
         opener = gzip.open if args.feed.endswith(".gz") else open
         try:

@@ -335,6 +335,54 @@ class ExternalIds(Strict):
 ParameterValue = float | bool | str
 
 
+MRT_ASSUMPTION = re.compile(r"^air(?:\s*([+-])\s*(\d+(?:\.\d+)?))?$")
+
+
+class Assumptions(Strict):
+    """What a space assumes for quantities it does not measure (a zone with only a
+    thermostat reports air temperature and humidity). An assumption fills in only while no
+    fresh reading of the quantity exists, is used by every index, and is shown beside the
+    numbers in conditions and advisories. Clothing and activity are ``people``."""
+
+    air_speed: float | None = Field(None, ge=0.0, le=1.0)
+    """m/s; 0.1 is still air (ASHRAE 55's still-air speed)."""
+    mean_radiant_temperature: str | None = None
+    """``air`` (equal to the air temperature: no warm or cold surfaces) or ``air+2`` /
+    ``air-1.5`` (offset in K from it)."""
+
+    @field_validator("mean_radiant_temperature")
+    @classmethod
+    def _mrt(cls, v: str | None) -> str | None:
+        if v is not None and not MRT_ASSUMPTION.match(v.strip()):
+            raise ValueError("expected 'air' or 'air+K' / 'air-K' (an offset in kelvin), "
+                             f"got {v!r}")
+        return v
+
+    @property
+    def mrt_offset_k(self) -> float | None:
+        """The assumed mean radiant temperature minus the air temperature (K), or None."""
+        if self.mean_radiant_temperature is None:
+            return None
+        m = MRT_ASSUMPTION.match(self.mean_radiant_temperature.strip())
+        assert m is not None
+        if m.group(1) is None:
+            return 0.0
+        return float(m.group(2)) * (1.0 if m.group(1) == "+" else -1.0)
+
+    def notes(self) -> dict[str, str]:
+        """quantity -> how it is shown ("assumed: still air (0.1 m/s)")."""
+        out: dict[str, str] = {}
+        if self.air_speed is not None:
+            still = "still air, " if self.air_speed <= 0.1 else ""
+            out["air_speed"] = f"assumed: {still}{self.air_speed:g} m/s"
+        off = self.mrt_offset_k
+        if off is not None:
+            out["mean_radiant_temperature"] = (
+                "assumed: equal to the air temperature" if off == 0.0 else
+                f"assumed: air temperature {off:+g} K")
+        return out
+
+
 class SpaceConfig(Strict):
     """One space: what it is, who is in it, which rules apply, and its points."""
 
@@ -351,6 +399,7 @@ class SpaceConfig(Strict):
     combine: Literal["mean", "height_weighted"] = "mean"
     solar_load: bool | None = None
     phs_edition: Literal["2023", "2004"] = "2023"
+    assume: Assumptions | None = None
     points: list[PointConfig] = Field(default_factory=list)
 
     @field_validator("points")
@@ -370,6 +419,7 @@ class SpaceDefaults(Strict):
     occupancy: OccupancyConfig = Field(default_factory=lambda: OccupancyConfig(always=True))
     rule_packs: list[str] = Field(default_factory=list)
     parameters: dict[str, ParameterValue] = Field(default_factory=dict)
+    assume: Assumptions | None = None
 
 
 # ----------------------------------------------------------------------------- site
@@ -655,6 +705,16 @@ class SiteConfig(Strict):
     def occupancy(self, space: SpaceConfig) -> OccupancyConfig:
         return space.occupancy or self.defaults.occupancy
 
+    def assumptions(self, space: SpaceConfig) -> Assumptions:
+        """The space's assumptions, each one falling back to ``defaults.assume``."""
+        base = self.defaults.assume or Assumptions()
+        own = space.assume or Assumptions()
+        return Assumptions(
+            air_speed=own.air_speed if own.air_speed is not None else base.air_speed,
+            mean_radiant_temperature=(own.mean_radiant_temperature
+                                      if own.mean_radiant_temperature is not None
+                                      else base.mean_radiant_temperature))
+
     def rule_packs(self, space: SpaceConfig) -> list[str]:
         return space.rule_packs if space.rule_packs is not None else self.defaults.rule_packs
 
@@ -745,14 +805,28 @@ def _set_path(data: dict[str, Any], path: list[str], value: Any) -> None:
     node[path[-1]] = value
 
 
-def _apply_environment(data: dict[str, Any], environ: Mapping[str, str]) -> dict[Path, str]:
-    """Override settings from THERMOWARDEN_SECTION__KEY variables; values parse as YAML."""
+def _apply_environment(data: dict[str, Any], environ: Mapping[str, str],
+                       issues: list[ConfigIssue] | None = None) -> dict[Path, str]:
+    """Override settings from THERMOWARDEN_SECTION__KEY variables, or THERMOWARDEN_KEY for a
+    top-level key (``rule_dirs``, ``spaces_csv``, a whole section); values parse as YAML.
+
+    A single-level name that is no top-level key is left alone (it may belong to something
+    else), unless it is close to one: then it is refused with the likely name.
+    """
     applied: dict[Path, str] = {}
+    top = sorted(SiteConfig.model_fields)
     for name, raw in sorted(environ.items()):
-        if not name.startswith(ENV_PREFIX) or "__" not in name:
+        if not name.startswith(ENV_PREFIX):
             continue
         path = [p.lower() for p in name[len(ENV_PREFIX):].split("__") if p]
         if not path:
+            continue
+        if "__" not in name and path[0] not in top:
+            close = difflib.get_close_matches(path[0], top, n=1, cutoff=0.8)
+            if close and issues is not None:
+                issues.append(ConfigIssue(None, f"environment variable {name}: no top-level "
+                                                f"setting {path[0]!r}; did you mean "
+                                                f"{ENV_PREFIX}{close[0].upper()}?"))
             continue
         try:
             value = yaml.safe_load(raw) if path[-1] != "password" else raw
@@ -890,7 +964,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
                                   "broker.password: secrets do not belong in the site file; "
                                   "set THERMOWARDEN_BROKER__PASSWORD or broker.password_file"))
     issues.extend(_secrets_in_file(data, smap))
-    env_paths = _apply_environment(data, environ)
+    env_paths = _apply_environment(data, environ, issues)
     csv_name = data.get("spaces_csv")
     if isinstance(csv_name, str):
         csv_path = (p.parent / csv_name) if not os.path.isabs(csv_name) else pathlib.Path(csv_name)
@@ -920,9 +994,41 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     except ValidationError as exc:
         issues.extend(_issues_from_validation(exc, smap, env_paths))
         raise ConfigError(issues) from None
+    issues.extend(_rule_pack_name_issues(config, smap, p))
     if issues:
         raise ConfigError(issues)
     return config
+
+
+def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathlib.Path
+                           ) -> list[ConfigIssue]:
+    """Every rule pack name that names no pack (in ``rule_dirs`` or built in), with its
+    position and the closest existing name; ``defaults.rule_packs`` is checked even when
+    every space names its own packs."""
+    import importlib.resources
+
+    dirs = [pathlib.Path(d) if os.path.isabs(d) else site_path.parent / d
+            for d in config.rule_dirs]
+    dirs.append(pathlib.Path(str(importlib.resources.files("thermowarden.rulepacks"))))
+    available = sorted({f.stem for d in dirs if d.is_dir() for f in d.glob("*.yaml")})
+    issues: list[ConfigIssue] = []
+
+    def check(names: list[str], path: tuple[str | int, ...]) -> None:
+        for k, name in enumerate(names):
+            if name in available:
+                continue
+            close = difflib.get_close_matches(name, available, n=1)
+            hint = (f"; did you mean {close[0]!r}?" if close
+                    else f"; available: {', '.join(available)}")
+            where = ".".join(str(x) for x in (*path, k))
+            issues.append(ConfigIssue(smap.find((*path, k)),
+                                      f"{where}: unknown rule pack {name!r}{hint}"))
+
+    check(config.defaults.rule_packs, ("defaults", "rule_packs"))
+    for i, space in enumerate(config.spaces):
+        if space.rule_packs is not None:
+            check(space.rule_packs, ("spaces", i, "rule_packs"))
+    return issues
 
 
 def read_password(broker: BrokerConfig) -> str | None:

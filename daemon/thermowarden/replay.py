@@ -8,9 +8,10 @@ The same feed gives the same output.
 
 from __future__ import annotations
 
+import datetime as dt
 import json
 import math
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -71,13 +72,23 @@ class ReplayResult:
     end: float = math.nan
 
 
-def event_line(payload: dict[str, Any]) -> dict[str, Any]:
-    """The one-line form of an event: when, what, where, which rule, who, how urgent."""
+def local_time(at: str, tz: dt.tzinfo | None) -> str:
+    """An ISO 8601 time (as published, in UTC) in the site's time zone, to the second."""
+    if tz is None:
+        return at
+    when = dt.datetime.fromisoformat(at.replace("Z", "+00:00")).astimezone(tz)
+    return when.isoformat(timespec="seconds")
+
+
+def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str, Any]:
+    """The one-line form of an event: when (in the site's time zone when ``tz`` is given),
+    what, where, which rule, who, how urgent."""
+    at = local_time(payload["at"], tz)
     if payload["event"] == "summary":
-        return {"at": payload["at"], "event": "summary", "space": None, "rule": None,
+        return {"at": at, "event": "summary", "space": None, "rule": None,
                 "audience": payload["audience"], "priority": None, "count": payload["count"]}
     adv = payload["advisory"]
-    line = {"at": payload["at"], "event": payload["event"], "space": adv["space"]["id"],
+    line = {"at": at, "event": payload["event"], "space": adv["space"]["id"],
             "rule": adv["rule"], "audience": adv["audience"], "priority": adv["priority"],
             "advisory_id": adv["id"], "title": adv["title"], "advice": adv["advice"]}
     if adv.get("acted_on"):
@@ -88,11 +99,16 @@ def event_line(payload: dict[str, Any]) -> dict[str, Any]:
 def replay(config: SiteConfig, records: Iterable[FeedRecord],
            packs: dict[str, CompiledPack] | None = None, base: str | None = None,
            full_events: bool = False, tick_s: float | None = None,
-           samples: bool = False) -> ReplayResult:
+           samples: bool = False,
+           on_event: Callable[[dict[str, Any]], None] | None = None,
+           on_tick: Callable[[float, int], None] | None = None) -> ReplayResult:
     """Replay a feed through a fresh engine; collect every published event.
 
     ``tick_s`` overrides the site's evaluation interval (a coarser tick replays faster;
-    delays and windows are still measured in feed time).
+    delays and windows are still measured in feed time). One-line events carry their time
+    in the site's time zone. With ``on_event`` each event is handed over as it happens and
+    not kept in the result (a failure later in the feed loses nothing already handed
+    over); ``on_tick(feed time, messages so far)`` is called after every evaluation.
     """
     model = build_site_model(config)
     if packs is None:
@@ -104,16 +120,24 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     result = ReplayResult()
     next_tick: float | None = None
 
+    tz = engine.state.tz
+
     def run_tick(t: float) -> None:
         for eff in engine.tick(t):
             if isinstance(eff, Publish) and "/events/" in eff.topic and eff.payload:
-                result.events.append(eff.payload if full_events else event_line(eff.payload))
+                event = eff.payload if full_events else event_line(eff.payload, tz)
+                if on_event is not None:
+                    on_event(event)
+                else:
+                    result.events.append(event)
             elif isinstance(eff, Persist) and eff.kind == "sample" and eff.record:
                 result.samples.append(eff.record)
             elif (isinstance(eff, Persist) and eff.kind == "event" and eff.record
                   and eff.record.get("event") != "summary"):
                 result.raised_events.append(eff.record if full_events
-                                            else event_line(eff.record))
+                                            else event_line(eff.record, tz))
+        if on_tick is not None:
+            on_tick(t, result.messages)
 
     last_t = None
     for rec in records:

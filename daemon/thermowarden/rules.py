@@ -417,6 +417,8 @@ def provided_inputs(model: object) -> list[set[str]]:
         provided[i] |= site_wide | lazy_all
         if model.space(i).kind == "outdoor":
             provided[i] |= outdoor_extra
+        # a declared assumption stands in for a quantity the space does not measure
+        provided[i] |= set(model.config.assumptions(model.space(i)).notes())
     for allowed, names in lazy_some:
         for i in allowed:
             provided[i] |= names

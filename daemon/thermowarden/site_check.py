@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
@@ -29,7 +30,7 @@ class CheckReport:
         return not self.issues
 
 
-def check_site(path: str) -> CheckReport:
+def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckReport:
     """Validate the site file, the CSV it refers to, and the rule packs it names."""
     report = CheckReport()
     try:
@@ -63,6 +64,8 @@ def check_site(path: str) -> CheckReport:
                     "no point provides")
     from thermowarden.engine.finishing import unfinishable_rules
 
+    if prepare is not None:
+        prepare()  # the comfort models load (or compile, once) only for a valid site
     for u in unfinishable_rules(report.model, packs):
         if (u.space, u.rule) in lacking:
             continue
@@ -78,6 +81,35 @@ def check_site(path: str) -> CheckReport:
                 f"space {u.space}: rule {u.rule} can never raise: its condition reads "
                 f"{because}")
     return report
+
+
+def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
+    """Warnings that differ only in the space they name, as one line each:
+    ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``."""
+    groups: dict[str, list[str]] = {}
+    order: list[str] = []
+    for w in warnings:
+        space, sep, rest = w.partition(": ")
+        if not sep or not space.startswith("space "):
+            key, who = w, ""
+        else:
+            key, who = rest, space.removeprefix("space ")
+        if key not in groups:
+            groups[key] = []
+            order.append(key)
+        if who:
+            groups[key].append(who)
+    lines = []
+    for key in order:
+        ids = groups[key]
+        if not ids:
+            lines.append(key)
+        elif len(ids) == 1:
+            lines.append(f"space {ids[0]}: {key}")
+        else:
+            more = f" and {len(ids) - shown} more" if len(ids) > shown else ""
+            lines.append(f"{len(ids)} spaces ({', '.join(ids[:shown])}{more}): {key}")
+    return lines
 
 
 def resolved_map(model: SiteModel) -> list[str]:

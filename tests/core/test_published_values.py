@@ -305,23 +305,16 @@ def test_units(row):
                                                                                    abs=1e-9)
 
 
-def test_practice_rules_of_thumb():
-    """Common practice, no source: meter readings and rules of thumb from the trade."""
-    p = PUBLISHED["practice"]
-    d = p["dew_point"]
-    assert psy.dew_point(arr(d["ta"]), arr(d["rh"]))[0] == pytest.approx(d["td"], abs=d["tol"])
-    w = p["wbgt_indoor"]
-    got = heat_stress.wbgt(arr(w["tnw"]), arr(w["tg"]))[0]
-    assert got == pytest.approx(w["wbgt"], abs=w["tol"])
-    # ...which is the unacclimatised reference for moderate work (ISO 8996 165 W/m² x 1.8)
-    m = heat_stress.metabolic_rate_w(arr(heat_stress.WORK_CLASSES_W_M2["moderate"]))
-    assert heat_stress.reference_unacclimatised(m)[0] == pytest.approx(
-        w["action_level_moderate"], abs=0.1)
-    s = p["sling_psychrometer"]
-    rh = psy.relative_humidity_from_wet_bulb(arr(s["tdb"]), arr(s["twb"]))[0]
-    assert rh == pytest.approx(s["rh"], abs=s["tol"])
-    f = p["fpm_200"]
-    assert units.convert(f["fpm"], "speed", "fpm") == pytest.approx(f["ms"], abs=f["tol"])
+@pytest.mark.parametrize("row", table("work_class_references"))
+def test_work_class_references(row):
+    """A work class through ISO 8996 watts to the ISO 7243 reference values."""
+    m = heat_stress.metabolic_rate_w(arr(heat_stress.WORK_CLASSES_W_M2[row["work_class"]]))
+    tol = PUBLISHED["work_class_references"]["tolerance"]
+    assert m[0] == pytest.approx(row["metabolic_w"], abs=tol)
+    assert heat_stress.reference_acclimatised(m)[0] == pytest.approx(row["acclimatised"],
+                                                                     abs=tol)
+    assert heat_stress.reference_unacclimatised(m)[0] == pytest.approx(row["unacclimatised"],
+                                                                       abs=tol)
 
 
 def test_compiled_set_equals_library_set():

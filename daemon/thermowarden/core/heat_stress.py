@@ -13,7 +13,6 @@ import warnings
 from typing import Final
 
 import numpy as np
-from pythermalcomfort.models import phs as _ptc_phs
 
 from thermowarden.core.columns import BoolArray, FloatArray
 from thermowarden.core.solve import IndexArray, illinois
@@ -245,6 +244,8 @@ def predicted_heat_strain(air_c: FloatArray, mrt_c: FloatArray, air_speed: Float
         sel = np.flatnonzero(ok & (np.asarray(acclimatised) == accl_value))
         if sel.size == 0:
             continue
+        from pythermalcomfort.models import phs as _ptc_phs  # costly to import: only here
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             res = _ptc_phs(tdb=air_c[sel], tr=mrt_c[sel], v=air_speed[sel], rh=rh[sel],

@@ -5,7 +5,6 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from pythermalcomfort.models import utci as _ptc_utci
 
 from thermowarden.core.columns import FloatArray
 
@@ -99,6 +98,8 @@ def utci(air_c: FloatArray, mrt_c: FloatArray, wind_10m: FloatArray, rh: FloatAr
     out = np.full(n, np.nan)
     ok = np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(wind_10m) & np.isfinite(rh)
     if ok.any():
+        from pythermalcomfort.models import utci as _ptc_utci  # costly to import: only here
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             res = _ptc_utci(tdb=air_c[ok], tr=mrt_c[ok], v=wind_10m[ok], rh=rh[ok],

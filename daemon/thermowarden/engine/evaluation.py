@@ -231,6 +231,7 @@ class Evaluation:
         env.update(self.failure_columns())
         env["rules_unknown_long"] = rules_unknown_long
         env["_present"] = snap.present
+        env["_assumed"] = snap.assumed
         return env
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 import datetime as dt
 import math
 import zoneinfo
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Final
 
 import numpy as np
@@ -69,6 +69,8 @@ class Snapshot:
     point_fresh: BoolArray
     point_age_s: FloatArray
     outdoor: dict[str, float]
+    assumed: dict[str, BoolArray] = field(default_factory=dict)
+    """quantity -> the space's declared assumption stands in for it at this evaluation."""
 
 
 @dataclass
@@ -121,6 +123,13 @@ class SiteState:
         self._slots_version = -1
         self._slots: dict[str, _Slot] = {}
         self._context = self._build_context()
+        assume = [cfg.assumptions(space) for space in cfg.spaces]
+        self.assumed_air_speed = np.array(
+            [a.air_speed if a.air_speed is not None else np.nan for a in assume])
+        """m/s per space; NaN where the space assumes nothing."""
+        self.assumed_mrt_offset = np.array(
+            [off if (off := a.mrt_offset_k) is not None else np.nan for a in assume])
+        """Mean radiant minus air temperature (K) per space; NaN where nothing is assumed."""
         groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
         for i, space in enumerate(cfg.spaces):
             occ = cfg.occupancy(space)
@@ -456,12 +465,23 @@ class SiteState:
             hi = np.full(n, -np.inf)
             np.maximum.at(hi, slot.spaces[ok], v[ok])
             states[q] = np.where(np.isfinite(hi), hi, np.nan)
+        # declared assumptions stand in where nothing is measured (ISO 7726 would measure)
+        measured_speed = np.isfinite(speed)
+        speed_assumed = ~measured_speed & np.isfinite(self.assumed_air_speed)
+        speed = np.where(speed_assumed, self.assumed_air_speed, speed)
+        mrt = got.get("mean_radiant_temperature", np.full(n, np.nan))
+        radiant_known = np.isfinite(mrt) | np.isfinite(
+            got.get("globe_temperature", np.full(n, np.nan)))
+        for v in planes.values():
+            radiant_known |= np.isfinite(v)
+        mrt_assumed = ~radiant_known & np.isfinite(self.assumed_mrt_offset) & np.isfinite(air)
+        mrt = np.where(mrt_assumed, air + self.assumed_mrt_offset, mrt)
         inputs = SpaceInputs.create(
             n,
             air_temperature=air, relative_humidity=rh, air_speed=speed,
             turbulence_intensity=turbulence,
             globe_temperature=got.get("globe_temperature", np.full(n, np.nan)),
-            mean_radiant_temperature=got.get("mean_radiant_temperature", np.full(n, np.nan)),
+            mean_radiant_temperature=mrt,
             natural_wet_bulb=got.get("natural_wet_bulb", np.full(n, np.nan)),
             psychrometric_wet_bulb=got.get("psychrometric_wet_bulb", np.full(n, np.nan)),
             floor_temperature=got.get("floor_temperature", np.full(n, np.nan)),
@@ -476,13 +496,15 @@ class SiteState:
                                                      speed_height)},
         )
         present = {k: np.isfinite(v) for k, v in (
-            ("air_temperature", air), ("relative_humidity", rh), ("air_speed", speed))}
+            ("air_temperature", air), ("relative_humidity", rh))}
+        present["air_speed"] = measured_speed
         for k, v in got.items():
             present.setdefault(k, np.isfinite(v))
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
+        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
         return Snapshot(now, inputs, present, states, self.occupied(now, states["occupancy"]),
-                        spread, fresh, age, outdoor)
+                        spread, fresh, age, outdoor, assumed)
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:

@@ -11,12 +11,10 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from http.server import ThreadingHTTPServer
 
-import numpy as np
 from pydantic import ValidationError
 
 from thermowarden import __version__
 from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConfig, load_site
-from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.engine import Engine, iso
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.shell.delivery import Delivery
@@ -26,6 +24,7 @@ from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store, StoreError, move_aside
+from thermowarden.shell.warmup import warm_up
 from thermowarden.site_model import build_site_model
 
 log = logging.getLogger("thermowarden")
@@ -54,17 +53,6 @@ def only_spaces(config: SiteConfig, ids: list[str]) -> SiteConfig:
     if unknown:
         raise ValueError(f"--spaces names unknown space(s): {', '.join(sorted(unknown))}")
     return config.model_copy(update={"spaces": [s for s in config.spaces if s.id in wanted]})
-
-
-def warm_up() -> None:
-    """Load (or compile, once) the numba models before reporting ready."""
-    s = SpaceInputs.create(
-        2, air_temperature=np.array([24.0, 33.0]), relative_humidity=np.array([50.0, 40.0]),
-        mean_radiant_temperature=np.array([25.0, 40.0]), air_speed=np.array([0.3, 0.6]),
-        globe_temperature=np.array([25.0, 40.0]), natural_wet_bulb=np.array([18.0, 25.0]),
-        clo=np.array([0.6, 0.6]), met=np.array([1.2, 2.5]), hot_work=np.array([False, True]),
-        indoor=np.array([True, False]))
-    compute_indices(s, with_phs=True)
 
 
 def load_configuration(config_path: str, *, broker_url: str | None = None,
@@ -112,7 +100,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
 
     config, packs = load()
     model = build_site_model(config)
-    warm_up()
+    warm_up(log.info)
     clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""

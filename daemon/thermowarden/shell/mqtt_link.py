@@ -183,6 +183,7 @@ class MqttLink:
         self.connected = threading.Event()
         self.subscribed = threading.Event()
         self._stop = threading.Event()
+        self._stopping = threading.Event()  # an orderly stop: a disconnect is expected
         self._thread: threading.Thread | None = None
         self._connects = 0
         self.received = 0
@@ -239,7 +240,8 @@ class MqttLink:
         self.connected.clear()
         self.subscribed.clear()
         self.metrics.connected.set(0)
-        self.control.put(Control("disconnected", reason=str(reason)))
+        if not self._stopping.is_set():
+            self.control.put(Control("disconnected", reason=str(reason)))
 
     def _on_subscribe(self, client: mqtt.Client, userdata: Any, mid: int, reasons: Any,
                       properties: Any) -> None:
@@ -356,7 +358,7 @@ class MqttLink:
                     break
                 if self.connected.is_set():
                     backoff = BACKOFF_START_S
-            if self._stop.is_set():
+            if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
             wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
@@ -394,6 +396,7 @@ class MqttLink:
 
     def stop(self, timeout: float = 5.0) -> None:
         """Publish the offline status ourselves (an orderly stop), then disconnect."""
+        self._stopping.set()
         if self.connected.is_set():
             info = self.client.publish(self.status_topic, json.dumps(self.status_offline),
                                        qos=1, retain=True)
