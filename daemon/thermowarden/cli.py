@@ -224,6 +224,8 @@ def cmd_run(args: argparse.Namespace) -> int:
     service.run()
     if running.http is not None:
         running.http.shutdown()
+    if running.web is not None:
+        running.web.stop()
     return 0
 
 
