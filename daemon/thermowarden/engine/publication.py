@@ -24,7 +24,8 @@ import numpy as np
 from thermowarden.config import SiteConfig
 from thermowarden.core.indices import IndexTable
 from thermowarden.effects import Effect, Persist, Publish
-from thermowarden.site_model import SiteModel
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.site_model import SITE, SiteModel
 
 if TYPE_CHECKING:
     from thermowarden.engine.advisories import Advisory
@@ -52,6 +53,28 @@ def iso(t: float) -> str:
 def num(v: float) -> float | None:
     """A JSON number, or null for NaN/inf (NaN never leaves the process)."""
     return round(v, 3) if math.isfinite(v) else None
+
+
+def _input_value(snap: Snapshot, q: str, i: int) -> tuple[float | None, str]:
+    """The value of input ``q`` that the indices of space ``i`` used, and its unit."""
+    s = snap.inputs
+    arr: Any = None
+    if q.startswith("plane_radiant_temperature_"):
+        arr = s.plane_radiant.get(q.removeprefix("plane_radiant_temperature_"))
+        unit = "°C"
+    elif q == "surface_temperature":
+        arr, unit = s.surface_temperature_min, "°C"
+    elif q in ("air_temperature_head", "air_temperature_ankle"):
+        arr, unit = getattr(s, q), "°C"
+    else:
+        arr = getattr(s, q, None) if q in QUANTITIES else None
+        if not isinstance(arr, np.ndarray):
+            arr = snap.states.get(q)
+        info = QUANTITIES.get(q)
+        unit = info.unit if info else ""
+    if not isinstance(arr, np.ndarray) or arr.dtype == np.bool_:
+        return None, unit
+    return num(float(arr[i])), unit
 
 
 def space_ref(space: Any) -> dict[str, Any]:
@@ -85,6 +108,7 @@ class Publication:
         self.touched = np.zeros(n, dtype=bool)
         """Spaces with new readings since their conditions last went out."""
         self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
+        self._points_cache: tuple[int, dict[int, list[int]]] = (-1, {})
 
     # ------------------------------------------------------------------ advisories
     def advisory_payload(self, adv: Advisory) -> dict[str, Any]:
@@ -156,9 +180,21 @@ class Publication:
     def conditions_payload(self, snap: Snapshot, table: IndexTable, i: int) -> dict[str, Any]:
         """The published conditions of space ``i`` (schema ``thermowarden.conditions/1``)."""
         space = self.model.space(i)
+        points = self.points_at(snap, i)
+        newest: dict[str, float] = {}
+        for p in points:
+            age = p["age_s"]
+            if age is not None:
+                base = p["quantity"] + (f"_{p['side']}" if p["quantity"] in (
+                    "plane_radiant_temperature", "radiant_flux") and p["side"] else "")
+                height = f"{p['quantity']}_{p['height']}" if p["height"] else base
+                for name in (p["quantity"], base, height):
+                    newest[name] = min(age, newest.get(name, math.inf))
         inputs: dict[str, Any] = {}
         for q, mask in snap.present.items():
-            inputs[q] = {"fresh": bool(mask[i])}
+            value, unit = _input_value(snap, q, i)
+            inputs[q] = {"fresh": bool(mask[i]), "value": value, "unit": unit,
+                         "age_s": newest.get(q)}
         return {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
@@ -167,9 +203,37 @@ class Publication:
             "occupied": bool(snap.occupied[i]),
             "states": {k: num(float(v[i])) for k, v in snap.states.items()},
             "inputs": inputs,
+            "points": points,
             "indices": self.indices_at(table, i),
             "advisory_only": True,
         }
+
+    def points_at(self, snap: Snapshot, i: int) -> list[dict[str, Any]]:
+        """Space ``i``'s points (an outdoor space also the site's outdoor points) with their
+        latest value in the canonical unit, freshness and age (s)."""
+        pts = self.model.points
+        if self._points_cache[0] != len(pts):
+            by_space: dict[int, list[int]] = {}
+            for pid, p in enumerate(pts):
+                by_space.setdefault(p.space, []).append(pid)
+            self._points_cache = (len(pts), by_space)
+        by_space = self._points_cache[1]
+        pids = list(by_space.get(i, []))
+        if self.model.space(i).kind == "outdoor":
+            pids += by_space.get(SITE, [])
+        values = snap.point_value
+        out: list[dict[str, Any]] = []
+        for pid in pids:
+            if pid >= snap.point_fresh.size:
+                continue  # created after this snapshot
+            p = pts[pid]
+            q = QUANTITIES.get(p.quantity)
+            v = float(values[pid]) if values is not None else math.nan
+            out.append({"key": p.key, "quantity": p.quantity, "side": p.side,
+                        "height": p.height, "sensor": p.sensor, "value": num(v),
+                        "unit": q.unit if q else "", "fresh": bool(snap.point_fresh[pid]),
+                        "age_s": num(float(snap.point_age_s[pid]))})
+        return out
 
     def indices_at(self, table: IndexTable, i: int) -> dict[str, dict[str, Any]]:
         """``IndexColumn.as_dict`` for every index of space ``i``, with the per-column work
@@ -215,10 +279,11 @@ class Publication:
         self.last_conditions[:] = -np.inf
 
     # ------------------------------------------------------------------ report samples
-    def sample(self, table: IndexTable, now: float,
-               occupied: Any = None) -> dict[str, Any]:
+    def sample(self, table: IndexTable, now: float, occupied: Any = None,
+               snap: Snapshot | None = None) -> dict[str, Any]:
         """The report sample: a few indices of every space and whether it was occupied
-        (boolean array over the spaces), NaN as null."""
+        (boolean array over the spaces), NaN as null; with ``snap`` also the air
+        temperature (the history the web page plots)."""
 
         def col(name: str) -> list[float | None]:
             c = table[name]
@@ -240,4 +305,7 @@ class Publication:
                 "ref_acclimatised": col("wbgt_reference_acclimatised"),
                 "heat_index": col("heat_index"), "utci": col("utci"),
                 "occupied": (None if occupied is None
-                             else [bool(x) for x in occupied])}
+                             else [bool(x) for x in occupied]),
+                "air_temperature": [num(float(v)) for v in snap.inputs.air_temperature]
+                if snap is not None else [None] * len(self.model.space_ids),
+                "relative_humidity": col("relative_humidity"), "dew_point": col("dew_point")}

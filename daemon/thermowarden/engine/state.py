@@ -69,6 +69,8 @@ class Snapshot:
     point_fresh: BoolArray
     point_age_s: FloatArray
     outdoor: dict[str, float]
+    point_value: FloatArray | None = None
+    """Latest value of every point in its quantity's canonical unit (NaN if none yet)."""
 
 
 @dataclass
@@ -482,7 +484,7 @@ class SiteState:
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
         return Snapshot(now, inputs, present, states, self.occupied(now, states["occupancy"]),
-                        spread, fresh, age, outdoor)
+                        spread, fresh, age, outdoor, values.copy())
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:
