@@ -459,12 +459,18 @@ def create_app(ctx: WebContext) -> Starlette:
             return JSONResponse(out, status_code=status)
         return handler
 
+    def by_method(**handlers: Callable[[Request], Any]) -> Callable[[Request], Any]:
+        """One route, several methods (so that 405 replies list every allowed method)."""
+        async def handler(request: Request) -> Response:
+            result: Response = await handlers[request.method](request)
+            return result
+        return handler
+
     routes = [
         Route("/", overview),
         Route("/spaces/{space_id}", space_page),
         Route("/advisories/{advisory_id}", advisory_page),
-        Route("/login", login_get, methods=["GET"]),
-        Route("/login", login_post, methods=["POST"]),
+        Route("/login", by_method(GET=login_get, POST=login_post), methods=["GET", "POST"]),
         Route("/logout", logout, methods=["POST"]),
         Route("/advisories/{advisory_id}/{verb}", page_command, methods=["POST"]),
         Route("/api/openapi.json", api_openapi),
@@ -474,8 +480,8 @@ def create_app(ctx: WebContext) -> Starlette:
         Route("/api/advisories", api_advisories),
         Route("/api/advisories/{advisory_id}", api_advisory),
         Route("/api/events", api_events),
-        Route("/api/session", api_session_post, methods=["POST"]),
-        Route("/api/session", api_session_delete, methods=["DELETE"]),
+        Route("/api/session", by_method(POST=api_session_post, DELETE=api_session_delete),
+              methods=["POST", "DELETE"]),
     ] + [Route(f"/api/advisories/{{advisory_id}}/{verb}", api_command(verb), methods=["POST"])
          for verb in VERBS]
     return Starlette(routes=routes)
