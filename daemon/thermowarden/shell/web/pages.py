@@ -140,6 +140,8 @@ def fmt_value(item: dict[str, Any] | None) -> str:
         return '<span class="muted">–</span>'
     v = item.get("value")
     unit = item.get("unit") or ""
+    if unit == "1":
+        unit = ""
     if v is None:
         reason = item.get("reason") or "no fresh value"
         return f'<span class="muted" title="{h(reason)}">– <small>({h(reason)})</small></span>'
@@ -173,11 +175,11 @@ def state_badge(state: str) -> str:
 
 
 def page(title: str, body: str, directory: SiteDirectory, session: Session | None,
-         refresh: bool = False, csrf: str | None = None) -> str:
+         refresh: bool = False, here: str = "/") -> str:
     who = (f'{h(session.user.name)} <form method="post" action="/logout" style="display:inline">'
            f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
            '<button type="submit" style="padding:.1rem .5rem">Sign out</button></form>'
-           if session else '<a href="/login">Sign in</a>')
+           if session else f'<a href="/login?next={quote(here, safe="")}">Sign in</a>')
     flash = ""
     if session and session.flash:
         msgs, session.flash[:] = list(session.flash), []
@@ -236,7 +238,7 @@ def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | No
             f'<div class="note">{h(" · ".join(tags))} · {h(when)}</div>'
             f'<dl class="kv">{"".join(rows)}</dl></section>')
     parts.append("</div>")
-    return page("Overview", "".join(parts), directory, session, refresh=True)
+    return page("Overview", "".join(parts), directory, session, refresh=True, here="/")
 
 
 def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
@@ -336,7 +338,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                      + "</tbody></table></div>")
     parts.append("<h2>Last 24 hours</h2>" + space_charts(space, samples, start, end, tz))
     parts.append("<h2>Points</h2>" + points_table(c))
-    return page(space.name, "".join(parts), directory, session, refresh=True)
+    return page(space.name, "".join(parts), directory, session, refresh=True,
+                here=f"/spaces/{quote(space.id, safe='')}")
 
 
 def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
@@ -396,7 +399,8 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
     parts.append('<h2>History</h2><div class="scroll"><table><thead><tr><th>When</th>'
                  '<th>Event</th><th>By</th><th>Note</th></tr></thead><tbody>' + hist
                  + "</tbody></table></div>")
-    return page(a["title"], "".join(parts), directory, session)
+    return page(a["title"], "".join(parts), directory, session,
+                here=f"/advisories/{quote(a['id'], safe='')}")
 
 
 def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None) -> str:
