@@ -155,3 +155,35 @@ def test_openapi_document_ships_and_covers_the_api():
         op = doc["paths"][f"/api/advisories/{{advisory_id}}/{verb}"]["post"]
         assert op["security"] == [{"session": []}] and "401" in op["responses"]
     json.dumps(doc)
+
+
+def test_web_user_command_prints_a_loadable_entry(tmp_path):
+    import subprocess
+    import sys
+
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "web-user", "dee",
+                        "--audience", "safety", "--audience", "integrator"],
+                       input="a long password\n", capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    p = tmp_path / "users.yaml"
+    p.write_text("users:\n" + r.stdout)
+    entry = load_users(p)["dee"]
+    assert entry.audiences == ["integrator", "safety"]
+    assert verify_password("a long password", entry.password_hash)
+    assert check_hash(entry.password_hash)[0] == 600_000
+
+
+def test_web_section_is_checked_with_its_position(tmp_path):
+    from thermowarden.config import load_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text("site: {id: s, timezone: UTC}\nweb:\n  enabled: true\n  port: 0\n"
+                    "  sessions: 5\n")
+    with pytest.raises(ConfigError) as err:
+        load_site(site, {})
+    text = str(err.value)
+    assert "site.yaml:4" in text and "web.port" in text
+    assert "site.yaml:5" in text and "sessions" in text
+    site.write_text("site: {id: s, timezone: UTC}\n")
+    cfg = load_site(site, {"THERMOWARDEN_WEB__ENABLED": "true"})
+    assert cfg.web.enabled and cfg.web.host == "127.0.0.1" and not load_site(site, {}).web.enabled

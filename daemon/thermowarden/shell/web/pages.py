@@ -29,7 +29,8 @@ h2{font-size:1.1rem;margin:1.2rem 0 .5rem}
 a{color:#1f5f8b}
 .note{font-size:.85rem;color:var(--muted)}
 .muted{color:var(--muted)}
-.cards{display:grid;grid-template-columns:repeat(auto-fill,minmax(16rem,1fr));gap:.7rem}
+.cards{display:grid;grid-template-columns:repeat(auto-fill,minmax(min(16rem,100%),1fr));
+gap:.7rem}
 .card{background:var(--card);border:1px solid var(--line);border-radius:.5rem;padding:.7rem}
 .card h3{margin:0 0 .3rem;font-size:1rem}
 .kv{display:grid;grid-template-columns:auto auto;gap:.1rem .8rem;margin:0}
@@ -51,7 +52,8 @@ vertical-align:top}
 td.num{text-align:right;font-variant-numeric:tabular-nums}
 .scroll{overflow-x:auto}
 .stale{color:var(--high);font-weight:600}.fresh{color:var(--ok)}
-.charts{display:grid;grid-template-columns:repeat(auto-fill,minmax(20rem,1fr));gap:.7rem}
+.charts{display:grid;grid-template-columns:repeat(auto-fill,minmax(min(26rem,100%),1fr));
+gap:.7rem}
 figure.chart{margin:0;background:var(--card);border:1px solid var(--line);
 border-radius:.5rem;padding:.5rem}
 figcaption{font-weight:600;margin-bottom:.2rem}
@@ -252,8 +254,9 @@ def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, 
         "Operative temperature and comfort band", "°C", times,
         lines=[plots.Line("operative temperature", _series(samples, "operative_temperature"),
                           "#b3471d")],
-        bands=[plots.Band("comfort band", _series(samples, "comfort_band_lower"),
-                          _series(samples, "comfort_band_upper"), "#2f7d32")]
+        bands=([plots.Band("comfort band", _series(samples, "comfort_band_lower"),
+                           _series(samples, "comfort_band_upper"), "#2f7d32")]
+               if space.kind == "indoor" else [])
         + ([plots.Band("EN 16798-1 category II", _series(samples, "adaptive_en_II_lower"),
                        _series(samples, "adaptive_en_II_upper"), "#4f6d7a")]
            if space.ventilation == "natural" else []))]
