@@ -22,11 +22,12 @@ import paho.mqtt.client as mqtt
 import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
-from tests.shell.conftest import (  # noqa: F401 - system_broker_port is a fixture
+from tests.shell.conftest import (
     Collector,
+    Mosquitto,
     clear_retained,
     free_port,
-    system_broker_port,
+    port_open,
     wait_for,
 )
 from thermowarden.shell.bootstrap import Running, bootstrap
@@ -96,7 +97,19 @@ def _users_file(path: pathlib.Path) -> None:
 
 
 @pytest.fixture(scope="session")
-def web_site(tmp_path_factory, system_broker_port) -> Iterator[WebSite]:
+def web_broker_port(tmp_path_factory) -> Iterator[int]:
+    """127.0.0.1:1883 when a broker answers there (CI starts one), else our own."""
+    if port_open(1883):
+        yield 1883
+        return
+    broker = Mosquitto(tmp_path_factory.mktemp("broker")).start()
+    yield broker.port
+    broker.stop()
+
+
+@pytest.fixture(scope="session")
+def web_site(tmp_path_factory, web_broker_port) -> Iterator[WebSite]:
+    system_broker_port = web_broker_port
     tmp = tmp_path_factory.mktemp("web")
     tag = uuid.uuid4().hex[:6]
     topic_root = f"lk{tag}/"

@@ -187,3 +187,20 @@ def test_web_section_is_checked_with_its_position(tmp_path):
     site.write_text("site: {id: s, timezone: UTC}\n")
     cfg = load_site(site, {"THERMOWARDEN_WEB__ENABLED": "true"})
     assert cfg.web.enabled and cfg.web.host == "127.0.0.1" and not load_site(site, {}).web.enabled
+
+
+def test_run_refuses_a_bad_users_file_with_its_line(tmp_path):
+    import subprocess
+    import sys
+
+    site = tmp_path / "site.yaml"
+    site.write_text((REPO / "deploy" / "example-site.yaml").read_text()
+                    + "\nweb: {enabled: true, port: 1, users_file: users.yaml}\n")
+    (tmp_path / "users.yaml").write_text("users:\n  - name: ana\n    audiences: [safety]\n"
+                                         "    pasword_hash: x\n")
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "run", "--config", str(site),
+                        "--state-dir", str(tmp_path / "state")],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 1
+    assert "users.yaml:4" in r.stderr and "pasword_hash" in r.stderr
+    assert "nothing was started" in r.stderr

@@ -23,8 +23,8 @@ import numpy as np
 
 from thermowarden.config import SiteConfig
 from thermowarden.core.indices import IndexTable
-from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.core.quantities import QUANTITIES
+from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.site_model import SITE, SiteModel
 
 if TYPE_CHECKING:

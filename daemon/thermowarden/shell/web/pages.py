@@ -122,6 +122,10 @@ CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-s
            "hygienist.")
 
 
+FRESH = '<span class="fresh">fresh</span>'
+STALE = '<span class="stale">stale</span>'
+
+
 def h(v: object) -> str:
     return escape(str(v), quote=True)
 
@@ -303,7 +307,7 @@ def points_table(c: dict[str, Any] | None) -> str:
                 + "</tbody></table></div>")
     rows = [f'<tr><td>{h(QUANTITY_LABELS.get(q, q))}</td><td class="num">'
             f'{fmt_value(v) if "value" in v else "–"}</td><td>'
-            f'{"<span class=fresh>fresh</span>" if v.get("fresh") else "<span class=stale>stale</span>"}'
+            f'{FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
     return ('<div class="scroll"><table><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
@@ -361,8 +365,7 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
     if a.get("numbers"):
         rows = "".join(
             f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td><td class="num">'
-            f'{h(v["threshold"]) + (" " + h(v.get("unit", "")) if v.get("unit") else "") if v.get("threshold") is not None else "–"}'
-            f'</td><td class="note">{h(v.get("method", ""))}</td></tr>'
+            f'{_threshold(v)}</td><td class="note">{h(v.get("method", ""))}</td></tr>'
             for k, v in a["numbers"].items())
         parts.append('<h2>The numbers</h2><div class="scroll"><table><thead><tr><th>Value'
                      '</th><th>Now</th><th>Threshold</th><th>Method</th></tr></thead><tbody>'
@@ -404,6 +407,12 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                  + "</tbody></table></div>")
     return page(a["title"], "".join(parts), directory, session,
                 here=f"/advisories/{quote(a['id'], safe='')}")
+
+
+def _threshold(v: dict[str, Any]) -> str:
+    if v.get("threshold") is None:
+        return "–"
+    return fmt_value({"value": v["threshold"], "unit": v.get("unit", "")})
 
 
 def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None) -> str:

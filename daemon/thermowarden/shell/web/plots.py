@@ -44,7 +44,7 @@ class Chart:
 
 def _nice_step(span: float) -> float:
     raw = span / 5.0
-    mag = 10 ** math.floor(math.log10(raw))
+    mag = 10.0 ** math.floor(math.log10(raw))
     for m in (1, 2, 2.5, 5, 10):
         if m * mag >= raw:
             return m * mag
