@@ -234,7 +234,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from thermowarden.demo import run_demo
 
     view = sys.stdout.isatty() and not args.plain
-    return run_demo(args.broker, args.duration, args.speed, view)
+    return run_demo(args.broker, args.duration, args.speed, view, web_port=args.web_port)
 
 
 def cmd_simulate(args: argparse.Namespace) -> int:
@@ -452,6 +452,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "about two minutes)")
     p.add_argument("--plain", action="store_true",
                    help="print events line by line instead of the live view")
+    p.add_argument("--web-port", type=int, metavar="N",
+                   help="also serve the web page on 127.0.0.1:N, and keep it after the day "
+                        "until Ctrl-C")
     p.set_defaults(func=cmd_demo)
 
     from thermowarden.simulate import SCENARIOS
