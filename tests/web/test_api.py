@@ -178,3 +178,18 @@ def test_page_forms_need_the_session_token(web_site: WebSite):
     except urllib.error.HTTPError as exc:
         assert exc.code == 403
     assert web_site.get(f"/api/advisories/{target['id']}")[1]["advisory"]["shelved"] is None
+
+
+def test_a_cleared_advisory_is_still_there_from_the_store(web_site: WebSite):
+    events = web_site.get("/api/events?since=2026-07-14T00:00:00Z&limit=1000")[1]["events"]
+    cleared = [e["advisory"] for e in events if e["event"] == "cleared"]
+    assert cleared, "the recorded day clears some advisories"
+    status, body = web_site.get(f"/api/advisories/{cleared[0]['id']}")
+    assert status == 200 and body["live"] is False
+    assert body["advisory"]["state"] == "cleared" and body["advisory"]["cleared_at"]
+    status, page = web_site.get(f"/advisories/{cleared[0]['id']}")
+    assert status == 200 and "cleared" in page and 'id="acknowledge"' not in page
+    status, page = web_site.get(f"/spaces/{cleared[0]['space']['id']}")
+    assert "Cleared in the last 24 hours" in page
+    assert web_site.get("/api/advisories/no.such.advisory")[0] == 404
+    assert web_site.get("/advisories/no.such.advisory")[0] == 404

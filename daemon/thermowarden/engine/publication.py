@@ -55,8 +55,8 @@ def num(v: float) -> float | None:
     return round(v, 3) if math.isfinite(v) else None
 
 
-def _input_value(snap: Snapshot, q: str, i: int) -> tuple[float | None, str]:
-    """The value of input ``q`` that the indices of space ``i`` used, and its unit."""
+def _input_column(snap: Snapshot, q: str) -> tuple[Any, str]:
+    """The values of input ``q`` that the indices used (all spaces), and its unit."""
     s = snap.inputs
     arr: Any = None
     if q.startswith("plane_radiant_temperature_"):
@@ -74,7 +74,7 @@ def _input_value(snap: Snapshot, q: str, i: int) -> tuple[float | None, str]:
         unit = info.unit if info else ""
     if not isinstance(arr, np.ndarray) or arr.dtype == np.bool_:
         return None, unit
-    return num(float(arr[i])), unit
+    return arr, unit
 
 
 def space_ref(space: Any) -> dict[str, Any]:
@@ -108,7 +108,8 @@ class Publication:
         self.touched = np.zeros(n, dtype=bool)
         """Spaces with new readings since their conditions last went out."""
         self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
-        self._points_cache: tuple[int, dict[int, list[int]]] = (-1, {})
+        self._points_cache: tuple[int, dict[int, list[int]], list[Any]] = (-1, {}, [])
+        self._snap_cache: tuple[Any, dict[str, Any], list[Any]] = (None, {}, [])
 
     # ------------------------------------------------------------------ advisories
     def advisory_payload(self, adv: Advisory) -> dict[str, Any]:
@@ -182,19 +183,18 @@ class Publication:
         space = self.model.space(i)
         points = self.points_at(snap, i)
         newest: dict[str, float] = {}
-        for p in points:
+        for p, names in zip(points, self._point_names(snap, i), strict=True):
             age = p["age_s"]
             if age is not None:
-                base = p["quantity"] + (f"_{p['side']}" if p["quantity"] in (
-                    "plane_radiant_temperature", "radiant_flux") and p["side"] else "")
-                height = f"{p['quantity']}_{p['height']}" if p["height"] else base
-                for name in (p["quantity"], base, height):
-                    newest[name] = min(age, newest.get(name, math.inf))
+                for name in names:
+                    if age < newest.get(name, math.inf):
+                        newest[name] = age
+        columns = self._snapshot_columns(snap)[1]
         inputs: dict[str, Any] = {}
-        for q, mask in snap.present.items():
-            value, unit = _input_value(snap, q, i)
-            inputs[q] = {"fresh": bool(mask[i]), "value": value, "unit": unit,
-                         "age_s": newest.get(q)}
+        for q, (fresh, values, unit) in columns.items():
+            v = values[i]
+            inputs[q] = {"fresh": fresh[i], "value": v if math.isfinite(v) else None,
+                         "unit": unit, "age_s": newest.get(q)}
         return {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
@@ -208,31 +208,64 @@ class Publication:
             "advisory_only": True,
         }
 
-    def points_at(self, snap: Snapshot, i: int) -> list[dict[str, Any]]:
-        """Space ``i``'s points (an outdoor space also the site's outdoor points) with their
-        latest value in the canonical unit, freshness and age (s)."""
+    def _snapshot_columns(self, snap: Snapshot) -> tuple[Snapshot, dict[str, Any],
+                                                         list[Any]]:
+        """Per-snapshot lists (converted once per evaluation, not once per space): every
+        input's freshness, value and unit; every point's value, freshness and age."""
+        if self._snap_cache[0] is not snap:
+            cols: dict[str, Any] = {}
+            for q, mask in snap.present.items():
+                arr, unit = _input_column(snap, q)
+                values = np.round(arr, 3).tolist() if arr is not None else \
+                    [math.nan] * mask.size
+                cols[q] = (mask.tolist(), values, unit)
+            pv = snap.point_value if snap.point_value is not None else \
+                np.full(snap.point_fresh.size, np.nan)
+            per_point = [np.round(pv, 3).tolist(), snap.point_fresh.tolist(),
+                         np.round(snap.point_age_s, 3).tolist()]
+            self._snap_cache = (snap, cols, per_point)
+        return self._snap_cache
+
+    def _point_ids(self, snap: Snapshot, i: int) -> list[int]:
         pts = self.model.points
         if self._points_cache[0] != len(pts):
             by_space: dict[int, list[int]] = {}
             for pid, p in enumerate(pts):
                 by_space.setdefault(p.space, []).append(pid)
-            self._points_cache = (len(pts), by_space)
+            static = []
+            for p in pts:
+                q = QUANTITIES.get(p.quantity)
+                side = f"{p.quantity}_{p.side}" if p.side and p.quantity in (
+                    "plane_radiant_temperature", "radiant_flux") else p.quantity
+                height = f"{p.quantity}_{p.height}" if p.height else p.quantity
+                static.append(({"key": p.key, "quantity": p.quantity, "side": p.side,
+                                "height": p.height, "sensor": p.sensor,
+                                "unit": q.unit if q else ""},
+                               tuple({p.quantity, side, height})))
+            self._points_cache = (len(pts), by_space, static)
         by_space = self._points_cache[1]
         pids = list(by_space.get(i, []))
         if self.model.space(i).kind == "outdoor":
             pids += by_space.get(SITE, [])
-        values = snap.point_value
+        n = snap.point_fresh.size
+        return [pid for pid in pids if pid < n]  # newer points are not in this snapshot
+
+    def _point_names(self, snap: Snapshot, i: int) -> list[tuple[str, ...]]:
+        """The input names each point of space ``i`` feeds (for the inputs' ages)."""
+        static = self._points_cache[2]
+        return [static[pid][1] for pid in self._point_ids(snap, i)]
+
+    def points_at(self, snap: Snapshot, i: int) -> list[dict[str, Any]]:
+        """Space ``i``'s points (an outdoor space also the site's outdoor points) with their
+        latest value in the canonical unit, freshness and age (s)."""
+        values, fresh, ages = self._snapshot_columns(snap)[2]
+        pids = self._point_ids(snap, i)
+        static = self._points_cache[2]
         out: list[dict[str, Any]] = []
         for pid in pids:
-            if pid >= snap.point_fresh.size:
-                continue  # created after this snapshot
-            p = pts[pid]
-            q = QUANTITIES.get(p.quantity)
-            v = float(values[pid]) if values is not None else math.nan
-            out.append({"key": p.key, "quantity": p.quantity, "side": p.side,
-                        "height": p.height, "sensor": p.sensor, "value": num(v),
-                        "unit": q.unit if q else "", "fresh": bool(snap.point_fresh[pid]),
-                        "age_s": num(float(snap.point_age_s[pid]))})
+            v, age = values[pid], ages[pid]
+            out.append({**static[pid][0], "value": v if math.isfinite(v) else None,
+                        "fresh": fresh[pid], "age_s": age if math.isfinite(age) else None})
         return out
 
     def indices_at(self, table: IndexTable, i: int) -> dict[str, dict[str, Any]]:
