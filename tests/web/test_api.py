@@ -115,6 +115,11 @@ def test_a_user_acts_only_for_their_audiences(web_site: WebSite):
     status, out = web_site.send("POST", f"/api/advisories/{safety['id']}/acknowledge", {},
                                 {"Authorization": f"Bearer {ivo}"})
     assert status == 403 and "safety" in out["error"]
+    # the user acting is the one signed in: a body cannot name someone else
+    integrator = next(a for a in web_site.live() if a["audience"] == "integrator")
+    status, out = web_site.send("POST", f"/api/advisories/{integrator['id']}/acknowledge",
+                                {"by": "somebody-else"}, {"Authorization": f"Bearer {ivo}"})
+    assert status == 400 and "by" in out["error"]
 
 
 def test_shelve_and_unshelve_by_api_with_the_rules_limits(web_site: WebSite):
