@@ -48,7 +48,7 @@ def test_hashes_verify_and_refuse():
 
 
 def test_sample_users_file_loads():
-    users = load_users(REPO / "deploy" / "web-users.example.yaml")
+    users = load_users(REPO / "deploy" / "web" / "users.example.yaml")
     assert users and all(u.audiences for u in users.values())
 
 
