@@ -197,4 +197,9 @@ def test_a_cleared_advisory_is_still_there_from_the_store(web_site: WebSite):
     status, page = web_site.get(f"/spaces/{cleared[0]['space']['id']}")
     assert "Cleared in the last 24 hours" in page
     assert web_site.get("/api/advisories/no.such.advisory")[0] == 404
+    # advice that was acted on shows what it did
+    acted = [a for a in cleared if a.get("acted_on")]
+    assert acted, "in the recorded day the blinds go down and the fans go on"
+    page = web_site.get(f"/advisories/{acted[-1]['id']}")[1]
+    assert "Acted on at" in page and "cleared afterwards" in page
     assert web_site.get("/advisories/no.such.advisory")[0] == 404

@@ -374,15 +374,7 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
             f'<dt>{h(k)}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
             + "</dl>")
-    acted = a.get("acted_on")
-    parts.append("<h2>Effect</h2>")
-    if acted:
-        after = acted.get("cleared_after")
-        parts.append(f'<p>Acted on at {local(acted.get("at"), tz)}; '
-                     + ("the advisory cleared afterwards." if after else
-                        "waiting for the conditions to clear.") + "</p>")
-    else:
-        parts.append('<p class="muted">Not acted on yet (as far as the sensors show).</p>')
+    parts.append("<h2>Effect</h2>" + _effect(a.get("acted_on"), tz))
     if a.get("acknowledged"):
         ack = a["acknowledged"]
         parts.append(f'<p>Acknowledged by <strong>{h(ack.get("by"))}</strong> at '
@@ -407,6 +399,42 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                  + "</tbody></table></div>")
     return page(a["title"], "".join(parts), directory, session,
                 here=f"/advisories/{quote(a['id'], safe='')}")
+
+
+def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
+    """Whether the advice was acted on and what it did (effectiveness)."""
+    if not acted:
+        return '<p class="muted">Not acted on yet (as far as the sensors show).</p>'
+    after = acted.get("cleared_after")
+    mins = acted.get("cleared_after_min")
+    text = f'Acted on at {local(acted.get("at"), tz)}'
+    if acted.get("minutes_after_raised") is not None:
+        text += f' ({acted["minutes_after_raised"]:.0f} min after it was raised)'
+    if after:
+        text += "; the condition cleared afterwards" + (
+            f" ({mins:.0f} min later)" if isinstance(mins, int | float) else "") + "."
+    elif after is False:
+        text += "; the condition did not clear afterwards."
+    else:
+        text += "; waiting for the conditions to clear."
+    helped = acted.get("helped")
+    if helped is not None:
+        text += " It helped within the expected time." if helped else \
+            " It did not help within the expected time."
+    out = f"<p>{h(text)}</p>"
+    effect = acted.get("effect")
+    if effect:
+        unit = effect.get("unit", "")
+        rows = [("when acted on", effect.get("value_then")),
+                ("predicted", effect.get("predicted"))]
+        rows += [(f'{c["after_min"]:g} min later', c.get("value"))
+                 for c in effect.get("checks", [])]
+        out += (f'<div class="scroll"><table><thead><tr><th>{h(effect.get("quantity", ""))}'
+                '</th><th>Value</th></tr></thead><tbody>'
+                + "".join(f'<tr><td>{h(label)}</td><td class="num">'
+                          f'{fmt_value({"value": v, "unit": unit})}</td></tr>'
+                          for label, v in rows) + "</tbody></table></div>")
+    return out
 
 
 def _threshold(v: dict[str, Any]) -> str:
