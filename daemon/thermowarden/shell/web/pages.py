@@ -35,7 +35,7 @@ gap:.7rem}
 .card h3{margin:0 0 .3rem;font-size:1rem}
 .kv{display:grid;grid-template-columns:auto auto;gap:.1rem .8rem;margin:0}
 .kv dt{color:var(--muted)}
-.kv dd{margin:0;text-align:right;font-variant-numeric:tabular-nums}
+.kv dd{margin:0;text-align:right;font-variant-numeric:tabular-nums;overflow-wrap:anywhere}
 .badge{display:inline-block;border-radius:.3rem;padding:0 .4rem;font-size:.8rem;
 color:#fff;background:var(--low);vertical-align:middle}
 .badge.medium{background:var(--medium)}.badge.high{background:var(--high)}
@@ -140,8 +140,9 @@ def local(s: str | None, tz: dt.tzinfo, fmt: str = "%H:%M") -> str:
     return dt.datetime.fromtimestamp(parse_iso(s), tz).strftime(fmt)
 
 
-def fmt_value(item: dict[str, Any] | None) -> str:
-    """An index or input value with its unit; a dash with the reason when absent."""
+def fmt_value(item: dict[str, Any] | None, compact: bool = False) -> str:
+    """An index or input value with its unit; a dash with the reason when absent (the
+    reason only as a tooltip when ``compact``)."""
     if not item:
         return '<span class="muted">–</span>'
     v = item.get("value")
@@ -150,6 +151,8 @@ def fmt_value(item: dict[str, Any] | None) -> str:
         unit = ""
     if v is None:
         reason = item.get("reason") or "no fresh value"
+        if compact:
+            return f'<span class="muted" title="{h(reason)}">–</span>'
         return f'<span class="muted" title="{h(reason)}">– <small>({h(reason)})</small></span>'
     if isinstance(v, bool):
         text = "yes" if v else "no"
@@ -230,7 +233,7 @@ def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | No
                         "utci", "heat_index", "wbgt_effective", "wbgt_reference_acclimatised",
                         "pmv_iso")):
                     continue
-                rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item)}</dd>")
+                rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
             when = (f'as of {local(c["at"], tz)} · '
                     f'{"occupied" if c.get("occupied") else "unoccupied"}')
         else:
