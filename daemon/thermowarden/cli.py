@@ -342,6 +342,8 @@ def cmd_run(args: argparse.Namespace) -> int:
     service.run()
     if running.http is not None:
         running.http.shutdown()
+    if running.web is not None:
+        running.web.stop()
     return 0
 
 
@@ -351,7 +353,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
 
     view = sys.stdout.isatty() and not args.plain
     _prepare_models()
-    return run_demo(args.broker, args.duration, args.speed, view)
+    return run_demo(args.broker, args.duration, args.speed, view, web_port=args.web_port)
 
 
 def cmd_simulate(args: argparse.Namespace) -> int:
@@ -574,6 +576,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "about two minutes)")
     p.add_argument("--plain", action="store_true",
                    help="print events line by line instead of the live view")
+    p.add_argument("--web-port", type=int, metavar="N",
+                   help="also serve the web page on 127.0.0.1:N, and keep it after the day "
+                        "until Ctrl-C")
     p.set_defaults(func=cmd_demo)
 
     from thermowarden.simulate import SCENARIOS
@@ -620,7 +625,37 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the service's state directory (default ./state)")
     p.add_argument("--store", metavar="FILE", help="the SQLite store itself (for a shard)")
     p.set_defaults(func=cmd_export)
+
+    p = sub.add_parser("web-user", help="print a users-file entry for the web page "
+                       "(asks for the password, or reads it from stdin)")
+    p.add_argument("name")
+    p.add_argument("--audience", action="append", required=True,
+                   choices=["facilities", "safety", "integrator"],
+                   help="an audience whose advisories this person may act on (repeat)")
+    p.set_defaults(func=cmd_web_user)
     return parser
+
+
+def cmd_web_user(args: argparse.Namespace) -> int:
+    import getpass
+
+    from thermowarden.shell.web.users import UserEntry, hash_password
+
+    if sys.stdin.isatty():
+        password = getpass.getpass("password: ")
+        if getpass.getpass("again: ") != password:
+            print("the passwords differ", file=sys.stderr)
+            return 2
+    else:
+        password = sys.stdin.readline().rstrip("\n")
+    if len(password) < 8:
+        print("use a password of at least 8 characters", file=sys.stderr)
+        return 2
+    entry = UserEntry(name=args.name, audiences=sorted(set(args.audience)),
+                      password_hash=hash_password(password))
+    print(f"  - name: {json.dumps(entry.name)}\n    audiences: [{', '.join(entry.audiences)}]"
+          f"\n    password_hash: \"{entry.password_hash}\"")
+    return 0
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -666,6 +666,15 @@ class CommandsConfig(Strict):
 
     max_body_bytes: int = Field(2048, ge=256, le=65_536)
     identity_property: str | None = None
+class WebConfig(Strict):
+    """The web page and HTTP API (off unless enabled; loopback unless told otherwise).
+    ``users_file`` (relative to the site file) lists who may sign in and act."""
+
+    enabled: bool = False
+    host: str = "127.0.0.1"
+    port: int = Field(9480, ge=1, le=65535)
+    users_file: str | None = None
+    session_lifetime_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
 
 
 class SiteConfig(Strict):
@@ -685,6 +694,7 @@ class SiteConfig(Strict):
     rule_dirs: list[str] = Field(default_factory=list)
     retention: RetentionConfig = Field(default_factory=RetentionConfig)
     delivery: DeliveryConfig = Field(default_factory=DeliveryConfig)
+    web: WebConfig = Field(default_factory=WebConfig)
 
     @model_validator(mode="after")
     def _check(self) -> SiteConfig:

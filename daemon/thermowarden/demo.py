@@ -157,8 +157,11 @@ def _print_new(dv: DemoView, shown: int, out: TextIO) -> int:
 
 
 def run_demo(broker_url: str | None, duration: float | None, speed: float, view: bool,
-             out: TextIO = sys.stdout) -> int:
-    """Run the demo; returns the exit status (0 when it ends or is interrupted)."""
+             out: TextIO = sys.stdout, web_port: int | None = None) -> int:
+    """Run the demo; returns the exit status (0 when it ends or is interrupted).
+
+    With ``web_port`` the web page is served on 127.0.0.1 (user ``demo`` with a password
+    printed at the start) and kept, with the clock stopped, after the day until Ctrl-C."""
     from thermowarden.config import load_site
     from thermowarden.shell.bootstrap import bootstrap
     from thermowarden.shell.embedded_broker import EmbeddedBroker
@@ -183,9 +186,25 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     clock = Clock(start=start - 1.0, speed=speed, paused=True)
     # at hundreds of times real speed a few milliseconds of scheduling delay are whole
     # sensor intervals: allow more missed intervals before a point counts as stale
+    overrides = {"THERMOWARDEN_INGEST__STALE_AFTER_INTERVALS": "6"}
+    if web_port is not None:
+        import secrets
+
+        from thermowarden.shell.web.users import hash_password
+
+        password = secrets.token_urlsafe(8)
+        users = pathlib.Path(state_dir) / "web-users.yaml"
+        users.write_text("users:\n  - name: demo\n    audiences: [facilities, safety, "
+                         f"integrator]\n    password_hash: \"{hash_password(password)}\"\n")
+        overrides.update({"THERMOWARDEN_WEB__ENABLED": "true",
+                          "THERMOWARDEN_WEB__PORT": str(web_port),
+                          "THERMOWARDEN_WEB__USERS_FILE": str(users)})
     running = bootstrap(str(site_path), broker_url=broker_url, state_dir=state_dir,
                         protocol="3.1.1" if embedded else None, clock=clock,
-                        overrides={"THERMOWARDEN_INGEST__STALE_AFTER_INTERVALS": "6"})
+                        overrides=overrides)
+    if web_port is not None:
+        out.write(f"web page on http://127.0.0.1:{web_port}/ (sign in as demo, password "
+                  f"{password})\n")
     service = running.service
     engine_thread = threading.Thread(target=service.run, name="engine", daemon=True)
     engine_thread.start()
@@ -233,6 +252,17 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
             sensors.publish(rec["topic"], body, qos=0)
             if not view:
                 shown = _print_new(dv, shown, out)
+        if web_port is not None:
+            dv.wait_quiet(1.0, 20.0)
+            if not view:
+                shown = _print_new(dv, shown, out)
+            clock.anchor, clock.paused = clock.now(), True
+            out.write(f"the day is over; the web page stays on http://127.0.0.1:{web_port}/ "
+                      "with the clock stopped until Ctrl-C
+")
+            out.flush()
+            while True:
+                time.sleep(1.0)
     except KeyboardInterrupt:
         interrupted = True
     finally:
@@ -248,6 +278,8 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
             c.disconnect()
         if embedded is not None:
             embedded.stop()
+        if running.web is not None:
+            running.web.stop()
         shutil.rmtree(state_dir, ignore_errors=True)
     if view:
         dv.render(clock.now(), start, end, out)

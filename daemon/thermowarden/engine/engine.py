@@ -107,7 +107,8 @@ class Engine:
         if self.sample_every_s > 0 and now - self.last_sample >= self.sample_every_s:
             self.last_sample = now
             effects.append(Persist("sample", str(int(now)),
-                                   self.publication.sample(table, now, snap.occupied)))
+                                   self.publication.sample(table, now, snap.occupied,
+                                                           snap=snap)))
         effects.extend(book.refresh_due(now))
         self.ticks += 1
         return effects

@@ -23,8 +23,9 @@ import numpy as np
 
 from thermowarden.config import SiteConfig
 from thermowarden.core.indices import IndexTable
+from thermowarden.core.quantities import QUANTITIES
 from thermowarden.effects import Effect, Persist, Publish
-from thermowarden.site_model import SiteModel
+from thermowarden.site_model import SITE, SiteModel
 
 if TYPE_CHECKING:
     from thermowarden.engine.advisories import Advisory
@@ -52,6 +53,28 @@ def iso(t: float) -> str:
 def num(v: float) -> float | None:
     """A JSON number, or null for NaN/inf (NaN never leaves the process)."""
     return round(v, 3) if math.isfinite(v) else None
+
+
+def _input_column(snap: Snapshot, q: str) -> tuple[Any, str]:
+    """The values of input ``q`` that the indices used (all spaces), and its unit."""
+    s = snap.inputs
+    arr: Any = None
+    if q.startswith("plane_radiant_temperature_"):
+        arr = s.plane_radiant.get(q.removeprefix("plane_radiant_temperature_"))
+        unit = "°C"
+    elif q == "surface_temperature":
+        arr, unit = s.surface_temperature_min, "°C"
+    elif q in ("air_temperature_head", "air_temperature_ankle"):
+        arr, unit = getattr(s, q), "°C"
+    else:
+        arr = getattr(s, q, None) if q in QUANTITIES else None
+        if not isinstance(arr, np.ndarray):
+            arr = snap.states.get(q)
+        info = QUANTITIES.get(q)
+        unit = info.unit if info else ""
+    if not isinstance(arr, np.ndarray) or arr.dtype == np.bool_:
+        return None, unit
+    return arr, unit
 
 
 def space_ref(space: Any) -> dict[str, Any]:
@@ -85,6 +108,8 @@ class Publication:
         self.touched = np.zeros(n, dtype=bool)
         """Spaces with new readings since their conditions last went out."""
         self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
+        self._points_cache: tuple[int, dict[int, list[int]], list[Any]] = (-1, {}, [])
+        self._snap_cache: tuple[Any, dict[str, Any], list[Any]] = (None, {}, [])
 
     # ------------------------------------------------------------------ advisories
     def advisory_payload(self, adv: Advisory) -> dict[str, Any]:
@@ -156,9 +181,20 @@ class Publication:
     def conditions_payload(self, snap: Snapshot, table: IndexTable, i: int) -> dict[str, Any]:
         """The published conditions of space ``i`` (schema ``thermowarden.conditions/1``)."""
         space = self.model.space(i)
+        points = self.points_at(snap, i)
+        newest: dict[str, float] = {}
+        for p, names in zip(points, self._point_names(snap, i), strict=True):
+            age = p["age_s"]
+            if age is not None:
+                for name in names:
+                    if age < newest.get(name, math.inf):
+                        newest[name] = age
+        columns = self._snapshot_columns(snap)[1]
         inputs: dict[str, Any] = {}
-        for q, mask in snap.present.items():
-            inputs[q] = {"fresh": bool(mask[i])}
+        for q, (fresh, values, unit) in columns.items():
+            v = values[i]
+            inputs[q] = {"fresh": fresh[i], "value": v if math.isfinite(v) else None,
+                         "unit": unit, "age_s": newest.get(q)}
         for q, mask in snap.assumed.items():
             if mask[i]:
                 inputs.setdefault(q, {"fresh": False})["assumed"] = self._assumption_notes(i)[q]
@@ -170,6 +206,7 @@ class Publication:
             "occupied": bool(snap.occupied[i]),
             "states": {k: num(float(v[i])) for k, v in snap.states.items()},
             "inputs": inputs,
+            "points": points,
             "indices": self.indices_at(table, i),
             "advisory_only": True,
         }
@@ -180,6 +217,66 @@ class Publication:
         if i not in cache:
             cache[i] = self.config.assumptions(self.model.space(i)).notes()
         return cache[i]
+
+    def _snapshot_columns(self, snap: Snapshot) -> tuple[Snapshot, dict[str, Any],
+                                                         list[Any]]:
+        """Per-snapshot lists (converted once per evaluation, not once per space): every
+        input's freshness, value and unit; every point's value, freshness and age."""
+        if self._snap_cache[0] is not snap:
+            cols: dict[str, Any] = {}
+            for q, mask in snap.present.items():
+                arr, unit = _input_column(snap, q)
+                values = np.round(arr, 3).tolist() if arr is not None else \
+                    [math.nan] * mask.size
+                cols[q] = (mask.tolist(), values, unit)
+            pv = snap.point_value if snap.point_value is not None else \
+                np.full(snap.point_fresh.size, np.nan)
+            per_point = [np.round(pv, 3).tolist(), snap.point_fresh.tolist(),
+                         np.round(snap.point_age_s, 3).tolist()]
+            self._snap_cache = (snap, cols, per_point)
+        return self._snap_cache
+
+    def _point_ids(self, snap: Snapshot, i: int) -> list[int]:
+        pts = self.model.points
+        if self._points_cache[0] != len(pts):
+            by_space: dict[int, list[int]] = {}
+            for pid, p in enumerate(pts):
+                by_space.setdefault(p.space, []).append(pid)
+            static = []
+            for p in pts:
+                q = QUANTITIES.get(p.quantity)
+                side = f"{p.quantity}_{p.side}" if p.side and p.quantity in (
+                    "plane_radiant_temperature", "radiant_flux") else p.quantity
+                height = f"{p.quantity}_{p.height}" if p.height else p.quantity
+                static.append(({"key": p.key, "quantity": p.quantity, "side": p.side,
+                                "height": p.height, "sensor": p.sensor,
+                                "unit": q.unit if q else ""},
+                               tuple({p.quantity, side, height})))
+            self._points_cache = (len(pts), by_space, static)
+        by_space = self._points_cache[1]
+        pids = list(by_space.get(i, []))
+        if self.model.space(i).kind == "outdoor":
+            pids += by_space.get(SITE, [])
+        n = snap.point_fresh.size
+        return [pid for pid in pids if pid < n]  # newer points are not in this snapshot
+
+    def _point_names(self, snap: Snapshot, i: int) -> list[tuple[str, ...]]:
+        """The input names each point of space ``i`` feeds (for the inputs' ages)."""
+        static = self._points_cache[2]
+        return [static[pid][1] for pid in self._point_ids(snap, i)]
+
+    def points_at(self, snap: Snapshot, i: int) -> list[dict[str, Any]]:
+        """Space ``i``'s points (an outdoor space also the site's outdoor points) with their
+        latest value in the canonical unit, freshness and age (s)."""
+        values, fresh, ages = self._snapshot_columns(snap)[2]
+        pids = self._point_ids(snap, i)
+        static = self._points_cache[2]
+        out: list[dict[str, Any]] = []
+        for pid in pids:
+            v, age = values[pid], ages[pid]
+            out.append({**static[pid][0], "value": v if math.isfinite(v) else None,
+                        "fresh": fresh[pid], "age_s": age if math.isfinite(age) else None})
+        return out
 
     def indices_at(self, table: IndexTable, i: int) -> dict[str, dict[str, Any]]:
         """``IndexColumn.as_dict`` for every index of space ``i``, with the per-column work
@@ -225,10 +322,11 @@ class Publication:
         self.last_conditions[:] = -np.inf
 
     # ------------------------------------------------------------------ report samples
-    def sample(self, table: IndexTable, now: float,
-               occupied: Any = None) -> dict[str, Any]:
+    def sample(self, table: IndexTable, now: float, occupied: Any = None,
+               snap: Snapshot | None = None) -> dict[str, Any]:
         """The report sample: a few indices of every space and whether it was occupied
-        (boolean array over the spaces), NaN as null."""
+        (boolean array over the spaces), NaN as null; with ``snap`` also the air
+        temperature (the history the web page plots)."""
 
         def col(name: str) -> list[float | None]:
             c = table[name]
@@ -250,4 +348,7 @@ class Publication:
                 "ref_acclimatised": col("wbgt_reference_acclimatised"),
                 "heat_index": col("heat_index"), "utci": col("utci"),
                 "occupied": (None if occupied is None
-                             else [bool(x) for x in occupied])}
+                             else [bool(x) for x in occupied]),
+                "air_temperature": [num(float(v)) for v in snap.inputs.air_temperature]
+                if snap is not None else [None] * len(self.model.space_ids),
+                "relative_humidity": col("relative_humidity"), "dew_point": col("dew_point")}

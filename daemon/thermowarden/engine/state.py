@@ -71,6 +71,8 @@ class Snapshot:
     outdoor: dict[str, float]
     assumed: dict[str, BoolArray] = field(default_factory=dict)
     """quantity -> the space's declared assumption stands in for it at this evaluation."""
+    point_value: FloatArray | None = None
+    """Latest value of every point in its quantity's canonical unit (NaN if none yet)."""
 
 
 @dataclass
@@ -504,7 +506,7 @@ class SiteState:
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
         assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
         return Snapshot(now, inputs, present, states, self.occupied(now, states["occupancy"]),
-                        spread, fresh, age, outdoor, assumed)
+                        spread, fresh, age, outdoor, assumed, values.copy())
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:

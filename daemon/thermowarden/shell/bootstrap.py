@@ -25,6 +25,7 @@ from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store, StoreError, move_aside
 from thermowarden.shell.warmup import warm_up
+from thermowarden.shell.web import WebServer, build_web
 from thermowarden.site_model import build_site_model
 
 log = logging.getLogger("thermowarden")
@@ -39,6 +40,7 @@ maximum packet size sent to the broker)."""
 class Running:
     service: Service
     http: ThreadingHTTPServer | None
+    web: WebServer | None = None
 
 
 def shard_spaces(config: SiteConfig, index: int, count: int) -> SiteConfig:
@@ -155,11 +157,16 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                       f"{prefix}/replies", clock, delivery=delivery,
                       reloader=lambda old: prepare_reload(old, load),
                       per_space_subscriptions=shard is not None or bool(spaces))
+    web = None
+    if config.web.enabled:
+        view, web = build_web(config, config_path, packs, inbox, store.path, clock.now)
+        service.observers.append(view.observe)
+        web.start()
     http = None
     if http_port is not None:
         http = start_http(http_port, metrics, service.alive, service.ready, host=http_host)
     log.info("thermowarden %s: site %s, %d space(s), %d point(s), %d rule pack(s), broker %s",
              __version__, config.site.id, model.n_spaces, len(model.points), len(packs),
              config.broker.url)
-    return Running(service, http)
+    return Running(service, http, web)
 

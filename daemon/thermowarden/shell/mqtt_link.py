@@ -75,6 +75,8 @@ class Incoming:
     """A command body over the limit: its length (the body itself is dropped)."""
     kind: str = "sensor"
     """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check) or "sys"."""
+    on_reply: Callable[[dict[str, Any]], None] | None = None
+    """For a command from the web page or API: called with the engine's reply."""
 
 
 @dataclass(frozen=True)

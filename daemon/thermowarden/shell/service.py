@@ -176,6 +176,8 @@ class Service:
         self.last_watchdog = 0.0
         self.last_digest = clock.now()
         self.failures_seen: set[tuple[int, str]] = set()
+        self.observers: list[Callable[[list[Effect]], None]] = []
+        """Called with every batch of executed effects (the web page's live view)."""
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
@@ -270,6 +272,8 @@ class Service:
             else:
                 self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
         self.metrics.outbox_depth.set(self.store.outbox_depth())
+        for observe in self.observers:
+            observe(effects)
 
     def _hand_over(self, seq: int, topic: str, payload: dict[str, Any]) -> None:
         """Give an outbox row to the client, unless it already holds it."""
@@ -453,7 +457,9 @@ class Service:
                 if wanted and wanted.startswith(self.reply_topic + "/"):
                     target = wanted
         self.link.publish(target, reply, 1, False, correlation=m.correlation)
-        if not self.link.v5:
+        if m.on_reply is not None:  # from the web page or API, which waits for the reply
+            m.on_reply(reply)
+        elif not self.link.v5:
             # MQTT 3.1.1 cannot say whether this was retained: clear it in case it was
             self.link.client.publish(m.topic, b"", qos=1, retain=True)
         if not reply["ok"]:

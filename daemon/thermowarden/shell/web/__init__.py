@@ -1,0 +1,41 @@
+"""The web page and HTTP API: off unless ``web.enabled``; see :mod:`.app`."""
+
+from __future__ import annotations
+
+import os
+import pathlib
+from collections.abc import Callable, Mapping
+
+from thermowarden.config import SiteConfig
+from thermowarden.rules import CompiledPack
+from thermowarden.shell.mqtt_link import Inbox
+from thermowarden.shell.web.app import CommandBridge, WebContext, WebServer, create_app
+from thermowarden.shell.web.history import StoreReader
+from thermowarden.shell.web.live import LiveView, SiteDirectory
+from thermowarden.shell.web.users import Sessions, load_users
+
+__all__ = ["LiveView", "WebServer", "build_web"]
+
+
+def users_path(config: SiteConfig, config_path: str | os.PathLike[str]) -> pathlib.Path | None:
+    name = config.web.users_file
+    if name is None:
+        return None
+    p = pathlib.Path(name)
+    return p if p.is_absolute() else pathlib.Path(config_path).parent / p
+
+
+def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
+              packs: Mapping[str, CompiledPack], inbox: Inbox, store_path: pathlib.Path,
+              now: Callable[[], float]) -> tuple[LiveView, WebServer]:
+    """The live view (for the engine thread to feed) and the server (not yet started).
+    A bad users file raises :class:`thermowarden.config.ConfigError`."""
+    path = users_path(config, config_path)
+    sessions = Sessions(load_users(path), config.web.session_lifetime_s) if path else None
+    limits = {rule.key: float(rule.config.max_shelve_s) for pack in packs.values()
+              for rule in pack.rules}
+    directory = SiteDirectory.build(config, limits)
+    view = LiveView(config.output.prefix)
+    ctx = WebContext(directory, view, StoreReader(store_path), sessions,
+                     CommandBridge(inbox, f"{config.output.prefix}/commands/", now), now)
+    return view, WebServer(create_app(ctx), config.web.host, config.web.port)

@@ -1,0 +1,495 @@
+"""The web page's HTML: overview, one space, one advisory, sign-in. Plain server-rendered
+HTML with inline CSS and inline SVG charts; every value from outside is escaped here."""
+
+from __future__ import annotations
+
+import datetime as dt
+import math
+from html import escape
+from typing import Any
+from urllib.parse import quote
+
+from thermowarden.shell.web import plots
+from thermowarden.shell.web.live import SiteDirectory, SpaceInfo
+from thermowarden.shell.web.users import Session
+
+REFRESH_S = 30
+CSS = """
+:root{--fg:#1d2327;--muted:#5d6870;--bg:#f6f7f8;--card:#fff;--line:#d5dade;
+--low:#4f6d7a;--medium:#9a6b00;--high:#b3471d;--urgent:#a1002a;--ok:#2f7d32}
+*{box-sizing:border-box}
+body{margin:0;font:16px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;
+color:var(--fg);background:var(--bg)}
+header{background:#233440;color:#fff;padding:.6rem 1rem;display:flex;flex-wrap:wrap;
+gap:.4rem 1rem;align-items:baseline;justify-content:space-between}
+header a{color:#fff}
+header h1{font-size:1.15rem;margin:0}
+main{max-width:70rem;margin:0 auto;padding:.8rem}
+h2{font-size:1.1rem;margin:1.2rem 0 .5rem}
+a{color:#1f5f8b}
+.note{font-size:.85rem;color:var(--muted)}
+.muted{color:var(--muted)}
+.cards{display:grid;grid-template-columns:repeat(auto-fill,minmax(min(16rem,100%),1fr));
+gap:.7rem}
+.card{background:var(--card);border:1px solid var(--line);border-radius:.5rem;padding:.7rem}
+.card h3{margin:0 0 .3rem;font-size:1rem}
+.kv{display:grid;grid-template-columns:auto auto;gap:.1rem .8rem;margin:0}
+.kv dt{color:var(--muted)}
+.kv dd{margin:0;text-align:right;font-variant-numeric:tabular-nums;overflow-wrap:anywhere}
+.badge{display:inline-block;border-radius:.3rem;padding:0 .4rem;font-size:.8rem;
+color:#fff;background:var(--low);vertical-align:middle}
+.badge.medium{background:var(--medium)}.badge.high{background:var(--high)}
+.badge.urgent{background:var(--urgent)}.badge.state{background:#56606a}
+.badge.plain{background:#e4e8eb;color:var(--fg)}
+ul.adv{list-style:none;margin:0;padding:0}
+ul.adv li{background:var(--card);border:1px solid var(--line);border-left:.35rem solid
+var(--low);border-radius:.4rem;padding:.5rem .7rem;margin:0 0 .5rem}
+ul.adv li.medium{border-left-color:var(--medium)}ul.adv li.high{border-left-color:var(--high)}
+ul.adv li.urgent{border-left-color:var(--urgent)}
+table{border-collapse:collapse;width:100%;background:var(--card)}
+th,td{border-bottom:1px solid var(--line);padding:.3rem .4rem;text-align:left;
+vertical-align:top}
+td.num{text-align:right;font-variant-numeric:tabular-nums}
+.scroll{overflow-x:auto}
+.stale{color:var(--high);font-weight:600}.fresh{color:var(--ok)}
+.charts{display:grid;grid-template-columns:repeat(auto-fill,minmax(min(26rem,100%),1fr));
+gap:.7rem}
+figure.chart{margin:0;background:var(--card);border:1px solid var(--line);
+border-radius:.5rem;padding:.5rem}
+figcaption{font-weight:600;margin-bottom:.2rem}
+svg.plot{width:100%;height:auto;display:block}
+svg.plot text{font-size:11px;fill:#4a545c}
+svg.plot .grid{stroke:#e3e7ea;stroke-width:1}
+svg.plot .frame{fill:none;stroke:#b7c0c6}
+.legend{font-size:.8rem;color:var(--muted);display:flex;flex-wrap:wrap;gap:.2rem .8rem}
+.key svg{margin-right:.25rem;vertical-align:middle}
+form.act{background:var(--card);border:1px solid var(--line);border-radius:.5rem;
+padding:.7rem;margin:0 0 .7rem}
+form.act label{display:block;margin:.3rem 0}
+input,select,textarea,button{font:inherit;max-width:100%}
+input[type=text],input[type=password],textarea{width:100%;padding:.35rem}
+button{padding:.4rem .9rem;border-radius:.35rem;border:1px solid #1f5f8b;
+background:#1f5f8b;color:#fff;cursor:pointer}
+.flash{background:#e8f2e8;border:1px solid #9cc59e;padding:.5rem .7rem;border-radius:.4rem}
+.flash.error{background:#fbeaea;border-color:#d79a9a}
+.cautions li{margin:.2rem 0}
+"""
+
+OVERVIEW_VALUES = (
+    ("operative_temperature", "Operative temperature"),
+    ("pmv_iso", "PMV (ISO 7730)"),
+    ("relative_humidity", "Relative humidity"),
+    ("wbgt_effective", "WBGT"),
+    ("wbgt_reference_acclimatised", "WBGT reference (acclimatised)"),
+    ("utci", "UTCI"),
+    ("heat_index", "Heat index"),
+)
+SPACE_VALUES = (
+    ("operative_temperature", "Operative temperature"),
+    ("mean_radiant_temperature", "Mean radiant temperature"),
+    ("pmv_iso", "PMV (ISO 7730)"),
+    ("ppd_iso", "PPD (ISO 7730)"),
+    ("comfort_category_iso", "ISO 7730 category"),
+    ("adaptive_en_category", "EN 16798-1 adaptive category"),
+    ("set", "SET"),
+    ("relative_humidity", "Relative humidity"),
+    ("dew_point", "Dew point"),
+    ("draught_rate", "Draught rate"),
+    ("wbgt", "WBGT"),
+    ("wbgt_time_weighted", "WBGT, 60-minute mean"),
+    ("wbgt_effective", "WBGT with clothing adjustment"),
+    ("wbgt_reference_acclimatised", "WBGT reference, acclimatised"),
+    ("wbgt_reference_unacclimatised", "WBGT reference, unacclimatised"),
+    ("heat_index", "Heat index"),
+    ("humidex", "Humidex"),
+    ("utci", "UTCI"),
+)
+QUANTITY_LABELS = {
+    "air_temperature": "Air temperature", "relative_humidity": "Relative humidity",
+    "globe_temperature": "Globe temperature", "air_speed": "Air speed",
+    "mean_radiant_temperature": "Mean radiant temperature",
+    "plane_radiant_temperature": "Plane radiant temperature", "radiant_flux": "Radiant flux",
+    "natural_wet_bulb": "Natural wet-bulb", "psychrometric_wet_bulb": "Psychrometric wet-bulb",
+    "surface_temperature": "Surface temperature", "floor_temperature": "Floor temperature",
+    "turbulence_intensity": "Turbulence intensity", "shading_position": "Shading (lowered)",
+    "fan_state": "Fans", "occupancy": "Occupancy",
+    "outdoor_air_temperature": "Outdoor air temperature",
+    "outdoor_relative_humidity": "Outdoor relative humidity", "wind_speed": "Wind speed",
+    "solar_irradiance": "Solar irradiance", "barometric_pressure": "Barometric pressure",
+}
+CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
+           "are screening values; follow local regulations and a qualified occupational "
+           "hygienist.")
+
+
+FRESH = '<span class="fresh">fresh</span>'
+STALE = '<span class="stale">stale</span>'
+
+
+def h(v: object) -> str:
+    return escape(str(v), quote=True)
+
+
+def parse_iso(s: str) -> float:
+    return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
+
+
+def local(s: str | None, tz: dt.tzinfo, fmt: str = "%H:%M") -> str:
+    if not s:
+        return "–"
+    return dt.datetime.fromtimestamp(parse_iso(s), tz).strftime(fmt)
+
+
+def fmt_value(item: dict[str, Any] | None, compact: bool = False) -> str:
+    """An index or input value with its unit; a dash with the reason when absent (the
+    reason only as a tooltip when ``compact``)."""
+    if not item:
+        return '<span class="muted">–</span>'
+    v = item.get("value")
+    unit = item.get("unit") or ""
+    if unit == "1":
+        unit = ""
+    if v is None:
+        reason = item.get("reason") or "no fresh value"
+        if compact:
+            return f'<span class="muted" title="{h(reason)}">–</span>'
+        return f'<span class="muted" title="{h(reason)}">– <small>({h(reason)})</small></span>'
+    if isinstance(v, bool):
+        text = "yes" if v else "no"
+    elif isinstance(v, float):
+        text = f"{v:.3f}" if unit == "kg/kg" else f"{v:.1f}" if abs(v) >= 0.1 or v == 0 \
+            else f"{v:.2f}"
+    else:
+        text = str(v)
+    sep = "" if unit in ("%", "") else " "
+    return f"{h(text)}{sep}{h(unit)}"
+
+
+def age_text(age_s: float | None) -> str:
+    if age_s is None or not math.isfinite(age_s):
+        return "never"
+    if age_s < 90:
+        return f"{age_s:.0f} s ago"
+    if age_s < 5400:
+        return f"{age_s / 60:.0f} min ago"
+    return f"{age_s / 3600:.1f} h ago"
+
+
+def badge(priority: str) -> str:
+    return f'<span class="badge {h(priority)}">{h(priority)}</span>'
+
+
+def state_badge(state: str) -> str:
+    return f'<span class="badge state">{h(state)}</span>'
+
+
+def page(title: str, body: str, directory: SiteDirectory, session: Session | None,
+         refresh: bool = False, here: str = "/") -> str:
+    who = (f'{h(session.user.name)} <form method="post" action="/logout" style="display:inline">'
+           f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
+           '<button type="submit" style="padding:.1rem .5rem">Sign out</button></form>'
+           if session else f'<a href="/login?next={quote(here, safe="")}">Sign in</a>')
+    flash = ""
+    if session and session.flash:
+        msgs, session.flash[:] = list(session.flash), []
+        flash = "".join(
+            f'<p class="flash{" error" if m.startswith("!") else ""}" role="status">'
+            f'{h(m.lstrip("!"))}</p>' for m in msgs)
+    meta = f'<meta http-equiv="refresh" content="{REFRESH_S}">' if refresh else ""
+    return (f'<!doctype html><html lang="en"><head><meta charset="utf-8">'
+            f'<meta name="viewport" content="width=device-width, initial-scale=1">{meta}'
+            f'<title>{h(title)} · thermowarden</title><style>{CSS}</style></head><body>'
+            f'<header><h1><a href="/">{h(directory.site_name)}</a></h1>'
+            f'<span class="who">{who}</span></header><main>{flash}{body}'
+            f'<p class="note">{h(CAUTION)}</p></main></body></html>')
+
+
+def advisory_item(a: dict[str, Any], tz: dt.tzinfo, with_space: bool = True) -> str:
+    space = f'{h(a["space"]["name"])} · ' if with_space else ""
+    return (f'<li class="{h(a["priority"])}">{badge(a["priority"])} {state_badge(a["state"])} '
+            f'<a href="/advisories/{quote(a["id"], safe="")}">{h(a["title"])}</a>'
+            f'<div class="note">{space}{h(a["audience"])} · raised '
+            f'{local(a["raised_at"], tz)}</div></li>')
+
+
+def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | None],
+             live: list[dict[str, Any]], session: Session | None, tz: dt.tzinfo) -> str:
+    parts = ["<h2>Live advisories</h2>"]
+    if live:
+        parts.append('<ul class="adv">' + "".join(advisory_item(a, tz) for a in live)
+                     + "</ul>")
+    else:
+        parts.append('<p class="muted">None at the moment.</p>')
+    parts.append('<h2>Spaces</h2><div class="cards">')
+    for s in directory.spaces:
+        c = conditions.get(s.id)
+        n_live = sum(1 for a in live if a["space"]["id"] == s.id)
+        rows = []
+        if c is not None:
+            idx = c["indices"]
+            for key, label in OVERVIEW_VALUES:
+                item = idx.get(key)
+                if item is None or (item.get("value") is None and key in (
+                        "utci", "heat_index", "wbgt_effective", "wbgt_reference_acclimatised",
+                        "pmv_iso")):
+                    continue
+                rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
+            when = (f'as of {local(c["at"], tz)} · '
+                    f'{"occupied" if c.get("occupied") else "unoccupied"}')
+        else:
+            when = "not evaluated yet"
+        tags = [s.kind] + (["hot work"] if s.hot_work else []) + (
+            ["natural ventilation"] if s.ventilation == "natural" else [])
+        alert = (f' <span class="badge high">{n_live} live</span>' if n_live else "")
+        parts.append(
+            f'<section class="card" data-space="{h(s.id)}"><h3><a href="/spaces/'
+            f'{quote(s.id, safe="")}">{h(s.name)}</a>{alert}</h3>'
+            f'<div class="note">{h(" · ".join(tags))} · {h(when)}</div>'
+            f'<dl class="kv">{"".join(rows)}</dl></section>')
+    parts.append("</div>")
+    return page("Overview", "".join(parts), directory, session, refresh=True, here="/")
+
+
+def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
+    return [s.get(key) for s in samples]
+
+
+def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, end: float,
+                 tz: dt.tzinfo) -> str:
+    times = [s["t"] for s in samples]
+    charts = [plots.Chart(
+        "Operative temperature and comfort band", "°C", times,
+        lines=[plots.Line("operative temperature", _series(samples, "operative_temperature"),
+                          "#b3471d")],
+        bands=([plots.Band("comfort band", _series(samples, "comfort_band_lower"),
+                           _series(samples, "comfort_band_upper"), "#2f7d32")]
+               if space.kind == "indoor" else [])
+        + ([plots.Band("EN 16798-1 category II", _series(samples, "adaptive_en_II_lower"),
+                       _series(samples, "adaptive_en_II_upper"), "#4f6d7a")]
+           if space.ventilation == "natural" else []))]
+    charts.append(plots.Chart(
+        "WBGT and its reference values (ISO 7243)", "°C", times, lines=[
+            plots.Line("WBGT", _series(samples, "wbgt"), "#a1002a"),
+            plots.Line("reference, acclimatised", _series(samples,
+                                                          "wbgt_reference_acclimatised"),
+                       "#9a6b00", "6 4"),
+            plots.Line("reference, unacclimatised",
+                       _series(samples, "wbgt_reference_unacclimatised"), "#4f6d7a", "2 3")]))
+    charts.append(plots.Chart("Relative humidity", "%", times, lines=[
+        plots.Line("relative humidity", _series(samples, "relative_humidity"), "#1f5f8b")]))
+    charts.append(plots.Chart("Air temperature and dew point", "°C", times, lines=[
+        plots.Line("air temperature", _series(samples, "air_temperature"), "#b3471d"),
+        plots.Line("dew point", _series(samples, "dew_point"), "#1f5f8b", "6 4")]))
+    if space.kind == "outdoor":
+        charts.append(plots.Chart("Heat index and UTCI", "°C", times, lines=[
+            plots.Line("heat index (NWS)", _series(samples, "heat_index"), "#b3471d"),
+            plots.Line("UTCI", _series(samples, "utci"), "#6a3d9a", "6 4")]))
+    return '<div class="charts">' + "".join(plots.render(c, start, end, tz)
+                                            for c in charts) + "</div>"
+
+
+def points_table(c: dict[str, Any] | None) -> str:
+    if c is None:
+        return '<p class="muted">No readings evaluated yet.</p>'
+    pts = c.get("points")
+    if pts:
+        rows = []
+        for p in pts:
+            fresh = p.get("fresh")
+            status = '<span class="fresh">fresh</span>' if fresh else \
+                '<span class="stale">stale</span>' if p.get("value") is not None else \
+                '<span class="muted">no reading</span>'
+            tags = " ".join(f"{k} {p[k]}" for k in ("side", "height", "sensor") if p.get(k))
+            rows.append(
+                f'<tr><td>{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
+                f'{f" <small class=muted>({h(tags)})</small>" if tags else ""}</td>'
+                f'<td class="num">{fmt_value(p)}</td><td>{status}</td>'
+                f'<td>{h(age_text(p.get("age_s")))}</td></tr>')
+        return ('<div class="scroll"><table><thead><tr><th>Point</th><th>Last value</th>'
+                '<th>Freshness</th><th>Received</th></tr></thead><tbody>' + "".join(rows)
+                + "</tbody></table></div>")
+    rows = [f'<tr><td>{h(QUANTITY_LABELS.get(q, q))}</td><td class="num">'
+            f'{fmt_value(v) if "value" in v else "–"}</td><td>'
+            f'{FRESH if v.get("fresh") else STALE}'
+            f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
+    return ('<div class="scroll"><table><thead><tr><th>Input</th><th>Value</th>'
+            '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
+
+
+def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | None,
+               live: list[dict[str, Any]], recent: list[dict[str, Any]],
+               samples: list[dict[str, Any]], start: float, end: float,
+               session: Session | None, tz: dt.tzinfo) -> str:
+    tags = [space.kind] + (["hot work"] if space.hot_work else []) + (
+        ["natural ventilation"] if space.ventilation == "natural" else [])
+    parts = [f'<h2>{h(space.name)}</h2><p class="note">{h(" · ".join(tags))}'
+             + (f' · as of {local(c["at"], tz, "%d %b %H:%M")} · '
+                f'{"occupied" if c.get("occupied") else "unoccupied"}' if c else "") + "</p>"]
+    parts.append("<h2>Advisories</h2>")
+    if live:
+        parts.append('<ul class="adv">' + "".join(advisory_item(a, tz, False) for a in live)
+                     + "</ul>")
+    else:
+        parts.append('<p class="muted">No live advisory.</p>')
+    if recent:
+        parts.append('<details><summary>Cleared in the last 24 hours '
+                     f'({len(recent)})</summary><ul class="adv">'
+                     + "".join(advisory_item(a, tz, False) for a in recent) + "</ul></details>")
+    if c is not None:
+        rows = []
+        for key, label in SPACE_VALUES:
+            item = c["indices"].get(key)
+            if item is None:
+                continue
+            rows.append(f'<tr><td>{h(label)}</td><td class="num">{fmt_value(item)}</td>'
+                        f'<td class="note">{h(item.get("method", ""))}</td></tr>')
+        parts.append('<h2>Conditions now</h2><div class="scroll"><table><thead><tr><th>Index'
+                     '</th><th>Value</th><th>Method</th></tr></thead><tbody>' + "".join(rows)
+                     + "</tbody></table></div>")
+    parts.append("<h2>Last 24 hours</h2>" + space_charts(space, samples, start, end, tz))
+    parts.append("<h2>Points</h2>" + points_table(c))
+    return page(space.name, "".join(parts), directory, session, refresh=True,
+                here=f"/spaces/{quote(space.id, safe='')}")
+
+
+def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
+                  session: Session | None, tz: dt.tzinfo, max_shelve_s: float | None) -> str:
+    space = a["space"]
+    parts = [f'<h2>{h(a["title"])}</h2><p>{badge(a["priority"])} {state_badge(a["state"])} '
+             f'<span class="badge plain">{h(a["audience"])}</span> '
+             f'<a href="/spaces/{quote(space["id"], safe="")}">{h(space["name"])}</a></p>',
+             f'<p class="note">raised {local(a["raised_at"], tz, "%d %b %H:%M")} · updated '
+             f'{local(a["updated_at"], tz, "%H:%M")}'
+             + (f' · cleared {local(a["cleared_at"], tz, "%H:%M")}' if a.get("cleared_at")
+                else "") + (" · chattering (held active)" if a.get("chattering") else "")
+             + "</p>",
+             f'<h2>What to do</h2><p class="advice">{h(a["advice"])}</p>',
+             f'<p class="note">{h(a["rationale"])}</p>']
+    if a.get("numbers"):
+        rows = "".join(
+            f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td><td class="num">'
+            f'{_threshold(v)}</td><td class="note">{h(v.get("method", ""))}</td></tr>'
+            for k, v in a["numbers"].items())
+        parts.append('<h2>The numbers</h2><div class="scroll"><table><thead><tr><th>Value'
+                     '</th><th>Now</th><th>Threshold</th><th>Method</th></tr></thead><tbody>'
+                     + rows + "</tbody></table></div>")
+    if a.get("benefit"):
+        parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
+            f'<dt>{h(k)}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
+            + "</dl>")
+    parts.append("<h2>Effect</h2>" + _effect(a.get("acted_on"), tz))
+    if a.get("acknowledged"):
+        ack = a["acknowledged"]
+        parts.append(f'<p>Acknowledged by <strong>{h(ack.get("by"))}</strong> at '
+                     f'{local(ack.get("at"), tz)}'
+                     + (f': {h(ack["note"])}' if ack.get("note") else "") + "</p>")
+    if a.get("shelved"):
+        sh = a["shelved"]
+        parts.append(f'<p>Shelved by <strong>{h(sh.get("by"))}</strong> until '
+                     f'{local(sh.get("until"), tz)}: {h(sh.get("reason", ""))}</p>')
+    if a.get("cautions"):
+        parts.append('<h2>Cautions</h2><ul class="cautions">'
+                     + "".join(f"<li>{h(c)}</li>" for c in a["cautions"]) + "</ul>")
+    if live:
+        parts.append(_actions(a, session, max_shelve_s))
+    hist = "".join(
+        f'<tr><td>{local(e.get("at"), tz, "%d %b %H:%M")}</td><td>{h(e.get("event"))}</td>'
+        f'<td>{h(e.get("by", ""))}</td><td>'
+        f'{h(e.get("note") or e.get("reason") or "")}</td></tr>'
+        for e in reversed(a.get("history", [])))
+    parts.append('<h2>History</h2><div class="scroll"><table><thead><tr><th>When</th>'
+                 '<th>Event</th><th>By</th><th>Note</th></tr></thead><tbody>' + hist
+                 + "</tbody></table></div>")
+    return page(a["title"], "".join(parts), directory, session,
+                here=f"/advisories/{quote(a['id'], safe='')}")
+
+
+def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
+    """Whether the advice was acted on and what it did (effectiveness)."""
+    if not acted:
+        return '<p class="muted">Not acted on yet (as far as the sensors show).</p>'
+    after = acted.get("cleared_after")
+    mins = acted.get("cleared_after_min")
+    text = f'Acted on at {local(acted.get("at"), tz)}'
+    if acted.get("minutes_after_raised") is not None:
+        text += f' ({acted["minutes_after_raised"]:.0f} min after it was raised)'
+    if after:
+        text += "; the condition cleared afterwards" + (
+            f" ({mins:.0f} min later)" if isinstance(mins, int | float) else "") + "."
+    elif after is False:
+        text += "; the condition did not clear afterwards."
+    else:
+        text += "; waiting for the conditions to clear."
+    helped = acted.get("helped")
+    if helped is not None:
+        text += " It helped within the expected time." if helped else \
+            " It did not help within the expected time."
+    out = f"<p>{h(text)}</p>"
+    effect = acted.get("effect")
+    if effect:
+        unit = effect.get("unit", "")
+        rows = [("when acted on", effect.get("value_then")),
+                ("predicted", effect.get("predicted"))]
+        rows += [(f'{c["after_min"]:g} min later', c.get("value"))
+                 for c in effect.get("checks", [])]
+        out += (f'<div class="scroll"><table><thead><tr><th>{h(effect.get("quantity", ""))}'
+                '</th><th>Value</th></tr></thead><tbody>'
+                + "".join(f'<tr><td>{h(label)}</td><td class="num">'
+                          f'{fmt_value({"value": v, "unit": unit})}</td></tr>'
+                          for label, v in rows) + "</tbody></table></div>")
+    return out
+
+
+def _threshold(v: dict[str, Any]) -> str:
+    if v.get("threshold") is None:
+        return "–"
+    return fmt_value({"value": v["threshold"], "unit": v.get("unit", "")})
+
+
+def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None) -> str:
+    if session is None:
+        return ('<h2>Act on it</h2><p><a href="/login?next=/advisories/'
+                f'{quote(a["id"], safe="")}">Sign in</a> to acknowledge or shelve.</p>')
+    if a["audience"] not in session.user.audiences:
+        return (f'<h2>Act on it</h2><p class="muted">Only people of the {h(a["audience"])} '
+                "audience may acknowledge or shelve this advisory.</p>")
+    base = f'/advisories/{quote(a["id"], safe="")}'
+    csrf = f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
+    out = ["<h2>Act on it</h2>"]
+    state = a["state"]
+    if state == "active":
+        out.append(f'<form class="act" method="post" action="{base}/acknowledge">{csrf}'
+                   '<label>Note (optional) <input type="text" name="note" maxlength="1000">'
+                   '</label><button type="submit" id="acknowledge">Acknowledge</button>'
+                   "</form>")
+    if state in ("active", "acknowledged"):
+        limit = int(max_shelve_s or 3600)
+        options = [m for m in (5, 15, 30, 60, 120, 240, 480, 1440) if m * 60 <= limit] or [
+            max(1, limit // 60)]
+        opts = "".join(f'<option value="{m * 60}">{m} min</option>' for m in options)
+        out.append(f'<form class="act" method="post" action="{base}/shelve">{csrf}'
+                   '<label>Reason <input type="text" name="reason" required maxlength="1000">'
+                   f'</label><label>For <select name="duration_s">{opts}</select></label>'
+                   f'<p class="note">This rule may be shelved for at most {limit // 60} min.'
+                   '</p><button type="submit" id="shelve">Shelve</button></form>')
+    if state == "shelved":
+        out.append(f'<form class="act" method="post" action="{base}/unshelve">{csrf}'
+                   '<label>Note (optional) <input type="text" name="note" maxlength="1000">'
+                   '</label><button type="submit" id="unshelve">Unshelve</button></form>')
+    return "".join(out)
+
+
+def login_page(directory: SiteDirectory, next_url: str, error: str | None,
+               enabled: bool) -> str:
+    if not enabled:
+        body = ('<h2>Sign in</h2><p class="muted">No users are configured for this service '
+                "(web.users_file): the page is read-only.</p>")
+    else:
+        err = f'<p class="flash error">{h(error)}</p>' if error else ""
+        body = (f'<h2>Sign in</h2>{err}<form class="act" method="post" action="/login">'
+                f'<input type="hidden" name="next" value="{h(next_url)}">'
+                '<label>Name <input type="text" name="name" autocomplete="username" required>'
+                '</label><label>Password <input type="password" name="password" '
+                'autocomplete="current-password" required></label>'
+                '<button type="submit" id="sign-in">Sign in</button></form>')
+    return page("Sign in", body, directory, None)

@@ -1,0 +1,198 @@
+"""Who may sign in to the web page and API, and their sessions.
+
+The users file (YAML) lists each person with the audiences whose advisories they may act on
+and a password hash::
+
+    users:
+      - name: ana
+        audiences: [safety, facilities]
+        password_hash: "pbkdf2_sha256$600000$<salt, base64>$<hash, base64>"
+
+Hashes are PBKDF2-HMAC-SHA256 (RFC 8018, section 5.2) from :mod:`hashlib`; 600,000
+iterations is the figure OWASP's password storage guidance gives for it (2023).
+``thermowarden web-user NAME`` prints an entry. Sessions live in memory only (a restart
+signs everyone out) and end ``lifetime_s`` after sign-in or at sign-out.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import hmac
+import os
+import secrets
+import threading
+import time
+from collections import deque
+from dataclasses import dataclass, field
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+
+from thermowarden.config import ConfigError, _issues_from_validation, _read_yaml_file
+
+SCHEME = "pbkdf2_sha256"
+DEFAULT_ITERATIONS = 600_000
+MIN_ITERATIONS = 1_000
+FAILURES_ALLOWED = 5
+FAILURE_WINDOW_S = 300.0
+
+Audience = Literal["facilities", "safety", "integrator"]
+
+
+def hash_password(password: str, iterations: int = DEFAULT_ITERATIONS,
+                  salt: bytes | None = None) -> str:
+    """``pbkdf2_sha256$iterations$salt$hash`` (base64 without padding)."""
+    salt = salt if salt is not None else os.urandom(16)
+    digest = hashlib.pbkdf2_hmac("sha256", password.encode("utf-8"), salt, iterations)
+
+    def b64(b: bytes) -> str:
+        return base64.b64encode(b).decode("ascii").rstrip("=")
+
+    return f"{SCHEME}${iterations}${b64(salt)}${b64(digest)}"
+
+
+def _unb64(text: str) -> bytes:
+    return base64.b64decode(text + "=" * (-len(text) % 4), validate=True)
+
+
+def check_hash(encoded: str) -> tuple[int, bytes, bytes]:
+    """Parse a stored hash; raises ValueError naming what is wrong."""
+    parts = encoded.split("$")
+    if len(parts) != 4 or parts[0] != SCHEME:
+        raise ValueError(f"expected {SCHEME}$iterations$salt$hash")
+    try:
+        iterations = int(parts[1])
+        salt, digest = _unb64(parts[2]), _unb64(parts[3])
+    except ValueError:
+        raise ValueError("the iterations, salt or hash cannot be read") from None
+    if iterations < MIN_ITERATIONS:
+        raise ValueError(f"at least {MIN_ITERATIONS} iterations")
+    if len(salt) < 8 or len(digest) != 32:
+        raise ValueError("salt of at least 8 bytes and a 32-byte hash expected")
+    return iterations, salt, digest
+
+
+def verify_password(password: str, encoded: str) -> bool:
+    iterations, salt, digest = check_hash(encoded)
+    got = hashlib.pbkdf2_hmac("sha256", password.encode("utf-8"), salt, iterations)
+    return hmac.compare_digest(got, digest)
+
+
+class UserEntry(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    name: str = Field(min_length=1, max_length=100, pattern=r"^[^\s$][^$]*$")
+    audiences: list[Audience] = Field(min_length=1)
+    password_hash: str
+
+    @field_validator("password_hash")
+    @classmethod
+    def _hash(cls, v: str) -> str:
+        check_hash(v)
+        return v
+
+
+class UsersFile(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    users: list[UserEntry] = Field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class User:
+    name: str
+    audiences: frozenset[str]
+
+
+def load_users(path: str | os.PathLike[str]) -> dict[str, UserEntry]:
+    """Read the users file; a bad one raises :class:`ConfigError` with file and line."""
+    data, smap = _read_yaml_file(path)
+    try:
+        parsed = UsersFile.model_validate(data if data is not None else {})
+    except ValidationError as exc:
+        raise ConfigError(_issues_from_validation(exc, smap, {})) from None
+    out: dict[str, UserEntry] = {}
+    for u in parsed.users:
+        if u.name in out:
+            from thermowarden.config import ConfigIssue
+
+            raise ConfigError([ConfigIssue(None, f"{path}: user {u.name!r} appears twice")])
+        out[u.name] = u
+    return out
+
+
+@dataclass
+class Session:
+    token: str
+    user: User
+    expires: float
+    csrf: str
+    flash: list[str] = field(default_factory=list)
+
+
+class Sessions:
+    """Signed-in users (thread-safe). Times are monotonic seconds."""
+
+    def __init__(self, users: dict[str, UserEntry], lifetime_s: float) -> None:
+        self.users = users
+        self.dummy_iterations = max((check_hash(u.password_hash)[0] for u in users.values()),
+                                    default=DEFAULT_ITERATIONS)
+        self.lifetime_s = lifetime_s
+        self.now = time.monotonic
+        self.lock = threading.Lock()
+        self.sessions: dict[str, Session] = {}
+        self.failures: dict[str, deque[float]] = {}
+
+    def sign_in(self, name: str, password: str) -> Session | None:
+        """A new session, or None (unknown name, wrong password, or too many failures)."""
+        now = self.now()
+        with self.lock:
+            fails = self.failures.setdefault(name[:100], deque())
+            while fails and fails[0] < now - FAILURE_WINDOW_S:
+                fails.popleft()
+            if len(fails) >= FAILURES_ALLOWED:
+                return None
+        entry = self.users.get(name)
+        if entry is None:  # an unknown name costs about as much as a wrong password
+            hashlib.pbkdf2_hmac("sha256", password.encode("utf-8"), b"no such user",
+                                self.dummy_iterations)
+            ok = False
+        else:
+            ok = verify_password(password, entry.password_hash)
+        with self.lock:
+            if not ok or entry is None:
+                self.failures[name[:100]].append(now)
+                if len(self.failures) > 10_000:
+                    self.failures.clear()
+                return None
+            self._purge(now)
+            s = Session(secrets.token_urlsafe(32), User(entry.name, frozenset(entry.audiences)),
+                        now + self.lifetime_s, secrets.token_urlsafe(16))
+            self.sessions[s.token] = s
+            return s
+
+    def get(self, token: str | None) -> Session | None:
+        if not token:
+            return None
+        now = self.now()
+        with self.lock:
+            s = self.sessions.get(token)
+            if s is None:
+                return None
+            if now >= s.expires:
+                del self.sessions[token]
+                return None
+            return s
+
+    def sign_out(self, token: str | None) -> bool:
+        with self.lock:
+            return self.sessions.pop(token or "", None) is not None
+
+    def _purge(self, now: float) -> None:
+        for token in [t for t, s in self.sessions.items() if now >= s.expires]:
+            del self.sessions[token]
+
+    def remaining_s(self, s: Session) -> float:
+        return max(0.0, s.expires - self.now())
+
