@@ -258,8 +258,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
                 shown = _print_new(dv, shown, out)
             clock.anchor, clock.paused = clock.now(), True
             out.write(f"the day is over; the web page stays on http://127.0.0.1:{web_port}/ "
-                      "with the clock stopped until Ctrl-C
-")
+                      "with the clock stopped until Ctrl-C\n")
             out.flush()
             while True:
                 time.sleep(1.0)
