@@ -145,7 +145,9 @@ def test_broker_hang_then_kill_delivers_every_event_once(tmp_path):
         broker.stop()
     copies = log.by_id()
     during = [k for k, t in at.items() if hung <= t <= killed]
-    assert len(stored) >= 100 and len(during) >= 3, (len(stored), len(during))
+    # how many transitions a loaded machine evaluates in time varies (about 85-120 here):
+    # enough events to matter, some of them made while the broker was hung
+    assert len(stored) >= 40 and len(during) >= 3, (len(stored), len(during))
     assert set(copies) == stored  # nothing that was not stored, nothing stored missing
     for event_id, bodies in copies.items():
         # the same identity is never a different event: copies are identical
