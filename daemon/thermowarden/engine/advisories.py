@@ -118,6 +118,22 @@ class RuleRuntime:
         never reminds."""
         return self._renotify
 
+    def next_due(self) -> float:
+        """The earliest time (epoch s) at which a timer of this rule's lifecycle may fall
+        due in some space (on-delay, off-delay, shelving, de-escalation, re-notification);
+        until then, a step with the same conditions as the last one changes nothing."""
+        cfg = self.rule.config
+        live = self.state >= State.ACTIVE
+        times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
+        if live.any():
+            times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
+            times.append(self.lower_since + min(cfg.off_delay_s, DEESCALATE_HOLD_S))
+            if cfg.renotify_s:
+                times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
+                             + cfg.renotify_s)
+        due = np.fmin.reduce(times)
+        return float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+
 
 def build_rule_runtimes(config: SiteConfig, model: SiteModel,
                         packs: Mapping[str, CompiledPack]) -> list[RuleRuntime]:

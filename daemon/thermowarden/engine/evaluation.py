@@ -8,15 +8,22 @@ spaces (true / false / unknown); unknown never raises and never clears.
 from __future__ import annotations
 
 from collections import ChainMap
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from typing import Any, Final
 
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Truth
-from thermowarden.core.indices import IndexTable, compute_indices
+from thermowarden.core.indices import (
+    IndexTable,
+    SpaceInputs,
+    compute_indices,
+    relative_humidity_method,
+    select,
+    with_time_weighted_wbgt,
+)
 from thermowarden.core.radiation import SIDES
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.state import SiteState, Snapshot
@@ -42,10 +49,64 @@ class RuleTruths:
     acted_on: BoolArray | None
     """The acted-on condition (equipment in the state the advice asks for)."""
 
+    def rows(self, rows: slice) -> RuleTruths:
+        """The same truths for a slice of rows (one tick of a batch)."""
+        return RuleTruths(Truth(self.raise_.value[rows], self.raise_.known[rows]),
+                          Truth(self.clear.value[rows], self.clear.known[rows]),
+                          self.hold[rows], self.level[rows], self.lacking[rows],
+                          None if self.acted_on is None else self.acted_on[rows])
+
+
+
+def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
+    """The same inputs for a subset of rows."""
+    given: dict[str, object] = {}
+    for f in fields(s):
+        v = getattr(s, f.name)
+        if f.name == "n":
+            continue
+        if isinstance(v, np.ndarray):
+            given[f.name] = v[index]
+        elif isinstance(v, dict):
+            given[f.name] = {k: a[index] for k, a in v.items()}
+        elif isinstance(v, tuple):
+            given[f.name] = tuple(v[int(i)] for i in index)
+        else:
+            given[f.name] = v
+    return SpaceInputs.create(int(index.size), **given)
+
+
+def with_method(col: IndexColumn, method: str) -> IndexColumn:
+    return IndexColumn(col.values, col.codes, col.reasons, col.unit, method, col.labels)
+
+
+def concat_columns(parts: list[IndexColumn]) -> IndexColumn:
+    """One column from columns of the same index computed in separate calls (their reason
+    tables differ: codes are mapped onto one table)."""
+    reasons: list[str] = list(parts[0].reasons)
+    codes = []
+    for col in parts:
+        for r in col.reasons:
+            if r not in reasons:
+                reasons.append(r)
+        remap = np.array([reasons.index(r) for r in col.reasons], dtype=np.int16)
+        codes.append(remap[col.codes])
+    first = parts[0]
+    return IndexColumn(np.concatenate([c.values for c in parts]), np.concatenate(codes),
+                       tuple(reasons), first.unit, first.method, first.labels)
+
+
+def _input_matrix(s: SpaceInputs) -> FloatArray:
+    """Every per-row input that indices depend on (the time-weighted WBGT excepted: it is
+    applied afterwards), one column each."""
+    cols = [getattr(s, f.name) for f in fields(s)
+            if f.name != "wbgt_time_weighted" and isinstance(getattr(s, f.name), np.ndarray)]
+    cols += [s.plane_radiant[k] for k in sorted(s.plane_radiant)]
+    return np.column_stack([c.astype(np.float64) for c in cols])
 
 
 class Evaluation:
-    """Computes indices and the rules' environment for one site at each tick."""
+    """Computes indices and the rules' environment for one site, for one or many ticks."""
 
     def __init__(self, state: SiteState, health: PointHealth) -> None:
         self.state = state
@@ -53,27 +114,121 @@ class Evaluation:
         self.n = state.model.n_spaces
         self.last_phs = -np.inf
         self.phs_columns: IndexTable = {}
+        self._last_inputs: FloatArray | None = None
+        self._last_table: IndexTable | None = None
+        self.computed_rows = 0
+        """Rows (space x tick) whose indices were computed (the others were unchanged)."""
 
-    def indices(self, snap: Snapshot, now: float) -> IndexTable:
-        """Every index of every space at ``now``; PHS columns are carried between their
-        five-minutely refreshes. Records the WBGT into the 60-minute windows."""
-        phs_due = bool(snap.inputs.hot_work.any()) and now - self.last_phs >= PHS_EVERY_S
-        table = compute_indices(snap.inputs, with_phs=phs_due)
-        if phs_due:
-            self.last_phs = now
-            self.phs_columns = {k: v for k, v in table.items() if k.startswith("phs_")}
+    def _changed_only(self, s: SpaceInputs) -> IndexTable:
+        """Indices of every row, computed only for the rows whose inputs differ from the
+        same space's previous row (the previous evaluation's for the first tick)."""
+        n = self.n
+        rows = s.n
+        k = rows // n
+        m = _input_matrix(s)
+        prev = self._last_inputs
+        have_prev = (prev is not None and prev.shape[1] == m.shape[1]
+                     and self._last_table is not None)
+        before = np.concatenate([prev, m[:-n]]) if have_prev and prev is not None else None
+        if before is None:
+            same = np.zeros(rows, dtype=bool)
+            if k > 1:
+                a, b = m[n:], m[:-n]
+                same[n:] = ((a == b) | (np.isnan(a) & np.isnan(b))).all(axis=1)
         else:
-            table.update(self.phs_columns)
-        self.state.record_wbgt(now, table["wbgt"].values)
+            same = ((m == before) | (np.isnan(m) & np.isnan(before))).all(axis=1)
+        self._last_inputs = m[-n:]
+        if not same.any():
+            table = compute_indices(s, with_phs=False)
+            self.computed_rows += rows
+        else:
+            grid = np.where(same, -1, np.arange(rows)).reshape(k, n)
+            src = np.maximum.accumulate(grid, axis=0).ravel()  # -1: the previous evaluation
+            todo = np.flatnonzero(~same)
+            self.computed_rows += int(todo.size)
+            parts: list[IndexTable] = []
+            offset = 0
+            if before is not None and self._last_table is not None and (src < 0).any():
+                parts.append(self._last_table)
+                offset = n
+            if todo.size:
+                parts.append(compute_indices(rows_of(s, todo), with_phs=False))
+            pos = np.where(src >= 0, offset + np.searchsorted(todo, np.maximum(src, 0)),
+                           np.tile(np.arange(n), k))
+            if len(parts) == 1:
+                table = select(parts[0], pos)
+            else:
+                table = {name: concat_columns([p[name] for p in parts]).take(pos)
+                         for name in parts[-1]}
+        self._last_table = select(table, np.arange(rows - n, rows))
         return table
 
-    def environment(self, snap: Snapshot, table: IndexTable, now: float, start: float,
-                    rules_unknown_long: FloatArray) -> dict[str, Any]:
+    def indices(self, snap: Snapshot) -> IndexTable:
+        """Every index of every row (space x tick) of ``snap``. ISO 7933 PHS is refreshed
+        every ``PHS_EVERY_S`` and carried between refreshes; the time-weighted WBGT of each
+        tick comes from the spot WBGT recorded at the ticks before it (60-minute windows)."""
+        s = snap.inputs
+        n = self.n
+        k = snap.k
+        times = snap.times.tolist()
+        table = self._changed_only(s)
+        due: list[int] = []
+        if bool(s.hot_work[:n].any()):
+            for j, t in enumerate(times):
+                if t - self.last_phs >= PHS_EVERY_S:
+                    due.append(j)
+                    self.last_phs = t
+        if due:
+            rows = np.concatenate([np.arange(j * n, (j + 1) * n) for j in due])
+            fresh = compute_indices(rows_of(s, rows), with_phs=True)
+            refreshed = {name: col for name, col in fresh.items() if name.startswith("phs_")}
+        else:
+            refreshed = {}
+        if refreshed or self.phs_columns:
+            # row (tick j, space i) takes the latest refresh at or before tick j
+            last_due = np.full(k, -1)
+            for d, j in enumerate(due):
+                last_due[j] = d
+            last_due = np.maximum.accumulate(last_due)
+            space = np.tile(np.arange(n), k)
+            tick_due = np.repeat(last_due, n)
+            pos = np.where(tick_due >= 0, n + tick_due * n + space, space)
+            names = refreshed.keys() if refreshed else self.phs_columns.keys()
+            for name in names:
+                before = self.phs_columns.get(name, table[name].take(np.arange(n)))
+                parts = [before] + ([refreshed[name]] if refreshed else [])
+                table[name] = concat_columns(parts).take(pos)
+            self.phs_columns = {name: table[name].take(np.arange((k - 1) * n, k * n))
+                                for name in names}
+        wbgt = table["wbgt"].values
+        twa = np.empty(k * n)
+        for j, t in enumerate(times):
+            twa[j * n:(j + 1) * n] = self.state.wbgt_time_weighted(t)
+            self.state.record_wbgt(t, wbgt[j * n:(j + 1) * n])
+        with_time_weighted_wbgt(table, twa, s.clothing_adjustment_k)
+        if k == 1:
+            table["relative_humidity"] = with_method(table["relative_humidity"],
+                                                     relative_humidity_method(
+                                                         np.isfinite(s.relative_humidity)))
+        return table
+
+    @staticmethod
+    def tick_rows(table: IndexTable, s: SpaceInputs, rows: slice) -> IndexTable:
+        """One tick's rows of a batch's table, described as that tick alone would be (the
+        relative humidity's method names how the spaces of that tick got it)."""
+        out = {name: IndexColumn(c.values[rows], c.codes[rows], c.reasons, c.unit, c.method,
+                                 c.labels) for name, c in table.items()}
+        out["relative_humidity"] = with_method(out["relative_humidity"],
+                                               relative_humidity_method(
+                                                   np.isfinite(s.relative_humidity[rows])))
+        return out
+
+    def environment(self, snap: Snapshot, table: IndexTable, start: float) -> dict[str, Any]:
         """Name -> array over spaces: every index, the measured inputs, states, occupancy,
         the space's kind and the point-health columns; ``_present`` maps each quantity to
         whether the space has a fresh reading of it."""
         s = snap.inputs
-        n = self.n
+        n = s.n
         env: dict[str, Any] = {name: col.values for name, col in table.items()}
         env.update({
             "air_temperature": s.air_temperature, "relative_humidity": table[
@@ -84,9 +239,9 @@ class Evaluation:
             "psychrometric_wet_bulb": s.psychrometric_wet_bulb,
             "floor_temperature": s.floor_temperature,
             "surface_temperature": s.surface_temperature_min,
-            "outdoor_air_temperature": np.full(n, snap.outdoor["outdoor_air_temperature"]),
-            "solar_irradiance": np.full(n, snap.outdoor["solar_irradiance"]),
-            "wind_speed": np.full(n, snap.outdoor["wind_speed"]),
+            "outdoor_air_temperature": np.repeat(snap.outdoor["outdoor_air_temperature"], self.n),
+            "solar_irradiance": np.repeat(snap.outdoor["solar_irradiance"], self.n),
+            "wind_speed": np.repeat(snap.outdoor["wind_speed"], self.n),
             "met": s.met, "clo": s.clo, "target_pmv": s.target_pmv,
             "occupied": snap.occupied, "hot_work": s.hot_work, "indoor": s.indoor,
             "outdoor": ~s.indoor, "naturally_ventilated": s.naturally_ventilated,
@@ -96,8 +251,8 @@ class Evaluation:
         for side in SIDES:
             env[f"plane_radiant_temperature_{side}"] = s.plane_radiant.get(side, nan)
         env.update(snap.states)
-        env.update(self.health.columns(snap, now, start))
-        env["rules_unknown_long"] = rules_unknown_long
+        env.update(self.health.columns(snap, start))
+        env["rules_unknown_long"] = np.full(n, np.nan)  # set once the other rules are known
         env["_present"] = snap.present
         return env
 
