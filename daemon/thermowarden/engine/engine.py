@@ -21,7 +21,7 @@ from typing import Any, Final
 import numpy as np
 
 from thermowarden.config import SiteConfig
-from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
+from thermowarden.core.columns import FloatArray, IndexColumn
 from thermowarden.core.indices import IndexTable
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.advisories import UNKNOWN_LONG_S, Advisories, Advisory, RuleRuntime
@@ -132,7 +132,7 @@ class Engine:
                     unknown_long += (snap.times[:, None] - before >= UNKNOWN_LONG_S).ravel()
                 flips = np.concatenate([u[:1] != np.isfinite(rt.unknown_since)[None, :],
                                         u[1:] != u[:-1]]).any(axis=1)
-                hits: BoolArray = truths.raise_.true.reshape(k, n).any(axis=1) | flips
+                hits = np.asarray(truths.raise_.true.reshape(k, n).any(axis=1) | flips)
                 anything = [bool(x) for x in hits]
                 evaluated.append((rt, truths, anything, _repeats(truths, k, n)))
         evaluated.sort(key=lambda e: book.rules.index(e[0]))
