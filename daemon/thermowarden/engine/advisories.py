@@ -18,8 +18,7 @@ from typing import Any, Final
 import numpy as np
 
 from thermowarden.config import AUDIENCES, PRIORITIES, SiteConfig
-from thermowarden.core.columns import BoolArray, FloatArray
-from thermowarden.core.indices import IndexTable
+from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.evaluation import RuleTruths
@@ -170,7 +169,7 @@ class _Context:
     """The evaluation in progress, for rendering texts with the numbers of the moment."""
 
     base: Mapping[str, Any]
-    table: IndexTable | None
+    table: Mapping[str, IndexColumn] | None
     details: Callable[[int], dict[str, object]] = _no_details
     """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
 
@@ -224,7 +223,7 @@ class Advisories:
             parts.append(f"{rt.rule.key} ({', '.join(names) or 'inputs out of range'})")
         return "; ".join(parts)
 
-    def begin(self, base: Mapping[str, Any], table: IndexTable | None,
+    def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
               details: Callable[[int], dict[str, object]] = _no_details) -> None:
         """Start an evaluation: texts rendered from now on use these values."""
         self._ctx = _Context(base, table, details)

@@ -8,6 +8,7 @@ spaces (true / false / unknown); unknown never raises and never clears.
 from __future__ import annotations
 
 from collections import ChainMap
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, fields
 from typing import Any, Final
 
@@ -213,15 +214,12 @@ class Evaluation:
         return table
 
     @staticmethod
-    def tick_rows(table: IndexTable, s: SpaceInputs, rows: slice) -> IndexTable:
-        """One tick's rows of a batch's table, described as that tick alone would be (the
-        relative humidity's method names how the spaces of that tick got it)."""
-        out = {name: IndexColumn(c.values[rows], c.codes[rows], c.reasons, c.unit, c.method,
-                                 c.labels) for name, c in table.items()}
-        out["relative_humidity"] = with_method(out["relative_humidity"],
-                                               relative_humidity_method(
-                                                   np.isfinite(s.relative_humidity[rows])))
-        return out
+    def tick_rows(table: IndexTable, s: SpaceInputs, rows: slice) -> Mapping[str, IndexColumn]:
+        """One tick's rows of a batch's table (sliced when read), described as that tick
+        alone would be: the relative humidity's method names how that tick's spaces got it."""
+        return TickRows(table, rows, relative_humidity_method(
+            np.isfinite(s.relative_humidity[rows])))
+
 
     def environment(self, snap: Snapshot, table: IndexTable, start: float) -> dict[str, Any]:
         """Name -> array over spaces: every index, the measured inputs, states, occupancy,
@@ -255,6 +253,27 @@ class Evaluation:
         env["rules_unknown_long"] = np.full(n, np.nan)  # set once the other rules are known
         env["_present"] = snap.present
         return env
+
+
+class TickRows(Mapping[str, IndexColumn]):
+    """See :meth:`Evaluation.tick_rows`."""
+
+    def __init__(self, table: IndexTable, rows: slice, rh_method: str) -> None:
+        self._table = table
+        self._rows = rows
+        self._rh_method = rh_method
+
+    def __getitem__(self, name: str) -> IndexColumn:
+        c = self._table[name]
+        return IndexColumn(c.values[self._rows], c.codes[self._rows], c.reasons, c.unit,
+                           self._rh_method if name == "relative_humidity" else c.method,
+                           c.labels)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._table)
+
+    def __len__(self) -> int:
+        return len(self._table)
 
 
 def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArray,

@@ -48,10 +48,10 @@ class Capture:
     """Latest value per point (NaN if never seen)."""
     times: FloatArray
     """Receive time of that value per point (epoch s)."""
-    air_mean: FloatArray
-    """Windowed mean air speed per point of the ``air_speed`` slot (m/s)."""
-    air_tu: FloatArray
-    """Turbulence intensity per point of the ``air_speed`` slot (%)."""
+    ring_t: FloatArray
+    """(points of the ``air_speed`` slot, ring length): receive times of recent readings."""
+    ring_v: FloatArray
+    """The same readings' values (m/s); both shared between captures while unchanged."""
 
 
 @dataclass(frozen=True)
@@ -121,6 +121,9 @@ class SiteState:
         self.ring_v = np.full((self._ring_cap, self.ring_len), np.nan)
         self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
         self._ring_rows = 0
+        self._ring_writes = 0
+        self._ring_copy: tuple[int, int, FloatArray, FloatArray] = (-1, -1, np.empty((0, 0)),
+                                                                    np.empty((0, 0)))
         self.n_points = 0
         for pid in range(len(model.points)):
             self._on_new_point(pid)
@@ -196,6 +199,7 @@ class SiteState:
             self.ring_t[row, h] = t
             self.ring_v[row, h] = value
             self.ring_head[row] = (h + 1) % self.ring_len
+            self._ring_writes += 1
 
     # ------------------------------------------------------------------ context
     def _build_context(self) -> dict[str, object]:
@@ -319,21 +323,21 @@ class SiteState:
         result: FloatArray = np.where(np.isfinite(out), out, np.nan)
         return result
 
-    def _air_speed_window(self, now: float, pids: IntArray) -> tuple[FloatArray, FloatArray]:
-        """Mean air speed over the window and turbulence intensity (%) per point.
+    def _air_speed_window(self, times: FloatArray, t: FloatArray, v: FloatArray
+                          ) -> tuple[FloatArray, FloatArray]:
+        """Mean air speed over the window and turbulence intensity (%) per (time, point),
+        from ring buffers ``t``, ``v`` of shape (K, points, ring length).
 
         ISO 7726:1998: the mean over the measuring period (3 min suggested) and the
         turbulence intensity = 100 x standard deviation / mean.
         """
-        rows = self.ring_row[pids]
-        t = self.ring_t[rows]
-        v = self.ring_v[rows]
+        now = times[:, None, None]
         inside = np.isfinite(t) & (t >= now - self.ingest_cfg.air_speed_window_s) & (t <= now)
-        cnt = inside.sum(axis=1)
-        s = np.where(inside, v, 0.0).sum(axis=1)
+        cnt = inside.sum(axis=2)
+        s = np.where(inside, v, 0.0).sum(axis=2)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(cnt > 0, s / cnt, np.nan)
-            var = np.where(inside, (v - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(
+            var = np.where(inside, (v - mean[:, :, None]) ** 2, 0.0).sum(axis=2) / np.maximum(
                 cnt - 1, 1)
             tu = np.where((cnt >= 3) & (mean > 0.05), 100.0 * np.sqrt(var) / mean, np.nan)
         return mean, tu
@@ -390,11 +394,15 @@ class SiteState:
             self._build_slots()
         p = self.n_points
         slot = self._slots.get("air_speed")
-        if slot is not None:
-            mean_v, tu = self._air_speed_window(now, slot.pids)
-        else:
-            mean_v = tu = np.empty(0)
-        return Capture(now, self.last_value[:p].copy(), self.last_time[:p].copy(), mean_v, tu)
+        version = (self._ring_writes, self._slots_version)
+        if self._ring_copy[:2] != version:
+            if slot is not None:
+                rows = self.ring_row[slot.pids]
+                self._ring_copy = (*version, self.ring_t[rows], self.ring_v[rows])
+            else:
+                self._ring_copy = (*version, np.empty((0, 0)), np.empty((0, 0)))
+        return Capture(now, self.last_value[:p].copy(), self.last_time[:p].copy(),
+                       self._ring_copy[2], self._ring_copy[3])
 
     def snapshot(self, now: float) -> Snapshot:
         """All spaces at ``now``: index inputs (stale -> NaN), states, freshness."""
@@ -466,10 +474,14 @@ class SiteState:
         if slot is not None:
             point_vals = np.full((k, npts), np.nan)
             point_tu = np.full((k, npts), np.nan)
-            for j, c in enumerate(caps):
-                if c.air_mean.size == slot.pids.size:
-                    point_vals[j, slot.pids] = c.air_mean
-                    point_tu[j, slot.pids] = c.air_tu
+            usable = np.array([j for j, c in enumerate(caps)
+                               if c.ring_t.shape[0] == slot.pids.size], dtype=np.int64)
+            if usable.size:
+                mean_v, tu = self._air_speed_window(
+                    times[usable], np.stack([caps[j].ring_t for j in usable.tolist()]),
+                    np.stack([caps[j].ring_v for j in usable.tolist()]))
+                point_vals[np.ix_(usable, slot.pids)] = mean_v
+                point_tu[np.ix_(usable, slot.pids)] = tu
             speed, spread["air_speed"] = self._combine(slot, point_vals, fresh, n)
             turbulence, _ = self._combine(slot, point_tu, fresh, n)
         measured_tu = got.get("turbulence_intensity", nan_rows)
