@@ -12,8 +12,8 @@ import sys
 import pytest
 
 from tests.conftest import REPO
-from thermowarden.config import load_site
 from thermowarden.conditions_file import ConditionsFileError, ConditionsWriter
+from thermowarden.config import load_site
 from thermowarden.replay import (
     SettingError,
     compare,
