@@ -17,6 +17,7 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
 - rules_10k_ms: rule evaluation and lifecycle for 10,000 spaces with the default packs, one
   steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
   (messages rendered for every space that crosses a threshold).
+- replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio: see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
 """
 
@@ -261,11 +262,15 @@ def main() -> int:
     parser.add_argument("--no-broker", action="store_true",
                         help="skip the end-to-end figures (they need mosquitto)")
     args = parser.parse_args()
-    figures: dict[str, float] = {}
+    figures: dict[str, float | str | None] = {}
     figures.update(bench_indices(args.quick))
     figures.update(bench_ingest(args.quick))
     figures.update(bench_memory())
     figures.update(bench_rules(args.quick))
+    from replay_bench import bench_replay_day, bench_replay_site
+
+    figures.update(bench_replay_day())
+    figures.update(bench_replay_site(args.quick))
     if not args.no_broker:
         from e2e import bench_e2e
 
