@@ -25,8 +25,8 @@ from thermowarden.engine.state import Capture
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.site_model import build_site_model
 
-MAX_BATCH_TICKS = 360
-"""Ticks evaluated together in replay (an hour at 10 s ticks)."""
+MAX_BATCH_TICKS = 2160
+"""Ticks evaluated together in replay (six hours at 10 s ticks)."""
 BATCH_ROWS = 40_000
 """At most this many (space x tick) rows per batch."""
 
