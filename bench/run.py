@@ -231,7 +231,8 @@ def bench_rules(quick: bool) -> dict[str, float]:
     table = compute_indices(spaces, with_phs=False)
     snap = engine.state.snapshot(0.0)
     book = engine.advisories
-    env = engine.evaluation.environment(snap, table, 0.0, 0.0, book.unknown_long(0.0))
+    env = engine.evaluation.environment(snap, table, 0.0)
+    env["rules_unknown_long"] = book.unknown_long(0.0)
     for k in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb"):
         env[k] = getattr(spaces, k)
     env["relative_humidity"] = spaces.relative_humidity
