@@ -9,6 +9,13 @@ The data's path, one module per step::
 
 It does no I/O and reads no clock, so a whole day of a site replays in a test. One thread
 only: the service's engine thread, or the replay loop.
+
+One code path for both: a tick captures the points' state (:meth:`Engine.capture`) and
+:meth:`Engine.tick_many` evaluates captured ticks as K x N rows. The service evaluates one
+tick at a time; replay captures hours of ticks and evaluates them together, the lifecycle
+stepping through them in order. Indices are computed only for rows whose inputs changed; a
+(space, rule) is visited only where its condition holds, its advisory is pending or live
+and its conditions changed or a timer fell due, or an input it needs went or came back.
 """
 
 from __future__ import annotations
