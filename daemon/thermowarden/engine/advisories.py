@@ -119,17 +119,21 @@ class RuleRuntime:
 
     def next_due(self) -> float:
         """The earliest time (epoch s) at which a timer of this rule's lifecycle may fall
-        due in some space (on-delay, off-delay, shelving, de-escalation, re-notification);
-        until then, a step with the same conditions as the last one changes nothing."""
+        due in some space (on-delay, off-delay, shelving, de-escalation, re-notification,
+        following the effect of advice acted on); until then, a step with the same
+        conditions as the last one changes nothing."""
         cfg = self.rule.config
         live = self.state >= State.ACTIVE
+        if any(adv.acted_on is not None for adv in self.advisories.values()):
+            return -math.inf  # effect checks and the overdue notice: every evaluation
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
         if live.any():
             times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
             times.append(self.lower_since + min(cfg.off_delay_s, DEESCALATE_HOLD_S))
-            if cfg.renotify_s:
+            intervals = self.renotify_intervals()
+            if intervals is not None:
                 times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
-                             + cfg.renotify_s)
+                             + intervals[self.level])
         due = np.fmin.reduce(times)
         return float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
 

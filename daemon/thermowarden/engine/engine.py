@@ -38,7 +38,7 @@ from thermowarden.engine.ingest import IMPLAUSIBLE, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
 from thermowarden.engine.state import Capture, SiteState, Snapshot
 from thermowarden.engine.texts import Texts
-from thermowarden.rules import CompiledPack
+from thermowarden.rules import CompiledPack, CompiledRule
 from thermowarden.site_model import SITE, SiteModel
 
 SAMPLE_EVERY_S: Final = 300.0
@@ -124,6 +124,8 @@ class Engine:
         unknown_long = np.zeros(k * n)
         for group in (others, health):
             if group is health:
+                if k == 1:  # exact: the count depends on the lifecycle too
+                    unknown_long = book.unknown_long(float(snap.times[0]))
                 env["rules_unknown_long"] = unknown_long
             for rt in group:
                 if not rt.mask.any() and not rt.advisories:
@@ -143,6 +145,7 @@ class Engine:
                 anything = [bool(x) for x in hits]
                 evaluated.append((rt, truths, anything, _repeats(truths, k, n)))
         evaluated.sort(key=lambda e: book.rules.index(e[0]))
+        readers = [e for e in evaluated if "rules_unknown_long" in _reads(e[0].rule)]
         effects: list[Effect] = []
         sample_due = self.sample_every_s > 0
         due = {id(rt): -math.inf for rt, *_ in evaluated}
@@ -152,6 +155,20 @@ class Engine:
                                        {"newest_first": snap.days_rolled[j]}))
             rows = slice(j * n, (j + 1) * n)
             begun = False
+            if readers and k > 1:
+                # the unknown-for-long count depends on the lifecycle (a live advisory whose
+                # clear condition is unknown): where the estimate was wrong, re-evaluate
+                exact = book.unknown_long(now)
+                if not np.array_equal(exact, unknown_long[rows]):
+                    unknown_long[rows] = exact
+                    view_j = RowView(env, rows)
+                    for rt, truths, anything, repeats in readers:
+                        _patch_rows(truths, rule_truths(rt.rule, rt.params, rt.mask, dict(view_j), n),
+                                    rows)
+                        anything[j] = True
+                        repeats[j] = False
+                        if j + 1 < k:
+                            repeats[j + 1] = False
             for rt, truths, anything, repeats in evaluated:
                 if not rt.state.any():
                     if not anything[j]:
@@ -241,6 +258,26 @@ class Engine:
         for adv in self.live_advisories():
             out[(adv.rule, adv.priority)] = out.get((adv.rule, adv.priority), 0) + 1
         return out
+
+
+def _reads(rule: CompiledRule) -> set[str]:
+    """Every name a rule's conditions read."""
+    exprs = [e for _, e in rule.levels] + [e for e in (rule.condition, rule.clear,
+                                                        rule.hold_back, rule.acted_on) if e]
+    return {name for e in exprs for name in e.names}
+
+
+def _patch_rows(truths: RuleTruths, one: RuleTruths, rows: slice) -> None:
+    """Write one tick's re-evaluated truths into the batch's rows."""
+    truths.raise_.value[rows] = one.raise_.value
+    truths.raise_.known[rows] = one.raise_.known
+    truths.clear.value[rows] = one.clear.value
+    truths.clear.known[rows] = one.clear.known
+    truths.hold[rows] = one.hold
+    truths.level[rows] = one.level
+    truths.lacking[rows] = one.lacking
+    if truths.acted_on is not None and one.acted_on is not None:
+        truths.acted_on[rows] = one.acted_on
 
 
 def _repeats(truths: RuleTruths, k: int, n: int) -> list[bool]:
