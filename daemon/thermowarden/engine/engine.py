@@ -161,10 +161,10 @@ class Engine:
                 exact = book.unknown_long(now)
                 if not np.array_equal(exact, unknown_long[rows]):
                     unknown_long[rows] = exact
-                    view_j = RowView(env, rows)
+                    view_j = dict(RowView(env, rows))
                     for rt, truths, anything, repeats in readers:
-                        _patch_rows(truths, rule_truths(rt.rule, rt.params, rt.mask, dict(view_j), n),
-                                    rows)
+                        one = rule_truths(rt.rule, rt.params, rt.mask, view_j, n)
+                        _patch_rows(truths, one, rows)
                         anything[j] = True
                         repeats[j] = False
                         if j + 1 < k:
