@@ -155,9 +155,10 @@ class Engine:
                                        {"newest_first": snap.days_rolled[j]}))
             rows = slice(j * n, (j + 1) * n)
             begun = False
-            if readers and k > 1:
+            if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
-                # clear condition is unknown): where the estimate was wrong, re-evaluate
+                # clear condition is unknown; exact without one): where the estimate was
+                # wrong, re-evaluate the rules that read it
                 exact = book.unknown_long(now)
                 if not np.array_equal(exact, unknown_long[rows]):
                     unknown_long[rows] = exact
