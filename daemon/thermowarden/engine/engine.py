@@ -154,7 +154,11 @@ class Engine:
                 effects.append(Persist("daily_means", "outdoor",
                                        {"newest_first": snap.days_rolled[j]}))
             rows = slice(j * n, (j + 1) * n)
-            begun = False
+            # texts rendered in this tick (raises, reminders, refreshes) use its values
+            at_j = self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1 else table
+            self.health.at(j)
+            book.begin(RowView(env, rows) if k > 1 else env, at_j,
+                       functools.partial(self._text_fields, at_j, now))
             if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
                 # clear condition is unknown; exact without one): where the estimate was
@@ -176,13 +180,6 @@ class Engine:
                         continue
                 elif repeats[j] and now < due[id(rt)]:
                     continue  # same conditions as the tick before and no timer due
-                if not begun:
-                    at_j = (self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1
-                            else table)
-                    self.health.at(j)
-                    book.begin(RowView(env, rows) if k > 1 else env, at_j,
-                               functools.partial(self._text_fields, at_j, now))
-                    begun = True
                 book.step(rt, truths.rows(rows) if k > 1 else truths, now, effects)
                 due[id(rt)] = rt.next_due()
             book.flush_summaries(now, effects)
