@@ -19,6 +19,13 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   (messages rendered for every space that crosses a threshold).
 - replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio: see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
+- python_start_s: a bare ``python -c pass``, the baseline of the start-up figures below
+  (each the median wall time of a fresh ``python -m thermowarden.cli`` process):
+  cold_assess_s: the README's ``assess`` example with an empty numba cache (kernels
+  compiled); warm_assess_s: the same once cached; clone_assess_s: the same from a copy of
+  the package at another path, sharing the cache (a second checkout of the same version);
+  check_error_s: ``check`` of a site with a YAML syntax error (skipped with --no-cold:
+  cold_assess_s).
 """
 
 from __future__ import annotations
@@ -257,17 +264,134 @@ def bench_rules(quick: bool) -> dict[str, float]:
     return {"rules_10k_ms": round(steady * 1000, 1), "rules_10k_raise_ms": round(raise_s * 1000)}
 
 
+def bench_reload(quick: bool) -> dict[str, float]:
+    """Hot reload of a 10,000-space site with full windows and live advisories, unchanged:
+    the pause of the engine thread (carrying the state over and swapping) and the time to
+    load and build the new engine beside it, against building the engine alone (the
+    baseline a restart pays, before its windows start again from nothing)."""
+    from thermowarden.engine import Engine
+    from thermowarden.rules import builtin_pack_names, load_rule_packs
+    from thermowarden.shell.reloading import finish_reload, prepare_reload
+    from thermowarden.site_model import build_site_model
+
+    n = 10_000
+    packs = load_rule_packs(builtin_pack_names())
+    config = _site(n, builtin_pack_names())
+    t0 = time.perf_counter()
+    engine = Engine(config, build_site_model(config), packs, conditions_every_s=0, start=0.0)
+    build_s = time.perf_counter() - t0
+    start = 1_780_000_000.0
+    for topic, payload, t in _messages(n, n * 5 * (2 if quick else 6), start):
+        engine.ingest.ingest(topic, payload, t)
+    engine.tick(start + 120.0)
+    prepare, pause = [], []
+    for _ in range(1 if quick else 3):
+        t0 = time.perf_counter()
+        prepared = prepare_reload(engine, lambda: (config, packs))
+        t1 = time.perf_counter()
+        engine = finish_reload(engine, prepared).engine
+        pause.append(time.perf_counter() - t1)
+        prepare.append(t1 - t0)
+    return {"reload_10k_pause_ms": round(statistics.median(pause) * 1000),
+            "reload_pause_vs_build_ratio": round(statistics.median(pause) / build_s, 2),
+            "reload_prepare_vs_build_ratio": round(statistics.median(prepare) / build_s, 2)}
+
+
+def bench_trusted_ingest(quick: bool) -> dict[str, float]:
+    """Ingest with calibration, a plausible range and a rate limit on every point, against
+    the same messages on points without them."""
+    from thermowarden.engine.ingest import Ingestor
+    from thermowarden.engine.state import SiteState
+    from thermowarden.site_model import build_site_model
+
+    n = 1000
+    plain = _site(n, [])
+    trusted = plain.model_copy(update={"templates": [
+        t.model_copy(update={"offset": 0.1, "scale": 1.01, "max_change_per_min": 1000.0})
+        if t.quantity not in ("fan_state",) else t for t in plain.templates]})
+    msgs = _messages(n, 60_000 if quick else 200_000, 1_780_000_000.0)
+    rates = {}
+    for name, config in (("plain", plain), ("trusted", trusted)):
+        model = build_site_model(config)
+        ingest = Ingestor(model, SiteState(model))
+        for topic, payload, t in msgs[:n * 5]:
+            ingest.ingest(topic, payload, t)
+        body = msgs[n * 5:]
+        t0 = time.perf_counter()
+        for topic, payload, t in body:
+            ingest.ingest(topic, payload, t)
+        rates[name] = len(body) / (time.perf_counter() - t0)
+    return {"ingest_trusted_vs_plain_ratio": round(rates["trusted"] / rates["plain"], 3)}
+
+
+README_EXAMPLE = json.dumps({
+    "air_temperature": 31.2, "relative_humidity": 44, "globe_temperature": 34.6,
+    "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate", "clo": 0.6})
+
+
+def _wall(cmd: list[str], env: dict[str, str], stdin: str = "") -> float:
+    import subprocess
+
+    t0 = time.perf_counter()
+    subprocess.run(cmd, input=stdin, env=env, capture_output=True, text=True, timeout=900)
+    return time.perf_counter() - t0
+
+
+def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
+    """Start-up of the commands a new user runs first, each in a fresh process."""
+    import shutil
+    import tempfile
+
+    repeats = 3 if quick else 5
+    root = pathlib.Path(__file__).resolve().parent.parent
+    out: dict[str, float] = {}
+    with tempfile.TemporaryDirectory(prefix="tw-bench-") as tmp:
+        env = {**os.environ, "NUMBA_CACHE_DIR": str(pathlib.Path(tmp) / "numba"),
+               "PYTHONPATH": str(root / "daemon")}
+        assess = [sys.executable, "-m", "thermowarden.cli", "assess", "--format", "table"]
+        out["python_start_s"] = statistics.median(
+            _wall([sys.executable, "-c", "pass"], env) for _ in range(repeats))
+        if cold:
+            out["cold_assess_s"] = _wall(assess, env, README_EXAMPLE)
+        else:
+            _wall(assess, env, README_EXAMPLE)  # fill the cache
+        out["warm_assess_s"] = statistics.median(
+            _wall(assess, env, README_EXAMPLE) for _ in range(repeats))
+        clone = pathlib.Path(tmp) / "second-checkout" / "daemon"
+        shutil.copytree(root / "daemon" / "thermowarden", clone / "thermowarden",
+                        ignore=shutil.ignore_patterns("__pycache__"))
+        clone_env = {**env, "PYTHONPATH": str(clone)}
+        out["clone_assess_s"] = statistics.median(
+            _wall(assess, clone_env, README_EXAMPLE) for _ in range(repeats))
+        bad = pathlib.Path(tmp) / "site.yaml"
+        bad.write_text("site: {id: x\n  name: [\n", encoding="utf-8")
+        out["check_error_s"] = statistics.median(
+            _wall([sys.executable, "-m", "thermowarden.cli", "check", str(bad)], env)
+            for _ in range(repeats))
+    return out
+
+
 def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="fewer repeats (under a minute)")
     parser.add_argument("--no-broker", action="store_true",
                         help="skip the end-to-end figures (they need mosquitto)")
+    parser.add_argument("--no-cold", action="store_true",
+                        help="skip cold_assess_s (compiling the kernels takes a minute)")
+    parser.add_argument("--startup-only", action="store_true",
+                        help="only the start-up figures")
     args = parser.parse_args()
     figures: dict[str, float | str | None] = {}
+    figures.update(bench_startup(args.quick, not args.no_cold))
+    if args.startup_only:
+        print(json.dumps(figures))
+        return 0
     figures.update(bench_indices(args.quick))
     figures.update(bench_ingest(args.quick))
     figures.update(bench_memory())
     figures.update(bench_rules(args.quick))
+    figures.update(bench_reload(args.quick))
+    figures.update(bench_trusted_ingest(args.quick))
     from replay_bench import bench_replay_day, bench_replay_site
 
     figures.update(bench_replay_day())

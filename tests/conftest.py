@@ -9,6 +9,11 @@ import pytest
 import yaml
 
 DATA = pathlib.Path(__file__).parent / "data"
+
+COMMAND_LIMIT_S = 900.0
+"""Upper limit for one ``thermowarden`` command run by a test. Generous on purpose: a fresh
+clone compiles the comfort models on its first command (minutes on a loaded machine); the
+limit only stops a command that hangs, a test never waits for it to pass."""
 REPO = pathlib.Path(__file__).parent.parent
 
 

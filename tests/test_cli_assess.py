@@ -8,6 +8,8 @@ import sys
 
 import pytest
 
+from tests.conftest import COMMAND_LIMIT_S
+
 REQUIRED = ["operative_temperature", "mean_radiant_temperature", "radiant_asymmetry",
             "dew_point", "wet_bulb", "humidity_ratio", "relative_humidity", "pmv_iso", "ppd_iso",
             "pmv_ashrae", "ppd_ashrae", "set", "cooling_effect", "draught_rate", "wbgt",
@@ -20,7 +22,7 @@ REQUIRED = ["operative_temperature", "mean_radiant_temperature", "radiant_asymme
 def run(payload: object, *args: str) -> subprocess.CompletedProcess[str]:
     text = payload if isinstance(payload, str) else json.dumps(payload)
     return subprocess.run([sys.executable, "-m", "thermowarden.cli", "assess", *args],
-                          input=text, capture_output=True, text=True, timeout=120)
+                          input=text, capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
 
 
 def test_office_spot_check_json():
@@ -39,6 +41,30 @@ def test_office_spot_check_json():
     assert out["radiant_asymmetry"]["value"] == pytest.approx(6.0)
     assert out["pmv_iso"]["method"].startswith("ISO 7730:2005")
     assert "NaN" not in r.stdout
+
+
+def test_the_readme_example():
+    """The README's spot check, run as written there; WBGT by ISO 7243:2017 eq. (1)
+    (0.7 tnw + 0.3 tg) [std, calc] and the moderate-work reference values of
+    tests/data/published_values.yaml (work_class_references)."""
+    from tests.conftest import REPO, table
+
+    readme = (REPO / "README.md").read_text(encoding="utf-8")
+    example = readme.split("| thermowarden assess --format table")[0].rsplit("echo '", 1)[1]
+    payload = json.loads(example.rsplit("'", 1)[0])
+    r = run(payload)
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    wbgt = 0.7 * payload["natural_wet_bulb"] + 0.3 * payload["globe_temperature"]
+    assert out["wbgt"]["value"] == pytest.approx(wbgt, abs=0.01)
+    ref = next(row for row in table("work_class_references")
+               if row["work_class"] == payload["work_class"])
+    assert out["wbgt_reference_unacclimatised"]["value"] == pytest.approx(
+        ref["unacclimatised"], abs=0.01)
+    assert out["wbgt_margin_unacclimatised"]["value"] == pytest.approx(
+        ref["unacclimatised"] - wbgt, abs=0.02)
+    table_run = run(payload, "--format", "table")
+    assert table_run.returncode == 0, table_run.stderr
 
 
 def test_hot_work_with_units_and_table():
@@ -70,3 +96,79 @@ def test_bad_input_names_the_key(payload, key):
 def test_not_json():
     r = run("{air_temperature: 20")
     assert r.returncode != 0 and "not valid JSON" in r.stderr
+
+
+@pytest.mark.parametrize("text", ["", "   \n", "{air_temperature: 20", "[1, 2"])
+def test_empty_and_invalid_json_exit_2(text):
+    """The README's contract: bad input exits 2 with one line."""
+    r = run(text)
+    assert r.returncode == 2, r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+
+
+@pytest.mark.parametrize("pressure,units", [(101325, None), (1013.25, None), (101.325, None),
+                                            (1013.25, "hPa"), (101.325, "kPa")])
+def test_pressure_in_pa_hpa_or_kpa(pressure, units):
+    payload = {"air_temperature": 30, "relative_humidity": 70, "barometric_pressure": pressure}
+    if units:
+        payload["units"] = {"barometric_pressure": units}
+    r = run(payload)
+    assert r.returncode == 0, r.stderr
+    # psychrolib 2.5 (ASHRAE 2017 equations) [lib]: 30 °C, 70 % -> wet bulb 25.50 °C
+    assert json.loads(r.stdout)["wet_bulb"]["value"] == pytest.approx(25.50, abs=0.05)
+
+
+def test_impossible_pressure_says_what_is_expected():
+    r = run({"air_temperature": 30, "barometric_pressure": 5})
+    assert r.returncode == 2
+    assert "barometric_pressure" in r.stderr and "hPa" in r.stderr and "kPa" in r.stderr
+
+
+def test_psychrometer_pair_and_dry_air():
+    """A wet bulb far below the dry bulb is called too low, not "above dry bulb"; RH 0 %
+    still has a wet bulb."""
+    low = json.loads(run({"air_temperature": 30, "psychrometric_wet_bulb": 2}).stdout)
+    assert "too low" in low["relative_humidity"]["reason"]
+    dry = json.loads(run({"air_temperature": 30, "relative_humidity": 0}).stdout)
+    assert dry["wet_bulb"]["value"] is not None
+    assert dry["dew_point"]["value"] is None and dry["dew_point"]["reason"]
+
+
+def test_no_metabolic_rate_gives_no_heat_stress_reference():
+    r = run({"air_temperature": 30, "relative_humidity": 50, "globe_temperature": 32,
+             "natural_wet_bulb": 23, "hot_work": True, "clo": 0.6})
+    out = json.loads(r.stdout)
+    assert out["wbgt"]["value"] is not None
+    for key in ("wbgt_reference_acclimatised", "wbgt_margin_acclimatised", "metabolic_rate"):
+        assert out[key]["value"] is None and "metabolic rate" in out[key]["reason"]
+
+
+def test_table_for_a_person():
+    """At most 100 columns, a verdict first, one number of decimals per unit, humidex with
+    its reading scale."""
+    r = run({"air_temperature": 31.2, "relative_humidity": 44, "globe_temperature": 34.6,
+             "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate",
+             "clo": 0.6}, "--format", "table")
+    assert r.returncode == 0, r.stderr
+    lines = r.stdout.splitlines()
+    assert max(len(ln) for ln in lines) <= 100
+    # WBGT 0.7 x 22.8 + 0.3 x 34.6 = 26.34 (ISO 7243:2017 eq. 1); moderate work references
+    # 25.03 / 28.26 (tests/data/published_values.yaml, work_class_references)
+    assert lines[0].startswith("HEAT STRESS (unacclimatised): WBGT 26.3 °C vs reference "
+                               "25.0 °C (+1.3 K; acclimatised 28.3 °C)")
+    rows = {ln.split()[0]: ln.split()[1:3] for ln in lines[2:] if ln and not ln[0].isspace()}
+    assert rows["metabolic_rate"] == ["297", "W"]
+    assert rows["wbgt_margin_unacclimatised"] == ["-1.3", "K"]
+    assert rows["dew_point"][1] == "°C" and len(rows["dew_point"][0].split(".")[1]) == 1
+    outdoor = run({"air_temperature": 31.2, "relative_humidity": 44, "environment": "outdoor"},
+                  "--format", "table")
+    humidex = next(ln for ln in outdoor.stdout.splitlines() if ln.startswith("humidex "))
+    assert humidex.split()[2:4] == ["(°C", "equivalent)"]  # dimensionless, read as °C
+
+
+def test_a_margin_inside_instrument_accuracy_is_called_reached():
+    r = run({"air_temperature": 30, "relative_humidity": 50, "globe_temperature": 33.5,
+             "natural_wet_bulb": 21.4, "air_speed": 0.3, "work_class": "moderate"},
+            "--format", "table")
+    assert r.returncode == 0, r.stderr
+    assert "treat as reached" in r.stdout.split("\n\n")[0]

@@ -8,7 +8,9 @@ import json
 import subprocess
 import sys
 
-from tests.conftest import REPO
+import pytest
+
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.simulate import retime, scenario_records
 
 SITE = REPO / "deploy" / "example-site.yaml"
@@ -16,20 +18,47 @@ SITE = REPO / "deploy" / "example-site.yaml"
 
 def test_demo_runs_on_its_own_and_exits_zero():
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "demo", "--duration", "35",
-                        "--plain"], capture_output=True, text=True, timeout=240)
+                        "--plain"], capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr[-3000:]
     out = r.stdout
     assert "started an embedded MQTT broker" in out
     assert "demo summary" in out and "advisories raised:" in out
     assert " raised " in out  # events shown as they happen
     assert "occupational hygienist" in out
+    # every event counted in the summary was printed, the late ones too
+    raised_lines = [ln for ln in out.splitlines() if len(ln.split()) > 2
+                    and ln.split()[2] == "raised"]
+    counted = int(out.split("advisories raised: ")[1].split()[0])
+    assert len(raised_lines) == counted
+
+
+def test_demo_live_view_fits_80_columns_and_shows_the_newest_advice():
+    import datetime as dt
+    import io
+
+    from thermowarden.demo import DemoView
+
+    dv = DemoView("p", dt.UTC, width=80)
+    advisory = {"id": "a1", "space": {"id": "office-west"}, "audience": "facilities",
+                "priority": "medium", "title": "Lower the blinds on the west facade " * 3,
+                "advice": "Lower the west blinds to cut the radiant load by the window; "
+                          "the operative temperature should fall by about a degree. " * 2}
+    dv.events.append({"event": "raised", "at": "2026-07-15T13:00:00Z",
+                      "advisory": advisory})
+    dv.conditions["office-west"] = {"indices": {"operative_temperature": {"value": 27.3}}}
+    buf = io.StringIO()
+    dv.render(1_784_120_400.0, 1_784_073_600.0, 1_784_160_000.0, buf)
+    lines = buf.getvalue().replace("\x1b[H\x1b[2J", "").splitlines()
+    assert max(len(ln) for ln in lines) <= 80
+    assert any(ln.startswith("newest advice (office-west, facilities): Lower the west")
+               for ln in lines)
 
 
 def test_simulate_writes_a_replayable_feed(tmp_path):
     feed = tmp_path / "heatwave.jsonl.gz"
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "simulate", "--scenario",
                         "larkfield-heatwave", "--days", "2", "--output", str(feed)],
-                       capture_output=True, text=True, timeout=300)
+                       capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr
     with gzip.open(feed, "rt") as fh:
         lines = fh.readlines()
@@ -52,6 +81,18 @@ def test_retime_moves_embedded_timestamps():
     iso = {"time": "1970-01-01T00:16:40+00:00"}
     assert retime(iso, 1000.0, 1060.0)["time"].startswith("1970-01-01T00:17:40")
     assert retime("21.5", 1000.0, 2000.0) == "21.5"
+
+
+def test_retime_keeps_readings_apart_at_high_speed():
+    """At --speed 450, readings 60 s apart in the scenario are 0.13 s apart live: their
+    stamps (epoch seconds given as integers) must stay distinct, or the service rejects
+    the second one as a duplicate."""
+    wall = 1_790_000_000.2
+    a = retime({"ts": 1000}, 1000.0, wall)["ts"]
+    b = retime({"ts": 1060}, 1060.0, wall + 60 / 450)["ts"]
+    assert a != b and b - a == pytest.approx(60 / 450, abs=0.002)
+    ms = retime({"ts": 1_700_000_000_000}, 1_700_000_000.0, wall)["ts"]
+    assert isinstance(ms, int | float) and abs(ms / 1000 - wall) < 0.002
 
 
 def test_service_writes_a_daily_report(tmp_path):

@@ -14,7 +14,7 @@ import sys
 import numpy as np
 import pytest
 
-from tests.conftest import REPO
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.config import load_site
 from thermowarden.replay import read_feed, replay
 from thermowarden.report import build_report, render_html
@@ -94,7 +94,7 @@ def test_report_cli_from_feed(tmp_path):
     out = tmp_path / "report.html"
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "report", "--config",
                         str(SITE), "--feed", str(FEED), "--output", str(out)],
-                       capture_output=True, text=True, timeout=300)
+                       capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr
     assert out.stat().st_size > 50_000
 

@@ -9,14 +9,14 @@ import textwrap
 
 import pytest
 
-from tests.conftest import REPO
+from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.config import load_rule_pack_file
 from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_packs
 
 
 def test_every_rule_file_in_the_repo_loads():
     files = sorted((REPO / "rules").glob("*.yaml"))
-    assert len(files) == 8
+    assert len(files) == 9
     assert [f.stem for f in files] == builtin_pack_names()
     packs = load_rule_packs(builtin_pack_names())
     for f in files:
@@ -86,7 +86,7 @@ def test_unknown_pack_lists_builtins():
 
 def run_check(path):
     return subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(path)],
-                          capture_output=True, text=True, timeout=120)
+                          capture_output=True, text=True, timeout=COMMAND_LIMIT_S)
 
 
 def test_check_cli_valid_example_prints_map():
@@ -95,8 +95,67 @@ def test_check_cli_valid_example_prints_map():
     assert "space bakery-floor (indoor, hot work)" in r.stdout
     assert "larkfield/bakery-floor/senml" in r.stdout
     assert "valid (5 spaces" in r.stderr
-    assert "warning: space studio-north: rule humidity.condensation_risk needs " \
-           "surface_temperature" in r.stderr
+    assert "0 warning(s)" in r.stderr  # the complete example gives no warnings of its own
+    assert "warning:" not in r.stderr
+
+
+def test_check_names_a_misspelt_pack_with_position_and_suggestion(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: UTC}
+        defaults: {rule_packs: [comfrot]}
+        templates:
+          - {topic: "b/{space}/t", quantity: air_temperature}
+        spaces:
+          - id: a
+            rule_packs: [comfort, humdity]
+          - id: b
+            rule_packs: [comfort]
+        """))
+    r = run_check(site)
+    assert r.returncode == 1
+    # defaults.rule_packs is checked although every space names its own packs
+    assert (f"{site}:2:25: defaults.rule_packs.0: unknown rule pack 'comfrot'; did you mean "
+            "'comfort'?") in r.stderr
+    assert (f"{site}:7:27: spaces.0.rule_packs.1: unknown rule pack 'humdity'; did you mean "
+            "'humidity'?") in r.stderr
+
+
+def test_check_groups_identical_warnings(tmp_path):
+    site = tmp_path / "site.yaml"
+    spaces = "".join(f"  - id: s{i:04d}\n" for i in range(300))
+    site.write_text("site: {id: s, timezone: UTC}\ndefaults: {rule_packs: [humidity]}\n"
+                    "templates:\n  - {topic: \"b/{space}/t\", quantity: air_temperature}\n"
+                    "spaces:\n" + spaces)
+    r = run_check(site)
+    assert r.returncode == 0, r.stderr
+    warnings = [ln for ln in r.stderr.splitlines() if ln.startswith("warning:")]
+    assert len(warnings) == 2  # too_humid and too_dry, each once for all 300 spaces
+    assert warnings[0].startswith("warning: 300 spaces (s0000, s0001, s0002 and 297 more): "
+                                  "rule humidity.")
+    assert "600 warning(s) in 2 group(s)" in r.stderr
+
+
+def test_environment_overrides_top_level_keys(tmp_path):
+    import os
+
+    (tmp_path / "mine").mkdir()
+    (tmp_path / "mine" / "own.yaml").write_text(
+        (REPO / "rules" / "humidity.yaml").read_text().replace("pack: humidity", "pack: own"))
+    site = tmp_path / "site.yaml"
+    site.write_text("site: {id: s, timezone: UTC}\ndefaults: {rule_packs: [own]}\n"
+                    "templates:\n  - {topic: \"b/{space}/rh\", quantity: relative_humidity}\n"
+                    "spaces:\n  - id: a\n")
+    env = {**os.environ, "THERMOWARDEN_RULE_DIRS": "[mine]"}
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(site)],
+                       capture_output=True, text=True, timeout=120, env=env)
+    assert r.returncode == 0, r.stderr
+    env = {**os.environ, "THERMOWARDEN_RULE_DIR": "[mine]"}
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "check", str(site)],
+                       capture_output=True, text=True, timeout=120, env=env)
+    assert r.returncode == 1
+    assert "THERMOWARDEN_RULE_DIR: no top-level setting 'rule_dir'; did you mean " \
+           "THERMOWARDEN_RULE_DIRS?" in r.stderr
 
 
 def test_check_cli_reports_every_problem_and_fails(tmp_path):
@@ -125,3 +184,17 @@ def test_check_cli_reports_rule_pack_errors(tmp_path):
     write_pack(tmp_path, BAD)
     r = run_check(site)
     assert r.returncode == 1 and "rule warm: condition" in r.stderr
+
+
+def test_check_reports_a_bad_file_without_loading_the_comfort_models(tmp_path):
+    """`check` of a file it refuses answers without numba or pythermalcomfort (they take
+    seconds to load; a valid site loads them to see which rules can ever finish)."""
+    bad = tmp_path / "site.yaml"
+    bad.write_text("site: {id: x\n  name: [\n")
+    code = ("import sys\nfrom thermowarden.cli import main\n"
+            f"rc = main(['check', '--quiet', {str(bad)!r}])\n"
+            "loaded = sorted({m.split('.')[0] for m in sys.modules} & {'numba', "
+            "'pythermalcomfort'})\nprint(rc, loaded)\n")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                       timeout=COMMAND_LIMIT_S)
+    assert r.stdout.strip().splitlines()[-1] == "1 []", r.stdout + r.stderr

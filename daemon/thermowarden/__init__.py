@@ -11,17 +11,23 @@ import pathlib as _pathlib
 
 __version__ = "0.1.0"
 
+# numba's fallbacks after ours (its default list, so an unusual install still caches)
+_LOCATORS = ("thermowarden.numba_cache.ContentKeyedCacheLocator,UserProvidedCacheLocator,"
+             "InTreeCacheLocator,UserWideCacheLocator,IPythonCacheLocator,ZipCacheLocator")
+
 
 def _default_numba_cache() -> None:
     """Point numba's compile cache at a writable directory before pythermalcomfort loads.
 
     Without a cache the compiled comfort models cost several seconds at every start.
-    An explicit ``NUMBA_CACHE_DIR`` (the systemd unit sets one) always wins.
+    An explicit ``NUMBA_CACHE_DIR`` (the systemd unit sets one) always wins. Entries are
+    keyed by the content of the compiled sources (:mod:`thermowarden.numba_cache`), so
+    every checkout and virtual environment of the same versions shares them.
     """
-    if "NUMBA_CACHE_DIR" in _os.environ:
-        return
-    base = _os.environ.get("XDG_CACHE_HOME") or str(_pathlib.Path.home() / ".cache")
-    _os.environ["NUMBA_CACHE_DIR"] = str(_pathlib.Path(base) / "thermowarden" / "numba")
+    if "NUMBA_CACHE_DIR" not in _os.environ:
+        base = _os.environ.get("XDG_CACHE_HOME") or str(_pathlib.Path.home() / ".cache")
+        _os.environ["NUMBA_CACHE_DIR"] = str(_pathlib.Path(base) / "thermowarden" / "numba")
+    _os.environ.setdefault("NUMBA_CACHE_LOCATOR_CLASSES", _LOCATORS)
 
 
 _default_numba_cache()

@@ -8,15 +8,16 @@ Sub-commands:
   demo     the whole job on an invented site in a couple of minutes
   simulate publish an invented scenario to a broker, or write it as a feed file
   report   an HTML report per site and period, from the service's store or a feed
+  export   the conditions history from the service's store to CSV or Parquet
 """
 
 from __future__ import annotations
 
 import argparse
-import datetime as dt
 import gzip
 import json
 import sys
+import textwrap
 from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any, TextIO
 
@@ -27,30 +28,96 @@ CAUTION = ("Heat-stress figures are screening values, not a diagnosis: individua
            "(acclimatisation, hydration, fitness, medication, clothing) change the risk. "
            "thermowarden is advisory only; follow local regulations and consult a qualified "
            "occupational hygienist.")
+EXIT_STORE = 78
+"""`run` exit status for a store that cannot be used (EX_CONFIG; the systemd unit does
+not restart on it, so a damaged store does not become a restart loop)."""
 
 
 def _read_json(stream: TextIO, name: str) -> object:
+    """The JSON in ``stream``; bad or empty input exits 2 (bad input) with one line."""
     text = stream.read()
+    if not text.strip():
+        print(f"thermowarden assess: {name}: no input (expected a JSON object of readings)",
+              file=sys.stderr)
+        raise SystemExit(2)
     try:
         return json.loads(text)
     except json.JSONDecodeError as exc:
-        raise SystemExit(f"thermowarden assess: {name}: not valid JSON: {exc.msg} at line "
-                         f"{exc.lineno} column {exc.colno}") from None
+        print(f"thermowarden assess: {name}: not valid JSON: {exc.msg} at line "
+              f"{exc.lineno} column {exc.colno}", file=sys.stderr)
+        raise SystemExit(2) from None
+
+
+TABLE_WIDTH = 100
+"""Columns of ``assess --format table``: every line fits."""
+
+DECIMALS = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 0, "m/s": 2, "1": 2}
+"""Decimals shown per unit in the table (the JSON output keeps every digit)."""
+
+SHOWN_UNIT = {"humidex": "(°C equivalent)"}
+"""Units shown for dimensionless indices that are read on a temperature scale."""
+
+
+def _shown_value(name: str, value: object, unit: str) -> str:
+    if not isinstance(value, int | float) or isinstance(value, bool):
+        return str(value)
+    digits = 1 if name in SHOWN_UNIT else DECIMALS.get(unit, 2)
+    text = f"{value:.{digits}f}"
+    label = SHOWN_UNIT.get(name, "" if unit in ("1", "category", "") else unit)
+    return f"{text} {label}".rstrip()
+
+
+def _fit(text: str, width: int) -> str:
+    return text if len(text) <= width else text[:width - 3] + "..."
 
 
 def _format_table(result: dict[str, dict[str, object]]) -> str:
+    """One line per index, at most TABLE_WIDTH columns: name, value and unit, then the
+    method (or why there is no value), shortened to fit; the JSON output has them in full."""
     width = max(len(k) for k in result)
     lines = []
     for name, item in result.items():
         value = item["value"]
         if value is None:
-            shown = f"-   ({item.get('reason')})"
+            shown, note = "-", f"({item.get('reason')})"
         else:
-            unit = item["unit"]
-            shown = f"{value} {unit}" if unit not in ("1", "category") else f"{value}"
-            shown = f"{shown:<16} {item['method']}"
-        lines.append(f"{name:<{width}}  {shown}")
+            shown, note = _shown_value(name, value, str(item["unit"])), str(item["method"])
+        line = f"{name:<{width}}  {shown:<20} {note}"
+        lines.append(_fit(line, TABLE_WIDTH))
     return "\n".join(lines)
+
+
+def _verdict(result: dict[str, dict[str, object]]) -> str:
+    """One line for a person: the heat-stress margin when WBGT is known, else comfort."""
+    def num(key: str) -> float | None:
+        v = result.get(key, {}).get("value")
+        return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
+
+    wbgt = num("wbgt_effective")
+    ref_u, ref_a = num("wbgt_reference_unacclimatised"), num("wbgt_reference_acclimatised")
+    if wbgt is not None and ref_u is not None and ref_a is not None:
+        def diff(ref: float) -> str:
+            d = wbgt - ref
+            # a margin smaller than the instruments' accuracy is no margin
+            return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
+        if wbgt - ref_a > -0.5:
+            head, ref, other = "HEAT STRESS (acclimatised too)", ref_a, ("unacclimatised", ref_u)
+        elif wbgt - ref_u > -0.5:
+            head, ref, other = ("HEAT STRESS (unacclimatised)", ref_u,
+                                ("acclimatised", ref_a))
+        else:
+            head, ref, other = "below the WBGT references", ref_u, ("acclimatised", ref_a)
+        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref:.1f} °C ({diff(ref)}; "
+                f"{other[0]} {other[1]:.1f} °C)")
+    pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
+    if pmv is not None:
+        feel = ("neutral" if abs(pmv) <= 0.5 else
+                ("warm" if pmv > 0 else "cool") if abs(pmv) <= 1.5 else
+                ("hot" if pmv > 0 else "cold"))
+        cat = result.get("comfort_category_iso", {}).get("value")
+        extra = f", ISO 7730 category {cat}" if cat else ""
+        return f"thermal sensation {feel} (PMV {pmv:+.2f}{extra})"
+    return "no WBGT or PMV from these readings (the reasons are below)"
 
 
 def _print_issues(exc: Exception) -> None:
@@ -84,6 +151,12 @@ def cmd_assess(args: argparse.Namespace) -> int:
                   file=sys.stderr)
             return 2
     else:
+        if sys.stdin.isatty():
+            print("thermowarden assess: reading one space's readings as a JSON object from "
+                  "stdin; end with Ctrl-D (or use --input FILE). For example:\n"
+                  '  {"air_temperature": 31.2, "relative_humidity": 44, '
+                  '"globe_temperature": 34.6, "air_speed": 0.4, "work_class": "moderate"}',
+                  file=sys.stderr, flush=True)
         data = _read_json(sys.stdin, "stdin")
     try:
         if not isinstance(data, dict):
@@ -92,13 +165,16 @@ def cmd_assess(args: argparse.Namespace) -> int:
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
+    _prepare_models()
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":
+        print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
             print()
-            print(CAUTION)
+            print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
         result["caution"] = {"value": None, "unit": "", "method": "", "reason": CAUTION}
         json.dump(result, sys.stdout, ensure_ascii=False, indent=2)
@@ -108,9 +184,9 @@ def cmd_assess(args: argparse.Namespace) -> int:
 
 def cmd_check(args: argparse.Namespace) -> int:
     """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
-    from thermowarden.site_check import check_site, resolved_map
+    from thermowarden.site_check import check_site, grouped_warnings, resolved_map
 
-    report = check_site(args.config)
+    report = check_site(args.config, prepare=_prepare_models)
     if not report.ok:
         for issue in report.issues:
             print(issue, file=sys.stderr)
@@ -120,11 +196,13 @@ def cmd_check(args: argparse.Namespace) -> int:
     assert report.model is not None
     if not args.quiet:
         print("\n".join(resolved_map(report.model)))
-    for w in report.warnings:
+    groups = grouped_warnings(report.warnings)
+    for w in groups:
         print(f"warning: {w}", file=sys.stderr)
     n = report.model.n_spaces
+    grouped = f" in {len(groups)} group(s)" if len(groups) < len(report.warnings) else ""
     print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
-          f"{len(report.model.points)} points, {len(report.warnings)} warning(s))",
+          f"{len(report.model.points)} points, {len(report.warnings)} warning(s){grouped})",
           file=sys.stderr)
     return 0
 
@@ -158,26 +236,30 @@ def cmd_replay(args: argparse.Namespace) -> int:
         print("thermowarden replay: --compare needs at least one --set "
               "pack.rule.parameter=value", file=sys.stderr)
         return 2
-    show_progress = sys.stderr.isatty()
+    _prepare_models()
+    progress = _Progress(config.site.timezone) if sys.stderr.isatty() else None
+    # plain replay prints each event as it happens; a summary or comparison needs them all
+    streaming = not args.summary and not args.compare
+
+    def emit(event: dict[str, object]) -> None:
+        if progress is not None:
+            progress.clear()
+        print(json.dumps(event, ensure_ascii=False), flush=True)
 
     def run(with_settings: dict[str, float], conditions: ConditionsWriter | None,
             label: str) -> ReplayResult:
         def on_batch(engine: Any, result: ReplayResult) -> None:
             if conditions is not None:
                 conditions(engine, result)
-            if show_progress and engine.last_batch is not None:
-                at = dt.datetime.fromtimestamp(engine.last_batch[0].now, dt.UTC)
-                print(f"\r{label}replayed to {at:%Y-%m-%d %H:%M} UTC, "
-                      f"{result.messages:,} messages", end="", file=sys.stderr, flush=True)
 
+        if progress is not None:
+            progress.label = label
         opener = gzip.open if args.feed.endswith(".gz") else open
         with opener(args.feed, "rt", encoding="utf-8") as fh:
-            result = replay(config, read_feed(fh, args.feed), base=args.config,
-                            full_events=args.full, tick_s=args.tick, settings=with_settings,
-                            on_batch=on_batch)
-        if show_progress:
-            print(file=sys.stderr)
-        return result
+            return replay(config, read_feed(fh, args.feed), base=args.config,
+                          full_events=args.full, tick_s=args.tick, settings=with_settings,
+                          on_batch=on_batch, on_event=emit if streaming else None,
+                          on_tick=progress.update if progress is not None else None)
 
     writer = None
     try:
@@ -200,16 +282,57 @@ def cmd_replay(args: argparse.Namespace) -> int:
     except ConfigError as exc:
         _print_issues(exc)
         return 1
+    finally:
+        if progress is not None:
+            progress.clear()
     if args.compare:
         label_b = "with " + ", ".join(f"{k}={v:g}" for k, v in settings.items())
         print(format_comparison(compare(first, second), "as configured", label_b))
     elif args.summary:
         json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
         print()
-    else:
-        for e in second.events:
-            print(json.dumps(e, ensure_ascii=False))
     return 0
+
+
+class _Progress:
+    """One self-overwriting line on a terminal's stderr: feed time (site's zone), messages."""
+
+    def __init__(self, timezone: str) -> None:
+        import zoneinfo
+
+        self.tz = zoneinfo.ZoneInfo(timezone)
+        self.last = 0.0
+        self.shown = False
+        self.label = ""
+        """Put before the line (which of two replays is running)."""
+
+    def update(self, t: float, messages: int) -> None:
+        import datetime as dt
+        import time
+
+        now = time.monotonic()
+        if now - self.last < 0.2:
+            return
+        self.last = now
+        when = dt.datetime.fromtimestamp(t, self.tz)
+        sys.stderr.write(f"\r{self.label}replaying: feed time {when:%Y-%m-%d %H:%M %Z}, "
+                         f"{messages:,} messages\x1b[K")
+        sys.stderr.flush()
+        self.shown = True
+
+    def clear(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r\x1b[K")
+            sys.stderr.flush()
+            self.shown = False
+
+
+def _prepare_models() -> None:
+    """Load the comfort models, saying so on stderr when they are compiled (once)."""
+    from thermowarden.shell.warmup import is_compiled, say_on_stderr, warm_up
+
+    if not is_compiled():
+        warm_up(say_on_stderr)
 
 
 def _shard(text: str) -> tuple[int, int]:
@@ -230,6 +353,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     from thermowarden.config import ConfigError
     from thermowarden.shell.bootstrap import bootstrap
     from thermowarden.shell.logs import setup_logging
+    from thermowarden.shell.store import StoreError
 
     setup_logging(args.log_format, args.log_level)
     log = logging.getLogger("thermowarden")
@@ -237,12 +361,16 @@ def cmd_run(args: argparse.Namespace) -> int:
         running = bootstrap(args.config, broker_url=args.broker, http_port=args.http_port,
                             state_dir=args.state_dir, shard=args.shard,
                             spaces=args.spaces.split(",") if args.spaces else None,
-                            http_host=args.http_host)
+                            http_host=args.http_host,
+                            move_damaged_store=args.move_damaged_store)
     except ConfigError as exc:
         _print_issues(exc)
         print("thermowarden run: the configuration was refused; nothing was started",
               file=sys.stderr)
         return 1
+    except StoreError as exc:
+        print(f"thermowarden run: {exc}", file=sys.stderr)
+        return EXIT_STORE
     except (OSError, ValueError) as exc:
         print(f"thermowarden run: {exc}", file=sys.stderr)
         return 1
@@ -252,8 +380,13 @@ def cmd_run(args: argparse.Namespace) -> int:
         log.info("signal %s received", signal.Signals(signum).name)
         service.request_stop()
 
+    def reload(signum: int, frame: object) -> None:
+        log.info("signal SIGHUP received: reloading the configuration")
+        service.request_reload()
+
     signal.signal(signal.SIGTERM, stop)
     signal.signal(signal.SIGINT, stop)
+    signal.signal(signal.SIGHUP, reload)
     service.run()
     if running.http is not None:
         running.http.shutdown()
@@ -265,6 +398,7 @@ def cmd_demo(args: argparse.Namespace) -> int:
     from thermowarden.demo import run_demo
 
     view = sys.stdout.isatty() and not args.plain
+    _prepare_models()
     return run_demo(args.broker, args.duration, args.speed, view)
 
 
@@ -282,6 +416,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         print(f"thermowarden simulate: {exc}", file=sys.stderr)
         return 2
     if args.output:
+        print(f"writing scenario {args.scenario} ({args.days} day(s)) to {args.output} ...",
+              file=sys.stderr, flush=True)
         n = write_feed(records, args.output)
         print(f"{n} readings written to {args.output}", file=sys.stderr)
         return 0
@@ -290,6 +426,8 @@ def cmd_simulate(args: argparse.Namespace) -> int:
         return 1
     host, port, _ = parse_url(args.broker or config.broker.url)
     try:
+        print(f"publishing scenario {args.scenario} to {host}:{port}, {args.speed:g} times "
+              "real time (Ctrl-C stops) ...", file=sys.stderr, flush=True)
         n = publish_live(records, host, port, args.protocol or config.broker.protocol,
                          args.speed, username=config.broker.username,
                          password=read_password(config.broker))
@@ -325,6 +463,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    _prepare_models()
     if args.feed:
         opener = gzip.open if args.feed.endswith(".gz") else open
         try:
@@ -364,6 +503,66 @@ def cmd_report(args: argparse.Namespace) -> int:
     pathlib.Path(out).write_text(html_text, encoding="utf-8")
     print(f"report written to {out}", file=sys.stderr)
     return 0
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    """Export the conditions history from the service's store to CSV or Parquet."""
+    import datetime as dt
+    import pathlib
+    import zoneinfo
+
+    from thermowarden.export import ExportError, format_of, write
+    from thermowarden.shell.store import Store
+
+    config = _load_or_report(args.config)
+    if config is None:
+        return 1
+    try:
+        format_of(args.output)
+    except ExportError as exc:
+        print(f"thermowarden export: {exc}", file=sys.stderr)
+        return 2
+    start, end = args.start, args.end
+    if args.day is not None:
+        tz = zoneinfo.ZoneInfo(config.site.timezone)
+        start = dt.datetime.combine(args.day, dt.time(0), tz).timestamp()
+        end = dt.datetime.combine(args.day + dt.timedelta(days=1), dt.time(0), tz).timestamp()
+    if start is None or end is None or end <= start:
+        print("thermowarden export: give --day, or --from and --to (--to after --from)",
+              file=sys.stderr)
+        return 2
+    path = pathlib.Path(args.store) if args.store else \
+        pathlib.Path(args.state_dir) / f"{config.site.id}.sqlite3"
+    if not path.exists():
+        print(f"thermowarden export: no store at {path} (give --state-dir or --store)",
+              file=sys.stderr)
+        return 2
+    store = Store(path)
+    try:
+        samples = store.samples_between(start, end)
+    finally:
+        store.close()
+    spaces = set(args.spaces.split(",")) if args.spaces else None
+    try:
+        n = write(samples, args.output, spaces)
+    except ExportError as exc:
+        print(f"thermowarden export: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:
+        print(f"thermowarden export: cannot write {args.output}: {exc.strerror}",
+              file=sys.stderr)
+        return 2
+    print(f"{n} row(s) written to {args.output}", file=sys.stderr)
+    return 0
+
+
+def _day(text: str) -> object:
+    import datetime as dt
+
+    try:
+        return dt.date.fromisoformat(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a date (YYYY-MM-DD)") from None
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -418,6 +617,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--shard", type=_shard, metavar="INDEX/COUNT",
                    help="evaluate only this shard of the spaces (stable hash of the space id)")
     p.add_argument("--spaces", metavar="ID,ID", help="evaluate only these spaces")
+    p.add_argument("--move-damaged-store", action="store_true",
+                   help="if the store fails its check, rename it aside (*.damaged-<time>) and "
+                        "start with an empty one; the site file is not touched")
     p.add_argument("--log-format", choices=("text", "json"), default="text")
     p.add_argument("--log-level", choices=("debug", "info", "warning", "error"), default="info")
     p.set_defaults(func=cmd_run)
@@ -463,6 +665,20 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--output", metavar="FILE", help="HTML file to write "
                    "(default SITE-report.html)")
     p.set_defaults(func=cmd_report)
+
+    p = sub.add_parser("export", help="the conditions history from the store to CSV or Parquet")
+    p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
+    p.add_argument("output", metavar="FILE", help="FILE.csv or FILE.parquet (Parquet needs "
+                   "the parquet extra)")
+    p.add_argument("--day", type=_day, metavar="YYYY-MM-DD",
+                   help="one calendar day in the site's time zone")
+    p.add_argument("--from", dest="start", type=_when, metavar="WHEN", help="start (ISO 8601)")
+    p.add_argument("--to", dest="end", type=_when, metavar="WHEN", help="end (ISO 8601)")
+    p.add_argument("--spaces", metavar="ID,ID", help="only these spaces")
+    p.add_argument("--state-dir", default="state", metavar="DIR",
+                   help="the service's state directory (default ./state)")
+    p.add_argument("--store", metavar="FILE", help="the SQLite store itself (for a shard)")
+    p.set_defaults(func=cmd_export)
     return parser
 
 

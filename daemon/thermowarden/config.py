@@ -35,7 +35,7 @@ from pydantic import (
 )
 
 from thermowarden.core import heat_stress, radiation
-from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.quantities import QUANTITIES, STATE_QUANTITIES
 from thermowarden.core.topics import TemplateError, TopicTemplate
 from thermowarden.core.units import UnitError, converter
 from thermowarden.yaml_positions import (
@@ -138,6 +138,26 @@ class PointBase(Strict):
     sensor: str | None = None
     globe_diameter_m: float | None = Field(None, ge=0.02, le=0.3)
     globe_emissivity: float | None = Field(None, ge=0.5, le=1.0)
+    offset: float = Field(0.0, ge=-1e6, le=1e6)
+    """Calibration: added after the reading is converted to the canonical unit (and scaled),
+    for example ``-1.5`` for a sensor that reads 1.5 K high."""
+    scale: float = Field(1.0, gt=0.0, le=1e6)
+    """Calibration: the canonical value is multiplied by this before ``offset`` is added."""
+    plausible_min: float | None = None
+    """Lowest believable value for this point, in the canonical unit (°C, %, m/s, W/m²,
+    Pa); narrows the physical range of the quantity. Values below are refused as implausible."""
+    plausible_max: float | None = None
+    """Highest believable value for this point, in the canonical unit."""
+    max_change_per_min: float | None = Field(None, gt=0.0)
+    """Largest believable change per minute (canonical unit) between accepted readings; a
+    larger jump is refused as implausible (a spike), and later readings are compared with
+    the last accepted one."""
+    stuck_after_s: float | None = Field(None, ge=60.0, le=30 * 86_400)
+    """A fresh point whose value has not changed for this long counts as stuck (sensor
+    health); default 3 hours."""
+    height_m: float | None = Field(None, gt=0.01, le=200.0)
+    """Height of an air_speed or wind_speed sensor above ground (m); UTCI converts the speed
+    to 10 m from it (default 1.1 m for a space's air_speed, 10 m for the site's wind_speed)."""
 
     _shorthand = field_validator("format", mode="before")(_format_shorthand)
 
@@ -161,6 +181,8 @@ class PointBase(Strict):
                              "ceiling/floor)")
         if self.quantity not in SIDED_QUANTITIES and self.side is not None:
             raise ValueError(f"side applies only to {' and '.join(sorted(SIDED_QUANTITIES))}")
+        if self.height_m is not None and self.quantity not in ("air_speed", "wind_speed"):
+            raise ValueError("height_m applies only to air_speed and wind_speed")
         if (self.globe_diameter_m is not None or self.globe_emissivity is not None) and \
                 self.quantity != "globe_temperature":
             raise ValueError("globe_diameter_m and globe_emissivity apply only to "
@@ -168,6 +190,23 @@ class PointBase(Strict):
         if isinstance(self.format, StateFormat) and self.quantity not in (
                 "shading_position", "fan_state", "occupancy"):
             raise ValueError("format state applies to shading_position, fan_state, occupancy")
+        q = QUANTITIES[self.quantity]
+        if isinstance(self.format, StateFormat) or self.quantity in STATE_QUANTITIES:
+            tuned = [k for k in ("offset", "scale", "max_change_per_min", "stuck_after_s")
+                     if k in self.model_fields_set]
+            if tuned:
+                raise ValueError(f"{', '.join(tuned)} apply to measured quantities, not to the "
+                                 f"state {self.quantity}")
+        low = q.low if self.plausible_min is None else self.plausible_min
+        high = q.high if self.plausible_max is None else self.plausible_max
+        if low >= high:
+            raise ValueError(f"plausible_min ({low:g}) must be below plausible_max ({high:g}) "
+                             f"in {q.unit}")
+        for name, value in (("plausible_min", self.plausible_min),
+                            ("plausible_max", self.plausible_max)):
+            if value is not None and not q.low <= value <= q.high:
+                raise ValueError(f"{name} {value:g} is outside the physical range of "
+                                 f"{self.quantity} ({q.low:g}..{q.high:g} {q.unit})")
         return self
 
     @property
@@ -226,6 +265,12 @@ class PeopleConfig(Strict):
     clothing_adjustment_k: float | None = Field(None, ge=0.0, le=20.0)
     posture: Literal["standing", "seated", "crouching"] = "standing"
 
+    @field_validator("posture", mode="before")
+    @classmethod
+    def _posture(cls, v: object) -> object:
+        """Accept the common spellings (sitting, sit, stand, crouch, squatting...)."""
+        return heat_stress.canonical_posture(v) or v
+
     @model_validator(mode="after")
     def _check(self) -> PeopleConfig:
         if self.met is not None and self.work_class is not None:
@@ -238,11 +283,13 @@ class PeopleConfig(Strict):
 
     @property
     def met_value(self) -> float:
+        """met, from met or work_class; NaN when neither is given (no heat-stress reference
+        value is then computed; the comfort indices assume 1.2 met and say so)."""
         if self.met is not None:
             return self.met
         if self.work_class is not None:
             return heat_stress.WORK_CLASSES_W_M2[self.work_class] / 58.15
-        return 1.2
+        return float("nan")
 
     @property
     def adjustment_k(self) -> float:
@@ -288,6 +335,54 @@ class ExternalIds(Strict):
 ParameterValue = float | bool | str
 
 
+MRT_ASSUMPTION = re.compile(r"^air(?:\s*([+-])\s*(\d+(?:\.\d+)?))?$")
+
+
+class Assumptions(Strict):
+    """What a space assumes for quantities it does not measure (a zone with only a
+    thermostat reports air temperature and humidity). An assumption fills in only while no
+    fresh reading of the quantity exists, is used by every index, and is shown beside the
+    numbers in conditions and advisories. Clothing and activity are ``people``."""
+
+    air_speed: float | None = Field(None, ge=0.0, le=1.0)
+    """m/s; 0.1 is still air (ASHRAE 55's still-air speed)."""
+    mean_radiant_temperature: str | None = None
+    """``air`` (equal to the air temperature: no warm or cold surfaces) or ``air+2`` /
+    ``air-1.5`` (offset in K from it)."""
+
+    @field_validator("mean_radiant_temperature")
+    @classmethod
+    def _mrt(cls, v: str | None) -> str | None:
+        if v is not None and not MRT_ASSUMPTION.match(v.strip()):
+            raise ValueError("expected 'air' or 'air+K' / 'air-K' (an offset in kelvin), "
+                             f"got {v!r}")
+        return v
+
+    @property
+    def mrt_offset_k(self) -> float | None:
+        """The assumed mean radiant temperature minus the air temperature (K), or None."""
+        if self.mean_radiant_temperature is None:
+            return None
+        m = MRT_ASSUMPTION.match(self.mean_radiant_temperature.strip())
+        assert m is not None
+        if m.group(1) is None:
+            return 0.0
+        return float(m.group(2)) * (1.0 if m.group(1) == "+" else -1.0)
+
+    def notes(self) -> dict[str, str]:
+        """quantity -> how it is shown ("assumed: still air (0.1 m/s)")."""
+        out: dict[str, str] = {}
+        if self.air_speed is not None:
+            still = "still air, " if self.air_speed <= 0.1 else ""
+            out["air_speed"] = f"assumed: {still}{self.air_speed:g} m/s"
+        off = self.mrt_offset_k
+        if off is not None:
+            out["mean_radiant_temperature"] = (
+                "assumed: equal to the air temperature" if off == 0.0 else
+                f"assumed: air temperature {off:+g} K")
+        return out
+
+
 class SpaceConfig(Strict):
     """One space: what it is, who is in it, which rules apply, and its points."""
 
@@ -304,6 +399,7 @@ class SpaceConfig(Strict):
     combine: Literal["mean", "height_weighted"] = "mean"
     solar_load: bool | None = None
     phs_edition: Literal["2023", "2004"] = "2023"
+    assume: Assumptions | None = None
     points: list[PointConfig] = Field(default_factory=list)
 
     @field_validator("points")
@@ -319,10 +415,11 @@ class SpaceConfig(Strict):
 class SpaceDefaults(Strict):
     """Settings every space gets unless it says otherwise."""
 
-    people: PeopleConfig = Field(default_factory=lambda: PeopleConfig(met=1.2, clo=0.7))
+    people: PeopleConfig = Field(default_factory=lambda: PeopleConfig(clo=0.7))
     occupancy: OccupancyConfig = Field(default_factory=lambda: OccupancyConfig(always=True))
     rule_packs: list[str] = Field(default_factory=list)
     parameters: dict[str, ParameterValue] = Field(default_factory=dict)
+    assume: Assumptions | None = None
 
 
 # ----------------------------------------------------------------------------- site
@@ -422,6 +519,8 @@ class IngestConfig(Strict):
     air_speed_window_s: float = Field(180.0, gt=0)
     wbgt_window_s: float = Field(3600.0, ge=600, le=3600)
     disagreement_k: float = Field(2.0, gt=0)
+    silence_limit_s: float | None = Field(600.0, gt=0)
+    """/readyz answers 503 when no sensor message arrived for this long (null: never)."""
 
 
 class EvaluationConfig(Strict):
@@ -433,6 +532,142 @@ class EvaluationConfig(Strict):
     flood_window_s: float = Field(600.0, ge=10, le=86_400)
 
 
+class RetentionConfig(Strict):
+    """How long the store keeps the event history and the report samples (the 5-minute
+    conditions behind reports and ``thermowarden export``), in days."""
+
+    events_days: float = Field(90.0, ge=1, le=3660)
+    samples_days: float = Field(90.0, ge=1, le=3660)
+
+
+# ----------------------------------------------------------------------------- delivery
+
+DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
+                         "shelved", "unshelved", "cleared", "summary"]
+
+
+class WebhookConfig(Strict):
+    """POST each event as JSON to ``url``, signed with HMAC-SHA256 over ``<timestamp>.<body>``
+    with a shared secret (from the environment, e.g.
+    THERMOWARDEN_DELIVERY__AUDIENCES__SAFETY__WEBHOOK__SECRET, or ``secret_file``)."""
+
+    url: str
+    secret: SecretStr | None = None
+    secret_file: str | None = None
+    timeout_s: float = Field(10.0, gt=0, le=300)
+
+    @field_validator("url")
+    @classmethod
+    def _url(cls, v: str) -> str:
+        if not re.match(r"^https?://[^/\s]+(/\S*)?$", v):
+            raise ValueError(f"{v!r} is not an http:// or https:// URL")
+        return v
+
+    @model_validator(mode="after")
+    def _secret(self) -> WebhookConfig:
+        if self.secret is None and self.secret_file is None:
+            raise ValueError("a webhook needs a shared secret: secret_file, or the environment "
+                             "variable ..._WEBHOOK__SECRET")
+        return self
+
+
+class SmtpConfig(Strict):
+    """The SMTP relay. ``tls``: ``starttls`` (default), ``ssl`` (implicit TLS) or ``none``
+    (a relay on the same host only). The password comes from the environment or
+    ``password_file``, never from the site file."""
+
+    host: str
+    port: int = Field(587, ge=1, le=65535)
+    tls: Literal["starttls", "ssl", "none"] = "starttls"
+    username: str | None = None
+    password: SecretStr | None = None
+    password_file: str | None = None
+    timeout_s: float = Field(30.0, gt=0, le=300)
+
+
+class EmailConfig(Strict):
+    """Send each event (or digest) as a plain-text e-mail through an SMTP relay."""
+
+    smtp: SmtpConfig
+    sender: str = Field(alias="from", pattern=r"^[^@\s]+@[^@\s]+$")
+    to: list[Annotated[str, Field(pattern=r"^[^@\s]+@[^@\s]+$")]] = Field(min_length=1)
+    subject_prefix: str = "[thermowarden]"
+
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+def _default_events() -> list[DeliveredEvent]:
+    return ["raised", "escalated", "renotified", "cleared", "summary"]
+
+
+_QUIET = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-3]):([0-5]\d)$")
+
+
+class AudienceDelivery(Strict):
+    """How one audience is reached besides MQTT. ``quiet_hours`` (site time zone,
+    ``HH:MM-HH:MM``, may span midnight): events other than urgent ones wait and go out as one
+    digest when the quiet hours end; urgent ones always go out at once. Low-priority events
+    are collected into one digest every ``low_priority_digest_s`` (0: sent one by one)."""
+
+    webhook: WebhookConfig | None = None
+    email: EmailConfig | None = None
+    events: list[DeliveredEvent] = Field(default_factory=_default_events)
+    quiet_hours: str | None = None
+    low_priority_digest_s: float = Field(3600.0, ge=0, le=7 * 86_400)
+
+    @field_validator("quiet_hours")
+    @classmethod
+    def _quiet(cls, v: str | None) -> str | None:
+        if v is not None:
+            m = _QUIET.match(v)
+            if not m:
+                raise ValueError(f"{v!r} is not HH:MM-HH:MM (site time zone)")
+            if (m.group(1), m.group(2)) == (m.group(3), m.group(4)):
+                raise ValueError(f"{v!r} starts and ends at the same time")
+        return v
+
+    @model_validator(mode="after")
+    def _some_channel(self) -> AudienceDelivery:
+        if self.webhook is None and self.email is None:
+            raise ValueError("give a webhook, an email, or both")
+        return self
+
+
+class RetryConfig(Strict):
+    """Retries of a failed delivery: exponential backoff from ``first_s`` doubling up to
+    ``max_s`` (with ±20 % jitter), at most ``max_attempts`` attempts in all."""
+
+    first_s: float = Field(5.0, ge=0.01, le=3600)
+    max_s: float = Field(900.0, ge=0.01, le=86_400)
+    max_attempts: int = Field(12, ge=1, le=1000)
+
+
+class DeliveryConfig(Strict):
+    """Delivery of events to people by webhook and e-mail, per audience (optional)."""
+
+    audiences: dict[Literal["facilities", "safety", "integrator"], AudienceDelivery] = Field(
+        default_factory=dict)
+    retry: RetryConfig = Field(default_factory=RetryConfig)
+    queue_size: int = Field(10_000, ge=10, le=1_000_000)
+
+
+class OutboxConfig(Strict):
+    """Events kept for the broker until it acknowledges them: at most ``max_events``, none
+    older than ``max_age_s``; what expires undelivered is counted and reported."""
+
+    max_events: int = Field(10_000, ge=10, le=10_000_000)
+    max_age_s: float = Field(86_400.0, ge=60, le=30 * 86_400)
+
+
+class CommandsConfig(Strict):
+    """Inbound commands: a body size limit, and the MQTT 5 user property that carries the
+    sender's authenticated identity (set by a trusted gateway or broker plugin; a client
+    cannot be trusted to set it itself)."""
+
+    max_body_bytes: int = Field(2048, ge=256, le=65_536)
+    identity_property: str | None = None
+
+
 class SiteConfig(Strict):
     """The whole site file."""
 
@@ -441,11 +676,15 @@ class SiteConfig(Strict):
     output: OutputConfig = Field(default_factory=OutputConfig)
     ingest: IngestConfig = Field(default_factory=IngestConfig)
     evaluation: EvaluationConfig = Field(default_factory=EvaluationConfig)
+    outbox: OutboxConfig = Field(default_factory=OutboxConfig)
+    commands: CommandsConfig = Field(default_factory=CommandsConfig)
     defaults: SpaceDefaults = Field(default_factory=SpaceDefaults)
     templates: list[TemplateConfig] = Field(default_factory=list)
     spaces: list[SpaceConfig] = Field(default_factory=list)
     spaces_csv: str | None = None
     rule_dirs: list[str] = Field(default_factory=list)
+    retention: RetentionConfig = Field(default_factory=RetentionConfig)
+    delivery: DeliveryConfig = Field(default_factory=DeliveryConfig)
 
     @model_validator(mode="after")
     def _check(self) -> SiteConfig:
@@ -465,6 +704,16 @@ class SiteConfig(Strict):
 
     def occupancy(self, space: SpaceConfig) -> OccupancyConfig:
         return space.occupancy or self.defaults.occupancy
+
+    def assumptions(self, space: SpaceConfig) -> Assumptions:
+        """The space's assumptions, each one falling back to ``defaults.assume``."""
+        base = self.defaults.assume or Assumptions()
+        own = space.assume or Assumptions()
+        return Assumptions(
+            air_speed=own.air_speed if own.air_speed is not None else base.air_speed,
+            mean_radiant_temperature=(own.mean_radiant_temperature
+                                      if own.mean_radiant_temperature is not None
+                                      else base.mean_radiant_temperature))
 
     def rule_packs(self, space: SpaceConfig) -> list[str]:
         return space.rule_packs if space.rule_packs is not None else self.defaults.rule_packs
@@ -556,14 +805,28 @@ def _set_path(data: dict[str, Any], path: list[str], value: Any) -> None:
     node[path[-1]] = value
 
 
-def _apply_environment(data: dict[str, Any], environ: Mapping[str, str]) -> dict[Path, str]:
-    """Override settings from THERMOWARDEN_SECTION__KEY variables; values parse as YAML."""
+def _apply_environment(data: dict[str, Any], environ: Mapping[str, str],
+                       issues: list[ConfigIssue] | None = None) -> dict[Path, str]:
+    """Override settings from THERMOWARDEN_SECTION__KEY variables, or THERMOWARDEN_KEY for a
+    top-level key (``rule_dirs``, ``spaces_csv``, a whole section); values parse as YAML.
+
+    A single-level name that is no top-level key is left alone (it may belong to something
+    else), unless it is close to one: then it is refused with the likely name.
+    """
     applied: dict[Path, str] = {}
+    top = sorted(SiteConfig.model_fields)
     for name, raw in sorted(environ.items()):
-        if not name.startswith(ENV_PREFIX) or "__" not in name:
+        if not name.startswith(ENV_PREFIX):
             continue
         path = [p.lower() for p in name[len(ENV_PREFIX):].split("__") if p]
         if not path:
+            continue
+        if "__" not in name and path[0] not in top:
+            close = difflib.get_close_matches(path[0], top, n=1, cutoff=0.8)
+            if close and issues is not None:
+                issues.append(ConfigIssue(None, f"environment variable {name}: no top-level "
+                                                f"setting {path[0]!r}; did you mean "
+                                                f"{ENV_PREFIX}{close[0].upper()}?"))
             continue
         try:
             value = yaml.safe_load(raw) if path[-1] != "password" else raw
@@ -655,6 +918,30 @@ def _read_yaml_file(path: str | os.PathLike[str]) -> tuple[Any, SourceMap]:
         raise ConfigError([ConfigIssue(exc.position, exc.message)]) from None
 
 
+def _secrets_in_file(data: dict[str, Any], smap: SourceMap) -> list[ConfigIssue]:
+    """Delivery secrets written into the site file are refused (like the broker password)."""
+    issues: list[ConfigIssue] = []
+    delivery = data.get("delivery")
+    audiences = delivery.get("audiences") if isinstance(delivery, dict) else None
+    if not isinstance(audiences, dict):
+        return issues
+    for name, aud in audiences.items():
+        if not isinstance(aud, dict):
+            continue
+        for path in (("webhook", "secret"), ("email", "smtp", "password")):
+            node: Any = aud
+            for part in path[:-1]:
+                node = node.get(part) if isinstance(node, dict) else None
+            if isinstance(node, dict) and path[-1] in node:
+                where = ("delivery", "audiences", name) + path
+                env = ENV_PREFIX + "__".join(str(p).upper() for p in where)
+                issues.append(ConfigIssue(smap.find(where, key=True),
+                                          f"{'.'.join(map(str, where))}: secrets do not belong "
+                                          f"in the site file; set {env} or "
+                                          f"{path[-1]}_file"))
+    return issues
+
+
 def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = None
               ) -> SiteConfig:
     """Load and validate a site file (and the CSV it refers to).
@@ -676,7 +963,8 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
         issues.append(ConfigIssue(smap.find(("broker", "password"), key=True),
                                   "broker.password: secrets do not belong in the site file; "
                                   "set THERMOWARDEN_BROKER__PASSWORD or broker.password_file"))
-    env_paths = _apply_environment(data, environ)
+    issues.extend(_secrets_in_file(data, smap))
+    env_paths = _apply_environment(data, environ, issues)
     csv_name = data.get("spaces_csv")
     if isinstance(csv_name, str):
         csv_path = (p.parent / csv_name) if not os.path.isabs(csv_name) else pathlib.Path(csv_name)
@@ -706,9 +994,41 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     except ValidationError as exc:
         issues.extend(_issues_from_validation(exc, smap, env_paths))
         raise ConfigError(issues) from None
+    issues.extend(_rule_pack_name_issues(config, smap, p))
     if issues:
         raise ConfigError(issues)
     return config
+
+
+def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathlib.Path
+                           ) -> list[ConfigIssue]:
+    """Every rule pack name that names no pack (in ``rule_dirs`` or built in), with its
+    position and the closest existing name; ``defaults.rule_packs`` is checked even when
+    every space names its own packs."""
+    import importlib.resources
+
+    dirs = [pathlib.Path(d) if os.path.isabs(d) else site_path.parent / d
+            for d in config.rule_dirs]
+    dirs.append(pathlib.Path(str(importlib.resources.files("thermowarden.rulepacks"))))
+    available = sorted({f.stem for d in dirs if d.is_dir() for f in d.glob("*.yaml")})
+    issues: list[ConfigIssue] = []
+
+    def check(names: list[str], path: tuple[str | int, ...]) -> None:
+        for k, name in enumerate(names):
+            if name in available:
+                continue
+            close = difflib.get_close_matches(name, available, n=1)
+            hint = (f"; did you mean {close[0]!r}?" if close
+                    else f"; available: {', '.join(available)}")
+            where = ".".join(str(x) for x in (*path, k))
+            issues.append(ConfigIssue(smap.find((*path, k)),
+                                      f"{where}: unknown rule pack {name!r}{hint}"))
+
+    check(config.defaults.rule_packs, ("defaults", "rule_packs"))
+    for i, space in enumerate(config.spaces):
+        if space.rule_packs is not None:
+            check(space.rule_packs, ("spaces", i, "rule_packs"))
+    return issues
 
 
 def read_password(broker: BrokerConfig) -> str | None:
@@ -804,6 +1124,9 @@ class RuleConfig(Strict):
     benefit: dict[str, str] = Field(default_factory=dict)
     messages: RuleMessages
     max_shelve_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    max_shelved_per_day_s: float | None = Field(None, ge=60, le=86_400)
+    """Total time one advisory of this rule may spend shelved in any 24 hours, however
+    often it is shelved (default: ``max_shelve_s``, at most a day)."""
     heat_stress_cautions: bool = False
     effect: RuleEffect | None = None
 

@@ -17,6 +17,7 @@ import pathlib
 import shutil
 import sys
 import tempfile
+import textwrap
 import threading
 import time
 from collections import Counter
@@ -48,6 +49,8 @@ class DemoView:
     counts: Counter[str] = field(default_factory=Counter)
     acted: list[str] = field(default_factory=list)
     lock: threading.Lock = field(default_factory=threading.Lock)
+    last_message: float = field(default_factory=time.monotonic)
+    width: int = 80
 
     def on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
         if not msg.payload:
@@ -57,6 +60,7 @@ class DemoView:
         except ValueError:
             return
         with self.lock:
+            self.last_message = time.monotonic()
             if msg.topic.endswith("/conditions"):
                 self.conditions[data["space"]["id"]] = data
             elif "/events/" in msg.topic and data.get("event"):
@@ -77,12 +81,34 @@ class DemoView:
         return (f"{at:%H:%M} {a['audience']:<10} {e['event']:<11} {mark:<3} "
                 f"{a['priority']:<6} {a['title']}")
 
+    def wait_quiet(self, quiet_s: float, limit_s: float) -> None:
+        """Return once nothing has arrived for ``quiet_s`` (at most ``limit_s``)."""
+        deadline = time.monotonic() + limit_s
+        while time.monotonic() < deadline:
+            with self.lock:
+                idle = time.monotonic() - self.last_message
+            if idle >= quiet_s:
+                return
+            time.sleep(0.05)
+
+    def newest_advice(self) -> list[str]:
+        """The advice of the newest event that carries one, wrapped to the view's width."""
+        for e in reversed(self.events):
+            a = e.get("advisory")
+            if a and a.get("advice") and e["event"] != "cleared":
+                head = f"newest advice ({a['space']['id']}, {a['audience']}): "
+                return textwrap.wrap(head + a["advice"], self.width - 1,
+                                     subsequent_indent="  ", max_lines=4,
+                                     placeholder=" ...")
+        return []
+
     def render(self, now: float, start: float, end: float, out: TextIO) -> None:
         local = dt.datetime.fromtimestamp(now, self.tz)
         frac = min(max((now - start) / (end - start), 0.0), 1.0)
-        bar = "#" * int(frac * 40) + "-" * (40 - int(frac * 40))
-        lines = [f"thermowarden demo - Larkfield Works (invented site), "
-                 f"{local:%a %d %b %H:%M} [{bar}] {frac * 100:3.0f}%",
+        bar = "#" * int(frac * 20) + "-" * (20 - int(frac * 20))
+        fit = self.width - 1
+        lines = [f"thermowarden demo - Larkfield Works (invented) "
+                 f"{local:%a %H:%M} [{bar}] {frac * 100:3.0f}%",
                  "advisory only: nothing is switched or moved", ""]
         head = f"{'space':<14}" + "".join(f"{label:>9}" for _, label in VIEW_INDICES)
         lines.append(head)
@@ -95,7 +121,10 @@ class DemoView:
                 lines.append(f"{sid:<14}" + "".join(cells))
             lines.append("")
             lines.append("what each audience received (latest last):")
-            lines.extend("  " + self.event_line(e) for e in self.events[-14:])
+            lines.extend("  " + self.event_line(e) for e in self.events[-10:])
+            lines.append("")
+            lines.extend(self.newest_advice())
+        lines = [ln if len(ln) <= fit else ln[:fit - 3] + "..." for ln in lines]
         out.write("\x1b[H\x1b[2J" + "\n".join(lines) + "\n")
         out.flush()
 
@@ -115,6 +144,16 @@ class DemoView:
             out.append("heat-stress alerts are screening advice: follow local regulations "
                        "and a qualified occupational hygienist.")
         return "\n".join(out)
+
+
+def _print_new(dv: DemoView, shown: int, out: TextIO) -> int:
+    """Print the events that arrived since the first ``shown``; returns the new count."""
+    with dv.lock:
+        fresh = dv.events[shown:]
+    for e in fresh:
+        out.write(dv.event_line(e) + "\n")
+    out.flush()
+    return shown + len(fresh)
 
 
 def run_demo(broker_url: str | None, duration: float | None, speed: float, view: bool,
@@ -140,7 +179,6 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     config = load_site(site_path)
     records = list(larkfield_day())
     start, end = records[0]["t"], records[-1]["t"]
-    stop_at = time.monotonic() + duration if duration is not None else float("inf")
     state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
     clock = Clock(start=start - 1.0, speed=speed, paused=True)
     # at hundreds of times real speed a few milliseconds of scheduling delay are whole
@@ -152,7 +190,8 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     engine_thread = threading.Thread(target=service.run, name="engine", daemon=True)
     engine_thread.start()
     host, port, _ = parse_url(broker_url)
-    dv = DemoView(config.output.prefix, service.engine.state.tz)
+    dv = DemoView(config.output.prefix, service.engine.state.tz,
+                  width=max(60, shutil.get_terminal_size((80, 24)).columns))
     # one client at a time: the service first, then the watcher, then the sensors (the
     # embedded broker does not like concurrent first subscriptions)
     deadline = time.monotonic() + 60
@@ -176,6 +215,9 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         time.sleep(0.3)
         clock.resume()
         service.engine.start = clock.now()
+        # --duration counts from the start of the simulated day, not from the start-up (a
+        # loaded machine may take a while to start the service)
+        stop_at = time.monotonic() + duration if duration is not None else float("inf")
         last_view = 0.0
         shown = 0
         for rec in records:
@@ -190,19 +232,16 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
             body = p if isinstance(p, str) else json.dumps(p)
             sensors.publish(rec["topic"], body, qos=0)
             if not view:
-                with dv.lock:
-                    fresh = dv.events[shown:]
-                    shown = len(dv.events)
-                for e in fresh:
-                    out.write(dv.event_line(e) + "\n")
-        time.sleep(1.0)
-        if view:
-            dv.render(clock.now(), start, end, out)
+                shown = _print_new(dv, shown, out)
     except KeyboardInterrupt:
         interrupted = True
     finally:
+        # the service's last evaluation may still raise or clear advisories: stop it, then
+        # wait until its events have reached the watcher before showing the end
         service.request_stop()
         engine_thread.join(30)
+        if not interrupted:
+            dv.wait_quiet(1.0, 20.0)
         sensors.loop_stop()
         watcher.loop_stop()
         for c in (sensors, watcher):
@@ -210,6 +249,10 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         if embedded is not None:
             embedded.stop()
         shutil.rmtree(state_dir, ignore_errors=True)
+    if view:
+        dv.render(clock.now(), start, end, out)
+    else:
+        _print_new(dv, shown, out)
     out.write(dv.summary() + "\n")
     if interrupted:
         out.write("interrupted; stopped cleanly\n")

@@ -9,6 +9,7 @@ The same feed gives the same output.
 from __future__ import annotations
 
 import dataclasses
+import datetime as dt
 import json
 import math
 from collections.abc import Callable, Iterable, Iterator, Mapping
@@ -29,6 +30,8 @@ MAX_BATCH_TICKS = 2160
 """Ticks evaluated together in replay (six hours at 10 s ticks)."""
 BATCH_ROWS = 40_000
 """At most this many (space x tick) rows per batch."""
+STREAM_BATCH_S = 600.0
+"""When events are handed over as they happen, a batch spans at most this much feed time."""
 
 
 class FeedError(ValueError):
@@ -80,13 +83,23 @@ class ReplayResult:
     end: float = math.nan
 
 
-def event_line(payload: dict[str, Any]) -> dict[str, Any]:
-    """The one-line form of an event: when, what, where, which rule, who, how urgent."""
+def local_time(at: str, tz: dt.tzinfo | None) -> str:
+    """An ISO 8601 time (as published, in UTC) in the site's time zone, to the second."""
+    if tz is None:
+        return at
+    when = dt.datetime.fromisoformat(at.replace("Z", "+00:00")).astimezone(tz)
+    return when.isoformat(timespec="seconds")
+
+
+def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str, Any]:
+    """The one-line form of an event: when (in the site's time zone when ``tz`` is given),
+    what, where, which rule, who, how urgent."""
+    at = local_time(payload["at"], tz)
     if payload["event"] == "summary":
-        return {"at": payload["at"], "event": "summary", "space": None, "rule": None,
+        return {"at": at, "event": "summary", "space": None, "rule": None,
                 "audience": payload["audience"], "priority": None, "count": payload["count"]}
     adv = payload["advisory"]
-    line = {"at": payload["at"], "event": payload["event"], "space": adv["space"]["id"],
+    line = {"at": at, "event": payload["event"], "space": adv["space"]["id"],
             "rule": adv["rule"], "audience": adv["audience"], "priority": adv["priority"],
             "advisory_id": adv["id"], "title": adv["title"], "advice": adv["advice"]}
     if adv.get("acted_on"):
@@ -138,13 +151,20 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
            packs: dict[str, CompiledPack] | None = None, base: str | None = None,
            full_events: bool = False, tick_s: float | None = None,
            samples: bool = False, *, settings: Mapping[str, float] | None = None,
-           on_batch: Callable[[Engine, ReplayResult], None] | None = None) -> ReplayResult:
+           on_batch: Callable[[Engine, ReplayResult], None] | None = None,
+           on_event: Callable[[dict[str, Any]], None] | None = None,
+           on_tick: Callable[[float, int], None] | None = None) -> ReplayResult:
     """Replay a feed through a fresh engine; collect every published event.
 
     ``tick_s`` overrides the site's evaluation interval (a coarser tick replays faster;
     delays and windows are still measured in feed time). ``settings`` changes rule
-    parameters (see :func:`apply_settings`). ``on_batch`` is called after each batch of
-    ticks with the engine (``engine.last_batch`` holds the batch's snapshot and indices).
+    parameters (see :func:`apply_settings`). Ticks are evaluated in batches; ``on_batch``
+    is called after each batch with the engine (``engine.last_batch`` holds the batch's
+    snapshot and indices). One-line events carry their time in the site's time zone. With
+    ``on_event`` each event is handed over as its batch runs (batches then span at most
+    ``STREAM_BATCH_S`` of feed time) and not kept in the result (a failure later in the
+    feed loses nothing already handed over); ``on_tick(feed time, messages so far)`` is
+    called after every batch with its last evaluation's time.
     """
     model = build_site_model(config)
     if packs is None:
@@ -160,19 +180,28 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     batch = max(1, min(MAX_BATCH_TICKS, BATCH_ROWS // max(model.n_spaces, 1)))
     captures: list[Capture] = []
 
+    tz = engine.state.tz
+
     def run_ticks() -> None:
         for eff in engine.tick_many(captures):
             if isinstance(eff, Publish) and "/events/" in eff.topic and eff.payload:
-                result.events.append(eff.payload if full_events else event_line(eff.payload))
+                event = eff.payload if full_events else event_line(eff.payload, tz)
+                if on_event is not None:
+                    on_event(event)
+                else:
+                    result.events.append(event)
             elif isinstance(eff, Persist) and eff.kind == "sample" and eff.record:
                 result.samples.append(eff.record)
             elif (isinstance(eff, Persist) and eff.kind == "event" and eff.record
                   and eff.record.get("event") != "summary"):
                 result.raised_events.append(eff.record if full_events
-                                            else event_line(eff.record))
+                                            else event_line(eff.record, tz))
+        last = captures[-1].now if captures else None
         captures.clear()
         if on_batch is not None:
             on_batch(engine, result)
+        if on_tick is not None and last is not None:
+            on_tick(last, result.messages)
 
     last_t = None
     for rec in records:
@@ -181,7 +210,8 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
             result.start = rec.t
         while rec.t >= next_tick:
             captures.append(engine.capture(next_tick))
-            if len(captures) >= batch:
+            if len(captures) >= batch or (on_event is not None
+                                          and next_tick - captures[0].now >= STREAM_BATCH_S):
                 run_ticks()
             next_tick += tick_s
         engine.message(rec.topic, rec.payload, rec.t)

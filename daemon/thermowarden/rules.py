@@ -43,7 +43,7 @@ INPUTS: Final = ("air_temperature", "relative_humidity", "globe_temperature",
     f"plane_radiant_temperature_{s}" for s in radiation.SIDES)
 STATES: Final = ("shading_position", "fan_state", "occupancy")
 HEALTH: Final = ("stale_points", "stuck_points", "implausible_recent", "max_disagreement",
-                 "rules_unknown_long", "points_total")
+                 "rules_unknown_long", "points_total", "failed_phs", "failed_indices")
 TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stuck_detail",
                       "implausible_detail", "disagreement_detail", "rules_unknown_detail",
                       "wbgt_basis", "acted_minutes_ago", "effect_predicted")
@@ -417,6 +417,8 @@ def provided_inputs(model: object) -> list[set[str]]:
         provided[i] |= site_wide | lazy_all
         if model.space(i).kind == "outdoor":
             provided[i] |= outdoor_extra
+        # a declared assumption stands in for a quantity the space does not measure
+        provided[i] |= set(model.config.assumptions(model.space(i)).notes())
     for allowed, names in lazy_some:
         for i in allowed:
             provided[i] |= names

@@ -51,7 +51,11 @@ def retime(payload: Any, old_t: float, new_t: float) -> Any:
                 if k in _TIME_KEYS and isinstance(v, int | float) and not isinstance(v, bool):
                     scale = 1000.0 if v > 1e11 else 1.0
                     if abs(v / scale - old_t) < 3600:
-                        v = type(v)((v / scale + shift) * scale)
+                        # keep sub-second precision: readings a minute apart in the
+                        # scenario are a tenth of a second apart at --speed 450, and a
+                        # stamp truncated to whole seconds would make them duplicates
+                        moved = (v / scale + shift) * scale
+                        v = int(moved) if moved == int(moved) else round(moved, 3)
                 elif k in _TIME_KEYS and isinstance(v, str):
                     try:
                         t = dt.datetime.fromisoformat(v.replace("Z", "+00:00"))

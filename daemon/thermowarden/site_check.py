@@ -2,10 +2,18 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
-from thermowarden.site_model import SITE, SiteModel, build_site_model
+from thermowarden.core.quantities import QUANTITIES
+from thermowarden.site_model import (
+    DEFAULT_STUCK_AFTER_S,
+    SITE,
+    PointSpec,
+    SiteModel,
+    build_site_model,
+)
 
 
 @dataclass
@@ -22,7 +30,7 @@ class CheckReport:
         return not self.issues
 
 
-def check_site(path: str) -> CheckReport:
+def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckReport:
     """Validate the site file, the CSV it refers to, and the rule packs it names."""
     report = CheckReport()
     try:
@@ -56,6 +64,8 @@ def check_site(path: str) -> CheckReport:
                     "no point provides")
     from thermowarden.engine.finishing import unfinishable_rules
 
+    if prepare is not None:
+        prepare()  # the comfort models load (or compile, once) only for a valid site
     for u in unfinishable_rules(report.model, packs):
         if (u.space, u.rule) in lacking:
             continue
@@ -73,6 +83,35 @@ def check_site(path: str) -> CheckReport:
     return report
 
 
+def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
+    """Warnings that differ only in the space they name, as one line each:
+    ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``."""
+    groups: dict[str, list[str]] = {}
+    order: list[str] = []
+    for w in warnings:
+        space, sep, rest = w.partition(": ")
+        if not sep or not space.startswith("space "):
+            key, who = w, ""
+        else:
+            key, who = rest, space.removeprefix("space ")
+        if key not in groups:
+            groups[key] = []
+            order.append(key)
+        if who:
+            groups[key].append(who)
+    lines = []
+    for key in order:
+        ids = groups[key]
+        if not ids:
+            lines.append(key)
+        elif len(ids) == 1:
+            lines.append(f"space {ids[0]}: {key}")
+        else:
+            more = f" and {len(ids) - shown} more" if len(ids) > shown else ""
+            lines.append(f"{len(ids)} spaces ({', '.join(ids[:shown])}{more}): {key}")
+    return lines
+
+
 def resolved_map(model: SiteModel) -> list[str]:
     """space -> quantity -> topic, unit, format, as lines for a person."""
     lines: list[str] = []
@@ -83,6 +122,7 @@ def resolved_map(model: SiteModel) -> list[str]:
         fmt = p.fmt.type
         line = f"    {p.quantity:<26} {p.topic}  [{p.unit or '-'}, {fmt}, every {p.interval_s:g} s"
         line += f", {tags}]" if tags else "]"
+        line += _trust(p)
         by_space.setdefault(p.space, []).append(line)
     if SITE in by_space:
         lines.append(f"site {model.config.site.id} (outdoor, shared)")
@@ -102,3 +142,18 @@ def resolved_map(model: SiteModel) -> list[str]:
             lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "
                          "appear")
     return lines
+
+
+def _trust(p: PointSpec) -> str:
+    """The point's own calibration and limits, when it has any, for the resolved map."""
+    q = QUANTITIES[p.quantity]
+    parts = []
+    if p.scale != 1.0 or p.offset != 0.0:
+        parts.append(f"x {p.scale:g} {p.offset:+g} {q.unit}")
+    if (p.low, p.high) != (q.low, q.high):
+        parts.append(f"plausible {p.low:g}..{p.high:g} {q.unit}")
+    if p.max_change_per_s != float("inf"):
+        parts.append(f"at most {p.max_change_per_s * 60:g} {q.unit}/min")
+    if p.stuck_after_s != DEFAULT_STUCK_AFTER_S:
+        parts.append(f"stuck after {p.stuck_after_s:g} s")
+    return f" ({'; '.join(parts)})" if parts else ""

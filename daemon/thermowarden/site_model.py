@@ -28,6 +28,9 @@ from thermowarden.core.topics import TopicTemplate
 from thermowarden.core.units import converter
 
 MAX_SENSORS_PER_SLOT: Final = 8
+DEFAULT_STUCK_AFTER_S: Final = 3 * 3600.0
+"""A fresh measured point whose value has not changed for this long is stuck (common
+practice, no source); ``stuck_after_s`` per point overrides it."""
 SITE: Final = -1
 """Space index of the site's outdoor points."""
 HEIGHT_WEIGHTS: Final = {"ankle": 1.0, "abdomen": 2.0, "head": 1.0, None: 2.0}
@@ -52,6 +55,12 @@ class PointSpec:
     interval_s: float
     fmt: NumberFormat | JsonFormat | SenmlFormat | StateFormat
     topic: str
+    offset: float = 0.0
+    """Calibration, canonical unit: ``value * scale + offset`` after conversion."""
+    scale: float = 1.0
+    max_change_per_s: float = float("inf")
+    """Largest believable change per second between accepted readings (canonical unit)."""
+    stuck_after_s: float = DEFAULT_STUCK_AFTER_S
 
 
 def _point_key(space_id: str, quantity: str, side: str | None, height: str | None,
@@ -99,10 +108,14 @@ class SiteModel:
         q = QUANTITIES[spec.quantity]
         unit = spec.unit or q.unit
         pid = len(self.points)
+        low = q.low if spec.plausible_min is None else spec.plausible_min
+        high = q.high if spec.plausible_max is None else spec.plausible_max
+        rate = spec.max_change_per_min / 60.0 if spec.max_change_per_min else float("inf")
         self.points.append(PointSpec(key, space, spec.quantity, canonical, spec.height,
                                      sensor if sensor is not None else spec.sensor, unit,
-                                     converter(q.kind, unit), q.low, q.high, spec.interval_s,
-                                     spec.format, topic))
+                                     converter(q.kind, unit), low, high, spec.interval_s,
+                                     spec.format, topic, spec.offset, spec.scale, rate,
+                                     spec.stuck_after_s or DEFAULT_STUCK_AFTER_S))
         self.point_by_key[key] = pid
         for listener in self.listeners:
             listener(pid)

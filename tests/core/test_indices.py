@@ -126,6 +126,7 @@ def test_adaptive_category_and_select():
                            mean_radiant_temperature=np.array([26.0, 31.0]),
                            air_speed=np.array([0.1, 0.1]),
                            running_mean_outdoor=np.array([20.0, 20.0]),
+                           naturally_ventilated=np.array([True, True]),
                            met=np.array([1.2, 1.2]))
     table = compute_indices(s)
     # EN 16798-1: comfort 25.4 °C; 26 °C is within category I, 31 °C outside III (+4 K)

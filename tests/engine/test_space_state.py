@@ -135,6 +135,17 @@ def test_wbgt_time_weighted_over_60_minutes(site):
     assert np.isnan(state.wbgt_time_weighted(NOON + 3 * 3600)[0])  # nothing recorded since
 
 
+def test_wbgt_time_weighted_covers_the_full_60_minutes(site):
+    """The first minute of the hour counts: 60 s at 40 °C then 59 min at 28 °C ->
+    (40 x 60 + 28 x 3540) / 3600 = 28.2 °C [calc]; a 59-minute window would give 28.03."""
+    model, state, ing = site
+    n = model.n_spaces
+    for k in range(361):
+        value = 40.0 if 1 <= k <= 6 else 28.0
+        state.record_wbgt(NOON + 10 * k, np.full(n, value))
+    assert state.wbgt_time_weighted(NOON + 3600)[0] == pytest.approx(28.2, abs=0.005)
+
+
 def test_occupancy_schedule_holiday_and_point(site):
     model, state, ing = site
     snap = state.snapshot(NOON)  # Tuesday 13:00 London

@@ -6,11 +6,20 @@ from __future__ import annotations
 import json
 import subprocess
 import textwrap
+import time
 import uuid
 
 import pytest
 
-from tests.shell.conftest import REPO, Collector, Mosquitto, ServiceProcess, wait_for
+from tests.shell.conftest import (
+    REPO,
+    SLOW,
+    Collector,
+    Mosquitto,
+    ServiceProcess,
+    need_program,
+    wait_for,
+)
 
 pytestmark = pytest.mark.broker
 
@@ -39,10 +48,13 @@ def _site(tmp_path, url, tls=""):
 
 
 def test_sample_acl_least_privilege(tmp_path):
+    mosquitto_passwd = need_program("mosquitto_passwd", "mosquitto")
+    need_program("mosquitto", "mosquitto")
     pw = tmp_path / "passwd"
-    users = {"thermowarden": "tw-secret", "gateway": "gw-secret", "safety-desk": "sd-secret"}
+    users = {"thermowarden": "tw-secret", "gateway": "gw-secret", "safety-desk": "sd-secret",
+             "facilities-desk": "fd-secret", "safety-alice": "sa-secret"}
     for i, (u, p) in enumerate(users.items()):
-        subprocess.run(["mosquitto_passwd", "-b"] + (["-c"] if i == 0 else []) +
+        subprocess.run([mosquitto_passwd, "-b"] + (["-c"] if i == 0 else []) +
                        [str(pw), u, p], check=True, capture_output=True)
     acl = REPO / "deploy" / "broker" / "thermowarden.acl"
     broker = Mosquitto(tmp_path, extra=f"password_file {pw}\nacl_file {acl}\n",
@@ -54,31 +66,67 @@ def test_sample_acl_least_privilege(tmp_path):
     svc = ServiceProcess(site, tmp_path / "state", env={
         "THERMOWARDEN_BROKER__USERNAME": "thermowarden",
         "THERMOWARDEN_BROKER__PASSWORD": users["thermowarden"]})
-    desk = gateway = None
+    desk = gateway = safety = None
     try:
         svc.start()
-        desk = Collector(broker.port, ["thermowarden/larkfield/#"], username="safety-desk",
-                         password=users["safety-desk"])
+        desk = Collector(broker.port, ["thermowarden/larkfield/#"], username="facilities-desk",
+                         password=users["facilities-desk"])
+        safety = Collector(broker.port, [], username="safety-desk",
+                           password=users["safety-desk"])
         gateway = Collector(broker.port, [], username="gateway", password=users["gateway"])
         gateway.publish("larkfield/office-west/air/temperature", "31.2")
         wait_for(lambda: any(e["event"] == "raised" for e in desk.events(
-            "thermowarden/larkfield")), 15, "the raised event under the ACL")
+            "thermowarden/larkfield")), SLOW, "the raised event under the ACL")
         adv = next(e for e in desk.events("thermowarden/larkfield")
                    if e["event"] == "raised")["advisory"]
-        desk.publish("thermowarden/larkfield/commands/acknowledge",
-                     json.dumps({"advisory_id": adv["id"], "by": "safety desk",
+        # the safety desk may not act on a facilities advisory: the broker drops it
+        safety.publish("thermowarden/larkfield/commands/facilities/shelve",
+                       json.dumps({"advisory_id": adv["id"], "by": "sd", "reason": "x",
+                                   "duration_s": 60}))
+        desk.publish("thermowarden/larkfield/commands/facilities/acknowledge",
+                     json.dumps({"advisory_id": adv["id"], "by": "facilities desk",
                                  "request_id": "acl-1"}))
         wait_for(lambda: any(r.get("request_id") == "acl-1" and r["ok"] for r in
-                             desk.json_on("thermowarden/larkfield/replies")), 15,
+                             desk.json_on("thermowarden/larkfield/replies")), SLOW,
                  "the acknowledgement reply")
         assert svc.metric("thermowarden_publish_failures_total") == 0
         # the gateway may not send commands: the broker drops them, nothing changes
-        gateway.publish("thermowarden/larkfield/commands/shelve",
+        gateway.publish("thermowarden/larkfield/commands/facilities/shelve",
                         json.dumps({"advisory_id": adv["id"], "by": "gw", "reason": "x",
                                     "duration_s": 60}))
-        assert svc.metric("thermowarden_commands_total") == 1
+        # a later command from the desk is answered: by then the gateway's one would have
+        # been counted, had the broker let it through
+        desk.publish("thermowarden/larkfield/commands/facilities/unshelve",
+                     json.dumps({"advisory_id": adv["id"], "by": "facilities desk",
+                                 "request_id": "acl-2"}))
+        wait_for(lambda: any(r.get("request_id") == "acl-2" for r in
+                             desk.json_on("thermowarden/larkfield/replies")), SLOW,
+                 "the reply to the desk's second command")
+        assert svc.metric("thermowarden_commands_total") == 2
+        # per person: safety-alice may write only to topics ending in her own name; the
+        # service records that name as who acted, as the broker vouches
+        alice = Collector(broker.port, [], username="safety-alice",
+                          password=users["safety-alice"])
+        wait_for(lambda: any(e["event"] == "raised" and e["advisory"]["audience"] == "safety"
+                             for e in desk.events("thermowarden/larkfield")), SLOW,
+                 "the safety advisory")
+        sadv = next(e for e in desk.events("thermowarden/larkfield")
+                    if e["event"] == "raised" and e["advisory"]["audience"] == "safety")
+        ack = {"advisory_id": sadv["advisory"]["id"], "by": "someone else", "request_id": "p-1"}
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/bob",
+                      json.dumps(ack))  # not her name: the broker drops it
+        alice.publish("thermowarden/larkfield/commands/safety/acknowledge/safety-alice",
+                      json.dumps(ack))
+        wait_for(lambda: any(e["event"] == "acknowledged" and e["advisory"]["audience"] ==
+                             "safety" for e in desk.events("thermowarden/larkfield")), SLOW,
+                 "the acknowledgement by safety-alice")
+        acked = next(e for e in desk.events("thermowarden/larkfield")
+                     if e["event"] == "acknowledged" and e["advisory"]["audience"] == "safety")
+        assert acked["advisory"]["acknowledged"]["identity"] == "safety-alice"
+        assert svc.metric("thermowarden_commands_total") == 3
+        alice.close()
     finally:
-        for c in (desk, gateway):
+        for c in (desk, gateway, safety):
             if c:
                 c.close()
         svc.stop()
@@ -86,7 +134,8 @@ def test_sample_acl_least_privilege(tmp_path):
 
 
 def _openssl(*args: str, cwd) -> None:
-    subprocess.run(["openssl", *args], cwd=cwd, check=True, capture_output=True)
+    subprocess.run([need_program("openssl", "openssl"), *args], cwd=cwd, check=True,
+                   capture_output=True)
 
 
 def make_certs(d):
@@ -103,6 +152,8 @@ def make_certs(d):
 
 
 def test_tls_with_client_certificate(tmp_path):
+    need_program("openssl", "openssl")
+    need_program("mosquitto", "mosquitto")
     certs = tmp_path / "certs"
     certs.mkdir()
     make_certs(certs)
@@ -128,7 +179,7 @@ def test_tls_with_client_certificate(tmp_path):
         watcher = Collector(port, ["thermowarden/larkfield/#"], tls=tls_args)
         watcher.publish("larkfield/office-west/air/temperature", "33")
         wait_for(lambda: any(e["event"] == "raised" for e in watcher.events(
-            "thermowarden/larkfield")), 15, "an event over TLS")
+            "thermowarden/larkfield")), SLOW, "an event over TLS")
     finally:
         if watcher:
             watcher.close()
@@ -146,7 +197,8 @@ def test_tls_with_client_certificate(tmp_path):
         c.tls_set(ca_certs=str(certs / "ca.crt"))
         with pytest.raises((ssl.SSLError, OSError)):
             c.connect("localhost", port, 10)
-            for _ in range(20):
+            deadline = time.monotonic() + SLOW  # the refusal may only arrive on a read
+            while time.monotonic() < deadline:
                 if c.loop(timeout=0.1) != 0:
                     raise OSError("refused")
     finally:

@@ -8,7 +8,7 @@ import time
 
 import pytest
 
-from tests.shell.conftest import Collector
+from tests.shell.conftest import SLOW, Collector, wait_for
 
 
 @pytest.mark.broker
@@ -18,12 +18,11 @@ def test_simulate_publishes_live_in_the_site_formats(system_broker_port):
                              f"mqtt://127.0.0.1:{system_broker_port}", "--speed", "600"],
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     try:
-        deadline = time.time() + 30
-        while time.time() < deadline and len(watcher.json_on("larkfield/roof/weather")) < 2:
-            time.sleep(0.1)
+        wait_for(lambda: len(watcher.json_on("larkfield/roof/weather")) >= 2, SLOW,
+                 "two weather messages")
     finally:
         proc.terminate()
-        proc.wait(10)
+        proc.wait(SLOW)
         watcher.close()
     got = watcher.json_on("larkfield/roof/weather")
     assert len(got) >= 2

@@ -56,6 +56,11 @@ class Applicability:
         for name, values in names_values:
             self.require(~np.isnan(values), f"input missing or stale: {name}")
 
+    def require_from(self, other: Applicability) -> None:
+        """Take over ``other``'s reason wherever this one has none yet."""
+        for code in np.unique(other._codes[other._codes != 0]):
+            self.require(other._codes != code, other._texts[int(code)])
+
     @property
     def ok(self) -> BoolArray:
         """True where the index applies so far."""

@@ -14,10 +14,6 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from numba import float64, vectorize
-from pythermalcomfort.models import clo_tout as _ptc_clo_tout
-from pythermalcomfort.models import pmv_ppd_iso as _ptc_pmv_ppd_iso
-from pythermalcomfort.models.two_nodes_gagge import _gagge_two_nodes_optimized
 
 from thermowarden.core.columns import FloatArray
 from thermowarden.core.solve import IndexArray, illinois
@@ -31,10 +27,12 @@ needed)."""
 
 
 def relative_air_speed(air_speed: FloatArray, met: FloatArray) -> FloatArray:
-    """Relative air speed (m/s) including the body's own movement.
+    """Relative air speed (m/s) by ASHRAE 55's rule for the body's own movement.
 
-    ISO 7730:2005 (C.2) and ASHRAE 55-2020 (5.3.2.1) use the same rule:
-    vr = v + 0.3 (M - 1) for M > 1 met, else v.
+    ASHRAE 55-2020 5.3.2 (and its Appendix B): vr = v + 0.3 (M - 1) for M > 1 met, else v,
+    with v the average air speed. This is ASHRAE 55's rule only: ISO 7730:2005 takes the
+    relative air speed as an input (Table D.1, Annex E) and has no such addition, so the
+    ISO 7730 PMV gets a measured relative air speed, or the air speed itself.
     """
     v = np.asarray(air_speed, dtype=np.float64)
     m = np.asarray(met, dtype=np.float64)
@@ -43,11 +41,13 @@ def relative_air_speed(air_speed: FloatArray, met: FloatArray) -> FloatArray:
 
 
 def dynamic_clothing(clo: FloatArray, met: FloatArray) -> FloatArray:
-    """Dynamic clothing insulation (clo) for active people.
+    """Dynamic clothing insulation (clo) for active people, ASHRAE 55's rule.
 
-    ASHRAE 55-2020 5.2.2.2: Icl,dyn = Icl (0.6 + 0.4 / M) for M > 1.2 met. We apply this rule
-    before both PMV variants (ISO 9920's correction is similar in size but needs walking
-    speed, which a building sensor does not know).
+    ASHRAE 55-2020 5.2.2.2: Icl,dyn = Icl (0.6 + 0.4 / M) for M > 1.2 met. Used for the
+    ASHRAE 55 PMV and its cooling effect only. ISO 7730:2005 uses the static (basic)
+    clothing insulation (its Table D.1 and Annex E are computed that way; its own
+    correction for clothing in motion is ISO 9920's, which needs walking speed), and SET
+    (ASHRAE 55 Appendix D) is computed with the static clothing, as in its check table.
     """
     c = np.asarray(clo, dtype=np.float64)
     m = np.asarray(met, dtype=np.float64)
@@ -65,6 +65,8 @@ def clothing_from_outdoor(outdoor_6am_c: FloatArray) -> FloatArray:
     ok = np.isfinite(t)
     out = np.full(t.shape, np.nan)
     if ok.any():
+        from pythermalcomfort.models import clo_tout as _ptc_clo_tout
+
         out[ok] = np.asarray(_ptc_clo_tout(tout=t[ok]).clo_tout, dtype=np.float64)
     return out
 
@@ -84,6 +86,8 @@ def pmv_fanger(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: 
     ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(rel_speed) & np.isfinite(rh)
           & np.isfinite(met) & np.isfinite(clo))
     if ok.any():
+        from pythermalcomfort.models import pmv_ppd_iso as _ptc_pmv_ppd_iso
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             res = _ptc_pmv_ppd_iso(tdb=air_c[ok], tr=mrt_c[ok], vr=rel_speed[ok], rh=rh[ok],
@@ -93,54 +97,8 @@ def pmv_fanger(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: 
     return out
 
 
-BODY_SURFACE_AREA_SET = 1.8258
-"""m²: the body surface area pythermalcomfort's ``set_tmp`` uses by default."""
-
-
-_SET_SIGNATURE = [float64(float64, float64, float64, float64, float64, float64, float64)]
-
-
-@vectorize(_SET_SIGNATURE, target="parallel", cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
-def _set_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
-                  vapor_pressure_torr: float, p_atm: float) -> float:  # pragma: no cover - numba
-    """SET of a standing person, compiled as a numpy ufunc over all cores.
-
-    pythermalcomfort 4.8.0 compiles only the cooling-effect variant as a (single-threaded)
-    ufunc; its public ``set_tmp`` loops over spaces in Python for the plain SET (about
-    8 us per space). This calls the same pinned two-node kernel for all spaces in compiled
-    code; a test checks it against ``set_tmp``. Call it from one thread at a time (numba's
-    default threading layer is not re-entrant): the engine thread is the only caller.
-    """
-    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
-                                      BODY_SURFACE_AREA_SET, p_atm, 1, False)[0]
-
-
-@vectorize(_SET_SIGNATURE, target="parallel", cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
-def _set_for_ce_compiled(tdb: float, tr: float, v: float, met: float, clo: float,
-                         vapor_pressure_torr: float, p_atm: float
-                         ) -> float:  # pragma: no cover - numba
-    """The SET variant ASHRAE 55's cooling effect uses (``set_tmp(calculate_ce=True)``)."""
-    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
-                                      BODY_SURFACE_AREA_SET, p_atm, 1, True)[0]
-
-
-@vectorize(_SET_SIGNATURE, cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
-def _set_compiled_serial(tdb: float, tr: float, v: float, met: float, clo: float,
-                         vapor_pressure_torr: float, p_atm: float
-                         ) -> float:  # pragma: no cover - numba
-    """:func:`_set_compiled` on one core, for small batches (thread start-up costs more)."""
-    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
-                                      BODY_SURFACE_AREA_SET, p_atm, 1, False)[0]
-
-
-@vectorize(_SET_SIGNATURE, cache=True)  # type: ignore[untyped-decorator, no-untyped-call]
-def _set_for_ce_compiled_serial(tdb: float, tr: float, v: float, met: float, clo: float,
-                                vapor_pressure_torr: float, p_atm: float
-                                ) -> float:  # pragma: no cover - numba
-    """:func:`_set_for_ce_compiled` on one core, for small batches."""
-    return _gagge_two_nodes_optimized(tdb, tr, v, met, clo, vapor_pressure_torr, 0.0,  # type: ignore[no-any-return]
-                                      BODY_SURFACE_AREA_SET, p_atm, 1, True)[0]
-
+# pythermalcomfort and the compiled SET kernels (core/set_kernels.py) are imported where
+# they are used: loading them costs seconds, and `check` or a parse error needs neither.
 
 PARALLEL_FROM = 512
 """Batches of at least this many spaces use the multi-core SET kernels."""
@@ -167,12 +125,14 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
           & np.isfinite(met) & np.isfinite(clo))
     if not ok.any():
         return out
+    from thermowarden.core import set_kernels as k
+
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
     big = int(ok.sum()) >= PARALLEL_FROM
     if for_cooling_effect:
-        kernel = _set_for_ce_compiled if big else _set_for_ce_compiled_serial
+        kernel = k.set_for_ce_compiled if big else k.set_for_ce_compiled_serial
     else:
-        kernel = _set_compiled if big else _set_compiled_serial
+        kernel = k.set_compiled if big else k.set_compiled_serial
     ta = air_c[ok]
     vp = rh[ok] * _p_sat_torr(ta) / 100.0
     with np.errstate(all="ignore"):

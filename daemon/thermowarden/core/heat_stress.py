@@ -13,9 +13,9 @@ import warnings
 from typing import Final
 
 import numpy as np
-from pythermalcomfort.models import phs as _ptc_phs
 
 from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.solve import IndexArray, illinois
 
 BODY_SURFACE_AREA_M2: Final = 1.8
 """Standard person of ISO 7243:2017 Annex A and ISO 8996."""
@@ -39,6 +39,28 @@ CLOTHING_ADJUSTMENTS_K: Final[dict[str, float]] = {
     "polyolefin_coveralls": 1.0,
     "limited_use_vapour_barrier_coveralls": 11.0,
 }
+
+POSTURES: Final = ("standing", "seated", "crouching")
+"""Canonical postures (ISO 7726 radiant weights; ISO 7933 PHS)."""
+
+POSTURE_SPELLINGS: Final[dict[str, str]] = {
+    "standing": "standing", "stand": "standing", "upright": "standing",
+    "seated": "seated", "sitting": "seated", "sit": "seated",
+    "crouching": "crouching", "crouch": "crouching", "crouched": "crouching",
+    "squatting": "crouching",
+}
+"""Common spellings a site or a user may write, mapped to :data:`POSTURES`."""
+
+_PHS_POSTURE: Final = {"standing": "standing", "seated": "sitting", "crouching": "crouching"}
+"""The words pythermalcomfort's PHS model expects."""
+
+
+def canonical_posture(name: object) -> str | None:
+    """The canonical posture for a spelling (case and spaces ignored), or None."""
+    if not isinstance(name, str):
+        return None
+    return POSTURE_SPELLINGS.get(name.strip().lower())
+
 
 REFERENCE_METHOD: Final = "ISO 7243:2017 Annex A (= NIOSH 2016 REL/RAL)"
 
@@ -67,23 +89,110 @@ def wbgt(natural_wet_bulb: FloatArray, globe: FloatArray, air: FloatArray | None
     return result
 
 
-def natural_wet_bulb_indoor(air_c: FloatArray, psychrometric_wet_bulb_c: FloatArray,
-                            air_speed: FloatArray) -> FloatArray:
-    """Natural wet-bulb temperature (°C) estimated indoors without radiant load.
+# Natural wet-bulb temperature: the energy balance of a wetted wick, Liljegren et al. (2008).
+# Constants of the paper (and of its reference C code): wick, air and water properties.
+_WICK_DIAMETER_M: Final = 0.007
+_WICK_EMISSIVITY: Final = 0.95
+_MIN_SPEED: Final = 0.13
+"""m/s: Liljegren et al. take lower air speeds as 0.13 m/s (the wick's own free convection
+dominates there)."""
+_R_GAS: Final = 8314.34  # J/(kmol K)
+_M_AIR: Final = 28.97
+_M_H2O: Final = 18.015
+_R_AIR: Final = _R_GAS / _M_AIR
+_CP: Final = 1003.5  # J/(kg K), dry air
+_PRANDTL: Final = _CP / (_CP + 1.25 * _R_AIR)
+_RATIO: Final = _CP * _M_AIR / _M_H2O
+_STEFAN_BOLTZMANN: Final = 5.670374e-8
 
-    Bernard and Pourmoghani (1999), "Prediction of workplace wet bulb global temperature",
-    Appl. Occup. Environ. Hyg. 14:126-134, in the form used by Lemke and Kjellstrom (2012)
-    for indoor workplaces (equation recalled from memory, not yet checked against the paper):
-    tnw = 0.67 tpwb + 0.33 ta - 0.048 log10(va) (ta - tpwb), va in m/s.
-    Limits: indoors only, globe within 1 K of air temperature (no radiant load: the model
-    has no radiant term), va 0.1-3 m/s (va is clamped to that range). Outdoors, or near hot
-    surfaces, a natural wet-bulb sensor is required.
-    """
-    ta = np.asarray(air_c, dtype=np.float64)
-    twb = np.asarray(psychrometric_wet_bulb_c, dtype=np.float64)
-    va = np.clip(np.asarray(air_speed, dtype=np.float64), 0.1, 3.0)
-    result: FloatArray = 0.67 * twb + 0.33 * ta - 0.048 * np.log10(va) * (ta - twb)
+
+def _viscosity(t_k: FloatArray) -> FloatArray:
+    """Dynamic viscosity of air (kg/(m s)), Bird, Stewart and Lightfoot, as in Liljegren."""
+    omega = (t_k / 97.0 - 2.9) / 0.4 * (-0.034) + 1.048
+    result: FloatArray = 2.6693e-6 * np.sqrt(_M_AIR * t_k) / (3.617**2 * omega)
     return result
+
+
+def _diffusivity(t_k: FloatArray, p_hpa: FloatArray) -> FloatArray:
+    """Diffusivity of water vapour in air (m²/s), Bird, Stewart and Lightfoot eq. 16.3-1."""
+    t_crit12 = (132.0 * 647.3) ** 0.5
+    p_crit13 = (36.4 * 218.0) ** (1.0 / 3.0)
+    t_crit512 = (132.0 * 647.3) ** (5.0 / 12.0)
+    m_mix = (1.0 / _M_AIR + 1.0 / _M_H2O) ** 0.5
+    result: FloatArray = (3.640e-4 * (t_k / t_crit12) ** 2.334 * p_crit13 * t_crit512 * m_mix
+                          / (p_hpa / 1013.25) * 1e-4)
+    return result
+
+
+def _heat_of_evaporation(t_k: FloatArray) -> FloatArray:
+    """Latent heat of evaporation of water (J/kg), linear in 283-313 K (Van Wylen and Sonntag)."""
+    result: FloatArray = (313.15 - t_k) / 30.0 * (-71100.0) + 2407300.0
+    return result
+
+
+def natural_wet_bulb_liljegren(air_c: FloatArray, rh: FloatArray, air_speed: FloatArray,
+                               mean_radiant_c: FloatArray,
+                               pressure_pa: FloatArray | float = 101_325.0) -> FloatArray:
+    """Natural wet-bulb temperature (°C) from the energy balance of a wetted wick.
+
+    Liljegren J.C., Carhart R.A., Lawday P., Tschopp S., Sharp R. (2008), "Modeling the wet
+    bulb globe temperature using standard meteorological measurements", J. Occup. Environ.
+    Hyg. 5:645-655, eq. for the natural wet bulb: the wick (a 7 mm cylinder of emissivity
+    0.95) loses heat by evaporation into the air and gains it by convection (Bedingfield and
+    Drew's cylinder correlation, Nu = 0.281 Re^0.6 Pr^0.44) and by radiation:
+
+        Tw = Ta - (dHvap / ratio) (ew - ea) / (P - ew) (Pr / Sc)^0.56 + F / h,
+
+    properties at the mean of Tw and Ta. The paper writes the radiation F from solar
+    irradiance, sun angle and sky and ground emission; here the wick exchanges radiation
+    with the **mean radiant temperature** (F = sigma eps (Tr^4 - Tw^4)), which a globe
+    measures indoors and outdoors, sun included. That differs from the paper in one
+    respect: the wick's (cylinder's) view of the direct sun is taken as the globe's
+    (sphere's). Air speed below 0.13 m/s is taken as 0.13 m/s, as in the paper. Vapour
+    pressures: ASHRAE 2017 saturation over liquid water (the wick is wet). Solved for all
+    spaces at once (bracketed regula falsi, to 0.001 K). NaN where an input is missing.
+    """
+    from thermowarden.core.psychrometrics import saturation_pressure_water
+
+    ta = np.asarray(air_c, dtype=np.float64)
+    n = ta.shape[0]
+    out = np.full(n, np.nan)
+    p_all = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
+    ok = (np.isfinite(ta) & np.isfinite(rh) & np.isfinite(air_speed)
+          & np.isfinite(mean_radiant_c) & np.isfinite(p_all))
+    idx = np.flatnonzero(ok)
+    if idx.size == 0:
+        return out
+    ta_k = ta[idx] + 273.15
+    tr_k = np.asarray(mean_radiant_c, dtype=np.float64)[idx] + 273.15
+    p_hpa = p_all[idx] / 100.0
+    ea = np.asarray(rh, dtype=np.float64)[idx] / 100.0 * saturation_pressure_water(ta[idx]) / 100.0
+    v = np.maximum(np.asarray(air_speed, dtype=np.float64)[idx], _MIN_SPEED)
+
+    def residual(tw_c: FloatArray, sub: IndexArray) -> FloatArray:
+        tw = tw_c + 273.15
+        t_ref = 0.5 * (tw + ta_k[sub])
+        mu = _viscosity(t_ref)
+        density = p_hpa[sub] * 100.0 / (_R_AIR * t_ref)
+        reynolds = v[sub] * density * _WICK_DIAMETER_M / mu
+        nusselt = 0.281 * reynolds ** 0.6 * _PRANDTL ** 0.44
+        h = nusselt * (_CP + 1.25 * _R_AIR) * mu / _WICK_DIAMETER_M
+        schmidt = mu / (density * _diffusivity(t_ref, p_hpa[sub]))
+        ew = saturation_pressure_water(tw_c) / 100.0
+        radiation = _STEFAN_BOLTZMANN * _WICK_EMISSIVITY * (tr_k[sub] ** 4 - tw ** 4)
+        balance = (ta_k[sub] - _heat_of_evaporation(t_ref) / _RATIO * (ew - ea[sub])
+                   / (p_hpa[sub] - ew) * (_PRANDTL / schmidt) ** 0.56 + radiation / h)
+        result: FloatArray = balance - tw
+        return result
+
+    all_sub = np.arange(idx.size)
+    lo = np.full(idx.size, -40.0)
+    # the wick stays below boiling: bracket up to 20 K above the air at most
+    hi = np.minimum(np.maximum(ta[idx], tr_k - 273.15) + 5.0, ta[idx] + 20.0)
+    tw = illinois(residual, lo, hi, residual(lo, all_sub), residual(hi, all_sub),
+                  tolerance=1e-3, max_iterations=100, residual_tolerance=1e-4)
+    out[idx] = tw
+    return out
 
 
 def reference_acclimatised(metabolic_w: FloatArray) -> FloatArray:
@@ -118,7 +227,8 @@ def predicted_heat_strain(air_c: FloatArray, mrt_c: FloatArray, air_speed: Float
     Returns rectal temperature at the end of the work period (°C), sweat loss (g), and the
     allowable exposure durations (min) limited by rectal temperature and by water loss for
     a mean (50 %) and a 95 % worker. Drinking freely, 75 kg, 1.8 m, no external work.
-    ``edition`` is "2023" (default) or "2004"; ``acclimatised`` 1/0 per space.
+    ``edition`` is "2023" (default) or "2004"; ``acclimatised`` 1/0 per space; ``posture``
+    any spelling of :data:`POSTURE_SPELLINGS` (NaN for a posture it does not know).
     """
     n = np.asarray(air_c).shape[0]
     keys = ("t_re", "sweat_loss_g", "d_lim_t_re", "d_lim_loss_50", "d_lim_loss_95")
@@ -128,14 +238,18 @@ def predicted_heat_strain(air_c: FloatArray, mrt_c: FloatArray, air_speed: Float
     ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(air_speed) & np.isfinite(rh)
           & np.isfinite(met_w_m2) & np.isfinite(clo))
     met = np.asarray(met_w_m2) / 58.15
+    phs_posture = [_PHS_POSTURE.get(canonical_posture(p) or "", "") for p in posture]
+    ok = ok & np.array([bool(p) for p in phs_posture], dtype=bool)
     for accl_value in (1.0, 0.0):
         sel = np.flatnonzero(ok & (np.asarray(acclimatised) == accl_value))
         if sel.size == 0:
             continue
+        from pythermalcomfort.models import phs as _ptc_phs  # costly to import: only here
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             res = _ptc_phs(tdb=air_c[sel], tr=mrt_c[sel], v=air_speed[sel], rh=rh[sel],
-                           met=met[sel], clo=clo[sel], posture=[posture[i] for i in sel],
+                           met=met[sel], clo=clo[sel], posture=[phs_posture[i] for i in sel],
                            model=f"7933-{edition}", round_output=False, limit_inputs=False,
                            acclimatized=100 if accl_value else 0, duration=duration_min)
         for k in keys:

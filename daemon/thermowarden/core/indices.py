@@ -44,6 +44,11 @@ class SpaceInputs:
     globe_temperature: FloatArray
     mean_radiant_temperature: FloatArray
     air_speed: FloatArray
+    """Mean air speed measured in the space (m/s), ISO 7726 (over about 3 minutes)."""
+    relative_air_speed: FloatArray
+    """Air speed relative to the moving body (m/s) where a user knows it; NaN otherwise."""
+    air_speed_height_m: FloatArray
+    """Height of the air speed (wind) measurement above ground (m); UTCI needs 10 m."""
     turbulence_intensity: FloatArray
     natural_wet_bulb: FloatArray
     psychrometric_wet_bulb: FloatArray
@@ -58,7 +63,8 @@ class SpaceInputs:
     plane_radiant: dict[str, FloatArray]
     """Side (:data:`radiation.SIDES`) -> plane radiant temperature (°C)."""
     met: FloatArray
-    """Metabolic rate, met (1 met = 58.15 W/m²)."""
+    """Metabolic rate, met (1 met = 58.15 W/m²); NaN where not given (then no heat-stress
+    reference values, and the comfort indices assume 1.2 met and say so)."""
     clo: FloatArray
     """Basic clothing insulation, clo; NaN -> predicted from the outdoor temperature."""
     acclimatised: BoolArray
@@ -72,18 +78,20 @@ class SpaceInputs:
     clothing_adjustment_k: FloatArray
     target_pmv: FloatArray
     posture: tuple[str, ...] = field(default=())
-    phs_edition: str = "2023"
+    phs_edition: str | tuple[str, ...] = "2023"
+    """ISO 7933 edition, "2023" or "2004": one for every space, or one per space."""
 
     @classmethod
     def create(cls, n: int, **given: object) -> SpaceInputs:
         """Inputs for ``n`` spaces; every field not in ``given`` gets its default.
 
-        Defaults: measured quantities absent; met 1.2; clo absent; acclimatised false;
+        Defaults: measured quantities absent; met absent; air speed measured at 1.1 m (ISO
+        7726 abdomen height of a standing person); clo absent; acclimatised false;
         indoor true; no solar load; not hot work; mechanically ventilated; 101325 Pa;
         150 mm globe of emissivity 0.95; no clothing adjustment; target PMV +0.5; standing.
         """
         defaults: dict[str, object] = {
-            "met": np.full(n, 1.2), "acclimatised": np.zeros(n, dtype=bool),
+            "air_speed_height_m": np.full(n, 1.1), "acclimatised": np.zeros(n, dtype=bool),
             "indoor": np.ones(n, dtype=bool), "solar_load": np.zeros(n, dtype=bool),
             "hot_work": np.zeros(n, dtype=bool),
             "naturally_ventilated": np.zeros(n, dtype=bool),
@@ -117,7 +125,8 @@ IndexTable = dict[str, IndexColumn]
 
 
 def _between(x: FloatArray, lo: float, hi: float) -> BoolArray:
-    result: BoolArray = (x >= lo) & (x <= hi)
+    """lo <= x <= hi, with a tolerance of :data:`UPPER_TOLERANCE` at both ends."""
+    result: BoolArray = (x >= lo - UPPER_TOLERANCE) & (x <= hi + UPPER_TOLERANCE)
     return result
 
 
@@ -141,14 +150,23 @@ def _psychrometrics(s: SpaceInputs, out: IndexTable) -> FloatArray:
     app.require(np.isfinite(s.relative_humidity) | np.isfinite(s.psychrometric_wet_bulb),
                 "input missing or stale: relative_humidity (or psychrometric_wet_bulb)")
     app.require_present([("air_temperature", s.air_temperature)])
-    app.require(np.isfinite(rh), "wet bulb above dry bulb: impossible psychrometer reading")
+    pair = np.isnan(s.relative_humidity) & np.isfinite(s.psychrometric_wet_bulb)
+    app.require(~(pair & (s.psychrometric_wet_bulb > s.air_temperature + 1e-9)),
+                "wet bulb above dry bulb: impossible psychrometer reading")
+    app.require(~(pair & ~np.isfinite(rh)), "psychrometer wet bulb too low for its dry bulb "
+                "(it would mean less than no moisture): check that the wick is wet and "
+                "ventilated")
     out["relative_humidity"] = app.column(rh, "%", relative_humidity_method(
         np.isfinite(s.relative_humidity)))
     ok = app.ok
     ta = np.where(ok, s.air_temperature, np.nan)
     rh_ok = np.where(ok, rh, np.nan)
     method_psy = "ASHRAE Handbook Fundamentals 2017 ch. 1"
-    out["dew_point"] = app.column(psy.dew_point(ta, rh_ok), "°C", method_psy)
+    dp_app = Applicability(n)
+    dp_app.require_from(app)
+    dp_app.require(~(rh_ok <= 0.0), "no dew point in perfectly dry air (relative humidity 0 %)")
+    out["dew_point"] = dp_app.column(psy.dew_point(ta, rh_ok), "°C",
+                                     method_psy + " (over water, also below 0 °C)")
     out["wet_bulb"] = app.column(psy.wet_bulb(ta, rh_ok, s.pressure_pa), "°C", method_psy)
     out["humidity_ratio"] = app.column(psy.humidity_ratio(ta, rh_ok, s.pressure_pa), "kg/kg",
                                        method_psy)
@@ -166,15 +184,27 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
                       for p in ("standing", "seated")}
         seated = np.array([p == "seated" for p in s.posture], dtype=bool)
         from_planes = np.where(seated, by_posture["seated"], by_posture["standing"])
-    speed_for_globe = np.where(np.isfinite(s.air_speed), s.air_speed, 0.0)
     from_globe = radiation.mean_radiant_from_globe(s.globe_temperature, s.air_temperature,
-                                                   speed_for_globe, s.globe_diameter_m,
+                                                   s.air_speed, s.globe_diameter_m,
                                                    s.globe_emissivity)
-    mrt = np.where(np.isfinite(s.mean_radiant_temperature), s.mean_radiant_temperature,
-                   np.where(np.isfinite(from_globe), from_globe, from_planes))
+    measured = np.isfinite(s.mean_radiant_temperature)
+    globe_cold = s.air_temperature - s.globe_temperature > GLOBE_COLDER_LIMIT_K
+    use_globe = ~measured & np.isfinite(s.globe_temperature)
+    use_planes = ~measured & ~use_globe & np.isfinite(from_planes)
+    mrt = np.where(measured, s.mean_radiant_temperature,
+                   np.where(use_globe, from_globe, from_planes))
     app = Applicability(n)
-    app.require(np.isfinite(mrt), "input missing or stale: mean_radiant_temperature (or "
-                "globe_temperature with air_temperature, or six plane radiant temperatures)")
+    app.require(measured | use_globe | use_planes, "input missing or stale: "
+                "mean_radiant_temperature (or globe_temperature with air_temperature and "
+                "air_speed, or six plane radiant temperatures)")
+    app.require(~use_globe | np.isfinite(s.air_temperature),
+                "input missing or stale: air_temperature (needed with the globe)")
+    app.require(~use_globe | np.isfinite(s.air_speed),
+                "input missing or stale: air_speed (the globe's convective exchange depends "
+                "on it; ISO 7726 Annex B; no still air is assumed)")
+    app.require(~(use_globe & globe_cold), "globe more than 5 K colder than the air: check the "
+                "globe sensor (wet, not yet settled, or misplaced); no mean radiant temperature")
+    app.require(np.isfinite(mrt), "no finite mean radiant temperature from these inputs")
     out["mean_radiant_temperature"] = app.column(
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
         "convection; six planes: posture weights)")
@@ -187,6 +217,12 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
     out["operative_temperature"] = op_app.column(operative, "°C",
                                                  "ASHRAE 55-2020 Appendix A (A = 0.5/0.6/0.7)")
     return np.where(app.ok, mrt, np.nan), np.where(op_app.ok, operative, np.nan)
+
+
+GLOBE_COLDER_LIMIT_K: Final = 5.0
+"""A globe more than this colder than the air gives no mean radiant temperature (a check
+of the sensor: rooms and even a clear night sky rarely put a globe that far below the air;
+decision, common practice, no source)."""
 
 
 def _asymmetry(s: SpaceInputs, out: IndexTable) -> None:
@@ -218,9 +254,15 @@ def _asymmetry(s: SpaceInputs, out: IndexTable) -> None:
     out["radiant_asymmetry_vertical"] = app.column(vertical, "K", method)
     out["radiant_asymmetry"] = app.column(asym, "K", method)
     out["radiant_asymmetry_pd"] = app.column(pd, "%", method)
+    cat_wall = np.where(horizontal >= 0,
+                        local_discomfort.category(np.abs(horizontal), "asymmetry_warm_wall"),
+                        local_discomfort.category(np.abs(horizontal), "asymmetry_cool_wall"))
+    cat_ceiling = np.where(vertical >= 0,
+                           local_discomfort.category(np.abs(vertical), "asymmetry_warm_ceiling"),
+                           local_discomfort.category(np.abs(vertical), "asymmetry_cool_ceiling"))
     out["radiant_asymmetry_category"] = app.column(
-        local_discomfort.category(pd, "radiant_asymmetry"), "category", "ISO 7730:2005 Table A.4",
-        ISO_CATEGORY_LABELS)
+        np.fmax(cat_wall, cat_ceiling), "category",
+        "ISO 7730:2005 Table A.4 (limits on the asymmetry, K)", ISO_CATEGORY_LABELS)
 
 
 def _local_discomfort(s: SpaceInputs, out: IndexTable) -> None:
@@ -250,8 +292,8 @@ def _local_discomfort(s: SpaceInputs, out: IndexTable) -> None:
                                                         "minus ankle 0.1 m, seated)")
     out["vertical_temperature_difference_pd"] = app.column(pd_v, "%", "ISO 7730:2005 6.3")
     out["vertical_temperature_difference_category"] = app.column(
-        local_discomfort.category(pd_v, "vertical"), "category", "ISO 7730:2005 Table A.3",
-        ISO_CATEGORY_LABELS)
+        local_discomfort.category(dv, "vertical_difference"), "category",
+        "ISO 7730:2005 Table A.2 (limits on the difference, K)", ISO_CATEGORY_LABELS)
 
     app = Applicability(n)
     app.require_present([("floor_temperature", s.floor_temperature)])
@@ -259,9 +301,9 @@ def _local_discomfort(s: SpaceInputs, out: IndexTable) -> None:
                 "outside ISO 7730 range: floor_temperature 10-40 °C")
     pd_f = local_discomfort.floor_temperature_pd(s.floor_temperature)
     out["floor_temperature_pd"] = app.column(pd_f, "%", "ISO 7730:2005 6.4")
-    out["floor_temperature_category"] = app.column(local_discomfort.category(pd_f, "floor"),
-                                                   "category", "ISO 7730:2005 Table A.3",
-                                                   ISO_CATEGORY_LABELS)
+    out["floor_temperature_category"] = app.column(
+        local_discomfort.floor_category(s.floor_temperature), "category",
+        "ISO 7730:2005 Table A.3 (floor surface temperature ranges)", ISO_CATEGORY_LABELS)
 
 
 def _people(s: SpaceInputs) -> tuple[FloatArray, FloatArray, str]:
@@ -272,15 +314,36 @@ def _people(s: SpaceInputs) -> tuple[FloatArray, FloatArray, str]:
     return clo, predicted, "configured, or Schiavon and Lee (2013) from the outdoor temperature"
 
 
+COMFORT_MET_ASSUMED: Final = 1.2
+"""met assumed for the comfort indices where no metabolic rate is given (sedentary office
+work, ISO 7730:2005 Table B.1 / ASHRAE 55-2020 Table 5.2.1.2). Never used for heat stress."""
+
+UPPER_TOLERANCE: Final = 1e-9
+"""Added to range limits so that a value equal to a limit up to rounding (for example
+33.50000000000001 from a running mean) is inside it."""
+
+
+def _comfort_met(s: SpaceInputs) -> FloatArray:
+    result: FloatArray = np.where(np.isfinite(s.met), s.met, COMFORT_MET_ASSUMED)
+    return result
+
+
 def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatArray,
              out: IndexTable) -> None:
     n = s.n
     clo, _, _ = _people(s)
-    met = s.met
-    vr = comfort.relative_air_speed(s.air_speed, met)
+    met = _comfort_met(s)
+    assumed = "; 1.2 met assumed where no metabolic rate is given"
+    given_vr = np.isfinite(s.relative_air_speed)
+    # ISO 7730: the relative air speed as given, else the measured air speed (no
+    # addition for body movement: ISO 7730 has none); static clothing.
+    vr_iso = np.where(given_vr, s.relative_air_speed, s.air_speed)
+    # ASHRAE 55: its own rules for relative speed and dynamic clothing.
+    vr_ash = np.where(given_vr, s.relative_air_speed, comfort.relative_air_speed(s.air_speed, met))
     clo_d = comfort.dynamic_clothing(clo, met)
     inputs_present = [("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
-                      ("air_speed", s.air_speed), ("relative_humidity", rh)]
+                      ("air_speed", np.where(given_vr, s.relative_air_speed, s.air_speed)),
+                      ("relative_humidity", rh)]
 
     iso = Applicability(n)
     iso.require(s.indoor, "PMV applies to indoor spaces")
@@ -291,17 +354,19 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
                 "outside ISO 7730 range: air_temperature 10-30 °C")
     iso.require(_between(mrt, 10.0, 40.0),
                 "outside ISO 7730 range: mean_radiant_temperature 10-40 °C")
-    iso.require(_between(vr, 0.0, 1.0), "outside ISO 7730 range: relative air speed 0-1 m/s")
-    iso.require(psy.vapour_pressure(s.air_temperature, rh) <= 2700.0,
+    iso.require(_between(vr_iso, 0.0, 1.0), "outside ISO 7730 range: relative air speed 0-1 m/s")
+    iso.require(psy.vapour_pressure(s.air_temperature, rh) <= 2700.0 + UPPER_TOLERANCE,
                 "outside ISO 7730 range: water vapour pressure above 2700 Pa")
     iso.require(_between(met, 0.8, 4.0), "outside ISO 7730 range: met 0.8-4")
-    iso.require(_between(clo_d, 0.0, 2.0), "outside ISO 7730 range: clo 0-2")
+    iso.require(_between(clo, 0.0, 2.0), "outside ISO 7730 range: clo 0-2")
     ok = iso.ok
-    pmv_i = comfort.pmv_fanger(np.where(ok, s.air_temperature, np.nan), mrt, vr, rh, met, clo_d)
+    pmv_i = comfort.pmv_fanger(np.where(ok, s.air_temperature, np.nan), mrt, vr_iso, rh, met,
+                               clo)
     iso.require(_between(pmv_i, -2.0, 2.0) | ~np.isfinite(pmv_i),
                 "outside ISO 7730 range: PMV beyond ±2 (use a heat or cold stress index)")
     ppd_i = comfort.ppd_from_pmv(pmv_i)
-    method_iso = "ISO 7730:2005 (vr = v + 0.3 (M - 1); ASHRAE 55 dynamic clothing)"
+    method_iso = ("ISO 7730:2005 (relative_air_speed where given, else the measured air "
+                  "speed; static clothing" + assumed + ")")
     out["pmv_iso"] = iso.column(pmv_i, "1", method_iso)
     out["ppd_iso"] = iso.column(ppd_i, "%", "ISO 7730:2005 eq. (5)")
     out["comfort_category_iso"] = iso.column(local_discomfort.category(ppd_i, "ppd"), "category",
@@ -316,36 +381,69 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
                 "outside ASHRAE 55 range: air_temperature 10-40 °C")
     ash.require(_between(mrt, 10.0, 40.0),
                 "outside ASHRAE 55 range: mean_radiant_temperature 10-40 °C")
-    ash.require(_between(vr, 0.0, 2.0), "outside ASHRAE 55 range: relative air speed 0-2 m/s")
+    ash.require(_between(vr_ash, 0.0, 2.0), "outside ASHRAE 55 range: relative air speed 0-2 m/s")
     ash.require(_between(met, 1.0, 2.0), "outside ASHRAE 55 scope: met 1.0-2.0")
     ash.require(_between(clo_d, 0.0, 1.5), "outside ASHRAE 55 scope: clo 0-1.5")
     ok = ash.ok
     ta_a = np.where(ok, s.air_temperature, np.nan)
-    ce = comfort.cooling_effect(ta_a, mrt, vr, rh, met, clo_d)
-    pmv_a = comfort.pmv_ashrae(ta_a, mrt, vr, rh, met, clo_d, ce)
-    method_a = "ASHRAE 55-2020 5.3 (SET-based cooling effect above 0.1 m/s)"
+    ce = comfort.cooling_effect(ta_a, mrt, vr_ash, rh, met, clo_d)
+    pmv_a = comfort.pmv_ashrae(ta_a, mrt, vr_ash, rh, met, clo_d, ce)
+    ash.require(_between(pmv_a, -3.0, 3.0) | ~np.isfinite(pmv_a),
+                "outside ASHRAE 55 scope: PMV beyond ±3, the end of the seven-point "
+                "sensation scale (use a heat or cold stress index)")
+    method_a = ("ASHRAE 55-2020 5.3 (vr = v + 0.3 (M - 1) unless relative_air_speed is given; "
+                "dynamic clothing above 1.2 met; SET-based cooling effect above 0.1 m/s"
+                + assumed + ")")
     out["pmv_ashrae"] = ash.column(pmv_a, "1", method_a)
     out["ppd_ashrae"] = ash.column(comfort.ppd_from_pmv(pmv_a), "%", method_a)
     out["cooling_effect"] = ash.column(ce, "K", "ASHRAE 55-2020 5.3.2 and Appendix D")
-    set_v = comfort.set_temperature(ta_a, mrt, vr, rh, met, clo_d, pressure_pa=s.pressure_pa)
-    out["set"] = ash.column(set_v, "°C", "ASHRAE 55-2020 Appendix D (Gagge two-node model)")
+
+    # SET: its own scope (the two-node model's), wider than PMV's; measured air speed and
+    # static clothing, as ASHRAE 55's SET check table is computed.
+    set_app = Applicability(n)
+    set_app.require(s.indoor, "SET is given for indoor spaces here (outdoors: UTCI)")
+    set_app.require_present([("air_temperature", s.air_temperature),
+                             ("mean_radiant_temperature", mrt), ("air_speed", s.air_speed),
+                             ("relative_humidity", rh)])
+    set_app.require(np.isfinite(clo), "clothing not configured and no outdoor temperature to "
+                    "predict it")
+    set_app.require(_between(s.air_temperature, 10.0, 40.0),
+                    "outside SET range: air_temperature 10-40 °C")
+    set_app.require(_between(mrt, 10.0, 40.0),
+                    "outside SET range: mean_radiant_temperature 10-40 °C")
+    set_app.require(_between(s.air_speed, 0.0, 2.0), "outside SET range: air_speed 0-2 m/s")
+    set_app.require(_between(met, 1.0, 4.0), "outside SET range: met 1-4")
+    set_app.require(_between(clo, 0.0, 1.5), "outside SET range: clo 0-1.5")
+    set_ok = set_app.ok
+    set_v = comfort.set_temperature(np.where(set_ok, s.air_temperature, np.nan), mrt,
+                                    np.maximum(s.air_speed, 0.0), rh, met, clo,
+                                    pressure_pa=s.pressure_pa)
+    out["set"] = set_app.column(set_v, "°C", "ASHRAE 55-2020 Appendix D (Gagge two-node "
+                                "model; measured air speed, static clothing" + assumed + ")")
 
     need = Applicability(n)
     need.require(ok, "ASHRAE 55 PMV does not apply to this space")
     need.require(~(pmv_a <= s.target_pmv), "not warmer than the target PMV: no extra air speed "
                  "needed")
-    v_needed_rel = comfort.air_speed_for_pmv(np.where(need.ok, ta_a, np.nan), mrt, vr, rh, met,
-                                             clo_d, s.target_pmv)
+    v_needed_rel = comfort.air_speed_for_pmv(np.where(need.ok, ta_a, np.nan), mrt, vr_ash, rh,
+                                             met, clo_d, s.target_pmv)
     need.require(np.isfinite(v_needed_rel) | ~need.ok, "no air speed up to 2 m/s brings PMV "
                  "down to the target")
-    v_needed = np.where(met > 1.0, v_needed_rel - 0.3 * (met - 1.0), v_needed_rel)
+    # back from relative to room air speed: remove the body-movement part again
+    movement = np.where(given_vr, s.relative_air_speed - s.air_speed,
+                        vr_ash - s.air_speed)
+    movement = np.where(np.isfinite(movement), np.maximum(movement, 0.0), 0.0)
+    v_needed = np.maximum(v_needed_rel - movement, 0.0)
     out["cooling_air_speed_needed"] = need.column(
-        np.maximum(v_needed, 0.0), "m/s",
+        v_needed, "m/s",
         "ASHRAE 55-2020 5.3.2 (speed whose cooling effect brings PMV to the target)")
-    ok_need = need.ok
-    set_after = comfort.set_temperature(np.where(ok_need, ta_a, np.nan), mrt, v_needed_rel, rh,
-                                        met, clo_d, pressure_pa=s.pressure_pa)
-    out["set_at_cooling_air_speed"] = need.column(
+    ok_need = need.ok & set_ok
+    set_after = comfort.set_temperature(np.where(ok_need, ta_a, np.nan), mrt, v_needed, rh,
+                                        met, clo, pressure_pa=s.pressure_pa)
+    set_need = Applicability(n)
+    set_need.require(need.ok, "no cooling air speed (see cooling_air_speed_needed)")
+    set_need.require(set_ok, "SET does not apply to this space (see set)")
+    out["set_at_cooling_air_speed"] = set_need.column(
         set_after, "°C", "ASHRAE 55-2020 Appendix D, at cooling_air_speed_needed")
 
     # Adaptive comfort, for naturally ventilated spaces.
@@ -361,6 +459,8 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     a_app.require(_between(tpma, 10.0, 33.5),
                   "outside ASHRAE 55 adaptive range: prevailing mean outdoor 10-33.5 °C")
     a_app.require(_between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: met 1.0-1.3")
+    a_app.require(s.naturally_ventilated, "adaptive comfort applies to occupant-controlled "
+                  "naturally ventilated spaces (ASHRAE 55-2020 5.4.1)")
     t_cmf = adaptive.ashrae_comfort_temperature(tpma)
     m55 = "ASHRAE 55-2020 5.4"
     out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
@@ -372,11 +472,23 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     en_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
     en_app.require(_between(tpma, 10.0, 30.0),
                    "outside EN 16798-1 adaptive range: running mean outdoor 10-30 °C")
+    en_app.require(_between(met, 1.0, 1.3), "outside EN 16798-1 adaptive scope: sedentary "
+                   "activity, met 1.0-1.3")
+    en_app.require(s.naturally_ventilated, "EN 16798-1 adaptive limits apply to buildings "
+                   "without mechanical cooling (naturally ventilated), not to mechanically "
+                   "ventilated spaces")
     theta_c = adaptive.en_comfort_temperature(tpma)
     m_en = "EN 16798-1:2019 Annex B"
     out["adaptive_en_comfort"] = en_app.column(theta_c, "°C", m_en)
+    # the lower limit: EN 16798-1 B.2.2 gives it for a running mean of 15 °C and above
+    # (below, the heating-season limits of the mechanically heated building apply)
+    low_app = Applicability(n)
+    low_app.require(en_app.ok, "EN 16798-1 adaptive limits do not apply (see "
+                    "adaptive_en_comfort)")
+    low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
+                    "limit only for a running mean outdoor temperature of 15 °C and above")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
-        out[f"adaptive_en_{cat}_lower"] = en_app.column(theta_c - down, "°C", m_en)
+        out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)
         out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up, "°C", m_en)
     en_app.require(np.isfinite(operative), "input missing or stale: operative temperature")
     out["adaptive_en_category"] = en_app.column(adaptive.en_category(operative, theta_c),
@@ -386,25 +498,28 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
 def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable,
                  with_phs: bool) -> None:
     n = s.n
-    # natural wet bulb: measured, else estimated indoors without radiant load
-    twb = out["wet_bulb"].values
-    est = heat_stress.natural_wet_bulb_indoor(s.air_temperature, twb, s.air_speed)
+    # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
+    est = heat_stress.natural_wet_bulb_liljegren(s.air_temperature, rh, s.air_speed, mrt,
+                                                 s.pressure_pa)
     est_app = Applicability(n)
     est_app.require(np.isnan(s.natural_wet_bulb), "measured: natural_wet_bulb sensor present")
-    est_app.require(s.indoor, "no estimate outdoors: a natural_wet_bulb sensor is needed")
     est_app.require_present([("air_temperature", s.air_temperature),
                              ("relative_humidity", rh), ("air_speed", s.air_speed),
-                             ("globe_temperature", s.globe_temperature)])
-    est_app.require(np.abs(s.globe_temperature - s.air_temperature) <= 1.0,
-                    "no estimate under radiant load (globe more than 1 K from air): a "
-                    "natural_wet_bulb sensor is needed")
-    est_col = est_app.column(est, "°C", "Bernard and Pourmoghani (1999), indoor, no radiant load")
+                             ("mean_radiant_temperature (from the globe)", mrt)])
+    est_app.require(_between(s.air_temperature, 0.0, 50.0), "outside the natural wet-bulb "
+                    "estimate's range: air_temperature 0-50 °C (a liquid wick)")
+    est_app.require(_between(s.air_speed, 0.0, 10.0), "outside the natural wet-bulb "
+                    "estimate's range: air_speed 0-10 m/s")
+    est_app.require(_between(mrt - s.air_temperature, -10.0, 70.0), "outside the natural "
+                    "wet-bulb estimate's range: mean radiant minus air temperature -10..70 K")
+    est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
+                             "radiation exchanged with the mean radiant temperature")
     out["natural_wet_bulb_estimated"] = est_col
     tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
 
     w_app = Applicability(n)
     w_app.require(np.isfinite(tnw), "input missing or stale: natural_wet_bulb (and no estimate "
-                  "possible)")
+                  "possible: see natural_wet_bulb_estimated)")
     w_app.require_present([("globe_temperature", s.globe_temperature)])
     w_app.require(~s.solar_load | np.isfinite(s.air_temperature),
                   "input missing or stale: air_temperature (needed with solar load)")
@@ -412,7 +527,8 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     out["wbgt"] = w_app.column(w, "°C", "ISO 7243:2017 eq. (1)/(2)")
     m_w = heat_stress.metabolic_rate_w(s.met * MET_W_M2)
     m_app = Applicability(n)
-    m_app.require(np.isfinite(m_w), "metabolic rate not configured")
+    m_app.require(np.isfinite(m_w), "no metabolic rate: give met or work_class (a heat-stress "
+                  "reference value rests on the work done; none is assumed)")
     m_app.require(_between(m_w, 100.0, 800.0),
                   "outside ISO 7243 Annex A range: metabolic rate 100-800 W")
     out["metabolic_rate"] = m_app.column(m_w, "W", "ISO 8996:2021 (standard person, 1.8 m²)")
@@ -422,8 +538,12 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
         heat_stress.reference_unacclimatised(m_w), "°C", heat_stress.REFERENCE_METHOD)
     _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
 
-    # ISO 7933 PHS, hot work only
-    method_phs = f"ISO 7933:{s.phs_edition}"
+    # ISO 7933 PHS, hot work only; each space in the edition it asks for
+    editions = np.array(s.phs_edition if isinstance(s.phs_edition, tuple)
+                        else (s.phs_edition,) * n, dtype=object)
+    used = sorted({str(e) for e in editions}, reverse=True)
+    method_phs = (f"ISO 7933:{used[0]}" if len(used) == 1
+                  else "ISO 7933:2023 or 2004 (the phs_edition of each space)")
     phs_names = {"t_re": ("phs_rectal_temperature", "°C"), "sweat_loss_g": ("phs_sweat_loss", "g"),
                  "d_lim_t_re": ("phs_limit_rectal", "min"),
                  "d_lim_loss_50": ("phs_limit_water_loss_50", "min"),
@@ -432,31 +552,44 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
         for name, unit in phs_names.values():
             out[name] = absent(n, "PHS not requested for this evaluation", unit, method_phs)
         return
+    is_2004 = editions == "2004"
     clo, _, _ = _people(s)
     app = Applicability(n)
     app.require(s.hot_work, "PHS is computed only for spaces marked as hot work")
     app.require_present([("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
                          ("air_speed", s.air_speed), ("relative_humidity", rh)])
+    app.require(np.isfinite(s.met), "no metabolic rate: give met or work_class")
     app.require(np.isfinite(clo), "clothing not configured")
+    app.require(np.array([heat_stress.canonical_posture(p) is not None for p in s.posture],
+                         dtype=bool),
+                f"unknown posture (expected {', '.join(sorted(heat_stress.POSTURE_SPELLINGS))})")
     app.require(_between(s.air_temperature, 15.0, 50.0),
                 "outside ISO 7933 range: air_temperature 15-50 °C")
     app.require(_between(mrt - s.air_temperature, 0.0, 60.0),
                 "outside ISO 7933 range: mean radiant minus air temperature 0-60 K")
-    app.require(psy.vapour_pressure(s.air_temperature, rh) <= 4500.0,
+    pa = psy.vapour_pressure(s.air_temperature, rh)
+    app.require(pa <= 4500.0 + UPPER_TOLERANCE,
                 "outside ISO 7933 range: water vapour pressure above 4.5 kPa")
+    app.require(is_2004 | (pa >= 500.0 - UPPER_TOLERANCE), "outside ISO 7933:2023 range: water "
+                "vapour pressure below 0.5 kPa")
     app.require(_between(s.air_speed, 0.0, 3.0), "outside ISO 7933 range: air_speed 0-3 m/s")
     app.require(_between(clo, 0.1, 1.0), "outside ISO 7933 range: clo 0.1-1.0")
     m_wm2 = s.met * MET_W_M2
-    if s.phs_edition == "2004":
-        app.require(_between(m_wm2, 100.0, 450.0), "outside ISO 7933:2004 range: metabolic rate "
-                    "100-450 W/m²")
-    else:
-        app.require(_between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: metabolic rate "
-                    "56-250 W/m²")
+    app.require(~is_2004 | _between(m_wm2, 100.0, 450.0), "outside ISO 7933:2004 range: "
+                "metabolic rate 100-450 W/m²")
+    app.require(is_2004 | _between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: "
+                "metabolic rate 56-250 W/m²")
     ok = app.ok
-    res = heat_stress.predicted_heat_strain(
-        np.where(ok, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
-        list(s.posture), s.acclimatised.astype(np.float64), edition=s.phs_edition)
+    res = {k: np.full(n, np.nan) for k in phs_names}
+    for edition in used:
+        sel = ok & (editions == edition)
+        if not sel.any():
+            continue
+        part = heat_stress.predicted_heat_strain(
+            np.where(sel, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
+            list(s.posture), s.acclimatised.astype(np.float64), edition=edition)
+        for key in phs_names:
+            res[key] = np.where(sel, part[key], res[key])
     for key, (name, unit) in phs_names.items():
         out[name] = app.column(res[key], unit, method_phs)
 
@@ -479,7 +612,8 @@ def _wbgt_assessment(twa: FloatArray, w: FloatArray, adjustment_k: FloatArray,
                                "available, else spot value; plus clothing adjustment)")
     ref_a = out["wbgt_reference_acclimatised"]
     margin_app = Applicability(n)
-    margin_app.require(ref_a.present, "no reference value (metabolic rate)")
+    for code in np.unique(ref_a.codes[ref_a.codes != 0]):
+        margin_app.require(ref_a.codes != code, ref_a.reasons[int(code)])
     margin_app.require(np.isfinite(eff), "no WBGT (see wbgt)")
     margins = {
         "wbgt_margin_acclimatised": margin_app.column(ref_a.values - eff, "K",
@@ -500,32 +634,61 @@ def with_time_weighted_wbgt(table: IndexTable, twa: FloatArray,
     _wbgt_assessment(twa, table["wbgt"].values, adjustment_k, table)
 
 
+HEAT_INDEX_MAX_C: Final = 60.0
+"""Heat index values above this are not given: beyond the top of Steadman's apparent
+temperature tables (about 136-140 °F), where the NWS regression only extrapolates
+(decision; the NWS states the regression is not valid beyond Steadman's data)."""
+
+HUMIDEX_MAX_DEW_POINT_C: Final = 40.0
+"""Humidex is not given above this dew point: outdoor dew points have not been observed much
+above 35 °C (from memory), so beyond 40 °C the reading, not the weather, is in question
+(decision)."""
+
+
 def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -> None:
     n = s.n
+    hi_values = outdoor.heat_index(s.air_temperature, rh)
     app = Applicability(n)
+    app.require(~s.indoor, "heat index is an outdoor weather index (shade, light wind); "
+                "indoors use PMV/SET, or WBGT for hot work")
     app.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
-    app.require(s.air_temperature >= 20.0, "heat index applies at air_temperature >= 20 °C")
-    out["heat_index"] = app.column(outdoor.heat_index(s.air_temperature, rh), "°C",
+    app.require(_between(s.air_temperature, 20.0, 50.0),
+                "heat index applies at air_temperature 20-50 °C")
+    app.require(~(hi_values > HEAT_INDEX_MAX_C),
+                "heat index above 60 °C: beyond Steadman's tables, the NWS regression only "
+                "extrapolates there")
+    out["heat_index"] = app.column(hi_values, "°C",
                                    "NWS heat index (Rothfusz regression with adjustments)")
     hx = Applicability(n)
+    hx.require(~s.indoor, "humidex is an outdoor weather index; indoors use PMV/SET, or WBGT "
+               "for hot work")
     hx.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
-    hx.require(s.air_temperature >= 20.0, "humidex applies at air_temperature >= 20 °C")
+    hx.require(_between(s.air_temperature, 20.0, 50.0),
+               "humidex applies at air_temperature 20-50 °C")
+    hx.require(~(psy.dew_point(s.air_temperature, rh) > HUMIDEX_MAX_DEW_POINT_C),
+               "humidex not given above a dew point of 40 °C (beyond any outdoor dew point "
+               "observed: check the humidity sensor)")
     out["humidex"] = hx.column(outdoor.humidex(s.air_temperature, rh), "1",
-                               "Masterson and Richardson (1979), Environment Canada")
+                               "Environment Canada humidex (Masterson and Richardson 1979; "
+                               "vapour pressure from the dew point)")
+    wind10 = outdoor.wind_at_10m(s.air_speed, s.air_speed_height_m)
     u = Applicability(n)
     u.require(~s.indoor, "UTCI applies to outdoor spaces")
     u.require_present([("air_temperature", s.air_temperature), ("mean_radiant_temperature", mrt),
                        ("air_speed", s.air_speed), ("relative_humidity", rh)])
+    u.require(np.isfinite(wind10), "air speed height must be above 0.01 m (roughness length)")
     u.require(_between(s.air_temperature, -50.0, 50.0),
               "outside UTCI range: air_temperature -50..50 °C")
     u.require(_between(mrt - s.air_temperature, -30.0, 70.0),
               "outside UTCI range: mean radiant minus air temperature -30..70 K")
-    u.require(_between(s.air_speed, 0.5, 17.0), "outside UTCI range: wind at 10 m 0.5-17 m/s")
-    u.require(psy.vapour_pressure(s.air_temperature, rh) <= 5000.0,
+    u.require(_between(wind10, 0.5, 17.0), "outside UTCI range: wind at 10 m 0.5-17 m/s "
+              "(converted from the sensor height by the logarithmic profile)")
+    u.require(psy.vapour_pressure(s.air_temperature, rh) <= 5000.0 + UPPER_TOLERANCE,
               "outside UTCI range: water vapour pressure above 5 kPa")
     ok = u.ok
-    out["utci"] = u.column(outdoor.utci(np.where(ok, s.air_temperature, np.nan), mrt, s.air_speed,
-                                        rh), "°C", "UTCI, Broede et al. (2012) polynomial")
+    out["utci"] = u.column(outdoor.utci(np.where(ok, s.air_temperature, np.nan), mrt, wind10, rh),
+                           "°C", "UTCI, Broede et al. (2012) polynomial; wind converted to 10 m "
+                           "(logarithmic profile, z0 0.01 m)")
 
 
 def _condensation(s: SpaceInputs, out: IndexTable) -> None:

@@ -72,6 +72,8 @@ TABLE: Final[dict[tuple[State, Trigger], tuple[State, str | None]]] = {
     (S.SHELVED, T.SHELVE_EXPIRED): (S.ACTIVE, "unshelved"),
     # while it lasts
     (S.ACTIVE, T.RENOTIFY_DUE): (S.ACTIVE, "renotified"),
+    # an acknowledged urgent advisory is reminded of (the hazard persists); still acknowledged
+    (S.ACKNOWLEDGED, T.RENOTIFY_DUE): (S.ACKNOWLEDGED, "renotified"),
     (S.ACTIVE, T.ESCALATE): (S.ACTIVE, "escalated"),
     (S.ACKNOWLEDGED, T.ESCALATE): (S.ACTIVE, "escalated"),  # a worse level needs a new ack
     (S.SHELVED, T.ESCALATE): (S.ACTIVE, "escalated"),  # a worse level ends the shelving

@@ -14,16 +14,25 @@ from thermowarden.core.columns import FloatArray
 DEFAULT_TURBULENCE_INTENSITY = 40.0
 """ISO 7730:2005 6.2: use Tu = 40 % when the turbulence intensity is not known."""
 
-# ISO 7730:2005 Table A.1 / A.2 (values recalled from the standard, category: limit):
-# PPD, draught rate, vertical air temperature difference PD, warm/cool floor PD,
-# radiant asymmetry PD. A value below the limit falls in that category.
+# ISO 7730:2005 Annex A category limits (category: value below the limit falls in it).
+# PPD and draught rate are Table A.1 (recalled from the standard); the vertical difference
+# (Table A.2) and floor ranges (Table A.3) are as printed in a public copy of ISO 7730:2005;
+# the radiant asymmetry limits (Table A.4) are recalled from the standard (from memory).
 CATEGORY_LIMITS: dict[str, tuple[float, float, float]] = {
-    # quantity: (A, B, C) upper limits, %
-    "ppd": (6.0, 10.0, 15.0),
-    "draught_rate": (10.0, 20.0, 30.0),
-    "vertical": (3.0, 5.0, 10.0),
-    "floor": (10.0, 10.0, 15.0),
-    "radiant_asymmetry": (5.0, 5.0, 10.0),
+    # quantity: (A, B, C) upper limits
+    "ppd": (6.0, 10.0, 15.0),  # %
+    "draught_rate": (10.0, 20.0, 30.0),  # %
+    "vertical_difference": (2.0, 3.0, 4.0),  # K, head 1.1 m minus ankles 0.1 m
+    "asymmetry_warm_ceiling": (5.0, 5.0, 7.0),  # K
+    "asymmetry_cool_wall": (10.0, 10.0, 13.0),  # K
+    "asymmetry_cool_ceiling": (14.0, 14.0, 18.0),  # K
+    "asymmetry_warm_wall": (23.0, 23.0, 35.0),  # K
+}
+FLOOR_RANGES_C: dict[str, tuple[float, float]] = {
+    # ISO 7730:2005 Table A.3, floor surface temperature range (°C) per category
+    "A": (19.0, 29.0),
+    "B": (19.0, 29.0),
+    "C": (17.0, 31.0),
 }
 CATEGORY_NAMES = ("A", "B", "C")
 
@@ -99,4 +108,16 @@ def category(values: FloatArray, quantity: str) -> npt.NDArray[np.float64]:
     for i in (2, 1, 0):
         cat = np.where(v < limits[i], float(i), cat)
     result: npt.NDArray[np.float64] = np.where(np.isnan(v), np.nan, cat)
+    return result
+
+
+def floor_category(floor_c: FloatArray) -> npt.NDArray[np.float64]:
+    """ISO 7730 category of a floor temperature from Table A.3's ranges (0 = A ... 3 =
+    outside C, NaN absent)."""
+    tf = np.asarray(floor_c, dtype=np.float64)
+    cat = np.full(tf.shape, 3.0)
+    for i, name in reversed(list(enumerate(CATEGORY_NAMES))):
+        lo, hi = FLOOR_RANGES_C[name]
+        cat = np.where((tf >= lo) & (tf <= hi), float(i), cat)
+    result: npt.NDArray[np.float64] = np.where(np.isnan(tf), np.nan, cat)
     return result

@@ -5,10 +5,8 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from pythermalcomfort.models import utci as _ptc_utci
 
 from thermowarden.core.columns import FloatArray
-from thermowarden.core.psychrometrics import vapour_pressure
 
 
 def heat_index(air_c: FloatArray, rh: FloatArray) -> FloatArray:
@@ -37,14 +35,56 @@ def heat_index(air_c: FloatArray, rh: FloatArray) -> FloatArray:
     return result
 
 
-def humidex(air_c: FloatArray, rh: FloatArray) -> FloatArray:
-    """Humidex (dimensionless, read as °C), Masterson and Richardson (1979), Environment Canada.
+HUMIDEX_SATURATION_HPA = 6.11
+"""Environment Canada's humidex: vapour pressure (hPa) at the dew point,
+6.11 exp(5417.7530 (1/273.16 - 1/(273.15 + Td)))."""
 
-    H = T + 0.5555 (e - 10), e the vapour pressure in hPa (here from the ASHRAE 2017
-    saturation pressure and the relative humidity).
+
+def humidex_from_dew_point(air_c: FloatArray, dew_point_c: FloatArray) -> FloatArray:
+    """Humidex (dimensionless, read as °C) from air temperature and dew point (°C).
+
+    Environment Canada (Masterson and Richardson 1979), as Environment Canada publishes it:
+    humidex = T + 0.5555 (6.11 exp(5417.7530 (1/273.16 - 1/(273.15 + Td))) - 10).
     """
-    e_hpa = vapour_pressure(np.asarray(air_c, dtype=np.float64), rh) / 100.0
-    result: FloatArray = np.asarray(air_c) + 0.5555 * (e_hpa - 10.0)
+    td_k = np.asarray(dew_point_c, dtype=np.float64) + 273.15
+    e_hpa = HUMIDEX_SATURATION_HPA * np.exp(5417.7530 * (1.0 / 273.16 - 1.0 / td_k))
+    result: FloatArray = np.asarray(air_c, dtype=np.float64) + 0.5555 * (e_hpa - 10.0)
+    return result
+
+
+def humidex(air_c: FloatArray, rh: FloatArray) -> FloatArray:
+    """Humidex from air temperature (°C) and relative humidity (%).
+
+    The dew point is taken on Environment Canada's own saturation curve (the same
+    exponential), so that e = RH/100 x 6.11 exp(5417.7530 (1/273.16 - 1/(273.15 + T))):
+    at 100 % the result is exactly Environment Canada's value for Td = T.
+    """
+    t_k = np.asarray(air_c, dtype=np.float64) + 273.15
+    e_hpa = (np.asarray(rh, dtype=np.float64) / 100.0 * HUMIDEX_SATURATION_HPA
+             * np.exp(5417.7530 * (1.0 / 273.16 - 1.0 / t_k)))
+    result: FloatArray = np.asarray(air_c, dtype=np.float64) + 0.5555 * (e_hpa - 10.0)
+    return result
+
+
+UTCI_WIND_HEIGHT_M = 10.0
+"""UTCI's wind speed is the speed 10 m above ground (Broede et al. 2012)."""
+ROUGHNESS_LENGTH_M = 0.01
+"""Roughness length of the logarithmic wind profile for the UTCI height conversion: 0.01 m,
+the value of the UTCI operational procedure (Broede et al. 2012; recalled from memory)."""
+
+
+def wind_at_10m(speed: FloatArray, height_m: FloatArray | float) -> FloatArray:
+    """Wind speed at 10 m (m/s) from a speed measured at ``height_m``, logarithmic profile.
+
+    v10 = v(h) ln(10 / z0) / ln(h / z0), z0 = :data:`ROUGHNESS_LENGTH_M` (neutral
+    stratification). From 1.1 m this multiplies by 1.50. NaN for heights at or below z0.
+    """
+    h = np.asarray(height_m, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        factor = np.where(h > ROUGHNESS_LENGTH_M,
+                          np.log(UTCI_WIND_HEIGHT_M / ROUGHNESS_LENGTH_M)
+                          / np.log(h / ROUGHNESS_LENGTH_M), np.nan)
+    result: FloatArray = np.asarray(speed, dtype=np.float64) * factor
     return result
 
 
@@ -58,6 +98,8 @@ def utci(air_c: FloatArray, mrt_c: FloatArray, wind_10m: FloatArray, rh: FloatAr
     out = np.full(n, np.nan)
     ok = np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(wind_10m) & np.isfinite(rh)
     if ok.any():
+        from pythermalcomfort.models import utci as _ptc_utci  # costly to import: only here
+
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             res = _ptc_utci(tdb=air_c[ok], tr=mrt_c[ok], v=wind_10m[ok], rh=rh[ok],

@@ -6,6 +6,12 @@ standard atmospheric pressure from altitude (eq. 3), humidity ratio (eq. 20/22),
 wet-bulb relation (eqs. 33 and 35). Temperatures in °C, pressures in Pa, relative
 humidity in %, humidity ratio in kg water / kg dry air.
 
+Relative humidity is with respect to liquid water at every temperature (how hygrometers
+report it; WMO convention), so below 0 °C the vapour pressure is RH x the saturation
+pressure over (supercooled) water and the dew point is over water, not the frost point.
+The saturation over ice is used only where the physics needs it: the wet-bulb relation
+below 0 °C (an iced wet bulb, eq. 35).
+
 Iterative inversions (dew point by Newton's method, wet bulb by bracketed regula falsi) are
 done for all spaces at once on arrays, so one call costs the same few dozen array
 operations for 1 or 10,000 spaces.
@@ -43,9 +49,28 @@ def saturation_pressure(t_c: FloatArray | float) -> FloatArray:
     return result
 
 
+def saturation_pressure_water(t_c: FloatArray | float) -> FloatArray:
+    """Saturation vapour pressure (Pa) over liquid water, also below 0 °C (supercooled).
+
+    ASHRAE Handbook Fundamentals 2017 ch. 1 eq. 6 (Hyland and Wexler), extended below 0 °C as
+    the WMO convention for relative humidity does (WMO No. 8, Annex 4.B: RH is reported
+    with respect to water at all temperatures).
+    """
+    t = np.asarray(t_c, dtype=np.float64) + 273.15
+    result: FloatArray = np.exp(-5.8002206e03 / t + 1.3914993 - 4.8640239e-02 * t
+                                + 4.1764768e-05 * t**2 - 1.4452093e-08 * t**3
+                                + 6.5459673 * np.log(t))
+    return result
+
+
 def vapour_pressure(t_c: FloatArray, rh_pct: FloatArray) -> FloatArray:
-    """Partial pressure of water vapour (Pa) from air temperature (°C) and RH (%)."""
-    result: FloatArray = np.asarray(rh_pct, dtype=np.float64) / 100.0 * saturation_pressure(t_c)
+    """Partial pressure of water vapour (Pa) from air temperature (°C) and RH (%).
+
+    RH is taken with respect to liquid water at every temperature, as hygrometers report
+    it and the WMO convention defines it (below 0 °C too): e = RH/100 x pws,water(t).
+    """
+    result: FloatArray = (np.asarray(rh_pct, dtype=np.float64) / 100.0
+                          * saturation_pressure_water(t_c))
     return result
 
 
@@ -62,22 +87,19 @@ def humidity_ratio(t_c: FloatArray, rh_pct: FloatArray,
     return humidity_ratio_from_vapour_pressure(vapour_pressure(t_c, rh_pct), pressure_pa)
 
 
-def _dln_saturation_dt(t_c: FloatArray) -> FloatArray:
-    """d ln(pws) / dT (1/K) of the ASHRAE 2017 saturation equations (analytic)."""
+def _dln_water_dt(t_c: FloatArray) -> FloatArray:
+    """d ln(pws,water) / dT (1/K), analytic."""
     t = np.asarray(t_c, dtype=np.float64) + 273.15
-    d_ice = (5.6745359e03 / t**2 - 9.6778430e-03 + 2 * 6.2215701e-07 * t
-             + 3 * 2.0747825e-09 * t**2 - 4 * 9.4840240e-13 * t**3 + 4.1635019 / t)
-    d_water = (5.8002206e03 / t**2 - 4.8640239e-02 + 2 * 4.1764768e-05 * t
-               - 3 * 1.4452093e-08 * t**2 + 6.5459673 / t)
-    result: FloatArray = np.where(t < 273.15, d_ice, d_water)
+    result: FloatArray = (5.8002206e03 / t**2 - 4.8640239e-02 + 2 * 4.1764768e-05 * t
+                          - 3 * 1.4452093e-08 * t**2 + 6.5459673 / t)
     return result
 
 
 def dew_point(t_c: FloatArray, rh_pct: FloatArray) -> FloatArray:
-    """Dew-point (frost-point below 0 °C) temperature (°C).
+    """Dew-point temperature (°C), over liquid water also below 0 °C (not the frost point).
 
-    Inverts the ASHRAE 2017 saturation-pressure equations: the temperature at which the
-    saturation pressure equals the actual vapour pressure. Newton's method on ln(pws) from
+    Inverts the ASHRAE 2017 saturation-pressure equation over water: the temperature at
+    which the saturation pressure equals the actual vapour pressure. Newton's method on ln(pws) from
     the Magnus estimate; six steps take it below 1e-9 K. NaN where RH <= 0.
     """
     t = np.asarray(t_c, dtype=np.float64)
@@ -88,7 +110,7 @@ def dew_point(t_c: FloatArray, rh_pct: FloatArray) -> FloatArray:
         gamma = ln_pw - np.log(610.94)
         td = 243.04 * gamma / (17.625 - gamma)
         for _ in range(6):
-            td = td - (np.log(saturation_pressure(td)) - ln_pw) / _dln_saturation_dt(td)
+            td = td - (np.log(saturation_pressure_water(td)) - ln_pw) / _dln_water_dt(td)
     result: FloatArray = np.where(np.isfinite(ln_pw) & np.isfinite(t), np.minimum(td, t), np.nan)
     return result
 
@@ -118,8 +140,9 @@ def wet_bulb(t_c: FloatArray, rh_pct: FloatArray,
     t = np.asarray(t_c, dtype=np.float64)
     w = humidity_ratio(t, rh_pct, pressure_pa)
     td = dew_point(t, rh_pct)
-    ok = np.isfinite(w) & np.isfinite(td)
-    lo = np.where(ok, td - 0.01, 0.0)
+    ok = np.isfinite(w) & np.isfinite(t)
+    # perfectly dry air (RH 0 %) has no dew point, but a wet bulb: search from far below
+    lo = np.where(ok, np.where(np.isfinite(td), td - 0.01, t - 80.0), 0.0)
     hi = np.where(ok, t + 0.01, 1.0)
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), t.shape)
     idx = np.flatnonzero(ok)
@@ -154,6 +177,6 @@ def relative_humidity_from_wet_bulb(tdb: FloatArray, twb: FloatArray,
     twb = np.asarray(twb, dtype=np.float64)
     w = _humidity_ratio_from_wet_bulb(tdb, twb, pressure_pa)
     pw = np.asarray(pressure_pa) * w / (_MOLAR_RATIO + w)
-    rh = 100.0 * pw / saturation_pressure(tdb)
+    rh = 100.0 * pw / saturation_pressure_water(tdb)
     result: FloatArray = np.where((twb <= tdb + 1e-9) & (w >= 0), np.minimum(rh, 100.0), np.nan)
     return result

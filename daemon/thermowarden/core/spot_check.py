@@ -36,6 +36,7 @@ MEASURED: Final[dict[str, str]] = {
     "globe_temperature": "globe_temperature",
     "mean_radiant_temperature": "mean_radiant_temperature",
     "air_speed": "air_speed",
+    "relative_air_speed": "air_speed",
     "turbulence_intensity": "turbulence_intensity",
     "natural_wet_bulb": "natural_wet_bulb",
     "psychrometric_wet_bulb": "psychrometric_wet_bulb",
@@ -55,7 +56,7 @@ CONTEXT: Final = {
     "met", "clo", "work_class", "acclimatised", "environment", "solar_load", "posture",
     "hot_work", "phs_edition", "altitude_m", "barometric_pressure", "outdoor_daily_means",
     "globe_diameter_m", "globe_emissivity", "clothing", "clothing_adjustment_k", "target_pmv",
-    "naturally_ventilated", "units",
+    "naturally_ventilated", "units", "air_speed_height_m",
 }
 ALL_KEYS: Final = frozenset(MEASURED) | frozenset(_SIDE_KEYS) | CONTEXT
 
@@ -88,6 +89,28 @@ def _in_range(key: str, value: float, low: float, high: float, unit: str) -> flo
     return value
 
 
+def _pressure(data: Mapping[str, object], units: Mapping[str, str]) -> float:
+    """Barometric pressure (Pa). Without a unit, the magnitude tells Pa (30000-110000),
+    hPa (300-1100) and kPa (30-110) apart: those ranges do not overlap."""
+    key = "barometric_pressure"
+    raw = _number(key, data[key])
+    if key in units:
+        try:
+            value = convert(raw, "pressure", units[key])
+        except UnitError as exc:
+            raise InputError(f"units.{key}", str(exc)) from None
+    elif 30.0 <= raw <= 110.0:
+        value = raw * 1000.0
+    elif 300.0 <= raw <= 1100.0:
+        value = raw * 100.0
+    else:
+        value = raw
+    if not 30_000.0 <= value <= 110_000.0:
+        raise InputError(key, f"{raw:g} is not a barometric pressure: expected 30000-110000 Pa, "
+                              "300-1100 hPa or 30-110 kPa (or say the unit in units)")
+    return value
+
+
 def _suggest(key: str) -> str:
     close = difflib.get_close_matches(key, sorted(ALL_KEYS), n=1)
     return f" (did you mean {close[0]!r}?)" if close else ""
@@ -105,7 +128,7 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
         raise InputError("units", "expected an object of key -> unit")
     units: dict[str, str] = {}
     for k, u in units_raw.items():
-        if k not in MEASURED and k not in _SIDE_KEYS:
+        if k not in MEASURED and k not in _SIDE_KEYS and k != "barometric_pressure":
             raise InputError(f"units.{k}", f"not a measured key{_suggest(k)}")
         if not isinstance(u, str):
             raise InputError(f"units.{k}", "expected a unit name")
@@ -167,8 +190,12 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
         env = _choice("environment", data["environment"], ("indoor", "outdoor"))
         given["indoor"] = np.array([env == "indoor"])
     if "posture" in data:
-        given["posture"] = (_choice("posture", data["posture"],
-                                    ("standing", "seated", "crouching")),)
+        posture = heat_stress.canonical_posture(data["posture"])
+        if posture is None:
+            raise InputError("posture", f"expected one of "
+                             f"{', '.join(heat_stress.POSTURE_SPELLINGS)}, got "
+                             f"{data['posture']!r}")
+        given["posture"] = (posture,)
     if "phs_edition" in data:
         raw = data["phs_edition"]
         given["phs_edition"] = _choice("phs_edition", str(raw) if isinstance(raw, int) else raw,
@@ -180,9 +207,9 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
                         "m")
         given["pressure_pa"] = np.array([float(pressure_from_altitude(alt))])
     if "barometric_pressure" in data:
-        given["pressure_pa"] = np.array([measured("barometric_pressure", "barometric_pressure")])
+        given["pressure_pa"] = np.array([_pressure(data, units)])
     for key, low, high in (("globe_diameter_m", 0.02, 0.3), ("globe_emissivity", 0.5, 1.0),
-                           ("target_pmv", -1.0, 1.0)):
+                           ("target_pmv", -1.0, 1.0), ("air_speed_height_m", 0.1, 100.0)):
         if key in data:
             given[key] = np.array([_in_range(key, _number(key, data[key]), low, high, "")])
     if "outdoor_daily_means" in data:

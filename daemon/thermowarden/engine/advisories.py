@@ -51,6 +51,14 @@ HISTORY_KEPT: Final = 50
 DEESCALATE_HOLD_S: Final = 300.0
 ADVISORY_REFRESH_S: Final = 300.0
 """Live advisories are republished (retained) this often."""
+ACKNOWLEDGED_URGENT_RENOTIFY_S: Final = 1800.0
+"""An acknowledged urgent advisory is renotified (a reminder that the hazard persists, with
+the numbers of now) at most this long after its last notification, or at its rule's
+``renotify_s`` when shorter. Common practice, no source: heat-stress work/rest regimes are
+reviewed within the hour, and an acknowledgement must not silence an urgent alert for the
+rest of a shift."""
+SHELVE_BUDGET_WINDOW_S: Final = 86_400.0
+"""Shelved time is summed over this rolling window for ``max_shelved_per_day_s``."""
 
 
 @dataclass
@@ -107,6 +115,11 @@ class RuleRuntime:
         """The equipment is in the state the advice asks for (blinds lowered, fans on)."""
         self.advisories: dict[int, Advisory] = {}
         self.raised_times: dict[int, deque[float]] = {}
+        self.shelvings: dict[int, list[list[float]]] = {}
+        """Per space: [start, end] of each shelving in the last day (end: planned or when
+        it ended), for the daily shelving limit (kept across advisories of the space)."""
+        self.event_count: dict[int, int] = {}
+        """Per space: events emitted by its live advisory (the event identity's suffix)."""
         every = [rule.renotify_at(k) for k in range(len(PRIORITIES))]
         self._renotify: FloatArray | None = (
             None if all(e is None for e in every)
@@ -311,6 +324,14 @@ class Advisories:
                      & (now - rt.last_notified >= every))
             for i in np.flatnonzero(again):
                 self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
+        # an acknowledgement does not silence an urgent advisory for ever
+        urgent = PRIORITIES.index("urgent")
+        remind_s = min(rt.rule.renotify_at(urgent) or ACKNOWLEDGED_URGENT_RENOTIFY_S,
+                       ACKNOWLEDGED_URGENT_RENOTIFY_S)
+        reminded = (live & (state == State.ACKNOWLEDGED) & (rt.level >= urgent)
+                    & (now - rt.last_notified >= remind_s))
+        for i in np.flatnonzero(reminded):
+            self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
 
     def refresh_due(self, now: float) -> list[Effect]:
         """Republish every live advisory (retained) every ``ADVISORY_REFRESH_S``, with the
@@ -439,13 +460,19 @@ class Advisories:
             self._render(rt, adv, now)
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
             adv.shelved = None
+        if trigger in (Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED, Trigger.ESCALATE) or \
+                new_state == State.IDLE:
+            spans = rt.shelvings.get(i)
+            if spans and spans[-1][1] > now:
+                spans[-1][1] = now  # the shelving ended early: only the time used counts
         if trigger in (Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED):
             adv.shelved = None
             rt.shelved_until[i] = np.nan
         if trigger == Trigger.ESCALATE:
             adv.acknowledged = None
-        if event in ("raised", "escalated", "renotified", "unshelved", "no_effect"):
-            rt.last_notified[i] = now
+        if event in ("raised", "escalated", "renotified", "unshelved", "no_effect",
+                     "acknowledged"):
+            rt.last_notified[i] = now  # (acknowledged: an urgent reminder counts from it)
         if new_state == State.IDLE:
             adv.cleared_at = now
             rec = adv.acted_on
@@ -470,6 +497,8 @@ class Advisories:
         if event is not None:
             self._note(adv, now, event, by, extra)
             self._emit(rt, adv, event, now, effects)
+        if new_state == State.IDLE:
+            rt.event_count.pop(i, None)  # after its last event: the next advisory starts anew
         return adv
 
     @staticmethod
@@ -492,11 +521,16 @@ class Advisories:
             "last_notified": num(float(rt.last_notified[i])),
             "shelved_until": num(float(rt.shelved_until[i])),
             "raised_times": list(rt.raised_times.get(i, ())),
+            "shelvings": rt.shelvings.get(i, []),
+            "event_count": rt.event_count.get(i, 0),
         })
 
     def _emit(self, rt: RuleRuntime, adv: Advisory, event: str, now: float,
               effects: list[Effect]) -> None:
         payload = self.pub.event_payload(adv, event, now)
+        n = rt.event_count.get(adv.space, 0) + 1
+        rt.event_count[adv.space] = n
+        payload["event_id"] = f"{self.config.site.id}.{adv.id}.{n}"
         if event == "raised":
             self.raised_count[adv.audience] += 1
         elif event == "cleared":
@@ -529,6 +563,7 @@ class Advisories:
                                f"{self.flood_window_s / 60:g} minutes to {audience}; "
                                "summarised in one message"}
             self.suppressed[audience] = []
+            payload["event_id"] = f"{self.config.site.id}.summary.{audience}.{now:.3f}"
             effects.extend(self.pub.site_event(audience, payload,
                                                f"summary.{audience}.{int(now)}"))
 
@@ -567,14 +602,21 @@ class Advisories:
             if adv.acted_on is not None:
                 adv.acted_on["_t"] = _epoch(adv.acted_on["at"])
                 adv.effect_overdue = adv.acted_on.get("helped") is False
+            rt.shelvings[i] = [list(map(float, s)) for s in rec.get("shelvings", [])]
+            rt.event_count[i] = int(rec.get("event_count", len(adv.history)))
             rt.advisories[i] = adv
             self.by_id[adv.id] = (rt, i)
         return notes
 
     # ------------------------------------------------------------------ commands
-    def command(self, verb: str, body: bytes, now: float) -> tuple[dict[str, Any], list[Effect]]:
+    def command(self, verb: str, body: bytes, now: float, audience: str | None = None,
+                identity: str | None = None) -> tuple[dict[str, Any], list[Effect]]:
         """Acknowledge, shelve or unshelve an advisory. Returns the reply and the effects;
-        on any error nothing changes and the reply says why."""
+        on any error nothing changes and the reply says why.
+
+        ``audience``: the audience the command was sent to (its topic); it must be the
+        advisory's, so a broker ACL per audience decides who may act. ``identity``: who
+        sent it as the broker or a trusted gateway vouches (recorded beside ``by``)."""
         request_id = None
         try:
             try:
@@ -584,7 +626,7 @@ class Advisories:
             if not isinstance(data, dict):
                 raise CommandError("the body is not a JSON object")
             request_id = data.get("request_id")
-            effects = self._command(verb, data, now)
+            effects = self._command(verb, data, now, audience, identity)
             reply = {"schema": REPLY_SCHEMA, "ok": True, "verb": verb,
                      "advisory_id": data.get("advisory_id"), "request_id": request_id,
                      "at": iso(now)}
@@ -593,7 +635,8 @@ class Advisories:
             return ({"schema": REPLY_SCHEMA, "ok": False, "verb": verb, "error": str(exc),
                      "request_id": request_id, "at": iso(now)}, [])
 
-    def _command(self, verb: str, data: dict[str, Any], now: float) -> list[Effect]:
+    def _command(self, verb: str, data: dict[str, Any], now: float, audience: str | None,
+                 identity: str | None) -> list[Effect]:
         allowed = {"acknowledge": {"advisory_id", "by", "note", "request_id", "reply_to"},
                    "shelve": {"advisory_id", "by", "reason", "duration_s", "request_id",
                               "reply_to"},
@@ -611,15 +654,21 @@ class Advisories:
             raise CommandError("'by' must name who acted")
         rt, i = self.by_id[adv_id]
         adv = rt.advisories[i]
+        if audience is not None and audience != adv.audience:
+            raise CommandError(f"advisory {adv_id} is for {adv.audience}; send the command to "
+                               f"{self.config.output.prefix}/commands/{adv.audience}/{verb}")
+        who: dict[str, Any] = {"by": by}
+        if identity:
+            who["identity"] = identity
         effects: list[Effect] = []
         note = data.get("note")
         if note is not None and (not isinstance(note, str) or len(note) > 1000):
             raise CommandError("'note' must be text of at most 1000 characters")
         if verb == "acknowledge":
             transition(State(rt.state[i]), Trigger.ACKNOWLEDGE)  # raises before any change
-            adv.acknowledged = {"by": by, "at": iso(now), "note": note}
+            adv.acknowledged = {**who, "at": iso(now), "note": note}
             self._apply(rt, i, Trigger.ACKNOWLEDGE, now, effects, by=by,
-                        extra={"note": note} if note else None)
+                        extra=_extra(identity, note=note))
         elif verb == "shelve":
             dur = data.get("duration_s")
             reason = data.get("reason")
@@ -631,15 +680,40 @@ class Advisories:
             if not isinstance(reason, str) or not reason.strip():
                 raise CommandError("'reason' must say why it is shelved")
             transition(State(rt.state[i]), Trigger.SHELVE)  # raises before any change
+            spans = self._shelvings_today(rt, i, now)
+            budget = min(rt.rule.config.max_shelved_per_day_s or limit, SHELVE_BUDGET_WINDOW_S)
+            used = sum(max(0.0, min(end, now) - start) for start, end in spans)
+            if spans and spans[-1][1] > now:
+                used_current = now - spans[-1][0]
+                spans = spans[:-1]  # a new shelving replaces the running one
+            else:
+                used_current = 0.0
+            left = budget - used
+            if float(dur) > left:
+                raise CommandError(
+                    f"rule {rt.rule.key} may be shelved for at most {budget:g} s in any 24 h "
+                    f"per space; {max(left, 0.0):.0f} s are left (used {used:.0f} s, "
+                    f"{used_current:.0f} s of them by the running shelving)")
+            spans.append([now, now + float(dur)])
+            rt.shelvings[i] = spans
             rt.shelved_until[i] = now + float(dur)
-            adv.shelved = {"by": by, "at": iso(now), "reason": reason,
+            adv.shelved = {**who, "at": iso(now), "reason": reason,
                            "until": iso(now + float(dur))}
             self._apply(rt, i, Trigger.SHELVE, now, effects, by=by,
-                        extra={"reason": reason, "until": iso(now + float(dur))})
+                        extra={**(_extra(identity) or {}), "reason": reason,
+                               "until": iso(now + float(dur))})
         else:
             self._apply(rt, i, Trigger.UNSHELVE, now, effects, by=by,
-                        extra={"note": note} if note else None)
+                        extra=_extra(identity, note=note))
         return effects
+
+    @staticmethod
+    def _shelvings_today(rt: RuleRuntime, i: int, now: float) -> list[list[float]]:
+        """The shelvings of space ``i`` that overlap the last 24 hours (older ones go)."""
+        spans = [s for s in rt.shelvings.get(i, []) if s[1] > now - SHELVE_BUDGET_WINDOW_S]
+        for s in spans:
+            s[0] = max(s[0], now - SHELVE_BUDGET_WINDOW_S)
+        return spans
 
     # ------------------------------------------------------------------ digest
     def digest(self, now: float, since: float) -> list[Effect]:
@@ -661,6 +735,7 @@ class Advisories:
                        "note": "daily digest"}
             self.raised_count[audience] = 0
             self.cleared_count[audience] = 0
+            payload["event_id"] = f"{self.config.site.id}.digest.{audience}.{now:.3f}"
             effects.extend(self.pub.site_event(audience, payload,
                                                f"digest.{audience}.{int(now)}"))
         return effects
@@ -676,3 +751,11 @@ def _epoch(text: str) -> float:
     import datetime as dt
 
     return dt.datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
+
+
+def _extra(identity: str | None, **fields: Any) -> dict[str, Any] | None:
+    """History details: the given non-empty fields and the sender's vouched identity."""
+    out = {k: v for k, v in fields.items() if v}
+    if identity:
+        out["identity"] = identity
+    return out or None

@@ -34,7 +34,7 @@ from thermowarden.effects import Effect, Persist
 from thermowarden.engine.advisories import UNKNOWN_LONG_S, Advisories, Advisory, RuleRuntime
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
 from thermowarden.engine.health import PointHealth
-from thermowarden.engine.ingest import IMPLAUSIBLE, Ingestor, Rejection
+from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
 from thermowarden.engine.state import Capture, SiteState, Snapshot
 from thermowarden.engine.texts import Texts
@@ -76,17 +76,20 @@ class Engine:
         return self.advisories.rules
 
     # ------------------------------------------------------------------ input
-    def message(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
-        """A sensor message received at ``now``; returns its rejections (already counted)."""
+    def message(self, topic: str, payload: bytes, now: float,
+                retained: bool = False) -> list[Rejection]:
+        """A sensor message received at ``now``; returns its rejections (already counted).
+        ``retained``: kept by the broker from before; without a timestamp it is refused as
+        of unknown age."""
         before = self.ingest.accepted
-        rejections = self.ingest.ingest(topic, payload, now)
+        rejections = self.ingest.ingest(topic, payload, now, retained)
         if self.ingest.accepted != before:
             for pid in self.ingest.last_points:
                 space = self.model.points[pid].space
                 if space != SITE:
                     self.publication.touched[space] = True
         for r in rejections:
-            if r.reason == IMPLAUSIBLE:
+            if r.reason in IMPLAUSIBLE_REASONS:
                 self.health.note_implausible(r.point, now)
         return rejections
 
@@ -226,9 +229,16 @@ class Engine:
         self.advisories.last_refresh = -math.inf
 
     # ------------------------------------------------------------------ commands, restore
-    def command(self, verb: str, body: bytes, now: float) -> tuple[dict[str, Any], list[Effect]]:
+    def command(self, verb: str, body: bytes, now: float, audience: str | None = None,
+                identity: str | None = None) -> tuple[dict[str, Any], list[Effect]]:
         """Acknowledge, shelve or unshelve an advisory; see :meth:`Advisories.command`."""
-        return self.advisories.command(verb, body, now)
+        return self.advisories.command(verb, body, now, audience, identity)
+
+    def clock_stepped(self, now: float, step_s: float) -> None:
+        """The wall clock was corrected by ``step_s`` (negative: back). After a step back,
+        readings are no longer refused as older than the latest one taken before it."""
+        if step_s < 0:
+            self.state.clock_stepped_back(now)
 
     def restore(self, records: list[dict[str, Any]]) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""

@@ -3,10 +3,17 @@
 Indices are computed for all spaces in one vectorised call (ISO 7933 PHS, which simulates a
 whole work period, only every ``PHS_EVERY_S``). Rule conditions are three-valued over the
 spaces (true / false / unknown); unknown never raises and never clears.
+
+A computation that raises for one space's inputs fails for that space alone: the spaces are
+split until the failing ones are found, the others are computed as usual, and the failing
+space's indices are absent with the reason ``COMPUTATION_FAILED``. Each failure is kept in
+:attr:`Evaluation.failures` (space -> index group and error) for the health columns, the
+integrator's advisory and the metrics.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from collections import ChainMap
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, fields
@@ -32,6 +39,56 @@ from thermowarden.rules import CompiledRule
 
 PHS_EVERY_S: Final = 300.0
 """ISO 7933 PHS simulates a whole work period per space: it is refreshed every 5 minutes."""
+COMPUTATION_FAILED: Final = "the computation failed for this space's inputs"
+PHS_GROUP: Final = "phs"
+ALL_GROUP: Final = "indices"
+
+
+def take_inputs(s: SpaceInputs, idx: npt.NDArray[np.intp]) -> SpaceInputs:
+    """The inputs of the spaces ``idx`` only."""
+    changes: dict[str, Any] = {"n": int(idx.size)}
+    for f in dataclasses.fields(s):
+        v = getattr(s, f.name)
+        if isinstance(v, np.ndarray):
+            changes[f.name] = v[idx]
+        elif isinstance(v, dict):
+            changes[f.name] = {k: a[idx] for k, a in v.items()}
+        elif isinstance(v, tuple) and len(v) == s.n:
+            changes[f.name] = tuple(v[int(i)] for i in idx)
+    return dataclasses.replace(s, **changes)
+
+
+def merge_tables(n: int, parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+                 template: IndexTable | None = None) -> IndexTable:
+    """One table over ``n`` spaces (or rows) from tables of subsets; columns missing for a
+    space (its computation failed) are absent with :data:`COMPUTATION_FAILED`. Columns of
+    ``template`` (an earlier table) that no part has are absent for every space."""
+    names: dict[str, IndexColumn] = {}
+    for _, t in [*parts, (np.zeros(0, dtype=np.intp), template or {})]:
+        for name, col in t.items():
+            names.setdefault(name, col)
+    out: IndexTable = {}
+    for name, proto in names.items():
+        reasons: list[str] = ["", COMPUTATION_FAILED]
+        values = np.full(n, np.nan)
+        codes = np.ones(n, dtype=proto.codes.dtype)
+        for idx, t in parts:
+            part = t.get(name)
+            if part is None:
+                continue
+            remap = np.array([0] + [_reason_code(reasons, r) for r in part.reasons[1:]],
+                             dtype=proto.codes.dtype)
+            values[idx] = part.values
+            codes[idx] = remap[part.codes]
+        out[name] = IndexColumn(values, codes, tuple(reasons), proto.unit, proto.method,
+                                proto.labels)
+    return out
+
+
+def _reason_code(reasons: list[str], reason: str) -> int:
+    if reason not in reasons:
+        reasons.append(reason)
+    return reasons.index(reason)
 
 
 @dataclass(frozen=True)
@@ -119,6 +176,12 @@ class Evaluation:
         self._last_table: IndexTable | None = None
         self.computed_rows = 0
         """Rows (space x tick) whose indices were computed (the others were unchanged)."""
+        self.failures: dict[int, tuple[str, str]] = {}
+        """Space -> (index group that failed, the error), at the last computation."""
+        self.failure_count = 0
+        """Failed computations (space and group) since start, for the metrics."""
+        self._phs_failures: dict[int, tuple[str, str]] = {}
+        self._all_failures: dict[int, tuple[str, str]] = {}
 
     def _changed_only(self, s: SpaceInputs) -> IndexTable:
         """Indices of every row, computed only for the rows whose inputs differ from the
@@ -140,7 +203,8 @@ class Evaluation:
             same = ((m == before) | (np.isnan(m) & np.isnan(before))).all(axis=1)
         self._last_inputs = m[-n:]
         if not same.any():
-            table = compute_indices(s, with_phs=False)
+            todo = np.arange(rows)
+            table = self._computed(s, todo)
             self.computed_rows += rows
         else:
             grid = np.where(same, -1, np.arange(rows)).reshape(k, n)
@@ -153,7 +217,7 @@ class Evaluation:
                 parts.append(self._last_table)
                 offset = n
             if todo.size:
-                parts.append(compute_indices(rows_of(s, todo), with_phs=False))
+                parts.append(self._computed(rows_of(s, todo), todo))
             pos = np.where(src >= 0, offset + np.searchsorted(todo, np.maximum(src, 0)),
                            np.tile(np.arange(n), k))
             if len(parts) == 1:
@@ -164,10 +228,35 @@ class Evaluation:
         self._last_table = select(table, np.arange(rows - n, rows))
         return table
 
+    def _computed(self, s: SpaceInputs, rows: npt.NDArray[np.intp]) -> IndexTable:
+        """Indices without PHS of the inputs ``s`` (rows ``rows`` of the batch, in order),
+        isolated per row; records which spaces failed at their latest computed row."""
+        n = self.n
+        table, failed = self._isolated(s, rows % n, with_phs=False)
+        self.failure_count += len(failed)
+        latest = np.full(n, -1)
+        np.maximum.at(latest, rows % n, np.arange(rows.size))
+        for i in np.flatnonzero(latest >= 0).tolist():
+            f = failed.get(int(latest[i]))
+            if f is None:
+                self._all_failures.pop(i, None)
+            else:
+                self._all_failures[i] = f
+        self._note()
+        return table
+
+    def _note(self) -> None:
+        """The failures of the latest computation of each space (PHS ones until PHS is
+        computed again)."""
+        merged = dict(self._phs_failures)
+        merged.update(self._all_failures)
+        self.failures = merged
+
     def indices(self, snap: Snapshot) -> IndexTable:
         """Every index of every row (space x tick) of ``snap``. ISO 7933 PHS is refreshed
         every ``PHS_EVERY_S`` and carried between refreshes; the time-weighted WBGT of each
-        tick comes from the spot WBGT recorded at the ticks before it (60-minute windows)."""
+        tick comes from the spot WBGT recorded at the ticks before it (60-minute windows).
+        A computation that raises for one space's inputs fails for that space alone."""
         s = snap.inputs
         n = self.n
         k = snap.k
@@ -181,7 +270,12 @@ class Evaluation:
                     self.last_phs = t
         if due:
             rows = np.concatenate([np.arange(j * n, (j + 1) * n) for j in due])
-            fresh = compute_indices(rows_of(s, rows), with_phs=True)
+            fresh, failed = self._isolated(rows_of(s, rows), rows % n, with_phs=True)
+            self.failure_count += sum(1 for g, _ in failed.values() if g == PHS_GROUP)
+            last = (len(due) - 1) * n
+            self._phs_failures = {r - last: f for r, f in failed.items()
+                                  if r >= last and f[0] == PHS_GROUP}
+            self._note()
             refreshed = {name: col for name, col in fresh.items() if name.startswith("phs_")}
         else:
             refreshed = {}
@@ -220,6 +314,76 @@ class Evaluation:
         return TickRows(table, rows, relative_humidity_method(
             np.isfinite(s.relative_humidity[rows])))
 
+    def _isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp], with_phs: bool
+                  ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
+        """:func:`compute_indices` for every row of ``inputs`` (row r is of space
+        ``space[r]``); a row whose inputs make it raise is found by splitting, retried
+        without PHS, and left without those indices. Returns the table and, per failed row,
+        the index group that failed and the error."""
+        failed: dict[int, tuple[str, str]] = {}
+        known_bad = [i for i, (group, _) in self.failures.items() if group == ALL_GROUP
+                     or (with_phs and group == PHS_GROUP)]
+        bad_rows = np.isin(space, known_bad)
+        if not bad_rows.any():
+            try:
+                return compute_indices(inputs, with_phs=with_phs), failed
+            except Exception:  # noqa: BLE001 - found and isolated below
+                pass
+        parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
+        self._split(inputs, np.flatnonzero(~bad_rows), with_phs, parts, failed)
+        for r in np.flatnonzero(bad_rows).tolist():
+            self._split(inputs, np.array([r], dtype=np.intp), with_phs, parts, failed)
+        table = merge_tables(inputs.n, parts, self._last_table)
+        phs_failed = [r for r, (group, _) in failed.items() if group == PHS_GROUP]
+        if phs_failed:
+            for name, col in table.items():
+                if name.startswith("phs_"):
+                    col.codes[phs_failed] = col.reasons.index(COMPUTATION_FAILED)
+                    col.values[phs_failed] = np.nan
+        return table, failed
+
+    def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp], with_phs: bool,
+               parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+               failed: dict[int, tuple[str, str]]) -> None:
+        if idx.size == 0:
+            return
+        try:
+            parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=with_phs)))
+            return
+        except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
+            error = f"{type(exc).__name__}: {exc}"[:300]
+        if idx.size > 1:
+            half = idx.size // 2
+            self._split(inputs, idx[:half], with_phs, parts, failed)
+            self._split(inputs, idx[half:], with_phs, parts, failed)
+            return
+        i = int(idx[0])
+        if with_phs:
+            try:
+                parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=False)))
+                failed[i] = (PHS_GROUP, error)
+                return
+            except Exception as exc:  # noqa: BLE001
+                error = f"{type(exc).__name__}: {exc}"[:300]
+        failed[i] = (ALL_GROUP, error)
+
+    @staticmethod
+    def failure_columns(table: Mapping[str, IndexColumn]) -> dict[str, FloatArray]:
+        """Per row: ``failed_phs`` 1 where ISO 7933 PHS failed, ``failed_indices`` 1 where
+        every index failed (read from the reasons of the table's columns)."""
+        def failed(col: IndexColumn) -> BoolArray:
+            if COMPUTATION_FAILED not in col.reasons:
+                return np.zeros(col.codes.size, dtype=bool)
+            result: BoolArray = col.codes == col.reasons.index(COMPUTATION_FAILED)
+            return result
+
+        every = failed(table["relative_humidity"])
+        phs = np.zeros(every.size, dtype=bool)
+        for name in table:
+            if name.startswith("phs_"):
+                phs |= failed(table[name])
+        return {"failed_phs": (phs & ~every).astype(np.float64),
+                "failed_indices": every.astype(np.float64)}
 
     def environment(self, snap: Snapshot, table: IndexTable, start: float) -> dict[str, Any]:
         """Name -> array over spaces: every index, the measured inputs, states, occupancy,
@@ -250,8 +414,10 @@ class Evaluation:
             env[f"plane_radiant_temperature_{side}"] = s.plane_radiant.get(side, nan)
         env.update(snap.states)
         env.update(self.health.columns(snap, start))
+        env.update(self.failure_columns(table))
         env["rules_unknown_long"] = np.full(n, np.nan)  # set once the other rules are known
         env["_present"] = snap.present
+        env["_assumed"] = snap.assumed
         return env
 
 

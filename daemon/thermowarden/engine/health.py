@@ -17,8 +17,6 @@ from thermowarden.core.quantities import QUANTITIES
 from thermowarden.engine.state import SiteState, Snapshot
 from thermowarden.site_model import SITE, SiteModel
 
-STUCK_AFTER_S: Final = 3 * 3600.0
-"""A fresh point whose value has not changed for this long is reported as stuck."""
 IMPLAUSIBLE_WINDOW_S: Final = 3600.0
 TEMPERATURE_SPREADS: Final = ("air_temperature", "globe_temperature", "natural_wet_bulb",
                               "mean_radiant_temperature", "floor_temperature")
@@ -36,7 +34,7 @@ class PointHealth:
         self.implausible: list[deque[float]] = [deque(maxlen=200) for _ in range(self.n)]
         self.last_change = np.full(0, np.nan)
         self.last_seen_value = np.full(0, np.nan)
-        self._point_cache: tuple[int, Any, Any] = (-1, None, None)
+        self._point_cache: tuple[int, Any, Any, Any] = (-1, None, None, None)
         self.stale = np.zeros((1, 0), dtype=bool)
         """(K, points) at the latest evaluations."""
         self.stuck = np.zeros((1, 0), dtype=bool)
@@ -47,7 +45,8 @@ class PointHealth:
         """space -> point key -> when a reading of it was last refused as implausible."""
 
     def note_implausible(self, point_key: str, now: float) -> None:
-        """A reading of ``point_key`` was refused as physically implausible at ``now``."""
+        """A reading of ``point_key`` was refused as implausible at ``now`` (outside its
+        plausible range, or changing faster than believable)."""
         found = self.model.point_by_key.get(point_key)
         if found is not None and self.model.points[found].space != SITE:
             self.implausible[self.model.points[found].space].append(now)
@@ -55,8 +54,9 @@ class PointHealth:
 
     def columns(self, snap: Snapshot, start: float) -> dict[str, FloatArray]:
         """Per-space counts at each of the snapshot's times, as K x N rows:
-        ``points_total``, ``stale_points``, ``stuck_points``, ``implausible_recent`` (last
-        hour) and ``max_disagreement`` (K, the largest spread between redundant temperature
+        ``points_total``, ``stale_points``, ``stuck_points`` (unchanged for longer than each
+        point's ``stuck_after_s``, by default 3 hours), ``implausible_recent`` (last hour)
+        and ``max_disagreement`` (K, the largest spread between redundant temperature
         sensors). ``start`` is when the engine started (epoch s): points never seen are
         stale only after their grace period."""
         n = self.n
@@ -79,18 +79,19 @@ class PointHealth:
         self.last_change[:npts] = last_change[-1]
         self.last_seen_value[:npts] = values[-1]
         if self._point_cache[0] != npts:
-            self._point_cache = (npts, np.array([p.space for p in self.model.points[:npts]],
-                                                dtype=np.int64),
-                                 np.array([p.quantity in STATE_QUANTITIES
-                                           for p in self.model.points[:npts]], dtype=bool))
-        _, spaces, state_q = self._point_cache
+            points = self.model.points[:npts]
+            self._point_cache = (npts, np.array([p.space for p in points], dtype=np.int64),
+                                 np.array([p.quantity in STATE_QUANTITIES for p in points],
+                                          dtype=bool),
+                                 np.array([p.stuck_after_s for p in points]))
+        _, spaces, state_q, stuck_after = self._point_cache
         indoor_pts = spaces >= 0
         grace = ((times[:, None] - start)
                  > st.ingest_cfg.stale_after_intervals * st.interval[None, :npts])
         fresh = snap.point_fresh
         stale = ~fresh & (seen | grace) & indoor_pts[None, :]
         stuck = (fresh & indoor_pts[None, :] & ~state_q[None, :]
-                 & (times[:, None] - last_change > STUCK_AFTER_S))
+                 & (times[:, None] - last_change > stuck_after[None, :]))
         self.stale, self.stuck = stale, stuck
         self.snap, self.row = snap, k - 1
         rows = (np.arange(k)[:, None] * n + np.where(indoor_pts, spaces, 0)[None, :])
@@ -150,7 +151,7 @@ class PointHealth:
         return f"{text}: last {value} at {local:%H:%M} {local:%Z}".rstrip()
 
     def _points_of(self, space: int, mask: BoolArray) -> list[int]:
-        _, spaces, _ = self._point_cache
+        _, spaces, _, _ = self._point_cache
         if spaces is None or mask.size == 0:
             return []
         return [int(p) for p in np.flatnonzero(mask & (spaces[:mask.size] == space))]

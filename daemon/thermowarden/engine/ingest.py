@@ -1,9 +1,13 @@
 """From an MQTT message to accepted readings in :class:`SiteState`, or counted rejections.
 
-Each message is matched to its point(s), decoded, converted to SI, and checked: size,
-unknown topic or space, malformed or non-numeric payload, non-finite value, unknown unit,
-physically implausible value, timestamp too old or in the future, duplicate (QoS 1
-redelivery: same point and payload timestamp) and out of order. A rejection is counted
+Each message is matched to its point(s), decoded, converted to SI, corrected by the
+point's calibration (``value * scale + offset``), and checked: size, unknown topic or space,
+malformed or non-numeric payload, non-finite value, unknown unit, implausible value (outside
+the physical range of the quantity narrowed by the point's ``plausible_min``/``max``),
+timestamp too old or in the future, duplicate (QoS 1 redelivery: same point and payload
+timestamp), out of order, and a change since the last accepted reading faster than the
+point's ``max_change_per_min`` (a spike; the next readings are compared with the last
+accepted one, so a real step is accepted once enough time has passed). A rejection is counted
 by reason and point and returned so the shell can log it at a limited rate. Nothing a
 sensor sends raises out of :meth:`Ingestor.ingest`.
 """
@@ -27,11 +31,19 @@ PAYLOAD_TOO_LARGE: Final = "payload_too_large"
 UNKNOWN_TOPIC: Final = "unknown_topic"
 UNKNOWN_SPACE: Final = "unknown_space"
 IMPLAUSIBLE: Final = "implausible"
+IMPLAUSIBLE_CHANGE: Final = "implausible_change"
+IMPLAUSIBLE_REASONS: Final = frozenset({IMPLAUSIBLE, IMPLAUSIBLE_CHANGE})
+"""Rejections that count as implausible readings in sensor health."""
 TOO_OLD: Final = "too_old"
 IN_FUTURE: Final = "in_future"
 DUPLICATE: Final = "duplicate"
 OUT_OF_ORDER: Final = "out_of_order"
 TOO_MANY_SENSORS: Final = "too_many_sensors"
+RETAINED_WITHOUT_TIME: Final = "retained_without_time"
+"""A retained value without a timestamp: of unknown age (it may be a dead sensor's last
+word), so it is never taken as fresh."""
+GAP_FACTOR: Final = 1.5
+"""A gap longer than this many reporting intervals counts the readings missed in it."""
 NO_POINT: Final = "-"
 _NEGATIVE_CACHE_LIMIT: Final = 10_000
 
@@ -64,8 +76,15 @@ class Ingestor:
         self._lazy_count: Counter[tuple[int, str]] = Counter()
         self.last_points: list[int] = []
         """Points that took a reading from the last message."""
+        self.accepted_by_quantity: Counter[str] = Counter()
+        self.missed_by_quantity: Counter[str] = Counter()
+        """Readings missing in gaps longer than a point's interval (sequence gaps)."""
 
     # ---------------------------------------------------------------- routing
+    def resolve(self, topic: str) -> list[int] | Rejection:
+        """The points a topic feeds (creating template points on first use), or why none."""
+        return self._resolve(topic)
+
     def _resolve(self, topic: str) -> list[int] | Rejection:
         cached = self._cache.get(topic)
         if cached is not None:
@@ -136,8 +155,12 @@ class Ingestor:
         return Rejection(reason, point, topic, detail)
 
     # ---------------------------------------------------------------- the path
-    def ingest(self, topic: str, payload: bytes, now: float) -> list[Rejection]:
-        """Take one message received at ``now`` (epoch s); return its rejections, if any."""
+    def ingest(self, topic: str, payload: bytes, now: float,
+               retained: bool = False) -> list[Rejection]:
+        """Take one message received at ``now`` (epoch s); return its rejections, if any.
+
+        ``retained``: the broker kept it from before we subscribed; without a timestamp in
+        the payload its age is unknown and it is refused (``retained_without_time``)."""
         self.received += 1
         self.last_points = []
         route = self._resolve(topic)
@@ -160,6 +183,10 @@ class Ingestor:
                                         f"undecodable: {type(exc).__name__}"))
                 continue
             for d in values:
+                if retained and d.time is None:
+                    out.append(self._reject(RETAINED_WITHOUT_TIME, spec.key, topic,
+                                            "retained value of unknown age"))
+                    continue
                 r = self._store(pid, d, now, topic)
                 if r is not None:
                     out.append(r)
@@ -173,7 +200,7 @@ class Ingestor:
                 convert = converter(QUANTITIES[spec.quantity].kind, d.unit)
             except UnitError as exc:
                 return self._reject(payloads.UNKNOWN_UNIT, spec.key, topic, str(exc))
-        value = convert(d.value)
+        value = convert(d.value) * spec.scale + spec.offset
         if not math.isfinite(value):
             return self._reject(payloads.NOT_FINITE, spec.key, topic, "converted value")
         if not spec.low <= value <= spec.high:
@@ -187,9 +214,22 @@ class Ingestor:
         state = self.state
         if d.time is not None and t == state.last_source_time[pid]:
             return self._reject(DUPLICATE, spec.key, topic, "same point and timestamp")
-        if t < state.last_time[pid]:
+        last_t = state.last_time[pid]
+        if t < last_t:
             return self._reject(OUT_OF_ORDER, spec.key, topic, "older than the latest reading")
+        if spec.max_change_per_s != math.inf and last_t == last_t:  # a previous reading
+            change = abs(value - state.last_value[pid])
+            allowed = spec.max_change_per_s * (t - last_t)
+            if change > allowed + 1e-9:
+                return self._reject(IMPLAUSIBLE_CHANGE, spec.key, topic,
+                                    f"changed {change:.4g} in {t - last_t:.0f} s, more than "
+                                    f"{spec.max_change_per_s * 60:g} per minute")
+        last = state.last_time[pid]
+        interval = state.interval[pid]
+        if t - last > GAP_FACTOR * interval:  # false for the first reading (last is not set)
+            self.missed_by_quantity[spec.quantity] += int(round((t - last) / interval)) - 1
         state.record(pid, t, value, t if d.time is not None else math.nan)
+        self.accepted_by_quantity[spec.quantity] += 1
         self.accepted += 1
         self.last_points.append(pid)
         return None

@@ -159,6 +159,9 @@ class Publication:
         inputs: dict[str, Any] = {}
         for q, mask in snap.present.items():
             inputs[q] = {"fresh": bool(mask[i])}
+        for q, mask in snap.assumed.items():
+            if mask[i]:
+                inputs.setdefault(q, {"fresh": False})["assumed"] = self._assumption_notes(i)[q]
         return {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
@@ -170,6 +173,13 @@ class Publication:
             "indices": self.indices_at(table, i),
             "advisory_only": True,
         }
+
+    def _assumption_notes(self, i: int) -> dict[str, str]:
+        """quantity -> "assumed: ..." for space ``i`` (from its configuration, kept)."""
+        cache: dict[int, dict[str, str]] = self.__dict__.setdefault("_notes", {})
+        if i not in cache:
+            cache[i] = self.config.assumptions(self.model.space(i)).notes()
+        return cache[i]
 
     def indices_at(self, table: IndexTable, i: int) -> dict[str, dict[str, Any]]:
         """``IndexColumn.as_dict`` for every index of space ``i``, with the per-column work

@@ -10,13 +10,19 @@ from __future__ import annotations
 import datetime as dt
 import math
 import zoneinfo
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Final
 
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.config import IngestConfig, OccupancyConfig, PointBase, SiteConfig
+from thermowarden.config import (
+    IngestConfig,
+    OccupancyConfig,
+    PointBase,
+    PointConfig,
+    SiteConfig,
+)
 from thermowarden.core import radiation
 from thermowarden.core.adaptive import running_mean_outdoor
 from thermowarden.core.columns import BoolArray, FloatArray
@@ -28,6 +34,15 @@ IntArray = npt.NDArray[np.int64]
 
 WBGT_BIN_S: Final = 60.0
 MIN_TWA_COVERAGE: Final = 0.8
+DEFAULT_AIR_SPEED_HEIGHT_M: Final = 1.1
+"""Height of a space's air speed sensor unless its point says height_m: ISO 7726's abdomen
+height of a standing person."""
+WIND_HEIGHT_M: Final = 10.0
+"""Height of the site's wind_speed unless its point says height_m (meteorological 10 m)."""
+WBGT_BINS: Final = 61
+"""Per-minute WBGT bins kept: the current, partial minute and the 60 before it, so that the
+60-minute mean covers a full 60 minutes (the oldest bin counts for the part of its minute
+still inside the window)."""
 """A time-weighted WBGT needs 48 of its 60 minutes covered."""
 DAILY_MEANS_KEPT: Final = 30
 SIMPLE_SLOTS: Final = ("relative_humidity", "globe_temperature", "mean_radiant_temperature",
@@ -84,6 +99,8 @@ class Snapshot:
     """(K, points) receive time of that value."""
     days_rolled: dict[int, list[float]]
     """Evaluation index -> completed daily means (newest first) where a local day ended."""
+    assumed: dict[str, BoolArray] = field(default_factory=dict)
+    """quantity -> the space's declared assumption stands in for it at this evaluation."""
 
     @property
     def k(self) -> int:
@@ -129,9 +146,9 @@ class SiteState:
             self._on_new_point(pid)
         model.listeners.append(self._on_new_point)
         n = model.n_spaces
-        self.wbgt_sum = np.zeros((n, 60))
-        self.wbgt_weight = np.zeros((n, 60))
-        self.wbgt_minute = np.full((n, 60), -1, dtype=np.int64)
+        self.wbgt_sum = np.zeros((n, WBGT_BINS))
+        self.wbgt_weight = np.zeros((n, WBGT_BINS))
+        self.wbgt_minute = np.full((n, WBGT_BINS), -1, dtype=np.int64)
         self._last_wbgt_record: float | None = None
         self.daily_means: list[float] = list(cfg.site.outdoor_daily_means)
         """Completed daily mean outdoor temperatures, newest first (°C)."""
@@ -143,6 +160,13 @@ class SiteState:
         self._slots_version = -1
         self._slots: dict[str, _Slot] = {}
         self._context = self._build_context()
+        assume = [cfg.assumptions(space) for space in cfg.spaces]
+        self.assumed_air_speed = np.array(
+            [a.air_speed if a.air_speed is not None else np.nan for a in assume])
+        """m/s per space; NaN where the space assumes nothing."""
+        self.assumed_mrt_offset = np.array(
+            [off if (off := a.mrt_offset_k) is not None else np.nan for a in assume])
+        """Mean radiant minus air temperature (K) per space; NaN where nothing is assumed."""
         groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
         for i, space in enumerate(cfg.spaces):
             occ = cfg.occupancy(space)
@@ -188,6 +212,13 @@ class SiteState:
         self.n_points = max(self.n_points, pid + 1)
 
     # ------------------------------------------------------------------ readings
+    def clock_stepped_back(self, now: float) -> None:
+        """The wall clock went back: receipt times after ``now`` become ``now`` (they were
+        taken on the clock before its correction), so new readings are not out of order."""
+        n = self.n_points
+        t = self.last_time[:n]
+        self.last_time[:n] = np.where(t > now, now, t)  # NaN (never seen) stays NaN
+
     def record(self, pid: int, t: float, value: float, source_time: float) -> None:
         """Store an accepted reading (already converted, checked and deduplicated)."""
         self.last_value[pid] = value
@@ -221,6 +252,25 @@ class SiteState:
                         globe_d[p.space] = cfg_point.globe_diameter_m
                     if cfg_point.globe_emissivity:
                         globe_e[p.space] = cfg_point.globe_emissivity
+        # heights of the air speed sensors (UTCI converts to 10 m): a space's own air_speed
+        # point at 1.1 m unless it says height_m; the site's wind_speed at 10 m unless it says
+        speed_height = np.full(n, DEFAULT_AIR_SPEED_HEIGHT_M)
+        self.wind_height_m = WIND_HEIGHT_M
+        for p in self.model.points:
+            if p.quantity not in ("air_speed", "wind_speed"):
+                continue
+            where: list[PointConfig] = (list(cfg.site.outdoor_points) if p.space == SITE
+                                        else list(spaces[p.space].points))
+            found: PointBase | None = next((q for q in where if q.topic == p.topic), None)
+            if found is None and p.space != SITE:
+                found = next((t for t in cfg.templates if t.quantity == p.quantity and
+                              (t.spaces is None or spaces[p.space].id in t.spaces)), None)
+            if found is None or found.height_m is None:
+                continue
+            if p.space == SITE:
+                self.wind_height_m = found.height_m
+            else:
+                speed_height[p.space] = found.height_m
         if cfg.site.barometric_pressure_pa is not None:
             pressure = cfg.site.barometric_pressure_pa
         elif cfg.site.altitude_m is not None:
@@ -230,7 +280,6 @@ class SiteState:
         indoor = np.array([s.kind == "indoor" for s in spaces], dtype=bool)
         solar = np.array([(s.solar_load if s.solar_load is not None else s.kind == "outdoor")
                           for s in spaces], dtype=bool)
-        editions = {s.phs_edition for s in spaces if s.hot_work}
         return {
             "met": np.array([p.met_value for p in people]),
             "clo": np.array([p.clo if p.clothing_model == "fixed" and p.clo is not None
@@ -243,10 +292,11 @@ class SiteState:
             "naturally_ventilated": np.array([s.ventilation == "natural" for s in spaces],
                                              dtype=bool),
             "pressure_pa": np.full(n, pressure),
+            "air_speed_height_m": speed_height,
             "globe_diameter_m": globe_d, "globe_emissivity": globe_e,
             "target_pmv": np.array([float(cfg.parameters(s).get("target_pmv", 0.5))
                                     for s in spaces]),
-            "phs_edition": "2004" if editions == {"2004"} else "2023",
+            "phs_edition": tuple(s.phs_edition for s in spaces),
         }
 
     # ------------------------------------------------------------------ slots
@@ -498,8 +548,10 @@ class SiteState:
                        np.repeat(outdoor["outdoor_air_temperature"], n), air)
         rh = np.where(outdoor_space & np.isnan(rh),
                       np.repeat(outdoor["outdoor_relative_humidity"], n), rh)
-        speed = np.where(outdoor_space & np.isnan(speed), np.repeat(outdoor["wind_speed"], n),
-                         speed)
+        from_wind = outdoor_space & np.isnan(speed)
+        speed_height = ctx["air_speed_height_m"]
+        assert isinstance(speed_height, np.ndarray)
+        speed = np.where(from_wind, np.repeat(outdoor["wind_speed"], n), speed)
 
         rm = np.full(k, np.nan)
         clo_outdoor = np.full(k, np.nan)
@@ -524,12 +576,26 @@ class SiteState:
         twa[(k - 1) * n:] = self.wbgt_time_weighted(float(times[-1]))
         context = {name: (np.tile(v, k) if isinstance(v, np.ndarray) else
                           v * k if isinstance(v, tuple) else v) for name, v in ctx.items()}
+        context["air_speed_height_m"] = np.where(from_wind, self.wind_height_m,
+                                                 np.tile(speed_height, k))
+        # declared assumptions stand in where nothing is measured (ISO 7726 would measure)
+        assumed_speed = np.tile(self.assumed_air_speed, k)
+        assumed_offset = np.tile(self.assumed_mrt_offset, k)
+        measured_speed = np.isfinite(speed)
+        speed_assumed = ~measured_speed & np.isfinite(assumed_speed)
+        speed = np.where(speed_assumed, assumed_speed, speed)
+        mrt = got.get("mean_radiant_temperature", nan_rows)
+        radiant_known = np.isfinite(mrt) | np.isfinite(got.get("globe_temperature", nan_rows))
+        for v in planes.values():
+            radiant_known |= np.isfinite(v)
+        mrt_assumed = ~radiant_known & np.isfinite(assumed_offset) & np.isfinite(air)
+        mrt = np.where(mrt_assumed, air + assumed_offset, mrt)
         inputs = SpaceInputs.create(
             rows,
             air_temperature=air, relative_humidity=rh, air_speed=speed,
             turbulence_intensity=turbulence,
             globe_temperature=got.get("globe_temperature", nan_rows),
-            mean_radiant_temperature=got.get("mean_radiant_temperature", nan_rows),
+            mean_radiant_temperature=mrt,
             natural_wet_bulb=got.get("natural_wet_bulb", nan_rows),
             psychrometric_wet_bulb=got.get("psychrometric_wet_bulb", nan_rows),
             floor_temperature=got.get("floor_temperature", nan_rows),
@@ -543,14 +609,16 @@ class SiteState:
             **context,
         )
         present = {q: np.isfinite(v) for q, v in (
-            ("air_temperature", air), ("relative_humidity", rh), ("air_speed", speed))}
+            ("air_temperature", air), ("relative_humidity", rh))}
+        present["air_speed"] = measured_speed
         for q, v in got.items():
             present.setdefault(q, np.isfinite(v))
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
+        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
         occupied = self.occupied_many(times, states["occupancy"])
         return Snapshot(float(times[-1]), inputs, present, states, occupied, spread, fresh, age,
-                        outdoor, times, values, last, days_rolled)
+                        outdoor, times, values, last, days_rolled, assumed)
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:
@@ -567,7 +635,7 @@ class SiteState:
         if dt_s <= 0:
             return
         minute = int(now // WBGT_BIN_S)
-        slot = minute % 60
+        slot = minute % WBGT_BINS
         stale = self.wbgt_minute[:, slot] != minute
         self.wbgt_sum[stale, slot] = 0.0
         self.wbgt_weight[stale, slot] = 0.0
@@ -577,11 +645,18 @@ class SiteState:
         self.wbgt_weight[ok, slot] += dt_s
 
     def wbgt_time_weighted(self, now: float) -> FloatArray:
-        """Time-weighted WBGT over the last hour (°C); NaN below 80 % coverage."""
+        """Time-weighted WBGT over the 60 minutes before ``now`` (°C); NaN below 80 % coverage.
+
+        The window is exactly 60 minutes: the current partial minute, the 59 minutes before
+        it in full, and the part of the minute before those still inside the window (its
+        bin weighted by that fraction, the samples taken as spread over their minute).
+        """
         minute = int(now // WBGT_BIN_S)
-        valid = (self.wbgt_minute > minute - 60) & (self.wbgt_minute <= minute)
-        s = np.where(valid, self.wbgt_sum, 0.0).sum(axis=1)
-        w = np.where(valid, self.wbgt_weight, 0.0).sum(axis=1)
+        elapsed = (now - minute * WBGT_BIN_S) / WBGT_BIN_S
+        age = minute - self.wbgt_minute
+        factor = np.where((age >= 0) & (age < 60), 1.0, np.where(age == 60, 1.0 - elapsed, 0.0))
+        s = (self.wbgt_sum * factor).sum(axis=1)
+        w = (self.wbgt_weight * factor).sum(axis=1)
         window = self.ingest_cfg.wbgt_window_s
         with np.errstate(invalid="ignore", divide="ignore"):
             result: FloatArray = np.where(w >= MIN_TWA_COVERAGE * min(window, 3600.0), s / w,

@@ -101,6 +101,10 @@ class Texts:
             return bool(expr.evaluate_truth(one, 1).true[0])
 
         title_t, advice_t = rule.texts_at(level)
+        notes = self._assumed(i, env)
+        for q, note in notes.items():
+            if q in numbers:
+                numbers[q]["assumed"] = note
         adv.numbers = numbers
         adv.benefit = benefit
         # where every sentence needs a number that is not known now, the last text stays
@@ -108,5 +112,18 @@ class Texts:
         adv.title = title_t.render(fields, holds) or adv.title or rule.config.title
         adv.advice = advice_t.render(fields, holds) or adv.advice or NOT_NOW
         adv.rationale = rule.rationale.render(fields, holds) or adv.rationale or NOT_NOW
+        if notes:
+            shown = "; ".join(f"{q.replace('_', ' ')} {n.removeprefix('assumed: ')}"
+                              for q, n in notes.items())
+            suffix = f" Not measured here, assumed: {shown}."
+            if not adv.rationale.endswith(suffix):
+                adv.rationale += suffix
         adv.no_effect_text = (rule.no_effect.render(fields, holds)
                               if rule.no_effect is not None else "")
+
+    def _assumed(self, i: int, env: Mapping[str, Any]) -> dict[str, str]:
+        """The assumptions standing in for space ``i``'s readings at this evaluation."""
+        flags = env.get("_assumed", {})
+        declared = self.config.assumptions(self.model.space(i)).notes()
+        return {q: n for q, n in declared.items()
+                if q in flags and bool(flags[q][i])}

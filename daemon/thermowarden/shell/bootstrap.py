@@ -7,27 +7,32 @@ import os
 import pathlib
 import queue
 import zlib
+from collections.abc import Mapping
 from dataclasses import dataclass
 from http.server import ThreadingHTTPServer
 
-import numpy as np
 from pydantic import ValidationError
 
 from thermowarden import __version__
 from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConfig, load_site
-from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.engine import Engine, iso
-from thermowarden.rules import load_rule_packs
+from thermowarden.rules import CompiledPack, load_rule_packs
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
+from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
-from thermowarden.shell.store import Store
+from thermowarden.shell.store import Store, StoreError, move_aside
+from thermowarden.shell.warmup import warm_up
 from thermowarden.site_model import build_site_model
 
 log = logging.getLogger("thermowarden")
 
 INBOX_SIZE = 100_000
+PACKET_OVERHEAD = 4096
+"""Room for the topic and properties on top of the largest payload we accept (MQTT 5
+maximum packet size sent to the broker)."""
 
 
 @dataclass
@@ -50,27 +55,13 @@ def only_spaces(config: SiteConfig, ids: list[str]) -> SiteConfig:
     return config.model_copy(update={"spaces": [s for s in config.spaces if s.id in wanted]})
 
 
-def warm_up() -> None:
-    """Load (or compile, once) the numba models before reporting ready."""
-    s = SpaceInputs.create(
-        2, air_temperature=np.array([24.0, 33.0]), relative_humidity=np.array([50.0, 40.0]),
-        mean_radiant_temperature=np.array([25.0, 40.0]), air_speed=np.array([0.3, 0.6]),
-        globe_temperature=np.array([25.0, 40.0]), natural_wet_bulb=np.array([18.0, 25.0]),
-        clo=np.array([0.6, 0.6]), hot_work=np.array([False, True]),
-        indoor=np.array([True, False]))
-    compute_indices(s, with_phs=True)
-
-
-def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
-              state_dir: str | None = None, shard: tuple[int, int] | None = None,
-              spaces: list[str] | None = None, protocol: str | None = None,
-              clock: Clock | None = None, http_host: str = "127.0.0.1",
-              overrides: dict[str, str] | None = None) -> Running:
-    """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
-
-    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site.
-    ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
-    """
+def load_configuration(config_path: str, *, broker_url: str | None = None,
+                       protocol: str | None = None, shard: tuple[int, int] | None = None,
+                       spaces: list[str] | None = None, overrides: dict[str, str] | None = None
+                       ) -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
+    """The site (with the command line's overrides and this instance's spaces) and its rule
+    packs, validated as ``check`` does; at start and at every reload. Raises
+    :class:`ConfigError` (or ValueError for ``--spaces`` naming an unknown space)."""
     config = load_site(config_path, {**os.environ, **(overrides or {})})
     if broker_url or protocol:
         override = {k: v for k, v in (("url", broker_url), ("protocol", protocol)) if v}
@@ -86,13 +77,43 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     if spaces:
         config = only_spaces(config, spaces)
     names = {n for s in config.spaces for n in config.rule_packs(s)}
-    packs = load_rule_packs(names, config.rule_dirs, base=config_path)
+    return config, load_rule_packs(names, config.rule_dirs, base=config_path)
+
+
+def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
+              state_dir: str | None = None, shard: tuple[int, int] | None = None,
+              spaces: list[str] | None = None, protocol: str | None = None,
+              clock: Clock | None = None, http_host: str = "127.0.0.1",
+              overrides: dict[str, str] | None = None,
+              move_damaged_store: bool = False) -> Running:
+    """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
+
+    Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site,
+    :class:`StoreError` (one line: the file and what to do) for a store that cannot be used.
+    ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
+    ``move_damaged_store``: a store that fails its check is renamed aside and a new one
+    begins (live advisories are raised again from fresh readings).
+    """
+    def load() -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
+        return load_configuration(config_path, broker_url=broker_url, protocol=protocol,
+                                  shard=shard, spaces=spaces, overrides=overrides)
+
+    config, packs = load()
     model = build_site_model(config)
-    warm_up()
+    warm_up(log.info)
     clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""
-    store = Store(state / f"{config.site.id}{suffix}.sqlite3")
+    store_path = state / f"{config.site.id}{suffix}.sqlite3"
+    try:
+        store = Store(store_path)
+    except StoreError:
+        if not move_damaged_store:
+            raise
+        moved = move_aside(store_path, clock.now())
+        log.warning("the damaged store was moved aside to %s; starting with an empty store",
+                    moved)
+        store = Store(store_path)
     engine = Engine(config, model, packs, start=clock.now())
     notes = engine.restore(store.advisories())
     for note in notes:
@@ -117,12 +138,23 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
               "advisory_only": True}
     status_topic = f"{prefix}/status" + (f"/{instance}" if shard else "")
     subs = model.subscriptions(per_space=shard is not None or bool(spaces))
-    subs.append(f"{prefix}/commands/+")
+    subs.append(f"{prefix}/commands/#")
+    v311 = config.broker.protocol == "3.1.1"
     link = MqttLink(config.broker, subs, status_topic, {**status, "state": "online"},
                     {**status, "state": "offline"}, inbox, control, metrics, instance,
-                    command_prefix=f"{prefix}/commands/", now=clock.now)
+                    command_prefix=f"{prefix}/commands/", now=clock.now,
+                    max_packet_bytes=max(config.ingest.max_payload_bytes,
+                                         config.commands.max_body_bytes) + PACKET_OVERHEAD,
+                    max_command_bytes=config.commands.max_body_bytes,
+                    identity_property=config.commands.identity_property,
+                    echo_prefix=f"{prefix}/events/" if v311 else None)
+    # always there, so a reload can turn delivery on; idle without audiences
+    delivery = Delivery(config.delivery, config.site.timezone, store.path,
+                        registry=metrics.registry, now=clock.now)
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
-                      f"{prefix}/replies", clock)
+                      f"{prefix}/replies", clock, delivery=delivery,
+                      reloader=lambda old: prepare_reload(old, load),
+                      per_space_subscriptions=shard is not None or bool(spaces))
     http = None
     if http_port is not None:
         http = start_http(http_port, metrics, service.alive, service.ready, host=http_host)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import json
 import threading
 from collections.abc import Callable
@@ -42,7 +43,13 @@ def start_http(port: int, metrics: Metrics, alive: Callable[[], bool],
         def log_message(self, format: str, *args: object) -> None:  # noqa: A002
             pass
 
-    server = ThreadingHTTPServer((host, port), Handler)
+    try:
+        server = ThreadingHTTPServer((host, port), Handler)
+    except OSError as exc:
+        hint = " (is another process using it? choose another with --http-port)" \
+            if exc.errno == errno.EADDRINUSE else ""
+        raise OSError(f"cannot serve the operations endpoint on {host}:{port}: "
+                      f"{exc.strerror}{hint}") from None
     server.daemon_threads = True
     threading.Thread(target=server.serve_forever, name="http-ops", daemon=True).start()
     return server

@@ -40,5 +40,38 @@ class Metrics:
         self.job_errors = Counter("thermowarden_scheduler_job_errors",
                                   "Scheduler jobs that failed or were missed", ["job", "kind"],
                                   registry=r)
-        self.commands = Counter("thermowarden_commands", "Commands received", ["verb", "ok"],
-                                registry=r)
+        self.commands = Counter("thermowarden_commands",
+                                "Commands received (verb is a known verb or 'unknown')",
+                                ["verb", "ok"], registry=r)
+        self.retained_commands = Counter(
+            "thermowarden_commands_retained",
+            "Retained command messages ignored (and cleared) rather than executed", registry=r)
+        self.events_expired = Counter(
+            "thermowarden_events_expired",
+            "Events removed from the outbox undelivered (too old, or the outbox full)",
+            registry=r)
+        self.events_unconfirmed = Counter(
+            "thermowarden_events_unconfirmed",
+            "MQTT 3.1.1: events acknowledged by the broker but never seen back on the "
+            "service's own subscription (an ACL that silently drops them)", registry=r)
+        self.readings = Counter("thermowarden_readings_accepted",
+                                "Readings accepted, per quantity (rate() gives the received "
+                                "rate per point group)", ["quantity"], registry=r)
+        self.missed = Counter("thermowarden_readings_missed",
+                              "Readings missing between two accepted readings of a point "
+                              "(gaps longer than its reporting interval), per quantity",
+                              ["quantity"], registry=r)
+        self.broker_dropped = Gauge(
+            "thermowarden_broker_messages_dropped",
+            "The broker's own count of messages it dropped ($SYS, where it publishes it)",
+            registry=r)
+        self.broker_stored = Gauge(
+            "thermowarden_broker_messages_stored",
+            "Messages the broker holds ($SYS, where it publishes it)", registry=r)
+        self.computation_failures = Counter(
+            "thermowarden_computation_failures",
+            "Index computations that raised for one space (the others went on), per index",
+            ["index"], registry=r)
+        self.clock_steps = Counter("thermowarden_clock_steps",
+                                   "Wall-clock steps seen (corrections of the system clock)",
+                                   ["direction"], registry=r)

@@ -1,10 +1,26 @@
 """The MQTT client: paho-mqtt 2.x, callback API version 2, MQTT 5 (or 3.1.1).
 
 A thread of our own runs the network loop and reconnects with capped exponential backoff
-and jitter. Callbacks do nothing but enqueue: sensor messages and commands onto the
-bounded ``inbox`` (overflow is counted), connection events and publish acknowledgements
-onto the unbounded ``control`` queue. Publishing is done by the engine thread through
-:meth:`MqttLink.publish`; paho's client is safe to publish from another thread.
+and jitter; while it waits it probes the broker's port once a second and starts again from
+the shortest delay as soon as the broker answers. Callbacks do nothing but enqueue: sensor
+messages and commands onto the bounded ``inbox`` (overflow is counted), connection events
+and publish acknowledgements onto the unbounded ``control`` queue. Publishing is done by
+the engine thread through :meth:`MqttLink.publish`; paho's client is safe to publish from
+another thread.
+
+paho keeps every QoS 1 message it was handed until the broker acknowledges it, across
+reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
+hands each outbox row to paho once and never publishes it again while paho holds it.
+
+Retained commands are never executed (a retained command would run again at every
+reconnect): they are counted and cleared. Under MQTT 5 the command subscription asks for
+the retain flag as published, so even the first, live delivery of a retained command is
+refused; MQTT 3.1.1 cannot tell a live retained message from a plain one, so there the
+service clears the topic's retained message after every command it executes. Command
+bodies over the limit are not decoded.
+Under MQTT 5 the client announces a maximum packet size, so the broker does not send a
+larger message at all (the limit is applied before paho buffers it); under MQTT 3.1.1 the
+broker's own ``max_packet_size`` must do that (see deploy/broker/mosquitto.conf).
 """
 
 from __future__ import annotations
@@ -13,6 +29,7 @@ import json
 import logging
 import queue
 import random
+import socket
 import ssl
 import threading
 import time
@@ -26,6 +43,7 @@ import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion
 from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
+from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
 from thermowarden.shell.metrics import Metrics
@@ -34,6 +52,11 @@ log = logging.getLogger("thermowarden.mqtt")
 
 BACKOFF_START_S = 0.5
 BACKOFF_CAP_S = 30.0
+PROBE_EVERY_S = 1.0
+"""While waiting to reconnect, the broker's port is tried this often (a TCP connect)."""
+SYS_TOPICS = ("$SYS/broker/publish/messages/dropped",
+              "$SYS/broker/store/messages/count")
+"""Mosquitto's own counters: messages it dropped (queue limits), messages it holds."""
 
 
 @dataclass(slots=True)
@@ -45,6 +68,13 @@ class Incoming:
     received: float
     response_topic: str | None = None
     correlation: bytes | None = None
+    retained: bool = False
+    identity: str | None = None
+    """The sender's identity from the configured MQTT 5 user property (commands only)."""
+    oversize: int = 0
+    """A command body over the limit: its length (the body itself is dropped)."""
+    kind: str = "sensor"
+    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check) or "sys"."""
 
 
 @dataclass(frozen=True)
@@ -108,9 +138,18 @@ class MqttLink:
                  status_online: dict[str, Any], status_offline: dict[str, Any],
                  inbox: Inbox, control: queue.Queue[Control],
                  metrics: Metrics, client_id: str, command_prefix: str = "\0",
-                 now: Callable[[], float] = time.time) -> None:
+                 now: Callable[[], float] = time.time, *, max_packet_bytes: int = 0,
+                 max_command_bytes: int = 65_536, identity_property: str | None = None,
+                 echo_prefix: str | None = None, read_sys: bool = True) -> None:
         self.cfg = cfg
-        self.subscriptions = subscriptions
+        self.max_packet_bytes = max_packet_bytes
+        self.max_command_bytes = max_command_bytes
+        self.identity_property = identity_property
+        self.echo_prefix = echo_prefix
+        self.subscriptions = list(subscriptions)
+        if echo_prefix:
+            self.subscriptions.append(echo_prefix + "#")
+        self.read_sys = read_sys
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
@@ -144,6 +183,7 @@ class MqttLink:
         self.connected = threading.Event()
         self.subscribed = threading.Event()
         self._stop = threading.Event()
+        self._stopping = threading.Event()  # an orderly stop: a disconnect is expected
         self._thread: threading.Thread | None = None
         self._connects = 0
         self.received = 0
@@ -166,21 +206,49 @@ class MqttLink:
         self.subscribed.clear()
         self._pending_subs = set()
         for topic in self.subscriptions:
-            _, mid = client.subscribe(topic, qos=1)
+            if self.v5 and topic.startswith(self.command_prefix):
+                # see the retain flag on live deliveries too: a retained command is never
+                # executed, not even once
+                _, mid = client.subscribe(topic, options=SubscribeOptions(
+                    qos=1, retainAsPublished=True))
+            else:
+                _, mid = client.subscribe(topic, qos=1)
             if mid is not None:
                 self._pending_subs.add(mid)
+        if self.read_sys:
+            for topic in SYS_TOPICS:  # best effort: not every broker publishes them
+                client.subscribe(topic, qos=0)
         self.control.put(Control("connected"))
+
+    def set_subscriptions(self, subscriptions: list[str]) -> None:
+        """Change the topic filters (after a reload): unsubscribe what is gone, subscribe
+        what is new; every later connect subscribes to the new list."""
+        old = set(self.subscriptions)
+        self.subscriptions = list(subscriptions)
+        if not self.connected.is_set():
+            return
+        removed = sorted(old - set(subscriptions))
+        if removed:
+            self.client.unsubscribe(removed)
+        for topic in sorted(set(subscriptions) - old):
+            _, mid = self.client.subscribe(topic, qos=1)
+            if mid is not None:
+                self._pending_subs.add(mid)
 
     def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
                        properties: Any) -> None:
         self.connected.clear()
         self.subscribed.clear()
         self.metrics.connected.set(0)
-        self.control.put(Control("disconnected", reason=str(reason)))
+        if not self._stopping.is_set():
+            self.control.put(Control("disconnected", reason=str(reason)))
 
     def _on_subscribe(self, client: mqtt.Client, userdata: Any, mid: int, reasons: Any,
                       properties: Any) -> None:
-        failed = [str(r) for r in reasons if getattr(r, "is_failure", False)]
+        failed = [str(r) for r in reasons if getattr(r, "is_failure", False)
+                  or getattr(r, "value", 0) == 0x80]
+        if mid not in self._pending_subs:
+            return  # a $SYS subscription (best effort)
         if failed:
             self.control.put(Control("refused", mid=mid,
                                      reason=f"subscription refused: {', '.join(failed)}"))
@@ -190,17 +258,39 @@ class MqttLink:
             self.control.put(Control("subscribed"))
 
     def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
-        self.received += 1
         topic = msg.topic
         if topic.startswith(self.command_prefix):  # only commands carry reply properties
+            if msg.retain:
+                # never executed: it would run again at every reconnect
+                self.metrics.retained_commands.inc()
+                if msg.payload:
+                    client.publish(topic, b"", qos=1, retain=True)  # clear it
+                return
             props = getattr(msg, "properties", None)
-            item = Incoming(topic, bytes(msg.payload), self.now(),
-                            getattr(props, "ResponseTopic", None),
-                            getattr(props, "CorrelationData", None))
+            size = len(msg.payload)
+            item = Incoming(topic, b"" if size > self.max_command_bytes else bytes(msg.payload),
+                            self.now(), getattr(props, "ResponseTopic", None),
+                            getattr(props, "CorrelationData", None), kind="command",
+                            identity=self._identity(props),
+                            oversize=size if size > self.max_command_bytes else 0)
+        elif self.echo_prefix and topic.startswith(self.echo_prefix):
+            item = Incoming(topic, bytes(msg.payload), 0.0, kind="echo")
+        elif topic.startswith("$SYS/"):
+            item = Incoming(topic, bytes(msg.payload), 0.0, kind="sys")
         else:
-            item = Incoming(topic, bytes(msg.payload), self.now())
+            self.received += 1
+            item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain))
         if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
+
+    def _identity(self, props: Any) -> str | None:
+        name = self.identity_property
+        if not name or props is None:
+            return None
+        for key, value in getattr(props, "UserProperty", None) or []:
+            if key == name:
+                return str(value)[:200]
+        return None
 
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
                     properties: Any) -> None:
@@ -212,6 +302,28 @@ class MqttLink:
         self._thread = threading.Thread(target=self._run, name="mqtt", daemon=True)
         self._thread.start()
 
+    def _probe(self) -> bool:
+        """True when the broker's port accepts a TCP connection."""
+        try:
+            with socket.create_connection((self.host, self.port), timeout=0.5):
+                return True
+        except OSError:
+            return False
+
+    def _wait(self, seconds: float, probe: bool) -> bool:
+        """Wait ``seconds`` (or until stopped); with ``probe``, return True early as soon as
+        the broker's port answers."""
+        deadline = time.monotonic() + seconds
+        while not self._stop.is_set():
+            left = deadline - time.monotonic()
+            if left <= 0:
+                return False
+            if self._stop.wait(min(PROBE_EVERY_S, left)):
+                return False
+            if probe and self._probe():
+                return True
+        return False
+
     def _run(self) -> None:
         backoff = BACKOFF_START_S
         first = True
@@ -221,6 +333,8 @@ class MqttLink:
                     if self.v5:
                         props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
                         props.SessionExpiryInterval = 0
+                        if self.max_packet_bytes:
+                            props.MaximumPacketSize = int(self.max_packet_bytes)
                         self.client.connect(self.host, self.port, self.cfg.keepalive_s,
                                             clean_start=True, properties=props)
                     else:
@@ -233,35 +347,47 @@ class MqttLink:
                 log.warning("cannot reach broker %s:%s (%s); retrying in %.1f s", self.host,
                             self.port, exc, wait)
                 backoff = min(BACKOFF_CAP_S, backoff * 2)
-                self._stop.wait(wait)
+                if self._wait(wait, probe=True):
+                    backoff = BACKOFF_START_S  # the broker answers again: start over
                 continue
+            refused = False
             while not self._stop.is_set():
                 rc = self.client.loop(timeout=0.1)
                 if rc != mqtt.MQTT_ERR_SUCCESS:
+                    refused = rc == mqtt.MQTT_ERR_CONN_REFUSED
                     break
                 if self.connected.is_set():
                     backoff = BACKOFF_START_S
-            if self._stop.is_set():
+            if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
             wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
             log.warning("connection to the broker lost; reconnecting in %.1f s", wait)
             backoff = min(BACKOFF_CAP_S, backoff * 2)
-            self._stop.wait(wait)
+            # a broker that refused us answers its port too: no early retry then
+            if refused:
+                self._wait(wait, probe=False)
+            elif self._wait(wait, probe=True):
+                backoff = BACKOFF_START_S
 
     # ---------------------------------------------------------------- publishing
     def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,
-                expiry_s: int | None = None, correlation: bytes | None = None) -> int | None:
-        """Publish now if connected; returns the message id, or None when not connected."""
+                expiry_s: int | None = None, correlation: bytes | None = None,
+                user: list[tuple[str, str]] | None = None) -> int | None:
+        """Publish now if connected; returns the message id, or None when not connected.
+
+        ``user`` are MQTT 5 user properties (an event's identity travels there too)."""
         if not self.connected.is_set():
             return None
         props = None
-        if self.v5 and (expiry_s or correlation):
+        if self.v5 and (expiry_s or correlation or user):
             props = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
             if expiry_s:
                 props.MessageExpiryInterval = int(expiry_s)
             if correlation:
                 props.CorrelationData = correlation
+            if user:
+                props.UserProperty = user
         body = b"" if payload is None else json.dumps(payload, ensure_ascii=False).encode()
         info = self.client.publish(topic, body, qos=qos, retain=retain, properties=props)
         if info.rc != mqtt.MQTT_ERR_SUCCESS:
@@ -270,6 +396,7 @@ class MqttLink:
 
     def stop(self, timeout: float = 5.0) -> None:
         """Publish the offline status ourselves (an orderly stop), then disconnect."""
+        self._stopping.set()
         if self.connected.is_set():
             info = self.client.publish(self.status_topic, json.dumps(self.status_offline),
                                        qos=1, retain=True)

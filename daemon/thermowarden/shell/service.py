@@ -1,6 +1,17 @@
-"""The running service: one engine thread, the MQTT link, the scheduler, the store, the
+"""The running service: one engine thread, the MQTT link, the calendar jobs, the store, the
 operations endpoint, systemd notification. Built by :func:`thermowarden.shell.bootstrap.
 bootstrap`; this module executes effects and holds no rules.
+
+Time: timestamps are wall time, read at each use (a corrected system clock is followed at
+once); durations and the evaluation tick use the monotonic clock. Calendar jobs (rollup,
+prune, digest, report) are due at a wall time and fire once when the wall clock reaches it,
+so a step forward runs a skipped job once and a step back does not run it again.
+
+Delivery: an advisory change, its events and their outbox rows are stored in one
+transaction before anything is published. Each outbox row is handed to the MQTT client
+once; the client keeps it until the broker acknowledges it (re-sending it itself after a
+reconnect), and only rows the client does not hold are published again. Every event
+carries an ``event_id`` (also an MQTT 5 user property), the same on every copy.
 """
 
 from __future__ import annotations
@@ -11,55 +22,96 @@ import pathlib
 import queue
 import threading
 import time
+import uuid
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
-from apscheduler.events import EVENT_JOB_ERROR, EVENT_JOB_MISSED, JobExecutionEvent
-from apscheduler.schedulers.background import BackgroundScheduler
 from apscheduler.triggers.cron import CronTrigger
-from apscheduler.triggers.interval import IntervalTrigger
 
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.shell import systemd
+from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
+from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
 from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")
 
 PROMPT_EVAL_S = 0.25
 """A space with new readings is evaluated within this long (not only at the next tick)."""
-EVENT_RETENTION_DAYS = 90
 DRAIN_BATCH = 5000
 BATCH_PAUSE_S = 0.005
+KNOWN_VERBS = frozenset({"acknowledge", "shelve", "unshelve"})
+"""Only these become metric labels; anything else is counted as "unknown"."""
+STEP_TOLERANCE_S = 2.0
+"""A wall-clock change this much larger or smaller than the monotonic one is a step."""
+ECHO_TIMEOUT_S = 15.0
+"""MQTT 3.1.1: an event not seen back on our own subscription this long after the broker
+acknowledged it counts as unconfirmed (an ACL that drops it silently)."""
+RETRY_REFUSED_S = 60.0
+"""An event the broker refused (MQTT 5 reason code) is offered again this often until it
+expires from the outbox."""
+EXPIRE_EVERY_S = 60.0
+NOTICE_TOPIC_SPACE = "_site"
 
 
 class Clock:
-    """Epoch seconds that advance with the monotonic clock (delays survive wall-clock steps).
+    """Wall time for timestamps (:meth:`now`, epoch s, follows corrections of the system
+    clock) and monotonic time for durations (:meth:`monotonic`, s).
 
     ``start`` and ``speed`` are for the demo only: a simulated day starting at ``start``
-    that runs ``speed`` times faster than real time.
+    that runs ``speed`` times faster than real time (then :meth:`now` advances with the
+    monotonic clock). ``wall`` and ``mono`` are injectable for tests that step the clock.
     """
 
     def __init__(self, start: float | None = None, speed: float = 1.0,
-                 paused: bool = False) -> None:
-        self.anchor = time.time() if start is None else start
-        self.mono = time.monotonic()
+                 paused: bool = False, *, wall: Callable[[], float] = time.time,
+                 mono: Callable[[], float] = time.monotonic) -> None:
+        self.wall = wall
+        self.mono_clock = mono
+        self.simulated = start is not None or speed != 1.0 or paused
+        self.anchor = wall() if start is None else start
+        self.mono = mono()
         self.speed = speed
         self.paused = paused
 
     def now(self) -> float:
+        if not self.simulated:
+            return self.wall()
         if self.paused:
             return self.anchor
-        return self.anchor + (time.monotonic() - self.mono) * self.speed
+        return self.anchor + (self.mono_clock() - self.mono) * self.speed
+
+    def monotonic(self) -> float:
+        return self.mono_clock()
 
     def resume(self) -> None:
         """Start a paused (demo) clock from its anchor."""
         if self.paused:
-            self.mono = time.monotonic()
+            self.mono = self.mono_clock()
             self.paused = False
+
+
+@dataclass
+class CalendarJob:
+    """A job due at a wall time (local calendar of the site)."""
+
+    name: str
+    trigger: CronTrigger
+    due: float
+
+    def advance(self, now: float) -> None:
+        """The next due time strictly after both ``now`` and the current one."""
+        import datetime as dt
+
+        after = max(now, self.due) + 1.0
+        tz = self.trigger.timezone
+        nxt = self.trigger.get_next_fire_time(None, dt.datetime.fromtimestamp(after, tz))
+        self.due = nxt.timestamp() if nxt is not None else float("inf")
 
 
 class Service:
@@ -68,7 +120,11 @@ class Service:
     def __init__(self, engine: Engine, link: MqttLink, store: Store, metrics: Metrics,
                  inbox: Inbox, control: queue.Queue[Control],
                  command_prefix: str, reply_topic: str, clock: Clock,
-                 notify: Callable[[str], bool] = systemd.notify) -> None:
+                 notify: Callable[[str], bool] = systemd.notify,
+                 delivery: Delivery | None = None,
+                 reloader: Callable[[Engine], Prepared] | None = None,
+                 per_space_subscriptions: bool = False) -> None:
+        cfg = engine.config
         self.engine = engine
         self.link = link
         self.store = store
@@ -79,74 +135,132 @@ class Service:
         self.reply_topic = reply_topic
         self.clock = clock
         self.notify = notify
+        self.delivery = delivery
+        """Webhook and e-mail delivery (its own worker thread), when configured."""
+        self.reloader = reloader
+        """Loads and builds a new engine for a reload (run beside the engine thread)."""
+        self.per_space_subscriptions = per_space_subscriptions
+        self.reloads: queue.Queue[Prepared] = queue.Queue()
+        self.reloading = threading.Event()
         self.stop_requested = threading.Event()
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
         self.jobs: queue.Queue[str] = queue.Queue()
         self.inflight: dict[int, int] = {}  # message id -> outbox seq
+        self.handed: dict[int, int] = {}  # outbox seq -> message id (the client holds it)
+        self.refused: dict[int, float] = {}  # outbox seq -> monotonic time of the refusal
+        self.awaiting_echo: dict[str, tuple[int, float]] = {}  # event_id -> (seq, deadline)
+        self.echo = link.echo_prefix is not None
         self.pending_retained: dict[str, Publish] = {}
         self.dirty = False
-        self.prompt_eval_s = min(PROMPT_EVAL_S, engine.config.evaluation.tick_s / clock.speed)
+        self.tick_s = cfg.evaluation.tick_s
+        self.prompt_eval_s = min(PROMPT_EVAL_S, cfg.evaluation.tick_s / clock.speed)
         self.received_seen = 0
-        self.last_eval = 0.0
-        self.last_loop = time.monotonic()
+        self.counts_seen: dict[str, dict[str, int]] = {"accepted": {}, "missed": {}}
+        self.last_eval = clock.monotonic()
+        self.last_tick = clock.monotonic()
+        self.last_loop = clock.monotonic()
+        self.started = clock.monotonic()
+        self.last_sensor: float | None = None
+        self.silence_limit_s = cfg.ingest.silence_limit_s
+        self.publishing_ok = True
+        """MQTT 3.1.1: False from an event never seen back until the next one is."""
+        self.last_refusal = -float("inf")
+        self.outbox_max = cfg.outbox.max_events
+        self.outbox_max_age_s = cfg.outbox.max_age_s
+        self.last_expire = -float("inf")
         self.limiter = RateLimiter()
-        self.scheduler = BackgroundScheduler(timezone=engine.state.tz,
-                                             job_defaults={"coalesce": True,
-                                                           "max_instances": 1,
-                                                           "misfire_grace_time": 30})
+        self.calendar: list[CalendarJob] = []
+        self.wall_seen = (clock.now(), clock.monotonic())
         self.watchdog_s = systemd.watchdog_interval_s()
         self.last_watchdog = 0.0
         self.last_digest = clock.now()
+        self.failures_seen: set[tuple[int, str]] = set()
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
-        return not self.stopped.is_set() and time.monotonic() - self.last_loop < 30.0
+        return not self.stopped.is_set() and self.clock.monotonic() - self.last_loop < 30.0
 
     def ready(self) -> tuple[bool, dict[str, bool]]:
+        """Ready when connected, subscribed, evaluated once, the broker takes what we
+        publish, and a sensor message arrived within ``ingest.silence_limit_s``."""
+        receiving = True
+        if self.silence_limit_s is not None:
+            last = self.last_sensor if self.last_sensor is not None else self.started
+            receiving = self.clock.monotonic() - last < self.silence_limit_s
         parts = {"connected": self.link.connected.is_set(),
                  "subscribed": self.link.subscribed.is_set(),
-                 "evaluated": self.first_evaluation.is_set()}
+                 "evaluated": self.first_evaluation.is_set(),
+                 "publishing": self.publishing(),
+                 "receiving": receiving}
         return all(parts.values()), parts
 
-    # ------------------------------------------------------------------ scheduler
+    def publishing(self) -> bool:
+        """The broker takes what we publish: no event waits after a refusal, no refusal in
+        the last ``RETRY_REFUSED_S``, and (MQTT 3.1.1) the last event came back."""
+        return (not self.refused and self.publishing_ok
+                and self.clock.monotonic() - self.last_refusal >= RETRY_REFUSED_S)
+
+    # ------------------------------------------------------------------ calendar jobs
     def _schedule(self) -> None:
-        sched = self.scheduler
-        sched.add_listener(self._job_event, EVENT_JOB_ERROR | EVENT_JOB_MISSED)
-        if self.clock.speed != 1.0:
+        if self.clock.simulated:
             # a simulated clock (the demo): the engine loop ticks by itself and there are
             # no calendar jobs
             return
-        tick = self.engine.config.evaluation.tick_s
-        sched.add_job(self.jobs.put, IntervalTrigger(seconds=tick), args=["tick"], id="tick")
-        sched.add_job(self.jobs.put, CronTrigger(hour=0, minute=0, second=30),
-                      args=["rollup"], id="rollup")
-        sched.add_job(self.jobs.put, CronTrigger(hour=3, minute=17), args=["prune"],
-                      id="prune")
-        sched.add_job(self.jobs.put, CronTrigger(hour=7, minute=0), args=["digest"],
-                      id="digest")
-        sched.add_job(self.jobs.put, CronTrigger(hour=6, minute=30), args=["report"],
-                      id="report")
-        sched.start()
+        tz = self.engine.state.tz
+        now = self.clock.now()
+        for name, trigger in (("rollup", CronTrigger(hour=0, minute=0, second=30, timezone=tz)),
+                              ("prune", CronTrigger(hour=3, minute=17, timezone=tz)),
+                              ("digest", CronTrigger(hour=7, minute=0, timezone=tz)),
+                              ("report", CronTrigger(hour=6, minute=30, timezone=tz))):
+            job = CalendarJob(name, trigger, now - 1.0)
+            job.advance(now - 1.0)
+            self.calendar.append(job)
 
-    def _job_event(self, event: JobExecutionEvent) -> None:
-        kind = "error" if event.code == EVENT_JOB_ERROR else "missed"
-        self.metrics.job_errors.labels(job=event.job_id, kind=kind).inc()
-        log.error("scheduler job %s %s: %s", event.job_id, kind, getattr(event, "exception",
-                                                                          "") or "")
+    def _check_clock(self) -> None:
+        """Count wall-clock steps and run the calendar jobs that are due (once each)."""
+        now, mono = self.clock.now(), self.clock.monotonic()
+        last_now, last_mono = self.wall_seen
+        drift = (now - last_now) - (mono - last_mono)
+        self.wall_seen = (now, mono)
+        if abs(drift) > STEP_TOLERANCE_S and not self.clock.simulated:
+            direction = "forward" if drift > 0 else "backward"
+            self.metrics.clock_steps.labels(direction=direction).inc()
+            log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
+                        "durations do not", direction, abs(drift))
+            self.engine_clock_stepped(now, drift)
+        for job in self.calendar:
+            if now >= job.due:
+                job.advance(now)
+                self.jobs.put(job.name)
+
+    def engine_clock_stepped(self, now: float, drift: float) -> None:
+        """Hook for the engine after a step (history kept in wall time)."""
+        hook = getattr(self.engine, "clock_stepped", None)
+        if hook is not None:
+            hook(now, drift)
 
     # ------------------------------------------------------------------ effects
     def execute(self, effects: list[Effect]) -> None:
+        """Store everything first (one transaction), then publish."""
         now = self.clock.now()
-        for e in effects:
-            if isinstance(e, Persist):
-                self._persist(e, now)
-            elif "/events/" in e.topic and e.qos == 1:
-                assert e.payload is not None
-                seq = self.store.outbox_add(e.topic, e.payload, now)
-                mid = self.link.publish(e.topic, e.payload, 1, False)
-                if mid is not None:
-                    self.inflight[mid] = seq
+        sends: list[tuple[int, Publish]] = []
+        with self.store.transaction():
+            for e in effects:
+                if isinstance(e, Persist):
+                    self._persist(e, now)
+                elif "/events/" in e.topic and e.qos == 1:
+                    assert e.payload is not None
+                    _identify(e.payload)
+                    sends.append((self.store.outbox_add(e.topic, e.payload, now), e))
+                else:
+                    sends.append((0, e))
+        for seq, e in sends:
+            if seq:
+                self._hand_over(seq, e.topic, e.payload or {})
+                if self.delivery is not None and e.payload is not None:
+                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
+                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -157,11 +271,25 @@ class Service:
                 self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
         self.metrics.outbox_depth.set(self.store.outbox_depth())
 
+    def _hand_over(self, seq: int, topic: str, payload: dict[str, Any]) -> None:
+        """Give an outbox row to the client, unless it already holds it."""
+        if seq in self.handed:
+            return
+        event_id = str(payload.get("event_id", ""))
+        mid = self.link.publish(topic, payload, 1, False, user=[("event_id", event_id)])
+        if mid is not None:
+            self.inflight[mid] = seq
+            self.handed[seq] = mid
+            self.refused.pop(seq, None)
+            if self.echo:
+                self.awaiting_echo[event_id] = (seq, float("inf"))
+
     def _persist(self, e: Persist, now: float) -> None:
         if e.kind == "advisory":
             self.store.put_advisory(e.key, e.record)
         elif e.kind == "event":
             assert e.record is not None
+            _identify(e.record)
             self.store.add_event(e.key, now, e.record)
         elif e.kind == "sample":
             assert e.record is not None
@@ -171,19 +299,66 @@ class Service:
             self.store.put("daily_means", e.record["newest_first"])
 
     def _flush_after_connect(self) -> None:
-        """Deliver, in order, every event the broker has not acknowledged, then the
-        latest state of every retained advisory that changed while disconnected."""
-        self.inflight.clear()
+        """Deliver, in order, every event the broker has not acknowledged and the client
+        does not already hold (it re-sends those itself), then the latest state of every
+        retained advisory that changed while disconnected."""
         for seq, topic, payload in self.store.outbox():
-            mid = self.link.publish(topic, payload, 1, False)
-            if mid is None:
+            if seq in self.handed or seq in self.refused:
+                continue
+            self._hand_over(seq, topic, payload)
+            if not self.link.connected.is_set():
                 return
-            self.inflight[mid] = seq
         for topic, e in list(self.pending_retained.items()):
             if self.link.publish(topic, e.payload, e.qos, True, e.expiry_s) is not None:
                 self.pending_retained.pop(topic, None)
         self.engine.republish_all()  # live advisories and conditions at the next tick
         self.dirty = True
+
+    def _outbox_upkeep(self) -> None:
+        """Expire rows that are too old or beyond the bound; offer refused rows again;
+        count MQTT 3.1.1 events never seen back."""
+        mono = self.clock.monotonic()
+        if self.echo and self.awaiting_echo:
+            late = [k for k, (_, deadline) in self.awaiting_echo.items() if mono > deadline]
+            for k in late:
+                del self.awaiting_echo[k]
+                self.metrics.events_unconfirmed.inc()
+                self.publishing_ok = False
+            if late:
+                log.error("%d event(s) acknowledged by the broker never came back on the "
+                          "service's own subscription: the broker's ACL may drop them",
+                          len(late))
+        if self.refused and self.link.connected.is_set():
+            for seq, topic, payload in self.store.outbox():
+                at = self.refused.get(seq)
+                if at is not None and mono - at >= RETRY_REFUSED_S:
+                    self._hand_over(seq, topic, payload)
+        if mono - self.last_expire < EXPIRE_EVERY_S:
+            return
+        self.last_expire = mono
+        now = self.clock.now()
+        expired = self.store.outbox_expire(now - self.outbox_max_age_s, self.outbox_max)
+        if not expired:
+            return
+        gone = sorted(str(p.get("event_id")) for _, p in expired)
+        for seq, _ in expired:
+            self.refused.pop(seq, None)
+            mid = self.handed.pop(seq, None)
+            if mid is not None:
+                self.inflight.pop(mid, None)
+        self.metrics.events_expired.inc(len(expired))
+        log.error("%d event(s) expired from the outbox undelivered (older than %.0f s or "
+                  "beyond %d rows)", len(expired), self.outbox_max_age_s, self.outbox_max)
+        notice = {"schema": "thermowarden.event/1", "event": "notice", "at": _iso(now),
+                  "audience": "integrator", "kind": "events_expired",
+                  "count": len(expired),
+                  "text": f"{len(expired)} event(s) could not be delivered to the broker and "
+                          "expired from the outbox; check the broker's ACL and connection",
+                  "event_ids": gone[:100]}
+        prefix = self.command_prefix.removesuffix("/commands/")
+        self.execute([Publish(f"{prefix}/events/integrator/{NOTICE_TOPIC_SPACE}", notice,
+                              qos=1),
+                      Persist("event", f"notice.events_expired.{int(now)}", notice)])
 
     # ------------------------------------------------------------------ the loop
     def _handle_control(self, c: Control) -> None:
@@ -198,30 +373,40 @@ class Service:
             log.error("the broker refused: %s", c.reason)
         elif c.kind == "puback":
             seq = self.inflight.pop(c.mid, None)
+            if seq is not None:
+                self.handed.pop(seq, None)
             if c.failed:
-                self.metrics.publish_failures.labels(reason=c.reason).inc()
-                log.error("the broker refused an event (reason %s); it stays in the outbox",
-                          c.reason)
-            elif seq is not None:
-                self.store.outbox_done(seq)
+                self.metrics.publish_failures.labels(reason=c.reason[:40]).inc()
+                self.last_refusal = self.clock.monotonic()
+                if seq is not None:
+                    self.refused[seq] = self.clock.monotonic()
+                ok, dropped = self.limiter.allow("publish-refused")
+                if ok:
+                    log.error("the broker refused a publish (reason %s)%s; events stay in the "
+                              "outbox until they expire", c.reason,
+                              f" ({dropped} similar suppressed)" if dropped else "")
+            else:
+                if seq is not None:
+                    self.store.outbox_done(seq)
+                    if self.echo:
+                        for k, (sq, _) in self.awaiting_echo.items():
+                            if sq == seq:
+                                self.awaiting_echo[k] = (seq, self.clock.monotonic()
+                                                         + ECHO_TIMEOUT_S)
+                                break
 
     def _handle_message(self, m: Incoming) -> None:
-        if m.topic.startswith(self.command_prefix):
-            verb = m.topic[len(self.command_prefix):]
-            now = self.clock.now()
-            reply, effects = self.engine.command(verb, m.payload, now)
-            self.metrics.commands.labels(verb=verb[:32], ok=str(reply["ok"]).lower()).inc()
-            self.execute(effects)
-            target = self.reply_topic
-            for wanted in (_reply_to(m.payload), m.response_topic):
-                if wanted and wanted.startswith(self.reply_topic + "/"):
-                    target = wanted
-            self.link.publish(target, reply, 1, False, correlation=m.correlation)
-            if not reply["ok"]:
-                log.info("command %s refused: %s", verb, reply.get("error"))
-            self.dirty = True
+        if m.kind == "command":
+            self._handle_command(m)
             return
-        rejections = self.engine.message(m.topic, m.payload, m.received)
+        if m.kind == "echo":
+            self._echo(m.payload)
+            return
+        if m.kind == "sys":
+            self._sys(m.topic, m.payload)
+            return
+        self.last_sensor = self.clock.monotonic()
+        rejections = self.engine.message(m.topic, m.payload, m.received, m.retained)
         self.dirty = True
         for r in rejections:
             self.metrics.rejected.labels(reason=r.reason).inc()
@@ -231,14 +416,93 @@ class Service:
                 log.warning("rejected %s on %s [%s]: %s%s", r.reason, r.topic, r.point,
                             r.detail, more)
 
+    def _handle_command(self, m: Incoming) -> None:
+        """``<prefix>/commands/<audience>/<verb>[/<user>]``: the audience in the topic lets a
+        broker ACL decide who may act on whose advisories (the engine checks that it matches
+        the advisory's); ``<user>`` is recorded as who acted, which the broker vouches for
+        only when its ACL lets each person write to topics ending in their own name. The
+        configured MQTT 5 user property (set by a trusted gateway) takes precedence."""
+        parts = m.topic[len(self.command_prefix):].split("/")
+        now = self.clock.now()
+        verb = parts[-1]
+        audience = parts[0] if len(parts) in (2, 3) else None
+        verb = parts[1] if len(parts) in (2, 3) else verb
+        if m.oversize:
+            reply: dict[str, Any] = {
+                "schema": "thermowarden.reply/1", "ok": False, "verb": verb[:32],
+                "error": f"the command body has {m.oversize} bytes; at most "
+                         f"{self.link.max_command_bytes} are accepted",
+                "request_id": None, "at": _iso(now)}
+            effects: list[Effect] = []
+        elif audience is None:
+            reply = {"schema": "thermowarden.reply/1", "ok": False, "verb": verb[:32],
+                     "error": "commands go to <prefix>/commands/<audience>/<verb> (audience "
+                              "facilities, safety or integrator)",
+                     "request_id": None, "at": _iso(now)}
+            effects = []
+        else:
+            identity = m.identity or (parts[2] if len(parts) == 3 else None)
+            reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
+                                                 identity=identity)
+        label = verb if verb in KNOWN_VERBS else "unknown"
+        self.metrics.commands.labels(verb=label, ok=str(reply["ok"]).lower()).inc()
+        self.execute(effects)
+        target = self.reply_topic
+        if not m.oversize:
+            for wanted in (_reply_to(m.payload), m.response_topic):
+                if wanted and wanted.startswith(self.reply_topic + "/"):
+                    target = wanted
+        self.link.publish(target, reply, 1, False, correlation=m.correlation)
+        if not self.link.v5:
+            # MQTT 3.1.1 cannot say whether this was retained: clear it in case it was
+            self.link.client.publish(m.topic, b"", qos=1, retain=True)
+        if not reply["ok"]:
+            ok, dropped = self.limiter.allow(f"command|{label}")
+            if ok:
+                log.info("command %s refused: %s%s", verb[:64], reply.get("error"),
+                         f" ({dropped} similar suppressed)" if dropped else "")
+        self.dirty = True
+
+    def _echo(self, payload: bytes) -> None:
+        """MQTT 3.1.1: one of our events came back; the broker delivered it."""
+        try:
+            data = json.loads(payload)
+        except ValueError:
+            return
+        if isinstance(data, dict) and self.awaiting_echo.pop(str(data.get("event_id")),
+                                                             None) is not None:
+            self.publishing_ok = True
+
+    def _sys(self, topic: str, payload: bytes) -> None:
+        try:
+            value = float(payload.decode().split()[0])
+        except (ValueError, IndexError, UnicodeDecodeError):
+            return
+        if topic.endswith("/publish/messages/dropped"):
+            self.metrics.broker_dropped.set(value)
+        elif topic.endswith("/store/messages/count"):
+            self.metrics.broker_stored.set(value)
+
     def _sync_counters(self) -> None:
-        """Copy the network thread's plain counter into the metric (cheaper than a locked
-        metric update per message)."""
+        """Copy the network thread's plain counter and the ingest counters into the
+        metrics (cheaper than a locked metric update per message)."""
         received = self.link.received
         if received != self.received_seen:
             self.metrics.received.inc(received - self.received_seen)
             self.received_seen = received
         self.metrics.queue_depth.set(self.inbox.qsize())
+        ingest = getattr(self.engine, "ingest", None)
+        if ingest is None:
+            return
+        for name, counts, metric in (("accepted", ingest.accepted_by_quantity,
+                                      self.metrics.readings),
+                                     ("missed", ingest.missed_by_quantity,
+                                      self.metrics.missed)):
+            seen = self.counts_seen[name]
+            for q, n in counts.items():
+                if n != seen.get(q, 0):
+                    metric.labels(quantity=q).inc(n - seen.get(q, 0))
+                    seen[q] = n
 
     def evaluate(self) -> None:
         now = self.clock.now()
@@ -252,25 +516,101 @@ class Service:
         for (rule, prio), count in self.engine.active_counts().items():
             self.metrics.active.labels(rule=rule, priority=prio).set(count)
         self.dirty = False
-        self.last_eval = time.monotonic()
+        self.last_eval = self.clock.monotonic()
+        self._report_failures()
         if not self.first_evaluation.is_set():
             self.first_evaluation.set()
             log.info("first evaluation done in %.0f ms", took * 1000)
 
+    def _report_failures(self) -> None:
+        """Log and count each index computation that started failing for a space (the
+        integrator also gets the sensor_health advisory naming the space and the index)."""
+        failures = self.engine.evaluation.failures
+        now_failing = {(i, group) for i, (group, _) in failures.items()}
+        for i, group in now_failing - self.failures_seen:
+            self.metrics.computation_failures.labels(index=group).inc()
+            log.error("space %s: the %s computation failed (%s); the other spaces go on",
+                      self.engine.model.space_ids[i], group, failures[i][1])
+        for i, group in self.failures_seen - now_failing:
+            log.info("space %s: the %s computation works again",
+                     self.engine.model.space_ids[i], group)
+        self.failures_seen = now_failing
+
     def _job(self, name: str) -> None:
         now = self.clock.now()
-        if name == "tick" or name == "rollup":
+        if name == "rollup":
             self.evaluate()
         elif name == "prune":
-            n = self.store.prune_events(now - EVENT_RETENTION_DAYS * 86_400)
-            m = self.store.prune_samples(now - EVENT_RETENTION_DAYS * 86_400)
-            log.info("pruned %d event(s) and %d sample(s) older than %d days", n, m,
-                     EVENT_RETENTION_DAYS)
+            keep = self.engine.config.retention
+            n = self.store.prune_events(now - keep.events_days * 86_400)
+            m = self.store.prune_samples(now - keep.samples_days * 86_400)
+            log.info("pruned %d event(s) older than %g days and %d sample(s) older than %g "
+                     "days", n, keep.events_days, m, keep.samples_days)
+        elif name == "reload":
+            self._start_reload()
         elif name == "digest":
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
         elif name == "report":
             self.daily_report(now)
+
+    def request_reload(self) -> None:
+        """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
+        self.jobs.put("reload")
+
+    def _start_reload(self) -> None:
+        """Load and build the new configuration beside the engine thread, which goes on
+        evaluating meanwhile; :meth:`_finish_reload` swaps it in."""
+        if self.reloader is None:
+            log.warning("reload requested but not available here")
+            return
+        if self.reloading.is_set():
+            log.info("a reload is already in progress")
+            return
+        self.reloading.set()
+        self.notify(f"RELOADING=1\nMONOTONIC_USEC={time.monotonic_ns() // 1000}")
+        old = self.engine
+        reloader = self.reloader
+
+        def prepare() -> None:
+            try:
+                self.reloads.put(reloader(old))
+                return
+            except ReloadRefused as exc:
+                for line in exc.lines:
+                    log.error("reload refused: %s", line)
+                log.error("reload refused: %d problem(s); still running the previous "
+                          "configuration", len(exc.lines))
+            except Exception:  # noqa: BLE001 - a failed reload must not stop the service
+                log.exception("reload failed; still running the previous configuration")
+            self.reloading.clear()
+            self.notify("READY=1")
+
+        threading.Thread(target=prepare, name="thermowarden-reload", daemon=True).start()
+
+    def _finish_reload(self, prepared: Prepared) -> None:
+        """Carry the running state into the new engine and swap it in (engine thread)."""
+        try:
+            try:
+                result = finish_reload(self.engine, prepared)
+            except Exception:  # noqa: BLE001 - the old engine is intact: keep running it
+                log.exception("reload failed; still running the previous configuration")
+                return
+            self.engine = result.engine
+            for note in result.notes:
+                log.info("%s", note)
+            self.execute(result.effects)
+            config = result.engine.config
+            subs = result.model.subscriptions(per_space=self.per_space_subscriptions)
+            self.link.set_subscriptions(subs + [f"{self.command_prefix}+"])
+            if self.delivery is not None:
+                self.delivery.reconfigure(config.delivery, config.site.timezone)
+            self.dirty = True
+            log.info("reloaded: %d space(s), %d point(s), %d rule(s)",
+                     result.model.n_spaces, len(result.model.points), len(result.engine.rules))
+        finally:
+            self.reloading.clear()
+            self.notify("READY=1")
 
     def daily_report(self, now: float) -> pathlib.Path:
         """Write yesterday's report (local calendar day) next to the store."""
@@ -297,22 +637,33 @@ class Service:
     def run(self) -> None:
         """The engine thread: runs until :meth:`request_stop`; then stops in order."""
         self._schedule()
-        if self.clock.speed != 1.0:
-            self.scheduler.start()
+        if self.delivery is not None:
+            self.delivery.start()
         self.link.start()
         self.evaluate()
         ready_sent = False
+        clock = self.clock
         try:
             while not self.stop_requested.is_set():
-                self.last_loop = time.monotonic()
+                self.last_loop = clock.monotonic()
                 while True:
                     try:
                         self._handle_control(self.control.get_nowait())
                     except queue.Empty:
                         break
+                self._check_clock()
                 try:
                     while True:
-                        self._job(self.jobs.get_nowait())
+                        name = self.jobs.get_nowait()
+                        try:
+                            self._job(name)
+                        except Exception:  # noqa: BLE001 - a failed job must not stop us
+                            self.metrics.job_errors.labels(job=name, kind="error").inc()
+                            log.exception("job %s failed", name)
+                except queue.Empty:
+                    pass
+                try:
+                    self._finish_reload(self.reloads.get_nowait())
                 except queue.Empty:
                     pass
                 self.inbox.wait(0.05)
@@ -324,20 +675,25 @@ class Service:
                     # let messages gather for a moment: fewer wake-ups, less contention
                     # with the network thread for the interpreter lock
                     time.sleep(BATCH_PAUSE_S)
-                since = time.monotonic() - self.last_eval
-                if (self.dirty and since >= self.prompt_eval_s) or (
-                        self.clock.speed != 1.0 and since >= self.prompt_eval_s):
+                mono = clock.monotonic()
+                since = mono - self.last_eval
+                if not clock.simulated and mono - self.last_tick >= self.tick_s:
+                    self.last_tick = mono
                     self.evaluate()
+                elif (self.dirty and since >= self.prompt_eval_s) or (
+                        clock.simulated and since >= self.prompt_eval_s):
+                    self.evaluate()
+                self._outbox_upkeep()
                 ok, _ = self.ready()
                 if ok and not ready_sent:
                     self.notify("READY=1")
                     self.notify("STATUS=evaluating")
                     ready_sent = True
                     log.info("ready")
-                if self.watchdog_s and time.monotonic() - self.last_watchdog >= self.watchdog_s \
-                        and self.alive():
+                if self.watchdog_s and clock.monotonic() - self.last_watchdog >= \
+                        self.watchdog_s and self.alive():
                     self.notify("WATCHDOG=1")
-                    self.last_watchdog = time.monotonic()
+                    self.last_watchdog = clock.monotonic()
         finally:
             self._stop_in_order()
 
@@ -349,11 +705,6 @@ class Service:
         self.notify("STOPPING=1")
         log.info("stopping: finishing the evaluation and flushing the outbox")
         try:
-            if self.scheduler.running:
-                self.scheduler.shutdown(wait=False)
-        except Exception:  # noqa: BLE001 - stopping regardless
-            pass
-        try:
             self.evaluate()
         except Exception:  # noqa: BLE001
             log.exception("last evaluation failed")
@@ -364,6 +715,8 @@ class Service:
             except queue.Empty:
                 pass
         self.link.stop()
+        if self.delivery is not None:
+            self.delivery.stop()
         depth = self.store.outbox_depth()
         if depth:
             log.warning("%d event(s) not yet acknowledged stay in the outbox for the next start",
@@ -371,6 +724,19 @@ class Service:
         self.store.close()
         self.stopped.set()
         log.info("stopped")
+
+
+def _iso(t: float) -> str:
+    import datetime as dt
+
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace(
+        "+00:00", "Z")
+
+
+def _identify(payload: dict[str, Any]) -> None:
+    """Give an event its identity once (kept on every copy: stored, sent, re-sent)."""
+    if "event_id" not in payload:
+        payload["event_id"] = uuid.uuid4().hex
 
 
 def _reply_to(body: bytes) -> str | None:

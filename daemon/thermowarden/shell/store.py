@@ -2,14 +2,26 @@
 outdoor means, and the outbox of events the broker has not yet acknowledged.
 
 Only the engine thread uses a :class:`Store` (SQLite connections are not shared between
-threads here). Every write is committed at once: a SIGKILL loses nothing already stored.
+threads here). Writes outside :meth:`Store.transaction` are committed at once; inside it,
+an advisory change, its events and their outbox rows are committed together, so a crash
+never leaves a live advisory whose event will not be sent.
+
+The folder is created 0700 and the files 0600 (they hold who acknowledged what). At start
+the file is checked (``PRAGMA quick_check``); a file that cannot be opened, is not a
+database or fails the check raises :class:`StoreError` with one line naming the file and
+what to do, and :func:`move_aside` sets a damaged store aside so the service can start
+empty (the site configuration is a separate file and is not touched).
 """
 
 from __future__ import annotations
 
+import contextlib
 import json
+import os
 import pathlib
 import sqlite3
+import time
+from collections.abc import Iterator
 from typing import Any
 
 SCHEMA = """
@@ -40,18 +52,92 @@ CREATE TABLE IF NOT EXISTS kv (
 );
 """
 
+MOVE_ASIDE_HINT = "start once with --move-damaged-store to set it aside and begin empty"
+
+
+class StoreError(RuntimeError):
+    """The store cannot be used; the message is one line naming the file and what to do."""
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split()) or type(exc).__name__
+
+
+def move_aside(path: str | pathlib.Path, now: float | None = None) -> pathlib.Path | None:
+    """Rename a (damaged) store and its WAL files to ``<name>.damaged-<epoch s>``; returns
+    the new path of the database, or None when there was no file."""
+    p = pathlib.Path(path)
+    if not p.exists():
+        return None
+    stamp = int(time.time() if now is None else now)
+    target = p.with_name(f"{p.name}.damaged-{stamp}")
+    for suffix in ("-wal", "-shm"):
+        side = p.with_name(p.name + suffix)
+        if side.exists():
+            side.rename(target.with_name(target.name + suffix))
+    p.rename(target)
+    return target
+
 
 class Store:
     """See the module docstring. ``path`` is the database file (created with its folder)."""
 
     def __init__(self, path: str | pathlib.Path) -> None:
         p = pathlib.Path(path)
-        p.parent.mkdir(parents=True, exist_ok=True)
         self.path = p
-        self.db = sqlite3.connect(str(p), isolation_level=None, check_same_thread=False)
-        self.db.execute("PRAGMA journal_mode=WAL")
-        self.db.execute("PRAGMA synchronous=NORMAL")
-        self.db.executescript(SCHEMA)
+        try:
+            if not p.parent.exists():
+                p.parent.mkdir(parents=True, mode=0o700)
+            elif p.parent.stat().st_uid == os.geteuid():
+                p.parent.chmod(0o700)
+            if not p.exists():
+                os.close(os.open(p, os.O_CREAT | os.O_WRONLY, 0o600))
+            elif p.stat().st_uid == os.geteuid():
+                p.chmod(0o600)
+        except OSError as exc:
+            raise StoreError(f"store {p}: {_one_line(exc)}; check that the state directory "
+                             "exists and belongs to the service's user") from None
+        old_umask = os.umask(0o077)  # the WAL and shared-memory files too
+        try:
+            self.db = sqlite3.connect(str(p), isolation_level=None, check_same_thread=False)
+            self.db.execute("PRAGMA journal_mode=WAL")
+            self.db.execute("PRAGMA synchronous=NORMAL")
+            row = self.db.execute("PRAGMA quick_check").fetchone()
+            if row is None or row[0] != "ok":
+                self.db.close()
+                raise StoreError(f"store {p} is damaged (integrity check: "
+                                 f"{_one_line(Exception(row[0] if row else 'no answer'))}); "
+                                 + MOVE_ASIDE_HINT)
+            self.db.executescript(SCHEMA)
+        except sqlite3.DatabaseError as exc:
+            with contextlib.suppress(Exception):
+                self.db.close()
+            text = _one_line(exc)
+            if "readonly" in text.replace(" ", "").replace("-", "") or "read only" in text:
+                raise StoreError(f"store {p} is read-only ({text}); give the service's user "
+                                 "write access to it and its folder") from None
+            if "unable to open" in text:
+                raise StoreError(f"store {p} cannot be opened ({text}); check the state "
+                                 "directory and its permissions") from None
+            raise StoreError(f"store {p} is damaged ({text}); {MOVE_ASIDE_HINT}") from None
+        finally:
+            os.umask(old_umask)
+        self._depth: int | None = None
+
+    @contextlib.contextmanager
+    def transaction(self) -> Iterator[None]:
+        """Everything written inside is committed together (or not at all)."""
+        if self.db.in_transaction:
+            yield
+            return
+        self.db.execute("BEGIN IMMEDIATE")
+        try:
+            yield
+        except BaseException:
+            self.db.execute("ROLLBACK")
+            self._depth = None
+            raise
+        self.db.execute("COMMIT")
 
     # advisories
     def put_advisory(self, key: str, record: dict[str, Any] | None) -> None:
@@ -86,18 +172,38 @@ class Store:
                               (topic, json.dumps(payload), now))
         seq = cur.lastrowid
         assert seq is not None
+        if self._depth is not None:
+            self._depth += 1
         return seq
 
     def outbox_done(self, seq: int) -> None:
-        self.db.execute("DELETE FROM outbox WHERE seq = ?", (seq,))
+        n = self.db.execute("DELETE FROM outbox WHERE seq = ?", (seq,)).rowcount
+        if self._depth is not None:
+            self._depth -= n
 
     def outbox(self) -> list[tuple[int, str, dict[str, Any]]]:
         rows = self.db.execute("SELECT seq, topic, payload FROM outbox ORDER BY seq").fetchall()
         return [(int(r[0]), str(r[1]), json.loads(r[2])) for r in rows]
 
     def outbox_depth(self) -> int:
-        row = self.db.execute("SELECT COUNT(*) FROM outbox").fetchone()
-        return int(row[0])
+        if self._depth is None:
+            row = self.db.execute("SELECT COUNT(*) FROM outbox").fetchone()
+            self._depth = int(row[0])
+        return self._depth
+
+    def outbox_expire(self, older_than: float, keep: int) -> list[tuple[int, dict[str, Any]]]:
+        """Remove rows created before ``older_than`` and, beyond the newest ``keep`` rows, the
+        oldest ones; returns their payloads (the caller counts and reports them)."""
+        with self.transaction():
+            total = int(self.db.execute("SELECT COUNT(*) FROM outbox").fetchone()[0])
+            over = max(0, total - max(keep, 0))
+            rows = self.db.execute(
+                "SELECT seq, payload FROM outbox WHERE created < ? UNION "
+                "SELECT seq, payload FROM (SELECT seq, payload FROM outbox ORDER BY seq "
+                "LIMIT ?) ORDER BY seq", (older_than, over)).fetchall()
+            self.db.executemany("DELETE FROM outbox WHERE seq = ?", [(r[0],) for r in rows])
+        self._depth = None
+        return [(int(r[0]), json.loads(r[1])) for r in rows]
 
     # report samples
     def add_sample(self, t: float, record: dict[str, Any]) -> None:

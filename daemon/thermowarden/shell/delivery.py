@@ -1,0 +1,511 @@
+"""Delivery of events to people by webhook and e-mail, per audience, beside MQTT.
+
+The engine thread only offers events (:meth:`Delivery.offer`: a bounded queue, never
+blocking; overflow is counted and logged). One worker thread owns everything else: it
+stores each delivery in the SQLite store (table ``deliveries``, its own connection) before
+trying it, so a restart loses nothing that was taken from the queue; it sends in order per
+audience and channel; retries with exponential backoff and jitter; holds events other than
+urgent ones during the audience's quiet hours and sends them as one digest when they end;
+collects low-priority events into a digest every ``low_priority_digest_s``.
+
+Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`` (epoch
+seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
+over ``<timestamp>.<body>``, RFC 2104) and ``X-Thermowarden-Delivery`` (the same id on every
+retry, so a receiver can drop repeats). 2xx is delivered; 408, 425, 429 and 5xx and network
+errors are retried; any other status (redirects included) is a permanent failure. E-mail: a
+plain-text message through the SMTP relay (smtplib); 4xx replies and network errors are
+retried, 5xx are not.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import email.utils
+import hashlib
+import hmac
+import json
+import logging
+import pathlib
+import queue
+import random
+import smtplib
+import sqlite3
+import ssl
+import threading
+import time
+import urllib.error
+import urllib.request
+import uuid
+from collections.abc import Callable
+from dataclasses import dataclass
+from email.message import EmailMessage
+from typing import Any
+
+from prometheus_client import CollectorRegistry, Counter, Gauge
+
+from thermowarden.config import (
+    AudienceDelivery,
+    DeliveryConfig,
+    EmailConfig,
+    WebhookConfig,
+)
+from thermowarden.core.quiet_hours import QuietHours
+
+log = logging.getLogger("thermowarden.delivery")
+
+SCHEMA = """
+CREATE TABLE IF NOT EXISTS deliveries (
+    seq INTEGER PRIMARY KEY AUTOINCREMENT,
+    id TEXT NOT NULL,
+    audience TEXT NOT NULL,
+    channel TEXT NOT NULL,
+    state TEXT NOT NULL,          -- held (quiet hours or digest), pending, failed
+    priority TEXT NOT NULL,
+    due REAL NOT NULL,
+    attempts INTEGER NOT NULL DEFAULT 0,
+    created REAL NOT NULL,
+    payload TEXT NOT NULL,
+    error TEXT
+);
+CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
+"""
+EVENT_SCHEMA = "thermowarden.event/1"
+SIGNATURE_HEADER = "X-Thermowarden-Signature"
+TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
+DELIVERY_HEADER = "X-Thermowarden-Delivery"
+RETRY_STATUS = frozenset({408, 425, 429})
+IDLE_WAIT_S = 1.0
+FAILED_KEPT_S = 30 * 86_400.0
+"""Deliveries that failed for good stay in the store this long, for inspection."""
+PRUNE_EVERY_S = 3600.0
+
+
+class DeliveryFailed(Exception):
+    """One attempt failed; ``permanent`` failures are not retried."""
+
+    def __init__(self, message: str, permanent: bool = False) -> None:
+        super().__init__(message)
+        self.permanent = permanent
+
+
+def sign(secret: bytes, timestamp: str, body: bytes) -> str:
+    """The signature header value: ``sha256=`` + hex HMAC-SHA256 of ``<timestamp>.<body>``."""
+    mac = hmac.new(secret, timestamp.encode("ascii") + b"." + body, hashlib.sha256)
+    return "sha256=" + mac.hexdigest()
+
+
+def verify(secret: bytes, timestamp: str, body: bytes, header: str) -> bool:
+    """Check a signature header in constant time (what a receiver does)."""
+    return hmac.compare_digest(sign(secret, timestamp, body), header)
+
+
+def _secret(value: Any, file: str | None) -> str | None:
+    if value is not None:
+        return str(value.get_secret_value())
+    if file:
+        return pathlib.Path(file).read_text(encoding="utf-8").strip()
+    return None
+
+
+class _NoRedirect(urllib.request.HTTPRedirectHandler):
+    """A redirect is answered as an error: urllib would repeat a POST as a GET without its
+    body (and without a signature worth the name)."""
+
+    def redirect_request(self, req: urllib.request.Request, fp: Any, code: int, msg: str,
+                         headers: Any, newurl: str) -> None:
+        return None
+
+
+_OPENER = urllib.request.build_opener(_NoRedirect)
+
+
+def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
+                 now: float) -> None:
+    """One webhook attempt; raises :class:`DeliveryFailed`."""
+    secret = _secret(cfg.secret, cfg.secret_file)
+    assert secret is not None  # the configuration requires one
+    body = json.dumps(payload, ensure_ascii=False, separators=(",", ":")).encode("utf-8")
+    stamp = str(int(now))
+    request = urllib.request.Request(cfg.url, data=body, method="POST", headers={
+        "Content-Type": "application/json", "User-Agent": "thermowarden",
+        TIMESTAMP_HEADER: stamp, SIGNATURE_HEADER: sign(secret.encode("utf-8"), stamp, body),
+        DELIVERY_HEADER: delivery_id})
+    try:
+        with _OPENER.open(request, timeout=cfg.timeout_s) as response:
+            response.read(1024)
+    except urllib.error.HTTPError as exc:
+        retry = exc.code in RETRY_STATUS or exc.code >= 500
+        raise DeliveryFailed(f"HTTP {exc.code}", permanent=not retry) from None
+    except (urllib.error.URLError, OSError) as exc:
+        reason = getattr(exc, "reason", exc)
+        raise DeliveryFailed(f"{type(exc).__name__}: {reason}") from None
+
+
+def render_text(payload: dict[str, Any]) -> tuple[str, str]:
+    """(subject, body) of an event or digest for a person."""
+    if payload.get("event") == "summary":
+        items = payload.get("items", [])
+        subject = f"{payload.get('count', len(items))} notification(s) for " \
+                  f"{payload.get('audience', '')}"
+        lines = [payload.get("note", ""), ""]
+        for it in items:
+            lines.append(f"- {it.get('at', '')} {it.get('priority', '')} {it.get('event', '')}: "
+                         f"{it.get('title', '')} ({it.get('space', '')}, "
+                         f"{it.get('advisory_id', '')})")
+        lines += ["", "thermowarden is advisory only."]
+        return subject, "\n".join(lines)
+    adv = payload.get("advisory", {})
+    space = adv.get("space", {})
+    subject = f"{adv.get('priority', '')} {payload.get('event', '')}: {adv.get('title', '')}"
+    lines = [f"{adv.get('title', '')}", "",
+             f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')})",
+             f"Event: {payload.get('event', '')} at {payload.get('at', '')}",
+             f"Priority: {adv.get('priority', '')}", "",
+             f"What to do: {adv.get('advice', '')}", "",
+             f"Why: {adv.get('rationale', '')}"]
+    numbers = adv.get("numbers") or {}
+    if numbers:
+        lines += ["", "Numbers:"]
+        for name, n in numbers.items():
+            if isinstance(n, dict):
+                value = n.get("value")
+                unit = n.get("unit", "")
+                extra = f" (threshold {n['threshold']})" if n.get("threshold") is not None \
+                    else ""
+                lines.append(f"  {name}: {value} {unit}{extra}".rstrip())
+            else:
+                lines.append(f"  {name}: {n}")
+    cautions = adv.get("cautions") or []
+    if cautions:
+        lines += ["", "Cautions:"] + [f"  - {c}" for c in cautions]
+    lines += ["", f"Advisory {adv.get('id', '')}. thermowarden is advisory only: it never "
+                  "switches equipment. Follow local regulations."]
+    return subject, "\n".join(lines)
+
+
+def send_email(cfg: EmailConfig, payload: dict[str, Any], delivery_id: str,
+               now: float) -> None:
+    """One e-mail attempt through the relay; raises :class:`DeliveryFailed`."""
+    subject, text = render_text(payload)
+    msg = EmailMessage()
+    msg["Subject"] = f"{cfg.subject_prefix} {subject}".strip()
+    msg["From"] = cfg.sender
+    msg["To"] = ", ".join(cfg.to)
+    msg["Date"] = email.utils.formatdate(now, usegmt=True)
+    msg["Message-ID"] = f"<{delivery_id}@thermowarden>"
+    msg.set_content(text)
+    smtp = cfg.smtp
+    password = _secret(smtp.password, smtp.password_file)
+    try:
+        client: smtplib.SMTP
+        if smtp.tls == "ssl":
+            client = smtplib.SMTP_SSL(smtp.host, smtp.port, timeout=smtp.timeout_s,
+                                      context=ssl.create_default_context())
+        else:
+            client = smtplib.SMTP(smtp.host, smtp.port, timeout=smtp.timeout_s)
+        with client:
+            if smtp.tls == "starttls":
+                client.starttls(context=ssl.create_default_context())
+            if smtp.username:
+                client.login(smtp.username, password or "")
+            client.send_message(msg)
+    except smtplib.SMTPResponseException as exc:
+        raise DeliveryFailed(f"SMTP {exc.smtp_code}", permanent=exc.smtp_code >= 500) from None
+    except smtplib.SMTPRecipientsRefused as exc:
+        codes = [c for c, _ in exc.recipients.values()]
+        raise DeliveryFailed(f"recipients refused {codes}",
+                             permanent=all(c >= 500 for c in codes)) from None
+    except (smtplib.SMTPException, OSError) as exc:
+        raise DeliveryFailed(f"{type(exc).__name__}: {exc}") from None
+
+
+Sender = Callable[[Any, dict[str, Any], str, float], None]
+
+
+@dataclass(frozen=True)
+class _Row:
+    seq: int
+    id: str
+    audience: str
+    channel: str
+    priority: str
+    attempts: int
+    payload: dict[str, Any]
+
+
+def _priority(payload: dict[str, Any]) -> str:
+    adv = payload.get("advisory")
+    if isinstance(adv, dict) and isinstance(adv.get("priority"), str):
+        return str(adv["priority"])
+    return "medium"
+
+
+def _iso(t: float) -> str:
+    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace(
+        "+00:00", "Z")
+
+
+class Delivery:
+    """See the module docstring. ``db_path`` is the service's SQLite file; ``now`` the
+    service clock (epoch s)."""
+
+    def __init__(self, config: DeliveryConfig, timezone: str, db_path: str | pathlib.Path,
+                 registry: CollectorRegistry | None = None,
+                 now: Callable[[], float] = time.time,
+                 senders: dict[str, Sender] | None = None) -> None:
+        self.db_path = str(db_path)
+        self.now = now
+        self.senders: dict[str, Sender] = senders or {"webhook": post_webhook,
+                                                      "email": send_email}
+        self.queue: queue.Queue[tuple[str, dict[str, Any]]] = queue.Queue(config.queue_size)
+        self.wake = threading.Event()
+        self.stopping = threading.Event()
+        self.thread: threading.Thread | None = None
+        self.lock = threading.Lock()
+        self._configure(config, timezone)
+        r = registry or CollectorRegistry()
+        self.m_sent = Counter("thermowarden_deliveries", "Deliveries to people by channel and "
+                              "outcome (sent, retried, failed, held)", ["channel", "outcome"],
+                              registry=r)
+        self.m_overflow = Counter("thermowarden_delivery_queue_overflow",
+                                  "Events not offered for delivery because the queue was full",
+                                  registry=r)
+        self.m_pending = Gauge("thermowarden_delivery_pending",
+                               "Deliveries stored and not yet sent (held or pending)",
+                               registry=r)
+        self.blocked_until: dict[tuple[str, str], float] = {}
+
+    def _configure(self, config: DeliveryConfig, timezone: str) -> None:
+        with self.lock:
+            self.config = config
+            self.quiet: dict[str, QuietHours] = {
+                a: QuietHours.parse(d.quiet_hours, timezone)
+                for a, d in config.audiences.items() if d.quiet_hours}
+
+    def _audience(self, name: str) -> AudienceDelivery | None:
+        for key, aud in self.config.audiences.items():
+            if key == name:
+                return aud
+        return None
+
+    def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
+        """Take a reloaded configuration; stored deliveries stay and follow the new one."""
+        self._configure(config, timezone)
+        self.wake.set()
+
+    # ------------------------------------------------------------------ engine thread
+    def offer(self, audience: str, payload: dict[str, Any]) -> bool:
+        """Hand an event over (engine thread; never blocks). False when not wanted or when
+        the queue is full (counted and logged)."""
+        aud = self._audience(audience)
+        if aud is None or payload.get("event") not in aud.events:
+            return False
+        try:
+            self.queue.put_nowait((audience, payload))
+        except queue.Full:
+            self.m_overflow.inc()
+            log.error("delivery queue full: an event for %s was not queued for delivery "
+                      "(it was still published over MQTT)", audience)
+            return False
+        self.wake.set()
+        return True
+
+    # ------------------------------------------------------------------ worker
+    def start(self) -> None:
+        self.thread = threading.Thread(target=self._run, name="thermowarden-delivery",
+                                       daemon=True)
+        self.thread.start()
+
+    def stop(self, timeout: float = 10.0) -> None:
+        """Store whatever is queued and stop; what is not sent stays for the next start."""
+        self.stopping.set()
+        self.wake.set()
+        if self.thread is not None:
+            self.thread.join(timeout)
+
+    def _connect(self) -> sqlite3.Connection:
+        db = sqlite3.connect(self.db_path, isolation_level=None, timeout=30.0)
+        db.execute("PRAGMA journal_mode=WAL")
+        db.execute("PRAGMA synchronous=NORMAL")
+        db.executescript(SCHEMA)
+        return db
+
+    def _run(self) -> None:
+        db = self._connect()
+        last_prune = -PRUNE_EVERY_S
+        try:
+            while not self.stopping.is_set():
+                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
+                    last_prune = time.monotonic()
+                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND created < ?",
+                               (self.now() - FAILED_KEPT_S,))
+                self._take(db)
+                wait = self._work(db)
+                self.m_pending.set(self.pending_count(db))
+                self.wake.wait(wait)
+                self.wake.clear()
+            self._take(db)
+            self.m_pending.set(self.pending_count(db))
+        except Exception:  # noqa: BLE001 - a delivery bug must not take the service down
+            log.exception("delivery worker failed; stored deliveries wait for the next start")
+        finally:
+            db.close()
+
+    def _take(self, db: sqlite3.Connection) -> None:
+        """Store every queued event as one row per channel, held or pending."""
+        now = self.now()
+        while True:
+            try:
+                audience, payload = self.queue.get_nowait()
+            except queue.Empty:
+                return
+            aud = self._audience(audience)
+            if aud is None:
+                continue
+            prio = _priority(payload)
+            state, due = self._placement(audience, aud, prio, now)
+            text = json.dumps(payload)
+            for channel in ("webhook", "email"):
+                if getattr(aud, channel) is None:
+                    continue
+                db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
+                           "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
+                           (uuid.uuid4().hex, audience, channel, state, prio, due, now, text))
+                if state == "held":
+                    self.m_sent.labels(channel=channel, outcome="held").inc()
+
+    def _placement(self, audience: str, aud: AudienceDelivery, priority: str,
+                   now: float) -> tuple[str, float]:
+        if priority == "urgent":
+            return "pending", now
+        quiet = self.quiet.get(audience)
+        quiet_end = quiet.until(now) if quiet is not None else None
+        digest = priority == "low" and aud.low_priority_digest_s > 0
+        if quiet_end is None and not digest:
+            return "pending", now
+        due = now + aud.low_priority_digest_s if digest else now
+        if quiet_end is not None:
+            due = max(due, quiet_end)
+        return "held", due
+
+    def _work(self, db: sqlite3.Connection) -> float:
+        """Release digests that are due and attempt due deliveries; returns how long to
+        sleep before the next thing is due."""
+        now = self.now()
+        self._release(db, now)
+        rows = db.execute("SELECT seq, id, audience, channel, priority, attempts, payload, due "
+                          "FROM deliveries WHERE state = 'pending' ORDER BY seq").fetchall()
+        next_due = now + IDLE_WAIT_S
+        done_targets: set[tuple[str, str]] = set()
+        for seq, did, audience, channel, prio, attempts, text, due in rows:
+            target = (audience, channel)
+            if target in done_targets or self.stopping.is_set():
+                continue
+            if due > now or self.blocked_until.get(target, 0.0) > now:
+                # keep the order per target: nothing later goes before this one
+                next_due = min(next_due, max(due, self.blocked_until.get(target, 0.0)))
+                done_targets.add(target)
+                continue
+            row = _Row(seq, did, audience, channel, prio, attempts, json.loads(text))
+            if not self._attempt(db, row, now):
+                done_targets.add(target)
+                next_due = min(next_due, self.blocked_until.get(target, now))
+        held = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held'").fetchone()[0]
+        if held is not None:
+            next_due = min(next_due, held)
+        return max(0.0, min(IDLE_WAIT_S, next_due - self.now()))
+
+    def _attempt(self, db: sqlite3.Connection, row: _Row, now: float) -> bool:
+        aud = self._audience(row.audience)
+        cfg = getattr(aud, row.channel) if aud is not None else None
+        if cfg is None:
+            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
+                       ("channel no longer configured", row.seq))
+            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            log.error("delivery %s to %s by %s dropped: that channel is no longer configured",
+                      row.id, row.audience, row.channel)
+            return True
+        try:
+            self.senders[row.channel](cfg, row.payload, row.id, now)
+        except DeliveryFailed as exc:
+            attempts = row.attempts + 1
+            retry = self.config.retry
+            if exc.permanent or attempts >= retry.max_attempts:
+                db.execute("UPDATE deliveries SET state = 'failed', attempts = ?, error = ? "
+                           "WHERE seq = ?", (attempts, str(exc), row.seq))
+                self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+                log.error("delivery %s to %s by %s failed for good after %d attempt(s): %s",
+                          row.id, row.audience, row.channel, attempts, exc)
+                return True
+            delay = min(retry.max_s, retry.first_s * 2 ** (attempts - 1))
+            delay *= random.uniform(0.8, 1.2)
+            db.execute("UPDATE deliveries SET attempts = ?, due = ?, error = ? WHERE seq = ?",
+                       (attempts, now + delay, str(exc), row.seq))
+            self.blocked_until[(row.audience, row.channel)] = now + delay
+            self.m_sent.labels(channel=row.channel, outcome="retried").inc()
+            log.warning("delivery %s to %s by %s failed (%s); attempt %d of %d in %.1f s",
+                        row.id, row.audience, row.channel, exc, attempts + 1,
+                        retry.max_attempts, delay)
+            return False
+        except Exception as exc:  # noqa: BLE001 - a sender bug is a failed attempt, not a crash
+            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
+                       (f"{type(exc).__name__}: {exc}", row.seq))
+            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            log.exception("delivery %s to %s by %s failed", row.id, row.audience, row.channel)
+            return True
+        db.execute("DELETE FROM deliveries WHERE seq = ?", (row.seq,))
+        self.blocked_until.pop((row.audience, row.channel), None)
+        self.m_sent.labels(channel=row.channel, outcome="sent").inc()
+        return True
+
+    def _release(self, db: sqlite3.Connection, now: float) -> None:
+        """Held rows of an audience and channel go out as one digest once one of them is
+        due and the audience's quiet hours are over."""
+        targets = db.execute("SELECT audience, channel, MIN(due) FROM deliveries "
+                             "WHERE state = 'held' GROUP BY audience, channel").fetchall()
+        for audience, channel, due in targets:
+            quiet = self.quiet.get(audience)
+            if due > now or (quiet is not None and quiet.until(now) is not None):
+                continue
+            rows = db.execute("SELECT seq, payload FROM deliveries WHERE state = 'held' AND "
+                              "audience = ? AND channel = ? ORDER BY seq",
+                              (audience, channel)).fetchall()
+            payloads = [json.loads(t) for _, t in rows]
+            digest = payloads[0] if len(payloads) == 1 else _digest(audience, payloads, now)
+            db.execute("BEGIN")
+            db.executemany("DELETE FROM deliveries WHERE seq = ?", [(s,) for s, _ in rows])
+            db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
+                       "created, payload) VALUES(?, ?, ?, 'pending', ?, ?, ?, ?)",
+                       (uuid.uuid4().hex, audience, channel, "low", now, now,
+                        json.dumps(digest)))
+            db.execute("COMMIT")
+
+    # ------------------------------------------------------------------ queries
+    def pending_count(self, db: sqlite3.Connection | None = None) -> int:
+        own = db is None
+        conn = db or self._connect()
+        try:
+            row = conn.execute("SELECT COUNT(*) FROM deliveries WHERE state IN "
+                               "('held', 'pending')").fetchone()
+            return int(row[0])
+        finally:
+            if own:
+                conn.close()
+
+
+def _digest(audience: str, payloads: list[dict[str, Any]], now: float) -> dict[str, Any]:
+    """Several held events as one summary event (schema ``thermowarden.event/1``)."""
+    items: list[dict[str, Any]] = []
+    for p in payloads:
+        if p.get("event") == "summary":
+            items.extend(p.get("items", []))
+            continue
+        adv = p.get("advisory", {})
+        items.append({"event": p.get("event"), "advisory_id": adv.get("id"),
+                      "space": adv.get("space", {}).get("id"), "rule": adv.get("rule"),
+                      "priority": adv.get("priority"), "title": adv.get("title"),
+                      "at": p.get("at")})
+    return {"schema": EVENT_SCHEMA, "event": "summary", "at": _iso(now), "audience": audience,
+            "count": len(items), "items": items,
+            "note": f"{len(items)} notification(s) held for quiet hours or the low-priority "
+                    "digest, sent together"}

@@ -1,0 +1,263 @@
+"""Delivery to people, end to end against a local HTTP receiver (http.server) and a local
+SMTP server (aiosmtpd): signature, retries with backoff, quiet hours, the low-priority
+digest, urgent alerts always sent, and nothing lost across a restart."""
+
+from __future__ import annotations
+
+import datetime as dt
+import email
+import email.policy
+import sqlite3
+import zoneinfo
+
+import pytest
+from prometheus_client import CollectorRegistry
+
+from tests.engine.conftest import validator
+from tests.shell.delivery_parts import (
+    MovableClock,
+    Receiver,
+    SmtpSink,
+    engine_events,
+    wait_until,
+)
+from thermowarden.config import DeliveryConfig
+from thermowarden.shell.delivery import (
+    DELIVERY_HEADER,
+    SIGNATURE_HEADER,
+    TIMESTAMP_HEADER,
+    Delivery,
+    verify,
+)
+
+SECRET = "s3cret-for-tests"
+LONDON = zoneinfo.ZoneInfo("Europe/London")
+
+
+def local(text: str) -> float:
+    return dt.datetime.fromisoformat(text).replace(tzinfo=LONDON).timestamp()
+
+
+@pytest.fixture
+def events(tmp_path):
+    return engine_events(tmp_path)
+
+
+@pytest.fixture
+def receiver():
+    r = Receiver()
+    yield r
+    r.close()
+
+
+@pytest.fixture
+def smtp():
+    s = SmtpSink()
+    yield s
+    s.close()
+
+
+def make(tmp_path, audience: dict, clock: MovableClock, retry: dict | None = None,
+         registry: CollectorRegistry | None = None) -> Delivery:
+    (tmp_path / "secret").write_text(SECRET + "\n")
+    cfg = DeliveryConfig.model_validate({
+        "audiences": {"safety": audience},
+        "retry": retry or {"first_s": 0.05, "max_s": 0.2, "max_attempts": 4}})
+    d = Delivery(cfg, "Europe/London", tmp_path / "store.sqlite3", registry=registry,
+                 now=clock)
+    d.start()
+    return d
+
+
+def webhook(tmp_path, url: str) -> dict:
+    return {"url": url, "secret_file": str(tmp_path / "secret"), "timeout_s": 5}
+
+
+def mail(port: int) -> dict:
+    return {"smtp": {"host": "127.0.0.1", "port": port, "tls": "none"},
+            "from": "thermowarden@works.invalid", "to": ["safety-lead@works.invalid"]}
+
+
+def metric(reg: CollectorRegistry, channel: str, outcome: str) -> float:
+    v = reg.get_sample_value("thermowarden_deliveries_total",
+                             {"channel": channel, "outcome": outcome})
+    return v or 0.0
+
+
+def test_webhook_signed_retried_and_counted(tmp_path, events):
+    rec = Receiver(statuses=[503, 502])
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, rec.url)}, clock, registry=reg)
+    try:
+        event = events[("kiln-hall", "hot")]
+        assert d.offer("safety", event)
+        wait_until(lambda: metric(reg, "webhook", "sent") == 1, what="the webhook")
+        assert len(rec.requests) == 3  # two refusals, then delivered
+        assert metric(reg, "webhook", "retried") == 2
+        ids = {h[DELIVERY_HEADER] for h, _ in rec.requests}
+        assert len(ids) == 1  # the same delivery id on every retry
+        headers, body = rec.requests[-1]
+        assert headers["Content-Type"] == "application/json"
+        assert verify(SECRET.encode(), headers[TIMESTAMP_HEADER], body,
+                      headers[SIGNATURE_HEADER])
+        assert not verify(b"wrong", headers[TIMESTAMP_HEADER], body, headers[SIGNATURE_HEADER])
+        assert not verify(SECRET.encode(), headers[TIMESTAMP_HEADER], body + b" ",
+                          headers[SIGNATURE_HEADER])
+        assert rec.bodies()[-1] == event
+        wait_until(lambda: d.pending_count() == 0, what="the row to be removed")
+    finally:
+        d.stop()
+        rec.close()
+
+
+def test_permanent_refusal_and_giving_up(tmp_path, events):
+    rec = Receiver(statuses=[400, 500, 500, 500, 500])
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, rec.url)}, clock, registry=reg)
+    try:
+        d.offer("safety", events[("kiln-hall", "hot")])  # 400: not retried
+        wait_until(lambda: metric(reg, "webhook", "failed") == 1, what="a permanent failure")
+        assert len(rec.requests) == 1
+        d.offer("safety", events[("kiln-hall", "heat")])  # 500 four times: gives up
+        wait_until(lambda: metric(reg, "webhook", "failed") == 2, what="giving up")
+        assert len(rec.requests) == 5
+        assert metric(reg, "webhook", "retried") == 3
+        db = sqlite3.connect(tmp_path / "store.sqlite3")
+        rows = db.execute("SELECT state, attempts, error FROM deliveries ORDER BY seq").fetchall()
+        db.close()
+        assert rows == [("failed", 1, "HTTP 400"), ("failed", 4, "HTTP 500")]
+    finally:
+        d.stop()
+        rec.close()
+
+
+def test_redirect_is_not_followed(tmp_path, events):
+    # urllib would repeat the POST as a GET without its body: a redirect is a failure
+    rec = Receiver(statuses=[302])
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, rec.url)}, clock, registry=reg)
+    try:
+        d.offer("safety", events[("kiln-hall", "hot")])
+        wait_until(lambda: metric(reg, "webhook", "failed") == 1, what="the failure")
+        assert len(rec.requests) == 1  # nothing went to /elsewhere
+    finally:
+        d.stop()
+        rec.close()
+
+
+def test_email_through_the_relay_with_retry(tmp_path, events):
+    sink = SmtpSink(replies=["451 4.3.0 try again later"])
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"email": mail(sink.port)}, clock, registry=reg)
+    try:
+        d.offer("safety", events[("kiln-hall", "heat")])
+        wait_until(lambda: len(sink.messages) == 1, what="the e-mail")
+        assert metric(reg, "email", "retried") == 1
+        env = sink.messages[0]
+        assert env.mail_from == "thermowarden@works.invalid"
+        assert env.rcpt_tos == ["safety-lead@works.invalid"]
+        msg = email.message_from_bytes(env.content, policy=email.policy.default)
+        assert msg["Subject"] == "[thermowarden] urgent raised: Heat stress in kiln-hall"
+        text = msg.get_content()
+        assert "Stop hot work and rest in the shade" in text
+        assert "air_temperature: 36.2" in text
+        assert "Cautions:" in text and "advisory only" in text
+    finally:
+        d.stop()
+        sink.close()
+
+
+def test_quiet_hours_hold_all_but_urgent_then_send_a_digest(tmp_path, events, receiver, smtp):
+    clock = MovableClock(local("2026-07-14T23:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, receiver.url), "email": mail(smtp.port),
+                        "quiet_hours": "22:00-06:30", "low_priority_digest_s": 0}, clock)
+    try:
+        high = events[("kiln-hall", "hot")]
+        urgent = events[("kiln-hall", "heat")]
+        assert high["advisory"]["priority"] == "high"
+        assert urgent["advisory"]["priority"] == "urgent"
+        d.offer("safety", high)
+        d.offer("safety", urgent)  # after the high one: when it arrives, both were handled
+        wait_until(lambda: receiver.requests and smtp.messages, what="the urgent alert")
+        assert receiver.bodies() == [urgent]
+        assert len(smtp.messages) == 1
+        # the urgent rows go once sent; the high one stays held on both channels
+        wait_until(lambda: d.pending_count() == 2, what="only the held rows left")
+        clock.jump_to(local("2026-07-15T06:30:05"))
+        d.wake.set()
+        wait_until(lambda: len(receiver.requests) == 2 and len(smtp.messages) == 2,
+                   what="the held event after the quiet hours")
+        assert receiver.bodies()[1] == high
+        assert "[thermowarden] high raised: kiln-hall is hot" in smtp.texts()[1]
+    finally:
+        d.stop()
+
+
+def test_low_priority_digest(tmp_path, events, receiver):
+    start = local("2026-07-14T10:00:00")
+    clock = MovableClock(start)
+    d = make(tmp_path, {"webhook": webhook(tmp_path, receiver.url),
+                        "low_priority_digest_s": 600}, clock)
+    try:
+        low1 = events[("kiln-hall", "warm")]
+        low2 = events[("yard", "warm")]
+        high = events[("kiln-hall", "hot")]
+        assert low1["advisory"]["priority"] == low2["advisory"]["priority"] == "low"
+        for e in (low1, low2, high):
+            d.offer("safety", e)
+        wait_until(lambda: receiver.requests, what="the high event")
+        assert receiver.bodies() == [high]
+        wait_until(lambda: d.pending_count() == 2, what="only the two low ones left")
+        clock.jump_to(start + 601)
+        d.wake.set()
+        wait_until(lambda: len(receiver.requests) == 2, what="the digest")
+        digest = receiver.bodies()[1]
+        validator("event.v1.json").validate(digest)
+        assert digest["event"] == "summary" and digest["count"] == 2
+        assert [(i["space"], i["rule"], i["priority"]) for i in digest["items"]] == [
+            ("kiln-hall", "deliverytest.warm", "low"), ("yard", "deliverytest.warm", "low")]
+    finally:
+        d.stop()
+
+
+def test_events_not_wanted_are_not_offered(tmp_path, events, receiver):
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    d = make(tmp_path, {"webhook": webhook(tmp_path, receiver.url), "events": ["raised"]},
+             clock)
+    try:
+        acked = {**events[("kiln-hall", "hot")], "event": "acknowledged"}
+        assert not d.offer("safety", acked)
+        assert not d.offer("facilities", events[("kiln-hall", "hot")])  # not configured
+        assert d.offer("safety", events[("kiln-hall", "hot")])
+    finally:
+        d.stop()
+
+
+def test_pending_deliveries_survive_a_restart(tmp_path, events):
+    rec = Receiver()
+    port = rec.port
+    rec.close()  # nobody listens: every attempt fails and the delivery stays stored
+    reg = CollectorRegistry()
+    clock = MovableClock(local("2026-07-14T10:00:00"))
+    hook = webhook(tmp_path, f"http://127.0.0.1:{port}/hook")
+    d = make(tmp_path, {"webhook": hook}, clock, registry=reg,
+             retry={"first_s": 0.05, "max_s": 0.1, "max_attempts": 1000})
+    event = events[("kiln-hall", "heat")]
+    d.offer("safety", event)
+    wait_until(lambda: metric(reg, "webhook", "retried") >= 2, what="failed attempts")
+    d.stop()
+    assert not d.thread.is_alive()
+    assert d.pending_count() == 1
+    rec = Receiver(port=port)
+    d2 = make(tmp_path, {"webhook": hook}, clock)
+    try:
+        wait_until(lambda: rec.requests, what="delivery after the restart")
+        assert rec.bodies() == [event]
+        wait_until(lambda: d2.pending_count() == 0, what="the row to be removed")
+    finally:
+        d2.stop()
+        rec.close()

@@ -1,0 +1,41 @@
+"""The site snippets the README shows for point trust and delivery are valid: each YAML
+block is loaded as (part of) a site file by the same loader as ``check``."""
+
+from __future__ import annotations
+
+import re
+
+import yaml
+
+from tests.conftest import REPO
+from thermowarden.config import load_site
+
+
+def _blocks(section: str) -> list[str]:
+    text = (REPO / "README.md").read_text(encoding="utf-8")
+    start = text.index(f"\n## {section}\n")
+    end = text.index("\n## ", start + 1)
+    return re.findall(r"```yaml\n(.*?)```", text[start:end], flags=re.S)
+
+
+def _load(tmp_path, snippet: str):
+    data = {"site": {"id": "readme", "timezone": "Europe/London"}, **yaml.safe_load(snippet)}
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data), encoding="utf-8")
+    return load_site(path, {})
+
+
+def test_point_trust_snippet(tmp_path):
+    (block,) = _blocks("Trusting each point")
+    point = _load(tmp_path, block).spaces[0].points[0]
+    assert (point.offset, point.scale, point.plausible_min, point.plausible_max,
+            point.max_change_per_min, point.stuck_after_s) == (-1.5, 1.0, 5, 40, 2, 7200)
+
+
+def test_delivery_snippet(tmp_path):
+    (block,) = _blocks("Reaching people: webhook and e-mail")
+    config = _load(tmp_path, block)
+    safety = config.delivery.audiences["safety"]
+    assert safety.webhook is not None and safety.email is not None
+    assert safety.quiet_hours == "21:00-06:30"
+    assert safety.email.to == ["safety-lead@example.org", "site-supervisor@example.org"]
