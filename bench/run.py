@@ -17,6 +17,7 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
 - rules_10k_ms: rule evaluation and lifecycle for 10,000 spaces with the default packs, one
   steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
   (messages rendered for every space that crosses a threshold).
+- replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio: see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
 - python_start_s: a bare ``python -c pass``, the baseline of the start-up figures below
   (each the median wall time of a fresh ``python -m thermowarden.cli`` process):
@@ -237,7 +238,8 @@ def bench_rules(quick: bool) -> dict[str, float]:
     table = compute_indices(spaces, with_phs=False)
     snap = engine.state.snapshot(0.0)
     book = engine.advisories
-    env = engine.evaluation.environment(snap, table, 0.0, 0.0, book.unknown_long(0.0))
+    env = engine.evaluation.environment(snap, table, 0.0)
+    env["rules_unknown_long"] = book.unknown_long(0.0)
     for k in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb"):
         env[k] = getattr(spaces, k)
     env["relative_humidity"] = spaces.relative_humidity
@@ -379,7 +381,7 @@ def main() -> int:
     parser.add_argument("--startup-only", action="store_true",
                         help="only the start-up figures")
     args = parser.parse_args()
-    figures: dict[str, float] = {}
+    figures: dict[str, float | str | None] = {}
     figures.update(bench_startup(args.quick, not args.no_cold))
     if args.startup_only:
         print(json.dumps(figures))
@@ -390,6 +392,10 @@ def main() -> int:
     figures.update(bench_rules(args.quick))
     figures.update(bench_reload(args.quick))
     figures.update(bench_trusted_ingest(args.quick))
+    from replay_bench import bench_replay_day, bench_replay_site
+
+    figures.update(bench_replay_day())
+    figures.update(bench_replay_site(args.quick))
     if not args.no_broker:
         from e2e import bench_e2e
 

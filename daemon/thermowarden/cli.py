@@ -19,7 +19,7 @@ import json
 import sys
 import textwrap
 from collections.abc import Sequence
-from typing import TYPE_CHECKING, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 if TYPE_CHECKING:
     from thermowarden.config import SiteConfig
@@ -208,32 +208,75 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 
 def cmd_replay(args: argparse.Namespace) -> int:
-    """Replay a recorded feed offline; print events as JSON lines (or a summary)."""
+    """Replay a recorded feed offline; print events as JSON lines (or a summary, or the
+    differences two parameter sets make)."""
+    from thermowarden.conditions_file import ConditionsFileError, ConditionsWriter
     from thermowarden.config import ConfigError
-    from thermowarden.replay import FeedError, read_feed, replay, summarise
+    from thermowarden.replay import (
+        FeedError,
+        ReplayResult,
+        SettingError,
+        compare,
+        format_comparison,
+        parse_setting,
+        read_feed,
+        replay,
+        summarise,
+    )
 
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    try:
+        settings = dict(parse_setting(x) for x in args.set or [])
+    except SettingError as exc:
+        print(f"thermowarden replay: {exc}", file=sys.stderr)
+        return 2
+    if args.compare and not settings:
+        print("thermowarden replay: --compare needs at least one --set "
+              "pack.rule.parameter=value", file=sys.stderr)
+        return 2
     _prepare_models()
     progress = _Progress(config.site.timezone) if sys.stderr.isatty() else None
+    # plain replay prints each event as it happens; a summary or comparison needs them all
+    streaming = not args.summary and not args.compare
 
     def emit(event: dict[str, object]) -> None:
         if progress is not None:
             progress.clear()
         print(json.dumps(event, ensure_ascii=False), flush=True)
 
-    try:
+    def run(with_settings: dict[str, float], conditions: ConditionsWriter | None,
+            label: str) -> ReplayResult:
+        def on_batch(engine: Any, result: ReplayResult) -> None:
+            if conditions is not None:
+                conditions(engine, result)
+
+        if progress is not None:
+            progress.label = label
         opener = gzip.open if args.feed.endswith(".gz") else open
         with opener(args.feed, "rt", encoding="utf-8") as fh:
-            result = replay(config, read_feed(fh, args.feed), base=args.config,
-                            full_events=args.full, tick_s=args.tick,
-                            on_event=None if args.summary else emit,
-                            on_tick=progress.update if progress is not None else None)
+            return replay(config, read_feed(fh, args.feed), base=args.config,
+                          full_events=args.full, tick_s=args.tick, settings=with_settings,
+                          on_batch=on_batch, on_event=emit if streaming else None,
+                          on_tick=progress.update if progress is not None else None)
+
+    writer = None
+    try:
+        if args.conditions:
+            writer = ConditionsWriter(args.conditions, args.conditions_every)
+        if args.compare:
+            first = run({}, None, "A: ")
+            second = run(settings, writer, "B: ")
+        else:
+            second = run(settings, writer, "")
+        if writer is not None:
+            writer.close()
     except OSError as exc:
-        print(f"thermowarden replay: cannot read {args.feed}: {exc.strerror}", file=sys.stderr)
+        print(f"thermowarden replay: cannot read or write {exc.filename}: {exc.strerror}",
+              file=sys.stderr)
         return 2
-    except FeedError as exc:
+    except (FeedError, SettingError, ConditionsFileError) as exc:
         print(f"thermowarden replay: {exc}", file=sys.stderr)
         return 2
     except ConfigError as exc:
@@ -242,8 +285,11 @@ def cmd_replay(args: argparse.Namespace) -> int:
     finally:
         if progress is not None:
             progress.clear()
-    if args.summary:
-        json.dump(summarise(result), sys.stdout, indent=2, ensure_ascii=False)
+    if args.compare:
+        label_b = "with " + ", ".join(f"{k}={v:g}" for k, v in settings.items())
+        print(format_comparison(compare(first, second), "as configured", label_b))
+    elif args.summary:
+        json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
         print()
     return 0
 
@@ -257,6 +303,8 @@ class _Progress:
         self.tz = zoneinfo.ZoneInfo(timezone)
         self.last = 0.0
         self.shown = False
+        self.label = ""
+        """Put before the line (which of two replays is running)."""
 
     def update(self, t: float, messages: int) -> None:
         import datetime as dt
@@ -267,7 +315,7 @@ class _Progress:
             return
         self.last = now
         when = dt.datetime.fromtimestamp(t, self.tz)
-        sys.stderr.write(f"\rreplaying: feed time {when:%Y-%m-%d %H:%M %Z}, "
+        sys.stderr.write(f"\r{self.label}replaying: feed time {when:%Y-%m-%d %H:%M %Z}, "
                          f"{messages:,} messages\x1b[K")
         sys.stderr.flush()
         self.shown = True
@@ -544,6 +592,17 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--full", action="store_true", help="print whole event payloads")
     p.add_argument("--tick", type=float, metavar="SECONDS",
                    help="evaluation interval in feed time (default: the site's tick_s)")
+    p.add_argument("--set", action="append", metavar="PACK.RULE.PARAMETER=VALUE",
+                   help="change a rule parameter (or on_delay_s, off_delay_s, renotify_s) "
+                   "for every space; repeatable")
+    p.add_argument("--compare", action="store_true",
+                   help="replay twice, as configured and with the --set values, and print "
+                   "the differences in advisories, notifications and time active")
+    p.add_argument("--conditions", metavar="FILE",
+                   help="write the inputs and indices of every space over time (CSV, or "
+                   "Parquet when FILE ends in .parquet and pyarrow is installed)")
+    p.add_argument("--conditions-every", type=float, default=60.0, metavar="SECONDS",
+                   help="one conditions row per space this often in feed time (default 60)")
     p.set_defaults(func=cmd_replay)
 
     p = sub.add_parser("run", help="run the service on a broker (advisory only)")

@@ -8,19 +8,30 @@ The same feed gives the same output.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import json
 import math
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
+
+import numpy as np
 
 from thermowarden.config import SiteConfig
 from thermowarden.core.payloads import DecodeError, parse_timestamp
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
+from thermowarden.engine.state import Capture
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.site_model import build_site_model
+
+MAX_BATCH_TICKS = 2160
+"""Ticks evaluated together in replay (six hours at 10 s ticks)."""
+BATCH_ROWS = 40_000
+"""At most this many (space x tick) rows per batch."""
+STREAM_BATCH_S = 600.0
+"""When events are handed over as they happen, a batch spans at most this much feed time."""
 
 
 class FeedError(ValueError):
@@ -96,19 +107,64 @@ def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str
     return line
 
 
+LIFECYCLE_SETTINGS = ("on_delay_s", "off_delay_s", "renotify_s")
+"""Rule settings other than parameters that ``--set`` may change."""
+
+
+class SettingError(ValueError):
+    """A ``--set pack.rule.name=value`` that names no rule or parameter."""
+
+
+def parse_setting(text: str) -> tuple[str, float]:
+    """``pack.rule.name=value`` -> (``pack.rule.name``, value)."""
+    name, sep, value = text.partition("=")
+    if not sep or name.count(".") != 2:
+        raise SettingError(f"{text!r}: expected pack.rule.parameter=value")
+    try:
+        return name.strip(), float(value)
+    except ValueError:
+        raise SettingError(f"{text!r}: the value must be a number") from None
+
+
+def apply_settings(engine: Engine, settings: Mapping[str, float]) -> None:
+    """Set rule parameters (for every space, over the site's own values) or lifecycle
+    delays of the engine's rules; ``settings`` maps ``pack.rule.name`` to the value."""
+    rules = {rt.rule.key: rt for rt in engine.rules}
+    for name, value in settings.items():
+        key, _, param = name.rpartition(".")
+        rt = rules.get(key)
+        if rt is None:
+            raise SettingError(f"--set {name}: no rule {key!r} in this site's packs "
+                               f"(known: {', '.join(sorted(rules))})")
+        if param in rt.params:
+            rt.params[param] = np.full_like(rt.params[param], value)
+        elif param in LIFECYCLE_SETTINGS:
+            cfg = rt.rule.config.model_copy(update={param: value})
+            rt.rule = dataclasses.replace(rt.rule, config=cfg)
+        else:
+            known = sorted([*rt.params, *LIFECYCLE_SETTINGS])
+            raise SettingError(f"--set {name}: rule {key} has no parameter {param!r} "
+                               f"(known: {', '.join(known)})")
+
+
 def replay(config: SiteConfig, records: Iterable[FeedRecord],
            packs: dict[str, CompiledPack] | None = None, base: str | None = None,
            full_events: bool = False, tick_s: float | None = None,
-           samples: bool = False,
+           samples: bool = False, *, settings: Mapping[str, float] | None = None,
+           on_batch: Callable[[Engine, ReplayResult], None] | None = None,
            on_event: Callable[[dict[str, Any]], None] | None = None,
            on_tick: Callable[[float, int], None] | None = None) -> ReplayResult:
     """Replay a feed through a fresh engine; collect every published event.
 
     ``tick_s`` overrides the site's evaluation interval (a coarser tick replays faster;
-    delays and windows are still measured in feed time). One-line events carry their time
-    in the site's time zone. With ``on_event`` each event is handed over as it happens and
-    not kept in the result (a failure later in the feed loses nothing already handed
-    over); ``on_tick(feed time, messages so far)`` is called after every evaluation.
+    delays and windows are still measured in feed time). ``settings`` changes rule
+    parameters (see :func:`apply_settings`). Ticks are evaluated in batches; ``on_batch``
+    is called after each batch with the engine (``engine.last_batch`` holds the batch's
+    snapshot and indices). One-line events carry their time in the site's time zone. With
+    ``on_event`` each event is handed over as its batch runs (batches then span at most
+    ``STREAM_BATCH_S`` of feed time) and not kept in the result (a failure later in the
+    feed loses nothing already handed over); ``on_tick(feed time, messages so far)`` is
+    called after every batch with its last evaluation's time.
     """
     model = build_site_model(config)
     if packs is None:
@@ -116,14 +172,18 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
         packs = load_rule_packs(names, config.rule_dirs, base=base)
     engine = Engine(config, model, packs, conditions_every_s=0,
                     sample_every_s=300.0 if samples else 0.0)
+    if settings:
+        apply_settings(engine, settings)
     tick_s = tick_s or config.evaluation.tick_s
     result = ReplayResult()
     next_tick: float | None = None
+    batch = max(1, min(MAX_BATCH_TICKS, BATCH_ROWS // max(model.n_spaces, 1)))
+    captures: list[Capture] = []
 
     tz = engine.state.tz
 
-    def run_tick(t: float) -> None:
-        for eff in engine.tick(t):
+    def run_ticks() -> None:
+        for eff in engine.tick_many(captures):
             if isinstance(eff, Publish) and "/events/" in eff.topic and eff.payload:
                 event = eff.payload if full_events else event_line(eff.payload, tz)
                 if on_event is not None:
@@ -136,8 +196,12 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
                   and eff.record.get("event") != "summary"):
                 result.raised_events.append(eff.record if full_events
                                             else event_line(eff.record, tz))
-        if on_tick is not None:
-            on_tick(t, result.messages)
+        last = captures[-1].now if captures else None
+        captures.clear()
+        if on_batch is not None:
+            on_batch(engine, result)
+        if on_tick is not None and last is not None:
+            on_tick(last, result.messages)
 
     last_t = None
     for rec in records:
@@ -145,13 +209,17 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
             next_tick = math.floor(rec.t / tick_s) * tick_s + tick_s
             result.start = rec.t
         while rec.t >= next_tick:
-            run_tick(next_tick)
+            captures.append(engine.capture(next_tick))
+            if len(captures) >= batch or (on_event is not None
+                                          and next_tick - captures[0].now >= STREAM_BATCH_S):
+                run_ticks()
             next_tick += tick_s
         engine.message(rec.topic, rec.payload, rec.t)
         result.messages += 1
         last_t = rec.t
     if last_t is not None and next_tick is not None:
-        run_tick(max(next_tick, last_t))
+        captures.append(engine.capture(max(next_tick, last_t)))
+        run_ticks()
         result.end = last_t
     result.rejected = dict(engine.ingest.rejected_by_reason())
     return result
@@ -274,3 +342,73 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
             "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
             "audiences": audiences, "standing": standing[:5],
             "effectiveness": effectiveness}
+
+
+def active_minutes(result: ReplayResult) -> dict[tuple[str, str], float]:
+    """(rule, audience) -> minutes advisories were live, those still live at the end of
+    the feed counted until then."""
+    import datetime as dt
+
+    def ts(s: str) -> float:
+        return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
+
+    open_at: dict[str, tuple[tuple[str, str], float]] = {}
+    out: dict[tuple[str, str], float] = {}
+    for e in (event_line(x) if "schema" in x else x for x in result.events):
+        if e["event"] == "summary":
+            continue
+        key = (e["rule"], e["audience"])
+        out.setdefault(key, 0.0)
+        if e["event"] == "raised":
+            open_at[e["advisory_id"]] = (key, ts(e["at"]))
+        elif e["event"] == "cleared" and e["advisory_id"] in open_at:
+            k, start = open_at.pop(e["advisory_id"])
+            out[k] += (ts(e["at"]) - start) / 60.0
+    for k, start in open_at.values():
+        if math.isfinite(result.end):
+            out[k] += max(0.0, result.end - start) / 60.0
+    return out
+
+
+def compare(a: ReplayResult, b: ReplayResult) -> list[dict[str, Any]]:
+    """Side by side per rule and audience: advisories raised, notifications received and
+    minutes active in replay ``a`` and replay ``b`` (the same feed, other settings)."""
+
+    def counts(r: ReplayResult) -> tuple[dict[tuple[str, str], int], dict[tuple[str, str], int]]:
+        raised: dict[tuple[str, str], int] = {}
+        notes: dict[tuple[str, str], int] = {}
+        for e in (event_line(x) if "schema" in x else x for x in r.events):
+            key = (e["rule"] or "(summary)", e["audience"])
+            notes[key] = notes.get(key, 0) + 1
+            if e["event"] == "raised":
+                raised[key] = raised.get(key, 0) + 1
+        return raised, notes
+
+    ra, na = counts(a)
+    rb, nb = counts(b)
+    ma, mb = active_minutes(a), active_minutes(b)
+    rows = []
+    for key in sorted(set(na) | set(nb)):
+        pairs = {"raised": (ra.get(key, 0), rb.get(key, 0)),
+                 "notifications": (na.get(key, 0), nb.get(key, 0)),
+                 "active_min": (round(ma.get(key, 0.0), 1), round(mb.get(key, 0.0), 1))}
+        rows.append({"rule": key[0], "audience": key[1], **pairs,
+                     "changed": any(x != y for x, y in pairs.values())})
+    return rows
+
+
+def format_comparison(rows: list[dict[str, Any]], label_a: str, label_b: str) -> str:
+    """The comparison as a text table; changed rows marked with ``*``."""
+    head = (f"  {'rule':<34} {'audience':<10} {'raised':>13} {'notifications':>15} "
+            f"{'minutes active':>19}")
+    lines = [f"A: {label_a}", f"B: {label_b}", "", head,
+             f"  {'':<34} {'':<10} {'A':>6} {'B':>6} {'A':>7} {'B':>7} {'A':>9} {'B':>9}"]
+    for r in rows:
+        mark = "*" if r["changed"] else " "
+        lines.append(f"{mark} {r['rule']:<34} {r['audience']:<10} {r['raised'][0]:>6} "
+                     f"{r['raised'][1]:>6} {r['notifications'][0]:>7} {r['notifications'][1]:>7} "
+                     f"{r['active_min'][0]:>9} {r['active_min'][1]:>9}")
+    changed = sum(r["changed"] for r in rows)
+    lines.append("")
+    lines.append(f"{changed} rule(s) changed" if changed else "no difference")
+    return "\n".join(lines)

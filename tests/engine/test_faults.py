@@ -33,7 +33,7 @@ spaces:
 """
 
 
-def foundry(tmp_path, postures):
+def foundry(tmp_path, postures, conditions_every_s=60):
     text = FOUNDRY + "".join(
         f"  - id: bay-{k}\n    hot_work: true\n"
         f"    people: {{work_class: moderate, clo: 0.6, acclimatised: true, posture: {p}}}\n"
@@ -44,7 +44,7 @@ def foundry(tmp_path, postures):
     names = {n for s in config.spaces for n in config.rule_packs(s)}
     model = build_site_model(config)
     return Engine(config, model, load_rule_packs(names, config.rule_dirs, base=site),
-                  conditions_every_s=60, start=0.0)
+                  conditions_every_s=conditions_every_s, start=0.0)
 
 
 def hot_bays(engine, t, n):
@@ -91,6 +91,65 @@ def test_a_failing_computation_stays_in_its_space(tmp_path, monkeypatch):
     assert "bay-1" in failed[0]["title"] and "PHS" in failed[0]["title"]
     # heat-stress rules still run for the other bays (WBGT over the reference value)
     assert any(p["advisory"]["rule"].startswith("heat_stress.") for p in raised)
+
+
+def test_a_failing_computation_stays_in_its_space_and_ticks_in_a_batch(tmp_path, monkeypatch):
+    # Fault injection: every index computation raises while bay-1's air temperature reads
+    # 41 °C (minutes 5 to 9). Evaluated one tick at a time and as one batch of ticks (as
+    # replay does), only bay-1 fails, only at those ticks, and both give the same events.
+    import thermowarden.engine.evaluation as evaluation
+
+    real = evaluation.compute_indices
+
+    def failing(inputs, with_phs=False):
+        if (inputs.air_temperature == 41.0).any():
+            raise ValueError("the air temperature 41 °C breaks this computation")
+        return real(inputs, with_phs=with_phs)
+
+    monkeypatch.setattr(evaluation, "compute_indices", failing)
+
+    def feed(engine, t):
+        hot_bays(engine, t, 3)
+        if 300 <= t < 600:
+            engine.message("foundry/bay-1/ta", b"41.0", t)
+
+    times = [float(t) for t in range(0, 1260, 60)]
+    live = foundry(tmp_path, ["standing"] * 3, conditions_every_s=0)
+    live_effects, live_failed = [], []
+    for t in times:
+        feed(live, t)
+        live_effects += live.tick(t)
+        live_failed.append(dict(live.evaluation.failures))
+    batched = foundry(tmp_path, ["standing"] * 3, conditions_every_s=0)
+    caps = []
+    for t in times:
+        feed(batched, t)
+        caps.append(batched.capture(t))
+    batch_effects = batched.tick_many(caps)
+    validate_effects(batch_effects)
+
+    assert [set(f) for f in live_failed] == [{1} if 300 <= t < 600 else set() for t in times]
+    assert live_failed[5][1][0] == "indices" and "41 °C" in live_failed[5][1][1]
+    assert batched.evaluation.failures == {}  # bay-1 recovered at the last tick
+    _, table = batched.last_batch
+    n = 3
+    wbgt = table["wbgt"]
+    for j, t in enumerate(times):
+        reasons = [wbgt.reasons[c] for c in wbgt.codes[j * n:(j + 1) * n]]
+        assert reasons[1] == (COMPUTATION_FAILED if 300 <= t < 600 else ""), (t, reasons)
+        assert reasons[0] == reasons[2] == "", (t, reasons)
+        assert wbgt.values[j * n] > 25.0  # the other bays computed at every tick
+
+    def sent(effects):
+        return [(e.payload["event"], e.payload["advisory"]["rule"],
+                 e.payload["advisory"]["space"]["id"], e.payload["at"])
+                for e in effects if isinstance(e, Publish) and "/events/" in e.topic
+                and e.payload]
+
+    assert sent(batch_effects) == sent(live_effects)
+    failed = [x for x in sent(batch_effects) if x[1] == "sensor_health.indices_failed"]
+    assert [x[:3] for x in failed][:1] == [("raised", "sensor_health.indices_failed", "bay-1")]
+    assert {x[2] for x in failed} == {"bay-1"}
 
 
 def test_every_event_has_its_own_identity_kept_across_a_restore(lab, tmp_path):

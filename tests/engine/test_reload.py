@@ -124,6 +124,11 @@ def test_reload_keeps_unchanged_windows_and_advisories(tmp_path):
     live_c = [a for a in new.live_advisories() if new.model.space_ids[a.space] == "c"]
     assert [a.id for a in live_c] == [adv_c.id]
     assert result.effects == []
+    # the per-quantity reading counters go on from where they were (the service's metrics
+    # only go up)
+    assert new.ingest.accepted_by_quantity == running.ingest.accepted_by_quantity
+    assert sum(new.ingest.accepted_by_quantity.values()) > 0
+    assert new.ingest.missed_by_quantity == running.ingest.missed_by_quantity
     # the old engine was left as it was (a failed swap would keep running it)
     assert adv_c.space == running.model.space_index["c"] == 2
     assert running.live_advisories() == [adv_c]

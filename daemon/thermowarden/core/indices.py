@@ -130,6 +130,16 @@ def _between(x: FloatArray, lo: float, hi: float) -> BoolArray:
     return result
 
 
+def relative_humidity_method(measured: BoolArray) -> str:
+    """The method of the relative humidity column for spaces where it was ``measured`` (the
+    others derive it from a psychrometric wet bulb)."""
+    if measured.all():
+        return "measured"
+    if not measured.any():
+        return "ASHRAE Handbook Fundamentals 2017 ch. 1 (from the wet/dry-bulb pair)"
+    return "measured, or ASHRAE 2017 ch. 1 from the wet/dry-bulb pair"
+
+
 def _psychrometrics(s: SpaceInputs, out: IndexTable) -> FloatArray:
     """Humidity indices; returns the relative humidity (%) the other indices use."""
     n = s.n
@@ -146,11 +156,8 @@ def _psychrometrics(s: SpaceInputs, out: IndexTable) -> FloatArray:
     app.require(~(pair & ~np.isfinite(rh)), "psychrometer wet bulb too low for its dry bulb "
                 "(it would mean less than no moisture): check that the wick is wet and "
                 "ventilated")
-    method = np.where(np.isfinite(s.relative_humidity), 0, 1)
-    label = "measured" if not method.any() else (
-        "ASHRAE Handbook Fundamentals 2017 ch. 1 (from the wet/dry-bulb pair)"
-        if method.all() else "measured, or ASHRAE 2017 ch. 1 from the wet/dry-bulb pair")
-    out["relative_humidity"] = app.column(rh, "%", label)
+    out["relative_humidity"] = app.column(rh, "%", relative_humidity_method(
+        np.isfinite(s.relative_humidity)))
     ok = app.ok
     ta = np.where(ok, s.air_temperature, np.nan)
     rh_ok = np.where(ok, rh, np.nan)
@@ -518,18 +525,6 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                   "input missing or stale: air_temperature (needed with solar load)")
     w = heat_stress.wbgt(tnw, s.globe_temperature, s.air_temperature, s.solar_load)
     out["wbgt"] = w_app.column(w, "°C", "ISO 7243:2017 eq. (1)/(2)")
-    twa_app = Applicability(n)
-    twa_app.require(np.isfinite(s.wbgt_time_weighted), "no time-weighted WBGT: fewer than "
-                    "48 of the last 60 minutes covered")
-    out["wbgt_time_weighted"] = twa_app.column(s.wbgt_time_weighted, "°C",
-                                               "ISO 7243:2017 (60-min time-weighted average)")
-    basis = np.where(np.isfinite(s.wbgt_time_weighted), s.wbgt_time_weighted, w)
-    eff = basis + s.clothing_adjustment_k
-    eff_app = Applicability(n)
-    eff_app.require(np.isfinite(basis), "no WBGT (see wbgt)")
-    out["wbgt_effective"] = eff_app.column(eff, "°C", "ISO 7243:2017 (time-weighted WBGT where "
-                                           "available, else spot value; plus clothing adjustment)")
-
     m_w = heat_stress.metabolic_rate_w(s.met * MET_W_M2)
     m_app = Applicability(n)
     m_app.require(np.isfinite(m_w), "no metabolic rate: give met or work_class (a heat-stress "
@@ -537,17 +532,11 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     m_app.require(_between(m_w, 100.0, 800.0),
                   "outside ISO 7243 Annex A range: metabolic rate 100-800 W")
     out["metabolic_rate"] = m_app.column(m_w, "W", "ISO 8996:2021 (standard person, 1.8 m²)")
-    ref_a = heat_stress.reference_acclimatised(m_w)
-    ref_u = heat_stress.reference_unacclimatised(m_w)
-    out["wbgt_reference_acclimatised"] = m_app.column(ref_a, "°C", heat_stress.REFERENCE_METHOD)
-    out["wbgt_reference_unacclimatised"] = m_app.column(ref_u, "°C", heat_stress.REFERENCE_METHOD)
-    margin_app = Applicability(n)
-    margin_app.require_from(m_app)
-    margin_app.require(np.isfinite(eff), "no WBGT (see wbgt)")
-    out["wbgt_margin_acclimatised"] = margin_app.column(ref_a - eff, "K",
-                                                        heat_stress.REFERENCE_METHOD)
-    out["wbgt_margin_unacclimatised"] = margin_app.column(ref_u - eff, "K",
-                                                          heat_stress.REFERENCE_METHOD)
+    out["wbgt_reference_acclimatised"] = m_app.column(heat_stress.reference_acclimatised(m_w),
+                                                      "°C", heat_stress.REFERENCE_METHOD)
+    out["wbgt_reference_unacclimatised"] = m_app.column(
+        heat_stress.reference_unacclimatised(m_w), "°C", heat_stress.REFERENCE_METHOD)
+    _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
 
     # ISO 7933 PHS, hot work only; each space in the edition it asks for
     editions = np.array(s.phs_edition if isinstance(s.phs_edition, tuple)
@@ -603,6 +592,46 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
             res[key] = np.where(sel, part[key], res[key])
     for key, (name, unit) in phs_names.items():
         out[name] = app.column(res[key], unit, method_phs)
+
+
+def _wbgt_assessment(twa: FloatArray, w: FloatArray, adjustment_k: FloatArray,
+                     out: IndexTable) -> None:
+    """The columns that depend on the time-weighted WBGT ``twa`` (°C): the effective WBGT
+    (ISO 7243:2017: time-weighted where available, else the spot value ``w``, plus the
+    clothing adjustment) and the margins to the reference values already in ``out``."""
+    n = w.size
+    twa_app = Applicability(n)
+    twa_app.require(np.isfinite(twa), "no time-weighted WBGT: fewer than "
+                    "48 of the last 60 minutes covered")
+    wbgt_tw = twa_app.column(twa, "°C", "ISO 7243:2017 (60-min time-weighted average)")
+    basis = np.where(np.isfinite(twa), twa, w)
+    eff = basis + adjustment_k
+    eff_app = Applicability(n)
+    eff_app.require(np.isfinite(basis), "no WBGT (see wbgt)")
+    effective = eff_app.column(eff, "°C", "ISO 7243:2017 (time-weighted WBGT where "
+                               "available, else spot value; plus clothing adjustment)")
+    ref_a = out["wbgt_reference_acclimatised"]
+    margin_app = Applicability(n)
+    for code in np.unique(ref_a.codes[ref_a.codes != 0]):
+        margin_app.require(ref_a.codes != code, ref_a.reasons[int(code)])
+    margin_app.require(np.isfinite(eff), "no WBGT (see wbgt)")
+    margins = {
+        "wbgt_margin_acclimatised": margin_app.column(ref_a.values - eff, "K",
+                                                      heat_stress.REFERENCE_METHOD),
+        "wbgt_margin_unacclimatised": margin_app.column(
+            out["wbgt_reference_unacclimatised"].values - eff, "K",
+            heat_stress.REFERENCE_METHOD)}
+    out["wbgt_time_weighted"] = wbgt_tw
+    out["wbgt_effective"] = effective
+    out.update(margins)
+
+
+def with_time_weighted_wbgt(table: IndexTable, twa: FloatArray,
+                            adjustment_k: FloatArray) -> None:
+    """Recompute, in place, the columns of ``table`` that depend on the time-weighted WBGT,
+    for a new ``twa`` (°C per space; the engine knows it only after it has recorded the spot
+    WBGT of earlier evaluations)."""
+    _wbgt_assessment(twa, table["wbgt"].values, adjustment_k, table)
 
 
 HEAT_INDEX_MAX_C: Final = 60.0

@@ -18,8 +18,7 @@ from typing import Any, Final
 import numpy as np
 
 from thermowarden.config import AUDIENCES, PRIORITIES, SiteConfig
-from thermowarden.core.columns import BoolArray, FloatArray
-from thermowarden.core.indices import IndexTable
+from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.evaluation import RuleTruths
@@ -131,6 +130,26 @@ class RuleRuntime:
         never reminds."""
         return self._renotify
 
+    def next_due(self) -> float:
+        """The earliest time (epoch s) at which a timer of this rule's lifecycle may fall
+        due in some space (on-delay, off-delay, shelving, de-escalation, re-notification,
+        following the effect of advice acted on); until then, a step with the same
+        conditions as the last one changes nothing."""
+        cfg = self.rule.config
+        live = self.state >= State.ACTIVE
+        if any(adv.acted_on is not None for adv in self.advisories.values()):
+            return -math.inf  # effect checks and the overdue notice: every evaluation
+        times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
+        if live.any():
+            times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
+            times.append(self.lower_since + min(cfg.off_delay_s, DEESCALATE_HOLD_S))
+            intervals = self.renotify_intervals()
+            if intervals is not None:
+                times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
+                             + intervals[self.level])
+        due = np.fmin.reduce(times)
+        return float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+
 
 def build_rule_runtimes(config: SiteConfig, model: SiteModel,
                         packs: Mapping[str, CompiledPack]) -> list[RuleRuntime]:
@@ -167,7 +186,7 @@ class _Context:
     """The evaluation in progress, for rendering texts with the numbers of the moment."""
 
     base: Mapping[str, Any]
-    table: IndexTable | None
+    table: Mapping[str, IndexColumn] | None
     details: Callable[[int], dict[str, object]] = _no_details
     """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
 
@@ -221,7 +240,7 @@ class Advisories:
             parts.append(f"{rt.rule.key} ({', '.join(names) or 'inputs out of range'})")
         return "; ".join(parts)
 
-    def begin(self, base: Mapping[str, Any], table: IndexTable | None,
+    def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
               details: Callable[[int], dict[str, object]] = _no_details) -> None:
         """Start an evaluation: texts rendered from now on use these values."""
         self._ctx = _Context(base, table, details)

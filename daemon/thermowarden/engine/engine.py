@@ -9,25 +9,36 @@ The data's path, one module per step::
 
 It does no I/O and reads no clock, so a whole day of a site replays in a test. One thread
 only: the service's engine thread, or the replay loop.
+
+One code path for both: a tick captures the points' state (:meth:`Engine.capture`) and
+:meth:`Engine.tick_many` evaluates captured ticks as K x N rows. The service evaluates one
+tick at a time; replay captures hours of ticks and evaluates them together, the lifecycle
+stepping through them in order. Indices are computed only for rows whose inputs changed; a
+(space, rule) is visited only where its condition holds, its advisory is pending or live
+and its conditions changed or a timer fell due, or an input it needs went or came back.
 """
 
 from __future__ import annotations
 
+import functools
 import math
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from typing import Any, Final
 
+import numpy as np
+
 from thermowarden.config import SiteConfig
+from thermowarden.core.columns import FloatArray, IndexColumn
 from thermowarden.core.indices import IndexTable
 from thermowarden.effects import Effect, Persist
-from thermowarden.engine.advisories import Advisories, Advisory, RuleRuntime
-from thermowarden.engine.evaluation import Evaluation, rule_truths
+from thermowarden.engine.advisories import UNKNOWN_LONG_S, Advisories, Advisory, RuleRuntime
+from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
-from thermowarden.engine.state import SiteState, Snapshot
+from thermowarden.engine.state import Capture, SiteState, Snapshot
 from thermowarden.engine.texts import Texts
-from thermowarden.rules import CompiledPack
+from thermowarden.rules import CompiledPack, CompiledRule
 from thermowarden.site_model import SITE, SiteModel
 
 SAMPLE_EVERY_S: Final = 300.0
@@ -57,6 +68,8 @@ class Engine:
         self.last_table: IndexTable | None = None
         self.last_snapshot: Snapshot | None = None
         self.ticks = 0
+        self.last_batch: tuple[Snapshot, IndexTable] | None = None
+        """The snapshot and indices of the latest :meth:`tick_many` (K x N rows)."""
 
     @property
     def rules(self) -> list[RuleRuntime]:
@@ -83,42 +96,124 @@ class Engine:
     # ------------------------------------------------------------------ tick
     def tick(self, now: float) -> list[Effect]:
         """Evaluate every space at ``now`` and return what to publish and store."""
+        return self.tick_many([self.state.capture(now)])
+
+    def capture(self, now: float) -> Capture:
+        """What a tick at ``now`` needs from the readings received so far; evaluate a run of
+        captures together with :meth:`tick_many` (replay)."""
+        return self.state.capture(now)
+
+    def tick_many(self, caps: list[Capture]) -> list[Effect]:
+        """Evaluate the ticks of ``caps`` (in time order, no readings in between that they
+        have not captured) and return their effects in order, as :meth:`tick` one by one
+        would. Snapshot, indices and rule conditions are computed for all ticks at once;
+        the lifecycle then steps through the ticks, visiting a (space, rule) only where a
+        condition holds, an advisory is pending or live, or an input went missing or came
+        back."""
+        if not caps:
+            return []
         if self.start is None:
-            self.start = now
-        effects: list[Effect] = []
-        known_days = len(self.state.daily_means)
-        snap = self.state.snapshot(now)
-        if len(self.state.daily_means) != known_days and self.state.daily_means:
-            effects.append(Persist("daily_means", "outdoor",
-                                   {"newest_first": list(self.state.daily_means)}))
-        table = self.evaluation.indices(snap, now)
-        self.last_table = table
-        self.last_snapshot = snap
+            self.start = caps[0].now
+        n = self.n
+        snap = self.state.snapshot_many(caps)
+        k = snap.k
+        table = self.evaluation.indices(snap)
+        env = self.evaluation.environment(snap, table, self.start)
         book = self.advisories
-        env = self.evaluation.environment(snap, table, now, self.start, book.unknown_long(now))
-        book.begin(env, table, lambda i: self._text_fields(snap, table, now, i))
-        for rt in book.rules:
-            if not rt.mask.any() and not rt.advisories:
-                continue
-            truths = rule_truths(rt.rule, rt.params, rt.mask, env, self.n)
-            book.step(rt, truths, now, effects)
-        book.flush_summaries(now, effects)
-        effects.extend(self.publication.conditions_due(snap, table, now))
-        if self.sample_every_s > 0 and now - self.last_sample >= self.sample_every_s:
-            self.last_sample = now
-            effects.append(Persist("sample", str(int(now)),
-                                   self.publication.sample(table, now, snap.occupied,
-                                                           snap=snap)))
-        effects.extend(book.refresh_due(now))
-        self.ticks += 1
+        times = snap.times.tolist()
+        evaluated: list[tuple[RuleRuntime, RuleTruths, list[bool], list[bool]]] = []
+        others = [rt for rt in book.rules if rt.rule.pack != "sensor_health"]
+        health = [rt for rt in book.rules if rt.rule.pack == "sensor_health"]
+        unknown_long = np.zeros(k * n)
+        for group in (others, health):
+            if group is health:
+                if k == 1:  # exact: the count depends on the lifecycle too
+                    unknown_long = book.unknown_long(float(snap.times[0]))
+                env["rules_unknown_long"] = unknown_long
+            for rt in group:
+                if not rt.mask.any() and not rt.advisories:
+                    continue
+                mask = np.tile(rt.mask, k) if k > 1 else rt.mask
+                params = ({p: np.tile(v, k) for p, v in rt.params.items()} if k > 1
+                          else rt.params)
+                truths = rule_truths(rt.rule, params, mask, env, k * n)
+                u = (mask & truths.lacking & ~truths.raise_.known).reshape(k, n)
+                since = _unknown_trajectory(u, rt.unknown_since, snap.times)
+                if group is others:
+                    before = np.concatenate([rt.unknown_since[None, :], since[:-1]])
+                    unknown_long += (snap.times[:, None] - before >= UNKNOWN_LONG_S).ravel()
+                flips = np.concatenate([u[:1] != np.isfinite(rt.unknown_since)[None, :],
+                                        u[1:] != u[:-1]]).any(axis=1)
+                hits = np.asarray(truths.raise_.true.reshape(k, n).any(axis=1) | flips)
+                anything = [bool(x) for x in hits]
+                evaluated.append((rt, truths, anything, _repeats(truths, k, n)))
+        evaluated.sort(key=lambda e: book.rules.index(e[0]))
+        readers = [e for e in evaluated if "rules_unknown_long" in _reads(e[0].rule)]
+        effects: list[Effect] = []
+        sample_due = self.sample_every_s > 0
+        due = {id(rt): -math.inf for rt, *_ in evaluated}
+        for j, now in enumerate(times):
+            if j in snap.days_rolled:
+                effects.append(Persist("daily_means", "outdoor",
+                                       {"newest_first": snap.days_rolled[j]}))
+            rows = slice(j * n, (j + 1) * n)
+            # texts rendered in this tick (raises, reminders, refreshes) use its values
+            at_j = self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1 else table
+            self.health.at(j)
+            book.begin(RowView(env, rows) if k > 1 else env, at_j,
+                       functools.partial(self._text_fields, at_j, now))
+            if readers and k > 1 and any(rt.advisories for rt in others):
+                # the unknown-for-long count depends on the lifecycle (a live advisory whose
+                # clear condition is unknown; exact without one): where the estimate was
+                # wrong, re-evaluate the rules that read it
+                exact = book.unknown_long(now)
+                if not np.array_equal(exact, unknown_long[rows]):
+                    unknown_long[rows] = exact
+                    view_j = dict(RowView(env, rows))
+                    for rt, truths, anything, repeats in readers:
+                        one = rule_truths(rt.rule, rt.params, rt.mask, view_j, n)
+                        _patch_rows(truths, one, rows)
+                        anything[j] = True
+                        repeats[j] = False
+                        if j + 1 < k:
+                            repeats[j + 1] = False
+            for rt, truths, anything, repeats in evaluated:
+                if not rt.state.any():
+                    if not anything[j]:
+                        continue
+                elif repeats[j] and now < due[id(rt)]:
+                    continue  # same conditions as the tick before and no timer due
+                book.step(rt, truths.rows(rows) if k > 1 else truths, now, effects)
+                due[id(rt)] = rt.next_due()
+            book.flush_summaries(now, effects)
+            if sample_due and now - self.last_sample >= self.sample_every_s:
+                self.last_sample = now
+                at = (dict(self.evaluation.tick_rows(table, snap.inputs, rows)) if k > 1
+                      else table)
+                effects.append(Persist("sample", str(int(now)), self.publication.sample(
+                    at, now, snap.occupied[rows],
+                    air_temperature=snap.inputs.air_temperature[rows])))
+            effects.extend(book.refresh_due(now))
+            self.ticks += 1
+        last = (dict(self.evaluation.tick_rows(table, snap.inputs, slice((k - 1) * n, k * n)))
+                if k > 1 else table)
+        self.last_table = last
+        self.last_snapshot = snap
+        self.last_batch = (snap, table)
+        if self.publication.conditions_every_s > 0:
+            if k > 1:
+                raise ValueError("conditions are published per tick: tick_many with one "
+                                 "capture when conditions_every_s > 0")
+            effects.extend(self.publication.conditions_due(snap, table, snap.now))
         return effects
 
-    def _text_fields(self, snap: Snapshot, table: IndexTable, now: float, i: int
+    def _text_fields(self, table: Mapping[str, IndexColumn], now: float, i: int
                      ) -> dict[str, object]:
         """Words for the messages of space ``i`` that are not numbers: which sensors the
         health columns are about, which rules cannot be evaluated and why, and what a WBGT
-        rests on."""
-        fields: dict[str, object] = dict(self.health.details(i, snap))
+        rests on (``table`` holds the evaluation's rows of this tick)."""
+        assert self.health.snap is not None
+        fields: dict[str, object] = dict(self.health.details(i, self.health.snap))
         twa = table.get("wbgt_time_weighted")
         fields["wbgt_basis"] = (
             "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
@@ -172,3 +267,75 @@ class Engine:
         for adv in self.live_advisories():
             out[(adv.rule, adv.priority)] = out.get((adv.rule, adv.priority), 0) + 1
         return out
+
+
+def _reads(rule: CompiledRule) -> set[str]:
+    """Every name a rule's conditions read."""
+    exprs = [e for _, e in rule.levels] + [e for e in (rule.condition, rule.clear,
+                                                        rule.hold_back, rule.acted_on) if e]
+    return {name for e in exprs for name in e.names}
+
+
+def _patch_rows(truths: RuleTruths, one: RuleTruths, rows: slice) -> None:
+    """Write one tick's re-evaluated truths into the batch's rows."""
+    truths.raise_.value[rows] = one.raise_.value
+    truths.raise_.known[rows] = one.raise_.known
+    truths.clear.value[rows] = one.clear.value
+    truths.clear.known[rows] = one.clear.known
+    truths.hold[rows] = one.hold
+    truths.level[rows] = one.level
+    truths.lacking[rows] = one.lacking
+    if truths.acted_on is not None and one.acted_on is not None:
+        truths.acted_on[rows] = one.acted_on
+
+
+def _repeats(truths: RuleTruths, k: int, n: int) -> list[bool]:
+    """Per tick: are the rule's conditions in every space the same as at the tick before?
+    (The first tick of a batch is never a repeat.)"""
+    out = np.zeros(k, dtype=bool)
+    if k > 1:
+        same = np.ones(k - 1, dtype=bool)
+        parts = [truths.raise_.value, truths.raise_.known, truths.clear.value,
+                 truths.clear.known, truths.hold, truths.level, truths.lacking]
+        if truths.acted_on is not None:
+            parts.append(truths.acted_on)
+        for a in parts:
+            grid = a.reshape(k, n)
+            same &= (grid[1:] == grid[:-1]).all(axis=1)
+        out[1:] = same
+    result: list[bool] = out.tolist()
+    return result
+
+
+def _unknown_trajectory(u: Any, since: FloatArray, times: FloatArray) -> FloatArray:
+    """Since when each space has been unknown for want of an input, after each tick, as
+    :meth:`Advisories.step` keeps it: the time the current run of ``u`` (K x N) began, or
+    the earlier ``since`` when the run started before these ticks."""
+    k, n = u.shape
+    last_known = np.maximum.accumulate(np.where(~u, np.arange(k)[:, None], -1), axis=0)
+    began = np.where(last_known >= 0, times[np.minimum(last_known + 1, k - 1)],
+                     np.fmin(since, times[0])[None, :])
+    result: FloatArray = np.where(u, began, np.nan)
+    return result
+
+
+class RowView(Mapping[str, Any]):
+    """One tick's rows of the rules' environment (arrays are sliced when read)."""
+
+    def __init__(self, env: Mapping[str, Any], rows: slice) -> None:
+        self._env = env
+        self._rows = rows
+
+    def __getitem__(self, name: str) -> Any:
+        v = self._env[name]
+        if isinstance(v, np.ndarray):
+            return v[self._rows]
+        if isinstance(v, dict):
+            return {q: a[self._rows] for q, a in v.items()}
+        return v
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._env)
+
+    def __len__(self) -> int:
+        return len(self._env)

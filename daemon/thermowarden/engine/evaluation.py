@@ -15,7 +15,8 @@ from __future__ import annotations
 
 import dataclasses
 from collections import ChainMap
-from dataclasses import dataclass
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, fields
 from typing import Any, Final
 
 import numpy as np
@@ -23,7 +24,14 @@ import numpy.typing as npt
 
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Truth
-from thermowarden.core.indices import IndexTable, SpaceInputs, compute_indices
+from thermowarden.core.indices import (
+    IndexTable,
+    SpaceInputs,
+    compute_indices,
+    relative_humidity_method,
+    select,
+    with_time_weighted_wbgt,
+)
 from thermowarden.core.radiation import SIDES
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.state import SiteState, Snapshot
@@ -50,11 +58,13 @@ def take_inputs(s: SpaceInputs, idx: npt.NDArray[np.intp]) -> SpaceInputs:
     return dataclasses.replace(s, **changes)
 
 
-def merge_tables(n: int, parts: list[tuple[npt.NDArray[np.intp], IndexTable]]) -> IndexTable:
-    """One table over ``n`` spaces from tables of subsets; columns missing for a space (its
-    computation failed) are absent with :data:`COMPUTATION_FAILED`."""
+def merge_tables(n: int, parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+                 template: IndexTable | None = None) -> IndexTable:
+    """One table over ``n`` spaces (or rows) from tables of subsets; columns missing for a
+    space (its computation failed) are absent with :data:`COMPUTATION_FAILED`. Columns of
+    ``template`` (an earlier table) that no part has are absent for every space."""
     names: dict[str, IndexColumn] = {}
-    for _, t in parts:
+    for _, t in [*parts, (np.zeros(0, dtype=np.intp), template or {})]:
         for name, col in t.items():
             names.setdefault(name, col)
     out: IndexTable = {}
@@ -97,10 +107,64 @@ class RuleTruths:
     acted_on: BoolArray | None
     """The acted-on condition (equipment in the state the advice asks for)."""
 
+    def rows(self, rows: slice) -> RuleTruths:
+        """The same truths for a slice of rows (one tick of a batch)."""
+        return RuleTruths(Truth(self.raise_.value[rows], self.raise_.known[rows]),
+                          Truth(self.clear.value[rows], self.clear.known[rows]),
+                          self.hold[rows], self.level[rows], self.lacking[rows],
+                          None if self.acted_on is None else self.acted_on[rows])
+
+
+
+def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
+    """The same inputs for a subset of rows."""
+    given: dict[str, object] = {}
+    for f in fields(s):
+        v = getattr(s, f.name)
+        if f.name == "n":
+            continue
+        if isinstance(v, np.ndarray):
+            given[f.name] = v[index]
+        elif isinstance(v, dict):
+            given[f.name] = {k: a[index] for k, a in v.items()}
+        elif isinstance(v, tuple):
+            given[f.name] = tuple(v[int(i)] for i in index)
+        else:
+            given[f.name] = v
+    return SpaceInputs.create(int(index.size), **given)
+
+
+def with_method(col: IndexColumn, method: str) -> IndexColumn:
+    return IndexColumn(col.values, col.codes, col.reasons, col.unit, method, col.labels)
+
+
+def concat_columns(parts: list[IndexColumn]) -> IndexColumn:
+    """One column from columns of the same index computed in separate calls (their reason
+    tables differ: codes are mapped onto one table)."""
+    reasons: list[str] = list(parts[0].reasons)
+    codes = []
+    for col in parts:
+        for r in col.reasons:
+            if r not in reasons:
+                reasons.append(r)
+        remap = np.array([reasons.index(r) for r in col.reasons], dtype=np.int16)
+        codes.append(remap[col.codes])
+    first = parts[0]
+    return IndexColumn(np.concatenate([c.values for c in parts]), np.concatenate(codes),
+                       tuple(reasons), first.unit, first.method, first.labels)
+
+
+def _input_matrix(s: SpaceInputs) -> FloatArray:
+    """Every per-row input that indices depend on (the time-weighted WBGT excepted: it is
+    applied afterwards), one column each."""
+    cols = [getattr(s, f.name) for f in fields(s)
+            if f.name != "wbgt_time_weighted" and isinstance(getattr(s, f.name), np.ndarray)]
+    cols += [s.plane_radiant[k] for k in sorted(s.plane_radiant)]
+    return np.column_stack([c.astype(np.float64) for c in cols])
 
 
 class Evaluation:
-    """Computes indices and the rules' environment for one site at each tick."""
+    """Computes indices and the rules' environment for one site, for one or many ticks."""
 
     def __init__(self, state: SiteState, health: PointHealth) -> None:
         self.state = state
@@ -108,53 +172,175 @@ class Evaluation:
         self.n = state.model.n_spaces
         self.last_phs = -np.inf
         self.phs_columns: IndexTable = {}
+        self._last_inputs: FloatArray | None = None
+        self._last_table: IndexTable | None = None
+        self.computed_rows = 0
+        """Rows (space x tick) whose indices were computed (the others were unchanged)."""
         self.failures: dict[int, tuple[str, str]] = {}
         """Space -> (index group that failed, the error), at the last computation."""
         self.failure_count = 0
         """Failed computations (space and group) since start, for the metrics."""
         self._phs_failures: dict[int, tuple[str, str]] = {}
+        self._all_failures: dict[int, tuple[str, str]] = {}
 
-    def indices(self, snap: Snapshot, now: float) -> IndexTable:
-        """Every index of every space at ``now``; PHS columns are carried between their
-        five-minutely refreshes. Records the WBGT into the 60-minute windows."""
-        phs_due = bool(snap.inputs.hot_work.any()) and now - self.last_phs >= PHS_EVERY_S
-        table = self._isolated(snap.inputs, phs_due)
-        if phs_due:
-            self.last_phs = now
-            self.phs_columns = {k: v for k, v in table.items() if k.startswith("phs_")}
+    def _changed_only(self, s: SpaceInputs) -> IndexTable:
+        """Indices of every row, computed only for the rows whose inputs differ from the
+        same space's previous row (the previous evaluation's for the first tick)."""
+        n = self.n
+        rows = s.n
+        k = rows // n
+        m = _input_matrix(s)
+        prev = self._last_inputs
+        have_prev = (prev is not None and prev.shape[1] == m.shape[1]
+                     and self._last_table is not None)
+        before = np.concatenate([prev, m[:-n]]) if have_prev and prev is not None else None
+        if before is None:
+            same = np.zeros(rows, dtype=bool)
+            if k > 1:
+                a, b = m[n:], m[:-n]
+                same[n:] = ((a == b) | (np.isnan(a) & np.isnan(b))).all(axis=1)
         else:
-            table.update(self.phs_columns)
-        self.state.record_wbgt(now, table["wbgt"].values)
+            same = ((m == before) | (np.isnan(m) & np.isnan(before))).all(axis=1)
+        self._last_inputs = m[-n:]
+        if not same.any():
+            todo = np.arange(rows)
+            table = self._computed(s, todo)
+            self.computed_rows += rows
+        else:
+            grid = np.where(same, -1, np.arange(rows)).reshape(k, n)
+            src = np.maximum.accumulate(grid, axis=0).ravel()  # -1: the previous evaluation
+            todo = np.flatnonzero(~same)
+            self.computed_rows += int(todo.size)
+            parts: list[IndexTable] = []
+            offset = 0
+            if before is not None and self._last_table is not None and (src < 0).any():
+                parts.append(self._last_table)
+                offset = n
+            if todo.size:
+                parts.append(self._computed(rows_of(s, todo), todo))
+            pos = np.where(src >= 0, offset + np.searchsorted(todo, np.maximum(src, 0)),
+                           np.tile(np.arange(n), k))
+            if len(parts) == 1:
+                table = select(parts[0], pos)
+            else:
+                table = {name: concat_columns([p[name] for p in parts]).take(pos)
+                         for name in parts[-1]}
+        self._last_table = select(table, np.arange(rows - n, rows))
         return table
 
-    def _isolated(self, inputs: SpaceInputs, with_phs: bool) -> IndexTable:
-        """:func:`compute_indices` for every space; a space whose inputs make it raise is
-        found by splitting, retried without PHS, and left without those indices."""
+    def _computed(self, s: SpaceInputs, rows: npt.NDArray[np.intp]) -> IndexTable:
+        """Indices without PHS of the inputs ``s`` (rows ``rows`` of the batch, in order),
+        isolated per row; records which spaces failed at their latest computed row."""
+        n = self.n
+        table, failed = self._isolated(s, rows % n, with_phs=False)
+        self.failure_count += len(failed)
+        latest = np.full(n, -1)
+        np.maximum.at(latest, rows % n, np.arange(rows.size))
+        for i in np.flatnonzero(latest >= 0).tolist():
+            f = failed.get(int(latest[i]))
+            if f is None:
+                self._all_failures.pop(i, None)
+            else:
+                self._all_failures[i] = f
+        self._note()
+        return table
+
+    def _note(self) -> None:
+        """The failures of the latest computation of each space (PHS ones until PHS is
+        computed again)."""
+        merged = dict(self._phs_failures)
+        merged.update(self._all_failures)
+        self.failures = merged
+
+    def indices(self, snap: Snapshot) -> IndexTable:
+        """Every index of every row (space x tick) of ``snap``. ISO 7933 PHS is refreshed
+        every ``PHS_EVERY_S`` and carried between refreshes; the time-weighted WBGT of each
+        tick comes from the spot WBGT recorded at the ticks before it (60-minute windows).
+        A computation that raises for one space's inputs fails for that space alone."""
+        s = snap.inputs
+        n = self.n
+        k = snap.k
+        times = snap.times.tolist()
+        table = self._changed_only(s)
+        due: list[int] = []
+        if bool(s.hot_work[:n].any()):
+            for j, t in enumerate(times):
+                if t - self.last_phs >= PHS_EVERY_S:
+                    due.append(j)
+                    self.last_phs = t
+        if due:
+            rows = np.concatenate([np.arange(j * n, (j + 1) * n) for j in due])
+            fresh, failed = self._isolated(rows_of(s, rows), rows % n, with_phs=True)
+            self.failure_count += sum(1 for g, _ in failed.values() if g == PHS_GROUP)
+            last = (len(due) - 1) * n
+            self._phs_failures = {r - last: f for r, f in failed.items()
+                                  if r >= last and f[0] == PHS_GROUP}
+            self._note()
+            refreshed = {name: col for name, col in fresh.items() if name.startswith("phs_")}
+        else:
+            refreshed = {}
+        if refreshed or self.phs_columns:
+            # row (tick j, space i) takes the latest refresh at or before tick j
+            last_due = np.full(k, -1)
+            for d, j in enumerate(due):
+                last_due[j] = d
+            last_due = np.maximum.accumulate(last_due)
+            space = np.tile(np.arange(n), k)
+            tick_due = np.repeat(last_due, n)
+            pos = np.where(tick_due >= 0, n + tick_due * n + space, space)
+            names = refreshed.keys() if refreshed else self.phs_columns.keys()
+            for name in names:
+                before = self.phs_columns.get(name, table[name].take(np.arange(n)))
+                parts = [before] + ([refreshed[name]] if refreshed else [])
+                table[name] = concat_columns(parts).take(pos)
+            self.phs_columns = {name: table[name].take(np.arange((k - 1) * n, k * n))
+                                for name in names}
+        wbgt = table["wbgt"].values
+        twa = np.empty(k * n)
+        for j, t in enumerate(times):
+            twa[j * n:(j + 1) * n] = self.state.wbgt_time_weighted(t)
+            self.state.record_wbgt(t, wbgt[j * n:(j + 1) * n])
+        with_time_weighted_wbgt(table, twa, s.clothing_adjustment_k)
+        if k == 1:
+            table["relative_humidity"] = with_method(table["relative_humidity"],
+                                                     relative_humidity_method(
+                                                         np.isfinite(s.relative_humidity)))
+        return table
+
+    @staticmethod
+    def tick_rows(table: IndexTable, s: SpaceInputs, rows: slice) -> Mapping[str, IndexColumn]:
+        """One tick's rows of a batch's table (sliced when read), described as that tick
+        alone would be: the relative humidity's method names how that tick's spaces got it."""
+        return TickRows(table, rows, relative_humidity_method(
+            np.isfinite(s.relative_humidity[rows])))
+
+    def _isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp], with_phs: bool
+                  ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
+        """:func:`compute_indices` for every row of ``inputs`` (row r is of space
+        ``space[r]``); a row whose inputs make it raise is found by splitting, retried
+        without PHS, and left without those indices. Returns the table and, per failed row,
+        the index group that failed and the error."""
         failed: dict[int, tuple[str, str]] = {}
-        known_bad = [i for i in self.failures if self.failures[i][0] == ALL_GROUP
-                     or (with_phs and self.failures[i][0] == PHS_GROUP)]
-        try:
-            if not known_bad:
-                table = compute_indices(inputs, with_phs=with_phs)
-                self._note(failed, with_phs)
-                return table
-        except Exception:  # noqa: BLE001 - found and isolated below
-            pass
+        known_bad = [i for i, (group, _) in self.failures.items() if group == ALL_GROUP
+                     or (with_phs and group == PHS_GROUP)]
+        bad_rows = np.isin(space, known_bad)
+        if not bad_rows.any():
+            try:
+                return compute_indices(inputs, with_phs=with_phs), failed
+            except Exception:  # noqa: BLE001 - found and isolated below
+                pass
         parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
-        bad = set(known_bad)
-        good = np.array([i for i in range(self.n) if i not in bad], dtype=np.intp)
-        self._split(inputs, good, with_phs, parts, failed)
-        for i in sorted(bad):
-            self._split(inputs, np.array([i], dtype=np.intp), with_phs, parts, failed)
-        self._note(failed, with_phs)
-        table = merge_tables(self.n, parts)
-        phs_failed = [i for i, (group, _) in failed.items() if group == PHS_GROUP]
+        self._split(inputs, np.flatnonzero(~bad_rows), with_phs, parts, failed)
+        for r in np.flatnonzero(bad_rows).tolist():
+            self._split(inputs, np.array([r], dtype=np.intp), with_phs, parts, failed)
+        table = merge_tables(inputs.n, parts, self._last_table)
+        phs_failed = [r for r, (group, _) in failed.items() if group == PHS_GROUP]
         if phs_failed:
             for name, col in table.items():
                 if name.startswith("phs_"):
                     col.codes[phs_failed] = col.reasons.index(COMPUTATION_FAILED)
                     col.values[phs_failed] = np.nan
-        return table
+        return table, failed
 
     def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp], with_phs: bool,
                parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
@@ -164,7 +350,7 @@ class Evaluation:
         try:
             parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=with_phs)))
             return
-        except Exception as exc:  # noqa: BLE001 - isolated to the spaces that fail
+        except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
             error = f"{type(exc).__name__}: {exc}"[:300]
         if idx.size > 1:
             half = idx.size // 2
@@ -181,30 +367,30 @@ class Evaluation:
                 error = f"{type(exc).__name__}: {exc}"[:300]
         failed[i] = (ALL_GROUP, error)
 
-    def _note(self, failed: dict[int, tuple[str, str]], with_phs: bool) -> None:
-        """Keep the failures of this computation (PHS ones until PHS is computed again)."""
-        if with_phs:
-            self._phs_failures = {i: f for i, f in failed.items() if f[0] == PHS_GROUP}
-        self.failure_count += len(failed)
-        merged = dict(self._phs_failures)
-        merged.update({i: f for i, f in failed.items() if f[0] == ALL_GROUP})
-        self.failures = merged
+    @staticmethod
+    def failure_columns(table: Mapping[str, IndexColumn]) -> dict[str, FloatArray]:
+        """Per row: ``failed_phs`` 1 where ISO 7933 PHS failed, ``failed_indices`` 1 where
+        every index failed (read from the reasons of the table's columns)."""
+        def failed(col: IndexColumn) -> BoolArray:
+            if COMPUTATION_FAILED not in col.reasons:
+                return np.zeros(col.codes.size, dtype=bool)
+            result: BoolArray = col.codes == col.reasons.index(COMPUTATION_FAILED)
+            return result
 
-    def failure_columns(self) -> dict[str, FloatArray]:
-        """Per space: ``failed_phs`` 1 where ISO 7933 PHS failed, ``failed_indices`` 1
-        where every index failed, at the last computation."""
-        cols = {"failed_phs": np.zeros(self.n), "failed_indices": np.zeros(self.n)}
-        for i, (group, _) in self.failures.items():
-            cols["failed_phs" if group == PHS_GROUP else "failed_indices"][i] = 1.0
-        return cols
+        every = failed(table["relative_humidity"])
+        phs = np.zeros(every.size, dtype=bool)
+        for name in table:
+            if name.startswith("phs_"):
+                phs |= failed(table[name])
+        return {"failed_phs": (phs & ~every).astype(np.float64),
+                "failed_indices": every.astype(np.float64)}
 
-    def environment(self, snap: Snapshot, table: IndexTable, now: float, start: float,
-                    rules_unknown_long: FloatArray) -> dict[str, Any]:
+    def environment(self, snap: Snapshot, table: IndexTable, start: float) -> dict[str, Any]:
         """Name -> array over spaces: every index, the measured inputs, states, occupancy,
         the space's kind and the point-health columns; ``_present`` maps each quantity to
         whether the space has a fresh reading of it."""
         s = snap.inputs
-        n = self.n
+        n = s.n
         env: dict[str, Any] = {name: col.values for name, col in table.items()}
         env.update({
             "air_temperature": s.air_temperature, "relative_humidity": table[
@@ -215,9 +401,9 @@ class Evaluation:
             "psychrometric_wet_bulb": s.psychrometric_wet_bulb,
             "floor_temperature": s.floor_temperature,
             "surface_temperature": s.surface_temperature_min,
-            "outdoor_air_temperature": np.full(n, snap.outdoor["outdoor_air_temperature"]),
-            "solar_irradiance": np.full(n, snap.outdoor["solar_irradiance"]),
-            "wind_speed": np.full(n, snap.outdoor["wind_speed"]),
+            "outdoor_air_temperature": np.repeat(snap.outdoor["outdoor_air_temperature"], self.n),
+            "solar_irradiance": np.repeat(snap.outdoor["solar_irradiance"], self.n),
+            "wind_speed": np.repeat(snap.outdoor["wind_speed"], self.n),
             "met": s.met, "clo": s.clo, "target_pmv": s.target_pmv,
             "occupied": snap.occupied, "hot_work": s.hot_work, "indoor": s.indoor,
             "outdoor": ~s.indoor, "naturally_ventilated": s.naturally_ventilated,
@@ -227,12 +413,33 @@ class Evaluation:
         for side in SIDES:
             env[f"plane_radiant_temperature_{side}"] = s.plane_radiant.get(side, nan)
         env.update(snap.states)
-        env.update(self.health.columns(snap, now, start))
-        env.update(self.failure_columns())
-        env["rules_unknown_long"] = rules_unknown_long
+        env.update(self.health.columns(snap, start))
+        env.update(self.failure_columns(table))
+        env["rules_unknown_long"] = np.full(n, np.nan)  # set once the other rules are known
         env["_present"] = snap.present
         env["_assumed"] = snap.assumed
         return env
+
+
+class TickRows(Mapping[str, IndexColumn]):
+    """See :meth:`Evaluation.tick_rows`."""
+
+    def __init__(self, table: IndexTable, rows: slice, rh_method: str) -> None:
+        self._table = table
+        self._rows = rows
+        self._rh_method = rh_method
+
+    def __getitem__(self, name: str) -> IndexColumn:
+        c = self._table[name]
+        return IndexColumn(c.values[self._rows], c.codes[self._rows], c.reasons, c.unit,
+                           self._rh_method if name == "relative_humidity" else c.method,
+                           c.labels)
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._table)
+
+    def __len__(self) -> int:
+        return len(self._table)
 
 
 def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArray,

@@ -229,10 +229,12 @@ class Publication:
                 values = np.round(arr, 3).tolist() if arr is not None else \
                     [math.nan] * mask.size
                 cols[q] = (mask.tolist(), values, unit)
-            pv = snap.point_value if snap.point_value is not None else \
-                np.full(snap.point_fresh.size, np.nan)
-            per_point = [np.round(pv, 3).tolist(), snap.point_fresh.tolist(),
-                         np.round(snap.point_age_s, 3).tolist()]
+            # the last evaluation time of the snapshot (a live tick has one)
+            pv = np.atleast_2d(snap.point_values)[-1]
+            fresh = np.atleast_2d(snap.point_fresh)[-1]
+            age = np.atleast_2d(snap.point_age_s)[-1]
+            per_point = [np.round(pv, 3).tolist(), fresh.tolist(),
+                         np.round(age, 3).tolist()]
             self._snap_cache = (snap, cols, per_point)
         return self._snap_cache
 
@@ -257,7 +259,7 @@ class Publication:
         pids = list(by_space.get(i, []))
         if self.model.space(i).kind == "outdoor":
             pids += by_space.get(SITE, [])
-        n = snap.point_fresh.size
+        n = int(np.atleast_2d(snap.point_fresh).shape[-1])
         return [pid for pid in pids if pid < n]  # newer points are not in this snapshot
 
     def _point_names(self, snap: Snapshot, i: int) -> list[tuple[str, ...]]:
@@ -323,10 +325,10 @@ class Publication:
 
     # ------------------------------------------------------------------ report samples
     def sample(self, table: IndexTable, now: float, occupied: Any = None,
-               snap: Snapshot | None = None) -> dict[str, Any]:
-        """The report sample: a few indices of every space and whether it was occupied
-        (boolean array over the spaces), NaN as null; with ``snap`` also the air
-        temperature (the history the web page plots)."""
+               air_temperature: Any = None) -> dict[str, Any]:
+        """The report sample: a few indices of every space, whether it was occupied and the
+        air temperature (arrays over the spaces; the history the web page plots), NaN as
+        null."""
 
         def col(name: str) -> list[float | None]:
             c = table[name]
@@ -349,6 +351,6 @@ class Publication:
                 "heat_index": col("heat_index"), "utci": col("utci"),
                 "occupied": (None if occupied is None
                              else [bool(x) for x in occupied]),
-                "air_temperature": [num(float(v)) for v in snap.inputs.air_temperature]
-                if snap is not None else [None] * len(self.model.space_ids),
+                "air_temperature": [num(float(v)) for v in air_temperature]
+                if air_temperature is not None else [None] * len(self.model.space_ids),
                 "relative_humidity": col("relative_humidity"), "dew_point": col("dew_point")}

@@ -113,6 +113,9 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
     new.ingest.received = old.ingest.received
     new.ingest.accepted = old.ingest.accepted
     new.ingest.rejected = old.ingest.rejected.copy()
+    # the service turns these into counters that only go up
+    new.ingest.accepted_by_quantity = old.ingest.accepted_by_quantity.copy()
+    new.ingest.missed_by_quantity = old.ingest.missed_by_quantity.copy()
     kept = len(same_points)
     notes.insert(0, f"reload: kept the windows of {kept} of {new.model.n_spaces} space(s) and "
                     f"{len(point_map)} of {len(new.model.points)} point(s)")

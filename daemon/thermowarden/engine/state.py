@@ -54,10 +54,29 @@ OUTDOOR_SLOTS: Final = ("outdoor_air_temperature", "outdoor_relative_humidity", 
 
 
 @dataclass(frozen=True)
-class Snapshot:
-    """What the site looks like at ``now``: the index inputs and everything rules need."""
+class Capture:
+    """The raw state of every point at one evaluation time: what a tick needs from the
+    readings, copied so that many ticks can be evaluated together later (replay)."""
 
     now: float
+    values: FloatArray
+    """Latest value per point (NaN if never seen)."""
+    times: FloatArray
+    """Receive time of that value per point (epoch s)."""
+    ring_t: FloatArray
+    """(points of the ``air_speed`` slot, ring length): receive times of recent readings."""
+    ring_v: FloatArray
+    """The same readings' values (m/s); both shared between captures while unchanged."""
+
+
+@dataclass(frozen=True)
+class Snapshot:
+    """What the site looks like at ``times`` (K evaluation times): the index inputs and
+    everything rules need, as arrays of K x N rows (row ``k * N + i`` is space ``i`` at
+    ``times[k]``). A live tick is K = 1."""
+
+    now: float
+    """The last evaluation time."""
     inputs: SpaceInputs
     present: dict[str, BoolArray]
     """quantity -> space has a fresh reading of it."""
@@ -67,12 +86,25 @@ class Snapshot:
     disagreement: dict[str, FloatArray]
     """quantity -> largest difference between fresh redundant sensors (NaN if < 2)."""
     point_fresh: BoolArray
+    """(K, points)."""
     point_age_s: FloatArray
-    outdoor: dict[str, float]
+    """(K, points)."""
+    outdoor: dict[str, FloatArray]
+    """Site outdoor quantity -> value per evaluation time (K,)."""
+    times: FloatArray
+    """(K,) evaluation times, ascending."""
+    point_values: FloatArray
+    """(K, points) latest value per point at each time."""
+    point_times: FloatArray
+    """(K, points) receive time of that value."""
+    days_rolled: dict[int, list[float]]
+    """Evaluation index -> completed daily means (newest first) where a local day ended."""
     assumed: dict[str, BoolArray] = field(default_factory=dict)
     """quantity -> the space's declared assumption stands in for it at this evaluation."""
-    point_value: FloatArray | None = None
-    """Latest value of every point in its quantity's canonical unit (NaN if none yet)."""
+
+    @property
+    def k(self) -> int:
+        return int(self.times.size)
 
 
 @dataclass
@@ -106,6 +138,9 @@ class SiteState:
         self.ring_v = np.full((self._ring_cap, self.ring_len), np.nan)
         self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
         self._ring_rows = 0
+        self._ring_writes = 0
+        self._ring_copy: tuple[int, int, FloatArray, FloatArray] = (-1, -1, np.empty((0, 0)),
+                                                                    np.empty((0, 0)))
         self.n_points = 0
         for pid in range(len(model.points)):
             self._on_new_point(pid)
@@ -195,6 +230,7 @@ class SiteState:
             self.ring_t[row, h] = t
             self.ring_v[row, h] = value
             self.ring_head[row] = (h + 1) % self.ring_len
+            self._ring_writes += 1
 
     # ------------------------------------------------------------------ context
     def _build_context(self) -> dict[str, object]:
@@ -301,59 +337,84 @@ class SiteState:
         self._slots_version = len(model.points)
 
     # ------------------------------------------------------------------ snapshot
-    def _fresh(self, now: float) -> tuple[BoolArray, FloatArray]:
-        n = self.n_points
-        age = now - self.last_time[:n]
-        limit = self.ingest_cfg.stale_after_intervals * self.interval[:n]
-        fresh: BoolArray = np.isfinite(age) & (age <= limit)
-        return fresh, age
-
     def _combine(self, slot: _Slot, values: FloatArray, fresh: BoolArray, n: int
                  ) -> tuple[FloatArray, FloatArray]:
-        """Weighted mean per space of fresh values, and the spread (max - min)."""
-        v = values[slot.pids]
-        ok = fresh[slot.pids] & np.isfinite(v)
-        w = np.where(ok, slot.weights, 0.0)
-        num = np.bincount(slot.spaces, weights=np.where(ok, v, 0.0) * w, minlength=n)
-        den = np.bincount(slot.spaces, weights=w, minlength=n)
+        """Weighted mean per row (time x space) of fresh values, and the spread (max - min).
+
+        ``values`` and ``fresh`` are (K, points); the results are (K * n,)."""
+        k = values.shape[0]
+        v = values[:, slot.pids]
+        ok = fresh[:, slot.pids] & np.isfinite(v)
+        rows = (np.arange(k)[:, None] * n + slot.spaces[None, :]).ravel()
+        w = np.where(ok, slot.weights[None, :], 0.0).ravel()
+        okr = ok.ravel()
+        vr = v.ravel()
+        num = np.bincount(rows, weights=np.where(okr, vr, 0.0) * w, minlength=k * n)
+        den = np.bincount(rows, weights=w, minlength=k * n)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(den > 0, num / den, np.nan)
-        hi = np.full(n, -np.inf)
-        lo = np.full(n, np.inf)
-        np.maximum.at(hi, slot.spaces[ok], v[ok])
-        np.minimum.at(lo, slot.spaces[ok], v[ok])
-        count = np.bincount(slot.spaces[ok], minlength=n)
+        hi = np.full(k * n, -np.inf)
+        lo = np.full(k * n, np.inf)
+        np.maximum.at(hi, rows[okr], vr[okr])
+        np.minimum.at(lo, rows[okr], vr[okr])
+        count = np.bincount(rows[okr], minlength=k * n)
         spread = np.where(count >= 2, hi - lo, np.nan)
         return mean, spread
 
-    def _air_speed_window(self, now: float, pids: IntArray) -> tuple[FloatArray, FloatArray]:
-        """Mean air speed over the window and turbulence intensity (%) per point.
+    def _extreme(self, slot: _Slot, values: FloatArray, fresh: BoolArray, n: int,
+                 highest: bool) -> FloatArray:
+        """Highest (or lowest) fresh value per row (time x space), NaN if none."""
+        k = values.shape[0]
+        v = values[:, slot.pids]
+        ok = (fresh[:, slot.pids] & np.isfinite(v)).ravel()
+        rows = (np.arange(k)[:, None] * n + slot.spaces[None, :]).ravel()[ok]
+        out = np.full(k * n, -np.inf if highest else np.inf)
+        (np.maximum if highest else np.minimum).at(out, rows, v.ravel()[ok])
+        result: FloatArray = np.where(np.isfinite(out), out, np.nan)
+        return result
+
+    def _air_speed_window(self, times: FloatArray, t: FloatArray, v: FloatArray
+                          ) -> tuple[FloatArray, FloatArray]:
+        """Mean air speed over the window and turbulence intensity (%) per (time, point),
+        from ring buffers ``t``, ``v`` of shape (K, points, ring length).
 
         ISO 7726:1998: the mean over the measuring period (3 min suggested) and the
         turbulence intensity = 100 x standard deviation / mean.
         """
-        rows = self.ring_row[pids]
-        t = self.ring_t[rows]
-        v = self.ring_v[rows]
+        now = times[:, None, None]
         inside = np.isfinite(t) & (t >= now - self.ingest_cfg.air_speed_window_s) & (t <= now)
-        cnt = inside.sum(axis=1)
-        s = np.where(inside, v, 0.0).sum(axis=1)
+        cnt = inside.sum(axis=2)
+        s = np.where(inside, v, 0.0).sum(axis=2)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(cnt > 0, s / cnt, np.nan)
-            var = np.where(inside, (v - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(
+            var = np.where(inside, (v - mean[:, :, None]) ** 2, 0.0).sum(axis=2) / np.maximum(
                 cnt - 1, 1)
             tu = np.where((cnt >= 3) & (mean > 0.05), 100.0 * np.sqrt(var) / mean, np.nan)
         return mean, tu
 
     def occupied(self, now: float, states: FloatArray) -> BoolArray:
         """Occupied per space: a fresh occupancy point wins, else the weekly schedule."""
-        local = dt.datetime.fromtimestamp(now, self.tz)
-        day = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")[local.weekday()]
-        hhmm = local.strftime("%H:%M")
-        out = np.zeros(self.model.n_spaces, dtype=bool)
-        for occ, members in self._occupancy_groups:
-            out[members] = _scheduled(occ, local.date(), day, hhmm)
-        return np.where(np.isfinite(states), states >= 0.5, out)
+        return self.occupied_many(np.array([now]), states)
+
+    def occupied_many(self, times: FloatArray, states: FloatArray) -> BoolArray:
+        """:meth:`occupied` at each of ``times``; ``states`` holds K x N rows."""
+        n = self.model.n_spaces
+        out = np.zeros(times.size * n, dtype=bool)
+        last_minute: int | None = None
+        row = np.zeros(n, dtype=bool)
+        for j, now in enumerate(times.tolist()):
+            minute = int(now // 60)
+            if minute != last_minute:  # schedules have minute resolution
+                last_minute = minute
+                local = dt.datetime.fromtimestamp(now, self.tz)
+                day = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")[local.weekday()]
+                hhmm = local.strftime("%H:%M")
+                row = np.zeros(n, dtype=bool)
+                for occ, members in self._occupancy_groups:
+                    row[members] = _scheduled(occ, local.date(), day, hhmm)
+            out[j * n:(j + 1) * n] = row
+        result: BoolArray = np.where(np.isfinite(states), states >= 0.5, out)
+        return result
 
     def _roll_outdoor(self, now: float, outdoor_t: float) -> None:
         """Accumulate the local-day mean outdoor temperature; push it at local midnight."""
@@ -376,24 +437,60 @@ class SiteState:
                 not math.isfinite(self.outdoor_6am) or local.minute < 5):
             self.outdoor_6am = outdoor_t
 
+    def capture(self, now: float) -> Capture:
+        """Copy what an evaluation at ``now`` needs from the points (cheap; see
+        :meth:`snapshot_many`)."""
+        if self._slots_version != len(self.model.points):
+            self._build_slots()
+        p = self.n_points
+        slot = self._slots.get("air_speed")
+        version = (self._ring_writes, self._slots_version)
+        if self._ring_copy[:2] != version:
+            if slot is not None:
+                rows = self.ring_row[slot.pids]
+                self._ring_copy = (*version, self.ring_t[rows], self.ring_v[rows])
+            else:
+                self._ring_copy = (*version, np.empty((0, 0)), np.empty((0, 0)))
+        return Capture(now, self.last_value[:p].copy(), self.last_time[:p].copy(),
+                       self._ring_copy[2], self._ring_copy[3])
+
     def snapshot(self, now: float) -> Snapshot:
         """All spaces at ``now``: index inputs (stale -> NaN), states, freshness."""
+        return self.snapshot_many([self.capture(now)])
+
+    def snapshot_many(self, caps: list[Capture]) -> Snapshot:
+        """All spaces at each captured time, as K x N rows, computed as one set of array
+        operations. Captures must be in time order and are taken in order (the outdoor
+        daily means roll forward through them)."""
         if self._slots_version != len(self.model.points):
             self._build_slots()
         n = self.model.n_spaces
-        fresh, age = self._fresh(now)
-        values = self.last_value[:self.n_points]
+        k = len(caps)
+        npts = self.n_points
+        times = np.array([c.now for c in caps], dtype=np.float64)
+        values = np.full((k, npts), np.nan)
+        last = np.full((k, npts), np.nan)
+        for j, c in enumerate(caps):
+            values[j, :c.values.size] = c.values
+            last[j, :c.times.size] = c.times
+        age = times[:, None] - last
+        limit = self.ingest_cfg.stale_after_intervals * self.interval[:npts]
+        fresh: BoolArray = np.isfinite(age) & (age <= limit[None, :])
+        rows = k * n
         got: dict[str, FloatArray] = {}
         spread: dict[str, FloatArray] = {}
-        outdoor: dict[str, float] = {}
+        outdoor: dict[str, FloatArray] = {}
         for name in OUTDOOR_SLOTS:
             slot = self._slots.get(name)
             if slot is None:
-                outdoor[name] = math.nan
+                outdoor[name] = np.full(k, np.nan)
                 continue
-            v = values[slot.pids]
-            ok = fresh[slot.pids] & np.isfinite(v)
-            outdoor[name] = float(v[ok].mean()) if ok.any() else math.nan
+            v = values[:, slot.pids]
+            ok = fresh[:, slot.pids] & np.isfinite(v)
+            cnt = ok.sum(axis=1)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                outdoor[name] = np.where(cnt > 0, np.where(ok, v, 0.0).sum(axis=1) / cnt,
+                                         np.nan)
         for name, slot in self._slots.items():
             if name in OUTDOOR_SLOTS or name == "air_speed" or name.startswith("plane:"):
                 continue
@@ -401,14 +498,10 @@ class SiteState:
                 # sensors at one height may be compared; different heights differ by design
                 _, hspread = self._combine(slot, values, fresh, n)
                 q = name.split(":", 2)[2]
-                spread[q] = np.fmax(spread.get(q, np.full(n, np.nan)), hspread)
+                spread[q] = np.fmax(spread.get(q, np.full(rows, np.nan)), hspread)
                 continue
             if name == "surface_temperature":
-                v = values[slot.pids]
-                ok = fresh[slot.pids] & np.isfinite(v)
-                low = np.full(n, np.inf)
-                np.minimum.at(low, slot.spaces[ok], v[ok])
-                got[name] = np.where(np.isfinite(low), low, np.nan)
+                got[name] = self._extreme(slot, values, fresh, n, highest=False)
                 continue
             got[name], _ = self._combine(slot, values, fresh, n)
         planes: dict[str, FloatArray] = {}
@@ -416,97 +509,116 @@ class SiteState:
             slot = self._slots.get(f"plane:{side}")
             if slot is None:
                 continue
-            vals = values.copy()
+            vals = values
             flux = slot.flux if slot.flux is not None else np.zeros(slot.pids.size, dtype=bool)
             if flux.any():
-                vals[slot.pids[flux]] = radiation.plane_radiant_temperature_from_flux(
-                    values[slot.pids[flux]])
+                vals = values.copy()
+                vals[:, slot.pids[flux]] = radiation.plane_radiant_temperature_from_flux(
+                    values[:, slot.pids[flux]])
             planes[side], spread[f"plane_radiant_temperature_{side}"] = self._combine(
                 slot, vals, fresh, n)
-        speed = np.full(n, np.nan)
-        turbulence = np.full(n, np.nan)
+        nan_rows = np.full(rows, np.nan)
+        speed = nan_rows
+        turbulence = nan_rows
         slot = self._slots.get("air_speed")
         if slot is not None:
-            mean_v, tu = self._air_speed_window(now, slot.pids)
-            point_vals = np.full(self.n_points, np.nan)
-            point_tu = np.full(self.n_points, np.nan)
-            point_vals[slot.pids] = mean_v
-            point_tu[slot.pids] = tu
+            point_vals = np.full((k, npts), np.nan)
+            point_tu = np.full((k, npts), np.nan)
+            usable = np.array([j for j, c in enumerate(caps)
+                               if c.ring_t.shape[0] == slot.pids.size], dtype=np.int64)
+            if usable.size:
+                mean_v, tu = self._air_speed_window(
+                    times[usable], np.stack([caps[j].ring_t for j in usable.tolist()]),
+                    np.stack([caps[j].ring_v for j in usable.tolist()]))
+                point_vals[np.ix_(usable, slot.pids)] = mean_v
+                point_tu[np.ix_(usable, slot.pids)] = tu
             speed, spread["air_speed"] = self._combine(slot, point_vals, fresh, n)
             turbulence, _ = self._combine(slot, point_tu, fresh, n)
-        measured_tu = got.get("turbulence_intensity", np.full(n, np.nan))
+        measured_tu = got.get("turbulence_intensity", nan_rows)
         turbulence = np.where(np.isfinite(measured_tu), measured_tu, turbulence)
 
         ctx = self._context
         indoor = ctx["indoor"]
         assert isinstance(indoor, np.ndarray)
-        outdoor_space = ~indoor
-        air = got.get("air_temperature", np.full(n, np.nan))
-        rh = got.get("relative_humidity", np.full(n, np.nan))
+        outdoor_space = np.tile(~indoor, k)
+        air = got.get("air_temperature", nan_rows)
+        rh = got.get("relative_humidity", nan_rows)
         # outdoor spaces without their own sensors use the site's outdoor points
-        air = np.where(outdoor_space & np.isnan(air), outdoor["outdoor_air_temperature"], air)
-        rh = np.where(outdoor_space & np.isnan(rh), outdoor["outdoor_relative_humidity"], rh)
+        air = np.where(outdoor_space & np.isnan(air),
+                       np.repeat(outdoor["outdoor_air_temperature"], n), air)
+        rh = np.where(outdoor_space & np.isnan(rh),
+                      np.repeat(outdoor["outdoor_relative_humidity"], n), rh)
         from_wind = outdoor_space & np.isnan(speed)
         speed_height = ctx["air_speed_height_m"]
         assert isinstance(speed_height, np.ndarray)
-        speed = np.where(from_wind, outdoor["wind_speed"], speed)
+        speed = np.where(from_wind, np.repeat(outdoor["wind_speed"], n), speed)
 
-        self._roll_outdoor(now, outdoor["outdoor_air_temperature"])
-        rm = running_mean_outdoor([self.daily_means]) if len(self.daily_means) >= 7 else \
-            np.array([np.nan])
-        clo_outdoor = self.outdoor_6am if math.isfinite(self.outdoor_6am) else \
-            outdoor["outdoor_air_temperature"]
+        rm = np.full(k, np.nan)
+        clo_outdoor = np.full(k, np.nan)
+        days_rolled: dict[int, list[float]] = {}
+        out_t = outdoor["outdoor_air_temperature"].tolist()
+        for j, now in enumerate(times.tolist()):
+            known = len(self.daily_means)
+            self._roll_outdoor(now, out_t[j])
+            if len(self.daily_means) != known and self.daily_means:
+                days_rolled[j] = list(self.daily_means)
+            if j == 0 or j in days_rolled:
+                mean = (float(running_mean_outdoor([self.daily_means])[0])
+                        if len(self.daily_means) >= 7 else math.nan)
+            rm[j] = mean
+            clo_outdoor[j] = self.outdoor_6am if math.isfinite(self.outdoor_6am) else out_t[j]
         states = {}
         for q in STATE_QUANTITIES:
             slot = self._slots.get(q)
-            if slot is None:
-                states[q] = np.full(n, np.nan)
-                continue
-            v = values[slot.pids]
-            ok = fresh[slot.pids] & np.isfinite(v)
-            hi = np.full(n, -np.inf)
-            np.maximum.at(hi, slot.spaces[ok], v[ok])
-            states[q] = np.where(np.isfinite(hi), hi, np.nan)
+            states[q] = (nan_rows if slot is None
+                         else self._extreme(slot, values, fresh, n, highest=True))
+        twa = np.repeat(np.full(k, np.nan), n)
+        twa[(k - 1) * n:] = self.wbgt_time_weighted(float(times[-1]))
+        context = {name: (np.tile(v, k) if isinstance(v, np.ndarray) else
+                          v * k if isinstance(v, tuple) else v) for name, v in ctx.items()}
+        context["air_speed_height_m"] = np.where(from_wind, self.wind_height_m,
+                                                 np.tile(speed_height, k))
         # declared assumptions stand in where nothing is measured (ISO 7726 would measure)
+        assumed_speed = np.tile(self.assumed_air_speed, k)
+        assumed_offset = np.tile(self.assumed_mrt_offset, k)
         measured_speed = np.isfinite(speed)
-        speed_assumed = ~measured_speed & np.isfinite(self.assumed_air_speed)
-        speed = np.where(speed_assumed, self.assumed_air_speed, speed)
-        mrt = got.get("mean_radiant_temperature", np.full(n, np.nan))
-        radiant_known = np.isfinite(mrt) | np.isfinite(
-            got.get("globe_temperature", np.full(n, np.nan)))
+        speed_assumed = ~measured_speed & np.isfinite(assumed_speed)
+        speed = np.where(speed_assumed, assumed_speed, speed)
+        mrt = got.get("mean_radiant_temperature", nan_rows)
+        radiant_known = np.isfinite(mrt) | np.isfinite(got.get("globe_temperature", nan_rows))
         for v in planes.values():
             radiant_known |= np.isfinite(v)
-        mrt_assumed = ~radiant_known & np.isfinite(self.assumed_mrt_offset) & np.isfinite(air)
-        mrt = np.where(mrt_assumed, air + self.assumed_mrt_offset, mrt)
+        mrt_assumed = ~radiant_known & np.isfinite(assumed_offset) & np.isfinite(air)
+        mrt = np.where(mrt_assumed, air + assumed_offset, mrt)
         inputs = SpaceInputs.create(
-            n,
+            rows,
             air_temperature=air, relative_humidity=rh, air_speed=speed,
             turbulence_intensity=turbulence,
-            globe_temperature=got.get("globe_temperature", np.full(n, np.nan)),
+            globe_temperature=got.get("globe_temperature", nan_rows),
             mean_radiant_temperature=mrt,
-            natural_wet_bulb=got.get("natural_wet_bulb", np.full(n, np.nan)),
-            psychrometric_wet_bulb=got.get("psychrometric_wet_bulb", np.full(n, np.nan)),
-            floor_temperature=got.get("floor_temperature", np.full(n, np.nan)),
-            air_temperature_head=got.get("air_temperature_head", np.full(n, np.nan)),
-            air_temperature_ankle=got.get("air_temperature_ankle", np.full(n, np.nan)),
-            surface_temperature_min=got.get("surface_temperature", np.full(n, np.nan)),
-            outdoor_air_temperature=np.full(n, clo_outdoor),
-            wbgt_time_weighted=self.wbgt_time_weighted(now),
-            running_mean_outdoor=np.full(n, rm[0]),
+            natural_wet_bulb=got.get("natural_wet_bulb", nan_rows),
+            psychrometric_wet_bulb=got.get("psychrometric_wet_bulb", nan_rows),
+            floor_temperature=got.get("floor_temperature", nan_rows),
+            air_temperature_head=got.get("air_temperature_head", nan_rows),
+            air_temperature_ankle=got.get("air_temperature_ankle", nan_rows),
+            surface_temperature_min=got.get("surface_temperature", nan_rows),
+            outdoor_air_temperature=np.repeat(clo_outdoor, n),
+            wbgt_time_weighted=twa,
+            running_mean_outdoor=np.repeat(rm, n),
             plane_radiant=planes,
-            **{**ctx, "air_speed_height_m": np.where(from_wind, self.wind_height_m,
-                                                     speed_height)},
+            **context,
         )
-        present = {k: np.isfinite(v) for k, v in (
+        present = {q: np.isfinite(v) for q, v in (
             ("air_temperature", air), ("relative_humidity", rh))}
         present["air_speed"] = measured_speed
-        for k, v in got.items():
-            present.setdefault(k, np.isfinite(v))
+        for q, v in got.items():
+            present.setdefault(q, np.isfinite(v))
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
         assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
-        return Snapshot(now, inputs, present, states, self.occupied(now, states["occupancy"]),
-                        spread, fresh, age, outdoor, assumed, values.copy())
+        occupied = self.occupied_many(times, states["occupancy"])
+        return Snapshot(float(times[-1]), inputs, present, states, occupied, spread, fresh, age,
+                        outdoor, times, values, last, days_rolled, assumed)
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:

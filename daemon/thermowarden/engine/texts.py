@@ -10,8 +10,8 @@ from typing import Any
 import numpy as np
 
 from thermowarden.config import SiteConfig
+from thermowarden.core.columns import IndexColumn
 from thermowarden.core.expressions import Expression
-from thermowarden.core.indices import IndexTable
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.engine.publication import num
 from thermowarden.rules import CompiledRule
@@ -19,7 +19,7 @@ from thermowarden.site_model import SiteModel
 
 
 def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, Any],
-              table: IndexTable | None, i: int, n: int
+              table: Mapping[str, IndexColumn] | None, i: int, n: int
               ) -> tuple[dict[str, Any], dict[str, Any], dict[str, object]]:
     """The advisory's ``numbers`` (value, unit, method, threshold, reason when absent), its
     ``benefit`` and the template fields of space ``i``, from the environment ``env``
@@ -80,7 +80,7 @@ class Texts:
         self.site_name = config.site.name or config.site.id
 
     def render(self, rule: CompiledRule, adv: Any, env: Mapping[str, Any],
-               params: Mapping[str, Any], table: IndexTable | None, level: int,
+               params: Mapping[str, Any], table: Mapping[str, IndexColumn] | None, level: int,
                extra: Mapping[str, object] | None = None) -> None:
         """Fill ``adv``'s numbers, benefit, title, advice and rationale with the values of
         the moment (``env`` and ``table`` are the current evaluation) at priority index

@@ -1,0 +1,129 @@
+"""Replay figures (see run.py): the shipped day, a large synthetic site, and replay against
+in-process ingest on the same feed.
+
+- replay_day_s: CPU seconds to read and replay the recorded day of the example site
+  (simulated_feeds/recorded/larkfield-day.jsonl.gz: 4 spaces, 10 s ticks), rule packs and
+  feed parsing included.
+- replay_space_days_per_s: a synthetic site of 200 spaces reporting six points once a minute
+  (all six at the same second, as one device would), 10 s ticks, every built-in rule pack:
+  space-days of feed replayed per CPU second (3 days in a full run, 6 hours in a quick one;
+  generating the invented feed is counted too).
+- replay_vs_ingest_ratio: that replay's messages per CPU second over the messages per CPU
+  second of feeding the same generated messages to the engine without any evaluation
+  (same run; the first 6 hours of the feed).
+"""
+
+from __future__ import annotations
+
+import gzip
+import itertools
+import math
+import pathlib
+import sys
+import time
+from collections.abc import Iterator
+
+REPO = pathlib.Path(__file__).resolve().parent.parent
+
+SPACES = 200
+POINTS = ("ta", "rh", "tg", "v", "fan", "shade")
+
+
+def synthetic_site(n: int = SPACES):  # noqa: ANN201
+    from thermowarden.config import SiteConfig
+    from thermowarden.rules import builtin_pack_names
+
+    templates = [
+        {"topic": "syn/{space}/ta", "quantity": "air_temperature", "interval_s": 60},
+        {"topic": "syn/{space}/rh", "quantity": "relative_humidity", "interval_s": 60},
+        {"topic": "syn/{space}/tg", "quantity": "globe_temperature", "interval_s": 60},
+        {"topic": "syn/{space}/v", "quantity": "air_speed", "interval_s": 60},
+        {"topic": "syn/{space}/fan", "quantity": "fan_state", "interval_s": 60,
+         "format": {"type": "state"}},
+        {"topic": "syn/{space}/shade", "quantity": "shading_position", "interval_s": 60},
+    ]
+    spaces = [{"id": f"z{i:04d}", "hot_work": i % 10 == 0,
+               "kind": "outdoor" if i % 25 == 7 else "indoor"} for i in range(n)]
+    return SiteConfig.model_validate({
+        "site": {"id": "synthetic", "timezone": "UTC"}, "templates": templates,
+        "spaces": spaces,
+        "defaults": {"rule_packs": builtin_pack_names(),
+                     "occupancy": {"hours": {d: ["07:00-19:00"] for d in
+                                             ("mon", "tue", "wed", "thu", "fri")}},
+                     "people": {"met": 1.2, "clo": 0.6}}})
+
+
+def synthetic_feed(n: int, hours: float, t0: float = 1_780_293_600.0) -> Iterator:  # noqa: ANN401
+    """Invented readings from Monday 1 June 2026 06:00 UTC: a daily swing, a warm afternoon
+    in some spaces, fans switched on in the warm ones; all six points of a space at the
+    same second every minute."""
+    from thermowarden.replay import FeedRecord
+
+    topics = [[f"syn/z{i:04d}/{p}" for p in POINTS] for i in range(n)]
+    offset = [(i * 7) % 60 for i in range(n)]
+    warm = [0.5 + (i % 9) * 0.6 for i in range(n)]
+    for minute in range(int(hours * 60)):
+        day_frac = (minute % 1440) / 1440.0
+        swing = math.sin(2 * math.pi * (day_frac - 0.35))
+        base = t0 + minute * 60.0
+        for i in range(n):
+            ta = 23.0 + warm[i] * (1 + swing) + 0.1 * ((minute + i) % 3)
+            vals = (f"{ta:.1f}", f"{48 + 10 * swing:.0f}", f"{ta + 1.5 + swing:.1f}",
+                    f"{0.12 + 0.02 * ((minute + i) % 4):.2f}",
+                    "on" if ta > 27.5 else "off", "85" if swing > 0.8 else "10")
+            t = base + offset[i]
+            for topic, v in zip(topics[i], vals, strict=True):
+                yield FeedRecord(t, topic, v.encode())
+
+
+def bench_replay_day() -> dict[str, float]:
+    from thermowarden.config import load_site
+    from thermowarden.replay import read_feed, replay
+
+    site = REPO / "deploy" / "example-site.yaml"
+    feed = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
+    config = load_site(site, {})
+    with gzip.open(feed, "rt", encoding="utf-8") as fh:  # warm the compiled models
+        replay(config, read_feed(itertools.islice(fh, 500)), base=str(site))
+    t0 = time.process_time()
+    with gzip.open(feed, "rt", encoding="utf-8") as fh:
+        result = replay(config, read_feed(fh, str(feed)), base=str(site))
+    cpu = time.process_time() - t0
+    print(f"replay day: {result.messages} messages, {len(result.events)} events",
+          file=sys.stderr)
+    return {"replay_day_s": round(cpu, 2)}
+
+
+def bench_replay_site(quick: bool) -> dict[str, float]:
+    from thermowarden.engine import Engine
+    from thermowarden.replay import replay
+    from thermowarden.rules import builtin_pack_names, load_rule_packs
+    from thermowarden.site_model import build_site_model
+
+    hours = 6.0 if quick else 72.0
+    config = synthetic_site()
+    packs = load_rule_packs(builtin_pack_names())
+    t0 = time.process_time()
+    result = replay(config, synthetic_feed(SPACES, hours), packs=packs)
+    replay_cpu = time.process_time() - t0
+    # the same messages into an engine that never evaluates (a shorter stretch suffices)
+    engine = Engine(config, build_site_model(config), packs, conditions_every_s=0)
+    ingest_hours = min(hours, 6.0)
+    count = 0
+    t0 = time.process_time()
+    for rec in synthetic_feed(SPACES, ingest_hours):  # generated as in the replay
+        engine.message(rec.topic, rec.payload, rec.t)
+        count += 1
+    ingest_cpu = time.process_time() - t0
+    rejected = sum(engine.ingest.rejected.values()) + sum(result.rejected.values())
+    if rejected:
+        print(f"warning: {rejected} synthetic messages rejected", file=sys.stderr)
+    space_days = SPACES * hours / 24.0
+    replay_rate = result.messages / replay_cpu
+    ingest_rate = count / ingest_cpu
+    print(f"replay site: {SPACES} spaces x {hours:g} h, {result.messages} messages, "
+          f"{len(result.events)} events, {replay_cpu:.1f} CPU s; ingest alone "
+          f"{ingest_rate:,.0f} msg/s", file=sys.stderr)
+    return {"replay_space_days_per_s": round(space_days / replay_cpu, 2),
+            "replay_msgs_per_s": round(replay_rate),
+            "replay_vs_ingest_ratio": round(replay_rate / ingest_rate, 3)}
