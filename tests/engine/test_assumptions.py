@@ -65,7 +65,9 @@ def test_a_floor_of_thermostat_zones_raises_comfort_advice_as_a_flood(tmp_path):
     # nothing was raised in the comfortable first 20 minutes (on-delay 10 minutes)
     assert min(p["at"] for p in raised) >= "1970-01-01T00:30"
     cond = engine.conditions_payload(0)
-    assert cond["inputs"]["air_speed"] == {"fresh": False,
+    # no reading: the value shown is the assumption, and it says so
+    assert cond["inputs"]["air_speed"] == {"fresh": False, "value": 0.1, "unit": "m/s",
+                                           "age_s": None,
                                            "assumed": "assumed: still air, 0.1 m/s"}
     assert cond["inputs"]["mean_radiant_temperature"]["assumed"] == \
         "assumed: equal to the air temperature"
