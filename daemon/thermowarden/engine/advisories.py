@@ -29,7 +29,7 @@ from thermowarden.engine.publication import (
     iso,
     num,
 )
-from thermowarden.engine.texts import Texts
+from thermowarden.engine.texts import Texts, number_at
 from thermowarden.rules import (
     HEAT_STRESS_CAUTIONS,
     CompiledPack,
@@ -52,6 +52,8 @@ DEESCALATE_HOLD_S: Final = 300.0
 ADVISORY_REFRESH_S: Final = 300.0
 """Live advisories are republished (retained) this often."""
 ACKNOWLEDGED_URGENT_RENOTIFY_S: Final = 1800.0
+EFFECT_WAIT_S: Final = 1800.0
+"""How long acted-on advice has to work when its rule names no ``effect``."""
 """An acknowledged urgent advisory is renotified (a reminder that the hazard persists, with
 the numbers of now) at most this long after its last notification, or at its rule's
 ``renotify_s`` when shorter. Common practice, no source: heat-stress work/rest regimes are
@@ -378,7 +380,7 @@ class Advisories:
         assert rec is not None
         eff = rt.rule.config.effect
         t0 = float(rec.get("_t", adv.updated_at))
-        wait_s = eff.wait_s if eff is not None else 1800.0
+        wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S
         if eff is not None and rec.get("effect") is not None and rt.rule.effect_quantity:
             done = {c["after_min"] for c in rec["effect"]["checks"]}
             for after in eff.checks_s:
@@ -397,10 +399,7 @@ class Advisories:
                         extra={"waited_min": round((now - t0) / 60)})
 
     def _value_at(self, rt: RuleRuntime, expr: Any, i: int) -> float:
-        env = self._ctx.base
-        one = {name: (rt.params[name] if name in rt.params else env[name])[i:i + 1]
-               for name in expr.names}
-        return float(expr.evaluate_number(one, 1)[0])
+        return number_at(expr, self._ctx.base, rt.params, i)
 
     # ------------------------------------------------------------------ transitions
     def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None) -> None:
@@ -481,7 +480,7 @@ class Advisories:
                 rec["cleared_after"] = True
                 rec["cleared_after_min"] = round((now - t0) / 60, 1)
                 eff = rt.rule.config.effect
-                wait_s = eff.wait_s if eff is not None else 1800.0
+                wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S
                 rec["helped"] = bool(now - t0 <= wait_s)
                 if rec.get("effect") is not None and rt.rule.effect_quantity is not None \
                         and self._ctx.table is not None:

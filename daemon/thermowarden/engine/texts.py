@@ -18,6 +18,20 @@ from thermowarden.rules import CompiledRule
 from thermowarden.site_model import SiteModel
 
 
+def one_space(expr: Expression, env: Mapping[str, Any], params: Mapping[str, Any],
+              i: int) -> dict[str, Any]:
+    """The environment of ``expr`` for space ``i`` alone (one-element arrays), the rule's
+    per-space ``params`` over ``env``: evaluating it costs one space, not the whole site."""
+    return {name: (params[name] if name in params else env[name])[i:i + 1]
+            for name in expr.names}
+
+
+def number_at(expr: Expression, env: Mapping[str, Any], params: Mapping[str, Any],
+              i: int) -> float:
+    """Space ``i``'s value of a number expression."""
+    return float(expr.evaluate_number(one_space(expr, env, params, i), 1)[0])
+
+
 def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, Any],
               table: Mapping[str, IndexColumn] | None, i: int, n: int
               ) -> tuple[dict[str, Any], dict[str, Any], dict[str, object]]:
@@ -36,9 +50,7 @@ def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, A
             fields[name] = float(arr[i])
 
     def at(expr: Expression) -> float:
-        """One space's value of an expression (not the whole site's)."""
-        one = {name: lookup(name)[i:i + 1] for name in expr.names}
-        return float(expr.evaluate_number(one, 1)[0])
+        return number_at(expr, env, params, i)
 
     for name, th in rule.numbers:
         arr = lookup(name)
@@ -96,9 +108,7 @@ class Texts:
             fields.update(extra)
 
         def holds(expr: Expression) -> bool:
-            one = {name: (params[name] if name in params else env[name])[i:i + 1]
-                   for name in expr.names}
-            return bool(expr.evaluate_truth(one, 1).true[0])
+            return bool(expr.evaluate_truth(one_space(expr, env, params, i), 1).true[0])
 
         title_t, advice_t = rule.texts_at(level)
         notes = self._assumed(i, env)
