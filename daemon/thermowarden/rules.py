@@ -98,6 +98,13 @@ class TemplatePart:
     optional: bool = False
     when: Expression | None = None
 
+    @functools.cached_property
+    def sentences(self) -> tuple[tuple[str, tuple[str, ...]], ...]:
+        """The plain text's sentences with the names each inserts (split once, not at every
+        rendering)."""
+        return tuple((sentence, tuple(m.group(1) for m in _TEMPLATE_FIELD.finditer(sentence)))
+                     for sentence in _SENTENCE_END.split(self.text))
+
 
 def _known(v: object) -> bool:
     return v is not None and not (isinstance(v, float) and not np.isfinite(v))
@@ -143,8 +150,7 @@ class MessageTemplate:
                     out.append(_fill(part.text, values))
                 continue
             kept = []
-            for sentence in _SENTENCE_END.split(part.text):
-                names = [m.group(1) for m in _TEMPLATE_FIELD.finditer(sentence)]
+            for sentence, names in part.sentences:
                 if all(_known(values.get(name)) for name in names):
                     kept.append(_fill(sentence, values))
             lead = " " if part.text[:1].isspace() else ""

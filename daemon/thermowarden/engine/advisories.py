@@ -12,6 +12,7 @@ import json
 import math
 from collections import deque
 from collections.abc import Callable, Mapping
+from collections.abc import Set as AbstractSet
 from dataclasses import dataclass, field
 from typing import Any, Final
 
@@ -179,7 +180,7 @@ def build_rule_runtimes(config: SiteConfig, model: SiteModel,
     return rules
 
 
-def _no_details(i: int) -> dict[str, object]:
+def _no_details(i: int, wanted: AbstractSet[str]) -> dict[str, object]:
     return {}
 
 
@@ -189,7 +190,7 @@ class _Context:
 
     base: Mapping[str, Any]
     table: Mapping[str, IndexColumn] | None
-    details: Callable[[int], dict[str, object]] = _no_details
+    details: Callable[[int, AbstractSet[str]], dict[str, object]] = _no_details
     """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
 
 
@@ -243,7 +244,7 @@ class Advisories:
         return "; ".join(parts)
 
     def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
-              details: Callable[[int], dict[str, object]] = _no_details) -> None:
+              details: Callable[[int, AbstractSet[str]], dict[str, object]] = _no_details) -> None:
         """Start an evaluation: texts rendered from now on use these values."""
         self._ctx = _Context(base, table, details)
 
@@ -403,7 +404,7 @@ class Advisories:
 
     # ------------------------------------------------------------------ transitions
     def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None) -> None:
-        extra = dict(self._ctx.details(adv.space))
+        extra = dict(self._ctx.details(adv.space, rt.rule.template_names))
         if adv.acted_on is not None and now is not None:
             t0 = float(adv.acted_on.get("_t", adv.updated_at))
             extra["acted_minutes_ago"] = max(0.0, (now - t0) / 60)

@@ -23,6 +23,7 @@ from __future__ import annotations
 import functools
 import math
 from collections.abc import Iterator, Mapping
+from collections.abc import Set as AbstractSet
 from typing import Any, Final
 
 import numpy as np
@@ -41,6 +42,9 @@ from thermowarden.engine.texts import Texts
 from thermowarden.rules import CompiledPack, CompiledRule
 from thermowarden.site_model import SITE, SiteModel
 
+HEALTH_DETAILS: Final = frozenset({"stale_detail", "stuck_detail", "implausible_detail",
+                                   "disagreement_detail"})
+"""Text fields :meth:`PointHealth.details` gives."""
 SAMPLE_EVERY_S: Final = 300.0
 """Every 5 minutes the key indices of every space are stored for reports."""
 
@@ -207,20 +211,25 @@ class Engine:
             effects.extend(self.publication.conditions_due(snap, table, snap.now))
         return effects
 
-    def _text_fields(self, table: Mapping[str, IndexColumn], now: float, i: int
-                     ) -> dict[str, object]:
-        """Words for the messages of space ``i`` that are not numbers: which sensors the
-        health columns are about, which rules cannot be evaluated and why, and what a WBGT
-        rests on (``table`` holds the evaluation's rows of this tick)."""
-        assert self.health.snap is not None
-        fields: dict[str, object] = dict(self.health.details(i, self.health.snap))
-        twa = table.get("wbgt_time_weighted")
-        fields["wbgt_basis"] = (
-            "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
-            else "the spot value (the 60-minute mean is not complete yet)")
-        unknown = self.advisories.unknown_detail(i, now)
-        if unknown:
-            fields["rules_unknown_detail"] = unknown
+    def _text_fields(self, table: Mapping[str, IndexColumn], now: float, i: int,
+                     wanted: AbstractSet[str]) -> dict[str, object]:
+        """Words for the messages of space ``i`` that are not numbers, those of ``wanted``
+        only (the names the rule's templates insert; each costs a pass over points or
+        rules): which sensors the health columns are about, which rules cannot be evaluated
+        and why, and what a WBGT rests on (``table`` holds this tick's rows)."""
+        fields: dict[str, object] = {}
+        if wanted & HEALTH_DETAILS:
+            assert self.health.snap is not None
+            fields.update(self.health.details(i, self.health.snap))
+        if "wbgt_basis" in wanted:
+            twa = table.get("wbgt_time_weighted")
+            fields["wbgt_basis"] = (
+                "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
+                else "the spot value (the 60-minute mean is not complete yet)")
+        if "rules_unknown_detail" in wanted:
+            unknown = self.advisories.unknown_detail(i, now)
+            if unknown:
+                fields["rules_unknown_detail"] = unknown
         return fields
 
     def republish_all(self) -> None:
