@@ -4,9 +4,21 @@ A thread of our own runs the network loop and reconnects with capped exponential
 and jitter; while it waits it probes the broker's port once a second and starts again from
 the shortest delay as soon as the broker answers. Callbacks do nothing but enqueue: sensor
 messages and commands onto the bounded ``inbox`` (overflow is counted), connection events
-and publish acknowledgements onto the unbounded ``control`` queue. Publishing is done by
-the engine thread through :meth:`MqttLink.publish`; paho's client is safe to publish from
-another thread.
+and publish acknowledgements onto the unbounded ``control`` queue.
+
+Every write to the socket is made by the network thread. The engine thread publishes
+through :meth:`MqttLink.publish`, which only queues the packet: paho takes its own lock,
+gives the message its id, appends the packet to its output queue and wakes the network
+thread's ``select`` through its socket pair; the network thread's next ``loop`` writes it.
+(paho writes the socket directly from the publishing thread when no loop thread of its own
+runs and no ``on_socket_register_write`` callback is set; with our own loop thread that
+made two threads write one socket at once, which nats-server saw as corrupt packets in
+bursts. Setting the callback, which does nothing here, selects paho's queue-only path.)
+
+Several broker URLs (``broker.url`` then ``broker.fallback_urls``, the nodes of a clustered
+broker) are tried in turn: a failed connect moves to the next one at once, and a lost
+connection reconnects to the next node, waiting (with backoff) only after every node has
+been tried.
 
 paho keeps every QoS 1 message it was handed until the broker acknowledges it, across
 reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
@@ -127,6 +139,10 @@ class Inbox:
         return len(self.items)
 
 
+def _no_op(*args: Any) -> None:
+    """paho's socket-registration callbacks: nothing to do (see the module docstring)."""
+
+
 def parse_url(url: str) -> tuple[str, int, bool]:
     u = urllib.parse.urlparse(url)
     tls = u.scheme == "mqtts"
@@ -161,7 +177,10 @@ class MqttLink:
         self.control = control
         self.metrics = metrics
         self.v5 = cfg.protocol == "5"
-        self.host, self.port, tls = parse_url(cfg.url)
+        self.nodes = [parse_url(u) for u in [cfg.url, *cfg.fallback_urls]]
+        """Every broker node: (host, port, tls), tried in turn."""
+        self.node = 0
+        self.host, self.port, tls = self.nodes[0]
         self.client = mqtt.Client(
             callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
@@ -182,6 +201,9 @@ class MqttLink:
         self.client.on_message = self._on_message
         self.client.on_publish = self._on_publish
         self.client.on_subscribe = self._on_subscribe
+        # the network thread alone writes the socket (see the module docstring)
+        self.client.on_socket_register_write = _no_op
+        self.client.on_socket_unregister_write = _no_op
         self.connected = threading.Event()
         self.subscribed = threading.Event()
         self._stop = threading.Event()
@@ -191,6 +213,7 @@ class MqttLink:
         self.received = 0
         """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
+        self._round_start = 0
 
     # ---------------------------------------------------------------- callbacks (enqueue only)
     def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
@@ -305,12 +328,39 @@ class MqttLink:
         self._thread.start()
 
     def _probe(self) -> bool:
-        """True when the broker's port accepts a TCP connection."""
-        try:
-            with socket.create_connection((self.host, self.port), timeout=0.5):
-                return True
-        except OSError:
-            return False
+        """True when a broker node's port accepts a TCP connection (that node is tried
+        next)."""
+        for k in range(len(self.nodes)):
+            j = (self.node + k) % len(self.nodes)
+            host, port, _ = self.nodes[j]
+            try:
+                with socket.create_connection((host, port), timeout=0.5):
+                    self._use(j)
+                    return True
+            except OSError:
+                continue
+        return False
+
+    def _use(self, j: int) -> None:
+        self.node = j
+        self.host, self.port, _ = self.nodes[j]
+
+    def _next_node(self) -> bool:
+        """Move to the next broker node; True when that starts a new round over all nodes
+        (wait before it), always True with one node."""
+        self._use((self.node + 1) % len(self.nodes))
+        return self.node == self._round_start
+
+    def _connect(self) -> None:
+        if self.v5:
+            props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
+            props.SessionExpiryInterval = 0
+            if self.max_packet_bytes:
+                props.MaximumPacketSize = int(self.max_packet_bytes)
+            self.client.connect(self.host, self.port, self.cfg.keepalive_s,
+                                clean_start=True, properties=props)
+        else:
+            self.client.connect(self.host, self.port, self.cfg.keepalive_s)
 
     def _wait(self, seconds: float, probe: bool) -> bool:
         """Wait ``seconds`` (or until stopped); with ``probe``, return True early as soon as
@@ -328,29 +378,23 @@ class MqttLink:
 
     def _run(self) -> None:
         backoff = BACKOFF_START_S
-        first = True
+        self._round_start = self.node
         while not self._stop.is_set():
             try:
-                if first:
-                    if self.v5:
-                        props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
-                        props.SessionExpiryInterval = 0
-                        if self.max_packet_bytes:
-                            props.MaximumPacketSize = int(self.max_packet_bytes)
-                        self.client.connect(self.host, self.port, self.cfg.keepalive_s,
-                                            clean_start=True, properties=props)
-                    else:
-                        self.client.connect(self.host, self.port, self.cfg.keepalive_s)
-                    first = False
-                else:
-                    self.client.reconnect()
+                self._connect()
             except (OSError, ssl.SSLError, ValueError) as exc:
+                failed = f"{self.host}:{self.port}"
+                if not self._next_node():
+                    log.warning("cannot reach broker %s (%s); trying %s:%s", failed, exc,
+                                self.host, self.port)
+                    continue
                 wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
-                log.warning("cannot reach broker %s:%s (%s); retrying in %.1f s", self.host,
-                            self.port, exc, wait)
+                log.warning("cannot reach broker %s (%s); retrying in %.1f s", failed, exc,
+                            wait)
                 backoff = min(BACKOFF_CAP_S, backoff * 2)
                 if self._wait(wait, probe=True):
                     backoff = BACKOFF_START_S  # the broker answers again: start over
+                self._round_start = self.node
                 continue
             refused = False
             while not self._stop.is_set():
@@ -363,6 +407,14 @@ class MqttLink:
             if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
+            if len(self.nodes) > 1 and not refused:
+                # a clustered broker: another node carries on at once (this one may be gone)
+                self._next_node()
+                self._round_start = self.node
+                log.warning("connection to the broker lost; connecting to %s:%s", self.host,
+                            self.port)
+                self._wait(random.uniform(0.05, 0.25), probe=False)
+                continue
             wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
             log.warning("connection to the broker lost; reconnecting in %.1f s", wait)
             backoff = min(BACKOFF_CAP_S, backoff * 2)
@@ -371,6 +423,7 @@ class MqttLink:
                 self._wait(wait, probe=False)
             elif self._wait(wait, probe=True):
                 backoff = BACKOFF_START_S
+            self._round_start = self.node
 
     # ---------------------------------------------------------------- publishing
     def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,
@@ -406,7 +459,9 @@ class MqttLink:
             while not info.is_published() and time.monotonic() < deadline and \
                     self.connected.is_set():
                 time.sleep(0.02)
-            self.client.disconnect()
+            self.client.disconnect()  # written by the network thread, which then ends
+            if self._thread is not None:
+                self._thread.join(min(timeout, 2.0))
         self._stop.set()
         if self._thread is not None:
             self._thread.join(timeout)
