@@ -477,6 +477,9 @@ class BrokerConfig(Strict):
     ``password_file``, never from the site file."""
 
     url: str = "mqtt://127.0.0.1:1883"
+    fallback_urls: list[str] = Field(default_factory=list)
+    """Further nodes of a clustered broker, tried in turn after ``url`` (and after one
+    another) when a node cannot be reached or its connection is lost."""
     client_id: str | None = None
     protocol: Literal["5", "3.1.1"] = "5"
     keepalive_s: int = Field(30, ge=5, le=3600)
@@ -492,6 +495,13 @@ class BrokerConfig(Strict):
             raise ValueError(f"{v!r} is not mqtt://host[:port] or mqtts://host[:port]")
         return v
 
+    @field_validator("fallback_urls")
+    @classmethod
+    def _urls(cls, v: list[str]) -> list[str]:
+        for u in v:
+            cls._url(u)
+        return v
+
     @field_validator("protocol", mode="before")
     @classmethod
     def _proto(cls, v: object) -> object:
@@ -500,6 +510,10 @@ class BrokerConfig(Strict):
 
 class OutputConfig(Strict):
     prefix: str = "thermowarden"
+    rule_topic_separator: Literal[".", "/", "_"] = "."
+    """What stands for the dot of a rule id (``pack.rule``) in advisory topics. nats-server
+    refuses ``.`` in MQTT topic names (it separates NATS subject tokens): use ``/``
+    (``.../advisories/pack/rule``) or ``_`` there. Payloads keep the rule id as it is."""
 
     @field_validator("prefix")
     @classmethod

@@ -103,9 +103,9 @@ def holders(spaces: U64, views: Mapping[str, Iterable[str]]) -> tuple[list[str],
     count = np.zeros(spaces.size, dtype=np.int64)
     first = np.full(spaces.size, -1, dtype=np.intp)
     claims = [wins(spaces, m, views[m]) for m in names]
-    for j, m in enumerate(names):
+    for j in range(len(names)):
         h = claims[j].copy()
-        for k, other in enumerate(names):
+        for k in range(len(names)):
             if k != j:
                 h &= ~claims[k]
         first = np.where((first < 0) & h, j, first)

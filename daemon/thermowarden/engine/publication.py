@@ -147,7 +147,8 @@ class Publication:
         }
 
     def advisory_topic(self, adv: Advisory) -> str:
-        return f"{self.prefix}/spaces/{self.model.space_ids[adv.space]}/advisories/{adv.rule}"
+        rule = adv.rule.replace(".", self.config.output.rule_topic_separator)
+        return f"{self.prefix}/spaces/{self.model.space_ids[adv.space]}/advisories/{rule}"
 
     def advisory_publish(self, adv: Advisory, timers: dict[str, Any] | None = None) -> Publish:
         """The retained advisory message; an empty retained message once it has cleared.

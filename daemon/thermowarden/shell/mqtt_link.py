@@ -86,7 +86,8 @@ class Incoming:
     oversize: int = 0
     """A command body over the limit: its length (the body itself is dropped)."""
     kind: str = "sensor"
-    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check) or "sys"."""
+    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys" or
+    "watch" (a group's status records and retained advisories)."""
     on_reply: Callable[[dict[str, Any]], None] | None = None
     """For a command from the web page or API: called with the engine's reply."""
 
@@ -158,7 +159,8 @@ class MqttLink:
                  metrics: Metrics, client_id: str, command_prefix: str = "\0",
                  now: Callable[[], float] = time.time, *, max_packet_bytes: int = 0,
                  max_command_bytes: int = 65_536, identity_property: str | None = None,
-                 echo_prefix: str | None = None, read_sys: bool = True) -> None:
+                 echo_prefix: str | None = None, read_sys: bool = True,
+                 watch: tuple[str, ...] = ()) -> None:
         self.cfg = cfg
         self.max_packet_bytes = max_packet_bytes
         self.max_command_bytes = max_command_bytes
@@ -168,6 +170,9 @@ class MqttLink:
         if echo_prefix:
             self.subscriptions.append(echo_prefix + "#")
         self.read_sys = read_sys
+        self.watch = watch
+        """Topic prefixes delivered as kind "watch" (a group's status records and retained
+        advisories), not counted as sensor messages."""
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
@@ -250,6 +255,9 @@ class MqttLink:
         what is new; every later connect subscribes to the new list."""
         old = set(self.subscriptions)
         self.subscriptions = list(subscriptions)
+        if self.echo_prefix and self.echo_prefix + "#" not in self.subscriptions:
+            self.subscriptions.append(self.echo_prefix + "#")
+        subscriptions = self.subscriptions
         if not self.connected.is_set():
             return
         removed = sorted(old - set(subscriptions))
@@ -302,6 +310,9 @@ class MqttLink:
             item = Incoming(topic, bytes(msg.payload), 0.0, kind="echo")
         elif topic.startswith("$SYS/"):
             item = Incoming(topic, bytes(msg.payload), 0.0, kind="sys")
+        elif self.watch and topic.startswith(self.watch):
+            item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain),
+                            kind="watch")
         else:
             self.received += 1
             item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain))

@@ -1,0 +1,114 @@
+"""A group of instances sharing a site through one Mosquitto broker: every space owned by
+exactly one, an instance killed mid-advisory (its advisories continue on a survivor, not
+raised again), one joining (spaces move to it without a gap), one command answered once."""
+
+from __future__ import annotations
+
+import json
+import time
+import uuid
+
+from tests.shell.conftest import (
+    SLOW,
+    Collector,
+    ServiceProcess,
+    clear_retained,
+    wait_for,
+    write_site,
+)
+from tests.shell.group_parts import Feeder, GroupWatch, wait_until
+
+KEEPALIVE_S = 6
+BOUND_S = 2 * KEEPALIVE_S
+
+
+def test_group_covers_every_space_through_a_kill_and_a_join(tmp_path, system_broker_port):
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = [f"s{i:02d}" for i in range(12)]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n",
+                      evaluation="{tick_s: 1, flood_limit: 1000}")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    watch = GroupWatch(watch_c, prefix, "g", spaces)
+    temp = {"value": "25"}
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
+    feeder.start()
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+             for n in ("a", "b", "c")}
+    try:
+        for p in procs.values():
+            p.start(wait_ready=False)
+        for p in procs.values():
+            wait_for(p.ready, SLOW, "an instance to be ready")
+        wait_for(lambda: watch.covered_by({"a", "b", "c"}), SLOW,
+                 "the three instances to own every space once")
+        temp["value"] = "31"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "raised"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every space's hot advisory")
+        victim = watch.owner_of("s00")
+        assert victim is not None
+        adv_before = next(e["advisory"] for e in watch_c.events(prefix)
+                          if e["event"] == "raised" and e["advisory"]["space"]["id"] == "s00"
+                          and e["advisory"]["rule"] == "fast.hot")
+        survivors = {"a", "b", "c"} - {victim}
+        t_kill = time.monotonic()
+        procs[victim].kill()
+        t_covered = wait_until(lambda: watch.covered_by(survivors), SLOW)
+        assert t_covered is not None, "the survivors never covered every space"
+        assert t_covered - t_kill <= BOUND_S, (t_covered - t_kill, BOUND_S)
+        # the advisory of s00 continues on its new owner with its identity and history
+        topic = f"{prefix}/spaces/s00/advisories/fast.hot"
+
+        def moved() -> dict | None:
+            for t, p, _ in reversed(list(watch_c.messages)):
+                if t == topic and p:
+                    d = json.loads(p)
+                    if d["history"][-1]["event"] == "moved":
+                        return d
+            return None
+        wait_for(lambda: moved() is not None, SLOW, "the moved advisory of s00")
+        adv = moved()
+        assert adv is not None
+        assert adv["id"] == adv_before["id"]
+        assert adv["history"][0] == adv_before["history"][0]
+        assert adv["history"][-1]["by"] == watch.owner_of("s00")
+        # a command goes to every member; only the owner answers, once
+        reply_topic = f"{prefix}/replies/t-{uuid.uuid4().hex[:6]}"
+        replies = Collector(port, [reply_topic])
+        replies.publish(f"{prefix}/commands/facilities/acknowledge", json.dumps(
+            {"advisory_id": adv["id"], "by": "Ana", "reply_to": reply_topic}))
+        wait_for(lambda: replies.json_on(reply_topic), SLOW, "the reply")
+        # one more instance joins: spaces move to it, none is dropped
+        procs["d"] = ServiceProcess(site, tmp_path / "d", "--group", "g", "--instance", "d")
+        procs["d"].start()
+        wait_for(lambda: watch.covered_by(survivors | {"d"}), SLOW,
+                 "the new member to take its share")
+        assert watch.owners()["d"]
+        # the temperature falls: every advisory clears once, nothing was raised twice
+        temp["value"] = "27"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "cleared"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every hot advisory to clear")
+        replies.sync(reply_topic)
+        assert [r["ok"] for r in replies.json_on(reply_topic)] == [True]
+        replies.close()
+        events = watch_c.events(prefix)
+        raised = [e["advisory"]["space"]["id"] for e in events
+                  if e["event"] == "raised" and e["advisory"]["rule"] == "fast.hot"]
+        assert sorted(raised) == spaces  # once each, through a kill and a join
+        ids = {e["event_id"] for e in events if "event_id" in e}
+        assert len(ids) == len([e for e in events if "event_id" in e])  # no id used twice
+        # the survivors saw no space without an owner for longer than the bound
+        assert not [e for e in events if e.get("kind") == "spaces_unowned"]
+        for n in survivors | {"d"}:
+            assert procs[n].metric("thermowarden_group_uncovered_seconds") <= BOUND_S
+            assert procs[n].metric("thermowarden_group_members") == 3
+    finally:
+        feeder.stop()
+        for p in procs.values():
+            if p.proc is not None:
+                p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
