@@ -482,6 +482,10 @@ class BrokerConfig(Strict):
     another) when a node cannot be reached or its connection is lost."""
     client_id: str | None = None
     protocol: Literal["5", "3.1.1"] = "5"
+    subscribe_qos: Literal[0, 1] = 1
+    """QoS of the service's subscriptions. 0 for nats-server: there a QoS 1 subscription is
+    a JetStream consumer, whose creation holds up everything else the client sends for
+    seconds while the cluster moves its streams after a node's end."""
     keepalive_s: int = Field(30, ge=5, le=3600)
     username: str | None = None
     password: SecretStr | None = None

@@ -15,7 +15,8 @@ they are evaluated; spaces given up are forgotten (the instance that takes them 
 their advisories). The sensor subscriptions follow the owned spaces.
 
 The bound: a space is owned again within ``BOUND_FACTOR`` (2) keepalives of its owner's end
-(a broker notices a dead client within 1.5 keepalives; the heartbeat within 1.25). Coverage:
+(a broker notices a dead client within 1.5 keepalives and publishes its will; a missing
+heartbeat is noticed within one keepalive). Coverage:
 metrics (owned spaces, members, seconds since every space had an owner), a retained record
 of the spaces each instance owns (``<prefix>/group/<name>/owners/<instance>``), and a notice
 to the integrator when a space had no owner, or a member evaluated nothing, for longer than
@@ -42,13 +43,14 @@ log = logging.getLogger("thermowarden.group")
 
 BEATS_PER_KEEPALIVE: Final = 3
 RETAIN_EVERY_BEATS: Final = 6
-LIVE_FACTOR: Final = 1.25
+LIVE_FACTOR: Final = 1.0
 """A member whose beat was not heard for this many keepalives is taken as gone."""
 BOUND_FACTOR: Final = 2.0
 """A space is owned again within this many keepalives (the bound the coverage checks)."""
-LET_GO_FACTOR: Final = 0.9
-"""An instance cut off from the broker this many keepalives lets its spaces go (before the
-others, which wait ``LIVE_FACTOR``, take them): it cannot see readings or peers."""
+LET_GO_FACTOR: Final = 0.6
+"""An instance cut off from the broker (or whose subscriptions the broker refuses) this many
+keepalives lets its spaces go (before the others, which wait ``LIVE_FACTOR`` from its last
+beat, take them): it cannot see readings or peers."""
 SETTLE_EXTRA_S: Final = 0.5
 
 
@@ -101,6 +103,7 @@ class Group:
         self.hashes = ownership.space_hashes(model.space_ids)
         self.holding = np.zeros(model.n_spaces, dtype=bool)
         service.engine.set_owned([], service.clock.now())
+        service.link.qos0.add(f"{self.status_prefix}+")
         service.link.set_subscriptions(self.subscriptions())
         self._status_fields()
 
@@ -190,7 +193,9 @@ class Group:
         service = self.service
         assert service is not None
         mono = service.clock.monotonic()
-        if not service.link.connected.is_set():
+        if not (service.link.connected.is_set() and service.link.subscribed.is_set()):
+            if service.link.connected.is_set():
+                self._beat_due(mono)
             if self.cut_off_at is None:
                 self.cut_off_at = mono
             elif self.holding.any() and mono - self.cut_off_at >= \
@@ -198,14 +203,14 @@ class Group:
                 log.warning("cut off from the broker for %.0f s: letting the %d owned "
                             "space(s) go to the other members", mono - self.cut_off_at,
                             int(self.holding.sum()))
+                self.view = None  # back as a newcomer: the others need not wait for it
                 self._hold(np.zeros_like(self.holding))
             return
         self.cut_off_at = None
-        if not service.link.subscribed.is_set():
-            return
         if self.settle_until is None:
             self.settle_until = mono + self.beat_s + SETTLE_EXTRA_S
         if mono < self.settle_until:
+            self._beat_due(mono)
             return
         live = {m.name: m for m in self.members.values()
                 if m.online and m.view is not None and mono - m.seen < self.live_s}
@@ -221,9 +226,12 @@ class Group:
                               {m.name: m.view or () for m in live.values()})
         if not np.array_equal(held, self.holding):
             self._hold(held)
+        self._beat_due(mono)
+        self._coverage(mono, live)
+
+    def _beat_due(self, mono: float) -> None:
         if mono - self.last_beat >= self.beat_s:
             self._beat(retain=self.beats % RETAIN_EVERY_BEATS == 0)
-        self._coverage(mono, live)
 
     def _status_fields(self) -> None:
         """The group's fields in the status record (also what a reconnect's birth says)."""
@@ -241,7 +249,9 @@ class Group:
         self.last_beat = self.service.clock.monotonic()
         self._status_fields()
         link = self.service.link
-        link.publish(link.status_topic, dict(link.status_online), 1, retain)
+        # a plain beat at QoS 0: on a JetStream-backed broker it does not wait for the
+        # streams (which stall for seconds while a dead node's streams move)
+        link.publish(link.status_topic, dict(link.status_online), 1 if retain else 0, retain)
 
     def _hold(self, held: np.ndarray) -> None:
         """Own exactly the spaces ``held``: adopt the advisories of those taken over before

@@ -66,6 +66,7 @@ BACKOFF_START_S = 0.5
 BACKOFF_CAP_S = 30.0
 PROBE_EVERY_S = 1.0
 """While waiting to reconnect, the broker's port is tried this often (a TCP connect)."""
+RETRY_SUBSCRIBE_S = 1.0
 SYS_TOPICS = ("$SYS/broker/publish/messages/dropped",
               "$SYS/broker/store/messages/count")
 """Mosquitto's own counters: messages it dropped (queue limits), messages it holds."""
@@ -219,6 +220,12 @@ class MqttLink:
         """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
         self._round_start = 0
+        self.qos0: set[str] = set()
+        """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
+        broker QoS 0 deliveries do not wait for the streams)."""
+        self._sub_topics: dict[int, str] = {}
+        self._retry_subs: set[str] = set()
+        """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
 
     # ---------------------------------------------------------------- callbacks (enqueue only)
     def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
@@ -235,20 +242,26 @@ class MqttLink:
         # subscribe again on every connect
         self.subscribed.clear()
         self._pending_subs = set()
+        self._retry_subs = set()
         for topic in self.subscriptions:
-            if self.v5 and topic.startswith(self.command_prefix):
-                # see the retain flag on live deliveries too: a retained command is never
-                # executed, not even once
-                _, mid = client.subscribe(topic, options=SubscribeOptions(
-                    qos=1, retainAsPublished=True))
-            else:
-                _, mid = client.subscribe(topic, qos=1)
-            if mid is not None:
-                self._pending_subs.add(mid)
+            self._subscribe(topic)
         if self.read_sys:
             for topic in SYS_TOPICS:  # best effort: not every broker publishes them
                 client.subscribe(topic, qos=0)
         self.control.put(Control("connected"))
+
+    def _subscribe(self, topic: str) -> None:
+        if self.v5 and topic.startswith(self.command_prefix):
+            # see the retain flag on live deliveries too: a retained command is never
+            # executed, not even once
+            _, mid = self.client.subscribe(topic, options=SubscribeOptions(
+                qos=1, retainAsPublished=True))
+        else:
+            _, mid = self.client.subscribe(
+                topic, qos=0 if topic in self.qos0 else self.cfg.subscribe_qos)
+        if mid is not None:
+            self._pending_subs.add(mid)
+            self._sub_topics[mid] = topic
 
     def set_subscriptions(self, subscriptions: list[str]) -> None:
         """Change the topic filters (after a reload): unsubscribe what is gone, subscribe
@@ -264,9 +277,7 @@ class MqttLink:
         if removed:
             self.client.unsubscribe(removed)
         for topic in sorted(set(subscriptions) - old):
-            _, mid = self.client.subscribe(topic, qos=1)
-            if mid is not None:
-                self._pending_subs.add(mid)
+            self._subscribe(topic)
 
     def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
                        properties: Any) -> None:
@@ -282,9 +293,14 @@ class MqttLink:
                   or getattr(r, "value", 0) == 0x80]
         if mid not in self._pending_subs:
             return  # a $SYS subscription (best effort)
+        topic = self._sub_topics.pop(mid, None)
         if failed:
             self.control.put(Control("refused", mid=mid,
-                                     reason=f"subscription refused: {', '.join(failed)}"))
+                                     reason=f"subscription to {topic} refused: "
+                                            f"{', '.join(failed)}"))
+            if topic is not None and topic in self.subscriptions:
+                # a clustered broker refuses while it moves its streams: ask again
+                self._retry_subs.add(topic)
         self._pending_subs.discard(mid)
         if not self._pending_subs:
             self.subscribed.set()
@@ -408,6 +424,7 @@ class MqttLink:
                 self._round_start = self.node
                 continue
             refused = False
+            last_retry = time.monotonic()
             while not self._stop.is_set():
                 rc = self.client.loop(timeout=0.1)
                 if rc != mqtt.MQTT_ERR_SUCCESS:
@@ -415,6 +432,12 @@ class MqttLink:
                     break
                 if self.connected.is_set():
                     backoff = BACKOFF_START_S
+                    if self._retry_subs and time.monotonic() - last_retry >= \
+                            RETRY_SUBSCRIBE_S:
+                        last_retry = time.monotonic()
+                        for topic in sorted(self._retry_subs):
+                            self._subscribe(topic)
+                        self._retry_subs.clear()
             if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
