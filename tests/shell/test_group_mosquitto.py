@@ -8,6 +8,7 @@ import json
 import time
 import uuid
 
+from tests.engine.conftest import validator
 from tests.shell.conftest import (
     SLOW,
     Collector,
@@ -112,5 +113,48 @@ def test_group_covers_every_space_through_a_kill_and_a_join(tmp_path, system_bro
         for p in procs.values():
             if p.proc is not None:
                 p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+
+
+def test_unowned_spaces_and_an_idle_member_are_told_to_the_integrator(tmp_path,
+                                                                      system_broker_port):
+    """A member that claims every space in its published view but evaluates nothing (its
+    records are written here by the test): the spaces the real instance wins have two
+    claimants and so no owner; after the bound, the integrator is told, and about the idle
+    member at once."""
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = [f"s{i:02d}" for i in range(12)]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n",
+                      evaluation="{tick_s: 1, flood_limit: 1000}")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    fake = {"schema": "thermowarden.status/1", "instance": "zz-fake", "state": "online",
+            "group": "g", "view": ["zz-fake"], "evaluated_at": 0.0}
+    beats = Feeder(watch_c, lambda: {f"{prefix}/status/zz-fake": json.dumps(
+        {**fake, "evaluated_at": time.time() - 600})}, every_s=1.0)
+    beats.start()
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance", "a")
+    try:
+        proc.start()
+
+        def notices(kind: str) -> list[dict]:
+            return [e for e in watch_c.events(prefix) if e.get("kind") == kind]
+        wait_for(lambda: notices("owner_idle"), SLOW, "the idle-member notice")
+        (idle,) = notices("owner_idle")
+        assert idle["members"] == ["zz-fake"] and idle["audience"] == "integrator"
+        assert idle["bound_s"] == BOUND_S
+        wait_for(lambda: notices("spaces_unowned"), SLOW, "the unowned-spaces notice")
+        (gap,) = notices("spaces_unowned")
+        assert 0 < gap["count"] < len(spaces) and set(gap["spaces"]) < set(spaces)
+        assert "had no owner for more than 12 s" in gap["text"]
+        assert proc.metric("thermowarden_group_uncovered_seconds") > BOUND_S
+        assert proc.metric("thermowarden_group_owned_spaces") == 0
+        for notice in (idle, gap):
+            validator("event.v1.json").validate(notice)
+    finally:
+        beats.stop()
+        proc.stop()
         watch_c.close()
         clear_retained(port, prefix)

@@ -274,7 +274,8 @@ class Evaluation:
         times = snap.times.tolist()
         table = self._changed_only(s)
         due: list[int] = []
-        if bool(s.hot_work[:n].any()):
+        hot = s.hot_work[:n] if self.owned is None else s.hot_work[:n] & self.owned
+        if bool(hot.any()):
             for j, t in enumerate(times):
                 if t - self.last_phs >= PHS_EVERY_S:
                     due.append(j)

@@ -95,6 +95,9 @@ class Group:
         self.holding = np.zeros(0, dtype=bool)
         self.hashes = ownership.space_hashes([])
         self.last_evaluated: float | None = None
+        self._key: object = None
+        self._held = np.zeros(0, dtype=bool)
+        self._unowned = np.zeros(0, dtype=bool)
 
     # ------------------------------------------------------------------ wiring
     def attach(self, service: Service) -> None:
@@ -132,6 +135,7 @@ class Group:
             held = set(ids)
             self.hashes = ownership.space_hashes(engine.model.space_ids)
             self.holding = np.array([s in held for s in engine.model.space_ids], dtype=bool)
+            self._key = None
         self.service.execute(engine.set_owned(ids, self.service.clock.now()))
         self.service.link.set_subscriptions(self.subscriptions())
 
@@ -222,10 +226,15 @@ class Group:
                      ", ".join(sorted(came)) or "-", ", ".join(sorted(gone)) or "-")
             self.view = view
             self._beat(retain=True)
-        held = ownership.held(self.hashes, self.me, view,
-                              {m.name: m.view or () for m in live.values()})
-        if not np.array_equal(held, self.holding):
-            self._hold(held)
+        views = {m.name: m.view or () for m in live.values()}
+        key = (view, tuple(sorted(views.items())))
+        if key != self._key:  # hashing every space is done only when a view changes
+            self._key = key
+            self._held = ownership.held(self.hashes, self.me, view, views)
+            _, _, count = ownership.holders(self.hashes, {**views, self.me: view})
+            self._unowned = count == 0
+        if not np.array_equal(self._held, self.holding):
+            self._hold(self._held)
         self._beat_due(mono)
         self._coverage(mono, live)
 
@@ -294,11 +303,8 @@ class Group:
         """Metrics and the integrator's notices: spaces without an owner, idle owners."""
         service = self.service
         assert service is not None and self.view is not None
-        views: dict[str, tuple[str, ...]] = {n: m.view or () for n, m in live.items()}
-        views[self.me] = self.view
-        _, _, count = ownership.holders(self.hashes, views)
-        unowned = count == 0
-        service.metrics.group_members.set(len(views))
+        unowned = self._unowned
+        service.metrics.group_members.set(len(live) + 1)
         if unowned.any():
             if self.uncovered_since is None:
                 self.uncovered_since = mono
