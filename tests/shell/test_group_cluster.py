@@ -17,6 +17,8 @@ from tests.shell.conftest import SLOW, Collector, ServiceProcess, wait_for
 from tests.shell.group_parts import Feeder, GroupWatch, wait_until
 from tests.shell.nats_cluster import NatsCluster, nats_program
 
+pytestmark = pytest.mark.broker
+
 KEEPALIVE_S = 8
 """nats-server keeps a client off for some seconds after its node died (the session moves
 between nodes); 8 s leaves the bound (16 s) room for that."""

@@ -8,6 +8,8 @@ import json
 import time
 import uuid
 
+import pytest
+
 from tests.engine.conftest import validator
 from tests.shell.conftest import (
     SLOW,
@@ -18,6 +20,8 @@ from tests.shell.conftest import (
     write_site,
 )
 from tests.shell.group_parts import Feeder, GroupWatch, wait_until
+
+pytestmark = pytest.mark.broker
 
 KEEPALIVE_S = 6
 BOUND_S = 2 * KEEPALIVE_S
