@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import os
 import pathlib
+import shutil
 import subprocess
 import sys
 import tempfile
@@ -189,6 +190,7 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
                 g["idle_cpu_per_space_min_us"])
     finally:
         cluster.stop()
+        shutil.rmtree(tmp, ignore_errors=True)
     return out
 
 
