@@ -225,8 +225,9 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
         "convection; six planes: posture weights)")
     op_app = Applicability(n)
-    op_app.require_present([("air_temperature", s.air_temperature),
-                            ("mean_radiant_temperature", mrt)])
+    op_app.require_present([("air_temperature", s.air_temperature)])
+    # only a mean radiant temperature that is given (a rejected globe gives none)
+    op_app.require(app.ok, "no mean radiant temperature (see mean_radiant_temperature)")
     op_app.require(np.isfinite(s.air_speed), "input missing or stale: air_speed (sets the "
                    "weighting of air and radiant temperature)")
     operative = radiation.operative_temperature(s.air_temperature, mrt, s.air_speed)
