@@ -2,8 +2,10 @@
 
 Each table comes from tests/data/published_values.yaml, where its source is named: ISO 7730
 Table D.1, the ASHRAE 55 PMV and SET tables, Environment Canada's humidex, ISO 7933:2004
-Annex F and further 2004 cases, ISO 7933:2023 cases, Liljegren et al.'s natural wet bulb
-(their reference code) and the UTCI wind-height conversion. Most rows run the command's own
+Annex F and further 2004 cases, ISO 7933:2023 cases (pythermalcomfort's test suite and its
+documented examples), Liljegren et al.'s natural wet bulb (their reference code: through a
+globe, and outdoors without one from the irradiance and the sun's position for the time and
+place) and the UTCI wind-height conversion. Most rows run the command's own
 entry point in this process (``cli.main``: the same parsing, computing and printing as the
 installed command); a few run the installed command in a subprocess.
 """

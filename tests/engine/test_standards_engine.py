@@ -5,8 +5,10 @@ and evaluated by ticks: ISO 7730 Table D.1 row 12 (1.6 met), the ASHRAE 55 SET t
 at 2.0 met, ISO 7933:2004 Annex F's first example and a seated hot-work case (both in the
 2004 edition while the site's other hot-work spaces use 2023), Liljegren et al.'s natural
 wet bulb (their reference code), and UTCI from a wind sensor at 2 m. A hot-work space with
-no metabolic rate configured gets WBGT but no reference value, with a reason. Values and
-sources: tests/data/published_values.yaml.
+no metabolic rate configured gets WBGT but no reference value, with a reason. A second,
+sunny site (latitude, longitude, a pyranometer) reproduces Liljegren's natural wet bulb
+without a globe at the tick's time, and ISO 7933:2023 cases. Values and sources:
+tests/data/published_values.yaml.
 """
 
 from __future__ import annotations
