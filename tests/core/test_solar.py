@@ -81,3 +81,13 @@ def test_more_sun_warms_the_wick():
     tnw = heat_stress.natural_wet_bulb_liljegren_sun(np.full(3, 32.0), np.full(3, 50.0),
                                                      np.full(3, 1.5), ghi, fdir, cza)
     assert tnw[0] < tnw[1] < tnw[2]
+
+
+def test_sun_overhead_and_at_the_poles_without_warnings():
+    """Subsolar point, both poles, the date line: finite values and no numpy warnings
+    (tests turn warnings into errors)."""
+    t = np.full(4, epoch("2025-03-20T12:00:00Z"))
+    cza, dist = solar.sun_position(t, np.array([0.0, 90.0, -90.0, 0.0]),
+                                   np.array([0.0, 0.0, 0.0, 180.0]))
+    assert np.all(np.isfinite(cza)) and np.all(np.isfinite(dist))
+    assert cza[0] > 0.999 and abs(cza[1]) < 0.03 and abs(cza[2]) < 0.03 and cza[3] < -0.99

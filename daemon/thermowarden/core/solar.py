@@ -72,8 +72,9 @@ def sun_position(time_s: FloatArray | float, latitude_deg: FloatArray | float,
     hour_angle_h = np.where(hour_angle_h < -12.0, hour_angle_h + 24.0,
                             np.where(hour_angle_h > 12.0, hour_angle_h - 24.0, hour_angle_h))
     hour_angle = hour_angle_h / 12.0 * np.pi
-    altitude = np.degrees(np.arcsin(np.sin(declination) * np.sin(lat)
-                                    + np.cos(declination) * np.cos(hour_angle) * np.cos(lat)))
+    sin_altitude = (np.sin(declination) * np.sin(lat)
+                    + np.cos(declination) * np.cos(hour_angle) * np.cos(lat))
+    altitude = np.degrees(np.arcsin(np.clip(sin_altitude, -1.0, 1.0)))  # rounding at zenith
     # refraction for standard air, A. A. 1990 B61, crossover at 19.225° (as the reference code)
     pressure_hpa, temperature_c = 1013.25, 15.0
     low = ((0.1594 + altitude * (0.0196 + 0.00002 * altitude)) * pressure_hpa
