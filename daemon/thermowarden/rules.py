@@ -1,6 +1,6 @@
 """Rule packs: loading, checking and compiling rules into expressions over arrays.
 
-A pack is a YAML file validated by :class:`thermowarden.config.RulePackConfig`. Each
+A pack is a YAML file validated by :class:`thermowarden.config.rule_packs.RulePackConfig`. Each
 rule's expressions are parsed once against the table of names a rule may read
 (:func:`name_table`); a bad expression is refused with the file, line, rule id and the
 column of the error.
@@ -20,18 +20,13 @@ from typing import Final
 
 import numpy as np
 
-from thermowarden.config import (
-    PRIORITIES,
-    ConfigError,
-    ConfigIssue,
-    RuleConfig,
-    RulePackConfig,
-    load_rule_pack_file,
-)
+from thermowarden.config.errors import ConfigError, ConfigIssue
+from thermowarden.config.loading import load_rule_pack_file
+from thermowarden.config.positions import Position, SourceMap
+from thermowarden.config.rule_packs import PRIORITIES, RuleConfig, RulePackConfig
 from thermowarden.core import radiation
 from thermowarden.core.expressions import Expression, ExpressionError, Kind, parse_expression
 from thermowarden.core.indices import SpaceInputs, compute_indices
-from thermowarden.yaml_positions import Position, SourceMap
 
 FLAGS: Final = ("occupied", "hot_work", "indoor", "outdoor", "naturally_ventilated",
                 "acclimatised", "solar_load")

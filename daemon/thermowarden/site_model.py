@@ -12,16 +12,15 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Final
 
-from thermowarden.config import (
+from thermowarden.config.points import (
     JsonFormat,
     NumberFormat,
     PointBase,
     SenmlFormat,
-    SiteConfig,
-    SpaceConfig,
     StateFormat,
     TemplateConfig,
 )
+from thermowarden.config.site import SiteConfig, SpaceConfig
 from thermowarden.core import radiation
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.topics import TopicTemplate

@@ -18,7 +18,8 @@ from typing import Any, Final
 
 import numpy as np
 
-from thermowarden.config import AUDIENCES, PRIORITIES, SiteConfig
+from thermowarden.config.rule_packs import AUDIENCES, PRIORITIES
+from thermowarden.config.site import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist

@@ -19,7 +19,7 @@ from collections import Counter
 from dataclasses import dataclass
 from typing import Final
 
-from thermowarden.config import JsonFormat, NumberFormat, SenmlFormat, StateFormat
+from thermowarden.config.points import JsonFormat, NumberFormat, SenmlFormat, StateFormat
 from thermowarden.core import payloads
 from thermowarden.core.payloads import Decoded, DecodeError
 from thermowarden.core.quantities import QUANTITIES

@@ -16,13 +16,9 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.config import (
-    IngestConfig,
-    OccupancyConfig,
-    PointBase,
-    PointConfig,
-    SiteConfig,
-)
+from thermowarden.config.points import PointBase, PointConfig
+from thermowarden.config.service import IngestConfig
+from thermowarden.config.site import OccupancyConfig, SiteConfig
 from thermowarden.core import radiation
 from thermowarden.core.adaptive import running_mean_outdoor
 from thermowarden.core.columns import BoolArray, FloatArray

@@ -43,7 +43,7 @@ from typing import Any
 
 from prometheus_client import CollectorRegistry, Counter, Gauge
 
-from thermowarden.config import (
+from thermowarden.config.delivery import (
     AudienceDelivery,
     DeliveryConfig,
     EmailConfig,

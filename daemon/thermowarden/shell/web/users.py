@@ -29,7 +29,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
-from thermowarden.config import ConfigError, _issues_from_validation, _read_yaml_file
+from thermowarden.config import ConfigError, issues_from_validation, read_yaml_file
 
 SCHEME = "pbkdf2_sha256"
 DEFAULT_ITERATIONS = 600_000
@@ -107,11 +107,11 @@ class User:
 
 def load_users(path: str | os.PathLike[str]) -> dict[str, UserEntry]:
     """Read the users file; a bad one raises :class:`ConfigError` with file and line."""
-    data, smap = _read_yaml_file(path)
+    data, smap = read_yaml_file(path)
     try:
         parsed = UsersFile.model_validate(data if data is not None else {})
     except ValidationError as exc:
-        raise ConfigError(_issues_from_validation(exc, smap, {})) from None
+        raise ConfigError(issues_from_validation(exc, smap, {})) from None
     out: dict[str, UserEntry] = {}
     for u in parsed.users:
         if u.name in out:
