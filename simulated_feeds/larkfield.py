@@ -157,8 +157,8 @@ def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.
 
         o = office(h)
         p = "larkfield/office-west"
-        out.append(_rec(t + 2, "larkfield/office-west/air/temperature", f"{o['ta'] + noise(0.05):.2f}"))
-        out.append(_rec(t + 2, "larkfield/office-west/air/humidity", f"{o['rh'] + noise(0.3):.1f}"))
+        out.append(_rec(t + 2, f"{p}/air/temperature", f"{o['ta'] + noise(0.05):.2f}"))
+        out.append(_rec(t + 2, f"{p}/air/humidity", f"{o['rh'] + noise(0.3):.1f}"))
         out.append(_rec(t + 3, f"{p}/globe", f"{o['globe'] + noise(0.05):.2f}"))
         out.append(_rec(t + 3, f"{p}/radiant/window", f"{o['window'] + noise(0.1):.2f}"))
         out.append(_rec(t + 3, f"{p}/radiant/room", f"{o['room'] + noise(0.05):.2f}"))
@@ -183,19 +183,20 @@ def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.
             head = 250.0 + noise(5.0)  # the head-height sensor reads nonsense
         out.append(_rec(t + 9, f"{q}/air/ankle", f"{b['ankle'] + noise(0.1):.2f}"))
         out.append(_rec(t + 9, f"{q}/air/head", f"{head:.2f}"))
-        out.append(_rec(t + 9, "larkfield/bakery-floor/air/humidity", f"{b['rh'] + noise(0.3):.1f}"))
+        out.append(_rec(t + 9, f"{q}/air/humidity", f"{b['rh'] + noise(0.3):.1f}"))
         if not 10.0 <= h < 11.5:  # the air-speed sensor drops out
             for j in range(3):
                 out.append(_rec(t + 10 + 20 * j, f"{q}/air-speed",
                                 f"{max(b['v'] + noise(0.05), 0.05):.2f}"))
 
         y = yard(h)
-        out.append(_rec(t + 11, "larkfield/loading-yard/wbgt-station", {
+        r = "larkfield/loading-yard"
+        out.append(_rec(t + 11, f"{r}/wbgt-station", {
             "globe": {"c": round(y["tg"] + noise(0.1), 2)},
             "nwb": {"c": round(y["tnw"] + noise(0.05), 2)},
             "time": dt.datetime.fromtimestamp(t + 11, dt.UTC).isoformat()}))
-        out.append(_rec(t + 11, "larkfield/loading-yard/air/temperature", f"{y['ta'] + noise(0.05):.2f}"))
-        out.append(_rec(t + 11, "larkfield/loading-yard/air/humidity", f"{y['rh'] + noise(0.3):.1f}"))
+        out.append(_rec(t + 11, f"{r}/air/temperature", f"{y['ta'] + noise(0.05):.2f}"))
+        out.append(_rec(t + 11, f"{r}/air/humidity", f"{y['rh'] + noise(0.3):.1f}"))
 
         s = studio(h)
         r = "larkfield/studio-north"

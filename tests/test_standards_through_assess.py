@@ -2,8 +2,10 @@
 
 Each table comes from tests/data/published_values.yaml, where its source is named: ISO 7730
 Table D.1, the ASHRAE 55 PMV and SET tables, Environment Canada's humidex, ISO 7933:2004
-Annex F and further 2004 cases, ISO 7933:2023 cases, Liljegren et al.'s natural wet bulb
-(their reference code) and the UTCI wind-height conversion. Most rows run the command's own
+Annex F and further 2004 cases, ISO 7933:2023 cases (pythermalcomfort's test suite and its
+documented examples), Liljegren et al.'s natural wet bulb (their reference code: through a
+globe, and outdoors without one from the irradiance and the sun's position for the time and
+place) and the UTCI wind-height conversion. Most rows run the command's own
 entry point in this process (``cli.main``: the same parsing, computing and printing as the
 installed command); a few run the installed command in a subprocess.
 """
@@ -167,6 +169,29 @@ def test_iso_7933_2023_cases(row, monkeypatch, capsys):
         assert value(r, "phs_sweat_loss") == pytest.approx(row["sweat_g"], abs=tol["sweat"])
 
 
+DUBOIS_75_KG_1_8_M = 0.202 * 75**0.425 * 1.8**0.725  # m², the ISO 7933 standard person
+
+
+@pytest.mark.parametrize("row", table("phs_iso_7933_2023_standard_cases"))
+def test_iso_7933_2023_standard_cases(row, monkeypatch, capsys):
+    """ISO 7933:2023 cases as pythermalcomfort's test suite reproduces them (source in the
+    data file): whole-body metabolic rate in W, per m² of the 75 kg, 1.8 m person."""
+    tol = PUBLISHED["phs_iso_7933_2023_standard_cases"]["tolerance"]
+    r = assess({"air_temperature": row["ta"], "mean_radiant_temperature": row["ta"],
+                "air_speed": row["va"], "relative_humidity": row["rh"],
+                "met": row["m_w"] / DUBOIS_75_KG_1_8_M / MET_W_M2, "clo": 0.5,
+                "posture": "standing", "acclimatised": row["acclimatised"],
+                "hot_work": True}, monkeypatch, capsys)
+    assert r["phs_rectal_temperature"]["method"] == "ISO 7933:2023"
+    assert value(r, "phs_rectal_temperature") == pytest.approx(row["t_core"], abs=tol["t_re"])
+    assert value(r, "phs_sweat_loss") == pytest.approx(row["sweat_g"], rel=tol["sweat_rel"])
+    assert value(r, "phs_limit_water_loss_95") == pytest.approx(row["d_lim_loss_95"],
+                                                                abs=tol["duration"])
+    if row["d_lim_t_re"] is not None:
+        assert value(r, "phs_limit_rectal") == pytest.approx(row["d_lim_t_re"],
+                                                             abs=tol["duration"])
+
+
 @pytest.mark.parametrize("posture", ["seated", "sitting", "Sitting", "crouching", "standing"])
 def test_hot_work_any_posture_spelling(posture):
     """A seated hot-work space used to print a traceback; every spelling now gives PHS."""
@@ -203,6 +228,71 @@ def test_natural_wet_bulb_liljegren_in_sun(row, monkeypatch, capsys):
                 "solar_load": True}, monkeypatch, capsys)
     assert value(r, "natural_wet_bulb_estimated") == pytest.approx(row["tnw"], abs=tol)
     assert value(r, "wbgt") > 0
+
+
+@pytest.mark.parametrize("row", table("natural_wet_bulb_liljegren_irradiance"))
+def test_natural_wet_bulb_from_irradiance_without_globe(row, monkeypatch, capsys):
+    """Liljegren's reference code outdoors without a globe: the wick's radiation from the
+    global horizontal irradiance, split at the sun's position for the time and place."""
+    tol = PUBLISHED["natural_wet_bulb_liljegren_irradiance"]["tolerance"]
+    r = assess({"air_temperature": row["ta"], "relative_humidity": row["rh"],
+                "air_speed": row["v"], "solar_irradiance": row["ghi"],
+                "latitude": row["lat"], "longitude": row["lon"], "time": row["time"],
+                "barometric_pressure": row["p_hpa"], "environment": "outdoor",
+                "solar_load": True}, monkeypatch, capsys)
+    assert value(r, "natural_wet_bulb_estimated") == pytest.approx(row["tnw"], abs=tol["tnw"])
+    assert "irradiance" in r["natural_wet_bulb_estimated"]["method"]
+
+
+def test_natural_wet_bulb_irradiance_time_with_offset(monkeypatch, capsys):
+    """The same instant written with a local offset gives the same sun and the same value."""
+    row = table("natural_wet_bulb_liljegren_irradiance")[0]  # 18:00Z = 13:00-05:00
+    base = {"air_temperature": row["ta"], "relative_humidity": row["rh"],
+            "air_speed": row["v"], "solar_irradiance": row["ghi"], "latitude": row["lat"],
+            "longitude": row["lon"], "barometric_pressure": row["p_hpa"],
+            "environment": "outdoor", "solar_load": True}
+    utc = value(assess({**base, "time": row["time"]}, monkeypatch, capsys),
+                "natural_wet_bulb_estimated")
+    local = value(assess({**base, "time": "2025-07-15T13:00:00-05:00"}, monkeypatch, capsys),
+                  "natural_wet_bulb_estimated")
+    assert local == pytest.approx(utc, abs=1e-9)
+
+
+@pytest.mark.parametrize(("drop", "reason"), [
+    ("latitude", "latitude"), ("time", "time of the readings"),
+    ("solar_irradiance", "solar_irradiance"), ("solar_load", "without solar load"),
+    ("environment", "indoors"),
+])
+def test_natural_wet_bulb_without_globe_says_what_is_missing(drop, reason, monkeypatch,
+                                                             capsys):
+    """Without a globe the estimate needs the irradiance, the place and the time, outdoors in
+    the sun; whatever is missing is named."""
+    row = table("natural_wet_bulb_liljegren_irradiance")[0]
+    payload: dict[str, Any] = {
+        "air_temperature": row["ta"], "relative_humidity": row["rh"], "air_speed": row["v"],
+        "solar_irradiance": row["ghi"], "latitude": row["lat"], "longitude": row["lon"],
+        "time": row["time"], "environment": "outdoor", "solar_load": True}
+    del payload[drop]
+    if drop == "latitude":
+        del payload["longitude"]
+    r = assess(payload, monkeypatch, capsys)
+    item = r["natural_wet_bulb_estimated"]
+    assert item["value"] is None
+    assert reason in item["reason"]
+
+
+@pytest.mark.parametrize(("payload", "message"), [
+    ({"time": "2025-07-15T18:00:00"}, "no UTC offset"),
+    ({"time": "yesterday"}, "not an ISO 8601"),
+    ({"time": 1752602400}, "expected an ISO 8601"),
+    ({"latitude": 41.7}, "together"),
+    ({"latitude": 95, "longitude": 0}, "impossible"),
+])
+def test_bad_time_or_place_is_refused(payload, message):
+    r = run_installed({"air_temperature": 30, "relative_humidity": 50, **payload})
+    assert r.returncode == 2, r.stdout
+    assert message in r.stderr
+    assert "Traceback" not in r.stderr
 
 
 # ------------------------------------------------------------------ UTCI wind height

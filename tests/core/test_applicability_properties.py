@@ -50,19 +50,38 @@ space = st.fixed_dictionaries({
     "solar_load": st.booleans(),
     "hot_work": st.booleans(),
     "posture": st.sampled_from(sorted(heat_stress.POSTURE_SPELLINGS)),
+    "turbulence_intensity": maybe(0.0, 100.0),
+    "floor_temperature": maybe(-5.0, 60.0),
+    "air_temperature_head": maybe(0.0, 45.0),
+    "air_temperature_ankle": maybe(0.0, 45.0),
+    "plane_up": maybe(-10.0, 80.0),
+    "plane_down": maybe(-10.0, 80.0),
+    "plane_front": maybe(-10.0, 80.0),
+    "plane_back": maybe(-10.0, 80.0),
+    "solar_irradiance": maybe(0.0, 1400.0),
+    "latitude": maybe(-90.0, 90.0),
+    "longitude": maybe(-180.0, 180.0),
+    "time_s": maybe(0.0, 2.5e9),
+    "phs_edition": st.sampled_from(heat_stress.PHS_EDITIONS),
 })
 
 
 def build(rows: list[dict[str, Any]]) -> SpaceInputs:
     n = len(rows)
     given_: dict[str, Any] = {}
+    planes: dict[str, np.ndarray] = {}
     for key in rows[0]:
-        if key == "posture":
+        if key.startswith("plane_"):
+            planes[key[len("plane_"):]] = np.array([r[key] for r in rows], dtype=np.float64)
+        elif key == "phs_edition":
+            given_[key] = tuple(r[key] for r in rows)
+        elif key == "posture":
             given_[key] = tuple(heat_stress.canonical_posture(r[key]) for r in rows)
         elif isinstance(rows[0][key], bool):
             given_[key] = np.array([r[key] for r in rows], dtype=bool)
         else:
             given_[key] = np.array([r[key] for r in rows], dtype=np.float64)
+    given_["plane_radiant"] = planes
     return SpaceInputs.create(n, **given_)
 
 
@@ -136,11 +155,73 @@ def test_every_index_keeps_to_its_limits(rows):
     assert np.all(np.isfinite(v[p])) and np.all(inside(ta[p], 0, 50))
     assert np.all(t["natural_wet_bulb_estimated"].values[p] <= ta[p] + 20.0)
 
+    # the natural wet-bulb estimate: from the mean radiant temperature within its range, or
+    # outdoors in the sun without one, from the irradiance at a known place and time
+    p = present(t, "natural_wet_bulb_estimated")
+    with_mrt = np.isfinite(mrt) & present(t, "mean_radiant_temperature")
+    by_mrt = with_mrt & inside(mrt - ta, -10.0, 70.0)
+    by_sun = (~with_mrt & ~s.indoor & s.solar_load & np.isfinite(s.solar_irradiance)
+              & np.isfinite(s.latitude) & np.isfinite(s.longitude) & np.isfinite(s.time_s))
+    assert np.all(by_mrt[p] | by_sun[p])
+    assert np.all(np.isfinite(rh[p]) | np.isfinite(t["relative_humidity"].values[p]))
+
+    p = present(t, "wbgt")
+    assert np.all(np.isfinite(s.globe_temperature[p]))
+    assert np.all(np.isfinite(s.natural_wet_bulb[p]) | present(t, "natural_wet_bulb_estimated")[p])
+
+    p = present(t, "operative_temperature")
+    assert np.all(np.isfinite(ta[p]) & np.isfinite(mrt[p]) & np.isfinite(v[p]))
+
+    tu = np.where(np.isfinite(s.turbulence_intensity), s.turbulence_intensity, 40.0)
+    p = present(t, "draught_rate")
+    assert np.all(s.indoor[p]) and np.all(inside(ta[p], 20, 26)) and np.all(v[p] < 0.5)
+    assert np.all(inside(tu[p], 10, 60))
+    p = present(t, "vertical_temperature_difference_pd")
+    assert np.all(s.air_temperature_head[p] - s.air_temperature_ankle[p] < 8.0)
+    p = present(t, "floor_temperature_pd")
+    assert np.all(inside(s.floor_temperature[p], 10, 40))
+    p = present(t, "radiant_asymmetry_pd")
+    planes = s.plane_radiant
+    h = planes["front"] - planes["back"]
+    up = planes["up"] - planes["down"]
+    assert np.all(np.isnan(h[p]) | np.where(h[p] >= 0, h[p] < 35, -h[p] < 15))
+    assert np.all(np.isnan(up[p]) | np.where(up[p] >= 0, up[p] < 23, -up[p] < 15))
+
     for name in ("metabolic_rate", "wbgt_reference_acclimatised", "wbgt_margin_unacclimatised"):
         p = present(t, name)
         assert np.all(np.isfinite(s.met[p])), name  # never an assumed metabolic rate
         for i in np.flatnonzero(np.isnan(s.met)):
             assert "metabolic rate" in (t[name].reason_at(int(i)) or ""), name
+
+
+@settings(max_examples=8, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.lists(space, min_size=1, max_size=6))
+def test_phs_keeps_to_its_limits(rows):
+    """ISO 7933 (either edition, any posture spelling, with or without a metabolic rate):
+    PHS only for hot work and inside Annex A's ranges of the edition asked for."""
+    s = build(rows)
+    t = compute_indices(s, with_phs=True)
+    ta, v = s.air_temperature, s.air_speed
+    mrt = t["mean_radiant_temperature"].values
+    rh = t["relative_humidity"].values
+    clo = s.clo
+    pa = psy.vapour_pressure(ta, rh)
+    m = s.met * 58.15
+    is_2004 = np.array([e == "2004" for e in s.phs_edition], dtype=bool)
+    for name in ("phs_rectal_temperature", "phs_sweat_loss", "phs_limit_rectal",
+                 "phs_limit_water_loss_95"):
+        col = t[name]
+        p = np.asarray(col.present)
+        assert np.all(np.isfinite(col.values[p])), name
+        for i in np.flatnonzero(~p):
+            assert col.reason_at(int(i)), name
+        assert np.all(s.hot_work[p]) and np.all(np.isfinite(s.met[p])), name
+        assert np.all(inside(ta[p], 15, 50)) and np.all(inside(mrt[p] - ta[p], 0, 60)), name
+        assert np.all(inside(v[p], 0, 3)) and np.all(inside(clo[p], 0.1, 1.0)), name
+        assert np.all(pa[p] <= 4500 + TOL), name
+        assert np.all(is_2004[p] | (pa[p] >= 500 - TOL)), name
+        assert np.all(~is_2004[p] | inside(m[p], 100, 450)), name
+        assert np.all(is_2004[p] | inside(m[p], 56, 250)), name
 
 
 @pytest.mark.parametrize("tpma,applies", [(10.0, True), (33.5, True), (33.50000000000001, True),
@@ -177,10 +258,15 @@ def test_globe_far_colder_than_air_and_no_air_speed():
     s = SpaceInputs.create(3, air_temperature=np.array([30.0, 30.0, 30.0]),
                            globe_temperature=np.array([10.0, 32.0, 32.0]),
                            air_speed=np.array([0.2, np.nan, 0.2]))
-    col = compute_indices(s, with_phs=False)["mean_radiant_temperature"]
+    table = compute_indices(s, with_phs=False)
+    col = table["mean_radiant_temperature"]
     assert not col.present[0] and "colder than the air" in (col.reason_at(0) or "")
     assert not col.present[1] and "air_speed" in (col.reason_at(1) or "")
     assert col.present[2]
+    # nor an operative temperature from the rejected globe (found by the property test)
+    op = table["operative_temperature"]
+    assert not op.present[0] and "mean radiant" in (op.reason_at(0) or "")
+    assert op.present[2]
 
 
 def test_heat_index_and_humidex_upper_bounds():
@@ -253,7 +339,9 @@ json_value = st.recursive(
 KEYS = ["air_temperature", "relative_humidity", "globe_temperature", "air_speed",
         "relative_air_speed", "air_speed_height_m", "met", "work_class", "clo", "posture",
         "hot_work", "environment", "barometric_pressure", "psychrometric_wet_bulb",
-        "natural_wet_bulb", "outdoor_daily_means", "phs_edition", "units", "bogus"]
+        "natural_wet_bulb", "outdoor_daily_means", "phs_edition", "units", "bogus",
+        "solar_irradiance", "latitude", "longitude", "time", "mean_radiant_temperature",
+        "solar_load", "floor_temperature"]
 
 
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -5,12 +5,15 @@ and evaluated by ticks: ISO 7730 Table D.1 row 12 (1.6 met), the ASHRAE 55 SET t
 at 2.0 met, ISO 7933:2004 Annex F's first example and a seated hot-work case (both in the
 2004 edition while the site's other hot-work spaces use 2023), Liljegren et al.'s natural
 wet bulb (their reference code), and UTCI from a wind sensor at 2 m. A hot-work space with
-no metabolic rate configured gets WBGT but no reference value, with a reason. Values and
-sources: tests/data/published_values.yaml.
+no metabolic rate configured gets WBGT but no reference value, with a reason. A second,
+sunny site (latitude, longitude, a pyranometer) reproduces Liljegren's natural wet bulb
+without a globe at the tick's time, and ISO 7933:2023 cases. Values and sources:
+tests/data/published_values.yaml.
 """
 
 from __future__ import annotations
 
+import datetime as dt
 import textwrap
 from typing import Any
 
@@ -206,3 +209,121 @@ def test_config_posture_spellings_and_height_m(tmp_path):
     with pytest.raises(ConfigError) as err:
         load_site(bad, {})
     assert "height_m applies only to air_speed and wind_speed" in str(err.value.issues)
+
+
+# ----------------------------------------------------------------- a sunny site, 2023 PHS
+
+SUN = table("natural_wet_bulb_liljegren_irradiance")[0]  # 2025-07-15 18:00Z, 850 W/m²
+PHS_2023 = table("phs_iso_7933_2023_standard_cases")
+DUBOIS_75_KG_1_8_M = 0.202 * 75**0.425 * 1.8**0.725
+
+
+def _hot_work(i: int, row: dict[str, Any]) -> str:
+    met = row["m_w"] / DUBOIS_75_KG_1_8_M / 58.15
+    return (f"  - id: pit{i}\n    hot_work: true\n    people: {{met: {met}, "
+            f"clo: 0.5, acclimatised: {str(row['acclimatised']).lower()}}}\n")
+
+
+SUN_SITE = textwrap.dedent(f"""\
+    site:
+      id: sun
+      timezone: America/Chicago
+      barometric_pressure_pa: {SUN["p_hpa"] * 100}
+      latitude: {SUN["lat"]}
+      longitude: {SUN["lon"]}
+      outdoor_points:
+        - {{topic: sun/out/ghi, quantity: solar_irradiance}}
+    output: {{prefix: tw/sun}}
+    defaults: {{occupancy: {{always: true}}}}
+    templates:
+      - {{topic: "sun/{{space}}/ta", quantity: air_temperature, interval_s: 10}}
+      - {{topic: "sun/{{space}}/rh", quantity: relative_humidity, interval_s: 10}}
+      - {{topic: "sun/{{space}}/v", quantity: air_speed, interval_s: 10}}
+      - {{topic: "sun/{{space}}/tr", quantity: mean_radiant_temperature, interval_s: 10}}
+    spaces:
+      - id: field
+        kind: outdoor
+        people: {{met: 2.0, clo: 0.5}}
+      - id: lawn
+        kind: outdoor
+        solar_load: false
+""") + "".join(_hot_work(i, r) for i, r in enumerate(PHS_2023))
+
+SUN_TIME = dt.datetime.fromisoformat(SUN["time"].replace("Z", "+00:00")).timestamp()
+
+
+@pytest.fixture(scope="module")
+def sunny(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, Any]]:
+    path = tmp_path_factory.mktemp("sun") / "site.yaml"
+    path.write_text(SUN_SITE)
+    config = load_site(path, {})
+    readings: dict[str, dict[str, float]] = {
+        "field": {"ta": SUN["ta"], "rh": SUN["rh"], "v": SUN["v"]},
+        "lawn": {"ta": SUN["ta"], "rh": SUN["rh"], "v": SUN["v"]},
+    }
+    for i, row in enumerate(PHS_2023):
+        readings[f"pit{i}"] = {"ta": row["ta"], "rh": row["rh"], "v": row["va"],
+                               "tr": row["ta"]}
+    start = SUN_TIME - 300.0
+    engine = Engine(config, build_site_model(config), load_rule_packs([], base=path),
+                    conditions_every_s=0, start=start)
+    for step in range(0, 301, 10):
+        t = start + step
+        for space, values in readings.items():
+            for key, v in values.items():
+                engine.message(f"sun/{space}/{key}", str(v).encode(), t)
+        engine.message("sun/out/ghi", str(SUN["ghi"]).encode(), t)
+        engine.tick(t)
+    ids = [s.id for s in config.spaces]
+    return {sid: engine.conditions_payload(i)["indices"] for i, sid in enumerate(ids)}
+
+
+def test_natural_wet_bulb_from_irradiance_without_globe(sunny):
+    """Liljegren's reference code outdoors in the sun without a globe: the site's latitude
+    and longitude, the tick's time and the site's pyranometer give the wick's radiation."""
+    tol = PUBLISHED["natural_wet_bulb_liljegren_irradiance"]["tolerance"]
+    c = sunny["field"]
+    assert value(c, "natural_wet_bulb_estimated") == pytest.approx(SUN["tnw"], abs=tol["tnw"])
+    assert "irradiance" in c["natural_wet_bulb_estimated"]["method"]
+    # no globe: WBGT itself still needs one (ISO 7243), and says so
+    assert c["wbgt"]["value"] is None
+    assert "globe_temperature" in c["wbgt"]["reason"]
+
+
+def test_shaded_outdoor_space_without_globe_gets_no_estimate(sunny):
+    c = sunny["lawn"]
+    assert c["natural_wet_bulb_estimated"]["value"] is None
+    assert "without solar load" in c["natural_wet_bulb_estimated"]["reason"]
+
+
+@pytest.mark.parametrize("i", range(len(PHS_2023)))
+def test_iso_7933_2023_standard_cases(sunny, i):
+    """ISO 7933:2023 cases (as pythermalcomfort's test suite reproduces them) in hot-work
+    spaces of the default edition."""
+    row = PHS_2023[i]
+    tol = PUBLISHED["phs_iso_7933_2023_standard_cases"]["tolerance"]
+    c = sunny[f"pit{i}"]
+    assert c["phs_rectal_temperature"]["method"] == "ISO 7933:2023"
+    assert value(c, "phs_rectal_temperature") == pytest.approx(row["t_core"], abs=tol["t_re"])
+    assert value(c, "phs_sweat_loss") == pytest.approx(row["sweat_g"], rel=tol["sweat_rel"])
+    assert value(c, "phs_limit_water_loss_95") == pytest.approx(row["d_lim_loss_95"],
+                                                                abs=tol["duration"])
+    if row["d_lim_t_re"] is not None:
+        assert value(c, "phs_limit_rectal") == pytest.approx(row["d_lim_t_re"],
+                                                             abs=tol["duration"])
+
+
+def test_site_latitude_and_longitude_go_together(tmp_path):
+    from thermowarden.config import ConfigError
+
+    bad = tmp_path / "bad.yaml"
+    bad.write_text("site: {id: p, timezone: UTC, latitude: 41.7}\nspaces:\n  - id: a\n")
+    with pytest.raises(ConfigError) as err:
+        load_site(bad, {})
+    assert "latitude and longitude together" in str(err.value.issues)
+    far = tmp_path / "far.yaml"
+    far.write_text("site: {id: p, timezone: UTC, latitude: 91, longitude: 0}\n"
+                   "spaces:\n  - id: a\n")
+    with pytest.raises(ConfigError) as err:
+        load_site(far, {})
+    assert "latitude" in str(err.value.issues)

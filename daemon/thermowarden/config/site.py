@@ -214,6 +214,11 @@ class SiteInfo(Strict):
     timezone: str = "UTC"
     altitude_m: float | None = Field(None, ge=-500, le=9000)
     barometric_pressure_pa: float | None = Field(None, ge=30_000, le=110_000)
+    latitude: float | None = Field(None, ge=-90, le=90)
+    """Degrees, north positive: with ``longitude``, the sun's position for the natural
+    wet-bulb estimate outdoors from solar_irradiance where a space has no globe."""
+    longitude: float | None = Field(None, ge=-180, le=180)
+    """Degrees, east positive (west of Greenwich negative)."""
     outdoor_points: list[PointConfig] = Field(default_factory=list)
     outdoor_daily_means: list[Annotated[float, Field(ge=-60, le=60)]] = Field(
         default_factory=list, max_length=30)
@@ -234,6 +239,8 @@ class SiteInfo(Strict):
     def _check(self) -> SiteInfo:
         if self.altitude_m is not None and self.barometric_pressure_pa is not None:
             raise ValueError("give either altitude_m or barometric_pressure_pa, not both")
+        if (self.latitude is None) != (self.longitude is None):
+            raise ValueError("give latitude and longitude together")
         for p in self.outdoor_points:
             if p.quantity not in OUTDOOR_QUANTITIES:
                 allowed = ", ".join(sorted(OUTDOOR_QUANTITIES))

@@ -144,27 +144,86 @@ def natural_wet_bulb_liljegren(air_c: FloatArray, rh: FloatArray, air_speed: Flo
         Tw = Ta - (dHvap / ratio) (ew - ea) / (P - ew) (Pr / Sc)^0.56 + F / h,
 
     properties at the mean of Tw and Ta. The paper writes the radiation F from solar
-    irradiance, sun angle and sky and ground emission; here the wick exchanges radiation
-    with the **mean radiant temperature** (F = sigma eps (Tr^4 - Tw^4)), which a globe
-    measures indoors and outdoors, sun included. That differs from the paper in one
-    respect: the wick's (cylinder's) view of the direct sun is taken as the globe's
-    (sphere's). Air speed below 0.13 m/s is taken as 0.13 m/s, as in the paper. Vapour
-    pressures: ASHRAE 2017 saturation over liquid water (the wick is wet). Solved for all
-    spaces at once (bracketed regula falsi, to 0.001 K). NaN where an input is missing.
+    irradiance, sun angle and sky and ground emission (that form is
+    :func:`natural_wet_bulb_liljegren_sun`); here the wick exchanges radiation with the
+    **mean radiant temperature** (F = sigma eps (Tr^4 - Tw^4)), which a globe measures
+    indoors and outdoors, sun included. That differs from the paper in one respect: the
+    wick's (cylinder's) view of the direct sun is taken as the globe's (sphere's). Air speed
+    below 0.13 m/s is taken as 0.13 m/s, as in the paper. Vapour pressures: ASHRAE 2017
+    saturation over liquid water (the wick is wet). Solved for all spaces at once (bracketed
+    regula falsi, to 0.001 K). NaN where an input is missing.
     """
+    tr_k = np.asarray(mean_radiant_c, dtype=np.float64) + 273.15
+    return _wick_balance(air_c, rh, air_speed, pressure_pa, tr_k ** 4, np.zeros_like(tr_k))
+
+
+_WICK_LENGTH_M: Final = 0.0254
+_WICK_ALBEDO: Final = 0.4
+_GROUND_EMISSIVITY: Final = 0.999
+_GROUND_ALBEDO: Final = 0.45
+
+
+def natural_wet_bulb_liljegren_sun(air_c: FloatArray, rh: FloatArray, air_speed: FloatArray,
+                                   global_w_m2: FloatArray, direct: FloatArray,
+                                   cos_zenith: FloatArray,
+                                   pressure_pa: FloatArray | float = 101_325.0) -> FloatArray:
+    """Natural wet-bulb temperature (°C) outdoors from the global horizontal irradiance,
+    without a globe: Liljegren et al. (2008) with their radiation term.
+
+    The wick (7 mm x 25.4 mm, emissivity 0.95, albedo 0.4) exchanges long-wave radiation
+    with half sky (emissivity 0.575 ea^0.143, ea in hPa; Oke) and half ground (at the air
+    temperature, emissivity 0.999), and absorbs sunlight: the diffuse part over its whole
+    surface and its top, the direct beam on its side (tan z / pi of the horizontal beam) and
+    its top, and the light the ground reflects (albedo 0.45):
+
+        F = sigma eps [ (eps_atm + eps_sfc) Ta^4 / 2 - Tw^4 ]
+            + (1 - a_w) S [ (1 - f)(1 + D/4L) + f (tan z / pi + D/4L) + a_sfc ].
+
+    ``global_w_m2`` S and ``direct`` f as :func:`thermowarden.core.solar.direct_fraction`
+    gives them; ``cos_zenith`` from :func:`thermowarden.core.solar.sun_position`. For a
+    place in the open: sky above, level ground at the air temperature around (the paper's
+    assumptions); shade, walls or hot surfaces nearby need a globe instead.
+    """
+    from thermowarden.core.psychrometrics import saturation_pressure_water
+
+    ta = np.asarray(air_c, dtype=np.float64)
+    ta_k = ta + 273.15
+    ea_hpa = np.asarray(rh, dtype=np.float64) / 100.0 * saturation_pressure_water(ta) / 100.0
+    with np.errstate(invalid="ignore"):
+        eps_atm = 0.575 * ea_hpa ** 0.143
+    radiant_t4 = 0.5 * (eps_atm + _GROUND_EMISSIVITY) * ta_k ** 4
+    cza = np.asarray(cos_zenith, dtype=np.float64)
+    f = np.asarray(direct, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        beam_side = np.where(f > 0.0, np.tan(np.arccos(np.clip(cza, -1.0, 1.0))) / np.pi, 0.0)
+    top = 0.25 * _WICK_DIAMETER_M / _WICK_LENGTH_M
+    absorbed = ((1.0 - _WICK_ALBEDO) * np.asarray(global_w_m2, dtype=np.float64)
+                * ((1.0 - f) * (1.0 + top) + f * (beam_side + top) + _GROUND_ALBEDO))
+    return _wick_balance(air_c, rh, air_speed, pressure_pa, radiant_t4, absorbed)
+
+
+def _wick_balance(air_c: FloatArray, rh: FloatArray, air_speed: FloatArray,
+                  pressure_pa: FloatArray | float, radiant_t4: FloatArray,
+                  absorbed_w_m2: FloatArray) -> FloatArray:
+    """Solve the wick's energy balance (see :func:`natural_wet_bulb_liljegren`) with the
+    long-wave surroundings at ``radiant_t4`` (K^4, the fourth power of their radiant
+    temperature) and ``absorbed_w_m2`` of sunlight absorbed per m² of wick."""
     from thermowarden.core.psychrometrics import saturation_pressure_water
 
     ta = np.asarray(air_c, dtype=np.float64)
     n = ta.shape[0]
     out = np.full(n, np.nan)
     p_all = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
+    t4_all = np.broadcast_to(np.asarray(radiant_t4, dtype=np.float64), (n,))
+    sun_all = np.broadcast_to(np.asarray(absorbed_w_m2, dtype=np.float64), (n,))
     ok = (np.isfinite(ta) & np.isfinite(rh) & np.isfinite(air_speed)
-          & np.isfinite(mean_radiant_c) & np.isfinite(p_all))
+          & np.isfinite(t4_all) & np.isfinite(sun_all) & np.isfinite(p_all))
     idx = np.flatnonzero(ok)
     if idx.size == 0:
         return out
     ta_k = ta[idx] + 273.15
-    tr_k = np.asarray(mean_radiant_c, dtype=np.float64)[idx] + 273.15
+    t4 = t4_all[idx]
+    sun = sun_all[idx]
     p_hpa = p_all[idx] / 100.0
     ea = np.asarray(rh, dtype=np.float64)[idx] / 100.0 * saturation_pressure_water(ta[idx]) / 100.0
     v = np.maximum(np.asarray(air_speed, dtype=np.float64)[idx], _MIN_SPEED)
@@ -179,7 +238,7 @@ def natural_wet_bulb_liljegren(air_c: FloatArray, rh: FloatArray, air_speed: Flo
         h = nusselt * (_CP + 1.25 * _R_AIR) * mu / _WICK_DIAMETER_M
         schmidt = mu / (density * _diffusivity(t_ref, p_hpa[sub]))
         ew = saturation_pressure_water(tw_c) / 100.0
-        radiation = _STEFAN_BOLTZMANN * _WICK_EMISSIVITY * (tr_k[sub] ** 4 - tw ** 4)
+        radiation = _STEFAN_BOLTZMANN * _WICK_EMISSIVITY * (t4[sub] - tw ** 4) + sun[sub]
         balance = (ta_k[sub] - _heat_of_evaporation(t_ref) / _RATIO * (ew - ea[sub])
                    / (p_hpa[sub] - ew) * (_PRANDTL / schmidt) ** 0.56 + radiation / h)
         result: FloatArray = balance - tw
@@ -188,7 +247,7 @@ def natural_wet_bulb_liljegren(air_c: FloatArray, rh: FloatArray, air_speed: Flo
     all_sub = np.arange(idx.size)
     lo = np.full(idx.size, -40.0)
     # the wick stays below boiling: bracket up to 20 K above the air at most
-    hi = np.minimum(np.maximum(ta[idx], tr_k - 273.15) + 5.0, ta[idx] + 20.0)
+    hi = np.minimum(np.maximum(ta[idx], t4 ** 0.25 - 273.15) + 5.0, ta[idx] + 20.0)
     tw = illinois(residual, lo, hi, residual(lo, all_sub), residual(hi, all_sub),
                   tolerance=1e-3, max_iterations=100, residual_tolerance=1e-4)
     out[idx] = tw

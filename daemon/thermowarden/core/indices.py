@@ -15,7 +15,15 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.core import adaptive, comfort, heat_stress, local_discomfort, outdoor, radiation
+from thermowarden.core import (
+    adaptive,
+    comfort,
+    heat_stress,
+    local_discomfort,
+    outdoor,
+    radiation,
+    solar,
+)
 from thermowarden.core import psychrometrics as psy
 from thermowarden.core.columns import Applicability, BoolArray, FloatArray, IndexColumn, absent
 
@@ -60,6 +68,14 @@ class SpaceInputs:
     wbgt_time_weighted: FloatArray
     """Time-weighted WBGT over the assessment window (°C), supplied by the engine."""
     running_mean_outdoor: FloatArray
+    solar_irradiance: FloatArray
+    """Global horizontal solar irradiance (W/m²) at the site; NaN where not measured."""
+    latitude: FloatArray
+    """Site latitude (degrees, north positive); NaN where not configured."""
+    longitude: FloatArray
+    """Site longitude (degrees, east positive); NaN where not configured."""
+    time_s: FloatArray
+    """Time of the readings (s since 1970-01-01 UTC), for the sun's position; NaN unknown."""
     plane_radiant: dict[str, FloatArray]
     """Side (:data:`radiation.SIDES`) -> plane radiant temperature (°C)."""
     met: FloatArray
@@ -209,8 +225,9 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
         "convection; six planes: posture weights)")
     op_app = Applicability(n)
-    op_app.require_present([("air_temperature", s.air_temperature),
-                            ("mean_radiant_temperature", mrt)])
+    op_app.require_present([("air_temperature", s.air_temperature)])
+    # only a mean radiant temperature that is given (a rejected globe gives none)
+    op_app.require(app.ok, "no mean radiant temperature (see mean_radiant_temperature)")
     op_app.require(np.isfinite(s.air_speed), "input missing or stale: air_speed (sets the "
                    "weighting of air and radiant temperature)")
     operative = radiation.operative_temperature(s.air_temperature, mrt, s.air_speed)
@@ -499,21 +516,47 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                  with_phs: bool) -> None:
     n = s.n
     # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
-    est = heat_stress.natural_wet_bulb_liljegren(s.air_temperature, rh, s.air_speed, mrt,
-                                                 s.pressure_pa)
+    # with the wick's radiation from the mean radiant temperature (a globe) or, outdoors in
+    # the open without one, from the global irradiance and the sun's position
+    with_mrt = np.isfinite(mrt)
+    cos_zenith, distance = solar.sun_position(s.time_s, s.latitude, s.longitude)
+    ghi, direct = solar.direct_fraction(s.solar_irradiance, cos_zenith, distance)
+    sun_path = ~with_mrt & ~s.indoor & s.solar_load
+    est = np.where(with_mrt, heat_stress.natural_wet_bulb_liljegren(
+        s.air_temperature, rh, s.air_speed, mrt, s.pressure_pa), np.nan)
+    if sun_path.any():
+        sun_est = heat_stress.natural_wet_bulb_liljegren_sun(
+            np.where(sun_path, s.air_temperature, np.nan), rh, s.air_speed, ghi, direct,
+            cos_zenith, s.pressure_pa)
+        est = np.where(sun_path, sun_est, est)
     est_app = Applicability(n)
     est_app.require(np.isnan(s.natural_wet_bulb), "measured: natural_wet_bulb sensor present")
     est_app.require_present([("air_temperature", s.air_temperature),
-                             ("relative_humidity", rh), ("air_speed", s.air_speed),
-                             ("mean_radiant_temperature (from the globe)", mrt)])
+                             ("relative_humidity", rh), ("air_speed", s.air_speed)])
+    est_app.require(with_mrt | ~s.indoor, "input missing or stale: mean_radiant_temperature "
+                    "(from the globe; indoors the wick's radiation is not known without it)")
+    est_app.require(with_mrt | s.solar_load, "input missing or stale: mean_radiant_temperature "
+                    "(from the globe; outdoors without solar load, in shade, the wick's "
+                    "radiation is not known without it)")
+    est_app.require(with_mrt | np.isfinite(s.solar_irradiance), "input missing or stale: "
+                    "globe_temperature or solar_irradiance (outdoors in the sun the wick's "
+                    "radiation comes from the one or the other)")
+    est_app.require(with_mrt | (np.isfinite(s.latitude) & np.isfinite(s.longitude)),
+                    "site latitude and longitude not configured (the sun's position is needed "
+                    "with solar_irradiance and no globe)")
+    est_app.require(with_mrt | np.isfinite(s.time_s), "time of the readings unknown (the "
+                    "sun's position is needed with solar_irradiance and no globe)")
     est_app.require(_between(s.air_temperature, 0.0, 50.0), "outside the natural wet-bulb "
                     "estimate's range: air_temperature 0-50 °C (a liquid wick)")
     est_app.require(_between(s.air_speed, 0.0, 10.0), "outside the natural wet-bulb "
                     "estimate's range: air_speed 0-10 m/s")
-    est_app.require(_between(mrt - s.air_temperature, -10.0, 70.0), "outside the natural "
-                    "wet-bulb estimate's range: mean radiant minus air temperature -10..70 K")
+    est_app.require(~with_mrt | _between(mrt - s.air_temperature, -10.0, 70.0), "outside the "
+                    "natural wet-bulb estimate's range: mean radiant minus air temperature "
+                    "-10..70 K")
     est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
-                             "radiation exchanged with the mean radiant temperature")
+                             "radiation exchanged with the mean radiant temperature (globe), or "
+                             "outdoors without a globe from the global irradiance split into "
+                             "direct and diffuse at the sun's position (Liljegren's code)")
     out["natural_wet_bulb_estimated"] = est_col
     tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
 

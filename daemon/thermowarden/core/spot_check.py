@@ -7,6 +7,7 @@ refused with an :class:`InputError` naming the key.
 
 from __future__ import annotations
 
+import datetime as dt
 import difflib
 import math
 from collections.abc import Mapping
@@ -46,6 +47,7 @@ MEASURED: Final[dict[str, str]] = {
     "surface_temperature": "surface_temperature",
     "outdoor_air_temperature": "outdoor_air_temperature",
     "wbgt_time_weighted": "globe_temperature",
+    "solar_irradiance": "solar_irradiance",
 }
 _SIDE_KEYS: Final = {
     f"{prefix}_{side}": prefix
@@ -56,7 +58,7 @@ CONTEXT: Final = {
     "met", "clo", "work_class", "acclimatised", "environment", "solar_load", "posture",
     "hot_work", "phs_edition", "altitude_m", "barometric_pressure", "outdoor_daily_means",
     "globe_diameter_m", "globe_emissivity", "clothing", "clothing_adjustment_k", "target_pmv",
-    "naturally_ventilated", "units", "air_speed_height_m",
+    "naturally_ventilated", "units", "air_speed_height_m", "latitude", "longitude", "time",
 }
 ALL_KEYS: Final = frozenset(MEASURED) | frozenset(_SIDE_KEYS) | CONTEXT
 
@@ -109,6 +111,23 @@ def _pressure(data: Mapping[str, object], units: Mapping[str, str]) -> float:
         raise InputError(key, f"{raw:g} is not a barometric pressure: expected 30000-110000 Pa, "
                               "300-1100 hPa or 30-110 kPa (or say the unit in units)")
     return value
+
+
+def _time(value: object) -> float:
+    """An ISO 8601 date and time with its UTC offset (``2025-07-15T13:00:00-05:00`` or
+    ``...Z``) -> seconds since 1970-01-01 UTC."""
+    if not isinstance(value, str):
+        raise InputError("time", f"expected an ISO 8601 date and time, got {value!r}")
+    try:
+        when = dt.datetime.fromisoformat(value.replace("Z", "+00:00")
+                                         if value.endswith("Z") else value)
+    except ValueError:
+        raise InputError("time", f"{value!r} is not an ISO 8601 date and time "
+                         "(e.g. 2025-07-15T13:00:00-05:00)") from None
+    if when.tzinfo is None or when.utcoffset() is None:
+        raise InputError("time", f"{value!r} has no UTC offset: add Z or +hh:mm (the sun's "
+                         "position depends on it)")
+    return when.timestamp()
 
 
 def _suggest(key: str) -> str:
@@ -212,6 +231,18 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
                            ("target_pmv", -1.0, 1.0), ("air_speed_height_m", 0.1, 100.0)):
         if key in data:
             given[key] = np.array([_in_range(key, _number(key, data[key]), low, high, "")])
+    if ("latitude" in data) != ("longitude" in data):
+        raise InputError("latitude" if "longitude" in data else "longitude",
+                         "give latitude and longitude together")
+    if "latitude" in data:
+        given["latitude"] = np.array([_in_range("latitude", _number("latitude",
+                                                                    data["latitude"]),
+                                                -90.0, 90.0, "°")])
+        given["longitude"] = np.array([_in_range("longitude", _number("longitude",
+                                                                      data["longitude"]),
+                                                 -180.0, 180.0, "°")])
+    if "time" in data:
+        given["time_s"] = np.array([_time(data["time"])])
     if "outdoor_daily_means" in data:
         means = data["outdoor_daily_means"]
         if not isinstance(means, list) or len(means) < 7:

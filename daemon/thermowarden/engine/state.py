@@ -288,6 +288,9 @@ class SiteState:
             "naturally_ventilated": np.array([s.ventilation == "natural" for s in spaces],
                                              dtype=bool),
             "pressure_pa": np.full(n, pressure),
+            "latitude": np.full(n, np.nan if cfg.site.latitude is None else cfg.site.latitude),
+            "longitude": np.full(n, np.nan if cfg.site.longitude is None
+                                 else cfg.site.longitude),
             "air_speed_height_m": speed_height,
             "globe_diameter_m": globe_d, "globe_emissivity": globe_e,
             "target_pmv": np.array([float(cfg.parameters(s).get("target_pmv", 0.5))
@@ -601,6 +604,8 @@ class SiteState:
             outdoor_air_temperature=np.repeat(clo_outdoor, n),
             wbgt_time_weighted=twa,
             running_mean_outdoor=np.repeat(rm, n),
+            solar_irradiance=np.repeat(outdoor["solar_irradiance"], n),
+            time_s=np.repeat(times, n),
             plane_radiant=planes,
             **context,
         )
