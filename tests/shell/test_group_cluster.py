@@ -92,9 +92,16 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
         values[target] = dict(ABOVE_ACTION)
 
         def heat_events() -> list[dict]:
-            return [e for e in watch_c.events(prefix) if "advisory" in e
-                    and e["advisory"]["space"]["id"] == target
-                    and e["advisory"]["rule"] == "heat_stress.wbgt"]
+            """The alert's events as a consumer takes them: QoS 1 is at least once, so a
+            copy of an event_id already seen is dropped (it must be the same event)."""
+            seen: dict[str, dict] = {}
+            for e in watch_c.events(prefix):
+                if "advisory" in e and e["advisory"]["space"]["id"] == target \
+                        and e["advisory"]["rule"] == "heat_stress.wbgt":
+                    first = seen.setdefault(e["event_id"], e)
+                    assert (first["event"], first["advisory"]["priority"]) == (
+                        e["event"], e["advisory"]["priority"])
+            return list(seen.values())
         wait_for(lambda: any(e["event"] == "raised" for e in heat_events()), SLOW,
                  "the heat-stress alert")
         raised = next(e for e in heat_events() if e["event"] == "raised")
@@ -127,12 +134,10 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
         wait_for(lambda: any(t == topic and p and json.loads(p)["priority"] == "urgent"
                              for t, p, _ in list(watch_c.messages)), SLOW,
                  "the retained urgent advisory")
-        # raised once, escalated once, no event id twice; heat-stress cautions go along
+        # raised once, escalated once (distinct event ids); heat-stress cautions go along
         watch_c.sync(f"{prefix}/_sync")
         kinds = [e["event"] for e in heat_events()]
         assert kinds.count("raised") == 1 and kinds.count("escalated") == 1, kinds
-        ids = [e["event_id"] for e in heat_events()]
-        assert len(ids) == len(set(ids))
         assert adv["cautions"]
         # no space without an owner for longer than the bound, as the survivors saw it
         assert not [e for e in watch_c.events(prefix) if e.get("kind") == "spaces_unowned"]

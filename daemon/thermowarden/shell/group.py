@@ -52,6 +52,8 @@ LET_GO_FACTOR: Final = 0.6
 keepalives lets its spaces go (before the others, which wait ``LIVE_FACTOR`` from its last
 beat, take them): it cannot see readings or peers."""
 SETTLE_EXTRA_S: Final = 0.5
+END_OF_RUN: Final = 2**62
+"""The beat number of an offline record: no later record of the same run counts."""
 
 
 @dataclass
@@ -64,6 +66,10 @@ class Member:
     online: bool
     evaluated_at: float | None = None
     """Epoch s of its latest evaluation, as it said."""
+    since: str = ""
+    """When its run began (ISO 8601; a restart is a new run)."""
+    beat: int = -1
+    """The number of its latest record in that run."""
 
 
 class Group:
@@ -171,12 +177,25 @@ class Group:
             self.members.pop(name, None)
             return
         assert self.service is not None
+        # records travel two ways (retained ones through the broker's store, plain beats
+        # directly) and can arrive out of order: keep only the newest of an instance's run
+        # (its "since"), by beat number; the will ends the run
+        since, beat = str(data.get("since", "")), data.get("beat")
+        old = self.members.get(name)
+        if old is not None and old.since and since:
+            if since < old.since:
+                return
+            if since == old.since and data.get("state") == "online" and (
+                    not isinstance(beat, int) or beat <= old.beat):
+                return
         view = data.get("view")
         evaluated = data.get("evaluated_at")
         self.members[name] = Member(
             name, tuple(str(v) for v in view) if isinstance(view, list) else None,
             self.service.clock.monotonic(), data.get("state") == "online",
-            float(evaluated) if isinstance(evaluated, int | float) else None)
+            float(evaluated) if isinstance(evaluated, int | float) else None,
+            since, (beat if isinstance(beat, int) else -1) if data.get("state") == "online"
+            else END_OF_RUN)
 
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
