@@ -19,6 +19,8 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   (messages rendered for every space that crosses a threshold).
 - replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio: see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
+- cluster_*: a group of one, two and three instances on a three-node nats-server cluster,
+  against a bare paho consumer on the same cluster, see bench/cluster.py (--cluster).
 - python_start_s: a bare ``python -c pass``, the baseline of the start-up figures below
   (each the median wall time of a fresh ``python -m thermowarden.cli`` process):
   cold_assess_s: the README's ``assess`` example with an empty numba cache (kernels
@@ -380,8 +382,18 @@ def main() -> int:
                         help="skip cold_assess_s (compiling the kernels takes a minute)")
     parser.add_argument("--startup-only", action="store_true",
                         help="only the start-up figures")
+    parser.add_argument("--cluster", action="store_true",
+                        help="also the scale-out figures on a three-node nats-server cluster "
+                             "(bench/cluster.py; a few minutes)")
+    parser.add_argument("--cluster-only", action="store_true",
+                        help="only the scale-out figures")
     args = parser.parse_args()
     figures: dict[str, float | str | None] = {}
+    if args.cluster_only:
+        from cluster import bench_cluster
+
+        print(json.dumps(bench_cluster(args.quick)))
+        return 0
     figures.update(bench_startup(args.quick, not args.no_cold))
     if args.startup_only:
         print(json.dumps(figures))
@@ -400,6 +412,10 @@ def main() -> int:
         from e2e import bench_e2e
 
         figures.update(bench_e2e(args.quick))
+    if args.cluster:
+        from cluster import bench_cluster
+
+        figures.update(bench_cluster(args.quick))
     for k, v in figures.items():
         print(f"{k:>28}: {v}", file=sys.stderr)
     print(json.dumps(figures))

@@ -131,3 +131,19 @@ def test_sided_point_needs_side(tmp_path):
                                         "quantity: plane_radiant_temperature"))
     (msg,) = issues(p)
     assert "needs the side it faces" in msg
+
+
+def test_clustered_broker_settings_are_checked_with_their_line(tmp_path):
+    p = write(tmp_path, MINIMAL + textwrap.dedent("""\
+        broker:
+          url: mqtt://a:1883
+          fallback_urls: [mqtt://b:1883, "http://c:80"]
+          subscribe_qos: 2
+        output: {prefix: x, rule_topic_separator: "-"}
+        """))
+    msgs = issues(p)
+    assert len(msgs) == 3, msgs
+    text = "\n".join(msgs)
+    assert f"{p}:10:" in text and "'http://c:80' is not mqtt://host[:port]" in text
+    assert f"{p}:11:" in text and "subscribe_qos" in text
+    assert f"{p}:12:" in text and "rule_topic_separator" in text

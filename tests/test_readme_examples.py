@@ -39,3 +39,11 @@ def test_delivery_snippet(tmp_path):
     assert safety.webhook is not None and safety.email is not None
     assert safety.quiet_hours == "21:00-06:30"
     assert safety.email.to == ["safety-lead@example.org", "site-supervisor@example.org"]
+
+
+def test_clustered_broker_snippet(tmp_path):
+    (block,) = _blocks("Running the service")
+    config = _load(tmp_path, block)
+    assert config.broker.fallback_urls == ["mqtt://10.0.0.12:1883", "mqtt://10.0.0.13:1883"]
+    assert (config.broker.protocol, config.broker.subscribe_qos) == ("3.1.1", 0)
+    assert config.output.rule_topic_separator == "/"

@@ -361,7 +361,8 @@ def cmd_run(args: argparse.Namespace) -> int:
         running = bootstrap(args.config, broker_url=args.broker, http_port=args.http_port,
                             state_dir=args.state_dir, shard=args.shard,
                             spaces=args.spaces.split(",") if args.spaces else None,
-                            http_host=args.http_host,
+                            http_host=args.http_host, group=args.group,
+                            instance=args.instance,
                             move_damaged_store=args.move_damaged_store)
     except ConfigError as exc:
         _print_issues(exc)
@@ -607,8 +608,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("run", help="run the service on a broker (advisory only)")
     p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
-    p.add_argument("--broker", metavar="URL", help="override the site's broker "
-                   "(mqtt://host:port or mqtts://host:port)")
+    p.add_argument("--broker", metavar="URL[,URL...]", help="override the site's broker "
+                   "(mqtt://host:port or mqtts://host:port); several, separated by commas, "
+                   "are the nodes of a clustered broker, tried in turn")
     p.add_argument("--http-port", type=int, metavar="N",
                    help="serve /healthz, /readyz and /metrics on 127.0.0.1:N")
     p.add_argument("--http-host", default="127.0.0.1", metavar="ADDRESS",
@@ -616,8 +618,16 @@ def build_parser() -> argparse.ArgumentParser:
                         "container)")
     p.add_argument("--state-dir", metavar="DIR",
                    help="where the SQLite store lives (default $STATE_DIRECTORY or ./state)")
+    p.add_argument("--group", metavar="NAME",
+                   help="share the site's spaces with the other instances of group NAME "
+                        "through the broker; spaces move to the survivors when one stops")
+    p.add_argument("--instance", metavar="NAME",
+                   help="this instance's name in its group (default: the broker client id, "
+                        "else <site>-<host name>); unique within the group")
     p.add_argument("--shard", type=_shard, metavar="INDEX/COUNT",
-                   help="evaluate only this shard of the spaces (stable hash of the space id)")
+                   help="evaluate only this fixed shard of the spaces (stable hash of the "
+                        "space id); superseded by --group, which moves spaces when an "
+                        "instance stops")
     p.add_argument("--spaces", metavar="ID,ID", help="evaluate only these spaces")
     p.add_argument("--move-damaged-store", action="store_true",
                    help="if the store fails its check, rename it aside (*.damaged-<time>) and "

@@ -8,7 +8,7 @@ the first message (at most :data:`MAX_SENSORS_PER_SLOT` per space and slot).
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Collection
 from dataclasses import dataclass, field
 from typing import Final
 
@@ -120,20 +120,29 @@ class SiteModel:
             listener(pid)
         return pid
 
-    def subscriptions(self, per_space: bool = False) -> list[str]:
+    def subscriptions(self, per_space: bool = False,
+                      spaces: Collection[int] | None = None) -> list[str]:
         """MQTT subscription filters covering every configured topic.
 
         ``per_space`` renders each template for each of this model's spaces (a shard
         subscribes only to its own spaces' topics) instead of one wildcard per template.
+        ``spaces`` (with ``per_space``): only the topics of these spaces and the site's
+        (one instance of a group: the spaces it owns).
         """
-        subs = set(self.routes)
+        if spaces is None:
+            subs = set(self.routes)
+        else:
+            keep = set(spaces)
+            subs = {t for t, pids in self.routes.items()
+                    if any(self.points[pid].space in keep or self.points[pid].space == SITE
+                           for pid in pids)}
         for tmpl, _, allowed in self.templates:
             if not per_space:
                 subs.add(tmpl.subscription)
                 continue
             others = {p: "+" for p in tmpl.placeholders if p != "space"}
             for i, sid in enumerate(self.space_ids):
-                if allowed is None or i in allowed:
+                if (allowed is None or i in allowed) and (spaces is None or i in keep):
                     subs.add(tmpl.render(space=sid, **others))
         return minimal_filters(subs)
 

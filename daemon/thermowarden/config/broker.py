@@ -28,8 +28,15 @@ class BrokerConfig(Strict):
     ``password_file``, never from the site file."""
 
     url: str = "mqtt://127.0.0.1:1883"
+    fallback_urls: list[str] = Field(default_factory=list)
+    """Further nodes of a clustered broker, tried in turn after ``url`` (and after one
+    another) when a node cannot be reached or its connection is lost."""
     client_id: str | None = None
     protocol: Literal["5", "3.1.1"] = "5"
+    subscribe_qos: Literal[0, 1] = 1
+    """QoS of the service's subscriptions. 0 for nats-server: there a QoS 1 subscription is
+    a JetStream consumer, whose creation holds up everything else the client sends for
+    seconds while the cluster moves its streams after a node's end."""
     keepalive_s: int = Field(30, ge=5, le=3600)
     username: str | None = None
     password: SecretStr | None = None
@@ -43,6 +50,13 @@ class BrokerConfig(Strict):
             raise ValueError(f"{v!r} is not mqtt://host[:port] or mqtts://host[:port]")
         return v
 
+    @field_validator("fallback_urls")
+    @classmethod
+    def _urls(cls, v: list[str]) -> list[str]:
+        for u in v:
+            cls._url(u)
+        return v
+
     @field_validator("protocol", mode="before")
     @classmethod
     def _proto(cls, v: object) -> object:
@@ -51,6 +65,10 @@ class BrokerConfig(Strict):
 
 class OutputConfig(Strict):
     prefix: str = "thermowarden"
+    rule_topic_separator: Literal[".", "/", "_"] = "."
+    """What stands for the dot of a rule id (``pack.rule``) in advisory topics. nats-server
+    refuses ``.`` in MQTT topic names (it separates NATS subject tokens): use ``/``
+    (``.../advisories/pack/rule``) or ``_`` there. Payloads keep the rule id as it is."""
 
     @field_validator("prefix")
     @classmethod

@@ -105,7 +105,10 @@ class RuleRuntime:
     def __init__(self, rule: CompiledRule, mask: BoolArray, params: dict[str, FloatArray]):
         n = mask.size
         self.rule = rule
+        self.base_mask = mask
+        """The spaces the rule applies to."""
         self.mask = mask
+        """... of those, the ones this instance evaluates (all, unless one of a group)."""
         self.params = params
         self.state = np.zeros(n, dtype=np.int8)
         self.level = np.full(n, rule.base_priority, dtype=np.int8)
@@ -284,7 +287,7 @@ class Advisories:
                 adv = rt.advisories[int(i)]
                 if adv.acted_on is None:
                     self._acted(rt, adv, now)
-                    effects.append(self.pub.advisory_publish(adv))
+                    effects.append(self._published(adv))
                     effects.append(self._persist(adv))
             for i in np.flatnonzero(live):
                 adv = rt.advisories[int(i)]
@@ -348,7 +351,7 @@ class Advisories:
             for adv in rt.advisories.values():
                 if self._ctx.table is not None:
                     self._render(rt, adv, now)
-                out.append(self.pub.advisory_publish(adv))
+                out.append(self._published(adv))
         return out
 
     # ------------------------------------------------------------------ acted on
@@ -513,18 +516,29 @@ class Advisories:
         adv.history.append(entry)
         del adv.history[:-HISTORY_KEPT]
 
-    def _persist(self, adv: Advisory) -> Effect:
-        if adv.cleared_at is not None:
-            return self.pub.advisory_persist(adv, {})
+    def _timers(self, adv: Advisory) -> dict[str, Any]:
+        """The lifecycle state a restart or another instance needs to continue ``adv``."""
         rt, i = self.by_id[adv.id]
-        return self.pub.advisory_persist(adv, {
+        return {
             "state": int(rt.state[i]), "level": int(rt.level[i]),
             "last_notified": num(float(rt.last_notified[i])),
             "shelved_until": num(float(rt.shelved_until[i])),
             "raised_times": list(rt.raised_times.get(i, ())),
             "shelvings": rt.shelvings.get(i, []),
             "event_count": rt.event_count.get(i, 0),
-        })
+        }
+
+    def _persist(self, adv: Advisory) -> Effect:
+        if adv.cleared_at is not None:
+            return self.pub.advisory_persist(adv, {})
+        return self.pub.advisory_persist(adv, self._timers(adv))
+
+    def _published(self, adv: Advisory) -> Effect:
+        """The retained advisory message; a live one carries its timers (``handover``), so
+        that another instance of a group can continue it (:meth:`adopt`)."""
+        if adv.cleared_at is not None or adv.id not in self.by_id:
+            return self.pub.advisory_publish(adv)
+        return self.pub.advisory_publish(adv, self._timers(adv))
 
     def _emit(self, rt: RuleRuntime, adv: Advisory, event: str, now: float,
               effects: list[Effect]) -> None:
@@ -536,7 +550,7 @@ class Advisories:
             self.raised_count[adv.audience] += 1
         elif event == "cleared":
             self.cleared_count[adv.audience] += 1
-        effects.append(self.pub.advisory_publish(adv))
+        effects.append(self._published(adv))
         effects.append(self._persist(adv))
         effects.append(Persist("event", adv.id, payload))
         window = self.flood[adv.audience]

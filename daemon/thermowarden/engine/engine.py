@@ -22,14 +22,14 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from collections.abc import Set as AbstractSet
 from typing import Any, Final
 
 import numpy as np
 
 from thermowarden.config import SiteConfig
-from thermowarden.core.columns import FloatArray, IndexColumn
+from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.indices import IndexTable
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.advisories import UNKNOWN_LONG_S, Advisories, Advisory, RuleRuntime
@@ -253,6 +253,105 @@ class Engine:
     def restore(self, records: list[dict[str, Any]]) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""
         return self.advisories.restore(records)
+
+    # ------------------------------------------------------------------ groups
+    @property
+    def owned(self) -> BoolArray:
+        """The spaces this instance evaluates (all, unless it is one of a group)."""
+        return self.publication.owned
+
+    def set_owned(self, space_ids: Iterable[str], now: float) -> list[Effect]:
+        """Evaluate only the spaces ``space_ids`` from now on (one instance of a group).
+
+        A space given up is forgotten here (its live advisories go on at the instance that
+        takes it, from their retained messages; its store rows are removed: the returned
+        effects). A space taken up is evaluated from the next tick; call :meth:`adopt` with
+        its retained advisories first, so that none is raised again. Its 60-minute WBGT
+        window is rebuilt from the readings from now on and published as partial until it
+        is whole (``windows.wbgt_60min`` in its conditions).
+        """
+        index = self.model.space_index
+        new = np.zeros(self.n, dtype=bool)
+        for sid in space_ids:
+            i = index.get(sid)
+            if i is not None:
+                new[i] = True
+        old = self.publication.owned
+        gained = new & ~old
+        released = old & ~new
+        effects: list[Effect] = []
+        book = self.advisories
+        for rt in book.rules:
+            rt.mask = rt.base_mask & new
+            for i in np.flatnonzero(released).tolist():
+                adv = rt.advisories.pop(i, None)
+                if adv is not None:
+                    book.by_id.pop(adv.id, None)
+                    effects.append(Persist("advisory", f"{self.model.space_ids[i]}/{adv.rule}",
+                                           None))
+                rt.state[i] = 0
+                rt.level[i] = rt.rule.base_priority
+                for arr in (rt.pending_since, rt.clear_since, rt.last_notified,
+                            rt.shelved_until, rt.unknown_since, rt.lower_since):
+                    arr[i] = np.nan
+                rt.acted_now[i] = False
+                rt.raised_times.pop(i, None)
+                rt.event_count.pop(i, None)
+        if self.ticks > 0:  # at start nothing moved: the instance just began
+            self.publication.moved_at[gained] = now
+        self.publication.moved_at[released] = np.nan
+        self.publication.touched[gained] = True
+        self.publication.last_conditions[gained] = -math.inf
+        self.publication.owned = new
+        self.evaluation.owned = None if new.all() else new
+        return effects
+
+    def adopt(self, payloads: Iterable[dict[str, Any]], now: float, *,
+              by: str | None = None) -> tuple[list[str], list[Effect]]:
+        """Continue live advisories another instance of the group published (their
+        retained messages with ``handover``): the same advisory id, history (plus a
+        ``moved`` entry), priority, acknowledgement, shelving, reminders and advice waiting
+        for its effect. Only advisories of owned spaces are taken; one this instance already
+        has is kept unless the message is newer. Call before the space's first evaluation.
+        Returns notes on what was not taken and the effects (the retained message with the
+        ``moved`` entry, the store row)."""
+        records: list[dict[str, Any]] = []
+        notes: list[str] = []
+        owned = self.publication.owned
+        book = self.advisories
+        for p in payloads:
+            h = p.get("handover")
+            try:
+                sid = p["space"]["id"]
+                rule = p["rule"]
+                aid = p["id"]
+            except (KeyError, TypeError):
+                notes.append("an advisory message without space, rule or id was not taken")
+                continue
+            i = self.model.space_index.get(sid)
+            if i is None or not owned[i]:
+                continue
+            if not isinstance(h, dict):
+                notes.append(f"advisory {sid}/{rule} not taken: its message carries no "
+                             "handover state")
+                continue
+            mine = next((a for rt in book.rules if rt.rule.key == rule
+                         for j, a in rt.advisories.items() if j == i), None)
+            if mine is not None and (mine.id != aid or mine.updated_at >= h["updated_at"]):
+                continue
+            records.append({"payload": p, "space": sid, "rule": rule, **h})
+        notes += book.restore(records)
+        effects: list[Effect] = []
+        for rec in records:
+            got = book.by_id.get(rec["payload"]["id"])
+            if got is None:
+                continue
+            rt, i = got
+            adv = rt.advisories[i]
+            book._note(adv, now, "moved", by=by)
+            effects.append(book._published(adv))
+            effects.append(book._persist(adv))
+        return notes, effects
 
     def digest(self, now: float, since: float) -> list[Effect]:
         """The daily digest per audience; see :meth:`Advisories.digest`."""

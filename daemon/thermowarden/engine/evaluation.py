@@ -41,6 +41,8 @@ PHS_EVERY_S: Final = 300.0
 """ISO 7933 PHS simulates a whole work period per space: it is refreshed every 5 minutes."""
 COMPUTATION_FAILED: Final = "the computation failed for this space's inputs"
 PHS_GROUP: Final = "phs"
+_NOT_COMPUTED: Final = -1e300
+"""Remembered input of a space whose indices were not computed (never a real input)."""
 ALL_GROUP: Final = "indices"
 
 
@@ -182,6 +184,9 @@ class Evaluation:
         """Failed computations (space and group) since start, for the metrics."""
         self._phs_failures: dict[int, tuple[str, str]] = {}
         self._all_failures: dict[int, tuple[str, str]] = {}
+        self.owned: BoolArray | None = None
+        """The spaces this instance evaluates (None: all). Indices of the others are not
+        computed after the first evaluation (their rows keep the last values, unused)."""
 
     def _changed_only(self, s: SpaceInputs) -> IndexTable:
         """Indices of every row, computed only for the rows whose inputs differ from the
@@ -202,6 +207,12 @@ class Evaluation:
         else:
             same = ((m == before) | (np.isnan(m) & np.isnan(before))).all(axis=1)
         self._last_inputs = m[-n:]
+        if self.owned is not None and have_prev:
+            # spaces of other instances: not computed; computed again when they come back
+            # (their remembered inputs never equal real ones)
+            same |= ~np.tile(self.owned, k)
+            self._last_inputs = self._last_inputs.copy()
+            self._last_inputs[~self.owned] = _NOT_COMPUTED
         if not same.any():
             todo = np.arange(rows)
             table = self._computed(s, todo)
@@ -263,7 +274,8 @@ class Evaluation:
         times = snap.times.tolist()
         table = self._changed_only(s)
         due: list[int] = []
-        if bool(s.hot_work[:n].any()):
+        hot = s.hot_work[:n] if self.owned is None else s.hot_work[:n] & self.owned
+        if bool(hot.any()):
             for j, t in enumerate(times):
                 if t - self.last_phs >= PHS_EVERY_S:
                     due.append(j)

@@ -107,6 +107,10 @@ class Publication:
         self.last_conditions = np.full(n, -np.inf)
         self.touched = np.zeros(n, dtype=bool)
         """Spaces with new readings since their conditions last went out."""
+        self.owned = np.ones(n, dtype=bool)
+        """Spaces this instance evaluates (all, unless it is one of a group)."""
+        self.moved_at = np.full(n, np.nan)
+        """When each space moved to this instance from another of its group (epoch s)."""
         self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
         self._points_cache: tuple[int, dict[int, list[int]], list[Any]] = (-1, {}, [])
         self._snap_cache: tuple[Any, dict[str, Any], list[Any]] = (None, {}, [])
@@ -143,13 +147,20 @@ class Publication:
         }
 
     def advisory_topic(self, adv: Advisory) -> str:
-        return f"{self.prefix}/spaces/{self.model.space_ids[adv.space]}/advisories/{adv.rule}"
+        rule = adv.rule.replace(".", self.config.output.rule_topic_separator)
+        return f"{self.prefix}/spaces/{self.model.space_ids[adv.space]}/advisories/{rule}"
 
-    def advisory_publish(self, adv: Advisory) -> Publish:
-        """The retained advisory message; an empty retained message once it has cleared."""
+    def advisory_publish(self, adv: Advisory, timers: dict[str, Any] | None = None) -> Publish:
+        """The retained advisory message; an empty retained message once it has cleared.
+        ``timers``: the lifecycle state another instance needs to continue the advisory
+        (``handover``: exact times in epoch s, state and level codes, event count)."""
         if adv.cleared_at is not None:
             return Publish(self.advisory_topic(adv), None, retain=True, qos=1)
-        return Publish(self.advisory_topic(adv), self.advisory_payload(adv), retain=True, qos=1,
+        payload = self.advisory_payload(adv)
+        if timers is not None:
+            payload["handover"] = {"raised_at": adv.raised_at, "updated_at": adv.updated_at,
+                                   **copy.deepcopy(timers)}
+        return Publish(self.advisory_topic(adv), payload, retain=True, qos=1,
                        expiry_s=ADVISORY_EXPIRY_S)
 
     def advisory_persist(self, adv: Advisory, timers: dict[str, Any]) -> Persist:
@@ -198,7 +209,7 @@ class Publication:
         for q, mask in snap.assumed.items():
             if mask[i]:
                 inputs.setdefault(q, {"fresh": False})["assumed"] = self._assumption_notes(i)[q]
-        return {
+        out = {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
             "space": space_ref(space),
@@ -210,6 +221,17 @@ class Publication:
             "indices": self.indices_at(table, i),
             "advisory_only": True,
         }
+        moved = float(self.moved_at[i])
+        window = self.config.ingest.wbgt_window_s
+        if math.isfinite(moved) and snap.now - moved < window:
+            # moved here from another instance: the 60-minute WBGT window is rebuilt from
+            # the readings since, and partial until the mean covers enough of it
+            twa = table.get("wbgt_time_weighted")
+            whole = twa is not None and bool(twa.present[i])
+            out["windows"] = {"wbgt_60min": {"partial": not whole,
+                                             "rebuilding_since": iso(moved),
+                                             "whole_by": iso(moved + window)}}
+        return out
 
     def _assumption_notes(self, i: int) -> dict[str, str]:
         """quantity -> "assumed: ..." for space ``i`` (from its configuration, kept)."""
@@ -308,8 +330,8 @@ class Publication:
         if self.conditions_every_s <= 0:
             return []
         age = now - self.last_conditions
-        due = np.flatnonzero((age >= self.conditions_every_s)
-                             | (self.touched & (age >= CONDITIONS_MIN_S)))
+        due = np.flatnonzero(((age >= self.conditions_every_s)
+                              | (self.touched & (age >= CONDITIONS_MIN_S))) & self.owned)
         effects: list[Effect] = []
         for i in due:
             self.last_conditions[i] = now

@@ -180,7 +180,7 @@ def _carry_rules(old: Engine, new: Engine, same_config: BoolArray,
         rn = new_rules.get(ro.rule.key)
         kept: set[int] = set()
         if rn is not None and rn.rule.config == ro.rule.config and src.size:
-            keep = same_config[dst] & (rn.mask[dst] == ro.mask[src])
+            keep = same_config[dst] & (rn.base_mask[dst] == ro.base_mask[src])
             if set(ro.params) != set(rn.params):
                 keep[:] = False
             for name in ro.params:

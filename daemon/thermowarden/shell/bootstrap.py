@@ -6,6 +6,8 @@ import logging
 import os
 import pathlib
 import queue
+import re
+import socket
 import zlib
 from collections.abc import Mapping
 from dataclasses import dataclass
@@ -18,6 +20,7 @@ from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConf
 from thermowarden.engine import Engine, iso
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.group import Group
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
@@ -66,7 +69,11 @@ def load_configuration(config_path: str, *, broker_url: str | None = None,
     :class:`ConfigError` (or ValueError for ``--spaces`` naming an unknown space)."""
     config = load_site(config_path, {**os.environ, **(overrides or {})})
     if broker_url or protocol:
-        override = {k: v for k, v in (("url", broker_url), ("protocol", protocol)) if v}
+        urls = [u.strip() for u in broker_url.split(",") if u.strip()] if broker_url else []
+        override: dict[str, object] = {k: v for k, v in (
+            ("url", urls[0] if urls else None), ("protocol", protocol)) if v}
+        if len(urls) > 1:
+            override["fallback_urls"] = urls[1:]
         try:
             broker = BrokerConfig.model_validate({**config.broker.model_dump(), **override})
         except ValidationError as exc:
@@ -87,7 +94,8 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
               spaces: list[str] | None = None, protocol: str | None = None,
               clock: Clock | None = None, http_host: str = "127.0.0.1",
               overrides: dict[str, str] | None = None,
-              move_damaged_store: bool = False) -> Running:
+              move_damaged_store: bool = False, group: str | None = None,
+              instance: str | None = None) -> Running:
     """Load, check and wire everything; returns the service ready to :meth:`Service.run`.
 
     Raises :class:`ConfigError` (the caller prints it and exits non-zero) for a bad site,
@@ -95,7 +103,12 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     ``overrides`` are extra THERMOWARDEN_... settings on top of the environment.
     ``move_damaged_store``: a store that fails its check is renamed aside and a new one
     begins (live advisories are raised again from fresh readings).
+    ``group``: share the spaces with the other instances of this group (``instance``: this
+    one's name in it); see :mod:`thermowarden.shell.group`.
     """
+    if group and (shard or spaces):
+        raise ValueError("--group shares every space of the site: not with --shard or "
+                         "--spaces")
     def load() -> tuple[SiteConfig, Mapping[str, CompiledPack]]:
         return load_configuration(config_path, broker_url=broker_url, protocol=protocol,
                                   shard=shard, spaces=spaces, overrides=overrides)
@@ -105,7 +118,14 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     warm_up(log.info)
     clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
-    suffix = f"-shard{shard[0]}of{shard[1]}" if shard else ""
+    site_id = config.site.id
+    instance = (instance or config.broker.client_id
+                or (f"{site_id}-{socket.gethostname()}" if group else f"thermowarden-{site_id}"))
+    if group and not re.fullmatch(r"[A-Za-z0-9_\-]{1,64}", instance):
+        raise ValueError(f"instance name {instance!r}: letters, digits, - and _ only (it is "
+                         "a topic level)")
+    suffix = (f"-shard{shard[0]}of{shard[1]}" if shard else
+              f"-{instance}" if group else "")
     store_path = state / f"{config.site.id}{suffix}.sqlite3"
     try:
         store = Store(store_path)
@@ -117,7 +137,8 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                     moved)
         store = Store(store_path)
     engine = Engine(config, model, packs, start=clock.now())
-    notes = engine.restore(store.advisories())
+    # a group member continues advisories from their retained messages, not its store
+    notes = engine.restore([] if group else store.advisories())
     for note in notes:
         log.warning(note)
     restored = len(engine.live_advisories())
@@ -132,13 +153,12 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     control: queue.Queue[Control] = queue.Queue()
     prefix = config.output.prefix
     since = iso(clock.now())
-    instance = config.broker.client_id or f"thermowarden-{config.site.id}"
     if shard:
         instance += f"-{shard[0]}of{shard[1]}"
     status = {"schema": "thermowarden.status/1", "site": config.site.id, "instance": instance,
               "since": since, "version": __version__, "spaces": model.n_spaces,
               "advisory_only": True}
-    status_topic = f"{prefix}/status" + (f"/{instance}" if shard else "")
+    status_topic = f"{prefix}/status" + (f"/{instance}" if shard or group else "")
     subs = model.subscriptions(per_space=shard is not None or bool(spaces))
     subs.append(f"{prefix}/commands/#")
     v311 = config.broker.protocol == "3.1.1"
@@ -157,6 +177,10 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                       f"{prefix}/replies", clock, delivery=delivery,
                       reloader=lambda old: prepare_reload(old, load),
                       per_space_subscriptions=shard is not None or bool(spaces))
+    if group:
+        service.group = Group(group, instance, config.broker.keepalive_s, prefix)
+        link.watch = service.group.watch_prefixes()
+        service.group.attach(service)
     web = None
     if config.web.enabled:
         view, web = build_web(config, config_path, packs, inbox, store.path, clock.now)

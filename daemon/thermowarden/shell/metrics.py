@@ -75,3 +75,17 @@ class Metrics:
         self.clock_steps = Counter("thermowarden_clock_steps",
                                    "Wall-clock steps seen (corrections of the system clock)",
                                    ["direction"], registry=r)
+        # one instance of a group (``run --group``)
+        self.group_owned = Gauge("thermowarden_group_owned_spaces",
+                                 "Spaces this instance of a group owns and evaluates",
+                                 registry=r)
+        self.group_members = Gauge("thermowarden_group_members",
+                                   "Live members of the group, as this instance sees them",
+                                   registry=r)
+        self.group_uncovered = Gauge(
+            "thermowarden_group_uncovered_seconds",
+            "Seconds since every space of the site last had an owner (0 while all have one)",
+            registry=r)
+        self.group_moves = Counter("thermowarden_group_spaces_moved",
+                                   "Spaces this instance took over or gave up", ["direction"],
+                                   registry=r)

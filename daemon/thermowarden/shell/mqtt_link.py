@@ -4,9 +4,21 @@ A thread of our own runs the network loop and reconnects with capped exponential
 and jitter; while it waits it probes the broker's port once a second and starts again from
 the shortest delay as soon as the broker answers. Callbacks do nothing but enqueue: sensor
 messages and commands onto the bounded ``inbox`` (overflow is counted), connection events
-and publish acknowledgements onto the unbounded ``control`` queue. Publishing is done by
-the engine thread through :meth:`MqttLink.publish`; paho's client is safe to publish from
-another thread.
+and publish acknowledgements onto the unbounded ``control`` queue.
+
+Every write to the socket is made by the network thread. The engine thread publishes
+through :meth:`MqttLink.publish`, which only queues the packet: paho takes its own lock,
+gives the message its id, appends the packet to its output queue and wakes the network
+thread's ``select`` through its socket pair; the network thread's next ``loop`` writes it.
+(paho writes the socket directly from the publishing thread when no loop thread of its own
+runs and no ``on_socket_register_write`` callback is set; with our own loop thread that
+made two threads write one socket at once, which nats-server saw as corrupt packets in
+bursts. Setting the callback, which does nothing here, selects paho's queue-only path.)
+
+Several broker URLs (``broker.url`` then ``broker.fallback_urls``, the nodes of a clustered
+broker) are tried in turn: a failed connect moves to the next one at once, and a lost
+connection reconnects to the next node, waiting (with backoff) only after every node has
+been tried.
 
 paho keeps every QoS 1 message it was handed until the broker acknowledges it, across
 reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
@@ -54,6 +66,7 @@ BACKOFF_START_S = 0.5
 BACKOFF_CAP_S = 30.0
 PROBE_EVERY_S = 1.0
 """While waiting to reconnect, the broker's port is tried this often (a TCP connect)."""
+RETRY_SUBSCRIBE_S = 1.0
 SYS_TOPICS = ("$SYS/broker/publish/messages/dropped",
               "$SYS/broker/store/messages/count")
 """Mosquitto's own counters: messages it dropped (queue limits), messages it holds."""
@@ -74,7 +87,8 @@ class Incoming:
     oversize: int = 0
     """A command body over the limit: its length (the body itself is dropped)."""
     kind: str = "sensor"
-    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check) or "sys"."""
+    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys" or
+    "watch" (a group's status records and retained advisories)."""
     on_reply: Callable[[dict[str, Any]], None] | None = None
     """For a command from the web page or API: called with the engine's reply."""
 
@@ -127,6 +141,10 @@ class Inbox:
         return len(self.items)
 
 
+def _no_op(*args: Any) -> None:
+    """paho's socket-registration callbacks: nothing to do (see the module docstring)."""
+
+
 def parse_url(url: str) -> tuple[str, int, bool]:
     u = urllib.parse.urlparse(url)
     tls = u.scheme == "mqtts"
@@ -142,7 +160,8 @@ class MqttLink:
                  metrics: Metrics, client_id: str, command_prefix: str = "\0",
                  now: Callable[[], float] = time.time, *, max_packet_bytes: int = 0,
                  max_command_bytes: int = 65_536, identity_property: str | None = None,
-                 echo_prefix: str | None = None, read_sys: bool = True) -> None:
+                 echo_prefix: str | None = None, read_sys: bool = True,
+                 watch: tuple[str, ...] = ()) -> None:
         self.cfg = cfg
         self.max_packet_bytes = max_packet_bytes
         self.max_command_bytes = max_command_bytes
@@ -152,6 +171,9 @@ class MqttLink:
         if echo_prefix:
             self.subscriptions.append(echo_prefix + "#")
         self.read_sys = read_sys
+        self.watch = watch
+        """Topic prefixes delivered as kind "watch" (a group's status records and retained
+        advisories), not counted as sensor messages."""
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
@@ -161,7 +183,10 @@ class MqttLink:
         self.control = control
         self.metrics = metrics
         self.v5 = cfg.protocol == "5"
-        self.host, self.port, tls = parse_url(cfg.url)
+        self.nodes = [parse_url(u) for u in [cfg.url, *cfg.fallback_urls]]
+        """Every broker node: (host, port, tls), tried in turn."""
+        self.node = 0
+        self.host, self.port, tls = self.nodes[0]
         self.client = mqtt.Client(
             callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
@@ -182,6 +207,9 @@ class MqttLink:
         self.client.on_message = self._on_message
         self.client.on_publish = self._on_publish
         self.client.on_subscribe = self._on_subscribe
+        # the network thread alone writes the socket (see the module docstring)
+        self.client.on_socket_register_write = _no_op
+        self.client.on_socket_unregister_write = _no_op
         self.connected = threading.Event()
         self.subscribed = threading.Event()
         self._stop = threading.Event()
@@ -191,6 +219,13 @@ class MqttLink:
         self.received = 0
         """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
+        self._round_start = 0
+        self.qos0: set[str] = set()
+        """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
+        broker QoS 0 deliveries do not wait for the streams)."""
+        self._sub_topics: dict[int, str] = {}
+        self._retry_subs: set[str] = set()
+        """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
 
     # ---------------------------------------------------------------- callbacks (enqueue only)
     def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
@@ -207,35 +242,42 @@ class MqttLink:
         # subscribe again on every connect
         self.subscribed.clear()
         self._pending_subs = set()
+        self._retry_subs = set()
         for topic in self.subscriptions:
-            if self.v5 and topic.startswith(self.command_prefix):
-                # see the retain flag on live deliveries too: a retained command is never
-                # executed, not even once
-                _, mid = client.subscribe(topic, options=SubscribeOptions(
-                    qos=1, retainAsPublished=True))
-            else:
-                _, mid = client.subscribe(topic, qos=1)
-            if mid is not None:
-                self._pending_subs.add(mid)
+            self._subscribe(topic)
         if self.read_sys:
             for topic in SYS_TOPICS:  # best effort: not every broker publishes them
                 client.subscribe(topic, qos=0)
         self.control.put(Control("connected"))
+
+    def _subscribe(self, topic: str) -> None:
+        if self.v5 and topic.startswith(self.command_prefix):
+            # see the retain flag on live deliveries too: a retained command is never
+            # executed, not even once
+            _, mid = self.client.subscribe(topic, options=SubscribeOptions(
+                qos=1, retainAsPublished=True))
+        else:
+            _, mid = self.client.subscribe(
+                topic, qos=0 if topic in self.qos0 else self.cfg.subscribe_qos)
+        if mid is not None:
+            self._pending_subs.add(mid)
+            self._sub_topics[mid] = topic
 
     def set_subscriptions(self, subscriptions: list[str]) -> None:
         """Change the topic filters (after a reload): unsubscribe what is gone, subscribe
         what is new; every later connect subscribes to the new list."""
         old = set(self.subscriptions)
         self.subscriptions = list(subscriptions)
+        if self.echo_prefix and self.echo_prefix + "#" not in self.subscriptions:
+            self.subscriptions.append(self.echo_prefix + "#")
+        subscriptions = self.subscriptions
         if not self.connected.is_set():
             return
         removed = sorted(old - set(subscriptions))
         if removed:
             self.client.unsubscribe(removed)
         for topic in sorted(set(subscriptions) - old):
-            _, mid = self.client.subscribe(topic, qos=1)
-            if mid is not None:
-                self._pending_subs.add(mid)
+            self._subscribe(topic)
 
     def _on_disconnect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
                        properties: Any) -> None:
@@ -251,9 +293,14 @@ class MqttLink:
                   or getattr(r, "value", 0) == 0x80]
         if mid not in self._pending_subs:
             return  # a $SYS subscription (best effort)
+        topic = self._sub_topics.pop(mid, None)
         if failed:
             self.control.put(Control("refused", mid=mid,
-                                     reason=f"subscription refused: {', '.join(failed)}"))
+                                     reason=f"subscription to {topic} refused: "
+                                            f"{', '.join(failed)}"))
+            if topic is not None and topic in self.subscriptions:
+                # a clustered broker refuses while it moves its streams: ask again
+                self._retry_subs.add(topic)
         self._pending_subs.discard(mid)
         if not self._pending_subs:
             self.subscribed.set()
@@ -279,6 +326,9 @@ class MqttLink:
             item = Incoming(topic, bytes(msg.payload), 0.0, kind="echo")
         elif topic.startswith("$SYS/"):
             item = Incoming(topic, bytes(msg.payload), 0.0, kind="sys")
+        elif self.watch and topic.startswith(self.watch):
+            item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain),
+                            kind="watch")
         else:
             self.received += 1
             item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain))
@@ -305,12 +355,39 @@ class MqttLink:
         self._thread.start()
 
     def _probe(self) -> bool:
-        """True when the broker's port accepts a TCP connection."""
-        try:
-            with socket.create_connection((self.host, self.port), timeout=0.5):
-                return True
-        except OSError:
-            return False
+        """True when a broker node's port accepts a TCP connection (that node is tried
+        next)."""
+        for k in range(len(self.nodes)):
+            j = (self.node + k) % len(self.nodes)
+            host, port, _ = self.nodes[j]
+            try:
+                with socket.create_connection((host, port), timeout=0.5):
+                    self._use(j)
+                    return True
+            except OSError:
+                continue
+        return False
+
+    def _use(self, j: int) -> None:
+        self.node = j
+        self.host, self.port, _ = self.nodes[j]
+
+    def _next_node(self) -> bool:
+        """Move to the next broker node; True when that starts a new round over all nodes
+        (wait before it), always True with one node."""
+        self._use((self.node + 1) % len(self.nodes))
+        return self.node == self._round_start
+
+    def _connect(self) -> None:
+        if self.v5:
+            props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
+            props.SessionExpiryInterval = 0
+            if self.max_packet_bytes:
+                props.MaximumPacketSize = int(self.max_packet_bytes)
+            self.client.connect(self.host, self.port, self.cfg.keepalive_s,
+                                clean_start=True, properties=props)
+        else:
+            self.client.connect(self.host, self.port, self.cfg.keepalive_s)
 
     def _wait(self, seconds: float, probe: bool) -> bool:
         """Wait ``seconds`` (or until stopped); with ``probe``, return True early as soon as
@@ -328,31 +405,26 @@ class MqttLink:
 
     def _run(self) -> None:
         backoff = BACKOFF_START_S
-        first = True
+        self._round_start = self.node
         while not self._stop.is_set():
             try:
-                if first:
-                    if self.v5:
-                        props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
-                        props.SessionExpiryInterval = 0
-                        if self.max_packet_bytes:
-                            props.MaximumPacketSize = int(self.max_packet_bytes)
-                        self.client.connect(self.host, self.port, self.cfg.keepalive_s,
-                                            clean_start=True, properties=props)
-                    else:
-                        self.client.connect(self.host, self.port, self.cfg.keepalive_s)
-                    first = False
-                else:
-                    self.client.reconnect()
+                self._connect()
             except (OSError, ssl.SSLError, ValueError) as exc:
+                failed = f"{self.host}:{self.port}"
+                if not self._next_node():
+                    log.warning("cannot reach broker %s (%s); trying %s:%s", failed, exc,
+                                self.host, self.port)
+                    continue
                 wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
-                log.warning("cannot reach broker %s:%s (%s); retrying in %.1f s", self.host,
-                            self.port, exc, wait)
+                log.warning("cannot reach broker %s (%s); retrying in %.1f s", failed, exc,
+                            wait)
                 backoff = min(BACKOFF_CAP_S, backoff * 2)
                 if self._wait(wait, probe=True):
                     backoff = BACKOFF_START_S  # the broker answers again: start over
+                self._round_start = self.node
                 continue
             refused = False
+            last_retry = time.monotonic()
             while not self._stop.is_set():
                 rc = self.client.loop(timeout=0.1)
                 if rc != mqtt.MQTT_ERR_SUCCESS:
@@ -360,9 +432,23 @@ class MqttLink:
                     break
                 if self.connected.is_set():
                     backoff = BACKOFF_START_S
+                    if self._retry_subs and time.monotonic() - last_retry >= \
+                            RETRY_SUBSCRIBE_S:
+                        last_retry = time.monotonic()
+                        for topic in sorted(self._retry_subs):
+                            self._subscribe(topic)
+                        self._retry_subs.clear()
             if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
+            if len(self.nodes) > 1 and not refused:
+                # a clustered broker: another node carries on at once (this one may be gone)
+                self._next_node()
+                self._round_start = self.node
+                log.warning("connection to the broker lost; connecting to %s:%s", self.host,
+                            self.port)
+                self._wait(random.uniform(0.05, 0.25), probe=False)
+                continue
             wait = min(BACKOFF_CAP_S, backoff) * random.uniform(0.5, 1.0)
             log.warning("connection to the broker lost; reconnecting in %.1f s", wait)
             backoff = min(BACKOFF_CAP_S, backoff * 2)
@@ -371,6 +457,7 @@ class MqttLink:
                 self._wait(wait, probe=False)
             elif self._wait(wait, probe=True):
                 backoff = BACKOFF_START_S
+            self._round_start = self.node
 
     # ---------------------------------------------------------------- publishing
     def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,
@@ -406,7 +493,9 @@ class MqttLink:
             while not info.is_published() and time.monotonic() < deadline and \
                     self.connected.is_set():
                 time.sleep(0.02)
-            self.client.disconnect()
+            self.client.disconnect()  # written by the network thread, which then ends
+            if self._thread is not None:
+                self._thread.join(min(timeout, 2.0))
         self._stop.set()
         if self._thread is not None:
             self._thread.join(timeout)

@@ -33,6 +33,7 @@ from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.shell import systemd
 from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.group import Group
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
@@ -178,6 +179,8 @@ class Service:
         self.failures_seen: set[tuple[int, str]] = set()
         self.observers: list[Callable[[list[Effect]], None]] = []
         """Called with every batch of executed effects (the web page's live view)."""
+        self.group: Group | None = None
+        """One instance of a group sharing the site's spaces (``run --group``)."""
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
@@ -190,6 +193,8 @@ class Service:
         if self.silence_limit_s is not None:
             last = self.last_sensor if self.last_sensor is not None else self.started
             receiving = self.clock.monotonic() - last < self.silence_limit_s
+            if self.group is not None and not self.group.holding.any():
+                receiving = True  # a member of a group that owns no space has nothing to hear
         parts = {"connected": self.link.connected.is_set(),
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
@@ -367,7 +372,9 @@ class Service:
     # ------------------------------------------------------------------ the loop
     def _handle_control(self, c: Control) -> None:
         if c.kind == "connected":
-            log.info("connected to the broker")
+            log.info("connected to the broker %s:%s", self.link.host, self.link.port)
+            if self.group is not None:
+                self.group.connected()
             self._flush_after_connect()
         elif c.kind == "subscribed":
             log.info("subscribed to %d topic filter(s)", len(self.link.subscriptions))
@@ -409,6 +416,10 @@ class Service:
         if m.kind == "sys":
             self._sys(m.topic, m.payload)
             return
+        if m.kind == "watch":
+            if self.group is not None:
+                self.group.receive(m.topic, m.payload)
+            return
         self.last_sensor = self.clock.monotonic()
         rejections = self.engine.message(m.topic, m.payload, m.received, m.retained)
         self.dirty = True
@@ -445,6 +456,9 @@ class Service:
                      "request_id": None, "at": _iso(now)}
             effects = []
         else:
+            if self.group is not None and m.on_reply is None and \
+                    not self.group.answers(_advisory_id(m.payload)):
+                return  # every member receives it: the one that holds the advisory answers
             identity = m.identity or (parts[2] if len(parts) == 3 else None)
             reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
                                                  identity=identity)
@@ -523,6 +537,8 @@ class Service:
             self.metrics.active.labels(rule=rule, priority=prio).set(count)
         self.dirty = False
         self.last_eval = self.clock.monotonic()
+        if self.group is not None:
+            self.group.evaluated(now)
         self._report_failures()
         if not self.first_evaluation.is_set():
             self.first_evaluation.set()
@@ -607,8 +623,11 @@ class Service:
                 log.info("%s", note)
             self.execute(result.effects)
             config = result.engine.config
-            subs = result.model.subscriptions(per_space=self.per_space_subscriptions)
-            self.link.set_subscriptions(subs + [f"{self.command_prefix}+"])
+            if self.group is not None:
+                self.group.reapplied()
+            else:
+                subs = result.model.subscriptions(per_space=self.per_space_subscriptions)
+                self.link.set_subscriptions(subs + [f"{self.command_prefix}#"])
             if self.delivery is not None:
                 self.delivery.reconfigure(config.delivery, config.site.timezone)
             self.dirty = True
@@ -677,6 +696,8 @@ class Service:
                 for m in batch:
                     self._handle_message(m)
                 self._sync_counters()
+                if self.group is not None:
+                    self.group.update()
                 if batch:
                     # let messages gather for a moment: fewer wake-ups, less contention
                     # with the network thread for the interpreter lock
@@ -720,6 +741,8 @@ class Service:
                 self._handle_control(self.control.get(timeout=0.1))
             except queue.Empty:
                 pass
+        if self.group is not None:
+            self.group.stop()
         self.link.stop()
         if self.delivery is not None:
             self.delivery.stop()
@@ -743,6 +766,14 @@ def _identify(payload: dict[str, Any]) -> None:
     """Give an event its identity once (kept on every copy: stored, sent, re-sent)."""
     if "event_id" not in payload:
         payload["event_id"] = uuid.uuid4().hex
+
+
+def _advisory_id(body: bytes) -> object:
+    try:
+        data: Any = json.loads(body.decode("utf-8"))
+    except (UnicodeDecodeError, ValueError, RecursionError):
+        return None
+    return data.get("advisory_id") if isinstance(data, dict) else None
 
 
 def _reply_to(body: bytes) -> str | None:

@@ -1,0 +1,152 @@
+"""One engine of a group: it evaluates only the spaces it owns, gives up the others, and
+continues the live advisories another instance published (Engine.set_owned, Engine.adopt)."""
+
+from __future__ import annotations
+
+import json
+import textwrap
+
+from tests.engine.conftest import PACK, SITE, validate_effects
+from tests.engine.test_engine import events, feed
+from thermowarden.config import load_site
+from thermowarden.effects import Persist, Publish
+from thermowarden.engine import Engine
+from thermowarden.rules import load_rule_packs
+from thermowarden.site_model import build_site_model
+
+
+def make(tmp_path, name):
+    d = tmp_path / name
+    (d / "packs").mkdir(parents=True)
+    (d / "packs" / "testpack.yaml").write_text(PACK)
+    site = d / "site.yaml"
+    site.write_text(textwrap.dedent(SITE))
+    config = load_site(site, {})
+    packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
+    return Engine(config, build_site_model(config), packs, conditions_every_s=60, start=0.0)
+
+
+def run(engine, t0, t1, step=10, **temps):
+    effects = []
+    t = t0
+    while t <= t1:
+        feed(engine, t, **temps)
+        effects += engine.tick(t)
+        t += step
+    validate_effects(effects)
+    return effects
+
+
+def retained(effects):
+    """The broker's retained advisory messages after ``effects`` (latest per topic), as a
+    member of the group receives them (through JSON)."""
+    kept = {}
+    for e in effects:
+        if isinstance(e, Publish) and "/advisories/" in e.topic:
+            kept[e.topic] = None if e.payload is None else json.loads(json.dumps(e.payload))
+    return {t: p for t, p in kept.items() if p is not None}
+
+
+def test_only_owned_spaces_are_evaluated_and_published(tmp_path):
+    a = make(tmp_path, "a")
+    a.set_owned(["room-2"], 0.0)
+    e = run(a, 0, 200, **{"room-1": 40, "room-2": 25})
+    assert events(e, space="room-1") == []
+    topics = {x.topic for x in e if isinstance(x, Publish)}
+    assert "tw/lab/spaces/room-2/conditions" in topics
+    assert not any("room-1" in t for t in topics)
+
+
+def _history_a(engine):
+    """Raise two advisories in room-1, acknowledge one and shelve the other."""
+    effects = run(engine, 0, 70, **{"room-1": 34})  # raised at medium ("levels") and hot
+    effects += run(engine, 80, 300, **{"room-1": 34})
+    hot = next(x for x in engine.live_advisories() if x.rule == "testpack.hot")
+    reply, eff = engine.command("acknowledge", json.dumps(
+        {"advisory_id": hot.id, "by": "Ana"}).encode(), 310)
+    assert reply["ok"]
+    effects += eff
+    lv = next(x for x in engine.live_advisories() if x.rule == "testpack.levels")
+    reply, eff = engine.command("shelve", json.dumps(
+        {"advisory_id": lv.id, "by": "Sam", "reason": "survey", "duration_s": 600}).encode(),
+        320)
+    assert reply["ok"]
+    effects += eff
+    effects += run(engine, 330, 400, **{"room-1": 34})
+    return effects
+
+
+def published_events(effects):
+    return [(p["event"], p["advisory"]["id"], p["advisory"]["priority"], p["event_id"])
+            for p in (x.payload for x in effects if isinstance(x, Publish)
+                      and "/events/" in x.topic and "room-1" in x.topic)]
+
+
+def test_a_new_owner_continues_the_advisory_exactly(tmp_path):
+    a, b, ref = make(tmp_path, "a"), make(tmp_path, "b"), make(tmp_path, "ref")
+    b.set_owned(["room-2"], 0.0)
+    effects = _history_a(a)
+    _history_a(ref)  # the same site on an instance that never moves
+    before = {x.rule: a.advisory_payload(x) for x in a.live_advisories()}
+    timers = {x.rule: a.advisories._timers(x) for x in a.live_advisories()}
+
+    # a dies; b takes room-1 over: adopt the retained messages first, then evaluate
+    b.ticks = 1  # b has been running
+    b.set_owned(["room-1", "room-2"], 410.0)
+    notes, eff = b.adopt(retained(effects).values(), 410.0, by="b")
+    assert notes == []
+    validate_effects(eff)
+    after = {x.rule: b.advisory_payload(x) for x in b.live_advisories()}
+    assert set(after) == set(before) == {"testpack.hot", "testpack.levels"}
+    for rule, p in before.items():
+        q = after[rule]
+        assert q["history"][:-1] == p["history"]
+        assert q["history"][-1] == {"at": "1970-01-01T00:06:50Z", "event": "moved", "by": "b"}
+        for key in ("id", "priority", "state", "acknowledged", "shelved", "raised_at",
+                    "acted_on", "title", "numbers"):
+            assert q[key] == p[key], key
+        got = b.advisories._timers(next(x for x in b.live_advisories() if x.rule == rule))
+        assert got == timers[rule]
+    # the retained message goes out again with the moved entry; the store gets the row
+    assert any(isinstance(x, Persist) and x.kind == "advisory" for x in eff)
+    # b goes on exactly as an instance that never moved: nothing raised again, the same
+    # reminders, the shelving running out as planned, the escalation, with the same ids
+    e_b = run(b, 420, 900, **{"room-1": 34}) + run(b, 910, 1500, **{"room-1": 38})
+    e_ref = run(ref, 420, 900, **{"room-1": 34}) + run(ref, 910, 1500, **{"room-1": 38})
+    got, want = published_events(e_b), published_events(e_ref)
+    assert got == want
+    assert ("escalated", before["testpack.levels"]["id"], "urgent") in [g[:3] for g in got]
+    assert not any(g[0] == "raised" for g in got)
+    # the moved window: the conditions say the 60-minute WBGT window is partial
+    cond = [x.payload for x in e_b if isinstance(x, Publish) and x.topic.endswith(
+        "room-1/conditions")][-1]
+    assert cond["windows"]["wbgt_60min"]["partial"] is True
+    assert cond["windows"]["wbgt_60min"]["rebuilding_since"] == "1970-01-01T00:06:50Z"
+    assert not any("windows" in x.payload for x in e_ref if isinstance(x, Publish)
+                   and x.topic.endswith("/conditions"))
+
+
+def test_giving_a_space_up_forgets_it_and_its_store_rows(tmp_path):
+    a = make(tmp_path, "a")
+    run(a, 0, 70, **{"room-1": 34})
+    assert {x.rule for x in a.live_advisories()} == {"testpack.hot", "testpack.levels"}
+    eff = a.set_owned(["room-2"], 80.0)
+    assert a.live_advisories() == []
+    assert sorted(x.key for x in eff if isinstance(x, Persist) and x.record is None) == [
+        "room-1/testpack.hot", "room-1/testpack.levels"]
+    e = run(a, 80, 200, **{"room-1": 34})
+    assert events(e, space="room-1") == []
+
+
+def test_adopt_keeps_a_newer_local_advisory_and_refuses_a_message_without_state(tmp_path):
+    a = make(tmp_path, "a")
+    effects = run(a, 0, 70, **{"room-1": 34})
+    msgs = list(retained(effects).values())
+    old = [dict(p) for p in msgs]
+    b = make(tmp_path, "b")
+    b.set_owned(["room-1", "room-2"], 80.0)
+    stripped = [{k: v for k, v in p.items() if k != "handover"} for p in old]
+    notes, eff = b.adopt(stripped, 80.0)
+    assert len(notes) == 2 and "no handover state" in notes[0] and eff == []
+    notes, eff = a.adopt(old, 80.0)  # a already holds newer or equal state: nothing taken
+    assert notes == [] and eff == []

@@ -1,0 +1,164 @@
+"""A group of instances sharing a site through one Mosquitto broker: every space owned by
+exactly one, an instance killed mid-advisory (its advisories continue on a survivor, not
+raised again), one joining (spaces move to it without a gap), one command answered once."""
+
+from __future__ import annotations
+
+import json
+import time
+import uuid
+
+import pytest
+
+from tests.engine.conftest import validator
+from tests.shell.conftest import (
+    SLOW,
+    Collector,
+    ServiceProcess,
+    clear_retained,
+    wait_for,
+    write_site,
+)
+from tests.shell.group_parts import Feeder, GroupWatch, wait_until
+
+pytestmark = pytest.mark.broker
+
+KEEPALIVE_S = 6
+BOUND_S = 2 * KEEPALIVE_S
+
+
+def test_group_covers_every_space_through_a_kill_and_a_join(tmp_path, system_broker_port):
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = [f"s{i:02d}" for i in range(12)]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n",
+                      evaluation="{tick_s: 1, flood_limit: 1000}")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    watch = GroupWatch(watch_c, prefix, "g", spaces)
+    temp = {"value": "25"}
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
+    feeder.start()
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+             for n in ("a", "b", "c")}
+    try:
+        for p in procs.values():
+            p.start(wait_ready=False)
+        for p in procs.values():
+            wait_for(p.ready, SLOW, "an instance to be ready")
+        wait_for(lambda: watch.covered_by({"a", "b", "c"}), SLOW,
+                 "the three instances to own every space once")
+        temp["value"] = "31"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "raised"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every space's hot advisory")
+        victim = watch.owner_of("s00")
+        assert victim is not None
+        adv_before = next(e["advisory"] for e in watch_c.events(prefix)
+                          if e["event"] == "raised" and e["advisory"]["space"]["id"] == "s00"
+                          and e["advisory"]["rule"] == "fast.hot")
+        survivors = {"a", "b", "c"} - {victim}
+        t_kill = time.monotonic()
+        procs[victim].kill()
+        t_covered = wait_until(lambda: watch.covered_by(survivors), SLOW)
+        assert t_covered is not None, "the survivors never covered every space"
+        assert t_covered - t_kill <= BOUND_S, (t_covered - t_kill, BOUND_S)
+        print(f"mosquitto: every space owned again {t_covered - t_kill:.1f} s after the kill "
+              f"(bound {BOUND_S} s)")
+        # the advisory of s00 continues on its new owner with its identity and history
+        topic = f"{prefix}/spaces/s00/advisories/fast.hot"
+
+        def moved() -> dict | None:
+            for t, p, _ in reversed(list(watch_c.messages)):
+                if t == topic and p:
+                    d = json.loads(p)
+                    if d["history"][-1]["event"] == "moved":
+                        return d
+            return None
+        wait_for(lambda: moved() is not None, SLOW, "the moved advisory of s00")
+        adv = moved()
+        assert adv is not None
+        assert adv["id"] == adv_before["id"]
+        assert adv["history"][0] == adv_before["history"][0]
+        assert adv["history"][-1]["by"] == watch.owner_of("s00")
+        # a command goes to every member; only the owner answers, once
+        reply_topic = f"{prefix}/replies/t-{uuid.uuid4().hex[:6]}"
+        replies = Collector(port, [reply_topic])
+        replies.publish(f"{prefix}/commands/facilities/acknowledge", json.dumps(
+            {"advisory_id": adv["id"], "by": "Ana", "reply_to": reply_topic}))
+        wait_for(lambda: replies.json_on(reply_topic), SLOW, "the reply")
+        # one more instance joins: spaces move to it, none is dropped
+        procs["d"] = ServiceProcess(site, tmp_path / "d", "--group", "g", "--instance", "d")
+        procs["d"].start()
+        wait_for(lambda: watch.covered_by(survivors | {"d"}), SLOW,
+                 "the new member to take its share")
+        assert watch.owners()["d"]
+        # the temperature falls: every advisory clears once, nothing was raised twice
+        temp["value"] = "27"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "cleared"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every hot advisory to clear")
+        replies.sync(reply_topic)
+        assert [r["ok"] for r in replies.json_on(reply_topic)] == [True]
+        replies.close()
+        events = watch_c.events(prefix)
+        raised = [e["advisory"]["space"]["id"] for e in events
+                  if e["event"] == "raised" and e["advisory"]["rule"] == "fast.hot"]
+        assert sorted(raised) == spaces  # once each, through a kill and a join
+        ids = {e["event_id"] for e in events if "event_id" in e}
+        assert len(ids) == len([e for e in events if "event_id" in e])  # no id used twice
+        # the survivors saw no space without an owner for longer than the bound
+        assert not [e for e in events if e.get("kind") == "spaces_unowned"]
+        for n in survivors | {"d"}:
+            assert procs[n].metric("thermowarden_group_uncovered_seconds") <= BOUND_S
+            assert procs[n].metric("thermowarden_group_members") == 3
+    finally:
+        feeder.stop()
+        for p in procs.values():
+            if p.proc is not None:
+                p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+
+
+def test_unowned_spaces_and_an_idle_member_are_told_to_the_integrator(tmp_path,
+                                                                      system_broker_port):
+    """A member that claims every space in its published view but evaluates nothing (its
+    records are written here by the test): the spaces the real instance wins have two
+    claimants and so no owner; after the bound, the integrator is told, and about the idle
+    member at once."""
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = [f"s{i:02d}" for i in range(12)]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n",
+                      evaluation="{tick_s: 1, flood_limit: 1000}")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    fake = {"schema": "thermowarden.status/1", "instance": "zz-fake", "state": "online",
+            "group": "g", "view": ["zz-fake"], "evaluated_at": 0.0}
+    beats = Feeder(watch_c, lambda: {f"{prefix}/status/zz-fake": json.dumps(
+        {**fake, "evaluated_at": time.time() - 600})}, every_s=1.0)
+    beats.start()
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance", "a")
+    try:
+        proc.start()
+
+        def notices(kind: str) -> list[dict]:
+            return [e for e in watch_c.events(prefix) if e.get("kind") == kind]
+        wait_for(lambda: notices("owner_idle"), SLOW, "the idle-member notice")
+        (idle,) = notices("owner_idle")
+        assert idle["members"] == ["zz-fake"] and idle["audience"] == "integrator"
+        assert idle["bound_s"] == BOUND_S
+        wait_for(lambda: notices("spaces_unowned"), SLOW, "the unowned-spaces notice")
+        (gap,) = notices("spaces_unowned")
+        assert 0 < gap["count"] < len(spaces) and set(gap["spaces"]) < set(spaces)
+        assert "had no owner for more than 12 s" in gap["text"]
+        assert proc.metric("thermowarden_group_uncovered_seconds") > BOUND_S
+        assert proc.metric("thermowarden_group_owned_spaces") == 0
+        for notice in (idle, gap):
+            validator("event.v1.json").validate(notice)
+    finally:
+        beats.stop()
+        proc.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
