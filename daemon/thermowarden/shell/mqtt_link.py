@@ -46,6 +46,7 @@ from paho.mqtt.properties import Properties
 from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
+from thermowarden.shell.buffered_client import BufferedClient
 from thermowarden.shell.metrics import Metrics
 
 log = logging.getLogger("thermowarden.mqtt")
@@ -162,7 +163,7 @@ class MqttLink:
         self.metrics = metrics
         self.v5 = cfg.protocol == "5"
         self.host, self.port, tls = parse_url(cfg.url)
-        self.client = mqtt.Client(
+        self.client = BufferedClient(
             callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
             reconnect_on_failure=False)
