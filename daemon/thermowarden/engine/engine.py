@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from collections.abc import Set as AbstractSet
 from typing import Any, Final
 
@@ -96,6 +96,24 @@ class Engine:
             if r.reason in IMPLAUSIBLE_REASONS:
                 self.health.note_implausible(r.point, now)
         return rejections
+
+    def messages(self, items: Iterable[tuple[str, bytes, float, bool]]) -> list[Rejection]:
+        """Sensor messages ``(topic, payload, received at, retained)`` in order, as
+        :meth:`message` one by one would take them; returns all their rejections."""
+        ingest = self.ingest
+        rejected = ingest.ingest_many(items)
+        points = self.model.points
+        touched = self.publication.touched
+        for pid in ingest.last_points:
+            space = points[pid].space
+            if space != SITE:
+                touched[space] = True
+        out: list[Rejection] = []
+        for now, r in rejected:
+            if r.reason in IMPLAUSIBLE_REASONS:
+                self.health.note_implausible(r.point, now)
+            out.append(r)
+        return out
 
     # ------------------------------------------------------------------ tick
     def tick(self, now: float) -> list[Effect]:
