@@ -24,6 +24,7 @@ import queue
 import threading
 import time
 import uuid
+from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -427,9 +428,12 @@ class Service:
             self._rejected(rejections)
 
     def _rejected(self, rejections: list[Rejection]) -> None:
-        """Count every rejection; log them at a limited rate per reason and point."""
+        """Count every rejection (one metric update per reason, not per message: a flood
+        of bad payloads does not take the metric's lock for each); log them at a limited
+        rate per reason and point."""
+        for reason, count in Counter(r.reason for r in rejections).items():
+            self.metrics.rejected.labels(reason=reason).inc(count)
         for r in rejections:
-            self.metrics.rejected.labels(reason=r.reason).inc()
             ok, dropped = self.limiter.allow(f"{r.reason}|{r.point}")
             if ok:
                 more = f" ({dropped} similar suppressed)" if dropped else ""
