@@ -176,3 +176,59 @@ def test_fuzz_json_shapes(topic_index, doc):
         if math.isfinite(state.last_time[pid]):
             spec = model.points[pid]
             assert spec.low <= state.last_value[pid] <= spec.high
+
+
+def _feed() -> list[tuple[str, bytes, float, bool]]:
+    """Plain numbers on template and explicit points (°F, plausible range, rate limits),
+    with every kind of oddity a sensor sends, in one order."""
+    odd = [b" 21.5 ", b"21.5\n", b"nan", b"-inf", b"1e400", b"\xff\xfe", b"", b"1_0",
+           "\u0662\u0663".encode(), b"23.4\x00", b"+22", b"-0", b"2.2e1", b"abc", b"1" * 100_000,
+           b'{"v": 1}', b"95", b"-80", b"0x10", b"\xc2\xa022.5"]
+    topics = ["larkfield/office-west/air/temperature", "larkfield/office-west/air/humidity",
+              "larkfield/studio-north/globe", "larkfield/bakery-floor/air/ankle",
+              "larkfield/office-west/anemometer", "larkfield/nowhere/air/temperature",
+              "larkfield/office-west/unknown"]
+    feed = []
+    t = NOW
+    for k in range(3000):
+        topic = topics[k % len(topics)]
+        payload = odd[k % len(odd)] if k % 3 == 0 else f"{18 + (k * 7) % 130 / 10:.1f}".encode()
+        t += 1.0
+        # sometimes back in time (out of order), sometimes retained
+        feed.append((topic, payload, t - 100 if k % 50 == 0 else t, k % 97 == 0))
+    return feed
+
+
+def test_many_messages_at_once_as_one_by_one():
+    """ingest_many (the live service's batches) takes every message as ingest() would:
+    the same rejections with the same words, readings, counters and touched points."""
+    config = load_site(REPO / "deploy" / "example-site.yaml", {})
+    feed = _feed()
+    one_model = build_site_model(config)
+    one_state = SiteState(one_model)
+    one = Ingestor(one_model, one_state)
+    expected, touched = [], []
+    for topic, payload, t, retained in feed:
+        expected.extend((t, r) for r in one.ingest(topic, payload, t, retained))
+        touched.extend(one.last_points)
+    many_model = build_site_model(config)
+    many_state = SiteState(many_model)
+    many = Ingestor(many_model, many_state)
+    got, touched_many = [], []
+    for i in range(0, len(feed), 250):  # in batches, like the service's
+        got.extend(many.ingest_many(feed[i:i + 250]))
+        touched_many.extend(many.last_points)
+    assert got == expected
+    assert touched_many == touched
+    reasons = {r.reason for _, r in got}
+    assert {"not_numeric", "not_finite", "malformed", "unknown_space", "unknown_topic",
+            "payload_too_large", "implausible", "out_of_order",
+            "retained_without_time"} <= reasons
+    assert many.received == one.received == len(feed)
+    assert many.accepted == one.accepted > 1000
+    assert many.rejected == one.rejected
+    assert many.accepted_by_quantity == one.accepted_by_quantity
+    assert many.missed_by_quantity == one.missed_by_quantity
+    for name in ("last_value", "last_time", "last_source_time", "ring_t", "ring_v",
+                 "ring_head"):
+        np.testing.assert_array_equal(getattr(many_state, name), getattr(one_state, name))

@@ -97,6 +97,24 @@ class Engine:
                 self.health.note_implausible(r.point, now)
         return rejections
 
+    def messages(self, items: Iterable[tuple[str, bytes, float, bool]]) -> list[Rejection]:
+        """Sensor messages ``(topic, payload, received at, retained)`` in order, as
+        :meth:`message` one by one would take them; returns all their rejections."""
+        ingest = self.ingest
+        rejected = ingest.ingest_many(items)
+        points = self.model.points
+        touched = self.publication.touched
+        for pid in ingest.last_points:
+            space = points[pid].space
+            if space != SITE:
+                touched[space] = True
+        out: list[Rejection] = []
+        for now, r in rejected:
+            if r.reason in IMPLAUSIBLE_REASONS:
+                self.health.note_implausible(r.point, now)
+            out.append(r)
+        return out
+
     # ------------------------------------------------------------------ tick
     def tick(self, now: float) -> list[Effect]:
         """Evaluate every space at ``now`` and return what to publish and store."""

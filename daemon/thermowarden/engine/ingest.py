@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from collections import Counter
+from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Final
 
@@ -192,27 +193,78 @@ class Ingestor:
                     out.append(r)
         return out
 
+    def ingest_many(self, items: Iterable[tuple[str, bytes, float, bool]]
+                    ) -> list[tuple[float, Rejection]]:
+        """Messages ``(topic, payload, received at, retained)`` in order, exactly as
+        :meth:`ingest` one by one would take them; returns each rejection with the time its
+        message was received, and leaves in :attr:`last_points` every point that took a
+        reading, in order.
+
+        A plain number for a known single-point topic (the common case) takes a short
+        path: ``float()`` straight from the bytes (for ASCII text the same number as
+        decoding, stripping and converting; anything it refuses, and a value that is not
+        finite, goes the general way for the exact rejection), then the same checks."""
+        out: list[tuple[float, Rejection]] = []
+        touched: list[int] = []
+        cache = self._cache
+        points = self.model.points
+        max_bytes = self.max_bytes
+        isfinite = math.isfinite
+        for topic, payload, now, retained in items:
+            route = cache.get(topic)
+            if route is not None and len(route) == 1 and not retained and \
+                    len(payload) <= max_bytes:
+                pid = route[0]
+                spec = points[pid]
+                if spec.fmt.__class__ is NumberFormat:
+                    try:
+                        number = float(payload)
+                    except ValueError:
+                        number = math.nan
+                    if isfinite(number):
+                        self.received += 1
+                        r = self._store_value(pid, number, None, None, now, topic)
+                        if r is None:
+                            touched.append(pid)
+                        else:
+                            out.append((now, r))
+                        continue
+            for r in self.ingest(topic, payload, now, retained):
+                out.append((now, r))
+            touched.extend(self.last_points)
+        self.last_points = touched
+        return out
+
     def _store(self, pid: int, d: Decoded, now: float, topic: str) -> Rejection | None:
+        r = self._store_value(pid, d.value, d.time, d.unit, now, topic)
+        if r is None:
+            self.last_points.append(pid)
+        return r
+
+    def _store_value(self, pid: int, raw: float, source_time: float | None,
+                     unit: str | None, now: float, topic: str) -> Rejection | None:
+        """Convert, check and record one decoded value (``source_time``: the payload's own
+        timestamp, if any; ``unit``: the payload's unit, if any)."""
         spec = self.model.points[pid]
         convert = spec.convert
-        if d.unit is not None and d.unit != spec.unit:
+        if unit is not None and unit != spec.unit:
             try:
-                convert = converter(QUANTITIES[spec.quantity].kind, d.unit)
+                convert = converter(QUANTITIES[spec.quantity].kind, unit)
             except UnitError as exc:
                 return self._reject(payloads.UNKNOWN_UNIT, spec.key, topic, str(exc))
-        value = convert(d.value) * spec.scale + spec.offset
+        value = convert(raw) * spec.scale + spec.offset
         if not math.isfinite(value):
             return self._reject(payloads.NOT_FINITE, spec.key, topic, "converted value")
         if not spec.low <= value <= spec.high:
             return self._reject(IMPLAUSIBLE, spec.key, topic,
                                 f"{value:.6g} outside {spec.low:g}..{spec.high:g}")
-        t = now if d.time is None else d.time
+        t = now if source_time is None else source_time
         if now - t > self.max_age:
             return self._reject(TOO_OLD, spec.key, topic, f"{now - t:.0f} s old")
         if t - now > self.skew:
             return self._reject(IN_FUTURE, spec.key, topic, f"{t - now:.0f} s ahead")
         state = self.state
-        if d.time is not None and t == state.last_source_time[pid]:
+        if source_time is not None and t == state.last_source_time[pid]:
             return self._reject(DUPLICATE, spec.key, topic, "same point and timestamp")
         last_t = state.last_time[pid]
         if t < last_t:
@@ -228,10 +280,9 @@ class Ingestor:
         interval = state.interval[pid]
         if t - last > GAP_FACTOR * interval:  # false for the first reading (last is not set)
             self.missed_by_quantity[spec.quantity] += int(round((t - last) / interval)) - 1
-        state.record(pid, t, value, t if d.time is not None else math.nan)
+        state.record(pid, t, value, t if source_time is not None else math.nan)
         self.accepted_by_quantity[spec.quantity] += 1
         self.accepted += 1
-        self.last_points.append(pid)
         return None
 
     def rejected_by_reason(self) -> Counter[str]:

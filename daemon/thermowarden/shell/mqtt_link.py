@@ -58,6 +58,7 @@ from paho.mqtt.properties import Properties
 from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
+from thermowarden.shell.buffered_client import BufferedClient
 from thermowarden.shell.metrics import Metrics
 
 log = logging.getLogger("thermowarden.mqtt")
@@ -103,20 +104,28 @@ class Control:
     failed: bool = False
 
 
+SensorMessage = tuple[str, bytes, float, bool]
+"""A sensor message as the engine thread receives it: topic, payload, when it was received
+(epoch s) and whether the broker kept it (retained)."""
+
+
 class Inbox:
     """A bounded hand-over from the network thread to the engine thread.
 
     A deque (append and popleft are atomic in CPython) with a wake-up event: cheaper per
-    message than ``queue.Queue``, which takes a lock and a condition for every item.
-    ``put`` refuses (returns False) when full; the caller counts the overflow.
+    message than ``queue.Queue``, which takes a lock and a condition for every item. The
+    event is set only when it is not set already (the engine thread clears it when it
+    wakes), so a flood does not take its lock once per message. Sensor messages travel as
+    :data:`SensorMessage` tuples, everything else as :class:`Incoming`. ``put`` refuses
+    (returns False) when full; the caller counts the overflow.
     """
 
     def __init__(self, maxsize: int) -> None:
         self.maxsize = maxsize
-        self.items: deque[Incoming] = deque()
+        self.items: deque[Incoming | SensorMessage] = deque()
         self.ready = threading.Event()
 
-    def put(self, item: Incoming) -> bool:
+    def put(self, item: Incoming | SensorMessage) -> bool:
         if len(self.items) >= self.maxsize:
             return False
         self.items.append(item)
@@ -130,12 +139,11 @@ class Inbox:
             self.ready.wait(timeout)
         self.ready.clear()
 
-    def take(self, limit: int) -> list[Incoming]:
-        out: list[Incoming] = []
+    def take(self, limit: int) -> list[Incoming | SensorMessage]:
+        """Up to ``limit`` items, oldest first."""
         items = self.items
-        while items and len(out) < limit:
-            out.append(items.popleft())
-        return out
+        popleft = items.popleft
+        return [popleft() for _ in range(min(limit, len(items)))]
 
     def qsize(self) -> int:
         return len(self.items)
@@ -187,7 +195,7 @@ class MqttLink:
         """Every broker node: (host, port, tls), tried in turn."""
         self.node = 0
         self.host, self.port, tls = self.nodes[0]
-        self.client = mqtt.Client(
+        self.client = BufferedClient(
             callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
             reconnect_on_failure=False)
@@ -330,8 +338,12 @@ class MqttLink:
             item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain),
                             kind="watch")
         else:
+            # the common case, kept to the minimum: a plain tuple (no per-message object
+            # the garbage collector has to follow) and a plain counter (no lock)
             self.received += 1
-            item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain))
+            if not self.inbox.put((topic, bytes(msg.payload), self.now(), bool(msg.retain))):
+                self.metrics.queue_overflow.inc()
+            return
         if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
 

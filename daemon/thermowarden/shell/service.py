@@ -16,6 +16,7 @@ carries an ``event_id`` (also an MQTT 5 user property), the same on every copy.
 
 from __future__ import annotations
 
+import gc
 import json
 import logging
 import pathlib
@@ -23,6 +24,7 @@ import queue
 import threading
 import time
 import uuid
+from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -31,12 +33,13 @@ from apscheduler.triggers.cron import CronTrigger
 
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
+from thermowarden.engine.ingest import Rejection
 from thermowarden.shell import systemd
 from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.group import Group
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
+from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink, SensorMessage
 from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
 from thermowarden.shell.store import Store
 
@@ -406,6 +409,44 @@ class Service:
                                                          + ECHO_TIMEOUT_S)
                                 break
 
+    def _drain(self) -> int:
+        """Take up to ``DRAIN_BATCH`` messages in the order they came: runs of sensor
+        messages go to the engine in one call each, the others one by one. Returns how many
+        were taken."""
+        batch = self.inbox.take(DRAIN_BATCH)
+        run: list[SensorMessage] = []
+        for m in batch:
+            if m.__class__ is tuple:
+                run.append(m)
+            else:
+                if run:
+                    self._sensors(run)
+                    run = []
+                self._handle_message(m)  # type: ignore[arg-type]
+        if run:
+            self._sensors(run)
+        return len(batch)
+
+    def _sensors(self, run: list[SensorMessage]) -> None:
+        self.last_sensor = self.clock.monotonic()
+        rejections = self.engine.messages(run)
+        self.dirty = True
+        if rejections:
+            self._rejected(rejections)
+
+    def _rejected(self, rejections: list[Rejection]) -> None:
+        """Count every rejection (one metric update per reason, not per message: a flood
+        of bad payloads does not take the metric's lock for each); log them at a limited
+        rate per reason and point."""
+        for reason, count in Counter(r.reason for r in rejections).items():
+            self.metrics.rejected.labels(reason=reason).inc(count)
+        for r in rejections:
+            ok, dropped = self.limiter.allow(f"{r.reason}|{r.point}")
+            if ok:
+                more = f" ({dropped} similar suppressed)" if dropped else ""
+                log.warning("rejected %s on %s [%s]: %s%s", r.reason, r.topic, r.point,
+                            r.detail, more)
+
     def _handle_message(self, m: Incoming) -> None:
         if m.kind == "command":
             self._handle_command(m)
@@ -420,16 +461,7 @@ class Service:
             if self.group is not None:
                 self.group.receive(m.topic, m.payload)
             return
-        self.last_sensor = self.clock.monotonic()
-        rejections = self.engine.message(m.topic, m.payload, m.received, m.retained)
-        self.dirty = True
-        for r in rejections:
-            self.metrics.rejected.labels(reason=r.reason).inc()
-            ok, dropped = self.limiter.allow(f"{r.reason}|{r.point}")
-            if ok:
-                more = f" ({dropped} similar suppressed)" if dropped else ""
-                log.warning("rejected %s on %s [%s]: %s%s", r.reason, r.topic, r.point,
-                            r.detail, more)
+        self._sensors([(m.topic, m.payload, m.received, m.retained)])
 
     def _handle_command(self, m: Incoming) -> None:
         """``<prefix>/commands/<audience>/<verb>[/<user>]``: the audience in the topic lets a
@@ -631,6 +663,7 @@ class Service:
             if self.delivery is not None:
                 self.delivery.reconfigure(config.delivery, config.site.timezone)
             self.dirty = True
+            freeze_heap()
             log.info("reloaded: %d space(s), %d point(s), %d rule(s)",
                      result.model.n_spaces, len(result.model.points), len(result.engine.rules))
         finally:
@@ -666,6 +699,7 @@ class Service:
             self.delivery.start()
         self.link.start()
         self.evaluate()
+        freeze_heap()
         ready_sent = False
         clock = self.clock
         try:
@@ -692,13 +726,11 @@ class Service:
                 except queue.Empty:
                     pass
                 self.inbox.wait(0.05)
-                batch = self.inbox.take(DRAIN_BATCH)
-                for m in batch:
-                    self._handle_message(m)
+                taken = self._drain()
                 self._sync_counters()
                 if self.group is not None:
                     self.group.update()
-                if batch:
+                if taken:
                     # let messages gather for a moment: fewer wake-ups, less contention
                     # with the network thread for the interpreter lock
                     time.sleep(BATCH_PAUSE_S)
@@ -753,6 +785,17 @@ class Service:
         self.store.close()
         self.stopped.set()
         log.info("stopped")
+
+
+def freeze_heap() -> None:
+    """Move every object alive now (configuration, engine, libraries: built at start and
+    kept for the life of the process) out of the garbage collector's reach, so that its
+    collections, which a flood of messages triggers often, walk only what came after.
+    Called after start and after a reload (the previous engine's objects are released to
+    the collector first)."""
+    gc.unfreeze()
+    gc.collect()
+    gc.freeze()
 
 
 def _iso(t: float) -> str:
