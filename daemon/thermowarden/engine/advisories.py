@@ -92,6 +92,8 @@ class Advisory:
     """What to say if the advice is acted on and does not help (rendered with the rest)."""
     effect_overdue: bool = False
     """Acted on, not cleared in the expected time, and said so."""
+    rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
+    """What the texts were last rendered from (:meth:`Texts.render_key`)."""
 
 
 class CommandError(ValueError):
@@ -411,10 +413,16 @@ class Advisories:
             effect = adv.acted_on.get("effect")
             if effect is not None and effect.get("predicted") is not None:
                 extra["effect_predicted"] = effect["predicted"]
-        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table,
-                          int(rt.level[adv.space]), extra)
+        level = int(rt.level[adv.space])
+        key = (adv.effect_overdue, self.texts.render_key(
+            rt.rule, adv.space, self._ctx.base, rt.params, self._ctx.table, level, extra))
+        if key == adv.rendered_from:
+            return  # the same values as at the last rendering: the same texts
+        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table, level,
+                          extra)
         if adv.effect_overdue and adv.no_effect_text:
             adv.advice = adv.no_effect_text
+        adv.rendered_from = key
 
     def _raise(self, rt: RuleRuntime, i: int, level: int, now: float,
                effects: list[Effect]) -> None:
