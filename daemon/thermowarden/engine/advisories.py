@@ -142,8 +142,7 @@ class RuleRuntime:
         conditions as the last one changes nothing."""
         cfg = self.rule.config
         live = self.state >= State.ACTIVE
-        if any(adv.acted_on is not None for adv in self.advisories.values()):
-            return -math.inf  # effect checks and the overdue notice: every evaluation
+        followed = self._effect_due()
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
         if live.any():
             times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
@@ -153,7 +152,30 @@ class RuleRuntime:
                 times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
                              + intervals[self.level])
         due = np.fmin.reduce(times)
-        return float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+        first = float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+        return min(first, followed)
+
+    def _effect_due(self) -> float:
+        """The earliest time a piece of advice acted on is due a check of its effect or
+        the notice that it did not help (see :meth:`Advisories._follow_effect`); a second
+        early, so that rounding never makes a step come too late (an early step with the
+        same conditions changes nothing)."""
+        eff = self.rule.config.effect
+        wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S
+        due = math.inf
+        for adv in self.advisories.values():
+            rec = adv.acted_on
+            if rec is None:
+                continue
+            t0 = float(rec.get("_t", adv.updated_at))
+            if not adv.effect_overdue:
+                due = min(due, t0 + wait_s)
+            if eff is not None and rec.get("effect") is not None and self.rule.effect_quantity:
+                done = {c["after_min"] for c in rec["effect"]["checks"]}
+                for after in eff.checks_s:
+                    if after / 60 not in done:
+                        due = min(due, t0 + after)
+        return due - 1.0
 
 
 def build_rule_runtimes(config: SiteConfig, model: SiteModel,
