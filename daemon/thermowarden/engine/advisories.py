@@ -244,12 +244,12 @@ class Advisories:
     def unknown_long(self, now: float) -> FloatArray:
         """Per space: how many rules (other than sensor health) have been unknown for want
         of an input for at least ``UNKNOWN_LONG_S``."""
-        unknown = np.zeros(self.n)
-        for rt in self.rules:
-            if rt.rule.pack == "sensor_health":
-                continue
-            unknown += (now - rt.unknown_since >= UNKNOWN_LONG_S)
-        return unknown
+        since = [rt.unknown_since for rt in self.rules if rt.rule.pack != "sensor_health"]
+        if not since:
+            return np.zeros(self.n)
+        counts: FloatArray = (now - np.stack(since) >= UNKNOWN_LONG_S).sum(
+            axis=0, dtype=np.float64)  # one array operation, not one per rule
+        return counts
 
     def unknown_detail(self, i: int, now: float) -> str:
         """Which rules of space ``i`` have been unknown for ``UNKNOWN_LONG_S`` and the names
