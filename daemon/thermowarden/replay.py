@@ -55,7 +55,8 @@ def read_feed(lines: Iterable[str], name: str = "feed") -> Iterator[FeedRecord]:
             rec = json.loads(text)
         except ValueError:
             raise FeedError(f"{name}:{no}: not a JSON object") from None
-        if not isinstance(rec, dict) or not {"t", "topic", "payload"} <= set(rec):
+        if not isinstance(rec, dict) or "t" not in rec or "topic" not in rec \
+                or "payload" not in rec:
             raise FeedError(f"{name}:{no}: expected an object with t, topic and payload")
         try:
             t = parse_timestamp(rec["t"])

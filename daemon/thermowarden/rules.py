@@ -206,6 +206,28 @@ class CompiledRule:
             templates.append(self.no_effect)
         return frozenset(name for t in templates for name, _ in t.fields)
 
+    @functools.cached_property
+    def render_names(self) -> frozenset[str]:
+        """Every name rendering the advisory reads: the names the templates insert, the
+        numbers and their thresholds, the benefit and the ``when`` conditions of the
+        templates."""
+        templates = [self.title, self.advice, self.rationale]
+        templates += [t for pair in self.level_texts.values() for t in pair if t is not None]
+        if self.no_effect is not None:
+            templates.append(self.no_effect)
+        names = set(self.template_names)
+        for name, threshold in self.numbers:
+            names.add(name)
+            if threshold is not None:
+                names |= threshold.names
+        for _, expr in self.benefit:
+            names |= expr.names
+        for t in templates:
+            for part in t.parts:
+                if part.when is not None:
+                    names |= part.when.names
+        return frozenset(names)
+
     @property
     def base_priority(self) -> int:
         return PRIORITIES.index(self.config.priority)

@@ -137,6 +137,13 @@ def parse_timestamp(raw: object) -> float:
 
 def decode_number(payload: bytes) -> list[Decoded]:
     """A plain ASCII number such as ``23.4``."""
+    try:
+        value = float(payload)  # the usual case: ASCII digits, read from the bytes at once
+    except (TypeError, ValueError):
+        value = math.nan
+    if math.isfinite(value):
+        return [Decoded(value)]
+    # anything else (other text, non-finite, not UTF-8) the long way, for its exact error
     return [Decoded(_to_float(_text(payload), "payload"))]
 
 

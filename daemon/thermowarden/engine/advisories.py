@@ -93,6 +93,8 @@ class Advisory:
     """What to say if the advice is acted on and does not help (rendered with the rest)."""
     effect_overdue: bool = False
     """Acted on, not cleared in the expected time, and said so."""
+    rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
+    """What the texts were last rendered from (:meth:`Texts.render_key`)."""
 
 
 class CommandError(ValueError):
@@ -144,8 +146,7 @@ class RuleRuntime:
         conditions as the last one changes nothing."""
         cfg = self.rule.config
         live = self.state >= State.ACTIVE
-        if any(adv.acted_on is not None for adv in self.advisories.values()):
-            return -math.inf  # effect checks and the overdue notice: every evaluation
+        followed = self._effect_due()
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
         if live.any():
             times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
@@ -155,7 +156,30 @@ class RuleRuntime:
                 times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
                              + intervals[self.level])
         due = np.fmin.reduce(times)
-        return float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+        first = float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
+        return min(first, followed)
+
+    def _effect_due(self) -> float:
+        """The earliest time a piece of advice acted on is due a check of its effect or
+        the notice that it did not help (see :meth:`Advisories._follow_effect`); a second
+        early, so that rounding never makes a step come too late (an early step with the
+        same conditions changes nothing)."""
+        eff = self.rule.config.effect
+        wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S
+        due = math.inf
+        for adv in self.advisories.values():
+            rec = adv.acted_on
+            if rec is None:
+                continue
+            t0 = float(rec.get("_t", adv.updated_at))
+            if not adv.effect_overdue:
+                due = min(due, t0 + wait_s)
+            if eff is not None and rec.get("effect") is not None and self.rule.effect_quantity:
+                done = {c["after_min"] for c in rec["effect"]["checks"]}
+                for after in eff.checks_s:
+                    if after / 60 not in done:
+                        due = min(due, t0 + after)
+        return due - 1.0
 
 
 def build_rule_runtimes(config: SiteConfig, model: SiteModel,
@@ -224,12 +248,12 @@ class Advisories:
     def unknown_long(self, now: float) -> FloatArray:
         """Per space: how many rules (other than sensor health) have been unknown for want
         of an input for at least ``UNKNOWN_LONG_S``."""
-        unknown = np.zeros(self.n)
-        for rt in self.rules:
-            if rt.rule.pack == "sensor_health":
-                continue
-            unknown += (now - rt.unknown_since >= UNKNOWN_LONG_S)
-        return unknown
+        since = [rt.unknown_since for rt in self.rules if rt.rule.pack != "sensor_health"]
+        if not since:
+            return np.zeros(self.n)
+        counts: FloatArray = (now - np.stack(since) >= UNKNOWN_LONG_S).sum(
+            axis=0, dtype=np.float64)  # one array operation, not one per rule
+        return counts
 
     def unknown_detail(self, i: int, now: float) -> str:
         """Which rules of space ``i`` have been unknown for ``UNKNOWN_LONG_S`` and the names
@@ -415,10 +439,16 @@ class Advisories:
             effect = adv.acted_on.get("effect")
             if effect is not None and effect.get("predicted") is not None:
                 extra["effect_predicted"] = effect["predicted"]
-        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table,
-                          int(rt.level[adv.space]), extra)
+        level = int(rt.level[adv.space])
+        key = (adv.effect_overdue, self.texts.render_key(
+            rt.rule, adv.space, self._ctx.base, rt.params, self._ctx.table, level, extra))
+        if key == adv.rendered_from:
+            return  # the same values as at the last rendering: the same texts
+        self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table, level,
+                          extra)
         if adv.effect_overdue and adv.no_effect_text:
             adv.advice = adv.no_effect_text
+        adv.rendered_from = key
 
     def _raise(self, rt: RuleRuntime, i: int, level: int, now: float,
                effects: list[Effect]) -> None:

@@ -200,7 +200,7 @@ class Engine:
                         if j + 1 < k:
                             repeats[j + 1] = False
             for rt, truths, anything, repeats in evaluated:
-                if not rt.state.any():
+                if not np.count_nonzero(rt.state):  # no pending or live advisory
                     if not anything[j]:
                         continue
                 elif repeats[j] and now < due[id(rt)]:

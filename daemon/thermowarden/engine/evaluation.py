@@ -136,6 +136,45 @@ def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
     return SpaceInputs.create(int(index.size), **given)
 
 
+def _row_keys(s: SpaceInputs) -> npt.NDArray[np.void]:
+    """One opaque key per row: the bytes of the row's inputs (arrays, plane radiant
+    temperatures, and the posture and PHS edition as codes), of those that are not the same
+    bits in every row. Equal keys: equal inputs."""
+    cols = [getattr(s, f.name) for f in fields(s) if isinstance(getattr(s, f.name), np.ndarray)]
+    cols += [s.plane_radiant[k] for k in sorted(s.plane_radiant)]
+    for texts in (s.posture, s.phs_edition):
+        if isinstance(texts, tuple) and len(set(texts)) > 1:
+            codes = {t: float(c) for c, t in enumerate(sorted(set(texts)))}
+            cols.append(np.array([codes[t] for t in texts]))
+    m = np.column_stack([c.astype(np.float64) for c in cols])
+    bits = m.view(np.uint64)
+    # only the columns whose bits vary (most inputs are the same in every row: defaults,
+    # people)
+    varies = (bits != bits[:1]).any(axis=0)
+    m = np.ascontiguousarray(m[:, varies] if varies.any() else m[:, :1])
+    keys: npt.NDArray[np.void] = m.view(np.dtype((np.void, m.dtype.itemsize * m.shape[1]))
+                                        ).ravel()
+    return keys
+
+
+def compute_distinct(s: SpaceInputs, with_phs: bool) -> IndexTable:
+    """:func:`compute_indices` of ``s``, each distinct row of inputs computed once (rows of
+    many ticks or spaces often repeat: sensors report to a resolution, equipment and
+    occupancy change seldom). Every index of a row depends on that row's inputs alone, and
+    the rows computed hold every distinct input, so the table is the one of computing every
+    row (the column's reasons and methods, which depend on which inputs occur, included)."""
+    if s.n < 2:
+        return compute_indices(s, with_phs=with_phs)
+    _, first, inverse = np.unique(_row_keys(s), return_index=True, return_inverse=True)
+    if first.size == s.n:
+        return compute_indices(s, with_phs=with_phs)
+    order = np.argsort(first)  # the distinct rows in the order they first occur
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    table = compute_indices(rows_of(s, first[order]), with_phs=with_phs)
+    return select(table, rank[inverse.ravel()])
+
+
 def with_method(col: IndexColumn, method: str) -> IndexColumn:
     return IndexColumn(col.values, col.codes, col.reasons, col.unit, method, col.labels)
 
@@ -338,7 +377,7 @@ class Evaluation:
         bad_rows = np.isin(space, known_bad)
         if not bad_rows.any():
             try:
-                return compute_indices(inputs, with_phs=with_phs), failed
+                return compute_distinct(inputs, with_phs), failed
             except Exception:  # noqa: BLE001 - found and isolated below
                 pass
         parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []

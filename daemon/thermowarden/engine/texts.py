@@ -131,6 +131,29 @@ class Texts:
         adv.no_effect_text = (rule.no_effect.render(fields, holds)
                               if rule.no_effect is not None else "")
 
+    def render_key(self, rule: CompiledRule, i: int, env: Mapping[str, Any],
+                   params: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
+                   level: int, extra: Mapping[str, object]) -> tuple[object, ...]:
+        """Everything :meth:`render` of space ``i`` reads that can change between
+        renderings: the values of the names the rule's texts read, the methods and reasons of
+        its numbers, the assumptions standing in, the level and the ``extra`` fields. Equal
+        keys: rendering again gives the same texts (a rendering falls back only on the texts
+        of the one before, so it repeats itself)."""
+        values: list[object] = [self, rule, level, table is None, sorted(extra.items())]
+        for name in sorted(rule.render_names):
+            arr = params[name] if name in params else env.get(name)
+            v = arr[i].item() if isinstance(arr, np.ndarray) else arr
+            values.append("nan" if v != v else v)  # NaN equals itself here
+        if table is not None:
+            for name, _ in rule.numbers:
+                col = table.get(name)
+                if col is not None:
+                    values.append(col.method)
+                    values.append(col.reason_at(i))
+        flags = env.get("_assumed", {})
+        values.extend(bool(flags[q][i]) for q in sorted(flags))
+        return tuple(values)
+
     def _assumed(self, i: int, env: Mapping[str, Any]) -> dict[str, str]:
         """The assumptions standing in for space ``i``'s readings at this evaluation."""
         flags = env.get("_assumed", {})
