@@ -28,9 +28,10 @@ CAUTION = ("Heat-stress figures are screening values, not a diagnosis: individua
            "(acclimatisation, hydration, fitness, medication, clothing) change the risk. "
            "thermowarden is advisory only; follow local regulations and consult a qualified "
            "occupational hygienist.")
-EXIT_STORE = 78
-"""`run` exit status for a store that cannot be used (EX_CONFIG; the systemd unit does
-not restart on it, so a damaged store does not become a restart loop)."""
+EXIT_CONFIG = 78
+"""`run` exit status for a configuration it refuses or a store that cannot be used
+(EX_CONFIG from sysexits.h): the systemd unit does not restart on it, so a mistake that only
+a person can fix does not become a restart loop."""
 
 
 def _read_json(stream: TextIO, name: str) -> object:
@@ -368,10 +369,10 @@ def cmd_run(args: argparse.Namespace) -> int:
         _print_issues(exc)
         print("thermowarden run: the configuration was refused; nothing was started",
               file=sys.stderr)
-        return 1
+        return EXIT_CONFIG
     except StoreError as exc:
         print(f"thermowarden run: {exc}", file=sys.stderr)
-        return EXIT_STORE
+        return EXIT_CONFIG
     except (OSError, ValueError) as exc:
         print(f"thermowarden run: {exc}", file=sys.stderr)
         return 1

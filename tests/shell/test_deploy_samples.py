@@ -116,3 +116,20 @@ def test_systemd_unit_is_hardened_and_verifies(tmp_path):
                          timeout=60)
     assert res.returncode == 0, res.stderr
     assert "Unknown key" not in res.stderr and "Failed to parse" not in res.stderr, res.stderr
+
+
+def test_a_refused_site_stops_run_with_the_status_the_unit_does_not_restart_on(tmp_path):
+    """A misspelt key: `run` names the file, line and key and exits 78, the status the
+    unit's RestartPreventExitStatus names, so a mistake only a person can fix does not loop."""
+    site = tmp_path / "site.yaml"
+    text = (DEPLOY / "example-site.yaml").read_text()
+    assert "  prefix: " in text
+    site.write_text(text.replace("  prefix: ", "  prefx: ", 1))
+    line = next(i for i, ln in enumerate(site.read_text().splitlines(), 1) if "prefx:" in ln)
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "run", "--config", str(site),
+                        "--state-dir", str(tmp_path / "state")],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 78
+    assert f"{site}:{line}:" in r.stderr and "did you mean 'prefix'" in r.stderr
+    assert "RestartPreventExitStatus=78" in (DEPLOY / "thermowarden.service").read_text()
+    assert not (tmp_path / "state").exists() or not any((tmp_path / "state").iterdir())

@@ -201,6 +201,6 @@ def test_run_refuses_a_bad_users_file_with_its_line(tmp_path):
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "run", "--config", str(site),
                         "--state-dir", str(tmp_path / "state")],
                        capture_output=True, text=True, timeout=120)
-    assert r.returncode == 1
+    assert r.returncode == 78  # EX_CONFIG: the unit's RestartPreventExitStatus
     assert "users.yaml:4" in r.stderr and "pasword_hash" in r.stderr
     assert "nothing was started" in r.stderr
