@@ -150,3 +150,41 @@ def test_adopt_keeps_a_newer_local_advisory_and_refuses_a_message_without_state(
     assert len(notes) == 2 and "no handover state" in notes[0] and eff == []
     notes, eff = a.adopt(old, 80.0)  # a already holds newer or equal state: nothing taken
     assert notes == [] and eff == []
+
+
+def test_adopt_takes_nothing_from_malformed_or_forged_messages(tmp_path):
+    """Retained advisory messages come from the broker: anyone who may publish there can
+    send anything. A malformed one is noted and not taken (nothing half-restored), one that
+    names a space by something other than text is refused, and a handover block cannot
+    move an advisory into a space this instance does not own."""
+    a = make(tmp_path, "a")
+    effects = run(a, 0, 70, **{"room-1": 34})
+    good = list(retained(effects).values())
+    assert good
+    b = make(tmp_path, "b")
+    b.set_owned(["room-1"], 80.0)
+    p = good[0]
+    bad = [
+        {**p, "handover": {}},                                      # no state or times
+        {**p, "handover": {**p["handover"], "state": "no-such"}},   # unknown state
+        {k: v for k, v in p.items() if k != "title"},               # a field missing
+        {**p, "space": {"id": ["room-1"]}},                         # not text
+        {**p, "handover": {**p["handover"], "updated_at": "soon"}},  # no time
+        {**p, "handover": {**p["handover"], "shelvings": [["x"]]}},  # late field bad
+    ]
+    notes, eff = b.adopt(bad, 80.0, by="b")
+    assert len(notes) == len(bad), notes
+    assert eff == [] and b.live_advisories() == []
+    for rt in b.advisories.rules:
+        assert not rt.advisories and not rt.shelvings
+    # a handover that names another space: the message's own space wins
+    forged = {**p, "handover": {**p["handover"], "space": "room-2", "rule": "testpack.hot"}}
+    notes, eff = b.adopt([forged], 80.0, by="b")
+    assert notes == []
+    assert [(b.model.space_ids[x.space], x.rule) for x in b.live_advisories()] == [
+        (p["space"]["id"], p["rule"])]
+    # and nothing at all for a space this instance does not own
+    c = make(tmp_path, "c")
+    c.set_owned(["room-2"], 80.0)
+    notes, eff = c.adopt([forged], 80.0, by="c")
+    assert c.live_advisories() == [] and eff == []

@@ -162,3 +162,46 @@ def test_unowned_spaces_and_an_idle_member_are_told_to_the_integrator(tmp_path,
         proc.stop()
         watch_c.close()
         clear_retained(port, prefix)
+
+
+def test_hostile_records_on_the_group_topics_stop_nothing(tmp_path, system_broker_port):
+    """Anyone who may publish on the group's topics can send anything, and it is retained:
+    deeply nested JSON, a 400-digit time, advisory messages without their state. The
+    instance keeps running, owns every space and evaluates them."""
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = [f"s{i:02d}" for i in range(4)]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n",
+                      evaluation="{tick_s: 1, flood_limit: 1000}")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    hostile = {
+        f"{prefix}/status/deep": b"[" * 5000,
+        f"{prefix}/status/huge": json.dumps({"group": "g", "state": "online", "beat": 1,
+                                             "since": "x", "view": ["huge"]}).replace(
+            '"beat": 1', '"beat": 1, "evaluated_at": 1' + "0" * 400).encode(),
+        f"{prefix}/status/list": b"[]",
+        f"{prefix}/spaces/s00/advisories/fast.hot": json.dumps({
+            "id": "forged", "rule": "fast.hot", "space": {"id": "s00"},
+            "handover": {}}).encode(),
+        f"{prefix}/spaces/s01/advisories/fast.hot": json.dumps({
+            "id": "forged2", "rule": "fast.hot", "space": {"id": ["s01"]},
+            "handover": {"updated_at": 1}}).encode(),
+        f"{prefix}/spaces/s02/advisories/fast.hot": b"{" * 3000,
+    }
+    for topic, payload in hostile.items():
+        watch_c.client.publish(topic, payload, qos=1, retain=True).wait_for_publish(SLOW)
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance", "a")
+    try:
+        proc.start()
+        wait_for(lambda: proc.metric("thermowarden_group_owned_spaces") == len(spaces), SLOW,
+                 "the instance to own every space despite the hostile records")
+        before = proc.metric("thermowarden_last_evaluation_timestamp_seconds")
+        wait_for(lambda: proc.metric("thermowarden_last_evaluation_timestamp_seconds")
+                 > before, SLOW, "evaluations to go on")
+        assert proc.proc is not None and proc.proc.poll() is None
+        assert proc.metric("thermowarden_group_errors_total") == 0
+    finally:
+        proc.stop()
+        watch_c.close()
+        clear_retained(port, prefix)

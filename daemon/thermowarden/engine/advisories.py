@@ -629,26 +629,41 @@ class Advisories:
                 notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
                              "its space or rule is no longer configured")
                 continue
-            p = rec["payload"]
-            adv = Advisory(
-                id=p["id"], space=i, rule=rt.rule.key, audience=p["audience"],
-                priority=p["priority"], state=State(rec["state"]), raised_at=rec["raised_at"],
-                updated_at=rec["updated_at"], title=p["title"], advice=p["advice"],
-                rationale=p["rationale"], numbers=p["numbers"], benefit=p["benefit"],
-                cautions=p["cautions"], acknowledged=p["acknowledged"], shelved=p["shelved"],
-                acted_on=p["acted_on"], chattering=p["chattering"], history=p["history"])
+            try:
+                p = rec["payload"]
+                adv = Advisory(
+                    id=str(p["id"]), space=i, rule=rt.rule.key, audience=p["audience"],
+                    priority=p["priority"], state=State(rec["state"]),
+                    raised_at=float(rec["raised_at"]), updated_at=float(rec["updated_at"]),
+                    title=p["title"], advice=p["advice"], rationale=p["rationale"],
+                    numbers=p["numbers"], benefit=p["benefit"], cautions=p["cautions"],
+                    acknowledged=p["acknowledged"], shelved=p["shelved"],
+                    acted_on=p["acted_on"], chattering=p["chattering"],
+                    history=list(p["history"]))
+                level = int(rec["level"])
+                ln = rec.get("last_notified")
+                last_notified = float(ln) if ln is not None else adv.raised_at
+                su = rec.get("shelved_until")
+                shelved_until = float(su) if su is not None else np.nan
+                raised_times = deque(float(t) for t in rec.get("raised_times", []))
+                if adv.acted_on is not None:
+                    adv.acted_on["_t"] = _epoch(adv.acted_on["at"])
+                    adv.effect_overdue = adv.acted_on.get("helped") is False
+                shelvings = [list(map(float, sh)) for sh in rec.get("shelvings", [])]
+                event_count = int(rec.get("event_count", len(adv.history)))
+            except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
+                # a record from another instance (through the broker) or a damaged row:
+                # nothing of it is taken, and nothing half-restored is left behind
+                notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
+                             f"its record is malformed ({type(exc).__name__}: {exc})")
+                continue
             rt.state[i] = adv.state
-            rt.level[i] = rec["level"]
-            ln = rec.get("last_notified")
-            rt.last_notified[i] = ln if ln is not None else rec["raised_at"]
-            su = rec.get("shelved_until")
-            rt.shelved_until[i] = su if su is not None else np.nan
-            rt.raised_times[i] = deque(rec.get("raised_times", []))
-            if adv.acted_on is not None:
-                adv.acted_on["_t"] = _epoch(adv.acted_on["at"])
-                adv.effect_overdue = adv.acted_on.get("helped") is False
-            rt.shelvings[i] = [list(map(float, s)) for s in rec.get("shelvings", [])]
-            rt.event_count[i] = int(rec.get("event_count", len(adv.history)))
+            rt.level[i] = level
+            rt.last_notified[i] = last_notified
+            rt.shelved_until[i] = shelved_until
+            rt.raised_times[i] = raised_times
+            rt.shelvings[i] = shelvings
+            rt.event_count[i] = event_count
             rt.advisories[i] = adv
             self.by_id[adv.id] = (rt, i)
         return notes

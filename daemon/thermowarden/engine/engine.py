@@ -346,6 +346,10 @@ class Engine:
             except (KeyError, TypeError):
                 notes.append("an advisory message without space, rule or id was not taken")
                 continue
+            if not (isinstance(sid, str) and isinstance(rule, str) and isinstance(aid, str)):
+                notes.append("an advisory message whose space, rule or id is not text was "
+                             "not taken")
+                continue
             i = self.model.space_index.get(sid)
             if i is None or not owned[i]:
                 continue
@@ -355,9 +359,15 @@ class Engine:
                 continue
             mine = next((a for rt in book.rules if rt.rule.key == rule
                          for j, a in rt.advisories.items() if j == i), None)
-            if mine is not None and (mine.id != aid or mine.updated_at >= h["updated_at"]):
+            updated = h.get("updated_at")
+            if isinstance(updated, bool) or not isinstance(updated, int | float):
+                notes.append(f"advisory {sid}/{rule} not taken: its handover state has no "
+                             "time")
                 continue
-            records.append({"payload": p, "space": sid, "rule": rule, **h})
+            if mine is not None and (mine.id != aid or mine.updated_at >= updated):
+                continue
+            # the message's own space, rule and payload win over anything in its handover
+            records.append({**h, "payload": p, "space": sid, "rule": rule})
         notes += book.restore(records)
         effects: list[Effect] = []
         for rec in records:

@@ -140,7 +140,7 @@ class BufferedClient(mqtt.Client):
         qos = (header & 0x06) >> 1
         packet = self._in_packet["packet"]
         size = len(packet)
-        if qos == 2 or size < 3:
+        if qos >= 2 or size < 3:  # QoS 2, and the invalid QoS 3 that paho refuses
             return super()._handle_publish()
         slen = (packet[0] << 8) | packet[1]
         pos = 2 + slen

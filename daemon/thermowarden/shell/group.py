@@ -52,8 +52,8 @@ LET_GO_FACTOR: Final = 0.6
 keepalives lets its spaces go (before the others, which wait ``LIVE_FACTOR`` from its last
 beat, take them): it cannot see readings or peers."""
 SETTLE_EXTRA_S: Final = 0.5
-END_OF_RUN: Final = 2**62
-"""The beat number of an offline record: no later record of the same run counts."""
+MAX_VIEW: Final = 4096
+"""A view naming more members than this is not taken (a forged or broken record)."""
 
 
 @dataclass
@@ -70,6 +70,8 @@ class Member:
     """When its run began (ISO 8601; a restart is a new run)."""
     beat: int = -1
     """The number of its latest record in that run."""
+    first_seen_at: float | None = None
+    """Epoch s this instance first heard the record (for an owner that never evaluated)."""
 
 
 class Group:
@@ -87,6 +89,8 @@ class Group:
         self.advisory_prefix = f"{prefix}/spaces/"
         self.owners_topic = f"{prefix}/group/{name}/owners/{instance}"
         self.members: dict[str, Member] = {}
+        self.ignored = 0
+        """Status records and advisory messages that were not JSON objects (not acted on)."""
         self.retained: dict[str, dict[str, Any]] = {}
         """Retained advisory messages of the site (topic -> payload), as they arrive."""
         self.view: tuple[str, ...] | None = None
@@ -159,19 +163,19 @@ class Group:
             if not payload:
                 self.retained.pop(topic, None)
                 return
-            try:
-                data = json.loads(payload)
-            except ValueError:
-                return
+            data = _json(payload)
             if isinstance(data, dict):
                 self.retained[topic] = data
+            else:
+                self.retained.pop(topic, None)
+                self.ignored += 1
 
     def _record(self, name: str, payload: bytes) -> None:
         if name == self.me or "/" in name:
             return
-        try:
-            data = json.loads(payload) if payload else {}
-        except ValueError:
+        data = _json(payload) if payload else {}
+        if data is None:
+            self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
             return
         if not isinstance(data, dict) or data.get("group") != self.name:
             self.members.pop(name, None)
@@ -179,23 +183,32 @@ class Group:
         assert self.service is not None
         # records travel two ways (retained ones through the broker's store, plain beats
         # directly) and can arrive out of order: keep only the newest of an instance's run
-        # (its "since"), by beat number; the will ends the run
+        # (its "since"), by beat number. The will (offline) keeps the beat number it
+        # follows: a member that reconnects within the same run beats on with higher
+        # numbers and is live again, while an older retained record is still ignored.
         since, beat = str(data.get("since", "")), data.get("beat")
+        online = data.get("state") == "online"
+        if not isinstance(beat, int) or isinstance(beat, bool):
+            beat = -1
         old = self.members.get(name)
         if old is not None and old.since and since:
             if since < old.since:
                 return
-            if since == old.since and data.get("state") == "online" and (
-                    not isinstance(beat, int) or beat <= old.beat):
+            if since == old.since and online and beat <= old.beat:
                 return
         view = data.get("view")
-        evaluated = data.get("evaluated_at")
+        if isinstance(view, list) and len(view) > MAX_VIEW:
+            view = None  # not a view any group of ours would have: claims nothing
+        if online:
+            number = beat
+        else:
+            number = old.beat if old is not None and old.since == since else -1
         self.members[name] = Member(
             name, tuple(str(v) for v in view) if isinstance(view, list) else None,
-            self.service.clock.monotonic(), data.get("state") == "online",
-            float(evaluated) if isinstance(evaluated, int | float) else None,
-            since, (beat if isinstance(beat, int) else -1) if data.get("state") == "online"
-            else END_OF_RUN)
+            self.service.clock.monotonic(), online, _epoch(data.get("evaluated_at")),
+            since, number,
+            old.first_seen_at if old is not None and old.since == since
+            else self.service.clock.now())
 
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
@@ -295,7 +308,8 @@ class Group:
         if gained.any():
             taken = {ids[i] for i in np.flatnonzero(gained)}
             payloads = [p for p in self.retained.values()
-                        if isinstance(p.get("space"), dict) and p["space"].get("id") in taken]
+                        if isinstance(p.get("space"), dict)
+                        and isinstance(p["space"].get("id"), str) and p["space"]["id"] in taken]
             notes, more = engine.adopt(payloads, now, by=self.me)
             for note in notes:
                 log.warning("%s", note)
@@ -343,8 +357,10 @@ class Group:
                 "count": len(spaces), "spaces": spaces[:100],
                 "text": f"{len(spaces)} space(s) of group {self.name} had no owner for more "
                         f"than {self.bound_s:.0f} s: nobody evaluated them"})
-        idle = sorted(n for n, m in live.items() if m.evaluated_at is not None
-                      and now - m.evaluated_at > self.bound_s + service.tick_s)
+        late = self.bound_s + service.tick_s
+        idle = sorted(n for n, m in live.items() if (
+            now - m.evaluated_at > late if m.evaluated_at is not None
+            else m.first_seen_at is not None and now - m.first_seen_at > late))
         fresh = sorted(set(idle) - self.idle_told)
         self.idle_told = set(idle)
         if fresh and first:
@@ -367,6 +383,26 @@ class Group:
         """An orderly stop: the owners record is emptied (the status says offline)."""
         if self.service is not None and self.service.link.connected.is_set():
             self.service.link.publish(self.owners_topic, None, 1, True)
+
+
+def _json(payload: bytes) -> object:
+    """The JSON in a message from the broker, or None: anyone who may publish on the
+    group's topics can send anything, and nothing they send may stop the service."""
+    try:
+        return json.loads(payload)
+    except (ValueError, RecursionError):
+        return None
+
+
+def _epoch(value: object) -> float | None:
+    """A finite epoch time in seconds, or None."""
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return None
+    try:
+        t = float(value)
+    except OverflowError:
+        return None
+    return t if math.isfinite(t) else None
 
 
 def _iso(t: float) -> str:

@@ -89,3 +89,7 @@ class Metrics:
         self.group_moves = Counter("thermowarden_group_spaces_moved",
                                    "Spaces this instance took over or gave up", ["direction"],
                                    registry=r)
+        self.group_errors = Counter(
+            "thermowarden_group_errors",
+            "Group records or steps that failed (logged; the service carries on)",
+            registry=r)

@@ -227,6 +227,8 @@ class MqttLink:
         self.received = 0
         """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
+        self._refused = False
+        """The broker refused the latest connection (its CONNACK said so)."""
         self._round_start = 0
         self.qos0: set[str] = set()
         """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
@@ -239,6 +241,9 @@ class MqttLink:
     def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
                     properties: Any) -> None:
         if reason.is_failure:
+            # paho's loop reports an MQTT 5 refusal (codes >= 0x80) as a protocol error,
+            # not as "refused": remember it here, where the broker's answer is known
+            self._refused = True
             self.control.put(Control("refused", reason=str(reason)))
             return
         self._connects += 1
@@ -435,12 +440,17 @@ class MqttLink:
                     backoff = BACKOFF_START_S  # the broker answers again: start over
                 self._round_start = self.node
                 continue
-            refused = False
+            refused = self._refused = False
             last_retry = time.monotonic()
             while not self._stop.is_set():
-                rc = self.client.loop(timeout=0.1)
+                try:
+                    rc = self.client.loop(timeout=0.1)
+                except Exception:  # noqa: BLE001 - a callback's fault must not end the link
+                    log.exception("the MQTT network loop failed; connecting again")
+                    self._on_disconnect(self.client, None, None, "network loop failed", None)
+                    break
                 if rc != mqtt.MQTT_ERR_SUCCESS:
-                    refused = rc == mqtt.MQTT_ERR_CONN_REFUSED
+                    refused = rc == mqtt.MQTT_ERR_CONN_REFUSED or self._refused
                     break
                 if self.connected.is_set():
                     backoff = BACKOFF_START_S
@@ -453,7 +463,11 @@ class MqttLink:
             if self._stop.is_set() or self._stopping.is_set():
                 break
             self.connected.clear()
-            if len(self.nodes) > 1 and not refused:
+            if refused and len(self.nodes) > 1:
+                # another node may accept us (3.1.1 "server unavailable"); the wait below
+                # still applies, so refusing nodes are not tried in a tight loop
+                self._next_node()
+            elif len(self.nodes) > 1:
                 # a clustered broker: another node carries on at once (this one may be gone)
                 self._next_node()
                 self._round_start = self.node

@@ -459,9 +459,22 @@ class Service:
             return
         if m.kind == "watch":
             if self.group is not None:
-                self.group.receive(m.topic, m.payload)
+                self._group_step(self.group.receive, m.topic, m.payload)
             return
         self._sensors([(m.topic, m.payload, m.received, m.retained)])
+
+    def _group_step(self, step: Callable[..., None], *args: Any) -> None:
+        """A step of the group (a record from the broker, the periodic update): whatever
+        goes wrong in it is counted and logged, never the end of the engine thread (the
+        records come from anyone who may publish on the group's topics)."""
+        try:
+            step(*args)
+        except Exception:  # noqa: BLE001 - logged with its traceback and counted
+            self.metrics.group_errors.inc()
+            ok, dropped = self.limiter.allow("group-error")
+            if ok:
+                log.exception("group step %s failed%s", getattr(step, "__name__", step),
+                              f" ({dropped} similar suppressed)" if dropped else "")
 
     def _handle_command(self, m: Incoming) -> None:
         """``<prefix>/commands/<audience>/<verb>[/<user>]``: the audience in the topic lets a
@@ -729,7 +742,7 @@ class Service:
                 taken = self._drain()
                 self._sync_counters()
                 if self.group is not None:
-                    self.group.update()
+                    self._group_step(self.group.update)
                 if taken:
                     # let messages gather for a moment: fewer wake-ups, less contention
                     # with the network thread for the interpreter lock
