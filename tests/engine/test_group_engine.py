@@ -7,7 +7,7 @@ import json
 import textwrap
 
 from tests.engine.conftest import PACK, SITE, validate_effects
-from tests.engine.test_engine import events, feed
+from tests.engine.test_engine import events, run
 from thermowarden.config import load_site
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
@@ -24,17 +24,6 @@ def make(tmp_path, name):
     config = load_site(site, {})
     packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
     return Engine(config, build_site_model(config), packs, conditions_every_s=60, start=0.0)
-
-
-def run(engine, t0, t1, step=10, **temps):
-    effects = []
-    t = t0
-    while t <= t1:
-        feed(engine, t, **temps)
-        effects += engine.tick(t)
-        t += step
-    validate_effects(effects)
-    return effects
 
 
 def retained(effects):
