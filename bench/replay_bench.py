@@ -7,7 +7,11 @@ in-process ingest on the same feed.
 - replay_space_days_per_s: a synthetic site of 200 spaces reporting six points once a minute
   (all six at the same second, as one device would), 10 s ticks, every built-in rule pack:
   space-days of feed replayed per CPU second (3 days in a full run, 6 hours in a quick one;
-  generating the invented feed is counted too).
+  generating the invented feed is counted too). Each space has readings of its own (a
+  warmth and a humidity offset per space, at the sensors' resolution: 0.1 K, 1 %RH), so
+  spaces repeat each other only as often as real rooms at that resolution would; the
+  indices are computed once per distinct row of inputs in a batch, so a feed whose spaces
+  all read alike would overstate the figure.
 - replay_vs_ingest_ratio: that replay's messages per CPU second over the messages per CPU
   second of feeding the same generated messages to the engine without any evaluation
   (same run; the first 6 hours of the feed).
@@ -55,20 +59,20 @@ def synthetic_site(n: int = SPACES):  # noqa: ANN201
 
 def synthetic_feed(n: int, hours: float, t0: float = 1_780_293_600.0) -> Iterator:  # noqa: ANN401
     """Invented readings from Monday 1 June 2026 06:00 UTC: a daily swing, a warm afternoon
-    in some spaces, fans switched on in the warm ones; all six points of a space at the
-    same second every minute."""
+    in some spaces (each space its own warmth and humidity), fans switched on in the warm
+    ones; all six points of a space at the same second every minute."""
     from thermowarden.replay import FeedRecord
 
     topics = [[f"syn/z{i:04d}/{p}" for p in POINTS] for i in range(n)]
     offset = [(i * 7) % 60 for i in range(n)]
-    warm = [0.5 + (i % 9) * 0.6 for i in range(n)]
+    warm = [0.5 + (i % 9) * 0.6 + 0.013 * i for i in range(n)]
     for minute in range(int(hours * 60)):
         day_frac = (minute % 1440) / 1440.0
         swing = math.sin(2 * math.pi * (day_frac - 0.35))
         base = t0 + minute * 60.0
         for i in range(n):
             ta = 23.0 + warm[i] * (1 + swing) + 0.1 * ((minute + i) % 3)
-            vals = (f"{ta:.1f}", f"{48 + 10 * swing:.0f}", f"{ta + 1.5 + swing:.1f}",
+            vals = (f"{ta:.1f}", f"{48 + 10 * swing + i % 5:.0f}", f"{ta + 1.5 + swing:.1f}",
                     f"{0.12 + 0.02 * ((minute + i) % 4):.2f}",
                     "on" if ta > 27.5 else "off", "85" if swing > 0.8 else "10")
             t = base + offset[i]

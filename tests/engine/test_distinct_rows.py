@@ -1,13 +1,21 @@
 """Indices of many rows with repeats, each distinct row computed once, are the indices of
-computing every row (values, reasons, methods), and rows that differ only in a text input
-(posture) are not taken for each other."""
+computing every row (values, reasons, methods), rows that differ only in a text input
+(posture) are not taken for each other, and the engine recomputes a space when its inputs
+change, not every tick."""
 
 from __future__ import annotations
 
-import numpy as np
+import datetime as dt
 
+import numpy as np
+import pytest
+
+from thermowarden.config import load_site
 from thermowarden.core.indices import SpaceInputs, compute_indices
+from thermowarden.engine import Engine
 from thermowarden.engine.evaluation import compute_distinct, take_inputs
+from thermowarden.rules import load_rule_packs
+from thermowarden.site_model import build_site_model
 
 
 def spaces() -> SpaceInputs:
@@ -58,3 +66,57 @@ def test_rows_differing_only_in_posture_are_kept_apart() -> None:
     assert_same_tables(distinct, compute_indices(s, with_phs=False))
     mrt = distinct["mean_radiant_temperature"].values
     assert mrt[0] == mrt[2] and mrt[1] == mrt[3] and mrt[0] != mrt[1]
+
+
+SUN_AND_SHADE_SITE = """\
+site:
+  id: yard
+  timezone: UTC
+  latitude: 41.7
+  longitude: -87.9
+  outdoor_points:
+    - {topic: yard/out/ghi, quantity: solar_irradiance}
+output: {prefix: tw/yard}
+defaults: {occupancy: {always: true}, people: {met: 2.0, clo: 0.5}}
+templates:
+  - {topic: "yard/{space}/ta", quantity: air_temperature, interval_s: 60}
+  - {topic: "yard/{space}/rh", quantity: relative_humidity, interval_s: 60}
+  - {topic: "yard/{space}/v", quantity: air_speed, interval_s: 60}
+spaces:
+  - {id: open-yard, kind: outdoor}
+  - {id: store, kind: indoor, assume: {mean_radiant_temperature: air}}
+"""
+
+
+def test_the_clock_alone_recomputes_only_where_the_sun_is_used(tmp_path):
+    """Readings once a minute, ticks every 10 s (invented yard at Argonne's latitude): the
+    indoor store's indices are computed once per change of its readings, not every tick
+    (the tick's time is no input of its indices); the open yard without a globe is computed
+    every tick, because its natural wet bulb follows the sun's position (Liljegren et al.
+    2008 with the global irradiance), and that value moves between ticks of one minute."""
+    path = tmp_path / "site.yaml"
+    path.write_text(SUN_AND_SHADE_SITE)
+    config = load_site(path, {})
+    start = dt.datetime(2025, 7, 15, 18, tzinfo=dt.UTC).timestamp()  # sun high
+    engine = Engine(config, build_site_model(config), load_rule_packs([], base=path),
+                    conditions_every_s=0, start=start)
+    yard, store = (config.spaces.index(s) for s in config.spaces)
+    nwb: list[float] = []
+    computed: list[int] = []
+    for minute in range(3):
+        t = start + 60 * minute
+        for space in ("open-yard", "store"):
+            for key, v in (("ta", 31.0 + minute), ("rh", 40.0), ("v", 1.0)):
+                engine.message(f"yard/{space}/{key}", str(v).encode(), t)
+        engine.message("yard/out/ghi", b"850", t)
+        for step in range(0, 60, 10):
+            engine.tick(t + step)
+            computed.append(engine.evaluation.computed_rows)
+            assert engine.last_batch is not None
+            nwb.append(float(engine.last_batch[1]["natural_wet_bulb_estimated"].values[yard]))
+    assert engine.conditions_payload(store)["indices"]["operative_temperature"]["value"] \
+        == pytest.approx(33.0)
+    # per tick: the yard always; the store only at the first tick of each minute
+    steps = np.diff([0, *computed])
+    assert steps.tolist() == [2, 1, 1, 1, 1, 1] * 3
+    assert np.isfinite(nwb).all() and len(set(nwb[:6])) == 6, nwb  # the sun moved

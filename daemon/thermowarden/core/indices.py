@@ -544,8 +544,8 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     est_app.require(with_mrt | (np.isfinite(s.latitude) & np.isfinite(s.longitude)),
                     "site latitude and longitude not configured (the sun's position is needed "
                     "with solar_irradiance and no globe)")
-    est_app.require(with_mrt | np.isfinite(s.time_s), "time of the readings unknown (the "
-                    "sun's position is needed with solar_irradiance and no globe)")
+    est_app.require(with_mrt | ~sun_path | np.isfinite(s.time_s), "time of the readings "
+                    "unknown (the sun's position is needed with solar_irradiance and no globe)")
     est_app.require(_between(s.air_temperature, 0.0, 50.0), "outside the natural wet-bulb "
                     "estimate's range: air_temperature 0-50 °C (a liquid wick)")
     est_app.require(_between(s.air_speed, 0.0, 10.0), "outside the natural wet-bulb "

@@ -605,7 +605,7 @@ class SiteState:
             wbgt_time_weighted=twa,
             running_mean_outdoor=np.repeat(rm, n),
             solar_irradiance=np.repeat(outdoor["solar_irradiance"], n),
-            time_s=np.repeat(times, n),
+            time_s=self._sun_times(times, k),
             plane_radiant=planes,
             **context,
         )
@@ -620,6 +620,21 @@ class SiteState:
         occupied = self.occupied_many(times, states["occupancy"])
         return Snapshot(float(times[-1]), inputs, present, states, occupied, spread, fresh, age,
                         outdoor, times, values, last, days_rolled, assumed)
+
+    def _sun_times(self, times: FloatArray, k: int) -> FloatArray:
+        """The readings' time (s since 1970 UTC) per row where the sun's position can be used
+        (outdoor spaces in the sun at a site with latitude and longitude), NaN elsewhere:
+        nothing else depends on the time, and rows of unchanged readings must compare equal
+        from tick to tick to be computed once (Evaluation._changed_only)."""
+        ctx = self._context
+        indoor, sunlit = ctx["indoor"], ctx["solar_load"]
+        lat, lon = ctx["latitude"], ctx["longitude"]
+        assert isinstance(indoor, np.ndarray) and isinstance(sunlit, np.ndarray)
+        assert isinstance(lat, np.ndarray) and isinstance(lon, np.ndarray)
+        uses_sun = ~indoor & sunlit & np.isfinite(lat) & np.isfinite(lon)
+        n = uses_sun.size
+        result: FloatArray = np.where(np.tile(uses_sun, k), np.repeat(times, n), np.nan)
+        return result
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:
