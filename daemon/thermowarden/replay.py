@@ -171,7 +171,9 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     if packs is None:
         names = {n for s in config.spaces for n in config.rule_packs(s)}
         packs = load_rule_packs(names, config.rule_dirs, base=base)
-    engine = Engine(config, model, packs, conditions_every_s=0,
+    # no broker to keep retained messages on: conditions and the periodic republication
+    # of live advisories are left out (events do not depend on either)
+    engine = Engine(config, model, packs, conditions_every_s=0, advisory_refresh_s=0,
                     sample_every_s=300.0 if samples else 0.0)
     if settings:
         apply_settings(engine, settings)

@@ -227,3 +227,58 @@ def test_conditions_published_with_reasons(lab):
     assert p["indices"]["pmv_iso"]["value"] is None and p["indices"]["pmv_iso"]["reason"]
     assert p["inputs"]["air_temperature"]["fresh"] is True
     assert cond[0].retain and cond[0].expiry_s
+
+
+def _lab_engine(tmp_path, refresh_s):
+    import textwrap
+
+    from tests.engine.conftest import PACK, SITE
+    from thermowarden.config import load_site
+    from thermowarden.engine import Engine
+    from thermowarden.rules import load_rule_packs
+    from thermowarden.site_model import build_site_model
+
+    (tmp_path / "packs").mkdir(parents=True)
+    (tmp_path / "packs" / "testpack.yaml").write_text(PACK)
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent(SITE))
+    config = load_site(site, {})
+    packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
+    return Engine(config, build_site_model(config), packs, conditions_every_s=0, start=0.0,
+                  advisory_refresh_s=refresh_s)
+
+
+def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
+    """The same feed with the 5-minute republication of live advisories (the service) and
+    without (replay) gives the same events, also where a reading goes stale and a reminder
+    falls back on what the last event said; the republished message itself carries the
+    numbers of its moment; a clearing says the numbers it cleared at."""
+    out = {}
+    for refresh_s in (300.0, 0.0):
+        engine = _lab_engine(tmp_path / str(refresh_s), refresh_s)
+        effects = run(engine, 0, 70, **{"room-1": 31, "room-2": 25})        # raised at 31
+        effects += run(engine, 80, 400, **{"room-1": 33.4, "room-2": 25})   # warmer
+        for t in range(410, 1500, 10):                                       # room-1 silent
+            effects += engine.tick(t)
+        effects += run(engine, 1500, 1900, **{"room-1": 28.2, "room-2": 25})  # cools, clears
+        validate_effects(effects)
+        out[refresh_s] = effects
+    published = {k: [e.payload for e in v if isinstance(e, Publish) and "/events/" in e.topic]
+                 for k, v in out.items()}
+    assert published[300.0] == published[0.0]
+    hot = [p for p in published[0.0] if p["advisory"]["rule"] == "testpack.hot"]
+    assert [p["event"] for p in hot] == ["raised", "renotified", "renotified", "cleared"]
+    raised, reminder, _, cleared = (p["advisory"] for p in hot)
+    assert raised["advice"] == "Cool room-1: 31.0 °C."
+    # stale at the reminder: the sentence needing the reading is left out, the last words
+    # (the raise's) stand, whether or not a refresh showed 33.4 in between
+    assert reminder["numbers"]["air_temperature"]["value"] is None
+    assert reminder["advice"] == raised["advice"]
+    assert cleared["advice"] == "Cool room-1: 28.2 °C."
+    refreshed = [e.payload for e in out[300.0] if isinstance(e, Publish)
+                 and e.topic.endswith("/advisories/testpack.hot") and e.payload
+                 and e.payload["updated_at"] == raised["updated_at"]]
+    assert any(p["advice"] == "Cool room-1: 33.4 °C." for p in refreshed)
+    assert not any(isinstance(e, Publish) and "/advisories/" in e.topic
+                   and e.payload and e.payload["updated_at"] == raised["updated_at"]
+                   and e.payload["advice"] != raised["advice"] for e in out[0.0])

@@ -115,6 +115,35 @@ def test_a_new_owner_continues_the_advisory_exactly(tmp_path):
                    and x.topic.endswith("/conditions"))
 
 
+def test_a_new_owner_falls_back_on_what_the_last_event_said(tmp_path):
+    """The retained message of a live advisory is republished with newer numbers; a new
+    owner takes the texts of its last event from the handover, so that a reminder whose
+    reading is stale says what the instance that never moved says."""
+    a, b, ref = make(tmp_path, "a"), make(tmp_path, "b"), make(tmp_path, "ref")
+    b.set_owned(["room-2"], 0.0)
+    effects = []
+    for engine in (a, ref):
+        e = run(engine, 0, 70, **{"room-1": 31}) + run(engine, 80, 400, **{"room-1": 33.4})
+        if engine is a:
+            effects = e
+    hot = next(p for p in retained(effects).values() if p["rule"] == "testpack.hot")
+    assert hot["advice"] == "Cool room-1: 33.4 °C."  # refreshed at 300 s
+    assert hot["handover"]["said"]["advice"] == "Cool room-1: 31.0 °C."
+    b.ticks = 1
+    b.set_owned(["room-1", "room-2"], 410.0)
+    notes, _ = b.adopt(retained(effects).values(), 410.0, by="b")
+    assert notes == []
+    said = {}
+    for name, engine in (("b", b), ("ref", ref)):
+        quiet = []
+        for t in range(410, 1400, 10):  # room-1's sensor silent: stale after 180 s
+            quiet += engine.tick(t)
+        said[name] = [(p["event"], p["advisory"]["advice"]) for p in (
+            x.payload for x in quiet if isinstance(x, Publish) and "/events/" in x.topic
+            and x.payload["advisory"]["rule"] == "testpack.hot")]
+    assert said["b"] == said["ref"] == [("renotified", "Cool room-1: 31.0 °C.")] * 2
+
+
 def test_giving_a_space_up_forgets_it_and_its_store_rows(tmp_path):
     a = make(tmp_path, "a")
     run(a, 0, 70, **{"room-1": 34})
@@ -160,6 +189,8 @@ def test_adopt_takes_nothing_from_malformed_or_forged_messages(tmp_path):
         {**p, "space": {"id": ["room-1"]}},                         # not text
         {**p, "handover": {**p["handover"], "updated_at": "soon"}},  # no time
         {**p, "handover": {**p["handover"], "shelvings": [["x"]]}},  # late field bad
+        {**p, "handover": {**p["handover"], "said": {"title": 1, "advice": "",
+                                                     "rationale": ""}}},  # texts not text
     ]
     notes, eff = b.adopt(bad, 80.0, by="b")
     assert len(notes) == len(bad), notes

@@ -8,6 +8,7 @@ nothing. Notifications to one audience beyond the flood limit are held back and 
 
 from __future__ import annotations
 
+import copy
 import json
 import math
 from collections import deque
@@ -226,8 +227,12 @@ class Advisories:
     """The live advisories of a site, their lifecycle, commands and notification floods."""
 
     def __init__(self, config: SiteConfig, model: SiteModel, packs: Mapping[str, CompiledPack],
-                 publication: Publication, texts: Texts) -> None:
+                 publication: Publication, texts: Texts,
+                 refresh_s: float = ADVISORY_REFRESH_S) -> None:
         self.config = config
+        self.refresh_s = refresh_s
+        """Seconds between republications of the live advisories (0: never; replay, which
+        has no broker to keep them on)."""
         self.model = model
         self.pub = publication
         self.texts = texts
@@ -365,17 +370,24 @@ class Advisories:
             self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
 
     def refresh_due(self, now: float) -> list[Effect]:
-        """Republish every live advisory (retained) every ``ADVISORY_REFRESH_S``, with the
-        numbers of the moment."""
-        if now - self.last_refresh < ADVISORY_REFRESH_S:
+        """Republish every live advisory (retained) every ``refresh_s``, with the numbers
+        of the moment.
+
+        The republished texts are rendered on a copy: the advisory keeps the texts its
+        last event said, which a later event falls back on where its own numbers are
+        unknown. So the events depend on the feed alone, not on when retained messages
+        were refreshed (replay refreshes none and gives the same events)."""
+        if self.refresh_s <= 0 or now - self.last_refresh < self.refresh_s:
             return []
         self.last_refresh = now
         out: list[Effect] = []
         for rt in self.rules:
             for adv in rt.advisories.values():
+                shown = adv
                 if self._ctx.table is not None:
-                    self._render(rt, adv, now)
-                out.append(self._published(adv))
+                    shown = copy.copy(adv)
+                    self._render(rt, shown, now)
+                out.append(self._published(shown))
         return out
 
     # ------------------------------------------------------------------ acted on
@@ -488,9 +500,8 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if trigger in (Trigger.ESCALATE, Trigger.DEESCALATE, Trigger.RENOTIFY_DUE,
-                       Trigger.EFFECT_OVERDUE, Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED,
-                       ) and self._ctx.table is not None:
+        if self._ctx.table is not None:
+            # every event says the numbers of its moment (a clearing shows why it cleared)
             self._render(rt, adv, now)
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
             adv.shelved = None
@@ -549,6 +560,7 @@ class Advisories:
     def _timers(self, adv: Advisory) -> dict[str, Any]:
         """The lifecycle state a restart or another instance needs to continue ``adv``."""
         rt, i = self.by_id[adv.id]
+        own = rt.advisories[i]  # ``adv`` may be a copy rendered for a refresh
         return {
             "state": int(rt.state[i]), "level": int(rt.level[i]),
             "last_notified": num(float(rt.last_notified[i])),
@@ -556,6 +568,8 @@ class Advisories:
             "raised_times": list(rt.raised_times.get(i, ())),
             "shelvings": rt.shelvings.get(i, []),
             "event_count": rt.event_count.get(i, 0),
+            # what its last event said (a refreshed message shows newer numbers)
+            "said": {"title": own.title, "advice": own.advice, "rationale": own.rationale},
         }
 
     def _persist(self, adv: Advisory) -> Effect:
@@ -651,6 +665,12 @@ class Advisories:
                     adv.effect_overdue = adv.acted_on.get("helped") is False
                 shelvings = [list(map(float, sh)) for sh in rec.get("shelvings", [])]
                 event_count = int(rec.get("event_count", len(adv.history)))
+                said = rec.get("said")
+                if said is not None:
+                    texts = [said["title"], said["advice"], said["rationale"]]
+                    if not all(isinstance(t, str) for t in texts):
+                        raise TypeError("said: title, advice and rationale must be text")
+                    adv.title, adv.advice, adv.rationale = texts
             except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
                 # a record from another instance (through the broker) or a damaged row:
                 # nothing of it is taken, and nothing half-restored is left behind

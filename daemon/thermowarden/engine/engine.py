@@ -32,7 +32,13 @@ from thermowarden.config import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.indices import IndexTable
 from thermowarden.effects import Effect, Persist
-from thermowarden.engine.advisories import UNKNOWN_LONG_S, Advisories, Advisory, RuleRuntime
+from thermowarden.engine.advisories import (
+    ADVISORY_REFRESH_S,
+    UNKNOWN_LONG_S,
+    Advisories,
+    Advisory,
+    RuleRuntime,
+)
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
@@ -54,7 +60,8 @@ class Engine:
 
     def __init__(self, config: SiteConfig, model: SiteModel, packs: Mapping[str, CompiledPack],
                  *, conditions_every_s: float = 60.0, start: float | None = None,
-                 sample_every_s: float = SAMPLE_EVERY_S) -> None:
+                 sample_every_s: float = SAMPLE_EVERY_S,
+                 advisory_refresh_s: float = ADVISORY_REFRESH_S) -> None:
         self.config = config
         self.model = model
         self.n = model.n_spaces
@@ -66,7 +73,7 @@ class Engine:
         self.evaluation = Evaluation(self.state, self.health)
         self.publication = Publication(config, model, conditions_every_s)
         self.advisories = Advisories(config, model, packs, self.publication,
-                                     Texts(config, model))
+                                     Texts(config, model), refresh_s=advisory_refresh_s)
         self.sample_every_s = sample_every_s
         self.last_sample = -math.inf
         self.last_table: IndexTable | None = None
