@@ -17,7 +17,8 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
 - rules_10k_ms: rule evaluation and lifecycle for 10,000 spaces with the default packs, one
   steady tick given the indices; rules_10k_raise_ms: the tick in which advisories are raised
   (messages rendered for every space that crosses a threshold).
-- replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio: see bench/replay_bench.py.
+- replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio, replay_vs_ingest_in_runs_ratio:
+  see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
 - cluster_*: a group of one, two and three instances on a three-node nats-server cluster,
   against a bare paho consumer on the same cluster, see bench/cluster.py (--cluster).

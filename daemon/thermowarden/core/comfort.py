@@ -253,20 +253,31 @@ def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArra
     # SET is not monotone in speed everywhere (the convective coefficient has a floor at
     # low speeds), so a bracket from the two ends can miss a root: scan a log-spaced grid
     # first and refine between the first pair of grid speeds that brackets the target.
+    # A space leaves the scan at its first bracketing pair (or at once where still air
+    # already suffices), so a space needing little air costs a few grid speeds, not all.
     grid = np.linspace(np.log(STILL_AIR), np.log(max_speed), SPEED_GRID_POINTS)
-    f_grid = np.stack([np.where(ok, set_residual(np.full(warm.size, g), all_idx), np.nan)
-                       for g in grid])
-    crossing = (f_grid[:-1] <= 0) & (f_grid[1:] >= 0)
-    has = crossing.any(axis=0)
-    first = np.argmax(crossing, axis=0)
-    cols = np.arange(warm.size)
-    v_lo = np.where(has, grid[first], np.nan)
-    v_hi = np.where(has, grid[np.minimum(first + 1, grid.size - 1)], np.nan)
-    f_lo = np.where(has, f_grid[first, cols], np.nan)
-    f_hi = np.where(has, f_grid[np.minimum(first + 1, grid.size - 1), cols], np.nan)
+    v_lo = np.full(warm.size, np.nan)
+    v_hi = np.full(warm.size, np.nan)
+    f_lo = np.full(warm.size, np.nan)
+    f_hi = np.full(warm.size, np.nan)
+    active = np.flatnonzero(ok)
+    f_prev = set_residual(np.full(active.size, grid[0]), active)
+    still_suffices = np.zeros(warm.size, dtype=bool)
+    still_suffices[active] = f_prev >= 0
+    keep = f_prev < 0
+    active, f_prev = active[keep], f_prev[keep]
+    for j in range(1, grid.size):
+        if active.size == 0:
+            break
+        f_next = set_residual(np.full(active.size, grid[j]), active)
+        crossed = (f_prev <= 0) & (f_next >= 0)
+        rows = active[crossed]
+        v_lo[rows], v_hi[rows] = grid[j - 1], grid[j]
+        f_lo[rows], f_hi[rows] = f_prev[crossed], f_next[crossed]
+        active, f_prev = active[~crossed], f_next[~crossed]
     log_speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.005,
                          residual_tolerance=0.01)
     speed = np.exp(log_speed)
-    speed = np.where(ok & (f_grid[0] >= 0), STILL_AIR, speed)  # still air already suffices
+    speed = np.where(still_suffices, STILL_AIR, speed)  # still air already suffices
     out[warm] = speed
     return out
