@@ -131,8 +131,13 @@ def test_a_new_owner_falls_back_on_what_the_last_event_said(tmp_path):
     assert hot["handover"]["said"]["advice"] == "Cool room-1: 31.0 °C."
     b.ticks = 1
     b.set_owned(["room-1", "room-2"], 410.0)
-    notes, _ = b.adopt(retained(effects).values(), 410.0, by="b")
+    notes, moved = b.adopt(retained(effects).values(), 410.0, by="b")
     assert notes == []
+    # the message it republishes says one thing: the last event's texts and numbers
+    again = next(x.payload for x in moved if isinstance(x, Publish)
+                 and x.topic.endswith("/advisories/testpack.hot"))
+    assert again["advice"] == "Cool room-1: 31.0 °C."
+    assert again["numbers"]["air_temperature"]["value"] == 31.0
     said = {}
     for name, engine in (("b", b), ("ref", ref)):
         quiet = []
@@ -142,6 +147,39 @@ def test_a_new_owner_falls_back_on_what_the_last_event_said(tmp_path):
             x.payload for x in quiet if isinstance(x, Publish) and "/events/" in x.topic
             and x.payload["advisory"]["rule"] == "testpack.hot")]
     assert said["b"] == said["ref"] == [("renotified", "Cool room-1: 31.0 °C.")] * 2
+
+
+def test_a_command_right_after_a_takeover_keeps_the_adopted_numbers(tmp_path):
+    """b last evaluated room-1 long ago (40 °C); a raised there at 31 °C; b takes the space
+    over and an acknowledgement arrives before b's next evaluation: b has no numbers of
+    its own for room-1 yet, so the acknowledged event keeps the adopted ones."""
+    a, b = make(tmp_path, "a"), make(tmp_path, "b")
+    run(b, 0, 100, **{"room-1": 40, "room-2": 25})
+    b.set_owned(["room-2"], 100.0)
+    run(b, 110, 1000, **{"room-2": 25})
+    a.set_owned(["room-1"], 0.0)
+    effects = run(a, 600, 1000, **{"room-1": 31})
+    hot = next(p for p in retained(effects).values() if p["rule"] == "testpack.hot")
+    b.set_owned(["room-1", "room-2"], 1005.0)
+    notes, _ = b.adopt(retained(effects).values(), 1005.0, by="b")
+    assert notes == []
+    reply, eff = b.command("acknowledge", json.dumps(
+        {"advisory_id": hot["id"], "by": "Ana"}).encode(), 1006.0)
+    assert reply["ok"]
+    acked = next(x.payload["advisory"] for x in eff if isinstance(x, Publish)
+                 and "/events/" in x.topic)
+    assert acked["numbers"]["air_temperature"]["value"] == 31.0
+    assert acked["advice"] == "Cool room-1: 31.0 °C."
+    # after b's next evaluation the numbers are b's own again
+    later = run(b, 1010, 1010, **{"room-1": 31.5, "room-2": 25})
+    validate_effects(later)
+    reply, eff = b.command("shelve", json.dumps(
+        {"advisory_id": hot["id"], "by": "Ana", "reason": "survey",
+         "duration_s": 600}).encode(), 1011.0)
+    assert reply["ok"]
+    shelved = next(x.payload["advisory"] for x in eff if isinstance(x, Publish)
+                   and "/events/" in x.topic)
+    assert shelved["numbers"]["air_temperature"]["value"] == 31.5
 
 
 def test_giving_a_space_up_forgets_it_and_its_store_rows(tmp_path):

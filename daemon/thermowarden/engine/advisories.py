@@ -221,6 +221,13 @@ class _Context:
     table: Mapping[str, IndexColumn] | None
     details: Callable[[int, AbstractSet[str]], dict[str, object]] = _no_details
     """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
+    evaluated: BoolArray | None = None
+    """The spaces this evaluation computed (None: all). A space taken over from another
+    instance since has no numbers of its own here yet: its texts are not rendered again
+    until it has been evaluated."""
+
+    def has_numbers(self, i: int) -> bool:
+        return self.table is not None and (self.evaluated is None or bool(self.evaluated[i]))
 
 
 class Advisories:
@@ -277,9 +284,12 @@ class Advisories:
         return "; ".join(parts)
 
     def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
-              details: Callable[[int, AbstractSet[str]], dict[str, object]] = _no_details) -> None:
-        """Start an evaluation: texts rendered from now on use these values."""
-        self._ctx = _Context(base, table, details)
+              details: Callable[[int, AbstractSet[str]], dict[str, object]] = _no_details,
+              evaluated: BoolArray | None = None) -> None:
+        """Start an evaluation: texts rendered from now on use these values (of the spaces
+        ``evaluated``, None: all)."""
+        self._ctx = _Context(base, table, details,
+                             None if evaluated is None else evaluated.copy())
 
     def step(self, rt: RuleRuntime, truths: RuleTruths, now: float,
              effects: list[Effect]) -> None:
@@ -384,7 +394,7 @@ class Advisories:
         for rt in self.rules:
             for adv in rt.advisories.values():
                 shown = adv
-                if self._ctx.table is not None:
+                if self._ctx.has_numbers(adv.space):
                     shown = copy.copy(adv)
                     self._render(rt, shown, now)
                 out.append(self._published(shown))
@@ -500,7 +510,7 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if self._ctx.table is not None:
+        if self._ctx.has_numbers(i):
             # every event says the numbers of its moment (a clearing shows why it cleared)
             self._render(rt, adv, now)
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
@@ -569,7 +579,8 @@ class Advisories:
             "shelvings": rt.shelvings.get(i, []),
             "event_count": rt.event_count.get(i, 0),
             # what its last event said (a refreshed message shows newer numbers)
-            "said": {"title": own.title, "advice": own.advice, "rationale": own.rationale},
+            "said": {"title": own.title, "advice": own.advice, "rationale": own.rationale,
+                     "numbers": own.numbers, "benefit": own.benefit},
         }
 
     def _persist(self, adv: Advisory) -> Effect:
@@ -652,7 +663,8 @@ class Advisories:
                     title=p["title"], advice=p["advice"], rationale=p["rationale"],
                     numbers=p["numbers"], benefit=p["benefit"], cautions=p["cautions"],
                     acknowledged=p["acknowledged"], shelved=p["shelved"],
-                    acted_on=p["acted_on"], chattering=p["chattering"],
+                    acted_on=(dict(p["acted_on"]) if p["acted_on"] is not None else None),
+                    chattering=p["chattering"],
                     history=list(p["history"]))
                 level = int(rec["level"])
                 ln = rec.get("last_notified")
@@ -670,7 +682,12 @@ class Advisories:
                     texts = [said["title"], said["advice"], said["rationale"]]
                     if not all(isinstance(t, str) for t in texts):
                         raise TypeError("said: title, advice and rationale must be text")
+                    numbers, benefit = said.get("numbers", adv.numbers), \
+                        said.get("benefit", adv.benefit)
+                    if not (isinstance(numbers, dict) and isinstance(benefit, dict)):
+                        raise TypeError("said: numbers and benefit must be objects")
                     adv.title, adv.advice, adv.rationale = texts
+                    adv.numbers, adv.benefit = numbers, benefit
             except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
                 # a record from another instance (through the broker) or a damaged row:
                 # nothing of it is taken, and nothing half-restored is left behind

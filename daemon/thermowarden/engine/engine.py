@@ -190,7 +190,8 @@ class Engine:
             at_j = self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1 else table
             self.health.at(j)
             book.begin(RowView(env, rows) if k > 1 else env, at_j,
-                       functools.partial(self._text_fields, at_j, now))
+                       functools.partial(self._text_fields, at_j, now),
+                       self.evaluation.owned)
             if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
                 # clear condition is unknown; exact without one): where the estimate was

@@ -76,7 +76,8 @@ def prepare_reload(old: Engine, load: Loader) -> Prepared:
                              "(systemctl restart thermowarden)"])
     model = build_site_model(config)
     engine = Engine(config, model, packs, conditions_every_s=old.publication.conditions_every_s,
-                    start=old.start, sample_every_s=old.sample_every_s)
+                    start=old.start, sample_every_s=old.sample_every_s,
+                    advisory_refresh_s=old.advisories.refresh_s)
     return Prepared(engine, model)
 
 
