@@ -76,16 +76,22 @@ rules:
 """
 
 
-@pytest.fixture
-def lab(tmp_path):
-    (tmp_path / "packs").mkdir()
-    (tmp_path / "packs" / "testpack.yaml").write_text(PACK)
-    site = tmp_path / "site.yaml"
+def lab_engine(directory: pathlib.Path, **options: float) -> Engine:
+    """An engine of the lab site and test pack written to ``directory`` (created), started
+    at 0 s; ``options`` go to :class:`Engine` (conditions every 60 s unless given)."""
+    (directory / "packs").mkdir(parents=True, exist_ok=True)
+    (directory / "packs" / "testpack.yaml").write_text(PACK)
+    site = directory / "site.yaml"
     site.write_text(textwrap.dedent(SITE))
     config = load_site(site, {})
     packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
-    model = build_site_model(config)
-    return Engine(config, model, packs, conditions_every_s=60, start=0.0)
+    return Engine(config, build_site_model(config), packs,
+                  **{"conditions_every_s": 60.0, "start": 0.0, **options})
+
+
+@pytest.fixture
+def lab(tmp_path):
+    return lab_engine(tmp_path)
 
 
 def _registry() -> Registry:

@@ -7,7 +7,7 @@ import json
 
 import pytest
 
-from tests.engine.conftest import validate_effects
+from tests.engine.conftest import lab_engine, validate_effects
 from thermowarden.effects import Persist, Publish
 
 
@@ -229,25 +229,6 @@ def test_conditions_published_with_reasons(lab):
     assert cond[0].retain and cond[0].expiry_s
 
 
-def _lab_engine(tmp_path, refresh_s):
-    import textwrap
-
-    from tests.engine.conftest import PACK, SITE
-    from thermowarden.config import load_site
-    from thermowarden.engine import Engine
-    from thermowarden.rules import load_rule_packs
-    from thermowarden.site_model import build_site_model
-
-    (tmp_path / "packs").mkdir(parents=True)
-    (tmp_path / "packs" / "testpack.yaml").write_text(PACK)
-    site = tmp_path / "site.yaml"
-    site.write_text(textwrap.dedent(SITE))
-    config = load_site(site, {})
-    packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
-    return Engine(config, build_site_model(config), packs, conditions_every_s=0, start=0.0,
-                  advisory_refresh_s=refresh_s)
-
-
 def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
     """The same feed with the 5-minute republication of live advisories (the service) and
     without (replay) gives the same events, also where a reading goes stale and a reminder
@@ -255,7 +236,8 @@ def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
     numbers of its moment; a clearing says the numbers it cleared at."""
     out = {}
     for refresh_s in (300.0, 0.0):
-        engine = _lab_engine(tmp_path / str(refresh_s), refresh_s)
+        engine = lab_engine(tmp_path / str(refresh_s), conditions_every_s=0,
+                            advisory_refresh_s=refresh_s)
         effects = run(engine, 0, 70, **{"room-1": 31, "room-2": 25})        # raised at 31
         effects += run(engine, 80, 400, **{"room-1": 33.4, "room-2": 25})   # warmer
         for t in range(410, 1500, 10):                                       # room-1 silent

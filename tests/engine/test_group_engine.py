@@ -4,26 +4,14 @@ continues the live advisories another instance published (Engine.set_owned, Engi
 from __future__ import annotations
 
 import json
-import textwrap
 
-from tests.engine.conftest import PACK, SITE, validate_effects
+from tests.engine.conftest import lab_engine, validate_effects
 from tests.engine.test_engine import events, run
-from thermowarden.config import load_site
 from thermowarden.effects import Persist, Publish
-from thermowarden.engine import Engine
-from thermowarden.rules import load_rule_packs
-from thermowarden.site_model import build_site_model
 
 
 def make(tmp_path, name):
-    d = tmp_path / name
-    (d / "packs").mkdir(parents=True)
-    (d / "packs" / "testpack.yaml").write_text(PACK)
-    site = d / "site.yaml"
-    site.write_text(textwrap.dedent(SITE))
-    config = load_site(site, {})
-    packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
-    return Engine(config, build_site_model(config), packs, conditions_every_s=60, start=0.0)
+    return lab_engine(tmp_path / name)
 
 
 def retained(effects):
