@@ -300,7 +300,8 @@ class ServiceProcess:
             with urllib.request.urlopen(f"http://127.0.0.1:{self.http}{path}", timeout=2) as r:
                 return r.status, r.read().decode()
         except urllib.error.HTTPError as exc:
-            return exc.code, exc.read().decode()
+            with exc:  # closes its connection now, not whenever the collector runs
+                return exc.code, exc.read().decode()
         except OSError:
             return 0, ""
 

@@ -61,7 +61,8 @@ class WebSite:
                 ctype = r.headers.get("content-type", "")
                 return r.status, json.loads(body) if "json" in ctype else body.decode()
         except urllib.error.HTTPError as exc:
-            body = exc.read()
+            with exc:  # closes its connection now, not whenever the collector runs
+                body = exc.read()
             return exc.code, json.loads(body) if body.startswith(b"{") else body.decode()
 
     def send(self, method: str, path: str, body: Any = None,
@@ -75,7 +76,8 @@ class WebSite:
                 raw = r.read()
                 return r.status, json.loads(raw) if raw else None
         except urllib.error.HTTPError as exc:
-            raw = exc.read()
+            with exc:
+                raw = exc.read()
             return exc.code, json.loads(raw) if raw.startswith(b"{") else raw.decode()
 
     def token(self, name: str) -> str:

@@ -103,7 +103,8 @@ def test_nothing_changes_without_credentials(web_site: WebSite):
         opener.open(req, timeout=10)
         raise AssertionError("expected a redirect")
     except urllib.error.HTTPError as exc:
-        assert exc.code == 303 and exc.headers["location"].startswith("/login")
+        with exc:
+            assert exc.code == 303 and exc.headers["location"].startswith("/login")
     after = web_site.get(f"/api/advisories/{target['id']}")[1]["advisory"]
     assert after["state"] == before["state"] and after["history"] == before["history"]
     assert not [e for e in web_site.watcher.events(web_site.prefix)
@@ -183,7 +184,8 @@ def test_page_forms_need_the_session_token(web_site: WebSite):
                     data=b"reason=x&duration_s=60", timeout=10)
         raise AssertionError("expected 403")
     except urllib.error.HTTPError as exc:
-        assert exc.code == 403
+        with exc:
+            assert exc.code == 403
     assert web_site.get(f"/api/advisories/{target['id']}")[1]["advisory"]["shelved"] is None
 
 
