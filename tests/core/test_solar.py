@@ -91,3 +91,14 @@ def test_sun_overhead_and_at_the_poles_without_warnings():
                                    np.array([0.0, 0.0, 0.0, 180.0]))
     assert np.all(np.isfinite(cza)) and np.all(np.isfinite(dist))
     assert cza[0] > 0.999 and abs(cza[1]) < 0.03 and abs(cza[2]) < 0.03 and cza[3] < -0.99
+
+
+def test_a_trace_of_irradiance_with_the_sun_up_is_all_diffuse_without_warnings():
+    """A global irradiance next to zero (here subnormal, as a property test found at
+    dawn; noon here) sends
+    1.65/normalised to infinity in Liljegren's split; the direct fraction is its limit, 0,
+    and numpy says nothing (tests turn warnings into errors)."""
+    cza, dist = solar.sun_position(np.array([43200.0]), 0.0, 0.0)  # noon, 1 Jan 1970
+    assert cza[0] > 0.5
+    ghi, fdir = solar.direct_fraction(np.array([2.225073858507203e-309]), cza, dist)
+    assert fdir[0] == 0.0 and ghi[0] == pytest.approx(0.0, abs=1e-300)

@@ -100,7 +100,9 @@ def direct_fraction(global_w_m2: FloatArray, cos_zenith: FloatArray,
     cza = np.asarray(cos_zenith, dtype=np.float64)
     top = SOLAR_CONSTANT_W_M2 * np.maximum(cza, 0.0) / np.asarray(distance_au) ** 2
     sun_up = cza >= COS_ZENITH_MIN
-    with np.errstate(divide="ignore", invalid="ignore"):
+    # A global irradiance near zero (even a subnormal one) sends 1.65/normalised to
+    # infinity: exp(-inf) is 0, the right limit (no direct beam), so overflow is expected.
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         normalised = np.minimum(ghi / top, NORMALISED_SOLAR_MAX)
         fdir = np.exp(3.0 - 1.34 * normalised - 1.65 / normalised)
     used: FloatArray = np.where(sun_up, normalised * top, ghi)
