@@ -258,6 +258,21 @@ def test_natural_wet_bulb_irradiance_time_with_offset(monkeypatch, capsys):
     assert local == pytest.approx(utc, abs=1e-9)
 
 
+def test_a_trace_of_irradiance_reads_as_none(monkeypatch, capsys):
+    """A near-zero global irradiance (a subnormal number, as a property test found) gives
+    the value of zero irradiance, quietly: the direct beam's share is its limit, 0 (tests
+    turn numpy warnings into errors)."""
+    row = table("natural_wet_bulb_liljegren_irradiance")[0]
+    base = {"air_temperature": row["ta"], "relative_humidity": row["rh"],
+            "air_speed": row["v"], "latitude": row["lat"], "longitude": row["lon"],
+            "time": row["time"], "environment": "outdoor", "solar_load": True}
+    trace = value(assess({**base, "solar_irradiance": 2.2e-309}, monkeypatch, capsys),
+                  "natural_wet_bulb_estimated")
+    zero = value(assess({**base, "solar_irradiance": 0.0}, monkeypatch, capsys),
+                 "natural_wet_bulb_estimated")
+    assert trace == pytest.approx(zero, abs=1e-9)
+
+
 @pytest.mark.parametrize(("drop", "reason"), [
     ("latitude", "latitude"), ("time", "time of the readings"),
     ("solar_irradiance", "solar_irradiance"), ("solar_load", "without solar load"),
