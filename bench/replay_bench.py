@@ -17,7 +17,7 @@ in-process ingest on the same feed.
   evaluation (Engine.message; same run; the whole feed: over its first 6 hours alone the
   baseline varied by 40 % between runs).
   replay_vs_ingest_in_runs_ratio: the same against feeding them as replay and the service
-  do, the messages between two ticks as one run (Engine.messages, about 1.4 x faster): the
+  do, the messages between two ticks as one run (Engine.messages, 1.4-1.5 x faster): the
   stricter comparison, since replay itself now ingests in runs.
 """
 
