@@ -198,3 +198,15 @@ def test_check_reports_a_bad_file_without_loading_the_comfort_models(tmp_path):
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                        timeout=COMMAND_LIMIT_S)
     assert r.stdout.strip().splitlines()[-1] == "1 []", r.stdout + r.stderr
+
+
+def test_a_message_whose_every_sentence_is_left_out_is_empty():
+    """A sentence whose number is unknown is left out; where that leaves only punctuation
+    (the fans advice's closing "." after an optional segment) the message is empty, so the
+    caller falls back on what the advisory said before, never on a lone "."."""
+    from thermowarden.rules import _template
+
+    t = _template("Fans: about {v:.2f} m/s[[ (SET {s:.1f} °C)]].", {"v", "s"})
+    assert t.render({"v": 0.31, "s": 26.1}) == "Fans: about 0.31 m/s (SET 26.1 °C)."
+    assert t.render({"v": 0.31, "s": float("nan")}) == "Fans: about 0.31 m/s."
+    assert t.render({"v": float("nan"), "s": float("nan")}) == ""

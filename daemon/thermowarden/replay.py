@@ -94,7 +94,8 @@ def local_time(at: str, tz: dt.tzinfo | None) -> str:
 
 def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str, Any]:
     """The one-line form of an event: when (in the site's time zone when ``tz`` is given),
-    what, where, which rule, who, how urgent."""
+    what, where, which rule, who, how urgent, the advice (for a clearing, what it advised)
+    and, for a clearing, the values it cleared at."""
     at = local_time(payload["at"], tz)
     if payload["event"] == "summary":
         return {"at": at, "event": "summary", "space": None, "rule": None,
@@ -103,6 +104,10 @@ def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str
     line = {"at": at, "event": payload["event"], "space": adv["space"]["id"],
             "rule": adv["rule"], "audience": adv["audience"], "priority": adv["priority"],
             "advisory_id": adv["id"], "title": adv["title"], "advice": adv["advice"]}
+    if payload["event"] == "cleared":
+        history = adv.get("history") or []
+        if history and history[-1].get("values") is not None:
+            line["values"] = history[-1]["values"]  # why it cleared (the advice: why raised)
     if adv.get("acted_on"):
         line["acted_on"] = adv["acted_on"]
     return line

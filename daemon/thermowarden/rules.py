@@ -152,6 +152,8 @@ class MessageTemplate:
             trail = " " if part.text[-1:].isspace() else ""
             out.append(lead + " ".join(kept) + trail)
         text = " ".join("".join(out).split())
+        if not any(c.isalnum() for c in text):
+            return ""  # every sentence left out: not a lone "." (the caller falls back)
         return _SPACE_BEFORE_PUNCTUATION.sub(r"\1", text)
 
 

@@ -233,7 +233,7 @@ def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
     """The same feed with the 5-minute republication of live advisories (the service) and
     without (replay) gives the same events, also where a reading goes stale and a reminder
     falls back on what the last event said; the republished message itself carries the
-    numbers of its moment; a clearing says the numbers it cleared at."""
+    numbers of its moment; a clearing records the values it cleared at."""
     out = {}
     for refresh_s in (300.0, 0.0):
         engine = lab_engine(tmp_path / str(refresh_s), conditions_every_s=0,
@@ -256,7 +256,12 @@ def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
     # (the raise's) stand, whether or not a refresh showed 33.4 in between
     assert reminder["numbers"]["air_temperature"]["value"] is None
     assert reminder["advice"] == raised["advice"]
-    assert cleared["advice"] == "Cool room-1: 28.2 °C."
+    # the clearing keeps what the advisory said while its condition could hold, and
+    # records the values it cleared at
+    last = hot[2]["advisory"]
+    assert cleared["advice"] == last["advice"] and cleared["numbers"] == last["numbers"]
+    assert cleared["numbers_at"] == last["numbers_at"] == hot[2]["at"]
+    assert cleared["history"][-1]["values"] == {"air_temperature": 28.2}
     refreshed = [e.payload for e in out[300.0] if isinstance(e, Publish)
                  and e.topic.endswith("/advisories/testpack.hot") and e.payload
                  and e.payload["updated_at"] == raised["updated_at"]]
@@ -264,3 +269,46 @@ def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
     assert not any(isinstance(e, Publish) and "/advisories/" in e.topic
                    and e.payload and e.payload["updated_at"] == raised["updated_at"]
                    and e.payload["advice"] != raised["advice"] for e in out[0.0])
+
+
+def test_a_clearing_keeps_what_was_said_while_the_condition_held(lab):
+    """The texts are written for the condition to hold ("Above 30 °C"): an event at which it
+    is known to be false (an acknowledgement while the advisory waits to clear, the
+    clearing itself) keeps the texts, numbers and their time from the last event at which
+    it held, and the clearing's history entry gives the values it cleared at. A
+    republication while waiting to clear does not render new numbers either."""
+    effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})            # raised at 31.0
+    effects += run(lab, 80, 200, **{"room-1": 33.4, "room-2": 25})       # warmer, no event
+    waiting = run(lab, 210, 290, **{"room-1": 29.5, "room-2": 25})       # false, not clear
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.hot")
+    _, acked = command(lab, "acknowledge", 295, advisory_id=adv.id, by="Ana")
+    waiting += acked
+    waiting += run(lab, 300, 350, **{"room-1": 28.2, "room-2": 25})      # clear, off-delay
+    effects += waiting + run(lab, 360, 500, **{"room-1": 28.2, "room-2": 25})  # clears
+    sent = [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic
+            and x.payload["advisory"]["rule"] == "testpack.hot"]
+    assert [p["event"] for p in sent] == ["raised", "acknowledged", "cleared"]
+    raised, ack, cleared = (p["advisory"] for p in sent)
+    for shown in (ack, cleared):
+        assert shown["advice"] == "Cool room-1: 31.0 °C." == raised["advice"]
+        assert shown["numbers"]["air_temperature"]["value"] == 31.0
+        assert shown["numbers_at"] == raised["raised_at"] == "1970-01-01T00:01:00Z"
+    assert cleared["history"][-1] == {"at": sent[2]["at"], "event": "cleared",
+                                      "values": {"air_temperature": 28.2}}
+    # the retained message republished while waiting to clear (at 300 s) says the same
+    retained = [x.payload for x in waiting if isinstance(x, Publish) and x.payload
+                and x.topic.endswith("/advisories/testpack.hot")]
+    assert len(retained) >= 2  # the acknowledgement's and the republication's
+    assert {p["advice"] for p in retained} == {"Cool room-1: 31.0 °C."}
+
+
+def test_an_event_while_the_condition_holds_says_the_numbers_of_its_moment(lab):
+    """A reminder while the condition holds renders the numbers of its moment."""
+    effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})
+    effects += run(lab, 80, 700, **{"room-1": 33.4, "room-2": 25})
+    sent = [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic
+            and x.payload["advisory"]["rule"] == "testpack.hot"]
+    assert [p["event"] for p in sent] == ["raised", "renotified"]
+    reminder = sent[1]["advisory"]
+    assert reminder["advice"] == "Cool room-1: 33.4 °C."
+    assert reminder["numbers_at"] == sent[1]["at"]

@@ -126,6 +126,8 @@ def test_a_new_owner_falls_back_on_what_the_last_event_said(tmp_path):
                  and x.topic.endswith("/advisories/testpack.hot"))
     assert again["advice"] == "Cool room-1: 31.0 °C."
     assert again["numbers"]["air_temperature"]["value"] == 31.0
+    assert hot["numbers_at"] == "1970-01-01T00:05:00Z"  # the refresh's own moment
+    assert again["numbers_at"] == "1970-01-01T00:01:00Z"  # the raise's, from the handover
     said = {}
     for name, engine in (("b", b), ("ref", ref)):
         quiet = []

@@ -4,6 +4,7 @@ recorded day of the example site."""
 from __future__ import annotations
 
 import gzip
+import re
 
 import pytest
 
@@ -55,3 +56,46 @@ def test_live_and_replay_give_the_same_events(records):
     assert len(batched.events) > 50
     assert [(e["event"], e["at"]) for e in live] == [(e["event"], e["at"]) for e in batched.events]
     assert live == batched.events
+
+
+def test_no_event_of_the_day_says_numbers_its_condition_contradicts(records):
+    """On the shipped day every event but a clearing is rendered with the numbers of its
+    moment; a clearing keeps the texts and numbers of the last event at which its condition
+    held (before it), so a number with a threshold that a condition without "or" reads is
+    on the side it was raised on, and records the values it cleared at, which may be on the
+    other side."""
+    config = load_site(SITE, {})
+    events = replay(config, records, base=str(SITE), full_events=True).events
+    cleared = [e for e in events if e["event"] == "cleared"]
+    assert len(cleared) >= 10
+    for e in events:
+        adv = e["advisory"]
+        if e["event"] != "cleared":
+            assert adv["numbers_at"] == e["at"], (e["event"], adv["rule"])
+            continue
+        assert adv["numbers_at"] < e["at"]
+        values = adv["history"][-1]["values"]
+        assert set(values) == set(adv["numbers"])
+    raised = {e["advisory"]["id"]: e["advisory"] for e in events if e["event"] == "raised"}
+    names = {n for s in config.spaces for n in config.rule_packs(s)}
+    packs = load_rule_packs(names, config.rule_dirs, base=str(SITE))
+    # the names each rule's condition reads where every part of it must hold (no "or")
+    read = {}
+    for rule in (r for pack in packs.values() for r in pack.rules):
+        text = " ".join([rule.config.condition or ""] + [lv.when for lv in rule.config.levels])
+        words = set(re.findall(r"[a-z_][a-z0-9_]*", text))
+        read[rule.key] = set() if "or" in words else words
+    crossed = 0
+    for e in cleared:
+        adv = e["advisory"]
+        for name, item in adv["numbers"].items():
+            if name not in read[adv["rule"]]:
+                continue  # shown for context, not part of the condition
+            th, then = item.get("threshold"), item["value"]
+            first = raised[adv["id"]]["numbers"][name]["value"]
+            now = adv["history"][-1]["values"][name]
+            if th is None or then is None or first is None or now is None:
+                continue
+            assert (then - th) * (first - th) >= 0, (adv["rule"], name)  # the raise's side
+            crossed += (now - th) * (first - th) < 0
+    assert crossed >= 3  # ... where the values at clearing are on the other side

@@ -79,6 +79,7 @@ def test_settings_are_checked(records):
 
 
 def test_event_lines_carry_the_advice(records):
+    """The one-line events carry the advice, and a clearing the values it cleared at."""
     config = load_site(SITE, {})
     full = replay(config, records, base=str(SITE), full_events=True, tick_s=60)
     short = replay(config, records, base=str(SITE), tick_s=60)
@@ -86,6 +87,9 @@ def test_event_lines_carry_the_advice(records):
     for f, s in zip(full.events, short.events, strict=True):
         if s["event"] != "summary":
             assert s["advice"] == f["advisory"]["advice"] and s["advice"]
+        if s["event"] == "cleared":  # ... and a clearing the values it cleared at
+            assert s["values"] == f["advisory"]["history"][-1]["values"] and s["values"]
+    assert any(s["event"] == "cleared" for s in short.events)
 
 
 def test_conditions_file_has_every_space_over_time(tmp_path, records):

@@ -13,7 +13,7 @@ import zoneinfo
 import pytest
 from prometheus_client import CollectorRegistry
 
-from tests.engine.conftest import validator
+from tests.engine.conftest import lab_engine, validator
 from tests.shell.delivery_parts import (
     MovableClock,
     Receiver,
@@ -22,11 +22,13 @@ from tests.shell.delivery_parts import (
     wait_until,
 )
 from thermowarden.config import DeliveryConfig
+from thermowarden.effects import Publish
 from thermowarden.shell.delivery import (
     DELIVERY_HEADER,
     SIGNATURE_HEADER,
     TIMESTAMP_HEADER,
     Delivery,
+    render_text,
     verify,
 )
 
@@ -261,3 +263,26 @@ def test_pending_deliveries_survive_a_restart(tmp_path, events):
     finally:
         d2.stop()
         rec.close()
+
+
+def test_a_clearing_reads_as_one(tmp_path):
+    """The text of a cleared event says that it cleared and the values it cleared at, then
+    what was advised and why it was raised, with the time of those numbers; never "What to
+    do" with numbers on the wrong side of the threshold."""
+    engine = lab_engine(tmp_path, conditions_every_s=0)
+    payloads = []
+    for t in range(0, 600, 10):
+        engine.message("lab/room-1/ta", b"31" if t < 200 else b"28.2", float(t))
+        payloads += [e.payload for e in engine.tick(float(t)) if isinstance(e, Publish)
+                     and "/events/" in e.topic and e.payload
+                     and e.payload["advisory"]["rule"] == "testpack.hot"]
+    assert [p["event"] for p in payloads] == ["raised", "cleared"]
+    subject, text = render_text(payloads[1])
+    assert subject == "medium cleared: room-1 is hot"
+    assert "this advisory has cleared" in text and "What to do" not in text
+    assert "Values at clearing:\n  air_temperature: 28.2 °C" in text
+    assert "It advised: Cool room-1: 31.0 °C." in text
+    assert "Numbers (as of 1970-01-01T00:01:00Z):\n  air_temperature: 31.0 °C (threshold 30.0)" \
+        in text
+    _, raised = render_text(payloads[0])
+    assert "What to do: Cool room-1: 31.0 °C." in raised and "as of" not in raised

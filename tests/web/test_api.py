@@ -198,6 +198,12 @@ def test_a_cleared_advisory_is_still_there_from_the_store(web_site: WebSite):
     assert body["advisory"]["state"] == "cleared" and body["advisory"]["cleared_at"]
     status, page = web_site.get(f"/advisories/{cleared[0]['id']}")
     assert status == 200 and "cleared" in page and 'id="acknowledge"' not in page
+    # what it said while its condition held, beside the values it cleared at
+    assert "What it advised" in page and "What to do" not in page
+    assert "<th>At clearing</th>" in page and "<th>At " in page
+    said = body["advisory"]
+    assert said["numbers_at"] < said["cleared_at"]
+    assert set(said["history"][-1]["values"]) == set(said["numbers"])
     status, page = web_site.get(f"/spaces/{cleared[0]['space']['id']}")
     assert "Cleared in the last 24 hours" in page
     assert web_site.get("/api/advisories/no.such.advisory")[0] == 404

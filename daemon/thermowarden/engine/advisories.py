@@ -32,7 +32,7 @@ from thermowarden.engine.publication import (
     iso,
     num,
 )
-from thermowarden.engine.texts import Texts, number_at
+from thermowarden.engine.texts import Texts, number_at, values_at
 from thermowarden.rules import (
     HEAT_STRESS_CAUTIONS,
     CompiledPack,
@@ -96,6 +96,10 @@ class Advisory:
     """Acted on, not cleared in the expected time, and said so."""
     rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
     """What the texts were last rendered from (:meth:`Texts.render_key`)."""
+    numbers_at: float | None = None
+    """When the texts and numbers were last rendered (epoch s): the last evaluation at an
+    event where the rule's condition was not known to be false. None: not known (a record
+    from before)."""
 
 
 class CommandError(ValueError):
@@ -123,6 +127,12 @@ class RuleRuntime:
         self.lower_since = np.full(n, np.nan)
         self.acted_now = np.zeros(n, dtype=bool)
         """The equipment is in the state the advice asks for (blinds lowered, fans on)."""
+        self.holds = np.zeros(n, dtype=bool)
+        """The raise condition is not known to be false at the last step (true, or unknown
+        for want of a reading). The texts are written for it to hold ("humidity 76 % is
+        above 60 %"), so they are rendered again only here (a sentence whose number is
+        unknown is left out); where the condition is false (waiting to clear, clearing) an
+        advisory keeps what it said."""
         self.advisories: dict[int, Advisory] = {}
         self.raised_times: dict[int, deque[float]] = {}
         self.shelvings: dict[int, list[list[float]]] = {}
@@ -296,6 +306,7 @@ class Advisories:
         """Advance one rule's lifecycle in every space from its truths at ``now``."""
         cfg = rt.rule.config
         cond, clear, hold, level_idx = truths.raise_, truths.clear, truths.hold, truths.level
+        rt.holds = (cond.true | ~cond.known) & rt.mask
         live_before = rt.state >= State.ACTIVE
         # unknown for want of an input: the raise condition while an input it needs is
         # missing, or the clear condition of a live advisory whatever the reason (unknown
@@ -394,7 +405,7 @@ class Advisories:
         for rt in self.rules:
             for adv in rt.advisories.values():
                 shown = adv
-                if self._ctx.has_numbers(adv.space):
+                if self._ctx.has_numbers(adv.space) and rt.holds[adv.space]:
                     shown = copy.copy(adv)
                     self._render(rt, shown, now)
                 out.append(self._published(shown))
@@ -452,6 +463,13 @@ class Advisories:
     def _value_at(self, rt: RuleRuntime, expr: Any, i: int) -> float:
         return number_at(expr, self._ctx.base, rt.params, i)
 
+    def _values_now(self, rt: RuleRuntime, i: int) -> dict[str, Any]:
+        """The values of the rule's numbers for space ``i`` in this evaluation (units as
+        in the advisory's ``numbers``; None where not known)."""
+        numbers, _, _ = values_at(rt.rule, self._ctx.base, rt.params, self._ctx.table, i,
+                                  self.n)
+        return {name: item["value"] for name, item in numbers.items()}
+
     # ------------------------------------------------------------------ transitions
     def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None) -> None:
         extra = dict(self._ctx.details(adv.space, rt.rule.template_names))
@@ -464,6 +482,7 @@ class Advisories:
         level = int(rt.level[adv.space])
         key = (adv.effect_overdue, self.texts.render_key(
             rt.rule, adv.space, self._ctx.base, rt.params, self._ctx.table, level, extra))
+        adv.numbers_at = now if now is not None else adv.numbers_at
         if key == adv.rendered_from:
             return  # the same values as at the last rendering: the same texts
         self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table, level,
@@ -510,9 +529,14 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if self._ctx.has_numbers(i):
-            # every event says the numbers of its moment (a clearing shows why it cleared)
+        if self._ctx.has_numbers(i) and (rt.holds[i] or trigger == Trigger.EFFECT_OVERDUE):
+            # an event says the numbers of its moment where the texts are true of them:
+            # unless the condition is known to be false (or to say that acted-on advice
+            # has not helped); waiting to clear and clearing, it keeps what it said, and a
+            # clearing records the values it cleared at in its history entry
             self._render(rt, adv, now)
+        if new_state == State.IDLE and self._ctx.has_numbers(i):
+            extra = {**(extra or {}), "values": self._values_now(rt, i)}
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
             adv.shelved = None
         if trigger in (Trigger.UNSHELVE, Trigger.SHELVE_EXPIRED, Trigger.ESCALATE) or \
@@ -580,7 +604,8 @@ class Advisories:
             "event_count": rt.event_count.get(i, 0),
             # what its last event said (a refreshed message shows newer numbers)
             "said": {"title": own.title, "advice": own.advice, "rationale": own.rationale,
-                     "numbers": own.numbers, "benefit": own.benefit},
+                     "numbers": own.numbers, "benefit": own.benefit,
+                     "numbers_at": own.numbers_at},
         }
 
     def _persist(self, adv: Advisory) -> Effect:
@@ -677,6 +702,8 @@ class Advisories:
                     adv.effect_overdue = adv.acted_on.get("helped") is False
                 shelvings = [list(map(float, sh)) for sh in rec.get("shelvings", [])]
                 event_count = int(rec.get("event_count", len(adv.history)))
+                shown_at = p.get("numbers_at")
+                adv.numbers_at = _epoch(shown_at) if shown_at is not None else None
                 said = rec.get("said")
                 if said is not None:
                     texts = [said["title"], said["advice"], said["rationale"]]
@@ -688,6 +715,8 @@ class Advisories:
                         raise TypeError("said: numbers and benefit must be objects")
                     adv.title, adv.advice, adv.rationale = texts
                     adv.numbers, adv.benefit = numbers, benefit
+                    said_at = said.get("numbers_at")
+                    adv.numbers_at = None if said_at is None else float(said_at)
             except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
                 # a record from another instance (through the broker) or a damaged row:
                 # nothing of it is taken, and nothing half-restored is left behind

@@ -133,6 +133,7 @@ class Publication:
             "advice": adv.advice,
             "rationale": adv.rationale,
             "numbers": adv.numbers,
+            "numbers_at": iso(adv.numbers_at) if adv.numbers_at is not None else None,
             "benefit": adv.benefit,
             "cautions": adv.cautions,
             "advisory_only": True,

@@ -157,15 +157,33 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     adv = payload.get("advisory", {})
     space = adv.get("space", {})
     subject = f"{adv.get('priority', '')} {payload.get('event', '')}: {adv.get('title', '')}"
+    event = payload.get("event", "")
     lines = [f"{adv.get('title', '')}", "",
              f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')})",
-             f"Event: {payload.get('event', '')} at {payload.get('at', '')}",
-             f"Priority: {adv.get('priority', '')}", "",
-             f"What to do: {adv.get('advice', '')}", "",
-             f"Why: {adv.get('rationale', '')}"]
+             f"Event: {event} at {payload.get('at', '')}",
+             f"Priority: {adv.get('priority', '')}", ""]
     numbers = adv.get("numbers") or {}
+    shown_at = adv.get("numbers_at")
+    if event == "cleared":
+        # the texts are what the advisory said while its condition held; the clearing
+        # itself is told by the values it cleared at
+        history = adv.get("history") or []
+        values = (history[-1].get("values") or {}) if history else {}
+        lines += ["The condition no longer holds: this advisory has cleared."]
+        if values:
+            lines += ["", "Values at clearing:"]
+            for name, value in values.items():
+                unit = numbers.get(name, {}).get("unit", "") \
+                    if isinstance(numbers.get(name), dict) else ""
+                lines.append(f"  {name}: {value} {unit}".rstrip())
+        lines += ["", f"It advised: {adv.get('advice', '')}", "",
+                  f"Why it was raised: {adv.get('rationale', '')}"]
+    else:
+        lines += [f"What to do: {adv.get('advice', '')}", "",
+                  f"Why: {adv.get('rationale', '')}"]
     if numbers:
-        lines += ["", "Numbers:"]
+        when = f" (as of {shown_at})" if shown_at and shown_at != payload.get("at") else ""
+        lines += ["", f"Numbers{when}:"]
         for name, n in numbers.items():
             if isinstance(n, dict):
                 value = n.get("value")

@@ -363,15 +363,27 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
              + (f' · cleared {local(a["cleared_at"], tz, "%H:%M")}' if a.get("cleared_at")
                 else "") + (" · chattering (held active)" if a.get("chattering") else "")
              + "</p>",
-             f'<h2>What to do</h2><p class="advice">{h(a["advice"])}</p>',
+             f'<h2>{"What it advised" if a.get("cleared_at") else "What to do"}</h2>'
+             f'<p class="advice">{h(a["advice"])}</p>',
              f'<p class="note">{h(a["rationale"])}</p>']
     if a.get("numbers"):
+        # the numbers are those of the texts (numbers_at); a clearing adds its own values
+        history = a.get("history") or []
+        cleared = (history[-1].get("values") if a.get("cleared_at") and history
+                   and history[-1].get("event") == "cleared" else None)
+        shown = (f'At {local(a["numbers_at"], tz, "%H:%M")}' if a.get("numbers_at")
+                 else "Said")
         rows = "".join(
-            f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td><td class="num">'
-            f'{_threshold(v)}</td><td class="note">{h(v.get("method", ""))}</td></tr>'
+            f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td>'
+            + (f'<td class="num">{fmt_value(_at_clearing(v, cleared.get(k)))}</td>'
+               if cleared is not None else "")
+            + f'<td class="num">{_threshold(v)}</td><td class="note">'
+            f'{h(v.get("method", ""))}</td></tr>'
             for k, v in a["numbers"].items())
         parts.append('<h2>The numbers</h2><div class="scroll"><table><thead><tr><th>Value'
-                     '</th><th>Now</th><th>Threshold</th><th>Method</th></tr></thead><tbody>'
+                     f'</th><th>{h(shown)}</th>'
+                     + ("<th>At clearing</th>" if cleared is not None else "")
+                     + '<th>Threshold</th><th>Method</th></tr></thead><tbody>'
                      + rows + "</tbody></table></div>")
     if a.get("benefit"):
         parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
@@ -402,6 +414,11 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                  + "</tbody></table></div>")
     return page(a["title"], "".join(parts), directory, session,
                 here=f"/advisories/{quote(a['id'], safe='')}")
+
+
+def _at_clearing(said: dict[str, Any], value: Any) -> dict[str, Any]:
+    """A number's value at the clearing, in the unit of the advisory's number."""
+    return {"value": value, "unit": said.get("unit", ""), "reason": "not known at clearing"}
 
 
 def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
