@@ -165,7 +165,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     from thermowarden.config import load_site
     from thermowarden.shell.bootstrap import bootstrap
     from thermowarden.shell.embedded_broker import EmbeddedBroker
-    from thermowarden.shell.mqtt_link import parse_url
+    from thermowarden.shell.mqtt_link import parse_url, release_sockets
     from thermowarden.shell.service import Clock
     from thermowarden.simulated_feeds.larkfield import larkfield_day
 
@@ -275,6 +275,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         watcher.loop_stop()
         for c in (sensors, watcher):
             c.disconnect()
+            release_sockets(c)
         if embedded is not None:
             embedded.stop()
         if running.web is not None:

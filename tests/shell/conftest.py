@@ -24,6 +24,7 @@ import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
 from tests.conftest import COMMAND_LIMIT_S
+from thermowarden.shell.mqtt_link import release_sockets
 
 REPO = pathlib.Path(__file__).resolve().parents[2]
 MOSQUITTO = shutil.which("mosquitto") or (
@@ -240,6 +241,7 @@ class Collector:
     def close(self) -> None:
         self.client.loop_stop()
         self.client.disconnect()
+        release_sockets(self.client)
 
 
 def write_site(tmp: pathlib.Path, prefix: str, port: int, spaces: list[str], *,

@@ -17,6 +17,7 @@ from paho.mqtt.properties import Properties
 
 from tests.shell.conftest import SLOW, wait_for
 from thermowarden.shell.buffered_client import READ_CHUNK, BufferedClient
+from thermowarden.shell.mqtt_link import release_sockets
 
 
 def _record(msg: mqtt.MQTTMessage) -> tuple[Any, ...]:
@@ -50,6 +51,7 @@ class Receiver:
     def stop(self) -> None:
         self.client.disconnect()
         self.client.loop_stop()
+        release_sockets(self.client)
 
 
 def _publish_mix(port: int, prefix: str, v5: bool, caught_up: Any) -> int:
@@ -84,6 +86,7 @@ def _publish_mix(port: int, prefix: str, v5: bool, caught_up: Any) -> int:
     n += 1
     pub.disconnect()
     pub.loop_stop()
+    release_sockets(pub)
     return n
 
 
@@ -128,6 +131,7 @@ def test_same_messages_as_stock_paho_through_the_broker(system_broker_port: int,
         clean.publish(f"{prefix}/retained", b"", qos=1, retain=True).wait_for_publish(SLOW)
         clean.disconnect()
         clean.loop_stop()
+        release_sockets(clean)
 
 
 def _encode_length(n: int) -> bytes:
@@ -199,6 +203,7 @@ def test_a_stream_cut_anywhere_is_read_whole(v5: bool, piece: int) -> None:
     finally:
         c.loop_stop()
         c.disconnect()
+        release_sockets(c)
         server.close()
 
 
@@ -213,6 +218,7 @@ def test_keeps_receiving_after_the_broker_restarts(own_broker: Any) -> None:
         pub.loop_start()
         pub.publish(f"{prefix}/a", b"before", qos=1).wait_for_publish(SLOW)
         pub.loop_stop()
+        release_sockets(pub)
         wait_for(lambda: ours.count() >= 1, SLOW, "the first message")
         own_broker.stop()
         ours.subscribed.clear()
@@ -224,6 +230,7 @@ def test_keeps_receiving_after_the_broker_restarts(own_broker: Any) -> None:
         pub.publish(f"{prefix}/b", b"after", qos=1).wait_for_publish(SLOW)
         pub.disconnect()
         pub.loop_stop()
+        release_sockets(pub)
         wait_for(lambda: ours.count() >= 2, SLOW, "the second message")
         assert [r[1] for r in ours.got] == [b"before", b"after"]
     finally:

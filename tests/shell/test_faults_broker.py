@@ -25,6 +25,7 @@ from tests.shell.conftest import (
     wait_for,
     write_site,
 )
+from thermowarden.shell.mqtt_link import release_sockets
 
 pytestmark = pytest.mark.broker
 
@@ -67,6 +68,7 @@ class EventLog:
     def close(self) -> None:
         self.client.loop_stop()
         self.client.disconnect()
+        release_sockets(self.client)
 
 
 def stored_events(state_dir) -> dict[str, float]:
@@ -139,6 +141,7 @@ def test_broker_hang_then_kill_delivers_every_event_once(tmp_path):
     finally:
         stop.set()
         feeder.loop_stop()
+        release_sockets(feeder)
         log.close()
         if svc.proc and svc.proc.poll() is None:
             svc.stop()

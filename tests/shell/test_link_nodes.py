@@ -3,6 +3,7 @@ list of broker nodes tried in turn."""
 
 from __future__ import annotations
 
+import os
 import queue
 import threading
 
@@ -59,3 +60,25 @@ def test_publishes_from_another_thread_are_written_by_the_network_thread(
     finally:
         link.stop()
         watcher.close()
+
+
+def _open_fds() -> set[str]:
+    return set(os.listdir("/proc/self/fd"))
+
+
+@pytest.mark.skipif(not os.path.isdir("/proc/self/fd"), reason="needs /proc (Linux)")
+def test_a_stopped_link_leaves_no_socket_open(system_broker_port):
+    """All of the link's sockets close when it stops, paho's wake-up pair included: not later,
+    when the garbage collector finalises the client (then with a ResourceWarning, in whatever
+    code ran the collector)."""
+    before = _open_fds()
+    link = make_link([f"mqtt://127.0.0.1:{system_broker_port}"])
+    link.start()
+    try:
+        wait_for(link.connected.is_set, SLOW, "the link to connect")
+        assert _open_fds() - before  # the broker connection and the wake-up pair
+    finally:
+        link.stop()
+    left = _open_fds() - before
+    assert not left, [os.readlink(f"/proc/self/fd/{fd}") for fd in left
+                      if os.path.exists(f"/proc/self/fd/{fd}")]

@@ -20,6 +20,7 @@ from tests.shell.conftest import (
     need_program,
     wait_for,
 )
+from thermowarden.shell.mqtt_link import release_sockets
 
 pytestmark = pytest.mark.broker
 
@@ -202,4 +203,5 @@ def test_tls_with_client_certificate(tmp_path):
                 if c.loop(timeout=0.1) != 0:
                     raise OSError("refused")
     finally:
+        release_sockets(c)
         broker.stop()

@@ -31,6 +31,7 @@ from tests.shell.conftest import (
     wait_for,
 )
 from thermowarden.shell.bootstrap import Running, bootstrap
+from thermowarden.shell.mqtt_link import release_sockets
 from thermowarden.shell.service import Clock
 from thermowarden.shell.web.users import hash_password
 
@@ -169,6 +170,7 @@ def web_site(tmp_path_factory, web_broker_port) -> Iterator[WebSite]:
         engine_thread.join(30)
         sensors.loop_stop()
         sensors.disconnect()
+        release_sockets(sensors)
         watcher.close()
         if running.web is not None:
             running.web.stop()

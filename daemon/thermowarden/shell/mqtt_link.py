@@ -153,6 +153,19 @@ def _no_op(*args: Any) -> None:
     """paho's socket-registration callbacks: nothing to do (see the module docstring)."""
 
 
+def release_sockets(client: mqtt.Client) -> None:
+    """Close a stopped paho client's sockets now, its wake-up socket pair included.
+
+    paho (2.2) closes that pair only when the client object is finalised. A client held in a
+    reference cycle (its callbacks are bound methods of its owner) is finalised by the cyclic
+    collector, which may finalise the pair's sockets first: they are then closed late, with a
+    ResourceWarning, in whatever code happens to run the collector. Call it once the client's
+    network loop has ended; a later ``loop()`` makes a new pair."""
+    reset = getattr(client, "_reset_sockets", None)  # paho's own closing of both
+    if callable(reset):
+        reset()
+
+
 def parse_url(url: str) -> tuple[str, int, bool]:
     u = urllib.parse.urlparse(url)
     tls = u.scheme == "mqtts"
@@ -525,3 +538,5 @@ class MqttLink:
         self._stop.set()
         if self._thread is not None:
             self._thread.join(timeout)
+        if self._thread is None or not self._thread.is_alive():
+            release_sockets(self.client)
