@@ -55,9 +55,12 @@ def test_clock_steps_forward_and_back(tmp_path, system_broker_port):
     prefix = f"twclock-{uid}"
     site = tmp_path / "site.yaml"
     site.write_text(SITE.format(uid=uid, port=port, prefix=prefix))
-    # the wall clock starts 10 s before the 07:00 digest of some day
+    # the wall clock starts 10 minutes before the 07:00 digest of some day: the service
+    # schedules the digest when it is built, which may take a while on a loaded machine (a
+    # first build in the process compiles the comfort models); started after 07:00, the
+    # next digest would be tomorrow's and the step forward would not reach it
     today = dt.datetime.now(dt.UTC).date()
-    target = dt.datetime.combine(today, dt.time(6, 59, 50), dt.UTC).timestamp()
+    target = dt.datetime.combine(today, dt.time(6, 50, 0), dt.UTC).timestamp()
     offset = [target - time.time()]
     clock = Clock(wall=lambda: time.time() + offset[0])
     running = bootstrap(str(site), state_dir=str(tmp_path / "state"), clock=clock)
