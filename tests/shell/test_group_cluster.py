@@ -112,7 +112,8 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
         cluster.nodes[1].kill()  # b's node: b moves to another node
         values[target] = dict(ABOVE_LIMIT)
         t_covered = wait_until(lambda: watch.covered_by({"b", "c"}), 3 * SLOW)
-        assert t_covered is not None, "the survivors never covered every space"
+        assert t_covered is not None, \
+            f"the survivors never covered every space; owners as seen: {watch.owners()}"
         assert t_covered - t_kill <= BOUND_S, (t_covered - t_kill, BOUND_S)
         t_escalated = wait_until(lambda: any(e["event"] == "escalated"
                                              for e in heat_events()), 3 * SLOW)

@@ -205,3 +205,42 @@ def test_hostile_records_on_the_group_topics_stop_nothing(tmp_path, system_broke
         proc.stop()
         watch_c.close()
         clear_retained(port, prefix)
+
+
+def test_the_owners_record_comes_back_after_the_broker_lost_it(tmp_path, own_broker):
+    """A broker killed before it saved its retained messages comes back without them. The
+    instance's status and advisories are sent again on the reconnect; its owners record
+    must be too (before, it was sent only when the owned spaces changed, so an integrator
+    saw no owner for a space that had one; the same loss happened to a record sent while a
+    connection to a clustered broker's node was going)."""
+    port = own_broker.port
+    prefix = f"twgo-{uuid.uuid4().hex[:8]}"
+    spaces = ["s00", "s01", "s02"]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n")
+    topic = f"{prefix}/group/g/owners/a"
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance", "a")
+    watch_c: Collector | None = None
+    try:
+        proc.start()
+        watch_c = Collector(port, [topic])
+        wait_for(lambda: sorted(_owned(watch_c)) == spaces, SLOW, "the owners record")
+        watch_c.close()
+        own_broker.kill()  # nothing saved: the retained records are gone
+        own_broker.start()
+        watch_c = Collector(port, [f"{prefix}/#"])
+        wait_for(lambda: proc.metric("thermowarden_group_owned_spaces") == len(spaces)
+                 and any(t.startswith(f"{prefix}/status/") for t, _, _ in
+                         list(watch_c.messages)), SLOW, "the instance to be back")
+        wait_for(lambda: sorted(_owned(watch_c)) == spaces, SLOW,
+                 "the owners record after the broker lost it")
+    finally:
+        proc.stop()
+        if watch_c is not None:
+            watch_c.close()
+
+
+def _owned(c: Collector) -> list[str]:
+    """The spaces of the latest owners record ``c`` received."""
+    recs = [json.loads(p) for t, p, _ in list(c.messages) if "/group/g/owners/" in t and p]
+    return recs[-1]["spaces"] if recs else []

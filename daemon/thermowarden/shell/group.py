@@ -18,7 +18,9 @@ The bound: a space is owned again within ``BOUND_FACTOR`` (2) keepalives of its 
 (a broker notices a dead client within 1.5 keepalives and publishes its will; a missing
 heartbeat is noticed within one keepalive). Coverage:
 metrics (owned spaces, members, seconds since every space had an owner), a retained record
-of the spaces each instance owns (``<prefix>/group/<name>/owners/<instance>``), and a notice
+of the spaces each instance owns (``<prefix>/group/<name>/owners/<instance>``: sent when they
+change, again after every (re)connect and with every retained beat, so that a record lost
+with a connection, a broker node or a broker's restart comes back), and a notice
 to the integrator when a space had no owner, or a member evaluated nothing, for longer than
 the bound (sent by the first live member in name order, once per episode).
 """
@@ -105,6 +107,8 @@ class Group:
         self.holding = np.zeros(0, dtype=bool)
         self.hashes = ownership.space_hashes([])
         self.last_evaluated: float | None = None
+        self.owners_record: dict[str, Any] | None = None
+        """The latest owners record this run sent (sent again, unchanged, until it changes)."""
         self._key: object = None
         self._held = np.zeros(0, dtype=bool)
         self._unowned = np.zeros(0, dtype=bool)
@@ -151,8 +155,11 @@ class Group:
 
     # ------------------------------------------------------------------ input
     def connected(self) -> None:
-        """A (re)connect: listen a beat's interval before ownership changes again."""
+        """A (re)connect: listen a beat's interval before ownership changes again; the
+        owners record again (one sent while the connection was going may have been lost,
+        and a broker restarted without persistence has forgotten it)."""
         self.settle_until = None
+        self._send_owners()
 
     def receive(self, topic: str, payload: bytes) -> None:
         """A status record, beat or retained advisory message."""
@@ -290,9 +297,16 @@ class Group:
         self.last_beat = self.service.clock.monotonic()
         self._status_fields()
         link = self.service.link
+        if retain:
+            self._send_owners()
         # a plain beat at QoS 0: on a JetStream-backed broker it does not wait for the
         # streams (which stall for seconds while a dead node's streams move)
         link.publish(link.status_topic, dict(link.status_online), 1 if retain else 0, retain)
+
+    def _send_owners(self) -> None:
+        """The retained owners record, as of the latest change of the owned spaces."""
+        if self.owners_record is not None and self.service is not None:
+            self.service.link.publish(self.owners_topic, self.owners_record, 1, True)
 
     def _hold(self, held: np.ndarray) -> None:
         """Own exactly the spaces ``held``: adopt the advisories of those taken over before
@@ -327,10 +341,10 @@ class Group:
         m.group_moves.labels(direction="out").inc(int(released.sum()))
         log.info("group %s: owning %d space(s) (+%d, -%d)", self.name, int(held.sum()),
                  int(gained.sum()), int(released.sum()))
-        service.link.publish(self.owners_topic, {
+        self.owners_record = {
             "schema": "thermowarden.owners/1", "group": self.name, "instance": self.me,
-            "at": _iso(now), "spaces": [ids[i] for i in np.flatnonzero(held)]}, 1, True)
-        self._beat(retain=True)
+            "at": _iso(now), "spaces": [ids[i] for i in np.flatnonzero(held)]}
+        self._beat(retain=True)  # sends the owners record first
 
     def _coverage(self, mono: float, live: dict[str, Member]) -> None:
         """Metrics and the integrator's notices: spaces without an owner, idle owners."""
@@ -381,6 +395,7 @@ class Group:
 
     def stop(self) -> None:
         """An orderly stop: the owners record is emptied (the status says offline)."""
+        self.owners_record = None  # not sent again
         if self.service is not None and self.service.link.connected.is_set():
             self.service.link.publish(self.owners_topic, None, 1, True)
 
