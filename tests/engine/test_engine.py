@@ -312,3 +312,71 @@ def test_an_event_while_the_condition_holds_says_the_numbers_of_its_moment(lab):
     reminder = sent[1]["advisory"]
     assert reminder["advice"] == "Cool room-1: 33.4 °C."
     assert reminder["numbers_at"] == sent[1]["at"]
+
+
+def _hot_events(effects):
+    return [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic
+            and x.payload["advisory"]["rule"] == "testpack.hot"]
+
+
+def test_acted_on_while_waiting_to_clear_keeps_what_was_said(lab):
+    """Blinds lowered while the advisory waits to clear (29.5 °C: below the raise threshold
+    of 30, above the clear threshold of 29): the retained message of that moment and the
+    clearing keep the texts and numbers of the raise ("Cool room-1: 31.0 °C."), not 29.5,
+    which the rationale "Above 30 °C" would contradict."""
+    effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})            # raised at 31.0
+    effects += run(lab, 80, 200, **{"room-1": 29.5, "room-2": 25})
+    lab.message("lab/room-1/blinds", b"100", 205)
+    acting = run(lab, 210, 260, **{"room-1": 29.5, "room-2": 25})
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.hot")
+    assert adv.acted_on is not None and adv.acted_on["at"] == "1970-01-01T00:03:30Z"
+    retained = [x.payload for x in acting if isinstance(x, Publish) and x.payload
+                and x.topic.endswith("/advisories/testpack.hot")]
+    assert retained and retained[0]["acted_on"] is not None
+    effects += acting + run(lab, 270, 500, **{"room-1": 28.2, "room-2": 25})
+    sent = _hot_events(effects)
+    assert [p["event"] for p in sent] == ["raised", "cleared"]
+    raised, cleared = (p["advisory"] for p in sent)
+    for shown in (retained[0], cleared):
+        assert shown["advice"] == "Cool room-1: 31.0 °C." == raised["advice"]
+        assert shown["numbers"]["air_temperature"]["value"] == 31.0
+        assert shown["numbers_at"] == raised["raised_at"]
+    assert cleared["acted_on"]["cleared_after"] is True
+    assert cleared["history"][-1]["values"] == {"air_temperature": 28.2}
+
+
+@pytest.mark.parametrize("after", [29.5, 28.2])
+def test_no_effect_is_said_only_while_the_condition_holds(lab, after):
+    """Advice acted on at 80 s; the effect is due after 30 min (1,880 s). Shortly before,
+    the air falls below the raise threshold: between the thresholds (29.5 °C) or in the
+    off-delay of the clear threshold (28.2 °C). Either way no "no effect" notice while the
+    numbers say the condition is false; back above 30 °C with the blinds still down, the
+    notice comes then, with the numbers of its moment."""
+    effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})
+
+    def blinds_and_air(t0, t1, temp):
+        out = []
+        for t in range(t0, t1 + 1, 10):
+            if t % 300 == 80:  # the blinds report every 5 minutes (their interval: 10)
+                lab.message("lab/room-1/blinds", b"100", t)
+            out += run(lab, t, t, **{"room-1": temp, "room-2": 25})
+        return out
+
+    effects += blinds_and_air(80, 1850, 31)
+    later = blinds_and_air(1860, 2500 if after == 29.5 else 2100, after)
+    sent = _hot_events(effects + later)
+    if after == 28.2:
+        assert [p["event"] for p in sent] == ["raised", "cleared"]
+        assert sent[1]["at"] == "1970-01-01T00:33:00Z"  # 1,860 s + off-delay of 120 s
+        assert sent[1]["advisory"]["acted_on"]["helped"] is False  # beyond 30 min
+        return
+    assert [p["event"] for p in sent] == ["raised"]
+    again = blinds_and_air(2510, 2520, 31.6)
+    sent = _hot_events(again)
+    assert [p["event"] for p in sent] == ["no_effect"]
+    shown = sent[0]["advisory"]
+    assert sent[0]["at"] == "1970-01-01T00:41:50Z"
+    assert shown["numbers"]["air_temperature"]["value"] == 31.6
+    assert shown["numbers_at"] == sent[0]["at"]
+    assert shown["history"][-1]["event"] == "no_effect"
+    assert shown["acted_on"]["helped"] is False

@@ -282,7 +282,27 @@ def test_a_clearing_reads_as_one(tmp_path):
     assert "this advisory has cleared" in text and "What to do" not in text
     assert "Values at clearing:\n  air_temperature: 28.2 °C" in text
     assert "It advised: Cool room-1: 31.0 °C." in text
-    assert "Numbers (as of 1970-01-01T00:01:00Z):\n  air_temperature: 31.0 °C (threshold 30.0)" \
-        in text
+    assert "Numbers (as of 1970-01-01T00:01:00Z):\n  air_temperature: 31.0 °C (threshold " \
+        "30.0 °C)" in text
     _, raised = render_text(payloads[0])
     assert "What to do: Cool room-1: 31.0 °C." in raised and "as of" not in raised
+
+
+def test_unknown_and_dimensionless_values_read_as_words(tmp_path):
+    """A value not known at the clearing reads "not known" (not "None"), and a
+    dimensionless one (PMV, unit "1") has no unit after it."""
+    engine = lab_engine(tmp_path, conditions_every_s=0)
+    cleared = None
+    for t in range(0, 600, 10):
+        engine.message("lab/room-1/ta", b"31" if t < 200 else b"28.2", float(t))
+        for e in engine.tick(float(t)):
+            if isinstance(e, Publish) and "/events/" in e.topic and e.payload \
+                    and e.payload["event"] == "cleared":
+                cleared = e.payload
+    assert cleared is not None
+    adv = cleared["advisory"]
+    adv["numbers"]["pmv"] = {"value": 0.62, "unit": "1", "method": "ISO 7730:2005"}
+    adv["history"][-1]["values"] = {"air_temperature": None, "pmv": 0.41}
+    _, text = render_text(cleared)
+    assert "Values at clearing:\n  air_temperature: not known\n  pmv: 0.41\n" in text
+    assert "  pmv: 0.62\n" in text and "None" not in text

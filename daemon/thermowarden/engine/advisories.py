@@ -414,8 +414,17 @@ class Advisories:
     # ------------------------------------------------------------------ acted on
     def _acted(self, rt: RuleRuntime, adv: Advisory, now: float) -> None:
         """The equipment went into the state the advice asks for: note the target
-        quantity and the value the advice predicted."""
-        self._render(rt, adv, now)
+        quantity and the value the advice predicts for this moment's numbers.
+
+        The texts are rendered again only where the rule's condition still holds: acted on
+        while the advisory waits to clear, it keeps what it last said (its texts are
+        written for the condition), and the prediction is computed on a copy, so that it
+        is of the same moment as the value it is compared with."""
+        shown = adv
+        if self._ctx.has_numbers(adv.space):
+            if not rt.holds[adv.space]:
+                shown = copy.copy(adv)
+            self._render(rt, shown, now)
         record: dict[str, Any] = {"at": iso(now), "cleared_after": None,
                                   "cleared_after_min": None, "helped": None,
                                   "minutes_after_raised": round((now - adv.raised_at) / 60, 1),
@@ -423,7 +432,7 @@ class Advisories:
         eff = rt.rule.config.effect
         if eff is not None and rt.rule.effect_quantity is not None:
             value = self._value_at(rt, rt.rule.effect_quantity, adv.space)
-            predicted = (adv.benefit.get(eff.predicted, {}).get("value")
+            predicted = (shown.benefit.get(eff.predicted, {}).get("value")
                          if eff.predicted else None)
             record["effect"] = {
                 "quantity": eff.quantity, "value_then": num(value), "predicted": predicted,
@@ -437,7 +446,12 @@ class Advisories:
     def _follow_effect(self, rt: RuleRuntime, adv: Advisory, now: float,
                        effects: list[Effect]) -> None:
         """Record the target quantity at the rule's check times after the action; once the
-        expected time has passed without the condition clearing, say so, once."""
+        expected time has passed with the rule's condition still holding, say so, once.
+
+        Not while the condition is known to be false (between the raise and the clear
+        thresholds, or during the off-delay): the action has at least brought it back
+        there, and "no effect" would contradict the numbers; should the condition hold
+        again, the notice comes then."""
         rec = adv.acted_on
         assert rec is not None
         eff = rt.rule.config.effect
@@ -453,7 +467,7 @@ class Advisories:
                     if then is not None and math.isfinite(v):
                         rec["effect"]["realised_change"] = num(v - then)
         i = adv.space
-        if (not adv.effect_overdue and now - t0 >= wait_s and rt.acted_now[i]
+        if (not adv.effect_overdue and now - t0 >= wait_s and rt.acted_now[i] and rt.holds[i]
                 and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED)):
             adv.effect_overdue = True
             rec["helped"] = False
@@ -529,11 +543,12 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if self._ctx.has_numbers(i) and (rt.holds[i] or trigger == Trigger.EFFECT_OVERDUE):
+        if self._ctx.has_numbers(i) and rt.holds[i]:
             # an event says the numbers of its moment where the texts are true of them:
-            # unless the condition is known to be false (or to say that acted-on advice
-            # has not helped); waiting to clear and clearing, it keeps what it said, and a
-            # clearing records the values it cleared at in its history entry
+            # unless the condition is known to be false; waiting to clear and clearing, it
+            # keeps what it said, and a clearing records the values it cleared at in its
+            # history entry (the notice that acted-on advice has not helped comes only
+            # while the condition holds, see _follow_effect)
             self._render(rt, adv, now)
         if new_state == State.IDLE and self._ctx.has_numbers(i):
             extra = {**(extra or {}), "values": self._values_now(rt, i)}

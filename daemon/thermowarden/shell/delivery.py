@@ -141,6 +141,15 @@ def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
         raise DeliveryFailed(f"{type(exc).__name__}: {reason}") from None
 
 
+def _quantity_text(value: Any, unit: Any) -> str:
+    """A number with its unit for a person: "not known" for a missing value, no unit for
+    a dimensionless one (unit "1", as PMV's)."""
+    if value is None:
+        return "not known"
+    unit = "" if unit in (None, "", "1") else f" {unit}"
+    return f"{value}{unit}"
+
+
 def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     """(subject, body) of an event or digest for a person."""
     if payload.get("event") == "summary":
@@ -175,7 +184,7 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
             for name, value in values.items():
                 unit = numbers.get(name, {}).get("unit", "") \
                     if isinstance(numbers.get(name), dict) else ""
-                lines.append(f"  {name}: {value} {unit}".rstrip())
+                lines.append(f"  {name}: {_quantity_text(value, unit)}")
         lines += ["", f"It advised: {adv.get('advice', '')}", "",
                   f"Why it was raised: {adv.get('rationale', '')}"]
     else:
@@ -186,11 +195,10 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
         lines += ["", f"Numbers{when}:"]
         for name, n in numbers.items():
             if isinstance(n, dict):
-                value = n.get("value")
                 unit = n.get("unit", "")
-                extra = f" (threshold {n['threshold']})" if n.get("threshold") is not None \
-                    else ""
-                lines.append(f"  {name}: {value} {unit}{extra}".rstrip())
+                extra = f" (threshold {_quantity_text(n['threshold'], unit)})" \
+                    if n.get("threshold") is not None else ""
+                lines.append(f"  {name}: {_quantity_text(n.get('value'), unit)}{extra}")
             else:
                 lines.append(f"  {name}: {n}")
     cautions = adv.get("cautions") or []

@@ -371,7 +371,7 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         history = a.get("history") or []
         cleared = (history[-1].get("values") if a.get("cleared_at") and history
                    and history[-1].get("event") == "cleared" else None)
-        shown = (f'At {local(a["numbers_at"], tz, "%H:%M")}' if a.get("numbers_at")
+        shown = (f'At {local(a["numbers_at"], tz, "%d %b %H:%M")}' if a.get("numbers_at")
                  else "Said")
         rows = "".join(
             f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td>'
