@@ -76,11 +76,12 @@ rules:
 """
 
 
-def lab_engine(directory: pathlib.Path, **options: float) -> Engine:
-    """An engine of the lab site and test pack written to ``directory`` (created), started
-    at 0 s; ``options`` go to :class:`Engine` (conditions every 60 s unless given)."""
+def lab_engine(directory: pathlib.Path, pack: str = PACK, **options: float) -> Engine:
+    """An engine of the lab site and test pack (``pack``: its YAML) written to
+    ``directory`` (created), started at 0 s; ``options`` go to :class:`Engine`
+    (conditions every 60 s unless given)."""
     (directory / "packs").mkdir(parents=True, exist_ok=True)
-    (directory / "packs" / "testpack.yaml").write_text(PACK)
+    (directory / "packs" / "testpack.yaml").write_text(pack)
     site = directory / "site.yaml"
     site.write_text(textwrap.dedent(SITE))
     config = load_site(site, {})

@@ -7,7 +7,7 @@ import json
 
 import pytest
 
-from tests.engine.conftest import lab_engine, validate_effects
+from tests.engine.conftest import PACK, lab_engine, validate_effects
 from thermowarden.effects import Persist, Publish
 
 
@@ -314,6 +314,24 @@ def test_an_event_while_the_condition_holds_says_the_numbers_of_its_moment(lab):
     assert reminder["numbers_at"] == sent[1]["at"]
 
 
+def _blinds_and_air(engine, t0, t1, temp, tick=True):
+    """The blinds down (reported every 5 minutes, from 80 s), room-1 at ``temp`` (None:
+    no reading) and room-2 at 25 °C every 10 s from ``t0`` to ``t1``; ticked one by one
+    (the effects), or only captured (``tick=False``: the captures, for a batch)."""
+    out = []
+    for t in range(t0, t1 + 1, 10):
+        if t % 300 == 80:
+            engine.message("lab/room-1/blinds", b"100", t)
+        feed(engine, t, **({"room-2": 25} if temp is None else {"room-1": temp, "room-2": 25}))
+        if tick:
+            out += engine.tick(t)
+        else:
+            out.append(engine.capture(t))
+    if tick:
+        validate_effects(out)
+    return out
+
+
 def _hot_events(effects):
     return [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic
             and x.payload["advisory"]["rule"] == "testpack.hot"]
@@ -353,17 +371,8 @@ def test_no_effect_is_said_only_while_the_condition_holds(lab, after):
     numbers say the condition is false; back above 30 °C with the blinds still down, the
     notice comes then, with the numbers of its moment."""
     effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})
-
-    def blinds_and_air(t0, t1, temp):
-        out = []
-        for t in range(t0, t1 + 1, 10):
-            if t % 300 == 80:  # the blinds report every 5 minutes (their interval: 10)
-                lab.message("lab/room-1/blinds", b"100", t)
-            out += run(lab, t, t, **{"room-1": temp, "room-2": 25})
-        return out
-
-    effects += blinds_and_air(80, 1850, 31)
-    later = blinds_and_air(1860, 2500 if after == 29.5 else 2100, after)
+    effects += _blinds_and_air(lab, 80, 1850, 31)
+    later = _blinds_and_air(lab, 1860, 2500 if after == 29.5 else 2100, after)
     sent = _hot_events(effects + later)
     if after == 28.2:
         assert [p["event"] for p in sent] == ["raised", "cleared"]
@@ -371,7 +380,7 @@ def test_no_effect_is_said_only_while_the_condition_holds(lab, after):
         assert sent[1]["advisory"]["acted_on"]["helped"] is False  # beyond 30 min
         return
     assert [p["event"] for p in sent] == ["raised"]
-    again = blinds_and_air(2510, 2520, 31.6)
+    again = _blinds_and_air(lab, 2510, 2520, 31.6)
     sent = _hot_events(again)
     assert [p["event"] for p in sent] == ["no_effect"]
     shown = sent[0]["advisory"]
@@ -380,3 +389,59 @@ def test_no_effect_is_said_only_while_the_condition_holds(lab, after):
     assert shown["numbers_at"] == sent[0]["at"]
     assert shown["history"][-1]["event"] == "no_effect"
     assert shown["acted_on"]["helped"] is False
+
+
+EFFECT_PACK = PACK.replace(
+    "    acted_on: shading_position >= 80\n",
+    "    acted_on: shading_position >= 80\n"
+    "    benefit: {after: air_temperature - 1}\n"
+    "    effect: {quantity: air_temperature, predicted: after, wait_s: 900}\n")
+
+
+def test_the_prediction_is_of_the_moment_of_the_action(tmp_path):
+    """Acted on at 29.5 °C while the advisory (raised at 31.0 °C, "after" 30.0 °C) waits to
+    clear: the effect record compares the value then (29.5) with the prediction for that
+    moment (28.5), while the advisory keeps what it said (benefit 30.0, numbers of the
+    raise). Back above 30 °C after the 15-minute wait, the notice comes at once; a batch
+    of ticks (replay) gives the same events as ticks one by one (the service)."""
+    assert EFFECT_PACK != PACK
+    out = {}
+    for how in ("one by one", "in batches"):
+        engine = lab_engine(tmp_path / how.replace(" ", "-"), pack=EFFECT_PACK,
+                            conditions_every_s=0)
+        effects = []
+        for t0, t1, temp in [(0, 70, 31), (80, 1190, 29.5), (1200, 1300, 31.5)]:
+            if how == "one by one":
+                effects += _blinds_and_air(engine, t0, t1, temp)
+            else:
+                caps = _blinds_and_air(engine, t0, t1, temp, tick=False)
+                for k in range(0, len(caps), 7):
+                    effects += engine.tick_many(caps[k:k + 7])
+        out[how] = _hot_events(effects)
+    sent = out["one by one"]
+    assert [(p["event"], p["at"]) for p in sent] == [
+        ("raised", "1970-01-01T00:01:00Z"), ("no_effect", "1970-01-01T00:20:00Z")]
+    assert [(p["event"], p["at"], p["advisory"]["advice"]) for p in out["in batches"]] == \
+        [(p["event"], p["at"], p["advisory"]["advice"]) for p in sent]
+    raised, no_effect = (p["advisory"] for p in sent)
+    assert raised["benefit"] == {"after": {"value": 30.0}}
+    effect = no_effect["acted_on"]["effect"]
+    assert no_effect["acted_on"]["at"] == "1970-01-01T00:01:20Z"  # the blinds at 80 s
+    assert effect["value_then"] == 29.5 and effect["predicted"] == 28.5
+    assert effect["predicted_change"] == -1.0
+    assert no_effect["numbers"]["air_temperature"]["value"] == 31.5
+    assert no_effect["history"][-1] == {"at": "1970-01-01T00:20:00Z", "event": "no_effect",
+                                        "waited_min": 19}
+
+
+def test_no_effect_waits_while_a_reading_is_missing(lab):
+    """The air temperature stops reporting after the blinds went down (stale after three
+    intervals): the notice does not come with unknown numbers at the 30-minute mark; when
+    readings come back above the threshold, it comes then, with them."""
+    effects = run(lab, 0, 70, **{"room-1": 31, "room-2": 25})
+    effects += _blinds_and_air(lab, 80, 990, 31)
+    effects += _blinds_and_air(lab, 1000, 2500, None)  # room-1's air temperature is silent
+    assert [p["event"] for p in _hot_events(effects)] == ["raised"]
+    back = _hot_events(_blinds_and_air(lab, 2510, 2520, 31.2))
+    assert [(p["event"], p["at"]) for p in back] == [("no_effect", "1970-01-01T00:41:50Z")]
+    assert back[0]["advisory"]["numbers"]["air_temperature"]["value"] == 31.2

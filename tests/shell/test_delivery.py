@@ -302,7 +302,10 @@ def test_unknown_and_dimensionless_values_read_as_words(tmp_path):
     assert cleared is not None
     adv = cleared["advisory"]
     adv["numbers"]["pmv"] = {"value": 0.62, "unit": "1", "method": "ISO 7730:2005"}
+    adv["numbers"]["ppd"] = {"value": None, "unit": "%", "method": "ISO 7730:2005",
+                             "reason": "input missing or stale"}
     adv["history"][-1]["values"] = {"air_temperature": None, "pmv": 0.41}
     _, text = render_text(cleared)
     assert "Values at clearing:\n  air_temperature: not known\n  pmv: 0.41\n" in text
     assert "  pmv: 0.62\n" in text and "None" not in text
+    assert "  ppd: not known (input missing or stale)\n" in text

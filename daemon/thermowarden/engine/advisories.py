@@ -98,8 +98,8 @@ class Advisory:
     """What the texts were last rendered from (:meth:`Texts.render_key`)."""
     numbers_at: float | None = None
     """When the texts and numbers were last rendered (epoch s): the last evaluation at an
-    event where the rule's condition was not known to be false. None: not known (a record
-    from before)."""
+    event, or at advice acted on, where the rule's condition was not known to be false.
+    None: not known (a record from before)."""
 
 
 class CommandError(ValueError):
@@ -133,6 +133,9 @@ class RuleRuntime:
         above 60 %"), so they are rendered again only here (a sentence whose number is
         unknown is left out); where the condition is false (waiting to clear, clearing) an
         advisory keeps what it said."""
+        self.raise_true = np.zeros(n, dtype=bool)
+        """The raise condition is known to be true at the last step (the notice that advice
+        acted on has not helped waits for it: not while a reading is missing)."""
         self.advisories: dict[int, Advisory] = {}
         self.raised_times: dict[int, deque[float]] = {}
         self.shelvings: dict[int, list[list[float]]] = {}
@@ -150,6 +153,13 @@ class RuleRuntime:
         never reminds."""
         return self._renotify
 
+    def urgent_remind_s(self) -> float:
+        """Seconds between reminders of an acknowledged urgent advisory: the rule's urgent
+        interval, at most ``ACKNOWLEDGED_URGENT_RENOTIFY_S``."""
+        urgent = PRIORITIES.index("urgent")
+        return min(self.rule.renotify_at(urgent) or ACKNOWLEDGED_URGENT_RENOTIFY_S,
+                   ACKNOWLEDGED_URGENT_RENOTIFY_S)
+
     def next_due(self) -> float:
         """The earliest time (epoch s) at which a timer of this rule's lifecycle may fall
         due in some space (on-delay, off-delay, shelving, de-escalation, re-notification,
@@ -164,8 +174,13 @@ class RuleRuntime:
             times.append(self.lower_since + min(cfg.off_delay_s, DEESCALATE_HOLD_S))
             intervals = self.renotify_intervals()
             if intervals is not None:
-                times.append(np.where(self.state == State.ACTIVE, self.last_notified, np.nan)
-                             + intervals[self.level])
+                # (no reminder while the equipment is as the advice asks)
+                times.append(np.where((self.state == State.ACTIVE) & ~self.acted_now,
+                                      self.last_notified, np.nan) + intervals[self.level])
+            # an acknowledged urgent advisory is reminded of all the same (see step)
+            urgent = PRIORITIES.index("urgent")
+            times.append(np.where((self.state == State.ACKNOWLEDGED) & (self.level >= urgent),
+                                  self.last_notified, np.nan) + self.urgent_remind_s())
         due = np.fmin.reduce(times)
         first = float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
         return min(first, followed)
@@ -183,7 +198,10 @@ class RuleRuntime:
             if rec is None:
                 continue
             t0 = float(rec.get("_t", adv.updated_at))
-            if not adv.effect_overdue:
+            i = adv.space
+            if not adv.effect_overdue and self.acted_now[i] and self.raise_true[i]:
+                # (otherwise the notice waits for a change of the conditions, and a tick
+                # whose conditions changed is stepped anyway)
                 due = min(due, t0 + wait_s)
             if eff is not None and rec.get("effect") is not None and self.rule.effect_quantity:
                 done = {c["after_min"] for c in rec["effect"]["checks"]}
@@ -307,6 +325,7 @@ class Advisories:
         cfg = rt.rule.config
         cond, clear, hold, level_idx = truths.raise_, truths.clear, truths.hold, truths.level
         rt.holds = (cond.true | ~cond.known) & rt.mask
+        rt.raise_true = cond.true & rt.mask
         live_before = rt.state >= State.ACTIVE
         # unknown for want of an input: the raise condition while an input it needs is
         # missing, or the clear condition of a live advisory whatever the reason (unknown
@@ -383,8 +402,7 @@ class Advisories:
                 self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
         # an acknowledgement does not silence an urgent advisory for ever
         urgent = PRIORITIES.index("urgent")
-        remind_s = min(rt.rule.renotify_at(urgent) or ACKNOWLEDGED_URGENT_RENOTIFY_S,
-                       ACKNOWLEDGED_URGENT_RENOTIFY_S)
+        remind_s = rt.urgent_remind_s()
         reminded = (live & (state == State.ACKNOWLEDGED) & (rt.level >= urgent)
                     & (now - rt.last_notified >= remind_s))
         for i in np.flatnonzero(reminded):
@@ -446,12 +464,13 @@ class Advisories:
     def _follow_effect(self, rt: RuleRuntime, adv: Advisory, now: float,
                        effects: list[Effect]) -> None:
         """Record the target quantity at the rule's check times after the action; once the
-        expected time has passed with the rule's condition still holding, say so, once.
+        expected time has passed with the rule's condition still true, say so, once.
 
         Not while the condition is known to be false (between the raise and the clear
         thresholds, or during the off-delay): the action has at least brought it back
-        there, and "no effect" would contradict the numbers; should the condition hold
-        again, the notice comes then."""
+        there, and "no effect" would contradict the numbers; nor while it is unknown (a
+        reading missing: the notice would have no numbers). Should it be true again with
+        the equipment still as asked, the notice comes then."""
         rec = adv.acted_on
         assert rec is not None
         eff = rt.rule.config.effect
@@ -467,8 +486,8 @@ class Advisories:
                     if then is not None and math.isfinite(v):
                         rec["effect"]["realised_change"] = num(v - then)
         i = adv.space
-        if (not adv.effect_overdue and now - t0 >= wait_s and rt.acted_now[i] and rt.holds[i]
-                and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED)):
+        if (not adv.effect_overdue and now - t0 >= wait_s and rt.acted_now[i]
+                and rt.raise_true[i] and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED)):
             adv.effect_overdue = True
             rec["helped"] = False
             self._apply(rt, i, Trigger.EFFECT_OVERDUE, now, effects,

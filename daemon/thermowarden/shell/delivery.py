@@ -198,7 +198,9 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
                 unit = n.get("unit", "")
                 extra = f" (threshold {_quantity_text(n['threshold'], unit)})" \
                     if n.get("threshold") is not None else ""
-                lines.append(f"  {name}: {_quantity_text(n.get('value'), unit)}{extra}")
+                reason = f" ({n['reason']})" if n.get("value") is None and n.get("reason") \
+                    else ""
+                lines.append(f"  {name}: {_quantity_text(n.get('value'), unit)}{reason}{extra}")
             else:
                 lines.append(f"  {name}: {n}")
     cautions = adv.get("cautions") or []
