@@ -244,3 +244,74 @@ def _owned(c: Collector) -> list[str]:
     """The spaces of the latest owners record ``c`` received."""
     recs = [json.loads(p) for t, p, _ in list(c.messages) if "/group/g/owners/" in t and p]
     return recs[-1]["spaces"] if recs else []
+
+
+def test_a_member_silent_with_an_online_record_is_marked_offline(tmp_path,
+                                                                 system_broker_port):
+    """A member's will can be lost (a clustered broker that cannot store it while its
+    streams move drops it): its retained record says online for ever, so an integrator
+    reading the status records sees a dead instance as live. Here the member "zz" is the
+    test's client: it beats with a view, publishes an owners record, then goes silent with
+    no will. The instance "a" (first in name order) marks it offline, naming itself, and
+    empties its owners record. Then a record marking "a" itself offline: "a" says online
+    again at once."""
+    port = system_broker_port
+    prefix = f"twgs-{uuid.uuid4().hex[:8]}"
+    spaces = ["s00", "s01", "s02", "s03"]
+    site = write_site(tmp_path, prefix, port, spaces,
+                      extra_broker=f"  keepalive_s: {KEEPALIVE_S}\n")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    since = "2026-12-03T08:00:00Z"
+    beat = {"n": 0}
+
+    def zz_record() -> dict[str, str]:
+        beat["n"] += 1
+        return {f"{prefix}/status/zz": json.dumps(
+            {"schema": "thermowarden.status/1", "instance": "zz", "state": "online",
+             "group": "g", "since": since, "beat": beat["n"], "view": ["a", "zz"],
+             "evaluated_at": time.time()})}
+    watch_c.publish(f"{prefix}/status/zz", zz_record()[f"{prefix}/status/zz"], retain=True)
+    watch_c.publish(f"{prefix}/group/g/owners/zz", json.dumps(
+        {"schema": "thermowarden.owners/1", "group": "g", "instance": "zz", "spaces": ["s01"]}),
+        retain=True)
+    beats = Feeder(watch_c, zz_record, every_s=1.0).start()
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance", "a")
+
+    def latest(topic: str) -> dict | None:
+        got = [p for t, p, _ in list(watch_c.messages) if t == topic]
+        return json.loads(got[-1]) if got and got[-1] else None
+    try:
+        proc.start()
+        wait_for(lambda: 0 < proc.metric("thermowarden_group_owned_spaces") < len(spaces),
+                 SLOW, "a to share the spaces with zz")
+        assert latest(f"{prefix}/status/zz")["state"] == "online"
+        beats.stop()  # zz dies; no will comes
+        wait_for(lambda: (latest(f"{prefix}/status/zz") or {}).get("state") == "offline",
+                 SLOW, "zz's record to say offline")
+        mark = latest(f"{prefix}/status/zz")
+        assert mark["by"] == "a" and mark["reason"] == "silent" and mark["since"] == since
+        assert mark["instance"] == "zz" and mark["group"] == "g"
+        assert latest(f"{prefix}/group/g/owners/zz") is None
+        wait_for(lambda: proc.metric("thermowarden_group_owned_spaces") == len(spaces), SLOW,
+                 "a to own every space")
+        # a record that says a is offline while it runs
+        own = latest(f"{prefix}/status/a")
+        assert own is not None and own["state"] == "online"
+        watch_c.publish(f"{prefix}/status/a", json.dumps(
+            {**own, "state": "offline", "by": "zz", "reason": "silent"}), retain=True)
+        wait_for(lambda: (latest(f"{prefix}/status/a") or {}).get("state") == "online"
+                 and latest(f"{prefix}/status/a")["beat"] > own["beat"], SLOW,
+                 "a to say online again")
+        # and the retained copy, which a consumer gets when it subscribes, says so too
+        fresh = Collector(port, [f"{prefix}/status/a"])
+        try:
+            wait_for(lambda: any(p and json.loads(p)["state"] == "online"
+                                 for t, p, _ in list(fresh.messages)), SLOW,
+                     "the retained record to say online")
+        finally:
+            fresh.close()
+    finally:
+        beats.stop()
+        proc.stop()
+        watch_c.close()
+        clear_retained(port, prefix)

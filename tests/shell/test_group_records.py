@@ -1,10 +1,14 @@
 """How one member reads the others' status records (shell/group.py): the order records
-arrive in, the will, and a member that comes back within the same run."""
+arrive in, the will, a member that comes back within the same run, and a member whose will
+never came."""
 
 from __future__ import annotations
 
 import json
+import threading
 from types import SimpleNamespace
+
+import numpy as np
 
 from thermowarden.shell.group import Group
 
@@ -72,3 +76,108 @@ def test_broken_records_are_counted_and_taken_as_nothing() -> None:
     assert g.members["d"].view is None  # claims nothing
     g.receive("tw/spaces/s1/advisories/x.y", b"{" * 3000)
     assert g.ignored == 2 and g.retained == {}
+
+
+class Link:
+    """What the group needs of the MQTT link: its records and what it publishes."""
+
+    def __init__(self) -> None:
+        self.connected = threading.Event()
+        self.subscribed = threading.Event()
+        self.connected.set()
+        self.subscribed.set()
+        self.status_topic = "tw/status/me"
+        self.status_online: dict[str, object] = {"schema": "thermowarden.status/1",
+                                                 "site": "lab", "state": "online"}
+        self.status_offline: dict[str, object] = {"state": "offline"}
+        self.sent: list[tuple[str, object, int, bool]] = []
+
+    def publish(self, topic: str, payload: object, qos: int, retain: bool) -> None:
+        self.sent.append((topic, payload, qos, retain))
+
+
+def linked(name: str = "me") -> tuple[Group, Clock, Link]:
+    g = Group("g", name, keepalive_s=6, prefix="tw")
+    clock, link = Clock(), Link()
+    g.service = SimpleNamespace(clock=clock, link=link)  # type: ignore[assignment]
+    g.holding = np.zeros(2, dtype=bool)
+    g.settle_until = 0.0  # listened long enough
+    return g, clock, link
+
+
+def marks(link: Link) -> list[tuple[str, object]]:
+    return [(t, p) for t, p, _, retain in link.sent
+            if retain and t in ("tw/status/x", "tw/group/g/owners/x")]
+
+
+def test_a_silent_member_whose_record_says_online_is_marked_offline() -> None:
+    """x beat with a view, then fell silent without a will: once it is out of the view, the
+    first member in name order says offline for it (naming itself and x's run) and empties
+    its owners record, with every beat until x's record says offline."""
+    g, clock, link = linked()
+    g._record("x", record("online", 5, view=["me", "x"]))
+    g.view = ("me",)
+    clock.t += 5  # silent for less than a keepalive: not yet
+    g._beat(retain=True)
+    assert marks(link) == []
+    clock.t += 2
+    g._beat(retain=True)
+    (status, mark), (owners, empty) = marks(link)
+    assert status == "tw/status/x" and owners == "tw/group/g/owners/x" and empty is None
+    assert isinstance(mark, dict)
+    assert {k: mark[k] for k in ("instance", "group", "state", "since", "beat", "reason",
+                                 "by", "site")} == {
+        "instance": "x", "group": "g", "state": "offline", "since": "2026-12-02T10:00:00Z",
+        "beat": 5, "reason": "silent", "by": "me", "site": "lab"}
+    g._beat(retain=False)  # the mark has not come back yet: sent again, with a plain beat
+    assert len(marks(link)) == 4
+    g._record("x", json.dumps(mark).encode())  # it came back
+    g._beat(retain=True)
+    assert len(marks(link)) == 4
+
+
+def test_no_mark_for_a_will_for_a_cut_off_member_or_from_a_later_member() -> None:
+    # its will came: nothing to correct
+    g, clock, link = linked()
+    g._record("x", record("online", 5, view=["me", "x"]))
+    g._record("x", record("offline", None))
+    g.view = ("me",)
+    clock.t += 10
+    g._beat(retain=True)
+    assert marks(link) == []
+    # this member is cut off, or has not listened long enough since it reconnected:
+    # silence proves nothing
+    for cut in ("connection", "settling"):
+        g, clock, link = linked()
+        g._record("x", record("online", 5, view=["me", "x"]))
+        g.view = ("me",)
+        clock.t += 10
+        if cut == "connection":
+            link.subscribed.clear()
+        else:
+            g.settle_until = clock.t + 1
+        g._beat(retain=True)
+        assert marks(link) == [], cut
+    # another live member comes first in name order: it marks, this one does not
+    g, clock, link = linked("me")
+    g._record("x", record("online", 5, view=["a", "me", "x"]))
+    g.view = ("a", "me")
+    clock.t += 10
+    g._beat(retain=True)
+    assert marks(link) == []
+
+
+def test_a_member_marked_offline_while_it_runs_says_online_again() -> None:
+    """A record saying this instance is offline (a mark by a member that took it as gone,
+    or an old will) is answered with a retained online record at the next turn."""
+    g, clock, link = linked()
+    g.settle_until = None  # just connected: it listens before ownership changes again
+    g.beats, g.last_beat = 1, clock.t  # a plain beat was just sent: none is due
+    g._record("me", json.dumps({"group": "g", "state": "offline", "by": "x"}).encode())
+    link.sent.clear()
+    g.update()
+    own = [(p, retain) for t, p, _, retain in link.sent if t == "tw/status/me"]
+    assert own and own[0][1] is True and own[0][0]["state"] == "online"  # type: ignore[index]
+    link.sent.clear()
+    g.update()  # once
+    assert not [p for t, p, _, retain in link.sent if t == "tw/status/me" and retain]

@@ -23,6 +23,13 @@ change, again after every (re)connect and with every retained beat, so that a re
 with a connection, a broker node or a broker's restart comes back), and a notice
 to the integrator when a space had no owner, or a member evaluated nothing, for longer than
 the bound (sent by the first live member in name order, once per episode).
+
+A member taken as gone for silence whose latest record still says online (its will was
+lost: a clustered broker drops a retained will it cannot store while its streams move) is
+marked offline for it by the first live member in name order, with every beat until the
+mark comes back, and its owners record is emptied; so the status and owners records
+on the broker never show a dead instance as live. A member that sees itself marked while
+it runs says online again at once (retained).
 """
 
 from __future__ import annotations
@@ -109,6 +116,8 @@ class Group:
         self.last_evaluated: float | None = None
         self.owners_record: dict[str, Any] | None = None
         """The latest owners record this run sent (sent again, unchanged, until it changes)."""
+        self._reassert = False
+        """A record said this instance is offline while it runs: say online again."""
         self._key: object = None
         self._held = np.zeros(0, dtype=bool)
         self._unowned = np.zeros(0, dtype=bool)
@@ -178,9 +187,14 @@ class Group:
                 self.ignored += 1
 
     def _record(self, name: str, payload: bytes) -> None:
-        if name == self.me or "/" in name:
+        if "/" in name:
             return
         data = _json(payload) if payload else {}
+        if name == self.me:
+            # marked offline by a member that took this one as gone (or an old will): the
+            # retained record must say online again while this instance runs
+            self._reassert = isinstance(data, dict) and data.get("state") == "offline"
+            return
         if data is None:
             self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
             return
@@ -250,6 +264,9 @@ class Group:
                 self._hold(np.zeros_like(self.holding))
             return
         self.cut_off_at = None
+        if self._reassert:
+            self._reassert = False
+            self._beat(retain=True)
         if self.settle_until is None:
             self.settle_until = mono + self.beat_s + SETTLE_EXTRA_S
         if mono < self.settle_until:
@@ -299,9 +316,33 @@ class Group:
         link = self.service.link
         if retain:
             self._send_owners()
+        self._mark_silent(self.last_beat)
         # a plain beat at QoS 0: on a JetStream-backed broker it does not wait for the
         # streams (which stall for seconds while a dead node's streams move)
         link.publish(link.status_topic, dict(link.status_online), 1 if retain else 0, retain)
+
+    def _mark_silent(self, mono: float) -> None:
+        """For the first live member in name order: say offline, retained, for each member
+        taken as gone for silence whose latest record still says online (its will never
+        came), and empty its owners record. Sent with every beat until the mark comes back
+        (a mark lost with a connection or a broker node is sent again)."""
+        assert self.service is not None
+        link = self.service.link
+        if not self.view or self.view[0] != self.me or not (
+                link.connected.is_set() and link.subscribed.is_set()
+                and self.settle_until is not None and mono >= self.settle_until):
+            return  # (cut off, or not yet listened long enough: silence proves nothing)
+        for name, m in sorted(self.members.items()):
+            if name in self.view or not m.online or mono - m.seen < self.live_s:
+                continue
+            log.warning("group %s: member %s has been silent for %.0f s and its record still "
+                        "says online: marking it offline", self.name, name, mono - m.seen)
+            link.publish(f"{self.status_prefix}{name}", {
+                "schema": link.status_online.get("schema"), "site": link.status_online.get(
+                    "site"), "instance": name, "group": self.name, "state": "offline",
+                "since": m.since, "beat": m.beat, "reason": "silent", "by": self.me,
+                "at": _iso(self.service.clock.now())}, 1, True)
+            link.publish(f"{self.prefix}/group/{self.name}/owners/{name}", None, 1, True)
 
     def _send_owners(self) -> None:
         """The retained owners record, as of the latest change of the owned spaces."""
