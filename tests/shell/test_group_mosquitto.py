@@ -253,8 +253,9 @@ def test_a_member_silent_with_an_online_record_is_marked_offline(tmp_path,
     reading the status records sees a dead instance as live. Here the member "zz" is the
     test's client: it beats with a view, publishes an owners record, then goes silent with
     no will. The instance "a" (first in name order) marks it offline, naming itself, and
-    empties its owners record. Then a record marking "a" itself offline: "a" says online
-    again at once."""
+    empties its owners record. Then a record marking "a" itself offline: the retained
+    record says online again (that it does so at a's next turn, not only with its next
+    periodic retained beat, is shown in tests/shell/test_group_records.py)."""
     port = system_broker_port
     prefix = f"twgs-{uuid.uuid4().hex[:8]}"
     spaces = ["s00", "s01", "s02", "s03"]

@@ -97,12 +97,19 @@ class Link:
 
 
 def linked(name: str = "me") -> tuple[Group, Clock, Link]:
+    """A member that has listened since 90 s (the clock is at 100 s) and hears its own
+    beats come back."""
     g = Group("g", name, keepalive_s=6, prefix="tw")
     clock, link = Clock(), Link()
     g.service = SimpleNamespace(clock=clock, link=link)  # type: ignore[assignment]
-    g.holding = np.zeros(2, dtype=bool)
-    g.settle_until = 0.0  # listened long enough
+    g.holding = np.zeros(0, dtype=bool)
+    g.settle_until, g.listening_since = 0.0, 90.0
     return g, clock, link
+
+
+def echo(g: Group) -> None:
+    """This member's own beat comes back from the broker."""
+    g._record(g.me, record("online", g.beats))
 
 
 def marks(link: Link) -> list[tuple[str, object]]:
@@ -111,16 +118,18 @@ def marks(link: Link) -> list[tuple[str, object]]:
 
 
 def test_a_silent_member_whose_record_says_online_is_marked_offline() -> None:
-    """x beat with a view, then fell silent without a will: once it is out of the view, the
-    first member in name order says offline for it (naming itself and x's run) and empties
-    its owners record, with every beat until x's record says offline."""
+    """x beat with a view, then fell silent without a will: once it has been silent for a
+    keepalive, the first member in name order says offline for it (naming itself and x's
+    run) and empties its owners record, with every beat until x's record says offline."""
     g, clock, link = linked()
     g._record("x", record("online", 5, view=["me", "x"]))
     g.view = ("me",)
     clock.t += 5  # silent for less than a keepalive: not yet
+    echo(g)
     g._beat(retain=True)
     assert marks(link) == []
     clock.t += 2
+    echo(g)
     g._beat(retain=True)
     (status, mark), (owners, empty) = marks(link)
     assert status == "tw/status/x" and owners == "tw/group/g/owners/x" and empty is None
@@ -136,44 +145,83 @@ def test_a_silent_member_whose_record_says_online_is_marked_offline() -> None:
     assert len(marks(link)) == 4
 
 
-def test_no_mark_for_a_will_for_a_cut_off_member_or_from_a_later_member() -> None:
-    # its will came: nothing to correct
+def test_no_mark_where_silence_proves_nothing() -> None:
+    """No mark for a member whose will came; none from a member cut off, or whose own
+    beats do not come back (its subscription or the broker's path is what is silent), or
+    not first in name order."""
+    def silent_x(name: str = "me", view: tuple[str, ...] = ("me",)
+                 ) -> tuple[Group, Clock, Link]:
+        g, clock, link = linked(name)
+        g._record("x", record("online", 5, view=[*view, "x"]))
+        g.view = view
+        clock.t += 10
+        return g, clock, link
+
+    g, _, link = silent_x()
+    g._record("x", record("offline", None))  # its will
+    echo(g)
+    g._beat(retain=True)
+    assert marks(link) == []
+    g, _, link = silent_x()
+    link.subscribed.clear()
+    echo(g)
+    g._beat(retain=True)
+    assert marks(link) == []
+    g, clock, link = silent_x()
+    echo(g)
+    clock.t += 6  # its own beats stopped coming back a keepalive ago
+    g._beat(retain=True)
+    assert marks(link) == []
+    g, _, link = silent_x("me", ("a", "me"))  # a marks, not this one
+    echo(g)
+    g._beat(retain=True)
+    assert marks(link) == []
+
+
+def test_after_a_reconnect_silence_counts_from_the_reconnect() -> None:
+    """Cut off for longer than a keepalive, this member heard nobody: the others' silence
+    counts only from when it listens again (before, the settle time of the last connect
+    could still stand, and every live member was marked offline)."""
     g, clock, link = linked()
     g._record("x", record("online", 5, view=["me", "x"]))
-    g._record("x", record("offline", None))
+    g.view = ("me", "x")
+    link.subscribed.clear()  # cut off
+    g.update()
+    clock.t += 10
+    link.subscribed.set()  # back; x's beats have not arrived yet
+    echo(g)
+    g.update()
+    assert marks(link) == []
+    assert g.listening_since == clock.t
+    clock.t += 6.5  # a keepalive of listening, and x still silent
+    echo(g)
     g.view = ("me",)
-    clock.t += 10
     g._beat(retain=True)
-    assert marks(link) == []
-    # this member is cut off, or has not listened long enough since it reconnected:
-    # silence proves nothing
-    for cut in ("connection", "settling"):
-        g, clock, link = linked()
-        g._record("x", record("online", 5, view=["me", "x"]))
-        g.view = ("me",)
-        clock.t += 10
-        if cut == "connection":
-            link.subscribed.clear()
-        else:
-            g.settle_until = clock.t + 1
-        g._beat(retain=True)
-        assert marks(link) == [], cut
-    # another live member comes first in name order: it marks, this one does not
-    g, clock, link = linked("me")
-    g._record("x", record("online", 5, view=["a", "me", "x"]))
-    g.view = ("a", "me")
-    clock.t += 10
-    g._beat(retain=True)
-    assert marks(link) == []
+    assert [t for t, _ in marks(link)] == ["tw/status/x", "tw/group/g/owners/x"]
+
+
+def test_a_mark_older_than_the_latest_beat_is_ignored() -> None:
+    """A member that marked x had not heard x's latest beats: the others, which had, keep x
+    live (a false mark would move x's spaces away and back)."""
+    g, _ = group()
+    g._record("x", record("online", 6))
+    stale = {"group": "g", "state": "offline", "since": "2026-12-02T10:00:00Z", "beat": 5,
+             "reason": "silent", "by": "y"}
+    g._record("x", json.dumps(stale).encode())
+    assert g.members["x"].online
+    g._record("x", json.dumps({**stale, "beat": 6}).encode())
+    assert not g.members["x"].online
 
 
 def test_a_member_marked_offline_while_it_runs_says_online_again() -> None:
     """A record saying this instance is offline (a mark by a member that took it as gone,
-    or an old will) is answered with a retained online record at the next turn."""
+    or an old will) is answered with a retained online record at the next turn, even when
+    its own beat came back after the mark."""
     g, clock, link = linked()
     g.settle_until = None  # just connected: it listens before ownership changes again
     g.beats, g.last_beat = 1, clock.t  # a plain beat was just sent: none is due
     g._record("me", json.dumps({"group": "g", "state": "offline", "by": "x"}).encode())
+    echo(g)  # its own plain beat, after the mark
     link.sent.clear()
     g.update()
     own = [(p, retain) for t, p, _, retain in link.sent if t == "tw/status/me"]

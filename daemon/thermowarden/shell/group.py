@@ -24,12 +24,14 @@ with a connection, a broker node or a broker's restart comes back), and a notice
 to the integrator when a space had no owner, or a member evaluated nothing, for longer than
 the bound (sent by the first live member in name order, once per episode).
 
-A member taken as gone for silence whose latest record still says online (its will was
-lost: a clustered broker drops a retained will it cannot store while its streams move) is
-marked offline for it by the first live member in name order, with every beat until the
-mark comes back, and its owners record is emptied; so the status and owners records
-on the broker never show a dead instance as live. A member that sees itself marked while
-it runs says online again at once (retained).
+A member silent for a keepalive whose latest record still says online (its will was lost:
+on a clustered broker a retained will was never delivered while a killed node's streams
+moved) is marked offline for it by the first live member in name order, with every beat
+until the mark comes back, and its owners record is emptied; so the status and owners
+records on the broker do not keep a dead instance live while others run. Only a member
+that has listened for a keepalive since it last (re)connected and hears its own beats come
+back marks; a mark older than the latest beat heard is ignored. A member that sees itself
+marked while it runs says online again (retained) at its next turn.
 """
 
 from __future__ import annotations
@@ -118,6 +120,12 @@ class Group:
         """The latest owners record this run sent (sent again, unchanged, until it changes)."""
         self._reassert = False
         """A record said this instance is offline while it runs: say online again."""
+        self.listening_since: float | None = None
+        """Monotonic time this instance's current listening began (after a (re)connect)."""
+        self.heard_self: float | None = None
+        """Monotonic time this instance's own record last came back from the broker."""
+        self._marked: set[tuple[str, str]] = set()
+        """(member, run) marked offline by this instance (logged once)."""
         self._key: object = None
         self._held = np.zeros(0, dtype=bool)
         self._unowned = np.zeros(0, dtype=bool)
@@ -191,9 +199,14 @@ class Group:
             return
         data = _json(payload) if payload else {}
         if name == self.me:
-            # marked offline by a member that took this one as gone (or an old will): the
-            # retained record must say online again while this instance runs
-            self._reassert = isinstance(data, dict) and data.get("state") == "offline"
+            # its own beats coming back: the path through the broker works. Marked offline
+            # by a member that took this one as gone (or an old will): the retained record
+            # must say online again while this instance runs (cleared by update only)
+            if isinstance(data, dict):
+                if data.get("state") == "offline":
+                    self._reassert = True
+                elif self.service is not None:
+                    self.heard_self = self.service.clock.monotonic()
             return
         if data is None:
             self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
@@ -217,6 +230,9 @@ class Group:
                 return
             if since == old.since and online and beat <= old.beat:
                 return
+            if since == old.since and not online and data.get("reason") == "silent" \
+                    and beat < old.beat:
+                return  # a mark by a member that had not heard its latest beats
         view = data.get("view")
         if isinstance(view, list) and len(view) > MAX_VIEW:
             view = None  # not a view any group of ours would have: claims nothing
@@ -253,6 +269,8 @@ class Group:
         if not (service.link.connected.is_set() and service.link.subscribed.is_set()):
             if service.link.connected.is_set():
                 self._beat_due(mono)
+            self.settle_until = None  # listen again after the reconnect
+            self.listening_since = None
             if self.cut_off_at is None:
                 self.cut_off_at = mono
             elif self.holding.any() and mono - self.cut_off_at >= \
@@ -269,6 +287,7 @@ class Group:
             self._beat(retain=True)
         if self.settle_until is None:
             self.settle_until = mono + self.beat_s + SETTLE_EXTRA_S
+            self.listening_since = mono
         if mono < self.settle_until:
             self._beat_due(mono)
             return
@@ -325,18 +344,27 @@ class Group:
         """For the first live member in name order: say offline, retained, for each member
         taken as gone for silence whose latest record still says online (its will never
         came), and empty its owners record. Sent with every beat until the mark comes back
-        (a mark lost with a connection or a broker node is sent again)."""
+        (a mark lost with a connection or a broker node is sent again).
+
+        Silence proves something only where this instance was listening: the member must
+        have been silent for a keepalive of this instance's own listening since its last
+        (re)connect, and this instance's own beats must be coming back from the broker
+        (else its subscription or the broker's path is what is silent)."""
         assert self.service is not None
         link = self.service.link
-        if not self.view or self.view[0] != self.me or not (
-                link.connected.is_set() and link.subscribed.is_set()
-                and self.settle_until is not None and mono >= self.settle_until):
-            return  # (cut off, or not yet listened long enough: silence proves nothing)
+        if not self.view or self.view[0] != self.me or self.listening_since is None \
+                or self.heard_self is None or mono - self.heard_self >= self.live_s \
+                or not (link.connected.is_set() and link.subscribed.is_set()):
+            return
         for name, m in sorted(self.members.items()):
-            if name in self.view or not m.online or mono - m.seen < self.live_s:
+            if name in self.view or not m.online \
+                    or mono - max(m.seen, self.listening_since) < self.live_s:
                 continue
-            log.warning("group %s: member %s has been silent for %.0f s and its record still "
-                        "says online: marking it offline", self.name, name, mono - m.seen)
+            if (name, m.since) not in self._marked:
+                self._marked.add((name, m.since))
+                log.warning("group %s: member %s has been silent for %.0f s and its record "
+                            "still says online: marking it offline", self.name, name,
+                            mono - m.seen)
             link.publish(f"{self.status_prefix}{name}", {
                 "schema": link.status_online.get("schema"), "site": link.status_online.get(
                     "site"), "instance": name, "group": self.name, "state": "offline",
