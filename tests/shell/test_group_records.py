@@ -146,7 +146,7 @@ def test_a_silent_member_whose_record_says_online_is_marked_offline() -> None:
 
 
 def test_no_mark_where_silence_proves_nothing() -> None:
-    """No mark for a member whose will came; none from a member cut off, or whose own
+    """No mark for a member that stopped in order; none from a member cut off, or whose own
     beats do not come back (its subscription or the broker's path is what is silent), or
     not first in name order."""
     def silent_x(name: str = "me", view: tuple[str, ...] = ("me",)
@@ -158,7 +158,8 @@ def test_no_mark_where_silence_proves_nothing() -> None:
         return g, clock, link
 
     g, _, link = silent_x()
-    g._record("x", record("offline", None))  # its will
+    g._record("x", json.dumps({"group": "g", "state": "offline", "reason": "stopped",
+                               "since": "2026-12-02T10:00:00Z"}).encode())  # orderly stop
     echo(g)
     g._beat(retain=True)
     assert marks(link) == []
@@ -229,3 +230,24 @@ def test_a_member_marked_offline_while_it_runs_says_online_again() -> None:
     link.sent.clear()
     g.update()  # once
     assert not [p for t, p, _, retain in link.sent if t == "tw/status/me" and retain]
+
+
+def test_a_will_is_written_again_as_a_mark() -> None:
+    """A clustered broker may deliver a will to the members it reaches without storing it:
+    the retained record then says online for good. The will (here as the link sets it,
+    before the group's fields: no "group") takes x offline in this member's table, and x is
+    marked all the same, once the mark comes back no more."""
+    g, clock, link = linked()
+    g._record("x", record("online", 5, view=["me", "x"]))
+    g._record("x", json.dumps({"state": "offline", "instance": "x",
+                               "since": "2026-12-02T10:00:00Z"}).encode())
+    assert "x" in g.members and not g.members["x"].online and g.members["x"].reason == "lost"
+    g.view = ("me",)
+    clock.t += 7
+    echo(g)
+    g._beat(retain=True)
+    (_, mark), _ = marks(link)
+    assert isinstance(mark, dict) and mark["reason"] == "silent" and mark["beat"] == 5
+    g._record("x", json.dumps(mark).encode())
+    g._beat(retain=True)
+    assert len(marks(link)) == 2

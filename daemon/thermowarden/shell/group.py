@@ -24,11 +24,12 @@ with a connection, a broker node or a broker's restart comes back), and a notice
 to the integrator when a space had no owner, or a member evaluated nothing, for longer than
 the bound (sent by the first live member in name order, once per episode).
 
-A member silent for a keepalive whose latest record still says online (its will was lost:
-on a clustered broker a retained will was never delivered while a killed node's streams
-moved) is marked offline for it by the first live member in name order, with every beat
-until the mark comes back, and its owners record is emptied; so the status and owners
-records on the broker do not keep a dead instance live while others run. Only a member
+A member silent for a keepalive that did not stop in order (its latest record says online,
+or is its will: on a clustered broker whose killed node's streams were moving, the will
+reached the members but the retained record kept saying online) is marked offline for it
+by the first live member in name order, with every beat until the mark comes back, and its
+owners record is emptied; so the status and owners records on the broker do not keep a
+dead instance live while others run. Only a member
 that has listened for a keepalive since it last (re)connected and hears its own beats come
 back marks; a mark older than the latest beat heard is ignored. A member that sees itself
 marked while it runs says online again (retained) at its next turn.
@@ -83,6 +84,9 @@ class Member:
     """The number of its latest record in that run."""
     first_seen_at: float | None = None
     """Epoch s this instance first heard the record (for an owner that never evaluated)."""
+    reason: str = ""
+    """Why its latest record says offline: "stopped" (an orderly stop), "silent" (marked by
+    a member), "lost" (its will, or a record without a reason); "" while online."""
 
 
 class Group:
@@ -211,6 +215,9 @@ class Group:
         if data is None:
             self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
             return
+        if isinstance(data, dict) and data.get("group") is None \
+                and data.get("state") == "offline" and name in self.members:
+            data = {**data, "group": self.name}  # a will set before the group's fields
         if not isinstance(data, dict) or data.get("group") != self.name:
             self.members.pop(name, None)
             return
@@ -245,7 +252,8 @@ class Group:
             self.service.clock.monotonic(), online, _epoch(data.get("evaluated_at")),
             since, number,
             old.first_seen_at if old is not None and old.since == since
-            else self.service.clock.now())
+            else self.service.clock.now(),
+            "" if online else str(data.get("reason") or "lost"))
 
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
@@ -342,9 +350,11 @@ class Group:
 
     def _mark_silent(self, mono: float) -> None:
         """For the first live member in name order: say offline, retained, for each member
-        taken as gone for silence whose latest record still says online (its will never
-        came), and empty its owners record. Sent with every beat until the mark comes back
-        (a mark lost with a connection or a broker node is sent again).
+        taken as gone for silence that did not stop in order, and empty its owners record.
+        Its latest record says online (its will never came), or is its will, which a
+        clustered broker may have delivered to the members it could reach without storing
+        it (the retained record then says online for good). Sent with every beat until the
+        mark comes back (a mark lost with a connection or a broker node is sent again).
 
         Silence proves something only where this instance was listening: the member must
         have been silent for a keepalive of this instance's own listening since its last
@@ -357,14 +367,14 @@ class Group:
                 or not (link.connected.is_set() and link.subscribed.is_set()):
             return
         for name, m in sorted(self.members.items()):
-            if name in self.view or not m.online \
+            if name in self.view or m.reason in ("stopped", "silent") \
                     or mono - max(m.seen, self.listening_since) < self.live_s:
                 continue
             if (name, m.since) not in self._marked:
                 self._marked.add((name, m.since))
-                log.warning("group %s: member %s has been silent for %.0f s and its record "
-                            "still says online: marking it offline", self.name, name,
-                            mono - m.seen)
+                log.warning("group %s: member %s has been silent for %.0f s (its last record: "
+                            "%s): marking it offline", self.name, name, mono - m.seen,
+                            "online" if m.online else "its will")
             link.publish(f"{self.status_prefix}{name}", {
                 "schema": link.status_online.get("schema"), "site": link.status_online.get(
                     "site"), "instance": name, "group": self.name, "state": "offline",

@@ -526,8 +526,8 @@ class MqttLink:
         """Publish the offline status ourselves (an orderly stop), then disconnect."""
         self._stopping.set()
         if self.connected.is_set():
-            info = self.client.publish(self.status_topic, json.dumps(self.status_offline),
-                                       qos=1, retain=True)
+            info = self.client.publish(self.status_topic, json.dumps(
+                {**self.status_offline, "reason": "stopped"}), qos=1, retain=True)
             deadline = time.monotonic() + timeout
             while not info.is_published() and time.monotonic() < deadline and \
                     self.connected.is_set():
