@@ -65,6 +65,10 @@ def test_group_covers_every_space_through_a_kill_and_a_join(tmp_path, system_bro
         assert t_covered - t_kill <= BOUND_S, (t_covered - t_kill, BOUND_S)
         print(f"mosquitto: every space owned again {t_covered - t_kill:.1f} s after the kill "
               f"(bound {BOUND_S} s)")
+        # the broker's will names the group (set at connect, after the group's fields)
+        wills = [json.loads(p) for t, p, _ in list(watch_c.messages)
+                 if t == f"{prefix}/status/{victim}" and p and b'"offline"' in p]
+        assert wills and wills[0]["group"] == "g" and "reason" not in wills[0], wills
         # the advisory of s00 continues on its new owner with its identity and history
         topic = f"{prefix}/spaces/s00/advisories/fast.hot"
 

@@ -234,12 +234,11 @@ def test_a_member_marked_offline_while_it_runs_says_online_again() -> None:
 
 def test_a_will_is_written_again_as_a_mark() -> None:
     """A clustered broker may deliver a will to the members it reaches without storing it:
-    the retained record then says online for good. The will (here as the link sets it,
-    before the group's fields: no "group") takes x offline in this member's table, and x is
-    marked all the same, once the mark comes back no more."""
+    the retained record then says online for good. The will takes x offline in this
+    member's table, and x is marked all the same, once the mark comes back no more."""
     g, clock, link = linked()
     g._record("x", record("online", 5, view=["me", "x"]))
-    g._record("x", json.dumps({"state": "offline", "instance": "x",
+    g._record("x", json.dumps({"group": "g", "state": "offline", "instance": "x",
                                "since": "2026-12-02T10:00:00Z"}).encode())
     assert "x" in g.members and not g.members["x"].online and g.members["x"].reason == "lost"
     g.view = ("me",)

@@ -215,9 +215,6 @@ class Group:
         if data is None:
             self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
             return
-        if isinstance(data, dict) and data.get("group") is None \
-                and data.get("state") == "offline" and name in self.members:
-            data = {**data, "group": self.name}  # a will set before the group's fields
         if not isinstance(data, dict) or data.get("group") != self.name:
             self.members.pop(name, None)
             return

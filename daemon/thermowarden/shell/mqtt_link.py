@@ -222,7 +222,6 @@ class MqttLink:
                                 keyfile=t.key_file if t else None,
                                 cert_reqs=ssl.CERT_REQUIRED, tls_version=ssl.PROTOCOL_TLS_CLIENT)
             self.client.tls_insecure_set(False)  # the broker's host name is checked
-        self.client.will_set(status_topic, json.dumps(status_offline), qos=1, retain=True)
         self.client.on_connect = self._on_connect
         self.client.on_disconnect = self._on_disconnect
         self.client.on_message = self._on_message
@@ -409,6 +408,10 @@ class MqttLink:
         return self.node == self._round_start
 
     def _connect(self) -> None:
+        # the will as the status record is now (a group adds its fields after the link is
+        # built): set before every connect, as the broker takes it with the CONNECT
+        self.client.will_set(self.status_topic, json.dumps(self.status_offline), qos=1,
+                             retain=True)
         if self.v5:
             props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
             props.SessionExpiryInterval = 0
