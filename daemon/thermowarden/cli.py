@@ -642,8 +642,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--duration", type=float, metavar="SECONDS",
                    help="cap the demo at this many seconds (the day runs faster)")
     p.add_argument("--speed", type=float, default=450.0,
-                   help="simulated seconds per real second (default 450: a working day in "
-                        "about two minutes)")
+                   help="at most this many simulated seconds per real second (default 450: a "
+                        "working day in about two minutes; a busy machine takes longer)")
     p.add_argument("--plain", action="store_true",
                    help="print events line by line instead of the live view")
     p.add_argument("--web-port", type=int, metavar="N",

@@ -67,16 +67,22 @@ class Clock:
     """Wall time for timestamps (:meth:`now`, epoch s, follows corrections of the system
     clock) and monotonic time for durations (:meth:`monotonic`, s).
 
-    ``start`` and ``speed`` are for the demo only: a simulated day starting at ``start``
-    that runs ``speed`` times faster than real time (then :meth:`now` advances with the
-    monotonic clock). ``wall`` and ``mono`` are injectable for tests that step the clock.
+    ``start`` and ``speed`` are for simulated days: a day starting at ``start`` that runs
+    ``speed`` times faster than real time (then :meth:`now` advances with the monotonic
+    clock). A ``driven`` clock stands still until its caller moves it (:meth:`set`), and
+    the service then evaluates only when asked (:meth:`Service.step`): the demo drives
+    it so that every run gives the same events, however busy the machine. ``wall`` and
+    ``mono`` are injectable for tests that step the clock.
     """
 
     def __init__(self, start: float | None = None, speed: float = 1.0,
-                 paused: bool = False, *, wall: Callable[[], float] = time.time,
+                 paused: bool = False, *, driven: bool = False,
+                 wall: Callable[[], float] = time.time,
                  mono: Callable[[], float] = time.monotonic) -> None:
         self.wall = wall
         self.mono_clock = mono
+        self.driven = driven
+        paused = paused or driven
         self.simulated = start is not None or speed != 1.0 or paused
         self.anchor = wall() if start is None else start
         self.mono = mono()
@@ -93,9 +99,15 @@ class Clock:
     def monotonic(self) -> float:
         return self.mono_clock()
 
+    def set(self, t: float) -> None:
+        """Move a driven clock to ``t`` (epoch s)."""
+        if not self.driven:
+            raise RuntimeError("only a driven clock is moved by its caller")
+        self.anchor = t
+
     def resume(self) -> None:
         """Start a paused (demo) clock from its anchor."""
-        if self.paused:
+        if self.paused and not self.driven:
             self.mono = self.mono_clock()
             self.paused = False
 
@@ -150,6 +162,8 @@ class Service:
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
         self.jobs: queue.Queue[str] = queue.Queue()
+        self.steps_done = 0
+        """Steps asked for by :meth:`step` and finished (a driven clock only)."""
         self.inflight: dict[int, int] = {}  # message id -> outbox seq
         self.handed: dict[int, int] = {}  # outbox seq -> message id (the client holds it)
         self.refused: dict[int, float] = {}  # outbox seq -> monotonic time of the refusal
@@ -620,6 +634,17 @@ class Service:
             self.last_digest = now
         elif name == "report":
             self.daily_report(now)
+        elif name == "step":
+            while self._drain():  # every message received before the step is taken in
+                pass
+            self._check_clock()
+            self.evaluate()
+
+    def step(self) -> None:
+        """Ask for one step of a driven clock (see :class:`Clock`): take in what was
+        received, run the calendar jobs now due, evaluate; :attr:`steps_done` counts it once
+        it and the jobs it made due are done. Enqueues only."""
+        self.jobs.put("step")
 
     def request_reload(self) -> None:
         """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
@@ -723,10 +748,13 @@ class Service:
                         self._handle_control(self.control.get_nowait())
                     except queue.Empty:
                         break
-                self._check_clock()
+                if not clock.driven:
+                    self._check_clock()
+                stepped = 0
                 try:
                     while True:
                         name = self.jobs.get_nowait()
+                        stepped += name == "step"
                         try:
                             self._job(name)
                         except Exception:  # noqa: BLE001 - a failed job must not stop us
@@ -734,6 +762,7 @@ class Service:
                             log.exception("job %s failed", name)
                 except queue.Empty:
                     pass
+                self.steps_done += stepped
                 try:
                     self._finish_reload(self.reloads.get_nowait())
                 except queue.Empty:
@@ -749,7 +778,9 @@ class Service:
                     time.sleep(BATCH_PAUSE_S)
                 mono = clock.monotonic()
                 since = mono - self.last_eval
-                if not clock.simulated and mono - self.last_tick >= self.tick_s:
+                if clock.driven:
+                    pass  # evaluated by its steps only
+                elif not clock.simulated and mono - self.last_tick >= self.tick_s:
                     self.last_tick = mono
                     self.evaluate()
                 elif (self.dirty and since >= self.prompt_eval_s) or (
