@@ -696,20 +696,31 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--store", metavar="FILE", help="the SQLite store itself (for a shard)")
     p.set_defaults(func=cmd_export)
 
-    p = sub.add_parser("web-user", help="print a users-file entry for the web page "
-                       "(asks for the password, or reads it from stdin)")
+    p = sub.add_parser("web-user", help="add a person to the web page's users file, or print "
+                       "a whole users file with them (asks for the password, or reads it "
+                       "from stdin)")
     p.add_argument("name")
     p.add_argument("--audience", action="append", required=True,
                    choices=["facilities", "safety", "integrator"],
                    help="an audience whose advisories this person may act on (repeat)")
+    p.add_argument("--file", metavar="USERS_YAML",
+                   help="write to this users file: created when missing, the person added or "
+                        "replaced when it exists (without it, a whole file is printed)")
     p.set_defaults(func=cmd_web_user)
     return parser
 
 
 def cmd_web_user(args: argparse.Namespace) -> int:
     import getpass
+    import pathlib
 
-    from thermowarden.shell.web.users import UserEntry, hash_password
+    from thermowarden.shell.web.users import (
+        UserEntry,
+        hash_password,
+        load_users,
+        users_yaml,
+        write_private,
+    )
 
     if sys.stdin.isatty():
         password = getpass.getpass("password: ")
@@ -723,8 +734,22 @@ def cmd_web_user(args: argparse.Namespace) -> int:
         return 2
     entry = UserEntry(name=args.name, audiences=sorted(set(args.audience)),
                       password_hash=hash_password(password))
-    print(f"  - name: {json.dumps(entry.name)}\n    audiences: [{', '.join(entry.audiences)}]"
-          f"\n    password_hash: \"{entry.password_hash}\"")
+    if args.file is None:
+        print(users_yaml([entry]), end="")
+        return 0
+    from thermowarden.config import ConfigError
+
+    path = pathlib.Path(args.file)
+    try:
+        users = load_users(path) if path.exists() else {}
+    except ConfigError as exc:
+        print(f"{path}: not changed, it is not a valid users file:\n{exc}", file=sys.stderr)
+        return 78
+    replaced = entry.name in users
+    users[entry.name] = entry
+    write_private(path, users_yaml(list(users.values())))
+    print(f"{'replaced' if replaced else 'added'} {entry.name} "
+          f"({', '.join(entry.audiences)}) in {path}")
     return 0
 
 

@@ -40,6 +40,8 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
         return report
     report.config = config
     report.model = build_site_model(config)
+    if config.web.users_file is not None:
+        report.issues.extend(users_file_issues(config, path))
     from thermowarden.rules import (
         RulePackError,
         load_rule_packs,
@@ -81,6 +83,25 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
                 f"space {u.space}: rule {u.rule} can never raise: its condition reads "
                 f"{because}")
     return report
+
+
+def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
+    """The web page's users file read exactly as ``run`` reads it: what is wrong, if
+    anything (a missing file too)."""
+    from thermowarden.shell.web import users_path
+    from thermowarden.shell.web.users import load_users
+
+    users = users_path(config, path)
+    assert users is not None
+    if not users.exists():
+        return [ConfigIssue(None, f"{users}: the users file named by web.users_file does not "
+                            "exist (create it with `thermowarden web-user NAME --audience "
+                            f"AUDIENCE --file {users}`)")]
+    try:
+        load_users(users)
+    except ConfigError as exc:
+        return list(exc.issues)
+    return []
 
 
 def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:

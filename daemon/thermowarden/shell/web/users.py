@@ -19,7 +19,9 @@ from __future__ import annotations
 import base64
 import hashlib
 import hmac
+import json
 import os
+import pathlib
 import secrets
 import threading
 import time
@@ -120,6 +122,25 @@ def load_users(path: str | os.PathLike[str]) -> dict[str, UserEntry]:
             raise ConfigError([ConfigIssue(None, f"{path}: user {u.name!r} appears twice")])
         out[u.name] = u
     return out
+
+
+def users_yaml(entries: list[UserEntry]) -> str:
+    """A whole users file (the form :func:`load_users` reads) with these entries."""
+    lines = ["users:"]
+    for e in entries:
+        lines += [f"  - name: {json.dumps(e.name)}",
+                  f"    audiences: [{', '.join(e.audiences)}]",
+                  f"    password_hash: \"{e.password_hash}\""]
+    return "\n".join(lines) + "\n"
+
+
+def write_private(path: pathlib.Path, text: str) -> None:
+    """Write ``text`` to ``path`` readable by its owner only, replacing it in one step."""
+    tmp = path.with_name(path.name + ".tmp")
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
 
 
 @dataclass
