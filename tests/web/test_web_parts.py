@@ -223,8 +223,13 @@ def test_run_starts_with_a_users_file_made_by_web_user(tmp_path, web_broker_port
     import urllib.request
     import uuid
 
-    from tests.shell.conftest import ServiceProcess, clear_retained, free_port, wait_for, \
-        write_site
+    from tests.shell.conftest import (
+        ServiceProcess,
+        clear_retained,
+        free_port,
+        wait_for,
+        write_site,
+    )
 
     port = free_port()
     prefix = f"tw{uuid.uuid4().hex[:6]}"
