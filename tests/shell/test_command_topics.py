@@ -11,8 +11,14 @@ import uuid
 
 import pytest
 
-from tests.shell.conftest import SLOW, Collector, ServiceProcess, clear_retained, wait_for, \
-    write_site
+from tests.shell.conftest import (
+    SLOW,
+    Collector,
+    ServiceProcess,
+    clear_retained,
+    wait_for,
+    write_site,
+)
 
 pytestmark = pytest.mark.broker
 
