@@ -270,11 +270,23 @@ class Engine:
         """Acknowledge, shelve or unshelve an advisory; see :meth:`Advisories.command`."""
         return self.advisories.command(verb, body, now, audience, identity)
 
-    def clock_stepped(self, now: float, step_s: float) -> None:
-        """The wall clock was corrected by ``step_s`` (negative: back). After a step back,
-        readings are no longer refused as older than the latest one taken before it."""
+    def clock_stepped(self, now: float, step_s: float) -> list[Effect]:
+        """The wall clock was stepped by ``step_s`` (negative: back) at ``now``.
+
+        The engine keeps its timers on the wall timeline it is fed; the shell measures each
+        step (the wall clock's change minus the monotonic clock's) and hands it here, and
+        every timer moves by it: so every duration (delays, shelving and its daily budget,
+        reminders, the conditions, sample and heat-strain schedules) ends after the same
+        monotonic time as without the step, and no schedule stops. Timestamps (``now``)
+        follow the corrected clock. After a step back, readings are no longer refused as
+        older than the latest one taken before it. Returns the live advisories' records
+        (their timers moved)."""
         if step_s < 0:
             self.state.clock_stepped_back(now)
+        self.publication.shift_timers(step_s)
+        self.evaluation.last_phs += step_s
+        self.last_sample += step_s
+        return self.advisories.shift_timers(step_s)
 
     def restore(self, records: list[dict[str, Any]]) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""

@@ -342,6 +342,13 @@ class Publication:
                                    qos=0, expiry_s=CONDITIONS_EXPIRY_S))
         return effects
 
+    def shift_timers(self, step_s: float) -> None:
+        """The wall clock was stepped by ``step_s``: the conditions schedule goes on as by
+        the monotonic clock (a step back would otherwise hold every space's conditions for
+        the length of the step)."""
+        self.last_conditions += step_s
+        self.moved_at += step_s
+
     def republish_conditions(self) -> None:
         """Send every space's conditions at the next evaluation (after a reconnect)."""
         self.last_conditions[:] = -np.inf

@@ -25,11 +25,13 @@ reconnects, and sends it again (DUP set, same packet id) after a reconnect: the 
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
 Retained commands are never executed (a retained command would run again at every
-reconnect): they are counted and cleared. Under MQTT 5 the command subscription asks for
-the retain flag as published, so even the first, live delivery of a retained command is
-refused; MQTT 3.1.1 cannot tell a live retained message from a plain one, so there the
-service clears the topic's retained message after every command it executes. Command
-bodies over the limit are not decoded.
+reconnect): they are counted and cleared without a reply. Under MQTT 5 the command
+subscription asks for the retain flag as published, so even the first, live delivery of a
+retained command is refused; MQTT 3.1.1 cannot tell a live retained message from a plain
+one, so there the service clears the topic's retained message after every command it
+executes. An empty message on a command topic (such a clearing, the service's own included:
+3.1.1 has no "no local") is no command: it is dropped without a reply. Command bodies over
+the limit are not decoded.
 Under MQTT 5 the client announces a maximum packet size, so the broker does not send a
 larger message at all (the limit is applied before paho buffers it); under MQTT 3.1.1 the
 broker's own ``max_packet_size`` must do that (see deploy/broker/mosquitto.conf).
@@ -334,11 +336,15 @@ class MqttLink:
     def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
         topic = msg.topic
         if topic.startswith(self.command_prefix):  # only commands carry reply properties
+            if not msg.payload:
+                # the clearing of a retained command (the service's own, or anyone's):
+                # never a command, never answered (MQTT 3.1.1 has no "no local", so the
+                # service receives its own clearing; answering it looped)
+                return
             if msg.retain:
                 # never executed: it would run again at every reconnect
                 self.metrics.retained_commands.inc()
-                if msg.payload:
-                    client.publish(topic, b"", qos=1, retain=True)  # clear it
+                client.publish(topic, b"", qos=1, retain=True)  # clear it
                 return
             props = getattr(msg, "properties", None)
             size = len(msg.payload)

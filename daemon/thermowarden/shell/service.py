@@ -3,9 +3,15 @@ operations endpoint, systemd notification. Built by :func:`thermowarden.shell.bo
 bootstrap`; this module executes effects and holds no rules.
 
 Time: timestamps are wall time, read at each use (a corrected system clock is followed at
-once); durations and the evaluation tick use the monotonic clock. Calendar jobs (rollup,
-prune, digest, report) are due at a wall time and fire once when the wall clock reaches it,
-so a step forward runs a skipped job once and a step back does not run it again.
+once); durations are measured on the monotonic clock. The shell reads both; the engine is
+fed the wall time and, before it is fed a time after a step, the step itself (the wall
+clock's change minus the monotonic clock's, :meth:`Engine.clock_stepped`), which moves
+every timer of the engine (delays, shelving and its daily budget, reminders, the conditions
+and sample schedules) and the outbox's expiry by the step: so each ends after the same
+monotonic time as without it, and no schedule stops. The evaluation tick, retries and
+readiness run on the monotonic clock directly. Calendar jobs (rollup, prune, digest,
+report) are due at a wall time and fire once when the wall clock reaches it, so a step
+forward runs a skipped job once and a step back does not run it again.
 
 Delivery: an advisory change, its events and their outbox rows are stored in one
 transaction before anything is published. Each outbox row is handed to the MQTT client
@@ -52,7 +58,14 @@ BATCH_PAUSE_S = 0.005
 KNOWN_VERBS = frozenset({"acknowledge", "shelve", "unshelve"})
 """Only these become metric labels; anything else is counted as "unknown"."""
 STEP_TOLERANCE_S = 2.0
-"""A wall-clock change this much larger or smaller than the monotonic one is a step."""
+"""A wall-clock change this much larger or smaller than the monotonic one is counted and
+logged as a step."""
+SHIFT_TOLERANCE_S = 0.5
+"""... and from this much on the engine's timers and the outbox's expiry move by it (the
+wall and monotonic clocks are read one after the other: they never differ this much
+otherwise; a slewing clock slews both)."""
+CONDITIONS_LATE_FACTOR = 2.5
+"""Not ready when no conditions message went out for this many conditions intervals."""
 ECHO_TIMEOUT_S = 15.0
 """MQTT 3.1.1: an event not seen back on our own subscription this long after the broker
 acknowledged it counts as unconfirmed (an ACL that drops it silently)."""
@@ -190,6 +203,9 @@ class Service:
         self.limiter = RateLimiter()
         self.calendar: list[CalendarJob] = []
         self.wall_seen = (clock.now(), clock.monotonic())
+        """The wall and monotonic readings at the last step taken into account."""
+        self.last_conditions_sent = clock.monotonic()
+        """When a conditions message last went out (monotonic s)."""
         self.watchdog_s = systemd.watchdog_interval_s()
         self.last_watchdog = 0.0
         self.last_digest = clock.now()
@@ -216,8 +232,21 @@ class Service:
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
                  "publishing": self.publishing(),
-                 "receiving": receiving}
+                 "receiving": receiving,
+                 "conditions": self.conditions_flowing()}
         return all(parts.values()), parts
+
+    def conditions_flowing(self) -> bool:
+        """Conditions go out: one was published within ``CONDITIONS_LATE_FACTOR`` times the
+        conditions interval (or a few ticks, when longer), by the monotonic clock. True
+        where none are due (no interval, no space this instance evaluates)."""
+        every = self.engine.publication.conditions_every_s
+        if every <= 0 or not self.engine.owned.any():
+            return True
+        if self.group is not None and not self.group.holding.any():
+            return True
+        limit = max(CONDITIONS_LATE_FACTOR * every, every + 3 * self.tick_s)
+        return self.clock.monotonic() - self.last_conditions_sent < limit
 
     def publishing(self) -> bool:
         """The broker takes what we publish: no event waits after a refusal, no refusal in
@@ -242,27 +271,46 @@ class Service:
             self.calendar.append(job)
 
     def _check_clock(self) -> None:
-        """Count wall-clock steps and run the calendar jobs that are due (once each)."""
-        now, mono = self.clock.now(), self.clock.monotonic()
-        last_now, last_mono = self.wall_seen
-        drift = (now - last_now) - (mono - last_mono)
-        self.wall_seen = (now, mono)
-        if abs(drift) > STEP_TOLERANCE_S and not self.clock.simulated:
-            direction = "forward" if drift > 0 else "backward"
-            self.metrics.clock_steps.labels(direction=direction).inc()
-            log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
-                        "durations do not", direction, abs(drift))
-            self.engine_clock_stepped(now, drift)
+        """Take wall-clock steps into account and run the calendar jobs that are due
+        (once each)."""
+        now = self._now()
         for job in self.calendar:
             if now >= job.due:
                 job.advance(now)
                 self.jobs.put(job.name)
 
+    def _now(self) -> float:
+        """The wall time to give the engine, after any step of the wall clock since the
+        last look has been handed to it (so a time after a step never meets timers set
+        before it)."""
+        now, mono = self.clock.now(), self.clock.monotonic()
+        if self.clock.simulated:
+            return now
+        last_now, last_mono = self.wall_seen
+        drift = (now - last_now) - (mono - last_mono)
+        if abs(drift) < SHIFT_TOLERANCE_S:
+            return now
+        self.wall_seen = (now, mono)
+        if abs(drift) > STEP_TOLERANCE_S:
+            direction = "forward" if drift > 0 else "backward"
+            self.metrics.clock_steps.labels(direction=direction).inc()
+            log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
+                        "durations (shelving, delays, reminders, schedules, outbox expiry) "
+                        "are kept by the monotonic clock", direction, abs(drift))
+        else:
+            log.info("the wall clock moved %.1f s against the monotonic clock", drift)
+        self.engine_clock_stepped(now, drift)
+        return now
+
     def engine_clock_stepped(self, now: float, drift: float) -> None:
-        """Hook for the engine after a step (history kept in wall time)."""
+        """Move the engine's timers and the outbox's expiry by a step of the wall clock,
+        and store the advisories' moved timers."""
+        self.store.outbox_rebase(drift)
         hook = getattr(self.engine, "clock_stepped", None)
         if hook is not None:
-            hook(now, drift)
+            effects = hook(now, drift)
+            if effects:
+                self.execute(effects)
 
     # ------------------------------------------------------------------ effects
     def execute(self, effects: list[Effect]) -> None:
@@ -292,7 +340,9 @@ class Service:
                 else:
                     self.pending_retained.pop(e.topic, None)
             else:
-                self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
+                mid = self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
+                if mid is not None and e.topic.endswith("/conditions"):
+                    self.last_conditions_sent = self.clock.monotonic()
         self.metrics.outbox_depth.set(self.store.outbox_depth())
         for observe in self.observers:
             observe(effects)
@@ -362,7 +412,7 @@ class Service:
         if mono - self.last_expire < EXPIRE_EVERY_S:
             return
         self.last_expire = mono
-        now = self.clock.now()
+        now = self._now()
         expired = self.store.outbox_expire(now - self.outbox_max_age_s, self.outbox_max)
         if not expired:
             return
@@ -497,7 +547,7 @@ class Service:
         only when its ACL lets each person write to topics ending in their own name. The
         configured MQTT 5 user property (set by a trusted gateway) takes precedence."""
         parts = m.topic[len(self.command_prefix):].split("/")
-        now = self.clock.now()
+        now = self._now()
         verb = parts[-1]
         audience = parts[0] if len(parts) in (2, 3) else None
         verb = parts[1] if len(parts) in (2, 3) else verb
@@ -584,7 +634,7 @@ class Service:
                     seen[q] = n
 
     def evaluate(self) -> None:
-        now = self.clock.now()
+        now = self._now()
         t0 = time.perf_counter()
         effects = self.engine.tick(now)
         self.execute(effects)
@@ -618,7 +668,7 @@ class Service:
         self.failures_seen = now_failing
 
     def _job(self, name: str) -> None:
-        now = self.clock.now()
+        now = self._now()
         if name == "rollup":
             self.evaluate()
         elif name == "prune":

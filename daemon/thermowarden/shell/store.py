@@ -191,6 +191,11 @@ class Store:
             self._depth = int(row[0])
         return self._depth
 
+    def outbox_rebase(self, step_s: float) -> None:
+        """The wall clock was stepped by ``step_s``: move the rows' creation times with it,
+        so that their age (and expiry) goes by the monotonic clock."""
+        self.db.execute("UPDATE outbox SET created = created + ?", (step_s,))
+
     def outbox_expire(self, older_than: float, keep: int) -> list[tuple[int, dict[str, Any]]]:
         """Remove rows created before ``older_than`` and, beyond the newest ``keep`` rows, the
         oldest ones; returns their payloads (the caller counts and reports them)."""
