@@ -276,9 +276,10 @@ class Engine:
         if step_s < 0:
             self.state.clock_stepped_back(now)
 
-    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+    def restore(self, records: list[dict[str, Any]],
+                malformed: list[str] | None = None) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""
-        return self.advisories.restore(records)
+        return self.advisories.restore(records, malformed)
 
     # ------------------------------------------------------------------ groups
     @property
