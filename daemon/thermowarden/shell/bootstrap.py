@@ -26,7 +26,14 @@ from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
-from thermowarden.shell.store import MOVE_ASIDE_HINT, Store, StoreError, move_aside
+from thermowarden.shell.store import (
+    MOVE_ASIDE_HINT,
+    OUTBOX_COUNT,
+    Store,
+    StoreError,
+    count_rows,
+    move_aside,
+)
 from thermowarden.shell.warmup import warm_up
 from thermowarden.shell.web import WebServer, build_web
 from thermowarden.site_model import build_site_model
@@ -170,6 +177,8 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         seeds = list(config.site.outdoor_daily_means)
         engine.state.daily_means = (list(stored_means) + seeds[len(stored_means):])[:30]
     metrics = Metrics()
+    # counted in the table when asked, so the gauge never drifts from it
+    metrics.outbox_depth.set_function(lambda: count_rows(store_path, OUTBOX_COUNT))
     inbox = Inbox(INBOX_SIZE)
     control: queue.Queue[Control] = queue.Queue()
     prefix = config.output.prefix

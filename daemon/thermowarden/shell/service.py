@@ -255,6 +255,7 @@ class Service:
         """Store everything first (one transaction), then publish."""
         now = self.clock.now()
         sends: list[tuple[int, Publish]] = []
+        staged = False
         with self.store.transaction():
             for e in effects:
                 if isinstance(e, Persist):
@@ -263,14 +264,18 @@ class Service:
                     assert e.payload is not None
                     _identify(e.payload)
                     sends.append((self.store.outbox_add(e.topic, e.payload, now), e))
+                    if self.delivery is not None:
+                        # stored with the event's outbox row: a crash loses neither
+                        audience = e.topic.split("/events/", 1)[1].split("/", 1)[0]
+                        staged |= self.delivery.stage(self.store.db, audience, e.payload, now)
                 else:
                     sends.append((0, e))
+        if staged:
+            assert self.delivery is not None
+            self.delivery.wake()
         for seq, e in sends:
             if seq:
                 self._hand_over(seq, e.topic, e.payload or {})
-                if self.delivery is not None and e.payload is not None:
-                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
-                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -279,7 +284,6 @@ class Service:
                     self.pending_retained.pop(e.topic, None)
             else:
                 self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
-        self.metrics.outbox_depth.set(self.store.outbox_depth())
         for observe in self.observers:
             observe(effects)
 

@@ -26,6 +26,7 @@ import os
 import pathlib
 import sqlite3
 import time
+import urllib.parse
 from collections.abc import Iterator
 from typing import Any
 
@@ -57,6 +58,27 @@ CREATE TABLE IF NOT EXISTS kv (
 );
 """
 
+DELIVERIES_SCHEMA = """
+CREATE TABLE IF NOT EXISTS deliveries (
+    seq INTEGER PRIMARY KEY AUTOINCREMENT,
+    id TEXT NOT NULL,
+    audience TEXT NOT NULL,
+    channel TEXT NOT NULL,
+    state TEXT NOT NULL,          -- held (quiet hours or digest), pending, failed
+    priority TEXT NOT NULL,
+    due REAL NOT NULL,
+    attempts INTEGER NOT NULL DEFAULT 0,
+    created REAL NOT NULL,
+    payload TEXT NOT NULL,
+    error TEXT
+);
+CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
+"""
+"""Deliveries by webhook and e-mail (:mod:`thermowarden.shell.delivery`): written by the
+engine thread in the same transaction as the event's outbox row, sent and removed by the
+delivery workers."""
+
+OUTBOX_COUNT = "SELECT COUNT(*) FROM outbox"
 MOVE_ASIDE_HINT = ("start once with --move-damaged-store to keep it aside as "
                    "<file>.damaged-<time> and begin with an empty store")
 
@@ -130,6 +152,23 @@ def move_aside(path: str | pathlib.Path, now: float | None = None) -> pathlib.Pa
     return target
 
 
+def count_rows(path: str | pathlib.Path, sql: str) -> float:
+    """Run a ``SELECT COUNT(*)`` on the store through a connection of its own (any thread;
+    for gauges read when /metrics is asked); NaN when the file cannot be read. Never
+    creates the file."""
+    try:
+        db = sqlite3.connect(f"file:{urllib.parse.quote(str(path))}?mode=rw", uri=True,
+                             timeout=2.0)
+    except sqlite3.Error:
+        return math.nan
+    try:
+        return float(db.execute(sql).fetchone()[0])
+    except sqlite3.Error:
+        return math.nan
+    finally:
+        db.close()
+
+
 class Store:
     """See the module docstring. ``path`` is the database file (created with its folder)."""
 
@@ -168,7 +207,7 @@ class Store:
                 raise StoreError(f"store {p} is damaged (integrity check: "
                                  f"{_one_line(Exception(row[0] if row else 'no answer'))}); "
                                  + MOVE_ASIDE_HINT, damaged=True)
-            self.db.executescript(SCHEMA)
+            self.db.executescript(SCHEMA + DELIVERIES_SCHEMA)
             # a file opened read-only (by its mode, an immutable flag, a read-only mount)
             # passes every read: write once, then roll back, so it fails here and not at
             # the first advisory
@@ -192,7 +231,6 @@ class Store:
                              damaged=True) from None
         finally:
             os.umask(old_umask)
-        self._depth: int | None = None
 
     @contextlib.contextmanager
     def transaction(self) -> Iterator[None]:
@@ -205,7 +243,6 @@ class Store:
             yield
         except BaseException:
             self.db.execute("ROLLBACK")
-            self._depth = None
             raise
         self.db.execute("COMMIT")
 
@@ -251,24 +288,19 @@ class Store:
                               (topic, json.dumps(payload), now))
         seq = cur.lastrowid
         assert seq is not None
-        if self._depth is not None:
-            self._depth += 1
         return seq
 
     def outbox_done(self, seq: int) -> None:
-        n = self.db.execute("DELETE FROM outbox WHERE seq = ?", (seq,)).rowcount
-        if self._depth is not None:
-            self._depth -= n
+        self.db.execute("DELETE FROM outbox WHERE seq = ?", (seq,))
 
     def outbox(self) -> list[tuple[int, str, dict[str, Any]]]:
         rows = self.db.execute("SELECT seq, topic, payload FROM outbox ORDER BY seq").fetchall()
         return [(int(r[0]), str(r[1]), json.loads(r[2])) for r in rows]
 
     def outbox_depth(self) -> int:
-        if self._depth is None:
-            row = self.db.execute("SELECT COUNT(*) FROM outbox").fetchone()
-            self._depth = int(row[0])
-        return self._depth
+        """Rows in the outbox, counted in the table (never a running tally that could
+        drift from it)."""
+        return int(self.db.execute(OUTBOX_COUNT).fetchone()[0])
 
     def outbox_expire(self, older_than: float, keep: int) -> list[tuple[int, dict[str, Any]]]:
         """Remove rows created before ``older_than`` and, beyond the newest ``keep`` rows, the
@@ -281,7 +313,6 @@ class Store:
                 "SELECT seq, payload FROM (SELECT seq, payload FROM outbox ORDER BY seq "
                 "LIMIT ?) ORDER BY seq", (older_than, over)).fetchall()
             self.db.executemany("DELETE FROM outbox WHERE seq = ?", [(r[0],) for r in rows])
-        self._depth = None
         return [(int(r[0]), json.loads(r[1])) for r in rows]
 
     # report samples
@@ -343,9 +374,6 @@ class Store:
         for key, text in self.db.execute("SELECT key, value FROM kv ORDER BY key"):
             _json(self.path, "kv", repr(key), text)
         self.daily_means()
-        if self.db.execute("SELECT 1 FROM sqlite_master WHERE type = 'table' AND "
-                           "name = 'deliveries'").fetchone() is None:
-            return
         for seq, did, audience, channel, state, due, attempts, created, text in self.db.execute(
                 "SELECT seq, id, audience, channel, state, due, attempts, created, payload "
                 "FROM deliveries ORDER BY seq"):
