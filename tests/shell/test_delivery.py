@@ -190,7 +190,7 @@ def test_quiet_hours_hold_all_but_urgent_then_send_a_digest(tmp_path, events, re
         # the urgent rows go once sent; the high one stays held on both channels
         wait_until(lambda: d.pending_count() == 2, what="only the held rows left")
         clock.jump_to(local("2026-07-15T06:30:05"))
-        d.wake.set()
+        d.wake()
         wait_until(lambda: len(receiver.requests) == 2 and len(smtp.messages) == 2,
                    what="the held event after the quiet hours")
         assert receiver.bodies()[1] == high
@@ -215,7 +215,7 @@ def test_low_priority_digest(tmp_path, events, receiver):
         assert receiver.bodies() == [high]
         wait_until(lambda: d.pending_count() == 2, what="only the two low ones left")
         clock.jump_to(start + 601)
-        d.wake.set()
+        d.wake()
         wait_until(lambda: len(receiver.requests) == 2, what="the digest")
         digest = receiver.bodies()[1]
         validator("event.v1.json").validate(digest)

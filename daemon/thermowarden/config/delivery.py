@@ -111,7 +111,9 @@ class RetryConfig(Strict):
 
 
 class DeliveryConfig(Strict):
-    """Delivery of events to people by webhook and e-mail, per audience (optional)."""
+    """Delivery of events to people by webhook and e-mail, per audience (optional).
+    ``queue_size``: the most deliveries waiting in the store (held or pending); beyond it an
+    event is not stored for delivery (counted and logged; it is still published)."""
 
     audiences: dict[Literal["facilities", "safety", "integrator"], AudienceDelivery] = Field(
         default_factory=dict)

@@ -729,12 +729,15 @@ class Advisories:
                                                f"summary.{audience}.{int(now)}"))
 
     # ------------------------------------------------------------------ restore
-    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+    def restore(self, records: list[dict[str, Any]],
+                malformed: list[str] | None = None) -> list[str]:
         """Bring back live advisories stored before a restart, without raising them again.
 
         Returns a note for each record that could not be restored (its space or rule is
-        no longer configured). Conditions are re-evaluated from fresh readings; until then
-        an advisory stays as it was (unknown never clears).
+        no longer configured, or its record is malformed). Conditions are re-evaluated from
+        fresh readings; until then an advisory stays as it was (unknown never clears).
+        ``malformed``, when given, also receives ``"<space>/<rule>: <what is wrong>"`` for
+        each malformed record (the service refuses to start on a damaged store).
         """
         notes: list[str] = []
         rules = {rt.rule.key: rt for rt in self.rules}
@@ -788,6 +791,9 @@ class Advisories:
                 # nothing of it is taken, and nothing half-restored is left behind
                 notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
                              f"its record is malformed ({type(exc).__name__}: {exc})")
+                if malformed is not None:
+                    malformed.append(f"{rec.get('space')}/{rec.get('rule')}: "
+                                     f"{type(exc).__name__}: {exc}")
                 continue
             rt.state[i] = adv.state
             rt.level[i] = level

@@ -288,9 +288,10 @@ class Engine:
         self.last_sample += step_s
         return self.advisories.shift_timers(step_s)
 
-    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+    def restore(self, records: list[dict[str, Any]],
+                malformed: list[str] | None = None) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""
-        return self.advisories.restore(records)
+        return self.advisories.restore(records, malformed)
 
     # ------------------------------------------------------------------ groups
     @property

@@ -23,7 +23,7 @@ from typing import Final
 from thermowarden.config.points import JsonFormat, NumberFormat, SenmlFormat, StateFormat
 from thermowarden.core import payloads
 from thermowarden.core.payloads import Decoded, DecodeError
-from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.quantities import QUANTITIES, STATE_QUANTITIES
 from thermowarden.core.units import UnitError, converter
 from thermowarden.engine.state import SiteState
 from thermowarden.site_model import MAX_SENSORS_PER_SLOT, SiteModel, template_applies
@@ -146,9 +146,11 @@ class Ingestor:
             return payloads.decode_number(payload)
         if isinstance(fmt, JsonFormat):
             return payloads.decode_json(payload, fmt.value_path, fmt.time_path, fmt.unit_path)
-        if isinstance(fmt, SenmlFormat):
-            return payloads.decode_senml(payload, now, fmt.name)
         true_value = 100.0 if quantity == "shading_position" else 1.0
+        if isinstance(fmt, SenmlFormat):
+            return payloads.decode_senml(payload, now, fmt.name,
+                                         state=quantity in STATE_QUANTITIES,
+                                         true_value=true_value)
         return payloads.decode_state(payload, fmt.states, fmt.value_path, true_value)
 
     def _reject(self, reason: str, point: str, topic: str, detail: str) -> Rejection:

@@ -1,12 +1,16 @@
 """Delivery of events to people by webhook and e-mail, per audience, beside MQTT.
 
-The engine thread only offers events (:meth:`Delivery.offer`: a bounded queue, never
-blocking; overflow is counted and logged). One worker thread owns everything else: it
-stores each delivery in the SQLite store (table ``deliveries``, its own connection) before
-trying it, so a restart loses nothing that was taken from the queue; it sends in order per
-audience and channel; retries with exponential backoff and jitter; holds events other than
-urgent ones during the audience's quiet hours and sends them as one digest when they end;
-collects low-priority events into a digest every ``low_priority_digest_s``.
+Every delivery is a row of the store's ``deliveries`` table before anything else happens:
+the engine thread writes it (:meth:`Delivery.stage`) in the same transaction as the event's
+outbox row, so a crash at any moment loses none and a restart sends what was waiting. One
+worker thread per receiver (audience and channel: a webhook, an e-mail relay) with its own
+SQLite connection sends that receiver's rows in order, so a slow or failing receiver
+delays only itself; it removes a row once the receiver took it (at least once: a crash
+between the two sends it again under the same delivery id). Retries use exponential
+backoff and jitter; events other than urgent ones wait during the audience's quiet hours
+and go out as one digest when they end; low-priority events are collected into a digest
+every ``low_priority_digest_s``. The waiting count (``thermowarden_delivery_pending``) is
+read from the table when asked.
 
 Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`` (epoch
 seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
@@ -26,7 +30,6 @@ import hmac
 import json
 import logging
 import pathlib
-import queue
 import random
 import smtplib
 import sqlite3
@@ -50,25 +53,11 @@ from thermowarden.config.delivery import (
     WebhookConfig,
 )
 from thermowarden.core.quiet_hours import QuietHours
+from thermowarden.shell.store import DELIVERIES_SCHEMA, count_rows
 
 log = logging.getLogger("thermowarden.delivery")
 
-SCHEMA = """
-CREATE TABLE IF NOT EXISTS deliveries (
-    seq INTEGER PRIMARY KEY AUTOINCREMENT,
-    id TEXT NOT NULL,
-    audience TEXT NOT NULL,
-    channel TEXT NOT NULL,
-    state TEXT NOT NULL,          -- held (quiet hours or digest), pending, failed
-    priority TEXT NOT NULL,
-    due REAL NOT NULL,
-    attempts INTEGER NOT NULL DEFAULT 0,
-    created REAL NOT NULL,
-    payload TEXT NOT NULL,
-    error TEXT
-);
-CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
-"""
+SCHEMA = DELIVERIES_SCHEMA
 EVENT_SCHEMA = "thermowarden.event/1"
 SIGNATURE_HEADER = "X-Thermowarden-Signature"
 TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
@@ -78,6 +67,8 @@ IDLE_WAIT_S = 1.0
 FAILED_KEPT_S = 30 * 86_400.0
 """Deliveries that failed for good stay in the store this long, for inspection."""
 PRUNE_EVERY_S = 3600.0
+CHANNELS = ("webhook", "email")
+PENDING_COUNT = "SELECT COUNT(*) FROM deliveries WHERE state IN ('held', 'pending')"
 
 
 class DeliveryFailed(Exception):
@@ -285,23 +276,22 @@ class Delivery:
         self.now = now
         self.senders: dict[str, Sender] = senders or {"webhook": post_webhook,
                                                       "email": send_email}
-        self.queue: queue.Queue[tuple[str, dict[str, Any]]] = queue.Queue(config.queue_size)
-        self.wake = threading.Event()
         self.stopping = threading.Event()
-        self.thread: threading.Thread | None = None
+        self.started = False
         self.lock = threading.Lock()
+        self.workers: dict[tuple[str, str], _Worker] = {}
         self._configure(config, timezone)
         r = registry or CollectorRegistry()
         self.m_sent = Counter("thermowarden_deliveries", "Deliveries to people by channel and "
                               "outcome (sent, retried, failed, held)", ["channel", "outcome"],
                               registry=r)
         self.m_overflow = Counter("thermowarden_delivery_queue_overflow",
-                                  "Events not offered for delivery because the queue was full",
-                                  registry=r)
+                                  "Events not stored for delivery because delivery.queue_size "
+                                  "deliveries were already waiting", registry=r)
         self.m_pending = Gauge("thermowarden_delivery_pending",
-                               "Deliveries stored and not yet sent (held or pending)",
-                               registry=r)
-        self.blocked_until: dict[tuple[str, str], float] = {}
+                               "Deliveries stored and not yet sent (held or pending), "
+                               "counted in the store", registry=r)
+        self.m_pending.set_function(lambda: count_rows(self.db_path, PENDING_COUNT))
 
     def _configure(self, config: DeliveryConfig, timezone: str) -> None:
         with self.lock:
@@ -319,37 +309,118 @@ class Delivery:
     def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
         """Take a reloaded configuration; stored deliveries stay and follow the new one."""
         self._configure(config, timezone)
-        self.wake.set()
+        if self.started:
+            self._ensure_workers()
+        self.wake()
 
     # ------------------------------------------------------------------ engine thread
-    def offer(self, audience: str, payload: dict[str, Any]) -> bool:
-        """Hand an event over (engine thread; never blocks). False when not wanted or when
-        the queue is full (counted and logged)."""
+    def wanted(self, audience: str, payload: dict[str, Any]) -> bool:
+        aud = self._audience(audience)
+        return aud is not None and payload.get("event") in aud.events
+
+    def stage(self, db: sqlite3.Connection, audience: str, payload: dict[str, Any],
+              now: float) -> bool:
+        """Store the deliveries of one event (a row per configured channel, held or
+        pending) through ``db``, inside the caller's transaction (the engine thread's,
+        which also holds the event's outbox row). Returns True when rows were written:
+        call :meth:`wake` once the transaction is committed. An event not wanted by the
+        audience is skipped; beyond ``delivery.queue_size`` waiting deliveries it is not
+        stored (counted and logged; it was still published over MQTT)."""
         aud = self._audience(audience)
         if aud is None or payload.get("event") not in aud.events:
             return False
-        try:
-            self.queue.put_nowait((audience, payload))
-        except queue.Full:
+        waiting = int(db.execute(PENDING_COUNT).fetchone()[0])
+        if waiting >= self.config.queue_size:
             self.m_overflow.inc()
-            log.error("delivery queue full: an event for %s was not queued for delivery "
-                      "(it was still published over MQTT)", audience)
+            log.error("%d deliveries already wait: an event for %s was not stored for "
+                      "delivery (it was published over MQTT); delivery.queue_size is %d",
+                      waiting, audience, self.config.queue_size)
             return False
-        self.wake.set()
-        return True
+        prio = _priority(payload)
+        state, due = self._placement(audience, aud, prio, now)
+        text = json.dumps(payload)
+        stored = False
+        for channel in CHANNELS:
+            if getattr(aud, channel) is None:
+                continue
+            db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
+                       "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
+                       (uuid.uuid4().hex, audience, channel, state, prio, due, now, text))
+            if state == "held":
+                self.m_sent.labels(channel=channel, outcome="held").inc()
+            stored = True
+        return stored
 
-    # ------------------------------------------------------------------ worker
+    def offer(self, audience: str, payload: dict[str, Any]) -> bool:
+        """Store an event's deliveries in a transaction of their own (a caller without the
+        store's connection) and wake the workers. False when not wanted or not stored."""
+        db = self._connect()
+        try:
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                stored = self.stage(db, audience, payload, self.now())
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        finally:
+            db.close()
+        if stored:
+            self.wake()
+        return stored
+
+    def wake(self) -> None:
+        """Tell every worker to look at the table now (after rows were committed)."""
+        with self.lock:
+            workers = list(self.workers.values())
+        for w in workers:
+            w.wake.set()
+
+    # ------------------------------------------------------------------ workers
     def start(self) -> None:
-        self.thread = threading.Thread(target=self._run, name="thermowarden-delivery",
-                                       daemon=True)
-        self.thread.start()
+        """Start a worker for every configured receiver and every receiver that still
+        has rows waiting in the store (removed from the configuration: they are marked
+        failed)."""
+        self.started = True
+        self._ensure_workers()
+
+    def _ensure_workers(self) -> None:
+        targets: set[tuple[str, str]] = {
+            (str(a), c) for a, aud in self.config.audiences.items() for c in CHANNELS
+            if getattr(aud, c) is not None}
+        db = self._connect()
+        try:
+            targets |= {(str(a), str(c)) for a, c in db.execute(
+                "SELECT DISTINCT audience, channel FROM deliveries WHERE state IN "
+                "('held', 'pending')")}
+        finally:
+            db.close()
+        with self.lock:
+            for target in sorted(targets - set(self.workers)):
+                worker = _Worker(self, *target)
+                self.workers[target] = worker
+                worker.thread.start()
 
     def stop(self, timeout: float = 10.0) -> None:
-        """Store whatever is queued and stop; what is not sent stays for the next start."""
+        """Stop the workers (an attempt under way is waited for up to ``timeout`` s in
+        all); what is not sent stays stored for the next start."""
         self.stopping.set()
-        self.wake.set()
-        if self.thread is not None:
-            self.thread.join(timeout)
+        self.wake()
+        deadline = time.monotonic() + timeout
+        with self.lock:
+            workers = list(self.workers.values())
+        for w in workers:
+            w.thread.join(max(0.0, deadline - time.monotonic()))
+
+    @property
+    def thread(self) -> threading.Thread | None:
+        """The first worker's thread (for tests that check the workers ended)."""
+        with self.lock:
+            return next((w.thread for w in self.workers.values()), None)
+
+    def alive(self) -> bool:
+        with self.lock:
+            return any(w.thread.is_alive() for w in self.workers.values())
 
     def _connect(self) -> sqlite3.Connection:
         db = sqlite3.connect(self.db_path, isolation_level=None, timeout=30.0)
@@ -357,50 +428,6 @@ class Delivery:
         db.execute("PRAGMA synchronous=NORMAL")
         db.executescript(SCHEMA)
         return db
-
-    def _run(self) -> None:
-        db = self._connect()
-        last_prune = -PRUNE_EVERY_S
-        try:
-            while not self.stopping.is_set():
-                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
-                    last_prune = time.monotonic()
-                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND created < ?",
-                               (self.now() - FAILED_KEPT_S,))
-                self._take(db)
-                wait = self._work(db)
-                self.m_pending.set(self.pending_count(db))
-                self.wake.wait(wait)
-                self.wake.clear()
-            self._take(db)
-            self.m_pending.set(self.pending_count(db))
-        except Exception:  # noqa: BLE001 - a delivery bug must not take the service down
-            log.exception("delivery worker failed; stored deliveries wait for the next start")
-        finally:
-            db.close()
-
-    def _take(self, db: sqlite3.Connection) -> None:
-        """Store every queued event as one row per channel, held or pending."""
-        now = self.now()
-        while True:
-            try:
-                audience, payload = self.queue.get_nowait()
-            except queue.Empty:
-                return
-            aud = self._audience(audience)
-            if aud is None:
-                continue
-            prio = _priority(payload)
-            state, due = self._placement(audience, aud, prio, now)
-            text = json.dumps(payload)
-            for channel in ("webhook", "email"):
-                if getattr(aud, channel) is None:
-                    continue
-                db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
-                           "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
-                           (uuid.uuid4().hex, audience, channel, state, prio, due, now, text))
-                if state == "held":
-                    self.m_sent.labels(channel=channel, outcome="held").inc()
 
     def _placement(self, audience: str, aud: AudienceDelivery, priority: str,
                    now: float) -> tuple[str, float]:
@@ -416,52 +443,112 @@ class Delivery:
             due = max(due, quiet_end)
         return "held", due
 
+    # ------------------------------------------------------------------ queries
+    def pending_count(self, db: sqlite3.Connection | None = None) -> int:
+        own = db is None
+        conn = db or self._connect()
+        try:
+            return int(conn.execute(PENDING_COUNT).fetchone()[0])
+        finally:
+            if own:
+                conn.close()
+
+
+class _Worker:
+    """The deliveries of one receiver (an audience's webhook or its e-mail), in order, on a
+    thread and SQLite connection of its own."""
+
+    def __init__(self, owner: Delivery, audience: str, channel: str) -> None:
+        self.owner = owner
+        self.audience = audience
+        self.channel = channel
+        self.wake = threading.Event()
+        self.blocked_until = 0.0
+        self.thread = threading.Thread(target=self._run, daemon=True,
+                                       name=f"thermowarden-delivery-{audience}-{channel}")
+
+    def _run(self) -> None:
+        owner = self.owner
+        db = owner._connect()
+        last_prune = -PRUNE_EVERY_S
+        try:
+            while not owner.stopping.is_set():
+                self.wake.clear()
+                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
+                    last_prune = time.monotonic()
+                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND audience = ? "
+                               "AND channel = ? AND created < ?",
+                               (self.audience, self.channel, owner.now() - FAILED_KEPT_S))
+                wait = self._work(db)
+                self.wake.wait(wait)
+        except Exception:  # noqa: BLE001 - a delivery bug must not take the service down
+            log.exception("delivery worker for %s by %s failed; its stored deliveries wait "
+                          "for the next start", self.audience, self.channel)
+        finally:
+            db.close()
+
     def _work(self, db: sqlite3.Connection) -> float:
-        """Release digests that are due and attempt due deliveries; returns how long to
-        sleep before the next thing is due."""
-        now = self.now()
+        """Release a digest that is due and attempt this receiver's due deliveries in order;
+        returns how long to sleep before the next thing is due."""
+        owner = self.owner
+        now = owner.now()
         self._release(db, now)
-        rows = db.execute("SELECT seq, id, audience, channel, priority, attempts, payload, due "
-                          "FROM deliveries WHERE state = 'pending' ORDER BY seq").fetchall()
+        rows = db.execute("SELECT seq, id, priority, attempts, payload, due FROM deliveries "
+                          "WHERE state = 'pending' AND audience = ? AND channel = ? "
+                          "ORDER BY seq", (self.audience, self.channel)).fetchall()
         next_due = now + IDLE_WAIT_S
-        done_targets: set[tuple[str, str]] = set()
-        for seq, did, audience, channel, prio, attempts, text, due in rows:
-            target = (audience, channel)
-            if target in done_targets or self.stopping.is_set():
+        for seq, did, prio, attempts, text, due in rows:
+            if owner.stopping.is_set():
+                break
+            now = owner.now()
+            if due > now or self.blocked_until > now:
+                # keep the order: nothing later goes before this one
+                next_due = min(next_due, max(due, self.blocked_until))
+                break
+            try:
+                payload = json.loads(text)
+                if not isinstance(payload, dict):
+                    raise ValueError("not a JSON object")
+            except (ValueError, RecursionError) as exc:
+                self._fail(db, seq, did, f"damaged record: {exc}")
                 continue
-            if due > now or self.blocked_until.get(target, 0.0) > now:
-                # keep the order per target: nothing later goes before this one
-                next_due = min(next_due, max(due, self.blocked_until.get(target, 0.0)))
-                done_targets.add(target)
-                continue
-            row = _Row(seq, did, audience, channel, prio, attempts, json.loads(text))
+            row = _Row(seq, did, self.audience, self.channel, prio, attempts, payload)
             if not self._attempt(db, row, now):
-                done_targets.add(target)
-                next_due = min(next_due, self.blocked_until.get(target, now))
-        held = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held'").fetchone()[0]
+                next_due = min(next_due, self.blocked_until)
+                break
+        held = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held' AND "
+                          "audience = ? AND channel = ?",
+                          (self.audience, self.channel)).fetchone()[0]
         if held is not None:
             next_due = min(next_due, held)
-        return max(0.0, min(IDLE_WAIT_S, next_due - self.now()))
+        return max(0.0, min(IDLE_WAIT_S, next_due - owner.now()))
+
+    def _fail(self, db: sqlite3.Connection, seq: int, did: str, error: str,
+              attempts: int | None = None) -> None:
+        if attempts is None:
+            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
+                       (error, seq))
+        else:
+            db.execute("UPDATE deliveries SET state = 'failed', attempts = ?, error = ? "
+                       "WHERE seq = ?", (attempts, error, seq))
+        self.owner.m_sent.labels(channel=self.channel, outcome="failed").inc()
 
     def _attempt(self, db: sqlite3.Connection, row: _Row, now: float) -> bool:
-        aud = self._audience(row.audience)
+        owner = self.owner
+        aud = owner._audience(row.audience)
         cfg = getattr(aud, row.channel) if aud is not None else None
         if cfg is None:
-            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
-                       ("channel no longer configured", row.seq))
-            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            self._fail(db, row.seq, row.id, "channel no longer configured")
             log.error("delivery %s to %s by %s dropped: that channel is no longer configured",
                       row.id, row.audience, row.channel)
             return True
         try:
-            self.senders[row.channel](cfg, row.payload, row.id, now)
+            owner.senders[row.channel](cfg, row.payload, row.id, now)
         except DeliveryFailed as exc:
             attempts = row.attempts + 1
-            retry = self.config.retry
+            retry = owner.config.retry
             if exc.permanent or attempts >= retry.max_attempts:
-                db.execute("UPDATE deliveries SET state = 'failed', attempts = ?, error = ? "
-                           "WHERE seq = ?", (attempts, str(exc), row.seq))
-                self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+                self._fail(db, row.seq, row.id, str(exc), attempts)
                 log.error("delivery %s to %s by %s failed for good after %d attempt(s): %s",
                           row.id, row.audience, row.channel, attempts, exc)
                 return True
@@ -469,56 +556,55 @@ class Delivery:
             delay *= random.uniform(0.8, 1.2)
             db.execute("UPDATE deliveries SET attempts = ?, due = ?, error = ? WHERE seq = ?",
                        (attempts, now + delay, str(exc), row.seq))
-            self.blocked_until[(row.audience, row.channel)] = now + delay
-            self.m_sent.labels(channel=row.channel, outcome="retried").inc()
+            self.blocked_until = now + delay
+            owner.m_sent.labels(channel=row.channel, outcome="retried").inc()
             log.warning("delivery %s to %s by %s failed (%s); attempt %d of %d in %.1f s",
                         row.id, row.audience, row.channel, exc, attempts + 1,
                         retry.max_attempts, delay)
             return False
         except Exception as exc:  # noqa: BLE001 - a sender bug is a failed attempt, not a crash
-            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
-                       (f"{type(exc).__name__}: {exc}", row.seq))
-            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            self._fail(db, row.seq, row.id, f"{type(exc).__name__}: {exc}")
             log.exception("delivery %s to %s by %s failed", row.id, row.audience, row.channel)
             return True
         db.execute("DELETE FROM deliveries WHERE seq = ?", (row.seq,))
-        self.blocked_until.pop((row.audience, row.channel), None)
-        self.m_sent.labels(channel=row.channel, outcome="sent").inc()
+        self.blocked_until = 0.0
+        owner.m_sent.labels(channel=row.channel, outcome="sent").inc()
         return True
 
     def _release(self, db: sqlite3.Connection, now: float) -> None:
-        """Held rows of an audience and channel go out as one digest once one of them is
-        due and the audience's quiet hours are over."""
-        targets = db.execute("SELECT audience, channel, MIN(due) FROM deliveries "
-                             "WHERE state = 'held' GROUP BY audience, channel").fetchall()
-        for audience, channel, due in targets:
-            quiet = self.quiet.get(audience)
-            if due > now or (quiet is not None and quiet.until(now) is not None):
-                continue
+        """This receiver's held rows go out as one digest once one of them is due and the
+        audience's quiet hours are over."""
+        due = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held' AND "
+                         "audience = ? AND channel = ?",
+                         (self.audience, self.channel)).fetchone()[0]
+        quiet = self.owner.quiet.get(self.audience)
+        if due is None or due > now or (quiet is not None and quiet.until(now) is not None):
+            return
+        db.execute("BEGIN IMMEDIATE")
+        try:
             rows = db.execute("SELECT seq, payload FROM deliveries WHERE state = 'held' AND "
                               "audience = ? AND channel = ? ORDER BY seq",
-                              (audience, channel)).fetchall()
-            payloads = [json.loads(t) for _, t in rows]
-            digest = payloads[0] if len(payloads) == 1 else _digest(audience, payloads, now)
-            db.execute("BEGIN")
+                              (self.audience, self.channel)).fetchall()
+            payloads: list[dict[str, Any]] = []
+            for _, text in rows:
+                try:
+                    p = json.loads(text)
+                except (ValueError, RecursionError):
+                    continue
+                if isinstance(p, dict):
+                    payloads.append(p)
             db.executemany("DELETE FROM deliveries WHERE seq = ?", [(s,) for s, _ in rows])
-            db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
-                       "created, payload) VALUES(?, ?, ?, 'pending', ?, ?, ?, ?)",
-                       (uuid.uuid4().hex, audience, channel, "low", now, now,
-                        json.dumps(digest)))
-            db.execute("COMMIT")
-
-    # ------------------------------------------------------------------ queries
-    def pending_count(self, db: sqlite3.Connection | None = None) -> int:
-        own = db is None
-        conn = db or self._connect()
-        try:
-            row = conn.execute("SELECT COUNT(*) FROM deliveries WHERE state IN "
-                               "('held', 'pending')").fetchone()
-            return int(row[0])
-        finally:
-            if own:
-                conn.close()
+            if payloads:
+                digest = payloads[0] if len(payloads) == 1 else \
+                    _digest(self.audience, payloads, now)
+                db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, "
+                           "due, created, payload) VALUES(?, ?, ?, 'pending', ?, ?, ?, ?)",
+                           (uuid.uuid4().hex, self.audience, self.channel, "low", now, now,
+                            json.dumps(digest)))
+        except BaseException:
+            db.execute("ROLLBACK")
+            raise
+        db.execute("COMMIT")
 
 
 def _digest(audience: str, payloads: list[dict[str, Any]], now: float) -> dict[str, Any]:

@@ -37,13 +37,14 @@ from typing import Any
 
 from apscheduler.triggers.cron import CronTrigger
 
+from thermowarden.core.payloads import RECORD_ABSENT
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.ingest import Rejection
 from thermowarden.shell import systemd
 from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.group import Group
-from thermowarden.shell.logs import RateLimiter
+from thermowarden.shell.logs import IntervalLog, RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink, SensorMessage
 from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
@@ -73,6 +74,8 @@ RETRY_REFUSED_S = 60.0
 """An event the broker refused (MQTT 5 reason code) is offered again this often until it
 expires from the outbox."""
 EXPIRE_EVERY_S = 60.0
+REJECTION_LOG_INTERVAL_S = 600.0
+"""Sensor rejections are logged once per point and reason this often (all are counted)."""
 NOTICE_TOPIC_SPACE = "_site"
 
 
@@ -201,6 +204,7 @@ class Service:
         self.outbox_max_age_s = cfg.outbox.max_age_s
         self.last_expire = -float("inf")
         self.limiter = RateLimiter()
+        self.rejection_log = IntervalLog(REJECTION_LOG_INTERVAL_S, clock.monotonic)
         self.calendar: list[CalendarJob] = []
         self.wall_seen = (clock.now(), clock.monotonic())
         """The wall and monotonic readings at the last step taken into account."""
@@ -317,6 +321,7 @@ class Service:
         """Store everything first (one transaction), then publish."""
         now = self.clock.now()
         sends: list[tuple[int, Publish]] = []
+        staged = False
         with self.store.transaction():
             for e in effects:
                 if isinstance(e, Persist):
@@ -325,14 +330,18 @@ class Service:
                     assert e.payload is not None
                     _identify(e.payload)
                     sends.append((self.store.outbox_add(e.topic, e.payload, now), e))
+                    if self.delivery is not None:
+                        # stored with the event's outbox row: a crash loses neither
+                        audience = e.topic.split("/events/", 1)[1].split("/", 1)[0]
+                        staged |= self.delivery.stage(self.store.db, audience, e.payload, now)
                 else:
                     sends.append((0, e))
+        if staged:
+            assert self.delivery is not None
+            self.delivery.wake()
         for seq, e in sends:
             if seq:
                 self._hand_over(seq, e.topic, e.payload or {})
-                if self.delivery is not None and e.payload is not None:
-                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
-                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -343,7 +352,6 @@ class Service:
                 mid = self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
                 if mid is not None and e.topic.endswith("/conditions"):
                     self.last_conditions_sent = self.clock.monotonic()
-        self.metrics.outbox_depth.set(self.store.outbox_depth())
         for observe in self.observers:
             observe(effects)
 
@@ -500,16 +508,23 @@ class Service:
 
     def _rejected(self, rejections: list[Rejection]) -> None:
         """Count every rejection (one metric update per reason, not per message: a flood
-        of bad payloads does not take the metric's lock for each); log them at a limited
-        rate per reason and point."""
+        of bad payloads does not take the metric's lock for each); log one line per point
+        and reason per ``REJECTION_LOG_INTERVAL_S`` (the first at once, then how many more
+        came: :meth:`_rejection_summaries`)."""
         for reason, count in Counter(r.reason for r in rejections).items():
             self.metrics.rejected.labels(reason=reason).inc(count)
         for r in rejections:
-            ok, dropped = self.limiter.allow(f"{r.reason}|{r.point}")
-            if ok:
-                more = f" ({dropped} similar suppressed)" if dropped else ""
-                log.warning("rejected %s on %s [%s]: %s%s", r.reason, r.topic, r.point,
-                            r.detail, more)
+            if self.rejection_log.first(f"{r.reason}|{r.point}", f"on {r.topic}: {r.detail}"):
+                log.log(_rejection_level(r.reason), "rejected %s on %s [%s]: %s (one line "
+                        "per point and reason every %.0f s; all are counted)", r.reason,
+                        r.topic, r.point, r.detail, self.rejection_log.interval_s)
+
+    def _rejection_summaries(self) -> None:
+        """One line per point and reason whose interval ended with rejections not logged."""
+        for key, count, last in self.rejection_log.due():
+            reason, point = key.split("|", 1)
+            log.log(_rejection_level(reason), "rejected %s [%s]: %d more in the last %.0f s "
+                    "(the last %s)", reason, point, count, self.rejection_log.interval_s, last)
 
     def _handle_message(self, m: Incoming) -> None:
         if m.kind == "command":
@@ -615,6 +630,7 @@ class Service:
     def _sync_counters(self) -> None:
         """Copy the network thread's plain counter and the ingest counters into the
         metrics (cheaper than a locked metric update per message)."""
+        self._rejection_summaries()
         received = self.link.received
         if received != self.received_seen:
             self.metrics.received.inc(received - self.received_seen)
@@ -879,6 +895,11 @@ class Service:
         self.store.close()
         self.stopped.set()
         log.info("stopped")
+
+
+def _rejection_level(reason: str) -> int:
+    """A SenML pack without a point's record carries nothing for it: said, not warned."""
+    return logging.INFO if reason == RECORD_ABSENT else logging.WARNING
 
 
 def freeze_heap() -> None:
