@@ -242,7 +242,7 @@ def _index_remedy(names: tuple[str, ...], have: set[str]) -> str:
                or any(h.startswith("plane_radiant_temperature") for h in have))
     lacking: list[str] = []
     for name in names:
-        for q in INDEX_INPUTS.get(name, (name,) if name in ASSUMABLE_EXAMPLES else ()):
+        for q in INDEX_INPUTS.get(name, (name,) if name in QUANTITIES else ()):
             if q in have or q in lacking or (q == "mean_radiant_temperature" and radiant):
                 continue
             lacking.append(q)

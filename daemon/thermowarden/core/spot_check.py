@@ -236,6 +236,9 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
     if "relative_humidity" in assumed:
         given["relative_humidity"] = np.array([_number("assume.relative_humidity",
                                                        _assume(data)["relative_humidity"])])
+    if "mean_radiant_temperature" in _assume(data):  # also fills the planes not measured
+        given["assumed_mrt_offset_k"] = np.array([_mrt_offset(
+            _assume(data)["mean_radiant_temperature"])])
     if "mean_radiant_temperature" in assumed and "air_temperature" in given:
         air = given["air_temperature"]
         assert isinstance(air, np.ndarray)

@@ -215,6 +215,10 @@ class Publication:
                 if q in indices and indices[q].get("value") is not None:
                     # the index of the same name is the assumption itself: say so
                     indices[q] = {**indices[q], "method": f"{note} (not measured)"}
+                    if q == "mean_radiant_temperature" and \
+                            "mean_radiant_temperature_source" in indices:
+                        indices["mean_radiant_temperature_source"] = {
+                            **indices["mean_radiant_temperature_source"], "value": "assumed"}
         out = {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,

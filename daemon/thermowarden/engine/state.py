@@ -591,6 +591,12 @@ class SiteState:
         radiant_known = np.isfinite(mrt) | np.isfinite(got.get("globe_temperature", nan_rows))
         for v in planes.values():
             radiant_known |= np.isfinite(v)
+        # outdoors in the sun the irradiance gives it (better than an assumption)
+        sunlit = ctx["solar_load"]
+        lat = ctx["latitude"]
+        assert isinstance(sunlit, np.ndarray) and isinstance(lat, np.ndarray)
+        radiant_known |= (outdoor_space & np.tile(sunlit & np.isfinite(lat), k)
+                          & np.repeat(np.isfinite(outdoor["solar_irradiance"]), n))
         mrt_assumed = ~radiant_known & np.isfinite(assumed_offset) & np.isfinite(air)
         mrt = np.where(mrt_assumed, air + assumed_offset, mrt)
         psy_wet = got.get("psychrometric_wet_bulb", nan_rows)
@@ -616,6 +622,7 @@ class SiteState:
             solar_irradiance=np.repeat(outdoor["solar_irradiance"], n),
             time_s=self._sun_times(times, k),
             plane_radiant=planes,
+            assumed_mrt_offset_k=assumed_offset,
             **context,
         )
         present = {"air_temperature": np.isfinite(air), "relative_humidity": measured_rh}
