@@ -7,7 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.conftest import PUBLISHED, table
+from tests.conftest import table
 from thermowarden.core import heat_stress, radiation
 from thermowarden.core.indices import SpaceInputs, compute_indices
 
