@@ -172,3 +172,31 @@ def test_a_margin_inside_instrument_accuracy_is_called_reached():
             "--format", "table")
     assert r.returncode == 0, r.stderr
     assert "treat as reached" in r.stdout.split("\n\n")[0]
+
+
+def test_assumptions_fill_in_and_are_marked():
+    """A thermostat's reading with declared assumptions, as a site's ``assume`` does; the
+    PMV is the same as with the values given as readings (ISO 7730 Table D.1 gives +0.77 at
+    27 °C, 60 %, 0.1 m/s, 1.2 met, 0.5 clo: the method checked elsewhere)."""
+    base = {"air_temperature": 28.6, "met": 1.2, "clo": 0.5}
+    r = run({**base, "assume": {"relative_humidity": 50, "air_speed": 0.1,
+                                "mean_radiant_temperature": "air"}})
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    same = json.loads(run({**base, "relative_humidity": 50, "air_speed": 0.1,
+                           "mean_radiant_temperature": 28.6}).stdout)
+    assert out["pmv_iso"]["value"] == same["pmv_iso"]["value"]
+    assert out["relative_humidity"]["method"] == "assumed: 50 % (not measured)"
+    assert out["mean_radiant_temperature"]["method"] == \
+        "assumed: equal to the air temperature (not measured)"
+    assert "air speed still air, 0.1 m/s" in out["assumed"]["reason"]
+    # a measured value wins over the assumption, and is not marked
+    r = run({**base, "relative_humidity": 40, "air_speed": 0.1,
+             "mean_radiant_temperature": 28.6, "assume": {"relative_humidity": 50}})
+    out = json.loads(r.stdout)
+    assert out["relative_humidity"]["value"] == 40 and "assumed" not in out
+    table = run({**base, "assume": {"relative_humidity": 50, "air_speed": 0.1,
+                                    "mean_radiant_temperature": "air+2"}}, "--format", "table")
+    assert "Not measured, assumed: relative humidity 50 %" in table.stdout
+    bad = run({**base, "assume": {"globe_temperature": 30}})
+    assert bad.returncode == 2 and "assume.globe_temperature" in bad.stderr

@@ -141,7 +141,7 @@ def _load_or_report(path: str) -> SiteConfig | None:
 def cmd_assess(args: argparse.Namespace) -> int:
     """Spot check one space; print every index as JSON (or a table)."""
     from thermowarden.core.indices import compute_indices, space_result
-    from thermowarden.core.spot_check import InputError, parse_spot_check
+    from thermowarden.core.spot_check import InputError, assumptions_used, parse_spot_check
 
     if args.input:
         try:
@@ -163,20 +163,31 @@ def cmd_assess(args: argparse.Namespace) -> int:
         if not isinstance(data, dict):
             raise InputError("input", "expected a JSON object of readings")
         inputs = parse_spot_check(data)
+        assumed = assumptions_used(data)
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
     _prepare_models()
     table = compute_indices(inputs)
     result = space_result(table, 0)
+    for q, note in assumed.items():
+        if q in result and result[q]["value"] is not None:
+            result[q]["method"] = f"{note} (not measured)"
+    shown = "; ".join(f"{q.replace('_', ' ')} {n.removeprefix('assumed: ')}"
+                      for q, n in assumed.items())
     if args.format == "table":
         print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        if shown:
+            print(textwrap.fill(f"Not measured, assumed: {shown}.", TABLE_WIDTH))
         print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
             print()
             print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
+        if shown:
+            result["assumed"] = {"value": None, "unit": "", "method": "",
+                                 "reason": f"not measured, assumed: {shown}"}
         result["caution"] = {"value": None, "unit": "", "method": "", "reason": CAUTION}
         json.dump(result, sys.stdout, ensure_ascii=False, indent=2)
         print()

@@ -443,11 +443,20 @@ def provided_inputs(model: object) -> list[set[str]]:
         if model.space(i).kind == "outdoor":
             provided[i] |= outdoor_extra
         # a declared assumption stands in for a quantity the space does not measure
-        provided[i] |= set(model.config.assumptions(model.space(i)).notes())
+        assumed = set(model.config.assumptions(model.space(i)).notes())
+        provided[i] |= {f"{ASSUMED_MARK}{q}" for q in assumed - provided[i]} | assumed
     for allowed, names in lazy_some:
         for i in allowed:
             provided[i] |= names
+            provided[i] -= {f"{ASSUMED_MARK}{q}" for q in names}
     return provided
+
+
+ASSUMED_MARK: Final = "assumed:"
+"""In :func:`provided_inputs`, ``assumed:<quantity>``: only a declared assumption gives it."""
+MEASURED_MARK: Final = "measured "
+"""In :func:`missing_inputs`, ``measured <quantity>``: the rule needs a point for it, and the
+space has only an assumption."""
 
 
 def missing_inputs(pack: CompiledPack, model: object, space: int,
@@ -468,6 +477,8 @@ def missing_inputs(pack: CompiledPack, model: object, space: int,
         if not rule_applies(rule.config, cfg):
             continue
         missing = sorted(n for n in rule.needs if n not in have)
+        missing += [f"{MEASURED_MARK}{n}" for n in rule.config.measured
+                    if n not in missing and (n not in have or f"{ASSUMED_MARK}{n}" in have)]
         if missing:
             out.append((rule.config.id, missing))
     return out

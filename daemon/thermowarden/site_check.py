@@ -43,6 +43,7 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
     if config.web.users_file is not None:
         report.issues.extend(users_file_issues(config, path))
     from thermowarden.rules import (
+        MEASURED_MARK,
         RulePackError,
         load_rule_packs,
         missing_inputs,
@@ -55,15 +56,24 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
     except RulePackError as exc:
         report.issues = exc.issues
         return report
+    from thermowarden.rules import rule_applies
+
     provided = provided_inputs(report.model)
     lacking: set[tuple[str, str]] = set()
     for i, space in enumerate(config.spaces):
         for name in config.rule_packs(space):
+            if not any(rule_applies(r.config, space) for r in packs[name].rules):
+                report.warnings.append(
+                    f"space {space.id}: rule pack {name} can never apply here: "
+                    f"{_applies_text(packs[name], space)}; take {name} off this space's "
+                    "rule_packs, or change the space")
+                continue
             for rule, missing in missing_inputs(packs[name], report.model, i, provided):
                 lacking.add((space.id, f"{name}.{rule}"))
                 report.warnings.append(
-                    f"space {space.id}: rule {name}.{rule} needs {', '.join(missing)}, which "
-                    "no point provides")
+                    f"space {space.id}: rule {name}.{rule} needs "
+                    f"{', '.join(m.removeprefix(MEASURED_MARK) for m in missing)}, which no "
+                    f"point provides, so it never runs there: {_remedy(missing)}")
     from thermowarden.engine.finishing import unfinishable_rules
 
     if prepare is not None:
@@ -73,15 +83,17 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
             continue
         because = f"{', '.join(u.missing)} can never be known there" if u.missing else \
             "its expression can never be true"
+        i = report.model.space_index[u.space]
+        remedy = _index_remedy(u.missing, provided[i])
         if u.which == "clear":
             report.warnings.append(
                 f"space {u.space}: rule {u.rule} could raise but never clear on its own: "
-                f"its clear condition reads {because} (add the point, or write the clear "
-                "condition with the same inputs as the raise condition)")
+                f"its clear condition reads {because} ({remedy or 'add the point'}, or write "
+                "the clear condition with the same inputs as the raise condition)")
         else:
             report.warnings.append(
                 f"space {u.space}: rule {u.rule} can never raise: its condition reads "
-                f"{because}")
+                f"{because}" + (f": {remedy}" if remedy else ""))
     return report
 
 
@@ -178,3 +190,81 @@ def _trust(p: PointSpec) -> str:
     if p.stuck_after_s != DEFAULT_STUCK_AFTER_S:
         parts.append(f"stuck after {p.stuck_after_s:g} s")
     return f" ({'; '.join(parts)})" if parts else ""
+
+
+ASSUMABLE_EXAMPLES = {"relative_humidity": "relative_humidity: 50", "air_speed": "air_speed: 0.1",
+                      "mean_radiant_temperature": "mean_radiant_temperature: air"}
+"""Inputs a space may assume (``assume``), with the line that says so."""
+
+
+def _remedy(missing: list[str]) -> str:
+    """What to add to the site file so that a rule gets the inputs it lacks."""
+    from thermowarden.rules import MEASURED_MARK
+
+    parts = []
+    for m in missing:
+        q = m.removeprefix(MEASURED_MARK)
+        if m.startswith(MEASURED_MARK):
+            parts.append(f"add a {q} point to the space (this rule is about the {q} "
+                         "itself: an assumption does not count)")
+        elif q in ASSUMABLE_EXAMPLES:
+            parts.append(f"add `assume: {{{ASSUMABLE_EXAMPLES[q]}}}` to the space (or "
+                         f"to defaults), or a {q} point")
+        elif q.startswith("plane_radiant_temperature_"):
+            side = q.removeprefix("plane_radiant_temperature_")
+            parts.append(f"add a plane_radiant_temperature (or radiant_flux) point with side: "
+                         f"{side} to the space")
+        elif q.startswith("outdoor_") or q in ("solar_irradiance", "wind_speed"):
+            parts.append(f"add a {q} point to site.outdoor_points")
+        else:
+            parts.append(f"add a {q} point to the space")
+    return "; ".join(parts)
+
+
+def _applies_text(pack: object, space: object) -> str:
+    """Why no rule of ``pack`` applies to ``space``, in words."""
+    from thermowarden.config import SpaceConfig
+    from thermowarden.rules import CompiledPack
+
+    assert isinstance(pack, CompiledPack) and isinstance(space, SpaceConfig)
+    wants = set()
+    for r in pack.rules:
+        a = r.config.applies_to
+        words = [w for w in (
+            a.kind and f"{a.kind} spaces",
+            a.hot_work is True and "hot work", a.hot_work is False and "not hot work",
+            a.ventilation and f"{a.ventilation} ventilation") if w]
+        wants.add(", ".join(words) or "every space")
+    here = [space.kind, "hot work" if space.hot_work else "not hot work",
+            f"{space.ventilation} ventilation"]
+    return f"its rules are for {' or '.join(sorted(wants))}; this space is {', '.join(here)}"
+
+
+_COMFORT_INPUTS = ("air_temperature", "relative_humidity", "air_speed", "mean_radiant_temperature")
+INDEX_INPUTS: dict[str, tuple[str, ...]] = {
+    **{name: _COMFORT_INPUTS for name in (
+        "pmv_iso", "ppd_iso", "comfort_category_iso", "pmv_ashrae", "ppd_ashrae",
+        "cooling_effect", "set", "cooling_air_speed_needed", "set_at_cooling_air_speed",
+        "utci")},
+    "operative_temperature": ("air_temperature", "air_speed", "mean_radiant_temperature"),
+    "mean_radiant_temperature": ("mean_radiant_temperature",),
+    "draught_rate": ("air_temperature", "air_speed"),
+    "dew_point": ("air_temperature", "relative_humidity"),
+    "condensation_margin": ("surface_temperature", "relative_humidity"),
+    "heat_index": ("air_temperature", "relative_humidity"),
+    "humidex": ("air_temperature", "relative_humidity"),
+}
+"""The inputs each index rests on, for saying what to add when it can never be known."""
+
+
+def _index_remedy(names: tuple[str, ...], have: set[str]) -> str:
+    """The lines to add so that the inputs behind ``names`` exist in a space, or ''."""
+    radiant = ("globe_temperature" in have
+               or any(h.startswith("plane_radiant_temperature") for h in have))
+    lacking: list[str] = []
+    for name in names:
+        for q in INDEX_INPUTS.get(name, (name,) if name in QUANTITIES else ()):
+            if q in have or q in lacking or (q == "mean_radiant_temperature" and radiant):
+                continue
+            lacking.append(q)
+    return _remedy(lacking) if lacking else ""

@@ -76,6 +76,10 @@ class RuleConfig(Strict):
     priority: Priority = "medium"
     applies_to: AppliesTo = Field(default_factory=AppliesTo)
     needs: list[str] = Field(default_factory=list)
+    measured: list[str] = Field(default_factory=list)
+    """Inputs a declared assumption (``assume``) may not stand in for: a rule about the
+    humidity itself says nothing when the humidity is only assumed. Where one is assumed the
+    rule is unknown (never raised, never cleared), and ``check`` warns."""
     condition: str | None = None
     levels: list[RuleLevel] = Field(default_factory=list)
     clear: str | None = None

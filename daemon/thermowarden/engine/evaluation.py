@@ -518,11 +518,20 @@ def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArr
         assert rule.condition is not None
         cond = rule.condition.evaluate_truth(env, n)
         level_idx = np.where(cond.true, np.int8(rule.base_priority), level_idx)
+    assumed_only = np.zeros(n, dtype=bool)
+    for name in cfg.measured:  # an assumption may not stand in for these: unknown there
+        flags = base["_assumed"].get(name)
+        if flags is not None:
+            assumed_only |= flags
+    if assumed_only.any():
+        cond = Truth(cond.value & ~assumed_only, cond.known & ~assumed_only)
     occupied = base["occupied"]
     if cfg.occupied_only:
         cond = Truth(cond.value & occupied, cond.known | ~occupied)
     cond = Truth(cond.value & mask, cond.known | ~mask)
     clear = rule.clear.evaluate_truth(env, n) if rule.clear else Truth(~cond.value, cond.known)
+    if assumed_only.any():
+        clear = Truth(clear.value & ~assumed_only, clear.known & ~assumed_only)
     if cfg.occupied_only:
         clear = Truth(clear.value | ~occupied, clear.known | ~occupied)
     clear = Truth(clear.value | ~mask, clear.known | ~mask)
@@ -535,6 +544,7 @@ def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArr
         present = base["_present"].get(name)
         if present is not None:
             lacking |= ~present
+    lacking |= assumed_only
     acted = rule.acted_on.evaluate_truth(env, n).true if rule.acted_on is not None else None
     return RuleTruths(cond, clear, hold, level_idx, lacking, acted)
 

@@ -28,7 +28,7 @@ TYPICAL: Final[dict[str, float]] = {
     "surface_temperature": 21.0, "floor_temperature": 23.0, "outdoor_air_temperature": 24.0,
     "outdoor_relative_humidity": 50.0, "wind_speed": 2.0, "solar_irradiance": 300.0,
     "barometric_pressure": 101325.0, "shading_position": 0.0, "fan_state": 0.0,
-    "occupancy": 1.0, "turbulence_intensity": 0.3,
+    "occupancy": 1.0, "turbulence_intensity": 30.0,  # per cent, the canonical unit
 }
 """A reading of each quantity inside every method's range (invented, for this test only)."""
 T0: Final = 1_780_000_000.0

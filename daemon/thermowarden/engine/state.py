@@ -163,6 +163,10 @@ class SiteState:
         self.assumed_mrt_offset = np.array(
             [off if (off := a.mrt_offset_k) is not None else np.nan for a in assume])
         """Mean radiant minus air temperature (K) per space; NaN where nothing is assumed."""
+        self.assumed_rh = np.array(
+            [a.relative_humidity if a.relative_humidity is not None else np.nan
+             for a in assume])
+        """Relative humidity (%) per space; NaN where nothing is assumed."""
         groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
         for i, space in enumerate(cfg.spaces):
             occ = cfg.occupancy(space)
@@ -587,8 +591,19 @@ class SiteState:
         radiant_known = np.isfinite(mrt) | np.isfinite(got.get("globe_temperature", nan_rows))
         for v in planes.values():
             radiant_known |= np.isfinite(v)
+        # outdoors in the sun the irradiance gives it (better than an assumption)
+        sunlit = ctx["solar_load"]
+        lat = ctx["latitude"]
+        assert isinstance(sunlit, np.ndarray) and isinstance(lat, np.ndarray)
+        radiant_known |= (outdoor_space & np.tile(sunlit & np.isfinite(lat), k)
+                          & np.repeat(np.isfinite(outdoor["solar_irradiance"]), n))
         mrt_assumed = ~radiant_known & np.isfinite(assumed_offset) & np.isfinite(air)
         mrt = np.where(mrt_assumed, air + assumed_offset, mrt)
+        psy_wet = got.get("psychrometric_wet_bulb", nan_rows)
+        assumed_rh = np.tile(self.assumed_rh, k)
+        rh_assumed = np.isnan(rh) & np.isnan(psy_wet) & np.isfinite(assumed_rh)
+        measured_rh = np.isfinite(rh)
+        rh = np.where(rh_assumed, assumed_rh, rh)
         inputs = SpaceInputs.create(
             rows,
             air_temperature=air, relative_humidity=rh, air_speed=speed,
@@ -607,16 +622,17 @@ class SiteState:
             solar_irradiance=np.repeat(outdoor["solar_irradiance"], n),
             time_s=self._sun_times(times, k),
             plane_radiant=planes,
+            assumed_mrt_offset_k=assumed_offset,
             **context,
         )
-        present = {q: np.isfinite(v) for q, v in (
-            ("air_temperature", air), ("relative_humidity", rh))}
+        present = {"air_temperature": np.isfinite(air), "relative_humidity": measured_rh}
         present["air_speed"] = measured_speed
         for q, v in got.items():
             present.setdefault(q, np.isfinite(v))
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
-        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
+        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed,
+                   "relative_humidity": rh_assumed}
         occupied = self.occupied_many(times, states["occupancy"])
         return Snapshot(float(times[-1]), inputs, present, states, occupied, spread, fresh, age,
                         outdoor, times, values, last, days_rolled, assumed)

@@ -305,12 +305,16 @@ def points_table(c: dict[str, Any] | None) -> str:
                 f'{f" <small class=muted>({h(tags)})</small>" if tags else ""}</td>'
                 f'<td class="num">{fmt_value(p)}</td><td>{status}</td>'
                 f'<td>{h(age_text(p.get("age_s")))}</td></tr>')
+        assumed = [f"{QUANTITY_LABELS.get(q, q)}: {v['assumed'].removeprefix('assumed: ')}"
+                   for q, v in sorted(c.get("inputs", {}).items()) if v.get("assumed")]
+        note = (f'<p class="note">Not measured here, assumed: {h("; ".join(assumed))}.</p>'
+                if assumed else "")
         return ('<div class="scroll"><table><thead><tr><th>Point</th><th>Last value</th>'
                 '<th>Freshness</th><th>Received</th></tr></thead><tbody>' + "".join(rows)
-                + "</tbody></table></div>")
+                + "</tbody></table></div>" + note)
     rows = [f'<tr><td>{h(QUANTITY_LABELS.get(q, q))}</td><td class="num">'
             f'{fmt_value(v) if "value" in v else "–"}</td><td>'
-            f'{FRESH if v.get("fresh") else STALE}'
+            f'{h(v["assumed"]) if v.get("assumed") else FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
     return ('<div class="scroll"><table><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
