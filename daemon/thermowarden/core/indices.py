@@ -518,9 +518,17 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
     # with the wick's radiation from the mean radiant temperature (a globe) or, outdoors in
     # the open without one, from the global irradiance and the sun's position
+    # (outdoors in full sun a globe can read more than 70 K above the air, beyond the
+    # globe method's range: there the irradiance method takes over where the site has the
+    # sun's position, so that the 60-minute WBGT does not lose hours of full sun)
     with_mrt = np.isfinite(mrt)
     cos_zenith, distance = solar.sun_position(s.time_s, s.latitude, s.longitude)
     ghi, direct = solar.direct_fraction(s.solar_irradiance, cos_zenith, distance)
+    globe_beyond = with_mrt & ~_between(mrt - s.air_temperature, -10.0, 70.0)
+    by_sun_instead = (globe_beyond & ~s.indoor & s.solar_load & np.isfinite(s.solar_irradiance)
+                      & np.isfinite(s.latitude) & np.isfinite(s.longitude)
+                      & np.isfinite(s.time_s))
+    with_mrt = with_mrt & ~by_sun_instead
     sun_path = ~with_mrt & ~s.indoor & s.solar_load
     est = np.where(with_mrt, heat_stress.natural_wet_bulb_liljegren(
         s.air_temperature, rh, s.air_speed, mrt, s.pressure_pa), np.nan)
@@ -555,8 +563,9 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                     "-10..70 K")
     est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
                              "radiation exchanged with the mean radiant temperature (globe), or "
-                             "outdoors without a globe from the global irradiance split into "
-                             "direct and diffuse at the sun's position (Liljegren's code)")
+                             "outdoors without a globe (or with a globe beyond that method's "
+                             "range) from the global irradiance split into direct and diffuse "
+                             "at the sun's position (Liljegren's code)")
     out["natural_wet_bulb_estimated"] = est_col
     tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
 
