@@ -133,7 +133,7 @@ def test_a_hot_work_space_without_a_wet_bulb_sensor_gets_the_alert(tmp_path, spa
         assert twa is not None and value(p, "wbgt_time_weighted") == pytest.approx(twa, abs=0.01)
         eff = value(p, "wbgt_effective")
         assert value(p, "wbgt_reference_unacclimatised") == pytest.approx(RAL, abs=0.01)
-        assert value(p, "wbgt_reference_acclimatised") == pytest.approx(REL, abs=0.01)
+        assert value(p, "wbgt_reference") == pytest.approx(REL, abs=0.01)  # acclimatised
         if p["advisory"]["priority"] == "medium":
             assert RAL - 1.0 < eff <= RAL
         elif p["advisory"]["priority"] == "high":
@@ -178,3 +178,60 @@ def test_the_rationale_says_what_the_wbgt_rests_on(tmp_path):
     assert "the 60-minute time-weighted mean; natural wet bulb estimated (Liljegren et al. " \
            "2008) from the solar irradiance and the sun's position, the globe reading more " \
            "than 70 K above the air" in last
+
+
+@pytest.mark.parametrize("acclimatised", [False, True])
+def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
+    """The conditions, the advisory's numbers and texts, the overview card, the space page
+    and the advisory page show the reference of the space's workers as configured:
+    not acclimatised, the RAL (25.0 °C for moderate work) and never "reference
+    (acclimatised)"; acclimatised, the REL (28.3 °C)."""
+    import datetime as _dt
+
+    from thermowarden.shell.web import pages
+    from thermowarden.shell.web.live import SiteDirectory
+
+    engine = site_engine(tmp_path, acclimatised=acclimatised)
+    run = drive(engine, PROFILE, 150, space_ids=("shop",))
+    own = REL if acclimatised else RAL
+    cond = conditions_of(run, "shop")[149]
+    assert cond["indices"]["wbgt_reference"]["value"] == pytest.approx(own, abs=0.01)
+    assert cond["indices"]["wbgt_margin"]["value"] == pytest.approx(
+        own - cond["indices"]["wbgt_effective"]["value"], abs=0.01)
+    evs = events_of(run, "shop")
+    assert [p["advisory"]["priority"] for _, p in evs] == ["medium", "high", "urgent"]
+    for _, p in evs:
+        a = p["advisory"]
+        assert a["numbers"]["wbgt_reference"]["value"] == pytest.approx(own, abs=0.01)
+        assert "wbgt_reference_acclimatised" not in a["numbers"]
+        text = " ".join((a["title"], a["advice"], a["rationale"]))
+        if acclimatised:
+            assert "for acclimatised workers, as configured here: 28.3 °C" in a["rationale"]
+        else:
+            assert "for workers not acclimatised, as configured here: 25.0 °C" in a["rationale"]
+            assert "acclimatised workers, as configured" not in text
+            assert "action value" not in text  # their reference is not an action value
+    if not acclimatised:
+        titles = [p["advisory"]["title"] for _, p in evs]
+        assert titles == [
+            "Heat stress approaching the reference for workers not acclimatised in Shop",
+            "Heat stress above the reference for workers not acclimatised in Shop",
+            "Heat stress above even the limit for acclimatised workers in Shop"]
+        assert "above 28.3 °C even acclimatised workers would be over their limit" in \
+            evs[2][1]["advisory"]["rationale"]
+    directory = SiteDirectory.build(engine.config, {})
+    space = directory.space("shop")
+    assert space is not None
+    card = pages.overview(directory, {"shop": cond}, [], None, _dt.UTC)
+    page = pages.space_page(directory, space, cond, [], [], [], T0, T0 + 3600, None, _dt.UTC)
+    adv_page = pages.advisory_page(directory, evs[-1][1]["advisory"], True, None, _dt.UTC,
+                                   1800)
+    want = "WBGT reference (acclimatised)" if acclimatised else \
+        "WBGT reference (not acclimatised)"
+    for html in (card, page):
+        assert want in html
+        assert f"{own:.1f}" in html.split(want)[1][:200]
+    if not acclimatised:
+        for html in (card, page, adv_page):
+            assert "reference (acclimatised)" not in html
+            assert "(acclimatised)" not in html

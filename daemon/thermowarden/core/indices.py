@@ -588,6 +588,13 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                                                       "°C", heat_stress.REFERENCE_METHOD)
     out["wbgt_reference_unacclimatised"] = m_app.column(
         heat_stress.reference_unacclimatised(m_w), "°C", heat_stress.REFERENCE_METHOD)
+    # the reference of the space's own workers: acclimatised (REL) or not (RAL), as
+    # configured (not acclimatised unless said)
+    out["wbgt_reference"] = m_app.column(
+        np.where(s.acclimatised, out["wbgt_reference_acclimatised"].values,
+                 out["wbgt_reference_unacclimatised"].values), "°C",
+        heat_stress.REFERENCE_METHOD + ", for the space's workers as configured: "
+        "acclimatised (REL) or not (RAL)")
     _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
 
     # ISO 7933 PHS, hot work only; each space in the edition it asks for
@@ -672,7 +679,9 @@ def _wbgt_assessment(twa: FloatArray, w: FloatArray, adjustment_k: FloatArray,
                                                       heat_stress.REFERENCE_METHOD),
         "wbgt_margin_unacclimatised": margin_app.column(
             out["wbgt_reference_unacclimatised"].values - eff, "K",
-            heat_stress.REFERENCE_METHOD)}
+            heat_stress.REFERENCE_METHOD),
+        "wbgt_margin": margin_app.column(out["wbgt_reference"].values - eff, "K",
+                                         out["wbgt_reference"].method)}
     out["wbgt_time_weighted"] = wbgt_tw
     out["wbgt_effective"] = effective
     out.update(margins)
