@@ -177,7 +177,8 @@ def cmd_assess(args: argparse.Namespace) -> int:
     table = compute_indices(inputs)
     result = space_result(table, 0)
     if args.format == "table":
-        print(textwrap.fill(_verdict(result, bool(inputs.acclimatised[0])), TABLE_WIDTH, subsequent_indent="  "))
+        print(textwrap.fill(_verdict(result, bool(inputs.acclimatised[0])), TABLE_WIDTH,
+                            subsequent_indent="  "))
         print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
