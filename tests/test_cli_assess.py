@@ -154,8 +154,9 @@ def test_table_for_a_person():
     assert max(len(ln) for ln in lines) <= 100
     # WBGT 0.7 x 22.8 + 0.3 x 34.6 = 26.34 (ISO 7243:2017 eq. 1); moderate work references
     # 25.03 / 28.26 (tests/data/published_values.yaml, work_class_references)
-    assert lines[0].startswith("HEAT STRESS (unacclimatised): WBGT 26.3 °C vs reference "
-                               "25.0 °C (+1.3 K; acclimatised 28.3 °C)")
+    # not acclimatised unless said: the workers' own reference only (NIOSH RAL)
+    assert lines[0] == ("HEAT STRESS (not acclimatised): WBGT 26.3 °C vs reference 25.0 °C "
+                        "(+1.3 K)")
     rows = {ln.split()[0]: ln.split()[1:3] for ln in lines[2:] if ln and not ln[0].isspace()}
     assert rows["metabolic_rate"] == ["297", "W"]
     assert rows["wbgt_margin_unacclimatised"] == ["-1.3", "K"]
@@ -200,3 +201,28 @@ def test_assumptions_fill_in_and_are_marked():
     assert "Not measured, assumed: relative humidity 50 %" in table.stdout
     bad = run({**base, "assume": {"globe_temperature": 30}})
     assert bad.returncode == 2 and "assume.globe_temperature" in bad.stderr
+
+
+@pytest.mark.parametrize(("acclimatised", "verdict"), [
+    (False, "HEAT STRESS (not acclimatised, above even the acclimatised limit): WBGT 29.0 °C "
+            "vs reference 25.0 °C (+3.9 K; acclimatised limit 28.3 °C, +0.7 K)"),
+    (True, "HEAT STRESS (acclimatised, above their limit): WBGT 29.0 °C vs reference 28.3 °C "
+           "(+0.7 K; action value 25.0 °C, +3.9 K)"),
+])
+def test_the_verdict_follows_the_workers_acclimatisation(acclimatised, verdict):
+    """WBGT 0.7 x 25 + 0.3 x 38.2 = 28.96 °C (ISO 7243:2017 eq. 1); moderate work: RAL
+    25.03, REL 28.26 °C (NIOSH 2016; tests/data/published_values.yaml,
+    work_class_references): +3.93 and +0.70 K."""
+    r = run({"air_temperature": 33, "relative_humidity": 40, "globe_temperature": 38.2,
+             "natural_wet_bulb": 25.0, "air_speed": 0.4, "work_class": "moderate",
+             "acclimatised": acclimatised, "clo": 0.6}, "--format", "table")
+    assert r.returncode == 0, r.stderr
+    assert " ".join(r.stdout.split("\n\n")[0].split()) == verdict  # (wrapped at 100)
+    out = json.loads(run({"air_temperature": 33, "relative_humidity": 40,
+                          "globe_temperature": 38.2, "natural_wet_bulb": 25.0,
+                          "air_speed": 0.4, "work_class": "moderate",
+                          "acclimatised": acclimatised}).stdout)
+    own = 28.26 if acclimatised else 25.03
+    assert out["wbgt_reference"]["value"] == pytest.approx(own, abs=0.01)
+    assert out["wbgt_margin"]["value"] == pytest.approx(own - out["wbgt_effective"]["value"],
+                                                        abs=0.01)

@@ -88,8 +88,11 @@ def _format_table(result: dict[str, dict[str, object]]) -> str:
     return "\n".join(lines)
 
 
-def _verdict(result: dict[str, dict[str, object]]) -> str:
-    """One line for a person: the heat-stress margin when WBGT is known, else comfort."""
+def _verdict(result: dict[str, dict[str, object]], acclimatised: bool = False) -> str:
+    """One line for a person: the heat-stress margin when WBGT is known, else comfort. The
+    reference is that of the workers as given (``acclimatised``; not acclimatised unless
+    said): NIOSH REL for acclimatised workers, with the RAL as their action value; the RAL
+    for workers not acclimatised."""
     def num(key: str) -> float | None:
         v = result.get(key, {}).get("value")
         return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
@@ -101,15 +104,19 @@ def _verdict(result: dict[str, dict[str, object]]) -> str:
             d = wbgt - ref
             # a margin smaller than the instruments' accuracy is no margin
             return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
-        if wbgt - ref_a > -0.5:
-            head, ref, other = "HEAT STRESS (acclimatised too)", ref_a, ("unacclimatised", ref_u)
-        elif wbgt - ref_u > -0.5:
-            head, ref, other = ("HEAT STRESS (unacclimatised)", ref_u,
-                                ("acclimatised", ref_a))
-        else:
-            head, ref, other = "below the WBGT references", ref_u, ("acclimatised", ref_a)
-        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref:.1f} °C ({diff(ref)}; "
-                f"{other[0]} {other[1]:.1f} °C)")
+        if acclimatised:
+            head = ("HEAT STRESS (acclimatised, above their limit)" if wbgt - ref_a > -0.5
+                    else "HEAT STRESS (acclimatised, above the action value)"
+                    if wbgt - ref_u > -0.5 else "below the WBGT reference (acclimatised)")
+            return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_a:.1f} °C ({diff(ref_a)}; "
+                    f"action value {ref_u:.1f} °C, {diff(ref_u)})")
+        head = ("HEAT STRESS (not acclimatised, above even the acclimatised limit)"
+                if wbgt - ref_a > -0.5 else "HEAT STRESS (not acclimatised)"
+                if wbgt - ref_u > -0.5 else "below the WBGT reference (not acclimatised)")
+        above_a = (f"; acclimatised limit {ref_a:.1f} °C, {diff(ref_a)}"
+                   if wbgt - ref_a > -0.5 else "")
+        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_u:.1f} °C "
+                f"({diff(ref_u)}{above_a})")
     pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
     if pmv is not None:
         feel = ("neutral" if abs(pmv) <= 0.5 else
@@ -176,7 +183,8 @@ def cmd_assess(args: argparse.Namespace) -> int:
     shown = "; ".join(f"{q.replace('_', ' ')} {n.removeprefix('assumed: ')}"
                       for q, n in assumed.items())
     if args.format == "table":
-        print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        print(textwrap.fill(_verdict(result, bool(inputs.acclimatised[0])), TABLE_WIDTH,
+                            subsequent_indent="  "))
         if shown:
             print(textwrap.fill(f"Not measured, assumed: {shown}.", TABLE_WIDTH))
         print()

@@ -27,6 +27,7 @@ from thermowarden.config.rule_packs import PRIORITIES, RuleConfig, RulePackConfi
 from thermowarden.core import radiation
 from thermowarden.core.expressions import Expression, ExpressionError, Kind, parse_expression
 from thermowarden.core.indices import SpaceInputs, compute_indices
+from thermowarden.wbgt_basis import WbgtBasis, wbgt_basis
 
 FLAGS: Final = ("occupied", "hot_work", "indoor", "outdoor", "naturally_ventilated",
                 "acclimatised", "solar_load")
@@ -449,6 +450,10 @@ def provided_inputs(model: object) -> list[set[str]]:
         for i in allowed:
             provided[i] |= names
             provided[i] -= {f"{ASSUMED_MARK}{q}" for q in names}
+    # derived: a WBGT wherever its inputs are there, whichever sensor gives them
+    for i, basis in enumerate(wbgt_bases(model, provided)):
+        if basis.known:
+            provided[i].add("wbgt")
     return provided
 
 
@@ -457,6 +462,22 @@ ASSUMED_MARK: Final = "assumed:"
 MEASURED_MARK: Final = "measured "
 """In :func:`missing_inputs`, ``measured <quantity>``: the rule needs a point for it, and the
 space has only an assumption."""
+
+
+def wbgt_bases(model: object, provided: list[set[str]]) -> list[WbgtBasis]:
+    """Per space, what its WBGT rests on (see :mod:`thermowarden.wbgt_basis`)."""
+    from thermowarden.site_model import SITE, SiteModel
+
+    assert isinstance(model, SiteModel)
+    site = model.config.site
+    site_sun = site.latitude is not None and any(
+        p.space == SITE and p.quantity == "solar_irradiance" for p in model.points)
+    out = []
+    for i in range(model.n_spaces):
+        space = model.space(i)
+        solar = space.solar_load if space.solar_load is not None else space.kind == "outdoor"
+        out.append(wbgt_basis(provided[i], space.kind == "outdoor", solar, site_sun))
+    return out
 
 
 def missing_inputs(pack: CompiledPack, model: object, space: int,

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
@@ -70,10 +70,13 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
                 continue
             for rule, missing in missing_inputs(packs[name], report.model, i, provided):
                 lacking.add((space.id, f"{name}.{rule}"))
+                if space.hot_work and "wbgt" in missing:
+                    continue  # said below, louder, with what to add
                 report.warnings.append(
                     f"space {space.id}: rule {name}.{rule} needs "
                     f"{', '.join(m.removeprefix(MEASURED_MARK) for m in missing)}, which no "
                     f"point provides, so it never runs there: {_remedy(missing)}")
+    report.warnings.extend(hot_work_warnings(config, report.model, packs, provided))
     from thermowarden.engine.finishing import unfinishable_rules
 
     if prepare is not None:
@@ -116,6 +119,40 @@ def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
     return []
 
 
+def hot_work_warnings(config: SiteConfig, model: SiteModel, packs: Mapping[str, object],
+                      provided: list[set[str]]) -> list[str]:
+    """A warning for each hot-work space that gets no heat-stress evaluation, with what to
+    add: a pack with a rule that reads the WBGT, the inputs of a WBGT, the work done (the
+    reference value rests on it)."""
+    from thermowarden.rules import CompiledPack, rule_applies, wbgt_bases
+
+    bases = wbgt_bases(model, provided)
+    out = []
+    for i, space in enumerate(config.spaces):
+        if not space.hot_work:
+            continue
+        heat_rules = [f"{name}.{r.config.id}" for name in config.rule_packs(space)
+                      if isinstance(pack := packs.get(name), CompiledPack)
+                      for r in pack.rules
+                      if "wbgt" in r.needs and rule_applies(r.config, space)]
+        to_add = []
+        if not heat_rules:
+            to_add.append("heat_stress to its rule_packs")
+        if not bases[i].known:
+            to_add.extend(bases[i].to_add)
+        people = config.people(space)
+        if people.met is None and people.work_class is None:
+            to_add.append("the work done, people: {work_class: moderate} (rest, low, moderate, "
+                          "high, very_high) or met (the WBGT reference value rests on it; "
+                          "none is assumed)")
+        if to_add:
+            name = space.name or space.id
+            out.append(f"space {space.id}: HOT WORK WITHOUT A HEAT-STRESS EVALUATION: the "
+                       f"safety lead will never be alerted for {name}: add "
+                       + "; ".join(to_add))
+    return out
+
+
 def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
     """Warnings that differ only in the space they name, as one line each:
     ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``."""
@@ -147,6 +184,9 @@ def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
 
 def resolved_map(model: SiteModel) -> list[str]:
     """space -> quantity -> topic, unit, format, as lines for a person."""
+    from thermowarden.rules import provided_inputs, wbgt_bases
+
+    bases = wbgt_bases(model, provided_inputs(model))
     lines: list[str] = []
     by_space: dict[int, list[str]] = {}
     for p in model.points:
@@ -170,6 +210,8 @@ def resolved_map(model: SiteModel) -> list[str]:
         lines.append(f"space {sid} ({', '.join(flags)}): "
                      f"rules {', '.join(model.config.rule_packs(space)) or '-'}")
         lines.extend(by_space.get(i, ["    (no points yet)"]))
+        if space.hot_work:
+            lines.append(f"    WBGT rests on {bases[i].description}")
     for tmpl, spec, _ in model.templates:
         if tmpl.placeholders != {"space"}:
             lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "

@@ -602,10 +602,15 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
     # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
     # with the wick's radiation from the mean radiant temperature (a globe) or, outdoors in
     # the open without one, from the global irradiance and the sun's position (then the
-    # wick's own view of the sun, not the sphere's)
+    # wick's own view of the sun, not the sphere's). Outdoors in full sun a globe can read
+    # more than 70 K above the air, beyond the globe method's range: there the irradiance
+    # method takes over where the site has the sun's position, so that the 60-minute WBGT
+    # does not lose hours of full sun.
     cos_zenith, ghi, direct = sun.cos_zenith, sun.global_w_m2, sun.direct
     mrt_for_wick = np.where(mrt_from_sun, np.nan, mrt)
     with_mrt = np.isfinite(mrt_for_wick)
+    globe_beyond = with_mrt & ~_between(mrt_for_wick - s.air_temperature, -10.0, 70.0)
+    with_mrt = with_mrt & ~(globe_beyond & sun.usable)
     sun_path = ~with_mrt & ~s.indoor & s.solar_load
     est = np.where(with_mrt, heat_stress.natural_wet_bulb_liljegren(
         s.air_temperature, rh, s.air_speed, mrt_for_wick, s.pressure_pa), np.nan)
@@ -641,8 +646,9 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                     "-10..70 K")
     est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
                              "radiation exchanged with the mean radiant temperature (globe), or "
-                             "outdoors without a globe from the global irradiance split into "
-                             "direct and diffuse at the sun's position (Liljegren's code)")
+                             "outdoors without a globe (or with a globe beyond that method's "
+                             "range) from the global irradiance split into direct and diffuse "
+                             "at the sun's position (Liljegren's code)")
     out["natural_wet_bulb_estimated"] = est_col
     tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
 
@@ -670,6 +676,13 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                                                       "°C", heat_stress.REFERENCE_METHOD)
     out["wbgt_reference_unacclimatised"] = m_app.column(
         heat_stress.reference_unacclimatised(m_w), "°C", heat_stress.REFERENCE_METHOD)
+    # the reference of the space's own workers: acclimatised (REL) or not (RAL), as
+    # configured (not acclimatised unless said)
+    out["wbgt_reference"] = m_app.column(
+        np.where(s.acclimatised, out["wbgt_reference_acclimatised"].values,
+                 out["wbgt_reference_unacclimatised"].values), "°C",
+        heat_stress.REFERENCE_METHOD + ", for the space's workers as configured: "
+        "acclimatised (REL) or not (RAL)")
     _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
 
     # ISO 7933 PHS, hot work only; each space in the edition it asks for
@@ -754,7 +767,9 @@ def _wbgt_assessment(twa: FloatArray, w: FloatArray, adjustment_k: FloatArray,
                                                       heat_stress.REFERENCE_METHOD),
         "wbgt_margin_unacclimatised": margin_app.column(
             out["wbgt_reference_unacclimatised"].values - eff, "K",
-            heat_stress.REFERENCE_METHOD)}
+            heat_stress.REFERENCE_METHOD),
+        "wbgt_margin": margin_app.column(out["wbgt_reference"].values - eff, "K",
+                                         out["wbgt_reference"].method)}
     out["wbgt_time_weighted"] = wbgt_tw
     out["wbgt_effective"] = effective
     out.update(margins)

@@ -189,8 +189,9 @@ class Engine:
             # texts rendered in this tick (raises, reminders, refreshes) use its values
             at_j = self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1 else table
             self.health.at(j)
-            book.begin(RowView(env, rows) if k > 1 else env, at_j,
-                       functools.partial(self._text_fields, at_j, now),
+            env_j = RowView(env, rows) if k > 1 else env
+            book.begin(env_j, at_j,
+                       functools.partial(self._text_fields, at_j, now, env_j),
                        self.evaluation.owned)
             if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
@@ -237,7 +238,8 @@ class Engine:
             effects.extend(self.publication.conditions_due(snap, table, snap.now))
         return effects
 
-    def _text_fields(self, table: Mapping[str, IndexColumn], now: float, i: int,
+    def _text_fields(self, table: Mapping[str, IndexColumn], now: float,
+                     env: Mapping[str, Any], i: int,
                      wanted: AbstractSet[str]) -> dict[str, object]:
         """Words for the messages of space ``i`` that are not numbers, those of ``wanted``
         only (the names the rule's templates insert; each costs a pass over points or
@@ -249,9 +251,21 @@ class Engine:
             fields.update(self.health.details(i, self.health.snap))
         if "wbgt_basis" in wanted:
             twa = table.get("wbgt_time_weighted")
-            fields["wbgt_basis"] = (
-                "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
-                else "the spot value (the 60-minute mean is not complete yet)")
+            basis = ("the 60-minute time-weighted mean" if twa is not None
+                     and bool(twa.present[i])
+                     else "the spot value (the 60-minute mean is not complete yet)")
+            est = table.get("natural_wet_bulb_estimated")
+            if est is not None and bool(est.present[i]):
+                mrt = table["mean_radiant_temperature"].values[i]
+                ta = env["air_temperature"][i]
+                by_globe = bool(np.isfinite(mrt)) and not mrt - ta > 70.0
+                basis += ("; natural wet bulb estimated from the globe, air temperature, "
+                          "humidity and air speed (Liljegren et al. 2008)" if by_globe else
+                          "; natural wet bulb estimated (Liljegren et al. 2008) from the solar "
+                          "irradiance and the sun's position"
+                          + (", the globe reading more than 70 K above the air"
+                             if np.isfinite(mrt) else ""))
+            fields["wbgt_basis"] = basis
         if "rules_unknown_detail" in wanted:
             unknown = self.advisories.unknown_detail(i, now)
             if unknown:

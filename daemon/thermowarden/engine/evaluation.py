@@ -544,6 +544,8 @@ def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArr
         present = base["_present"].get(name)
         if present is not None:
             lacking |= ~present
+        elif isinstance(base.get(name), np.ndarray) and base[name].dtype != np.bool_:
+            lacking |= ~np.isfinite(base[name])  # a derived need (wbgt): its value
     lacking |= assumed_only
     acted = rule.acted_on.evaluate_truth(env, n).true if rule.acted_on is not None else None
     return RuleTruths(cond, clear, hold, level_idx, lacking, acted)

@@ -31,6 +31,8 @@ class SpaceInfo:
     hot_work: bool
     ventilation: str
     index: int
+    acclimatised: bool = False
+    """Its workers are configured as acclimatised (the WBGT reference shown is theirs)."""
 
 
 @dataclass(frozen=True)
@@ -46,7 +48,8 @@ class SiteDirectory:
     @classmethod
     def build(cls, config: SiteConfig, max_shelve_s: dict[str, float]) -> SiteDirectory:
         spaces = tuple(SpaceInfo(s.id, s.name or s.id, s.kind, bool(s.hot_work), s.ventilation,
-                                 i) for i, s in enumerate(config.spaces))
+                                 i, bool(config.people(s).acclimatised))
+                       for i, s in enumerate(config.spaces))
         return cls(config.site.id, config.site.name or config.site.id, config.site.timezone,
                    config.output.prefix, spaces, dict(max_shelve_s))
 

@@ -80,7 +80,7 @@ OVERVIEW_VALUES = (
     ("pmv_iso", "PMV (ISO 7730)"),
     ("relative_humidity", "Relative humidity"),
     ("wbgt_effective", "WBGT"),
-    ("wbgt_reference_acclimatised", "WBGT reference (acclimatised)"),
+    ("wbgt_reference", "WBGT reference"),
     ("utci", "UTCI"),
     ("heat_index", "Heat index"),
 )
@@ -98,8 +98,9 @@ SPACE_VALUES = (
     ("wbgt", "WBGT"),
     ("wbgt_time_weighted", "WBGT, 60-minute mean"),
     ("wbgt_effective", "WBGT with clothing adjustment"),
-    ("wbgt_reference_acclimatised", "WBGT reference, acclimatised"),
-    ("wbgt_reference_unacclimatised", "WBGT reference, unacclimatised"),
+    ("wbgt_reference", "WBGT reference"),
+    ("wbgt_reference_acclimatised", "WBGT reference for acclimatised workers"),
+    ("wbgt_reference_unacclimatised", "WBGT reference for workers not acclimatised"),
     ("heat_index", "Heat index"),
     ("humidex", "Humidex"),
     ("utci", "UTCI"),
@@ -230,9 +231,10 @@ def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | No
             for key, label in OVERVIEW_VALUES:
                 item = idx.get(key)
                 if item is None or (item.get("value") is None and key in (
-                        "utci", "heat_index", "wbgt_effective", "wbgt_reference_acclimatised",
-                        "pmv_iso")):
+                        "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
                     continue
+                if key == "wbgt_reference":
+                    label = reference_label(s)
                 rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
             when = (f'as of {local(c["at"], tz)} · '
                     f'{"occupied" if c.get("occupied") else "unoccupied"}')
@@ -248,6 +250,12 @@ def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | No
             f'<dl class="kv">{"".join(rows)}</dl></section>')
     parts.append("</div>")
     return page("Overview", "".join(parts), directory, session, refresh=True, here="/")
+
+
+def reference_label(space: SpaceInfo) -> str:
+    """The WBGT reference of the space's own workers, named as configured."""
+    return ("WBGT reference (acclimatised)" if space.acclimatised
+            else "WBGT reference (not acclimatised)")
 
 
 def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
@@ -345,6 +353,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
             item = c["indices"].get(key)
             if item is None:
                 continue
+            if key == "wbgt_reference":
+                label = reference_label(space)
             rows.append(f'<tr><td>{h(label)}</td><td class="num">{fmt_value(item)}</td>'
                         f'<td class="note">{h(item.get("method", ""))}</td></tr>')
         parts.append('<h2>Conditions now</h2><div class="scroll"><table><thead><tr><th>Index'
