@@ -46,7 +46,7 @@ MEAN_WINDOW_MIN: Final = 60
 QUARTER_HOUR_S: Final = 900.0
 FORESIGHT_COLUMNS: Final = (
     "wbgt_trend", "wbgt_trend_steady", "wbgt_minutes_to_action", "wbgt_minutes_to_limit",
-    "wbgt_minutes_to_ease",
+    "wbgt_minutes_to_action_latest", "wbgt_minutes_to_limit_latest", "wbgt_minutes_to_ease",
     "sun_minutes_to_windows", "sun_mrt_rise_expected", "sun_asymmetry_expected",
     "sky_clearness",
 )
