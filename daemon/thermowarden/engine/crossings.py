@@ -1,10 +1,13 @@
 """Ahead-of-time advisories and the advisories they foresee (a rule's ``foresees``).
 
 When the foreseen advisory of the same space is live at the foreseen priority or higher,
-the ahead-of-time advisory has turned into it: it ends at once with a ``cleared`` event
-whose history entry names the advisory it turned into (``turned_into``), and it is not
-raised again while that advisory stands. Withdrawal (the trend turned, the day clouded
-over) is the ahead-of-time rule's own ``clear`` condition."""
+the ahead-of-time advisory has turned into it: it ends at once, its retained message is
+emptied and its ``cleared`` event is stored with a history entry naming the advisory it
+turned into (``turned_into``), but not sent to the audience: the advisory it turned into is
+the message of that moment (alarm-management practice: every notification carries
+something new). It is not raised again while that advisory stands. Withdrawal (the trend
+turned, the day clouded over) is the ahead-of-time rule's own ``clear`` condition, and is
+sent."""
 
 from __future__ import annotations
 
@@ -15,7 +18,7 @@ import numpy as np
 from thermowarden.config.rule_packs import PRIORITIES
 from thermowarden.core.columns import BoolArray
 from thermowarden.core.lifecycle import State, Trigger
-from thermowarden.effects import Effect
+from thermowarden.effects import Effect, Publish
 from thermowarden.engine.advisories import Advisories, RuleRuntime
 from thermowarden.engine.evaluation import RuleTruths
 
@@ -63,6 +66,22 @@ class Crossings:
             assert reached is not None
             for i in [i for i in ahead.advisories if bool(reached[i])]:
                 into = target.advisories.get(i)
+                ahead_id = ahead.advisories[i].id
+                audience = ahead.rule.config.audience
+                flood = self.book.flood[audience]
+                counted = len(flood)
+                before = len(effects)
                 self.book._apply(ahead, i, Trigger.OFF_DELAY_ELAPSED, now, effects,
                                  extra={"turned_into": into.id if into is not None else None})
                 ahead.pending_since[i] = np.nan
+                sent = [e for e in effects[before:]
+                        if isinstance(e, Publish) and "/events/" in e.topic]
+                if sent:
+                    effects[before:] = [e for e in effects[before:] if e not in sent]
+                    if len(flood) > counted:
+                        flood.pop()  # not sent: not counted against the flood limit
+                else:
+                    held = self.book.suppressed[audience]
+                    if held and held[-1].get("event") == "cleared" \
+                            and held[-1]["advisory"]["id"] == ahead_id:
+                        held.pop()  # held back for a flood summary: not summarised either
