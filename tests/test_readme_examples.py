@@ -47,3 +47,15 @@ def test_clustered_broker_snippet(tmp_path):
     assert config.broker.fallback_urls == ["mqtt://10.0.0.12:1883", "mqtt://10.0.0.13:1883"]
     assert (config.broker.protocol, config.broker.subscribe_qos) == ("3.1.1", 0)
     assert config.output.rule_topic_separator == "/"
+
+
+def test_windows_snippet(tmp_path):
+    (block,) = _blocks("Advice ahead of time")
+    data = {"site": {"id": "readme", "timezone": "Europe/London", "latitude": 52.2,
+                     "longitude": -1.5}, **yaml.safe_load(block)}
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data), encoding="utf-8")
+    (window,) = load_site(path, {}).spaces[0].windows
+    assert (window.facade_azimuth, window.tilt, window.transmittance) == (270, 90, 0.4)
+    assert window.overhang is not None and window.overhang.glazing_height_m == 1.6
+    assert window.shading_point == "larkfield/office-west/blinds"

@@ -16,7 +16,7 @@ from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_pack
 
 def test_every_rule_file_in_the_repo_loads():
     files = sorted((REPO / "rules").glob("*.yaml"))
-    assert len(files) == 9
+    assert len(files) == 10  # ahead.yaml (issue 29) is the tenth
     assert [f.stem for f in files] == builtin_pack_names()
     packs = load_rule_packs(builtin_pack_names())
     for f in files:
@@ -80,7 +80,7 @@ def test_schema_errors_have_positions(tmp_path):
 
 
 def test_unknown_pack_lists_builtins():
-    with pytest.raises(RulePackError, match="built-in packs: comfort"):
+    with pytest.raises(RulePackError, match="built-in packs: ahead, comfort"):
         load_rule_packs(["nonexistent"])
 
 

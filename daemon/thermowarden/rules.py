@@ -26,6 +26,7 @@ from thermowarden.config.positions import Position, SourceMap
 from thermowarden.config.rule_packs import PRIORITIES, RuleConfig, RulePackConfig
 from thermowarden.core import radiation
 from thermowarden.core.expressions import Expression, ExpressionError, Kind, parse_expression
+from thermowarden.core.forecast import FORESIGHT_COLUMNS
 from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.wbgt_basis import WbgtBasis, wbgt_basis
 
@@ -42,7 +43,9 @@ HEALTH: Final = ("stale_points", "stuck_points", "implausible_recent", "max_disa
                  "rules_unknown_long", "points_total", "failed_phs", "failed_indices")
 TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stuck_detail",
                       "implausible_detail", "disagreement_detail", "rules_unknown_detail",
-                      "wbgt_basis", "acted_minutes_ago", "effect_predicted")
+                      "wbgt_basis", "acted_minutes_ago", "effect_predicted",
+                      "wbgt_action_at", "wbgt_limit_at", "wbgt_ease_at", "sun_on_windows_at",
+                      "windows_name")
 """Fields a message may insert besides numbers: names, sensor descriptions, the basis of a
 WBGT, and minutes since the advice was acted on."""
 HEAT_STRESS_CAUTIONS: Final = (
@@ -73,7 +76,7 @@ def index_names() -> tuple[str, ...]:
 def name_table(parameters: Iterable[str] = ()) -> dict[str, Kind]:
     """Every name a rule expression may read, with its kind."""
     names: dict[str, Kind] = {n: "number" for n in index_names()}
-    names.update({n: "number" for n in INPUTS + STATES + HEALTH})
+    names.update({n: "number" for n in INPUTS + STATES + HEALTH + FORESIGHT_COLUMNS})
     names.update({n: "bool" for n in FLAGS})
     for p in parameters:
         names.setdefault(p, "number")
@@ -513,4 +516,5 @@ def rule_applies(rule: RuleConfig, space: object) -> bool:
     a = rule.applies_to
     return ((a.kind is None or a.kind == space.kind)
             and (a.hot_work is None or a.hot_work == space.hot_work)
-            and (a.ventilation is None or a.ventilation == space.ventilation))
+            and (a.ventilation is None or a.ventilation == space.ventilation)
+            and (a.windows is None or a.windows == bool(space.windows)))

@@ -25,6 +25,7 @@ from thermowarden.config.positions import (
 )
 from thermowarden.config.rule_packs import RulePackConfig
 from thermowarden.config.site import SiteConfig
+from thermowarden.config.windows import window_issues
 
 ENV_PREFIX = "THERMOWARDEN_"
 
@@ -230,6 +231,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
         issues.extend(issues_from_validation(exc, smap, env_paths))
         raise ConfigError(issues) from None
     issues.extend(_rule_pack_name_issues(config, smap, p))
+    issues.extend(window_issues(config, smap))
     if issues:
         raise ConfigError(issues)
     return config

@@ -21,6 +21,7 @@ from thermowarden.config.service import (
     RetentionConfig,
     WebConfig,
 )
+from thermowarden.config.windows import WindowConfig
 from thermowarden.core import heat_stress
 
 SLUG = r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$"
@@ -189,6 +190,8 @@ class SpaceConfig(Strict):
     phs_edition: Literal["2023", "2004"] = "2023"
     assume: Assumptions | None = None
     points: list[PointConfig] = Field(default_factory=list)
+    windows: list[WindowConfig] = Field(default_factory=list)
+    """Glazing of the space, for the sun-on-the-facade forecast (config/windows.py)."""
 
     @field_validator("points")
     @classmethod

@@ -39,7 +39,10 @@ from thermowarden.engine.advisories import (
     Advisory,
     RuleRuntime,
 )
+from thermowarden.engine.crossings import Crossings
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
+from thermowarden.engine.foresight import AHEAD_TEXTS, WINDOW_TEXTS, Foresight
+from thermowarden.engine.foresight import text_fields as foresight_texts
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
@@ -48,6 +51,8 @@ from thermowarden.engine.texts import Texts
 from thermowarden.rules import CompiledPack, CompiledRule
 from thermowarden.site_model import SITE, SiteModel
 
+AHEAD_FIELDS: Final = frozenset((*AHEAD_TEXTS, *WINDOW_TEXTS))
+"""Text fields of the ahead-of-time messages (engine/foresight.py)."""
 HEALTH_DETAILS: Final = frozenset({"stale_detail", "stuck_detail", "implausible_detail",
                                    "disagreement_detail"})
 """Text fields :meth:`PointHealth.details` gives."""
@@ -71,9 +76,11 @@ class Engine:
         self.ingest = Ingestor(model, self.state)
         self.health = PointHealth(model, self.state)
         self.evaluation = Evaluation(self.state, self.health)
+        self.evaluation.foresight = Foresight(model, self.state)
         self.publication = Publication(config, model, conditions_every_s)
         self.advisories = Advisories(config, model, packs, self.publication,
                                      Texts(config, model), refresh_s=advisory_refresh_s)
+        self.crossings = Crossings(self.advisories)
         self.sample_every_s = sample_every_s
         self.last_sample = -math.inf
         self.last_table: IndexTable | None = None
@@ -149,6 +156,7 @@ class Engine:
         table = self.evaluation.indices(snap)
         env = self.evaluation.environment(snap, table, self.start)
         book = self.advisories
+        crossings = self.crossings
         times = snap.times.tolist()
         evaluated: list[tuple[RuleRuntime, RuleTruths, list[bool], list[bool]]] = []
         others = [rt for rt in book.rules if rt.rule.pack != "sensor_health"]
@@ -214,8 +222,13 @@ class Engine:
                         continue
                 elif repeats[j] and now < due[id(rt)]:
                     continue  # same conditions as the tick before and no timer due
-                book.step(rt, truths.rows(rows) if k > 1 else truths, now, effects)
+                truths_j = truths.rows(rows) if k > 1 else truths
+                if crossings:
+                    truths_j = crossings.hold(rt, truths_j)
+                book.step(rt, truths_j, now, effects)
                 due[id(rt)] = rt.next_due()
+            if crossings:
+                crossings.settle(now, effects)
             book.flush_summaries(now, effects)
             if sample_due and now - self.last_sample >= self.sample_every_s:
                 self.last_sample = now
@@ -266,6 +279,8 @@ class Engine:
                           + (", the globe reading more than 70 K above the air"
                              if np.isfinite(mrt) else ""))
             fields["wbgt_basis"] = basis
+        if wanted & AHEAD_FIELDS and self.evaluation.foresight is not None:
+            fields.update(foresight_texts(self.evaluation.foresight, i, now, table, wanted))
         if "rules_unknown_detail" in wanted:
             unknown = self.advisories.unknown_detail(i, now)
             if unknown:
