@@ -102,7 +102,7 @@ class Receiver:
                 body = self.rfile.read(int(self.headers.get("Content-Length", "0")))
                 with outer.lock:
                     status = outer.statuses.pop(0) if outer.statuses else 200
-                    outer.requests.append((dict(self.headers.items()), body))
+                    outer.requests.append(({k.lower(): v for k, v in self.headers.items()}, body))
                 if gate is not None:
                     gate.wait(hold_s)  # the receiver's own slowness, not a test's wait
                 with outer.lock:

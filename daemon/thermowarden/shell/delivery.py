@@ -12,10 +12,12 @@ and go out as one digest when they end; low-priority events are collected into a
 every ``low_priority_digest_s``. The waiting count (``thermowarden_delivery_pending``) is
 read from the table when asked.
 
-Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`` (epoch
-seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
-over ``<timestamp>.<body>``, RFC 2104) and ``X-Thermowarden-Delivery`` (the same id on every
-retry, so a receiver can drop repeats). 2xx is delivered; 408, 425, 429 and 5xx and network
+Webhook: ``POST`` of the event JSON signed by the open Standard Webhooks specification
+(standardwebhooks.com; its reference library signs): the headers ``webhook-id`` (the delivery
+id, the same on every retry, so a receiver can drop repeats), ``webhook-timestamp`` (epoch
+seconds) and ``webhook-signature`` (``v1,`` + base64 HMAC-SHA256 of ``<id>.<timestamp>.<body>``
+with the shared secret: a ``whsec_`` secret is base64 as the specification has it, any other
+secret is its UTF-8 bytes). 2xx is delivered; 408, 425, 429 and 5xx and network
 errors are retried; any other status (redirects included) is a permanent failure. E-mail: a
 plain-text message through the SMTP relay (smtplib); 4xx replies and network errors are
 retried, 5xx are not.
@@ -23,10 +25,9 @@ retried, 5xx are not.
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
 import email.utils
-import hashlib
-import hmac
 import json
 import logging
 import pathlib
@@ -59,9 +60,9 @@ log = logging.getLogger("thermowarden.delivery")
 
 SCHEMA = DELIVERIES_SCHEMA
 EVENT_SCHEMA = "thermowarden.event/1"
-SIGNATURE_HEADER = "X-Thermowarden-Signature"
-TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
-DELIVERY_HEADER = "X-Thermowarden-Delivery"
+SIGNATURE_HEADER = "webhook-signature"
+TIMESTAMP_HEADER = "webhook-timestamp"
+DELIVERY_HEADER = "webhook-id"
 RETRY_STATUS = frozenset({408, 425, 429})
 IDLE_WAIT_S = 1.0
 FAILED_KEPT_S = 30 * 86_400.0
@@ -79,15 +80,20 @@ class DeliveryFailed(Exception):
         self.permanent = permanent
 
 
-def sign(secret: bytes, timestamp: str, body: bytes) -> str:
-    """The signature header value: ``sha256=`` + hex HMAC-SHA256 of ``<timestamp>.<body>``."""
-    mac = hmac.new(secret, timestamp.encode("ascii") + b"." + body, hashlib.sha256)
-    return "sha256=" + mac.hexdigest()
+def signing_key(secret: str) -> bytes:
+    """The HMAC key of a shared secret: a ``whsec_<base64>`` secret (the Standard Webhooks
+    form) decoded, any other its UTF-8 bytes."""
+    if secret.startswith("whsec_"):
+        return base64.b64decode(secret.removeprefix("whsec_") + "==")
+    return secret.encode("utf-8")
 
 
-def verify(secret: bytes, timestamp: str, body: bytes, header: str) -> bool:
-    """Check a signature header in constant time (what a receiver does)."""
-    return hmac.compare_digest(sign(secret, timestamp, body), header)
+def sign(secret: str, delivery_id: str, timestamp: int, body: bytes) -> str:
+    """The ``webhook-signature`` header of a delivery (Standard Webhooks, version v1)."""
+    from standardwebhooks.webhooks import Webhook
+
+    when = dt.datetime.fromtimestamp(timestamp, dt.UTC)
+    return Webhook(signing_key(secret)).sign(delivery_id, when, body)
 
 
 def _secret(value: Any, file: str | None) -> str | None:
@@ -116,10 +122,11 @@ def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
     secret = _secret(cfg.secret, cfg.secret_file)
     assert secret is not None  # the configuration requires one
     body = json.dumps(payload, ensure_ascii=False, separators=(",", ":")).encode("utf-8")
-    stamp = str(int(now))
+    stamp = int(now)
     request = urllib.request.Request(cfg.url, data=body, method="POST", headers={
         "Content-Type": "application/json", "User-Agent": "thermowarden",
-        TIMESTAMP_HEADER: stamp, SIGNATURE_HEADER: sign(secret.encode("utf-8"), stamp, body),
+        TIMESTAMP_HEADER: str(stamp),
+        SIGNATURE_HEADER: sign(secret, delivery_id, stamp, body),
         DELIVERY_HEADER: delivery_id})
     try:
         with _OPENER.open(request, timeout=cfg.timeout_s) as response:
