@@ -19,13 +19,13 @@ from __future__ import annotations
 import base64
 import hashlib
 import hmac
-import logging
 import os
 import secrets
 import threading
 import time
 from collections import deque
 from dataclasses import dataclass, field
+from logging import getLogger
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
@@ -33,7 +33,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from thermowarden.config import ConfigError, issues_from_validation, read_yaml_file
 from thermowarden.shell.logs import RateLimiter
 
-log = logging.getLogger("thermowarden.web")
+log = getLogger("thermowarden.web")
 
 SCHEME = "pbkdf2_sha256"
 DEFAULT_ITERATIONS = 600_000
