@@ -6,6 +6,7 @@ from __future__ import annotations
 import base64
 import datetime as dt
 import json
+import logging
 import pathlib
 
 import pytest
@@ -94,6 +95,32 @@ def test_repeated_failures_lock_the_name_for_a_while(tmp_path):
     assert s.sign_in("ana", "pw") is None  # locked, even with the right password
     clock[0] += 301.0
     assert s.sign_in("ana", "pw") is not None
+
+
+def test_failed_sign_ins_and_the_lock_are_logged(tmp_path, caplog):
+    caplog.set_level(logging.INFO, logger="thermowarden.web")
+    s, clock = _sessions(tmp_path)
+    assert s.sign_in("nobody", "guess-1", "192.0.2.7") is None
+    for _ in range(FAILURES_ALLOWED):
+        assert s.sign_in("ana", "guess-2", "192.0.2.8") is None
+    for _ in range(3):
+        assert s.sign_in("ana", "pw", "192.0.2.9") is None  # locked
+    clock[0] += 301.0
+    assert s.sign_in("ana", "pw", "192.0.2.8") is not None
+    lines = [r.getMessage() for r in caplog.records]
+    levels = {r.getMessage(): r.levelname for r in caplog.records}
+    assert lines[0].startswith("web sign-in as 'nobody' from 192.0.2.7 failed: unknown name")
+    failed = [x for x in lines if x.startswith("web sign-in as 'ana' from 192.0.2.8 failed: "
+                                                "wrong password")]
+    assert len(failed) == FAILURES_ALLOWED
+    locked = [x for x in lines if "locked for up to 300 s after 5 failures" in x]
+    assert len(locked) == 1
+    refused = [x for x in lines if "from 192.0.2.9 refused: locked" in x]
+    assert len(refused) == 1  # the first attempt while locked; the others are counted
+    assert lines[-1] == ("web sign-in as 'ana' from 192.0.2.8; 3 attempt(s) were refused "
+                         "while it was locked")
+    assert levels[lines[-1]] == "INFO" and all(levels[x] == "WARNING" for x in failed + locked)
+    assert not any("guess" in x for x in lines)  # never a password
 
 
 def test_live_view_keeps_copies_of_what_was_published():

@@ -1,9 +1,13 @@
 """The web page's HTML: overview, one space, one advisory, sign-in. Plain server-rendered
-HTML with inline CSS and inline SVG charts; every value from outside is escaped here."""
+HTML with inline CSS and inline SVG charts; every value from outside is escaped here. No
+scripts and no style attributes: the Content-Security-Policy (:data:`SECURITY_HEADERS`)
+allows the one stylesheet by its hash."""
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
+import hashlib
 import math
 from html import escape
 from typing import Any
@@ -73,7 +77,25 @@ background:#1f5f8b;color:#fff;cursor:pointer}
 .flash{background:#e8f2e8;border:1px solid #9cc59e;padding:.5rem .7rem;border-radius:.4rem}
 .flash.error{background:#fbeaea;border-color:#d79a9a}
 .cautions li{margin:.2rem 0}
+form.inline{display:inline}
+button.small{padding:.1rem .5rem}
 """
+
+SECURITY_HEADERS: dict[str, str] = {
+    # no scripts, no plug-ins, no frames; only the page's own stylesheet (by its hash),
+    # forms back to this site, and no framing by other sites (clickjacking); the page
+    # keeps working with all of it
+    "Content-Security-Policy": (
+        "default-src 'none'; style-src 'sha256-"
+        + base64.b64encode(hashlib.sha256(CSS.encode("utf-8")).digest()).decode("ascii")
+        + "'; img-src 'self' data:; form-action 'self'; frame-ancestors 'none'; "
+        "base-uri 'none'"),
+    "X-Frame-Options": "DENY",
+    "X-Content-Type-Options": "nosniff",
+    "Referrer-Policy": "same-origin",
+}
+"""Sent with every response of the web page and API (W3C CSP Level 3, including
+``frame-ancestors``; ``X-Frame-Options`` for browsers without it)."""
 
 OVERVIEW_VALUES = (
     ("operative_temperature", "Operative temperature"),
@@ -186,9 +208,9 @@ def state_badge(state: str) -> str:
 
 def page(title: str, body: str, directory: SiteDirectory, session: Session | None,
          refresh: bool = False, here: str = "/") -> str:
-    who = (f'{h(session.user.name)} <form method="post" action="/logout" style="display:inline">'
+    who = (f'{h(session.user.name)} <form method="post" action="/logout" class="inline">'
            f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
-           '<button type="submit" style="padding:.1rem .5rem">Sign out</button></form>'
+           '<button type="submit" class="small">Sign out</button></form>'
            if session else f'<a href="/login?next={quote(here, safe="")}">Sign in</a>')
     flash = ""
     if session and session.flash:
