@@ -32,7 +32,9 @@ spaces:
       - {topic: w/office/rh, quantity: relative_humidity}
       - {topic: w/office/v, quantity: air_speed, interval_s: 10}
       - {topic: w/office/fans, quantity: fan_state, format: state}
-      - {topic: w/office/blinds, quantity: shading_position, format: {type: state, states: {down: 100, up: 0}}}
+      - topic: w/office/blinds
+        quantity: shading_position
+        format: {type: state, states: {down: 100, up: 0}}
 """
 
 
