@@ -291,7 +291,7 @@ def _radiant(s: SpaceInputs, out: IndexTable, sun: Sun, rh: FloatArray
         "short-wave absorptivity 0.7) in the radiation field of Liljegren et al. (2008) (see "
         "mean_radiant_temperature_source)")
     out["mean_radiant_temperature_source"] = app.column(
-        np.where(app.ok, source, 0.0), "category", "where the mean radiant temperature came "
+        np.where(app.ok, source, 0.0), "", "where the mean radiant temperature came "
         "from", MRT_SOURCES)
     globe_app = Applicability(n)
     globe_app.require(~np.isfinite(s.globe_temperature), "measured: globe_temperature sensor "
