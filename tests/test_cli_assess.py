@@ -216,6 +216,9 @@ def test_adaptive_upper_limits_rise_with_air_speed(speed, raised):
     assert out["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62 + raised, abs=0.01)
     assert out["adaptive_ashrae_90_upper"]["value"] == pytest.approx(26.62 + raised, abs=0.01)
     assert out["adaptive_ashrae_80_lower"]["value"] == pytest.approx(20.62, abs=0.01)
+    # EN 16798-1 category II upper limit, raised the same way (pythermalcomfort's
+    # adaptive_en, same inputs: 28.5, 29.7, 30.3, 30.7 °C)
+    assert out["adaptive_en_II_upper"]["value"] == pytest.approx(28.53 + raised, abs=0.01)
     # only above 25 °C operative
     cool = json.loads(run({"air_temperature": 24.0, "mean_radiant_temperature": 24.0,
                            "air_speed": speed, "relative_humidity": 50, "met": 1.1,

@@ -591,12 +591,18 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
                     "adaptive_en_comfort)")
     low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
                     "limit only for a running mean outdoor temperature of 15 °C and above")
+    m_en_up = (m_en + " (raised for elevated air speed above 25 °C operative: +1.2 K from "
+               "0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2, as pythermalcomfort's adaptive_en "
+               "applies them)")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
         out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)
-        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up, "°C", m_en)
+        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up + raised, "°C", m_en_up)
     en_app.require(np.isfinite(operative), "input missing or stale: operative temperature")
-    out["adaptive_en_category"] = en_app.column(adaptive.en_category(operative, theta_c),
-                                                "category", m_en, adaptive.EN_CATEGORY_LABELS)
+    # the category on the warm side against the raised upper limits
+    warm = operative - theta_c
+    effective = np.where(warm > 0.0, theta_c + np.maximum(warm - raised, 0.0), operative)
+    out["adaptive_en_category"] = en_app.column(adaptive.en_category(effective, theta_c),
+                                                "category", m_en_up, adaptive.EN_CATEGORY_LABELS)
 
 
 def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable,
