@@ -226,3 +226,28 @@ def test_the_verdict_follows_the_workers_acclimatisation(acclimatised, verdict):
     assert out["wbgt_reference"]["value"] == pytest.approx(own, abs=0.01)
     assert out["wbgt_margin"]["value"] == pytest.approx(own - out["wbgt_effective"]["value"],
                                                         abs=0.01)
+
+
+@pytest.mark.parametrize("speed, raised", [(0.3, 0.0), (0.6, 1.2), (0.9, 1.8), (1.2, 2.2)])
+def test_adaptive_upper_limits_rise_with_air_speed(speed, raised):
+    """ASHRAE 55-2020 5.4.2.4, Table 5.4.2.4: +1.2 K at 0.6 m/s, +1.8 K at 0.9, +2.2 K at
+    1.2 above 25 °C operative; the values as pythermalcomfort 2.x's adaptive_ashrae gives
+    them (a general reference library, run once: tdb 28, tr 28.5, running mean 20.4 ->
+    upper 80 % limits 27.6, 28.8, 29.4, 29.8 °C)."""
+    means = [20.4] * 7
+    r = run({"air_temperature": 28.0, "mean_radiant_temperature": 28.5, "air_speed": speed,
+             "relative_humidity": 50, "met": 1.1, "clo": 0.5, "naturally_ventilated": True,
+             "outdoor_daily_means": means})
+    out = json.loads(r.stdout)
+    assert out["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62 + raised, abs=0.01)
+    assert out["adaptive_ashrae_90_upper"]["value"] == pytest.approx(26.62 + raised, abs=0.01)
+    assert out["adaptive_ashrae_80_lower"]["value"] == pytest.approx(20.62, abs=0.01)
+    # EN 16798-1 category II upper limit, raised the same way (pythermalcomfort's
+    # adaptive_en, same inputs: 28.5, 29.7, 30.3, 30.7 °C)
+    assert out["adaptive_en_II_upper"]["value"] == pytest.approx(28.53 + raised, abs=0.01)
+    # only above 25 °C operative
+    cool = json.loads(run({"air_temperature": 24.0, "mean_radiant_temperature": 24.0,
+                           "air_speed": speed, "relative_humidity": 50, "met": 1.1,
+                           "clo": 0.5, "naturally_ventilated": True,
+                           "outdoor_daily_means": means}).stdout)
+    assert cool["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62, abs=0.01)

@@ -500,9 +500,11 @@ def missing_inputs(pack: CompiledPack, model: object, space: int,
     for rule in pack.rules:
         if not rule_applies(rule.config, cfg):
             continue
-        missing = sorted(n for n in rule.needs if n not in have)
-        missing += [f"{MEASURED_MARK}{n}" for n in rule.config.measured
-                    if n not in missing and (n not in have or f"{ASSUMED_MARK}{n}" in have)]
+        measured = set(rule.config.measured)
+        missing = [f"{MEASURED_MARK}{n}" if n in measured else n
+                   for n in sorted(rule.needs) if n not in have]
+        missing += [f"{MEASURED_MARK}{n}" for n in sorted(measured)
+                    if n in have and f"{ASSUMED_MARK}{n}" in have]
         if missing:
             out.append((rule.config.id, missing))
     return out

@@ -247,19 +247,19 @@ def _remedy(missing: list[str]) -> str:
     for m in missing:
         q = m.removeprefix(MEASURED_MARK)
         if m.startswith(MEASURED_MARK):
-            parts.append(f"add a {q} point to the space (this rule is about the {q} "
+            parts.append(f"add {_a(q)} {q} point to the space (this rule is about the {q} "
                          "itself: an assumption does not count)")
         elif q in ASSUMABLE_EXAMPLES:
             parts.append(f"add `assume: {{{ASSUMABLE_EXAMPLES[q]}}}` to the space (or "
-                         f"to defaults), or a {q} point")
+                         f"to defaults), or {_a(q)} {q} point")
         elif q.startswith("plane_radiant_temperature_"):
             side = q.removeprefix("plane_radiant_temperature_")
             parts.append(f"add a plane_radiant_temperature (or radiant_flux) point with side: "
                          f"{side} to the space")
         elif q.startswith("outdoor_") or q in ("solar_irradiance", "wind_speed"):
-            parts.append(f"add a {q} point to site.outdoor_points")
+            parts.append(f"add {_a(q)} {q} point to site.outdoor_points")
         else:
-            parts.append(f"add a {q} point to the space")
+            parts.append(f"add {_a(q)} {q} point to the space")
     return "; ".join(parts)
 
 
@@ -310,3 +310,8 @@ def _index_remedy(names: tuple[str, ...], have: set[str]) -> str:
                 continue
             lacking.append(q)
     return _remedy(lacking) if lacking else ""
+
+
+def _a(word: str) -> str:
+    """The indefinite article before ``word`` (a globe_temperature, an air_speed)."""
+    return "an" if word[:1] in "aeiou" else "a"

@@ -3,6 +3,8 @@ what they do not measure let the comfort rules run, and are shown beside the num
 
 from __future__ import annotations
 
+import textwrap
+
 import pytest
 
 from tests.engine.conftest import validate_effects
@@ -206,3 +208,25 @@ def test_an_assumed_humidity_out_of_range_is_refused(tmp_path):
     site.write_text(TEMPERATURE_ONLY.replace("relative_humidity: 50", "relative_humidity: 150"))
     with pytest.raises(ConfigError, match=r"site.yaml:10:\d+: .*relative_humidity"):
         load_site(site, {})
+
+
+def test_check_does_not_warn_about_the_draught_rule_with_a_turbulence_point(tmp_path):
+    """A turbulence-intensity point (per cent, the canonical unit; a fraction is converted)
+    lets the draught rule raise: check must not say it never can."""
+    from thermowarden.site_check import check_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: UTC}
+        defaults: {occupancy: {always: true}, people: {met: 1.2, clo: 0.6}}
+        spaces:
+          - id: desk
+            rule_packs: [draught]
+            points:
+              - {topic: d/ta, quantity: air_temperature}
+              - {topic: d/v, quantity: air_speed}
+              - {topic: d/tu, quantity: turbulence_intensity, unit: fraction}
+        """))
+    report = check_site(str(site))
+    assert report.ok, report.issues
+    assert not [w for w in report.warnings if "draught" in w], report.warnings

@@ -291,7 +291,7 @@ def _radiant(s: SpaceInputs, out: IndexTable, sun: Sun, rh: FloatArray
         "short-wave absorptivity 0.7) in the radiation field of Liljegren et al. (2008) (see "
         "mean_radiant_temperature_source)")
     out["mean_radiant_temperature_source"] = app.column(
-        np.where(app.ok, source, 0.0), "category", "where the mean radiant temperature came "
+        np.where(app.ok, source, 0.0), "", "where the mean radiant temperature came "
         "from", MRT_SOURCES)
     globe_app = Applicability(n)
     globe_app.require(~np.isfinite(s.globe_temperature), "measured: globe_temperature sensor "
@@ -565,9 +565,12 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     t_cmf = adaptive.ashrae_comfort_temperature(tpma)
     m55 = "ASHRAE 55-2020 5.4"
     out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
+    raised = adaptive.ashrae_air_speed_increase(s.air_speed, operative)
+    m55_up = (m55 + " (raised for elevated air speed above 25 °C operative, Table 5.4.2.4: "
+              "+1.2 K from 0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2)")
     for band, half in adaptive.ASHRAE_BANDS_K.items():
         out[f"adaptive_ashrae_{band}_lower"] = a_app.column(t_cmf - half, "°C", m55)
-        out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half, "°C", m55)
+        out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half + raised, "°C", m55_up)
     en_app = Applicability(n)
     en_app.require(s.indoor, "adaptive comfort applies to indoor spaces")
     en_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
@@ -588,12 +591,18 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
                     "adaptive_en_comfort)")
     low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
                     "limit only for a running mean outdoor temperature of 15 °C and above")
+    m_en_up = (m_en + " (raised for elevated air speed above 25 °C operative: +1.2 K from "
+               "0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2, as pythermalcomfort's adaptive_en "
+               "applies them)")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
         out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)
-        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up, "°C", m_en)
+        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up + raised, "°C", m_en_up)
     en_app.require(np.isfinite(operative), "input missing or stale: operative temperature")
-    out["adaptive_en_category"] = en_app.column(adaptive.en_category(operative, theta_c),
-                                                "category", m_en, adaptive.EN_CATEGORY_LABELS)
+    # the category on the warm side against the raised upper limits
+    warm = operative - theta_c
+    effective = np.where(warm > 0.0, theta_c + np.maximum(warm - raised, 0.0), operative)
+    out["adaptive_en_category"] = en_app.column(adaptive.en_category(effective, theta_c),
+                                                "category", m_en_up, adaptive.EN_CATEGORY_LABELS)
 
 
 def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable,
@@ -814,12 +823,14 @@ def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -
     hx.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
     hx.require(_between(s.air_temperature, 20.0, 50.0),
                "humidex applies at air_temperature 20-50 °C")
+    hx.require(out["dew_point"].present, "no dew point (see dew_point)")
     hx.require(~(psy.dew_point(s.air_temperature, rh) > HUMIDEX_MAX_DEW_POINT_C),
                "humidex not given above a dew point of 40 °C (beyond any outdoor dew point "
                "observed: check the humidity sensor)")
-    out["humidex"] = hx.column(outdoor.humidex(s.air_temperature, rh), "1",
-                               "Environment Canada humidex (Masterson and Richardson 1979; "
-                               "vapour pressure from the dew point)")
+    out["humidex"] = hx.column(outdoor.humidex_from_dew_point(s.air_temperature,
+                                                              out["dew_point"].values), "1",
+                               "Environment Canada humidex (Masterson and Richardson 1979) "
+                               "from the dew point given here")
     wind10 = outdoor.wind_at_10m(s.air_speed, s.air_speed_height_m)
     u = Applicability(n)
     u.require(~s.indoor, "UTCI applies to outdoor spaces")

@@ -270,6 +270,8 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
     if "environment" in data:
         env = _choice("environment", data["environment"], ("indoor", "outdoor"))
         given["indoor"] = np.array([env == "indoor"])
+        if "solar_load" not in data:  # as a site's space: outdoors in the sun by default
+            given["solar_load"] = np.array([env == "outdoor"])
     if "posture" in data:
         posture = heat_stress.canonical_posture(data["posture"])
         if posture is None:

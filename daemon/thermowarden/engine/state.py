@@ -16,7 +16,6 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.config.points import PointBase, PointConfig
 from thermowarden.config.service import IngestConfig
 from thermowarden.config.site import OccupancyConfig, SiteConfig
 from thermowarden.core import radiation
@@ -240,37 +239,24 @@ class SiteState:
         people = [cfg.people(s) for s in spaces]
         globe_d = np.full(n, 0.15)
         globe_e = np.full(n, 0.95)
-        for p in self.model.points:
+        for p in self.model.points:  # each point's own globe (not the first on its topic)
             if p.space != SITE and p.quantity == "globe_temperature":
-                cfg_point: PointBase | None = next(
-                    (q for q in spaces[p.space].points if q.topic == p.topic), None)
-                if cfg_point is None:
-                    cfg_point = next((t for t in cfg.templates if t.quantity ==
-                                      "globe_temperature"), None)
-                if cfg_point is not None:
-                    if cfg_point.globe_diameter_m:
-                        globe_d[p.space] = cfg_point.globe_diameter_m
-                    if cfg_point.globe_emissivity:
-                        globe_e[p.space] = cfg_point.globe_emissivity
+                if p.globe_diameter_m:
+                    globe_d[p.space] = p.globe_diameter_m
+                if p.globe_emissivity:
+                    globe_e[p.space] = p.globe_emissivity
         # heights of the air speed sensors (UTCI converts to 10 m): a space's own air_speed
         # point at 1.1 m unless it says height_m; the site's wind_speed at 10 m unless it says
         speed_height = np.full(n, DEFAULT_AIR_SPEED_HEIGHT_M)
         self.wind_height_m = WIND_HEIGHT_M
         for p in self.model.points:
-            if p.quantity not in ("air_speed", "wind_speed"):
-                continue
-            where: list[PointConfig] = (list(cfg.site.outdoor_points) if p.space == SITE
-                                        else list(spaces[p.space].points))
-            found: PointBase | None = next((q for q in where if q.topic == p.topic), None)
-            if found is None and p.space != SITE:
-                found = next((t for t in cfg.templates if t.quantity == p.quantity and
-                              (t.spaces is None or spaces[p.space].id in t.spaces)), None)
-            if found is None or found.height_m is None:
+            # each point's own height (several points may share one topic: a SenML pack)
+            if p.quantity not in ("air_speed", "wind_speed") or p.height_m is None:
                 continue
             if p.space == SITE:
-                self.wind_height_m = found.height_m
+                self.wind_height_m = p.height_m
             else:
-                speed_height[p.space] = found.height_m
+                speed_height[p.space] = p.height_m
         if cfg.site.barometric_pressure_pa is not None:
             pressure = cfg.site.barometric_pressure_pa
         elif cfg.site.altitude_m is not None:

@@ -109,6 +109,8 @@ OVERVIEW_VALUES = (
 SPACE_VALUES = (
     ("operative_temperature", "Operative temperature"),
     ("mean_radiant_temperature", "Mean radiant temperature"),
+    ("mean_radiant_temperature_source", "Mean radiant temperature from"),
+    ("globe_temperature_estimated", "Globe temperature, estimated"),
     ("pmv_iso", "PMV (ISO 7730)"),
     ("ppd_iso", "PPD (ISO 7730)"),
     ("comfort_category_iso", "ISO 7730 category"),
