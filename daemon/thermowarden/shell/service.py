@@ -507,6 +507,10 @@ class Service:
         if m.kind == "sys":
             self._sys(m.topic, m.payload)
             return
+        if m.kind == "oversize":
+            self.last_sensor = self.clock.monotonic()
+            self._rejected(self.engine.oversized(m.topic, m.oversize))
+            return
         if m.kind == "watch":
             if self.group is not None:
                 self._group_step(self.group.receive, m.topic, m.payload)
