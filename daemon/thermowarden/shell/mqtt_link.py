@@ -114,6 +114,8 @@ class Control:
     mid: int = 0
     reason: str = ""
     failed: bool = False
+    topic: str = ""
+    """puback: the topic of the acknowledged (or refused) message, where known."""
 
 
 SensorMessage = tuple[str, bytes, float, bool]
@@ -260,6 +262,9 @@ class MqttLink:
         """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
         broker QoS 0 deliveries do not wait for the streams)."""
         self._sub_topics: dict[int, str] = {}
+        self._pub_topics: dict[int, str] = {}
+        """QoS 1 messages published through :meth:`publish` and not yet acknowledged: the
+        topic of each message id (a refusal names it)."""
         self._retry_subs: set[str] = set()
         """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
 
@@ -413,7 +418,8 @@ class MqttLink:
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
                     properties: Any) -> None:
         failed = bool(getattr(reason, "is_failure", False))
-        self.control.put(Control("puback", mid=mid, reason=str(reason), failed=failed))
+        self.control.put(Control("puback", mid=mid, reason=str(reason), failed=failed,
+                                 topic=self._pub_topics.pop(mid, "")))
 
     # ---------------------------------------------------------------- network thread
     def start(self) -> None:
@@ -560,6 +566,8 @@ class MqttLink:
         info = self.client.publish(topic, body, qos=qos, retain=retain, properties=props)
         if info.rc != mqtt.MQTT_ERR_SUCCESS:
             return None
+        if qos:
+            self._pub_topics[int(info.mid)] = topic
         return int(info.mid)
 
     def stop(self, timeout: float = 5.0) -> None:
