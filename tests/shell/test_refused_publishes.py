@@ -43,8 +43,11 @@ def test_refused_publishes_leave_one_integrator_notice(tmp_path, protocol):
                                                             "allow_anonymous false"))
     broker.start()
     rec = Receiver()
+    # MQTT 5: refused events stay in the outbox and expire after a minute (3.1.1: the
+    # broker acknowledges them, so they leave it)
     site = write_site(tmp_path, prefix, broker.port, ["room-a"],
-                      extra_broker=f'  protocol: "{protocol}"')
+                      extra_broker=f'  protocol: "{protocol}"',
+                      extra="outbox: {max_age_s: 60}\n")
     with open(site, "a", encoding="utf-8") as fh:
         fh.write(f"""\
 delivery:
@@ -85,6 +88,15 @@ delivery:
         watcher.publish(f"{prefix}-in/room-a/ta", "31.5")
         wait_for(lambda: unconfirmed_or_refused() > first + 1, SLOW, "a third refusal")
         assert len(notices()) == 1
+        if protocol == "5":
+            # the refused events expire: one events_expired notice lists them; it and the
+            # first notice never went into the outbox, so neither expires into another
+            wait_for(lambda: any(n["kind"] == "events_expired" for n in notices()),
+                     3 * SLOW, "the events_expired notice")
+            expired = next(n for n in notices() if n["kind"] == "events_expired")
+            validator("event.v1.json").validate(expired)
+            assert expired["count"] >= 1 and len(expired["event_ids"]) == expired["count"]
+            assert notice["event_id"] not in expired["event_ids"]
         assert not watcher.events(prefix)  # nothing got through the broker
     finally:
         watcher.close()
@@ -92,12 +104,15 @@ delivery:
         broker.stop()
         rec.close()
     assert code == 0
-    assert len(notices()) == 1
+    refused_again = [n for n in notices() if n["kind"] == "publishes_refused"]
+    assert len(refused_again) == 1
     (db,) = state.glob("*.sqlite3")
     with sqlite3.connect(db) as conn:
         stored = [json.loads(p) for (p,) in conn.execute("SELECT payload FROM events")]
         outbox = [json.loads(p) for (p,) in conn.execute("SELECT payload FROM outbox")]
     kept = [e for e in stored if e.get("event") == "notice"]
-    assert [e["kind"] for e in kept] == ["publishes_refused"]
+    assert [e["kind"] for e in kept][:1] == ["publishes_refused"]
     assert kept[0]["event_id"] == notice["event_id"]
+    expired_ids = {i for e in kept if e["kind"] == "events_expired" for i in e["event_ids"]}
+    assert not expired_ids & {e["event_id"] for e in kept}  # no notice ever expired
     assert not [e for e in outbox if e.get("event") == "notice"]
