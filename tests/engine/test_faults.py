@@ -302,10 +302,13 @@ def test_shelving_budget_and_conditions_keep_monotonic_time_across_a_step(lab, s
     e = run(lab, 160 + step, 160 + step, **{"room-1": 38})
     assert adv.state.name == "ACTIVE"
     assert ("unshelved", "testpack.levels", "urgent") in events(e)
-    conditions = [x for t in range(170, 400, 10)
-                  for x in run(lab, t + step, t + step, **{"room-1": 38})
-                  if isinstance(x, Publish) and x.topic.endswith("/conditions")]
+    after = [x for t in range(170, 400, 10) for x in run(lab, t + step, t + step,
+                                                          **{"room-1": 38})]
+    conditions = [x for x in after if isinstance(x, Publish) and x.topic.endswith("/conditions")]
     assert len(conditions) >= 2 * 3  # both spaces, at least three times in 230 s
+    # the report samples (every 300 s, the first at t = 0) go on: one at about t = 300
+    samples = [x for x in after if isinstance(x, Persist) and x.kind == "sample"]
+    assert len(samples) == 1 and 290 <= float(samples[0].record["t"]) - step <= 310
     # the budget (max_shelve_s 600 for the urgent level) counts the 60 s used
     reply, _ = command(lab, "shelve", 400 + step, advisory_id=adv.id, by="lead", reason="x",
                        duration_s=600)

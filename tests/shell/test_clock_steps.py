@@ -107,6 +107,11 @@ def test_shelving_and_conditions_through_a_clock_step(tmp_path, system_broker_po
         wait_for(lambda: conditions() >= after + 1, SLOW, "conditions after the shelving")
         ok, parts = service.ready()
         assert ok and parts["conditions"], parts
+        # /readyz: not ready while no conditions go out (as if none had for ten minutes)
+        service.last_conditions_sent -= 600.0
+        ok, parts = service.ready()
+        assert not ok and parts["conditions"] is False, parts
+        wait_for(lambda: service.ready()[0], SLOW, "ready again with the next conditions")
     finally:
         feeding.set()
         feeder.join(10)

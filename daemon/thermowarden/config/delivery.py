@@ -11,7 +11,7 @@ from pydantic import ConfigDict, Field, SecretStr, field_validator, model_valida
 from thermowarden.config.base import Strict
 
 DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
-                         "shelved", "unshelved", "cleared", "summary"]
+                         "shelved", "unshelved", "cleared", "summary", "notice"]
 
 
 class WebhookConfig(Strict):
@@ -65,7 +65,7 @@ class EmailConfig(Strict):
 
 
 def _default_events() -> list[DeliveredEvent]:
-    return ["raised", "escalated", "renotified", "cleared", "summary"]
+    return ["raised", "escalated", "renotified", "cleared", "summary", "notice"]
 
 
 _QUIET = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-3]):([0-5]\d)$")

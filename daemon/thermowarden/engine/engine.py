@@ -129,6 +129,11 @@ class Engine:
             out.append(r)
         return out
 
+    def oversized(self, topic: str, size: int) -> list[Rejection]:
+        """A sensor message dropped unread for its ``size`` (bytes); see
+        :meth:`Ingestor.oversized`."""
+        return [self.ingest.oversized(topic, size)]
+
     # ------------------------------------------------------------------ tick
     def tick(self, now: float) -> list[Effect]:
         """Evaluate every space at ``now`` and return what to publish and store."""

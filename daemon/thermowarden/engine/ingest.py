@@ -157,6 +157,18 @@ class Ingestor:
         self.rejected[(reason, point)] += 1
         return Rejection(reason, point, topic, detail)
 
+    def oversized(self, topic: str, size: int) -> Rejection:
+        """A message of ``size`` bytes (its packet's remaining length) that the shell
+        dropped unread for its size: refused as ``payload_too_large`` against its point (or
+        as an unknown topic), counted like any other."""
+        self.received += 1
+        self.last_points = []
+        route = self._resolve(topic)
+        if isinstance(route, Rejection):
+            return self._reject(route.reason, route.point, topic, route.detail)
+        return self._reject(PAYLOAD_TOO_LARGE, self.model.points[route[0]].key, topic,
+                            f"about {size} bytes > {self.max_bytes} (dropped unread)")
+
     # ---------------------------------------------------------------- the path
     def ingest(self, topic: str, payload: bytes, now: float,
                retained: bool = False) -> list[Rejection]:

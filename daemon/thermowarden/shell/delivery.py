@@ -150,6 +150,16 @@ def _quantity_text(value: Any, unit: Any) -> str:
 
 def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     """(subject, body) of an event or digest for a person."""
+    if payload.get("event") == "notice":
+        # an integrator notice about the service itself (no advisory)
+        kind = str(payload.get("kind", "")).replace("_", " ")
+        lines = [str(payload.get("text", "")), "", f"Notice: {kind}",
+                 f"At: {payload.get('at', '')}"]
+        for key in ("protocol", "topic", "reason", "count"):
+            if payload.get(key) is not None:
+                lines.append(f"{key.capitalize()}: {payload[key]}")
+        lines += ["", "thermowarden is advisory only."]
+        return f"thermowarden notice: {kind}", "\n".join(lines)
     if payload.get("event") == "summary":
         items = payload.get("items", [])
         subject = f"{payload.get('count', len(items))} notification(s) for " \

@@ -199,6 +199,9 @@ class Service:
         self.silence_limit_s = cfg.ingest.silence_limit_s
         self.publishing_ok = True
         """MQTT 3.1.1: False from an event never seen back until the next one is."""
+        self.refusal_episode = False
+        """Publishes are being refused (from the first refusal until :meth:`publishing`
+        holds again): the integrator was told once, at its start."""
         self.last_refusal = -float("inf")
         self.outbox_max = cfg.outbox.max_events
         self.outbox_max_age_s = cfg.outbox.max_age_s
@@ -404,6 +407,7 @@ class Service:
         mono = self.clock.monotonic()
         if self.echo and self.awaiting_echo:
             late = [k for k, (_, deadline) in self.awaiting_echo.items() if mono > deadline]
+            late_seqs = {self.awaiting_echo[k][0] for k in late}
             for k in late:
                 del self.awaiting_echo[k]
                 self.metrics.events_unconfirmed.inc()
@@ -412,6 +416,13 @@ class Service:
                 log.error("%d event(s) acknowledged by the broker never came back on the "
                           "service's own subscription: the broker's ACL may drop them",
                           len(late))
+                topic = next((t for s, t, _ in self.store.outbox() if s in late_seqs), "")
+                self._publish_refused(topic or f"{self._prefix()}/events/#",
+                                      f"not seen back within {ECHO_TIMEOUT_S:g} s of the "
+                                      "broker's acknowledgement")
+        if self.refusal_episode and self.publishing():
+            self.refusal_episode = False
+            log.info("the broker takes what the service publishes again")
         if self.refused and self.link.connected.is_set():
             for seq, topic, payload in self.store.outbox():
                 at = self.refused.get(seq)
@@ -439,10 +450,46 @@ class Service:
                   "text": f"{len(expired)} event(s) could not be delivered to the broker and "
                           "expired from the outbox; check the broker's ACL and connection",
                   "event_ids": gone[:100]}
-        prefix = self.command_prefix.removesuffix("/commands/")
-        self.execute([Publish(f"{prefix}/events/integrator/{NOTICE_TOPIC_SPACE}", notice,
-                              qos=1),
-                      Persist("event", f"notice.events_expired.{int(now)}", notice)])
+        self._notice(notice, now)
+
+    def _prefix(self) -> str:
+        return self.command_prefix.removesuffix("/commands/")
+
+    def _notice(self, notice: dict[str, Any], now: float) -> None:
+        """An integrator notice about the broker refusing or losing what the service
+        publishes: stored with the events, handed to webhook and e-mail delivery where the
+        integrator has it, and published once over MQTT, not through the outbox (so a
+        notice the broker refuses too is not offered again, does not expire into another
+        notice, and starts no loop)."""
+        _identify(notice)
+        with self.store.transaction():
+            self.store.add_event(f"notice.{notice['kind']}.{int(now)}", now, notice)
+        if self.delivery is not None:
+            self.delivery.offer("integrator", notice)
+        topic = f"{self._prefix()}/events/integrator/{NOTICE_TOPIC_SPACE}"
+        self.link.publish(topic, notice, 1, False, user=[("event_id", str(notice["event_id"]))])
+        for observe in self.observers:
+            observe([Publish(topic, notice, qos=1)])
+
+    def _publish_refused(self, topic: str, reason: str) -> None:
+        """A publish was refused (MQTT 5 reason code) or never came back (3.1.1): at the
+        start of an episode of refusals, tell the integrator, once."""
+        if self.refusal_episode:
+            return
+        self.refusal_episode = True
+        now = self.clock.now()
+        protocol = "5" if self.link.v5 else "3.1.1"
+        notice = {"schema": "thermowarden.event/1", "event": "notice", "at": _iso(now),
+                  "audience": "integrator", "kind": "publishes_refused", "count": 1,
+                  "protocol": protocol, "topic": topic[:512], "reason": reason[:200],
+                  "text": f"The broker refuses what the service publishes (first: {topic[:200]}"
+                          f", {reason[:200]}). Events wait in the outbox and expire after "
+                          f"{self.outbox_max_age_s:.0f} s; advisories and conditions may not "
+                          "reach anyone. Check the broker's ACL for the service's user: it "
+                          f"must be allowed to write {self._prefix()}/#."}
+        log.error("publishes refused by the broker (%s, %s): the integrator is notified once "
+                  "for this episode", topic[:200], reason[:200])
+        self._notice(notice, now)
 
     # ------------------------------------------------------------------ the loop
     def _handle_control(self, c: Control) -> None:
@@ -464,6 +511,8 @@ class Service:
             if c.failed:
                 self.metrics.publish_failures.labels(reason=c.reason[:40]).inc()
                 self.last_refusal = self.clock.monotonic()
+                self._publish_refused(c.topic or f"{self._prefix()}/#",
+                                      f"reason code {c.reason}")
                 if seq is not None:
                     self.refused[seq] = self.clock.monotonic()
                 ok, dropped = self.limiter.allow("publish-refused")
@@ -535,6 +584,10 @@ class Service:
             return
         if m.kind == "sys":
             self._sys(m.topic, m.payload)
+            return
+        if m.kind == "oversize":
+            self.last_sensor = self.clock.monotonic()
+            self._rejected(self.engine.oversized(m.topic, m.oversize))
             return
         if m.kind == "watch":
             if self.group is not None:
