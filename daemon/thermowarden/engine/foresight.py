@@ -44,6 +44,7 @@ from dataclasses import dataclass
 from typing import Final
 
 import numpy as np
+import numpy.typing as npt
 
 from thermowarden.config.windows import WindowConfig
 from thermowarden.core import forecast
@@ -142,23 +143,35 @@ class Foresight:
 
     def _wbgt_minute(self, minute: int, action: FloatArray, limit: FloatArray
                      ) -> dict[str, FloatArray]:
-        """The trend and crossings at the start of ``minute`` from the completed minutes."""
+        """The trend and crossings at the start of ``minute`` from the completed minutes,
+        computed for the hot-work spaces only (NaN, and not ready, elsewhere)."""
+        h = np.flatnonzero(self.hot)
+        part = self._wbgt_rows(h, minute, action[h], limit[h])
+        out: dict[str, FloatArray] = {}
+        for name, v in part.items():
+            full = np.full(self.n, 0.0 if name == "ready" else np.nan)
+            full[h] = v
+            out[name] = full
+        return out
+
+    def _wbgt_rows(self, h: npt.NDArray[np.intp], minute: int, action: FloatArray,
+                   limit: FloatArray) -> dict[str, FloatArray]:
         st = self.state
-        n = self.n
+        n = h.size
         window = forecast.MEAN_WINDOW_MIN
         wanted = minute - window + np.arange(window)  # oldest first
         slots = wanted % st.wbgt_minute.shape[1]
-        have = st.wbgt_minute[:, slots] == wanted[None, :]
-        weight = np.where(have, st.wbgt_weight[:, slots], 0.0)
+        have = st.wbgt_minute[np.ix_(h, slots)] == wanted[None, :]
+        weight = np.where(have, st.wbgt_weight[np.ix_(h, slots)], 0.0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            values = np.where(weight > 0, st.wbgt_sum[:, slots] / np.where(weight > 0, weight,
-                                                                         1.0), np.nan)
+            values = np.where(weight > 0, st.wbgt_sum[np.ix_(h, slots)]
+                              / np.where(weight > 0, weight, 1.0), np.nan)
         recent = slice(window - self.window_bins, window)
         centres = (wanted[recent].astype(np.float64) * 60.0 + 30.0)
         tr = forecast.theil_sen(np.broadcast_to(centres, (n, centres.size)), values[:, recent],
                                 at=minute * 60.0, min_points=self.min_points)
         covered = weight.sum(axis=1)
-        ready = self.hot & (covered >= 0.8 * window * 60.0) & np.isfinite(tr.slope)
+        ready = (covered >= 0.8 * window * 60.0) & np.isfinite(tr.slope)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(covered > 0, np.nansum(values * weight, axis=1)
                             / np.where(covered > 0, covered, 1.0), np.nan)
