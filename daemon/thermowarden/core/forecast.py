@@ -136,9 +136,11 @@ def minutes_to_mean(values: FloatArray, weights: FloatArray, level: FloatArray,
     w = np.where(np.isfinite(v) & (w > 0), w, 0.0)
     vw = np.where(w > 0, v, 0.0) * w
     n, m = v.shape
-    level = np.asarray(level, dtype=np.float64)
-    slope = np.asarray(slope, dtype=np.float64)
-    target = np.asarray(target, dtype=np.float64)
+    level = np.broadcast_to(np.asarray(level, dtype=np.float64), (n,))
+    slope = np.broadcast_to(np.asarray(slope, dtype=np.float64), (n,))
+    target = np.broadcast_to(np.asarray(target, dtype=np.float64), (n,))
+    if not (np.isfinite(level) & np.isfinite(slope) & np.isfinite(target)).any():
+        return np.full(n, np.nan)
     steps = np.arange(0, max_minutes + 1)
     # the window after j future minutes: the oldest j minutes gone, j projected minutes in
     drop_vw = np.concatenate([np.zeros((n, 1)), np.cumsum(vw, axis=1)], axis=1)

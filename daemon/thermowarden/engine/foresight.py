@@ -113,32 +113,32 @@ class Foresight:
     # ------------------------------------------------------------------ heat stress
     def begin(self, k: int, table: IndexTable, s: SpaceInputs) -> Callable[[int, float], None]:
         """Start an evaluation of ``k`` ticks; the returned function is called at each tick
-        (index, time) before that tick's spot WBGT is recorded."""
+        (index, time) before that tick's spot WBGT is recorded. The forecast is made once a
+        minute (from the completed minutes) and each tick takes its minute's, less the part
+        of the minute gone (assembled in :meth:`wbgt_columns`)."""
         n = self.n
-        names = ("trend", "steady", "action", "limit", "ease", "action_latest", "limit_latest")
-        self._rows = {name: np.full(k * n, np.nan) for name in names}
-        self._ready = np.zeros(k * n, dtype=bool)
+        self._k = k
+        self._tick_minute = np.zeros(k, dtype=np.int64)
+        self._tick_elapsed = np.zeros(k)
+        self._made: list[dict[str, FloatArray]] = []
         ref_u = table["wbgt_reference_unacclimatised"].values
         ref_a = table["wbgt_reference_acclimatised"].values
         adj = s.clothing_adjustment_k
         if not self.hot.any():
             return lambda j, t: None
+        if self._wbgt:
+            self._made.append(self._wbgt)  # the minute the last evaluation ended in
 
         def at_tick(j: int, t: float) -> None:
-            rows = slice(j * n, (j + 1) * n)
             minute = int(t // 60)
-            if minute != self._minute:
+            if minute != self._minute or not self._made:
+                rows = slice(j * n, (j + 1) * n)
                 self._minute = minute
                 self._wbgt = self._wbgt_minute(minute, ref_u[rows] - adj[rows],
                                                ref_a[rows] - adj[rows])
-            elapsed = (t - minute * 60.0) / 60.0
-            got = self._wbgt
-            for name in names:
-                v = got[name]
-                if name not in ("trend", "steady"):
-                    v = np.where(v > 0, np.maximum(v - elapsed, 0.0), v)
-                self._rows[name][rows] = v
-            self._ready[rows] = got["ready"] > 0
+                self._made.append(self._wbgt)
+            self._tick_minute[j] = len(self._made) - 1
+            self._tick_elapsed[j] = (t - minute * 60.0) / 60.0
         return at_tick
 
     def _wbgt_minute(self, minute: int, action: FloatArray, limit: FloatArray
@@ -198,7 +198,22 @@ class Foresight:
 
     def wbgt_columns(self, hot: BoolArray) -> dict[str, IndexColumn]:
         """The heat-stress columns of the evaluation begun with :meth:`begin`."""
-        rows = self._rows
+        k, n = self._k, self.n
+        names = ("trend", "steady", "action", "limit", "ease", "action_latest", "limit_latest")
+        if self._made:
+            pick = self._tick_minute
+            elapsed = self._tick_elapsed[:, None]
+            rows: dict[str, FloatArray] = {}
+            for name in names:
+                v = np.stack([m[name] for m in self._made])[pick]
+                if name not in ("trend", "steady"):
+                    v = np.where(v > 0, np.maximum(v - elapsed, 0.0), v)
+                rows[name] = v.ravel()
+            ready = (np.stack([m["ready"] for m in self._made])[pick] > 0).ravel()
+        else:
+            rows = {name: np.full(k * n, np.nan) for name in names}
+            ready = np.zeros(k * n, dtype=bool)
+        self._ready = ready
         hot_rows = np.asarray(hot, dtype=bool)
         base = Applicability(hot_rows.size)
         base.require(hot_rows, "only for hot-work spaces")
