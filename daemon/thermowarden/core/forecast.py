@@ -27,7 +27,6 @@ Pure functions over N spaces at once (rows); times in seconds, temperatures in Â
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Final
 
@@ -165,16 +164,14 @@ def minutes_to_mean(values: FloatArray, weights: FloatArray, level: FloatArray,
     hit &= np.isfinite(diff)
     any_hit = hit.any(axis=1)
     j = np.argmax(hit, axis=1)
-    result = np.full(n, np.nan)
-    for r in np.flatnonzero(any_hit & np.isfinite(level) & np.isfinite(slope)
-                            & np.isfinite(target)).tolist():
-        jj = int(j[r])
-        if jj == 0:
-            result[r] = 0.0
-            continue
-        a, b = float(diff[r, jj - 1]), float(diff[r, jj])
-        frac = a / (a - b) if a != b and math.isfinite(a) else 1.0
-        result[r] = jj - 1 + min(max(frac, 0.0), 1.0)
+    valid = any_hit & np.isfinite(level) & np.isfinite(slope) & np.isfinite(target)
+    rows = np.arange(n)
+    b = diff[rows, j]
+    a = diff[rows, np.maximum(j - 1, 0)]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where((a != b) & np.isfinite(a), a / (a - b), 1.0)
+    crossing = np.where(j == 0, 0.0, j - 1 + np.clip(frac, 0.0, 1.0))
+    result: FloatArray = np.where(valid, crossing, np.nan)
     return result
 
 

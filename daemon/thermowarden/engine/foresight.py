@@ -180,16 +180,19 @@ class Foresight:
         out: dict[str, FloatArray] = {
             "trend": np.where(ready, tr.slope * forecast.QUARTER_HOUR_S, np.nan),
             "steady": np.where(ready, tr.steady, np.nan), "ready": ready.astype(np.float64)}
-        for name, target in (("action", action), ("limit", limit)):
+        # the four rising projections in one call: at the rate and at the interval's lower
+        # end, to the action value and to the limit
+        lower0 = np.nan_to_num(lower)
+        at4 = forecast.minutes_to_mean(
+            np.tile(values, (4, 1)), np.tile(weight, (4, 1)), np.tile(tr.level, 4),
+            np.concatenate([slope, slope, lower0, lower0]),
+            np.concatenate([action, limit, action, limit]), rising=True,
+            max_minutes=MAX_MINUTES).reshape(4, n)
+        for q, (name, target) in enumerate((("action", action), ("limit", limit))):
             above = ready & (mean >= target)
-            at_rate = forecast.minutes_to_mean(values, weight, tr.level, slope, target,
-                                               rising=True, max_minutes=MAX_MINUTES)
-            latest = forecast.minutes_to_mean(values, weight, tr.level,
-                                              np.nan_to_num(lower), target, rising=True,
-                                              max_minutes=MAX_MINUTES)
-            out[name] = np.where(above, 0.0, np.where(ready, at_rate, np.nan))
-            out[name + "_latest"] = np.where(above, 0.0, np.where(np.isfinite(lower), latest,
-                                                                   np.nan))
+            out[name] = np.where(above, 0.0, np.where(ready, at4[q], np.nan))
+            out[name + "_latest"] = np.where(above, 0.0, np.where(np.isfinite(lower),
+                                                                   at4[q + 2], np.nan))
         over = np.where(mean >= limit, limit, np.where(mean >= action, action, np.nan))
         ease = forecast.minutes_to_mean(values, weight, tr.level, slope, over, rising=False,
                                         max_minutes=MAX_MINUTES)
