@@ -229,3 +229,19 @@ def test_blinds_lowered_on_the_advice_end_it_as_acted_on(tmp_path: pathlib.Path)
     assert [e[1] for e in ev] == ["raised", "cleared"]
     assert ev[1][0] == pytest.approx(lowered, abs=60)
     assert ev[1][4]["advisory"]["acted_on"] is not None
+
+
+def test_without_the_heat_stress_pack_the_announcement_ends_after_the_crossing(
+        tmp_path: pathlib.Path) -> None:
+    # nothing to turn into: the advisory ends by itself once the 60-minute WBGT is past the
+    # reference by passed_k (0.3 K), with its own message, and is not left standing
+    text = HOT_SITE.replace("rule_packs: [heat_stress, ahead]", "rule_packs: [ahead]")
+    sent: list[dict] = []
+    ev = events(drive(tmp_path, 3600.0 + 8000.0, ramp, text=text, sent=sent))
+    action = [e for e in ev if e[2] == "ahead.wbgt_action"]
+    assert [e[1] for e in action] == ["raised", "cleared"]
+    # past 25.03 + 0.3 °C: 0.3 K at 4 K/h after the crossing at 4527 s, 270 s later
+    assert action[1][0] == pytest.approx(3600 + 4527 + 270, abs=90)
+    assert "turned_into" not in action[1][4]["advisory"]["history"][-1]
+    assert [p["event"] for p in sent if p["advisory"]["rule"] == "ahead.wbgt_action"] == [
+        "raised", "cleared"]
