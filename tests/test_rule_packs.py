@@ -210,27 +210,3 @@ def test_a_message_whose_every_sentence_is_left_out_is_empty():
     assert t.render({"v": 0.31, "s": 26.1}) == "Fans: about 0.31 m/s (SET 26.1 °C)."
     assert t.render({"v": 0.31, "s": float("nan")}) == "Fans: about 0.31 m/s."
     assert t.render({"v": float("nan"), "s": float("nan")}) == ""
-
-
-def test_the_ahead_pack_foresees_rules_that_exist(tmp_path):
-    packs = load_rule_packs(builtin_pack_names())
-    keys = {r.key for p in packs.values() for r in p.rules}
-    for rule in packs["ahead"].rules:
-        f = rule.config.foresees
-        assert f is not None and f.rule in keys, rule.key
-        assert rule.config.heat_stress_cautions == (rule.config.audience == "safety")
-
-
-@pytest.mark.parametrize("foresees,expected", [
-    ("{rule: heat_stress}", "foresees.rule: String should match pattern"),
-    ("{rule: heat_stress.wbgt, priority: severe}", "foresees.priority: Input should be"),
-    ("{rule: heat_stress.wbgt, level: high}", "unknown key 'level'"),
-])
-def test_a_bad_foresees_is_refused_with_its_position(tmp_path, foresees, expected):
-    text = BAD.replace("operative_temprature", "operative_temperature").replace(
-        "    messages:", f"    foresees: {foresees}\n    messages:")
-    d = write_pack(tmp_path, text)
-    with pytest.raises(RulePackError) as exc:
-        load_rule_packs(["custom"], [str(d)])
-    (issue,) = exc.value.issues
-    assert str(issue).startswith(f"{d / 'custom.yaml'}:8:") and expected in str(issue), issue
