@@ -49,17 +49,22 @@ def config_of(tmp: pathlib.Path, text: str) -> tuple[SiteConfig, str]:
     return load_site(site, {}), str(site)
 
 
-def drive(tmp: pathlib.Path, t1: float, wbgt, text: str = HOT_SITE) -> list[dict]:
+def drive(tmp: pathlib.Path, t1: float, wbgt, text: str = HOT_SITE,
+          sent: list[dict] | None = None) -> list[dict]:
     """Replay (the engine as ``thermowarden replay`` runs it) readings every minute from T0
     to T0 + ``t1`` (globe = wet bulb = the WBGT wanted, so WBGT is that value; ``wbgt`` of
-    seconds since T0); returns every event as published."""
+    seconds since T0); returns every event the engine raised (sent or not); ``sent``
+    receives those sent to the audiences."""
     config, base = config_of(tmp, text)
     records = []
     for t in np.arange(0.0, t1, 60.0):
         w = wbgt(float(t))
         for q, v in (("tg", w), ("tnw", w), ("ta", w), ("rh", 40.0), ("v", 0.3)):
             records.append(FeedRecord(T0 + float(t), f"w/floor/{q}", f"{v:.3f}".encode()))
-    return replay(config, records, base=base, full_events=True).events
+    result = replay(config, records, base=base, full_events=True)
+    if sent is not None:
+        sent.extend(result.events)
+    return result.raised_events
 
 
 def events(payloads: list[dict]) -> list[tuple[float, str, str, str, dict]]:
@@ -79,7 +84,8 @@ def ramp(t: float, start: float = 3600.0, top: float = 99.0, base: float = 22.0,
 
 
 def test_a_foreseen_crossing_turns_into_the_alert(tmp_path: pathlib.Path) -> None:
-    ev = events(drive(tmp_path, 3600.0 + 8000.0, ramp))
+    sent: list[dict] = []
+    ev = events(drive(tmp_path, 3600.0 + 8000.0, ramp, sent=sent))
     # By hand: once the ramp fills the whole hour the 60-minute mean lags the spot value by
     # 30 minutes (0.5 h x 4 K/h = 2 K), so it reaches 25.03 °C at 1800 s + (25.03 - 22) x
     # 900 s = 4527 s after the ramp starts
@@ -94,6 +100,10 @@ def test_a_foreseen_crossing_turns_into_the_alert(tmp_path: pathlib.Path) -> Non
     assert cleared[0] == t_cross  # turned into the alert at the same evaluation
     history = cleared[4]["advisory"]["history"]
     assert history[-1]["turned_into"] == crossing[0][4]["advisory"]["id"]
+    # it turned into the alert: stored, not sent (the alert is the message of that moment)
+    sent_ahead = [(p["event"], p["advisory"]["rule"]) for p in sent if "advisory" in p
+                  and p["advisory"]["rule"].startswith("ahead.")]
+    assert sent_ahead == [("raised", "ahead.wbgt_action"), ("raised", "ahead.wbgt_limit")]
     adv = raised[4]["advisory"]
     assert f"will reach the action value of {ACTION_C:.1f} °C in about" in adv["advice"]
     assert "at the present rise of 1.0 K per 15 minutes" in adv["advice"]
@@ -114,7 +124,9 @@ def test_a_foreseen_crossing_turns_into_the_alert(tmp_path: pathlib.Path) -> Non
 def test_a_rise_that_levels_off_below_the_reference_is_withdrawn_once(
         tmp_path: pathlib.Path, seed: int | None) -> None:
     noise = random.Random(seed) if seed is not None else None
-    ev = events(drive(tmp_path, 3600.0 + 3 * 3600.0, lambda t: ramp(t, top=24.5, noise=noise)))
+    sent: list[dict] = []
+    ev = events(drive(tmp_path, 3600.0 + 3 * 3600.0, lambda t: ramp(t, top=24.5, noise=noise),
+                      sent=sent))
     ahead = [e for e in ev if e[2].startswith("ahead.")]
     # while rising at 1 K per 15 minutes the mean is heading for 25.03 °C; once the spot
     # value levels off at 24.5 °C it never gets there: one advisory, one withdrawal
@@ -122,6 +134,9 @@ def test_a_rise_that_levels_off_below_the_reference_is_withdrawn_once(
     assert "turned_into" not in ahead[1][4]["advisory"]["history"][-1]
     assert not [e for e in ev if e[2] == "heat_stress.wbgt" and e[3] in ("high", "urgent")]
     assert ahead[1][0] - ahead[0][0] < 40 * 60  # withdrawn once the trend has turned
+    # the withdrawal is sent: one message
+    assert [p["event"] for p in sent if "advisory" in p
+            and p["advisory"]["rule"].startswith("ahead.")] == ["raised", "cleared"]
 
 
 def test_a_flat_or_falling_wbgt_gets_no_advice_ahead(tmp_path: pathlib.Path) -> None:
@@ -214,3 +229,19 @@ def test_blinds_lowered_on_the_advice_end_it_as_acted_on(tmp_path: pathlib.Path)
     assert [e[1] for e in ev] == ["raised", "cleared"]
     assert ev[1][0] == pytest.approx(lowered, abs=60)
     assert ev[1][4]["advisory"]["acted_on"] is not None
+
+
+def test_without_the_heat_stress_pack_the_announcement_ends_after_the_crossing(
+        tmp_path: pathlib.Path) -> None:
+    # nothing to turn into: the advisory ends by itself once the 60-minute WBGT is past the
+    # reference by passed_k (0.3 K), with its own message, and is not left standing
+    text = HOT_SITE.replace("rule_packs: [heat_stress, ahead]", "rule_packs: [ahead]")
+    sent: list[dict] = []
+    ev = events(drive(tmp_path, 3600.0 + 8000.0, ramp, text=text, sent=sent))
+    action = [e for e in ev if e[2] == "ahead.wbgt_action"]
+    assert [e[1] for e in action] == ["raised", "cleared"]
+    # past 25.03 + 0.3 °C: 0.3 K at 4 K/h after the crossing at 4527 s, 270 s later
+    assert action[1][0] == pytest.approx(3600 + 4527 + 270, abs=90)
+    assert "turned_into" not in action[1][4]["advisory"]["history"][-1]
+    assert [p["event"] for p in sent if p["advisory"]["rule"] == "ahead.wbgt_action"] == [
+        "raised", "cleared"]

@@ -27,7 +27,6 @@ Pure functions over N spaces at once (rows); times in seconds, temperatures in Â
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Final
 
@@ -136,9 +135,11 @@ def minutes_to_mean(values: FloatArray, weights: FloatArray, level: FloatArray,
     w = np.where(np.isfinite(v) & (w > 0), w, 0.0)
     vw = np.where(w > 0, v, 0.0) * w
     n, m = v.shape
-    level = np.asarray(level, dtype=np.float64)
-    slope = np.asarray(slope, dtype=np.float64)
-    target = np.asarray(target, dtype=np.float64)
+    level = np.broadcast_to(np.asarray(level, dtype=np.float64), (n,))
+    slope = np.broadcast_to(np.asarray(slope, dtype=np.float64), (n,))
+    target = np.broadcast_to(np.asarray(target, dtype=np.float64), (n,))
+    if not (np.isfinite(level) & np.isfinite(slope) & np.isfinite(target)).any():
+        return np.full(n, np.nan)
     steps = np.arange(0, max_minutes + 1)
     # the window after j future minutes: the oldest j minutes gone, j projected minutes in
     drop_vw = np.concatenate([np.zeros((n, 1)), np.cumsum(vw, axis=1)], axis=1)
@@ -163,16 +164,14 @@ def minutes_to_mean(values: FloatArray, weights: FloatArray, level: FloatArray,
     hit &= np.isfinite(diff)
     any_hit = hit.any(axis=1)
     j = np.argmax(hit, axis=1)
-    result = np.full(n, np.nan)
-    for r in np.flatnonzero(any_hit & np.isfinite(level) & np.isfinite(slope)
-                            & np.isfinite(target)).tolist():
-        jj = int(j[r])
-        if jj == 0:
-            result[r] = 0.0
-            continue
-        a, b = float(diff[r, jj - 1]), float(diff[r, jj])
-        frac = a / (a - b) if a != b and math.isfinite(a) else 1.0
-        result[r] = jj - 1 + min(max(frac, 0.0), 1.0)
+    valid = any_hit & np.isfinite(level) & np.isfinite(slope) & np.isfinite(target)
+    rows = np.arange(n)
+    b = diff[rows, j]
+    a = diff[rows, np.maximum(j - 1, 0)]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        frac = np.where((a != b) & np.isfinite(a), a / (a - b), 1.0)
+    crossing = np.where(j == 0, 0.0, j - 1 + np.clip(frac, 0.0, 1.0))
+    result: FloatArray = np.where(valid, crossing, np.nan)
     return result
 
 

@@ -44,6 +44,7 @@ from dataclasses import dataclass
 from typing import Final
 
 import numpy as np
+import numpy.typing as npt
 
 from thermowarden.config.windows import WindowConfig
 from thermowarden.core import forecast
@@ -112,53 +113,65 @@ class Foresight:
     # ------------------------------------------------------------------ heat stress
     def begin(self, k: int, table: IndexTable, s: SpaceInputs) -> Callable[[int, float], None]:
         """Start an evaluation of ``k`` ticks; the returned function is called at each tick
-        (index, time) before that tick's spot WBGT is recorded."""
+        (index, time) before that tick's spot WBGT is recorded. The forecast is made once a
+        minute (from the completed minutes) and each tick takes its minute's, less the part
+        of the minute gone (assembled in :meth:`wbgt_columns`)."""
         n = self.n
-        names = ("trend", "steady", "action", "limit", "ease", "action_latest", "limit_latest")
-        self._rows = {name: np.full(k * n, np.nan) for name in names}
-        self._ready = np.zeros(k * n, dtype=bool)
+        self._k = k
+        self._tick_minute = np.zeros(k, dtype=np.int64)
+        self._tick_elapsed = np.zeros(k)
+        self._made: list[dict[str, FloatArray]] = []
         ref_u = table["wbgt_reference_unacclimatised"].values
         ref_a = table["wbgt_reference_acclimatised"].values
         adj = s.clothing_adjustment_k
         if not self.hot.any():
             return lambda j, t: None
+        if self._wbgt:
+            self._made.append(self._wbgt)  # the minute the last evaluation ended in
 
         def at_tick(j: int, t: float) -> None:
-            rows = slice(j * n, (j + 1) * n)
             minute = int(t // 60)
-            if minute != self._minute:
+            if minute != self._minute or not self._made:
+                rows = slice(j * n, (j + 1) * n)
                 self._minute = minute
                 self._wbgt = self._wbgt_minute(minute, ref_u[rows] - adj[rows],
                                                ref_a[rows] - adj[rows])
-            elapsed = (t - minute * 60.0) / 60.0
-            got = self._wbgt
-            for name in names:
-                v = got[name]
-                if name not in ("trend", "steady"):
-                    v = np.where(v > 0, np.maximum(v - elapsed, 0.0), v)
-                self._rows[name][rows] = v
-            self._ready[rows] = got["ready"] > 0
+                self._made.append(self._wbgt)
+            self._tick_minute[j] = len(self._made) - 1
+            self._tick_elapsed[j] = (t - minute * 60.0) / 60.0
         return at_tick
 
     def _wbgt_minute(self, minute: int, action: FloatArray, limit: FloatArray
                      ) -> dict[str, FloatArray]:
-        """The trend and crossings at the start of ``minute`` from the completed minutes."""
+        """The trend and crossings at the start of ``minute`` from the completed minutes,
+        computed for the hot-work spaces only (NaN, and not ready, elsewhere)."""
+        h = np.flatnonzero(self.hot)
+        part = self._wbgt_rows(h, minute, action[h], limit[h])
+        out: dict[str, FloatArray] = {}
+        for name, v in part.items():
+            full = np.full(self.n, 0.0 if name == "ready" else np.nan)
+            full[h] = v
+            out[name] = full
+        return out
+
+    def _wbgt_rows(self, h: npt.NDArray[np.intp], minute: int, action: FloatArray,
+                   limit: FloatArray) -> dict[str, FloatArray]:
         st = self.state
-        n = self.n
+        n = h.size
         window = forecast.MEAN_WINDOW_MIN
         wanted = minute - window + np.arange(window)  # oldest first
         slots = wanted % st.wbgt_minute.shape[1]
-        have = st.wbgt_minute[:, slots] == wanted[None, :]
-        weight = np.where(have, st.wbgt_weight[:, slots], 0.0)
+        have = st.wbgt_minute[np.ix_(h, slots)] == wanted[None, :]
+        weight = np.where(have, st.wbgt_weight[np.ix_(h, slots)], 0.0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            values = np.where(weight > 0, st.wbgt_sum[:, slots] / np.where(weight > 0, weight,
-                                                                         1.0), np.nan)
+            values = np.where(weight > 0, st.wbgt_sum[np.ix_(h, slots)]
+                              / np.where(weight > 0, weight, 1.0), np.nan)
         recent = slice(window - self.window_bins, window)
         centres = (wanted[recent].astype(np.float64) * 60.0 + 30.0)
         tr = forecast.theil_sen(np.broadcast_to(centres, (n, centres.size)), values[:, recent],
                                 at=minute * 60.0, min_points=self.min_points)
         covered = weight.sum(axis=1)
-        ready = self.hot & (covered >= 0.8 * window * 60.0) & np.isfinite(tr.slope)
+        ready = (covered >= 0.8 * window * 60.0) & np.isfinite(tr.slope)
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = np.where(covered > 0, np.nansum(values * weight, axis=1)
                             / np.where(covered > 0, covered, 1.0), np.nan)
@@ -167,16 +180,19 @@ class Foresight:
         out: dict[str, FloatArray] = {
             "trend": np.where(ready, tr.slope * forecast.QUARTER_HOUR_S, np.nan),
             "steady": np.where(ready, tr.steady, np.nan), "ready": ready.astype(np.float64)}
-        for name, target in (("action", action), ("limit", limit)):
+        # the four rising projections in one call: at the rate and at the interval's lower
+        # end, to the action value and to the limit
+        lower0 = np.nan_to_num(lower)
+        at4 = forecast.minutes_to_mean(
+            np.tile(values, (4, 1)), np.tile(weight, (4, 1)), np.tile(tr.level, 4),
+            np.concatenate([slope, slope, lower0, lower0]),
+            np.concatenate([action, limit, action, limit]), rising=True,
+            max_minutes=MAX_MINUTES).reshape(4, n)
+        for q, (name, target) in enumerate((("action", action), ("limit", limit))):
             above = ready & (mean >= target)
-            at_rate = forecast.minutes_to_mean(values, weight, tr.level, slope, target,
-                                               rising=True, max_minutes=MAX_MINUTES)
-            latest = forecast.minutes_to_mean(values, weight, tr.level,
-                                              np.nan_to_num(lower), target, rising=True,
-                                              max_minutes=MAX_MINUTES)
-            out[name] = np.where(above, 0.0, np.where(ready, at_rate, np.nan))
-            out[name + "_latest"] = np.where(above, 0.0, np.where(np.isfinite(lower), latest,
-                                                                   np.nan))
+            out[name] = np.where(above, 0.0, np.where(ready, at4[q], np.nan))
+            out[name + "_latest"] = np.where(above, 0.0, np.where(np.isfinite(lower),
+                                                                   at4[q + 2], np.nan))
         over = np.where(mean >= limit, limit, np.where(mean >= action, action, np.nan))
         ease = forecast.minutes_to_mean(values, weight, tr.level, slope, over, rising=False,
                                         max_minutes=MAX_MINUTES)
@@ -185,7 +201,22 @@ class Foresight:
 
     def wbgt_columns(self, hot: BoolArray) -> dict[str, IndexColumn]:
         """The heat-stress columns of the evaluation begun with :meth:`begin`."""
-        rows = self._rows
+        k, n = self._k, self.n
+        names = ("trend", "steady", "action", "limit", "ease", "action_latest", "limit_latest")
+        if self._made:
+            pick = self._tick_minute
+            elapsed = self._tick_elapsed[:, None]
+            rows: dict[str, FloatArray] = {}
+            for name in names:
+                v = np.stack([m[name] for m in self._made])[pick]
+                if name not in ("trend", "steady"):
+                    v = np.where(v > 0, np.maximum(v - elapsed, 0.0), v)
+                rows[name] = v.ravel()
+            ready = (np.stack([m["ready"] for m in self._made])[pick] > 0).ravel()
+        else:
+            rows = {name: np.full(k * n, np.nan) for name in names}
+            ready = np.zeros(k * n, dtype=bool)
+        self._ready = ready
         hot_rows = np.asarray(hot, dtype=bool)
         base = Applicability(hot_rows.size)
         base.require(hot_rows, "only for hot-work spaces")
