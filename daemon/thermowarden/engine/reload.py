@@ -36,7 +36,7 @@ from thermowarden.engine.engine import Engine
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
-              "shelved_until", "unknown_since", "lower_since", "acted_now")
+              "shelved_until", "unknown_since", "lower_since", "acted_now", "rearm_until")
 _AS_AFTER_RESTART = ("state", "level", "last_notified", "shelved_until")
 
 
@@ -218,6 +218,8 @@ def _move_advisory(new: Engine, ro: RuleRuntime, i: int, rn: RuleRuntime, j: int
     adv = ro.advisories.get(i)
     if i in ro.raised_times:
         rn.raised_times[j] = deque(ro.raised_times[i])
+    if i in ro.trends:
+        rn.trends[j] = deque(ro.trends[i])
     if adv is None:
         return
     moved = dataclasses.replace(adv, space=j)  # the old engine stays intact
