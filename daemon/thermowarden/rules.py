@@ -383,9 +383,9 @@ def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
         easing = CompiledEasing(
             expr(("easing", "quantity"), e.quantity, "number"),
             expr(("easing", "clears_at"), e.clears_at, "number"), e.direction == "down",
-            *(template(("easing", f), getattr(e, f))
-              for f in ("title", "advice", "cleared_title", "cleared_advice")),
-            e.rearm_s, e.rearm_rise)
+            template(("easing", "title"), e.title), template(("easing", "advice"), e.advice),
+            template(("easing", "cleared_title"), e.cleared_title),
+            template(("easing", "cleared_advice"), e.cleared_advice), e.rearm_s, e.rearm_rise)
     used: set[str] = set(rule.needs)
     return CompiledRule(pack, rule, condition, levels, clear, hold_back, acted_on, benefit,
                         tuple(numbers), templates[0], templates[1], templates[2],

@@ -473,7 +473,9 @@ REARM_PACK = PACK.replace('''    clear: air_temperature < 32
       rearm_s: 3600
       rearm_rise: 1.0
       title: "Easing in {space_name}"
-      advice: "Now {air_temperature:.1f} °C. At the present trend it clears in about {clear_in_min:.0f} min."
+      advice: >-
+        Now {air_temperature:.1f} °C. At the present trend it clears in about
+        {clear_in_min:.0f} min.
       cleared_title: "Cleared in {space_name} at {air_temperature:.1f} °C"
       cleared_advice: "Cleared at {air_temperature:.1f} °C."''')
 
