@@ -277,3 +277,21 @@ def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
             assert "reference (acclimatised)" not in html
             assert "(acclimatised)" not in html
 
+
+def test_advice_naming_two_methods_says_which_governs(tmp_path):
+    """The urgent advice says stop or postpone heavy work (WBGT screening, ISO 7243) and
+    quotes the ISO 7933 PHS durations: it says that the screening governs and that the PHS
+    minutes are no allowance, never "allows" beside "stop"."""
+    engine = site_engine(tmp_path, acclimatised=False)
+    run = drive(engine, PROFILE, 150, space_ids=("shop",))
+    evs = events_of(run, "shop")
+    urgent = next(p["advisory"] for _, p in evs if p["advisory"]["priority"] == "urgent")
+    high = next(p["advisory"] for _, p in evs if p["advisory"]["priority"] == "high")
+    assert urgent["numbers"]["phs_limit_rectal"]["value"] is not None  # PHS is quoted
+    for adv in (urgent, high):
+        advice = adv["advice"]
+        assert "allows" not in advice
+        assert "The WBGT screening (ISO 7243) governs" in advice
+        assert "ISO 7933 PHS, the detailed model ISO 7243 refers to" in advice
+    assert "stop or postpone heavy work" in urgent["advice"]
+    assert "does not lift the WBGT limit" in urgent["advice"]
