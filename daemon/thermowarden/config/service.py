@@ -29,6 +29,8 @@ class EvaluationConfig(Strict):
     tick_s: float = Field(10.0, ge=0.5, le=3600)
     flood_limit: int = Field(10, ge=1, le=100_000)
     flood_window_s: float = Field(600.0, ge=10, le=86_400)
+    flood_summary_interval_s: float = Field(600.0, ge=10, le=86_400)
+    """One summary per audience and flood, updated at most this often."""
 
 
 class RetentionConfig(Strict):

@@ -46,7 +46,6 @@ from thermowarden.site_model import SiteModel
 
 UNKNOWN_LONG_S: Final = 1800.0
 """A rule unknown this long in a space (an input it needs missing) counts for sensor health."""
-SUMMARY_INTERVAL_S: Final = 60.0
 CHATTER_WINDOW_S: Final = 3600.0
 CHATTER_COUNT: Final = 3
 """Raised this often within ``CHATTER_WINDOW_S``: the advisory is chattering."""
@@ -308,6 +307,10 @@ class Advisories:
         self.flood: dict[str, deque[float]] = {a: deque() for a in AUDIENCES}
         self.suppressed: dict[str, list[dict[str, Any]]] = {a: [] for a in AUDIENCES}
         self.last_summary: dict[str, float] = dict.fromkeys(AUDIENCES, -math.inf)
+        self.summary_interval_s = config.evaluation.flood_summary_interval_s
+        self.episode: dict[str, dict[str, Any] | None] = dict.fromkeys(AUDIENCES)
+        """Per audience, the flood in progress: its id, since when, the summary updates
+        sent and the notifications held back in it (None: no flood)."""
         self.raised_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
         self.cleared_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
         self.last_refresh = -math.inf
@@ -838,30 +841,66 @@ class Advisories:
         effects.append(self._published(adv))
         effects.append(self._persist(adv))
         effects.append(Persist("event", adv.id, payload))
-        window = self.flood[adv.audience]
-        while window and window[0] < now - self.flood_window_s:
-            window.popleft()
-        if len(window) >= self.flood_limit and adv.priority != "urgent":
+        window = self._window(adv.audience, now)
+        # the last place in the window is kept for the flood's summary, so that with it no
+        # audience gets more than flood_limit notifications in any flood_window_s (urgent
+        # ones always go out at once)
+        if len(window) >= self.flood_limit - 1 and adv.priority != "urgent":
             self.suppressed[adv.audience].append(payload)
             return
         window.append(now)
         effects.append(self.pub.event_publish(adv, payload))
 
+    def _window(self, audience: str, now: float) -> deque[float]:
+        """The audience's notification times within the last ``flood_window_s``."""
+        window = self.flood[audience]
+        while window and window[0] < now - self.flood_window_s:
+            window.popleft()
+        return window
+
     def flush_summaries(self, now: float, effects: list[Effect]) -> None:
-        """Events held back by the flood limit go out as one summary per audience."""
+        """Notifications held back by the flood limit go out as one summary per audience
+        and flood, updated (with what was held back since) at most every
+        ``flood_summary_interval_s`` and only where the flood window has room for it; a
+        flood ends when an interval has passed after its last update with nothing held."""
         for audience, held in self.suppressed.items():
-            if not held or now - self.last_summary[audience] < SUMMARY_INTERVAL_S:
+            episode = self.episode[audience]
+            if not held:
+                if episode is not None and \
+                        now - self.last_summary[audience] >= self.summary_interval_s:
+                    self.episode[audience] = None  # the flood is over
                 continue
+            if now - self.last_summary[audience] < self.summary_interval_s:
+                continue
+            window = self._window(audience, now)
+            if len(window) >= self.flood_limit:
+                continue
+            if episode is None:
+                episode = {"id": f"{self.config.site.id}.flood.{audience}.{int(now)}",
+                           "since": held[0]["at"], "update": 0, "held_total": 0}
+                self.episode[audience] = episode
+            episode["update"] += 1
+            episode["held_total"] += len(held)
             self.last_summary[audience] = now
+            window.append(now)
             items = [{"event": p["event"], "advisory_id": p["advisory"]["id"],
                       "space": p["advisory"]["space"]["id"], "rule": p["advisory"]["rule"],
                       "priority": p["advisory"]["priority"], "title": p["advisory"]["title"],
                       "at": p["at"]} for p in held]
+            every = self.summary_interval_s / 60
             payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
                        "audience": audience, "count": len(items), "items": items,
-                       "note": f"more than {self.flood_limit} notifications in "
-                               f"{self.flood_window_s / 60:g} minutes to {audience}; "
-                               "summarised in one message"}
+                       "flood": {"episode": episode["id"], "since": episode["since"],
+                                 "update": episode["update"],
+                                 "held_total": episode["held_total"],
+                                 "next_update_after": iso(now + self.summary_interval_s)},
+                       "note": f"a flood of notifications to {audience} (more than "
+                               f"{self.flood_limit - 1} in {self.flood_window_s / 60:g} "
+                               f"minutes): {len(items)} held back since the last update, "
+                               f"{episode['held_total']} since {episode['since']}; this "
+                               f"summary is update {episode['update']} of one per flood, "
+                               f"updated at most every {every:g} minutes while it lasts; "
+                               "urgent notifications always go out at once"}
             self.suppressed[audience] = []
             payload["event_id"] = f"{self.config.site.id}.summary.{audience}.{now:.3f}"
             effects.extend(self.pub.site_event(audience, payload,

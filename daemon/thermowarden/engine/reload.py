@@ -104,6 +104,7 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
     an.flood = {a: deque(v) for a, v in ao.flood.items()}
     an.suppressed = {a: list(v) for a, v in ao.suppressed.items()}
     an.last_summary = dict(ao.last_summary)
+    an.episode = {a: (dict(v) if v is not None else None) for a, v in ao.episode.items()}
     an.raised_count = dict(ao.raised_count)
     an.cleared_count = dict(ao.cleared_count)
     an.last_refresh = ao.last_refresh
