@@ -267,3 +267,22 @@ def test_check_says_what_each_hot_work_wbgt_rests_on_and_warns_where_nothing(tmp
     assert "heat_stress to its rule_packs" in loud["space unpacked"]
     assert "work_class" in loud["space unpacked"]
     assert not any("needs wbgt" in w for w in warnings)
+
+
+def test_texts_people_read_carry_no_development_notes():
+    """Every message of the built-in packs (titles, advice, rationale, level and easing
+    texts) names its source or says common practice; none carries a note about how it was
+    written ("from memory", "recalled", "decision", "TODO")."""
+    import re
+
+    packs = load_rule_packs(builtin_pack_names())
+    notes = re.compile(r"from memory|recalled|\bdecision\b|TODO|FIXME|no copy", re.I)
+    for pack in packs.values():
+        for rule in pack.rules:
+            for template in rule.templates:
+                assert not notes.search(template.text), (rule.key, template.text)
+    outdoor = packs["outdoor_heat"].rules[0]
+    assert "National Weather Service heat-index chart" in outdoor.rationale.text
+    assert "UTCI assessment scale" in outdoor.rationale.text
+    for rule in packs["humidity"].rules:
+        assert "common practice" in rule.rationale.text
