@@ -267,3 +267,40 @@ def test_check_says_what_each_hot_work_wbgt_rests_on_and_warns_where_nothing(tmp
     assert "heat_stress to its rule_packs" in loud["space unpacked"]
     assert "work_class" in loud["space unpacked"]
     assert not any("needs wbgt" in w for w in warnings)
+
+
+def test_texts_people_read_carry_no_development_notes():
+    """Every message of the built-in packs (titles, advice, rationale, level and easing
+    texts) names its source or says common practice; none carries a note about how it was
+    written ("from memory", "recalled", "decision", "TODO")."""
+    import re
+
+    packs = load_rule_packs(builtin_pack_names())
+    notes = re.compile(r"from memory|recalled|\bdecision\b|TODO|FIXME|no copy", re.I)
+    for pack in packs.values():
+        for rule in pack.rules:
+            for template in rule.templates:
+                assert not notes.search(template.text), (rule.key, template.text)
+    outdoor = packs["outdoor_heat"].rules[0]
+    assert "National Weather Service heat-index chart" in outdoor.rationale.text
+    assert "UTCI assessment scale" in outdoor.rationale.text
+    for rule in packs["humidity"].rules:
+        assert "common practice" in rule.rationale.text
+
+
+def test_an_outdoor_hot_work_space_without_a_globe_has_a_wbgt_where_the_site_has_the_sun():
+    """Outdoors with solar load, the site's position and a pyranometer give an estimated
+    globe and natural wet bulb (Liljegren et al. 2008), so the heat-stress rule applies;
+    indoors, or without the sun, a globe is still needed (ISO 7243)."""
+    from thermowarden.wbgt_basis import wbgt_basis
+
+    have = {"air_temperature", "relative_humidity", "air_speed"}
+    sunny = wbgt_basis(have, outdoor=True, solar_load=True, site_has_sun=True)
+    assert sunny.known and "solar irradiance" in sunny.description
+    no_sun = wbgt_basis(have, outdoor=True, solar_load=True, site_has_sun=False)
+    assert not no_sun.known and any("latitude" in a for a in no_sun.to_add)
+    indoors = wbgt_basis(have, outdoor=False, solar_load=False, site_has_sun=True)
+    assert not indoors.known and "globe_temperature" in indoors.to_add[0]
+    lacking = wbgt_basis({"air_temperature"}, outdoor=True, solar_load=True,
+                         site_has_sun=True)
+    assert not lacking.known and "from the sun" in lacking.to_add[-1]

@@ -45,7 +45,7 @@ TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stu
                       "implausible_detail", "disagreement_detail", "rules_unknown_detail",
                       "wbgt_basis", "acted_minutes_ago", "effect_predicted",
                       "wbgt_action_at", "wbgt_limit_at", "wbgt_ease_at", "sun_on_windows_at",
-                      "windows_name")
+                      "windows_name", "clear_in_min")
 """Fields a message may insert besides numbers: names, sensor descriptions, the basis of a
 WBGT, and minutes since the advice was acted on."""
 HEAT_STRESS_CAUTIONS: Final = (
@@ -165,6 +165,22 @@ _SPACE_BEFORE_PUNCTUATION: Final = re.compile(r"\s+([,;.)])")
 
 
 @dataclass(frozen=True)
+class CompiledEasing:
+    """A rule's easing (see :class:`thermowarden.config.rule_packs.RuleEasing`), compiled."""
+
+    quantity: Expression
+    clears_at: Expression
+    falling: bool
+    """The quantity falls as the hazard eases (``direction: down``)."""
+    title: MessageTemplate
+    advice: MessageTemplate
+    cleared_title: MessageTemplate
+    cleared_advice: MessageTemplate
+    rearm_s: float
+    rearm_rise: float
+
+
+@dataclass(frozen=True)
 class CompiledRule:
     """A rule ready to evaluate on arrays."""
 
@@ -186,6 +202,14 @@ class CompiledRule:
     """priority index -> (title, advice) of that level, where the level has its own."""
     no_effect: MessageTemplate | None = None
     effect_quantity: Expression | None = None
+    level_leave: Mapping[int, Expression] = dataclasses.field(default_factory=dict)
+    """priority index -> the condition for lowering the advisory below that level."""
+    easing: CompiledEasing | None = None
+
+    @property
+    def lowest_level(self) -> int:
+        """The priority index of the lowest level (the base priority without levels)."""
+        return self.levels[0][0] if self.levels else self.base_priority
 
     @property
     def key(self) -> str:
@@ -204,23 +228,28 @@ class CompiledRule:
         return self.config.renotify_s
 
     @functools.cached_property
-    def template_names(self) -> frozenset[str]:
-        """Names the message templates insert."""
+    def templates(self) -> tuple[MessageTemplate, ...]:
+        """Every message template of the rule."""
         templates = [self.title, self.advice, self.rationale]
         templates += [t for pair in self.level_texts.values() for t in pair if t is not None]
         if self.no_effect is not None:
             templates.append(self.no_effect)
-        return frozenset(name for t in templates for name, _ in t.fields)
+        if self.easing is not None:
+            e = self.easing
+            templates += [e.title, e.advice, e.cleared_title, e.cleared_advice]
+        return tuple(templates)
+
+    @functools.cached_property
+    def template_names(self) -> frozenset[str]:
+        """Names the message templates insert."""
+        return frozenset(name for t in self.templates for name, _ in t.fields)
 
     @functools.cached_property
     def render_names(self) -> frozenset[str]:
         """Every name rendering the advisory reads: the names the templates insert, the
         numbers and their thresholds, the benefit and the ``when`` conditions of the
         templates."""
-        templates = [self.title, self.advice, self.rationale]
-        templates += [t for pair in self.level_texts.values() for t in pair if t is not None]
-        if self.no_effect is not None:
-            templates.append(self.no_effect)
+        templates = self.templates
         names = set(self.template_names)
         for name, threshold in self.numbers:
             names.add(name)
@@ -348,10 +377,23 @@ def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
     for n in rule.needs:
         if n not in names:
             expr(("needs",), n, "number")
+    level_leave = {PRIORITIES.index(lv.priority): expr(("levels", i, "leave_when"),
+                                                        lv.leave_when, "bool")
+                   for i, lv in enumerate(rule.levels) if lv.leave_when}
+    easing = None
+    if rule.easing is not None:
+        e = rule.easing
+        easing = CompiledEasing(
+            expr(("easing", "quantity"), e.quantity, "number"),
+            expr(("easing", "clears_at"), e.clears_at, "number"), e.direction == "down",
+            template(("easing", "title"), e.title), template(("easing", "advice"), e.advice),
+            template(("easing", "cleared_title"), e.cleared_title),
+            template(("easing", "cleared_advice"), e.cleared_advice), e.rearm_s, e.rearm_rise)
     used: set[str] = set(rule.needs)
     return CompiledRule(pack, rule, condition, levels, clear, hold_back, acted_on, benefit,
                         tuple(numbers), templates[0], templates[1], templates[2],
-                        frozenset(used), level_texts, no_effect, effect_quantity)
+                        frozenset(used), level_texts, no_effect, effect_quantity,
+                        level_leave, easing)
 
 
 def compile_pack(config: RulePackConfig, smap: SourceMap | None, source: str) -> CompiledPack:

@@ -6,7 +6,10 @@ needed. The natural wet bulb is measured (a ``natural_wet_bulb`` point) or estim
 Liljegren et al. (2008) energy balance of the wetted wick from the air temperature, humidity
 and air speed, with the wick's radiation from the globe's mean radiant temperature (ISO 7726
 Annex B needs the air speed for that too), or outdoors in full sun, where the globe reads
-more than 70 K above the air, from the global irradiance and the sun's position.
+more than 70 K above the air, from the global irradiance and the sun's position. Outdoors
+with solar load at a site that gives the sun's position and a ``solar_irradiance`` point,
+a space without a globe has one estimated in the same radiation field (Liljegren et al.
+2008), and its natural wet bulb from the irradiance.
 
 The heat-stress rule ``needs: [wbgt]``: it applies wherever a WBGT can be known, whichever
 sensor gives it. ``thermowarden check`` prints, per hot-work space, the basis found here
@@ -47,21 +50,33 @@ def wbgt_basis(have: AbstractSet[str], outdoor: bool, solar_load: bool,
     outdoors and with solar load, and whether the site gives the sun's position
     (``latitude``, ``longitude``) and a ``solar_irradiance`` point."""
     to_add: list[str] = []
-    if "globe_temperature" not in have:
-        to_add.append("a globe_temperature point (the black globe of ISO 7243)")
+    globe_by_sun = ("globe_temperature" not in have and outdoor and solar_load
+                    and site_has_sun)
+    if "globe_temperature" not in have and not globe_by_sun:
+        to_add.append("a globe_temperature point (the black globe of ISO 7243)"
+                      + (", or the site's latitude, longitude and a solar_irradiance point "
+                         "(outdoors in the sun the globe is then estimated)"
+                         if outdoor and solar_load else ""))
     if solar_load and "air_temperature" not in have:
         to_add.append("an air_temperature point (WBGT with solar load, ISO 7243 eq. 2)")
     if "natural_wet_bulb" in have:
         nwb = "measured"
-        how = "a measured natural wet bulb and the globe"
+        how = ("a measured natural wet bulb and a black globe estimated from the sun"
+               if globe_by_sun else "a measured natural wet bulb and the globe")
     else:
         lacking = [q for q in ESTIMATE_INPUTS if q not in have]
         if lacking:
             nwb = "none"
             how = "no natural wet bulb"
             to_add.append(
-                "a natural_wet_bulb point, or for the estimate from the globe "
+                "a natural_wet_bulb point, or for the estimate "
+                + ("from the sun " if globe_by_sun else "from the globe ")
                 + " and ".join(_point_or_assume(q) for q in lacking))
+        elif globe_by_sun:
+            nwb = "estimated"
+            how = ("a black globe and a natural wet bulb estimated from the solar irradiance "
+                   "and the sun's position with the air temperature, humidity and air speed "
+                   "(Liljegren et al. 2008; no globe measured)")
         else:
             nwb = "estimated"
             how = ("the globe and a natural wet bulb estimated from the globe, air "

@@ -77,6 +77,8 @@ def test_heat_stress_levels_have_their_own_advice(day):
     for e in day.events:
         if e["event"] != "summary" and e["advisory"]["rule"] == "heat_stress.wbgt":
             adv = e["advisory"]
+            if adv["title"].startswith(("Heat stress easing", "Heat stress cleared")):
+                continue  # (the easing and cleared texts are the same at every level)
             by_priority.setdefault(adv["priority"], set()).add(adv["advice"].split(":")[0])
     assert {"medium", "high", "urgent"} <= set(by_priority), by_priority
     firsts = [next(iter(v)) for v in by_priority.values()]

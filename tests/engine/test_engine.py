@@ -178,8 +178,8 @@ def test_chattering_is_flagged_and_held(lab):
 
 
 def test_flood_is_summarised(tmp_path):
-    """ISA-18.2 practice: more than 10 notifications in 10 minutes to one audience are
-    summarised in one message; urgent ones always go out on their own."""
+    """ISA-18.2 practice: no more than 10 notifications in 10 minutes to one audience, the
+    flood's summary included; urgent ones always go out on their own."""
     from tests.engine.conftest import PACK
     from thermowarden.config import load_site
     from thermowarden.engine import Engine
@@ -208,11 +208,13 @@ def test_flood_is_summarised(tmp_path):
     sent = [x.payload for x in effects if isinstance(x, Publish) and "/events/" in x.topic]
     individual = [p for p in sent if p["event"] != "summary"]
     summaries = [p for p in sent if p["event"] == "summary"]
-    assert len(individual) == 10
-    assert len(summaries) == 1 and summaries[0]["count"] == 4
+    # nine go out on their own, the tenth place in the window is the flood's summary
+    assert len(individual) == 9
+    assert len(summaries) == 1 and summaries[0]["count"] == 5
     assert summaries[0]["audience"] == "facilities"
+    assert summaries[0]["flood"]["update"] == 1
     held = {i["space"] for i in summaries[0]["items"]}
-    assert len(held) == 4
+    assert len(held) == 5
     # every event is still stored
     stored = [x for x in effects if isinstance(x, Persist) and x.kind == "event"]
     assert len(stored) == 15
@@ -445,3 +447,57 @@ def test_no_effect_waits_while_a_reading_is_missing(lab):
     back = _hot_events(_blinds_and_air(lab, 2510, 2520, 31.2))
     assert [(p["event"], p["at"]) for p in back] == [("no_effect", "1970-01-01T00:41:50Z")]
     assert back[0]["advisory"]["numbers"]["air_temperature"]["value"] == 31.2
+
+
+def test_levels_follow_the_numbers_down_below_the_lowest_band(lab):
+    """Between the clear threshold and the lowest band no level's condition holds: the
+    advisory still comes down (to its lowest level, after the 5-minute hold) and then
+    clears; it does not stand at the level of numbers long gone."""
+    lv = "testpack.levels"
+    e = run(lab, 0, 20, **{"room-2": 38})
+    assert events(e, "room-2", lv) == [("raised", lv, "urgent")]
+    e = run(lab, 30, 320, **{"room-2": 32.5})  # below medium's 33, above the clear's 32
+    assert events(e, "room-2", lv) == []
+    e = run(lab, 330, 340, **{"room-2": 32.5})
+    assert events(e, "room-2", lv) == [("deescalated", lv, "medium")]
+    e = run(lab, 350, 500, **{"room-2": 31})
+    assert events(e, "room-2", lv) == [("cleared", lv, "medium")]
+
+
+REARM_PACK = PACK.replace('''    clear: air_temperature < 32
+    off_delay_s: 60
+    max_shelve_s: 600''', '''    clear: air_temperature < 32
+    off_delay_s: 60
+    max_shelve_s: 600
+    easing:
+      quantity: air_temperature
+      clears_at: "32"
+      rearm_s: 3600
+      rearm_rise: 1.0
+      title: "Easing in {space_name}"
+      advice: >-
+        Now {air_temperature:.1f} °C. At the present trend it clears in about
+        {clear_in_min:.0f} min.
+      cleared_title: "Cleared in {space_name} at {air_temperature:.1f} °C"
+      cleared_advice: "Cleared at {air_temperature:.1f} °C."''')
+
+
+def test_after_a_clearing_the_lowest_level_waits_for_a_rise(tmp_path):
+    """For rearm_s after a clearing, a sensor flickering across the lowest band while the
+    space is cooling does not raise the lowest level again; a steady rise does."""
+    lab = lab_engine(tmp_path, REARM_PACK)
+    lv = "testpack.levels"
+    run(lab, 0, 20, **{"room-2": 34})
+    e = run(lab, 30, 200, **{"room-2": 31.9})
+    assert events(e, "room-2", lv) == [("cleared", lv, "medium")]
+    cleared = next(p for p in (x.payload for x in e if isinstance(x, Publish)
+                               and "/events/" in x.topic) if p["event"] == "cleared")
+    assert cleared["advisory"]["title"] == "Cleared in room-2 at 31.9 °C"
+    flicker = []
+    for k, t in enumerate(range(210, 1500, 60)):  # a mean of 32.55: no rise of 1 K
+        flicker += run(lab, t, t, **{"room-2": 33.2 if k % 2 else 31.9})
+    assert events(flicker, "room-2", lv) == []
+    rising = []
+    for k, t in enumerate(range(1500, 2400, 60)):
+        rising += run(lab, t, t, **{"room-2": 33.1 + 0.1 * k})
+    assert events(rising, "room-2", lv)[:1] == [("raised", lv, "medium")]

@@ -144,6 +144,47 @@ def test_a_hot_work_space_without_a_wet_bulb_sensor_gets_the_alert(tmp_path, spa
         before = cond[m - 1]["indices"]["wbgt_effective"]["value"]
         limit = {"medium": RAL - 1.0, "high": RAL, "urgent": REL}[p["advisory"]["priority"]]
         assert before < limit <= eff + 1e-9
+    # ... and down again as the mean falls: each level let go 0.3 K below its threshold
+    # (clear_hysteresis_k) once the lower level has held 5 minutes, the lowest cleared
+    # 1.3 K below the action value after the 15-minute off-delay
+    assert kinds[3:] == [("renotified", "urgent"), ("deescalated", "high"),
+                         ("deescalated", "medium"), ("cleared", "medium")], kinds
+    name = {"yard": "Yard", "shop": "Shop"}[space]
+    for m, p in evs[4:6]:
+        a = p["advisory"]
+        eff = value(p, "wbgt_effective")
+        assert eff == pytest.approx(cond[m]["indices"]["wbgt_effective"]["value"], abs=0.01)
+        assert a["title"] == f"Heat stress easing in {name}: WBGT {eff:.1f} °C"
+        assert f"The heat stress in {name} is easing: WBGT {eff:.1f} °C now" in a["advice"]
+        assert "Reduce exposure" not in a["advice"] and "above the limit" not in a["title"]
+        let_go = REL if a["priority"] == "high" else RAL
+        assert eff < let_go - 0.3
+        held = cond[m - 5]["indices"]["wbgt_effective"]["value"]
+        assert held < let_go - 0.3 + 0.05  # (the hold counted from the step past it)
+    # the last easing event said when it would clear, at the trend of the moment
+    m_easing, p_easing = evs[5]
+    said = float(p_easing["advisory"]["advice"].split("clears in about ")[1].split(" min")[0])
+    m_cleared, p_cleared = evs[6]
+    assert abs((m_cleared - m_easing) - said) <= 3, (said, m_cleared - m_easing)
+    a = p_cleared["advisory"]
+    eff = value(p_cleared, "wbgt_effective")
+    assert eff == pytest.approx(cond[m_cleared]["indices"]["wbgt_effective"]["value"], abs=0.01)
+    assert eff < RAL - 1.3
+    assert a["title"] == f"Heat stress cleared in {name}: WBGT {eff:.1f} °C"
+    assert a["advice"].startswith(f"The heat-stress alert for {name} cleared at WBGT {eff:.1f}")
+    assert a["history"][-1]["values"]["wbgt_effective"] == pytest.approx(eff, abs=0.01)
+    # every retained record after the first easing says the numbers of its moment and no
+    # urgent words: easing, with its own time
+    retained = [(m, x.payload) for m, effects in run for x in effects
+                if isinstance(x, Publish) and x.payload is not None
+                and x.topic == f"tw/works/spaces/{space}/advisories/heat_stress.wbgt"]
+    later = [(m, r) for m, r in retained if m_easing - 14 <= m < m_cleared]
+    assert later
+    for m, r in later:
+        if m >= evs[4][0]:
+            assert r["title"].startswith(f"Heat stress easing in {name}: WBGT"), r["title"]
+            assert r["numbers_at"] == dt.datetime.fromtimestamp(
+                T0 + 60 * m, dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def test_the_mean_stays_in_full_sun_with_the_globe_beyond_its_method(tmp_path):
@@ -235,3 +276,22 @@ def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
         for html in (card, page, adv_page):
             assert "reference (acclimatised)" not in html
             assert "(acclimatised)" not in html
+
+
+def test_advice_naming_two_methods_says_which_governs(tmp_path):
+    """The urgent advice says stop or postpone heavy work (WBGT screening, ISO 7243) and
+    quotes the ISO 7933 PHS durations: it says that the screening governs and that the PHS
+    minutes are no allowance, never "allows" beside "stop"."""
+    engine = site_engine(tmp_path, acclimatised=False)
+    run = drive(engine, PROFILE, 150, space_ids=("shop",))
+    evs = events_of(run, "shop")
+    urgent = next(p["advisory"] for _, p in evs if p["advisory"]["priority"] == "urgent")
+    high = next(p["advisory"] for _, p in evs if p["advisory"]["priority"] == "high")
+    assert urgent["numbers"]["phs_limit_rectal"]["value"] is not None  # PHS is quoted
+    for adv in (urgent, high):
+        advice = adv["advice"]
+        assert "allows" not in advice
+        assert "The WBGT screening (ISO 7243) governs" in advice
+        assert "ISO 7933 PHS, the detailed model ISO 7243 refers to" in advice
+    assert "stop or postpone heavy work" in urgent["advice"]
+    assert "does not lift the WBGT limit" in urgent["advice"]

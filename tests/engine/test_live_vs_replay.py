@@ -53,7 +53,7 @@ def test_live_and_replay_give_the_same_events(records):
     config = load_site(SITE, {})
     batched = replay(config, records, base=str(SITE), full_events=True, tick_s=TICK_S)
     live, _ = live_style(records)
-    assert len(batched.events) > 50
+    assert len(batched.events) >= 40  # (the recorded day: 50 with the easing heat stress)
     assert [(e["event"], e["at"]) for e in live] == [(e["event"], e["at"]) for e in batched.events]
     assert live == batched.events
 
@@ -68,14 +68,21 @@ def test_no_event_of_the_day_says_numbers_its_condition_contradicts(records):
     events = replay(config, records, base=str(SITE), full_events=True).events
     cleared = [e for e in events if e["event"] == "cleared"]
     assert len(cleared) >= 10
+    easing = {"heat_stress.wbgt", "outdoor_heat.outdoor_heat"}
     for e in events:
         adv = e["advisory"]
         if e["event"] != "cleared":
             assert adv["numbers_at"] == e["at"], (e["event"], adv["rule"])
             continue
-        assert adv["numbers_at"] < e["at"]
         values = adv["history"][-1]["values"]
         assert set(values) == set(adv["numbers"])
+        if adv["rule"] in easing:
+            # a rule with easing texts says that it cleared, with the values it cleared at
+            assert adv["numbers_at"] == e["at"] and " cleared in " in adv["title"]
+            assert {n: i["value"] for n, i in adv["numbers"].items()} == values
+            continue
+        assert adv["numbers_at"] < e["at"]
+    cleared = [e for e in cleared if e["advisory"]["rule"] not in easing]
     raised = {e["advisory"]["id"]: e["advisory"] for e in events if e["event"] == "raised"}
     names = {n for s in config.spaces for n in config.rule_packs(s)}
     packs = load_rule_packs(names, config.rule_dirs, base=str(SITE))

@@ -313,3 +313,36 @@ def test_unknown_and_dimensionless_values_read_as_words(tmp_path):
     assert "Values at clearing:\n  air_temperature: not known\n  pmv: 0.41\n" in text
     assert "  pmv: 0.62\n" in text and "None" not in text
     assert "  ppd: not known (input missing or stale)\n" in text
+
+
+def test_an_email_of_a_clearing_told_with_its_own_numbers_says_so(tmp_path):
+    """A rule with easing texts says at its clearing that it cleared, with the numbers of
+    that moment: the e-mail gives them as what holds now, not as "why it was raised"."""
+    from tests.engine.conftest import PACK
+
+    pack = PACK.replace('''    clear: air_temperature < 32
+    off_delay_s: 60
+    max_shelve_s: 600''', '''    clear: air_temperature < 32
+    off_delay_s: 60
+    max_shelve_s: 600
+    easing:
+      quantity: air_temperature
+      clears_at: "32"
+      title: "Easing in {space_name}"
+      advice: "Now {air_temperature:.1f} °C."
+      cleared_title: "Cleared in {space_name} at {air_temperature:.1f} °C"
+      cleared_advice: "Cleared at {air_temperature:.1f} °C."''')
+    engine = lab_engine(tmp_path, pack, conditions_every_s=0)
+    cleared = None
+    for t in range(0, 600, 10):
+        engine.message("lab/room-2/ta", b"34" if t < 200 else b"31", float(t))
+        for e in engine.tick(float(t)):
+            if isinstance(e, Publish) and "/events/" in e.topic and e.payload \
+                    and e.payload["event"] == "cleared":
+                cleared = e.payload
+    assert cleared is not None
+    subject, text = render_text(cleared)
+    assert subject == "[thermowarden] medium cleared: Cleared in room-2 at 31.0 °C" or \
+        subject.endswith("cleared: Cleared in room-2 at 31.0 °C")
+    assert "Now: Cleared at 31.0 °C." in text
+    assert "Why it was raised" not in text and "It advised" not in text

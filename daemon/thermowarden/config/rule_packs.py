@@ -36,6 +36,35 @@ class RuleLevel(Strict):
     title: str | None = None
     advice: str | None = None
     renotify_s: float | None = Field(None, ge=60, le=7 * 86_400)
+    leave_when: str | None = None
+    """Hysteresis on the way down: the advisory is lowered below this level only while this
+    holds (besides the lower level holding for five minutes); None: as soon as ``when`` is
+    false."""
+
+
+class RuleEasing(Strict):
+    """How an escalating advisory says that it eases and that it cleared, with the numbers
+    of the moment. ``quantity`` (an expression) moves ``direction`` (``down`` or ``up``) as
+    the hazard eases and the advisory clears near ``clears_at`` (an expression): its trend
+    over the last 15 minutes gives ``{clear_in_min}``, the minutes until then at the
+    present trend (left out when it is not moving that way). ``title`` and ``advice`` are
+    said while it eases (lowered from a higher level, or its raise condition false while
+    it waits to clear); ``cleared_title`` and ``cleared_advice`` at the clearing, with the
+    values it cleared at. For ``rearm_s`` after a clearing the lowest level is raised
+    again only while ``quantity`` is moving against the easing direction (a space still
+    cooling is not told that the heat is approaching)."""
+
+    quantity: str
+    direction: Literal["down", "up"] = "down"
+    clears_at: str
+    title: str
+    advice: str
+    cleared_title: str
+    cleared_advice: str
+    rearm_s: float = Field(0.0, ge=0, le=86_400)
+    rearm_rise: float = Field(0.0, ge=0)
+    """How much ``quantity`` must have moved against the easing over the last 15 minutes
+    (fitted trend) for the lowest level to be raised again while re-arming."""
 
 
 class RuleMessages(Strict):
@@ -113,6 +142,7 @@ class RuleConfig(Strict):
     effect: RuleEffect | None = None
     foresees: RuleForesees | None = None
     """An ahead-of-time rule: the advisory it announces (see :class:`RuleForesees`)."""
+    easing: RuleEasing | None = None
 
     @field_validator("numbers", mode="before")
     @classmethod
@@ -128,6 +158,8 @@ class RuleConfig(Strict):
         order = [PRIORITIES.index(level.priority) for level in self.levels]
         if order != sorted(order) or len(set(order)) != len(order):
             raise ValueError("levels go from the lowest priority to the highest, each once")
+        if self.easing is not None and not self.levels:
+            raise ValueError("easing is for rules with levels")
         return self
 
 

@@ -32,6 +32,8 @@ class EvaluationConfig(Strict):
     trend_window_s: float = Field(1200.0, ge=300, le=3600)
     """Window of the spot WBGT's trend fit for the ahead-of-time heat-stress advice
     (engine/foresight.py)."""
+    flood_summary_interval_s: float = Field(600.0, ge=10, le=86_400)
+    """One summary per audience and flood, updated at most this often."""
 
 
 class RetentionConfig(Strict):

@@ -22,6 +22,7 @@ import numpy as np
 from thermowarden.config.rule_packs import AUDIENCES, PRIORITIES
 from thermowarden.config.site import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
+from thermowarden.core.expressions import Expression
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.evaluation import RuleTruths
@@ -32,7 +33,7 @@ from thermowarden.engine.publication import (
     iso,
     num,
 )
-from thermowarden.engine.texts import Texts, number_at, values_at
+from thermowarden.engine.texts import Texts, number_at, one_space, values_at
 from thermowarden.rules import (
     HEAT_STRESS_CAUTIONS,
     CompiledPack,
@@ -45,13 +46,22 @@ from thermowarden.site_model import SiteModel
 
 UNKNOWN_LONG_S: Final = 1800.0
 """A rule unknown this long in a space (an input it needs missing) counts for sensor health."""
-SUMMARY_INTERVAL_S: Final = 60.0
 CHATTER_WINDOW_S: Final = 3600.0
 CHATTER_COUNT: Final = 3
 """Raised this often within ``CHATTER_WINDOW_S``: the advisory is chattering."""
 CHATTER_HOLD_S: Final = 3600.0
 HISTORY_KEPT: Final = 50
 DEESCALATE_HOLD_S: Final = 300.0
+"""A lower level must hold this long before an advisory is lowered to it (and, where the
+level says ``leave_when``, the value must have passed that hysteresis)."""
+TREND_WINDOW_S: Final = 900.0
+"""The trend of an easing advisory's quantity is fitted over this long (least squares)."""
+TREND_MIN_SPAN_S: Final = 300.0
+"""... and only once its samples span this long."""
+TREND_EVERY_S: Final = 60.0
+"""An easing quantity is sampled at most this often."""
+CLEAR_FORECAST_MAX_MIN: Final = 24 * 60.0
+"""A projected clearing further away than this is not said."""
 ADVISORY_REFRESH_S: Final = 300.0
 """Live advisories are republished (retained) this often."""
 ACKNOWLEDGED_URGENT_RENOTIFY_S: Final = 1800.0
@@ -96,6 +106,8 @@ class Advisory:
     """Acted on, not cleared in the expected time, and said so."""
     rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
     """What the texts were last rendered from (:meth:`Texts.render_key`)."""
+    lowered: bool = False
+    """Its last change of level was down (it is easing until it escalates again)."""
     numbers_at: float | None = None
     """When the texts and numbers were last rendered (epoch s): the last evaluation at an
     event, or at advice acted on, where the rule's condition was not known to be false.
@@ -125,6 +137,20 @@ class RuleRuntime:
         self.shelved_until = np.full(n, np.nan)
         self.unknown_since = np.full(n, np.nan)
         self.lower_since = np.full(n, np.nan)
+        self.now_level = np.full(n, -1, dtype=np.int8)
+        """The priority index of the highest level whose condition holds at the last step
+        (-1: none, or not known)."""
+        self.rearm_until = np.full(n, np.nan)
+        """After a clearing of a rule with ``easing.rearm_s``: until when its lowest level
+        is raised again only against the easing trend."""
+        self.trends: dict[int, deque[tuple[float, float]]] = {}
+        """Per space: (time, value) of the easing quantity, while live or re-arming."""
+        self.rearm_check = np.full(n, np.nan)
+        """When a raise held back while re-arming is looked at again: at the next sample of
+        its trend."""
+        self.leave_watch = False
+        """A lower level holds somewhere but a leave_when keeps the advisory up: that turns
+        with the values, not the truths, so every tick is stepped meanwhile."""
         self.acted_now = np.zeros(n, dtype=bool)
         """The equipment is in the state the advice asks for (blinds lowered, fans on)."""
         self.holds = np.zeros(n, dtype=bool)
@@ -168,10 +194,10 @@ class RuleRuntime:
         cfg = self.rule.config
         live = self.state >= State.ACTIVE
         followed = self._effect_due()
-        times = [self.pending_since + cfg.on_delay_s, self.shelved_until]
+        times = [self.pending_since + cfg.on_delay_s, self.shelved_until, self.rearm_check]
         if live.any():
             times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
-            times.append(self.lower_since + min(cfg.off_delay_s, DEESCALATE_HOLD_S))
+            times.append(self.lower_since + DEESCALATE_HOLD_S)
             intervals = self.renotify_intervals()
             if intervals is not None:
                 # (no reminder while the equipment is as the advice asks)
@@ -181,6 +207,8 @@ class RuleRuntime:
             urgent = PRIORITIES.index("urgent")
             times.append(np.where((self.state == State.ACKNOWLEDGED) & (self.level >= urgent),
                                   self.last_notified, np.nan) + self.urgent_remind_s())
+        if self.leave_watch:
+            return -math.inf
         due = np.fmin.reduce(times)
         first = float(np.nanmin(due)) if np.isfinite(due).any() else math.inf
         return min(first, followed)
@@ -279,6 +307,10 @@ class Advisories:
         self.flood: dict[str, deque[float]] = {a: deque() for a in AUDIENCES}
         self.suppressed: dict[str, list[dict[str, Any]]] = {a: [] for a in AUDIENCES}
         self.last_summary: dict[str, float] = dict.fromkeys(AUDIENCES, -math.inf)
+        self.summary_interval_s = config.evaluation.flood_summary_interval_s
+        self.episode: dict[str, dict[str, Any] | None] = dict.fromkeys(AUDIENCES)
+        """Per audience, the flood in progress: its id, since when, the summary updates
+        sent and the notifications held back in it (None: no flood)."""
         self.raised_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
         self.cleared_count: dict[str, int] = dict.fromkeys(AUDIENCES, 0)
         self.last_refresh = -math.inf
@@ -326,6 +358,8 @@ class Advisories:
         cond, clear, hold, level_idx = truths.raise_, truths.clear, truths.hold, truths.level
         rt.holds = (cond.true | ~cond.known) & rt.mask
         rt.raise_true = cond.true & rt.mask
+        rt.now_level = np.where(rt.mask, level_idx, -1).astype(np.int8)
+        rt.leave_watch = False
         live_before = rt.state >= State.ACTIVE
         # unknown for want of an input: the raise condition while an input it needs is
         # missing, or the clear condition of a live advisory whatever the reason (unknown
@@ -333,12 +367,18 @@ class Advisories:
         stuck = rt.mask & ((truths.lacking & ~cond.known) | (live_before & ~clear.known))
         rt.unknown_since = np.where(stuck, np.fmin(rt.unknown_since, now), np.nan)
         state = rt.state
-        # idle -> pending
-        start = (state == State.IDLE) & cond.true & ~hold
+        # idle -> pending (just after a clearing, not at the lowest level while the space is
+        # still easing: see RuleEasing.rearm_s)
+        blocked = self._rearming(rt, cond.true & (state <= State.PENDING), level_idx, now)
+        start = (state == State.IDLE) & cond.true & ~hold & ~blocked
+        rt.rearm_check = np.full(self.n, np.nan)
+        for i in np.flatnonzero(blocked):
+            q = rt.trends.get(int(i))
+            rt.rearm_check[i] = (q[-1][0] if q else now) + TREND_EVERY_S
         rt.pending_since = np.where(start, now, rt.pending_since)
         state[start] = State.PENDING
         # pending -> idle (false, unknown, or held back)
-        drop = (state == State.PENDING) & ~(cond.true & ~hold)
+        drop = (state == State.PENDING) & ~(cond.true & ~hold & ~blocked)
         state[drop] = State.IDLE
         rt.pending_since[drop] = np.nan
         # pending -> active
@@ -375,21 +415,30 @@ class Advisories:
         expired = live & (state == State.SHELVED) & (now >= rt.shelved_until)
         for i in np.flatnonzero(expired):
             self._apply(rt, int(i), Trigger.SHELVE_EXPIRED, now, effects)
-        # escalation within one advisory: up at once, down only after the lower level has
-        # held for the rule's off-delay (at least 5 minutes), so noise near a band edge
-        # does not make the priority chatter
+        # escalation within one advisory: up at once; down as the numbers fall, whatever
+        # band they sit in (below the lowest band, to the lowest level, until the clear
+        # condition ends it), after the lower level has held DEESCALATE_HOLD_S and past
+        # each level's leave_when (hysteresis), so noise near a band edge does not make the
+        # priority chatter
         if rt.rule.levels:
             up = live & (level_idx > rt.level)
-            lower = live & (level_idx >= 0) & (level_idx < rt.level) & cond.known
+            target = np.where(level_idx >= 0, level_idx, rt.rule.lowest_level)
+            lower_to = np.full(self.n, -1, dtype=np.int8)
+            for i in np.flatnonzero(live & cond.known & (target < rt.level)):
+                lower_to[i] = self._lowest_allowed(rt, int(i), int(target[i]))
+            lower = live & (lower_to >= 0) & (lower_to < rt.level)
+            rt.leave_watch = bool((live & (lower_to > target)).any())
             rt.lower_since = np.where(lower, np.fmin(rt.lower_since, now), np.nan)
-            down = lower & (now - rt.lower_since >= max(cfg.off_delay_s, DEESCALATE_HOLD_S))
+            down = lower & (now - rt.lower_since >= DEESCALATE_HOLD_S)
             for i in np.flatnonzero(up):
                 rt.level[i] = level_idx[i]
                 rt.lower_since[i] = np.nan
+                rt.advisories[int(i)].lowered = False
                 self._apply(rt, int(i), Trigger.ESCALATE, now, effects)
             for i in np.flatnonzero(down):
-                rt.level[i] = level_idx[i]
+                rt.level[i] = lower_to[i]
                 rt.lower_since[i] = np.nan
+                rt.advisories[int(i)].lowered = True
                 self._apply(rt, int(i), Trigger.DEESCALATE, now, effects)
         # re-notify: a reminder that the hazard persists, with the numbers of now; never
         # while the equipment is already in the state the advice asks for
@@ -420,6 +469,10 @@ class Advisories:
             for a in (rt.pending_since, rt.clear_since, rt.last_notified, rt.shelved_until,
                       rt.unknown_since, rt.lower_since):
                 a += step_s
+            rt.rearm_until += step_s
+            for q in rt.trends.values():
+                for k, (t_s, v) in enumerate(q):
+                    q[k] = (t_s + step_s, v)
             for i, times in rt.raised_times.items():
                 rt.raised_times[i] = deque((t + step_s for t in times), times.maxlen)
             for spans in rt.shelvings.values():
@@ -440,6 +493,109 @@ class Advisories:
         self.last_refresh += step_s
         return out
 
+    def _lowest_allowed(self, rt: RuleRuntime, i: int, target: int) -> int:
+        """The lowest level space ``i``'s advisory may go down to now, towards ``target``:
+        each level it passes on the way must let go (its ``leave_when``, if any, holds)."""
+        level = int(rt.level[i])
+        while level > target:
+            leave = rt.rule.level_leave.get(level)
+            if leave is not None and not self._holds_at(rt, leave, i):
+                break
+            lower = [p for p, _ in rt.rule.levels if target <= p < level]
+            level = max(lower) if lower else target
+        return level
+
+    def _holds_at(self, rt: RuleRuntime, expr: Expression, i: int) -> bool:
+        return bool(expr.evaluate_truth(one_space(expr, self._ctx.base, rt.params, i), 1)
+                    .true[0])
+
+    def _rearming(self, rt: RuleRuntime, candidates: BoolArray, level_idx: Any,
+                  now: float) -> BoolArray:
+        """Spaces where the rule may not raise now: just cleared (``easing.rearm_s``), at its
+        lowest level only, while the easing quantity is not moving against the easing."""
+        blocked = np.zeros(self.n, dtype=bool)
+        easing = rt.rule.easing
+        if easing is None or easing.rearm_s <= 0:
+            return blocked
+        rearm = candidates & (rt.rearm_until > now) & (level_idx <= rt.rule.lowest_level)
+        for i in np.flatnonzero(rearm):
+            slope = self._slope(rt, int(i))
+            rise = (None if slope is None
+                    else (slope if easing.falling else -slope) * TREND_WINDOW_S)
+            worsening = rise is not None and rise > max(easing.rearm_rise, 0.0) \
+                and rise > 0
+            blocked[i] = not worsening
+        return blocked
+
+    def sample_trends(self, now: float) -> None:
+        """Sample the easing quantity of every live or re-arming advisory (at most once a
+        minute) for its trend; call once per tick, after :meth:`begin`."""
+        for rt in self.rules:
+            easing = rt.rule.easing
+            if easing is None:
+                continue
+            watched = set(rt.advisories)
+            if rt.trends or watched:
+                watched |= {int(i) for i in np.flatnonzero(rt.rearm_until > now)}
+            for i in [i for i in rt.trends if i not in watched]:
+                del rt.trends[i]
+            for i in watched:
+                if not self._ctx.has_numbers(i):
+                    continue
+                q = rt.trends.setdefault(i, deque())
+                if q and now - q[-1][0] < TREND_EVERY_S:
+                    continue
+                v = self._value_at(rt, easing.quantity, i)
+                if not math.isfinite(v):
+                    continue
+                q.append((now, v))
+                while q and q[0][0] < now - TREND_WINDOW_S:
+                    q.popleft()
+
+    def _slope(self, rt: RuleRuntime, i: int) -> float | None:
+        """The easing quantity's trend in space ``i`` (units per second; least squares over
+        the last ``TREND_WINDOW_S``), or None with too short a record."""
+        q = rt.trends.get(i)
+        if not q or q[-1][0] - q[0][0] < TREND_MIN_SPAN_S:
+            return None
+        t = np.array([p[0] for p in q])
+        v = np.array([p[1] for p in q])
+        t = t - t.mean()
+        return float((t * (v - v.mean())).sum() / (t * t).sum())
+
+    def _clear_in_min(self, rt: RuleRuntime, i: int, now: float) -> float | None:
+        """Minutes until space ``i``'s advisory clears at the present trend: to the easing
+        quantity's ``clears_at``, then the off-delay (what is left of it once there);
+        None when it is not moving that way or too far off."""
+        easing = rt.rule.easing
+        assert easing is not None
+        off = rt.rule.config.off_delay_s
+        if np.isfinite(rt.clear_since[i]):
+            return max(0.0, off - (now - float(rt.clear_since[i]))) / 60
+        v = self._value_at(rt, easing.quantity, i)
+        target = self._value_at(rt, easing.clears_at, i)
+        slope = self._slope(rt, i)
+        if slope is None or not (math.isfinite(v) and math.isfinite(target)):
+            return None
+        gap = (v - target) if easing.falling else (target - v)
+        rate = -slope if easing.falling else slope
+        if gap <= 0 or rate <= 0:
+            return None
+        minutes = (gap / rate + off) / 60
+        return minutes if minutes <= CLEAR_FORECAST_MAX_MIN else None
+
+    def _mode(self, rt: RuleRuntime, i: int, adv: Advisory) -> str:
+        """What the advisory says now: ``level`` (its level's texts) or ``easing`` (lowered
+        and not escalated since, its level's condition no longer holding, or its raise
+        condition false while it waits to clear), for rules with ``easing``."""
+        if rt.rule.easing is None:
+            return "level"
+        level = int(rt.level[i])
+        now_level = int(rt.now_level[i])
+        if not rt.holds[i] or 0 <= now_level < level or adv.lowered:
+            return "easing"
+        return "level"
+
     def refresh_due(self, now: float) -> list[Effect]:
         """Republish every live advisory (retained) every ``refresh_s``, with the numbers
         of the moment.
@@ -455,9 +611,11 @@ class Advisories:
         for rt in self.rules:
             for adv in rt.advisories.values():
                 shown = adv
-                if self._ctx.has_numbers(adv.space) and rt.holds[adv.space]:
+                mode = self._mode(rt, adv.space, adv)
+                if self._ctx.has_numbers(adv.space) and (rt.holds[adv.space]
+                                                         or mode != "level"):
                     shown = copy.copy(adv)
-                    self._render(rt, shown, now)
+                    self._render(rt, shown, now, mode)
                 out.append(self._published(shown))
         return out
 
@@ -536,8 +694,21 @@ class Advisories:
         return {name: item["value"] for name, item in numbers.items()}
 
     # ------------------------------------------------------------------ transitions
-    def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None) -> None:
+    def _render(self, rt: RuleRuntime, adv: Advisory, now: float | None = None,
+                mode: str = "level") -> None:
+        """Render ``adv``'s texts with the numbers of this evaluation: its level's texts, or
+        (``mode``) the rule's easing or cleared texts."""
         extra = dict(self._ctx.details(adv.space, rt.rule.template_names))
+        texts = None
+        easing = rt.rule.easing
+        if easing is not None and mode == "easing":
+            texts = (easing.title, easing.advice)
+            if now is not None:
+                clear_in = self._clear_in_min(rt, adv.space, now)
+                if clear_in is not None:
+                    extra["clear_in_min"] = clear_in
+        elif easing is not None and mode == "cleared":
+            texts = (easing.cleared_title, easing.cleared_advice)
         if adv.acted_on is not None and now is not None:
             t0 = float(adv.acted_on.get("_t", adv.updated_at))
             extra["acted_minutes_ago"] = max(0.0, (now - t0) / 60)
@@ -545,13 +716,13 @@ class Advisories:
             if effect is not None and effect.get("predicted") is not None:
                 extra["effect_predicted"] = effect["predicted"]
         level = int(rt.level[adv.space])
-        key = (adv.effect_overdue, self.texts.render_key(
+        key = (adv.effect_overdue, mode, self.texts.render_key(
             rt.rule, adv.space, self._ctx.base, rt.params, self._ctx.table, level, extra))
         adv.numbers_at = now if now is not None else adv.numbers_at
         if key == adv.rendered_from:
             return  # the same values as at the last rendering: the same texts
         self.texts.render(rt.rule, adv, self._ctx.base, rt.params, self._ctx.table, level,
-                          extra)
+                          extra, texts)
         if adv.effect_overdue and adv.no_effect_text:
             adv.advice = adv.no_effect_text
         adv.rendered_from = key
@@ -594,13 +765,17 @@ class Advisories:
         adv.state = new_state
         adv.updated_at = now
         adv.priority = PRIORITIES[int(rt.level[i])]
-        if self._ctx.has_numbers(i) and rt.holds[i]:
+        mode = self._mode(rt, i, adv)
+        if new_state == State.IDLE and rt.rule.easing is not None:
+            mode = "cleared"
+        if self._ctx.has_numbers(i) and (rt.holds[i] or mode != "level"):
             # an event says the numbers of its moment where the texts are true of them:
             # unless the condition is known to be false; waiting to clear and clearing, it
             # keeps what it said, and a clearing records the values it cleared at in its
             # history entry (the notice that acted-on advice has not helped comes only
-            # while the condition holds, see _follow_effect)
-            self._render(rt, adv, now)
+            # while the condition holds, see _follow_effect). A rule with easing texts says
+            # that it eases, and that it cleared, with the numbers of the moment.
+            self._render(rt, adv, now, mode)
         if new_state == State.IDLE and self._ctx.has_numbers(i):
             extra = {**(extra or {}), "values": self._values_now(rt, i)}
         if trigger == Trigger.ESCALATE and adv.shelved is not None:
@@ -639,6 +814,8 @@ class Advisories:
             rt.clear_since[i] = np.nan
             rt.shelved_until[i] = np.nan
             rt.level[i] = rt.rule.base_priority
+            if rt.rule.easing is not None and rt.rule.easing.rearm_s > 0:
+                rt.rearm_until[i] = now + rt.rule.easing.rearm_s
         if event is not None:
             self._note(adv, now, event, by, extra)
             self._emit(rt, adv, event, now, effects)
@@ -668,6 +845,7 @@ class Advisories:
             "raised_times": list(rt.raised_times.get(i, ())),
             "shelvings": rt.shelvings.get(i, []),
             "event_count": rt.event_count.get(i, 0),
+            "lowered": own.lowered,
             # what its last event said (a refreshed message shows newer numbers)
             "said": {"title": own.title, "advice": own.advice, "rationale": own.rationale,
                      "numbers": own.numbers, "benefit": own.benefit,
@@ -699,30 +877,66 @@ class Advisories:
         effects.append(self._published(adv))
         effects.append(self._persist(adv))
         effects.append(Persist("event", adv.id, payload))
-        window = self.flood[adv.audience]
-        while window and window[0] < now - self.flood_window_s:
-            window.popleft()
-        if len(window) >= self.flood_limit and adv.priority != "urgent":
+        window = self._window(adv.audience, now)
+        # the last place in the window is kept for the flood's summary, so that with it no
+        # audience gets more than flood_limit notifications in any flood_window_s (urgent
+        # ones always go out at once)
+        if len(window) >= self.flood_limit - 1 and adv.priority != "urgent":
             self.suppressed[adv.audience].append(payload)
             return
         window.append(now)
         effects.append(self.pub.event_publish(adv, payload))
 
+    def _window(self, audience: str, now: float) -> deque[float]:
+        """The audience's notification times within the last ``flood_window_s``."""
+        window = self.flood[audience]
+        while window and window[0] < now - self.flood_window_s:
+            window.popleft()
+        return window
+
     def flush_summaries(self, now: float, effects: list[Effect]) -> None:
-        """Events held back by the flood limit go out as one summary per audience."""
+        """Notifications held back by the flood limit go out as one summary per audience
+        and flood, updated (with what was held back since) at most every
+        ``flood_summary_interval_s`` and only where the flood window has room for it; a
+        flood ends when an interval has passed after its last update with nothing held."""
         for audience, held in self.suppressed.items():
-            if not held or now - self.last_summary[audience] < SUMMARY_INTERVAL_S:
+            episode = self.episode[audience]
+            if not held:
+                if episode is not None and \
+                        now - self.last_summary[audience] >= self.summary_interval_s:
+                    self.episode[audience] = None  # the flood is over
                 continue
+            if now - self.last_summary[audience] < self.summary_interval_s:
+                continue
+            window = self._window(audience, now)
+            if len(window) >= self.flood_limit:
+                continue
+            if episode is None:
+                episode = {"id": f"{self.config.site.id}.flood.{audience}.{int(now)}",
+                           "since": held[0]["at"], "update": 0, "held_total": 0}
+                self.episode[audience] = episode
+            episode["update"] += 1
+            episode["held_total"] += len(held)
             self.last_summary[audience] = now
+            window.append(now)
             items = [{"event": p["event"], "advisory_id": p["advisory"]["id"],
                       "space": p["advisory"]["space"]["id"], "rule": p["advisory"]["rule"],
                       "priority": p["advisory"]["priority"], "title": p["advisory"]["title"],
                       "at": p["at"]} for p in held]
+            every = self.summary_interval_s / 60
             payload = {"schema": EVENT_SCHEMA, "event": "summary", "at": iso(now),
                        "audience": audience, "count": len(items), "items": items,
-                       "note": f"more than {self.flood_limit} notifications in "
-                               f"{self.flood_window_s / 60:g} minutes to {audience}; "
-                               "summarised in one message"}
+                       "flood": {"episode": episode["id"], "since": episode["since"],
+                                 "update": episode["update"],
+                                 "held_total": episode["held_total"],
+                                 "next_update_after": iso(now + self.summary_interval_s)},
+                       "note": f"a flood of notifications to {audience} (more than "
+                               f"{self.flood_limit - 1} in {self.flood_window_s / 60:g} "
+                               f"minutes): {len(items)} held back since the last update, "
+                               f"{episode['held_total']} since {episode['since']}; this "
+                               f"summary is update {episode['update']} of one per flood, "
+                               f"updated at most every {every:g} minutes while it lasts; "
+                               "urgent notifications always go out at once"}
             self.suppressed[audience] = []
             payload["event_id"] = f"{self.config.site.id}.summary.{audience}.{now:.3f}"
             effects.extend(self.pub.site_event(audience, payload,
@@ -802,6 +1016,7 @@ class Advisories:
             rt.raised_times[i] = raised_times
             rt.shelvings[i] = shelvings
             rt.event_count[i] = event_count
+            adv.lowered = rec.get("lowered") is True
             rt.advisories[i] = adv
             self.by_id[adv.id] = (rt, i)
         return notes

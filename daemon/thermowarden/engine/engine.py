@@ -206,6 +206,7 @@ class Engine:
             book.begin(env_j, at_j,
                        functools.partial(self._text_fields, at_j, now, env_j),
                        self.evaluation.owned)
+            book.sample_trends(now)
             if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
                 # clear condition is unknown; exact without one): where the estimate was

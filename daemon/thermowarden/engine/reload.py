@@ -36,7 +36,7 @@ from thermowarden.engine.engine import Engine
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
-              "shelved_until", "unknown_since", "lower_since", "acted_now")
+              "shelved_until", "unknown_since", "lower_since", "acted_now", "rearm_until")
 _AS_AFTER_RESTART = ("state", "level", "last_notified", "shelved_until")
 
 
@@ -104,6 +104,7 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
     an.flood = {a: deque(v) for a, v in ao.flood.items()}
     an.suppressed = {a: list(v) for a, v in ao.suppressed.items()}
     an.last_summary = dict(ao.last_summary)
+    an.episode = {a: (dict(v) if v is not None else None) for a, v in ao.episode.items()}
     an.raised_count = dict(ao.raised_count)
     an.cleared_count = dict(ao.cleared_count)
     an.last_refresh = ao.last_refresh
@@ -218,6 +219,8 @@ def _move_advisory(new: Engine, ro: RuleRuntime, i: int, rn: RuleRuntime, j: int
     adv = ro.advisories.get(i)
     if i in ro.raised_times:
         rn.raised_times[j] = deque(ro.raised_times[i])
+    if i in ro.trends:
+        rn.trends[j] = deque(ro.trends[i])
     if adv is None:
         return
     moved = dataclasses.replace(adv, space=j)  # the old engine stays intact

@@ -14,7 +14,7 @@ from thermowarden.core.columns import IndexColumn
 from thermowarden.core.expressions import Expression
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.engine.publication import num
-from thermowarden.rules import CompiledRule
+from thermowarden.rules import CompiledRule, MessageTemplate
 from thermowarden.site_model import SiteModel
 
 
@@ -93,10 +93,12 @@ class Texts:
 
     def render(self, rule: CompiledRule, adv: Any, env: Mapping[str, Any],
                params: Mapping[str, Any], table: Mapping[str, IndexColumn] | None, level: int,
-               extra: Mapping[str, object] | None = None) -> None:
+               extra: Mapping[str, object] | None = None,
+               texts: tuple[MessageTemplate, MessageTemplate] | None = None) -> None:
         """Fill ``adv``'s numbers, benefit, title, advice and rationale with the values of
         the moment (``env`` and ``table`` are the current evaluation) at priority index
-        ``level``; ``extra`` adds text fields (sensor names, the basis of a WBGT)."""
+        ``level``; ``extra`` adds text fields (sensor names, the basis of a WBGT); ``texts``
+        (title, advice) instead of the level's (easing, cleared)."""
         i = adv.space
         n = self.model.n_spaces
         numbers, benefit, fields = values_at(rule, env, params, table, i, n)
@@ -110,7 +112,7 @@ class Texts:
         def holds(expr: Expression) -> bool:
             return bool(expr.evaluate_truth(one_space(expr, env, params, i), 1).true[0])
 
-        title_t, advice_t = rule.texts_at(level)
+        title_t, advice_t = texts or rule.texts_at(level)
         notes = self._assumed(i, env)
         for q, note in notes.items():
             if q in numbers:

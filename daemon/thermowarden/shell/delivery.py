@@ -193,8 +193,13 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
                 unit = numbers.get(name, {}).get("unit", "") \
                     if isinstance(numbers.get(name), dict) else ""
                 lines.append(f"  {name}: {_quantity_text(value, unit)}")
-        lines += ["", f"It advised: {adv.get('advice', '')}", "",
-                  f"Why it was raised: {adv.get('rationale', '')}"]
+        if shown_at is not None and shown_at == payload.get("at"):
+            # a rule with easing texts says that it cleared, with the numbers of clearing
+            lines += ["", f"Now: {adv.get('advice', '')}", "",
+                      f"Why: {adv.get('rationale', '')}"]
+        else:
+            lines += ["", f"It advised: {adv.get('advice', '')}", "",
+                      f"Why it was raised: {adv.get('rationale', '')}"]
     else:
         lines += [f"What to do: {adv.get('advice', '')}", "",
                   f"Why: {adv.get('rationale', '')}"]
