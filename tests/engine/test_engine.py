@@ -501,3 +501,25 @@ def test_after_a_clearing_the_lowest_level_waits_for_a_rise(tmp_path):
     for k, t in enumerate(range(1500, 2400, 60)):
         rising += run(lab, t, t, **{"room-2": 33.1 + 0.1 * k})
     assert events(rising, "room-2", lv)[:1] == [("raised", lv, "medium")]
+
+
+def test_a_level_that_relapses_waits_longer_before_it_is_lowered_again(lab):
+    """A value swinging across a band edge every 10 minutes (a passing cloud in the sun):
+    lowered once after the 5-minute hold, back up at once, then held at the higher level
+    (RELAPSE_HOLD_S) instead of going down and up every few minutes; the escalation is
+    immediate every time (alarm-management practice: a level that comes and goes several
+    times an hour is chattering)."""
+    from thermowarden.engine.advisories import RELAPSE_HOLD_S
+
+    lv = "testpack.levels"
+    run(lab, 0, 20, **{"room-2": 36})  # high
+    swings = []
+    for k, t in enumerate(range(30, 7230, 600)):  # two hours, 10 minutes each side
+        swings += run(lab, t, t + 590, **{"room-2": 34 if k % 2 == 0 else 36})
+    seen = events(swings, "room-2", lv)
+    # one lowering and one relapse, then nothing more while the swings go on
+    assert seen[:2] == [("deescalated", lv, "medium"), ("escalated", lv, "high")]
+    assert len(seen) <= 3, seen
+    # once the swinging stops below the band, it is lowered after the longer hold
+    calm = run(lab, 7230, 7230 + RELAPSE_HOLD_S + 60, **{"room-2": 34})
+    assert events(calm, "room-2", lv)[:1] == [("deescalated", lv, "medium")]

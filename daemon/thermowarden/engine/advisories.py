@@ -54,6 +54,11 @@ HISTORY_KEPT: Final = 50
 DEESCALATE_HOLD_S: Final = 300.0
 """A lower level must hold this long before an advisory is lowered to it (and, where the
 level says ``leave_when``, the value must have passed that hysteresis)."""
+RELAPSE_HOLD_S: Final = 1800.0
+"""... and this long while the advisory relapses: it went back up within
+``CHATTER_WINDOW_S`` of being lowered, so its numbers sit at a band edge (alarm-management
+practice, ISA-18.2 / EEMUA 191: a level that comes and goes several times an hour is
+chattering; the hold is common practice, no source)."""
 TREND_WINDOW_S: Final = 900.0
 """The trend of an easing advisory's quantity is fitted over this long (least squares)."""
 TREND_MIN_SPAN_S: Final = 300.0
@@ -137,6 +142,10 @@ class RuleRuntime:
         self.shelved_until = np.full(n, np.nan)
         self.unknown_since = np.full(n, np.nan)
         self.lower_since = np.full(n, np.nan)
+        self.lowered_at = np.full(n, np.nan)
+        """When the advisory was last lowered a level."""
+        self.relapse_until = np.full(n, np.nan)
+        """Until when a lowering waits ``RELAPSE_HOLD_S``: it went back up soon after one."""
         self.now_level = np.full(n, -1, dtype=np.int8)
         """The priority index of the highest level whose condition holds at the last step
         (-1: none, or not known)."""
@@ -174,6 +183,15 @@ class RuleRuntime:
             None if all(e is None for e in every)
             else np.array([math.inf if e is None else e for e in every]))
 
+    def lower_due(self) -> FloatArray:
+        """When a pending lowering may first happen (epoch s; NaN: none pending): after
+        ``DEESCALATE_HOLD_S``, and while relapsing after ``RELAPSE_HOLD_S`` or at the end
+        of the relapse, whichever comes first."""
+        ls = self.lower_since
+        relapsing = np.fmax(ls + DEESCALATE_HOLD_S,
+                            np.fmin(self.relapse_until, ls + RELAPSE_HOLD_S))
+        return np.where(np.isfinite(self.relapse_until), relapsing, ls + DEESCALATE_HOLD_S)
+
     def renotify_intervals(self) -> FloatArray | None:
         """Seconds between reminders per priority index (inf: none), or None if the rule
         never reminds."""
@@ -197,7 +215,7 @@ class RuleRuntime:
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until, self.rearm_check]
         if live.any():
             times.append(np.where(live, self.clear_since, np.nan) + cfg.off_delay_s)
-            times.append(self.lower_since + DEESCALATE_HOLD_S)
+            times.append(self.lower_due())
             intervals = self.renotify_intervals()
             if intervals is not None:
                 # (no reminder while the equipment is as the advice asks)
@@ -428,9 +446,15 @@ class Advisories:
                 lower_to[i] = self._lowest_allowed(rt, int(i), int(target[i]))
             lower = live & (lower_to >= 0) & (lower_to < rt.level)
             rt.leave_watch = bool((live & (lower_to > target)).any())
+            # a relapsing advisory whose lower level stopped holding again swings on: its
+            # relapse lasts another CHATTER_WINDOW_S
+            swung = live & ~lower & np.isfinite(rt.lower_since) & (rt.relapse_until > now)
+            rt.relapse_until[swung] = now + CHATTER_WINDOW_S
             rt.lower_since = np.where(lower, np.fmin(rt.lower_since, now), np.nan)
-            down = lower & (now - rt.lower_since >= DEESCALATE_HOLD_S)
+            down = lower & (now >= rt.lower_due())
             for i in np.flatnonzero(up):
+                if now - rt.lowered_at[i] < CHATTER_WINDOW_S:
+                    rt.relapse_until[i] = now + CHATTER_WINDOW_S
                 rt.level[i] = level_idx[i]
                 rt.lower_since[i] = np.nan
                 rt.advisories[int(i)].lowered = False
@@ -438,6 +462,7 @@ class Advisories:
             for i in np.flatnonzero(down):
                 rt.level[i] = lower_to[i]
                 rt.lower_since[i] = np.nan
+                rt.lowered_at[i] = now
                 rt.advisories[int(i)].lowered = True
                 self._apply(rt, int(i), Trigger.DEESCALATE, now, effects)
         # re-notify: a reminder that the hazard persists, with the numbers of now; never
@@ -467,7 +492,7 @@ class Advisories:
         out: list[Effect] = []
         for rt in self.rules:
             for a in (rt.pending_since, rt.clear_since, rt.last_notified, rt.shelved_until,
-                      rt.unknown_since, rt.lower_since):
+                      rt.unknown_since, rt.lower_since, rt.lowered_at, rt.relapse_until):
                 a += step_s
             rt.rearm_until += step_s
             for q in rt.trends.values():

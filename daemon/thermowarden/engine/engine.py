@@ -366,7 +366,8 @@ class Engine:
                 rt.state[i] = 0
                 rt.level[i] = rt.rule.base_priority
                 for arr in (rt.pending_since, rt.clear_since, rt.last_notified,
-                            rt.shelved_until, rt.unknown_since, rt.lower_since):
+                            rt.shelved_until, rt.unknown_since, rt.lower_since,
+                            rt.lowered_at, rt.relapse_until):
                     arr[i] = np.nan
                 rt.acted_now[i] = False
                 rt.raised_times.pop(i, None)

@@ -36,7 +36,8 @@ from thermowarden.engine.engine import Engine
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
-              "shelved_until", "unknown_since", "lower_since", "acted_now", "rearm_until")
+              "shelved_until", "unknown_since", "lower_since", "acted_now", "rearm_until",
+              "lowered_at", "relapse_until")
 _AS_AFTER_RESTART = ("state", "level", "last_notified", "shelved_until")
 
 
