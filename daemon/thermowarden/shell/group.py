@@ -112,6 +112,7 @@ class LeaseKeeper:
         self.last_holder: dict[str, str] = {}
         self.live_since = clock()
         self.opened = False
+        self.listened = False
         self.failing: str | None = None
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -166,7 +167,9 @@ class LeaseKeeper:
                     self.store.release(released)
                     holders.pop(s, None)
                     log.info("handed shard %s over (above the fair share of %d)", s, p.share)
-            for s in p.take:
+            # the first round only listens: instances started together see one another
+            # before any takes a share computed without the others
+            for s in p.take if self.listened else ():
                 got = self.store.take(s, self.me)
                 if got is not None:
                     self.held[s] = got
@@ -174,6 +177,7 @@ class LeaseKeeper:
                     self.free_since.pop(s, None)
             self.holders = holders
             self.standby = p.standby
+            self.listened = True
             if self.failing is not None:
                 log.warning("the lease store answers again")
                 self.failing = None
