@@ -65,6 +65,8 @@ log = logging.getLogger("thermowarden.group")
 GRACE_ROUNDS = 1.5
 """A free shard whose first taker did not take it is taken by others after this many
 rounds."""
+RETRY_S = 1.0
+"""A round that could not reach the store is tried again after this long."""
 COMMANDS_KEPT_S = 600.0
 """Commands a standby received for a shard are kept this long (applied at a takeover if
 the old holder had not)."""
@@ -126,7 +128,9 @@ class LeaseKeeper:
         while not self._stop.is_set():
             began = self.clock()
             self.round()
-            self._stop.wait(max(0.0, self.period - (self.clock() - began)))
+            # after a failed round, try again soon: the held leases are running out
+            period = self.period if self.failing is None else min(self.period, RETRY_S)
+            self._stop.wait(max(0.0, period - (self.clock() - began)))
 
     def round(self) -> None:
         started = self.clock()
