@@ -407,10 +407,11 @@ class Group:
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
 
-    def route(self, m: Incoming, advisory_id: object) -> str:
+    def route(self, m: Incoming, advisory_id: object, keep: bool = True) -> str:
         """What to do with a command: "answer" (this instance holds the advisory's shard,
         or no one has the advisory and this instance is the first live one), "keep" (it
-        stands by for the shard: applied if it takes the shard over), or "ignore"."""
+        stands by for the shard: applied if it takes the shard over; only with ``keep``),
+        or "ignore"."""
         assert self.service is not None
         shard = self._shard_of_advisory(advisory_id)
         if shard is None:
@@ -418,7 +419,7 @@ class Group:
             return "answer" if not live or live[0] == self.me else "ignore"
         if shard in self.publishing:
             return "answer"
-        if shard in self.evaluating and isinstance(advisory_id, str):
+        if keep and shard in self.evaluating and isinstance(advisory_id, str):
             now = self.service.clock.now()
             self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
             self.commands.append(Buffered(m, now, advisory_id, shard))
