@@ -20,6 +20,7 @@ from tests.shell.conftest import (
     Collector,
     ServiceProcess,
     clear_retained,
+    free_port,
     wait_for,
     write_site,
 )
@@ -245,3 +246,48 @@ def test_a_frozen_holder_publishes_nothing_when_it_wakes(tmp_path, system_broker
         watch_c.close()
         clear_retained(port, prefix)
         drop_schema(schema)
+
+
+def test_without_its_lease_store_an_instance_publishes_nothing(tmp_path, system_broker_port):
+    """The store cannot be reached (nobody listens on its port): the instance runs, takes
+    no shard and publishes nothing for the site's spaces, however hot they are; hostile
+    retained records on the site's advisory topics stop nothing either."""
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = ["s00", "s01"]
+    closed = free_port()
+    site = write_site(tmp_path, prefix, port, spaces, evaluation="{tick_s: 1}",
+                      extra=f"""group:
+  store: {{kind: postgres, dsn: "host=127.0.0.1 port={closed} dbname=test user=postgres"}}
+  lease_ttl_s: {TTL_S}
+""")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    for topic, payload in {f"{prefix}/spaces/s00/advisories/fast.hot": b"[" * 5000,
+                           f"{prefix}/spaces/s01/advisories/fast.hot": json.dumps(
+                               {"id": "forged", "shard": "x", "epoch": "9"}).encode()}.items():
+        watch_c.client.publish(topic, payload, qos=1, retain=True).wait_for_publish(SLOW)
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": "35" for s in spaces})
+    feeder.start()
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance",
+                          f"lone{uuid.uuid4().hex[:4]}")
+    try:
+        proc.start(wait_ready=False)
+        def evaluations() -> float:
+            try:
+                return proc.metric("thermowarden_evaluation_seconds_count")
+            except OSError:
+                return 0.0  # its HTTP endpoint is not up yet
+        # the hot readings arrive every 0.5 s and the rule raises at once: five evaluations
+        # (one a second) are five chances to publish
+        wait_for(lambda: evaluations() > 5, SLOW, "a few evaluations")
+        watch_c.sync(f"{prefix}/sync")
+        assert proc.proc is not None and proc.proc.poll() is None
+        assert proc.metric("thermowarden_group_owned_spaces") == 0
+        assert watch_c.events(prefix) == []
+        assert not [t for t, p, _ in list(watch_c.messages) if t.endswith("/conditions")]
+        assert proc.metric("thermowarden_group_errors_total") == 0
+    finally:
+        feeder.stop()
+        proc.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
