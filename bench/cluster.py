@@ -35,7 +35,8 @@ SPACES = 600
 TICK_S = 5.0
 
 
-def _site(tmp: pathlib.Path, prefix: str, url: str) -> pathlib.Path:
+def _site(tmp: pathlib.Path, prefix: str, url: str,
+          servers: list[str] | None = None) -> pathlib.Path:
     (tmp / "packs").mkdir(exist_ok=True)
     (tmp / "packs" / "fast.yaml").write_text(textwrap.dedent("""\
         pack: fast
@@ -55,6 +56,8 @@ def _site(tmp: pathlib.Path, prefix: str, url: str) -> pathlib.Path:
         f"output: {{prefix: {prefix}-out, rule_topic_separator: '/'}}\nrule_dirs: [packs]\n"
         f"evaluation: {{flood_limit: 100000, tick_s: {TICK_S}}}\n"
         "ingest: {silence_limit_s: null}\n"
+        + (f"group: {{store: {{kind: nats, servers: [{', '.join(servers)}], stream_replicas: 3}},"
+           " lease_ttl_s: 15, rebalance_after_s: 0}\n" if servers else "") +
         "defaults: {occupancy: {always: true}, rule_packs: [fast, comfort, humidity],"
         " people: {met: 1.2, clo: 0.6}}\n"
         f"templates:\n  - {{topic: '{prefix}/{{space}}/ta', quantity: air_temperature,"
@@ -113,7 +116,8 @@ def _publish(port: int, prefix: str, n: int) -> float:
 def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, n: int,
            idle_s: float) -> dict[str, float]:
     prefix = f"twcl{uuid.uuid4().hex[:6]}"
-    site = _site(tmp, prefix, cluster.nodes[0].url)
+    site = _site(tmp, prefix, cluster.nodes[0].url,
+                 [f"nats://127.0.0.1:{node.client}" for node in cluster.nodes])
     procs: list[tuple[subprocess.Popen[bytes], int]] = []
     out: dict[str, float] = {}
     try:

@@ -233,8 +233,8 @@ class Service:
         if self.silence_limit_s is not None:
             last = self.last_sensor if self.last_sensor is not None else self.started
             receiving = self.clock.monotonic() - last < self.silence_limit_s
-            if self.group is not None and not self.group.holding.any():
-                receiving = True  # a member of a group that owns no space has nothing to hear
+            if self.group is not None and not self.group.evaluating:
+                receiving = True  # a member of a group with no shard has nothing to hear
         parts = {"connected": self.link.connected.is_set(),
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
@@ -321,7 +321,10 @@ class Service:
 
     # ------------------------------------------------------------------ effects
     def execute(self, effects: list[Effect]) -> None:
-        """Store everything first (one transaction), then publish."""
+        """Store everything first (one transaction), then publish. One instance of a group
+        carries out only what its leases allow now (:meth:`Group.fence`)."""
+        if self.group is not None:
+            effects = self.group.fence(effects)
         now = self.clock.now()
         sends: list[tuple[int, Publish]] = []
         staged = False
@@ -362,6 +365,10 @@ class Service:
         """Give an outbox row to the client, unless it already holds it."""
         if seq in self.handed:
             return
+        if self.group is not None and not self.group.allows(payload):
+            self.store.outbox_done(seq)  # of an epoch this instance no longer holds
+            self.metrics.group_fenced.inc()
+            return
         event_id = str(payload.get("event_id", ""))
         mid = self.link.publish(topic, payload, 1, False, user=[("event_id", event_id)])
         if mid is not None:
@@ -396,6 +403,9 @@ class Service:
             if not self.link.connected.is_set():
                 return
         for topic, e in list(self.pending_retained.items()):
+            if self.group is not None and not self.group.fence([e]):
+                self.pending_retained.pop(topic, None)  # its shard's lease lapsed meanwhile
+                continue
             if self.link.publish(topic, e.payload, e.qos, True, e.expiry_s) is not None:
                 self.pending_retained.pop(topic, None)
         self.engine.republish_all()  # live advisories and conditions at the next tick
@@ -504,6 +514,12 @@ class Service:
             log.warning("disconnected from the broker (%s)", c.reason)
         elif c.kind == "refused":
             log.error("the broker refused: %s", c.reason)
+        elif c.kind == "dropped":  # fenced: not sent again after a reconnect
+            seq = self.inflight.pop(c.mid, None)
+            if seq is not None:
+                self.handed.pop(seq, None)
+                self.store.outbox_done(seq)
+            self.metrics.group_fenced.inc()
         elif c.kind == "puback":
             seq = self.inflight.pop(c.mid, None)
             if seq is not None:
@@ -608,6 +624,10 @@ class Service:
                 log.exception("group step %s failed%s", getattr(step, "__name__", step),
                               f" ({dropped} similar suppressed)" if dropped else "")
 
+    def handle_command(self, m: Incoming) -> None:
+        """Act on a command now (a group's new holder, for commands kept as a standby)."""
+        self._handle_command(m)
+
     def _handle_command(self, m: Incoming) -> None:
         """``<prefix>/commands/<audience>/<verb>[/<user>]``: the audience in the topic lets a
         broker ACL decide who may act on whose advisories (the engine checks that it matches
@@ -632,10 +652,19 @@ class Service:
                               "facilities, safety or integrator)",
                      "request_id": None, "at": _iso(now)}
             effects = []
+        elif self.group is not None and m.on_reply is not None and self.group.route(
+                m, _advisory_id(m.payload), keep=False) != "answer":
+            # from this instance's web page: only the holder of the shard may act on it
+            reply = {"schema": "thermowarden.reply/1", "ok": False, "verb": verb[:32],
+                     "error": "this instance of the group does not hold the shard of that "
+                              "advisory; use the holder's page (its status record names "
+                              "its shards) or send the command over MQTT",
+                     "request_id": None, "at": _iso(now)}
+            effects = []
         else:
             if self.group is not None and m.on_reply is None and \
-                    not self.group.answers(_advisory_id(m.payload)):
-                return  # every member receives it: the one that holds the advisory answers
+                    self.group.route(m, _advisory_id(m.payload)) != "answer":
+                return  # every instance receives it: the holder of its shard answers
             identity = m.identity or (parts[2] if len(parts) == 3 else None)
             reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
                                                  identity=identity)
@@ -855,6 +884,8 @@ class Service:
         if self.delivery is not None:
             self.delivery.start()
         self.link.start()
+        if self.group is not None:
+            self.group.start()
         self.evaluate()
         freeze_heap()
         ready_sent = False
