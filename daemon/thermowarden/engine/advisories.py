@@ -445,7 +445,11 @@ class Advisories:
             for i in np.flatnonzero(live & cond.known & (target < rt.level)):
                 lower_to[i] = self._lowest_allowed(rt, int(i), int(target[i]))
             lower = live & (lower_to >= 0) & (lower_to < rt.level)
-            rt.leave_watch = bool((live & (lower_to > target)).any())
+            # a leave_when turns with the values, not the truths: step every tick while it
+            # keeps an advisory up, and while a lowering it allowed waits for its hold (it
+            # may stop allowing it before the hold is over)
+            rt.leave_watch = bool((live & (lower_to > target)).any()) or (
+                bool(rt.rule.level_leave) and bool(lower.any()))
             # a relapsing advisory whose lower level stopped holding again swings on: its
             # relapse lasts another CHATTER_WINDOW_S
             swung = live & ~lower & np.isfinite(rt.lower_since) & (rt.relapse_until > now)
