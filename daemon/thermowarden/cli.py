@@ -309,8 +309,13 @@ def cmd_replay(args: argparse.Namespace) -> int:
         label_b = "with " + ", ".join(f"{k}={v:g}" for k, v in settings.items())
         print(format_comparison(compare(first, second), "as configured", label_b))
     elif args.summary:
-        json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
-        print()
+        if args.json:
+            json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
+            print()
+        else:
+            from thermowarden.summary_text import format_summary
+
+            print(format_summary(summarise(second)))
     return 0
 
 
@@ -609,7 +614,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
     p.add_argument("feed", metavar="FEED", help="JSON lines of {t, topic, payload}")
     p.add_argument("--summary", action="store_true",
-                   help="per rule and audience: advisories raised, time active, notifications")
+                   help="per audience and rule: notifications, advisories raised and "
+                   "cleared, time active, advice followed, advice ahead of time (a table)")
+    p.add_argument("--json", action="store_true",
+                   help="with --summary: print the summary as JSON, every figure")
     p.add_argument("--full", action="store_true", help="print whole event payloads")
     p.add_argument("--tick", type=float, metavar="SECONDS",
                    help="evaluation interval in feed time (default: the site's tick_s)")

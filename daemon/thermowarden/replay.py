@@ -82,6 +82,10 @@ class ReplayResult:
     rejected: dict[str, int] = field(default_factory=dict)
     foresees: dict[str, tuple[str, str | None]] = field(default_factory=dict)
     """Ahead-of-time rule -> (the rule it foresees, at which priority), for the summary."""
+    titles: dict[str, str] = field(default_factory=dict)
+    """Rule -> its title (the words the summary shows beside the rule's name)."""
+    effect_quantities: dict[str, str] = field(default_factory=dict)
+    """Rule -> the index whose change its effectiveness figures are in."""
     messages: int = 0
     start: float = math.nan
     end: float = math.nan
@@ -191,6 +195,9 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     result = ReplayResult()
     result.foresees = {rt.rule.key: (f.rule, f.priority) for rt in engine.rules
                        if (f := rt.rule.config.foresees) is not None}
+    result.titles = {rt.rule.key: rt.rule.config.title for rt in engine.rules}
+    result.effect_quantities = {rt.rule.key: e.quantity for rt in engine.rules
+                                if (e := rt.rule.config.effect) is not None}
     next_tick: float | None = None
     batch = max(1, min(MAX_BATCH_TICKS, BATCH_ROWS // max(model.n_spaces, 1)))
     captures: list[Capture] = []
@@ -280,7 +287,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     effect: dict[tuple[str, str], dict[str, Any]] = {}
     for e in engine_events:
         key = f"{e['rule']}|{e['audience']}"
-        r = rules.setdefault(key, {"rule": e["rule"], "audience": e["audience"], "raised": 0,
+        r = rules.setdefault(key, {"rule": e["rule"], "title": result.titles.get(e["rule"]),
+                                   "audience": e["audience"], "raised": 0,
                                    "cleared": 0, "active_s": [], "max_priority": "low"})
         if ORDER.index(e["priority"]) > ORDER.index(r["max_priority"]):
             r["max_priority"] = e["priority"]
@@ -298,7 +306,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
                                  "minutes": round((_ts(e["at"]) - opened[0]) / 60, 1)})
             acted = e.get("acted_on")
             eff = effect.setdefault((e["rule"], e["space"]), {
-                "rule": e["rule"], "space": e["space"], "given": 0, "followed": 0,
+                "rule": e["rule"], "space": e["space"],
+                "quantity": result.effect_quantities.get(e["rule"]), "given": 0, "followed": 0,
                 "minutes_to_follow": [], "helped": 0, "predicted_change": [],
                 "realised_change": []})
             eff["given"] += 1
@@ -339,8 +348,11 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
                    if math.isfinite(result.end) and math.isfinite(result.start) else 1.0)
         raised_here = [e for e in engine_events if e["audience"] == aud]
         sent_ids = {(e.get("advisory_id"), e["event"], e["at"]) for e in mine}
-        held = sum(1 for e in raised_here
-                   if (e.get("advisory_id"), e["event"], e["at"]) not in sent_ids)
+        unsent = [e for e in raised_here
+                  if (e.get("advisory_id"), e["event"], e["at"]) not in sent_ids]
+        # an ahead-of-time advisory that turned into the advisory it foresaw ends without a
+        # message of its own (that advisory's message says it); not a flood's doing
+        turned = sum(1 for e in unsent if e.get("turned_into"))
         audiences[aud] = {
             "notifications": len(mine),
             "notifications_per_day": round(len(mine) / days, 1),
@@ -348,7 +360,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
             "renotifications": sum(1 for e in mine if e["event"] == "renotified"),
             "flood_summaries": sum(1 for e in mine if e["event"] == "summary"),
             "events_raised_by_engine": len(raised_here),
-            "held_back_in_summaries": held,
+            "held_back_in_summaries": len(unsent) - turned,
+            "ended_by_turning_into_foreseen": turned,
         }
     effectiveness = []
     for eff in sorted(effect.values(), key=lambda x: (x["rule"], x["space"])):
@@ -362,7 +375,11 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
         eff["mean_realised_change"] = round(sum(rz) / len(rz), 2) if rz else None
         effectiveness.append(eff)
     standing.sort(key=lambda x: -(x["minutes"] or 0))
-    return {"messages": result.messages, "rejected": result.rejected, "rules": out_rules,
+    hours = ((result.end - result.start) / 3600.0
+             if math.isfinite(result.end) and math.isfinite(result.start) else None)
+    return {"messages": result.messages,
+            "feed_hours": round(hours, 2) if hours is not None else None,
+            "rejected": result.rejected, "rules": out_rules,
             "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
             "audiences": audiences, "standing": standing[:5],
             "effectiveness": effectiveness,
