@@ -237,7 +237,6 @@ def cmd_replay(args: argparse.Namespace) -> int:
         ReplayResult,
         SettingError,
         compare,
-        format_comparison,
         parse_setting,
         read_feed,
         replay,
@@ -307,6 +306,8 @@ def cmd_replay(args: argparse.Namespace) -> int:
             progress.clear()
     if args.compare:
         label_b = "with " + ", ".join(f"{k}={v:g}" for k, v in settings.items())
+        from thermowarden.summary_text import format_comparison
+
         print(format_comparison(compare(first, second), "as configured", label_b))
     elif args.summary:
         if args.json:
@@ -626,7 +627,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "for every space; repeatable")
     p.add_argument("--compare", action="store_true",
                    help="replay twice, as configured and with the --set values, and print "
-                   "the differences in advisories, notifications and time active")
+                   "what --summary counts for both side by side (advisories per rule, "
+                   "notifications per audience)")
     p.add_argument("--conditions", metavar="FILE",
                    help="write the inputs and indices of every space over time (CSV, or "
                    "Parquet when FILE ends in .parquet and pyarrow is installed)")

@@ -132,3 +132,43 @@ def format_summary(s: dict[str, Any]) -> str:
             for u in a["unwarned_crossings"]:
                 lines.append(f"  no warning: {a['foresees']} in {u['space']} at {u['at']}")
     return "\n".join(lines)
+
+
+def _ab_heads(heads: Sequence[str]) -> list[str]:
+    """Each heading over its A column (the B column's heading is just B)."""
+    depth = max(h.count("\n") + 1 for h in heads)
+    out = []
+    for h in heads:
+        pad = "\n" * (depth - h.count("\n") - 1)
+        out += [f"{pad}{h}\nA", "\n" * depth + "B"]
+    return out
+
+
+def format_comparison(c: dict[str, list[dict[str, Any]]], label_a: str, label_b: str) -> str:
+    """:func:`thermowarden.replay.compare` as text: per rule (grouped by audience), then per
+    audience, each figure for A and B side by side; a changed row marked ``*``."""
+    lines = [f"A: {label_a}", f"B: {label_b}", "",
+             "Advisories per rule (raised by the engine, whether sent or held back under a "
+             "flood summary)"]
+    figures: tuple[str, ...] = ("raised", "cleared", "still_active", "max_active_min")
+    heads: tuple[str, ...] = ("raised", "cleared", "active\nat the end",
+                              "longest\nactive (min)")
+    for aud in sorted({r["audience"] for r in c["rules"]}):
+        rows = [["*" if r["changed"] else "", _rule_words(r["rule"], r.get("title")),
+                 *(_minutes(v) for f in figures for v in r[f])]
+                for r in c["rules"] if r["audience"] == aud]
+        lines += _table([" ", f"\n\nfor {aud}", *_ab_heads(heads)], rows,
+                        [False, False, *([True] * 2 * len(figures))])
+    lines += ["", "Notifications per audience"]
+    figures = ("notifications", "renotifications", "busiest_10_min", "flood_summaries",
+               "held_back_in_summaries")
+    heads = ("sent", "reminders", "busiest\n10 minutes", "flood\nsummaries",
+             "held back in\nsummaries")
+    rows = [["*" if r["changed"] else "", r["audience"], *(v for f in figures for v in r[f])]
+            for r in c["audiences"]]
+    lines += _table([" ", "\n\naudience", *_ab_heads(heads)], rows,
+                    [False, False, *([True] * 2 * len(figures))])
+    changed = sum(r["changed"] for r in c["rules"])
+    lines.append("")
+    lines.append(f"{changed} rule(s) changed" if changed else "no difference")
+    return "\n".join(lines)
