@@ -52,82 +52,6 @@ def _read_json(stream: TextIO, name: str) -> object:
 TABLE_WIDTH = 100
 """Columns of ``assess --format table``: every line fits."""
 
-DECIMALS = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 0, "m/s": 2, "1": 2}
-"""Decimals shown per unit in the table (the JSON output keeps every digit)."""
-
-SHOWN_UNIT = {"humidex": "(°C equivalent)"}
-"""Units shown for dimensionless indices that are read on a temperature scale."""
-
-
-def _shown_value(name: str, value: object, unit: str) -> str:
-    if not isinstance(value, int | float) or isinstance(value, bool):
-        return str(value)
-    digits = 1 if name in SHOWN_UNIT else DECIMALS.get(unit, 2)
-    text = f"{value:.{digits}f}"
-    label = SHOWN_UNIT.get(name, "" if unit in ("1", "category", "") else unit)
-    return f"{text} {label}".rstrip()
-
-
-def _fit(text: str, width: int) -> str:
-    return text if len(text) <= width else text[:width - 3] + "..."
-
-
-def _format_table(result: dict[str, dict[str, object]]) -> str:
-    """One line per index, at most TABLE_WIDTH columns: name, value and unit, then the
-    method (or why there is no value), shortened to fit; the JSON output has them in full."""
-    width = max(len(k) for k in result)
-    lines = []
-    for name, item in result.items():
-        value = item["value"]
-        if value is None:
-            shown, note = "-", f"({item.get('reason')})"
-        else:
-            shown, note = _shown_value(name, value, str(item["unit"])), str(item["method"])
-        line = f"{name:<{width}}  {shown:<20} {note}"
-        lines.append(_fit(line, TABLE_WIDTH))
-    return "\n".join(lines)
-
-
-def _verdict(result: dict[str, dict[str, object]], acclimatised: bool = False) -> str:
-    """One line for a person: the heat-stress margin when WBGT is known, else comfort. The
-    reference is that of the workers as given (``acclimatised``; not acclimatised unless
-    said): NIOSH REL for acclimatised workers, with the RAL as their action value; the RAL
-    for workers not acclimatised."""
-    def num(key: str) -> float | None:
-        v = result.get(key, {}).get("value")
-        return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
-
-    wbgt = num("wbgt_effective")
-    ref_u, ref_a = num("wbgt_reference_unacclimatised"), num("wbgt_reference_acclimatised")
-    if wbgt is not None and ref_u is not None and ref_a is not None:
-        def diff(ref: float) -> str:
-            d = wbgt - ref
-            # a margin smaller than the instruments' accuracy is no margin
-            return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
-        if acclimatised:
-            head = ("HEAT STRESS (acclimatised, above their limit)" if wbgt - ref_a > -0.5
-                    else "HEAT STRESS (acclimatised, above the action value)"
-                    if wbgt - ref_u > -0.5 else "below the WBGT reference (acclimatised)")
-            return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_a:.1f} °C ({diff(ref_a)}; "
-                    f"action value {ref_u:.1f} °C, {diff(ref_u)})")
-        head = ("HEAT STRESS (not acclimatised, above even the acclimatised limit)"
-                if wbgt - ref_a > -0.5 else "HEAT STRESS (not acclimatised)"
-                if wbgt - ref_u > -0.5 else "below the WBGT reference (not acclimatised)")
-        above_a = (f"; acclimatised limit {ref_a:.1f} °C, {diff(ref_a)}"
-                   if wbgt - ref_a > -0.5 else "")
-        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_u:.1f} °C "
-                f"({diff(ref_u)}{above_a})")
-    pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
-    if pmv is not None:
-        feel = ("neutral" if abs(pmv) <= 0.5 else
-                ("warm" if pmv > 0 else "cool") if abs(pmv) <= 1.5 else
-                ("hot" if pmv > 0 else "cold"))
-        cat = result.get("comfort_category_iso", {}).get("value")
-        extra = f", ISO 7730 category {cat}" if cat else ""
-        return f"thermal sensation {feel} (PMV {pmv:+.2f}{extra})"
-    return "no WBGT or PMV from these readings (the reasons are below)"
-
-
 def _print_issues(exc: Exception) -> None:
     """Print every problem of a refused configuration, one per line."""
     for issue in getattr(exc, "issues", [exc]):
@@ -183,13 +107,30 @@ def cmd_assess(args: argparse.Namespace) -> int:
     shown = "; ".join(f"{q.replace('_', ' ')} {n.removeprefix('assumed: ')}"
                       for q, n in assumed.items())
     if args.format == "table":
-        print(textwrap.fill(_verdict(result, bool(inputs.acclimatised[0])), TABLE_WIDTH,
+        from thermowarden.assess_text import (
+            defaults_taken,
+            format_table,
+            place_kind,
+            shown_rows,
+            verdict,
+        )
+
+        kind, why = place_kind(data)
+        print(textwrap.fill(verdict(result, kind, bool(inputs.acclimatised[0])), TABLE_WIDTH,
                             subsequent_indent="  "))
+        print(textwrap.fill(f"Read as {kind} ({why}).", TABLE_WIDTH))
         if shown:
             print(textwrap.fill(f"Not measured, assumed: {shown}.", TABLE_WIDTH))
+        taken = defaults_taken(data, kind)
+        if taken:
+            print(textwrap.fill(f"Not given, taken as: {'; '.join(taken)}.", TABLE_WIDTH))
         print()
-        print(_format_table(result))
-        if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
+        names = shown_rows(result, kind, args.all, bool(inputs.hot_work[0]))
+        print(format_table(result, names, TABLE_WIDTH))
+        if len(names) < len(result):
+            print(f"({len(result) - len(names)} rows that do not apply here left out; "
+                  "--all shows every row)")
+        if any(result[k]["value"] is not None for k in names if k.startswith(("wbgt", "phs"))):
             print()
             print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
@@ -237,7 +178,6 @@ def cmd_replay(args: argparse.Namespace) -> int:
         ReplayResult,
         SettingError,
         compare,
-        format_comparison,
         parse_setting,
         read_feed,
         replay,
@@ -307,10 +247,17 @@ def cmd_replay(args: argparse.Namespace) -> int:
             progress.clear()
     if args.compare:
         label_b = "with " + ", ".join(f"{k}={v:g}" for k, v in settings.items())
+        from thermowarden.summary_text import format_comparison
+
         print(format_comparison(compare(first, second), "as configured", label_b))
     elif args.summary:
-        json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
-        print()
+        if args.json:
+            json.dump(summarise(second), sys.stdout, indent=2, ensure_ascii=False)
+            print()
+        else:
+            from thermowarden.summary_text import format_summary
+
+            print(format_summary(summarise(second)))
     return 0
 
 
@@ -598,6 +545,8 @@ def build_parser() -> argparse.ArgumentParser:
                                       "out")
     p.add_argument("--input", metavar="FILE", help="JSON file of readings (default: stdin)")
     p.add_argument("--format", choices=("json", "table"), default="json")
+    p.add_argument("--all", action="store_true",
+                   help="with --format table: every row, also those that do not apply")
     p.set_defaults(func=cmd_assess)
 
     p = sub.add_parser("check", help="validate a site file, its CSV and rule packs")
@@ -609,7 +558,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
     p.add_argument("feed", metavar="FEED", help="JSON lines of {t, topic, payload}")
     p.add_argument("--summary", action="store_true",
-                   help="per rule and audience: advisories raised, time active, notifications")
+                   help="per audience and rule: notifications, advisories raised and "
+                   "cleared, time active, advice followed, advice ahead of time (a table)")
+    p.add_argument("--json", action="store_true",
+                   help="with --summary: print the summary as JSON, every figure")
     p.add_argument("--full", action="store_true", help="print whole event payloads")
     p.add_argument("--tick", type=float, metavar="SECONDS",
                    help="evaluation interval in feed time (default: the site's tick_s)")
@@ -618,7 +570,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "for every space; repeatable")
     p.add_argument("--compare", action="store_true",
                    help="replay twice, as configured and with the --set values, and print "
-                   "the differences in advisories, notifications and time active")
+                   "what --summary counts for both side by side (advisories per rule, "
+                   "notifications per audience)")
     p.add_argument("--conditions", metavar="FILE",
                    help="write the inputs and indices of every space over time (CSV, or "
                    "Parquet when FILE ends in .parquet and pyarrow is installed)")

@@ -82,6 +82,10 @@ class ReplayResult:
     rejected: dict[str, int] = field(default_factory=dict)
     foresees: dict[str, tuple[str, str | None]] = field(default_factory=dict)
     """Ahead-of-time rule -> (the rule it foresees, at which priority), for the summary."""
+    titles: dict[str, str] = field(default_factory=dict)
+    """Rule -> its title (the words the summary shows beside the rule's name)."""
+    effect_quantities: dict[str, str] = field(default_factory=dict)
+    """Rule -> the index whose change its effectiveness figures are in."""
     messages: int = 0
     start: float = math.nan
     end: float = math.nan
@@ -191,6 +195,9 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     result = ReplayResult()
     result.foresees = {rt.rule.key: (f.rule, f.priority) for rt in engine.rules
                        if (f := rt.rule.config.foresees) is not None}
+    result.titles = {rt.rule.key: rt.rule.config.title for rt in engine.rules}
+    result.effect_quantities = {rt.rule.key: e.quantity for rt in engine.rules
+                                if (e := rt.rule.config.effect) is not None}
     next_tick: float | None = None
     batch = max(1, min(MAX_BATCH_TICKS, BATCH_ROWS // max(model.n_spaces, 1)))
     captures: list[Capture] = []
@@ -280,7 +287,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     effect: dict[tuple[str, str], dict[str, Any]] = {}
     for e in engine_events:
         key = f"{e['rule']}|{e['audience']}"
-        r = rules.setdefault(key, {"rule": e["rule"], "audience": e["audience"], "raised": 0,
+        r = rules.setdefault(key, {"rule": e["rule"], "title": result.titles.get(e["rule"]),
+                                   "audience": e["audience"], "raised": 0,
                                    "cleared": 0, "active_s": [], "max_priority": "low"})
         if ORDER.index(e["priority"]) > ORDER.index(r["max_priority"]):
             r["max_priority"] = e["priority"]
@@ -298,7 +306,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
                                  "minutes": round((_ts(e["at"]) - opened[0]) / 60, 1)})
             acted = e.get("acted_on")
             eff = effect.setdefault((e["rule"], e["space"]), {
-                "rule": e["rule"], "space": e["space"], "given": 0, "followed": 0,
+                "rule": e["rule"], "space": e["space"],
+                "quantity": result.effect_quantities.get(e["rule"]), "given": 0, "followed": 0,
                 "minutes_to_follow": [], "helped": 0, "predicted_change": [],
                 "realised_change": []})
             eff["given"] += 1
@@ -339,8 +348,11 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
                    if math.isfinite(result.end) and math.isfinite(result.start) else 1.0)
         raised_here = [e for e in engine_events if e["audience"] == aud]
         sent_ids = {(e.get("advisory_id"), e["event"], e["at"]) for e in mine}
-        held = sum(1 for e in raised_here
-                   if (e.get("advisory_id"), e["event"], e["at"]) not in sent_ids)
+        unsent = [e for e in raised_here
+                  if (e.get("advisory_id"), e["event"], e["at"]) not in sent_ids]
+        # an ahead-of-time advisory that turned into the advisory it foresaw ends without a
+        # message of its own (that advisory's message says it); not a flood's doing
+        turned = sum(1 for e in unsent if e.get("turned_into"))
         audiences[aud] = {
             "notifications": len(mine),
             "notifications_per_day": round(len(mine) / days, 1),
@@ -348,7 +360,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
             "renotifications": sum(1 for e in mine if e["event"] == "renotified"),
             "flood_summaries": sum(1 for e in mine if e["event"] == "summary"),
             "events_raised_by_engine": len(raised_here),
-            "held_back_in_summaries": held,
+            "held_back_in_summaries": len(unsent) - turned,
+            "ended_by_turning_into_foreseen": turned,
         }
     effectiveness = []
     for eff in sorted(effect.values(), key=lambda x: (x["rule"], x["space"])):
@@ -362,78 +375,49 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
         eff["mean_realised_change"] = round(sum(rz) / len(rz), 2) if rz else None
         effectiveness.append(eff)
     standing.sort(key=lambda x: -(x["minutes"] or 0))
-    return {"messages": result.messages, "rejected": result.rejected, "rules": out_rules,
+    hours = ((result.end - result.start) / 3600.0
+             if math.isfinite(result.end) and math.isfinite(result.start) else None)
+    return {"messages": result.messages,
+            "feed_hours": round(hours, 2) if hours is not None else None,
+            "rejected": result.rejected, "rules": out_rules,
             "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
             "audiences": audiences, "standing": standing[:5],
             "effectiveness": effectiveness,
             "ahead_of_time": ahead_summary(engine_events, result.foresees, end)}
 
 
-def active_minutes(result: ReplayResult) -> dict[tuple[str, str], float]:
-    """(rule, audience) -> minutes advisories were live, those still live at the end of
-    the feed counted until then."""
-    import datetime as dt
-
-    def ts(s: str) -> float:
-        return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
-
-    open_at: dict[str, tuple[tuple[str, str], float]] = {}
-    out: dict[tuple[str, str], float] = {}
-    for e in (event_line(x) if "schema" in x else x for x in result.events):
-        if e["event"] == "summary":
-            continue
-        key = (e["rule"], e["audience"])
-        out.setdefault(key, 0.0)
-        if e["event"] == "raised":
-            open_at[e["advisory_id"]] = (key, ts(e["at"]))
-        elif e["event"] == "cleared" and e["advisory_id"] in open_at:
-            k, start = open_at.pop(e["advisory_id"])
-            out[k] += (ts(e["at"]) - start) / 60.0
-    for k, start in open_at.values():
-        if math.isfinite(result.end):
-            out[k] += max(0.0, result.end - start) / 60.0
-    return out
+RULE_FIGURES = ("raised", "cleared", "still_active", "max_active_min")
+"""What ``--compare`` puts side by side per rule and audience: ``summarise``'s own figures."""
+AUDIENCE_FIGURES = ("notifications", "renotifications", "busiest_10_min", "flood_summaries",
+                    "held_back_in_summaries")
+"""What ``--compare`` puts side by side per audience: ``summarise``'s own figures."""
 
 
-def compare(a: ReplayResult, b: ReplayResult) -> list[dict[str, Any]]:
-    """Side by side per rule and audience: advisories raised, notifications received and
-    minutes active in replay ``a`` and replay ``b`` (the same feed, other settings)."""
+def compare(a: ReplayResult, b: ReplayResult) -> dict[str, list[dict[str, Any]]]:
+    """Side by side, replay ``a`` and replay ``b`` (the same feed, other settings), counted
+    exactly as :func:`summarise` counts each: per rule and audience the advisories raised by
+    the engine (sent or held back under a flood summary), cleared, active at the end and
+    the longest time active; per audience the notifications sent, reminders, the busiest
+    10 minutes, flood summaries and events held back in them. A rule or audience present in
+    one replay only is shown with zeros (no figure) in the other."""
+    sa, sb = summarise(a), summarise(b)
 
-    def counts(r: ReplayResult) -> tuple[dict[tuple[str, str], int], dict[tuple[str, str], int]]:
-        raised: dict[tuple[str, str], int] = {}
-        notes: dict[tuple[str, str], int] = {}
-        for e in (event_line(x) if "schema" in x else x for x in r.events):
-            key = (e["rule"] or "(summary)", e["audience"])
-            notes[key] = notes.get(key, 0) + 1
-            if e["event"] == "raised":
-                raised[key] = raised.get(key, 0) + 1
-        return raised, notes
+    def keyed(s: dict[str, Any]) -> dict[tuple[str, str], dict[str, Any]]:
+        return {(r["rule"], r["audience"]): r for r in s["rules"]}
 
-    ra, na = counts(a)
-    rb, nb = counts(b)
-    ma, mb = active_minutes(a), active_minutes(b)
-    rows = []
-    for key in sorted(set(na) | set(nb)):
-        pairs = {"raised": (ra.get(key, 0), rb.get(key, 0)),
-                 "notifications": (na.get(key, 0), nb.get(key, 0)),
-                 "active_min": (round(ma.get(key, 0.0), 1), round(mb.get(key, 0.0), 1))}
-        rows.append({"rule": key[0], "audience": key[1], **pairs,
-                     "changed": any(x != y for x, y in pairs.values())})
-    return rows
-
-
-def format_comparison(rows: list[dict[str, Any]], label_a: str, label_b: str) -> str:
-    """The comparison as a text table; changed rows marked with ``*``."""
-    head = (f"  {'rule':<34} {'audience':<10} {'raised':>13} {'notifications':>15} "
-            f"{'minutes active':>19}")
-    lines = [f"A: {label_a}", f"B: {label_b}", "", head,
-             f"  {'':<34} {'':<10} {'A':>6} {'B':>6} {'A':>7} {'B':>7} {'A':>9} {'B':>9}"]
-    for r in rows:
-        mark = "*" if r["changed"] else " "
-        lines.append(f"{mark} {r['rule']:<34} {r['audience']:<10} {r['raised'][0]:>6} "
-                     f"{r['raised'][1]:>6} {r['notifications'][0]:>7} {r['notifications'][1]:>7} "
-                     f"{r['active_min'][0]:>9} {r['active_min'][1]:>9}")
-    changed = sum(r["changed"] for r in rows)
-    lines.append("")
-    lines.append(f"{changed} rule(s) changed" if changed else "no difference")
-    return "\n".join(lines)
+    ra, rb = keyed(sa), keyed(sb)
+    rules = []
+    for key in sorted(set(ra) | set(rb), key=lambda k: (k[1], k[0])):
+        x, y = ra.get(key, {}), rb.get(key, {})
+        pairs = {f: (x.get(f, 0 if f != "max_active_min" else None),
+                     y.get(f, 0 if f != "max_active_min" else None)) for f in RULE_FIGURES}
+        rules.append({"rule": key[0], "audience": key[1],
+                      "title": x.get("title") or y.get("title"), **pairs,
+                      "changed": any(p != q for p, q in pairs.values())})
+    audiences = []
+    for aud in sorted(set(sa["audiences"]) | set(sb["audiences"])):
+        x, y = sa["audiences"].get(aud, {}), sb["audiences"].get(aud, {})
+        pairs = {f: (x.get(f, 0), y.get(f, 0)) for f in AUDIENCE_FIGURES}
+        audiences.append({"audience": aud, **pairs,
+                          "changed": any(p != q for p, q in pairs.values())})
+    return {"rules": rules, "audiences": audiences}

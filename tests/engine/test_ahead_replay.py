@@ -107,8 +107,8 @@ def test_notifications_rise_by_the_ahead_messages_alone(days) -> None:
 
 def test_replay_summary_prints_the_ahead_of_time_figures(tmp_path) -> None:
     out = subprocess.run([sys.executable, "-m", "thermowarden.cli", "replay", "--config",
-                          str(SITE), str(FEED), "--summary"], capture_output=True, text=True,
-                         timeout=COMMAND_LIMIT_S, check=True)
+                          str(SITE), str(FEED), "--summary", "--json"], capture_output=True,
+                         text=True, timeout=COMMAND_LIMIT_S, check=True)
     figures = json.loads(out.stdout)["ahead_of_time"]
     assert {r["rule"] for r in figures} == {"ahead.wbgt_action", "ahead.wbgt_limit",
                                             "ahead.sun_on_windows"}
