@@ -1,0 +1,193 @@
+"""Shards and the assignment rule (pure): stable shard names, the fair share, standbys that
+take first, damping of hand-overs, nothing for an instance that cannot reach the store.
+The simulation drives several instances through one shared table of leases, as a store
+would (a take succeeds only on a free shard), round by round."""
+
+from __future__ import annotations
+
+import math
+import random
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from thermowarden.core.shards import (
+    Plan,
+    View,
+    bucket_name,
+    plan,
+    ranking,
+    shard_of,
+    share,
+    standbys,
+)
+
+SHARDS = [f"bucket-{k:02d}" for k in range(16)]
+
+
+def test_shard_names_are_stable_and_declared_first() -> None:
+    # fixed values: a change of the hash would move every undeclared space of every site
+    assert bucket_name("hall-1", 16) == bucket_name("hall-1", 16)
+    assert {bucket_name(f"s{k}", 16) for k in range(2000)} == set(SHARDS)
+    assert bucket_name("s1", 100).startswith("bucket-") and len(bucket_name("s1", 100)) == 9
+    assert shard_of("s1", "furnace-bay", "works-a", 16) == "furnace-bay"
+    assert shard_of("s1", None, "works-a", 16) == "works-a"
+    assert shard_of("s1", None, None, 16) == bucket_name("s1", 16)
+
+
+def test_standbys_leave_out_the_holder() -> None:
+    live = ["a", "b", "c", "d"]
+    order = ranking("bucket-03", live)
+    assert sorted(order) == live
+    assert standbys("bucket-03", order[0], live, 1) == [order[1]]
+    assert standbys("bucket-03", order[1], live, 2) == [order[0], order[2]]
+    assert share(16, 3) == 6 and share(16, 0) == 0
+
+
+def test_cut_off_from_the_store_takes_nothing_and_lets_go() -> None:
+    v = View("a", frozenset({"b"}), SHARDS, {"bucket-00": "a"}, now=100.0)
+    p = plan(v, replicas=1, grace_s=1.0, settle_s=3.0)
+    assert p.take == () and p.standby == frozenset() and p.release == ("bucket-00",)
+
+
+def test_alone_it_takes_its_share_only_of_what_it_sees() -> None:
+    # it sees two live instances (the other's leases not yet taken): never more than half
+    v = View("a", frozenset({"a", "b"}), SHARDS, {}, now=100.0,
+             free_since={s: 0.0 for s in SHARDS})
+    p = plan(v, replicas=1, grace_s=1.0, settle_s=3.0)
+    assert len(p.take) == 8
+
+
+class Store:
+    """A lease table as the stores keep it: a take succeeds only on a free shard."""
+
+    def __init__(self) -> None:
+        self.holders: dict[str, str] = {}
+        self.takers: list[tuple[str, str]] = []
+
+    def take(self, shard: str, me: str) -> bool:
+        if shard in self.holders:
+            return False
+        self.holders[shard] = me
+        self.takers.append((shard, me))
+        return True
+
+
+class Sim:
+    def __init__(self, names: list[str], replicas: int = 1, seed: int = 1,
+                 settle_s: float = 3.0) -> None:
+        self.settle_s = settle_s
+        self.store = Store()
+        self.live = set(names)
+        self.now = 0.0
+        self.free_since: dict[str, dict[str, float]] = {n: {} for n in names}
+        self.live_since = 0.0
+        self.replicas = replicas
+        self.rng = random.Random(seed)
+        self.plans: dict[str, Plan] = {}
+        self.last_holder: dict[str, dict[str, str]] = {n: {} for n in names}
+
+    def round(self) -> None:
+        self.now += 1.0
+        order = sorted(self.live)
+        self.rng.shuffle(order)  # instances act in any order within a round
+        for me in order:
+            seen = dict(self.store.holders)
+            fs = self.free_since.setdefault(me, {})
+            last = self.last_holder.setdefault(me, {})
+            last.update(seen)
+            for s in SHARDS:
+                if s in seen:
+                    fs.pop(s, None)
+                else:
+                    fs.setdefault(s, self.now)
+            p = plan(View(me, frozenset(self.live), SHARDS, seen, self.now, dict(fs),
+                          self.live_since, dict(last)),
+                     replicas=self.replicas, grace_s=1.0, settle_s=self.settle_s)
+            self.plans[me] = p
+            for s in p.release:
+                del self.store.holders[s]
+            for s in p.take:
+                self.store.take(s, me)
+
+    def counts(self) -> dict[str, int]:
+        out = {m: 0 for m in self.live}
+        for h in self.store.holders.values():
+            out[h] += 1
+        return out
+
+    def settled(self) -> bool:
+        """Every shard held, nobody above its share, nothing to hand over."""
+        c = self.counts()
+        return (len(self.store.holders) == len(SHARDS)
+                and max(c.values()) <= share(len(SHARDS), len(self.live))
+                and all(not p.release for p in self.plans.values()))
+
+    def run(self, rounds: int = 60) -> int:
+        for k in range(rounds):
+            self.round()
+            if self.settled():
+                return k + 1
+        raise AssertionError(f"not settled: {self.counts()}")
+
+
+def test_three_instances_settle_and_a_dead_one_goes_to_its_standbys() -> None:
+    sim = Sim(["a", "b", "c"], settle_s=30.0)
+    sim.run()
+    assert max(sim.counts().values()) <= 6
+    # every held shard has a standby that is not its holder, and everyone computes the same
+    before = dict(sim.store.holders)
+    sim.round()
+    stand = {s: {m for m, p in sim.plans.items() if s in p.standby} for s in SHARDS}
+    for s, h in before.items():
+        assert len(stand[s]) == 1 and h not in stand[s]
+    # "b" dies: its presence and leases expire together
+    dead = [s for s, h in sim.store.holders.items() if h == "b"]
+    sim.live.discard("b")
+    sim.live_since = sim.now
+    for s in dead:
+        del sim.store.holders[s]
+    sim.store.takers.clear()
+    for _ in range(5):
+        sim.round()
+    # the warm standby took each (above its share if need be), and nothing else moved
+    assert dict(sim.store.takers) == {s: next(iter(stand[s])) for s in dead}
+    assert max(sim.counts().values()) <= 2 * share(16, 2)
+    # once the live set has been steady for settle_s, shards above the share go, one a
+    # round, each to its standby (which has stood by for it since the takeover)
+    sim.store.takers.clear()
+    sim.round()
+    standing = {s: {m for m, p in sim.plans.items() if s in p.standby} for s in SHARDS}
+    sim.run()
+    assert max(sim.counts().values()) <= share(16, 2)
+    for s, m in sim.store.takers:
+        assert m in standing[s]
+
+
+def test_a_newcomer_gets_its_share_one_shard_a_round_after_settling() -> None:
+    sim = Sim(["a", "b"])
+    sim.run()
+    moves_before = len(sim.store.takers)
+    sim.live.add("c")
+    sim.live_since = sim.now
+    rounds = sim.run()
+    assert rounds >= 3  # nothing was handed over before the live set had settled
+    moved = len(sim.store.takers) - moves_before
+    assert moved == sim.counts()["c"] <= 6  # only what the newcomer took moved
+    assert sim.counts()["c"] >= 4
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.integers(1, 6), st.integers(0, 1000), st.integers(1, 2))
+def test_every_shard_one_holder_never_above_share(n: int, seed: int, replicas: int) -> None:
+    names = [f"i{k}" for k in range(n)]
+    sim = Sim(names, replicas=replicas, seed=seed)
+    for _ in range(40):
+        sim.round()
+        assert max(sim.counts().values(), default=0) <= math.ceil(len(SHARDS) / n)
+    assert len(sim.store.holders) == len(SHARDS)
+    # the standbys: ``replicas`` per shard (fewer only when there are not enough others)
+    sim.round()
+    for s in SHARDS:
+        count = sum(1 for p in sim.plans.values() if s in p.standby)
+        assert count == min(replicas, n - 1)
