@@ -284,6 +284,14 @@ class FaultRun:
         for s in spaces:
             self.values[s] = dict(ABOVE_LIMIT)
 
+    def first_urgent(self, space: str) -> float | None:
+        """When the watcher first received the space's retained alert saying urgent."""
+        topic = f"{self.prefix}/spaces/{space}/advisories/{HEAT_RULE.replace('.', '/')}"
+        for m in self.watcher.snapshot():
+            if m.topic == topic and (m.json() or {}).get("priority") == "urgent":
+                return m.t
+        return None
+
     def wait_urgent(self, spaces: list[str]) -> None:
         wait_for(lambda: all((self.heat_record(s) or {}).get("priority") == "urgent"
                              for s in spaces), 3 * SLOW, f"urgent alerts in {spaces}")
