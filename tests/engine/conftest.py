@@ -76,14 +76,15 @@ rules:
 """
 
 
-def lab_engine(directory: pathlib.Path, pack: str = PACK, **options: float) -> Engine:
+def lab_engine(directory: pathlib.Path, pack: str = PACK, site_text: str = SITE,
+               **options: float) -> Engine:
     """An engine of the lab site and test pack (``pack``: its YAML) written to
     ``directory`` (created), started at 0 s; ``options`` go to :class:`Engine`
     (conditions every 60 s unless given)."""
     (directory / "packs").mkdir(parents=True, exist_ok=True)
     (directory / "packs" / "testpack.yaml").write_text(pack)
     site = directory / "site.yaml"
-    site.write_text(textwrap.dedent(SITE))
+    site.write_text(textwrap.dedent(site_text))
     config = load_site(site, {})
     packs = load_rule_packs(["testpack"], config.rule_dirs, base=site)
     return Engine(config, build_site_model(config), packs,

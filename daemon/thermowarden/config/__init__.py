@@ -19,6 +19,8 @@ The modules, along the path of the data (each imports only those above it):
   commands);
 - :mod:`~thermowarden.config.service`: message limits, evaluation, retention, web page;
 - :mod:`~thermowarden.config.delivery`: webhooks and e-mail per audience;
+- :mod:`~thermowarden.config.group`: a group of instances (lease store, TTL, standbys,
+  shard buckets);
 - :mod:`~thermowarden.config.site`: the site, its spaces and defaults, the whole file
   (:class:`SiteConfig`);
 - :mod:`~thermowarden.config.rule_packs`: rule pack models;
@@ -51,6 +53,7 @@ from thermowarden.config.delivery import (
     WebhookConfig,
 )
 from thermowarden.config.errors import ConfigError, ConfigIssue, issues_from_validation
+from thermowarden.config.group import GroupConfig, NatsStoreConfig, PostgresStoreConfig
 from thermowarden.config.loading import (
     CSV_COLUMNS,
     ENV_PREFIX,
@@ -121,7 +124,8 @@ __all__ = [
     "PRIORITIES", "RULE_ID", "SIDED_QUANTITIES", "SLUG", "WEEKDAYS",
     "AppliesTo", "Assumptions", "Audience", "AudienceDelivery", "BrokerConfig",
     "ClothingEnsemble", "CommandsConfig", "ConfigError", "ConfigIssue", "DeliveredEvent",
-    "DeliveryConfig", "EmailConfig", "EvaluationConfig", "ExternalIds", "Height",
+    "DeliveryConfig", "EmailConfig", "EvaluationConfig", "ExternalIds", "GroupConfig",
+    "Height", "NatsStoreConfig", "PostgresStoreConfig",
     "IngestConfig", "JsonFormat", "NumberFormat", "OccupancyConfig", "OutboxConfig",
     "OutputConfig", "ParameterValue", "PayloadFormat", "PeopleConfig", "PointBase",
     "PointConfig", "Position", "Priority", "Quantity", "RetentionConfig", "RetryConfig",

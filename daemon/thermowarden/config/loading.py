@@ -74,7 +74,7 @@ def _apply_environment(data: dict[str, Any], environ: Mapping[str, str],
 
 CSV_COLUMNS = ("id", "name", "kind", "hot_work", "ventilation", "met", "work_class", "clo",
                "acclimatised", "clothing", "posture", "rule_packs", "brick_class", "brick_uri",
-               "haystack_id", "haystack_tags", "phs_edition")
+               "haystack_id", "haystack_tags", "phs_edition", "building", "area")
 
 
 def _spaces_from_csv(path: pathlib.Path, shown: str) -> tuple[list[dict[str, Any]], SourceMap,

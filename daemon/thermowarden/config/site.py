@@ -14,6 +14,7 @@ from pydantic import Field, field_validator, model_validator
 from thermowarden.config.base import Strict
 from thermowarden.config.broker import BrokerConfig, CommandsConfig, OutboxConfig, OutputConfig
 from thermowarden.config.delivery import DeliveryConfig
+from thermowarden.config.group import SHARD_NAME, GroupConfig
 from thermowarden.config.points import PointConfig, TemplateConfig
 from thermowarden.config.service import (
     EvaluationConfig,
@@ -170,6 +171,10 @@ class SpaceConfig(Strict):
 
     id: str = Field(pattern=SLUG)
     name: str | None = None
+    building: str | None = Field(None, pattern=SHARD_NAME)
+    area: str | None = Field(None, pattern=SHARD_NAME)
+    """The area (else the building) is the space's shard in a group of instances; names
+    are site-wide. A space with neither goes to a hash bucket."""
     kind: Literal["indoor", "outdoor"] = "indoor"
     hot_work: bool = False
     ventilation: Literal["mechanical", "natural"] = "mechanical"
@@ -267,11 +272,16 @@ class SiteConfig(Strict):
     retention: RetentionConfig = Field(default_factory=RetentionConfig)
     delivery: DeliveryConfig = Field(default_factory=DeliveryConfig)
     web: WebConfig = Field(default_factory=WebConfig)
+    group: GroupConfig | None = None
 
     @model_validator(mode="after")
     def _check(self) -> SiteConfig:
         seen: set[str] = set()
         for space in self.spaces:
+            for declared in (space.area, space.building):
+                if declared is not None and declared.startswith("bucket-"):
+                    raise ValueError(f"space {space.id!r}: area and building names starting "
+                                     "with bucket- are kept for the hash buckets")
             if space.id in seen:
                 raise ValueError(f"space id {space.id!r} appears twice")
             seen.add(space.id)

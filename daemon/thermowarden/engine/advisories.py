@@ -659,7 +659,10 @@ class Advisories:
         payload = self.pub.event_payload(adv, event, now)
         n = rt.event_count.get(adv.space, 0) + 1
         rt.event_count[adv.space] = n
-        payload["event_id"] = f"{self.config.site.id}.{adv.id}.{n}"
+        # the shard and its lease epoch make the id unique across holders: a new holder
+        # continues the count under a new epoch, and an old one is fenced from its epoch
+        shard, epoch = self.pub.fence(adv.space)
+        payload["event_id"] = f"{self.config.site.id}.{shard}.{epoch}.{adv.id}.{n}"
         if event == "raised":
             self.raised_count[adv.audience] += 1
         elif event == "cleared":

@@ -24,6 +24,7 @@ import numpy as np
 from thermowarden.config import SiteConfig
 from thermowarden.core.indices import IndexTable
 from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.shards import shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.site_model import SITE, SiteModel
 
@@ -111,19 +112,34 @@ class Publication:
         """Spaces this instance evaluates (all, unless it is one of a group)."""
         self.moved_at = np.full(n, np.nan)
         """When each space moved to this instance from another of its group (epoch s)."""
+        buckets = config.group.shard_buckets if config.group is not None else 16
+        self.shards: list[str] = [shard_of(sp.id, sp.area, sp.building, buckets)
+                                  for sp in config.spaces]
+        """Each space's shard (its area, else its building, else a hash bucket)."""
+        self.epochs: dict[str, int] = {}
+        """Shard -> the lease epoch this instance publishes under (0 outside a group)."""
         self._indices_cache: tuple[IndexTable | None, list[Any]] = (None, [])
         self._points_cache: tuple[int, dict[int, list[int]], list[Any]] = (-1, {}, [])
         self._snap_cache: tuple[Any, dict[str, Any], list[Any]] = (None, {}, [])
+
+    # ------------------------------------------------------------------ fencing
+    def fence(self, i: int) -> tuple[str, int]:
+        """Space ``i``'s shard and the epoch this instance publishes it under."""
+        shard = self.shards[i]
+        return shard, self.epochs.get(shard, 0)
 
     # ------------------------------------------------------------------ advisories
     def advisory_payload(self, adv: Advisory) -> dict[str, Any]:
         """The advisory as published (schema ``thermowarden.advisory/1``)."""
         space = self.model.space(adv.space)
         state = "cleared" if adv.cleared_at is not None else adv.state.name.lower()
+        shard, epoch = self.fence(adv.space)
         return {
             "schema": ADVISORY_SCHEMA,
             "id": adv.id,
             "site": self.config.site.id,
+            "shard": shard,
+            "epoch": epoch,
             "space": space_ref(space),
             "rule": adv.rule,
             "audience": adv.audience,
@@ -177,8 +193,9 @@ class Publication:
     # ------------------------------------------------------------------ events
     def event_payload(self, adv: Advisory, event: str, now: float) -> dict[str, Any]:
         """One lifecycle transition of an advisory, as each audience receives it."""
-        return {"schema": EVENT_SCHEMA, "event": event, "at": iso(now),
-                "advisory": self.advisory_payload(adv)}
+        shard, epoch = self.fence(adv.space)
+        return {"schema": EVENT_SCHEMA, "event": event, "at": iso(now), "shard": shard,
+                "epoch": epoch, "advisory": self.advisory_payload(adv)}
 
     def event_publish(self, adv: Advisory, payload: dict[str, Any]) -> Publish:
         space_id = self.model.space_ids[adv.space]
@@ -210,9 +227,12 @@ class Publication:
         for q, mask in snap.assumed.items():
             if mask[i]:
                 inputs.setdefault(q, {"fresh": False})["assumed"] = self._assumption_notes(i)[q]
+        shard, epoch = self.fence(i)
         out = {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
+            "shard": shard,
+            "epoch": epoch,
             "space": space_ref(space),
             "at": iso(snap.now),
             "occupied": bool(snap.occupied[i]),
