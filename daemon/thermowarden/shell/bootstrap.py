@@ -27,6 +27,7 @@ from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
 from thermowarden.shell.store import Store, StoreError, move_aside
+from thermowarden.shell.wall_offset import wall_clock
 from thermowarden.shell.warmup import warm_up
 from thermowarden.shell.web import WebServer, build_web
 from thermowarden.site_model import build_site_model
@@ -116,7 +117,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     config, packs = load()
     model = build_site_model(config)
     warm_up(log.info)
-    clock = clock or Clock()
+    clock = clock or Clock(wall=wall_clock())
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     site_id = config.site.id
     instance = (instance or config.broker.client_id
