@@ -69,9 +69,11 @@ def group_yaml(store: str | None, timing: Timing, nats_urls: list[str], bucket: 
         backend = (f"  store: {{kind: nats, servers: [{servers}], bucket: {bucket}, "
                    f"stream_replicas: 3}}\n")
     else:
-        backend = f"  store: {{kind: postgres, dsn: \"{pg_dsn}\", schema: {bucket}}}\n"
+        backend = (f"  store: {{kind: postgres, dsn: \"{pg_dsn}\", table_schema: {bucket}}}"
+                   "\n")
     return (f"group:\n  name: {group}\n" + backend +
-            f"  lease_ttl_s: {timing.lease_ttl_s:g}\n  replicas: 2\n")
+            f"  lease_ttl_s: {timing.lease_ttl_s:g}\n  replicas: 1\n"
+            f"  rebalance_after_s: {timing.rebalance_after_s:g}\n")
 
 
 class FaultRun:
@@ -79,13 +81,13 @@ class FaultRun:
 
     def __init__(self, tmp: pathlib.Path, *, store: str | None, n_spaces: int = 30,
                  timing: Timing | None = None, instances: tuple[str, ...] = ("a", "b", "c"),
-                 netns_for: str | None = None, faketime_for: str | None = None) -> None:
+                 netns_for: str | None = None, clock_step_for: str | None = None) -> None:
         self.tmp = tmp
         self.store = store
         self.timing = timing or Timing()
         self.names = instances
         self.netns_for = netns_for
-        self.faketime_for = faketime_for
+        self.clock_step_for = clock_step_for
         self.group = "g"
         self.prefix = f"twf-{uuid.uuid4().hex[:8]}"
         self.spaces = space_ids(n_spaces)
@@ -94,7 +96,7 @@ class FaultRun:
         self.instances: dict[str, Instance] = {}
         self.ns: Netns | None = None
         self.forwarders: dict[int, Forwarder] = {}
-        self.faketime_file = tmp / "faketime"
+        self.wall_offset_file = tmp / "wall-offset"
         self.scenario = Scenario(self.prefix, self.spaces, self.timing)
         self._store_reader: Any = None
         self.bucket = f"tw{uuid.uuid4().hex[:8]}"
@@ -120,8 +122,8 @@ class FaultRun:
         self.site = write_site(self.tmp, self.prefix, self.cluster.nodes[0].url, self.spaces,
                                self.timing, group_yaml(self.store, self.timing, nats_urls,
                                                        self.bucket, PG_DSN, self.group))
-        if self.faketime_for is not None:
-            self.faketime_file.write_text("+0\n")
+        if self.clock_step_for is not None:
+            self.wall_offset_file.write_text("0\n")
         self.feeder = Feeder("127.0.0.1", self.cluster.nodes[0].mqtt, self.prefix, self.values)
         self.closers.append(self.feeder.stop)
         for name in first or self.names:
@@ -151,7 +153,7 @@ class FaultRun:
             site = self._namespaced_site(host)
         inst = Instance(name, site, self.tmp / name, self._broker_urls(k, host), self.group,
                         netns=netns, http_host=self.ns.inner_ip if netns else "127.0.0.1",
-                        faketime_file=self.faketime_file if name == self.faketime_for
+                        wall_offset_file=self.wall_offset_file if name == self.clock_step_for
                         else None)
         inst.start()
         self.instances[name] = inst

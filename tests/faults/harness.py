@@ -2,7 +2,7 @@
 --group`` processes on a site of hot-work spaces, a sensor feeder, a watcher that records
 every message with its receipt time, and the faults themselves (by pid: SIGKILL, SIGSTOP
 and SIGCONT of an instance or of a broker node; a network partition of one instance in a
-network namespace of its own; a step of one instance's wall clock through libfaketime).
+network namespace of its own; a step of one instance's wall clock through its test hook).
 
 The invariants are checked by :mod:`tests.faults.invariants` from what the watcher saw.
 """
@@ -33,6 +33,7 @@ from paho.mqtt.enums import CallbackAPIVersion
 from tests.shell.conftest import SLOW, free_port, wait_for
 from tests.shell.nats_cluster import NatsCluster
 from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.wall_offset import ENV as WALL_OFFSET_ENV
 
 # Spot WBGT indoors (ISO 7243:2017, no solar load): 0.7 natural wet-bulb + 0.3 globe.
 # Reference values at 297 W (work class moderate, ISO 8996; ISO 7243:2017 Annex A, as the
@@ -43,7 +44,6 @@ ABOVE_ACTION = {"nwb": 24.0, "globe": 32.0}  # 26.4 °C: high
 ABOVE_LIMIT = {"nwb": 28.0, "globe": 38.0}   # 31.0 °C: urgent
 
 HEAT_RULE = "heat_stress.wbgt"
-LIBFAKETIME = "/usr/lib/x86_64-linux-gnu/faketime/libfaketime.so.1"
 
 
 @dataclass
@@ -58,6 +58,9 @@ class Timing:
     """How often a space's retained conditions go out while readings arrive (the engine's
     ``CONDITIONS_MIN_S``): the resolution of the "unevaluated" check."""
     wbgt_window_s: float = 600.0
+    rebalance_after_s: float = 20.0
+    """How long membership must be steady before an instance above its share hands shards
+    over (a newcomer gets its share after this)."""
 
 
 # --------------------------------------------------------------------------- recording
@@ -174,12 +177,12 @@ class Feeder:
 class Instance:
     """One ``thermowarden run --group`` process, signalled by its pid. ``netns`` runs it in
     a network namespace (``ip netns exec`` execs the program: the pid is the service's);
-    ``faketime_file`` preloads libfaketime with that file as its offset of the wall clock
-    (the monotonic clock untouched, as after a real step of the system clock)."""
+    ``wall_offset_file`` holds seconds added to its wall clock (the monotonic clock
+    untouched, as after a step of the system clock; ``shell/wall_offset.py``)."""
 
     def __init__(self, name: str, site: pathlib.Path, state: pathlib.Path, broker_urls: str,
                  group: str, *, netns: str | None = None, http_host: str = "127.0.0.1",
-                 faketime_file: pathlib.Path | None = None, extra: tuple[str, ...] = ()
+                 wall_offset_file: pathlib.Path | None = None, extra: tuple[str, ...] = ()
                  ) -> None:
         self.name = name
         self.http_host = http_host
@@ -193,10 +196,8 @@ class Instance:
         if netns is not None:
             self.cmd = ["ip", "netns", "exec", netns, *self.cmd]
         self.env = dict(os.environ)
-        if faketime_file is not None:
-            self.env.update(LD_PRELOAD=LIBFAKETIME, FAKETIME_TIMESTAMP_FILE=str(faketime_file),
-                            FAKETIME_CACHE_DURATION="1", FAKETIME_DONT_FAKE_MONOTONIC="1",
-                            FAKETIME_DONT_RESET="1")
+        if wall_offset_file is not None:
+            self.env[WALL_OFFSET_ENV] = str(wall_offset_file)
         self.proc: subprocess.Popen[bytes] | None = None
         self.paused = False
 

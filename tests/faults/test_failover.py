@@ -48,7 +48,7 @@ def _node_of(run: FaultRun, victim: str) -> int:
 
 def _step(offset: str) -> Callable[[FaultRun, str], None]:
     def act(run: FaultRun, victim: str) -> None:
-        run.faketime_file.write_text(offset + "\n")
+        run.wall_offset_file.write_text(offset + "\n")
     return act
 
 
@@ -58,7 +58,7 @@ PAUSE = Fault("pause", lambda r, v: r.instances[v].pause(), lambda r, v: r.insta
 NODE_PAUSE = Fault("node-pause", lambda r, v: pause_node(r.cluster, _node_of(r, v)),
                    lambda r, v: resume_node(r.cluster, _node_of(r, v)), 30.0)
 PARTITION = Fault("partition", lambda r, v: r.ns.cut(), lambda r, v: r.ns.heal(), 30.0)
-CLOCK_STEP = Fault("clock-step", _step("+300"), _step("+0"), 3 * TIMING.lease_ttl_s)
+CLOCK_STEP = Fault("clock-step", _step("300"), _step("0"), 3 * TIMING.lease_ttl_s)
 
 
 def hold(seconds: float) -> None:
@@ -72,7 +72,7 @@ def run_fault(tmp_path, store: str | None, fault: Fault, *, victim: str = "b",
               n_spaces: int = 30, warm: bool = False, timing: Timing = TIMING) -> None:
     run = FaultRun(tmp_path, store=store, n_spaces=n_spaces, timing=timing,
                    netns_for=victim if fault is PARTITION else None,
-                   faketime_for=victim if fault is CLOCK_STEP else None)
+                   clock_step_for=victim if fault is CLOCK_STEP else None)
     try:
         run.start()
         t_from = time.monotonic()
