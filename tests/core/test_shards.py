@@ -75,8 +75,9 @@ class Store:
 
 class Sim:
     def __init__(self, names: list[str], replicas: int = 1, seed: int = 1,
-                 settle_s: float = 3.0) -> None:
+                 settle_s: float = 3.0, shards: list[str] = SHARDS) -> None:
         self.settle_s = settle_s
+        self.shards = shards
         self.store = Store()
         self.live = set(names)
         self.now = 0.0
@@ -96,12 +97,12 @@ class Sim:
             fs = self.free_since.setdefault(me, {})
             last = self.last_holder.setdefault(me, {})
             last.update(seen)
-            for s in SHARDS:
+            for s in self.shards:
                 if s in seen:
                     fs.pop(s, None)
                 else:
                     fs.setdefault(s, self.now)
-            p = plan(View(me, frozenset(self.live), SHARDS, seen, self.now, dict(fs),
+            p = plan(View(me, frozenset(self.live), self.shards, seen, self.now, dict(fs),
                           self.live_since, dict(last)),
                      replicas=self.replicas, grace_s=1.0, settle_s=self.settle_s)
             self.plans[me] = p
@@ -119,8 +120,8 @@ class Sim:
     def settled(self) -> bool:
         """Every shard held, nobody above its share, nothing to hand over."""
         c = self.counts()
-        return (len(self.store.holders) == len(SHARDS)
-                and max(c.values()) <= share(len(SHARDS), len(self.live))
+        return (len(self.store.holders) == len(self.shards)
+                and max(c.values()) <= share(len(self.shards), len(self.live))
                 and all(not p.release for p in self.plans.values()))
 
     def run(self, rounds: int = 60) -> int:
@@ -191,3 +192,28 @@ def test_every_shard_one_holder_never_above_share(n: int, seed: int, replicas: i
     for s in SHARDS:
         count = sum(1 for p in sim.plans.values() if s in p.standby)
         assert count == min(replicas, n - 1)
+
+
+def test_a_newcomer_after_a_takeover_gets_its_share_without_ping_pong() -> None:
+    """Six shards; a holder died and its standbys hold more than their share; a newcomer
+    joins. Shards handed over go to an instance under its share (never back and forth
+    between the two above it), and the newcomer ends with its share."""
+    shards = [f"bucket-{k:02d}" for k in range(6)]
+    for seed in range(20):
+        sim = Sim(["a", "b", "c"], settle_s=30.0, shards=shards, seed=seed)
+        sim.run()
+        dead = [s for s, h in sim.store.holders.items() if h == "b"]
+        sim.live.discard("b")
+        sim.live_since = sim.now
+        for s in dead:
+            del sim.store.holders[s]
+        for _ in range(5):
+            sim.round()
+        sim.live.add("d")
+        sim.live_since = sim.now
+        sim.settle_s = 2.0
+        sim.store.takers.clear()
+        sim.run()
+        assert sim.counts()["d"] == 2, (seed, sim.counts())
+        taken = [s for s, _ in sim.store.takers]
+        assert len(taken) == len(set(taken)), (seed, sim.store.takers)  # no shard twice

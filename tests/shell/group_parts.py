@@ -1,5 +1,5 @@
-"""Helpers of the group tests: a sensor feeder, the group's retained records as a test
-client sees them."""
+"""Helpers of the group tests: a sensor feeder, the lease table as the store has it, and the
+invariants every group test checks on what a consumer received."""
 
 from __future__ import annotations
 
@@ -8,7 +8,11 @@ import threading
 import time
 from collections.abc import Callable
 
+import psycopg
+from psycopg import sql
+
 from tests.shell.conftest import Collector
+from tests.shell.lease_parts import PG_DSN
 
 
 class Feeder:
@@ -38,47 +42,17 @@ class Feeder:
         self.thread.join(10)
 
 
-class GroupWatch:
-    """What the group says about itself on the broker: the latest owners record and status
-    record per instance, and when every space was last covered by the owners records."""
-
-    def __init__(self, collector: Collector, prefix: str, group: str,
-                 spaces: list[str]) -> None:
-        self.c = collector
-        self.prefix = prefix
-        self.group = group
-        self.spaces = set(spaces)
-
-    def _latest(self, base: str) -> dict[str, dict]:
-        out: dict[str, dict] = {}
-        with self.c.lock:
-            msgs = list(self.c.messages)
-        for topic, payload, _ in msgs:
-            if topic.startswith(base) and "/" not in topic[len(base):]:
-                name = topic[len(base):]
-                if payload and not payload.startswith(b"sync-"):
-                    out[name] = json.loads(payload)
-                else:
-                    out.pop(name, None)
-        return out
-
-    def owners(self) -> dict[str, set[str]]:
-        """Instance -> the spaces its latest owners record lists (online instances only)."""
-        status = self._latest(f"{self.prefix}/status/")
-        return {name: set(rec["spaces"])
-                for name, rec in self._latest(f"{self.prefix}/group/{self.group}/owners/").items()
-                if status.get(name, {}).get("state") == "online"}
-
-    def covered_by(self, names: set[str]) -> bool:
-        """Every space owned by exactly one of ``names``, and by no other instance."""
-        owners = self.owners()
-        if set(owners) != names:
-            return False
-        seen: list[str] = [s for spaces in owners.values() for s in spaces]
-        return len(seen) == len(set(seen)) and set(seen) == self.spaces
-
-    def owner_of(self, space: str) -> str | None:
-        return next((n for n, s in self.owners().items() if space in s), None)
+def pg_holders(schema: str, group: str = "g") -> dict[str, tuple[str, int]]:
+    """Shard -> (holder, epoch) of the live leases in the PostgreSQL table."""
+    with psycopg.connect(PG_DSN, autocommit=True) as conn:
+        try:
+            rows = conn.execute(sql.SQL(
+                "SELECT shard, holder, epoch FROM {}.leases WHERE grp = %s AND "
+                "expires_at > now() AND holder <> ''").format(sql.Identifier(schema)),
+                (group,)).fetchall()
+        except psycopg.errors.UndefinedTable:
+            return {}
+    return {r[0]: (r[1], int(r[2])) for r in rows}
 
 
 def wait_until(predicate: Callable[[], bool], timeout: float) -> float | None:
@@ -89,3 +63,35 @@ def wait_until(predicate: Callable[[], bool], timeout: float) -> float | None:
             return time.monotonic()
         time.sleep(0.02)
     return None
+
+
+def check_invariants(collector: Collector, prefix: str) -> dict[str, int]:
+    """What a consumer of the site received, in the order it arrived, against the group's
+    promises: no event id names two different events; per shard, events never come from
+    an older epoch after a newer one; the retained advisory records never go backwards in
+    (epoch, history length). Returns the newest epoch per shard."""
+    with collector.lock:
+        msgs = list(collector.messages)
+    bodies: dict[str, str] = {}
+    newest: dict[str, int] = {}
+    records: dict[str, tuple[int, int]] = {}
+    for topic, payload, _ in msgs:
+        if not payload or payload.startswith(b"sync-"):
+            continue
+        if topic.startswith(f"{prefix}/events/"):
+            e = json.loads(payload)
+            if "shard" not in e:
+                continue  # a site-wide notice or summary
+            body = json.dumps(e, sort_keys=True)
+            assert bodies.setdefault(e["event_id"], body) == body, \
+                f"event id {e['event_id']} names two different events"
+            assert e["epoch"] >= newest.get(e["shard"], -1), \
+                f"an event of epoch {e['epoch']} after one of {newest[e['shard']]}"
+            newest[e["shard"]] = e["epoch"]
+        elif "/advisories/" in topic:
+            a = json.loads(payload)
+            key = (a["epoch"], len(a["history"]))
+            assert key >= records.get(topic, (-1, -1)), \
+                f"{topic} went back from {records[topic]} to {key}"
+            records[topic] = key
+    return newest

@@ -22,7 +22,9 @@ class NatsStoreConfig(Strict):
     kind: Literal["nats"]
     servers: list[str] = Field(min_length=1)
     """``nats://host:port`` of each node (the client moves to the next when one goes)."""
-    bucket: str = Field("thermowarden-leases", pattern=r"^[A-Za-z0-9_-]{1,64}$")
+    bucket: str | None = Field(None, pattern=r"^[A-Za-z0-9_-]{1,64}$")
+    """The key-value bucket (default ``thermowarden-<group>``), created if missing with the
+    group's lease TTL."""
     stream_replicas: int = Field(1, ge=1, le=5)
     """Copies of the bucket on the cluster's nodes: 3 on a three-node cluster (a lease then
     survives one node's end). The bucket is created with it (and the TTL) if missing."""

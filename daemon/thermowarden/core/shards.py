@@ -20,9 +20,10 @@ module only says what an instance should *try*, from what it last read there:
   1998): every instance that reads the same holders and presence computes the same
   standbys, and a change of one instance moves only the shards it is in the order of.
 - a free shard (no live lease) is taken at once by the standby of its last holder (the
-  instance that has its windows, timers and acknowledgements), which may then hold up to
-  twice its share; when that standby is not live or is at twice its share, by the
-  best-ranked live instance under its share. Any other instance under its share takes it
+  instance that has its windows, timers and acknowledgements): when that holder is gone,
+  even if the standby then holds up to twice its share; when the holder lives (it handed
+  the shard over), only if the standby is under its share. Otherwise the best-ranked live
+  instance under its share takes it at once. Any other instance under its share takes it
   only after it has been free for ``grace_s`` (the first has had its turn).
 - an instance holding more than its share (after a standby took a dead holder's shards,
   after a newcomer joined) gives up one shard per round, and only after the live set has
@@ -143,27 +144,29 @@ def plan(view: View, *, replicas: int, grace_s: float, settle_s: float) -> Plan:
                          if view.holders.get(s) != me and me in order[s][:max(0, replicas)])
     take: list[str] = []
     free = [s for s in view.shards if s not in view.holders]
-    warm_first: list[str] = []
-    first: list[str] = []
+    now_first: list[tuple[str, int]] = []
     later: list[str] = []
     for s in free:
         prev = view.last_holder.get(s)
         warm = standbys(s, prev, view.live, 1)[:1] if prev is not None else []
-        if warm and counts.get(warm[0], 0) < 2 * limit:
-            if warm == [me]:  # the holder's standby, which has its windows and timers
-                warm_first.append(s)
-                continue
-        elif [m for m in ranking(s, view.live) if counts.get(m, 0) < limit][:1] == [me]:
-            first.append(s)  # no standby to take it: the best-ranked under its share
-            continue
-        if view.now - view.free_since.get(s, view.now) >= grace_s:
+        # the standby of a holder that is gone may go up to twice its share; a shard handed
+        # over (its holder lives) goes to an instance under its share
+        cap = 2 * limit if prev is not None and prev not in view.live else limit
+        if warm and counts.get(warm[0], 0) < cap:
+            taker = warm[0]  # the holder's standby, which has its windows and timers
+        else:
+            below = [m for m in ranking(s, view.live) if counts.get(m, 0) < limit]
+            taker, cap = (below[0] if below else ""), limit
+        if taker == me:
+            now_first.append((s, cap))
+        elif view.now - view.free_since.get(s, view.now) >= grace_s:
             later.append(s)
     held = len(mine)
-    for s in warm_first:
-        if held < 2 * limit:
+    for s, cap in now_first:
+        if held < cap:
             take.append(s)
             held += 1
-    for s in first + sorted(later, key=lambda s: (ranking(s, view.live).index(me), s)):
+    for s in sorted(later, key=lambda s: (ranking(s, view.live).index(me), s)):
         if held < limit:
             take.append(s)
             held += 1

@@ -31,6 +31,7 @@ import numpy as np
 from thermowarden.config import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.indices import IndexTable
+from thermowarden.core.lifecycle import State
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.advisories import (
     ADVISORY_REFRESH_S,
@@ -388,6 +389,53 @@ class Engine:
             effects.append(book._published(adv))
             effects.append(book._persist(adv))
         return notes, effects
+
+    def reconcile(self, space_ids: Iterable[str], payloads: Iterable[dict[str, Any]],
+                  now: float, *, by: str | None = None) -> tuple[list[str], list[Effect]]:
+        """Take over spaces this instance has been evaluating as a standby (without
+        publishing): what was *published* for them wins over what it computed.
+
+        For each (space, rule) with a retained advisory message (``payloads``, each with its
+        ``handover``), this instance's own advisory is replaced by it: the published id,
+        history (plus a ``moved`` entry), priority, acknowledgement, shelving and event
+        count; the windows, delays in progress and the clear timer stay this instance's.
+        An advisory this instance raised that nobody published is taken back to pending
+        with its on-delay already served, so the next evaluation raises it and says so.
+        Returns notes on records not taken and the effects (retained messages, rows)."""
+        wanted = {i for sid in space_ids
+                  if (i := self.model.space_index.get(sid)) is not None}
+        records: dict[tuple[int, str], dict[str, Any]] = {}
+        for p in payloads:
+            try:
+                i = self.model.space_index.get(p["space"]["id"])
+                rule = p["rule"]
+            except (KeyError, TypeError):
+                continue
+            if i in wanted and isinstance(rule, str) and isinstance(p.get("handover"), dict):
+                records[(i, rule)] = p
+        book = self.advisories
+        for rt in book.rules:
+            for i in sorted(wanted):
+                adv = rt.advisories.get(i)
+                if adv is None:
+                    continue
+                rec = records.get((i, rt.rule.key))
+                del rt.advisories[i]
+                book.by_id.pop(adv.id, None)
+                rt.event_count.pop(i, None)
+                rt.raised_times.pop(i, None)
+                rt.level[i] = rt.rule.base_priority
+                for arr in (rt.last_notified, rt.shelved_until, rt.lower_since):
+                    arr[i] = np.nan
+                rt.acted_now[i] = False
+                if rec is None:
+                    # pending with its on-delay served: raised (and published) at the next
+                    # evaluation if its condition still holds
+                    rt.state[i] = State.PENDING
+                    rt.pending_since[i] = now - rt.rule.config.on_delay_s
+                else:
+                    rt.state[i] = State.IDLE
+        return self.adopt(records.values(), now, by=by)
 
     def digest(self, now: float, since: float) -> list[Effect]:
         """The daily digest per audience; see :meth:`Advisories.digest`."""

@@ -16,12 +16,21 @@ from http.server import ThreadingHTTPServer
 from pydantic import ValidationError
 
 from thermowarden import __version__
-from thermowarden.config import BrokerConfig, ConfigError, ConfigIssue, SiteConfig, load_site
+from thermowarden.config import (
+    BrokerConfig,
+    ConfigError,
+    ConfigIssue,
+    GroupConfig,
+    NatsStoreConfig,
+    SiteConfig,
+    load_site,
+)
 from thermowarden.engine import Engine, iso
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.shell.delivery import Delivery
-from thermowarden.shell.group import Group
+from thermowarden.shell.group import Group, lease_clock
 from thermowarden.shell.http_ops import start_http
+from thermowarden.shell.leases import LeaseStore
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
@@ -59,6 +68,21 @@ def only_spaces(config: SiteConfig, ids: list[str]) -> SiteConfig:
     if unknown:
         raise ValueError(f"--spaces names unknown space(s): {', '.join(sorted(unknown))}")
     return config.model_copy(update={"spaces": [s for s in config.spaces if s.id in wanted]})
+
+
+def lease_store(cfg: GroupConfig, group: str) -> LeaseStore:
+    """The lease store the group section names (not yet connected)."""
+    store = cfg.store
+    if isinstance(store, NatsStoreConfig):
+        from thermowarden.shell.leases.nats_kv import NatsLeaseStore
+
+        return NatsLeaseStore(store.servers, store.bucket or f"thermowarden-{group}",
+                              cfg.lease_ttl_s, stream_replicas=store.stream_replicas,
+                              mono=lease_clock)
+    from thermowarden.shell.leases.postgres import PostgresLeaseStore
+
+    return PostgresLeaseStore(store.dsn, group, cfg.lease_ttl_s, schema=store.table_schema,
+                              mono=lease_clock)
 
 
 def load_configuration(config_path: str, *, broker_url: str | None = None,
@@ -115,6 +139,11 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                                   shard=shard, spaces=spaces, overrides=overrides)
 
     config, packs = load()
+    if config.group is not None and config.group.name and not group:
+        group = config.group.name
+    if group and config.group is None:
+        raise ConfigError([ConfigIssue(None, f"--group {group}: the site file has no group "
+                                       "section (the lease store: nats or postgres)")])
     model = build_site_model(config)
     warm_up(log.info)
     clock = clock or Clock(wall=wall_clock())
@@ -179,7 +208,9 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
                       reloader=lambda old: prepare_reload(old, load),
                       per_space_subscriptions=shard is not None or bool(spaces))
     if group:
-        service.group = Group(group, instance, config.broker.keepalive_s, prefix)
+        assert config.group is not None
+        service.group = Group(group, instance, config.group, lease_store(config.group, group),
+                              prefix)
         link.watch = service.group.watch_prefixes()
         service.group.attach(service)
     web = None

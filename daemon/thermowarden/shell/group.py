@@ -1,38 +1,40 @@
-"""One instance of a group that shares a site's spaces (``thermowarden run --group NAME``).
+"""One instance of a group that shares a site (``thermowarden run --group NAME``): shard
+leases, fenced publication and warm standbys.
 
-Membership: each instance's status record (``<prefix>/status/<instance>``, retained, with
-the broker's last will saying ``offline``) also names its group and its *view*: the members
-it counts as live. It is sent again as a heartbeat every third of the keepalive; retained
-when it changes and on every sixth beat (a retained publish on a JetStream-backed broker is
-a stream write: most beats need not be), plain otherwise. A member is live while its record
-says online and a beat of it arrived within ``LIVE_FACTOR`` keepalives; a newcomer's first
-record has no view and claims nothing until it has listened for a beat's interval.
+The site's spaces fall into shards (:mod:`thermowarden.core.shards`). Each shard has a lease
+in a store with compare-and-set and expiry (:mod:`thermowarden.shell.leases`: a JetStream
+key-value bucket or a PostgreSQL table). Two threads:
 
-Ownership: :mod:`thermowarden.core.ownership` (rendezvous hashing with the hand-over rule).
-When this instance takes spaces over, it first hands the engine their live advisories from
-the retained advisory messages it has been reading all along (:meth:`Engine.adopt`), then
-they are evaluated; spaces given up are forgotten (the instance that takes them continues
-their advisories). The sensor subscriptions follow the owned spaces.
+- the **lease keeper** (a thread of its own, blocking store calls) runs a round every third
+  of the lease TTL: it says this instance is present, renews the leases it holds, reads
+  every shard's holder and the live instances, and takes or gives up shards as
+  :func:`thermowarden.core.shards.plan` says. It hands each round's result to the engine
+  thread (a queue) and touches nothing else.
+- the **engine thread** (:meth:`Group.update`, every turn of the service's loop) evaluates
+  the spaces of the shards it holds *and* of those it stands by for (their sensors and the
+  commands reach it too, so windows, delays and timers are current), and publishes only for
+  the shards whose lease is valid by its own clock: ``expires - margin`` on the monotonic
+  clock, the expiry counted from before the request that took or renewed the lease. After
+  a stall of its loop longer than the margin (a frozen process, a swapped-out host) it
+  publishes nothing until a round that began after the stall has read the leases again.
 
-The bound: a space is owned again within ``BOUND_FACTOR`` (2) keepalives of its owner's end
-(a broker notices a dead client within 1.5 keepalives and publishes its will; a missing
-heartbeat is noticed within one keepalive). Coverage:
-metrics (owned spaces, members, seconds since every space had an owner), a retained record
-of the spaces each instance owns (``<prefix>/group/<name>/owners/<instance>``: sent when they
-change, again after every (re)connect and with every retained beat, so that a record lost
-with a connection, a broker node or a broker's restart comes back), and a notice
-to the integrator when a space had no owner, or a member evaluated nothing, for longer than
-the bound (sent by the first live member in name order, once per episode).
+**Fencing.** Every event, retained advisory and conditions record carries its shard and the
+epoch it was published under (and the event id names both); :meth:`Group.fence` drops, at
+the one place effects are carried out, anything of a shard this instance may not publish
+for now, and an outbox row of an epoch it no longer holds is dropped instead of sent. A
+retained advisory of an older epoch than one already seen for its shard is ignored.
 
-A member silent for a keepalive that did not stop in order (its latest record says online,
-or is its will: on a clustered broker whose killed node's streams were moving, the will
-reached the members but the retained record kept saying online) is marked offline for it
-by the first live member in name order, with every beat until the mark comes back, and its
-owners record is emptied; so the status and owners records on the broker do not keep a
-dead instance live while others run. Only a member
-that has listened for a keepalive since it last (re)connected and hears its own beats come
-back marks; a mark older than the latest beat heard is ignored. A member that sees itself
-marked while it runs says online again (retained) at its next turn.
+**Taking over.** When a shard's lease becomes this instance's, its advisories are
+reconciled with the retained advisory messages of the shard (:meth:`Engine.reconcile`:
+published ids, history, acknowledgements, shelving win), commands it received for the
+shard as a standby and the old holder had not applied are applied, and it publishes
+under the new epoch. A standby answers no command; the holder of the advisory's shard
+does (for an advisory no one has, the first live instance in name order replies).
+
+People see: a retained status per instance (``<prefix>/status/<instance>``: the shards it
+holds and stands by for), metrics (spaces held, live instances, seconds since every shard
+had a holder, moves, fenced effects) and a notice to the integrator when a shard had no
+holder for longer than twice the lease TTL.
 """
 
 from __future__ import annotations
@@ -40,424 +42,543 @@ from __future__ import annotations
 import json
 import logging
 import math
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Final
+import queue
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from thermowarden.core import ownership
+from thermowarden.config import GroupConfig
+from thermowarden.core.shards import View, plan
 from thermowarden.effects import Effect, Persist, Publish
+from thermowarden.shell.leases import Lease, LeaseStore, LeaseStoreError
 
 if TYPE_CHECKING:
+    from thermowarden.shell.mqtt_link import Incoming
     from thermowarden.shell.service import Service
 
 log = logging.getLogger("thermowarden.group")
 
-BEATS_PER_KEEPALIVE: Final = 3
-RETAIN_EVERY_BEATS: Final = 6
-LIVE_FACTOR: Final = 1.0
-"""A member whose beat was not heard for this many keepalives is taken as gone."""
-BOUND_FACTOR: Final = 2.0
-"""A space is owned again within this many keepalives (the bound the coverage checks)."""
-LET_GO_FACTOR: Final = 0.6
-"""An instance cut off from the broker (or whose subscriptions the broker refuses) this many
-keepalives lets its spaces go (before the others, which wait ``LIVE_FACTOR`` from its last
-beat, take them): it cannot see readings or peers."""
-SETTLE_EXTRA_S: Final = 0.5
-MAX_VIEW: Final = 4096
-"""A view naming more members than this is not taken (a forged or broken record)."""
+GRACE_ROUNDS = 1.5
+"""A free shard whose first taker did not take it is taken by others after this many
+rounds."""
+COMMANDS_KEPT_S = 600.0
+"""Commands a standby received for a shard are kept this long (applied at a takeover if
+the old holder had not)."""
+
+
+def lease_clock() -> float:
+    """Seconds that keep counting while the machine is suspended (CLOCK_BOOTTIME where
+    there is one): a lease's deadline must not stand still while the store's clock runs."""
+    boottime = getattr(time, "CLOCK_BOOTTIME", None)
+    return time.clock_gettime(boottime) if boottime is not None else time.monotonic()
+
+
+@dataclass(frozen=True)
+class Round:
+    """One round of the lease keeper, as the engine thread receives it."""
+
+    started: float
+    """Lease clock before the round's first store call."""
+    ok: bool
+    held: dict[str, Lease]
+    standby: frozenset[str]
+    holders: dict[str, str]
+    """Shard -> holder, as read this round (or the last round that could read)."""
+    live: frozenset[str]
+    error: str | None = None
+
+
+class LeaseKeeper:
+    """The lease keeper's thread; see the module docstring."""
+
+    def __init__(self, store: LeaseStore, me: str, shards: list[str], cfg: GroupConfig,
+                 out: queue.Queue[Round], clock: Callable[[], float] = lease_clock) -> None:
+        self.store = store
+        self.me = me
+        self.shards = sorted(set(shards))
+        self.cfg = cfg
+        self.out = out
+        self.clock = clock
+        self.period = cfg.lease_ttl_s / 3
+        self.held: dict[str, Lease] = {}
+        self.holders: dict[str, str] = {}
+        self.live: frozenset[str] = frozenset()
+        self.standby: frozenset[str] = frozenset()
+        self.free_since: dict[str, float] = {}
+        self.last_holder: dict[str, str] = {}
+        self.live_since = clock()
+        self.opened = False
+        self.failing: str | None = None
+        self._stop = threading.Event()
+        self._thread: threading.Thread | None = None
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name="thermowarden-leases",
+                                        daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._stop.is_set():
+            began = self.clock()
+            self.round()
+            self._stop.wait(max(0.0, self.period - (self.clock() - began)))
+
+    def round(self) -> None:
+        started = self.clock()
+        try:
+            if not self.opened:
+                self.store.open()
+                self.opened = True
+            self.store.announce(self.me)
+            for shard, lease in list(self.held.items()):
+                renewed = self.store.renew(lease)
+                if renewed is None:
+                    del self.held[shard]
+                    log.warning("lost the lease of shard %s (epoch %d)", shard, lease.epoch)
+                else:
+                    self.held[shard] = renewed
+            leases = self.store.read(self.shards)
+            live = frozenset(self.store.present())
+            now = self.clock()
+            if live != self.live:
+                self.live_since = now
+                self.live = live
+            holders = {s: lease.holder for s, lease in leases.items()}
+            for s in self.shards:
+                if s in holders:
+                    self.free_since.pop(s, None)
+                    self.last_holder[s] = holders[s]
+                else:
+                    self.free_since.setdefault(s, now)
+            for s in [s for s in self.held if holders.get(s) != self.me]:
+                del self.held[s]  # the store says otherwise: not ours
+            p = plan(View(self.me, live, self.shards, holders, now, dict(self.free_since),
+                          self.live_since, dict(self.last_holder)),
+                     replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.period,
+                     settle_s=self.cfg.rebalance_after_s)
+            for s in p.release:
+                released = self.held.pop(s, None)
+                if released is not None:
+                    self.store.release(released)
+                    holders.pop(s, None)
+                    log.info("handed shard %s over (above the fair share of %d)", s, p.share)
+            for s in p.take:
+                got = self.store.take(s, self.me)
+                if got is not None:
+                    self.held[s] = got
+                    holders[s] = self.me
+                    self.free_since.pop(s, None)
+            self.holders = holders
+            self.standby = p.standby
+            if self.failing is not None:
+                log.warning("the lease store answers again")
+                self.failing = None
+            self.out.put(Round(started, True, dict(self.held), p.standby, dict(holders), live))
+        except LeaseStoreError as exc:
+            if self.failing is None:
+                log.error("the lease store cannot be reached (%s): publishing stops as the "
+                          "held leases run out", exc)
+            self.failing = str(exc)
+            self.out.put(Round(started, False, dict(self.held), self.standby,
+                               dict(self.holders), self.live, str(exc)))
+        except Exception:  # noqa: BLE001 - the keeper must go on; publication is fenced
+            log.exception("lease round failed")
+            self.out.put(Round(started, False, dict(self.held), self.standby,
+                               dict(self.holders), self.live, "internal error"))
+
+    def stop(self) -> None:
+        """An orderly stop: release the held leases (their standbys take them at once) and
+        withdraw the presence."""
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join(self.cfg.lease_ttl_s + 5)
+        try:
+            for lease in self.held.values():
+                self.store.release(lease)
+            if self.opened:
+                self.store.withdraw(self.me)
+        except LeaseStoreError as exc:
+            log.warning("could not release the leases at the stop (%s); they expire in "
+                        "%.0f s", exc, self.cfg.lease_ttl_s)
+        self.held = {}
+        self.store.close()
 
 
 @dataclass
-class Member:
-    name: str
-    view: tuple[str, ...] | None
-    """The members it counts as live; None while joining (it claims nothing)."""
-    seen: float
-    """Monotonic time its latest record or beat arrived."""
-    online: bool
-    evaluated_at: float | None = None
-    """Epoch s of its latest evaluation, as it said."""
-    since: str = ""
-    """When its run began (ISO 8601; a restart is a new run)."""
-    beat: int = -1
-    """The number of its latest record in that run."""
-    first_seen_at: float | None = None
-    """Epoch s this instance first heard the record (for an owner that never evaluated)."""
-    reason: str = ""
-    """Why its latest record says offline: "stopped" (an orderly stop), "silent" (marked by
-    a member), "lost" (its will, or a record without a reason); "" while online."""
+class Buffered:
+    """A command a standby received for a shard it may take over."""
+
+    message: Incoming
+    at: float
+    advisory_id: str
+    shard: str
+
+
+@dataclass
+class _Seen:
+    newest: dict[str, int] = field(default_factory=dict)
+    """Shard -> the highest epoch seen in a retained advisory message."""
 
 
 class Group:
-    """See the module docstring. Runs on the service's engine thread."""
+    """See the module docstring. :meth:`update`, :meth:`receive` and :meth:`fence` run on
+    the service's engine thread."""
 
-    def __init__(self, name: str, instance: str, keepalive_s: float, prefix: str) -> None:
+    def __init__(self, name: str, instance: str, cfg: GroupConfig, store: LeaseStore,
+                 prefix: str, clock: Callable[[], float] = lease_clock) -> None:
         self.name = name
         self.me = instance
+        self.cfg = cfg
+        self.store = store
         self.prefix = prefix
-        self.keepalive_s = float(keepalive_s)
-        self.beat_s = self.keepalive_s / BEATS_PER_KEEPALIVE
-        self.live_s = self.keepalive_s * LIVE_FACTOR
-        self.bound_s = self.keepalive_s * BOUND_FACTOR
-        self.status_prefix = f"{prefix}/status/"
+        self.clock = clock
+        self.margin_s = cfg.margin
+        self.bound_s = 2 * cfg.lease_ttl_s
         self.advisory_prefix = f"{prefix}/spaces/"
-        self.owners_topic = f"{prefix}/group/{name}/owners/{instance}"
-        self.members: dict[str, Member] = {}
+        self.rounds: queue.Queue[Round] = queue.Queue()
+        self.round: Round | None = None
+        self.keeper: LeaseKeeper | None = None
+        self.service: Service | None = None
+        self.publishing: dict[str, int] = {}
+        """Shard -> epoch, for the shards this instance may publish for now."""
+        self.evaluating: frozenset[str] = frozenset()
+        self.holding = np.zeros(0, dtype=bool)
+        """Spaces of the shards this instance publishes for."""
+        self.publish_after = -math.inf
+        self.last_turn: float | None = None
+        self.records: dict[str, dict[str, Any]] = {}
+        """Retained advisory messages of the site (topic -> payload), newest epoch only."""
+        self.seen = _Seen()
         self.ignored = 0
-        """Status records and advisory messages that were not JSON objects (not acted on)."""
-        self.retained: dict[str, dict[str, Any]] = {}
-        """Retained advisory messages of the site (topic -> payload), as they arrive."""
-        self.view: tuple[str, ...] | None = None
-        self.beats = 0
-        self.last_beat = -math.inf
-        self.settle_until: float | None = None
-        self.cut_off_at: float | None = None
+        """Retained advisory messages not taken: not JSON, or of an older epoch."""
+        self.commands: list[Buffered] = []
         self.uncovered_since: float | None = None
         self.gap_told = False
-        self.idle_told: set[str] = set()
-        self.service: Service | None = None
-        self.holding = np.zeros(0, dtype=bool)
-        self.hashes = ownership.space_hashes([])
+        self.status: dict[str, Any] = {}
         self.last_evaluated: float | None = None
-        self.owners_record: dict[str, Any] | None = None
-        """The latest owners record this run sent (sent again, unchanged, until it changes)."""
-        self._reassert = False
-        """A record said this instance is offline while it runs: say online again."""
-        self.listening_since: float | None = None
-        """Monotonic time this instance's current listening began (after a (re)connect)."""
-        self.heard_self: float | None = None
-        """Monotonic time this instance's own record last came back from the broker."""
-        self._marked: set[tuple[str, str]] = set()
-        """(member, run) marked offline by this instance (logged once)."""
-        self._key: object = None
-        self._held = np.zeros(0, dtype=bool)
-        self._unowned = np.zeros(0, dtype=bool)
 
     # ------------------------------------------------------------------ wiring
+    @property
+    def shards(self) -> list[str]:
+        assert self.service is not None
+        return self.service.engine.publication.shards
+
     def attach(self, service: Service) -> None:
         self.service = service
-        model = service.engine.model
-        self.hashes = ownership.space_hashes(model.space_ids)
-        self.holding = np.zeros(model.n_spaces, dtype=bool)
+        engine = service.engine
+        self.holding = np.zeros(engine.model.n_spaces, dtype=bool)
         service.engine.set_owned([], service.clock.now())
-        service.link.qos0.add(f"{self.status_prefix}+")
         service.link.set_subscriptions(self.subscriptions())
-        self._status_fields()
+        service.link.status_online.update({"group": self.name, "shards": [], "standby": []})
+        service.link.status_offline["group"] = self.name
+        self.keeper = LeaseKeeper(self.store, self.me, self.shards, self.cfg, self.rounds,
+                                  self.clock)
+
+    def start(self) -> None:
+        """Start the lease keeper (when the service starts running)."""
+        if self.keeper is not None and self.keeper._thread is None:
+            self.keeper.start()
 
     def watch_prefixes(self) -> tuple[str, ...]:
-        return (self.status_prefix, self.advisory_prefix)
-
-    def fixed_subscriptions(self) -> list[str]:
-        assert self.service is not None
-        return [f"{self.service.command_prefix}#", f"{self.status_prefix}+",
-                f"{self.advisory_prefix}+/advisories/#"]
+        return (self.advisory_prefix,)
 
     def subscriptions(self) -> list[str]:
-        """The sensor topics of the owned spaces (and the site's), commands, the group's
-        status records and the site's retained advisories."""
+        """The sensor topics of the spaces evaluated (held and standby shards) and the
+        site's, commands and the site's retained advisories."""
         assert self.service is not None
-        model = self.service.engine.model
-        owned = np.flatnonzero(self.holding).tolist()
-        return model.subscriptions(per_space=True, spaces=owned) + self.fixed_subscriptions()
+        service = self.service
+        shards = service.engine.publication.shards
+        spaces = [i for i, s in enumerate(shards) if s in self.evaluating]
+        return service.engine.model.subscriptions(per_space=True, spaces=spaces) + [
+            f"{service.command_prefix}#", f"{self.advisory_prefix}+/advisories/#"]
 
     def reapplied(self) -> None:
-        """After a reload swapped the engine: the same spaces, subscriptions as before."""
+        """After a reload swapped the engine: the same shards, epochs and subscriptions."""
         assert self.service is not None
         engine = self.service.engine
-        ids = [engine.model.space_ids[i] for i in np.flatnonzero(self.holding)]
-        if engine.model.n_spaces != self.holding.size:
-            held = set(ids)
-            self.hashes = ownership.space_hashes(engine.model.space_ids)
-            self.holding = np.array([s in held for s in engine.model.space_ids], dtype=bool)
-            self._key = None
+        engine.publication.epochs.update(self.publishing)
+        self.holding = np.array([s in self.publishing for s in engine.publication.shards],
+                                dtype=bool)
+        if self.keeper is not None:
+            self.keeper.shards = sorted(set(engine.publication.shards))
+        ids = [sid for sid, s in zip(engine.model.space_ids, engine.publication.shards,
+                                     strict=True) if s in self.evaluating]
         self.service.execute(engine.set_owned(ids, self.service.clock.now()))
         self.service.link.set_subscriptions(self.subscriptions())
 
     # ------------------------------------------------------------------ input
     def connected(self) -> None:
-        """A (re)connect: listen a beat's interval before ownership changes again; the
-        owners record again (one sent while the connection was going may have been lost,
-        and a broker restarted without persistence has forgotten it)."""
-        self.settle_until = None
-        self._send_owners()
+        """A (re)connect: the status record says what this instance holds."""
+        self._send_status()
 
     def receive(self, topic: str, payload: bytes) -> None:
-        """A status record, beat or retained advisory message."""
-        assert self.service is not None
-        if topic.startswith(self.status_prefix):
-            self._record(topic[len(self.status_prefix):], payload)
-        elif "/advisories/" in topic:
-            if not payload:
-                self.retained.pop(topic, None)
-                return
-            data = _json(payload)
-            if isinstance(data, dict):
-                self.retained[topic] = data
-            else:
-                self.retained.pop(topic, None)
-                self.ignored += 1
-
-    def _record(self, name: str, payload: bytes) -> None:
-        if "/" in name:
+        """A retained advisory message of the site."""
+        if "/advisories/" not in topic:
             return
-        data = _json(payload) if payload else {}
-        if name == self.me:
-            # its own beats coming back: the path through the broker works. Marked offline
-            # by a member that took this one as gone (or an old will): the retained record
-            # must say online again while this instance runs (cleared by update only)
-            if isinstance(data, dict):
-                if data.get("state") == "offline":
-                    self._reassert = True
-                elif self.service is not None:
-                    self.heard_self = self.service.clock.monotonic()
+        if not payload:
+            self.records.pop(topic, None)
             return
-        if data is None:
-            self.ignored += 1  # not JSON: not a record of ours, and nothing to act on
+        data = _json(payload)
+        if not isinstance(data, dict) or not isinstance(data.get("shard"), str) \
+                or not _is_int(data.get("epoch")):
+            self.ignored += 1
             return
-        if not isinstance(data, dict) or data.get("group") != self.name:
-            self.members.pop(name, None)
+        shard, epoch = data["shard"], int(data["epoch"])
+        newest = self.seen.newest.get(shard, -1)
+        if epoch < newest:
+            self.ignored += 1  # from a holder fenced since: never taken
             return
-        assert self.service is not None
-        # records travel two ways (retained ones through the broker's store, plain beats
-        # directly) and can arrive out of order: keep only the newest of an instance's run
-        # (its "since"), by beat number. The will (offline) keeps the beat number it
-        # follows: a member that reconnects within the same run beats on with higher
-        # numbers and is live again, while an older retained record is still ignored.
-        since, beat = str(data.get("since", "")), data.get("beat")
-        online = data.get("state") == "online"
-        if not isinstance(beat, int) or isinstance(beat, bool):
-            beat = -1
-        old = self.members.get(name)
-        if old is not None and old.since and since:
-            if since < old.since:
-                return
-            if since == old.since and online and beat <= old.beat:
-                return
-            if since == old.since and not online and data.get("reason") == "silent" \
-                    and beat < old.beat:
-                return  # a mark by a member that had not heard its latest beats
-        view = data.get("view")
-        if isinstance(view, list) and len(view) > MAX_VIEW:
-            view = None  # not a view any group of ours would have: claims nothing
-        if online:
-            number = beat
-        else:
-            number = old.beat if old is not None and old.since == since else -1
-        self.members[name] = Member(
-            name, tuple(str(v) for v in view) if isinstance(view, list) else None,
-            self.service.clock.monotonic(), online, _epoch(data.get("evaluated_at")),
-            since, number,
-            old.first_seen_at if old is not None and old.since == since
-            else self.service.clock.now(),
-            "" if online else str(data.get("reason") or "lost"))
+        self.seen.newest[shard] = epoch
+        self.records[topic] = data
 
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
 
-    def answers(self, advisory_id: object) -> bool:
-        """Whether this instance replies to a command for ``advisory_id``: the one that
-        holds the advisory does; for an advisory no one holds, the first live member in
-        name order (the others stay silent, so one reply goes back)."""
+    def route(self, m: Incoming, advisory_id: object) -> str:
+        """What to do with a command: "answer" (this instance holds the advisory's shard,
+        or no one has the advisory and this instance is the first live one), "keep" (it
+        stands by for the shard: applied if it takes the shard over), or "ignore"."""
         assert self.service is not None
-        if advisory_id in self.service.engine.advisories.by_id:
+        shard = self._shard_of_advisory(advisory_id)
+        if shard is None:
+            live = sorted(self.round.live) if self.round is not None else []
+            return "answer" if not live or live[0] == self.me else "ignore"
+        if shard in self.publishing:
+            return "answer"
+        if shard in self.evaluating and isinstance(advisory_id, str):
+            now = self.service.clock.now()
+            self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
+            self.commands.append(Buffered(m, now, advisory_id, shard))
+            return "keep"
+        return "ignore"
+
+    def _shard_of_advisory(self, advisory_id: object) -> str | None:
+        assert self.service is not None
+        engine = self.service.engine
+        got = engine.advisories.by_id.get(advisory_id) if isinstance(advisory_id, str) \
+            else None
+        if got is not None:
+            return engine.publication.shards[got[1]]
+        for p in self.records.values():
+            if p.get("id") == advisory_id:
+                shard = p.get("shard")
+                return shard if isinstance(shard, str) else None
+        return None
+
+    # ------------------------------------------------------------------ fencing
+    def may_publish(self, shard: object, epoch: object) -> bool:
+        """Whether this instance may publish a record of ``shard`` under ``epoch`` now."""
+        if not isinstance(shard, str) or self.publishing.get(shard) != epoch:
+            return False
+        assert self.round is not None
+        lease = self.round.held.get(shard)
+        return lease is not None and self.clock() < lease.expires_mono - self.margin_s \
+            and self.round.started >= self.publish_after
+
+    def fence(self, effects: list[Effect]) -> list[Effect]:
+        """The effects this instance may carry out now: those of the shards it publishes
+        for under their current epoch (records and events of the others are dropped, and
+        counted); removals from its own store and site-wide records pass."""
+        assert self.service is not None
+        kept: list[Effect] = []
+        dropped = 0
+        for e in effects:
+            shard, epoch = self._fence_of(e)
+            if shard is None or self.may_publish(shard, epoch):
+                kept.append(e)
+            else:
+                dropped += 1
+        if dropped:
+            self.service.metrics.group_fenced.inc(dropped)
+        return kept
+
+    def _fence_of(self, e: Effect) -> tuple[str | None, object]:
+        """The shard and epoch an effect belongs to; (None, None) for one that is not of a
+        shard (site-wide events, samples, a store row removed)."""
+        assert self.service is not None
+        pub = self.service.engine.publication
+        if isinstance(e, Publish):
+            p = e.payload
+            if p is not None and "shard" in p:
+                return p["shard"], p.get("epoch")
+            if p is None and "/advisories/" in e.topic:  # a cleared advisory
+                space = e.topic[len(self.advisory_prefix):].split("/", 1)[0]
+                i = self.service.engine.model.space_index.get(space)
+                if i is not None:
+                    return pub.fence(i)
+            return None, None
+        if e.kind in ("advisory", "event") and e.record is not None:
+            rec = e.record.get("payload", e.record)
+            if isinstance(rec, dict) and "shard" in rec:
+                return rec["shard"], rec.get("epoch")
+        return None, None
+
+    def allows(self, payload: dict[str, Any]) -> bool:
+        """Whether an outbox row may still be sent: an event of a shard's epoch this
+        instance publishes under now (or not of a shard)."""
+        if "shard" not in payload:
             return True
-        known = any(p.get("id") == advisory_id for p in self.retained.values())
-        return not known and (self.view or (self.me,))[0] == self.me
+        return self.may_publish(payload["shard"], payload.get("epoch"))
 
     # ------------------------------------------------------------------ the loop
     def update(self) -> None:
         """Called on every turn of the engine loop; cheap unless something changed."""
         service = self.service
         assert service is not None
-        mono = service.clock.monotonic()
-        if not (service.link.connected.is_set() and service.link.subscribed.is_set()):
-            if service.link.connected.is_set():
-                self._beat_due(mono)
-            self.settle_until = None  # listen again after the reconnect
-            self.listening_since = None
-            if self.cut_off_at is None:
-                self.cut_off_at = mono
-            elif self.holding.any() and mono - self.cut_off_at >= \
-                    LET_GO_FACTOR * self.keepalive_s:
-                log.warning("cut off from the broker for %.0f s: letting the %d owned "
-                            "space(s) go to the other members", mono - self.cut_off_at,
-                            int(self.holding.sum()))
-                self.view = None  # back as a newcomer: the others need not wait for it
-                self._hold(np.zeros_like(self.holding))
+        mono = self.clock()
+        if self.last_turn is not None and mono - self.last_turn > self.margin_s:
+            log.warning("the engine loop stalled for %.1f s: publishing waits for the leases "
+                        "to be read again", mono - self.last_turn)
+            self.publish_after = mono
+        self.last_turn = mono
+        latest = None
+        while True:
+            try:
+                latest = self.rounds.get_nowait()
+            except queue.Empty:
+                break
+        if latest is not None:
+            self.round = latest
+        r = self.round
+        if r is None:
             return
-        self.cut_off_at = None
-        if self._reassert:
-            self._reassert = False
-            self._beat(retain=True)
-        if self.settle_until is None:
-            self.settle_until = mono + self.beat_s + SETTLE_EXTRA_S
-            self.listening_since = mono
-        if mono < self.settle_until:
-            self._beat_due(mono)
-            return
-        live = {m.name: m for m in self.members.values()
-                if m.online and m.view is not None and mono - m.seen < self.live_s}
-        view = tuple(sorted({self.me, *live}))
-        if view != self.view:
-            gone = set(self.view or ()) - set(view)
-            came = set(view) - set(self.view or ())
-            log.info("group %s: members %s (joined %s, gone %s)", self.name, ", ".join(view),
-                     ", ".join(sorted(came)) or "-", ", ".join(sorted(gone)) or "-")
-            self.view = view
-            self._beat(retain=True)
-        views = {m.name: m.view or () for m in live.values()}
-        key = (view, tuple(sorted(views.items())))
-        if key != self._key:  # hashing every space is done only when a view changes
-            self._key = key
-            self._held = ownership.held(self.hashes, self.me, view, views)
-            _, _, count = ownership.holders(self.hashes, {**views, self.me: view})
-            self._unowned = count == 0
-        if not np.array_equal(self._held, self.holding):
-            self._hold(self._held)
-        self._beat_due(mono)
-        self._coverage(mono, live)
+        evaluating = frozenset(r.held) | r.standby
+        if evaluating != self.evaluating:
+            self._evaluate(evaluating)
+        valid = {s: lease.epoch for s, lease in r.held.items()
+                 if mono < lease.expires_mono - self.margin_s and r.started >= self.publish_after}
+        if valid != self.publishing:
+            self._publish_for(valid)
+        self._coverage(r, mono)
 
-    def _beat_due(self, mono: float) -> None:
-        if mono - self.last_beat >= self.beat_s:
-            self._beat(retain=self.beats % RETAIN_EVERY_BEATS == 0)
-
-    def _status_fields(self) -> None:
-        """The group's fields in the status record (also what a reconnect's birth says)."""
-        assert self.service is not None
-        online = self.service.link.status_online
-        online.update({"group": self.name, "view": list(self.view) if self.view else None,
-                       "keepalive_s": self.keepalive_s, "beat": self.beats,
-                       "owned_spaces": int(self.holding.sum()),
-                       "evaluated_at": self.last_evaluated})
-        self.service.link.status_offline["group"] = self.name
-
-    def _beat(self, retain: bool) -> None:
-        assert self.service is not None
-        self.beats += 1
-        self.last_beat = self.service.clock.monotonic()
-        self._status_fields()
-        link = self.service.link
-        if retain:
-            self._send_owners()
-        self._mark_silent(self.last_beat)
-        # a plain beat at QoS 0: on a JetStream-backed broker it does not wait for the
-        # streams (which stall for seconds while a dead node's streams move)
-        link.publish(link.status_topic, dict(link.status_online), 1 if retain else 0, retain)
-
-    def _mark_silent(self, mono: float) -> None:
-        """For the first live member in name order: say offline, retained, for each member
-        taken as gone for silence that did not stop in order, and empty its owners record.
-        Its latest record says online (its will never came), or is its will, which a
-        clustered broker may have delivered to the members it could reach without storing
-        it (the retained record then says online for good). Sent with every beat until the
-        mark comes back (a mark lost with a connection or a broker node is sent again).
-
-        Silence proves something only where this instance was listening: the member must
-        have been silent for a keepalive of this instance's own listening since its last
-        (re)connect, and this instance's own beats must be coming back from the broker
-        (else its subscription or the broker's path is what is silent)."""
-        assert self.service is not None
-        link = self.service.link
-        if not self.view or self.view[0] != self.me or self.listening_since is None \
-                or self.heard_self is None or mono - self.heard_self >= self.live_s \
-                or not (link.connected.is_set() and link.subscribed.is_set()):
-            return
-        for name, m in sorted(self.members.items()):
-            if name in self.view or m.reason in ("stopped", "silent") \
-                    or mono - max(m.seen, self.listening_since) < self.live_s:
-                continue
-            if (name, m.since) not in self._marked:
-                self._marked.add((name, m.since))
-                log.warning("group %s: member %s has been silent for %.0f s (its last record: "
-                            "%s): marking it offline", self.name, name, mono - m.seen,
-                            "online" if m.online else "its will")
-            link.publish(f"{self.status_prefix}{name}", {
-                "schema": link.status_online.get("schema"), "site": link.status_online.get(
-                    "site"), "instance": name, "group": self.name, "state": "offline",
-                "since": m.since, "beat": m.beat, "reason": "silent", "by": self.me,
-                "at": _iso(self.service.clock.now())}, 1, True)
-            link.publish(f"{self.prefix}/group/{self.name}/owners/{name}", None, 1, True)
-
-    def _send_owners(self) -> None:
-        """The retained owners record, as of the latest change of the owned spaces."""
-        if self.owners_record is not None and self.service is not None:
-            self.service.link.publish(self.owners_topic, self.owners_record, 1, True)
-
-    def _hold(self, held: np.ndarray) -> None:
-        """Own exactly the spaces ``held``: adopt the advisories of those taken over before
-        they are evaluated, forget those given up, follow with the subscriptions."""
+    def _evaluate(self, shards: frozenset[str]) -> None:
+        """Evaluate the spaces of ``shards`` from now on (held and standby)."""
         service = self.service
         assert service is not None
         engine = service.engine
+        pub = engine.publication
+        gained = shards - self.evaluating
+        gone = self.evaluating - shards
+        self.evaluating = shards
+        ids = [sid for sid, s in zip(engine.model.space_ids, pub.shards, strict=True)
+               if s in shards]
+        service.execute(engine.set_owned(ids, service.clock.now()))
+        service.link.set_subscriptions(self.subscriptions())
+        service.dirty = True
+        if gained or gone:
+            log.info("group %s: evaluating %d shard(s), %d space(s) (+%s, -%s)", self.name,
+                     len(shards), len(ids), ",".join(sorted(gained)) or "-",
+                     ",".join(sorted(gone)) or "-")
+
+    def _publish_for(self, valid: dict[str, int]) -> None:
+        """Publish for exactly the shards ``valid`` (shard -> epoch): take over those that
+        are new (or of a new epoch), stop for the others."""
+        service = self.service
+        assert service is not None
+        engine = service.engine
+        pub = engine.publication
         now = service.clock.now()
-        ids = engine.model.space_ids
-        gained = held & ~self.holding
-        released = self.holding & ~held
-        effects: list[Effect] = engine.set_owned([ids[i] for i in np.flatnonzero(held)], now)
-        if gained.any():
-            taken = {ids[i] for i in np.flatnonzero(gained)}
-            payloads = [p for p in self.retained.values()
-                        if isinstance(p.get("space"), dict)
-                        and isinstance(p["space"].get("id"), str) and p["space"]["id"] in taken]
-            notes, more = engine.adopt(payloads, now, by=self.me)
+        new = {s: e for s, e in valid.items() if self.publishing.get(s) != e}
+        for s in set(self.publishing) - set(valid):
+            log.warning("not publishing for shard %s any more (epoch %d: lease %s)", s,
+                        self.publishing[s], "lost" if self.round is None
+                        or s not in self.round.held else "not confirmed in time")
+        self.publishing = dict(valid)
+        pub.epochs.update(valid)
+        before = self.holding
+        self.holding = np.array([s in valid for s in pub.shards], dtype=bool)
+        effects: list[Effect] = []
+        for shard, epoch in sorted(new.items()):
+            ids = [sid for sid, s in zip(engine.model.space_ids, pub.shards, strict=True)
+                   if s == shard]
+            records = [p for p in self.records.values() if p.get("shard") == shard]
+            notes, more = engine.reconcile(ids, records, now, by=self.me)
             for note in notes:
                 log.warning("%s", note)
             effects += more
-            if payloads:
-                log.info("took over %d live advisory(ies) with %d space(s)",
-                         sum(1 for e in more if isinstance(e, Persist)), int(gained.sum()))
-        self.holding = held.copy()
+            for i, s in enumerate(pub.shards):
+                if s == shard:
+                    pub.last_conditions[i] = -math.inf
+            log.info("publishing for shard %s under epoch %d (%d space(s), %d live "
+                     "advisory(ies) continued)", shard, epoch, len(ids),
+                     sum(1 for e in more if isinstance(e, Persist)))
         service.execute(effects)
-        service.link.set_subscriptions(self.subscriptions())
-        service.dirty = True
+        for shard in sorted(new):
+            self._apply_kept(shard)
         m = service.metrics
-        m.group_owned.set(int(held.sum()))
-        m.group_moves.labels(direction="in").inc(int(gained.sum()))
-        m.group_moves.labels(direction="out").inc(int(released.sum()))
-        log.info("group %s: owning %d space(s) (+%d, -%d)", self.name, int(held.sum()),
-                 int(gained.sum()), int(released.sum()))
-        self.owners_record = {
-            "schema": "thermowarden.owners/1", "group": self.name, "instance": self.me,
-            "at": _iso(now), "spaces": [ids[i] for i in np.flatnonzero(held)]}
-        self._beat(retain=True)  # sends the owners record first
+        m.group_owned.set(int(self.holding.sum()))
+        if before.size == self.holding.size:
+            m.group_moves.labels(direction="in").inc(int((self.holding & ~before).sum()))
+            m.group_moves.labels(direction="out").inc(int((before & ~self.holding).sum()))
+        engine.advisories.last_refresh = -math.inf
+        service.dirty = True
+        self._send_status()
 
-    def _coverage(self, mono: float, live: dict[str, Member]) -> None:
-        """Metrics and the integrator's notices: spaces without an owner, idle owners."""
+    def _apply_kept(self, shard: str) -> None:
+        """Commands received as a standby for ``shard`` that its old holder had not applied
+        (the retained advisory did not change after they arrived) are applied now."""
         service = self.service
-        assert service is not None and self.view is not None
-        unowned = self._unowned
-        service.metrics.group_members.set(len(live) + 1)
-        if unowned.any():
+        assert service is not None
+        kept = [c for c in self.commands if c.shard == shard]
+        self.commands = [c for c in self.commands if c.shard != shard]
+        for c in kept:
+            record = next((p for p in self.records.values() if p.get("id") == c.advisory_id),
+                          None)
+            h = record.get("handover") if record is not None else None
+            updated = h.get("updated_at") if isinstance(h, dict) else None
+            if isinstance(updated, int | float) and updated >= c.at:
+                continue  # the old holder applied it (or something after it)
+            log.info("applying a %s command for %s received while standing by",
+                     c.message.topic.rsplit("/", 1)[-1], c.advisory_id)
+            service.handle_command(c.message)
+
+    def _send_status(self) -> None:
+        service = self.service
+        if service is None:
+            return
+        link = service.link
+        status = {"group": self.name, "shards": sorted(self.publishing),
+                  "epochs": dict(sorted(self.publishing.items())),
+                  "standby": sorted(self.evaluating - set(self.publishing)),
+                  "owned_spaces": int(self.holding.sum())}
+        link.status_online.update(status)
+        if status != self.status and link.connected.is_set():
+            link.publish(link.status_topic, dict(link.status_online), 1, True)
+        self.status = status
+
+    def _coverage(self, r: Round, mono: float) -> None:
+        """Metrics and the integrator's notice when a shard has had no holder too long."""
+        service = self.service
+        assert service is not None
+        service.metrics.group_members.set(len(r.live))
+        all_shards = sorted(set(service.engine.publication.shards))
+        free = [s for s in all_shards if s not in r.holders]
+        if free and r.ok:
             if self.uncovered_since is None:
                 self.uncovered_since = mono
             waited = mono - self.uncovered_since
-            service.metrics.group_uncovered.set(waited)
-        else:
+        elif not free:
             self.uncovered_since = None
             self.gap_told = False
-            service.metrics.group_uncovered.set(0)
             waited = 0.0
-        first = self.view[0] == self.me
-        now = service.clock.now()
-        if waited > self.bound_s and not self.gap_told and first:
+        else:
+            waited = mono - self.uncovered_since if self.uncovered_since is not None else 0.0
+        service.metrics.group_uncovered.set(waited)
+        first = not r.live or sorted(r.live)[0] == self.me
+        if waited > self.bound_s and not self.gap_told and first and r.ok:
             self.gap_told = True
-            spaces = [service.engine.model.space_ids[i] for i in np.flatnonzero(unowned)]
-            self._notice("spaces_unowned", now, {
-                "count": len(spaces), "spaces": spaces[:100],
-                "text": f"{len(spaces)} space(s) of group {self.name} had no owner for more "
-                        f"than {self.bound_s:.0f} s: nobody evaluated them"})
-        late = self.bound_s + service.tick_s
-        idle = sorted(n for n, m in live.items() if (
-            now - m.evaluated_at > late if m.evaluated_at is not None
-            else m.first_seen_at is not None and now - m.first_seen_at > late))
-        fresh = sorted(set(idle) - self.idle_told)
-        self.idle_told = set(idle)
-        if fresh and first:
-            self._notice("owner_idle", now, {
-                "count": len(fresh), "members": fresh,
-                "text": f"member(s) {', '.join(fresh)} of group {self.name} evaluated nothing "
-                        f"for more than {self.bound_s:.0f} s"})
+            pub = service.engine.publication
+            spaces = [sid for sid, s in zip(service.engine.model.space_ids, pub.shards,
+                                            strict=True) if s in free]
+            self._notice("spaces_unowned", service.clock.now(), {
+                "count": len(spaces), "spaces": spaces[:100], "shards": free[:100],
+                "text": f"{len(free)} shard(s) ({len(spaces)} space(s)) of group {self.name} "
+                        f"had no holder for more than {self.bound_s:.0f} s: nobody "
+                        "evaluated them"})
 
     def _notice(self, kind: str, now: float, fields: dict[str, Any]) -> None:
         assert self.service is not None
@@ -470,30 +591,23 @@ class Group:
             Persist("event", f"notice.{kind}.{int(now)}", notice)])
 
     def stop(self) -> None:
-        """An orderly stop: the owners record is emptied (the status says offline)."""
-        self.owners_record = None  # not sent again
-        if self.service is not None and self.service.link.connected.is_set():
-            self.service.link.publish(self.owners_topic, None, 1, True)
+        """An orderly stop: the leases go to their standbys at once."""
+        self.publishing = {}
+        if self.keeper is not None:
+            self.keeper.stop()
 
 
 def _json(payload: bytes) -> object:
     """The JSON in a message from the broker, or None: anyone who may publish on the
-    group's topics can send anything, and nothing they send may stop the service."""
+    site's topics can send anything, and nothing they send may stop the service."""
     try:
         return json.loads(payload)
     except (ValueError, RecursionError):
         return None
 
 
-def _epoch(value: object) -> float | None:
-    """A finite epoch time in seconds, or None."""
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        return None
-    try:
-        t = float(value)
-    except OverflowError:
-        return None
-    return t if math.isfinite(t) else None
+def _is_int(value: object) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool)
 
 
 def _iso(t: float) -> str:

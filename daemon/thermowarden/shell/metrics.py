@@ -77,18 +77,22 @@ class Metrics:
                                    ["direction"], registry=r)
         # one instance of a group (``run --group``)
         self.group_owned = Gauge("thermowarden_group_owned_spaces",
-                                 "Spaces this instance of a group owns and evaluates",
-                                 registry=r)
+                                 "Spaces of the shards this instance of a group holds and "
+                                 "publishes for", registry=r)
         self.group_members = Gauge("thermowarden_group_members",
-                                   "Live members of the group, as this instance sees them",
+                                   "Live instances of the group (presence in the lease store)",
                                    registry=r)
         self.group_uncovered = Gauge(
             "thermowarden_group_uncovered_seconds",
-            "Seconds since every space of the site last had an owner (0 while all have one)",
+            "Seconds since every shard of the site last had a holder (0 while all have one)",
             registry=r)
         self.group_moves = Counter("thermowarden_group_spaces_moved",
                                    "Spaces this instance took over or gave up", ["direction"],
                                    registry=r)
+        self.group_fenced = Counter(
+            "thermowarden_group_fenced",
+            "Records and events not published because this instance's lease of their shard "
+            "had lapsed, was lost or not yet confirmed (fencing)", registry=r)
         self.group_errors = Counter(
             "thermowarden_group_errors",
             "Group records or steps that failed (logged; the service carries on)",

@@ -196,8 +196,8 @@ class Service:
         if self.silence_limit_s is not None:
             last = self.last_sensor if self.last_sensor is not None else self.started
             receiving = self.clock.monotonic() - last < self.silence_limit_s
-            if self.group is not None and not self.group.holding.any():
-                receiving = True  # a member of a group that owns no space has nothing to hear
+            if self.group is not None and not self.group.evaluating:
+                receiving = True  # a member of a group with no shard has nothing to hear
         parts = {"connected": self.link.connected.is_set(),
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
@@ -252,7 +252,10 @@ class Service:
 
     # ------------------------------------------------------------------ effects
     def execute(self, effects: list[Effect]) -> None:
-        """Store everything first (one transaction), then publish."""
+        """Store everything first (one transaction), then publish. One instance of a group
+        carries out only what its leases allow now (:meth:`Group.fence`)."""
+        if self.group is not None:
+            effects = self.group.fence(effects)
         now = self.clock.now()
         sends: list[tuple[int, Publish]] = []
         with self.store.transaction():
@@ -286,6 +289,10 @@ class Service:
     def _hand_over(self, seq: int, topic: str, payload: dict[str, Any]) -> None:
         """Give an outbox row to the client, unless it already holds it."""
         if seq in self.handed:
+            return
+        if self.group is not None and not self.group.allows(payload):
+            self.store.outbox_done(seq)  # of an epoch this instance no longer holds
+            self.metrics.group_fenced.inc()
             return
         event_id = str(payload.get("event_id", ""))
         mid = self.link.publish(topic, payload, 1, False, user=[("event_id", event_id)])
@@ -476,6 +483,10 @@ class Service:
                 log.exception("group step %s failed%s", getattr(step, "__name__", step),
                               f" ({dropped} similar suppressed)" if dropped else "")
 
+    def handle_command(self, m: Incoming) -> None:
+        """Act on a command now (a group's new holder, for commands kept as a standby)."""
+        self._handle_command(m)
+
     def _handle_command(self, m: Incoming) -> None:
         """``<prefix>/commands/<audience>/<verb>[/<user>]``: the audience in the topic lets a
         broker ACL decide who may act on whose advisories (the engine checks that it matches
@@ -502,8 +513,8 @@ class Service:
             effects = []
         else:
             if self.group is not None and m.on_reply is None and \
-                    not self.group.answers(_advisory_id(m.payload)):
-                return  # every member receives it: the one that holds the advisory answers
+                    self.group.route(m, _advisory_id(m.payload)) != "answer":
+                return  # every instance receives it: the holder of its shard answers
             identity = m.identity or (parts[2] if len(parts) == 3 else None)
             reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
                                                  identity=identity)
@@ -711,6 +722,8 @@ class Service:
         if self.delivery is not None:
             self.delivery.start()
         self.link.start()
+        if self.group is not None:
+            self.group.start()
         self.evaluate()
         freeze_heap()
         ready_sent = False

@@ -1,0 +1,242 @@
+"""A group of instances on one Mosquitto broker with its shard leases in PostgreSQL: every
+shard held by exactly one instance, the holder killed mid-advisory (its warm standby takes
+the shard under a new epoch and continues the advisory), one frozen past its lease (it
+publishes nothing when it wakes), one joining (it gets its share), a command answered once.
+Each test checks the invariants a consumer relies on (tests/shell/group_parts.py)."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import time
+import uuid
+
+import pytest
+
+from tests.engine.conftest import validator
+from tests.shell.conftest import (
+    SLOW,
+    Collector,
+    ServiceProcess,
+    clear_retained,
+    wait_for,
+    write_site,
+)
+from tests.shell.group_parts import Feeder, check_invariants, pg_holders, wait_until
+from tests.shell.lease_parts import PG_DSN, drop_schema, need_postgres
+
+pytestmark = pytest.mark.broker
+
+TTL_S = 3.0
+
+
+def group_site(tmp_path, prefix, port, spaces, schema, *, buckets=6, rebalance_s=2.0):
+    return write_site(tmp_path, prefix, port, spaces, evaluation="{tick_s: 1, flood_limit: 1000}",
+                      extra=f"""group:
+  store: {{kind: postgres, dsn: "{PG_DSN}", table_schema: {schema}}}
+  lease_ttl_s: {TTL_S}
+  shard_buckets: {buckets}
+  rebalance_after_s: {rebalance_s}
+""")
+
+
+def covered(schema: str, names: set[str], shards: int) -> bool:
+    holders = pg_holders(schema)
+    return len(holders) == shards and {h for h, _ in holders.values()} <= names
+
+
+def test_holder_killed_its_standby_continues_and_a_newcomer_gets_a_share(
+        tmp_path, system_broker_port):
+    need_postgres()
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    schema = f"tw_{uuid.uuid4().hex[:10]}"
+    spaces = [f"s{i:02d}" for i in range(12)]
+    site = group_site(tmp_path, prefix, port, spaces, schema)
+    n_shards = len({__import__("thermowarden.core.shards", fromlist=["x"]).bucket_name(s, 6)
+                    for s in spaces})
+    watch_c = Collector(port, [f"{prefix}/#"])
+    temp = {"value": "25"}
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
+    feeder.start()
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+             for n in ("a", "b", "c")}
+    try:
+        for p in procs.values():
+            p.start(wait_ready=False)
+        for p in procs.values():
+            wait_for(p.ready, SLOW, "an instance to be ready")
+        wait_for(lambda: covered(schema, {"a", "b", "c"}, n_shards), SLOW,
+                 "every shard to have a holder")
+        temp["value"] = "31"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "raised"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every space's hot advisory")
+        raised = next(e for e in watch_c.events(prefix) if e["event"] == "raised"
+                      and e["advisory"]["space"]["id"] == "s00"
+                      and e["advisory"]["rule"] == "fast.hot")
+        shard = raised["shard"]
+        victim, epoch = pg_holders(schema)[shard]
+        assert raised["epoch"] == epoch
+        assert raised["event_id"].startswith(f"{raised['advisory']['site']}.{shard}.{epoch}.")
+        survivors = {"a", "b", "c"} - {victim}
+        t_kill, wall_kill = time.monotonic(), time.time()
+        procs[victim].kill()
+        t_taken = wait_until(lambda: pg_holders(schema).get(shard, ("", 0))[0] in survivors,
+                             SLOW)
+        assert t_taken is not None
+        # the bound: the lease runs out (TTL) and the standby's next round takes it
+        print(f"postgres leases: shard {shard} taken {t_taken - t_kill:.1f} s after the "
+              f"kill (TTL {TTL_S} s)")
+        assert t_taken - t_kill <= TTL_S + TTL_S / 3 + 2.0
+        new_holder, new_epoch = pg_holders(schema)[shard]
+        assert new_epoch > epoch
+        topic = f"{prefix}/spaces/s00/advisories/fast.hot"
+
+        def moved() -> dict | None:
+            for t, p, _ in reversed(list(watch_c.messages)):
+                if t == topic and p:
+                    d = json.loads(p)
+                    if d["history"][-1]["event"] == "moved":
+                        return d
+            return None
+        wait_for(lambda: moved() is not None, SLOW, "the moved advisory of s00")
+        adv = moved()
+        assert adv is not None
+        assert adv["id"] == raised["advisory"]["id"] and adv["epoch"] == new_epoch
+        assert adv["history"][0] == raised["advisory"]["history"][0]
+        assert adv["history"][-1]["by"] == new_holder
+        # the conditions of s00 come from the standby, whose 60-minute window began when it
+        # started standing by, before the kill (not at the takeover)
+        wait_for(lambda: any(json.loads(p).get("epoch") == new_epoch for t, p, _ in
+                             list(watch_c.messages)
+                             if t == f"{prefix}/spaces/s00/conditions" and p
+                             and not p.startswith(b"sync-")), SLOW, "s00's new conditions")
+        cond = [json.loads(p) for t, p, _ in list(watch_c.messages)
+                if t == f"{prefix}/spaces/s00/conditions" and p and not p.startswith(b"sync-")]
+        window = cond[-1].get("windows", {}).get("wbgt_60min")
+        if window is not None:  # the group started less than an hour ago
+            import datetime as dt
+            since = dt.datetime.fromisoformat(window["rebuilding_since"].replace("Z", "+00:00"))
+            assert since.timestamp() <= wall_kill
+        validator("conditions.v1.json").validate(cond[-1])
+        # a command goes to every instance; only the holder of its shard answers, once
+        reply_topic = f"{prefix}/replies/t-{uuid.uuid4().hex[:6]}"
+        replies = Collector(port, [reply_topic])
+        replies.publish(f"{prefix}/commands/facilities/acknowledge", json.dumps(
+            {"advisory_id": adv["id"], "by": "Ana", "reply_to": reply_topic}))
+        wait_for(lambda: replies.json_on(reply_topic), SLOW, "the reply")
+        # one more instance joins: it gets a share once the membership has settled
+        procs["d"] = ServiceProcess(site, tmp_path / "d", "--group", "g", "--instance", "d")
+        procs["d"].start()
+        wait_for(lambda: "d" in {h for h, _ in pg_holders(schema).values()}, SLOW,
+                 "the newcomer to take a shard")
+        wait_for(lambda: covered(schema, survivors | {"d"}, n_shards), SLOW,
+                 "every shard held after the join")
+        # the temperature falls: every advisory clears once, nothing was raised twice
+        temp["value"] = "27"
+        wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "cleared"
+                              and e["advisory"]["rule"] == "fast.hot"]) == len(spaces), SLOW,
+                 "every hot advisory to clear")
+        replies.sync(reply_topic)
+        assert [r["ok"] for r in replies.json_on(reply_topic)] == [True]
+        replies.close()
+        events = watch_c.events(prefix)
+        raised_spaces = [e["advisory"]["space"]["id"] for e in events
+                         if e["event"] == "raised" and e["advisory"]["rule"] == "fast.hot"]
+        assert sorted(raised_spaces) == spaces  # once each, through a kill and a join
+        acked = [e for e in events if e["event"] == "acknowledged"]
+        assert [e["advisory"]["id"] for e in acked] == [adv["id"]]
+        watch_c.sync(f"{prefix}/sync")
+        check_invariants(watch_c, prefix)
+        assert not [e for e in events if e.get("kind") == "spaces_unowned"]
+        for e in events[:50]:
+            validator("event.v1.json").validate(e)
+    finally:
+        feeder.stop()
+        for p in procs.values():
+            if p.proc is not None:
+                p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+        drop_schema(schema)
+
+
+def test_a_frozen_holder_publishes_nothing_when_it_wakes(tmp_path, system_broker_port):
+    """The holder is stopped (SIGSTOP) for twice the lease TTL while its advisory escalates
+    and someone acknowledges it; its standby takes over. When it resumes it must not
+    publish a thing under its old epoch; the acknowledgement given during the pause is
+    kept."""
+    need_postgres()
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    schema = f"tw_{uuid.uuid4().hex[:10]}"
+    spaces = ["s00", "s01"]
+    site = group_site(tmp_path, prefix, port, spaces, schema, buckets=1, rebalance_s=3600)
+    watch_c = Collector(port, [f"{prefix}/#"])
+    temp = {"value": "31"}
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
+    feeder.start()
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+             for n in ("a", "b")}
+    try:
+        for p in procs.values():
+            p.start(wait_ready=False)
+        wait_for(lambda: all(p.ready() for p in procs.values()), SLOW, "both ready")
+        wait_for(lambda: len(pg_holders(schema)) == 1, SLOW, "the one shard to be held")
+        ((shard, (holder, epoch)),) = pg_holders(schema).items()
+        wait_for(lambda: [e for e in watch_c.events(prefix) if e["event"] == "raised"
+                          and e["advisory"]["space"]["id"] == "s00"
+                          and e["advisory"]["rule"] == "fast.hot"], SLOW, "the advisory")
+        adv = next(e["advisory"] for e in watch_c.events(prefix) if e["event"] == "raised"
+                   and e["advisory"]["space"]["id"] == "s00"
+                   and e["advisory"]["rule"] == "fast.hot")
+        frozen = procs[holder]
+        assert frozen.proc is not None
+        os.kill(frozen.proc.pid, signal.SIGSTOP)
+        t_stop = time.monotonic()
+        try:
+            # during the pause: acknowledged (the standby keeps it until it holds the
+            # shard, then applies it; the frozen holder cannot)
+            watch_c.publish(f"{prefix}/commands/facilities/acknowledge", json.dumps(
+                {"advisory_id": adv["id"], "by": "Ana"}))
+            wait_for(lambda: pg_holders(schema).get(shard, ("", 0))[0] not in ("", holder),
+                     SLOW, "the standby to take the shard")
+            _, new_epoch = pg_holders(schema)[shard]
+            assert new_epoch > epoch
+            wait_for(lambda: any(e["event"] == "acknowledged" and e["epoch"] == new_epoch
+                                 for e in watch_c.events(prefix)), SLOW,
+                     "the acknowledgement, applied by the new holder")
+            while time.monotonic() - t_stop < 2 * TTL_S:
+                time.sleep(0.1)
+        finally:
+            os.kill(frozen.proc.pid, signal.SIGCONT)
+        # let the woken instance run for a while: it must publish nothing of its old epoch
+        time_woken = time.monotonic()
+        wait_for(lambda: frozen.metric("thermowarden_group_fenced_total") >= 0
+                 and time.monotonic() - time_woken > 2 * TTL_S, SLOW, "a while after waking")
+        watch_c.sync(f"{prefix}/sync")
+        newest = check_invariants(watch_c, prefix)
+        assert newest[shard] == new_epoch
+        with watch_c.lock:
+            msgs = list(watch_c.messages)
+        t_new = next(i for i, (t, p, _) in enumerate(msgs)
+                     if "/events/" in t and p and not p.startswith(b"sync-")
+                     and json.loads(p).get("epoch") == new_epoch)
+        late_old = [t for t, p, _ in msgs[t_new:] if p and not p.startswith(b"sync-")
+                    and (t.endswith("/conditions") or "/advisories/" in t or "/events/" in t)
+                    and json.loads(p).get("epoch") == epoch]
+        assert late_old == [], late_old[:5]
+        record = json.loads(next(p for t, p, _ in reversed(msgs)
+                                 if t == f"{prefix}/spaces/s00/advisories/fast.hot" and p))
+        assert record["acknowledged"] and record["acknowledged"]["by"] == "Ana"
+        assert record["id"] == adv["id"]
+    finally:
+        feeder.stop()
+        for p in procs.values():
+            if p.proc is not None:
+                p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+        drop_schema(schema)
