@@ -243,9 +243,18 @@ class FaultRun:
         return sorted(s for s, h in self.holders().items() if h == name)
 
     def wait_holding(self, name: str, at_least: int) -> list[str]:
+        """The spaces ``name`` holds once it holds ``at_least``, spread over its shards
+        (one of each shard in turn), so the hot spaces cover as many shards as they can."""
         wait_for(lambda: len(self.spaces_of(name)) >= at_least, 3 * SLOW,
                  f"instance {name} to hold {at_least} space(s)")
-        return self.spaces_of(name)
+        held = self.spaces_of(name)
+        shard = {s: str(d.get("shard")) for s, d in self.latest_conditions().items()}
+        rank: dict[str, int] = {}
+        order = []
+        for s in held:
+            k = rank[shard.get(s, "")] = rank.get(shard.get(s, ""), -1) + 1
+            order.append((k, s))
+        return [s for _, s in sorted(order)]
 
     # ---------------------------------------------------------------- the heat
     def heat_events(self, space: str | None = None) -> list[dict[str, Any]]:

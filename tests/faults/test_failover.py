@@ -146,7 +146,7 @@ def test_scale_out_and_in(tmp_path):
 @pytest.mark.slow
 @pytest.mark.parametrize("store", ["nats", "postgres"])
 def test_holder_paused(tmp_path, store):
-    run_fault(tmp_path, store, PAUSE, warm=True)
+    run_fault(tmp_path, store, PAUSE, warm=store == "nats")
 
 
 @pytest.mark.slow
@@ -157,7 +157,7 @@ def test_holder_broker_node_paused(tmp_path):
 @pytest.mark.slow
 @pytest.mark.parametrize("store", ["nats", "postgres"])
 def test_holder_partitioned(tmp_path, store):
-    run_fault(tmp_path, store, PARTITION, victim="c", warm=True)
+    run_fault(tmp_path, store, PARTITION, victim="c", warm=store == "nats")
 
 
 @pytest.mark.slow
