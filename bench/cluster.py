@@ -8,7 +8,7 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
 ``bench/run.py`` is the JSON of all of them.
 
 - ``cluster_<m>_msgs_per_s``: one publisher sends ``n`` sensor messages (QoS 0) to node 1 as
-  fast as it can, for a site of ``LARGE`` spaces; the figure is the rate at which the group
+  fast as it can, for the large site; the figure is the rate at which the group
   as a whole takes them in (the sum of the instances' received counters, until it stops
   growing), against a bare paho MQTT 3.1.1 consumer on node 1 in the same run
   (``cluster_<m>_vs_bare_ratio``). With standbys, every message reaches each instance that
@@ -17,9 +17,9 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
   instances per message sent, including their evaluations in that time.
 - ``cluster_<S>sp_<m>_idle_cpu_per_space_min_us``: CPU time of all instances per space of
   the site per minute with no message arriving (evaluations every ``TICK_S``, conditions,
-  lease renewals or heartbeats), for a site of ``S`` spaces (two sizes, ``SMALL`` and
-  ``LARGE`` = 4 x ``SMALL``); ``cluster_<S>sp_<m>_idle_cpu_per_instance_min_ms`` the same per
-  instance per minute.
+  lease renewals or heartbeats), for a site of ``S`` spaces (two sizes: 150 and 600 with
+  ``--quick``, 1,000 and 4,000 without); ``cluster_<S>sp_<m>_idle_cpu_per_instance_min_ms``
+  the same per instance per minute.
 - ``cluster_idle_site_growth_ratio``: idle CPU per instance with four instances on the large
   site divided by one instance on the small site: each then handles the same number of
   spaces, so 1.0 means an instance's idle cost follows the spaces it handles, not the
@@ -47,7 +47,7 @@ from e2e import BARE, PUBLISHER, _free_port, _metric  # noqa: E402
 from tests.shell.nats_cluster import NatsCluster, nats_program  # noqa: E402
 
 SMALL = 150
-LARGE = 4 * SMALL
+"""Spaces of the small site with --quick (1,000 without); the large one has four times."""
 TICK_S = 5.0
 LEASE_TTL_S = 8.0
 
@@ -78,7 +78,7 @@ def _site(tmp: pathlib.Path, prefix: str, url: str, spaces: int,
         servers = ", ".join(f"'nats://127.0.0.1:{n.client}'" for n in cluster.nodes)
         group = (f"group:\n  name: bench\n  store: {{kind: nats, servers: [{servers}], "
                  f"bucket: {prefix}, stream_replicas: 3}}\n  lease_ttl_s: {LEASE_TTL_S}\n"
-                 "  replicas: 2\n")
+                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n")
     site = tmp / f"site-{prefix}.yaml"
     site.write_text(
         f"site: {{id: cbench, timezone: UTC}}\n"
@@ -108,7 +108,7 @@ def _bare(port: int, prefix: str, n: int, tries: int = 3) -> float | None:
         assert bare.stdout is not None
         assert bare.stdout.readline().strip() == "ready"
         time.sleep(2.0)
-        t0 = _publish(port, f"{prefix}{attempt}", n, LARGE)
+        t0 = _publish(port, f"{prefix}{attempt}", n, 1000)
         line = bare.stdout.readline().strip()
         bare.wait(180)
         if not line.startswith("incomplete"):
@@ -153,7 +153,9 @@ def _covered(procs: list[tuple[subprocess.Popen[bytes], int]], m: int, spaces: i
     for p, _ in procs:
         if p.poll() is not None:
             raise RuntimeError(f"an instance exited with {p.returncode}")
-    return sum(owned) == spaces and all(x in (m, 0.0) for x in members)
+    # (with leases, every instance holding a share: the shards are spread)
+    return sum(owned) == spaces and all(x in (m, 0.0) for x in members) and (
+        not _has_leases() or all(x > 0 for x in owned))
 
 
 def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s: float,
@@ -231,9 +233,11 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
         bare = _bare(cluster.nodes[0].mqtt, f"twbare{uuid.uuid4().hex[:6]}", n)
         put("cluster_bare_paho_311_msgs_per_s", round(bare) if bare else None)
         per_instance: dict[tuple[int, int], float] = {}
-        for spaces in (SMALL, LARGE):
+        small = SMALL if quick else 1000
+        large = 4 * small
+        for spaces in (small, large):
             for m in (1, 2, 3, 4):
-                g = _group(tmp, cluster, m, spaces, idle_s, n if spaces == LARGE else None)
+                g = _group(tmp, cluster, m, spaces, idle_s, n if spaces == large else None)
                 per_instance[(spaces, m)] = g["idle_cpu_per_instance_min_ms"]
                 put(f"cluster_{spaces}sp_{m}_idle_cpu_per_space_min_us",
                     round(g["idle_cpu_per_space_min_us"]))
@@ -246,7 +250,7 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
                         round(g["rate"] / bare, 3) if bare else None)
                     put(f"cluster_{m}_cpu_per_msg_us", round(g["cpu_per_msg_us"], 1))
         put("cluster_idle_site_growth_ratio",
-            round(per_instance[(LARGE, 4)] / per_instance[(SMALL, 1)], 2))
+            round(per_instance[(large, 4)] / per_instance[(small, 1)], 2))
     finally:
         cluster.stop()
         shutil.rmtree(tmp, ignore_errors=True)
