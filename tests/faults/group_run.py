@@ -354,7 +354,13 @@ class FaultRun:
         sc = self.scenario
         sc.observe_from = t_from
         sc.observe_to = time.monotonic()
-        rep = check_all(self.watcher.snapshot(), sc)
+        messages = self.watcher.snapshot()
+        with open(self.tmp / "watcher.jsonl", "w") as fh:  # for a post-mortem
+            for m in messages:
+                fh.write(json.dumps({"t": round(m.t - sc.fault_started, 3), "topic": m.topic,
+                                     "retained": m.retained,
+                                     "payload": m.payload.decode(errors="replace")}) + "\n")
+        rep = check_all(messages, sc)
         rep.figures["notes"] = sc.notes
         return rep
 

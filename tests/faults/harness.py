@@ -41,7 +41,8 @@ from thermowarden.shell.wall_offset import ENV as WALL_OFFSET_ENV
 # (limit); from memory of the NIOSH RAL/REL formulas, which the engine's own tests check.
 COOL = {"nwb": 18.0, "globe": 26.0}         # WBGT 20.4 °C: nothing
 ABOVE_ACTION = {"nwb": 24.0, "globe": 32.0}  # 26.4 °C: high
-ABOVE_LIMIT = {"nwb": 28.0, "globe": 38.0}   # 31.0 °C: urgent
+ABOVE_LIMIT = {"nwb": 31.0, "globe": 44.0}   # 34.9 °C: urgent (spot value at once; a whole
+# 600 s window of 26.4 °C crosses the limit after about 2 minutes of it)
 
 HEAT_RULE = "heat_stress.wbgt"
 

@@ -257,6 +257,11 @@ def check_commands(obs: Observed, sc: Scenario, rep: Report) -> None:
                                 f"({'answered ok' if reply else 'never answered'}"
                                 f"{', during the fault' if c.during_fault else ''}) "
                                 f"is not in its history: {hist}")
+    stray = sum(1 for _, d in obs.replies if d.get("request_id") is None)
+    if stray > 10 * max(1, len(sc.commands)):
+        rep.add("commands", f"{stray} replies to no request for {len(sc.commands)} command(s) "
+                            f"sent (a storm of answers)")
+    rep.figures["replies_to_no_request"] = stray
     rep.figures["commands_sent"] = len(sc.commands)
     rep.figures["commands_kept"] = kept
 

@@ -148,3 +148,11 @@ def test_a_rebuilt_window_is_caught():
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
     found = rep.failed()["whole"]
     assert any("rebuilt" in v for v in found) and any("present before" in v for v in found)
+
+
+def test_a_storm_of_answers_is_caught():
+    stray = {"schema": "thermowarden.reply/1", "ok": False, "verb": "acknowledge",
+             "request_id": None, "at": "x", "error": "the body is not a JSON object"}
+    msgs = clean() + [msg(60.0 + k / 100, f"{P}/replies", stray) for k in range(20)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("storm" in v for v in rep.failed()["commands"])
