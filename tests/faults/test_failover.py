@@ -157,7 +157,7 @@ def test_holder_broker_node_paused(tmp_path):
 @pytest.mark.slow
 @pytest.mark.parametrize("store", ["nats", "postgres"])
 def test_holder_partitioned(tmp_path, store):
-    run_fault(tmp_path, store, PARTITION, victim="c", warm=store == "nats")
+    run_fault(tmp_path, store, PARTITION, victim="c")
 
 
 @pytest.mark.slow
