@@ -147,3 +147,43 @@ def test_clustered_broker_settings_are_checked_with_their_line(tmp_path):
     assert f"{p}:10:" in text and "'http://c:80' is not mqtt://host[:port]" in text
     assert f"{p}:11:" in text and "subscribe_qos" in text
     assert f"{p}:12:" in text and "rule_topic_separator" in text
+
+
+def test_group_section_is_checked_with_its_line(tmp_path):
+    p = write(tmp_path, MINIMAL + textwrap.dedent("""\
+        group:
+          store: {kind: postgres, dsn: "host=db password=secret"}
+          lease_ttl_s: 1
+          shard_buckets: 0
+        """))
+    msgs = issues(p)
+    text = "\n".join(msgs)
+    assert f"{p}:9:" in text and "PGPASSWORD" in text  # no password in the site file
+    assert f"{p}:10:" in text and "lease_ttl_s" in text
+    assert f"{p}:11:" in text and "shard_buckets" in text
+    p = write(tmp_path, MINIMAL + textwrap.dedent("""\
+        group:
+          store: {kind: nats, servers: ["mqtt://a:1883"]}
+        """))
+    assert "'mqtt://a:1883' is not a nats://host:port URL" in "\n".join(issues(p))
+    p = write(tmp_path, MINIMAL + textwrap.dedent("""\
+        group:
+          store: {kind: nats, servers: ["nats://a:4222"]}
+          lease_ttl_s: 6
+          margin_s: 5
+        """))
+    (msg,) = issues(p)
+    assert f"{p}:9:" in msg and "margin_s must be shorter than two thirds" in msg
+
+
+def test_group_section_and_declared_shards_load(tmp_path):
+    p = write(tmp_path, MINIMAL.replace("  - id: room-1\n", "  - id: room-1\n    area: "
+                                        "north-wing\n") + textwrap.dedent("""\
+        group:
+          name: works
+          store: {kind: nats, servers: ["nats://10.0.0.1:4222"]}
+        """))
+    config = load_site(p, {})
+    assert config.group is not None and config.group.name == "works"
+    assert config.group.lease_ttl_s == 10 and config.group.replicas == 1
+    assert config.spaces[0].area == "north-wing"

@@ -42,8 +42,19 @@ def test_delivery_snippet(tmp_path):
 
 
 def test_clustered_broker_snippet(tmp_path):
-    (block,) = _blocks("Running the service")
+    (block,) = [b for b in _blocks("Running the service") if b.startswith("broker:")]
     config = _load(tmp_path, block)
     assert config.broker.fallback_urls == ["mqtt://10.0.0.12:1883", "mqtt://10.0.0.13:1883"]
     assert (config.broker.protocol, config.broker.subscribe_qos) == ("3.1.1", 0)
     assert config.output.rule_topic_separator == "/"
+
+
+def test_group_snippets(tmp_path):
+    nats, postgres = [b for b in _blocks("Running the service") if b.startswith("group:")]
+    config = _load(tmp_path, nats)
+    assert config.group is not None and config.group.store.kind == "nats"
+    assert config.group.store.stream_replicas == 3 and config.group.lease_ttl_s == 15
+    assert config.group.margin == 3.0  # a fifth of the TTL
+    config = _load(tmp_path, postgres)
+    assert config.group is not None and config.group.store.kind == "postgres"
+    assert config.group.store.table_schema == "thermowarden"

@@ -621,7 +621,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="where the SQLite store lives (default $STATE_DIRECTORY or ./state)")
     p.add_argument("--group", metavar="NAME",
                    help="share the site's spaces with the other instances of group NAME "
-                        "through the broker; spaces move to the survivors when one stops")
+                        "by shard leases in the store the site file's group section names; "
+                        "a standby takes a shard over when its holder stops")
     p.add_argument("--instance", metavar="NAME",
                    help="this instance's name in its group (default: the broker client id, "
                         "else <site>-<host name>); unique within the group")

@@ -1,5 +1,7 @@
-"""One engine of a group: it evaluates only the spaces it owns, gives up the others, and
-continues the live advisories another instance published (Engine.set_owned, Engine.adopt)."""
+"""One engine of a group: it evaluates only the spaces it holds or stands by for, gives up
+the others, continues the live advisories another instance published (Engine.set_owned,
+Engine.adopt), and a standby that takes a shard over reconciles what it computed with what
+was published (Engine.reconcile)."""
 
 from __future__ import annotations
 
@@ -236,3 +238,38 @@ def test_adopt_takes_nothing_from_malformed_or_forged_messages(tmp_path):
     c.set_owned(["room-2"], 80.0)
     notes, eff = c.adopt([forged], 80.0, by="c")
     assert c.live_advisories() == [] and eff == []
+
+
+def test_a_standby_taking_over_reconciles_with_what_was_published(tmp_path):
+    """b stood by for room-1 (evaluating it without publishing) but started later, so it
+    raised its own advisories under other ids; a acknowledged its hot advisory. At the
+    takeover, the published one wins: a's id, history (plus moved), acknowledgement and
+    event count; b's levels advisory, of which nothing was published, is raised at the
+    next evaluation with an event."""
+    a, b = make(tmp_path, "a"), make(tmp_path, "b")
+    effects = run(a, 0, 100, **{"room-1": 34})
+    hot = next(x for x in a.live_advisories() if x.rule == "testpack.hot")
+    reply, eff = a.command("acknowledge", json.dumps(
+        {"advisory_id": hot.id, "by": "Ana"}).encode(), 110)
+    assert reply["ok"]
+    effects += eff + run(a, 120, 300, **{"room-1": 34})
+    mine = run(b, 30, 300, **{"room-1": 34})  # standing by: its effects are not published
+    assert {x.rule: x.id for x in b.live_advisories()}["testpack.hot"] != hot.id
+    published = [p for p in retained(effects).values() if p["rule"] == "testpack.hot"]
+    b.publication.epochs[b.publication.shards[0]] = 2
+    notes, eff = b.reconcile(["room-1"], published, 305.0, by="b")
+    assert notes == []
+    validate_effects(eff)
+    live = {x.rule: b.advisory_payload(x) for x in b.live_advisories()}
+    assert set(live) == {"testpack.hot"}
+    took = live["testpack.hot"]
+    assert took["id"] == hot.id and took["acknowledged"]["by"] == "Ana"
+    assert took["epoch"] == 2 and took["history"][-1]["event"] == "moved"
+    later = run(b, 310, 400, **{"room-1": 34})
+    got = [(p["event"], p["advisory"]["rule"], p["event_id"]) for p in (
+        x.payload for x in later if isinstance(x, Publish) and "/events/" in x.topic)]
+    # the levels advisory: raised now, and so published; hot: not raised again
+    assert [g[:2] for g in got] == [("raised", "testpack.levels")]
+    assert got[0][2].split(".")[2] == "2"  # under the new epoch
+    assert not [x for x in mine if isinstance(x, Publish) and x.payload is not None
+                and x.payload.get("id") == hot.id]

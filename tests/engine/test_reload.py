@@ -151,6 +151,27 @@ def test_reload_keeps_unchanged_windows_and_advisories(tmp_path):
                 if control.model.space_ids[a.space] == "a"]
 
 
+def test_reload_continues_the_event_count_of_a_live_advisory(tmp_path):
+    """Its next event after a reload gets the next number (an id is never used twice: the
+    count was not carried before, and the clear after a reload reused the raise's id)."""
+    path = write(tmp_path, site())
+    running = engine(path)
+    events = []
+    for minute in range(10):
+        events += feed(running, minute)
+    new = reload_engine(running, loader(path)).engine
+    t = T0 + 60 * 10
+    for space in ("a", "b", "c"):
+        new.message(f"r/{space}/ta", b"20.0", t)
+    events += new.tick(t + 1) + new.tick(t + 400)
+    ids = [e.payload["event_id"] for e in events
+           if isinstance(e, Publish) and "/events/" in e.topic and e.payload]
+    kinds = [e.payload["event"] for e in events
+             if isinstance(e, Publish) and "/events/" in e.topic and e.payload]
+    assert kinds == ["raised", "cleared"]
+    assert len(set(ids)) == 2 and ids[1].endswith(".2")
+
+
 def test_reload_withdraws_advisories_of_removed_spaces(tmp_path):
     path = write(tmp_path, site())
     running = engine(path)

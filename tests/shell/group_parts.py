@@ -83,8 +83,12 @@ def check_invariants(collector: Collector, prefix: str) -> dict[str, int]:
             if "shard" not in e:
                 continue  # a site-wide notice or summary
             body = json.dumps(e, sort_keys=True)
-            assert bodies.setdefault(e["event_id"], body) == body, \
-                f"event id {e['event_id']} names two different events"
+            first = bodies.setdefault(e["event_id"], body)
+            if first != body:
+                a, b = json.loads(first), e
+                diff = {k: (a.get(k), b.get(k)) for k in set(a) | set(b) if a.get(k) != b.get(k)}
+                raise AssertionError(f"event id {e['event_id']} names two different events: "
+                                     f"{diff}")
             assert e["epoch"] >= newest.get(e["shard"], -1), \
                 f"an event of epoch {e['epoch']} after one of {newest[e['shard']]}"
             newest[e["shard"]] = e["epoch"]

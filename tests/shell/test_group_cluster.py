@@ -1,8 +1,10 @@
-"""Three instances of a group on a three-node nats-server cluster (JetStream, MQTT 3.1.1):
-during a rising WBGT the instance that owns the hot space is killed, and so is the broker
-node of another member. The heat-stress alert is raised once; it escalates on a survivor
-with the same advisory id and its history, within the bound; no space went without an owner
-for longer than the bound."""
+"""Three instances of a group on a three-node nats-server cluster (JetStream with the shard
+leases in a key-value bucket of three replicas, MQTT 3.1.1): during a rising WBGT the
+instance that holds the hot space's shard is killed, and so is the broker node of another
+instance. The heat-stress alert is raised once; it escalates on the standby that took the
+shard, under a new epoch, with the same advisory id and its history, within the bound; no
+shard went without a holder for longer than the bound, and what a consumer received keeps
+the group's invariants."""
 
 from __future__ import annotations
 
@@ -14,15 +16,20 @@ import uuid
 import pytest
 
 from tests.shell.conftest import SLOW, Collector, ServiceProcess, wait_for
-from tests.shell.group_parts import Feeder, GroupWatch, wait_until
+from tests.shell.group_parts import Feeder, check_invariants, wait_until
+from tests.shell.lease_parts import drop_bucket
 from tests.shell.nats_cluster import NatsCluster, nats_program
+from thermowarden.shell.leases import LeaseStoreError
+from thermowarden.shell.leases.nats_kv import NatsLeaseStore
 
 pytestmark = pytest.mark.broker
 
 KEEPALIVE_S = 8
-"""nats-server keeps a client off for some seconds after its node died (the session moves
-between nodes); 8 s leaves the bound (16 s) room for that."""
-BOUND_S = 2 * KEEPALIVE_S
+TTL_S = 15.0
+"""The lease TTL. A node's death makes the bucket's stream elect a new leader, and the store
+does not answer meanwhile (5-11 s measured here): the TTL must outlast that, or every
+holder fences itself until the store answers again."""
+BOUND_S = 2 * TTL_S
 TICK_S = 1.0
 
 # Spot WBGT indoors (ISO 7243:2017, no solar load): 0.7 natural wet-bulb + 0.3 globe.
@@ -34,7 +41,8 @@ ABOVE_ACTION = {"nwb": "24", "globe": "32"}  # 26.4 °C: high
 ABOVE_LIMIT = {"nwb": "28", "globe": "38"}   # 31.0 °C: urgent
 
 
-def write_cluster_site(tmp, prefix: str, url: str, spaces: list[str]):
+def write_cluster_site(tmp, prefix: str, url: str, spaces: list[str], servers: list[str],
+                       bucket: str):
     text = textwrap.dedent(f"""\
         site: {{id: c{uuid.uuid4().hex[:6]}, timezone: UTC}}
         broker:
@@ -51,8 +59,13 @@ def write_cluster_site(tmp, prefix: str, url: str, spaces: list[str]):
         templates:
           - {{topic: "{prefix}-in/{{space}}/nwb", quantity: natural_wet_bulb, interval_s: 60}}
           - {{topic: "{prefix}-in/{{space}}/globe", quantity: globe_temperature, interval_s: 60}}
+        group:
+          store: {{kind: nats, servers: [{", ".join(servers)}], bucket: {bucket},
+                  stream_replicas: 3}}
+          lease_ttl_s: {TTL_S}
+          rebalance_after_s: 3600
         spaces:
-        """) + "".join(f"  - {{id: {s}, hot_work: true}}\n" for s in spaces)
+        """) + "".join(f"  - {{id: {s}, hot_work: true, area: {s}}}\n" for s in spaces)
     p = tmp / "site.yaml"
     p.write_text(text)
     return p
@@ -66,15 +79,29 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
     cluster = NatsCluster(tmp_path / "nats", program).start()
     prefix = f"twc-{uuid.uuid4().hex[:8]}"
     spaces = [f"s{i:02d}" for i in range(6)]
-    site = write_cluster_site(tmp_path, prefix, cluster.urls(0), spaces)
+    servers = [f"nats://127.0.0.1:{n.client}" for n in cluster.nodes]
+    bucket = f"tw-{uuid.uuid4().hex[:8]}"
+    site = write_cluster_site(tmp_path, prefix, cluster.urls(0), spaces, servers, bucket)
     names = ["a", "b", "c"]
     procs: dict[str, ServiceProcess] = {}
     watch_c: Collector | None = None
     feeder: Feeder | None = None
+    # the test reads the leases through node 1 (n1), which stays up
+    leases = NatsLeaseStore(servers, bucket, TTL_S, stream_replicas=3)
+
+    def holders() -> dict[str, tuple[str, int]]:
+        try:
+            return {s: (x.holder, x.epoch) for s, x in leases.read(spaces).items()}
+        except LeaseStoreError:
+            return {}
+
+    def covered_by(live: set[str]) -> bool:
+        h = holders()
+        return set(h) == set(spaces) and {x for x, _ in h.values()} <= live
+
     try:
         # the test's own clients use node 1 (n1), which stays up
         watch_c = Collector(cluster.nodes[0].mqtt, [f"{prefix}/#"])
-        watch = GroupWatch(watch_c, prefix, "g", spaces)
         values = {s: dict(COOL) for s in spaces}
         feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/{q}": v for s in spaces
                                           for q, v in values[s].items()})
@@ -85,10 +112,19 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
             procs[n].start(wait_ready=False)
         for p in procs.values():
             wait_for(p.ready, SLOW, "an instance to be ready")
-        wait_for(lambda: watch.covered_by(set(names)), SLOW,
-                 "the three instances to own every space once")
-        # the hot space: one that instance a (on node n1) owns
-        target = sorted(watch.owners()["a"])[0]
+        def opened() -> bool:
+            try:
+                leases.open()  # the bucket exists once an instance created it
+                return True
+            except LeaseStoreError:
+                return False
+        wait_for(opened, SLOW, "the lease bucket")
+        wait_for(lambda: covered_by(set(names)), SLOW,
+                 "the three instances to hold every shard (a space each)")
+        wait_for(lambda: "a" in {x for x, _ in holders().values()}, SLOW, "a to hold one")
+        # the hot space: one whose shard instance a (on node n1) holds
+        target, (_, epoch) = next((s, x) for s, x in sorted(holders().items())
+                                  if x[0] == "a")
         values[target] = dict(ABOVE_ACTION)
 
         def heat_events() -> list[dict]:
@@ -111,20 +147,21 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
         procs["a"].kill()
         cluster.nodes[1].kill()  # b's node: b moves to another node
         values[target] = dict(ABOVE_LIMIT)
-        t_covered = wait_until(lambda: watch.covered_by({"b", "c"}), 3 * SLOW)
+        t_covered = wait_until(lambda: covered_by({"b", "c"}), 3 * SLOW)
         assert t_covered is not None, \
-            f"the survivors never covered every space; owners as seen: {watch.owners()}"
+            f"the survivors never covered every shard; holders: {holders()}"
         assert t_covered - t_kill <= BOUND_S, (t_covered - t_kill, BOUND_S)
         t_escalated = wait_until(lambda: any(e["event"] == "escalated"
                                              for e in heat_events()), 3 * SLOW)
         assert t_escalated is not None, "no escalation on a survivor"
         # within the bound and the survivor's first evaluations (readings every 0.5 s)
         assert t_escalated - t_kill <= BOUND_S + 2 * TICK_S, (t_escalated - t_kill)
-        print(f"cluster: every space owned again {t_covered - t_kill:.1f} s after the kills, "
+        print(f"cluster: every shard held again {t_covered - t_kill:.1f} s after the kills, "
               f"escalated after {t_escalated - t_kill:.1f} s (bound {BOUND_S} s)")
         escalated = next(e for e in heat_events() if e["event"] == "escalated")
         adv = escalated["advisory"]
         assert adv["id"] == raised["advisory"]["id"]
+        assert escalated["epoch"] == holders()[target][1] > epoch == raised["epoch"]
         assert adv["priority"] == "urgent"
         history = [h["event"] for h in adv["history"]]
         assert history[0] == "raised" and "moved" in history and history[-1] == "escalated"
@@ -140,8 +177,9 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
         kinds = [e["event"] for e in heat_events()]
         assert kinds.count("raised") == 1 and kinds.count("escalated") == 1, kinds
         assert adv["cautions"]
-        # no space without an owner for longer than the bound, as the survivors saw it
+        # no shard without a holder for longer than the bound, as the survivors saw it
         assert not [e for e in watch_c.events(prefix) if e.get("kind") == "spaces_unowned"]
+        check_invariants(watch_c, prefix)
         for n in ("b", "c"):
             assert procs[n].metric("thermowarden_group_uncovered_seconds") <= BOUND_S
     finally:
@@ -152,4 +190,6 @@ def test_a_heat_alert_survives_an_instance_and_a_broker_node(tmp_path):
                 p.stop()
         if watch_c is not None:
             watch_c.close()
+        leases.close()
+        drop_bucket(servers[:1], bucket)
         cluster.stop()

@@ -25,6 +25,7 @@ from tests.shell.conftest import (
 )
 from tests.shell.group_parts import Feeder, check_invariants, pg_holders, wait_until
 from tests.shell.lease_parts import PG_DSN, drop_schema, need_postgres
+from thermowarden.core.shards import bucket_name
 
 pytestmark = pytest.mark.broker
 
@@ -53,21 +54,23 @@ def test_holder_killed_its_standby_continues_and_a_newcomer_gets_a_share(
     prefix = f"twg-{uuid.uuid4().hex[:8]}"
     schema = f"tw_{uuid.uuid4().hex[:10]}"
     spaces = [f"s{i:02d}" for i in range(12)]
-    site = group_site(tmp_path, prefix, port, spaces, schema)
-    n_shards = len({__import__("thermowarden.core.shards", fromlist=["x"]).bucket_name(s, 6)
-                    for s in spaces})
+    site = group_site(tmp_path, prefix, port, spaces, schema, buckets=16)
+    n_shards = len({bucket_name(s, 16) for s in spaces})
+    assert n_shards >= 7  # three instances hold two or three each, a fourth gets a share
     watch_c = Collector(port, [f"{prefix}/#"])
     temp = {"value": "25"}
     feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
     feeder.start()
-    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+    tag = uuid.uuid4().hex[:4]  # client ids are instance names: unique on a shared broker
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n + tag)
              for n in ("a", "b", "c")}
     try:
         for p in procs.values():
             p.start(wait_ready=False)
         for p in procs.values():
             wait_for(p.ready, SLOW, "an instance to be ready")
-        wait_for(lambda: covered(schema, {"a", "b", "c"}, n_shards), SLOW,
+        names = {n: n + tag for n in "abcd"}
+        wait_for(lambda: covered(schema, {names[n] for n in "abc"}, n_shards), SLOW,
                  "every shard to have a holder")
         temp["value"] = "31"
         wait_for(lambda: len([e for e in watch_c.events(prefix) if e["event"] == "raised"
@@ -80,9 +83,9 @@ def test_holder_killed_its_standby_continues_and_a_newcomer_gets_a_share(
         victim, epoch = pg_holders(schema)[shard]
         assert raised["epoch"] == epoch
         assert raised["event_id"].startswith(f"{raised['advisory']['site']}.{shard}.{epoch}.")
-        survivors = {"a", "b", "c"} - {victim}
+        survivors = {names[n] for n in "abc"} - {victim}
         t_kill, wall_kill = time.monotonic(), time.time()
-        procs[victim].kill()
+        procs[victim[0]].kill()
         t_taken = wait_until(lambda: pg_holders(schema).get(shard, ("", 0))[0] in survivors,
                              SLOW)
         assert t_taken is not None
@@ -128,11 +131,12 @@ def test_holder_killed_its_standby_continues_and_a_newcomer_gets_a_share(
             {"advisory_id": adv["id"], "by": "Ana", "reply_to": reply_topic}))
         wait_for(lambda: replies.json_on(reply_topic), SLOW, "the reply")
         # one more instance joins: it gets a share once the membership has settled
-        procs["d"] = ServiceProcess(site, tmp_path / "d", "--group", "g", "--instance", "d")
+        procs["d"] = ServiceProcess(site, tmp_path / "d", "--group", "g", "--instance",
+                                    names["d"])
         procs["d"].start()
-        wait_for(lambda: "d" in {h for h, _ in pg_holders(schema).values()}, SLOW,
+        wait_for(lambda: names["d"] in {h for h, _ in pg_holders(schema).values()}, SLOW,
                  "the newcomer to take a shard")
-        wait_for(lambda: covered(schema, survivors | {"d"}, n_shards), SLOW,
+        wait_for(lambda: covered(schema, survivors | {names["d"]}, n_shards), SLOW,
                  "every shard held after the join")
         # the temperature falls: every advisory clears once, nothing was raised twice
         temp["value"] = "27"
@@ -178,7 +182,8 @@ def test_a_frozen_holder_publishes_nothing_when_it_wakes(tmp_path, system_broker
     temp = {"value": "31"}
     feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": temp["value"] for s in spaces})
     feeder.start()
-    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n)
+    tag = uuid.uuid4().hex[:4]  # client ids are instance names: unique on a shared broker
+    procs = {n: ServiceProcess(site, tmp_path / n, "--group", "g", "--instance", n + tag)
              for n in ("a", "b")}
     try:
         for p in procs.values():
@@ -192,7 +197,7 @@ def test_a_frozen_holder_publishes_nothing_when_it_wakes(tmp_path, system_broker
         adv = next(e["advisory"] for e in watch_c.events(prefix) if e["event"] == "raised"
                    and e["advisory"]["space"]["id"] == "s00"
                    and e["advisory"]["rule"] == "fast.hot")
-        frozen = procs[holder]
+        frozen = procs[holder[0]]
         assert frozen.proc is not None
         os.kill(frozen.proc.pid, signal.SIGSTOP)
         t_stop = time.monotonic()

@@ -65,6 +65,7 @@ class Engine:
                  advisory_refresh_s: float = ADVISORY_REFRESH_S) -> None:
         self.config = config
         self.model = model
+        self.packs = packs
         self.n = model.n_spaces
         self.prefix = config.output.prefix
         self.start = start
@@ -145,6 +146,9 @@ class Engine:
         if self.start is None:
             self.start = caps[0].now
         n = self.n
+        if n == 0:  # one instance of a group that evaluates no shard (yet)
+            self.ticks += len(caps)
+            return []
         snap = self.state.snapshot_many(caps)
         k = snap.k
         table = self.evaluation.indices(snap)

@@ -190,7 +190,7 @@ def _carry_rules(old: Engine, new: Engine, same_config: BoolArray,
             for name in _LIFECYCLE:
                 getattr(rn, name)[j_keep] = getattr(ro, name)[i_keep]
             new_of = dict(zip(i_keep.tolist(), j_keep.tolist(), strict=True))
-            for i in set(ro.advisories) | set(ro.raised_times):
+            for i in set(ro.advisories) | set(ro.raised_times) | set(ro.event_count):
                 if i in new_of:
                     _move_advisory(new, ro, i, rn, new_of[i])
                     kept.add(i)
@@ -218,6 +218,10 @@ def _move_advisory(new: Engine, ro: RuleRuntime, i: int, rn: RuleRuntime, j: int
     adv = ro.advisories.get(i)
     if i in ro.raised_times:
         rn.raised_times[j] = deque(ro.raised_times[i])
+    if i in ro.event_count:  # its events' ids go on counting (never one id twice)
+        rn.event_count[j] = ro.event_count[i]
+    if i in ro.shelvings:
+        rn.shelvings[j] = [list(s) for s in ro.shelvings[i]]
     if adv is None:
         return
     moved = dataclasses.replace(adv, space=j)  # the old engine stays intact

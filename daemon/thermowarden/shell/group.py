@@ -5,14 +5,16 @@ The site's spaces fall into shards (:mod:`thermowarden.core.shards`). Each shard
 in a store with compare-and-set and expiry (:mod:`thermowarden.shell.leases`: a JetStream
 key-value bucket or a PostgreSQL table). Two threads:
 
-- the **lease keeper** (a thread of its own, blocking store calls) runs a round every third
-  of the lease TTL: it says this instance is present, renews the leases it holds, reads
-  every shard's holder and the live instances, and takes or gives up shards as
-  :func:`thermowarden.core.shards.plan` says. It hands each round's result to the engine
-  thread (a queue) and touches nothing else.
+- the **lease keeper** (a thread of its own, blocking store calls) runs a round every sixth
+  of the lease TTL: it says this instance is present, renews the leases it holds (every
+  other round: a third of the TTL), reads every shard's holder and the live instances,
+  and takes or gives up shards as :func:`thermowarden.core.shards.plan` says. It hands
+  each round's result to the engine thread (a queue) and touches nothing else.
 - the **engine thread** (:meth:`Group.update`, every turn of the service's loop) evaluates
-  the spaces of the shards it holds *and* of those it stands by for (their sensors and the
-  commands reach it too, so windows, delays and timers are current), and publishes only for
+  the spaces of the shards it holds *and* of those it stands by for, and only those (its
+  engine is rebuilt for them when they change, carrying the state over as a reload does;
+  their sensors and the commands reach it, so windows, delays and timers are current),
+  and publishes only for
   the shards whose lease is valid by its own clock: ``expires - margin`` on the monotonic
   clock, the expiry counted from before the request that took or renewed the lease. After
   a stall of its loop longer than the margin (a frozen process, a swapped-out host) it
@@ -51,10 +53,13 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from thermowarden.config import GroupConfig
-from thermowarden.core.shards import View, plan
+from thermowarden.config import GroupConfig, SiteConfig
+from thermowarden.core.shards import View, plan, shard_of
 from thermowarden.effects import Effect, Persist, Publish
+from thermowarden.engine import Engine
+from thermowarden.engine.reload import carry_over
 from thermowarden.shell.leases import Lease, LeaseStore, LeaseStoreError
+from thermowarden.site_model import build_site_model
 
 if TYPE_CHECKING:
     from thermowarden.shell.mqtt_link import Incoming
@@ -64,7 +69,12 @@ log = logging.getLogger("thermowarden.group")
 
 GRACE_ROUNDS = 1.5
 """A free shard whose first taker did not take it is taken by others after this many
-rounds."""
+renewal periods (thirds of the TTL)."""
+READS_PER_RENEWAL = 2
+"""Rounds per renewal: the leases are read twice as often as they are renewed, so a
+standby sees a lapsed lease within a sixth of the TTL."""
+RETRY_S = 1.0
+"""A round that could not reach the store is tried again after this long."""
 COMMANDS_KEPT_S = 600.0
 """Commands a standby received for a shard are kept this long (applied at a takeover if
 the old holder had not)."""
@@ -103,7 +113,9 @@ class LeaseKeeper:
         self.cfg = cfg
         self.out = out
         self.clock = clock
-        self.period = cfg.lease_ttl_s / 3
+        self.renew_every = cfg.lease_ttl_s / 3
+        self.period = self.renew_every / READS_PER_RENEWAL
+        self.renewed_at = -math.inf
         self.held: dict[str, Lease] = {}
         self.holders: dict[str, str] = {}
         self.live: frozenset[str] = frozenset()
@@ -112,6 +124,7 @@ class LeaseKeeper:
         self.last_holder: dict[str, str] = {}
         self.live_since = clock()
         self.opened = False
+        self.listened = False
         self.failing: str | None = None
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -125,7 +138,9 @@ class LeaseKeeper:
         while not self._stop.is_set():
             began = self.clock()
             self.round()
-            self._stop.wait(max(0.0, self.period - (self.clock() - began)))
+            # after a failed round, try again soon: the held leases are running out
+            period = self.period if self.failing is None else min(self.period, RETRY_S)
+            self._stop.wait(max(0.0, period - (self.clock() - began)))
 
     def round(self) -> None:
         started = self.clock()
@@ -134,13 +149,16 @@ class LeaseKeeper:
                 self.store.open()
                 self.opened = True
             self.store.announce(self.me)
-            for shard, lease in list(self.held.items()):
-                renewed = self.store.renew(lease)
-                if renewed is None:
-                    del self.held[shard]
-                    log.warning("lost the lease of shard %s (epoch %d)", shard, lease.epoch)
-                else:
-                    self.held[shard] = renewed
+            if started - self.renewed_at >= self.renew_every - self.period / 2:
+                self.renewed_at = started
+                for shard, lease in list(self.held.items()):
+                    renewed = self.store.renew(lease)
+                    if renewed is None:
+                        del self.held[shard]
+                        log.warning("lost the lease of shard %s (epoch %d)", shard,
+                                    lease.epoch)
+                    else:
+                        self.held[shard] = renewed
             leases = self.store.read(self.shards)
             live = frozenset(self.store.present())
             now = self.clock()
@@ -158,7 +176,7 @@ class LeaseKeeper:
                 del self.held[s]  # the store says otherwise: not ours
             p = plan(View(self.me, live, self.shards, holders, now, dict(self.free_since),
                           self.live_since, dict(self.last_holder)),
-                     replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.period,
+                     replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.renew_every,
                      settle_s=self.cfg.rebalance_after_s)
             for s in p.release:
                 released = self.held.pop(s, None)
@@ -166,7 +184,9 @@ class LeaseKeeper:
                     self.store.release(released)
                     holders.pop(s, None)
                     log.info("handed shard %s over (above the fair share of %d)", s, p.share)
-            for s in p.take:
+            # the first round only listens: instances started together see one another
+            # before any takes a share computed without the others
+            for s in p.take if self.listened else ():
                 got = self.store.take(s, self.me)
                 if got is not None:
                     self.held[s] = got
@@ -174,6 +194,7 @@ class LeaseKeeper:
                     self.free_since.pop(s, None)
             self.holders = holders
             self.standby = p.standby
+            self.listened = True
             if self.failing is not None:
                 log.warning("the lease store answers again")
                 self.failing = None
@@ -260,18 +281,27 @@ class Group:
         self.gap_told = False
         self.status: dict[str, Any] = {}
         self.last_evaluated: float | None = None
+        self.full: SiteConfig
+        self.shard_by_space: dict[str, str] = {}
 
     # ------------------------------------------------------------------ wiring
     @property
     def shards(self) -> list[str]:
-        assert self.service is not None
-        return self.service.engine.publication.shards
+        """Every shard of the site."""
+        return sorted(set(self.shard_by_space.values()))
+
+    def _site(self, config: SiteConfig) -> None:
+        """The whole site (at the start and after a reload): the engine evaluates only the
+        spaces of the shards this instance holds or stands by for (:meth:`_rebuild`)."""
+        self.full = config
+        buckets = self.cfg.shard_buckets
+        self.shard_by_space = {sp.id: shard_of(sp.id, sp.area, sp.building, buckets)
+                               for sp in config.spaces}
 
     def attach(self, service: Service) -> None:
         self.service = service
-        engine = service.engine
-        self.holding = np.zeros(engine.model.n_spaces, dtype=bool)
-        service.engine.set_owned([], service.clock.now())
+        self._site(service.engine.config)
+        self._rebuild(frozenset())
         service.link.set_subscriptions(self.subscriptions())
         service.link.status_online.update({"group": self.name, "shards": [], "standby": []})
         service.link.status_offline["group"] = self.name
@@ -297,18 +327,57 @@ class Group:
             f"{service.command_prefix}#", f"{self.advisory_prefix}+/advisories/#"]
 
     def reapplied(self) -> None:
-        """After a reload swapped the engine: the same shards, epochs and subscriptions."""
+        """After a reload swapped in an engine of the whole (new) site: back to the spaces
+        of the same shards, with their epochs and subscriptions."""
         assert self.service is not None
-        engine = self.service.engine
-        engine.publication.epochs.update(self.publishing)
-        self.holding = np.array([s in self.publishing for s in engine.publication.shards],
-                                dtype=bool)
+        self._site(self.service.engine.config)
         if self.keeper is not None:
-            self.keeper.shards = sorted(set(engine.publication.shards))
-        ids = [sid for sid, s in zip(engine.model.space_ids, engine.publication.shards,
-                                     strict=True) if s in self.evaluating]
-        self.service.execute(engine.set_owned(ids, self.service.clock.now()))
+            self.keeper.shards = self.shards
+        self._rebuild(self.evaluating)
+        self.service.engine.publication.epochs.update(self.publishing)
+        self.holding = np.array([s in self.publishing
+                                 for s in self.service.engine.publication.shards], dtype=bool)
         self.service.link.set_subscriptions(self.subscriptions())
+
+    def _rebuild(self, shards: frozenset[str]) -> None:
+        """Make the engine one of the spaces of ``shards`` only, carrying the state of the
+        spaces it keeps (:func:`carry_over`, as a reload does): an instance keeps the state
+        of the shards it holds or stands by for, not of the whole site. Spaces that leave
+        are forgotten first (their advisories go on at their holders; nothing is
+        withdrawn)."""
+        service = self.service
+        assert service is not None
+        old = service.engine
+        now = service.clock.now()
+        keep = [sp for sp in self.full.spaces if self.shard_by_space[sp.id] in shards]
+        kept = {sp.id for sp in keep}
+        service.execute(old.set_owned([sid for sid in old.model.space_ids if sid in kept],
+                                      now))
+        templates = []
+        for t in self.full.templates:
+            if t.spaces:
+                mine = [sid for sid in t.spaces if sid in kept]
+                if not mine:
+                    continue  # an empty list would mean every space
+                t = t.model_copy(update={"spaces": mine})
+            templates.append(t)
+        config = self.full.model_copy(update={"spaces": keep, "templates": templates})
+        engine = Engine(config, build_site_model(config), old.packs,
+                        conditions_every_s=old.publication.conditions_every_s,
+                        start=old.start, sample_every_s=old.sample_every_s,
+                        advisory_refresh_s=old.advisories.refresh_s)
+        effects, notes = carry_over(old, engine)
+        for note in notes:
+            log.debug("%s", note)
+        engine.publication.epochs.update(old.publication.epochs)
+        engine.ticks = old.ticks
+        if old.ticks > 0:  # new here: its 60-minute WBGT window begins now
+            for i, sid in enumerate(engine.model.space_ids):
+                if sid not in old.model.space_index:
+                    engine.publication.moved_at[i] = now
+        service.engine = engine
+        service.failures_seen = set()  # by space index, which changed
+        service.execute(effects)
 
     # ------------------------------------------------------------------ input
     def connected(self) -> None:
@@ -338,10 +407,11 @@ class Group:
     def evaluated(self, now: float) -> None:
         self.last_evaluated = now
 
-    def route(self, m: Incoming, advisory_id: object) -> str:
+    def route(self, m: Incoming, advisory_id: object, keep: bool = True) -> str:
         """What to do with a command: "answer" (this instance holds the advisory's shard,
         or no one has the advisory and this instance is the first live one), "keep" (it
-        stands by for the shard: applied if it takes the shard over), or "ignore"."""
+        stands by for the shard: applied if it takes the shard over; only with ``keep``),
+        or "ignore"."""
         assert self.service is not None
         shard = self._shard_of_advisory(advisory_id)
         if shard is None:
@@ -349,7 +419,7 @@ class Group:
             return "answer" if not live or live[0] == self.me else "ignore"
         if shard in self.publishing:
             return "answer"
-        if shard in self.evaluating and isinstance(advisory_id, str):
+        if keep and shard in self.evaluating and isinstance(advisory_id, str):
             now = self.service.clock.now()
             self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
             self.commands.append(Buffered(m, now, advisory_id, shard))
@@ -407,9 +477,8 @@ class Group:
                 return p["shard"], p.get("epoch")
             if p is None and "/advisories/" in e.topic:  # a cleared advisory
                 space = e.topic[len(self.advisory_prefix):].split("/", 1)[0]
-                i = self.service.engine.model.space_index.get(space)
-                if i is not None:
-                    return pub.fence(i)
+                shard = self.shard_by_space.get(space)
+                return (shard, pub.epochs.get(shard, 0)) if shard is not None else ("?", -1)
             return None, None
         if e.kind in ("advisory", "event") and e.record is not None:
             rec = e.record.get("payload", e.record)
@@ -459,14 +528,13 @@ class Group:
         """Evaluate the spaces of ``shards`` from now on (held and standby)."""
         service = self.service
         assert service is not None
-        engine = service.engine
-        pub = engine.publication
         gained = shards - self.evaluating
         gone = self.evaluating - shards
         self.evaluating = shards
-        ids = [sid for sid, s in zip(engine.model.space_ids, pub.shards, strict=True)
-               if s in shards]
-        service.execute(engine.set_owned(ids, service.clock.now()))
+        self._rebuild(shards)
+        pub = service.engine.publication
+        ids = service.engine.model.space_ids
+        self.holding = np.array([s in self.publishing for s in pub.shards], dtype=bool)
         service.link.set_subscriptions(self.subscriptions())
         service.dirty = True
         if gained or gone:

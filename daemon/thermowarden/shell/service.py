@@ -328,6 +328,9 @@ class Service:
             if not self.link.connected.is_set():
                 return
         for topic, e in list(self.pending_retained.items()):
+            if self.group is not None and not self.group.fence([e]):
+                self.pending_retained.pop(topic, None)  # its shard's lease lapsed meanwhile
+                continue
             if self.link.publish(topic, e.payload, e.qos, True, e.expiry_s) is not None:
                 self.pending_retained.pop(topic, None)
         self.engine.republish_all()  # live advisories and conditions at the next tick
@@ -514,6 +517,15 @@ class Service:
             reply = {"schema": "thermowarden.reply/1", "ok": False, "verb": verb[:32],
                      "error": "commands go to <prefix>/commands/<audience>/<verb> (audience "
                               "facilities, safety or integrator)",
+                     "request_id": None, "at": _iso(now)}
+            effects = []
+        elif self.group is not None and m.on_reply is not None and self.group.route(
+                m, _advisory_id(m.payload), keep=False) != "answer":
+            # from this instance's web page: only the holder of the shard may act on it
+            reply = {"schema": "thermowarden.reply/1", "ok": False, "verb": verb[:32],
+                     "error": "this instance of the group does not hold the shard of that "
+                              "advisory; use the holder's page (its status record names "
+                              "its shards) or send the command over MQTT",
                      "request_id": None, "at": _iso(now)}
             effects = []
         else:

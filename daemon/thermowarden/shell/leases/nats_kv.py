@@ -257,12 +257,23 @@ class NatsLeaseStore:
         return self._run(self._present(), timeout=self.timeout_s * 2)
 
     async def _present(self) -> set[str]:
-        try:
-            keys = await self._bucket().keys()
-        except nats.js.errors.NoKeysError:
-            return set()
-        names = (_name(k, PRESENCE) for k in keys if k.startswith(PRESENCE))
+        # the stream's subjects under presence. (one request to the stream, no consumer to
+        # create: a consumer is slow to make while a cluster's stream elects a leader),
+        # then each key, skipping those withdrawn (a delete marker stays until the TTL)
+        subject = f"$KV.{self.bucket}."
+        info = await self._nc.jetstream(timeout=self.timeout_s).stream_info(
+            f"KV_{self.bucket}", subjects_filter=f"{subject}{PRESENCE}>")
+        keys = [k[len(subject):] for k in (info.state.subjects or {})]
+        found = await asyncio.gather(*(self._exists(k) for k in keys))
+        names = (_name(k, PRESENCE) for k, ok in zip(keys, found, strict=True) if ok)
         return {n for n in names if n is not None}
+
+    async def _exists(self, key: str) -> bool:
+        try:
+            await self._bucket().get(key)
+            return True
+        except nats.js.errors.KeyNotFoundError:
+            return False
 
     def _bucket(self) -> Any:
         if self._kv is None:
