@@ -24,7 +24,9 @@ from tests.shell.conftest import SLOW
 
 pytestmark = [pytest.mark.broker, pytest.mark.faults]
 
-TIMING = Timing(tick_s=1.0, keepalive_s=8.0, lease_ttl_s=8.0)
+TIMING = Timing(tick_s=1.0, keepalive_s=8.0, lease_ttl_s=15.0)
+"""15 s: longer than a JetStream stream leader election after a node's end (README,
+"Choosing the TTL")."""
 
 
 @dataclass
