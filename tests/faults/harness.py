@@ -59,9 +59,11 @@ class Timing:
     """How often a space's retained conditions go out while readings arrive (the engine's
     ``CONDITIONS_MIN_S``): the resolution of the "unevaluated" check."""
     wbgt_window_s: float = 600.0
-    rebalance_after_s: float = 20.0
+    rebalance_after_s: float = 3660.0
     """How long membership must be steady before an instance above its share hands shards
-    over (a newcomer gets its share after this)."""
+    over (a newcomer gets its share after this). The default (h24a's) outlasts the WBGT
+    window, so the standby that takes a handed-over shard is warm; the scale test shortens
+    it to see a newcomer take its share."""
 
 
 # --------------------------------------------------------------------------- recording
