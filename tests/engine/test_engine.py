@@ -445,3 +445,16 @@ def test_no_effect_waits_while_a_reading_is_missing(lab):
     back = _hot_events(_blinds_and_air(lab, 2510, 2520, 31.2))
     assert [(p["event"], p["at"]) for p in back] == [("no_effect", "1970-01-01T00:41:50Z")]
     assert back[0]["advisory"]["numbers"]["air_temperature"]["value"] == 31.2
+
+
+def test_conditions_go_on_after_the_wall_clock_steps_back(lab):
+    """A step back of the wall clock (time is the engine's argument) does not hold the
+    conditions back until the clock comes round to the last time they went out (the fault
+    suite saw 5 minutes without conditions after a 300 s step back)."""
+    def conditions(effects):
+        return [x for x in effects if isinstance(x, Publish) and x.topic.endswith("/conditions")]
+    assert conditions(run(lab, 1000, 1000, **{"room-1": 24}))
+    stepped = run(lab, 700, 720, **{"room-1": 24})  # 300 s back
+    assert {c.topic for c in conditions(stepped)} == {"tw/lab/spaces/room-1/conditions",
+                                                     "tw/lab/spaces/room-2/conditions"}
+    assert not conditions(run(lab, 730, 740, **{"room-1": 24}))  # then the usual pace
