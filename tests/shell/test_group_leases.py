@@ -9,6 +9,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import threading
 import time
 import uuid
 
@@ -20,12 +21,14 @@ from tests.shell.conftest import (
     Collector,
     ServiceProcess,
     clear_retained,
+    free_port,
     wait_for,
     write_site,
 )
 from tests.shell.group_parts import Feeder, check_invariants, pg_holders, wait_until
 from tests.shell.lease_parts import PG_DSN, drop_schema, need_postgres
 from thermowarden.core.shards import bucket_name
+from thermowarden.shell.leases.postgres import PostgresLeaseStore
 
 pytestmark = pytest.mark.broker
 
@@ -242,6 +245,107 @@ def test_a_frozen_holder_publishes_nothing_when_it_wakes(tmp_path, system_broker
         for p in procs.values():
             if p.proc is not None:
                 p.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+        drop_schema(schema)
+
+
+def test_without_its_lease_store_an_instance_publishes_nothing(tmp_path, system_broker_port):
+    """The store cannot be reached (nobody listens on its port): the instance runs, takes
+    no shard and publishes nothing for the site's spaces, however hot they are; hostile
+    retained records on the site's advisory topics stop nothing either."""
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    spaces = ["s00", "s01"]
+    closed = free_port()
+    site = write_site(tmp_path, prefix, port, spaces, evaluation="{tick_s: 1}",
+                      extra=f"""group:
+  store: {{kind: postgres, dsn: "host=127.0.0.1 port={closed} dbname=test user=postgres"}}
+  lease_ttl_s: {TTL_S}
+""")
+    watch_c = Collector(port, [f"{prefix}/#"])
+    for topic, payload in {f"{prefix}/spaces/s00/advisories/fast.hot": b"[" * 5000,
+                           f"{prefix}/spaces/s01/advisories/fast.hot": json.dumps(
+                               {"id": "forged", "shard": "x", "epoch": "9"}).encode()}.items():
+        watch_c.client.publish(topic, payload, qos=1, retain=True).wait_for_publish(SLOW)
+    feeder = Feeder(watch_c, lambda: {f"{prefix}-in/{s}/ta": "35" for s in spaces})
+    feeder.start()
+    proc = ServiceProcess(site, tmp_path / "a", "--group", "g", "--instance",
+                          f"lone{uuid.uuid4().hex[:4]}")
+    try:
+        proc.start(wait_ready=False)
+        def evaluations() -> float:
+            try:
+                return proc.metric("thermowarden_evaluation_seconds_count")
+            except OSError:
+                return 0.0  # its HTTP endpoint is not up yet
+        # the hot readings arrive every 0.5 s and the rule raises at once: five evaluations
+        # (one a second) are five chances to publish
+        wait_for(lambda: evaluations() > 5, SLOW, "a few evaluations")
+        watch_c.sync(f"{prefix}/sync")
+        assert proc.proc is not None and proc.proc.poll() is None
+        assert proc.metric("thermowarden_group_owned_spaces") == 0
+        assert watch_c.events(prefix) == []
+        assert not [t for t, p, _ in list(watch_c.messages) if t.endswith("/conditions")]
+        assert proc.metric("thermowarden_group_errors_total") == 0
+    finally:
+        feeder.stop()
+        proc.stop()
+        watch_c.close()
+        clear_retained(port, prefix)
+
+
+def test_a_shard_without_a_holder_is_told_to_the_integrator(tmp_path, system_broker_port):
+    """A second instance is present in the store (its presence written here by the test)
+    but never takes a shard: the real instance takes its fair share, one of the two
+    shards, and never more; after twice the TTL the integrator is told which shard and
+    spaces nobody evaluates."""
+    need_postgres()
+    port = system_broker_port
+    prefix = f"twg-{uuid.uuid4().hex[:8]}"
+    schema = f"tw_{uuid.uuid4().hex[:10]}"
+    spaces = ["s00", "s01"]
+    site = write_site(tmp_path, prefix, port, spaces, evaluation="{tick_s: 1}",
+                      extra=f"""group:
+  store: {{kind: postgres, dsn: "{PG_DSN}", table_schema: {schema}}}
+  lease_ttl_s: {TTL_S}
+""").read_text().replace("  - id: s00\n", "  - id: s00\n    area: east\n").replace(
+        "  - id: s01\n", "  - id: s01\n    area: west\n")
+    (tmp_path / "site.yaml").write_text(site)
+    ghost = PostgresLeaseStore(PG_DSN, "g", TTL_S, schema=schema)
+    ghost.open()
+    stop = threading.Event()
+
+    def haunt() -> None:
+        while not stop.is_set():
+            ghost.announce("ghost")
+            stop.wait(0.5)
+    thread = threading.Thread(target=haunt, daemon=True)
+    thread.start()
+    watch_c = Collector(port, [f"{prefix}/#"])
+    proc = ServiceProcess(tmp_path / "site.yaml", tmp_path / "a", "--group", "g",
+                          "--instance", f"real{uuid.uuid4().hex[:4]}")
+    try:
+        proc.start()
+
+        def notices() -> list[dict]:
+            return [e for e in watch_c.events(prefix) if e.get("kind") == "spaces_unowned"]
+        wait_for(notices, SLOW, "the notice of a shard without a holder")
+        (notice,) = notices()
+        validator("event.v1.json").validate(notice)
+        held = pg_holders(schema)
+        assert len(held) == 1  # its share of two live instances: one shard, never both
+        free = ({"east", "west"} - set(held)).pop()
+        assert notice["shards"] == [free] and notice["spaces"] == [
+            "s00" if free == "east" else "s01"]
+        assert notice["bound_s"] == 2 * TTL_S and notice["audience"] == "integrator"
+        assert proc.metric("thermowarden_group_uncovered_seconds") > 2 * TTL_S
+        assert proc.metric("thermowarden_group_members") == 2
+    finally:
+        stop.set()
+        thread.join(5)
+        ghost.close()
+        proc.stop()
         watch_c.close()
         clear_retained(port, prefix)
         drop_schema(schema)

@@ -36,7 +36,8 @@ does (for an advisory no one has, the first live instance in name order replies)
 People see: a retained status per instance (``<prefix>/status/<instance>``: the shards it
 holds and stands by for), metrics (spaces held, live instances, seconds since every shard
 had a holder, moves, fenced effects) and a notice to the integrator when a shard had no
-holder for longer than twice the lease TTL.
+holder for longer than twice the lease TTL (from the first instance in name order of those
+that hold a shard).
 """
 
 from __future__ import annotations
@@ -411,12 +412,14 @@ class Group:
         """What to do with a command: "answer" (this instance holds the advisory's shard,
         or no one has the advisory and this instance is the first live one), "keep" (it
         stands by for the shard: applied if it takes the shard over; only with ``keep``),
-        or "ignore"."""
+        or "ignore". "First" is in name order among the instances holding a shard."""
         assert self.service is not None
         shard = self._shard_of_advisory(advisory_id)
-        if shard is None:
-            live = sorted(self.round.live) if self.round is not None else []
-            return "answer" if not live or live[0] == self.me else "ignore"
+        if shard is None:  # no one has it: one instance replies with the error
+            r = self.round
+            working = sorted(set(r.holders.values()) & r.live) or sorted(r.live) \
+                if r is not None else []
+            return "answer" if not working or working[0] == self.me else "ignore"
         if shard in self.publishing:
             return "answer"
         if keep and shard in self.evaluating and isinstance(advisory_id, str):
@@ -623,8 +626,7 @@ class Group:
         service = self.service
         assert service is not None
         service.metrics.group_members.set(len(r.live))
-        all_shards = sorted(set(service.engine.publication.shards))
-        free = [s for s in all_shards if s not in r.holders]
+        free = [s for s in self.shards if s not in r.holders]
         if free and r.ok:
             if self.uncovered_since is None:
                 self.uncovered_since = mono
@@ -636,12 +638,13 @@ class Group:
         else:
             waited = mono - self.uncovered_since if self.uncovered_since is not None else 0.0
         service.metrics.group_uncovered.set(waited)
-        first = not r.live or sorted(r.live)[0] == self.me
+        # told by one instance: the first in name order of those that hold a shard (one
+        # that holds none may be the very reason a shard has no holder)
+        working = sorted(set(r.holders.values()) & r.live) or sorted(r.live)
+        first = not working or working[0] == self.me
         if waited > self.bound_s and not self.gap_told and first and r.ok:
             self.gap_told = True
-            pub = service.engine.publication
-            spaces = [sid for sid, s in zip(service.engine.model.space_ids, pub.shards,
-                                            strict=True) if s in free]
+            spaces = [sid for sid, s in self.shard_by_space.items() if s in free]
             self._notice("spaces_unowned", service.clock.now(), {
                 "count": len(spaces), "spaces": spaces[:100], "shards": free[:100],
                 "text": f"{len(free)} shard(s) ({len(spaces)} space(s)) of group {self.name} "
