@@ -242,10 +242,10 @@ class FaultRun:
     def spaces_of(self, name: str) -> list[str]:
         return sorted(s for s, h in self.holders().items() if h == name)
 
-    def wait_holding(self, name: str, at_least: int) -> list[str]:
+    def wait_holding(self, name: str, at_least: int, timeout: float = 3 * SLOW) -> list[str]:
         """The spaces ``name`` holds once it holds ``at_least``, spread over its shards
         (one of each shard in turn), so the hot spaces cover as many shards as they can."""
-        wait_for(lambda: len(self.spaces_of(name)) >= at_least, 3 * SLOW,
+        wait_for(lambda: len(self.spaces_of(name)) >= at_least, timeout,
                  f"instance {name} to hold {at_least} space(s)")
         held = self.spaces_of(name)
         shard = {s: str(d.get("shard")) for s, d in self.latest_conditions().items()}

@@ -316,14 +316,17 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
             after_first.setdefault(space, present)
             if is_partial and not partial_before.get(space, False):
                 partial.add(space)
+    partial -= sc.whole_exempt
     for s in sorted(partial):
         rep.add("whole", f"{s}: the 60-minute WBGT was rebuilt after the fault (partial)")
-    lost = [s for s, p in before.items() if p and after_first.get(s) is False]
+    lost = [s for s, p in before.items()
+            if p and after_first.get(s) is False and s not in sc.whole_exempt]
     for s in lost:
         rep.add("whole", f"{s}: the time-weighted WBGT was present before the fault and "
                          f"absent after it")
     rep.figures["twa_present_before"] = sum(before.values())
     rep.figures["partial_after"] = len(partial)
+    rep.figures["whole_exempt"] = len(sc.whole_exempt)
 
 
 def check_all(messages: list[Received], sc: Scenario) -> Report:
