@@ -12,9 +12,11 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
   as a whole takes them in (the sum of the instances' received counters, until it stops
   growing), against a bare paho MQTT 3.1.1 consumer on node 1 in the same run
   (``cluster_<m>_vs_bare_ratio``). With standbys, every message reaches each instance that
-  holds or stands by for its shard: the counters then count it once per instance.
+  holds or stands by for its shard (``cluster_<m>_received_per_sent``, 2.0 with one
+  standby): the rate counts each message of the site once.
 - ``cluster_<m>_cpu_per_msg_us``: CPU time (user + system, from /proc/<pid>/stat) of all
-  instances per message sent, including their evaluations in that time.
+  instances per message sent (the holder's and the standby's copy together), including
+  their evaluations in that time.
 - ``cluster_<S>sp_<m>_idle_cpu_per_space_min_us``: CPU time of all instances per space of
   the site per minute with no message arriving (evaluations every ``TICK_S``, conditions,
   lease renewals or heartbeats), for a site of ``S`` spaces (two sizes: 150 and 600 with
@@ -204,7 +206,10 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
                 last, still_since = got, time.time()
             time.sleep(0.05)
         received = last - base
-        out["rate"] = received / (still_since - t0)
+        # with standbys every message reaches the holder and the standby of its shard:
+        # the rate is of the site's messages (each counted once), the copies are a figure
+        copies = max(1.0, round(received / n))
+        out["rate"] = received / copies / (still_since - t0)
         out["received"] = received
         out["cpu_per_msg_us"] = 1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - cpu0) / n
     finally:
