@@ -217,3 +217,20 @@ def test_a_newcomer_after_a_takeover_gets_its_share_without_ping_pong() -> None:
         assert sim.counts()["d"] == 2, (seed, sim.counts())
         taken = [s for s, _ in sim.store.takers]
         assert len(taken) == len(set(taken)), (seed, sim.store.takers)  # no shard twice
+
+
+def test_standbys_stay_put_while_a_dead_holders_lease_runs_out() -> None:
+    """The lease of a dead holder has ended but its presence has not yet, and its standby is
+    at its share (it cannot take the shard in this round): it must stay the standby (else it
+    drops the shard's state and takes the shard back cold a moment later)."""
+    live = frozenset({"a", "b", "c"})
+    for k in range(16):
+        shard = f"bucket-{k:02d}"
+        holder = ranking(shard, live)[0]  # the dead holder ranks first: the worst case
+        (standby,) = standbys(shard, holder, live, 1)
+        other = "other-shard"
+        shards = [shard, other, "third"]  # share: one each
+        free = View(standby, live, shards, {other: standby, "third": holder}, 11.0,
+                    {shard: 11.0}, last_holder={shard: holder})
+        p = plan(free, replicas=1, grace_s=1.0, settle_s=3.0)
+        assert shard not in p.take and shard in p.standby, (k, p)

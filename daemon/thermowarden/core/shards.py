@@ -138,8 +138,10 @@ def plan(view: View, *, replicas: int, grace_s: float, settle_s: float) -> Plan:
         if h is not None:
             counts[h] = counts.get(h, 0) + 1
     mine = [s for s in view.shards if view.holders.get(s) == me]
-    order = {s: standbys(s, view.holders.get(s), view.live, max(1, replicas))
-             for s in view.shards}
+    # a free shard keeps the standbys of its last holder until it is taken: they must not
+    # change (and drop their state) in the moment between the lease's end and the take
+    order = {s: standbys(s, view.holders.get(s, view.last_holder.get(s)), view.live,
+                         max(1, replicas)) for s in view.shards}
     standing = frozenset(s for s in view.shards
                          if view.holders.get(s) != me and me in order[s][:max(0, replicas)])
     take: list[str] = []

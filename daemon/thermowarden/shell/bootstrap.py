@@ -212,6 +212,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         service.group = Group(group, instance, config.group, lease_store(config.group, group),
                               prefix)
         link.watch = service.group.watch_prefixes()
+        link.resend_filter = service.group.allows_bytes
         service.group.attach(service)
     web = None
     if config.web.enabled:

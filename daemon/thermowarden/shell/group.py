@@ -496,6 +496,19 @@ class Group:
             return True
         return self.may_publish(payload["shard"], payload.get("epoch"))
 
+    def allows_bytes(self, payload: bytes) -> bool:
+        """:meth:`allows` for a message the MQTT client holds (called on its network
+        thread before a reconnect; reads only values the engine thread replaces whole)."""
+        if b'"shard"' not in payload:
+            return True
+        data = _json(payload)
+        if not isinstance(data, dict):
+            return True
+        try:
+            return self.allows(data)
+        except AssertionError:
+            return False
+
     # ------------------------------------------------------------------ the loop
     def update(self) -> None:
         """Called on every turn of the engine loop; cheap unless something changed."""

@@ -98,7 +98,7 @@ class Incoming:
 class Control:
     """A connection event or a publish acknowledgement."""
 
-    kind: str  # "connected", "disconnected", "subscribed", "puback", "refused"
+    kind: str  # "connected", "disconnected", "subscribed", "puback", "refused", "dropped"
     mid: int = 0
     reason: str = ""
     failed: bool = False
@@ -246,6 +246,10 @@ class MqttLink:
         """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
         broker QoS 0 deliveries do not wait for the streams)."""
         self._sub_topics: dict[int, str] = {}
+        self.resend_filter: Callable[[bytes], bool] | None = None
+        """A group's fencing: a message the client would send again after a reconnect is
+        dropped (and reported as "dropped") when this says no: an event or record of a
+        shard whose lease lapsed while the connection was down."""
         self._retry_subs: set[str] = set()
         """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
 
@@ -407,7 +411,22 @@ class MqttLink:
         self._use((self.node + 1) % len(self.nodes))
         return self.node == self._round_start
 
+    def _prune_resends(self) -> None:
+        """Drop what paho would send again after this connect that may no longer be sent
+        (see ``resend_filter``); paho re-sends every unacknowledged QoS 1 message itself."""
+        keep = self.resend_filter
+        out = getattr(self.client, "_out_messages", None)
+        lock = getattr(self.client, "_out_message_mutex", None)
+        if keep is None or out is None or lock is None:
+            return
+        with lock:
+            for mid, m in list(out.items()):
+                if not keep(bytes(m.payload)):
+                    del out[mid]
+                    self.control.put(Control("dropped", mid=mid, reason="fenced"))
+
     def _connect(self) -> None:
+        self._prune_resends()
         # the will as the status record is now (a group adds its fields after the link is
         # built): set before every connect, as the broker takes it with the CONNECT
         self.client.will_set(self.status_topic, json.dumps(self.status_offline), qos=1,

@@ -395,6 +395,12 @@ class Service:
             log.warning("disconnected from the broker (%s)", c.reason)
         elif c.kind == "refused":
             log.error("the broker refused: %s", c.reason)
+        elif c.kind == "dropped":  # fenced: not sent again after a reconnect
+            seq = self.inflight.pop(c.mid, None)
+            if seq is not None:
+                self.handed.pop(seq, None)
+                self.store.outbox_done(seq)
+            self.metrics.group_fenced.inc()
         elif c.kind == "puback":
             seq = self.inflight.pop(c.mid, None)
             if seq is not None:
