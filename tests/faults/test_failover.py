@@ -81,7 +81,9 @@ def run_fault(tmp_path, store: str | None, fault: Fault, *, victim: str = "b",
         t_from = time.monotonic()
         hot = run.wait_holding(victim, 1)[:3]
         if len(hot) < 3:  # the victim holds few spaces: the other alerts are elsewhere
-            hot += [s for s in run.spaces if s not in hot and s in run.holders()][:3 - len(hot)]
+            # (the victim's own last: they escalate and take the commands during the fault)
+            hot = [s for s in run.spaces if s not in hot and s in run.holders()][
+                :3 - len(hot)] + hot
             run.scenario.notes.append(f"{victim} held {len(run.spaces_of(victim))} space(s)")
         ids = run.raise_heat(hot)
         if warm:
