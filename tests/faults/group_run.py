@@ -303,9 +303,9 @@ class FaultRun:
                 return m.t
         return None
 
-    def wait_urgent(self, spaces: list[str]) -> None:
+    def wait_urgent(self, spaces: list[str], timeout: float = 3 * SLOW) -> None:
         wait_for(lambda: all((self.heat_record(s) or {}).get("priority") == "urgent"
-                             for s in spaces), 3 * SLOW, f"urgent alerts in {spaces}")
+                             for s in spaces), timeout, f"urgent alerts in {spaces}")
 
     def warm_window(self, spaces: list[str]) -> None:
         """Wait until the time-weighted WBGT of ``spaces`` is present (80 % of the window
