@@ -1,17 +1,34 @@
 """Scale-out figures on a three-node nats-server cluster (used by bench/run.py --cluster).
 
-One, two and three instances of a group (``run --group``), each connected to its own node,
-share a site of ``SPACES`` spaces; one publisher sends ``n`` sensor messages (QoS 0) to node
-1 as fast as it can; the figure is the rate at which the group as a whole takes them in
-(the sum of the instances' received counters, until it stops growing), against a bare paho
-MQTT 3.1.1 consumer subscribed on node 1 in the same run (``cluster_<m>_vs_bare_ratio``).
-On this 2-core machine the broker nodes, the instances and the publisher share the cores,
-so these are ratios, not capacities.
+One to four instances of a group (``run --group``; instance k connects first to node
+k mod 3) share a site. Where the site model has a ``group`` section (issue 24: shard leases
+in a JetStream key-value bucket on the same cluster, a holder and a warm standby per shard),
+the bench writes one; otherwise it runs the group as before (membership over retained
+records). Each figure is printed (and flushed) as soon as it is measured; the last line of
+``bench/run.py`` is the JSON of all of them.
 
-Costs for sizing: ``cluster_<m>_cpu_per_msg_us`` is the CPU time (user + system, from
-/proc/<pid>/stat) the instances used per message received, which includes their evaluations
-in that time; ``cluster_<m>_idle_cpu_per_space_min_us`` the CPU time per space per minute
-with nothing arriving (evaluations every ``TICK_S``, conditions every minute, heartbeats).
+- ``cluster_<m>_msgs_per_s``: one publisher sends ``n`` sensor messages (QoS 0) to node 1 as
+  fast as it can, for the large site; the figure is the rate at which the group
+  as a whole takes them in (the sum of the instances' received counters, until it stops
+  growing), against a bare paho MQTT 3.1.1 consumer on node 1 in the same run
+  (``cluster_<m>_vs_bare_ratio``). With standbys, every message reaches each instance that
+  holds or stands by for its shard (``cluster_<m>_received_per_sent``, 2.0 with one
+  standby): the rate counts each message of the site once.
+- ``cluster_<m>_cpu_per_msg_us``: CPU time (user + system, from /proc/<pid>/stat) of all
+  instances per message sent (the holder's and the standby's copy together), including
+  their evaluations in that time.
+- ``cluster_<S>sp_<m>_idle_cpu_per_space_min_us``: CPU time of all instances per space of
+  the site per minute with no message arriving (evaluations every ``TICK_S``, conditions,
+  lease renewals or heartbeats), for a site of ``S`` spaces (two sizes: 150 and 600 with
+  ``--quick``, 1,000 and 4,000 without); ``cluster_<S>sp_<m>_idle_cpu_per_instance_min_ms``
+  the same per instance per minute.
+- ``cluster_idle_site_growth_ratio``: idle CPU per instance with four instances on the large
+  site divided by one instance on the small site: each then handles the same number of
+  spaces, so 1.0 means an instance's idle cost follows the spaces it handles, not the
+  whole site's size; 4.0 would mean it grows with the site.
+
+On this 2-core machine, shared with other work, the broker nodes, the instances and the
+publisher share the cores: these are ratios and costs, not capacities.
 """
 
 from __future__ import annotations
@@ -31,12 +48,22 @@ sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
 from e2e import BARE, PUBLISHER, _free_port, _metric  # noqa: E402
 from tests.shell.nats_cluster import NatsCluster, nats_program  # noqa: E402
 
-SPACES = 600
+SMALL = 150
+"""Spaces of the small site with --quick (1,000 without); the large one has four times."""
 TICK_S = 5.0
+LEASE_TTL_S = 15.0
+"""Outlasts a JetStream stream leader election (5-11 s measured by the cluster test)."""
 
 
-def _site(tmp: pathlib.Path, prefix: str, url: str,
-          servers: list[str] | None = None) -> pathlib.Path:
+def _has_leases() -> bool:
+    """Whether this version's site model has the group section (shard leases)."""
+    from thermowarden.config import SiteConfig
+
+    return "group" in SiteConfig.model_fields
+
+
+def _site(tmp: pathlib.Path, prefix: str, url: str, spaces: int,
+          cluster: NatsCluster) -> pathlib.Path:
     (tmp / "packs").mkdir(exist_ok=True)
     (tmp / "packs" / "fast.yaml").write_text(textwrap.dedent("""\
         pack: fast
@@ -49,20 +76,24 @@ def _site(tmp: pathlib.Path, prefix: str, url: str,
             condition: air_temperature > 30
             messages: {title: "{space_name} is hot", advice: "Cool it.", rationale: "> 30 °C"}
         """))
-    site = tmp / "site.yaml"
+    group = ""
+    if _has_leases():
+        servers = ", ".join(f"'nats://127.0.0.1:{n.client}'" for n in cluster.nodes)
+        group = (f"group:\n  name: bench\n  store: {{kind: nats, servers: [{servers}], "
+                 f"bucket: {prefix}, stream_replicas: 3}}\n  lease_ttl_s: {LEASE_TTL_S}\n"
+                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n")
+    site = tmp / f"site-{prefix}.yaml"
     site.write_text(
         f"site: {{id: cbench, timezone: UTC}}\n"
         f"broker: {{url: '{url}', protocol: '3.1.1', subscribe_qos: 0, keepalive_s: 8}}\n"
         f"output: {{prefix: {prefix}-out, rule_topic_separator: '/'}}\nrule_dirs: [packs]\n"
         f"evaluation: {{flood_limit: 100000, tick_s: {TICK_S}}}\n"
         "ingest: {silence_limit_s: null}\n"
-        + (f"group: {{store: {{kind: nats, servers: [{', '.join(servers)}], stream_replicas: 3}},"
-           " lease_ttl_s: 15, rebalance_after_s: 0}\n" if servers else "") +
         "defaults: {occupancy: {always: true}, rule_packs: [fast, comfort, humidity],"
-        " people: {met: 1.2, clo: 0.6}}\n"
+        " people: {met: 1.2, clo: 0.6}}\n" + group +
         f"templates:\n  - {{topic: '{prefix}/{{space}}/ta', quantity: air_temperature,"
         " interval_s: 60}\nspaces:\n" +
-        "".join(f"  - id: s{i:04d}\n" for i in range(SPACES)))
+        "".join(f"  - id: s{i:04d}\n" for i in range(spaces)))
     return site
 
 
@@ -80,7 +111,7 @@ def _bare(port: int, prefix: str, n: int, tries: int = 3) -> float | None:
         assert bare.stdout is not None
         assert bare.stdout.readline().strip() == "ready"
         time.sleep(2.0)
-        t0 = _publish(port, f"{prefix}{attempt}", n)
+        t0 = _publish(port, f"{prefix}{attempt}", n, 1000)
         line = bare.stdout.readline().strip()
         bare.wait(180)
         if not line.startswith("incomplete"):
@@ -106,64 +137,81 @@ def _warm(cluster: NatsCluster) -> None:
         c.disconnect()
 
 
-def _publish(port: int, prefix: str, n: int) -> float:
+def _publish(port: int, prefix: str, n: int, spaces: int) -> float:
     out = subprocess.run([sys.executable, "-c", PUBLISHER, str(port), prefix, str(n),
-                          str(SPACES)], capture_output=True, text=True, check=True,
+                          str(spaces)], capture_output=True, text=True, check=True,
                          timeout=600)
     return float(out.stdout.split()[0])
 
 
-def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, n: int,
-           idle_s: float) -> dict[str, float]:
+def _say(name: str, value: float | str | None) -> None:
+    """A figure as soon as it is measured (stderr, flushed)."""
+    print(f"{name:>44}: {value}", file=sys.stderr, flush=True)
+
+
+def _covered(procs: list[tuple[subprocess.Popen[bytes], int]], m: int, spaces: int) -> bool:
+    """Every space held once: the instances' owned-spaces gauges add up to the site."""
+    owned = [_metric(h, "thermowarden_group_owned_spaces") for _, h in procs]
+    members = [_metric(h, "thermowarden_group_members") for _, h in procs]
+    for p, _ in procs:
+        if p.poll() is not None:
+            raise RuntimeError(f"an instance exited with {p.returncode}")
+    # (with leases, every instance holding a share: the shards are spread)
+    return sum(owned) == spaces and all(x in (m, 0.0) for x in members) and (
+        not _has_leases() or all(x > 0 for x in owned))
+
+
+def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s: float,
+           n: int | None) -> dict[str, float]:
+    """Start ``m`` instances on a site of ``spaces``; idle CPU, then (``n``) throughput."""
     prefix = f"twcl{uuid.uuid4().hex[:6]}"
-    site = _site(tmp, prefix, cluster.nodes[0].url,
-                 [f"nats://127.0.0.1:{node.client}" for node in cluster.nodes])
+    site = _site(tmp, prefix, cluster.nodes[0].url, spaces, cluster)
     procs: list[tuple[subprocess.Popen[bytes], int]] = []
     out: dict[str, float] = {}
     try:
         for k in range(m):
             http = _free_port()
-            log = open(tmp / f"svc-{m}-{k}.log", "wb")  # noqa: SIM115
+            log = open(tmp / f"svc-{prefix}-{k}.log", "wb")  # noqa: SIM115
             p = subprocess.Popen([sys.executable, "-m", "thermowarden.cli", "run", "--config",
-                                  str(site), "--state-dir", str(tmp / f"state-{m}-{k}"),
+                                  str(site), "--state-dir", str(tmp / f"state-{prefix}-{k}"),
                                   "--http-port", str(http), "--group", "bench",
-                                  "--instance", f"i{k}", "--broker", cluster.urls(k)],
+                                  "--instance", f"i{k}", "--broker",
+                                  cluster.urls(k % len(cluster.nodes))],
                                  stdout=subprocess.DEVNULL, stderr=log)
             procs.append((p, http))
         deadline = time.time() + 600
-        while time.time() < deadline:
-            owned = [_metric(h, "thermowarden_group_owned_spaces") for _, h in procs]
-            members = [_metric(h, "thermowarden_group_members") for _, h in procs]
-            if sum(owned) == SPACES and all(x == m for x in members):
-                break
+        while not _covered(procs, m, spaces):
+            if time.time() > deadline:
+                raise RuntimeError(f"the group of {m} never held every space once")
             time.sleep(0.2)
-        else:
-            raise RuntimeError(f"the group of {m} never owned every space once")
-        # idle: the evaluations (every TICK_S) and conditions (every 60 s) of the spaces,
-        # no message arriving: CPU per space per minute
-        time.sleep(TICK_S)
+        # idle: the evaluations (every TICK_S), conditions (every 60 s), lease renewals or
+        # heartbeats, no message arriving: CPU per space per minute and per instance
+        time.sleep(2 * TICK_S)
         cpu0 = sum(_cpu_s(p.pid) for p, _ in procs)
         w0 = time.monotonic()
         time.sleep(idle_s)
-        out["idle_cpu_per_space_min_us"] = (1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - cpu0)
-                                            / SPACES / ((time.monotonic() - w0) / 60))
+        used = sum(_cpu_s(p.pid) for p, _ in procs) - cpu0
+        minutes = (time.monotonic() - w0) / 60
+        out["idle_cpu_per_space_min_us"] = 1e6 * used / spaces / minutes
+        out["idle_cpu_per_instance_min_ms"] = 1e3 * used / m / minutes
+        if n is None:
+            return out
         base = sum(_metric(h, "thermowarden_messages_received_total") for _, h in procs)
         cpu0 = sum(_cpu_s(p.pid) for p, _ in procs)
-        t0 = _publish(cluster.nodes[0].mqtt, prefix, n)
+        t0 = _publish(cluster.nodes[0].mqtt, prefix, n, spaces)
         last, still_since = -1.0, time.time()
         while time.time() - still_since < 3.0 and time.time() - t0 < 600:
             got = sum(_metric(h, "thermowarden_messages_received_total") for _, h in procs)
             if got != last:
                 last, still_since = got, time.time()
-                if got - base >= n:
-                    break
             time.sleep(0.05)
         received = last - base
-        elapsed = still_since - t0
-        out["rate"] = received / elapsed
-        out["lost"] = n - received
-        out["cpu_per_msg_us"] = 1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - cpu0) / max(
-            received, 1.0)
+        # with standbys every message reaches the holder and the standby of its shard:
+        # the rate is of the site's messages (each counted once), the copies are a figure
+        copies = max(1.0, round(received / n))
+        out["rate"] = received / copies / (still_since - t0)
+        out["received"] = received
+        out["cpu_per_msg_us"] = 1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - cpu0) / n
     finally:
         for p, _ in procs:
             p.terminate()
@@ -177,21 +225,38 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
     if program is None:
         return {"cluster_unmeasured": "nats-server not installed"}
     n = 20_000 if quick else 60_000
+    idle_s = 20.0 if quick else 60.0
     tmp = pathlib.Path(tempfile.mkdtemp(prefix="tw-cluster-"))
     cluster = NatsCluster(tmp / "nats", program).start()
     out: dict[str, float | str | None] = {}
+
+    def put(name: str, value: float | str | None) -> None:
+        out[name] = value
+        _say(name, value)
     try:
         _warm(cluster)
+        put("cluster_design", "shard leases" if _has_leases() else "membership records")
         bare = _bare(cluster.nodes[0].mqtt, f"twbare{uuid.uuid4().hex[:6]}", n)
-        out["cluster_bare_paho_311_msgs_per_s"] = round(bare) if bare else None
-        for m in (1, 2, 3):
-            g = _group(tmp, cluster, m, n, 20.0 if quick else 65.0)
-            out[f"cluster_{m}_msgs_per_s"] = round(g["rate"])
-            out[f"cluster_{m}_lost"] = int(g["lost"])
-            out[f"cluster_{m}_vs_bare_ratio"] = round(g["rate"] / bare, 3) if bare else None
-            out[f"cluster_{m}_cpu_per_msg_us"] = round(g["cpu_per_msg_us"], 1)
-            out[f"cluster_{m}_idle_cpu_per_space_min_us"] = round(
-                g["idle_cpu_per_space_min_us"])
+        put("cluster_bare_paho_311_msgs_per_s", round(bare) if bare else None)
+        per_instance: dict[tuple[int, int], float] = {}
+        small = SMALL if quick else 1000
+        large = 4 * small
+        for spaces in (small, large):
+            for m in (1, 2, 3, 4):
+                g = _group(tmp, cluster, m, spaces, idle_s, n if spaces == large else None)
+                per_instance[(spaces, m)] = g["idle_cpu_per_instance_min_ms"]
+                put(f"cluster_{spaces}sp_{m}_idle_cpu_per_space_min_us",
+                    round(g["idle_cpu_per_space_min_us"]))
+                put(f"cluster_{spaces}sp_{m}_idle_cpu_per_instance_min_ms",
+                    round(g["idle_cpu_per_instance_min_ms"]))
+                if "rate" in g:
+                    put(f"cluster_{m}_msgs_per_s", round(g["rate"]))
+                    put(f"cluster_{m}_received_per_sent", round(g["received"] / n, 3))
+                    put(f"cluster_{m}_vs_bare_ratio",
+                        round(g["rate"] / bare, 3) if bare else None)
+                    put(f"cluster_{m}_cpu_per_msg_us", round(g["cpu_per_msg_us"], 1))
+        put("cluster_idle_site_growth_ratio",
+            round(per_instance[(large, 4)] / per_instance[(small, 1)], 2))
     finally:
         cluster.stop()
         shutil.rmtree(tmp, ignore_errors=True)

@@ -20,8 +20,9 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
 - replay_day_s, replay_space_days_per_s, replay_vs_ingest_ratio, replay_vs_ingest_in_runs_ratio:
   see bench/replay_bench.py.
 - e2e_*: through the local broker, see bench/e2e.py (skipped with --no-broker).
-- cluster_*: a group of one, two and three instances on a three-node nats-server cluster,
-  against a bare paho consumer on the same cluster, see bench/cluster.py (--cluster).
+- cluster_*: a group of one to four instances on a three-node nats-server cluster, at two
+  site sizes, against a bare paho consumer on the same cluster, see bench/cluster.py
+  (--cluster).
 - python_start_s: a bare ``python -c pass``, the baseline of the start-up figures below
   (each the median wall time of a fresh ``python -m thermowarden.cli`` process):
   cold_assess_s: the README's ``assess`` example with an empty numba cache (kernels
@@ -385,7 +386,7 @@ def main() -> int:
                         help="only the start-up figures")
     parser.add_argument("--cluster", action="store_true",
                         help="also the scale-out figures on a three-node nats-server cluster "
-                             "(bench/cluster.py; a few minutes)")
+                             "(bench/cluster.py; 10-20 minutes)")
     parser.add_argument("--cluster-only", action="store_true",
                         help="only the scale-out figures")
     args = parser.parse_args()

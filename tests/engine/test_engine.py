@@ -523,3 +523,16 @@ def test_a_level_that_relapses_waits_longer_before_it_is_lowered_again(lab):
     # once the swinging stops below the band, it is lowered after the longer hold
     calm = run(lab, 7230, 7230 + RELAPSE_HOLD_S + 60, **{"room-2": 34})
     assert events(calm, "room-2", lv)[:1] == [("deescalated", lv, "medium")]
+
+
+def test_conditions_go_on_after_the_wall_clock_steps_back(lab):
+    """A step back of the wall clock (time is the engine's argument) does not hold the
+    conditions back until the clock comes round to the last time they went out (the fault
+    suite saw 5 minutes without conditions after a 300 s step back)."""
+    def conditions(effects):
+        return [x for x in effects if isinstance(x, Publish) and x.topic.endswith("/conditions")]
+    assert conditions(run(lab, 1000, 1000, **{"room-1": 24}))
+    stepped = run(lab, 700, 720, **{"room-1": 24})  # 300 s back
+    assert {c.topic for c in conditions(stepped)} == {"tw/lab/spaces/room-1/conditions",
+                                                     "tw/lab/spaces/room-2/conditions"}
+    assert not conditions(run(lab, 730, 740, **{"room-1": 24}))  # then the usual pace

@@ -356,11 +356,13 @@ class Publication:
 
     def conditions_due(self, snap: Snapshot, table: IndexTable, now: float) -> list[Effect]:
         """Retained conditions of the spaces that are due: new readings (at most every
-        ``CONDITIONS_MIN_S``) or ``conditions_every_s`` since the last time."""
+        ``CONDITIONS_MIN_S``) or ``conditions_every_s`` since the last time, or at once when
+        the last time is in the future (the wall clock stepped back: waiting for it to come
+        round again left a space without conditions for as long as the step)."""
         if self.conditions_every_s <= 0:
             return []
         age = now - self.last_conditions
-        due = np.flatnonzero(((age >= self.conditions_every_s)
+        due = np.flatnonzero(((age >= self.conditions_every_s) | (age < 0)
                               | (self.touched & (age >= CONDITIONS_MIN_S))) & self.owned)
         effects: list[Effect] = []
         for i in due:

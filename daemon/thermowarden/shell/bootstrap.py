@@ -43,6 +43,7 @@ from thermowarden.shell.store import (
     count_rows,
     move_aside,
 )
+from thermowarden.shell.wall_offset import wall_clock
 from thermowarden.shell.warmup import warm_up
 from thermowarden.shell.web import WebServer, build_web
 from thermowarden.site_model import build_site_model
@@ -151,7 +152,7 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         raise ConfigError([ConfigIssue(None, f"--group {group}: the site file has no group "
                                        "section (the lease store: nats or postgres)")])
     model = build_site_model(config)
-    clock = clock or Clock()
+    clock = clock or Clock(wall=wall_clock())
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     site_id = config.site.id
     instance = (instance or config.broker.client_id

@@ -1,0 +1,158 @@
+"""The invariant checks themselves, on invented message sequences: each violation the fault
+cases look for is caught, and a clean failover passes (no broker needed)."""
+
+from __future__ import annotations
+
+import json
+
+from tests.faults.harness import Command, Received, Scenario, Timing
+from tests.faults.invariants import check_all
+
+P = "twf-x"
+ADV = f"{P}/spaces/s001/advisories/heat_stress/wbgt"
+
+
+def adv(epoch: int, history: list[str], priority: str = "high", *, shard: str = "b3",
+        by: dict[int, str] | None = None) -> dict:
+    return {"id": "s001.heat_stress.wbgt.1", "rule": "heat_stress.wbgt", "space": {"id": "s001"},
+            "priority": priority, "state": "active", "shard": shard, "epoch": epoch,
+            "history": [{"at": f"2026-12-04T19:00:{k:02d}Z", "event": e,
+                         **({"by": by[k]} if by and k in by else {})}
+                        for k, e in enumerate(history)]}
+
+
+def event(epoch: int, n: int, kind: str, advisory: dict, shard: str = "b3") -> dict:
+    return {"schema": "thermowarden.event/1", "event": kind, "at": "2026-12-04T19:00:00Z",
+            "shard": shard, "epoch": epoch,
+            "event_id": f"f1.{shard}.{epoch}.{advisory['id']}.{n}", "advisory": advisory}
+
+
+def cond(space: str, epoch: int, *, partial: bool = False, twa: float | None = 27.0) -> dict:
+    d = {"schema": "thermowarden.conditions/1", "space": {"id": space}, "shard": "b3",
+         "epoch": epoch, "indices": {"wbgt_time_weighted": {"value": twa}}}
+    if partial:
+        d["windows"] = {"wbgt_60min": {"partial": True}}
+    return d
+
+
+def msg(t: float, topic: str, payload: dict | None, retained: bool = False) -> Received:
+    return Received(t, topic, json.dumps(payload).encode() if payload is not None else b"",
+                    retained)
+
+
+def scenario(**kw) -> Scenario:
+    sc = Scenario(P, ["s001"], Timing(tick_s=1.0, lease_ttl_s=8.0, conditions_every_s=15.0))
+    sc.fault_started, sc.observe_from, sc.observe_to = 50.0, 0.0, 100.0
+    for k, v in kw.items():
+        setattr(sc, k, v)
+    return sc
+
+
+def conditions_every(step: float, epoch_at: float = 50.0, until: float = 100.0,
+                     **kw) -> list[Received]:
+    out, t = [], 0.0
+    while t <= until:
+        out.append(msg(t, f"{P}/spaces/s001/conditions", cond("s001", 1 if t < epoch_at else 2,
+                                                               **kw)))
+        t += step
+    return out
+
+
+def clean() -> list[Received]:
+    a1 = adv(1, ["raised"])
+    a2 = adv(2, ["raised", "moved", "escalated"], "urgent")
+    return [*conditions_every(10.0),
+            msg(1.0, f"{P}/events/safety/s001", event(1, 1, "raised", a1)),
+            msg(1.1, ADV, a1, True),
+            msg(60.0, f"{P}/events/safety/s001", event(2, 2, "escalated", a2)),
+            msg(60.0, f"{P}/events/safety/s001", event(2, 2, "escalated", a2)),  # a QoS 1 copy
+            msg(60.1, ADV, a2, True)]
+
+
+def test_a_clean_failover_passes():
+    rep = check_all(sorted(clean(), key=lambda m: m.t), scenario())
+    assert not rep.failed(), rep.summary()
+    assert rep.figures["epochs_per_shard_max"] == 2
+
+
+def test_one_id_for_two_events_is_caught():
+    a = adv(1, ["raised", "escalated"], "urgent")
+    b = adv(1, ["raised", "escalated"], "high")
+    msgs = clean() + [msg(70.0, f"{P}/events/safety/s001", event(1, 5, "escalated", a)),
+                      msg(71.0, f"{P}/events/safety/s001", event(1, 5, "escalated", b))]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert "ids" in rep.failed()
+    assert rep.figures["ids_two_events"] == 1
+
+
+def test_an_older_epoch_after_a_newer_is_caught():
+    late = event(1, 9, "renotified", adv(1, ["raised", "renotified"]))
+    rep = check_all(sorted(clean() + [msg(61.0, f"{P}/events/safety/s001", late)],
+                           key=lambda m: m.t), scenario())
+    assert any("epoch 1 after one of epoch 2" in v for v in rep.failed()["epochs"])
+
+
+def test_records_without_epochs_are_caught():
+    a = adv(1, ["raised"])
+    del a["epoch"], a["shard"]
+    e = {"schema": "thermowarden.event/1", "event": "raised", "at": "x", "event_id": "f1.s1.1",
+         "advisory": a}
+    rep = check_all([msg(1.0, f"{P}/events/safety/s001", e)], scenario())
+    assert any("without shard and epoch" in v for v in rep.failed()["epochs"])
+
+
+def test_a_record_going_backwards_is_caught_and_a_stale_epoch_dropped():
+    msgs = clean() + [
+        # the old holder's record after the new epoch: a consumer drops it (not a violation)
+        msg(61.0, ADV, adv(1, ["raised"]), True),
+        # the new epoch's record with its history cut short: a violation
+        msg(62.0, ADV, adv(2, ["raised", "moved"], "urgent"), True)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert rep.figures["stale_advisory_records_dropped"] == 1
+    assert any("went from (2, 3) to (2, 2)" in v for v in rep.failed()["forward"])
+
+
+def test_a_priority_dropping_without_deescalation_is_caught():
+    msgs = clean() + [msg(62.0, ADV, adv(2, ["raised", "moved", "escalated", "renotified"]),
+                          True)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("urgent to high" in v for v in rep.failed()["forward"])
+
+
+def test_a_lost_acknowledgement_is_caught():
+    cmd = Command("acknowledge", "s001.heat_stress.wbgt.1", "fault-ack-1", "r1", 55.0, True)
+    reply = {"schema": "thermowarden.reply/1", "ok": True, "verb": "acknowledge",
+             "request_id": "r1", "at": "x"}
+    msgs = clean() + [msg(56.0, f"{P}/replies/faults", reply)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario(commands=[cmd]))
+    assert any("answered ok" in v for v in rep.failed()["commands"])
+    kept = adv(2, ["raised", "moved", "escalated", "acknowledged"], "urgent",
+               by={3: "fault-ack-1"})
+    rep = check_all(sorted(msgs + [msg(80.0, ADV, kept, True)], key=lambda m: m.t),
+                    scenario(commands=[cmd]))
+    assert not rep.failed(), rep.summary()
+    assert rep.figures["commands_kept"] == 1
+
+
+def test_a_space_left_unevaluated_is_caught():
+    msgs = [m for m in clean() if not (40.0 < m.t < 75.0 and m.topic.endswith("conditions"))]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("no conditions for 40.0 s" in v for v in rep.failed()["evaluated"])
+
+
+def test_a_rebuilt_window_is_caught():
+    msgs = [m for m in clean() if not m.topic.endswith("conditions")]
+    msgs += conditions_every(10.0, until=40.0)
+    msgs += [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                 cond("s001", 2, partial=True, twa=None)) for k in range(6)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    found = rep.failed()["whole"]
+    assert any("rebuilt" in v for v in found) and any("present before" in v for v in found)
+
+
+def test_a_storm_of_answers_is_caught():
+    stray = {"schema": "thermowarden.reply/1", "ok": False, "verb": "acknowledge",
+             "request_id": None, "at": "x", "error": "the body is not a JSON object"}
+    msgs = clean() + [msg(60.0 + k / 100, f"{P}/replies", stray) for k in range(20)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("storm" in v for v in rep.failed()["commands"])
