@@ -35,6 +35,8 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   the package at another path, sharing the cache (a second checkout of the same version);
   check_error_s: ``check`` of a site with a YAML syntax error; check_valid_s: ``check`` of
   the valid example site (deploy/example-site.yaml) (skipped with --no-cold: cold_assess_s).
+  Each also as ``..._cpu_s``: the median CPU seconds (user + system) of the same processes,
+  the figure to compare on a loaded machine, where wall time mostly measures the queue.
 """
 
 from __future__ import annotations
@@ -338,12 +340,27 @@ README_EXAMPLE = json.dumps({
     "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate", "clo": 0.6})
 
 
+_CHILD_CPU: list[float] = []
+
+
 def _wall(cmd: list[str], env: dict[str, str], stdin: str = "") -> float:
+    """Wall seconds of one run of ``cmd``; its CPU seconds (user + system) are appended to
+    ``_CHILD_CPU`` (on a loaded machine the wall time mostly measures the queue)."""
+    import resource
     import subprocess
 
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
     subprocess.run(cmd, input=stdin, env=env, capture_output=True, text=True, timeout=900)
-    return time.perf_counter() - t0
+    wall = time.perf_counter() - t0
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    _CHILD_CPU.append(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime)
+    return wall
+
+
+def _cpu_median(runs: int) -> float:
+    """Median CPU seconds of the last ``runs`` runs of :func:`_wall`."""
+    return statistics.median(_CHILD_CPU[-runs:])
 
 
 def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
@@ -360,27 +377,33 @@ def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
         assess = [sys.executable, "-m", "thermowarden.cli", "assess", "--format", "table"]
         report(out, "python_start_s", statistics.median(
             _wall([sys.executable, "-c", "pass"], env) for _ in range(repeats)))
+        report(out, "python_start_cpu_s", _cpu_median(repeats))
         if cold:
             report(out, "cold_assess_s", _wall(assess, env, README_EXAMPLE))
+            report(out, "cold_assess_cpu_s", _CHILD_CPU[-1])
         else:
             _wall(assess, env, README_EXAMPLE)  # fill the cache
         report(out, "warm_assess_s", statistics.median(
             _wall(assess, env, README_EXAMPLE) for _ in range(repeats)))
+        report(out, "warm_assess_cpu_s", _cpu_median(repeats))
         clone = pathlib.Path(tmp) / "second-checkout" / "daemon"
         shutil.copytree(root / "daemon" / "thermowarden", clone / "thermowarden",
                         ignore=shutil.ignore_patterns("__pycache__"))
         clone_env = {**env, "PYTHONPATH": str(clone)}
         report(out, "clone_assess_s", statistics.median(
             _wall(assess, clone_env, README_EXAMPLE) for _ in range(repeats)))
+        report(out, "clone_assess_cpu_s", _cpu_median(repeats))
         bad = pathlib.Path(tmp) / "site.yaml"
         bad.write_text("site: {id: x\n  name: [\n", encoding="utf-8")
         report(out, "check_error_s", statistics.median(
             _wall([sys.executable, "-m", "thermowarden.cli", "check", str(bad)], env)
             for _ in range(repeats)))
+        report(out, "check_error_cpu_s", _cpu_median(repeats))
         good = root / "deploy" / "example-site.yaml"
         report(out, "check_valid_s", statistics.median(
             _wall([sys.executable, "-m", "thermowarden.cli", "check", str(good)], env)
             for _ in range(repeats)))
+        report(out, "check_valid_cpu_s", _cpu_median(repeats))
     return out
 
 
@@ -498,7 +521,10 @@ def main() -> int:
 # The figure names each bench reports, for --only FIGURE.
 FIGURE_BENCH: dict[str, str] = {
     **{k: "startup" for k in ("python_start_s", "cold_assess_s", "warm_assess_s",
-                              "clone_assess_s", "check_error_s", "check_valid_s")},
+                              "clone_assess_s", "check_error_s", "check_valid_s",
+                              "python_start_cpu_s", "cold_assess_cpu_s",
+                              "warm_assess_cpu_s", "clone_assess_cpu_s",
+                              "check_error_cpu_s", "check_valid_cpu_s")},
     "indices_10k_ms": "indices", "indices_vs_loop_ratio": "indices",
     "ingest_msgs_per_s": "ingest", "ingest_vs_json_ratio": "ingest",
     "bytes_per_space": "memory",
