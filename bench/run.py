@@ -1,6 +1,12 @@
-"""Performance harness. Prints figures; the last line is one JSON object.
+"""Performance harness. Prints each figure when it is measured; the last line is one JSON object.
 
-    python bench/run.py [--quick]
+    python bench/run.py [--quick] [--only NAME ...] [--no-broker] [--no-cold] [--cluster]
+
+Every figure is printed (and flushed) on stdout as ``name: value`` the moment its bench
+returns, followed by a ``# bench`` line with its wall and CPU time and the load; the last
+line is all figures as one JSON object. ``--only NAME`` runs one bench (a name from
+``BENCHES``) or the bench that measures the figure NAME. A full run is planned to take
+under 5 minutes on the 2-core development machine when idle (the cold assess included).
 
 Figures are measured in this run against a baseline measured in the same run (this
 machine is shared and noisy): report ratios, not absolute times, when comparing runs.
@@ -28,8 +34,10 @@ machine is shared and noisy): report ratios, not absolute times, when comparing 
   cold_assess_s: the README's ``assess`` example with an empty numba cache (kernels
   compiled); warm_assess_s: the same once cached; clone_assess_s: the same from a copy of
   the package at another path, sharing the cache (a second checkout of the same version);
-  check_error_s: ``check`` of a site with a YAML syntax error (skipped with --no-cold:
-  cold_assess_s).
+  check_error_s: ``check`` of a site with a YAML syntax error; check_valid_s: ``check`` of
+  the valid example site (deploy/example-site.yaml) (skipped with --no-cold: cold_assess_s).
+  Each also as ``..._cpu_s``: the median CPU seconds (user + system) of the same processes,
+  the figure to compare on a loaded machine, where wall time mostly measures the queue.
 """
 
 from __future__ import annotations
@@ -333,12 +341,27 @@ README_EXAMPLE = json.dumps({
     "natural_wet_bulb": 22.8, "air_speed": 0.4, "work_class": "moderate", "clo": 0.6})
 
 
+_CHILD_CPU: list[float] = []
+
+
 def _wall(cmd: list[str], env: dict[str, str], stdin: str = "") -> float:
+    """Wall seconds of one run of ``cmd``; its CPU seconds (user + system) are appended to
+    ``_CHILD_CPU`` (on a loaded machine the wall time mostly measures the queue)."""
+    import resource
     import subprocess
 
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     t0 = time.perf_counter()
     subprocess.run(cmd, input=stdin, env=env, capture_output=True, text=True, timeout=900)
-    return time.perf_counter() - t0
+    wall = time.perf_counter() - t0
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    _CHILD_CPU.append(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime)
+    return wall
+
+
+def _cpu_median(runs: int) -> float:
+    """Median CPU seconds of the last ``runs`` runs of :func:`_wall`."""
+    return statistics.median(_CHILD_CPU[-runs:])
 
 
 def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
@@ -346,33 +369,104 @@ def bench_startup(quick: bool, cold: bool) -> dict[str, float]:
     import shutil
     import tempfile
 
-    repeats = 3 if quick else 5
+    repeats = 3
     root = pathlib.Path(__file__).resolve().parent.parent
     out: dict[str, float] = {}
     with tempfile.TemporaryDirectory(prefix="tw-bench-") as tmp:
         env = {**os.environ, "NUMBA_CACHE_DIR": str(pathlib.Path(tmp) / "numba"),
                "PYTHONPATH": str(root / "daemon")}
         assess = [sys.executable, "-m", "thermowarden.cli", "assess", "--format", "table"]
-        out["python_start_s"] = statistics.median(
-            _wall([sys.executable, "-c", "pass"], env) for _ in range(repeats))
+        report(out, "python_start_s", statistics.median(
+            _wall([sys.executable, "-c", "pass"], env) for _ in range(repeats)))
+        report(out, "python_start_cpu_s", _cpu_median(repeats))
         if cold:
-            out["cold_assess_s"] = _wall(assess, env, README_EXAMPLE)
+            report(out, "cold_assess_s", _wall(assess, env, README_EXAMPLE))
+            report(out, "cold_assess_cpu_s", _CHILD_CPU[-1])
         else:
             _wall(assess, env, README_EXAMPLE)  # fill the cache
-        out["warm_assess_s"] = statistics.median(
-            _wall(assess, env, README_EXAMPLE) for _ in range(repeats))
+        report(out, "warm_assess_s", statistics.median(
+            _wall(assess, env, README_EXAMPLE) for _ in range(repeats)))
+        report(out, "warm_assess_cpu_s", _cpu_median(repeats))
         clone = pathlib.Path(tmp) / "second-checkout" / "daemon"
         shutil.copytree(root / "daemon" / "thermowarden", clone / "thermowarden",
                         ignore=shutil.ignore_patterns("__pycache__"))
         clone_env = {**env, "PYTHONPATH": str(clone)}
-        out["clone_assess_s"] = statistics.median(
-            _wall(assess, clone_env, README_EXAMPLE) for _ in range(repeats))
+        report(out, "clone_assess_s", statistics.median(
+            _wall(assess, clone_env, README_EXAMPLE) for _ in range(repeats)))
+        report(out, "clone_assess_cpu_s", _cpu_median(repeats))
         bad = pathlib.Path(tmp) / "site.yaml"
         bad.write_text("site: {id: x\n  name: [\n", encoding="utf-8")
-        out["check_error_s"] = statistics.median(
+        report(out, "check_error_s", statistics.median(
             _wall([sys.executable, "-m", "thermowarden.cli", "check", str(bad)], env)
-            for _ in range(repeats))
+            for _ in range(repeats)))
+        report(out, "check_error_cpu_s", _cpu_median(repeats))
+        good = root / "deploy" / "example-site.yaml"
+        report(out, "check_valid_s", statistics.median(
+            _wall([sys.executable, "-m", "thermowarden.cli", "check", str(good)], env)
+            for _ in range(repeats)))
+        report(out, "check_valid_cpu_s", _cpu_median(repeats))
     return out
+
+
+_PRINTED: set[str] = set()
+
+
+def report(out: dict, name: str, value: object) -> None:  # type: ignore[type-arg]
+    """Record a figure in ``out`` and print it at once (flushed): a run cut short keeps it."""
+    if isinstance(value, float):
+        value = round(value, 3)
+    out[name] = value
+    _PRINTED.add(name)
+    print(f"{name:>34}: {value}", flush=True)
+
+
+# Each bench is a name and a function returning figures; they run in this order, and each
+# figure is printed (and flushed) the moment its bench returns, so a run cut short keeps
+# every figure measured before the cut. Planned CPU time of a full run on the 2-core
+# development machine, idle: start-up 25 s (+ the cold assess: 30-60 s), indices 10 s,
+# ingest 10 s, memory 10 s, rules 20 s, reload 30 s, trusted ingest 10 s, replay day 3 s,
+# replay site 72 h 60-80 s with its ingest baselines over 24 h, e2e 40 s.
+BENCHES = ("startup", "indices", "ingest", "memory", "rules", "reload", "trusted_ingest",
+           "replay_day", "replay_site", "e2e", "cluster")
+
+
+def _run_bench(name: str, args: argparse.Namespace) -> dict[str, float | str | None]:
+    quick = args.quick
+    if name == "startup":
+        return dict(bench_startup(quick, not args.no_cold))
+    if name == "indices":
+        return dict(bench_indices(quick))
+    if name == "ingest":
+        return dict(bench_ingest(quick))
+    if name == "memory":
+        return dict(bench_memory())
+    if name == "rules":
+        return dict(bench_rules(quick))
+    if name == "reload":
+        return dict(bench_reload(quick))
+    if name == "trusted_ingest":
+        return dict(bench_trusted_ingest(quick))
+    if name == "replay_day":
+        from replay_bench import bench_replay_day
+
+        return dict(bench_replay_day())
+    if name == "replay_site":
+        from replay_bench import bench_replay_site
+
+        return dict(bench_replay_site(quick, report))
+    if name == "e2e":
+        from e2e import bench_e2e
+
+        return dict(bench_e2e(quick))
+    if name == "cluster":
+        from cluster import bench_cluster
+
+        return dict(bench_cluster(quick))
+    raise ValueError(name)
+
+
+def _emit(line: str) -> None:
+    print(line, flush=True)
 
 
 def main() -> int:
@@ -383,45 +477,69 @@ def main() -> int:
     parser.add_argument("--no-cold", action="store_true",
                         help="skip cold_assess_s (compiling the kernels takes a minute)")
     parser.add_argument("--startup-only", action="store_true",
-                        help="only the start-up figures")
+                        help="only the start-up figures (the same as --only startup)")
     parser.add_argument("--cluster", action="store_true",
                         help="also the scale-out figures on a three-node nats-server cluster "
                              "(bench/cluster.py; 10-20 minutes)")
     parser.add_argument("--cluster-only", action="store_true",
-                        help="only the scale-out figures")
+                        help="only the scale-out figures (the same as --only cluster)")
+    parser.add_argument("--only", action="append", default=[], metavar="NAME",
+                        help="run only this bench (" + ", ".join(BENCHES) + "), or the bench "
+                             "that measures the figure NAME (e.g. warm_assess_s); repeatable")
     args = parser.parse_args()
-    figures: dict[str, float | str | None] = {}
-    if args.cluster_only:
-        from cluster import bench_cluster
-
-        print(json.dumps(bench_cluster(args.quick)))
-        return 0
-    figures.update(bench_startup(args.quick, not args.no_cold))
+    only = list(args.only)
     if args.startup_only:
-        print(json.dumps(figures))
-        return 0
-    figures.update(bench_indices(args.quick))
-    figures.update(bench_ingest(args.quick))
-    figures.update(bench_memory())
-    figures.update(bench_rules(args.quick))
-    figures.update(bench_reload(args.quick))
-    figures.update(bench_trusted_ingest(args.quick))
-    from replay_bench import bench_replay_day, bench_replay_site
-
-    figures.update(bench_replay_day())
-    figures.update(bench_replay_site(args.quick))
-    if not args.no_broker:
-        from e2e import bench_e2e
-
-        figures.update(bench_e2e(args.quick))
-    if args.cluster:
-        from cluster import bench_cluster
-
-        figures.update(bench_cluster(args.quick))
-    for k, v in figures.items():
-        print(f"{k:>28}: {v}", file=sys.stderr)
-    print(json.dumps(figures))
+        only.append("startup")
+    if args.cluster_only:
+        only.append("cluster")
+    chosen: list[str] = []
+    for name in only:
+        bench = name if name in BENCHES else FIGURE_BENCH.get(name)
+        if bench is None:
+            parser.error(f"--only {name}: no such bench or figure; benches: "
+                         + ", ".join(BENCHES) + "; figures: " + ", ".join(sorted(FIGURE_BENCH)))
+        if bench not in chosen:
+            chosen.append(bench)
+    if not chosen:
+        chosen = [b for b in BENCHES if (b != "e2e" or not args.no_broker)
+                  and (b != "cluster" or args.cluster)]
+    figures: dict[str, float | str | None] = {}
+    wall0 = time.perf_counter()
+    for bench in chosen:
+        b0, c0 = time.perf_counter(), time.process_time()
+        got = _run_bench(bench, args)
+        for k, v in got.items():
+            if k not in _PRINTED:
+                _emit(f"{k:>34}: {v}")
+        _emit(f"{'# ' + bench:>34}: {time.perf_counter() - b0:.1f} s wall, "
+              f"{time.process_time() - c0:.1f} s CPU in this process "
+              f"({time.perf_counter() - wall0:.0f} s so far; load {os.getloadavg()[0]:.1f})")
+        figures.update(got)
+    print(json.dumps(figures), flush=True)
     return 0
+
+
+# The figure names each bench reports, for --only FIGURE.
+FIGURE_BENCH: dict[str, str] = {
+    **{k: "startup" for k in ("python_start_s", "cold_assess_s", "warm_assess_s",
+                              "clone_assess_s", "check_error_s", "check_valid_s",
+                              "python_start_cpu_s", "cold_assess_cpu_s",
+                              "warm_assess_cpu_s", "clone_assess_cpu_s",
+                              "check_error_cpu_s", "check_valid_cpu_s")},
+    "indices_10k_ms": "indices", "indices_vs_loop_ratio": "indices",
+    "ingest_msgs_per_s": "ingest", "ingest_vs_json_ratio": "ingest",
+    "bytes_per_space": "memory",
+    "rules_10k_ms": "rules", "rules_10k_raise_ms": "rules",
+    "reload_10k_pause_ms": "reload", "reload_pause_vs_build_ratio": "reload",
+    "reload_prepare_vs_build_ratio": "reload",
+    "ingest_trusted_vs_plain_ratio": "trusted_ingest",
+    "replay_day_s": "replay_day",
+    **{k: "replay_site" for k in ("replay_space_days_per_s", "replay_msgs_per_s",
+                                  "replay_vs_ingest_ratio",
+                                  "replay_vs_ingest_in_runs_ratio")},
+    **{k: "e2e" for k in ("e2e_msgs_per_s", "e2e_vs_bare_paho_ratio", "e2e_311_msgs_per_s",
+                          "e2e_vs_bare_paho_311_ratio", "e2e_p99_latency_s")},
+}
 
 
 if __name__ == "__main__":

@@ -16,6 +16,7 @@ import warnings
 import numpy as np
 
 from thermowarden.core.columns import FloatArray
+from thermowarden.core.ptc_models import model
 from thermowarden.core.solve import IndexArray, illinois
 
 STILL_AIR = 0.1
@@ -65,7 +66,7 @@ def clothing_from_outdoor(outdoor_6am_c: FloatArray) -> FloatArray:
     ok = np.isfinite(t)
     out = np.full(t.shape, np.nan)
     if ok.any():
-        from pythermalcomfort.models import clo_tout as _ptc_clo_tout
+        _ptc_clo_tout = model("clo_tout")
 
         out[ok] = np.asarray(_ptc_clo_tout(tout=t[ok]).clo_tout, dtype=np.float64)
     return out
@@ -86,7 +87,7 @@ def pmv_fanger(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, rh: 
     ok = (np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(rel_speed) & np.isfinite(rh)
           & np.isfinite(met) & np.isfinite(clo))
     if ok.any():
-        from pythermalcomfort.models import pmv_ppd_iso as _ptc_pmv_ppd_iso
+        _ptc_pmv_ppd_iso = model("pmv_ppd_iso")
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
@@ -129,14 +130,15 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
 
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
     big = int(ok.sum()) >= PARALLEL_FROM
-    if for_cooling_effect:
-        kernel = k.set_for_ce_compiled if big else k.set_for_ce_compiled_serial
-    else:
-        kernel = k.set_compiled if big else k.set_compiled_serial
     ta = air_c[ok]
     vp = rh[ok] * _p_sat_torr(ta) / 100.0
     with np.errstate(all="ignore"):
-        out[ok] = kernel(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok])
+        if big:
+            kernel = k.kernel("set_for_ce_compiled" if for_cooling_effect else "set_compiled")
+            out[ok] = kernel(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok])
+        else:
+            out[ok] = k.set_serial(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok],
+                                   for_cooling_effect)
     return out
 
 

@@ -43,6 +43,7 @@ from typing import Any, Final
 import numpy as np
 
 from thermowarden.core.columns import FloatArray
+from thermowarden.core.ptc_models import model
 
 STEFAN_BOLTZMANN: Final = 5.670374419e-8
 """W/(m² K⁴), CODATA 2018."""
@@ -174,7 +175,7 @@ def mean_radiant_rise(altitude_deg: FloatArray, sharp: FloatArray, dni: FloatArr
     """(effective radiant field W/m², rise of mean radiant temperature K) on an occupant,
     ASHRAE 55 Appendix C through pythermalcomfort's ``solar_gain`` (module docstring).
     Zero where the sun is down or the direct irradiance is zero."""
-    from pythermalcomfort.models import solar_gain
+    solar_gain = model("solar_gain")
 
     alt = np.clip(np.asarray(altitude_deg, dtype=np.float64), 0.0, 90.0)
     n = alt.size

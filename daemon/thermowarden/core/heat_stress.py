@@ -15,6 +15,7 @@ from typing import Final
 import numpy as np
 
 from thermowarden.core.columns import BoolArray, FloatArray
+from thermowarden.core.ptc_models import model
 from thermowarden.core.solve import IndexArray, illinois
 
 BODY_SURFACE_AREA_M2: Final = 1.8
@@ -426,7 +427,7 @@ def predicted_heat_strain(air_c: FloatArray, mrt_c: FloatArray, air_speed: Float
         sel = np.flatnonzero(ok & (np.asarray(acclimatised) == accl_value))
         if sel.size == 0:
             continue
-        from pythermalcomfort.models import phs as _ptc_phs  # costly to import: only here
+        _ptc_phs = model("phs")  # costly to import: only here
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

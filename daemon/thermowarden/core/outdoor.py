@@ -7,6 +7,7 @@ import warnings
 import numpy as np
 
 from thermowarden.core.columns import FloatArray
+from thermowarden.core.ptc_models import model
 
 
 def heat_index(air_c: FloatArray, rh: FloatArray) -> FloatArray:
@@ -98,7 +99,7 @@ def utci(air_c: FloatArray, mrt_c: FloatArray, wind_10m: FloatArray, rh: FloatAr
     out = np.full(n, np.nan)
     ok = np.isfinite(air_c) & np.isfinite(mrt_c) & np.isfinite(wind_10m) & np.isfinite(rh)
     if ok.any():
-        from pythermalcomfort.models import utci as _ptc_utci  # costly to import: only here
+        _ptc_utci = model("utci")  # costly to import: only here
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")

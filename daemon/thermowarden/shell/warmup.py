@@ -69,6 +69,11 @@ def warm_up(say: Callable[[str], None] | None = None) -> float:
         clo=np.array([0.6, 0.6]), met=np.array([1.2, 2.5]), hot_work=np.array([False, True]),
         indoor=np.array([True, False]))
     compute_indices(s, with_phs=True)
+    if cold:  # the multi-core SET kernels too (built lazily, for batches of 512 or more)
+        from thermowarden.core import set_kernels
+
+        for name in ("set_compiled", "set_for_ce_compiled"):
+            set_kernels.kernel(name)
     took = time.monotonic() - t0
     if marker is not None and cold:
         try:
