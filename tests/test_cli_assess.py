@@ -258,3 +258,25 @@ def test_adaptive_upper_limits_rise_with_air_speed(speed, raised):
                            "clo": 0.5, "naturally_ventilated": True,
                            "outdoor_daily_means": means}).stdout)
     assert cool["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62, abs=0.01)
+
+
+def test_a_reader_that_goes_away_gets_no_traceback():
+    """``assess ... | head -1``: the command stops quietly when its reader is gone (here the
+    reading end is closed before anything is written, so every write meets a broken pipe)."""
+    import os
+    import subprocess
+    import sys
+
+    r, w = os.pipe()
+    os.close(r)
+    try:
+        proc = subprocess.run(
+            [sys.executable, "-m", "thermowarden.cli", "assess", "--format", "table"],
+            input=json.dumps({"air_temperature": 24, "relative_humidity": 50,
+                              "mean_radiant_temperature": 24, "air_speed": 0.1, "met": 1.1,
+                              "clo": 0.6}),
+            stdout=w, stderr=subprocess.PIPE, text=True, timeout=300)
+    finally:
+        os.close(w)
+    assert proc.returncode == 141
+    assert "Traceback" not in proc.stderr and "BrokenPipeError" not in proc.stderr

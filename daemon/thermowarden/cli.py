@@ -729,7 +729,14 @@ def cmd_web_user(args: argparse.Namespace) -> int:
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
-    code: int = args.func(args)
+    try:
+        code: int = args.func(args)
+    except BrokenPipeError:
+        # the reader went away (``| head``): stop quietly, as command-line tools do
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141  # 128 + SIGPIPE
     return code
 
 
