@@ -9,11 +9,12 @@ import yaml
 
 from tests.conftest import REPO
 from thermowarden.config import load_site
+from thermowarden.site_model import build_site_model
 
 
-def _blocks(section: str) -> list[str]:
+def _blocks(section: str, level: str = "##") -> list[str]:
     text = (REPO / "README.md").read_text(encoding="utf-8")
-    start = text.index(f"\n## {section}\n")
+    start = text.index(f"\n{level} {section}\n")
     end = text.index("\n## ", start + 1)
     return re.findall(r"```yaml\n(.*?)```", text[start:end], flags=re.S)
 
@@ -47,3 +48,16 @@ def test_clustered_broker_snippet(tmp_path):
     assert config.broker.fallback_urls == ["mqtt://10.0.0.12:1883", "mqtt://10.0.0.13:1883"]
     assert (config.broker.protocol, config.broker.subscribe_qos) == ("3.1.1", 0)
     assert config.output.rule_topic_separator == "/"
+
+
+def test_site_tree_snippet(tmp_path):
+    (block,) = _blocks("A site as a tree", "###")
+    config = _load(tmp_path, block)
+    by_id = {s.id: s for s in config.spaces}
+    assert (by_id["north-201"].building, by_id["north-201"].floor) == ("north", "f2")
+    assert config.parameters(by_id["north-201"]) == {"comfort_limit_c": 26}
+    assert config.people(by_id["south-101"]).met == 1.4
+    assert by_id["yard-dock"].area == "yard" and config.occupancy(by_id["yard-dock"]).always
+    topics = {p.topic for p in build_site_model(config).points}
+    assert {"ashgrove/north/f2/201/ta", "ashgrove/south/f1/101/ta",
+            "ashgrove/north/f2/desk-201/rh"} <= topics
