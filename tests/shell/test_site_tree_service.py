@@ -4,13 +4,22 @@ run against the real broker, and reloaded by SIGHUP with a floor added."""
 
 from __future__ import annotations
 
+import json
 import signal
 import textwrap
+import urllib.error
+import urllib.request
 import uuid
 
 import pytest
 
-from tests.shell.conftest import Collector, ServiceProcess, clear_retained, wait_for
+from tests.shell.conftest import (
+    Collector,
+    ServiceProcess,
+    clear_retained,
+    free_port,
+    wait_for,
+)
 from thermowarden.site_check import check_site
 
 pytestmark = pytest.mark.broker
@@ -32,7 +41,8 @@ rules:
 BUILDINGS = ("north", "south", "east")
 
 
-def site_text(prefix: str, port: int, site_id: str, third_floor: bool = False) -> str:
+def site_text(prefix: str, port: int, site_id: str, web_port: int,
+              third_floor: bool = False) -> str:
     buildings = []
     for b in BUILDINGS:
         floors = ["f1", "f2"] + (["f3"] if third_floor and b == "east" else [])
@@ -43,6 +53,8 @@ def site_text(prefix: str, port: int, site_id: str, third_floor: bool = False) -
                 lines.append("        parameters: {limit: 25}")  # passed down to its rooms
             lines.append("        spaces:")
             for room in ("01", "02"):
+                if third_floor and (b, f, room) == ("north", "f1", "02"):
+                    continue  # the reload removes this room
                 lines.append(f'          - {{id: {b}-{f}-{room}, topic_name: "{room}"}}')
         buildings.append("\n".join(lines))
     return textwrap.dedent(f"""\
@@ -50,12 +62,22 @@ def site_text(prefix: str, port: int, site_id: str, third_floor: bool = False) -
         broker: {{url: "mqtt://127.0.0.1:{port}", client_id: {site_id}}}
         output: {{prefix: {prefix}}}
         evaluation: {{tick_s: 1}}
+        web: {{enabled: true, port: {web_port}}}
         rule_dirs: [packs]
         defaults: {{occupancy: {{always: true}}, rule_packs: [limits]}}
         templates:
           - {{topic: "{prefix}-in/{{building}}/{{floor}}/{{space}}/ta", quantity: air_temperature}}
         buildings:
         """) + "\n".join(buildings) + "\n"
+
+
+def web_get(port: int, path: str) -> tuple[int, str]:
+    try:
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}{path}", timeout=10) as r:
+            return r.status, r.read().decode()
+    except urllib.error.HTTPError as exc:
+        with exc:
+            return exc.code, exc.read().decode()
 
 
 def raised(watcher: Collector, prefix: str) -> list[str]:
@@ -70,7 +92,8 @@ def test_tree_site_checked_run_and_reloaded(tmp_path, system_broker_port):
     (tmp_path / "packs").mkdir()
     (tmp_path / "packs" / "limits.yaml").write_text(PACK)
     site = tmp_path / "site.yaml"
-    site.write_text(site_text(prefix, port, site_id))
+    web_port = free_port()
+    site.write_text(site_text(prefix, port, site_id, web_port))
     report = check_site(str(site))
     assert report.ok, [str(i) for i in report.issues]
     assert report.model is not None and report.model.n_spaces == 12
@@ -96,11 +119,25 @@ def test_tree_site_checked_run_and_reloaded(tmp_path, system_broker_port):
                  15, "the unknown building counted")
 
         # a valid reload adds a third floor to the east building
-        site.write_text(site_text(prefix, port, site_id, third_floor=True))
+        assert web_get(web_port, "/spaces/north-f1-02")[0] == 200
+        assert web_get(web_port, "/spaces/east-f3-01")[0] == 404
+        site.write_text(site_text(prefix, port, site_id, web_port, third_floor=True))
         assert check_site(str(site)).ok
         svc.proc.send_signal(signal.SIGHUP)
-        wait_for(lambda: "reloaded: 14 space(s)" in svc.logtext(), 20, "the reload")
-        assert "reload: kept the windows of 12 of 14 space(s)" in svc.logtext()
+        wait_for(lambda: "reloaded: 13 space(s)" in svc.logtext(), 20, "the reload")
+        assert "reload: kept the windows of 11 of 13 space(s)" in svc.logtext()
+        # the page follows: the new floor's rooms have pages, the removed room has none
+        # and is in no list
+        assert web_get(web_port, "/spaces/east-f3-01")[0] == 200
+        assert web_get(web_port, "/spaces/north-f1-02")[0] == 404
+        status, body = web_get(web_port, "/?where=north/f1")
+        assert status == 200 and 'data-space="north-f1-01"' in body
+        assert "north-f1-02" not in body
+        status, body = web_get(web_port, "/")
+        assert 'data-where="east/f3"' in body and "north-f1-02" not in body
+        spaces = json.loads(web_get(web_port, "/api/spaces")[1])["spaces"]
+        assert len(spaces) == 13 and {"building": "east", "floor": "f3"}.items() <= next(
+            s for s in spaces if s["id"] == "east-f3-01").items()
         sensor.publish(f"{prefix}-in/north/f2/01/ta", "31.2")  # still hot: not raised again
         sensor.publish(f"{prefix}-in/east/f3/01/ta", "33")     # the new floor's room
         wait_for(lambda: "east-f3-01" in raised(watcher, prefix), 20, "the new room raised")

@@ -183,8 +183,10 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         service.group.attach(service)
     web = None
     if config.web.enabled:
-        view, web = build_web(config, config_path, packs, inbox, store.path, clock.now)
+        view, web, follow = build_web(config, config_path, packs, inbox, store.path,
+                                      clock.now)
         service.observers.append(view.observe)
+        service.reload_observers.append(follow)
         web.start()
     http = None
     if http_port is not None:

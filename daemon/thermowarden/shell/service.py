@@ -182,6 +182,8 @@ class Service:
         self.failures_seen: set[tuple[int, str]] = set()
         self.observers: list[Callable[[list[Effect]], None]] = []
         """Called with every batch of executed effects (the web page's live view)."""
+        self.reload_observers: list[Callable[[Engine], None]] = []
+        """Called with the new engine after every reload (the web page's site directory)."""
         self.group: Group | None = None
         """One instance of a group sharing the site's spaces (``run --group``)."""
 
@@ -666,6 +668,8 @@ class Service:
             self.engine = result.engine
             for note in result.notes:
                 log.info("%s", note)
+            for observer in self.reload_observers:
+                observer(result.engine)
             self.execute(result.effects)
             config = result.engine.config
             if self.group is not None:

@@ -7,6 +7,7 @@ import pathlib
 from collections.abc import Callable, Mapping
 
 from thermowarden.config import SiteConfig
+from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack
 from thermowarden.shell.mqtt_link import Inbox
 from thermowarden.shell.web.app import CommandBridge, WebContext, WebServer, create_app
@@ -27,8 +28,10 @@ def users_path(config: SiteConfig, config_path: str | os.PathLike[str]) -> pathl
 
 def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
               packs: Mapping[str, CompiledPack], inbox: Inbox, store_path: pathlib.Path,
-              now: Callable[[], float]) -> tuple[LiveView, WebServer]:
-    """The live view (for the engine thread to feed) and the server (not yet started).
+              now: Callable[[], float]
+              ) -> tuple[LiveView, WebServer, Callable[[Engine], None]]:
+    """The live view (for the engine thread to feed), the server (not yet started) and
+    what a reload calls with the new engine (the page then follows the new site).
     A bad users file raises :class:`thermowarden.config.ConfigError`."""
     path = users_path(config, config_path)
     sessions = Sessions(load_users(path), config.web.session_lifetime_s) if path else None
@@ -38,4 +41,9 @@ def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
     view = LiveView(config.output.prefix)
     ctx = WebContext(directory, view, StoreReader(store_path), sessions,
                      CommandBridge(inbox, f"{config.output.prefix}/commands/", now), now)
-    return view, WebServer(create_app(ctx), config.web.host, config.web.port)
+
+    def follow(engine: Engine) -> None:
+        ctx.follow(SiteDirectory.build(engine.config, {
+            rt.rule.key: float(rt.rule.config.max_shelve_s) for rt in engine.rules}))
+
+    return view, WebServer(create_app(ctx), config.web.host, config.web.port), follow

@@ -18,6 +18,7 @@ import math
 import threading
 import uuid
 import zoneinfo
+from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -99,6 +100,12 @@ class WebContext:
     @property
     def tz(self) -> dt.tzinfo:
         return zoneinfo.ZoneInfo(self.directory.timezone)
+
+    def follow(self, directory: SiteDirectory) -> None:
+        """A reload's site (called on the engine thread): the web thread's next request
+        reads the new directory, and the view forgets spaces that are gone."""
+        self.directory = directory
+        self.view.keep_only(set(directory.by_id))
 
 
 class BadRequest(ValueError):
@@ -231,9 +238,9 @@ def create_app(ctx: WebContext) -> Starlette:
 
     # ------------------------------------------------------------------ pages
     async def overview(request: Request) -> Response:
-        conditions = {s.id: ctx.view.conditions_of(s.id) for s in ctx.directory.spaces}
-        html = pages.overview(ctx.directory, conditions, ctx.view.live(),
-                              cookie_session(request), ctx.tz)
+        filters = pages.Filters.parse(request.query_params)
+        html = pages.overview(ctx.directory, ctx.view.conditions_of, ctx.view.live(),
+                              cookie_session(request), ctx.tz, filters)
         return HTMLResponse(html)
 
     async def space_page(request: Request) -> Response:
@@ -336,15 +343,16 @@ def create_app(ctx: WebContext) -> Starlette:
         return JSONResponse(doc)
 
     async def api_spaces(request: Request) -> Response:
-        live = ctx.view.live()
+        live = Counter(a["space"]["id"] for a in ctx.view.live())
         out = []
         for s in ctx.directory.spaces:
             c = ctx.view.conditions_of(s.id)
             out.append({"id": s.id, "name": s.name, "kind": s.kind, "hot_work": s.hot_work,
-                        "ventilation": s.ventilation,
+                        "ventilation": s.ventilation, "building": s.building,
+                        "floor": s.floor, "area": s.area,
                         "conditions_at": c["at"] if c else None,
                         "occupied": bool(c["occupied"]) if c else None,
-                        "live_advisories": sum(1 for a in live if a["space"]["id"] == s.id)})
+                        "live_advisories": live.get(s.id, 0)})
         return JSONResponse({"site": ctx.directory.site_id, "spaces": out})
 
     async def api_conditions(request: Request) -> Response:
