@@ -54,7 +54,10 @@ def site_text(port: int) -> str:
         output: {{prefix: tw/big}}
         rule_dirs: [packs]
         web: {{enabled: true, port: {port}}}
-        defaults: {{occupancy: {{always: true}}, rule_packs: [warm], people: {{met: 1.2, clo: 0.6}}}}
+        defaults:
+          occupancy: {{always: true}}
+          rule_packs: [warm]
+          people: {{met: 1.2, clo: 0.6}}
         templates:
           - {{topic: "big/{{building}}/{{floor}}/{{space}}/ta", quantity: air_temperature}}
         buildings:
@@ -222,6 +225,10 @@ def test_search_in_a_browser(browser, big):
     browser.set_window_size(390, 844)
     browser.get(big.base + "/")
     assert no_sideways_scroll(browser)
-    row = browser.find_element(By.CSS_SELECTOR, 'tr[data-where="b1/f1"]')
-    assert "Spaces" in row.text  # the cells carry their labels on a phone
+    # the table's head is folded away and each cell shows its label
+    labels = browser.execute_script(
+        "return [...document.querySelectorAll('tr[data-where=\"b1/f1\"] td')]"
+        ".map(td => getComputedStyle(td, '::before').content)")
+    assert labels[:2] == ['"Where"', '"Spaces"'], labels
+    assert not browser.find_element(By.CSS_SELECTOR, "table.rollup thead").is_displayed()
     browser.set_window_size(1200, 900)
