@@ -31,6 +31,7 @@ from typing import Any
 
 from apscheduler.triggers.cron import CronTrigger
 
+from thermowarden.config import SiteConfig
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.ingest import Rejection
@@ -186,6 +187,8 @@ class Service:
         """Called with the new engine after every reload (the web page's site directory)."""
         self.group: Group | None = None
         """One instance of a group sharing the site's spaces (``run --group``)."""
+        self.report_thread: threading.Thread | None = None
+        """The daily report being written (never on the engine thread)."""
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
@@ -621,7 +624,7 @@ class Service:
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
         elif name == "report":
-            self.daily_report(now)
+            self._report_off_thread(now)
 
     def request_reload(self) -> None:
         """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
@@ -687,27 +690,50 @@ class Service:
             self.reloading.clear()
             self.notify("READY=1")
 
-    def daily_report(self, now: float) -> pathlib.Path:
-        """Write yesterday's report (local calendar day) next to the store."""
+    def _report_off_thread(self, now: float) -> None:
+        """Start yesterday's report on a thread of its own: it reads the store through its
+        own connection, so the engine thread goes on ticking (a day of 10,000 spaces takes
+        tens of seconds)."""
+        running = self.report_thread
+        if running is not None and running.is_alive():
+            log.warning("the daily report is still being written; this one is skipped")
+            return
+        config, path = self.engine.config, self.store.path
+
+        def work() -> None:
+            try:
+                self.daily_report(now, config, path)
+            except Exception:  # noqa: BLE001 - a failed report must not stop the service
+                self.metrics.job_errors.labels(job="report", kind="error").inc()
+                log.exception("the daily report failed")
+
+        self.report_thread = threading.Thread(target=work, name="thermowarden-report",
+                                              daemon=True)
+        self.report_thread.start()
+
+    def daily_report(self, now: float, config: SiteConfig | None = None,
+                     store_path: pathlib.Path | None = None) -> pathlib.Path:
+        """Write yesterday's reports (local calendar day) next to the store: the site's,
+        and one per building or area; returns the site's. Reads the store through a
+        connection of its own (any thread)."""
         import datetime as dt
+        import zoneinfo
 
-        from thermowarden.report import build_report, render_html
+        from thermowarden.report import write_reports
 
-        tz = self.engine.state.tz
+        config = config or self.engine.config
+        store_path = store_path or self.store.path
+        tz = zoneinfo.ZoneInfo(config.site.timezone)
         today = dt.datetime.fromtimestamp(now, tz).date()
         day = today - dt.timedelta(days=1)
         start = dt.datetime.combine(day, dt.time(0), tz).timestamp()
         end = dt.datetime.combine(today, dt.time(0), tz).timestamp()
-        config = self.engine.config
-        text = render_html(config, build_report(
-            config, self.store.samples_between(start, end),
-            self.store.events_between(start - 7 * 86_400, end), start, end), start, end)
-        folder = self.store.path.parent / "reports"
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / f"{config.site.id}-{day.isoformat()}.html"
-        path.write_text(text, encoding="utf-8")
-        log.info("daily report written to %s", path)
-        return path
+        began = time.monotonic()
+        written = write_reports(config, store_path, store_path.parent / "reports", start, end,
+                                day.isoformat())
+        log.info("daily report written to %s (%d file(s), %.1f s)", written[0], len(written),
+                 time.monotonic() - began)
+        return written[0]
 
     def run(self) -> None:
         """The engine thread: runs until :meth:`request_stop`; then stops in order."""
