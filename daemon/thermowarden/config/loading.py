@@ -215,15 +215,27 @@ def _secrets_in_file(data: dict[str, Any], smap: SourceMap) -> list[ConfigIssue]
     audiences = delivery.get("audiences") if isinstance(delivery, dict) else None
     if not isinstance(audiences, dict):
         return issues
+    places: list[tuple[tuple[str, ...], Any]] = []
     for name, aud in audiences.items():
         if not isinstance(aud, dict):
             continue
+        places.append(((name,), aud))
+        if isinstance(aud.get("escalation"), dict):
+            places.append(((name, "escalation"), aud["escalation"]))
+        for b, rec in (aud.get("buildings") or {}).items() \
+                if isinstance(aud.get("buildings"), dict) else []:
+            if isinstance(rec, dict):
+                places.append(((name, "buildings", str(b)), rec))
+                if isinstance(rec.get("escalation"), dict):
+                    places.append(((name, "buildings", str(b), "escalation"),
+                                   rec["escalation"]))
+    for prefix, holder in places:
         for path in (("webhook", "secret"), ("email", "smtp", "password")):
-            node: Any = aud
+            node: Any = holder
             for part in path[:-1]:
                 node = node.get(part) if isinstance(node, dict) else None
             if isinstance(node, dict) and path[-1] in node:
-                where = ("delivery", "audiences", name) + path
+                where = ("delivery", "audiences") + prefix + path
                 env = ENV_PREFIX + "__".join(str(p).upper() for p in where)
                 issues.append(ConfigIssue(smap.find(where, key=True),
                                           f"{'.'.join(map(str, where))}: secrets do not belong "
@@ -286,8 +298,8 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
         raise ConfigError(issues) from None
     except TreeIssues as exc:
         for where, message in exc.issues:
-            issues.append(ConfigIssue(smap.find(where), f"{'.'.join(map(str, where))}: "
-                                                        f"{message}"))
+            issues.append(ConfigIssue(smap.find(where, key=True),
+                                      f"{'.'.join(map(str, where))}: {message}"))
         raise ConfigError(issues) from None
     issues.extend(_rule_pack_name_issues(config, smap, p))
     if issues:

@@ -48,3 +48,7 @@ class WebConfig(Strict):
     port: int = Field(9480, ge=1, le=65535)
     users_file: str | None = None
     session_lifetime_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    public_url: str | None = Field(None, pattern=r"^https?://[^/\s]+(/\S*)?$")
+    """The page's address as people reach it (behind a proxy: https://comfort.example.org);
+    messages by webhook and e-mail link to each advisory's page under it (default: this
+    host and port, when the page is enabled)."""

@@ -474,6 +474,14 @@ class SiteConfig(Strict):
                 if s not in seen:
                     issues.append((("templates", k, "spaces", j),
                                    f"template {t.topic!r} names unknown space {s!r}"))
+        places = ({b.id for b in self.buildings} | {a.id for a in self.areas}
+                  | {x for s in flat for x in (s.building, s.area) if x})
+        for audience, aud in self.delivery.audiences.items():
+            for b in aud.buildings:
+                if b not in places:
+                    issues.append((("delivery", "audiences", audience, "buildings", b),
+                                   f"no building or area {b!r} in the site"
+                                   f"{_closest(b, dict.fromkeys(places))}"))
         if not issues:
             issues.extend(self._template_issues(flat, origins))
         if issues:

@@ -8,6 +8,14 @@ audience and channel; retries with exponential backoff and jitter; holds events 
 urgent ones during the audience's quiet hours and sends them as one digest when they end;
 collects low-priority events into a digest every ``low_priority_digest_s``.
 
+Around the worker: an audience may have recipients per building (or area), which receive
+the events of the spaces there besides the audience's own (a flood summary is split by
+building for them); every message links to the advisory's page when the site has one
+(``page`` in the webhook JSON, a line in the e-mail); and an urgent alert that nobody
+acknowledges, shelves or clears within ``escalation.after_s`` goes to the escalation
+recipients as an ``unacknowledged`` event (:class:`Escalations`: its own thread and table
+``escalations``, so a restart keeps the timers).
+
 Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`` (epoch
 seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
 over ``<timestamp>.<body>``, RFC 2104) and ``X-Thermowarden-Delivery`` (the same id on every
@@ -34,6 +42,7 @@ import ssl
 import threading
 import time
 import urllib.error
+import urllib.parse
 import urllib.request
 import uuid
 from collections.abc import Callable
@@ -47,6 +56,7 @@ from thermowarden.config.delivery import (
     AudienceDelivery,
     DeliveryConfig,
     EmailConfig,
+    EscalationConfig,
     WebhookConfig,
 )
 from thermowarden.core.quiet_hours import QuietHours
@@ -68,7 +78,19 @@ CREATE TABLE IF NOT EXISTS deliveries (
     error TEXT
 );
 CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
+CREATE TABLE IF NOT EXISTS escalations (
+    advisory_id TEXT PRIMARY KEY,
+    route TEXT NOT NULL,          -- where it goes when due: <audience>!escalation[@building]
+    since REAL NOT NULL,          -- when the urgent alert was seen (service clock)
+    due REAL NOT NULL,
+    state TEXT NOT NULL,          -- waiting, sent
+    payload TEXT NOT NULL
+);
 """
+ESCALATE_ON = frozenset({"raised", "escalated", "renotified"})
+"""Events of an urgent advisory that start its escalation timer (once)."""
+RESOLVED_BY = frozenset({"acknowledged", "shelved", "cleared", "deescalated"})
+"""Events that stop it: somebody took it on, or it is no longer urgent."""
 EVENT_SCHEMA = "thermowarden.event/1"
 SIGNATURE_HEADER = "X-Thermowarden-Signature"
 TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
@@ -150,27 +172,66 @@ def _quantity_text(value: Any, unit: Any) -> str:
     return f"{value}{unit}"
 
 
+GROUP_SHOWN = 5
+"""Spaces named per group of a summary e-mail (the rest are counted)."""
+
+
+def _summary_lines(items: list[dict[str, Any]]) -> list[str]:
+    """A summary's items grouped by rule and building: one block per group, most urgent
+    first, with its spaces and the links to their pages (the first few)."""
+    order = {"urgent": 0, "high": 1, "medium": 2, "low": 3}
+    groups: dict[tuple[str, str], list[dict[str, Any]]] = {}
+    for it in items:
+        groups.setdefault((str(it.get("rule", "")), str(it.get("place") or "")), []).append(it)
+    lines = []
+    for (rule, place), members in sorted(
+            groups.items(), key=lambda kv: (min(order.get(str(i.get("priority")), 4)
+                                                for i in kv[1]), kv[0])):
+        top = min(members, key=lambda i: order.get(str(i.get("priority")), 4))
+        spaces = sorted({str(i.get("space", "")) for i in members})
+        where = f" in {place}" if place else ""
+        lines.append(f"{top.get('priority', '')} {rule}{where}: {len(members)} "
+                     f"notification(s), {len(spaces)} space(s)")
+        lines.append(f"  {top.get('title', '')}")
+        for it in members[:GROUP_SHOWN]:
+            link = f" {it['page']}" if it.get("page") else ""
+            lines.append(f"  - {it.get('at', '')} {it.get('event', '')} {it.get('space', '')}"
+                         f"{link}")
+        if len(members) > GROUP_SHOWN:
+            more = sorted({str(i.get("space", "")) for i in members[GROUP_SHOWN:]})
+            shown = ", ".join(more[:20]) + (" ..." if len(more) > 20 else "")
+            lines.append(f"  - and {len(members) - GROUP_SHOWN} more: {shown}")
+        lines.append("")
+    return lines
+
+
 def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     """(subject, body) of an event or digest for a person."""
     if payload.get("event") == "summary":
         items = payload.get("items", [])
+        scope = f" in {payload['place']}" if payload.get("place") else ""
         subject = f"{payload.get('count', len(items))} notification(s) for " \
-                  f"{payload.get('audience', '')}"
-        lines = [payload.get("note", ""), ""]
-        for it in items:
-            lines.append(f"- {it.get('at', '')} {it.get('priority', '')} {it.get('event', '')}: "
-                         f"{it.get('title', '')} ({it.get('space', '')}, "
-                         f"{it.get('advisory_id', '')})")
+                  f"{payload.get('audience', '')}{scope}"
+        lines = [payload.get("note", ""), ""] + _summary_lines(items)
+        if payload.get("page"):
+            lines.append(f"Live advisories: {payload['page']}")
         lines += ["", "thermowarden is advisory only."]
         return subject, "\n".join(lines)
     adv = payload.get("advisory", {})
     space = adv.get("space", {})
     subject = f"{adv.get('priority', '')} {payload.get('event', '')}: {adv.get('title', '')}"
     event = payload.get("event", "")
+    place = f", {payload['place']}" if payload.get("place") else ""
     lines = [f"{adv.get('title', '')}", "",
-             f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')})",
+             f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')}{place})",
              f"Event: {event} at {payload.get('at', '')}",
              f"Priority: {adv.get('priority', '')}", ""]
+    if payload.get("page"):
+        lines[1:1] = [f"Page: {payload['page']}", ""]
+    if event == "unacknowledged":
+        lines += [f"Nobody has acknowledged this urgent alert since {adv.get('raised_at', '')}"
+                  f" ({payload.get('waited_s', 0) / 60:.0f} minutes). You receive it as the "
+                  "next person to act on it.", ""]
     numbers = adv.get("numbers") or {}
     shown_at = adv.get("numbers_at")
     if event == "cleared":
@@ -302,19 +363,30 @@ class Delivery:
                                "Deliveries stored and not yet sent (held or pending)",
                                registry=r)
         self.blocked_until: dict[tuple[str, str], float] = {}
+        self.places: dict[str, tuple[str | None, str]] = {}
+        self.page_url: str | None = None
+        self.escalations = Escalations(self)
 
     def _configure(self, config: DeliveryConfig, timezone: str) -> None:
+        routes = delivery_routes(config)
         with self.lock:
             self.config = config
+            self.routes = routes
             self.quiet: dict[str, QuietHours] = {
                 a: QuietHours.parse(d.quiet_hours, timezone)
-                for a, d in config.audiences.items() if d.quiet_hours}
+                for a, d in routes.items() if d.quiet_hours}
 
     def _audience(self, name: str) -> AudienceDelivery | None:
-        for key, aud in self.config.audiences.items():
-            if key == name:
-                return aud
-        return None
+        """The recipients of a route: an audience, ``audience@building``, or an escalation
+        (``audience!escalation``, ``audience@building!escalation``)."""
+        return self.routes.get(name)
+
+    def set_site(self, places: dict[str, tuple[str | None, str]],
+                 page_url: str | None) -> None:
+        """Space id -> (building or area id, "North Building · First floor"), and the web
+        page's address for links (None: no links). Called at start and after a reload."""
+        self.places = places
+        self.page_url = page_url.rstrip("/") if page_url else None
 
     def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
         """Take a reloaded configuration; stored deliveries stay and follow the new one."""
@@ -323,29 +395,105 @@ class Delivery:
 
     # ------------------------------------------------------------------ engine thread
     def offer(self, audience: str, payload: dict[str, Any]) -> bool:
-        """Hand an event over (engine thread; never blocks). False when not wanted or when
-        the queue is full (counted and logged)."""
-        aud = self._audience(audience)
-        if aud is None or payload.get("event") not in aud.events:
+        """Hand an event over (engine thread; never blocks): to the audience's recipients
+        and to those of the space's building; urgent alerts also start (and later events
+        stop) their escalation timer. False when nobody wants it or when the queue is full
+        (counted and logged)."""
+        if audience not in self.config.audiences:
             return False
+        payload = self._enrich(payload)
+        self.escalations.observe(audience, payload, self.places)
+        taken = False
+        for route, part in self._split(audience, payload):
+            aud = self._audience(route)
+            if aud is not None and part.get("event") in aud.events:
+                taken = self._put(route, part) or taken
+        return taken
+
+    def _put(self, route: str, payload: dict[str, Any]) -> bool:
         try:
-            self.queue.put_nowait((audience, payload))
+            self.queue.put_nowait((route, payload))
         except queue.Full:
             self.m_overflow.inc()
             log.error("delivery queue full: an event for %s was not queued for delivery "
-                      "(it was still published over MQTT)", audience)
+                      "(it was still published over MQTT)", route)
             return False
         self.wake.set()
         return True
+
+    def _page(self, advisory_id: str | None) -> str | None:
+        if not self.page_url or not advisory_id:
+            return None
+        return f"{self.page_url}/advisories/{urllib.parse.quote(advisory_id, safe='')}"
+
+    def _enrich(self, payload: dict[str, Any]) -> dict[str, Any]:
+        """A copy with the link to the advisory's page (and its place, for people); the
+        MQTT event is left as it is."""
+        if not self.page_url and not self.places:
+            return payload
+        out = dict(payload)
+        if payload.get("event") == "summary":
+            items = []
+            for it in payload.get("items", []):
+                it = dict(it)
+                place = self.places.get(str(it.get("space")))
+                if place is not None:
+                    it["place"] = place[1]
+                page = self._page(it.get("advisory_id"))
+                if page:
+                    it["page"] = page
+                items.append(it)
+            out["items"] = items
+            if self.page_url:
+                out["page"] = self.page_url + "/"
+            return out
+        adv = payload.get("advisory")
+        if isinstance(adv, dict):
+            page = self._page(adv.get("id"))
+            if page:
+                out["page"] = page
+            place = self.places.get(str((adv.get("space") or {}).get("id")))
+            if place is not None and place[1]:
+                out["place"] = place[1]
+        return out
+
+    def _split(self, audience: str, payload: dict[str, Any]
+               ) -> list[tuple[str, dict[str, Any]]]:
+        """(route, payload) for the audience and the buildings concerned; a summary goes
+        whole to the audience and by building to each building's recipients."""
+        out: list[tuple[str, dict[str, Any]]] = [(audience, payload)]
+        if payload.get("event") == "summary":
+            parts: dict[str, list[dict[str, Any]]] = {}
+            for it in payload.get("items", []):
+                b = self.places.get(str(it.get("space")), (None, ""))[0]
+                if b is not None and f"{audience}@{b}" in self.routes:
+                    parts.setdefault(b, []).append(it)
+            for b, items in parts.items():
+                out.append((f"{audience}@{b}", {
+                    **payload, "items": items, "count": len(items),
+                    "place": self.places_label(b)}))
+            return out
+        adv = payload.get("advisory")
+        if isinstance(adv, dict):
+            b = self.places.get(str((adv.get("space") or {}).get("id")), (None, ""))[0]
+            if b is not None and f"{audience}@{b}" in self.routes:
+                out.append((f"{audience}@{b}", payload))
+        return out
+
+    def places_label(self, building: str) -> str:
+        label = next((p[1] for p in self.places.values() if p[0] == building), building)
+        return label.split(" · ")[0]
 
     # ------------------------------------------------------------------ worker
     def start(self) -> None:
         self.thread = threading.Thread(target=self._run, name="thermowarden-delivery",
                                        daemon=True)
         self.thread.start()
+        self.escalations.start()
 
     def stop(self, timeout: float = 10.0) -> None:
         """Store whatever is queued and stop; what is not sent stays for the next start."""
+        self.escalations.stop(timeout)
         self.stopping.set()
         self.wake.set()
         if self.thread is not None:
@@ -537,3 +685,137 @@ def _digest(audience: str, payloads: list[dict[str, Any]], now: float) -> dict[s
             "count": len(items), "items": items,
             "note": f"{len(items)} notification(s) held for quiet hours or the low-priority "
                     "digest, sent together"}
+
+
+def delivery_routes(config: DeliveryConfig) -> dict[str, AudienceDelivery]:
+    """Every set of recipients by route name: ``safety`` (the audience's own, when it has
+    any), ``safety@north`` (a building's: the audience's events, quiet hours and digest),
+    ``safety!escalation`` and ``safety@north!escalation`` (unacknowledged urgent alerts:
+    sent at once)."""
+    routes: dict[str, AudienceDelivery] = {}
+
+    def escalation(esc: EscalationConfig) -> AudienceDelivery:
+        return AudienceDelivery(webhook=esc.webhook, email=esc.email,
+                                events=["unacknowledged"], low_priority_digest_s=0)
+
+    for name, aud in config.audiences.items():
+        if aud.webhook is not None or aud.email is not None:
+            routes[name] = aud
+        if aud.escalation is not None:
+            routes[f"{name}!escalation"] = escalation(aud.escalation)
+        for b, rec in aud.buildings.items():
+            routes[f"{name}@{b}"] = AudienceDelivery(
+                webhook=rec.webhook, email=rec.email, events=aud.events,
+                quiet_hours=aud.quiet_hours, low_priority_digest_s=aud.low_priority_digest_s)
+            if rec.escalation is not None:
+                routes[f"{name}@{b}!escalation"] = escalation(rec.escalation)
+    return routes
+
+
+class Escalations:
+    """Timers of urgent alerts nobody has acknowledged yet, kept in the store (table
+    ``escalations``) by a thread of their own. The engine thread only enqueues events;
+    a due timer hands an ``unacknowledged`` event to the delivery's queue for the
+    escalation recipients (of the space's building, else of the audience)."""
+
+    def __init__(self, delivery: Delivery) -> None:
+        self.delivery = delivery
+        self.inbox: queue.Queue[tuple[str, dict[str, Any], str | None]] = queue.Queue(10_000)
+        self.wake = threading.Event()
+        self.stopping = threading.Event()
+        self.thread: threading.Thread | None = None
+
+    def observe(self, audience: str, payload: dict[str, Any],
+                places: dict[str, tuple[str | None, str]]) -> None:
+        """An event offered for delivery (engine thread; never blocks)."""
+        event = payload.get("event")
+        adv = payload.get("advisory")
+        if event not in ESCALATE_ON | RESOLVED_BY or not isinstance(adv, dict):
+            return
+        if event in ESCALATE_ON and adv.get("priority") != "urgent":
+            return
+        building = places.get(str((adv.get("space") or {}).get("id")), (None, ""))[0]
+        try:
+            self.inbox.put_nowait((audience, payload, building))
+        except queue.Full:
+            log.error("escalation queue full: advisory %s is not watched for an "
+                      "acknowledgement", adv.get("id"))
+        self.wake.set()
+
+    def start(self) -> None:
+        self.thread = threading.Thread(target=self._run, name="thermowarden-escalation",
+                                       daemon=True)
+        self.thread.start()
+
+    def stop(self, timeout: float = 10.0) -> None:
+        self.stopping.set()
+        self.wake.set()
+        if self.thread is not None:
+            self.thread.join(timeout)
+
+    def _route(self, audience: str, building: str | None) -> tuple[str, float] | None:
+        """The escalation route of an alert and its delay, or None when there is none."""
+        aud = self.delivery.config.audiences.get(audience)  # type: ignore[call-overload]
+        if aud is None:
+            return None
+        rec = aud.buildings.get(building) if building is not None else None
+        if rec is not None and rec.escalation is not None:
+            return f"{audience}@{building}!escalation", rec.escalation.after_s
+        if aud.escalation is not None:
+            return f"{audience}!escalation", aud.escalation.after_s
+        return None
+
+    def _run(self) -> None:
+        db = self.delivery._connect()
+        try:
+            while not self.stopping.is_set():
+                self._take(db)
+                wait = self._fire(db)
+                self.wake.wait(wait)
+                self.wake.clear()
+            self._take(db)
+        except Exception:  # noqa: BLE001 - must not take the service down
+            log.exception("escalation watcher failed; its timers wait for the next start")
+        finally:
+            db.close()
+
+    def _take(self, db: sqlite3.Connection) -> None:
+        now = self.delivery.now()
+        while True:
+            try:
+                audience, payload, building = self.inbox.get_nowait()
+            except queue.Empty:
+                return
+            adv = payload["advisory"]
+            if payload.get("event") in RESOLVED_BY:
+                db.execute("DELETE FROM escalations WHERE advisory_id = ?", (adv["id"],))
+                continue
+            route = self._route(audience, building)
+            if route is None:
+                continue
+            db.execute("INSERT OR IGNORE INTO escalations(advisory_id, route, since, due, "
+                       "state, payload) VALUES(?, ?, ?, ?, 'waiting', ?)",
+                       (adv["id"], route[0], now, now + route[1], json.dumps(payload)))
+
+    def _fire(self, db: sqlite3.Connection) -> float:
+        """Send the due ones; how long to wait for the next."""
+        now = self.delivery.now()
+        rows = db.execute("SELECT advisory_id, route, since, payload FROM escalations WHERE "
+                          "state = 'waiting' AND due <= ? ORDER BY due", (now,)).fetchall()
+        for advisory_id, route, since, text in rows:
+            first = json.loads(text)
+            adv = first["advisory"]
+            waited = now - since
+            payload = {**first, "event": "unacknowledged", "at": _iso(now),
+                       "waited_s": round(waited)}
+            if self.delivery._put(route, payload):
+                db.execute("UPDATE escalations SET state = 'sent' WHERE advisory_id = ?",
+                           (advisory_id,))
+                log.warning("urgent advisory %s not acknowledged after %.0f s: sent to %s",
+                            adv.get("id"), waited, route)
+        nxt = db.execute("SELECT MIN(due) FROM escalations WHERE state = 'waiting'"
+                         ).fetchone()[0]
+        if nxt is None:
+            return IDLE_WAIT_S
+        return max(0.0, min(IDLE_WAIT_S, float(nxt) - now))
+
