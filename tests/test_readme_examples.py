@@ -35,11 +35,18 @@ def test_point_trust_snippet(tmp_path):
 
 def test_delivery_snippet(tmp_path):
     (block,) = _blocks("Reaching people: webhook and e-mail")
-    config = _load(tmp_path, block)
+    # its recipients per building name a building of the site (the tree snippet's)
+    (tree,) = _blocks("A site as a tree", "###")
+    config = _load(tmp_path, block + tree)
     safety = config.delivery.audiences["safety"]
     assert safety.webhook is not None and safety.email is not None
     assert safety.quiet_hours == "21:00-06:30"
     assert safety.email.to == ["safety-lead@example.org", "site-supervisor@example.org"]
+    north = safety.buildings["north"]
+    assert north.email is not None and north.email.to == ["north-duty@example.org"]
+    assert safety.escalation is not None and safety.escalation.after_s == 600
+    assert safety.escalation.email is not None
+    assert safety.escalation.email.to == ["site-manager@example.org"]
 
 
 def test_clustered_broker_snippet(tmp_path):
