@@ -713,9 +713,12 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("web-user", help="print a users-file entry for the web page "
                        "(asks for the password, or reads it from stdin)")
     p.add_argument("name")
-    p.add_argument("--audience", action="append", required=True,
+    p.add_argument("--audience", action="append",
                    choices=["facilities", "safety", "integrator"],
-                   help="an audience whose advisories this person may act on (repeat)")
+                   help="an audience whose advisories this person may act on (repeat; "
+                   "none: reads only)")
+    p.add_argument("--building", action="append", metavar="ID",
+                   help="a building or area this person may act in (repeat; default: all)")
     p.set_defaults(func=cmd_web_user)
     return parser
 
@@ -735,10 +738,13 @@ def cmd_web_user(args: argparse.Namespace) -> int:
     if len(password) < 8:
         print("use a password of at least 8 characters", file=sys.stderr)
         return 2
-    entry = UserEntry(name=args.name, audiences=sorted(set(args.audience)),
+    entry = UserEntry(name=args.name, audiences=sorted(set(args.audience or [])),
+                      buildings=sorted(set(args.building)) if args.building else None,
                       password_hash=hash_password(password))
+    buildings = (f"\n    buildings: [{', '.join(entry.buildings)}]"
+                 if entry.buildings is not None else "")
     print(f"  - name: {json.dumps(entry.name)}\n    audiences: [{', '.join(entry.audiences)}]"
-          f"\n    password_hash: \"{entry.password_hash}\"")
+          f"{buildings}\n    password_hash: \"{entry.password_hash}\"")
     return 0
 
 

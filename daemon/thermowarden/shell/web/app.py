@@ -96,6 +96,7 @@ class WebContext:
     sessions: Sessions | None
     bridge: CommandBridge
     now: Callable[[], float]
+    read_needs_sign_in: bool = False
 
     @property
     def tz(self) -> dt.tzinfo:
@@ -227,6 +228,11 @@ def create_app(ctx: WebContext) -> Starlette:
         if advisory["audience"] not in session.user.audiences:
             return 403, {"error": f"{session.user.name} may not act on advisories for "
                                   f"{advisory['audience']}"}
+        space = ctx.directory.space(advisory["space"]["id"])
+        place = (space.building or space.area) if space is not None else None
+        if not session.user.may_act(advisory["audience"], place):
+            return 403, {"error": f"{session.user.name} may not act on advisories of "
+                                  f"{place or 'spaces outside their buildings'}"}
         body = command_body(verb, advisory, session.user.name, fields)
         reply = ctx.bridge.submit(verb, body, advisory["audience"], session.user.name)
         if reply is None:
@@ -474,20 +480,41 @@ def create_app(ctx: WebContext) -> Starlette:
             return result
         return handler
 
+    def reader(handler: Callable[[Request], Any], api: bool) -> Callable[[Request], Any]:
+        """A read that needs a signed-in user when ``web.sign_in_to_read`` is set: a page
+        sends to the sign-in form, an API call answers 401."""
+        if not ctx.read_needs_sign_in:
+            return handler
+
+        async def gated(request: Request) -> Response:
+            who = cookie_session(request) or bearer_session(request)
+            if who is None:
+                if api:
+                    return _error(401, "sign in first (POST /api/session) and send "
+                                       "'Authorization: Bearer <token>'",
+                                  {"WWW-Authenticate": "Bearer"})
+                here = request.url.path + (f"?{request.url.query}" if request.url.query
+                                           else "")
+                return RedirectResponse(f"/login?next={quote(here, safe='')}",
+                                        status_code=303)
+            result: Response = await handler(request)
+            return result
+        return gated
+
     routes = [
-        Route("/", overview),
-        Route("/spaces/{space_id}", space_page),
-        Route("/advisories/{advisory_id}", advisory_page),
+        Route("/", reader(overview, False)),
+        Route("/spaces/{space_id}", reader(space_page, False)),
+        Route("/advisories/{advisory_id}", reader(advisory_page, False)),
         Route("/login", by_method(GET=login_get, POST=login_post), methods=["GET", "POST"]),
         Route("/logout", logout, methods=["POST"]),
         Route("/advisories/{advisory_id}/{verb}", page_command, methods=["POST"]),
         Route("/api/openapi.json", api_openapi),
-        Route("/api/spaces", api_spaces),
-        Route("/api/spaces/{space_id}/conditions", api_conditions),
-        Route("/api/spaces/{space_id}/history", api_history),
-        Route("/api/advisories", api_advisories),
-        Route("/api/advisories/{advisory_id}", api_advisory),
-        Route("/api/events", api_events),
+        Route("/api/spaces", reader(api_spaces, True)),
+        Route("/api/spaces/{space_id}/conditions", reader(api_conditions, True)),
+        Route("/api/spaces/{space_id}/history", reader(api_history, True)),
+        Route("/api/advisories", reader(api_advisories, True)),
+        Route("/api/advisories/{advisory_id}", reader(api_advisory, True)),
+        Route("/api/events", reader(api_events, True)),
         Route("/api/session", by_method(POST=api_session_post, DELETE=api_session_delete),
               methods=["POST", "DELETE"]),
     ] + [Route(f"/api/advisories/{{advisory_id}}/{verb}", api_command(verb), methods=["POST"])

@@ -606,7 +606,9 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         parts.append('<h2>Cautions</h2><ul class="cautions">'
                      + "".join(f"<li>{h(c)}</li>" for c in a["cautions"]) + "</ul>")
     if live:
-        parts.append(_actions(a, session, max_shelve_s))
+        info = directory.space(a["space"]["id"])
+        place = (info.building or info.area) if info is not None else None
+        parts.append(_actions(a, session, max_shelve_s, place))
     hist = "".join(
         f'<tr><td>{local(e.get("at"), tz, "%d %b %H:%M")}</td><td>{h(e.get("event"))}</td>'
         f'<td>{h(e.get("by", ""))}</td><td>'
@@ -666,13 +668,18 @@ def _threshold(v: dict[str, Any]) -> str:
     return fmt_value({"value": v["threshold"], "unit": v.get("unit", "")})
 
 
-def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None) -> str:
+def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None,
+             place: str | None = None) -> str:
     if session is None:
         return ('<h2>Act on it</h2><p><a href="/login?next=/advisories/'
                 f'{quote(a["id"], safe="")}">Sign in</a> to acknowledge or shelve.</p>')
     if a["audience"] not in session.user.audiences:
         return (f'<h2>Act on it</h2><p class="muted">Only people of the {h(a["audience"])} '
                 "audience may acknowledge or shelve this advisory.</p>")
+    if not session.user.may_act(a["audience"], place):
+        return ('<h2>Act on it</h2><p class="muted">Only people of the '
+                f'{h(a["audience"])} audience for {h(place or "this space")} may acknowledge '
+                "or shelve this advisory.</p>")
     base = f'/advisories/{quote(a["id"], safe="")}'
     csrf = f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
     out = ["<h2>Act on it</h2>"]
