@@ -68,3 +68,11 @@ def test_site_tree_snippet(tmp_path):
     topics = {p.topic for p in build_site_model(config).points}
     assert {"ashgrove/north/f2/201/ta", "ashgrove/south/f1/101/ta",
             "ashgrove/north/f2/desk-201/rh"} <= topics
+
+
+def test_web_snippet(tmp_path):
+    (block,) = _blocks("The web page and HTTP API")
+    config = _load(tmp_path, block)
+    assert config.web.enabled and config.web.users_file == "web-users.yaml"
+    assert not config.web.sign_in_to_read
+    assert config.web.public_url == "https://comfort.example.org"
