@@ -504,18 +504,20 @@ def points_table(c: dict[str, Any] | None) -> str:
                 '<span class="muted">no reading</span>'
             tags = " ".join(f"{k} {p[k]}" for k in ("side", "height", "sensor") if p.get(k))
             rows.append(
-                f'<tr><td>{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
+                f'<tr><td data-label="Point">'
+                f'{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
                 f'{f" <small class=muted>({h(tags)})</small>" if tags else ""}</td>'
-                f'<td class="num">{fmt_value(p)}</td><td>{status}</td>'
-                f'<td>{h(age_text(p.get("age_s")))}</td></tr>')
-        return ('<div class="scroll"><table><thead><tr><th>Point</th><th>Last value</th>'
-                '<th>Freshness</th><th>Received</th></tr></thead><tbody>' + "".join(rows)
-                + "</tbody></table></div>")
-    rows = [f'<tr><td>{h(QUANTITY_LABELS.get(q, q))}</td><td class="num">'
-            f'{fmt_value(v) if "value" in v else "–"}</td><td>'
-            f'{FRESH if v.get("fresh") else STALE}'
+                f'<td class="num" data-label="Last value">{fmt_value(p)}</td>'
+                f'<td data-label="Freshness">{status}</td>'
+                f'<td data-label="Received">{h(age_text(p.get("age_s")))}</td></tr>')
+        return ('<div class="scroll"><table class="fit"><thead><tr><th>Point</th>'
+                '<th>Last value</th><th>Freshness</th><th>Received</th></tr></thead><tbody>'
+                + "".join(rows) + "</tbody></table></div>")
+    rows = [f'<tr><td data-label="Input">{h(QUANTITY_LABELS.get(q, q))}</td>'
+            f'<td class="num" data-label="Value">{fmt_value(v) if "value" in v else "–"}</td>'
+            f'<td data-label="Freshness">{FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
-    return ('<div class="scroll"><table><thead><tr><th>Input</th><th>Value</th>'
+    return ('<div class="scroll"><table class="fit"><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
 
 
@@ -523,7 +525,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                live: list[dict[str, Any]], recent: list[dict[str, Any]],
                samples: list[dict[str, Any]], start: float, end: float,
                session: Session | None, tz: dt.tzinfo) -> str:
-    tags = [space.kind] + (["hot work"] if space.hot_work else []) + (
+    tags = ([space.group] if space.group else []) + [space.kind] + (
+        ["hot work"] if space.hot_work else []) + (
         ["natural ventilation"] if space.ventilation == "natural" else [])
     parts = [f'<h2>{h(space.name)}</h2><p class="note">{h(" · ".join(tags))}'
              + (f' · as of {local(c["at"], tz, "%d %b %H:%M")} · '
