@@ -1,10 +1,13 @@
 """The daily report of a site of buildings and floors is written from the store on a thread
 of its own while the engine thread goes on ticking at its interval (the service runs against
-the real broker; the report job is queued as the calendar queues it)."""
+the real broker; the report job is queued as the calendar queues it), and is sent by e-mail
+to the audience and, its building's part, to the building's recipients (local SMTP)."""
 
 from __future__ import annotations
 
 import datetime as dt
+import email
+import email.policy
 import threading
 import time
 import uuid
@@ -13,6 +16,7 @@ import numpy as np
 import pytest
 
 from tests.shell.conftest import SLOW, clear_retained, wait_for
+from tests.shell.delivery_parts import SmtpSink
 from thermowarden.shell.bootstrap import bootstrap
 from thermowarden.shell.store import Store
 
@@ -22,8 +26,15 @@ BUILDINGS, FLOORS, ROOMS = 3, 2, 400
 TICK_S = 1.0
 
 
-def site_text(site_id: str, port: int, prefix: str) -> str:
+def site_text(site_id: str, port: int, prefix: str, smtp_port: int) -> str:
+    mail = (f"{{smtp: {{host: 127.0.0.1, port: {smtp_port}, tls: none}}, "
+            "from: thermowarden@works.invalid, to: [TO]}")
     lines = [f"site: {{id: {site_id}, timezone: UTC}}",
+             "delivery:", "  audiences:", "    safety:",
+             "      events: [raised, report]",
+             "      email: " + mail.replace("TO", "safety-lead@works.invalid"),
+             "      buildings:",
+             "        b1: {email: " + mail.replace("TO", "b1-team@works.invalid") + "}",
              f'broker: {{url: "mqtt://127.0.0.1:{port}", client_id: {site_id}}}',
              f"output: {{prefix: {prefix}}}",
              f"evaluation: {{tick_s: {TICK_S}}}",
@@ -42,17 +53,23 @@ def site_text(site_id: str, port: int, prefix: str) -> str:
     return "\n".join(lines) + "\n"
 
 
+SAMPLE_EVERY_S = 60.0
+"""Denser than the engine's 5 minutes, so that the report takes several ticks' time even on
+an idle machine (the report counts each sample for the time to the next)."""
+
+
 def fill(store_path, ids: list[str], day_start: float) -> None:
-    """Yesterday's 5-minute samples, in the shape the engine stores them."""
+    """Yesterday's samples, in the shape the engine stores them."""
     rng = np.random.default_rng(7)
     n = len(ids)
     store = Store(store_path)
+    count = int(86_400 / SAMPLE_EVERY_S)
     with store.transaction():
-        for k in range(288):
-            ta = 22.0 + 4.0 * np.sin(np.pi * k / 288) + rng.normal(0, 0.5, n)
+        for k in range(count):
+            ta = 22.0 + 4.0 * np.sin(np.pi * k / count) + rng.normal(0, 0.5, n)
             cat = np.clip(np.abs(ta - 24.0), 0, 3).astype(int)
-            store.add_sample(day_start + 300.0 * k, {
-                "t": day_start + 300.0 * k, "spaces": ids,
+            store.add_sample(day_start + SAMPLE_EVERY_S * k, {
+                "t": day_start + SAMPLE_EVERY_S * k, "spaces": ids,
                 "operative": [round(float(v), 2) for v in ta],
                 "category_iso": [int(c) for c in cat], "category_en": [None] * n,
                 "en_lower": [None] * n, "en_upper": [None] * n, "band_lower": [20.0] * n,
@@ -66,7 +83,8 @@ def test_daily_report_leaves_the_tick_interval_alone(tmp_path, system_broker_por
     site_id = f"r{uuid.uuid4().hex[:6]}"
     prefix = f"twtest/{uuid.uuid4().hex[:8]}"
     site = tmp_path / "site.yaml"
-    site.write_text(site_text(site_id, system_broker_port, prefix))
+    sink = SmtpSink()
+    site.write_text(site_text(site_id, system_broker_port, prefix, sink.port))
     state = tmp_path / "state"
     state.mkdir()
     ids = [f"b{b}-{f}{r:03d}" for b in range(1, BUILDINGS + 1) for f in range(1, FLOORS + 1)
@@ -110,7 +128,20 @@ def test_daily_report_leaves_the_tick_interval_alone(tmp_path, system_broker_por
         gaps = np.diff([began, *during, ended])
         assert len(during) >= (ended - began) / TICK_S - 2, (len(during), ended - began)
         assert gaps.max() < 2.5 * TICK_S, f"a tick waited {gaps.max():.2f} s"
+        # and the reports were sent: the site's to the audience, the building's to its team
+        wait_for(lambda: len(sink.messages) == 2, SLOW, "the reports by e-mail")
+        got = {}
+        for m in sink.messages:
+            msg = email.message_from_bytes(m.content, policy=email.policy.default)
+            (part,) = list(msg.iter_attachments())
+            got[m.rcpt_tos[0]] = (part.get_filename(),
+                                  part.get_content().replace("\r\n", "\n").rstrip())
+        assert got["safety-lead@works.invalid"][0] == site_report.name
+        assert got["safety-lead@works.invalid"][1] == text.rstrip()
+        name, html = got["b1-team@works.invalid"]
+        assert name == f"{site_id}-{day}-b1.html" and "Building 1" in html
     finally:
         service.request_stop()
         engine.join(30)
+        sink.close()
         clear_retained(system_broker_port, prefix)

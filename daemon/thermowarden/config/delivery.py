@@ -11,7 +11,8 @@ from pydantic import ConfigDict, Field, SecretStr, field_validator, model_valida
 from thermowarden.config.base import Strict
 
 DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
-                         "shelved", "unshelved", "cleared", "summary", "unacknowledged"]
+                         "shelved", "unshelved", "cleared", "summary", "unacknowledged",
+                         "report"]
 
 
 class WebhookConfig(Strict):

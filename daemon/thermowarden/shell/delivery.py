@@ -207,6 +207,13 @@ def _summary_lines(items: list[dict[str, Any]]) -> list[str]:
 
 def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     """(subject, body) of an event or digest for a person."""
+    if payload.get("event") == "report":
+        scope = f" for {payload['place']}" if payload.get("place") else ""
+        return (f"daily report {payload.get('day', '')}{scope}",
+                f"The thermal comfort and heat-stress report of {payload.get('day', '')}"
+                f"{scope} is attached ({payload.get('file', '')}).\n\nHeat-stress figures are "
+                "screening values; thermowarden is advisory only: follow local regulations "
+                "and consult a qualified occupational hygienist.")
     if payload.get("event") == "summary":
         items = payload.get("items", [])
         scope = f" in {payload['place']}" if payload.get("place") else ""
@@ -283,6 +290,14 @@ def send_email(cfg: EmailConfig, payload: dict[str, Any], delivery_id: str,
     msg["Date"] = email.utils.formatdate(now, usegmt=True)
     msg["Message-ID"] = f"<{delivery_id}@thermowarden>"
     msg.set_content(text)
+    if payload.get("event") == "report" and payload.get("path"):
+        try:
+            html_text = pathlib.Path(str(payload["path"])).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise DeliveryFailed(f"the report file cannot be read: {exc}",
+                                 permanent=True) from None
+        msg.add_attachment(html_text, subtype="html", charset="utf-8",
+                           filename=str(payload.get("file", "report.html")))
     smtp = cfg.smtp
     password = _secret(smtp.password, smtp.password_file)
     try:
@@ -323,6 +338,8 @@ class _Row:
 
 
 def _priority(payload: dict[str, Any]) -> str:
+    if payload.get("event") == "report":
+        return "urgent"  # sent when written: never held for quiet hours or a digest
     adv = payload.get("advisory")
     if isinstance(adv, dict) and isinstance(adv.get("priority"), str):
         return str(adv["priority"])
@@ -409,6 +426,27 @@ class Delivery:
             if aud is not None and part.get("event") in aud.events:
                 taken = self._put(route, part) or taken
         return taken
+
+    def offer_report(self, day: str, site_file: pathlib.Path,
+                     building_files: dict[str, pathlib.Path]) -> int:
+        """The daily reports, to every audience (and building) whose ``events`` list
+        ``report``: the site's to the audience's recipients, each building's to its own
+        (any thread; never blocks). Returns how many were queued."""
+        queued = 0
+        for route, aud in list(self.routes.items()):
+            if "report" not in aud.events or "!" in route:
+                continue
+            audience, _, building = route.partition("@")
+            file = building_files.get(building) if building else site_file
+            if file is None:
+                continue
+            payload = {"schema": EVENT_SCHEMA, "event": "report", "at": _iso(self.now()),
+                       "audience": audience, "day": day, "file": file.name,
+                       "path": str(file)}
+            if building:
+                payload["place"] = self.places_label(building)
+            queued += self._put(route, payload)
+        return queued
 
     def _put(self, route: str, payload: dict[str, Any]) -> bool:
         try:

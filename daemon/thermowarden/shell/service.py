@@ -733,6 +733,10 @@ class Service:
                                 day.isoformat())
         log.info("daily report written to %s (%d file(s), %.1f s)", written[0], len(written),
                  time.monotonic() - began)
+        if self.delivery is not None:
+            stem = f"{config.site.id}-{day.isoformat()}-"
+            parts = {p.name[len(stem):-len(".html")]: p for p in written[1:]}
+            self.delivery.offer_report(day.isoformat(), written[0], parts)
         return written[0]
 
     def run(self) -> None:
