@@ -418,14 +418,25 @@ class Delivery:
         (counted and logged)."""
         if audience not in self.config.audiences:
             return False
-        payload = self._enrich(payload)
         self.escalations.observe(audience, payload, self.places)
         taken = False
+        for route, part in self.routed(audience, payload):
+            taken = self._put(route, part) or taken
+        return taken
+
+    def routed(self, audience: str, payload: dict[str, Any]
+               ) -> list[tuple[str, dict[str, Any]]]:
+        """(route, payload as sent) for every set of recipients that wants this event of
+        ``audience``: the audience's own and its space's building's (a summary split by
+        building), each payload with its page link and place. Pure: the queue or the store
+        takes the result."""
+        payload = self._enrich(payload)
+        out = []
         for route, part in self._split(audience, payload):
             aud = self._audience(route)
             if aud is not None and part.get("event") in aud.events:
-                taken = self._put(route, part) or taken
-        return taken
+                out.append((route, part))
+        return out
 
     def offer_report(self, day: str, site_file: pathlib.Path,
                      building_files: dict[str, pathlib.Path]) -> int:
@@ -844,8 +855,8 @@ class Escalations:
             first = json.loads(text)
             adv = first["advisory"]
             waited = now - since
-            payload = {**first, "event": "unacknowledged", "at": _iso(now),
-                       "waited_s": round(waited)}
+            payload = self.delivery._enrich({**first, "event": "unacknowledged",
+                                             "at": _iso(now), "waited_s": round(waited)})
             if self.delivery._put(route, payload):
                 db.execute("UPDATE escalations SET state = 'sent' WHERE advisory_id = ?",
                            (advisory_id,))
