@@ -154,8 +154,9 @@ def test_table_for_a_person():
     assert max(len(ln) for ln in lines) <= 100
     # WBGT 0.7 x 22.8 + 0.3 x 34.6 = 26.34 (ISO 7243:2017 eq. 1); moderate work references
     # 25.03 / 28.26 (tests/data/published_values.yaml, work_class_references)
-    assert lines[0].startswith("HEAT STRESS (unacclimatised): WBGT 26.3 °C vs reference "
-                               "25.0 °C (+1.3 K; acclimatised 28.3 °C)")
+    # not acclimatised unless said: the workers' own reference only (NIOSH RAL)
+    assert lines[0] == ("HEAT STRESS (not acclimatised): WBGT 26.3 °C vs reference 25.0 °C "
+                        "(+1.3 K)")
     rows = {ln.split()[0]: ln.split()[1:3] for ln in lines[2:] if ln and not ln[0].isspace()}
     assert rows["metabolic_rate"] == ["297", "W"]
     assert rows["wbgt_margin_unacclimatised"] == ["-1.3", "K"]
@@ -172,3 +173,81 @@ def test_a_margin_inside_instrument_accuracy_is_called_reached():
             "--format", "table")
     assert r.returncode == 0, r.stderr
     assert "treat as reached" in r.stdout.split("\n\n")[0]
+
+
+def test_assumptions_fill_in_and_are_marked():
+    """A thermostat's reading with declared assumptions, as a site's ``assume`` does; the
+    PMV is the same as with the values given as readings (ISO 7730 Table D.1 gives +0.77 at
+    27 °C, 60 %, 0.1 m/s, 1.2 met, 0.5 clo: the method checked elsewhere)."""
+    base = {"air_temperature": 28.6, "met": 1.2, "clo": 0.5}
+    r = run({**base, "assume": {"relative_humidity": 50, "air_speed": 0.1,
+                                "mean_radiant_temperature": "air"}})
+    assert r.returncode == 0, r.stderr
+    out = json.loads(r.stdout)
+    same = json.loads(run({**base, "relative_humidity": 50, "air_speed": 0.1,
+                           "mean_radiant_temperature": 28.6}).stdout)
+    assert out["pmv_iso"]["value"] == same["pmv_iso"]["value"]
+    assert out["relative_humidity"]["method"] == "assumed: 50 % (not measured)"
+    assert out["mean_radiant_temperature"]["method"] == \
+        "assumed: equal to the air temperature (not measured)"
+    assert "air speed still air, 0.1 m/s" in out["assumed"]["reason"]
+    # a measured value wins over the assumption, and is not marked
+    r = run({**base, "relative_humidity": 40, "air_speed": 0.1,
+             "mean_radiant_temperature": 28.6, "assume": {"relative_humidity": 50}})
+    out = json.loads(r.stdout)
+    assert out["relative_humidity"]["value"] == 40 and "assumed" not in out
+    table = run({**base, "assume": {"relative_humidity": 50, "air_speed": 0.1,
+                                    "mean_radiant_temperature": "air+2"}}, "--format", "table")
+    assert "Not measured, assumed: relative humidity 50 %" in table.stdout
+    bad = run({**base, "assume": {"globe_temperature": 30}})
+    assert bad.returncode == 2 and "assume.globe_temperature" in bad.stderr
+
+
+@pytest.mark.parametrize(("acclimatised", "verdict"), [
+    (False, "HEAT STRESS (not acclimatised, above even the acclimatised limit): WBGT 29.0 °C "
+            "vs reference 25.0 °C (+3.9 K; acclimatised limit 28.3 °C, +0.7 K)"),
+    (True, "HEAT STRESS (acclimatised, above their limit): WBGT 29.0 °C vs reference 28.3 °C "
+           "(+0.7 K; action value 25.0 °C, +3.9 K)"),
+])
+def test_the_verdict_follows_the_workers_acclimatisation(acclimatised, verdict):
+    """WBGT 0.7 x 25 + 0.3 x 38.2 = 28.96 °C (ISO 7243:2017 eq. 1); moderate work: RAL
+    25.03, REL 28.26 °C (NIOSH 2016; tests/data/published_values.yaml,
+    work_class_references): +3.93 and +0.70 K."""
+    r = run({"air_temperature": 33, "relative_humidity": 40, "globe_temperature": 38.2,
+             "natural_wet_bulb": 25.0, "air_speed": 0.4, "work_class": "moderate",
+             "acclimatised": acclimatised, "clo": 0.6}, "--format", "table")
+    assert r.returncode == 0, r.stderr
+    assert " ".join(r.stdout.split("\n\n")[0].split()) == verdict  # (wrapped at 100)
+    out = json.loads(run({"air_temperature": 33, "relative_humidity": 40,
+                          "globe_temperature": 38.2, "natural_wet_bulb": 25.0,
+                          "air_speed": 0.4, "work_class": "moderate",
+                          "acclimatised": acclimatised}).stdout)
+    own = 28.26 if acclimatised else 25.03
+    assert out["wbgt_reference"]["value"] == pytest.approx(own, abs=0.01)
+    assert out["wbgt_margin"]["value"] == pytest.approx(own - out["wbgt_effective"]["value"],
+                                                        abs=0.01)
+
+
+@pytest.mark.parametrize("speed, raised", [(0.3, 0.0), (0.6, 1.2), (0.9, 1.8), (1.2, 2.2)])
+def test_adaptive_upper_limits_rise_with_air_speed(speed, raised):
+    """ASHRAE 55-2020 5.4.2.4, Table 5.4.2.4: +1.2 K at 0.6 m/s, +1.8 K at 0.9, +2.2 K at
+    1.2 above 25 °C operative; the values as pythermalcomfort 2.x's adaptive_ashrae gives
+    them (a general reference library, run once: tdb 28, tr 28.5, running mean 20.4 ->
+    upper 80 % limits 27.6, 28.8, 29.4, 29.8 °C)."""
+    means = [20.4] * 7
+    r = run({"air_temperature": 28.0, "mean_radiant_temperature": 28.5, "air_speed": speed,
+             "relative_humidity": 50, "met": 1.1, "clo": 0.5, "naturally_ventilated": True,
+             "outdoor_daily_means": means})
+    out = json.loads(r.stdout)
+    assert out["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62 + raised, abs=0.01)
+    assert out["adaptive_ashrae_90_upper"]["value"] == pytest.approx(26.62 + raised, abs=0.01)
+    assert out["adaptive_ashrae_80_lower"]["value"] == pytest.approx(20.62, abs=0.01)
+    # EN 16798-1 category II upper limit, raised the same way (pythermalcomfort's
+    # adaptive_en, same inputs: 28.5, 29.7, 30.3, 30.7 °C)
+    assert out["adaptive_en_II_upper"]["value"] == pytest.approx(28.53 + raised, abs=0.01)
+    # only above 25 °C operative
+    cool = json.loads(run({"air_temperature": 24.0, "mean_radiant_temperature": 24.0,
+                           "air_speed": speed, "relative_humidity": 50, "met": 1.1,
+                           "clo": 0.5, "naturally_ventilated": True,
+                           "outdoor_daily_means": means}).stdout)
+    assert cool["adaptive_ashrae_80_upper"]["value"] == pytest.approx(27.62, abs=0.01)

@@ -76,3 +76,13 @@ def test_web_snippet(tmp_path):
     assert config.web.enabled and config.web.users_file == "web-users.yaml"
     assert not config.web.sign_in_to_read
     assert config.web.public_url == "https://comfort.example.org"
+def test_windows_snippet(tmp_path):
+    (block,) = _blocks("Advice ahead of time")
+    data = {"site": {"id": "readme", "timezone": "Europe/London", "latitude": 52.2,
+                     "longitude": -1.5}, **yaml.safe_load(block)}
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data), encoding="utf-8")
+    (window,) = load_site(path, {}).spaces[0].windows
+    assert (window.facade_azimuth, window.tilt, window.transmittance) == (270, 90, 0.4)
+    assert window.overhang is not None and window.overhang.glazing_height_m == 1.6
+    assert window.shading_point == "larkfield/office-west/blinds"

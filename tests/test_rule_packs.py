@@ -16,7 +16,7 @@ from thermowarden.rules import RulePackError, builtin_pack_names, load_rule_pack
 
 def test_every_rule_file_in_the_repo_loads():
     files = sorted((REPO / "rules").glob("*.yaml"))
-    assert len(files) == 9
+    assert len(files) == 10  # ahead.yaml (issue 29) is the tenth
     assert [f.stem for f in files] == builtin_pack_names()
     packs = load_rule_packs(builtin_pack_names())
     for f in files:
@@ -80,7 +80,7 @@ def test_schema_errors_have_positions(tmp_path):
 
 
 def test_unknown_pack_lists_builtins():
-    with pytest.raises(RulePackError, match="built-in packs: comfort"):
+    with pytest.raises(RulePackError, match="built-in packs: ahead, comfort"):
         load_rule_packs(["nonexistent"])
 
 
@@ -210,3 +210,60 @@ def test_a_message_whose_every_sentence_is_left_out_is_empty():
     assert t.render({"v": 0.31, "s": 26.1}) == "Fans: about 0.31 m/s (SET 26.1 °C)."
     assert t.render({"v": 0.31, "s": float("nan")}) == "Fans: about 0.31 m/s."
     assert t.render({"v": float("nan"), "s": float("nan")}) == ""
+
+
+def test_check_says_what_each_hot_work_wbgt_rests_on_and_warns_where_nothing(tmp_path):
+    """Per hot-work space: measured, estimated (and how), or nothing; a hot-work space with
+    no heat-stress evaluation is a loud warning naming what to add."""
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: UTC, latitude: 51.5, longitude: -0.1,
+               outdoor_points: [{topic: o/wind, quantity: wind_speed},
+                                {topic: o/sun, quantity: solar_irradiance}]}
+        defaults: {rule_packs: [heat_stress], people: {work_class: moderate, clo: 0.6}}
+        templates:
+          - {topic: "b/{space}/ta", quantity: air_temperature}
+          - {topic: "b/{space}/rh", quantity: relative_humidity}
+        spaces:
+          - id: measured
+            hot_work: true
+            points:
+              - {topic: m/tg, quantity: globe_temperature}
+              - {topic: m/tnw, quantity: natural_wet_bulb}
+          - id: yard
+            kind: outdoor
+            hot_work: true
+            points: [{topic: y/tg, quantity: globe_temperature}]
+          - id: shop
+            hot_work: true
+            points: [{topic: s/tg, quantity: globe_temperature}]
+          - id: bare
+            name: Bare kiln room
+            hot_work: true
+          - id: unpacked
+            hot_work: true
+            rule_packs: [humidity]
+            people: {clo: 0.6}
+            points:
+              - {topic: u/tg, quantity: globe_temperature}
+              - {topic: u/tnw, quantity: natural_wet_bulb}
+        """))
+    r = run_check(site)
+    assert r.returncode == 0, r.stderr
+    out = r.stdout
+    block = {sid: out.split(f"space {sid} ")[1].split("\nspace ")[0]
+             for sid in ("measured", "yard", "shop", "bare")}
+    assert "WBGT rests on a measured natural wet bulb and the globe" in block["measured"]
+    assert "natural wet bulb estimated from the globe" in block["yard"]
+    assert "from the solar irradiance and the sun's position" in block["yard"]
+    assert "WBGT rests on nothing" in block["shop"]
+    assert "air_speed" in block["shop"]
+    warnings = [ln for ln in r.stderr.splitlines() if ln.startswith("warning:")]
+    loud = {w.split(":")[1].strip(): w for w in warnings if "HOT WORK" in w}
+    assert set(loud) == {"space shop", "space bare", "space unpacked"}, warnings
+    assert "the safety lead will never be alerted for Bare kiln room: add" in loud["space bare"]
+    assert "a globe_temperature point" in loud["space bare"]
+    assert "an air_speed point (or assume: {air_speed: 0.1})" in loud["space shop"]
+    assert "heat_stress to its rule_packs" in loud["space unpacked"]
+    assert "work_class" in loud["space unpacked"]
+    assert not any("needs wbgt" in w for w in warnings)

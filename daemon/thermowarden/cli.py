@@ -88,8 +88,11 @@ def _format_table(result: dict[str, dict[str, object]]) -> str:
     return "\n".join(lines)
 
 
-def _verdict(result: dict[str, dict[str, object]]) -> str:
-    """One line for a person: the heat-stress margin when WBGT is known, else comfort."""
+def _verdict(result: dict[str, dict[str, object]], acclimatised: bool = False) -> str:
+    """One line for a person: the heat-stress margin when WBGT is known, else comfort. The
+    reference is that of the workers as given (``acclimatised``; not acclimatised unless
+    said): NIOSH REL for acclimatised workers, with the RAL as their action value; the RAL
+    for workers not acclimatised."""
     def num(key: str) -> float | None:
         v = result.get(key, {}).get("value")
         return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else None
@@ -101,15 +104,19 @@ def _verdict(result: dict[str, dict[str, object]]) -> str:
             d = wbgt - ref
             # a margin smaller than the instruments' accuracy is no margin
             return f"{d:+.2f} K, treat as reached" if abs(d) < 0.5 else f"{d:+.1f} K"
-        if wbgt - ref_a > -0.5:
-            head, ref, other = "HEAT STRESS (acclimatised too)", ref_a, ("unacclimatised", ref_u)
-        elif wbgt - ref_u > -0.5:
-            head, ref, other = ("HEAT STRESS (unacclimatised)", ref_u,
-                                ("acclimatised", ref_a))
-        else:
-            head, ref, other = "below the WBGT references", ref_u, ("acclimatised", ref_a)
-        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref:.1f} °C ({diff(ref)}; "
-                f"{other[0]} {other[1]:.1f} °C)")
+        if acclimatised:
+            head = ("HEAT STRESS (acclimatised, above their limit)" if wbgt - ref_a > -0.5
+                    else "HEAT STRESS (acclimatised, above the action value)"
+                    if wbgt - ref_u > -0.5 else "below the WBGT reference (acclimatised)")
+            return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_a:.1f} °C ({diff(ref_a)}; "
+                    f"action value {ref_u:.1f} °C, {diff(ref_u)})")
+        head = ("HEAT STRESS (not acclimatised, above even the acclimatised limit)"
+                if wbgt - ref_a > -0.5 else "HEAT STRESS (not acclimatised)"
+                if wbgt - ref_u > -0.5 else "below the WBGT reference (not acclimatised)")
+        above_a = (f"; acclimatised limit {ref_a:.1f} °C, {diff(ref_a)}"
+                   if wbgt - ref_a > -0.5 else "")
+        return (f"{head}: WBGT {wbgt:.1f} °C vs reference {ref_u:.1f} °C "
+                f"({diff(ref_u)}{above_a})")
     pmv = num("pmv_iso") if num("pmv_iso") is not None else num("pmv_ashrae")
     if pmv is not None:
         feel = ("neutral" if abs(pmv) <= 0.5 else
@@ -141,7 +148,7 @@ def _load_or_report(path: str) -> SiteConfig | None:
 def cmd_assess(args: argparse.Namespace) -> int:
     """Spot check one space; print every index as JSON (or a table)."""
     from thermowarden.core.indices import compute_indices, space_result
-    from thermowarden.core.spot_check import InputError, parse_spot_check
+    from thermowarden.core.spot_check import InputError, assumptions_used, parse_spot_check
 
     if args.input:
         try:
@@ -163,20 +170,32 @@ def cmd_assess(args: argparse.Namespace) -> int:
         if not isinstance(data, dict):
             raise InputError("input", "expected a JSON object of readings")
         inputs = parse_spot_check(data)
+        assumed = assumptions_used(data)
     except InputError as exc:
         print(f"thermowarden assess: {exc}", file=sys.stderr)
         return 2
     _prepare_models()
     table = compute_indices(inputs)
     result = space_result(table, 0)
+    for q, note in assumed.items():
+        if q in result and result[q]["value"] is not None:
+            result[q]["method"] = f"{note} (not measured)"
+    shown = "; ".join(f"{q.replace('_', ' ')} {n.removeprefix('assumed: ')}"
+                      for q, n in assumed.items())
     if args.format == "table":
-        print(textwrap.fill(_verdict(result), TABLE_WIDTH, subsequent_indent="  "))
+        print(textwrap.fill(_verdict(result, bool(inputs.acclimatised[0])), TABLE_WIDTH,
+                            subsequent_indent="  "))
+        if shown:
+            print(textwrap.fill(f"Not measured, assumed: {shown}.", TABLE_WIDTH))
         print()
         print(_format_table(result))
         if any(result[k]["value"] is not None for k in result if k.startswith(("wbgt", "phs"))):
             print()
             print(textwrap.fill(CAUTION, TABLE_WIDTH))
     else:
+        if shown:
+            result["assumed"] = {"value": None, "unit": "", "method": "",
+                                 "reason": f"not measured, assumed: {shown}"}
         result["caution"] = {"value": None, "unit": "", "method": "", "reason": CAUTION}
         json.dump(result, sys.stdout, ensure_ascii=False, indent=2)
         print()
@@ -654,8 +673,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--duration", type=float, metavar="SECONDS",
                    help="cap the demo at this many seconds (the day runs faster)")
     p.add_argument("--speed", type=float, default=450.0,
-                   help="simulated seconds per real second (default 450: a working day in "
-                        "about two minutes)")
+                   help="at most this many simulated seconds per real second (default 450: a "
+                        "working day in about two minutes; a busy machine takes longer)")
     p.add_argument("--plain", action="store_true",
                    help="print events line by line instead of the live view")
     p.add_argument("--web-port", type=int, metavar="N",
@@ -710,8 +729,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--store", metavar="FILE", help="the SQLite store itself (for a shard)")
     p.set_defaults(func=cmd_export)
 
-    p = sub.add_parser("web-user", help="print a users-file entry for the web page "
-                       "(asks for the password, or reads it from stdin)")
+    p = sub.add_parser("web-user", help="add a person to the web page's users file, or print "
+                       "a whole users file with them (asks for the password, or reads it "
+                       "from stdin)")
     p.add_argument("name")
     p.add_argument("--audience", action="append",
                    choices=["facilities", "safety", "integrator"],
@@ -719,14 +739,24 @@ def build_parser() -> argparse.ArgumentParser:
                    "none: reads only)")
     p.add_argument("--building", action="append", metavar="ID",
                    help="a building or area this person may act in (repeat; default: all)")
+    p.add_argument("--file", metavar="USERS_YAML",
+                   help="write to this users file: created when missing, the person added or "
+                        "replaced when it exists (without it, a whole file is printed)")
     p.set_defaults(func=cmd_web_user)
     return parser
 
 
 def cmd_web_user(args: argparse.Namespace) -> int:
     import getpass
+    import pathlib
 
-    from thermowarden.shell.web.users import UserEntry, hash_password
+    from thermowarden.shell.web.users import (
+        UserEntry,
+        hash_password,
+        load_users,
+        users_yaml,
+        write_private,
+    )
 
     if sys.stdin.isatty():
         password = getpass.getpass("password: ")
@@ -741,10 +771,22 @@ def cmd_web_user(args: argparse.Namespace) -> int:
     entry = UserEntry(name=args.name, audiences=sorted(set(args.audience or [])),
                       buildings=sorted(set(args.building)) if args.building else None,
                       password_hash=hash_password(password))
-    buildings = (f"\n    buildings: [{', '.join(entry.buildings)}]"
-                 if entry.buildings is not None else "")
-    print(f"  - name: {json.dumps(entry.name)}\n    audiences: [{', '.join(entry.audiences)}]"
-          f"{buildings}\n    password_hash: \"{entry.password_hash}\"")
+    if args.file is None:
+        print(users_yaml([entry]), end="")
+        return 0
+    from thermowarden.config import ConfigError
+
+    path = pathlib.Path(args.file)
+    try:
+        users = load_users(path) if path.exists() else {}
+    except ConfigError as exc:
+        print(f"{path}: not changed, it is not a valid users file:\n{exc}", file=sys.stderr)
+        return 78
+    replaced = entry.name in users
+    users[entry.name] = entry
+    write_private(path, users_yaml(list(users.values())))
+    print(f"{'replaced' if replaced else 'added'} {entry.name} "
+          f"({', '.join(entry.audiences)}) in {path}")
     return 0
 
 

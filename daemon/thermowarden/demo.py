@@ -21,6 +21,7 @@ import textwrap
 import threading
 import time
 from collections import Counter
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any, TextIO
 
@@ -50,6 +51,7 @@ class DemoView:
     acted: list[str] = field(default_factory=list)
     lock: threading.Lock = field(default_factory=threading.Lock)
     last_message: float = field(default_factory=time.monotonic)
+    event_messages: int = 0
     width: int = 80
 
     def on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
@@ -63,7 +65,9 @@ class DemoView:
             self.last_message = time.monotonic()
             if msg.topic.endswith("/conditions"):
                 self.conditions[data["space"]["id"]] = data
-            elif "/events/" in msg.topic and data.get("event"):
+            elif "/events/" in msg.topic:
+                self.event_messages += 1
+            if "/events/" in msg.topic and data.get("event"):
                 self.events.append(data)
                 aud = msg.topic.split("/events/")[1].split("/")[0]
                 self.counts[f"{aud}:{data['event']}"] += 1
@@ -81,15 +85,14 @@ class DemoView:
         return (f"{at:%H:%M} {a['audience']:<10} {e['event']:<11} {mark:<3} "
                 f"{a['priority']:<6} {a['title']}")
 
-    def wait_quiet(self, quiet_s: float, limit_s: float) -> None:
-        """Return once nothing has arrived for ``quiet_s`` (at most ``limit_s``)."""
+    def wait_for_events(self, sent: EventCount, limit_s: float) -> None:
+        """Return once every event the service sent has arrived (at most ``limit_s``)."""
         deadline = time.monotonic() + limit_s
         while time.monotonic() < deadline:
             with self.lock:
-                idle = time.monotonic() - self.last_message
-            if idle >= quiet_s:
-                return
-            time.sleep(0.05)
+                if self.event_messages >= sent.n:
+                    return
+            time.sleep(0.02)
 
     def newest_advice(self) -> list[str]:
         """The advice of the newest event that carries one, wrapped to the view's width."""
@@ -146,6 +149,86 @@ class DemoView:
         return "\n".join(out)
 
 
+class EventCount:
+    """Counts the events the service hands to the broker (an observer of its effects)."""
+
+    def __init__(self) -> None:
+        self.n = 0
+
+    def observe(self, effects: list[Any]) -> None:
+        self.n += sum(1 for e in effects if getattr(e, "topic", "").find("/events/") >= 0
+                      and getattr(e, "qos", 0) == 1)
+
+
+def _by_time(records: list[dict[str, Any]]) -> Iterator[tuple[float, list[dict[str, Any]]]]:
+    """The records in runs of the same time (they are in time order)."""
+    run: list[dict[str, Any]] = []
+    for rec in records:
+        if run and rec["t"] != run[0]["t"]:
+            yield run[0]["t"], run
+            run = []
+        run.append(rec)
+    if run:
+        yield run[0]["t"], run
+
+
+class DayDriver:
+    """Moves a driven clock through the day: the readings of each moment are published
+    with the clock at that moment and waited for until the service has received them; at
+    every tick the service is asked for one step (take in, evaluate) and waited for. Paced
+    to at most ``speed`` times real time; slower only when the machine is."""
+
+    def __init__(self, service: Any, clock: Any, sensors: mqtt.Client, start: float,
+                 speed: float, tick_s: float) -> None:
+        self.service = service
+        self.clock = clock
+        self.sensors = sensors
+        self.start = start
+        self.speed = speed
+        self.tick_s = tick_s
+        self.next_tick = start + tick_s
+        self.published = service.link.received
+        self.wall0 = time.monotonic()
+
+    def _pace(self, t: float) -> None:
+        ahead = self.wall0 + (t - self.start) / self.speed - time.monotonic()
+        if ahead > 0:
+            time.sleep(ahead)
+
+    def advance_to(self, t: float) -> None:
+        """Step through every tick before ``t``."""
+        while self.next_tick < t:
+            self.step(self.next_tick)
+            self.next_tick += self.tick_s
+
+    def step(self, t: float) -> None:
+        self._pace(t)
+        self.clock.set(t)
+        done = self.service.steps_done
+        self.service.step()
+        _wait_until(lambda: self.service.steps_done > done, "an evaluation")
+
+    def publish(self, t: float, group: list[dict[str, Any]]) -> None:
+        self.clock.set(t)
+        for rec in group:
+            p = rec["payload"]
+            self.sensors.publish(rec["topic"], p if isinstance(p, str) else json.dumps(p),
+                                 qos=1)
+        self.published += len(group)
+        link = self.service.link
+        _wait_until(lambda: link.received >= self.published, "the readings to arrive")
+
+
+def _wait_until(cond: Any, what: str, limit_s: float = 120.0) -> None:
+    deadline = time.monotonic() + limit_s
+    pause = 0.0002
+    while not cond():
+        if time.monotonic() > deadline:
+            raise RuntimeError(f"the demo's service did not take in {what} in {limit_s:.0f} s")
+        time.sleep(pause)
+        pause = min(pause * 2, 0.01)
+
+
 def _print_new(dv: DemoView, shown: int, out: TextIO) -> int:
     """Print the events that arrived since the first ``shown``; returns the new count."""
     with dv.lock:
@@ -183,10 +266,11 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     records = list(larkfield_day())
     start, end = records[0]["t"], records[-1]["t"]
     state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
-    clock = Clock(start=start - 1.0, speed=speed, paused=True)
-    # at hundreds of times real speed a few milliseconds of scheduling delay are whole
-    # sensor intervals: allow more missed intervals before a point counts as stale
-    overrides = {"THERMOWARDEN_INGEST__STALE_AFTER_INTERVALS": "6"}
+    # the demo drives the service's clock: every reading is in before the clock moves on,
+    # and every evaluation happens at the same simulated moment, so each run gives the
+    # same events on any machine, however busy
+    clock = Clock(start=start - 1.0, driven=True)
+    overrides: dict[str, str] = {}
     if web_port is not None:
         import secrets
 
@@ -230,33 +314,32 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     sensors.connect(host, port, 30)
     sensors.loop_start()
     interrupted = False
+    sent = EventCount()
+    service.observers.append(sent.observe)
     try:
-        time.sleep(0.3)
-        clock.resume()
-        service.engine.start = clock.now()
         # --duration counts from the start of the simulated day, not from the start-up (a
         # loaded machine may take a while to start the service)
         stop_at = time.monotonic() + duration if duration is not None else float("inf")
+        driver = DayDriver(service, clock, sensors, start, speed,
+                           config.evaluation.tick_s)
         last_view = 0.0
         shown = 0
-        for rec in records:
+        for t, group in _by_time(records):
             if time.monotonic() >= stop_at:
                 break
-            while clock.now() < rec["t"]:
-                time.sleep(0.005)
-                if view and time.monotonic() - last_view > 0.5:
-                    dv.render(clock.now(), start, end, out)
-                    last_view = time.monotonic()
-            p = rec["payload"]
-            body = p if isinstance(p, str) else json.dumps(p)
-            sensors.publish(rec["topic"], body, qos=0)
-            if not view:
+            driver.advance_to(t)
+            driver.publish(t, group)
+            if view and time.monotonic() - last_view > 0.5:
+                dv.render(clock.now(), start, end, out)
+                last_view = time.monotonic()
+            elif not view:
                 shown = _print_new(dv, shown, out)
+        else:
+            driver.step(end)
+        dv.wait_for_events(sent, 60.0)
         if web_port is not None:
-            dv.wait_quiet(1.0, 20.0)
             if not view:
                 shown = _print_new(dv, shown, out)
-            clock.anchor, clock.paused = clock.now(), True
             out.write(f"the day is over; the web page stays on http://127.0.0.1:{web_port}/ "
                       "with the clock stopped until Ctrl-C\n")
             out.flush()
@@ -270,7 +353,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         service.request_stop()
         engine_thread.join(30)
         if not interrupted:
-            dv.wait_quiet(1.0, 20.0)
+            dv.wait_for_events(sent, 20.0)
         sensors.loop_stop()
         watcher.loop_stop()
         for c in (sensors, watcher):

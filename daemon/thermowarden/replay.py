@@ -18,6 +18,7 @@ from typing import Any
 
 import numpy as np
 
+from thermowarden.ahead_summary import ahead_summary
 from thermowarden.config import SiteConfig
 from thermowarden.core.payloads import DecodeError, parse_timestamp
 from thermowarden.effects import Persist, Publish
@@ -79,6 +80,8 @@ class ReplayResult:
     samples: list[dict[str, Any]] = field(default_factory=list)
     """Report samples (every 5 minutes of feed time), when asked for."""
     rejected: dict[str, int] = field(default_factory=dict)
+    foresees: dict[str, tuple[str, str | None]] = field(default_factory=dict)
+    """Ahead-of-time rule -> (the rule it foresees, at which priority), for the summary."""
     messages: int = 0
     start: float = math.nan
     end: float = math.nan
@@ -108,6 +111,8 @@ def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str
         history = adv.get("history") or []
         if history and history[-1].get("values") is not None:
             line["values"] = history[-1]["values"]  # why it cleared (the advice: why raised)
+        if history and history[-1].get("turned_into"):
+            line["turned_into"] = history[-1]["turned_into"]  # an ahead-of-time advisory
     if adv.get("acted_on"):
         line["acted_on"] = adv["acted_on"]
     return line
@@ -184,6 +189,8 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
         apply_settings(engine, settings)
     tick_s = tick_s or config.evaluation.tick_s
     result = ReplayResult()
+    result.foresees = {rt.rule.key: (f.rule, f.priority) for rt in engine.rules
+                       if (f := rt.rule.config.foresees) is not None}
     next_tick: float | None = None
     batch = max(1, min(MAX_BATCH_TICKS, BATCH_ROWS // max(model.n_spaces, 1)))
     captures: list[Capture] = []
@@ -259,6 +266,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     ``standing``: the advisories that stood longest. ``effectiveness``: per rule and space,
     advice given, followed (and how soon), helped (cleared within the rule's expected
     time), and the realised change of the target quantity against the predicted one.
+    ``ahead_of_time``: per ahead-of-time rule, the crossings it foresaw and missed and its
+    lead times (:mod:`thermowarden.ahead_summary`).
     """
     engine_events = [event_line(x) if "schema" in x else x
                      for x in result.raised_events] or [
@@ -356,7 +365,8 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     return {"messages": result.messages, "rejected": result.rejected, "rules": out_rules,
             "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
             "audiences": audiences, "standing": standing[:5],
-            "effectiveness": effectiveness}
+            "effectiveness": effectiveness,
+            "ahead_of_time": ahead_summary(engine_events, result.foresees, end)}
 
 
 def active_minutes(result: ReplayResult) -> dict[tuple[str, str], float]:

@@ -26,8 +26,10 @@ from thermowarden.config.positions import Position, SourceMap
 from thermowarden.config.rule_packs import PRIORITIES, RuleConfig, RulePackConfig
 from thermowarden.core import radiation
 from thermowarden.core.expressions import Expression, ExpressionError, Kind, parse_expression
+from thermowarden.core.forecast import FORESIGHT_COLUMNS
 from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.core.topics import TREE_PLACEHOLDERS
+from thermowarden.wbgt_basis import WbgtBasis, wbgt_basis
 
 FLAGS: Final = ("occupied", "hot_work", "indoor", "outdoor", "naturally_ventilated",
                 "acclimatised", "solar_load")
@@ -42,7 +44,9 @@ HEALTH: Final = ("stale_points", "stuck_points", "implausible_recent", "max_disa
                  "rules_unknown_long", "points_total", "failed_phs", "failed_indices")
 TEXT_NAMES: Final = ("space_name", "space_id", "site_name", "stale_detail", "stuck_detail",
                       "implausible_detail", "disagreement_detail", "rules_unknown_detail",
-                      "wbgt_basis", "acted_minutes_ago", "effect_predicted")
+                      "wbgt_basis", "acted_minutes_ago", "effect_predicted",
+                      "wbgt_action_at", "wbgt_limit_at", "wbgt_ease_at", "sun_on_windows_at",
+                      "windows_name")
 """Fields a message may insert besides numbers: names, sensor descriptions, the basis of a
 WBGT, and minutes since the advice was acted on."""
 HEAT_STRESS_CAUTIONS: Final = (
@@ -73,7 +77,7 @@ def index_names() -> tuple[str, ...]:
 def name_table(parameters: Iterable[str] = ()) -> dict[str, Kind]:
     """Every name a rule expression may read, with its kind."""
     names: dict[str, Kind] = {n: "number" for n in index_names()}
-    names.update({n: "number" for n in INPUTS + STATES + HEALTH})
+    names.update({n: "number" for n in INPUTS + STATES + HEALTH + FORESIGHT_COLUMNS})
     names.update({n: "bool" for n in FLAGS})
     for p in parameters:
         names.setdefault(p, "number")
@@ -444,11 +448,40 @@ def provided_inputs(model: object) -> list[set[str]]:
         if model.space(i).kind == "outdoor":
             provided[i] |= outdoor_extra
         # a declared assumption stands in for a quantity the space does not measure
-        provided[i] |= set(model.config.assumptions(model.space(i)).notes())
+        assumed = set(model.config.assumptions(model.space(i)).notes())
+        provided[i] |= {f"{ASSUMED_MARK}{q}" for q in assumed - provided[i]} | assumed
     for allowed, names in lazy_some:
         for i in allowed:
             provided[i] |= names
+            provided[i] -= {f"{ASSUMED_MARK}{q}" for q in names}
+    # derived: a WBGT wherever its inputs are there, whichever sensor gives them
+    for i, basis in enumerate(wbgt_bases(model, provided)):
+        if basis.known:
+            provided[i].add("wbgt")
     return provided
+
+
+ASSUMED_MARK: Final = "assumed:"
+"""In :func:`provided_inputs`, ``assumed:<quantity>``: only a declared assumption gives it."""
+MEASURED_MARK: Final = "measured "
+"""In :func:`missing_inputs`, ``measured <quantity>``: the rule needs a point for it, and the
+space has only an assumption."""
+
+
+def wbgt_bases(model: object, provided: list[set[str]]) -> list[WbgtBasis]:
+    """Per space, what its WBGT rests on (see :mod:`thermowarden.wbgt_basis`)."""
+    from thermowarden.site_model import SITE, SiteModel
+
+    assert isinstance(model, SiteModel)
+    site = model.config.site
+    site_sun = site.latitude is not None and any(
+        p.space == SITE and p.quantity == "solar_irradiance" for p in model.points)
+    out = []
+    for i in range(model.n_spaces):
+        space = model.space(i)
+        solar = space.solar_load if space.solar_load is not None else space.kind == "outdoor"
+        out.append(wbgt_basis(provided[i], space.kind == "outdoor", solar, site_sun))
+    return out
 
 
 def missing_inputs(pack: CompiledPack, model: object, space: int,
@@ -468,7 +501,11 @@ def missing_inputs(pack: CompiledPack, model: object, space: int,
     for rule in pack.rules:
         if not rule_applies(rule.config, cfg):
             continue
-        missing = sorted(n for n in rule.needs if n not in have)
+        measured = set(rule.config.measured)
+        missing = [f"{MEASURED_MARK}{n}" if n in measured else n
+                   for n in sorted(rule.needs) if n not in have]
+        missing += [f"{MEASURED_MARK}{n}" for n in sorted(measured)
+                    if n in have and f"{ASSUMED_MARK}{n}" in have]
         if missing:
             out.append((rule.config.id, missing))
     return out
@@ -482,4 +519,5 @@ def rule_applies(rule: RuleConfig, space: object) -> bool:
     a = rule.applies_to
     return ((a.kind is None or a.kind == space.kind)
             and (a.hot_work is None or a.hot_work == space.hot_work)
-            and (a.ventilation is None or a.ventilation == space.ventilation))
+            and (a.ventilation is None or a.ventilation == space.ventilation)
+            and (a.windows is None or a.windows == bool(space.windows)))

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
@@ -41,7 +41,10 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
         return report
     report.config = config
     report.model = build_site_model(config)
+    if config.web.users_file is not None:
+        report.issues.extend(users_file_issues(config, path))
     from thermowarden.rules import (
+        MEASURED_MARK,
         RulePackError,
         load_rule_packs,
         missing_inputs,
@@ -69,15 +72,27 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
             report.warnings.append(
                 f"template {tmpl.text}: {len(left)} space(s) ({', '.join(left[:3])}{more}) "
                 f"have no value for {levels} and get no {spec.quantity} from it")
+    from thermowarden.rules import rule_applies
+
     provided = provided_inputs(report.model)
     lacking: set[tuple[str, str]] = set()
     for i, space in enumerate(config.spaces):
         for name in config.rule_packs(space):
+            if not any(rule_applies(r.config, space) for r in packs[name].rules):
+                report.warnings.append(
+                    f"space {space.id}: rule pack {name} can never apply here: "
+                    f"{_applies_text(packs[name], space)}; take {name} off this space's "
+                    "rule_packs, or change the space")
+                continue
             for rule, missing in missing_inputs(packs[name], report.model, i, provided):
                 lacking.add((space.id, f"{name}.{rule}"))
+                if space.hot_work and "wbgt" in missing:
+                    continue  # said below, louder, with what to add
                 report.warnings.append(
-                    f"space {space.id}: rule {name}.{rule} needs {', '.join(missing)}, which "
-                    "no point provides")
+                    f"space {space.id}: rule {name}.{rule} needs "
+                    f"{', '.join(m.removeprefix(MEASURED_MARK) for m in missing)}, which no "
+                    f"point provides, so it never runs there: {_remedy(missing)}")
+    report.warnings.extend(hot_work_warnings(config, report.model, packs, provided))
     from thermowarden.engine.finishing import unfinishable_rules
 
     if prepare is not None:
@@ -87,16 +102,71 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
             continue
         because = f"{', '.join(u.missing)} can never be known there" if u.missing else \
             "its expression can never be true"
+        i = report.model.space_index[u.space]
+        remedy = _index_remedy(u.missing, provided[i])
         if u.which == "clear":
             report.warnings.append(
                 f"space {u.space}: rule {u.rule} could raise but never clear on its own: "
-                f"its clear condition reads {because} (add the point, or write the clear "
-                "condition with the same inputs as the raise condition)")
+                f"its clear condition reads {because} ({remedy or 'add the point'}, or write "
+                "the clear condition with the same inputs as the raise condition)")
         else:
             report.warnings.append(
                 f"space {u.space}: rule {u.rule} can never raise: its condition reads "
-                f"{because}")
+                f"{because}" + (f": {remedy}" if remedy else ""))
     return report
+
+
+def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
+    """The web page's users file read exactly as ``run`` reads it: what is wrong, if
+    anything (a missing file too)."""
+    from thermowarden.shell.web import users_path
+    from thermowarden.shell.web.users import load_users
+
+    users = users_path(config, path)
+    assert users is not None
+    if not users.exists():
+        return [ConfigIssue(None, f"{users}: the users file named by web.users_file does not "
+                            "exist (create it with `thermowarden web-user NAME --audience "
+                            f"AUDIENCE --file {users}`)")]
+    try:
+        load_users(users)
+    except ConfigError as exc:
+        return list(exc.issues)
+    return []
+
+
+def hot_work_warnings(config: SiteConfig, model: SiteModel, packs: Mapping[str, object],
+                      provided: list[set[str]]) -> list[str]:
+    """A warning for each hot-work space that gets no heat-stress evaluation, with what to
+    add: a pack with a rule that reads the WBGT, the inputs of a WBGT, the work done (the
+    reference value rests on it)."""
+    from thermowarden.rules import CompiledPack, rule_applies, wbgt_bases
+
+    bases = wbgt_bases(model, provided)
+    out = []
+    for i, space in enumerate(config.spaces):
+        if not space.hot_work:
+            continue
+        heat_rules = [f"{name}.{r.config.id}" for name in config.rule_packs(space)
+                      if isinstance(pack := packs.get(name), CompiledPack)
+                      for r in pack.rules
+                      if "wbgt" in r.needs and rule_applies(r.config, space)]
+        to_add = []
+        if not heat_rules:
+            to_add.append("heat_stress to its rule_packs")
+        if not bases[i].known:
+            to_add.extend(bases[i].to_add)
+        people = config.people(space)
+        if people.met is None and people.work_class is None:
+            to_add.append("the work done, people: {work_class: moderate} (rest, low, moderate, "
+                          "high, very_high) or met (the WBGT reference value rests on it; "
+                          "none is assumed)")
+        if to_add:
+            name = space.name or space.id
+            out.append(f"space {space.id}: HOT WORK WITHOUT A HEAT-STRESS EVALUATION: the "
+                       f"safety lead will never be alerted for {name}: add "
+                       + "; ".join(to_add))
+    return out
 
 
 def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
@@ -130,6 +200,9 @@ def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
 
 def resolved_map(model: SiteModel) -> list[str]:
     """space -> quantity -> topic, unit, format, as lines for a person."""
+    from thermowarden.rules import provided_inputs, wbgt_bases
+
+    bases = wbgt_bases(model, provided_inputs(model))
     lines: list[str] = []
     by_space: dict[int, list[str]] = {}
     for p in model.points:
@@ -156,6 +229,8 @@ def resolved_map(model: SiteModel) -> list[str]:
         lines.append(f"space {sid} ({', '.join(flags)}): "
                      f"rules {', '.join(model.config.rule_packs(space)) or '-'}")
         lines.extend(by_space.get(i, ["    (no points yet)"]))
+        if space.hot_work:
+            lines.append(f"    WBGT rests on {bases[i].description}")
     for tmpl, spec, _ in model.templates:
         if not tmpl.placeholders <= TREE_PLACEHOLDERS:
             lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "
@@ -176,3 +251,86 @@ def _trust(p: PointSpec) -> str:
     if p.stuck_after_s != DEFAULT_STUCK_AFTER_S:
         parts.append(f"stuck after {p.stuck_after_s:g} s")
     return f" ({'; '.join(parts)})" if parts else ""
+
+
+ASSUMABLE_EXAMPLES = {"relative_humidity": "relative_humidity: 50", "air_speed": "air_speed: 0.1",
+                      "mean_radiant_temperature": "mean_radiant_temperature: air"}
+"""Inputs a space may assume (``assume``), with the line that says so."""
+
+
+def _remedy(missing: list[str]) -> str:
+    """What to add to the site file so that a rule gets the inputs it lacks."""
+    from thermowarden.rules import MEASURED_MARK
+
+    parts = []
+    for m in missing:
+        q = m.removeprefix(MEASURED_MARK)
+        if m.startswith(MEASURED_MARK):
+            parts.append(f"add {_a(q)} {q} point to the space (this rule is about the {q} "
+                         "itself: an assumption does not count)")
+        elif q in ASSUMABLE_EXAMPLES:
+            parts.append(f"add `assume: {{{ASSUMABLE_EXAMPLES[q]}}}` to the space (or "
+                         f"to defaults), or {_a(q)} {q} point")
+        elif q.startswith("plane_radiant_temperature_"):
+            side = q.removeprefix("plane_radiant_temperature_")
+            parts.append(f"add a plane_radiant_temperature (or radiant_flux) point with side: "
+                         f"{side} to the space")
+        elif q.startswith("outdoor_") or q in ("solar_irradiance", "wind_speed"):
+            parts.append(f"add {_a(q)} {q} point to site.outdoor_points")
+        else:
+            parts.append(f"add {_a(q)} {q} point to the space")
+    return "; ".join(parts)
+
+
+def _applies_text(pack: object, space: object) -> str:
+    """Why no rule of ``pack`` applies to ``space``, in words."""
+    from thermowarden.config import SpaceConfig
+    from thermowarden.rules import CompiledPack
+
+    assert isinstance(pack, CompiledPack) and isinstance(space, SpaceConfig)
+    wants = set()
+    for r in pack.rules:
+        a = r.config.applies_to
+        words = [w for w in (
+            a.kind and f"{a.kind} spaces",
+            a.hot_work is True and "hot work", a.hot_work is False and "not hot work",
+            a.ventilation and f"{a.ventilation} ventilation") if w]
+        wants.add(", ".join(words) or "every space")
+    here = [space.kind, "hot work" if space.hot_work else "not hot work",
+            f"{space.ventilation} ventilation"]
+    return f"its rules are for {' or '.join(sorted(wants))}; this space is {', '.join(here)}"
+
+
+_COMFORT_INPUTS = ("air_temperature", "relative_humidity", "air_speed", "mean_radiant_temperature")
+INDEX_INPUTS: dict[str, tuple[str, ...]] = {
+    **{name: _COMFORT_INPUTS for name in (
+        "pmv_iso", "ppd_iso", "comfort_category_iso", "pmv_ashrae", "ppd_ashrae",
+        "cooling_effect", "set", "cooling_air_speed_needed", "set_at_cooling_air_speed",
+        "utci")},
+    "operative_temperature": ("air_temperature", "air_speed", "mean_radiant_temperature"),
+    "mean_radiant_temperature": ("mean_radiant_temperature",),
+    "draught_rate": ("air_temperature", "air_speed"),
+    "dew_point": ("air_temperature", "relative_humidity"),
+    "condensation_margin": ("surface_temperature", "relative_humidity"),
+    "heat_index": ("air_temperature", "relative_humidity"),
+    "humidex": ("air_temperature", "relative_humidity"),
+}
+"""The inputs each index rests on, for saying what to add when it can never be known."""
+
+
+def _index_remedy(names: tuple[str, ...], have: set[str]) -> str:
+    """The lines to add so that the inputs behind ``names`` exist in a space, or ''."""
+    radiant = ("globe_temperature" in have
+               or any(h.startswith("plane_radiant_temperature") for h in have))
+    lacking: list[str] = []
+    for name in names:
+        for q in INDEX_INPUTS.get(name, (name,) if name in QUANTITIES else ()):
+            if q in have or q in lacking or (q == "mean_radiant_temperature" and radiant):
+                continue
+            lacking.append(q)
+    return _remedy(lacking) if lacking else ""
+
+
+def _a(word: str) -> str:
+    """The indefinite article before ``word`` (a globe_temperature, an air_speed)."""
+    return "an" if word[:1] in "aeiou" else "a"

@@ -62,6 +62,10 @@ class PointSpec:
     max_change_per_s: float = float("inf")
     """Largest believable change per second between accepted readings (canonical unit)."""
     stuck_after_s: float = DEFAULT_STUCK_AFTER_S
+    height_m: float | None = None
+    """Height above ground of an air_speed or wind_speed sensor (m), from its own point."""
+    globe_diameter_m: float | None = None
+    globe_emissivity: float | None = None
 
 
 def _point_key(space_id: str, quantity: str, side: str | None, height: str | None,
@@ -134,7 +138,9 @@ class SiteModel:
                                      sensor if sensor is not None else spec.sensor, unit,
                                      converter(q.kind, unit), low, high, spec.interval_s,
                                      spec.format, topic, spec.offset, spec.scale, rate,
-                                     stuck or DEFAULT_STUCK_AFTER_S))
+                                     stuck or DEFAULT_STUCK_AFTER_S,
+                                     spec.height_m, spec.globe_diameter_m,
+                                     spec.globe_emissivity))
         self.point_by_key[key] = pid
         for listener in self.listeners:
             listener(pid)

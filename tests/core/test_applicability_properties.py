@@ -111,9 +111,18 @@ def test_every_index_keeps_to_its_limits(rows):
     mrt = t["mean_radiant_temperature"].values
 
     p = present(t, "mean_radiant_temperature")
-    from_globe = p & np.isnan(s.mean_radiant_temperature)
+    from_globe = p & np.isnan(s.mean_radiant_temperature) & np.isfinite(s.globe_temperature)
     assert np.all(np.isfinite(v[from_globe]))  # no still air assumed
     assert np.all(s.globe_temperature[from_globe] >= ta[from_globe] - 5.0 - TOL)
+    some_plane = np.zeros(s.n, dtype=bool)
+    for plane in s.plane_radiant.values():
+        some_plane |= np.isfinite(plane)
+    other = p & np.isnan(s.mean_radiant_temperature) & np.isnan(s.globe_temperature)
+    # planes with the air for the others, or outdoors in the sun from the irradiance
+    assert np.all(np.isfinite(ta[other]))
+    from_sun = other & ~some_plane
+    assert np.all(~s.indoor[from_sun] & s.solar_load[from_sun])
+    assert np.all(np.isfinite(s.solar_irradiance[from_sun]))
 
     p = present(t, "pmv_iso")
     assert np.all(s.indoor[p])
@@ -160,7 +169,9 @@ def test_every_index_keeps_to_its_limits(rows):
     p = present(t, "natural_wet_bulb_estimated")
     with_mrt = np.isfinite(mrt) & present(t, "mean_radiant_temperature")
     by_mrt = with_mrt & inside(mrt - ta, -10.0, 70.0)
-    by_sun = (~with_mrt & ~s.indoor & s.solar_load & np.isfinite(s.solar_irradiance)
+    # (a globe beyond its method's range outdoors in the sun: the irradiance takes over)
+    by_sun = ((~with_mrt | ~inside(mrt - ta, -10.0, 70.0)) & ~s.indoor & s.solar_load
+              & np.isfinite(s.solar_irradiance)
               & np.isfinite(s.latitude) & np.isfinite(s.longitude) & np.isfinite(s.time_s))
     assert np.all(by_mrt[p] | by_sun[p])
     assert np.all(np.isfinite(rh[p]) | np.isfinite(t["relative_humidity"].values[p]))

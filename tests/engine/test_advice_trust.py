@@ -92,10 +92,19 @@ def test_heat_stress_levels_have_their_own_advice(day):
 
 def test_notification_budget_on_the_shipped_day(day):
     """Alarm-management practice (ISA-18.2 / EEMUA 191): no audience gets more than 24
-    notifications on the shipped day (an issue's acceptance figure for this feed)."""
+    notifications on the shipped day (an issue's acceptance figure for this feed), the
+    safety lead 30: the staff garden's UTCI, known from the irradiance since issue 23, adds
+    its band changes (9 of the safety lead's 28; a band edge it crosses back and forth
+    within minutes at 38 °C UTCI is a level-hysteresis matter); besides the ahead-of-time
+    advisories (issue 29: the count rises by those messages alone, see
+    tests/engine/test_ahead_replay.py)."""
     s = summarise(day)
     for audience, figures in s["audiences"].items():
-        assert figures["notifications"] <= 24, (audience, figures)
+        limit = 30 if audience == "safety" else 24
+        ahead = sum(1 for e in day.events if e["event"] != "summary"
+                    and e["advisory"]["audience"] == audience
+                    and e["advisory"]["rule"].startswith("ahead."))
+        assert figures["notifications"] - ahead <= limit, (audience, figures, ahead)
         assert figures["busiest_10_min"] <= 10, (audience, figures)
     assert s["standing"], "the longest-standing advisories are listed"
 
@@ -241,17 +250,17 @@ spaces:
 
 STRICT_SHADING = """\
 pack: strict_shading
-description: a shading rule whose clear condition needs the mean radiant temperature
+description: a shading rule whose clear condition needs a globe
 rules:
   - id: blinds
     title: Blinds
     audience: facilities
     condition: >
       radiant_asymmetry_horizontal > 8
-      or mean_radiant_temperature - air_temperature > 3
+      or globe_temperature - air_temperature > 3
     clear: >
       radiant_asymmetry_horizontal < 6
-      and mean_radiant_temperature - air_temperature < 2
+      and globe_temperature - air_temperature < 2
     messages: {title: Blinds, advice: Lower them., rationale: Sun.}
 """
 
@@ -265,14 +274,15 @@ def test_check_warns_about_a_rule_that_could_never_clear(tmp_path):
     assert report.ok, report.issues
     never = [w for w in report.warnings if "never clear" in w]
     assert len(never) == 1, report.warnings
-    assert "strict_shading.blinds" in never[0] and "mean_radiant_temperature" in never[0]
+    assert "strict_shading.blinds" in never[0] and "globe_temperature" in never[0]
+    assert "add a globe_temperature point to the space" in never[0]
     # the default shading pack can finish with the same inputs
     assert not any("shading.lower_shading" in w for w in report.warnings), report.warnings
 
 
 def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_path):
-    """A live advisory whose clear condition cannot be evaluated (here: no globe, so no
-    mean radiant temperature) is reported to the integrator with the rule and the name."""
+    """A live advisory whose clear condition cannot be evaluated (here: no globe) is
+    reported to the integrator with the rule and the name."""
     (tmp_path / "packs").mkdir()
     (tmp_path / "packs" / "strict_shading.yaml").write_text(STRICT_SHADING)
     site = tmp_path / "site.yaml"
@@ -296,7 +306,7 @@ def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_pa
     health = raised.get("sensor_health.rules_without_inputs")
     assert health is not None, sorted(raised)
     assert "strict_shading.blinds" in health["advice"]
-    assert "mean_radiant_temperature" in health["advice"]
+    assert "globe_temperature" in health["advice"]
 
 
 # ----------------------------------------------------------------------------- pieces

@@ -3,6 +3,8 @@ what they do not measure let the comfort rules run, and are shown beside the num
 
 from __future__ import annotations
 
+import textwrap
+
 import pytest
 
 from tests.engine.conftest import validate_effects
@@ -96,3 +98,135 @@ def test_a_bad_assumption_is_refused_with_its_position(tmp_path):
     with pytest.raises(ConfigError, match=r"site.yaml:7:\d+: .*mean_radiant_temperature.*"
                                           r"expected 'air' or 'air\+K'"):
         _engine(tmp_path, "  assume: {air_speed: 0.1, mean_radiant_temperature: warm}\n")
+
+
+TEMPERATURE_ONLY = """\
+site: {id: school, timezone: UTC}
+output: {prefix: tw/school}
+defaults:
+  occupancy: {always: true}
+  people: {met: 1.2, clo: 0.5}
+  assume: {air_speed: 0.1, mean_radiant_temperature: air}
+spaces:
+  - id: class-4b
+    rule_packs: [comfort, humidity, heat_stress]
+    assume: {relative_humidity: 50}
+    points:
+      - {topic: school/4b/t, quantity: air_temperature, interval_s: 60}
+  - id: class-4c
+    rule_packs: [comfort]
+    points:
+      - {topic: school/4c/t, quantity: air_temperature, interval_s: 60}
+"""
+
+
+def test_a_temperature_only_room_with_an_assumed_humidity_gets_comfort_advice(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(TEMPERATURE_ONLY)
+    config = load_site(site, {})
+    engine = Engine(config, build_site_model(config),
+                    load_rule_packs(["comfort", "humidity", "heat_stress"]),
+                    conditions_every_s=0, start=0.0)
+    effects = []
+    for t in range(0, 40 * 60, 60):
+        engine.message("school/4b/t", b"28.6", float(t))
+        engine.message("school/4c/t", b"28.6", float(t))
+        effects += engine.tick(float(t) + 1.0)
+    validate_effects(effects)
+    raised = [e.payload["advisory"] for e in effects if isinstance(e, Publish)
+              and "/events/" in e.topic and e.payload and e.payload["event"] == "raised"]
+    # ISO 7730 PMV at 28.6 °C, 0.1 m/s, mean radiant = air, 50 %, 1.2 met, 0.5 clo is about
+    # +1.2 (above the 0.5 limit); without a humidity (4c) the comfort rules cannot run
+    assert [(a["space"]["id"], a["rule"]) for a in raised] == [("class-4b", "comfort.too_warm")]
+    adv = raised[0]
+    assert "relative humidity 50 %" in adv["rationale"]
+    assert "Not measured here, assumed:" in adv["rationale"]
+    cond = engine.conditions_payload(0)
+    assert cond["inputs"]["relative_humidity"]["assumed"] == "assumed: 50 %"
+    assert cond["inputs"]["relative_humidity"]["value"] == 50.0
+    assert cond["indices"]["relative_humidity"]["method"] == "assumed: 50 % (not measured)"
+    assert cond["indices"]["pmv_iso"]["value"] == pytest.approx(1.2, abs=0.15)
+    # the humidity rules never rest on the assumption
+    assert not [a for a in raised if a["rule"].startswith("humidity.")]
+
+
+def test_a_measured_humidity_wins_and_a_stale_one_leaves_humidity_rules_unknown(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(TEMPERATURE_ONLY.replace(
+        "      - {topic: school/4b/t, quantity: air_temperature, interval_s: 60}\n",
+        "      - {topic: school/4b/t, quantity: air_temperature, interval_s: 60}\n"
+        "      - {topic: school/4b/rh, quantity: relative_humidity, interval_s: 60}\n"))
+    config = load_site(site, {})
+    engine = Engine(config, build_site_model(config), load_rule_packs(["comfort", "humidity"]),
+                    conditions_every_s=0, start=0.0)
+    effects = []
+    for t in range(0, 180 * 60, 60):
+        engine.message("school/4b/t", b"22", float(t))
+        if t < 60 * 60:  # humid for an hour, then the sensor stops reporting
+            engine.message("school/4b/rh", b"72", float(t))
+        effects += engine.tick(float(t) + 1.0)
+        if t == 50 * 60:
+            cond = engine.conditions_payload(0)
+            assert cond["inputs"]["relative_humidity"]["value"] == 72.0
+            assert "assumed" not in cond["inputs"]["relative_humidity"]
+    events = [(e.payload["event"], e.payload["advisory"]["rule"]) for e in effects
+              if isinstance(e, Publish) and "/events/" in e.topic and e.payload
+              and e.payload.get("advisory")]
+    assert ("raised", "humidity.too_humid") in events
+    # the assumed 50 % stands in for the comfort indices, but never clears the humidity
+    # advisory (it would be the assumption clearing itself)
+    assert ("cleared", "humidity.too_humid") not in events
+    cond = engine.conditions_payload(0)
+    assert cond["inputs"]["relative_humidity"]["assumed"] == "assumed: 50 %"
+
+
+def test_check_names_the_line_to_add_and_a_pack_that_never_applies(tmp_path):
+    from thermowarden.site_check import check_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text(TEMPERATURE_ONLY)
+    report = check_site(str(site))
+    assert report.ok, report.issues
+    text = "\n".join(report.warnings)
+    # 4c lacks a humidity: the warning says what to add
+    assert ("space class-4c: rule comfort.too_warm needs relative_humidity, which no point "
+            "provides, so it never runs there: add `assume: {relative_humidity: 50}` to "
+            "the space (or to defaults), or a relative_humidity point") in text
+    # 4b's humidity is only assumed: the humidity rules need a point
+    assert ("space class-4b: rule humidity.too_humid needs relative_humidity, which no "
+            "point provides, so it never runs there: add a relative_humidity point to the "
+            "space (this rule is about the relative_humidity itself: an assumption does "
+            "not count)") in text
+    # heat_stress on a room that is not hot work can never apply
+    assert ("space class-4b: rule pack heat_stress can never apply here: its rules are for "
+            "hot work; this space is indoor, not hot work, mechanical ventilation") in text
+    assert not any("comfort.too_warm" in w and "class-4b" in w for w in report.warnings)
+
+
+def test_an_assumed_humidity_out_of_range_is_refused(tmp_path):
+    site = tmp_path / "site.yaml"
+    site.write_text(TEMPERATURE_ONLY.replace("relative_humidity: 50", "relative_humidity: 150"))
+    with pytest.raises(ConfigError, match=r"site.yaml:10:\d+: .*relative_humidity"):
+        load_site(site, {})
+
+
+def test_check_does_not_warn_about_the_draught_rule_with_a_turbulence_point(tmp_path):
+    """A turbulence-intensity point (per cent, the canonical unit; a fraction is converted)
+    lets the draught rule raise: check must not say it never can."""
+    from thermowarden.site_check import check_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text(textwrap.dedent("""\
+        site: {id: s, timezone: UTC}
+        defaults: {occupancy: {always: true}, people: {met: 1.2, clo: 0.6}}
+        spaces:
+          - id: desk
+            rule_packs: [draught]
+            points:
+              - {topic: d/ta, quantity: air_temperature}
+              - {topic: d/v, quantity: air_speed}
+              - {topic: d/tu, quantity: turbulence_intensity, unit: fraction}
+        """))
+    report = check_site(str(site))
+    assert report.ok, report.issues
+    assert not [w for w in report.warnings if "draught" in w], report.warnings

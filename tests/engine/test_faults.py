@@ -276,3 +276,40 @@ def test_readings_after_a_clock_step(lab, step):
     assert lab.message("lab/room-2/ta", b"23", now) == []
     lab.tick(now)
     assert lab.conditions_payload(1)["inputs"]["air_temperature"]["fresh"] is True
+
+
+@pytest.mark.parametrize("step", [-7200.0, 3600.0])
+def test_shelving_budget_and_conditions_keep_monotonic_time_across_a_step(lab, step):
+    # an urgent advisory shelved for 60 s at t = 100; the wall clock is stepped at t = 130
+    # (engine time 130 + step from then on): the shelving ends 30 s later, not 30 s + step
+    # later (back) or at once (forward); the daily budget counts the 60 s used, and the
+    # conditions schedule (every 60 s) goes on
+    run(lab, 0, 70, **{"room-1": 38})
+    adv = next(a for a in lab.live_advisories() if a.rule == "testpack.levels")
+    assert adv.priority == "urgent"
+    reply, _ = command(lab, "shelve", 100, advisory_id=adv.id, by="lead", reason="drill",
+                       duration_s=60)
+    assert reply["ok"] and adv.state.name == "SHELVED"
+    run(lab, 110, 120, **{"room-1": 38})
+    effects = lab.clock_stepped(130 + step, step)
+    validate_effects(effects)
+    # the store keeps the moved timer (a restart goes on from it)
+    stored = [e.record for e in effects if isinstance(e, Persist) and e.kind == "advisory"
+              and e.record and e.record["rule"] == "testpack.levels"]
+    assert [r["shelved_until"] for r in stored] == [160.0 + step]
+    run(lab, 130 + step, 150 + step, **{"room-1": 38})
+    assert adv.state.name == "SHELVED"  # 50 s of the 60 used
+    e = run(lab, 160 + step, 160 + step, **{"room-1": 38})
+    assert adv.state.name == "ACTIVE"
+    assert ("unshelved", "testpack.levels", "urgent") in events(e)
+    after = [x for t in range(170, 400, 10) for x in run(lab, t + step, t + step,
+                                                          **{"room-1": 38})]
+    conditions = [x for x in after if isinstance(x, Publish) and x.topic.endswith("/conditions")]
+    assert len(conditions) >= 2 * 3  # both spaces, at least three times in 230 s
+    # the report samples (every 300 s, the first at t = 0) go on: one at about t = 300
+    samples = [x for x in after if isinstance(x, Persist) and x.kind == "sample"]
+    assert len(samples) == 1 and 290 <= float(samples[0].record["t"]) - step <= 310
+    # the budget (max_shelve_s 600 for the urgent level) counts the 60 s used
+    reply, _ = command(lab, "shelve", 400 + step, advisory_id=adv.id, by="lead", reason="x",
+                       duration_s=600)
+    assert not reply["ok"] and "540 s are left" in reply["error"]

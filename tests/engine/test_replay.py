@@ -35,6 +35,9 @@ def test_every_default_rule_fires(day):
     # a failing computation is not in a recorded day of good inputs: these two are raised
     # by tests/engine/test_faults.py::test_a_failing_computation_stays_in_its_space
     every -= {"sensor_health.phs_failed", "sensor_health.indices_failed"}
+    # the recorded summer day has no cool spell with fans on or blinds down: these two are
+    # raised by tests/engine/test_equipment_state.py
+    every -= {"fans.turn_down_fans", "shading.raise_shading"}
     assert every <= raised, sorted(every - raised)
 
 

@@ -40,13 +40,18 @@ def test_cli_compare_prints_what_a_shading_threshold_changes():
     r = subprocess.run(cmd, capture_output=True, text=True, timeout=600)
     assert r.returncode == 0, r.stderr
     changed = [line for line in r.stdout.splitlines() if line.startswith("*")]
-    # with the thresholds out of reach the shading advice of the day disappears
+    # with the thresholds out of reach the shading advice of the day disappears; the advice
+    # ahead of the sun (ahead.sun_on_windows) then turns into nothing and ends with its own
+    # message an hour after the sun came (one more notification)
+    ahead = [line for line in changed if "ahead.sun_on_windows" in line]
+    changed = [line for line in changed if "ahead.sun_on_windows" not in line]
     assert len(changed) == 1 and SHADING in changed[0], r.stdout
+    assert len(ahead) == 1 and ahead[0].split()[3:7] == ["1", "1", "1", "2"], r.stdout
     raised_a, raised_b, notes_a, notes_b, active_a, active_b = changed[0].split()[3:]
     assert int(raised_a) >= 1 and int(raised_b) == 0
     assert int(notes_a) > int(notes_b) == 0
     assert float(active_a) > float(active_b) == 0.0
-    assert "1 rule(s) changed" in r.stdout
+    assert "2 rule(s) changed" in r.stdout
     assert "asymmetry_limit_k=25" in r.stdout
     assert "replayed" not in r.stderr  # progress only on a terminal
 

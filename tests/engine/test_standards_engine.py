@@ -285,9 +285,16 @@ def test_natural_wet_bulb_from_irradiance_without_globe(sunny):
     c = sunny["field"]
     assert value(c, "natural_wet_bulb_estimated") == pytest.approx(SUN["tnw"], abs=tol["tnw"])
     assert "irradiance" in c["natural_wet_bulb_estimated"]["method"]
-    # no globe: WBGT itself still needs one (ISO 7243), and says so
-    assert c["wbgt"]["value"] is None
-    assert "globe_temperature" in c["wbgt"]["reason"]
+    # no globe: WBGT (ISO 7243 eq. 2, with solar load) rests on the globe estimated from the
+    # irradiance (checked against the same reference code in tests/core/test_solar.py)
+    tg = value(c, "globe_temperature_estimated")
+    assert tg > SUN["ta"] + 5
+    assert value(c, "wbgt") == pytest.approx(
+        0.7 * value(c, "natural_wet_bulb_estimated") + 0.2 * tg + 0.1 * SUN["ta"], abs=0.02)
+    assert "globe_temperature_estimated" in c["wbgt"]["method"]
+    # and UTCI from a person's mean radiant temperature in the same radiation field
+    assert c["mean_radiant_temperature_source"]["value"] == "sun and irradiance (no globe)"
+    assert c["utci"]["value"] is not None
 
 
 def test_shaded_outdoor_space_without_globe_gets_no_estimate(sunny):

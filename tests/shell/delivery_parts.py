@@ -83,10 +83,16 @@ def engine_events(tmp_path) -> dict[tuple[str, str], dict[str, Any]]:
 
 
 class Receiver:
-    """A local webhook receiver; ``statuses`` are answered in turn, then 200."""
+    """A local webhook receiver; ``statuses`` are answered in turn, then 200.
 
-    def __init__(self, statuses: list[int] | None = None, port: int | None = None) -> None:
+    A slow receiver: with ``gate``, each request is recorded when it arrives and answered
+    when the gate opens or after ``hold_s`` seconds, whichever comes first; ``answered``
+    holds the monotonic time of each answer."""
+
+    def __init__(self, statuses: list[int] | None = None, port: int | None = None,
+                 gate: threading.Event | None = None, hold_s: float = 0.0) -> None:
         self.requests: list[tuple[dict[str, str], bytes]] = []
+        self.answered: list[float] = []
         self.statuses = list(statuses or [])
         self.lock = threading.Lock()
         outer = self
@@ -96,7 +102,11 @@ class Receiver:
                 body = self.rfile.read(int(self.headers.get("Content-Length", "0")))
                 with outer.lock:
                     status = outer.statuses.pop(0) if outer.statuses else 200
-                    outer.requests.append((dict(self.headers.items()), body))
+                    outer.requests.append(({k.lower(): v for k, v in self.headers.items()}, body))
+                if gate is not None:
+                    gate.wait(hold_s)  # the receiver's own slowness, not a test's wait
+                with outer.lock:
+                    outer.answered.append(time.monotonic())
                 self.send_response(status)
                 if 300 <= status < 400:
                     self.send_header("Location", "/elsewhere")
@@ -126,6 +136,7 @@ class SmtpSink:
 
     def __init__(self, replies: list[str] | None = None) -> None:
         self.messages: list[Any] = []
+        self.arrived: list[float] = []  # monotonic time of each message taken
         self.replies = list(replies or [])
         outer = self
 
@@ -134,6 +145,7 @@ class SmtpSink:
                 if outer.replies:
                     return outer.replies.pop(0)
                 outer.messages.append(envelope)
+                outer.arrived.append(time.monotonic())
                 return "250 Message accepted"
 
         self.port = free_port()

@@ -153,18 +153,29 @@ def _publish_packet(topic: str, payload: bytes, v5: bool, qos: int = 0, mid: int
 
 @pytest.mark.parametrize("v5", [True, False], ids=["mqtt5", "mqtt311"])
 @pytest.mark.parametrize("piece", [1, 2, 3, 5, 64, 1000])
-def test_a_stream_cut_anywhere_is_read_whole(v5: bool, piece: int) -> None:
+@pytest.mark.parametrize("limit", [0, 200], ids=["no-limit", "limit-200"])
+def test_a_stream_cut_anywhere_is_read_whole(v5: bool, piece: int, limit: int) -> None:
     """A server on loopback answers CONNECT and then sends packets in pieces of
-    ``piece`` bytes (each its own send): a packet arrives whole, split, or with the next one."""
+    ``piece`` bytes (each its own send): a packet arrives whole, split, or with the next one.
+    With ``limit``, a PUBLISH over it is dropped unread and reported with its size, and
+    everything after it is still read whole."""
     server = socket.socket()
     server.bind(("127.0.0.1", 0))
     server.listen(1)
     port = server.getsockname()[1]
     payloads = [f"{k}".encode() * (k % 9 + 1) for k in range(200)]
+    for k in range(0, 200, 23):  # large ones among them (one of 70 kB: over READ_CHUNK)
+        payloads[k] = b"L" * (70_000 if k == 46 else 250 + k)
     payloads.append(b"x" * 300)  # a remaining length of two bytes
-    stream = b"".join(_publish_packet(f"a/{k}", p, v5, qos=k % 2, mid=k + 1)
-                      for k, p in enumerate(payloads))
-    got: list[bytes] = []
+    packets = [_publish_packet(f"a/{k}", p, v5, qos=k % 2, mid=k + 1)
+               for k, p in enumerate(payloads)]
+    stream = b"".join(packets)
+    expected: list[Any] = []
+    for p, packet in zip(payloads, packets, strict=True):
+        size = len(packet) - 1 - len(_encode_length(len(packet)))  # remaining length
+        size = len(packet) - 1 - len(_encode_length(size))  # (its encoding settled)
+        expected.append(("oversized", size) if limit and size > limit else p)
+    got: list[Any] = []
     acks = bytearray()
 
     def serve() -> None:
@@ -189,12 +200,16 @@ def test_a_stream_cut_anywhere_is_read_whole(v5: bool, piece: int) -> None:
     c = BufferedClient(callback_api_version=CallbackAPIVersion.VERSION2,
                        protocol=mqtt.MQTTv5 if v5 else mqtt.MQTTv311)
     c.on_message = lambda cl, u, m: got.append(bytes(m.payload))
+    c.max_publish_bytes = limit
+    c.on_oversized = lambda m: got.append(("oversized", m.size))
     c.connect("127.0.0.1", port, 30)
     c.loop_start()
     try:
         wait_for(lambda: len(got) >= len(payloads), SLOW, "every message")
         thread.join(SLOW)
-        assert got == payloads
+        assert got == expected
+        if limit:
+            assert sum(1 for g in got if isinstance(g, tuple)) == 10
         # PUBACKs (0x40 0x02 <mid>) for the QoS 1 messages, in order (MQTT 3.1.1 form; paho
         # sends the short form under MQTT 5 too when the reason is success)
         mids = [int.from_bytes(acks[i + 2:i + 4], "big") for i in range(0, len(acks), 4)

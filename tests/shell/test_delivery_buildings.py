@@ -233,3 +233,35 @@ delivery:
     msgs = [str(i) for i in pytest.raises(ConfigError, load_site, site, {}).value.issues]
     assert any("site.yaml:9:" in m and "no building or area 'wrks'" in m
                and "did you mean 'works'" in m for m in msgs), msgs
+
+
+def test_escalation_timer_moves_with_a_step_of_the_wall_clock(tmp_path, events):
+    """A step of the wall clock (the service measures it against the monotonic clock and
+    hands it to the delivery) moves a waiting timer by the step: the alert still waits its
+    after_s of elapsed time, and waited_s does not count the step."""
+    second = Receiver()
+    clock = MovableClock(local("2026-07-14T14:00:00"))
+    audience = {"escalation": {"after_s": 600, "webhook": hook(tmp_path, second.url)},
+                "buildings": {"works": {"webhook": hook(tmp_path, second.url)}}}
+    urgent = events[("kiln-hall", "heat")]
+    d = start(tmp_path, audience, clock)
+    try:
+        d.offer("safety", urgent)
+        wait_until(lambda: escalation_rows(tmp_path) == {urgent["advisory"]["id"]: "waiting"},
+                   what="the timer")
+        db = sqlite3.connect(tmp_path / "store.sqlite3")
+        try:
+            (due,) = db.execute("SELECT due FROM escalations").fetchone()
+            d.clock_stepped(3600.0)
+            (moved,) = db.execute("SELECT due FROM escalations").fetchone()
+        finally:
+            db.close()
+        assert moved == pytest.approx(due + 3600.0)
+        clock.jump_to(moved + 2)
+        wait_until(lambda: len(second.requests) == 2, what="the escalation")
+        body = second.bodies()[-1]
+        assert body["event"] == "unacknowledged"
+        assert 600 <= body["waited_s"] < 700
+    finally:
+        d.stop()
+        second.close()

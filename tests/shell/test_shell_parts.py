@@ -44,9 +44,10 @@ def test_json_log_lines():
 
 def test_store_round_trips_and_outbox_order(tmp_path):
     s = Store(tmp_path / "x" / "site.sqlite3")
-    s.put_advisory("a/r", {"state": 2})
-    s.put_advisory("a/r", {"state": 3})
-    assert s.advisories() == [{"state": 3}]
+    rec = {"space": "a", "rule": "r", "payload": {}}
+    s.put_advisory("a/r", {**rec, "state": 2})
+    s.put_advisory("a/r", {**rec, "state": 3})
+    assert s.advisories() == [{**rec, "state": 3}]
     s.put_advisory("a/r", None)
     assert s.advisories() == []
     seqs = [s.outbox_add(f"t/{k}", {"k": k}, 1.0) for k in range(3)]
@@ -78,15 +79,16 @@ def test_store_transaction_is_all_or_nothing(tmp_path):
     import pytest
 
     s = Store(tmp_path / "site.sqlite3")
+    rec = {"space": "a", "rule": "r", "payload": {}, "state": 2}
     with pytest.raises(RuntimeError), s.transaction():
-        s.put_advisory("a/r", {"state": 2})
+        s.put_advisory("a/r", rec)
         s.outbox_add("t/e", {"event": "raised"}, 1.0)
         raise RuntimeError("crash between the writes")
     assert s.advisories() == [] and s.outbox_depth() == 0
     with s.transaction():
-        s.put_advisory("a/r", {"state": 2})
+        s.put_advisory("a/r", rec)
         s.outbox_add("t/e", {"event": "raised"}, 1.0)
-    assert s.advisories() == [{"state": 2}] and s.outbox_depth() == 1
+    assert s.advisories() == [rec] and s.outbox_depth() == 1
     s.close()
 
 

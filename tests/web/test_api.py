@@ -4,7 +4,10 @@ changes nothing."""
 
 from __future__ import annotations
 
+import base64
+import hashlib
 import http.cookiejar
+import logging
 import re
 import urllib.parse
 import urllib.request
@@ -153,13 +156,44 @@ def test_shelve_and_unshelve_by_api_with_the_rules_limits(web_site: WebSite):
         "by"] == "ivo"
 
 
-def test_signing_out_ends_the_session(web_site: WebSite):
+def test_signing_out_ends_the_session(web_site: WebSite, caplog):
+    caplog.set_level(logging.INFO, logger="thermowarden.web")
     token = web_site.token("ivo")
     auth = {"Authorization": f"Bearer {token}"}
     assert web_site.send("DELETE", "/api/session", None, auth)[0] == 204
     assert web_site.send("POST", "/api/advisories/x/acknowledge", {}, auth)[0] == 401
-    assert web_site.send("POST", "/api/session", {"name": "ivo", "password": "wrong"})[0] == 401
+    assert web_site.send("POST", "/api/session",
+                         {"name": "ivo", "password": "Wr0ng-Guess-17"})[0] == 401
     assert web_site.send("POST", "/api/session", {"name": "nobody", "password": "x"})[0] == 401
+    # sign-ins and failures are logged with the caller's address, never the password
+    lines = [r.getMessage() for r in caplog.records if r.name == "thermowarden.web"]
+    assert any(x.startswith("web sign-in as 'ivo' from 127.0.0.1") for x in lines), lines
+    assert any("'ivo' from 127.0.0.1 failed: wrong password" in x for x in lines), lines
+    assert any("'nobody' from 127.0.0.1 failed: unknown name" in x for x in lines), lines
+    assert not any("Wr0ng-Guess-17" in x or USERS["ivo"][0] in x for x in lines)
+
+
+def test_pages_and_api_carry_security_headers(web_site: WebSite):
+    for path in ("/", "/login", "/api/spaces", "/spaces/no-such-space"):
+        req = urllib.request.Request(web_site.base + path)
+        try:
+            with urllib.request.urlopen(req, timeout=10) as r:
+                headers = r.headers
+        except urllib.error.HTTPError as exc:
+            with exc:
+                headers = exc.headers
+        csp = headers["Content-Security-Policy"]
+        assert "frame-ancestors 'none'" in csp and "default-src 'none'" in csp, path
+        assert "script-src" not in csp and "unsafe-inline" not in csp
+        assert headers["X-Frame-Options"] == "DENY"
+        assert headers["X-Content-Type-Options"] == "nosniff"
+    # the one stylesheet of the page is the one the policy allows
+    with urllib.request.urlopen(web_site.base + "/", timeout=10) as r:
+        html = r.read().decode()
+    css = re.search(r"<style>(.*?)</style>", html, re.S).group(1)
+    digest = base64.b64encode(hashlib.sha256(css.encode()).digest()).decode()
+    assert f"style-src 'sha256-{digest}'" in csp
+    assert " style=" not in html and "<script" not in html
 
 
 class _NoRedirect(urllib.request.HTTPRedirectHandler):

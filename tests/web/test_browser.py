@@ -90,6 +90,10 @@ def test_overview(browser, web_site: WebSite):
     live = browser.find_elements(By.CSS_SELECTOR, "ul.adv li")
     assert len(live) == len(web_site.live()) > 0
     assert "Advisory only" in browser.page_source
+    # the page's stylesheet applies under its Content-Security-Policy (allowed by its hash)
+    assert browser.execute_script(
+        "return getComputedStyle(document.querySelector('header')).backgroundColor"
+    ) == "rgb(35, 52, 64)"
     screenshot(browser, "overview")
     browser.set_window_size(390, 844)  # a phone
     browser.get(web_site.base + "/")
@@ -146,6 +150,9 @@ def test_advisory_page_and_acknowledge_through_it(browser, web_site: WebSite):
     browser.find_element(By.ID, "sign-in").click()
     wait_for(lambda: browser.find_elements(By.ID, "acknowledge"), 20,
              "the acknowledge button after signing in")
+    # the sign-out form is styled by class, not a style attribute the policy would block
+    assert browser.execute_script(
+        "return getComputedStyle(document.querySelector('form.inline')).display") == "inline"
     browser.find_element(By.NAME, "note").send_keys("water and shade arranged")
     browser.find_element(By.ID, "acknowledge").click()
     wait_for(lambda: "Acknowledged by ana" in browser.page_source, 20, "the confirmation")

@@ -6,6 +6,7 @@ from __future__ import annotations
 import base64
 import datetime as dt
 import json
+import logging
 import pathlib
 
 import pytest
@@ -96,6 +97,32 @@ def test_repeated_failures_lock_the_name_for_a_while(tmp_path):
     assert s.sign_in("ana", "pw") is not None
 
 
+def test_failed_sign_ins_and_the_lock_are_logged(tmp_path, caplog):
+    caplog.set_level(logging.INFO, logger="thermowarden.web")
+    s, clock = _sessions(tmp_path)
+    assert s.sign_in("nobody", "guess-1", "192.0.2.7") is None
+    for _ in range(FAILURES_ALLOWED):
+        assert s.sign_in("ana", "guess-2", "192.0.2.8") is None
+    for _ in range(3):
+        assert s.sign_in("ana", "pw", "192.0.2.9") is None  # locked
+    clock[0] += 301.0
+    assert s.sign_in("ana", "pw", "192.0.2.8") is not None
+    lines = [r.getMessage() for r in caplog.records]
+    levels = {r.getMessage(): r.levelname for r in caplog.records}
+    assert lines[0].startswith("web sign-in as 'nobody' from 192.0.2.7 failed: unknown name")
+    failed = [x for x in lines if x.startswith("web sign-in as 'ana' from 192.0.2.8 failed: "
+                                                "wrong password")]
+    assert len(failed) == FAILURES_ALLOWED
+    locked = [x for x in lines if "locked for up to 300 s after 5 failures" in x]
+    assert len(locked) == 1
+    refused = [x for x in lines if "from 192.0.2.9 refused: locked" in x]
+    assert len(refused) == 1  # the first attempt while locked; the others are counted
+    assert lines[-1] == ("web sign-in as 'ana' from 192.0.2.8; 3 attempt(s) were refused "
+                         "while it was locked")
+    assert levels[lines[-1]] == "INFO" and all(levels[x] == "WARNING" for x in failed + locked)
+    assert not any("guess" in x for x in lines)  # never a password
+
+
 def test_live_view_keeps_copies_of_what_was_published():
     view = LiveView("p")
     history = [{"at": "2026-07-14T10:00:00Z", "event": "raised"}]
@@ -157,20 +184,110 @@ def test_openapi_document_ships_and_covers_the_api():
     json.dumps(doc)
 
 
-def test_web_user_command_prints_a_loadable_entry(tmp_path):
+def _web_user(*args: str, password: str = "a long password"):
     import subprocess
     import sys
 
-    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "web-user", "dee",
-                        "--audience", "safety", "--audience", "integrator"],
-                       input="a long password\n", capture_output=True, text=True, timeout=60)
+    return subprocess.run([sys.executable, "-m", "thermowarden.cli", "web-user", *args],
+                          input=password + "\n", capture_output=True, text=True, timeout=60)
+
+
+def test_web_user_command_prints_a_whole_loadable_file(tmp_path):
+    r = _web_user("dee", "--audience", "safety", "--audience", "integrator")
     assert r.returncode == 0, r.stderr
     p = tmp_path / "users.yaml"
-    p.write_text("users:\n" + r.stdout)
+    p.write_text(r.stdout)
     entry = load_users(p)["dee"]
     assert entry.audiences == ["integrator", "safety"]
     assert verify_password("a long password", entry.password_hash)
     assert check_hash(entry.password_hash)[0] == 600_000
+
+
+def test_web_user_command_writes_adds_and_replaces_in_a_users_file(tmp_path):
+    import stat
+
+    p = tmp_path / "users.yaml"
+    assert _web_user("dee", "--audience", "safety", "--file", str(p)).returncode == 0
+    assert stat.S_IMODE(p.stat().st_mode) == 0o600
+    r = _web_user("ana", "--audience", "facilities", "--file", str(p))
+    assert r.returncode == 0 and "added ana" in r.stdout
+    r = _web_user("dee", "--audience", "integrator", "--file", str(p),
+                  password="another long one")
+    assert r.returncode == 0 and "replaced dee" in r.stdout
+    users = load_users(p)
+    assert sorted(users) == ["ana", "dee"] and users["dee"].audiences == ["integrator"]
+    assert verify_password("another long one", users["dee"].password_hash)
+    # a file that is not a users file is left alone
+    p.write_text("- name: x\n")
+    r = _web_user("eve", "--audience", "safety", "--file", str(p))
+    assert r.returncode == 78 and "not changed" in r.stderr
+    assert p.read_text() == "- name: x\n"
+
+
+def test_check_reads_the_users_file_as_run_does(tmp_path):
+    from thermowarden.site_check import check_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text((REPO / "deploy" / "example-site.yaml").read_text()
+                    + "\nweb: {enabled: true, port: 1, users_file: users.yaml}\n")
+    report = check_site(str(site))
+    assert not report.ok and "does not exist" in str(report.issues[0])
+    # entries without the users: key (what a bare entry pasted into a file gives)
+    (tmp_path / "users.yaml").write_text("  - name: ana\n    audiences: [safety]\n"
+                                         "    password_hash: x\n")
+    assert not check_site(str(site)).ok
+    assert _web_user("ana", "--audience", "safety", "--file",
+                     str(tmp_path / "users.yaml")).returncode == 78
+    (tmp_path / "users.yaml").unlink()
+    assert _web_user("ana", "--audience", "safety", "--file",
+                     str(tmp_path / "users.yaml")).returncode == 0
+    assert check_site(str(site)).ok
+
+
+@pytest.mark.broker
+def test_run_starts_with_a_users_file_made_by_web_user(tmp_path, web_broker_port):
+    import urllib.error
+    import urllib.request
+    import uuid
+
+    from tests.shell.conftest import (
+        ServiceProcess,
+        clear_retained,
+        free_port,
+        wait_for,
+        write_site,
+    )
+
+    port = free_port()
+    prefix = f"tw{uuid.uuid4().hex[:6]}"
+    site = write_site(tmp_path, prefix, web_broker_port, ["r1"],
+                      extra=f"web: {{enabled: true, port: {port}, users_file: users.yaml}}\n")
+    assert _web_user("ana", "--audience", "safety", "--file",
+                     str(tmp_path / "users.yaml")).returncode == 0
+    service = ServiceProcess(site, tmp_path / "state").start()
+
+    def sign_in() -> dict | None:
+        req = urllib.request.Request(
+            f"http://127.0.0.1:{port}/api/session", method="POST",
+            data=json.dumps({"name": "ana", "password": "a long password"}).encode(),
+            headers={"Content-Type": "application/json"})
+        try:
+            with urllib.request.urlopen(req, timeout=10) as r:
+                return json.load(r)
+        except urllib.error.HTTPError as exc:
+            exc.close()
+            return None
+        except OSError:
+            return None
+
+    try:
+        got: list[dict] = []
+        wait_for(lambda: bool(got.append(sign_in() or {}) or got[-1]), 60,
+                 "the page to sign ana in")
+        assert got[-1]["name"] == "ana" and got[-1]["audiences"] == ["safety"]
+    finally:
+        service.stop()
+        clear_retained(web_broker_port, prefix)
 
 
 def test_web_section_is_checked_with_its_position(tmp_path):

@@ -114,6 +114,7 @@ from thermowarden.config.site import (
     SpaceDefaults,
     WorkClass,
 )
+from thermowarden.config.windows import OverhangConfig, WindowConfig
 
 # The names these two helpers had while config was one module.
 _issues_from_validation = issues_from_validation
@@ -132,6 +133,7 @@ __all__ = [
     "RuleConfig", "RuleEffect", "RuleLevel", "RuleMessages", "RuleNumber", "RulePackConfig",
     "SenmlFormat", "Side", "SiteConfig", "SiteInfo", "SmtpConfig", "SourceMap",
     "SpaceConfig", "SpaceDefaults", "StateFormat", "Strict", "TemplateConfig", "TlsConfig",
+    "OverhangConfig", "WindowConfig",
     "WebConfig", "WebhookConfig", "WorkClass",
     "issues_from_validation", "load_rule_pack_file", "load_site", "read_password",
     "read_yaml_file",

@@ -11,8 +11,8 @@ from pydantic import ConfigDict, Field, SecretStr, field_validator, model_valida
 from thermowarden.config.base import Strict
 
 DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
-                         "shelved", "unshelved", "cleared", "summary", "unacknowledged",
-                         "report"]
+                         "shelved", "unshelved", "cleared", "summary", "notice",
+                         "unacknowledged", "report"]
 
 
 class WebhookConfig(Strict):
@@ -94,7 +94,7 @@ class BuildingRecipients(Recipients):
 
 
 def _default_events() -> list[DeliveredEvent]:
-    return ["raised", "escalated", "renotified", "cleared", "summary"]
+    return ["raised", "escalated", "renotified", "cleared", "summary", "notice"]
 
 
 _QUIET = re.compile(r"^([01]\d|2[0-3]):([0-5]\d)-([01]\d|2[0-3]):([0-5]\d)$")
@@ -146,7 +146,9 @@ class RetryConfig(Strict):
 
 
 class DeliveryConfig(Strict):
-    """Delivery of events to people by webhook and e-mail, per audience (optional)."""
+    """Delivery of events to people by webhook and e-mail, per audience (optional).
+    ``queue_size``: the most deliveries waiting in the store (held or pending); beyond it an
+    event is not stored for delivery (counted and logged; it is still published)."""
 
     audiences: dict[Literal["facilities", "safety", "integrator"], AudienceDelivery] = Field(
         default_factory=dict)

@@ -25,6 +25,7 @@ from thermowarden.config.positions import (
 )
 from thermowarden.config.rule_packs import RulePackConfig
 from thermowarden.config.site import SiteConfig, TreeIssues
+from thermowarden.config.windows import window_issues
 
 ENV_PREFIX = "THERMOWARDEN_"
 
@@ -302,6 +303,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
                                       f"{'.'.join(map(str, where))}: {message}"))
         raise ConfigError(issues) from None
     issues.extend(_rule_pack_name_issues(config, smap, p))
+    issues.extend(window_issues(config, smap))
     if issues:
         raise ConfigError(issues)
     return config

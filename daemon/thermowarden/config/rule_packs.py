@@ -22,6 +22,8 @@ class AppliesTo(Strict):
     kind: Literal["indoor", "outdoor"] | None = None
     hot_work: bool | None = None
     ventilation: Literal["mechanical", "natural"] | None = None
+    windows: bool | None = None
+    """The space declares windows (for the sun on a facade)."""
 
 
 class RuleLevel(Strict):
@@ -67,6 +69,16 @@ class RuleNumber(Strict):
     threshold: str | None = None
 
 
+class RuleForesees(Strict):
+    """What an ahead-of-time rule foresees: the advisory of ``rule`` (``pack.id``) in the
+    same space reaching ``priority`` (default: any). When it does, the ahead-of-time
+    advisory ends (it has turned into that advisory); ``replay --summary`` measures the
+    lead time against it."""
+
+    rule: str = Field(pattern=r"^[a-z][a-z0-9_]{0,47}\.[a-z][a-z0-9_]{0,47}$")
+    priority: Priority | None = None
+
+
 class RuleConfig(Strict):
     """One rule of a pack. See rules/*.yaml for the default packs."""
 
@@ -76,6 +88,10 @@ class RuleConfig(Strict):
     priority: Priority = "medium"
     applies_to: AppliesTo = Field(default_factory=AppliesTo)
     needs: list[str] = Field(default_factory=list)
+    measured: list[str] = Field(default_factory=list)
+    """Inputs a declared assumption (``assume``) may not stand in for: a rule about the
+    humidity itself says nothing when the humidity is only assumed. Where one is assumed the
+    rule is unknown (never raised, never cleared), and ``check`` warns."""
     condition: str | None = None
     levels: list[RuleLevel] = Field(default_factory=list)
     clear: str | None = None
@@ -95,6 +111,8 @@ class RuleConfig(Strict):
     often it is shelved (default: ``max_shelve_s``, at most a day)."""
     heat_stress_cautions: bool = False
     effect: RuleEffect | None = None
+    foresees: RuleForesees | None = None
+    """An ahead-of-time rule: the advisory it announces (see :class:`RuleForesees`)."""
 
     @field_validator("numbers", mode="before")
     @classmethod

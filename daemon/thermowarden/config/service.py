@@ -29,6 +29,9 @@ class EvaluationConfig(Strict):
     tick_s: float = Field(10.0, ge=0.5, le=3600)
     flood_limit: int = Field(10, ge=1, le=100_000)
     flood_window_s: float = Field(600.0, ge=10, le=86_400)
+    trend_window_s: float = Field(1200.0, ge=300, le=3600)
+    """Window of the spot WBGT's trend fit for the ahead-of-time heat-stress advice
+    (engine/foresight.py)."""
 
 
 class RetentionConfig(Strict):

@@ -22,6 +22,7 @@ from thermowarden.config.service import (
     RetentionConfig,
     WebConfig,
 )
+from thermowarden.config.windows import WindowConfig
 from thermowarden.core import heat_stress
 from thermowarden.core.quantities import QUANTITIES, STATE_QUANTITIES
 from thermowarden.core.topics import TREE_PLACEHOLDERS, TopicTemplate
@@ -131,6 +132,10 @@ class Assumptions(Strict):
 
     air_speed: float | None = Field(None, ge=0.0, le=1.0)
     """m/s; 0.1 is still air (ASHRAE 55's still-air speed)."""
+    relative_humidity: float | None = Field(None, ge=5.0, le=95.0)
+    """%; for a zone that measures only air temperature (PMV depends little on humidity
+    between 30 and 70 %). Rules about humidity itself (too humid, too dry, condensation)
+    never rest on an assumption."""
     mean_radiant_temperature: str | None = None
     """``air`` (equal to the air temperature: no warm or cold surfaces) or ``air+2`` /
     ``air-1.5`` (offset in K from it)."""
@@ -165,6 +170,8 @@ class Assumptions(Strict):
             out["mean_radiant_temperature"] = (
                 "assumed: equal to the air temperature" if off == 0.0 else
                 f"assumed: air temperature {off:+g} K")
+        if self.relative_humidity is not None:
+            out["relative_humidity"] = f"assumed: {self.relative_humidity:g} %"
         return out
 
 
@@ -240,6 +247,8 @@ class SpaceConfig(Strict):
     assume: Assumptions | None = None
     trust: TrustTable = Field(default_factory=dict)
     points: list[PointConfig] = Field(default_factory=list)
+    windows: list[WindowConfig] = Field(default_factory=list)
+    """Glazing of the space, for the sun-on-the-facade forecast (config/windows.py)."""
 
     _trust = field_validator("trust")(_check_trust)
 
@@ -614,11 +623,9 @@ class SiteConfig(Strict):
         """The space's assumptions, each one falling back to ``defaults.assume``."""
         base = self.defaults.assume or Assumptions()
         own = space.assume or Assumptions()
-        return Assumptions(
-            air_speed=own.air_speed if own.air_speed is not None else base.air_speed,
-            mean_radiant_temperature=(own.mean_radiant_temperature
-                                      if own.mean_radiant_temperature is not None
-                                      else base.mean_radiant_temperature))
+        return Assumptions(**{
+            name: getattr(own, name) if getattr(own, name) is not None else getattr(base, name)
+            for name in Assumptions.model_fields})
 
     def rule_packs(self, space: SpaceConfig) -> list[str]:
         return space.rule_packs if space.rule_packs is not None else self.defaults.rule_packs

@@ -44,6 +44,26 @@ def ashrae_comfort_temperature(prevailing_mean_c: FloatArray) -> FloatArray:
     return result
 
 
+ELEVATED_AIR_SPEED_K: Final = ((0.6, 1.2), (0.9, 1.8), (1.2, 2.2))
+"""ASHRAE 55-2020 Table 5.4.2.4: (average air speed from, m/s; increase of the upper
+acceptable operative temperature limits, K) in occupant-controlled naturally conditioned
+spaces, where the operative temperature is above 25 °C."""
+
+
+def ashrae_air_speed_increase(air_speed: FloatArray, operative_c: FloatArray) -> FloatArray:
+    """Increase (K) of ASHRAE 55's adaptive upper limits for elevated air speed: 1.2 K from
+    0.6 m/s, 1.8 K from 0.9 m/s, 2.2 K from 1.2 m/s (ASHRAE 55-2020 5.4.2.4, Table 5.4.2.4;
+    steps, as pythermalcomfort applies it), only where the operative temperature is above
+    25 °C; 0 elsewhere and where either is not known."""
+    v = np.asarray(air_speed, dtype=np.float64)
+    to = np.asarray(operative_c, dtype=np.float64)
+    inc = np.zeros(v.shape)
+    for speed, k in ELEVATED_AIR_SPEED_K:
+        inc = np.where(v >= speed - 1e-9, k, inc)  # a mean of readings of 0.9 may be 0.8999...
+    result: FloatArray = np.where(to > 25.0, inc, 0.0)
+    return result
+
+
 def en_comfort_temperature(running_mean_c: FloatArray) -> FloatArray:
     """EN 16798-1:2019 eq. (B.1): theta_c = 0.33 theta_rm + 18.8 (valid 10-30 °C)."""
     result: FloatArray = 0.33 * np.asarray(running_mean_c, dtype=np.float64) + 18.8

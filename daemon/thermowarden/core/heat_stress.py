@@ -202,6 +202,129 @@ def natural_wet_bulb_liljegren_sun(air_c: FloatArray, rh: FloatArray, air_speed:
     return _wick_balance(air_c, rh, air_speed, pressure_pa, radiant_t4, absorbed)
 
 
+_GLOBE_DIAMETER_M: Final = 0.0508
+"""The globe of Liljegren et al. (2008) and their code: 2 in (50.8 mm), black."""
+_GLOBE_EMISSIVITY: Final = 0.95
+_GLOBE_ALBEDO: Final = 0.05
+
+
+def _sky_and_ground_t4(air_c: FloatArray, rh: FloatArray) -> FloatArray:
+    """Fourth power (K^4) of the long-wave radiant temperature of half sky (emissivity
+    0.575 ea^0.143, ea in hPa; Oke) and half ground at the air temperature (emissivity
+    0.999), as Liljegren et al. (2008) take them."""
+    from thermowarden.core.psychrometrics import saturation_pressure_water
+
+    ta = np.asarray(air_c, dtype=np.float64)
+    ea_hpa = np.asarray(rh, dtype=np.float64) / 100.0 * saturation_pressure_water(ta) / 100.0
+    with np.errstate(invalid="ignore"):
+        eps_atm = 0.575 * ea_hpa ** 0.143
+    result: FloatArray = 0.5 * (eps_atm + _GROUND_EMISSIVITY) * (ta + 273.15) ** 4
+    return result
+
+
+def _sphere_sun_w_m2(global_w_m2: FloatArray, direct: FloatArray, cos_zenith: FloatArray,
+                     absorptivity: float = 1.0 - _GLOBE_ALBEDO) -> FloatArray:
+    """Sunlight absorbed per m² of a sphere's surface (a black globe's absorptivity 0.95
+    unless told), Liljegren et al. (2008): S (1 - a) / 2 [f (1 / (2 cos z) - 1) + 1 + a_sfc],
+    the direct beam on the sphere's cross-section, the diffuse light and the light the
+    ground reflects."""
+    cza = np.asarray(cos_zenith, dtype=np.float64)
+    f = np.asarray(direct, dtype=np.float64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        beam = np.where((f > 0.0) & (cza > 0.0), f * (1.0 / (2.0 * cza) - 1.0), 0.0)
+    result: FloatArray = (np.asarray(global_w_m2, dtype=np.float64) * absorptivity
+                          / 2.0 * (beam + 1.0 + _GROUND_ALBEDO))
+    return result
+
+
+def sphere_convection(globe_c: FloatArray, air_c: FloatArray, air_speed: FloatArray,
+                      pressure_pa: FloatArray | float = 101_325.0,
+                      diameter_m: float = _GLOBE_DIAMETER_M) -> FloatArray:
+    """Convective heat transfer coefficient of a sphere in air (W/(m² K)), Liljegren et al.
+    (2008): Nu = 2 + 0.6 Re^0.5 Pr^(1/3), air properties at the mean of globe and air
+    temperature, air speed at least 0.13 m/s."""
+    t_ref = 0.5 * (np.asarray(globe_c, dtype=np.float64) + np.asarray(air_c)) + 273.15
+    mu = _viscosity(t_ref)
+    density = np.asarray(pressure_pa, dtype=np.float64) / (_R_AIR * t_ref)
+    v = np.maximum(np.asarray(air_speed, dtype=np.float64), _MIN_SPEED)
+    reynolds = v * density * diameter_m / mu
+    nusselt = 2.0 + 0.6 * np.sqrt(reynolds) * _PRANDTL ** 0.3333
+    result: FloatArray = nusselt * (_CP + 1.25 * _R_AIR) * mu / diameter_m
+    return result
+
+
+PERSON_SHORTWAVE_ABSORPTIVITY: Final = 0.7
+"""Short-wave absorptivity of a clothed person (ASHRAE 55-2020 Appendix C, its default)."""
+PERSON_LONGWAVE_EMISSIVITY: Final = 0.95
+"""Long-wave absorptivity and emissivity of a person (ASHRAE 55-2020 Appendix C)."""
+
+
+def mean_radiant_liljegren_sun(air_c: FloatArray, rh: FloatArray, global_w_m2: FloatArray,
+                               direct: FloatArray, cos_zenith: FloatArray,
+                               absorptivity: float = 1.0 - _GLOBE_ALBEDO,
+                               emissivity: float = _GLOBE_EMISSIVITY) -> FloatArray:
+    """Mean radiant temperature (°C) of a sphere in the open, outdoors in the sun, from the
+    global horizontal irradiance: the radiation field of Liljegren et al. (2008) (sky and
+    ground as :func:`natural_wet_bulb_liljegren_sun` takes them, the sun split into direct
+    beam and diffuse at its position), exactly:
+
+        Tr^4 = (eps_atm + eps_sfc) Ta^4 / 2 + S alpha / (2 eps sigma) [f (1/(2 cos z) - 1)
+               + 1 + a_sfc],  a_sfc = 0.45.
+
+    With the defaults (alpha = eps = 0.95) it is a black globe's, what a globe there would
+    give through ISO 7726 Annex B. With a person's absorptivity (0.7 short-wave, 0.95
+    long-wave: :data:`PERSON_SHORTWAVE_ABSORPTIVITY`) it is a person's taken as a sphere
+    (a standing person's projected area faces a high sun less than a sphere's and a low sun
+    more). For a place in the open: shade, walls or hot surfaces need a globe.
+    """
+    t4 = (_sky_and_ground_t4(air_c, rh)
+          + _sphere_sun_w_m2(global_w_m2, direct, cos_zenith, absorptivity)
+          / (emissivity * _STEFAN_BOLTZMANN))
+    result: FloatArray = np.where(t4 > 0, np.abs(t4) ** 0.25 - 273.15, np.nan)
+    return result
+
+
+def globe_temperature_liljegren_sun(air_c: FloatArray, rh: FloatArray, air_speed: FloatArray,
+                                    global_w_m2: FloatArray, direct: FloatArray,
+                                    cos_zenith: FloatArray,
+                                    pressure_pa: FloatArray | float = 101_325.0) -> FloatArray:
+    """Black globe temperature (°C) outdoors in the sun without a globe, Liljegren et al.
+    (2008): the 50.8 mm globe of their model and code (emissivity 0.95, albedo 0.05) in the
+    radiation field of :func:`mean_radiant_liljegren_sun`, losing heat by convection
+    (:func:`sphere_convection`):
+
+        eps sigma Tg^4 + h (Tg - Ta) = eps sigma Tr^4.
+
+    Solved for all spaces at once (bracketed regula falsi, to 0.001 K). NaN where an input
+    is missing.
+    """
+    ta = np.asarray(air_c, dtype=np.float64)
+    n = ta.shape[0]
+    out = np.full(n, np.nan)
+    tr = np.broadcast_to(mean_radiant_liljegren_sun(air_c, rh, global_w_m2, direct,
+                                                    cos_zenith), (n,))
+    v_all = np.broadcast_to(np.asarray(air_speed, dtype=np.float64), (n,))
+    p_all = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
+    idx = np.flatnonzero(np.isfinite(ta) & np.isfinite(tr) & np.isfinite(v_all)
+                         & np.isfinite(p_all))
+    if idx.size == 0:
+        return out
+    ta_i, tr4, v, p = ta[idx], (tr[idx] + 273.15) ** 4, v_all[idx], p_all[idx]
+
+    def residual(tg_c: FloatArray, sub: IndexArray) -> FloatArray:
+        h = sphere_convection(tg_c, ta_i[sub], v[sub], p[sub])
+        result: FloatArray = (_GLOBE_EMISSIVITY * _STEFAN_BOLTZMANN
+                              * (tr4[sub] - (tg_c + 273.15) ** 4) - h * (tg_c - ta_i[sub]))
+        return result
+
+    all_sub = np.arange(idx.size)
+    lo = np.minimum(ta_i, tr[idx]) - 1.0
+    hi = np.maximum(ta_i, tr[idx]) + 1.0
+    out[idx] = illinois(residual, lo, hi, residual(lo, all_sub), residual(hi, all_sub),
+                        tolerance=1e-3, max_iterations=100)
+    return out
+
+
 def _wick_balance(air_c: FloatArray, rh: FloatArray, air_speed: FloatArray,
                   pressure_pa: FloatArray | float, radiant_t4: FloatArray,
                   absorbed_w_m2: FloatArray) -> FloatArray:

@@ -93,6 +93,9 @@ class SpaceInputs:
     globe_emissivity: FloatArray
     clothing_adjustment_k: FloatArray
     target_pmv: FloatArray
+    assumed_mrt_offset_k: FloatArray
+    """The space's assumed mean radiant minus air temperature (K), NaN where it assumes
+    nothing: fills the planes a space does not measure (else the air temperature does)."""
     posture: tuple[str, ...] = field(default=())
     phs_edition: str | tuple[str, ...] = "2023"
     """ISO 7933 edition, "2023" or "2004": one for every space, or one per space."""
@@ -189,30 +192,90 @@ def _psychrometrics(s: SpaceInputs, out: IndexTable) -> FloatArray:
     return rh_ok
 
 
-def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
-    """Mean radiant and operative temperature; returns (mrt, operative)."""
+MRT_SOURCES: Final = ("measured", "globe", "six planes",
+                      "planes measured, the others at the air temperature",
+                      "planes measured, the others assumed",
+                      "sun and irradiance (no globe)")
+"""Labels of ``mean_radiant_temperature_source``: where each space's value came from."""
+
+
+@dataclass(frozen=True)
+class Sun:
+    """The sun for outdoor spaces in the sun at a site with latitude and longitude: its
+    position and the measured global irradiance split as Liljegren et al. (2008) split it."""
+
+    cos_zenith: FloatArray
+    global_w_m2: FloatArray
+    direct: FloatArray
+    usable: BoolArray
+    """Outdoors, with solar load, irradiance measured, the sun's position known."""
+
+
+def _sun(s: SpaceInputs) -> Sun:
+    cos_zenith, distance = solar.sun_position(s.time_s, s.latitude, s.longitude)
+    ghi, direct = solar.direct_fraction(s.solar_irradiance, cos_zenith, distance)
+    usable = (~s.indoor & s.solar_load & np.isfinite(s.solar_irradiance)
+              & np.isfinite(cos_zenith) & np.isfinite(ghi) & np.isfinite(direct))
+    return Sun(cos_zenith, ghi, direct, usable)
+
+
+def _planes_filled(s: SpaceInputs) -> tuple[FloatArray, BoolArray, BoolArray]:
+    """ISO 7726 Annex B from the planes a space measures, the others at the air temperature
+    or at the space's assumption (``assumed_mrt_offset_k``): (mrt, all six measured, some
+    filled by the assumption)."""
     n = s.n
     planes = s.plane_radiant
-    have_all_planes = all(side in planes for side in radiation.SIDES)
-    from_planes = _nan(n)
-    if have_all_planes:
-        by_posture = {p: radiation.mean_radiant_from_planes(planes, p)
-                      for p in ("standing", "seated")}
-        seated = np.array([p == "seated" for p in s.posture], dtype=bool)
-        from_planes = np.where(seated, by_posture["seated"], by_posture["standing"])
+    fill = s.air_temperature + np.where(np.isfinite(s.assumed_mrt_offset_k),
+                                        s.assumed_mrt_offset_k, 0.0)
+    some = np.zeros(n, dtype=bool)
+    every = np.ones(n, dtype=bool)
+    full: dict[str, FloatArray] = {}
+    for side in radiation.SIDES:
+        v = planes.get(side, _nan(n))
+        known = np.isfinite(v)
+        some |= known
+        every &= known
+        full[side] = np.where(known, v, fill)
+    by_posture = {p: radiation.mean_radiant_from_planes(full, p) for p in ("standing", "seated")}
+    seated = np.array([p == "seated" for p in s.posture], dtype=bool)
+    mrt = np.where(seated, by_posture["seated"], by_posture["standing"])
+    mrt = np.where(some, mrt, np.nan)
+    return mrt, every, some & ~every & np.isfinite(s.assumed_mrt_offset_k)
+
+
+def _radiant(s: SpaceInputs, out: IndexTable, sun: Sun, rh: FloatArray
+             ) -> tuple[FloatArray, FloatArray, BoolArray]:
+    """Mean radiant and operative temperature, and the black globe estimated outdoors in
+    the sun without one; returns (mrt, operative, whether the mrt came from the sun)."""
+    n = s.n
+    from_planes, six, assumed_fill = _planes_filled(s)
     from_globe = radiation.mean_radiant_from_globe(s.globe_temperature, s.air_temperature,
                                                    s.air_speed, s.globe_diameter_m,
                                                    s.globe_emissivity)
+    from_sun = heat_stress.mean_radiant_liljegren_sun(
+        np.where(sun.usable, s.air_temperature, np.nan), rh,
+        sun.global_w_m2, sun.direct, sun.cos_zenith, heat_stress.PERSON_SHORTWAVE_ABSORPTIVITY,
+        heat_stress.PERSON_LONGWAVE_EMISSIVITY)
     measured = np.isfinite(s.mean_radiant_temperature)
     globe_cold = s.air_temperature - s.globe_temperature > GLOBE_COLDER_LIMIT_K
     use_globe = ~measured & np.isfinite(s.globe_temperature)
     use_planes = ~measured & ~use_globe & np.isfinite(from_planes)
+    use_sun = ~measured & ~use_globe & ~use_planes & sun.usable
     mrt = np.where(measured, s.mean_radiant_temperature,
-                   np.where(use_globe, from_globe, from_planes))
+                   np.where(use_globe, from_globe, np.where(use_planes, from_planes, from_sun)))
+    source = np.select([measured, use_globe, use_planes & six, use_planes & ~assumed_fill,
+                        use_planes, use_sun], [0.0, 1.0, 2.0, 3.0, 4.0, 5.0], np.nan)
     app = Applicability(n)
-    app.require(measured | use_globe | use_planes, "input missing or stale: "
+    app.require(measured | use_globe | use_planes | use_sun, "input missing or stale: "
                 "mean_radiant_temperature (or globe_temperature with air_temperature and "
-                "air_speed, or six plane radiant temperatures)")
+                "air_speed, or plane radiant temperatures with air_temperature, or outdoors "
+                "in the sun solar_irradiance with the site's latitude and longitude)")
+    app.require(~use_planes | np.isfinite(s.air_temperature) | six,
+                "input missing or stale: air_temperature (it stands in for the planes not "
+                "measured)")
+    app.require(~use_sun | (np.isfinite(s.air_temperature) & np.isfinite(rh)),
+                "input missing or stale: air_temperature and relative_humidity (the sky's "
+                "long-wave radiation rests on them)")
     app.require(~use_globe | np.isfinite(s.air_temperature),
                 "input missing or stale: air_temperature (needed with the globe)")
     app.require(~use_globe | np.isfinite(s.air_speed),
@@ -223,7 +286,27 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
     app.require(np.isfinite(mrt), "no finite mean radiant temperature from these inputs")
     out["mean_radiant_temperature"] = app.column(
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
-        "convection; six planes: posture weights)")
+        "convection; planes: posture weights, a plane not measured at the air temperature or "
+        "the assumption), or outdoors in the sun without a globe a person (as a sphere, "
+        "short-wave absorptivity 0.7) in the radiation field of Liljegren et al. (2008) (see "
+        "mean_radiant_temperature_source)")
+    out["mean_radiant_temperature_source"] = app.column(
+        np.where(app.ok, source, 0.0), "", "where the mean radiant temperature came "
+        "from", MRT_SOURCES)
+    globe_app = Applicability(n)
+    globe_app.require(~np.isfinite(s.globe_temperature), "measured: globe_temperature sensor "
+                      "present")
+    globe_app.require(sun.usable, "only outdoors with solar load, solar_irradiance and the "
+                      "site's latitude and longitude")
+    globe_app.require_present([("air_temperature", s.air_temperature),
+                               ("relative_humidity", rh),
+                               ("air_speed", s.air_speed)])
+    out["globe_temperature_estimated"] = globe_app.column(
+        heat_stress.globe_temperature_liljegren_sun(
+            np.where(globe_app.ok, s.air_temperature, np.nan), rh,
+            s.air_speed, sun.global_w_m2, sun.direct, sun.cos_zenith, s.pressure_pa),
+        "°C", "Liljegren et al. (2008) black globe (50.8 mm) from the global irradiance at "
+        "the sun's position")
     op_app = Applicability(n)
     op_app.require_present([("air_temperature", s.air_temperature)])
     # only a mean radiant temperature that is given (a rejected globe gives none)
@@ -233,7 +316,8 @@ def _radiant(s: SpaceInputs, out: IndexTable) -> tuple[FloatArray, FloatArray]:
     operative = radiation.operative_temperature(s.air_temperature, mrt, s.air_speed)
     out["operative_temperature"] = op_app.column(operative, "°C",
                                                  "ASHRAE 55-2020 Appendix A (A = 0.5/0.6/0.7)")
-    return np.where(app.ok, mrt, np.nan), np.where(op_app.ok, operative, np.nan)
+    return (np.where(app.ok, mrt, np.nan), np.where(op_app.ok, operative, np.nan),
+            app.ok & use_sun)
 
 
 GLOBE_COLDER_LIMIT_K: Final = 5.0
@@ -481,9 +565,12 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     t_cmf = adaptive.ashrae_comfort_temperature(tpma)
     m55 = "ASHRAE 55-2020 5.4"
     out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
+    raised = adaptive.ashrae_air_speed_increase(s.air_speed, operative)
+    m55_up = (m55 + " (raised for elevated air speed above 25 °C operative, Table 5.4.2.4: "
+              "+1.2 K from 0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2)")
     for band, half in adaptive.ASHRAE_BANDS_K.items():
         out[f"adaptive_ashrae_{band}_lower"] = a_app.column(t_cmf - half, "°C", m55)
-        out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half, "°C", m55)
+        out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half + raised, "°C", m55_up)
     en_app = Applicability(n)
     en_app.require(s.indoor, "adaptive comfort applies to indoor spaces")
     en_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
@@ -504,26 +591,38 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
                     "adaptive_en_comfort)")
     low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
                     "limit only for a running mean outdoor temperature of 15 °C and above")
+    m_en_up = (m_en + " (raised for elevated air speed above 25 °C operative: +1.2 K from "
+               "0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2, as pythermalcomfort's adaptive_en "
+               "applies them)")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
         out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)
-        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up, "°C", m_en)
+        out[f"adaptive_en_{cat}_upper"] = en_app.column(theta_c + up + raised, "°C", m_en_up)
     en_app.require(np.isfinite(operative), "input missing or stale: operative temperature")
-    out["adaptive_en_category"] = en_app.column(adaptive.en_category(operative, theta_c),
-                                                "category", m_en, adaptive.EN_CATEGORY_LABELS)
+    # the category on the warm side against the raised upper limits
+    warm = operative - theta_c
+    effective = np.where(warm > 0.0, theta_c + np.maximum(warm - raised, 0.0), operative)
+    out["adaptive_en_category"] = en_app.column(adaptive.en_category(effective, theta_c),
+                                                "category", m_en_up, adaptive.EN_CATEGORY_LABELS)
 
 
 def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable,
-                 with_phs: bool) -> None:
+                 with_phs: bool, sun: Sun, mrt_from_sun: BoolArray) -> None:
     n = s.n
     # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
     # with the wick's radiation from the mean radiant temperature (a globe) or, outdoors in
-    # the open without one, from the global irradiance and the sun's position
-    with_mrt = np.isfinite(mrt)
-    cos_zenith, distance = solar.sun_position(s.time_s, s.latitude, s.longitude)
-    ghi, direct = solar.direct_fraction(s.solar_irradiance, cos_zenith, distance)
+    # the open without one, from the global irradiance and the sun's position (then the
+    # wick's own view of the sun, not the sphere's). Outdoors in full sun a globe can read
+    # more than 70 K above the air, beyond the globe method's range: there the irradiance
+    # method takes over where the site has the sun's position, so that the 60-minute WBGT
+    # does not lose hours of full sun.
+    cos_zenith, ghi, direct = sun.cos_zenith, sun.global_w_m2, sun.direct
+    mrt_for_wick = np.where(mrt_from_sun, np.nan, mrt)
+    with_mrt = np.isfinite(mrt_for_wick)
+    globe_beyond = with_mrt & ~_between(mrt_for_wick - s.air_temperature, -10.0, 70.0)
+    with_mrt = with_mrt & ~(globe_beyond & sun.usable)
     sun_path = ~with_mrt & ~s.indoor & s.solar_load
     est = np.where(with_mrt, heat_stress.natural_wet_bulb_liljegren(
-        s.air_temperature, rh, s.air_speed, mrt, s.pressure_pa), np.nan)
+        s.air_temperature, rh, s.air_speed, mrt_for_wick, s.pressure_pa), np.nan)
     if sun_path.any():
         sun_est = heat_stress.natural_wet_bulb_liljegren_sun(
             np.where(sun_path, s.air_temperature, np.nan), rh, s.air_speed, ghi, direct,
@@ -550,24 +649,31 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                     "estimate's range: air_temperature 0-50 °C (a liquid wick)")
     est_app.require(_between(s.air_speed, 0.0, 10.0), "outside the natural wet-bulb "
                     "estimate's range: air_speed 0-10 m/s")
-    est_app.require(~with_mrt | _between(mrt - s.air_temperature, -10.0, 70.0), "outside the "
+    est_app.require(~with_mrt | _between(mrt_for_wick - s.air_temperature, -10.0, 70.0),
+                    "outside the "
                     "natural wet-bulb estimate's range: mean radiant minus air temperature "
                     "-10..70 K")
     est_col = est_app.column(est, "°C", "Liljegren et al. (2008) wetted-wick energy balance, "
                              "radiation exchanged with the mean radiant temperature (globe), or "
-                             "outdoors without a globe from the global irradiance split into "
-                             "direct and diffuse at the sun's position (Liljegren's code)")
+                             "outdoors without a globe (or with a globe beyond that method's "
+                             "range) from the global irradiance split into direct and diffuse "
+                             "at the sun's position (Liljegren's code)")
     out["natural_wet_bulb_estimated"] = est_col
     tnw = np.where(np.isfinite(s.natural_wet_bulb), s.natural_wet_bulb, est_col.values)
 
+    globe = np.where(np.isfinite(s.globe_temperature), s.globe_temperature,
+                     out["globe_temperature_estimated"].values)
     w_app = Applicability(n)
     w_app.require(np.isfinite(tnw), "input missing or stale: natural_wet_bulb (and no estimate "
                   "possible: see natural_wet_bulb_estimated)")
-    w_app.require_present([("globe_temperature", s.globe_temperature)])
+    w_app.require(np.isfinite(globe), "input missing or stale: globe_temperature (and no "
+                  "estimate possible: see globe_temperature_estimated)")
     w_app.require(~s.solar_load | np.isfinite(s.air_temperature),
                   "input missing or stale: air_temperature (needed with solar load)")
-    w = heat_stress.wbgt(tnw, s.globe_temperature, s.air_temperature, s.solar_load)
-    out["wbgt"] = w_app.column(w, "°C", "ISO 7243:2017 eq. (1)/(2)")
+    w = heat_stress.wbgt(tnw, globe, s.air_temperature, s.solar_load)
+    out["wbgt"] = w_app.column(w, "°C", "ISO 7243:2017 eq. (1)/(2) (globe measured, or "
+                               "outdoors estimated from the irradiance: see "
+                               "globe_temperature_estimated)")
     m_w = heat_stress.metabolic_rate_w(s.met * MET_W_M2)
     m_app = Applicability(n)
     m_app.require(np.isfinite(m_w), "no metabolic rate: give met or work_class (a heat-stress "
@@ -579,6 +685,13 @@ def _heat_stress(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTabl
                                                       "°C", heat_stress.REFERENCE_METHOD)
     out["wbgt_reference_unacclimatised"] = m_app.column(
         heat_stress.reference_unacclimatised(m_w), "°C", heat_stress.REFERENCE_METHOD)
+    # the reference of the space's own workers: acclimatised (REL) or not (RAL), as
+    # configured (not acclimatised unless said)
+    out["wbgt_reference"] = m_app.column(
+        np.where(s.acclimatised, out["wbgt_reference_acclimatised"].values,
+                 out["wbgt_reference_unacclimatised"].values), "°C",
+        heat_stress.REFERENCE_METHOD + ", for the space's workers as configured: "
+        "acclimatised (REL) or not (RAL)")
     _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
 
     # ISO 7933 PHS, hot work only; each space in the edition it asks for
@@ -663,7 +776,9 @@ def _wbgt_assessment(twa: FloatArray, w: FloatArray, adjustment_k: FloatArray,
                                                       heat_stress.REFERENCE_METHOD),
         "wbgt_margin_unacclimatised": margin_app.column(
             out["wbgt_reference_unacclimatised"].values - eff, "K",
-            heat_stress.REFERENCE_METHOD)}
+            heat_stress.REFERENCE_METHOD),
+        "wbgt_margin": margin_app.column(out["wbgt_reference"].values - eff, "K",
+                                         out["wbgt_reference"].method)}
     out["wbgt_time_weighted"] = wbgt_tw
     out["wbgt_effective"] = effective
     out.update(margins)
@@ -708,12 +823,14 @@ def _outdoor(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, out: IndexTable) -
     hx.require_present([("air_temperature", s.air_temperature), ("relative_humidity", rh)])
     hx.require(_between(s.air_temperature, 20.0, 50.0),
                "humidex applies at air_temperature 20-50 °C")
+    hx.require(out["dew_point"].present, "no dew point (see dew_point)")
     hx.require(~(psy.dew_point(s.air_temperature, rh) > HUMIDEX_MAX_DEW_POINT_C),
                "humidex not given above a dew point of 40 °C (beyond any outdoor dew point "
                "observed: check the humidity sensor)")
-    out["humidex"] = hx.column(outdoor.humidex(s.air_temperature, rh), "1",
-                               "Environment Canada humidex (Masterson and Richardson 1979; "
-                               "vapour pressure from the dew point)")
+    out["humidex"] = hx.column(outdoor.humidex_from_dew_point(s.air_temperature,
+                                                              out["dew_point"].values), "1",
+                               "Environment Canada humidex (Masterson and Richardson 1979) "
+                               "from the dew point given here")
     wind10 = outdoor.wind_at_10m(s.air_speed, s.air_speed_height_m)
     u = Applicability(n)
     u.require(~s.indoor, "UTCI applies to outdoor spaces")
@@ -750,12 +867,15 @@ def compute_indices(s: SpaceInputs, with_phs: bool = True) -> IndexTable:
     which the engine runs on its own, slower schedule.
     """
     out: IndexTable = {}
-    mrt, operative = _radiant(s, out)
-    rh = _psychrometrics(s, out)
+    sun = _sun(s)
+    humidity: IndexTable = {}
+    rh = _psychrometrics(s, humidity)
+    mrt, operative, mrt_from_sun = _radiant(s, out, sun, rh)
+    out.update(humidity)
     _asymmetry(s, out)
     _local_discomfort(s, out)
     _comfort(s, rh, mrt, operative, out)
-    _heat_stress(s, rh, mrt, out, with_phs)
+    _heat_stress(s, rh, mrt, out, with_phs, sun, mrt_from_sun)
     _outdoor(s, rh, mrt, out)
     _condensation(s, out)
     return out

@@ -20,6 +20,8 @@ NOT_FINITE: Final = "not_finite"
 UNKNOWN_UNIT: Final = "unknown_unit"
 UNKNOWN_STATE: Final = "unknown_state"
 BAD_TIMESTAMP: Final = "bad_timestamp"
+RECORD_ABSENT: Final = "record_absent"
+"""A SenML pack without the record a point takes: nothing for that point in this message."""
 
 SENML_UNITS: Final[dict[str, str]] = {
     # RFC 8428 section 12.1 registry symbol -> our unit name
@@ -162,65 +164,138 @@ def decode_json(payload: bytes, value_path: str, time_path: str | None = None,
     return [Decoded(value, t, unit)]
 
 
-def decode_senml(payload: bytes, now: float, name: str | None = None) -> list[Decoded]:
+def decode_senml(payload: bytes, now: float, name: str | None = None, *, state: bool = False,
+                 true_value: float = 1.0) -> list[Decoded]:
     """SenML JSON (RFC 8428): base fields resolved into each record before use.
 
     Returns the records whose resolved name is ``name`` (all records when ``name`` is None
-    and the pack holds one). Units must be in :data:`SENML_UNITS`; a record without a
-    unit is returned with ``unit=None`` (the point's configured unit then applies).
+    and the pack holds one). A value is taken only from the field that fits the quantity
+    (RFC 8428 section 4.2): a measured quantity from ``v`` (a JSON number, plus the base
+    value), never from a boolean ``vb``, a string ``vs``, data ``vd`` or a sum ``s``; an
+    equipment or occupancy state (``state``) from ``vb`` (true is ``true_value``), ``v`` or
+    ``vs`` (on/off words or a number). Units must be in :data:`SENML_UNITS`; a record
+    without a unit is returned with ``unit=None`` (the point's configured unit then applies).
+
+    Only the records a point selects (and the base fields before them) can refuse it: a
+    damaged record of another name does not, and a pack without a record of this name is
+    refused as :data:`RECORD_ABSENT` (it carries nothing for this point), not as malformed.
     """
     data = _json(payload)
     if not isinstance(data, list) or not data:
         raise DecodeError(MALFORMED, "SenML pack must be a non-empty JSON array")
     base_name, base_time, base_unit, base_value = "", 0.0, None, 0.0
+    base_error: DecodeError | None = None
+    unreadable = 0
+    others: list[str] = []
     out: list[Decoded] = []
+    errors: list[DecodeError] = []
     for rec in data:
         if not isinstance(rec, dict):
-            raise DecodeError(MALFORMED, "SenML record is not an object")
-        if "bn" in rec:
-            if not isinstance(rec["bn"], str):
-                raise DecodeError(MALFORMED, "bn is not a string")
-            base_name = rec["bn"]
-        if "bt" in rec:
-            base_time = _to_float(rec["bt"], "bt") if not isinstance(rec["bt"], str) else \
-                _bad_time()
-        if "bu" in rec:
-            base_unit = rec["bu"]
-        if "bv" in rec:
-            base_value = _to_float(rec["bv"], "bv")
-        rname = base_name + (rec["n"] if isinstance(rec.get("n"), str) else "")
-        if "v" in rec:
-            value = base_value + _to_float(rec["v"], "v")
-        elif "vb" in rec:
-            if not isinstance(rec["vb"], bool):
-                raise DecodeError(NOT_NUMERIC, "vb is not a boolean")
-            value = 1.0 if rec["vb"] else 0.0
-        elif "vs" in rec or "vd" in rec or "s" in rec:
-            continue  # string, data and sum records carry nothing we measure
-        else:
+            unreadable += 1
             continue
-        t_raw = base_time + (_to_float(rec["t"], "t") if "t" in rec else 0.0)
-        t = now + t_raw if abs(t_raw) < SENML_RELATIVE_LIMIT else t_raw
-        unit_raw = rec.get("u", base_unit)
-        unit: str | None = None
-        if unit_raw is not None:
-            if not isinstance(unit_raw, str) or unit_raw not in SENML_UNITS:
-                raise DecodeError(UNKNOWN_UNIT, f"SenML unit {str(unit_raw)[:20]!r} is not one "
-                                  f"we convert ({', '.join(SENML_UNITS)})")
-            unit = SENML_UNITS[unit_raw]
+        try:
+            if "bn" in rec:
+                if not isinstance(rec["bn"], str):
+                    raise DecodeError(MALFORMED, "bn is not a string")
+                base_name = rec["bn"]
+            if "bt" in rec:
+                base_time = _senml_number(rec["bt"], "bt", BAD_TIMESTAMP)
+            if "bu" in rec:
+                base_unit = rec["bu"]
+            if "bv" in rec:
+                base_value = _senml_number(rec["bv"], "bv", NOT_NUMERIC)
+        except DecodeError as exc:
+            base_error = exc  # the records after it cannot be resolved
+        if base_error is not None:
+            unreadable += 1
+            continue
+        if "n" in rec and not isinstance(rec["n"], str):
+            unreadable += 1
+            continue
+        rname = base_name + rec.get("n", "")
+        if not any(k in rec for k in VALUE_FIELDS):
+            continue  # base fields only
+        if name is not None and rname != name:
+            others.append(rname)
+            continue
+        try:
+            value = _senml_value(rec, rname, base_value, state, true_value)
+            t_raw = base_time + (_senml_number(rec["t"], "t", BAD_TIMESTAMP)
+                                 if "t" in rec else 0.0)
+            t = now + t_raw if abs(t_raw) < SENML_RELATIVE_LIMIT else t_raw
+            unit_raw = rec.get("u", base_unit)
+            unit: str | None = None
+            if unit_raw is not None:
+                if not isinstance(unit_raw, str) or unit_raw not in SENML_UNITS:
+                    raise DecodeError(UNKNOWN_UNIT, f"SenML unit {str(unit_raw)[:20]!r} is not "
+                                      f"one we convert ({', '.join(SENML_UNITS)})")
+                unit = SENML_UNITS[unit_raw]
+        except DecodeError as exc:
+            errors.append(exc)
+            continue
         out.append(Decoded(value, t, unit, rname))
-    if name is not None:
-        out = [d for d in out if d.name == name]
-        if not out:
-            raise DecodeError(MALFORMED, f"no SenML record named {name!r}")
-    elif len(out) != 1:
-        raise DecodeError(MALFORMED, f"SenML pack holds {len(out)} records; the point must "
-                          "name the one it wants")
+    if errors:
+        raise errors[0]
+    if name is None:
+        if len(out) != 1 or unreadable:
+            raise DecodeError(MALFORMED, f"SenML pack holds {len(out) + unreadable} records; "
+                              "the point must name the one it wants")
+        return out
+    if not out:
+        if base_error is not None:
+            raise base_error
+        if unreadable:
+            raise DecodeError(MALFORMED, f"no SenML record named {name[:60]!r} among those "
+                              f"that could be read ({unreadable} could not)")
+        held = ", ".join(repr(n[:60]) for n in others[:5]) or "no named values"
+        raise DecodeError(RECORD_ABSENT, f"no SenML record named {name[:60]!r} in this pack "
+                          f"(it holds {held})")
     return out
 
 
-def _bad_time() -> float:
-    raise DecodeError(BAD_TIMESTAMP, "bt is not a number")
+VALUE_FIELDS: Final = ("v", "vb", "vs", "vd", "s")
+_FIELD_WORDS: Final = {"vb": "a boolean (vb)", "vs": "a string (vs)", "vd": "data (vd)",
+                       "s": "a sum (s)", "v": "a number (v)"}
+
+
+def _senml_number(raw: object, what: str, reason: str) -> float:
+    """A SenML numeric field: a JSON number (RFC 8428 section 5), finite."""
+    if isinstance(raw, bool) or not isinstance(raw, int | float):
+        raise DecodeError(reason, f"{what} is {type(raw).__name__}, not a number")
+    return _finite(_as_float(raw), what)
+
+
+def _senml_value(rec: dict[str, Any], rname: str, base_value: float, state: bool,
+                 true_value: float) -> float:
+    """The value of one selected record, from the field that fits (see decode_senml)."""
+    fields = [k for k in VALUE_FIELDS if k in rec]
+    if len([k for k in fields if k != "s"]) > 1:
+        raise DecodeError(MALFORMED, f"SenML record {rname[:60]!r} has more than one value "
+                          f"field ({', '.join(fields)})")
+    field = fields[0]
+    if field == "v":
+        return base_value + _senml_number(rec["v"], "v", NOT_NUMERIC)
+    if state and field == "vb":
+        if not isinstance(rec["vb"], bool):
+            raise DecodeError(NOT_NUMERIC, "vb is not a boolean")
+        return true_value if rec["vb"] else 0.0
+    if state and field == "vs":
+        word = rec["vs"]
+        if not isinstance(word, str):
+            raise DecodeError(UNKNOWN_STATE, "vs is not a string")
+        low = word.strip().lower()
+        if low in TRUE_WORDS:
+            return true_value
+        if low in FALSE_WORDS:
+            return 0.0
+        try:
+            return _finite(float(low), "vs")
+        except ValueError:
+            raise DecodeError(UNKNOWN_STATE, f"state {word[:40]!r} is not one of on/off, "
+                              "true/false or a number") from None
+    wanted = "a boolean (vb), a number (v) or a state word (vs)" if state else "a number (v)"
+    raise DecodeError(NOT_NUMERIC, f"SenML record {rname[:60]!r} carries "
+                      f"{_FIELD_WORDS[field]}; this point takes {wanted}")
 
 
 def decode_state(payload: bytes, states: dict[str, float], value_path: str | None = None,

@@ -59,7 +59,10 @@ CONTEXT: Final = {
     "hot_work", "phs_edition", "altitude_m", "barometric_pressure", "outdoor_daily_means",
     "globe_diameter_m", "globe_emissivity", "clothing", "clothing_adjustment_k", "target_pmv",
     "naturally_ventilated", "units", "air_speed_height_m", "latitude", "longitude", "time",
+    "assume",
 }
+ASSUMABLE: Final = ("air_speed", "mean_radiant_temperature", "relative_humidity")
+"""What ``assume`` may stand in for, as in a site's ``assume``."""
 ALL_KEYS: Final = frozenset(MEASURED) | frozenset(_SIDE_KEYS) | CONTEXT
 
 
@@ -135,8 +138,53 @@ def _suggest(key: str) -> str:
     return f" (did you mean {close[0]!r}?)" if close else ""
 
 
+def assumptions_used(data: Mapping[str, object]) -> dict[str, str]:
+    """quantity -> "assumed: ..." for each ``assume`` entry that stands in for a reading
+    the object does not give (a measured value always wins), as a site shows them."""
+    raw = data.get("assume", {})
+    if not isinstance(raw, Mapping):
+        raise InputError("assume", "expected an object such as {\"relative_humidity\": 50}")
+    notes: dict[str, str] = {}
+    for key, value in raw.items():
+        if key not in ASSUMABLE:
+            raise InputError(f"assume.{key}", f"only {', '.join(ASSUMABLE)} can be assumed")
+        measured_too = key in data or (key == "mean_radiant_temperature" and (
+            "globe_temperature" in data or any(k in data for k in _SIDE_KEYS))) or (
+            key == "relative_humidity" and "psychrometric_wet_bulb" in data)
+        if key == "air_speed":
+            v = _in_range(f"assume.{key}", _number(f"assume.{key}", value), 0.0, 1.0, "m/s")
+            note = f"assumed: {'still air, ' if v <= 0.1 else ''}{v:g} m/s"
+        elif key == "relative_humidity":
+            v = _in_range(f"assume.{key}", _number(f"assume.{key}", value), 5.0, 95.0, "%")
+            note = f"assumed: {v:g} %"
+        else:
+            off = _mrt_offset(value)
+            note = ("assumed: equal to the air temperature" if off == 0.0 else
+                    f"assumed: air temperature {off:+g} K")
+        if not measured_too:
+            notes[key] = note
+    return notes
+
+
+def _mrt_offset(value: object) -> float:
+    """``air``, ``air+2``, ``air-1.5`` -> the offset from the air temperature (K)."""
+    text = value.replace(" ", "") if isinstance(value, str) else ""
+    if text == "air":
+        return 0.0
+    if text.startswith(("air+", "air-")):
+        try:
+            off = float(text[3:])
+        except ValueError:
+            off = math.nan
+        if math.isfinite(off):
+            return off
+    raise InputError("assume.mean_radiant_temperature",
+                     f"expected 'air' or 'air+K' / 'air-K' (an offset in kelvin), got {value!r}")
+
+
 def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
-    """Validate one space's spot-check object and build single-space inputs."""
+    """Validate one space's spot-check object and build single-space inputs; ``assume``
+    fills in what is not measured (see :func:`assumptions_used`)."""
     if not isinstance(data, Mapping):
         raise InputError("input", "expected a JSON object")
     for key in data:
@@ -182,6 +230,20 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
             raise InputError(key, f"side {side!r} given twice")
         planes[side] = t
     given["plane_radiant"] = {k: np.array([v]) for k, v in planes.items()}
+    assumed = assumptions_used(data)
+    if "air_speed" in assumed:
+        given["air_speed"] = np.array([_number("assume.air_speed", _assume(data)["air_speed"])])
+    if "relative_humidity" in assumed:
+        given["relative_humidity"] = np.array([_number("assume.relative_humidity",
+                                                       _assume(data)["relative_humidity"])])
+    if "mean_radiant_temperature" in _assume(data):  # also fills the planes not measured
+        given["assumed_mrt_offset_k"] = np.array([_mrt_offset(
+            _assume(data)["mean_radiant_temperature"])])
+    if "mean_radiant_temperature" in assumed and "air_temperature" in given:
+        air = given["air_temperature"]
+        assert isinstance(air, np.ndarray)
+        given["mean_radiant_temperature"] = air + _mrt_offset(
+            _assume(data)["mean_radiant_temperature"])
 
     if "met" in data and "work_class" in data:
         raise InputError("work_class", "give either met or work_class, not both")
@@ -208,6 +270,8 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
     if "environment" in data:
         env = _choice("environment", data["environment"], ("indoor", "outdoor"))
         given["indoor"] = np.array([env == "indoor"])
+        if "solar_load" not in data:  # as a site's space: outdoors in the sun by default
+            given["solar_load"] = np.array([env == "outdoor"])
     if "posture" in data:
         posture = heat_stress.canonical_posture(data["posture"])
         if posture is None:
@@ -252,3 +316,9 @@ def parse_spot_check(data: Mapping[str, object]) -> SpaceInputs:
                             70.0, "°C") for m in means]
         given["running_mean_outdoor"] = adaptive.running_mean_outdoor([values])
     return SpaceInputs.create(1, **given)
+
+
+def _assume(data: Mapping[str, object]) -> Mapping[str, object]:
+    raw = data.get("assume", {})
+    assert isinstance(raw, Mapping)
+    return raw

@@ -33,7 +33,8 @@ UNITS: Final[dict[str, dict[str, Converter]]] = {
     "irradiance": {"W/m²": lambda x: x, "W/m2": lambda x: x},
     "pressure": {"Pa": lambda x: x, "hPa": lambda x: x * 100.0, "kPa": lambda x: x * 1000.0},
     "state": {"": lambda x: x},
-    "ratio": {"": lambda x: x, "%": lambda x: x},
+    "ratio": {"": lambda x: x, "%": lambda x: x, "fraction": lambda x: x * 100.0,
+              "/": lambda x: x * 100.0},  # per cent; a sensor reporting 0.3 says fraction
 }
 
 CANONICAL: Final[dict[str, str]] = {

@@ -408,6 +408,38 @@ class Advisories:
         for i in np.flatnonzero(reminded):
             self._apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
 
+    def shift_timers(self, step_s: float) -> list[Effect]:
+        """Move every timer by ``step_s`` seconds: the wall clock was stepped by that much
+        (negative: back), and a duration (on-delay, off-delay, shelving and its daily
+        budget, reminders, chatter and flood windows, the effect of advice acted on, the
+        refresh and summary schedules) must last as long after the step as it would have
+        without it, that is by the monotonic clock. Timestamps already said are not
+        changed. Returns the records of the live advisories, to store their timers."""
+        out: list[Effect] = []
+        for rt in self.rules:
+            for a in (rt.pending_since, rt.clear_since, rt.last_notified, rt.shelved_until,
+                      rt.unknown_since, rt.lower_since):
+                a += step_s
+            for i, times in rt.raised_times.items():
+                rt.raised_times[i] = deque((t + step_s for t in times), times.maxlen)
+            for spans in rt.shelvings.values():
+                for span in spans:
+                    span[0] += step_s
+                    span[1] += step_s
+            for adv in rt.advisories.values():
+                adv.raised_at += step_s  # minutes since raised, the chatter hold
+                if adv.numbers_at is not None:
+                    adv.numbers_at += step_s
+                if adv.acted_on is not None and "_t" in adv.acted_on:
+                    adv.acted_on["_t"] = float(adv.acted_on["_t"]) + step_s
+                out.append(self._persist(adv))
+        for audience, window in self.flood.items():
+            self.flood[audience] = deque((t + step_s for t in window), window.maxlen)
+        for audience, last in self.last_summary.items():
+            self.last_summary[audience] = last + step_s
+        self.last_refresh += step_s
+        return out
+
     def refresh_due(self, now: float) -> list[Effect]:
         """Republish every live advisory (retained) every ``refresh_s``, with the numbers
         of the moment.
@@ -697,12 +729,15 @@ class Advisories:
                                                f"summary.{audience}.{int(now)}"))
 
     # ------------------------------------------------------------------ restore
-    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+    def restore(self, records: list[dict[str, Any]],
+                malformed: list[str] | None = None) -> list[str]:
         """Bring back live advisories stored before a restart, without raising them again.
 
         Returns a note for each record that could not be restored (its space or rule is
-        no longer configured). Conditions are re-evaluated from fresh readings; until then
-        an advisory stays as it was (unknown never clears).
+        no longer configured, or its record is malformed). Conditions are re-evaluated from
+        fresh readings; until then an advisory stays as it was (unknown never clears).
+        ``malformed``, when given, also receives ``"<space>/<rule>: <what is wrong>"`` for
+        each malformed record (the service refuses to start on a damaged store).
         """
         notes: list[str] = []
         rules = {rt.rule.key: rt for rt in self.rules}
@@ -756,6 +791,9 @@ class Advisories:
                 # nothing of it is taken, and nothing half-restored is left behind
                 notes.append(f"advisory {rec.get('space')}/{rec.get('rule')} not restored: "
                              f"its record is malformed ({type(exc).__name__}: {exc})")
+                if malformed is not None:
+                    malformed.append(f"{rec.get('space')}/{rec.get('rule')}: "
+                                     f"{type(exc).__name__}: {exc}")
                 continue
             rt.state[i] = adv.state
             rt.level[i] = level

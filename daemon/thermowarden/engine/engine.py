@@ -39,7 +39,10 @@ from thermowarden.engine.advisories import (
     Advisory,
     RuleRuntime,
 )
+from thermowarden.engine.crossings import Crossings
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
+from thermowarden.engine.foresight import AHEAD_TEXTS, WINDOW_TEXTS, Foresight
+from thermowarden.engine.foresight import text_fields as foresight_texts
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
@@ -48,6 +51,8 @@ from thermowarden.engine.texts import Texts
 from thermowarden.rules import CompiledPack, CompiledRule
 from thermowarden.site_model import SITE, SiteModel
 
+AHEAD_FIELDS: Final = frozenset((*AHEAD_TEXTS, *WINDOW_TEXTS))
+"""Text fields of the ahead-of-time messages (engine/foresight.py)."""
 HEALTH_DETAILS: Final = frozenset({"stale_detail", "stuck_detail", "implausible_detail",
                                    "disagreement_detail"})
 """Text fields :meth:`PointHealth.details` gives."""
@@ -71,9 +76,11 @@ class Engine:
         self.ingest = Ingestor(model, self.state)
         self.health = PointHealth(model, self.state)
         self.evaluation = Evaluation(self.state, self.health)
+        self.evaluation.foresight = Foresight(model, self.state)
         self.publication = Publication(config, model, conditions_every_s)
         self.advisories = Advisories(config, model, packs, self.publication,
                                      Texts(config, model), refresh_s=advisory_refresh_s)
+        self.crossings = Crossings(self.advisories)
         self.sample_every_s = sample_every_s
         self.last_sample = -math.inf
         self.last_table: IndexTable | None = None
@@ -122,6 +129,11 @@ class Engine:
             out.append(r)
         return out
 
+    def oversized(self, topic: str, size: int) -> list[Rejection]:
+        """A sensor message dropped unread for its ``size`` (bytes); see
+        :meth:`Ingestor.oversized`."""
+        return [self.ingest.oversized(topic, size)]
+
     # ------------------------------------------------------------------ tick
     def tick(self, now: float) -> list[Effect]:
         """Evaluate every space at ``now`` and return what to publish and store."""
@@ -149,6 +161,7 @@ class Engine:
         table = self.evaluation.indices(snap)
         env = self.evaluation.environment(snap, table, self.start)
         book = self.advisories
+        crossings = self.crossings
         times = snap.times.tolist()
         evaluated: list[tuple[RuleRuntime, RuleTruths, list[bool], list[bool]]] = []
         others = [rt for rt in book.rules if rt.rule.pack != "sensor_health"]
@@ -189,8 +202,9 @@ class Engine:
             # texts rendered in this tick (raises, reminders, refreshes) use its values
             at_j = self.evaluation.tick_rows(table, snap.inputs, rows) if k > 1 else table
             self.health.at(j)
-            book.begin(RowView(env, rows) if k > 1 else env, at_j,
-                       functools.partial(self._text_fields, at_j, now),
+            env_j = RowView(env, rows) if k > 1 else env
+            book.begin(env_j, at_j,
+                       functools.partial(self._text_fields, at_j, now, env_j),
                        self.evaluation.owned)
             if readers and k > 1 and any(rt.advisories for rt in others):
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
@@ -213,8 +227,13 @@ class Engine:
                         continue
                 elif repeats[j] and now < due[id(rt)]:
                     continue  # same conditions as the tick before and no timer due
-                book.step(rt, truths.rows(rows) if k > 1 else truths, now, effects)
+                truths_j = truths.rows(rows) if k > 1 else truths
+                if crossings:
+                    truths_j = crossings.hold(rt, truths_j)
+                book.step(rt, truths_j, now, effects)
                 due[id(rt)] = rt.next_due()
+            if crossings:
+                crossings.settle(now, effects)
             book.flush_summaries(now, effects)
             if sample_due and now - self.last_sample >= self.sample_every_s:
                 self.last_sample = now
@@ -237,7 +256,8 @@ class Engine:
             effects.extend(self.publication.conditions_due(snap, table, snap.now))
         return effects
 
-    def _text_fields(self, table: Mapping[str, IndexColumn], now: float, i: int,
+    def _text_fields(self, table: Mapping[str, IndexColumn], now: float,
+                     env: Mapping[str, Any], i: int,
                      wanted: AbstractSet[str]) -> dict[str, object]:
         """Words for the messages of space ``i`` that are not numbers, those of ``wanted``
         only (the names the rule's templates insert; each costs a pass over points or
@@ -249,9 +269,23 @@ class Engine:
             fields.update(self.health.details(i, self.health.snap))
         if "wbgt_basis" in wanted:
             twa = table.get("wbgt_time_weighted")
-            fields["wbgt_basis"] = (
-                "the 60-minute time-weighted mean" if twa is not None and bool(twa.present[i])
-                else "the spot value (the 60-minute mean is not complete yet)")
+            basis = ("the 60-minute time-weighted mean" if twa is not None
+                     and bool(twa.present[i])
+                     else "the spot value (the 60-minute mean is not complete yet)")
+            est = table.get("natural_wet_bulb_estimated")
+            if est is not None and bool(est.present[i]):
+                mrt = table["mean_radiant_temperature"].values[i]
+                ta = env["air_temperature"][i]
+                by_globe = bool(np.isfinite(mrt)) and not mrt - ta > 70.0
+                basis += ("; natural wet bulb estimated from the globe, air temperature, "
+                          "humidity and air speed (Liljegren et al. 2008)" if by_globe else
+                          "; natural wet bulb estimated (Liljegren et al. 2008) from the solar "
+                          "irradiance and the sun's position"
+                          + (", the globe reading more than 70 K above the air"
+                             if np.isfinite(mrt) else ""))
+            fields["wbgt_basis"] = basis
+        if wanted & AHEAD_FIELDS and self.evaluation.foresight is not None:
+            fields.update(foresight_texts(self.evaluation.foresight, i, now, table, wanted))
         if "rules_unknown_detail" in wanted:
             unknown = self.advisories.unknown_detail(i, now)
             if unknown:
@@ -270,15 +304,28 @@ class Engine:
         """Acknowledge, shelve or unshelve an advisory; see :meth:`Advisories.command`."""
         return self.advisories.command(verb, body, now, audience, identity)
 
-    def clock_stepped(self, now: float, step_s: float) -> None:
-        """The wall clock was corrected by ``step_s`` (negative: back). After a step back,
-        readings are no longer refused as older than the latest one taken before it."""
+    def clock_stepped(self, now: float, step_s: float) -> list[Effect]:
+        """The wall clock was stepped by ``step_s`` (negative: back) at ``now``.
+
+        The engine keeps its timers on the wall timeline it is fed; the shell measures each
+        step (the wall clock's change minus the monotonic clock's) and hands it here, and
+        every timer moves by it: so every duration (delays, shelving and its daily budget,
+        reminders, the conditions, sample and heat-strain schedules) ends after the same
+        monotonic time as without the step, and no schedule stops. Timestamps (``now``)
+        follow the corrected clock. After a step back, readings are no longer refused as
+        older than the latest one taken before it. Returns the live advisories' records
+        (their timers moved)."""
         if step_s < 0:
             self.state.clock_stepped_back(now)
+        self.publication.shift_timers(step_s)
+        self.evaluation.last_phs += step_s
+        self.last_sample += step_s
+        return self.advisories.shift_timers(step_s)
 
-    def restore(self, records: list[dict[str, Any]]) -> list[str]:
+    def restore(self, records: list[dict[str, Any]],
+                malformed: list[str] | None = None) -> list[str]:
         """Bring back stored live advisories; see :meth:`Advisories.restore`."""
-        return self.advisories.restore(records)
+        return self.advisories.restore(records, malformed)
 
     # ------------------------------------------------------------------ groups
     @property

@@ -33,6 +33,7 @@ from thermowarden.core.indices import (
     with_time_weighted_wbgt,
 )
 from thermowarden.core.radiation import SIDES
+from thermowarden.engine.foresight import Foresight
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.state import SiteState, Snapshot
 from thermowarden.rules import CompiledRule
@@ -223,6 +224,8 @@ class Evaluation:
         """Failed computations (space and group) since start, for the metrics."""
         self._phs_failures: dict[int, tuple[str, str]] = {}
         self._all_failures: dict[int, tuple[str, str]] = {}
+        self.foresight: Foresight | None = None
+        """Builds the ahead-of-time columns (engine/foresight.py); None: none."""
         self.owned: BoolArray | None = None
         """The spaces this instance evaluates (None: all). Indices of the others are not
         computed after the first evaluation (their rows keep the last values, unused)."""
@@ -348,10 +351,16 @@ class Evaluation:
                                 for name in names}
         wbgt = table["wbgt"].values
         twa = np.empty(k * n)
+        ahead = self.foresight.begin(k, table, s) if self.foresight is not None else None
         for j, t in enumerate(times):
             twa[j * n:(j + 1) * n] = self.state.wbgt_time_weighted(t)
+            if ahead is not None:
+                ahead(j, t)
             self.state.record_wbgt(t, wbgt[j * n:(j + 1) * n])
         with_time_weighted_wbgt(table, twa, s.clothing_adjustment_k)
+        if self.foresight is not None:
+            table.update(self.foresight.wbgt_columns(s.hot_work))
+            table.update(self.foresight.sun_columns(snap.times, snap.outdoor["solar_irradiance"]))
         if k == 1:
             table["relative_humidity"] = with_method(table["relative_humidity"],
                                                      relative_humidity_method(
@@ -518,11 +527,20 @@ def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArr
         assert rule.condition is not None
         cond = rule.condition.evaluate_truth(env, n)
         level_idx = np.where(cond.true, np.int8(rule.base_priority), level_idx)
+    assumed_only = np.zeros(n, dtype=bool)
+    for name in cfg.measured:  # an assumption may not stand in for these: unknown there
+        flags = base["_assumed"].get(name)
+        if flags is not None:
+            assumed_only |= flags
+    if assumed_only.any():
+        cond = Truth(cond.value & ~assumed_only, cond.known & ~assumed_only)
     occupied = base["occupied"]
     if cfg.occupied_only:
         cond = Truth(cond.value & occupied, cond.known | ~occupied)
     cond = Truth(cond.value & mask, cond.known | ~mask)
     clear = rule.clear.evaluate_truth(env, n) if rule.clear else Truth(~cond.value, cond.known)
+    if assumed_only.any():
+        clear = Truth(clear.value & ~assumed_only, clear.known & ~assumed_only)
     if cfg.occupied_only:
         clear = Truth(clear.value | ~occupied, clear.known | ~occupied)
     clear = Truth(clear.value | ~mask, clear.known | ~mask)
@@ -535,6 +553,9 @@ def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArr
         present = base["_present"].get(name)
         if present is not None:
             lacking |= ~present
+        elif isinstance(base.get(name), np.ndarray) and base[name].dtype != np.bool_:
+            lacking |= ~np.isfinite(base[name])  # a derived need (wbgt): its value
+    lacking |= assumed_only
     acted = rule.acted_on.evaluate_truth(env, n).true if rule.acted_on is not None else None
     return RuleTruths(cond, clear, hold, level_idx, lacking, acted)
 

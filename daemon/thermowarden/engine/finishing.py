@@ -15,6 +15,7 @@ from typing import Final
 
 import numpy as np
 
+from thermowarden.core.forecast import FORESIGHT_COLUMNS
 from thermowarden.core.indices import compute_indices
 from thermowarden.core.reachability import blocking_names, can_become_true
 from thermowarden.engine.state import SiteState
@@ -28,7 +29,7 @@ TYPICAL: Final[dict[str, float]] = {
     "surface_temperature": 21.0, "floor_temperature": 23.0, "outdoor_air_temperature": 24.0,
     "outdoor_relative_humidity": 50.0, "wind_speed": 2.0, "solar_irradiance": 300.0,
     "barometric_pressure": 101325.0, "shading_position": 0.0, "fan_state": 0.0,
-    "occupancy": 1.0, "turbulence_intensity": 0.3,
+    "occupancy": 1.0, "turbulence_intensity": 30.0,  # per cent, the canonical unit
 }
 """A reading of each quantity inside every method's range (invented, for this test only)."""
 T0: Final = 1_780_000_000.0
@@ -83,6 +84,12 @@ def available_names(model: SiteModel, parameters: Mapping[int, set[str]]) -> lis
             names.update(name for name, col in table.items() if bool(col.present[i]))
             if "wbgt" in names:
                 names.add("wbgt_time_weighted")  # built by the engine from the spot WBGT
+                if bool(inputs.hot_work[i]):  # and the ahead-of-time columns from it
+                    names.update(n for n in FORESIGHT_COLUMNS if n.startswith("wbgt_"))
+            if model.config.spaces[i].windows and model.config.site.latitude is not None:
+                names.update(n for n in FORESIGHT_COLUMNS if n.startswith("sun_"))
+                if np.isfinite(snap.outdoor["solar_irradiance"]).any():
+                    names.add("sky_clearness")
             for name in ("air_temperature", "globe_temperature", "air_speed",
                          "natural_wet_bulb", "psychrometric_wet_bulb", "floor_temperature",
                          "turbulence_intensity"):

@@ -23,7 +23,7 @@ from typing import Final
 from thermowarden.config.points import JsonFormat, NumberFormat, SenmlFormat, StateFormat
 from thermowarden.core import payloads
 from thermowarden.core.payloads import Decoded, DecodeError
-from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.quantities import QUANTITIES, STATE_QUANTITIES
 from thermowarden.core.units import UnitError, converter
 from thermowarden.engine.state import SiteState
 from thermowarden.site_model import MAX_SENSORS_PER_SLOT, SiteModel, template_applies
@@ -147,14 +147,28 @@ class Ingestor:
             return payloads.decode_number(payload)
         if isinstance(fmt, JsonFormat):
             return payloads.decode_json(payload, fmt.value_path, fmt.time_path, fmt.unit_path)
-        if isinstance(fmt, SenmlFormat):
-            return payloads.decode_senml(payload, now, fmt.name)
         true_value = 100.0 if quantity == "shading_position" else 1.0
+        if isinstance(fmt, SenmlFormat):
+            return payloads.decode_senml(payload, now, fmt.name,
+                                         state=quantity in STATE_QUANTITIES,
+                                         true_value=true_value)
         return payloads.decode_state(payload, fmt.states, fmt.value_path, true_value)
 
     def _reject(self, reason: str, point: str, topic: str, detail: str) -> Rejection:
         self.rejected[(reason, point)] += 1
         return Rejection(reason, point, topic, detail)
+
+    def oversized(self, topic: str, size: int) -> Rejection:
+        """A message of ``size`` bytes (its packet's remaining length) that the shell
+        dropped unread for its size: refused as ``payload_too_large`` against its point (or
+        as an unknown topic), counted like any other."""
+        self.received += 1
+        self.last_points = []
+        route = self._resolve(topic)
+        if isinstance(route, Rejection):
+            return self._reject(route.reason, route.point, topic, route.detail)
+        return self._reject(PAYLOAD_TOO_LARGE, self.model.points[route[0]].key, topic,
+                            f"about {size} bytes > {self.max_bytes} (dropped unread)")
 
     # ---------------------------------------------------------------- the path
     def ingest(self, topic: str, payload: bytes, now: float,

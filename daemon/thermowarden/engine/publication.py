@@ -207,9 +207,18 @@ class Publication:
             v = values[i]
             inputs[q] = {"fresh": fresh[i], "value": v if math.isfinite(v) else None,
                          "unit": unit, "age_s": newest.get(q)}
+        indices = self.indices_at(table, i)
         for q, mask in snap.assumed.items():
             if mask[i]:
-                inputs.setdefault(q, {"fresh": False})["assumed"] = self._assumption_notes(i)[q]
+                note = self._assumption_notes(i)[q]
+                inputs.setdefault(q, {"fresh": False})["assumed"] = note
+                if q in indices and indices[q].get("value") is not None:
+                    # the index of the same name is the assumption itself: say so
+                    indices[q] = {**indices[q], "method": f"{note} (not measured)"}
+                    if q == "mean_radiant_temperature" and \
+                            "mean_radiant_temperature_source" in indices:
+                        indices["mean_radiant_temperature_source"] = {
+                            **indices["mean_radiant_temperature_source"], "value": "assumed"}
         out = {
             "schema": CONDITIONS_SCHEMA,
             "site": self.config.site.id,
@@ -219,7 +228,7 @@ class Publication:
             "states": {k: num(float(v[i])) for k, v in snap.states.items()},
             "inputs": inputs,
             "points": points,
-            "indices": self.indices_at(table, i),
+            "indices": indices,
             "advisory_only": True,
         }
         moved = float(self.moved_at[i])
@@ -341,6 +350,13 @@ class Publication:
                                    self.conditions_payload(snap, table, int(i)), retain=True,
                                    qos=0, expiry_s=CONDITIONS_EXPIRY_S))
         return effects
+
+    def shift_timers(self, step_s: float) -> None:
+        """The wall clock was stepped by ``step_s``: the conditions schedule goes on as by
+        the monotonic clock (a step back would otherwise hold every space's conditions for
+        the length of the step)."""
+        self.last_conditions += step_s
+        self.moved_at += step_s
 
     def republish_conditions(self) -> None:
         """Send every space's conditions at the next evaluation (after a reconnect)."""

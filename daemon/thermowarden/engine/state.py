@@ -16,7 +16,6 @@ from typing import Final
 import numpy as np
 import numpy.typing as npt
 
-from thermowarden.config.points import PointBase, PointConfig
 from thermowarden.config.service import IngestConfig
 from thermowarden.config.site import OccupancyConfig, SiteConfig
 from thermowarden.core import radiation
@@ -163,6 +162,10 @@ class SiteState:
         self.assumed_mrt_offset = np.array(
             [off if (off := a.mrt_offset_k) is not None else np.nan for a in assume])
         """Mean radiant minus air temperature (K) per space; NaN where nothing is assumed."""
+        self.assumed_rh = np.array(
+            [a.relative_humidity if a.relative_humidity is not None else np.nan
+             for a in assume])
+        """Relative humidity (%) per space; NaN where nothing is assumed."""
         groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
         for i, space in enumerate(cfg.spaces):
             occ = cfg.occupancy(space)
@@ -236,37 +239,24 @@ class SiteState:
         people = [cfg.people(s) for s in spaces]
         globe_d = np.full(n, 0.15)
         globe_e = np.full(n, 0.95)
-        for p in self.model.points:
+        for p in self.model.points:  # each point's own globe (not the first on its topic)
             if p.space != SITE and p.quantity == "globe_temperature":
-                cfg_point: PointBase | None = next(
-                    (q for q in spaces[p.space].points if q.topic == p.topic), None)
-                if cfg_point is None:
-                    cfg_point = next((t for t in cfg.templates if t.quantity ==
-                                      "globe_temperature"), None)
-                if cfg_point is not None:
-                    if cfg_point.globe_diameter_m:
-                        globe_d[p.space] = cfg_point.globe_diameter_m
-                    if cfg_point.globe_emissivity:
-                        globe_e[p.space] = cfg_point.globe_emissivity
+                if p.globe_diameter_m:
+                    globe_d[p.space] = p.globe_diameter_m
+                if p.globe_emissivity:
+                    globe_e[p.space] = p.globe_emissivity
         # heights of the air speed sensors (UTCI converts to 10 m): a space's own air_speed
         # point at 1.1 m unless it says height_m; the site's wind_speed at 10 m unless it says
         speed_height = np.full(n, DEFAULT_AIR_SPEED_HEIGHT_M)
         self.wind_height_m = WIND_HEIGHT_M
         for p in self.model.points:
-            if p.quantity not in ("air_speed", "wind_speed"):
-                continue
-            where: list[PointConfig] = (list(cfg.site.outdoor_points) if p.space == SITE
-                                        else list(spaces[p.space].points))
-            found: PointBase | None = next((q for q in where if q.topic == p.topic), None)
-            if found is None and p.space != SITE:
-                found = next((t for t in cfg.templates if t.quantity == p.quantity and
-                              (t.spaces is None or spaces[p.space].id in t.spaces)), None)
-            if found is None or found.height_m is None:
+            # each point's own height (several points may share one topic: a SenML pack)
+            if p.quantity not in ("air_speed", "wind_speed") or p.height_m is None:
                 continue
             if p.space == SITE:
-                self.wind_height_m = found.height_m
+                self.wind_height_m = p.height_m
             else:
-                speed_height[p.space] = found.height_m
+                speed_height[p.space] = p.height_m
         if cfg.site.barometric_pressure_pa is not None:
             pressure = cfg.site.barometric_pressure_pa
         elif cfg.site.altitude_m is not None:
@@ -587,8 +577,19 @@ class SiteState:
         radiant_known = np.isfinite(mrt) | np.isfinite(got.get("globe_temperature", nan_rows))
         for v in planes.values():
             radiant_known |= np.isfinite(v)
+        # outdoors in the sun the irradiance gives it (better than an assumption)
+        sunlit = ctx["solar_load"]
+        lat = ctx["latitude"]
+        assert isinstance(sunlit, np.ndarray) and isinstance(lat, np.ndarray)
+        radiant_known |= (outdoor_space & np.tile(sunlit & np.isfinite(lat), k)
+                          & np.repeat(np.isfinite(outdoor["solar_irradiance"]), n))
         mrt_assumed = ~radiant_known & np.isfinite(assumed_offset) & np.isfinite(air)
         mrt = np.where(mrt_assumed, air + assumed_offset, mrt)
+        psy_wet = got.get("psychrometric_wet_bulb", nan_rows)
+        assumed_rh = np.tile(self.assumed_rh, k)
+        rh_assumed = np.isnan(rh) & np.isnan(psy_wet) & np.isfinite(assumed_rh)
+        measured_rh = np.isfinite(rh)
+        rh = np.where(rh_assumed, assumed_rh, rh)
         inputs = SpaceInputs.create(
             rows,
             air_temperature=air, relative_humidity=rh, air_speed=speed,
@@ -607,16 +608,17 @@ class SiteState:
             solar_irradiance=np.repeat(outdoor["solar_irradiance"], n),
             time_s=self._sun_times(times, k),
             plane_radiant=planes,
+            assumed_mrt_offset_k=assumed_offset,
             **context,
         )
-        present = {q: np.isfinite(v) for q, v in (
-            ("air_temperature", air), ("relative_humidity", rh))}
+        present = {"air_temperature": np.isfinite(air), "relative_humidity": measured_rh}
         present["air_speed"] = measured_speed
         for q, v in got.items():
             present.setdefault(q, np.isfinite(v))
         for side, v in planes.items():
             present[f"plane_radiant_temperature_{side}"] = np.isfinite(v)
-        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed}
+        assumed = {"air_speed": speed_assumed, "mean_radiant_temperature": mrt_assumed,
+                   "relative_humidity": rh_assumed}
         occupied = self.occupied_many(times, states["occupancy"])
         return Snapshot(float(times[-1]), inputs, present, states, occupied, spread, fresh, age,
                         outdoor, times, values, last, days_rolled, assumed)

@@ -26,7 +26,14 @@ from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Clock, Service
-from thermowarden.shell.store import Store, StoreError, move_aside
+from thermowarden.shell.store import (
+    MOVE_ASIDE_HINT,
+    OUTBOX_COUNT,
+    Store,
+    StoreError,
+    count_rows,
+    move_aside,
+)
 from thermowarden.shell.warmup import warm_up
 from thermowarden.shell.web import WebServer, build_web
 from thermowarden.site_model import build_site_model
@@ -130,7 +137,6 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
 
     config, packs = load()
     model = build_site_model(config)
-    warm_up(log.info)
     clock = clock or Clock()
     state = pathlib.Path(state_dir or os.environ.get("STATE_DIRECTORY") or "state")
     site_id = config.site.id
@@ -142,28 +148,52 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     suffix = (f"-shard{shard[0]}of{shard[1]}" if shard else
               f"-{instance}" if group else "")
     store_path = state / f"{config.site.id}{suffix}.sqlite3"
-    try:
+
+    def open_store() -> tuple[Store, Engine, list[str]]:
+        """The store, checked record by record, and the engine with its live advisories
+        (before the comfort models are loaded: a bad store is refused at once)."""
         store = Store(store_path)
-    except StoreError:
-        if not move_damaged_store:
+        try:
+            store.check_records()
+            engine = Engine(config, model, packs, start=clock.now())
+            # a group member continues advisories from their retained messages, not its
+            # store
+            malformed: list[str] = []
+            notes = engine.restore([] if group else store.advisories(), malformed)
+            if malformed:
+                more = f" (and {len(malformed) - 1} more)" if len(malformed) > 1 else ""
+                raise StoreError(f"store {store_path}: table advisories, row "
+                                 f"{malformed[0]}{more}; {MOVE_ASIDE_HINT}", damaged=True)
+        except BaseException:
+            store.close()
             raise
+        return store, engine, notes
+
+    try:
+        store, engine, notes = open_store()
+    except StoreError as exc:
+        if not (move_damaged_store and exc.damaged):
+            raise
+        log.error("%s", exc)
         moved = move_aside(store_path, clock.now())
-        log.warning("the damaged store was moved aside to %s; starting with an empty store",
+        log.warning("the damaged store was moved aside to %s (kept, not deleted); starting "
+                    "with an empty store: live advisories are raised again from fresh "
+                    "readings, unsent events and deliveries of the old store are not sent",
                     moved)
-        store = Store(store_path)
-    engine = Engine(config, model, packs, start=clock.now())
-    # a group member continues advisories from their retained messages, not its store
-    notes = engine.restore([] if group else store.advisories())
+        store, engine, notes = open_store()
+    warm_up(log.info)
     for note in notes:
         log.warning(note)
     restored = len(engine.live_advisories())
     if restored:
         log.info("restored %d live advisory(ies) from %s", restored, store.path)
-    stored_means = store.get("daily_means")
+    stored_means = store.daily_means()
     if stored_means:
         seeds = list(config.site.outdoor_daily_means)
         engine.state.daily_means = (list(stored_means) + seeds[len(stored_means):])[:30]
     metrics = Metrics()
+    # counted in the table when asked, so the gauge never drifts from it
+    metrics.outbox_depth.set_function(lambda: count_rows(store_path, OUTBOX_COUNT))
     inbox = Inbox(INBOX_SIZE)
     control: queue.Queue[Control] = queue.Queue()
     prefix = config.output.prefix

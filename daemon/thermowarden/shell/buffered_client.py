@@ -16,6 +16,13 @@ under a flood); a QoS 0 or 1 PUBLISH without MQTT 5 properties is decoded here i
 :class:`Received` (anything else, including malformed packets, by paho). Callbacks, their
 locks, acknowledgements and error handling are paho's.
 
+A PUBLISH whose remaining length is over :attr:`BufferedClient.max_publish_bytes` is never
+held whole: its fixed header is read here, then its bytes are read off the socket in
+:data:`READ_CHUNK` pieces and dropped, keeping only the first :data:`HEAD_KEPT` bytes (the
+topic and packet id); it is acknowledged as paho would and given to ``on_message`` as an
+:class:`Oversized` message with an empty payload and its size. So a 50 MB message costs
+about 130 KiB of memory, not 50 MB (paho alone reads every packet whole into memory).
+
 It overrides private methods of paho 2.x (``_sock_recv``, ``_packet_read``, ``_loop``,
 ``_handle_publish``, ``_handle_on_message``); tests/shell/test_buffered_client.py compares
 what it receives with stock paho through the real broker (both protocols, large messages,
@@ -25,6 +32,7 @@ changes them fails there first.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 import paho.mqtt.client as mqtt
@@ -37,6 +45,11 @@ READ_CHUNK = 65_536
 """Bytes asked of the socket per ``recv()``."""
 MAX_PACKETS_PER_TURN = 1000
 """Packets handled per turn of the network loop before it writes and checks keep-alive."""
+HEAD_KEPT = 2 + 65_535 + 2
+"""Bytes kept of an oversized PUBLISH: the topic's length, the longest topic, a packet id."""
+SKIP_CHUNKS_PER_TURN = 128
+"""Pieces of an oversized message dropped per turn of the loop (8 MiB), so keep-alive and
+outgoing packets still get their turn."""
 _NO_PROPERTIES = Properties(PacketTypes.PUBLISH)  # type: ignore[no-untyped-call]
 """The properties of every MQTT 5 message that has none (shared, never changed)."""
 
@@ -61,6 +74,26 @@ class Received(mqtt.MQTTMessage):
         self.properties = properties
 
 
+class Oversized(Received):
+    """A PUBLISH over the limit, read and dropped: its topic, flags and ``size`` (its
+    remaining length in bytes: topic, packet id, properties and payload); no payload."""
+
+    size = 0
+
+
+class _Skipping:
+    """An oversized PUBLISH being read off the socket and dropped."""
+
+    __slots__ = ("command", "length", "left", "head", "sock")
+
+    def __init__(self, command: int, length: int, sock: object) -> None:
+        self.command = command
+        self.length = length
+        self.left = length
+        self.head = bytearray()
+        self.sock = sock
+
+
 class BufferedClient(mqtt.Client):
     """See the module docstring. Used by one network thread, like paho's own client."""
 
@@ -74,6 +107,13 @@ class BufferedClient(mqtt.Client):
         """True when received packets wait in the buffer (the next turn must not block)."""
         self._filtered = False
         """True once a per-topic callback is added (then paho dispatches every message)."""
+        self.max_publish_bytes = 0
+        """A PUBLISH with a remaining length over this is dropped unread (0: no limit)."""
+        self._skip: _Skipping | None = None
+        self._hdr = bytearray()
+        self._hdr_sock: object = None
+        self.on_oversized: Callable[[Oversized], None] | None = None
+        """Called (instead of ``on_message``) with each oversized PUBLISH dropped unread."""
 
     def message_callback_add(self, sub: str, callback: Any) -> None:
         self._filtered = True
@@ -185,7 +225,12 @@ class BufferedClient(mqtt.Client):
 
     def _packet_read(self) -> MQTTErrorCode:
         """A packet that is whole in the buffer is cut out of it at once; a partial one is
-        left to paho, which reads it piece by piece (from the buffer, then the socket)."""
+        left to paho, which reads it piece by piece (from the buffer, then the socket),
+        unless it is a PUBLISH over :attr:`max_publish_bytes` (read and dropped here)."""
+        if self._skip is not None:
+            if self._skip.sock is self._sock:
+                return self._skip_read()
+            self._skip = None  # a new connection
         if self._in_packet["command"] == 0 and self._rsock is self._sock:
             buf = self._rbuf
             start = self._rpos
@@ -199,11 +244,98 @@ class BufferedClient(mqtt.Client):
                 length |= (byte & 127) << shift
                 shift += 7
                 if not byte & 128:
-                    if i + length <= end:
+                    if i + length <= end and not self._too_large(buf[start], length):
                         self._rpos = i + length
                         return self._handle_whole(buf[start], buf[i:i + length], length)
                     break
+        if self._in_packet["command"] == 0 and self.max_publish_bytes:
+            rc = self._header_read()
+            if rc is not None:
+                return rc
         return super()._packet_read()
+
+    def _too_large(self, command: int, length: int) -> bool:
+        return bool(self.max_publish_bytes) and (command & 0xF0) == 0x30 and \
+            length > self.max_publish_bytes
+
+    def _header_read(self) -> MQTTErrorCode | None:
+        """Read a fixed header (kept across turns); an oversized PUBLISH is then dropped
+        unread, anything else handed to paho to read its body (None)."""
+        if self._hdr_sock is not self._sock:
+            self._hdr = bytearray()
+            self._hdr_sock = self._sock
+        hdr = self._hdr
+        while len(hdr) < 2 or hdr[-1] & 128:
+            if len(hdr) > 4:
+                return MQTTErrorCode.MQTT_ERR_PROTOCOL  # a remaining length of 5 bytes
+            try:
+                byte = self._sock_recv(1)
+            except BlockingIOError:
+                return MQTTErrorCode.MQTT_ERR_AGAIN
+            except OSError as err:
+                self._easy_log(mqtt.MQTT_LOG_ERR, "failed to receive on socket: %s", err)
+                return MQTTErrorCode.MQTT_ERR_CONN_LOST
+            if not byte:
+                return MQTTErrorCode.MQTT_ERR_CONN_LOST
+            hdr += byte
+            self._bytes_seen = True
+        length = 0
+        for k, b in enumerate(hdr[1:]):
+            length |= (b & 127) << (7 * k)
+        command = hdr[0]
+        self._hdr = bytearray()
+        if self._too_large(command, length):
+            self._skip = _Skipping(command, length, self._sock)
+            return self._skip_read()
+        self._in_packet["command"] = command
+        self._in_packet["have_remaining"] = 1
+        self._in_packet["remaining_length"] = length
+        self._in_packet["to_process"] = length
+        return None
+
+    def _skip_read(self) -> MQTTErrorCode:
+        """Read and drop the oversized PUBLISH's bytes; at its end, acknowledge it and give
+        it to ``on_message`` as :class:`Oversized`."""
+        skip = self._skip
+        assert skip is not None
+        for _ in range(SKIP_CHUNKS_PER_TURN):
+            if skip.left <= 0:
+                break
+            try:
+                data = self._sock_recv(min(skip.left, READ_CHUNK))
+            except BlockingIOError:
+                return MQTTErrorCode.MQTT_ERR_AGAIN
+            except OSError as err:
+                self._easy_log(mqtt.MQTT_LOG_ERR, "failed to receive on socket: %s", err)
+                return MQTTErrorCode.MQTT_ERR_CONN_LOST
+            if not data:
+                return MQTTErrorCode.MQTT_ERR_CONN_LOST
+            skip.left -= len(data)
+            if len(skip.head) < HEAD_KEPT:
+                skip.head += data[:HEAD_KEPT - len(skip.head)]
+            self._bytes_seen = True
+        if skip.left > 0:
+            return MQTTErrorCode.MQTT_ERR_AGAIN
+        self._skip = None
+        head = skip.head
+        qos = (skip.command & 0x06) >> 1
+        slen = (head[0] << 8) | head[1] if len(head) >= 2 else len(head)
+        if len(head) < 2 + slen + (2 if qos else 0) or qos == 3:
+            return MQTTErrorCode.MQTT_ERR_PROTOCOL  # malformed, as paho would say
+        mid = (head[2 + slen] << 8) | head[3 + slen] if qos else 0
+        message = Oversized(mid, bytes(head[2:2 + slen]), b"", qos, bool(skip.command & 0x01),
+                            bool(skip.command & 0x08), None)
+        message.size = skip.length
+        if self.on_oversized is None:
+            self._handle_on_message(message)
+        else:
+            with self._in_callback_mutex:
+                self.on_oversized(message)
+        if qos == 1 and not self._manual_ack:
+            return self._send_puback(mid)
+        if qos == 2:
+            return self._send_pubrec(mid)  # paho answers the broker's PUBREL without it
+        return MQTTErrorCode.MQTT_ERR_SUCCESS
 
     def _handle_whole(self, command: int, body: bytes, length: int) -> MQTTErrorCode:
         self._in_packet = {"command": command, "have_remaining": 1, "remaining_count": [],

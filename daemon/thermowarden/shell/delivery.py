@@ -1,25 +1,34 @@
 """Delivery of events to people by webhook and e-mail, per audience, beside MQTT.
 
-The engine thread only offers events (:meth:`Delivery.offer`: a bounded queue, never
-blocking; overflow is counted and logged). One worker thread owns everything else: it
-stores each delivery in the SQLite store (table ``deliveries``, its own connection) before
-trying it, so a restart loses nothing that was taken from the queue; it sends in order per
-audience and channel; retries with exponential backoff and jitter; holds events other than
-urgent ones during the audience's quiet hours and sends them as one digest when they end;
-collects low-priority events into a digest every ``low_priority_digest_s``.
+Every delivery is a row of the store's ``deliveries`` table before anything else happens:
+the engine thread writes it (:meth:`Delivery.stage`) in the same transaction as the event's
+outbox row, so a crash at any moment loses none and a restart sends what was waiting. One
+worker thread per receiver (audience and channel: a webhook, an e-mail relay) with its own
+SQLite connection sends that receiver's rows in order, so a slow or failing receiver
+delays only itself; it removes a row once the receiver took it (at least once: a crash
+between the two sends it again under the same delivery id). Retries use exponential
+backoff and jitter; events other than urgent ones wait during the audience's quiet hours
+and go out as one digest when they end; low-priority events are collected into a digest
+every ``low_priority_digest_s``. The waiting count (``thermowarden_delivery_pending``) is
+read from the table when asked.
 
-Around the worker: an audience may have recipients per building (or area), which receive
+Around the workers: an audience may have recipients per building (or area), which receive
 the events of the spaces there besides the audience's own (a flood summary is split by
-building for them); every message links to the advisory's page when the site has one
-(``page`` in the webhook JSON, a line in the e-mail); and an urgent alert that nobody
-acknowledges, shelves or clears within ``escalation.after_s`` goes to the escalation
-recipients as an ``unacknowledged`` event (:class:`Escalations`: its own thread and table
-``escalations``, so a restart keeps the timers).
+building for them); each set of recipients is a route (:func:`delivery_routes`) and its
+rows carry the route as their audience, so each has its own workers. Every message links
+to the advisory's page when the site has one (``page`` in the webhook JSON, a line in the
+e-mail). An urgent alert that nobody acknowledges, shelves or clears within
+``escalation.after_s`` goes to the escalation recipients as an ``unacknowledged`` event
+(:class:`Escalations`): its timer is a row of the store's ``escalations`` table written in
+the same transaction as the event's deliveries, so a restart keeps it, and a step of the
+wall clock moves it by the step, so it still waits ``after_s`` of elapsed time.
 
-Webhook: ``POST`` of the event JSON with the headers ``X-Thermowarden-Timestamp`` (epoch
-seconds), ``X-Thermowarden-Signature: sha256=<hex>`` (HMAC-SHA256 with the shared secret
-over ``<timestamp>.<body>``, RFC 2104) and ``X-Thermowarden-Delivery`` (the same id on every
-retry, so a receiver can drop repeats). 2xx is delivered; 408, 425, 429 and 5xx and network
+Webhook: ``POST`` of the event JSON signed by the open Standard Webhooks specification
+(standardwebhooks.com; its reference library signs): the headers ``webhook-id`` (the delivery
+id, the same on every retry, so a receiver can drop repeats), ``webhook-timestamp`` (epoch
+seconds) and ``webhook-signature`` (``v1,`` + base64 HMAC-SHA256 of ``<id>.<timestamp>.<body>``
+with the shared secret: a ``whsec_`` secret is base64 as the specification has it, any other
+secret is its UTF-8 bytes). 2xx is delivered; 408, 425, 429 and 5xx and network
 errors are retried; any other status (redirects included) is a permanent failure. E-mail: a
 plain-text message through the SMTP relay (smtplib); 4xx replies and network errors are
 retried, 5xx are not.
@@ -27,14 +36,12 @@ retried, 5xx are not.
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
 import email.utils
-import hashlib
-import hmac
 import json
 import logging
 import pathlib
-import queue
 import random
 import smtplib
 import sqlite3
@@ -60,46 +67,26 @@ from thermowarden.config.delivery import (
     WebhookConfig,
 )
 from thermowarden.core.quiet_hours import QuietHours
+from thermowarden.shell.store import DELIVERIES_SCHEMA, count_rows
 
 log = logging.getLogger("thermowarden.delivery")
 
-SCHEMA = """
-CREATE TABLE IF NOT EXISTS deliveries (
-    seq INTEGER PRIMARY KEY AUTOINCREMENT,
-    id TEXT NOT NULL,
-    audience TEXT NOT NULL,
-    channel TEXT NOT NULL,
-    state TEXT NOT NULL,          -- held (quiet hours or digest), pending, failed
-    priority TEXT NOT NULL,
-    due REAL NOT NULL,
-    attempts INTEGER NOT NULL DEFAULT 0,
-    created REAL NOT NULL,
-    payload TEXT NOT NULL,
-    error TEXT
-);
-CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
-CREATE TABLE IF NOT EXISTS escalations (
-    advisory_id TEXT PRIMARY KEY,
-    route TEXT NOT NULL,          -- where it goes when due: <audience>!escalation[@building]
-    since REAL NOT NULL,          -- when the urgent alert was seen (service clock)
-    due REAL NOT NULL,
-    state TEXT NOT NULL,          -- waiting, sent
-    payload TEXT NOT NULL
-);
-"""
+SCHEMA = DELIVERIES_SCHEMA
 ESCALATE_ON = frozenset({"raised", "escalated", "renotified"})
 """Events of an urgent advisory that start its escalation timer (once)."""
 RESOLVED_BY = frozenset({"acknowledged", "shelved", "cleared", "deescalated"})
 """Events that stop it: somebody took it on, or it is no longer urgent."""
 EVENT_SCHEMA = "thermowarden.event/1"
-SIGNATURE_HEADER = "X-Thermowarden-Signature"
-TIMESTAMP_HEADER = "X-Thermowarden-Timestamp"
-DELIVERY_HEADER = "X-Thermowarden-Delivery"
+SIGNATURE_HEADER = "webhook-signature"
+TIMESTAMP_HEADER = "webhook-timestamp"
+DELIVERY_HEADER = "webhook-id"
 RETRY_STATUS = frozenset({408, 425, 429})
 IDLE_WAIT_S = 1.0
 FAILED_KEPT_S = 30 * 86_400.0
 """Deliveries that failed for good stay in the store this long, for inspection."""
 PRUNE_EVERY_S = 3600.0
+CHANNELS = ("webhook", "email")
+PENDING_COUNT = "SELECT COUNT(*) FROM deliveries WHERE state IN ('held', 'pending')"
 
 
 class DeliveryFailed(Exception):
@@ -110,15 +97,20 @@ class DeliveryFailed(Exception):
         self.permanent = permanent
 
 
-def sign(secret: bytes, timestamp: str, body: bytes) -> str:
-    """The signature header value: ``sha256=`` + hex HMAC-SHA256 of ``<timestamp>.<body>``."""
-    mac = hmac.new(secret, timestamp.encode("ascii") + b"." + body, hashlib.sha256)
-    return "sha256=" + mac.hexdigest()
+def signing_key(secret: str) -> bytes:
+    """The HMAC key of a shared secret: a ``whsec_<base64>`` secret (the Standard Webhooks
+    form) decoded, any other its UTF-8 bytes."""
+    if secret.startswith("whsec_"):
+        return base64.b64decode(secret.removeprefix("whsec_") + "==")
+    return secret.encode("utf-8")
 
 
-def verify(secret: bytes, timestamp: str, body: bytes, header: str) -> bool:
-    """Check a signature header in constant time (what a receiver does)."""
-    return hmac.compare_digest(sign(secret, timestamp, body), header)
+def sign(secret: str, delivery_id: str, timestamp: int, body: bytes) -> str:
+    """The ``webhook-signature`` header of a delivery (Standard Webhooks, version v1)."""
+    from standardwebhooks.webhooks import Webhook
+
+    when = dt.datetime.fromtimestamp(timestamp, dt.UTC)
+    return Webhook(signing_key(secret)).sign(delivery_id, when, body)
 
 
 def _secret(value: Any, file: str | None) -> str | None:
@@ -147,10 +139,11 @@ def post_webhook(cfg: WebhookConfig, payload: dict[str, Any], delivery_id: str,
     secret = _secret(cfg.secret, cfg.secret_file)
     assert secret is not None  # the configuration requires one
     body = json.dumps(payload, ensure_ascii=False, separators=(",", ":")).encode("utf-8")
-    stamp = str(int(now))
+    stamp = int(now)
     request = urllib.request.Request(cfg.url, data=body, method="POST", headers={
         "Content-Type": "application/json", "User-Agent": "thermowarden",
-        TIMESTAMP_HEADER: stamp, SIGNATURE_HEADER: sign(secret.encode("utf-8"), stamp, body),
+        TIMESTAMP_HEADER: str(stamp),
+        SIGNATURE_HEADER: sign(secret, delivery_id, stamp, body),
         DELIVERY_HEADER: delivery_id})
     try:
         with _OPENER.open(request, timeout=cfg.timeout_s) as response:
@@ -214,6 +207,16 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
                 f"{scope} is attached ({payload.get('file', '')}).\n\nHeat-stress figures are "
                 "screening values; thermowarden is advisory only: follow local regulations "
                 "and consult a qualified occupational hygienist.")
+    if payload.get("event") == "notice":
+        # an integrator notice about the service itself (no advisory)
+        kind = str(payload.get("kind", "")).replace("_", " ")
+        lines = [str(payload.get("text", "")), "", f"Notice: {kind}",
+                 f"At: {payload.get('at', '')}"]
+        for key in ("protocol", "topic", "reason", "count"):
+            if payload.get(key) is not None:
+                lines.append(f"{key.capitalize()}: {payload[key]}")
+        lines += ["", "thermowarden is advisory only."]
+        return f"thermowarden notice: {kind}", "\n".join(lines)
     if payload.get("event") == "summary":
         items = payload.get("items", [])
         scope = f" in {payload['place']}" if payload.get("place") else ""
@@ -363,23 +366,22 @@ class Delivery:
         self.now = now
         self.senders: dict[str, Sender] = senders or {"webhook": post_webhook,
                                                       "email": send_email}
-        self.queue: queue.Queue[tuple[str, dict[str, Any]]] = queue.Queue(config.queue_size)
-        self.wake = threading.Event()
         self.stopping = threading.Event()
-        self.thread: threading.Thread | None = None
+        self.started = False
         self.lock = threading.Lock()
+        self.workers: dict[tuple[str, str], _Worker] = {}
         self._configure(config, timezone)
         r = registry or CollectorRegistry()
         self.m_sent = Counter("thermowarden_deliveries", "Deliveries to people by channel and "
                               "outcome (sent, retried, failed, held)", ["channel", "outcome"],
                               registry=r)
         self.m_overflow = Counter("thermowarden_delivery_queue_overflow",
-                                  "Events not offered for delivery because the queue was full",
-                                  registry=r)
+                                  "Events not stored for delivery because delivery.queue_size "
+                                  "deliveries were already waiting", registry=r)
         self.m_pending = Gauge("thermowarden_delivery_pending",
-                               "Deliveries stored and not yet sent (held or pending)",
-                               registry=r)
-        self.blocked_until: dict[tuple[str, str], float] = {}
+                               "Deliveries stored and not yet sent (held or pending), "
+                               "counted in the store", registry=r)
+        self.m_pending.set_function(lambda: count_rows(self.db_path, PENDING_COUNT))
         self.places: dict[str, tuple[str | None, str]] = {}
         self.page_url: str | None = None
         self.escalations = Escalations(self)
@@ -408,28 +410,39 @@ class Delivery:
     def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
         """Take a reloaded configuration; stored deliveries stay and follow the new one."""
         self._configure(config, timezone)
-        self.wake.set()
+        if self.started:
+            self._ensure_workers()
+        self.wake()
 
     # ------------------------------------------------------------------ engine thread
-    def offer(self, audience: str, payload: dict[str, Any]) -> bool:
-        """Hand an event over (engine thread; never blocks): to the audience's recipients
-        and to those of the space's building; urgent alerts also start (and later events
-        stop) their escalation timer. False when nobody wants it or when the queue is full
-        (counted and logged)."""
-        if audience not in self.config.audiences:
+    def wanted(self, audience: str, payload: dict[str, Any]) -> bool:
+        """Some recipients (the audience's or its building's) want this event."""
+        return bool(self.routed(audience, payload))
+
+    def stage(self, db: sqlite3.Connection, audience: str, payload: dict[str, Any],
+              now: float) -> bool:
+        """Store the deliveries of one event through ``db``, inside the caller's
+        transaction (the engine thread's, which also holds the event's outbox row): a row
+        per channel of every route that wants it (:meth:`routed`: the audience's
+        recipients and those of the space's building), held or pending; an urgent alert
+        also starts (and a later event of it stops) its escalation timer in the same
+        transaction. Returns True when delivery rows were written: call :meth:`wake` once
+        the transaction is committed. Beyond ``delivery.queue_size`` waiting deliveries an
+        event is not stored (counted and logged; it was still published over MQTT)."""
+        if audience not in self.config.audiences and audience not in self.routes:
             return False
-        self.escalations.observe(audience, payload, self.places)
-        taken = False
+        self.escalations.observe(db, audience, payload, now)
+        stored = False
         for route, part in self.routed(audience, payload):
-            taken = self._put(route, part) or taken
-        return taken
+            stored = self._stage_route(db, route, part, now) or stored
+        return stored
 
     def routed(self, audience: str, payload: dict[str, Any]
                ) -> list[tuple[str, dict[str, Any]]]:
         """(route, payload as sent) for every set of recipients that wants this event of
         ``audience``: the audience's own and its space's building's (a summary split by
-        building), each payload with its page link and place. Pure: the queue or the store
-        takes the result."""
+        building), each payload with its page link and place. Pure: :meth:`stage` stores
+        the result."""
         payload = self._enrich(payload)
         out = []
         for route, part in self._split(audience, payload):
@@ -442,8 +455,8 @@ class Delivery:
                      building_files: dict[str, pathlib.Path]) -> int:
         """The daily reports, to every audience (and building) whose ``events`` list
         ``report``: the site's to the audience's recipients, each building's to its own
-        (any thread; never blocks). Returns how many were queued."""
-        queued = 0
+        (any thread; one transaction of its own). Returns how many routes got one."""
+        parts: list[tuple[str, dict[str, Any]]] = []
         for route, aud in list(self.routes.items()):
             if "report" not in aud.events or "!" in route:
                 continue
@@ -456,19 +469,92 @@ class Delivery:
                        "path": str(file)}
             if building:
                 payload["place"] = self.places_label(building)
-            queued += self._put(route, payload)
-        return queued
-
-    def _put(self, route: str, payload: dict[str, Any]) -> bool:
+            parts.append((route, payload))
+        if not parts:
+            return 0
+        db = self._connect()
         try:
-            self.queue.put_nowait((route, payload))
-        except queue.Full:
-            self.m_overflow.inc()
-            log.error("delivery queue full: an event for %s was not queued for delivery "
-                      "(it was still published over MQTT)", route)
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                now = self.now()
+                stored = sum(self._stage_route(db, route, payload, now)
+                             for route, payload in parts)
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        finally:
+            db.close()
+        if stored:
+            self.wake()
+        return stored
+
+    def _stage_route(self, db: sqlite3.Connection, route: str, payload: dict[str, Any],
+                     now: float) -> bool:
+        """The rows of one route (``audience=route``), inside the caller's transaction."""
+        aud = self._audience(route)
+        if aud is None or payload.get("event") not in aud.events:
             return False
-        self.wake.set()
-        return True
+        waiting = int(db.execute(PENDING_COUNT).fetchone()[0])
+        if waiting >= self.config.queue_size:
+            self.m_overflow.inc()
+            log.error("%d deliveries already wait: an event for %s was not stored for "
+                      "delivery (it was published over MQTT); delivery.queue_size is %d",
+                      waiting, route, self.config.queue_size)
+            return False
+        prio = _priority(payload)
+        state, due = self._placement(route, aud, prio, now)
+        text = json.dumps(payload)
+        stored = False
+        for channel in CHANNELS:
+            if getattr(aud, channel) is None:
+                continue
+            db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
+                       "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
+                       (uuid.uuid4().hex, route, channel, state, prio, due, now, text))
+            if state == "held":
+                self.m_sent.labels(channel=channel, outcome="held").inc()
+            stored = True
+        return stored
+
+    def offer(self, audience: str, payload: dict[str, Any]) -> bool:
+        """Store an event's deliveries in a transaction of their own (a caller without the
+        store's connection) and wake the workers. False when not wanted or not stored."""
+        db = self._connect()
+        try:
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                stored = self.stage(db, audience, payload, self.now())
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        finally:
+            db.close()
+        if stored:
+            self.wake()
+        return stored
+
+    def wake(self) -> None:
+        """Tell every worker (and the escalation timers) to look at the tables now (after
+        rows were committed)."""
+        with self.lock:
+            workers = list(self.workers.values())
+        for w in workers:
+            w.wake.set()
+        self.escalations.wake.set()
+
+    def clock_stepped(self, step_s: float) -> None:
+        """The wall clock was stepped by ``step_s`` (the shell measured it against the
+        monotonic clock): the escalation timers move by it, so each still waits its
+        ``after_s`` of elapsed time."""
+        db = self._connect()
+        try:
+            db.execute("UPDATE escalations SET since = since + ?, due = due + ? "
+                       "WHERE state = 'waiting'", (step_s, step_s))
+        finally:
+            db.close()
+        self.escalations.wake.set()
 
     def _page(self, advisory_id: str | None) -> str | None:
         if not self.page_url or not advisory_id:
@@ -533,20 +619,53 @@ class Delivery:
         label = next((p[1] for p in self.places.values() if p[0] == building), building)
         return label.split(" · ")[0]
 
-    # ------------------------------------------------------------------ worker
+    # ------------------------------------------------------------------ workers
     def start(self) -> None:
-        self.thread = threading.Thread(target=self._run, name="thermowarden-delivery",
-                                       daemon=True)
-        self.thread.start()
+        """Start a worker for every configured receiver (each route's webhook and e-mail)
+        and every receiver that still has rows waiting in the store (removed from the
+        configuration: they are marked failed), and the escalation timers' thread."""
+        self.started = True
+        self._ensure_workers()
         self.escalations.start()
 
+    def _ensure_workers(self) -> None:
+        targets: set[tuple[str, str]] = {
+            (route, c) for route, aud in self.routes.items() for c in CHANNELS
+            if getattr(aud, c) is not None}
+        db = self._connect()
+        try:
+            targets |= {(str(a), str(c)) for a, c in db.execute(
+                "SELECT DISTINCT audience, channel FROM deliveries WHERE state IN "
+                "('held', 'pending')")}
+        finally:
+            db.close()
+        with self.lock:
+            for target in sorted(targets - set(self.workers)):
+                worker = _Worker(self, *target)
+                self.workers[target] = worker
+                worker.thread.start()
+
     def stop(self, timeout: float = 10.0) -> None:
-        """Store whatever is queued and stop; what is not sent stays for the next start."""
+        """Stop the escalation timers and the workers (an attempt under way is waited for
+        up to ``timeout`` s in all); what is not sent stays stored for the next start."""
         self.escalations.stop(timeout)
         self.stopping.set()
-        self.wake.set()
-        if self.thread is not None:
-            self.thread.join(timeout)
+        self.wake()
+        deadline = time.monotonic() + timeout
+        with self.lock:
+            workers = list(self.workers.values())
+        for w in workers:
+            w.thread.join(max(0.0, deadline - time.monotonic()))
+
+    @property
+    def thread(self) -> threading.Thread | None:
+        """The first worker's thread (for tests that check the workers ended)."""
+        with self.lock:
+            return next((w.thread for w in self.workers.values()), None)
+
+    def alive(self) -> bool:
+        with self.lock:
+            return any(w.thread.is_alive() for w in self.workers.values())
 
     def _connect(self) -> sqlite3.Connection:
         db = sqlite3.connect(self.db_path, isolation_level=None, timeout=30.0)
@@ -554,50 +673,6 @@ class Delivery:
         db.execute("PRAGMA synchronous=NORMAL")
         db.executescript(SCHEMA)
         return db
-
-    def _run(self) -> None:
-        db = self._connect()
-        last_prune = -PRUNE_EVERY_S
-        try:
-            while not self.stopping.is_set():
-                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
-                    last_prune = time.monotonic()
-                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND created < ?",
-                               (self.now() - FAILED_KEPT_S,))
-                self._take(db)
-                wait = self._work(db)
-                self.m_pending.set(self.pending_count(db))
-                self.wake.wait(wait)
-                self.wake.clear()
-            self._take(db)
-            self.m_pending.set(self.pending_count(db))
-        except Exception:  # noqa: BLE001 - a delivery bug must not take the service down
-            log.exception("delivery worker failed; stored deliveries wait for the next start")
-        finally:
-            db.close()
-
-    def _take(self, db: sqlite3.Connection) -> None:
-        """Store every queued event as one row per channel, held or pending."""
-        now = self.now()
-        while True:
-            try:
-                audience, payload = self.queue.get_nowait()
-            except queue.Empty:
-                return
-            aud = self._audience(audience)
-            if aud is None:
-                continue
-            prio = _priority(payload)
-            state, due = self._placement(audience, aud, prio, now)
-            text = json.dumps(payload)
-            for channel in ("webhook", "email"):
-                if getattr(aud, channel) is None:
-                    continue
-                db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
-                           "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
-                           (uuid.uuid4().hex, audience, channel, state, prio, due, now, text))
-                if state == "held":
-                    self.m_sent.labels(channel=channel, outcome="held").inc()
 
     def _placement(self, audience: str, aud: AudienceDelivery, priority: str,
                    now: float) -> tuple[str, float]:
@@ -613,52 +688,112 @@ class Delivery:
             due = max(due, quiet_end)
         return "held", due
 
+    # ------------------------------------------------------------------ queries
+    def pending_count(self, db: sqlite3.Connection | None = None) -> int:
+        own = db is None
+        conn = db or self._connect()
+        try:
+            return int(conn.execute(PENDING_COUNT).fetchone()[0])
+        finally:
+            if own:
+                conn.close()
+
+
+class _Worker:
+    """The deliveries of one receiver (an audience's webhook or its e-mail), in order, on a
+    thread and SQLite connection of its own."""
+
+    def __init__(self, owner: Delivery, audience: str, channel: str) -> None:
+        self.owner = owner
+        self.audience = audience
+        self.channel = channel
+        self.wake = threading.Event()
+        self.blocked_until = 0.0
+        self.thread = threading.Thread(target=self._run, daemon=True,
+                                       name=f"thermowarden-delivery-{audience}-{channel}")
+
+    def _run(self) -> None:
+        owner = self.owner
+        db = owner._connect()
+        last_prune = -PRUNE_EVERY_S
+        try:
+            while not owner.stopping.is_set():
+                self.wake.clear()
+                if time.monotonic() - last_prune >= PRUNE_EVERY_S:
+                    last_prune = time.monotonic()
+                    db.execute("DELETE FROM deliveries WHERE state = 'failed' AND audience = ? "
+                               "AND channel = ? AND created < ?",
+                               (self.audience, self.channel, owner.now() - FAILED_KEPT_S))
+                wait = self._work(db)
+                self.wake.wait(wait)
+        except Exception:  # noqa: BLE001 - a delivery bug must not take the service down
+            log.exception("delivery worker for %s by %s failed; its stored deliveries wait "
+                          "for the next start", self.audience, self.channel)
+        finally:
+            db.close()
+
     def _work(self, db: sqlite3.Connection) -> float:
-        """Release digests that are due and attempt due deliveries; returns how long to
-        sleep before the next thing is due."""
-        now = self.now()
+        """Release a digest that is due and attempt this receiver's due deliveries in order;
+        returns how long to sleep before the next thing is due."""
+        owner = self.owner
+        now = owner.now()
         self._release(db, now)
-        rows = db.execute("SELECT seq, id, audience, channel, priority, attempts, payload, due "
-                          "FROM deliveries WHERE state = 'pending' ORDER BY seq").fetchall()
+        rows = db.execute("SELECT seq, id, priority, attempts, payload, due FROM deliveries "
+                          "WHERE state = 'pending' AND audience = ? AND channel = ? "
+                          "ORDER BY seq", (self.audience, self.channel)).fetchall()
         next_due = now + IDLE_WAIT_S
-        done_targets: set[tuple[str, str]] = set()
-        for seq, did, audience, channel, prio, attempts, text, due in rows:
-            target = (audience, channel)
-            if target in done_targets or self.stopping.is_set():
+        for seq, did, prio, attempts, text, due in rows:
+            if owner.stopping.is_set():
+                break
+            now = owner.now()
+            if due > now or self.blocked_until > now:
+                # keep the order: nothing later goes before this one
+                next_due = min(next_due, max(due, self.blocked_until))
+                break
+            try:
+                payload = json.loads(text)
+                if not isinstance(payload, dict):
+                    raise ValueError("not a JSON object")
+            except (ValueError, RecursionError) as exc:
+                self._fail(db, seq, did, f"damaged record: {exc}")
                 continue
-            if due > now or self.blocked_until.get(target, 0.0) > now:
-                # keep the order per target: nothing later goes before this one
-                next_due = min(next_due, max(due, self.blocked_until.get(target, 0.0)))
-                done_targets.add(target)
-                continue
-            row = _Row(seq, did, audience, channel, prio, attempts, json.loads(text))
+            row = _Row(seq, did, self.audience, self.channel, prio, attempts, payload)
             if not self._attempt(db, row, now):
-                done_targets.add(target)
-                next_due = min(next_due, self.blocked_until.get(target, now))
-        held = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held'").fetchone()[0]
+                next_due = min(next_due, self.blocked_until)
+                break
+        held = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held' AND "
+                          "audience = ? AND channel = ?",
+                          (self.audience, self.channel)).fetchone()[0]
         if held is not None:
             next_due = min(next_due, held)
-        return max(0.0, min(IDLE_WAIT_S, next_due - self.now()))
+        return max(0.0, min(IDLE_WAIT_S, next_due - owner.now()))
+
+    def _fail(self, db: sqlite3.Connection, seq: int, did: str, error: str,
+              attempts: int | None = None) -> None:
+        if attempts is None:
+            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
+                       (error, seq))
+        else:
+            db.execute("UPDATE deliveries SET state = 'failed', attempts = ?, error = ? "
+                       "WHERE seq = ?", (attempts, error, seq))
+        self.owner.m_sent.labels(channel=self.channel, outcome="failed").inc()
 
     def _attempt(self, db: sqlite3.Connection, row: _Row, now: float) -> bool:
-        aud = self._audience(row.audience)
+        owner = self.owner
+        aud = owner._audience(row.audience)
         cfg = getattr(aud, row.channel) if aud is not None else None
         if cfg is None:
-            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
-                       ("channel no longer configured", row.seq))
-            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            self._fail(db, row.seq, row.id, "channel no longer configured")
             log.error("delivery %s to %s by %s dropped: that channel is no longer configured",
                       row.id, row.audience, row.channel)
             return True
         try:
-            self.senders[row.channel](cfg, row.payload, row.id, now)
+            owner.senders[row.channel](cfg, row.payload, row.id, now)
         except DeliveryFailed as exc:
             attempts = row.attempts + 1
-            retry = self.config.retry
+            retry = owner.config.retry
             if exc.permanent or attempts >= retry.max_attempts:
-                db.execute("UPDATE deliveries SET state = 'failed', attempts = ?, error = ? "
-                           "WHERE seq = ?", (attempts, str(exc), row.seq))
-                self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+                self._fail(db, row.seq, row.id, str(exc), attempts)
                 log.error("delivery %s to %s by %s failed for good after %d attempt(s): %s",
                           row.id, row.audience, row.channel, attempts, exc)
                 return True
@@ -666,56 +801,55 @@ class Delivery:
             delay *= random.uniform(0.8, 1.2)
             db.execute("UPDATE deliveries SET attempts = ?, due = ?, error = ? WHERE seq = ?",
                        (attempts, now + delay, str(exc), row.seq))
-            self.blocked_until[(row.audience, row.channel)] = now + delay
-            self.m_sent.labels(channel=row.channel, outcome="retried").inc()
+            self.blocked_until = now + delay
+            owner.m_sent.labels(channel=row.channel, outcome="retried").inc()
             log.warning("delivery %s to %s by %s failed (%s); attempt %d of %d in %.1f s",
                         row.id, row.audience, row.channel, exc, attempts + 1,
                         retry.max_attempts, delay)
             return False
         except Exception as exc:  # noqa: BLE001 - a sender bug is a failed attempt, not a crash
-            db.execute("UPDATE deliveries SET state = 'failed', error = ? WHERE seq = ?",
-                       (f"{type(exc).__name__}: {exc}", row.seq))
-            self.m_sent.labels(channel=row.channel, outcome="failed").inc()
+            self._fail(db, row.seq, row.id, f"{type(exc).__name__}: {exc}")
             log.exception("delivery %s to %s by %s failed", row.id, row.audience, row.channel)
             return True
         db.execute("DELETE FROM deliveries WHERE seq = ?", (row.seq,))
-        self.blocked_until.pop((row.audience, row.channel), None)
-        self.m_sent.labels(channel=row.channel, outcome="sent").inc()
+        self.blocked_until = 0.0
+        owner.m_sent.labels(channel=row.channel, outcome="sent").inc()
         return True
 
     def _release(self, db: sqlite3.Connection, now: float) -> None:
-        """Held rows of an audience and channel go out as one digest once one of them is
-        due and the audience's quiet hours are over."""
-        targets = db.execute("SELECT audience, channel, MIN(due) FROM deliveries "
-                             "WHERE state = 'held' GROUP BY audience, channel").fetchall()
-        for audience, channel, due in targets:
-            quiet = self.quiet.get(audience)
-            if due > now or (quiet is not None and quiet.until(now) is not None):
-                continue
+        """This receiver's held rows go out as one digest once one of them is due and the
+        audience's quiet hours are over."""
+        due = db.execute("SELECT MIN(due) FROM deliveries WHERE state = 'held' AND "
+                         "audience = ? AND channel = ?",
+                         (self.audience, self.channel)).fetchone()[0]
+        quiet = self.owner.quiet.get(self.audience)
+        if due is None or due > now or (quiet is not None and quiet.until(now) is not None):
+            return
+        db.execute("BEGIN IMMEDIATE")
+        try:
             rows = db.execute("SELECT seq, payload FROM deliveries WHERE state = 'held' AND "
                               "audience = ? AND channel = ? ORDER BY seq",
-                              (audience, channel)).fetchall()
-            payloads = [json.loads(t) for _, t in rows]
-            digest = payloads[0] if len(payloads) == 1 else _digest(audience, payloads, now)
-            db.execute("BEGIN")
+                              (self.audience, self.channel)).fetchall()
+            payloads: list[dict[str, Any]] = []
+            for _, text in rows:
+                try:
+                    p = json.loads(text)
+                except (ValueError, RecursionError):
+                    continue
+                if isinstance(p, dict):
+                    payloads.append(p)
             db.executemany("DELETE FROM deliveries WHERE seq = ?", [(s,) for s, _ in rows])
-            db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
-                       "created, payload) VALUES(?, ?, ?, 'pending', ?, ?, ?, ?)",
-                       (uuid.uuid4().hex, audience, channel, "low", now, now,
-                        json.dumps(digest)))
-            db.execute("COMMIT")
-
-    # ------------------------------------------------------------------ queries
-    def pending_count(self, db: sqlite3.Connection | None = None) -> int:
-        own = db is None
-        conn = db or self._connect()
-        try:
-            row = conn.execute("SELECT COUNT(*) FROM deliveries WHERE state IN "
-                               "('held', 'pending')").fetchone()
-            return int(row[0])
-        finally:
-            if own:
-                conn.close()
+            if payloads:
+                digest = payloads[0] if len(payloads) == 1 else \
+                    _digest(self.audience, payloads, now)
+                db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, "
+                           "due, created, payload) VALUES(?, ?, ?, 'pending', ?, ?, ?, ?)",
+                           (uuid.uuid4().hex, self.audience, self.channel, "low", now, now,
+                            json.dumps(digest)))
+        except BaseException:
+            db.execute("ROLLBACK")
+            raise
+        db.execute("COMMIT")
 
 
 def _digest(audience: str, payloads: list[dict[str, Any]], now: float) -> dict[str, Any]:
@@ -762,36 +896,47 @@ def delivery_routes(config: DeliveryConfig) -> dict[str, AudienceDelivery]:
 
 
 class Escalations:
-    """Timers of urgent alerts nobody has acknowledged yet, kept in the store (table
-    ``escalations``) by a thread of their own. The engine thread only enqueues events;
-    a due timer hands an ``unacknowledged`` event to the delivery's queue for the
-    escalation recipients (of the space's building, else of the audience)."""
+    """Timers of urgent alerts nobody has acknowledged yet, kept in the store's table
+    ``escalations``. :meth:`observe` writes and removes them in the transaction that stores
+    the event's deliveries (the engine thread's); a thread of their own fires the due ones:
+    in one transaction it stores the ``unacknowledged`` event's deliveries for the
+    escalation recipients (of the space's building, else of the audience) and marks the
+    timer sent. Times are on the service clock (epoch s); :meth:`Delivery.clock_stepped`
+    moves waiting timers by a step of the wall clock."""
 
     def __init__(self, delivery: Delivery) -> None:
         self.delivery = delivery
-        self.inbox: queue.Queue[tuple[str, dict[str, Any], str | None]] = queue.Queue(10_000)
         self.wake = threading.Event()
         self.stopping = threading.Event()
         self.thread: threading.Thread | None = None
 
-    def observe(self, audience: str, payload: dict[str, Any],
-                places: dict[str, tuple[str | None, str]]) -> None:
-        """An event offered for delivery (engine thread; never blocks)."""
+    def observe(self, db: sqlite3.Connection, audience: str, payload: dict[str, Any],
+                now: float) -> None:
+        """An event of ``audience`` being stored (inside the caller's transaction): an
+        urgent alert starts its timer (once), acknowledging, shelving, clearing or
+        de-escalating it removes the timer."""
         event = payload.get("event")
         adv = payload.get("advisory")
-        if event not in ESCALATE_ON | RESOLVED_BY or not isinstance(adv, dict):
+        if event not in ESCALATE_ON | RESOLVED_BY or not isinstance(adv, dict) \
+                or not adv.get("id"):
             return
-        if event in ESCALATE_ON and adv.get("priority") != "urgent":
+        if event in RESOLVED_BY:
+            db.execute("DELETE FROM escalations WHERE advisory_id = ?", (str(adv["id"]),))
             return
-        building = places.get(str((adv.get("space") or {}).get("id")), (None, ""))[0]
-        try:
-            self.inbox.put_nowait((audience, payload, building))
-        except queue.Full:
-            log.error("escalation queue full: advisory %s is not watched for an "
-                      "acknowledgement", adv.get("id"))
-        self.wake.set()
+        if adv.get("priority") != "urgent":
+            return
+        building = self.delivery.places.get(str((adv.get("space") or {}).get("id")),
+                                            (None, ""))[0]
+        route = self._route(audience, building)
+        if route is None:
+            return
+        db.execute("INSERT OR IGNORE INTO escalations(advisory_id, route, since, due, "
+                   "state, payload) VALUES(?, ?, ?, ?, 'waiting', ?)",
+                   (str(adv["id"]), route[0], now, now + route[1], json.dumps(payload)))
 
     def start(self) -> None:
+        if self.thread is not None:
+            return
         self.thread = threading.Thread(target=self._run, name="thermowarden-escalation",
                                        daemon=True)
         self.thread.start()
@@ -818,53 +963,60 @@ class Escalations:
         db = self.delivery._connect()
         try:
             while not self.stopping.is_set():
-                self._take(db)
+                self.wake.clear()
                 wait = self._fire(db)
                 self.wake.wait(wait)
-                self.wake.clear()
-            self._take(db)
         except Exception:  # noqa: BLE001 - must not take the service down
-            log.exception("escalation watcher failed; its timers wait for the next start")
+            log.exception("escalation timers failed; they wait in the store for the next "
+                          "start")
         finally:
             db.close()
 
-    def _take(self, db: sqlite3.Connection) -> None:
-        now = self.delivery.now()
-        while True:
-            try:
-                audience, payload, building = self.inbox.get_nowait()
-            except queue.Empty:
-                return
-            adv = payload["advisory"]
-            if payload.get("event") in RESOLVED_BY:
-                db.execute("DELETE FROM escalations WHERE advisory_id = ?", (adv["id"],))
-                continue
-            route = self._route(audience, building)
-            if route is None:
-                continue
-            db.execute("INSERT OR IGNORE INTO escalations(advisory_id, route, since, due, "
-                       "state, payload) VALUES(?, ?, ?, ?, 'waiting', ?)",
-                       (adv["id"], route[0], now, now + route[1], json.dumps(payload)))
-
     def _fire(self, db: sqlite3.Connection) -> float:
-        """Send the due ones; how long to wait for the next."""
-        now = self.delivery.now()
+        """Store the due ones' deliveries; how long to wait for the next."""
+        delivery = self.delivery
+        now = delivery.now()
         rows = db.execute("SELECT advisory_id, route, since, payload FROM escalations WHERE "
                           "state = 'waiting' AND due <= ? ORDER BY due", (now,)).fetchall()
+        fired = False
         for advisory_id, route, since, text in rows:
-            first = json.loads(text)
-            adv = first["advisory"]
-            waited = now - since
-            payload = self.delivery._enrich({**first, "event": "unacknowledged",
-                                             "at": _iso(now), "waited_s": round(waited)})
-            if self.delivery._put(route, payload):
-                db.execute("UPDATE escalations SET state = 'sent' WHERE advisory_id = ?",
-                           (advisory_id,))
-                log.warning("urgent advisory %s not acknowledged after %.0f s: sent to %s",
-                            adv.get("id"), waited, route)
+            if self.stopping.is_set():
+                break
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                try:
+                    first = json.loads(text)
+                    if not isinstance(first, dict):
+                        raise ValueError("not a JSON object")
+                except (ValueError, RecursionError) as exc:
+                    log.error("escalation of advisory %s dropped: damaged record (%s)",
+                              advisory_id, exc)
+                    db.execute("DELETE FROM escalations WHERE advisory_id = ?",
+                               (advisory_id,))
+                    db.execute("COMMIT")
+                    continue
+                waited = now - since
+                payload = delivery._enrich({**first, "event": "unacknowledged",
+                                            "at": _iso(now), "waited_s": round(waited)})
+                if delivery._audience(route) is None:
+                    db.execute("DELETE FROM escalations WHERE advisory_id = ?",
+                               (advisory_id,))
+                    log.error("escalation of urgent advisory %s dropped: its recipients "
+                              "(%s) are no longer configured", advisory_id, route)
+                elif delivery._stage_route(db, route, payload, now):
+                    db.execute("UPDATE escalations SET state = 'sent' WHERE advisory_id = ?",
+                               (advisory_id,))
+                    fired = True
+                    log.warning("urgent advisory %s not acknowledged after %.0f s: sent to %s",
+                                advisory_id, waited, route)
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        if fired:
+            delivery.wake()
         nxt = db.execute("SELECT MIN(due) FROM escalations WHERE state = 'waiting'"
                          ).fetchone()[0]
         if nxt is None:
             return IDLE_WAIT_S
-        return max(0.0, min(IDLE_WAIT_S, float(nxt) - now))
-
+        return max(0.0, min(IDLE_WAIT_S, float(nxt) - delivery.now()))

@@ -66,3 +66,55 @@ class RateLimiter:
             for k in list(self.tokens)[:1000]:
                 self.tokens.pop(k, None)
         return False, 0
+
+
+class IntervalLog:
+    """At most one line per key per ``interval_s``: the first occurrence is logged at once;
+    later ones in its interval are only counted, and :meth:`due` hands back one summary
+    per key (how many, and the last detail) once its interval is over. A key that stayed
+    quiet for a whole interval starts afresh (its next occurrence is logged at once)."""
+
+    def __init__(self, interval_s: float, clock: Callable[[], float] = time.monotonic,
+                 max_keys: int = 10_000) -> None:
+        self.interval_s = interval_s
+        self.clock = clock
+        self.max_keys = max_keys
+        self.windows: dict[str, tuple[float, int, str]] = {}
+        """key -> (interval start, occurrences counted since, last detail)"""
+        self.next_due = float("inf")
+
+    def first(self, key: str, detail: str = "") -> bool:
+        """Note one occurrence; True when it is to be logged now."""
+        window = self.windows.get(key)
+        if window is None:
+            now = self.clock()
+            if len(self.windows) >= self.max_keys:  # bounded: forget the oldest keys
+                for k in list(self.windows)[: self.max_keys // 10]:
+                    del self.windows[k]
+            self.windows[key] = (now, 0, detail)
+            self.next_due = min(self.next_due, now + self.interval_s)
+            return True
+        start, count, _ = window
+        self.windows[key] = (start, count + 1, detail)
+        return False
+
+    def due(self) -> list[tuple[str, int, str]]:
+        """(key, occurrences not logged, last detail) for every key whose interval ended
+        with some; those keys start a new interval now (so still at most one line per
+        interval), keys that had none are forgotten."""
+        now = self.clock()
+        if now < self.next_due:
+            return []
+        out: list[tuple[str, int, str]] = []
+        nxt = float("inf")
+        for key, (start, count, detail) in list(self.windows.items()):
+            if now - start < self.interval_s:
+                nxt = min(nxt, start + self.interval_s)
+            elif count:
+                out.append((key, count, detail))
+                self.windows[key] = (now, 0, detail)
+                nxt = min(nxt, now + self.interval_s)
+            else:
+                del self.windows[key]
+        self.next_due = nxt
+        return out

@@ -25,14 +25,21 @@ reconnects, and sends it again (DUP set, same packet id) after a reconnect: the 
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
 Retained commands are never executed (a retained command would run again at every
-reconnect): they are counted and cleared. Under MQTT 5 the command subscription asks for
-the retain flag as published, so even the first, live delivery of a retained command is
-refused; MQTT 3.1.1 cannot tell a live retained message from a plain one, so there the
-service clears the topic's retained message after every command it executes. Command
-bodies over the limit are not decoded.
-Under MQTT 5 the client announces a maximum packet size, so the broker does not send a
-larger message at all (the limit is applied before paho buffers it); under MQTT 3.1.1 the
-broker's own ``max_packet_size`` must do that (see deploy/broker/mosquitto.conf).
+reconnect): they are counted and cleared without a reply. Under MQTT 5 the command
+subscription asks for the retain flag as published, so even the first, live delivery of a
+retained command is refused; MQTT 3.1.1 cannot tell a live retained message from a plain
+one, so there the service clears the topic's retained message after every command it
+executes. An empty message on a command topic (such a clearing, the service's own included:
+3.1.1 has no "no local") is no command: it is dropped without a reply. Command bodies over
+the limit are not decoded.
+A message over ``max_packet_bytes`` (the larger of the payload and command limits, plus
+some room for the topic) is never held whole, on either protocol: the client reads its
+fixed header, drops its bytes as they come (see :class:`BufferedClient`) and hands the
+engine thread its topic and size, so it is counted and refused like any payload over the
+limit. Under MQTT 5 the client announces a maximum packet size of :data:`SEEN_PACKET_BYTES`
+(or ``max_packet_bytes`` when larger), far above the limit, so the broker sends it what it
+refuses and it can count it; the broker drops anything larger for this client (Mosquitto
+logs it, and counts it nowhere the service can read).
 """
 
 from __future__ import annotations
@@ -58,7 +65,7 @@ from paho.mqtt.properties import Properties
 from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
-from thermowarden.shell.buffered_client import BufferedClient
+from thermowarden.shell.buffered_client import BufferedClient, Oversized
 from thermowarden.shell.metrics import Metrics
 
 log = logging.getLogger("thermowarden.mqtt")
@@ -68,6 +75,10 @@ BACKOFF_CAP_S = 30.0
 PROBE_EVERY_S = 1.0
 """While waiting to reconnect, the broker's port is tried this often (a TCP connect)."""
 RETRY_SUBSCRIBE_S = 1.0
+SEEN_PACKET_BYTES = 64 * 1024 * 1024
+"""MQTT 5: the maximum packet size the client announces (unless ``max_packet_bytes`` is
+larger): messages up to this size reach the service, which counts and refuses those over
+its limits without holding them; larger ones the broker drops."""
 SYS_TOPICS = ("$SYS/broker/publish/messages/dropped",
               "$SYS/broker/store/messages/count")
 """Mosquitto's own counters: messages it dropped (queue limits), messages it holds."""
@@ -88,8 +99,9 @@ class Incoming:
     oversize: int = 0
     """A command body over the limit: its length (the body itself is dropped)."""
     kind: str = "sensor"
-    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys" or
-    "watch" (a group's status records and retained advisories)."""
+    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys",
+    "watch" (a group's status records and retained advisories) or "oversize" (a sensor
+    message over the packet limit, dropped unread: ``oversize`` is its size)."""
     on_reply: Callable[[dict[str, Any]], None] | None = None
     """For a command from the web page or API: called with the engine's reply."""
 
@@ -102,6 +114,8 @@ class Control:
     mid: int = 0
     reason: str = ""
     failed: bool = False
+    topic: str = ""
+    """puback: the topic of the acknowledged (or refused) message, where known."""
 
 
 SensorMessage = tuple[str, bytes, float, bool]
@@ -213,6 +227,8 @@ class MqttLink:
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
             reconnect_on_failure=False)
         self.client.max_queued_messages_set(0)
+        self.client.max_publish_bytes = max_packet_bytes
+        self.client.on_oversized = self._on_oversized
         if cfg.username:
             self.client.username_pw_set(cfg.username, read_password(cfg))
         if tls or cfg.tls is not None:
@@ -246,6 +262,9 @@ class MqttLink:
         """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
         broker QoS 0 deliveries do not wait for the streams)."""
         self._sub_topics: dict[int, str] = {}
+        self._pub_topics: dict[int, str] = {}
+        """QoS 1 messages published through :meth:`publish` and not yet acknowledged: the
+        topic of each message id (a refusal names it)."""
         self._retry_subs: set[str] = set()
         """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
 
@@ -334,11 +353,15 @@ class MqttLink:
     def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
         topic = msg.topic
         if topic.startswith(self.command_prefix):  # only commands carry reply properties
+            if not msg.payload:
+                # the clearing of a retained command (the service's own, or anyone's):
+                # never a command, never answered (MQTT 3.1.1 has no "no local", so the
+                # service receives its own clearing; answering it looped)
+                return
             if msg.retain:
                 # never executed: it would run again at every reconnect
                 self.metrics.retained_commands.inc()
-                if msg.payload:
-                    client.publish(topic, b"", qos=1, retain=True)  # clear it
+                client.publish(topic, b"", qos=1, retain=True)  # clear it
                 return
             props = getattr(msg, "properties", None)
             size = len(msg.payload)
@@ -364,6 +387,25 @@ class MqttLink:
         if not self.inbox.put(item):
             self.metrics.queue_overflow.inc()
 
+    def _on_oversized(self, msg: Oversized) -> None:
+        """A message over ``max_packet_bytes``, dropped unread (its topic and size only)."""
+        topic = msg.topic
+        if topic.startswith(self.command_prefix):
+            if msg.retain:
+                self.metrics.retained_commands.inc()
+                self.client.publish(topic, b"", qos=1, retain=True)  # clear it
+                return
+            item = Incoming(topic, b"", self.now(), kind="command", oversize=msg.size)
+        elif (self.echo_prefix and topic.startswith(self.echo_prefix)) or \
+                topic.startswith("$SYS/") or (self.watch and topic.startswith(self.watch)):
+            return  # not from a sensor: nothing to count it against
+        else:
+            self.received += 1
+            item = Incoming(topic, b"", self.now(), retained=bool(msg.retain),
+                            kind="oversize", oversize=msg.size)
+        if not self.inbox.put(item):
+            self.metrics.queue_overflow.inc()
+
     def _identity(self, props: Any) -> str | None:
         name = self.identity_property
         if not name or props is None:
@@ -376,7 +418,8 @@ class MqttLink:
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
                     properties: Any) -> None:
         failed = bool(getattr(reason, "is_failure", False))
-        self.control.put(Control("puback", mid=mid, reason=str(reason), failed=failed))
+        self.control.put(Control("puback", mid=mid, reason=str(reason), failed=failed,
+                                 topic=self._pub_topics.pop(mid, "")))
 
     # ---------------------------------------------------------------- network thread
     def start(self) -> None:
@@ -416,7 +459,7 @@ class MqttLink:
             props = Properties(PacketTypes.CONNECT)  # type: ignore[no-untyped-call]
             props.SessionExpiryInterval = 0
             if self.max_packet_bytes:
-                props.MaximumPacketSize = int(self.max_packet_bytes)
+                props.MaximumPacketSize = max(SEEN_PACKET_BYTES, int(self.max_packet_bytes))
             self.client.connect(self.host, self.port, self.cfg.keepalive_s,
                                 clean_start=True, properties=props)
         else:
@@ -523,6 +566,8 @@ class MqttLink:
         info = self.client.publish(topic, body, qos=qos, retain=retain, properties=props)
         if info.rc != mqtt.MQTT_ERR_SUCCESS:
             return None
+        if qos:
+            self._pub_topics[int(info.mid)] = topic
         return int(info.mid)
 
     def stop(self, timeout: float = 5.0) -> None:

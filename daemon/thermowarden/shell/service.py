@@ -3,9 +3,15 @@ operations endpoint, systemd notification. Built by :func:`thermowarden.shell.bo
 bootstrap`; this module executes effects and holds no rules.
 
 Time: timestamps are wall time, read at each use (a corrected system clock is followed at
-once); durations and the evaluation tick use the monotonic clock. Calendar jobs (rollup,
-prune, digest, report) are due at a wall time and fire once when the wall clock reaches it,
-so a step forward runs a skipped job once and a step back does not run it again.
+once); durations are measured on the monotonic clock. The shell reads both; the engine is
+fed the wall time and, before it is fed a time after a step, the step itself (the wall
+clock's change minus the monotonic clock's, :meth:`Engine.clock_stepped`), which moves
+every timer of the engine (delays, shelving and its daily budget, reminders, the conditions
+and sample schedules) and the outbox's expiry by the step: so each ends after the same
+monotonic time as without it, and no schedule stops. The evaluation tick, retries and
+readiness run on the monotonic clock directly. Calendar jobs (rollup, prune, digest,
+report) are due at a wall time and fire once when the wall clock reaches it, so a step
+forward runs a skipped job once and a step back does not run it again.
 
 Delivery: an advisory change, its events and their outbox rows are stored in one
 transaction before anything is published. Each outbox row is handed to the MQTT client
@@ -32,13 +38,14 @@ from typing import Any
 from apscheduler.triggers.cron import CronTrigger
 
 from thermowarden.config import SiteConfig
+from thermowarden.core.payloads import RECORD_ABSENT
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.ingest import Rejection
 from thermowarden.shell import systemd
 from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.group import Group
-from thermowarden.shell.logs import RateLimiter
+from thermowarden.shell.logs import IntervalLog, RateLimiter
 from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink, SensorMessage
 from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
@@ -53,7 +60,14 @@ BATCH_PAUSE_S = 0.005
 KNOWN_VERBS = frozenset({"acknowledge", "shelve", "unshelve"})
 """Only these become metric labels; anything else is counted as "unknown"."""
 STEP_TOLERANCE_S = 2.0
-"""A wall-clock change this much larger or smaller than the monotonic one is a step."""
+"""A wall-clock change this much larger or smaller than the monotonic one is counted and
+logged as a step."""
+SHIFT_TOLERANCE_S = 0.5
+"""... and from this much on the engine's timers and the outbox's expiry move by it (the
+wall and monotonic clocks are read one after the other: they never differ this much
+otherwise; a slewing clock slews both)."""
+CONDITIONS_LATE_FACTOR = 2.5
+"""Not ready when no conditions message went out for this many conditions intervals."""
 ECHO_TIMEOUT_S = 15.0
 """MQTT 3.1.1: an event not seen back on our own subscription this long after the broker
 acknowledged it counts as unconfirmed (an ACL that drops it silently)."""
@@ -61,6 +75,8 @@ RETRY_REFUSED_S = 60.0
 """An event the broker refused (MQTT 5 reason code) is offered again this often until it
 expires from the outbox."""
 EXPIRE_EVERY_S = 60.0
+REJECTION_LOG_INTERVAL_S = 600.0
+"""Sensor rejections are logged once per point and reason this often (all are counted)."""
 NOTICE_TOPIC_SPACE = "_site"
 
 
@@ -68,16 +84,22 @@ class Clock:
     """Wall time for timestamps (:meth:`now`, epoch s, follows corrections of the system
     clock) and monotonic time for durations (:meth:`monotonic`, s).
 
-    ``start`` and ``speed`` are for the demo only: a simulated day starting at ``start``
-    that runs ``speed`` times faster than real time (then :meth:`now` advances with the
-    monotonic clock). ``wall`` and ``mono`` are injectable for tests that step the clock.
+    ``start`` and ``speed`` are for simulated days: a day starting at ``start`` that runs
+    ``speed`` times faster than real time (then :meth:`now` advances with the monotonic
+    clock). A ``driven`` clock stands still until its caller moves it (:meth:`set`), and
+    the service then evaluates only when asked (:meth:`Service.step`): the demo drives
+    it so that every run gives the same events, however busy the machine. ``wall`` and
+    ``mono`` are injectable for tests that step the clock.
     """
 
     def __init__(self, start: float | None = None, speed: float = 1.0,
-                 paused: bool = False, *, wall: Callable[[], float] = time.time,
+                 paused: bool = False, *, driven: bool = False,
+                 wall: Callable[[], float] = time.time,
                  mono: Callable[[], float] = time.monotonic) -> None:
         self.wall = wall
         self.mono_clock = mono
+        self.driven = driven
+        paused = paused or driven
         self.simulated = start is not None or speed != 1.0 or paused
         self.anchor = wall() if start is None else start
         self.mono = mono()
@@ -94,9 +116,15 @@ class Clock:
     def monotonic(self) -> float:
         return self.mono_clock()
 
+    def set(self, t: float) -> None:
+        """Move a driven clock to ``t`` (epoch s)."""
+        if not self.driven:
+            raise RuntimeError("only a driven clock is moved by its caller")
+        self.anchor = t
+
     def resume(self) -> None:
         """Start a paused (demo) clock from its anchor."""
-        if self.paused:
+        if self.paused and not self.driven:
             self.mono = self.mono_clock()
             self.paused = False
 
@@ -151,6 +179,8 @@ class Service:
         self.stopped = threading.Event()
         self.first_evaluation = threading.Event()
         self.jobs: queue.Queue[str] = queue.Queue()
+        self.steps_done = 0
+        """Steps asked for by :meth:`step` and finished (a driven clock only)."""
         self.inflight: dict[int, int] = {}  # message id -> outbox seq
         self.handed: dict[int, int] = {}  # outbox seq -> message id (the client holds it)
         self.refused: dict[int, float] = {}  # outbox seq -> monotonic time of the refusal
@@ -170,13 +200,20 @@ class Service:
         self.silence_limit_s = cfg.ingest.silence_limit_s
         self.publishing_ok = True
         """MQTT 3.1.1: False from an event never seen back until the next one is."""
+        self.refusal_episode = False
+        """Publishes are being refused (from the first refusal until :meth:`publishing`
+        holds again): the integrator was told once, at its start."""
         self.last_refusal = -float("inf")
         self.outbox_max = cfg.outbox.max_events
         self.outbox_max_age_s = cfg.outbox.max_age_s
         self.last_expire = -float("inf")
         self.limiter = RateLimiter()
+        self.rejection_log = IntervalLog(REJECTION_LOG_INTERVAL_S, clock.monotonic)
         self.calendar: list[CalendarJob] = []
         self.wall_seen = (clock.now(), clock.monotonic())
+        """The wall and monotonic readings at the last step taken into account."""
+        self.last_conditions_sent = clock.monotonic()
+        """When a conditions message last went out (monotonic s)."""
         self.watchdog_s = systemd.watchdog_interval_s()
         self.last_watchdog = 0.0
         self.last_digest = clock.now()
@@ -207,8 +244,21 @@ class Service:
                  "subscribed": self.link.subscribed.is_set(),
                  "evaluated": self.first_evaluation.is_set(),
                  "publishing": self.publishing(),
-                 "receiving": receiving}
+                 "receiving": receiving,
+                 "conditions": self.conditions_flowing()}
         return all(parts.values()), parts
+
+    def conditions_flowing(self) -> bool:
+        """Conditions go out: one was published within ``CONDITIONS_LATE_FACTOR`` times the
+        conditions interval (or a few ticks, when longer), by the monotonic clock. True
+        where none are due (no interval, no space this instance evaluates)."""
+        every = self.engine.publication.conditions_every_s
+        if every <= 0 or not self.engine.owned.any():
+            return True
+        if self.group is not None and not self.group.holding.any():
+            return True
+        limit = max(CONDITIONS_LATE_FACTOR * every, every + 3 * self.tick_s)
+        return self.clock.monotonic() - self.last_conditions_sent < limit
 
     def publishing(self) -> bool:
         """The broker takes what we publish: no event waits after a refusal, no refusal in
@@ -233,33 +283,55 @@ class Service:
             self.calendar.append(job)
 
     def _check_clock(self) -> None:
-        """Count wall-clock steps and run the calendar jobs that are due (once each)."""
-        now, mono = self.clock.now(), self.clock.monotonic()
-        last_now, last_mono = self.wall_seen
-        drift = (now - last_now) - (mono - last_mono)
-        self.wall_seen = (now, mono)
-        if abs(drift) > STEP_TOLERANCE_S and not self.clock.simulated:
-            direction = "forward" if drift > 0 else "backward"
-            self.metrics.clock_steps.labels(direction=direction).inc()
-            log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
-                        "durations do not", direction, abs(drift))
-            self.engine_clock_stepped(now, drift)
+        """Take wall-clock steps into account and run the calendar jobs that are due
+        (once each)."""
+        now = self._now()
         for job in self.calendar:
             if now >= job.due:
                 job.advance(now)
                 self.jobs.put(job.name)
 
+    def _now(self) -> float:
+        """The wall time to give the engine, after any step of the wall clock since the
+        last look has been handed to it (so a time after a step never meets timers set
+        before it)."""
+        now, mono = self.clock.now(), self.clock.monotonic()
+        if self.clock.simulated:
+            return now
+        last_now, last_mono = self.wall_seen
+        drift = (now - last_now) - (mono - last_mono)
+        if abs(drift) < SHIFT_TOLERANCE_S:
+            return now
+        self.wall_seen = (now, mono)
+        if abs(drift) > STEP_TOLERANCE_S:
+            direction = "forward" if drift > 0 else "backward"
+            self.metrics.clock_steps.labels(direction=direction).inc()
+            log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
+                        "durations (shelving, delays, reminders, schedules, outbox expiry, "
+                        "escalation timers) are kept by the monotonic clock", direction, abs(drift))
+        else:
+            log.info("the wall clock moved %.1f s against the monotonic clock", drift)
+        self.engine_clock_stepped(now, drift)
+        return now
+
     def engine_clock_stepped(self, now: float, drift: float) -> None:
-        """Hook for the engine after a step (history kept in wall time)."""
+        """Move the engine's timers, the outbox's expiry and the escalation timers by a step
+        of the wall clock, and store the advisories' moved timers."""
+        self.store.outbox_rebase(drift)
+        if self.delivery is not None:
+            self.delivery.clock_stepped(drift)
         hook = getattr(self.engine, "clock_stepped", None)
         if hook is not None:
-            hook(now, drift)
+            effects = hook(now, drift)
+            if effects:
+                self.execute(effects)
 
     # ------------------------------------------------------------------ effects
     def execute(self, effects: list[Effect]) -> None:
         """Store everything first (one transaction), then publish."""
         now = self.clock.now()
         sends: list[tuple[int, Publish]] = []
+        staged = False
         with self.store.transaction():
             for e in effects:
                 if isinstance(e, Persist):
@@ -268,14 +340,18 @@ class Service:
                     assert e.payload is not None
                     _identify(e.payload)
                     sends.append((self.store.outbox_add(e.topic, e.payload, now), e))
+                    if self.delivery is not None:
+                        # stored with the event's outbox row: a crash loses neither
+                        audience = e.topic.split("/events/", 1)[1].split("/", 1)[0]
+                        staged |= self.delivery.stage(self.store.db, audience, e.payload, now)
                 else:
                     sends.append((0, e))
+        if staged:
+            assert self.delivery is not None
+            self.delivery.wake()
         for seq, e in sends:
             if seq:
                 self._hand_over(seq, e.topic, e.payload or {})
-                if self.delivery is not None and e.payload is not None:
-                    self.delivery.offer(e.topic.split("/events/", 1)[1].split("/", 1)[0],
-                                        e.payload)
             elif e.retain and "/advisories/" in e.topic:
                 mid = self.link.publish(e.topic, e.payload, e.qos, True, e.expiry_s)
                 if mid is None:
@@ -283,8 +359,9 @@ class Service:
                 else:
                     self.pending_retained.pop(e.topic, None)
             else:
-                self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
-        self.metrics.outbox_depth.set(self.store.outbox_depth())
+                mid = self.link.publish(e.topic, e.payload, e.qos, e.retain, e.expiry_s)
+                if mid is not None and e.topic.endswith("/conditions"):
+                    self.last_conditions_sent = self.clock.monotonic()
         for observe in self.observers:
             observe(effects)
 
@@ -337,6 +414,7 @@ class Service:
         mono = self.clock.monotonic()
         if self.echo and self.awaiting_echo:
             late = [k for k, (_, deadline) in self.awaiting_echo.items() if mono > deadline]
+            late_seqs = {self.awaiting_echo[k][0] for k in late}
             for k in late:
                 del self.awaiting_echo[k]
                 self.metrics.events_unconfirmed.inc()
@@ -345,6 +423,13 @@ class Service:
                 log.error("%d event(s) acknowledged by the broker never came back on the "
                           "service's own subscription: the broker's ACL may drop them",
                           len(late))
+                topic = next((t for s, t, _ in self.store.outbox() if s in late_seqs), "")
+                self._publish_refused(topic or f"{self._prefix()}/events/#",
+                                      f"not seen back within {ECHO_TIMEOUT_S:g} s of the "
+                                      "broker's acknowledgement")
+        if self.refusal_episode and self.publishing():
+            self.refusal_episode = False
+            log.info("the broker takes what the service publishes again")
         if self.refused and self.link.connected.is_set():
             for seq, topic, payload in self.store.outbox():
                 at = self.refused.get(seq)
@@ -353,7 +438,7 @@ class Service:
         if mono - self.last_expire < EXPIRE_EVERY_S:
             return
         self.last_expire = mono
-        now = self.clock.now()
+        now = self._now()
         expired = self.store.outbox_expire(now - self.outbox_max_age_s, self.outbox_max)
         if not expired:
             return
@@ -372,10 +457,46 @@ class Service:
                   "text": f"{len(expired)} event(s) could not be delivered to the broker and "
                           "expired from the outbox; check the broker's ACL and connection",
                   "event_ids": gone[:100]}
-        prefix = self.command_prefix.removesuffix("/commands/")
-        self.execute([Publish(f"{prefix}/events/integrator/{NOTICE_TOPIC_SPACE}", notice,
-                              qos=1),
-                      Persist("event", f"notice.events_expired.{int(now)}", notice)])
+        self._notice(notice, now)
+
+    def _prefix(self) -> str:
+        return self.command_prefix.removesuffix("/commands/")
+
+    def _notice(self, notice: dict[str, Any], now: float) -> None:
+        """An integrator notice about the broker refusing or losing what the service
+        publishes: stored with the events, handed to webhook and e-mail delivery where the
+        integrator has it, and published once over MQTT, not through the outbox (so a
+        notice the broker refuses too is not offered again, does not expire into another
+        notice, and starts no loop)."""
+        _identify(notice)
+        with self.store.transaction():
+            self.store.add_event(f"notice.{notice['kind']}.{int(now)}", now, notice)
+        if self.delivery is not None:
+            self.delivery.offer("integrator", notice)
+        topic = f"{self._prefix()}/events/integrator/{NOTICE_TOPIC_SPACE}"
+        self.link.publish(topic, notice, 1, False, user=[("event_id", str(notice["event_id"]))])
+        for observe in self.observers:
+            observe([Publish(topic, notice, qos=1)])
+
+    def _publish_refused(self, topic: str, reason: str) -> None:
+        """A publish was refused (MQTT 5 reason code) or never came back (3.1.1): at the
+        start of an episode of refusals, tell the integrator, once."""
+        if self.refusal_episode:
+            return
+        self.refusal_episode = True
+        now = self.clock.now()
+        protocol = "5" if self.link.v5 else "3.1.1"
+        notice = {"schema": "thermowarden.event/1", "event": "notice", "at": _iso(now),
+                  "audience": "integrator", "kind": "publishes_refused", "count": 1,
+                  "protocol": protocol, "topic": topic[:512], "reason": reason[:200],
+                  "text": f"The broker refuses what the service publishes (first: {topic[:200]}"
+                          f", {reason[:200]}). Events wait in the outbox and expire after "
+                          f"{self.outbox_max_age_s:.0f} s; advisories and conditions may not "
+                          "reach anyone. Check the broker's ACL for the service's user: it "
+                          f"must be allowed to write {self._prefix()}/#."}
+        log.error("publishes refused by the broker (%s, %s): the integrator is notified once "
+                  "for this episode", topic[:200], reason[:200])
+        self._notice(notice, now)
 
     # ------------------------------------------------------------------ the loop
     def _handle_control(self, c: Control) -> None:
@@ -397,6 +518,8 @@ class Service:
             if c.failed:
                 self.metrics.publish_failures.labels(reason=c.reason[:40]).inc()
                 self.last_refusal = self.clock.monotonic()
+                self._publish_refused(c.topic or f"{self._prefix()}/#",
+                                      f"reason code {c.reason}")
                 if seq is not None:
                     self.refused[seq] = self.clock.monotonic()
                 ok, dropped = self.limiter.allow("publish-refused")
@@ -441,16 +564,23 @@ class Service:
 
     def _rejected(self, rejections: list[Rejection]) -> None:
         """Count every rejection (one metric update per reason, not per message: a flood
-        of bad payloads does not take the metric's lock for each); log them at a limited
-        rate per reason and point."""
+        of bad payloads does not take the metric's lock for each); log one line per point
+        and reason per ``REJECTION_LOG_INTERVAL_S`` (the first at once, then how many more
+        came: :meth:`_rejection_summaries`)."""
         for reason, count in Counter(r.reason for r in rejections).items():
             self.metrics.rejected.labels(reason=reason).inc(count)
         for r in rejections:
-            ok, dropped = self.limiter.allow(f"{r.reason}|{r.point}")
-            if ok:
-                more = f" ({dropped} similar suppressed)" if dropped else ""
-                log.warning("rejected %s on %s [%s]: %s%s", r.reason, r.topic, r.point,
-                            r.detail, more)
+            if self.rejection_log.first(f"{r.reason}|{r.point}", f"on {r.topic}: {r.detail}"):
+                log.log(_rejection_level(r.reason), "rejected %s on %s [%s]: %s (one line "
+                        "per point and reason every %.0f s; all are counted)", r.reason,
+                        r.topic, r.point, r.detail, self.rejection_log.interval_s)
+
+    def _rejection_summaries(self) -> None:
+        """One line per point and reason whose interval ended with rejections not logged."""
+        for key, count, last in self.rejection_log.due():
+            reason, point = key.split("|", 1)
+            log.log(_rejection_level(reason), "rejected %s [%s]: %d more in the last %.0f s "
+                    "(the last %s)", reason, point, count, self.rejection_log.interval_s, last)
 
     def _handle_message(self, m: Incoming) -> None:
         if m.kind == "command":
@@ -461,6 +591,10 @@ class Service:
             return
         if m.kind == "sys":
             self._sys(m.topic, m.payload)
+            return
+        if m.kind == "oversize":
+            self.last_sensor = self.clock.monotonic()
+            self._rejected(self.engine.oversized(m.topic, m.oversize))
             return
         if m.kind == "watch":
             if self.group is not None:
@@ -488,7 +622,7 @@ class Service:
         only when its ACL lets each person write to topics ending in their own name. The
         configured MQTT 5 user property (set by a trusted gateway) takes precedence."""
         parts = m.topic[len(self.command_prefix):].split("/")
-        now = self.clock.now()
+        now = self._now()
         verb = parts[-1]
         audience = parts[0] if len(parts) in (2, 3) else None
         verb = parts[1] if len(parts) in (2, 3) else verb
@@ -556,6 +690,7 @@ class Service:
     def _sync_counters(self) -> None:
         """Copy the network thread's plain counter and the ingest counters into the
         metrics (cheaper than a locked metric update per message)."""
+        self._rejection_summaries()
         received = self.link.received
         if received != self.received_seen:
             self.metrics.received.inc(received - self.received_seen)
@@ -575,7 +710,7 @@ class Service:
                     seen[q] = n
 
     def evaluate(self) -> None:
-        now = self.clock.now()
+        now = self._now()
         t0 = time.perf_counter()
         effects = self.engine.tick(now)
         self.execute(effects)
@@ -609,7 +744,7 @@ class Service:
         self.failures_seen = now_failing
 
     def _job(self, name: str) -> None:
-        now = self.clock.now()
+        now = self._now()
         if name == "rollup":
             self.evaluate()
         elif name == "prune":
@@ -625,6 +760,17 @@ class Service:
             self.last_digest = now
         elif name == "report":
             self._report_off_thread(now)
+        elif name == "step":
+            while self._drain():  # every message received before the step is taken in
+                pass
+            self._check_clock()
+            self.evaluate()
+
+    def step(self) -> None:
+        """Ask for one step of a driven clock (see :class:`Clock`): take in what was
+        received, run the calendar jobs now due, evaluate; :attr:`steps_done` counts it once
+        it and the jobs it made due are done. Enqueues only."""
+        self.jobs.put("step")
 
     def request_reload(self) -> None:
         """Ask for the configuration to be reloaded (from a signal handler: enqueue only)."""
@@ -757,10 +903,13 @@ class Service:
                         self._handle_control(self.control.get_nowait())
                     except queue.Empty:
                         break
-                self._check_clock()
+                if not clock.driven:
+                    self._check_clock()
+                stepped = 0
                 try:
                     while True:
                         name = self.jobs.get_nowait()
+                        stepped += name == "step"
                         try:
                             self._job(name)
                         except Exception:  # noqa: BLE001 - a failed job must not stop us
@@ -768,6 +917,7 @@ class Service:
                             log.exception("job %s failed", name)
                 except queue.Empty:
                     pass
+                self.steps_done += stepped
                 try:
                     self._finish_reload(self.reloads.get_nowait())
                 except queue.Empty:
@@ -783,7 +933,9 @@ class Service:
                     time.sleep(BATCH_PAUSE_S)
                 mono = clock.monotonic()
                 since = mono - self.last_eval
-                if not clock.simulated and mono - self.last_tick >= self.tick_s:
+                if clock.driven:
+                    pass  # evaluated by its steps only
+                elif not clock.simulated and mono - self.last_tick >= self.tick_s:
                     self.last_tick = mono
                     self.evaluate()
                 elif (self.dirty and since >= self.prompt_eval_s) or (
@@ -832,6 +984,11 @@ class Service:
         self.store.close()
         self.stopped.set()
         log.info("stopped")
+
+
+def _rejection_level(reason: str) -> int:
+    """A SenML pack without a point's record carries nothing for it: said, not warned."""
+    return logging.INFO if reason == RECORD_ABSENT else logging.WARNING
 
 
 def freeze_heap() -> None:

@@ -28,9 +28,12 @@ import uvicorn
 import yaml
 from starlette.applications import Starlette
 from starlette.concurrency import run_in_threadpool
+from starlette.datastructures import MutableHeaders
+from starlette.middleware import Middleware
 from starlette.requests import Request
 from starlette.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
 from starlette.routing import Route
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from thermowarden.shell.mqtt_link import Inbox, Incoming
 from thermowarden.shell.web import pages
@@ -294,7 +297,7 @@ def create_app(ctx: WebContext) -> Starlette:
             return HTMLResponse(pages.login_page(ctx.directory, "/", str(exc), True), 400)
         next_url = _local_path(fields.get("next", "/"))
         session = await run_in_threadpool(ctx.sessions.sign_in, fields.get("name", ""),
-                                          fields.get("password", ""))
+                                          fields.get("password", ""), _client(request))
         if session is None:
             return HTMLResponse(pages.login_page(ctx.directory, next_url,
                                                  "Name or password not accepted.", True), 401)
@@ -435,7 +438,8 @@ def create_app(ctx: WebContext) -> Starlette:
         if not isinstance(data, dict) or not isinstance(data.get("name"), str) or \
                 not isinstance(data.get("password"), str) or set(data) - {"name", "password"}:
             return _error(400, "expected a JSON object with name and password")
-        session = await run_in_threadpool(ctx.sessions.sign_in, data["name"], data["password"])
+        session = await run_in_threadpool(ctx.sessions.sign_in, data["name"], data["password"],
+                                          _client(request))
         if session is None:
             return _error(401, "name or password not accepted", {"WWW-Authenticate": "Bearer"})
         return JSONResponse({"token": session.token, "name": session.user.name,
@@ -519,7 +523,33 @@ def create_app(ctx: WebContext) -> Starlette:
               methods=["POST", "DELETE"]),
     ] + [Route(f"/api/advisories/{{advisory_id}}/{verb}", api_command(verb), methods=["POST"])
          for verb in VERBS]
-    return Starlette(routes=routes)
+    return Starlette(routes=routes, middleware=[Middleware(SecurityHeaders)])
+
+
+class SecurityHeaders:
+    """Adds :data:`pages.SECURITY_HEADERS` to every HTTP response (pure ASGI)."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+
+        async def send_with_headers(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                headers = MutableHeaders(scope=message)
+                for name, value in pages.SECURITY_HEADERS.items():
+                    headers[name] = value
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
+def _client(request: Request) -> str:
+    """The caller's address for the log (the peer of the connection)."""
+    return f"{request.client.host}" if request.client is not None else ""
 
 
 def _local_path(url: str) -> str:

@@ -33,6 +33,8 @@ class SpaceInfo:
     hot_work: bool
     ventilation: str
     index: int
+    acclimatised: bool = False
+    """Its workers are configured as acclimatised (the WBGT reference shown is theirs)."""
     building: str | None = None
     floor: str | None = None
     area: str | None = None
@@ -83,6 +85,7 @@ class SiteDirectory:
             group = " · ".join(n for n in (b_name, l_name) if n)
             name = s.name or s.id
             infos.append(SpaceInfo(s.id, name, s.kind, bool(s.hot_work), s.ventilation, i,
+                                   bool(config.people(s).acclimatised),
                                    s.building, s.floor, s.area, group,
                                    f"{name}\n{s.id}\n{group}".lower()))
         spaces = tuple(infos)

@@ -1,9 +1,13 @@
 """The web page's HTML: overview, one space, one advisory, sign-in. Plain server-rendered
-HTML with inline CSS and inline SVG charts; every value from outside is escaped here."""
+HTML with inline CSS and inline SVG charts; every value from outside is escaped here. No
+scripts and no style attributes: the Content-Security-Policy (:data:`SECURITY_HEADERS`)
+allows the one stylesheet by its hash."""
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
+import hashlib
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -75,6 +79,8 @@ background:#1f5f8b;color:#fff;cursor:pointer}
 .flash{background:#e8f2e8;border:1px solid #9cc59e;padding:.5rem .7rem;border-radius:.4rem}
 .flash.error{background:#fbeaea;border-color:#d79a9a}
 .cautions li{margin:.2rem 0}
+form.inline{display:inline}
+button.small{padding:.1rem .5rem}
 form.search{display:flex;flex-wrap:wrap;gap:.4rem .6rem;align-items:flex-end;
 background:var(--card);border:1px solid var(--line);border-radius:.5rem;padding:.6rem}
 form.search .field{display:flex;flex-direction:column;font-size:.85rem;color:var(--muted)}
@@ -94,18 +100,36 @@ table.fit tr.sub td:first-child{padding-left:.4rem}
 }
 """
 
+SECURITY_HEADERS: dict[str, str] = {
+    # no scripts, no plug-ins, no frames; only the page's own stylesheet (by its hash),
+    # forms back to this site, and no framing by other sites (clickjacking); the page
+    # keeps working with all of it
+    "Content-Security-Policy": (
+        "default-src 'none'; style-src 'sha256-"
+        + base64.b64encode(hashlib.sha256(CSS.encode("utf-8")).digest()).decode("ascii")
+        + "'; img-src 'self' data:; form-action 'self'; frame-ancestors 'none'; "
+        "base-uri 'none'"),
+    "X-Frame-Options": "DENY",
+    "X-Content-Type-Options": "nosniff",
+    "Referrer-Policy": "same-origin",
+}
+"""Sent with every response of the web page and API (W3C CSP Level 3, including
+``frame-ancestors``; ``X-Frame-Options`` for browsers without it)."""
+
 OVERVIEW_VALUES = (
     ("operative_temperature", "Operative temperature"),
     ("pmv_iso", "PMV (ISO 7730)"),
     ("relative_humidity", "Relative humidity"),
     ("wbgt_effective", "WBGT"),
-    ("wbgt_reference_acclimatised", "WBGT reference (acclimatised)"),
+    ("wbgt_reference", "WBGT reference"),
     ("utci", "UTCI"),
     ("heat_index", "Heat index"),
 )
 SPACE_VALUES = (
     ("operative_temperature", "Operative temperature"),
     ("mean_radiant_temperature", "Mean radiant temperature"),
+    ("mean_radiant_temperature_source", "Mean radiant temperature from"),
+    ("globe_temperature_estimated", "Globe temperature, estimated"),
     ("pmv_iso", "PMV (ISO 7730)"),
     ("ppd_iso", "PPD (ISO 7730)"),
     ("comfort_category_iso", "ISO 7730 category"),
@@ -117,8 +141,9 @@ SPACE_VALUES = (
     ("wbgt", "WBGT"),
     ("wbgt_time_weighted", "WBGT, 60-minute mean"),
     ("wbgt_effective", "WBGT with clothing adjustment"),
-    ("wbgt_reference_acclimatised", "WBGT reference, acclimatised"),
-    ("wbgt_reference_unacclimatised", "WBGT reference, unacclimatised"),
+    ("wbgt_reference", "WBGT reference"),
+    ("wbgt_reference_acclimatised", "WBGT reference for acclimatised workers"),
+    ("wbgt_reference_unacclimatised", "WBGT reference for workers not acclimatised"),
     ("heat_index", "Heat index"),
     ("humidex", "Humidex"),
     ("utci", "UTCI"),
@@ -209,9 +234,9 @@ def page(title: str, body: str, directory: SiteDirectory, session: Session | Non
 
 def page_html(title: str, body: str, directory: SiteDirectory, session: Session | None,
               refresh: bool = False, here: str = "/") -> str:
-    who = (f'{h(session.user.name)} <form method="post" action="/logout" style="display:inline">'
+    who = (f'{h(session.user.name)} <form method="post" action="/logout" class="inline">'
            f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
-           '<button type="submit" style="padding:.1rem .5rem">Sign out</button></form>'
+           '<button type="submit" class="small">Sign out</button></form>'
            if session else f'<a href="/login?next={quote(here, safe="")}">Sign in</a>')
     flash = ""
     if session and session.flash:
@@ -363,9 +388,10 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
         for key, label in OVERVIEW_VALUES:
             item = idx.get(key)
             if item is None or (item.get("value") is None and key in (
-                    "utci", "heat_index", "wbgt_effective", "wbgt_reference_acclimatised",
-                    "pmv_iso")):
+                    "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
                 continue
+            if key == "wbgt_reference":
+                label = reference_label(s)
             rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
         when = (f'as of {local(c["at"], tz)} · '
                 f'{"occupied" if c.get("occupied") else "unoccupied"}')
@@ -453,6 +479,12 @@ def overview(directory: SiteDirectory, conditions_of: Callable[[str], dict[str, 
     return page_html("Overview", "".join(parts), directory, session, refresh=True, here=here)
 
 
+def reference_label(space: SpaceInfo) -> str:
+    """The WBGT reference of the space's own workers, named as configured."""
+    return ("WBGT reference (acclimatised)" if space.acclimatised
+            else "WBGT reference (not acclimatised)")
+
+
 def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
     return [s.get(key) for s in samples]
 
@@ -510,12 +542,17 @@ def points_table(c: dict[str, Any] | None) -> str:
                 f'<td class="num" data-label="Last value">{fmt_value(p)}</td>'
                 f'<td data-label="Freshness">{status}</td>'
                 f'<td data-label="Received">{h(age_text(p.get("age_s")))}</td></tr>')
+        assumed = [f"{QUANTITY_LABELS.get(q, q)}: {v['assumed'].removeprefix('assumed: ')}"
+                   for q, v in sorted(c.get("inputs", {}).items()) if v.get("assumed")]
+        note = (f'<p class="note">Not measured here, assumed: {h("; ".join(assumed))}.</p>'
+                if assumed else "")
         return ('<div class="scroll"><table class="fit"><thead><tr><th>Point</th>'
                 '<th>Last value</th><th>Freshness</th><th>Received</th></tr></thead><tbody>'
-                + "".join(rows) + "</tbody></table></div>")
+                + "".join(rows) + "</tbody></table></div>" + note)
     rows = [f'<tr><td data-label="Input">{h(QUANTITY_LABELS.get(q, q))}</td>'
             f'<td class="num" data-label="Value">{fmt_value(v) if "value" in v else "–"}</td>'
-            f'<td data-label="Freshness">{FRESH if v.get("fresh") else STALE}'
+            f'<td data-label="Freshness">'
+            f'{h(v["assumed"]) if v.get("assumed") else FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
     return ('<div class="scroll"><table class="fit"><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
@@ -547,6 +584,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
             item = c["indices"].get(key)
             if item is None:
                 continue
+            if key == "wbgt_reference":
+                label = reference_label(space)
             rows.append(f'<tr><td>{h(label)}</td><td class="num">{fmt_value(item)}</td>'
                         f'<td class="note">{h(item.get("method", ""))}</td></tr>')
         parts.append('<h2>Conditions now</h2><div class="scroll"><table><thead><tr><th>Index'

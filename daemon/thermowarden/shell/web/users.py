@@ -26,7 +26,9 @@ from __future__ import annotations
 import base64
 import hashlib
 import hmac
+import json
 import os
+import pathlib
 import secrets
 import sqlite3
 import threading
@@ -34,17 +36,23 @@ import time
 from collections import deque
 from contextlib import closing
 from dataclasses import dataclass, field
+from logging import getLogger
 from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from thermowarden.config import ConfigError, issues_from_validation, read_yaml_file
+from thermowarden.shell.logs import RateLimiter
+
+log = getLogger("thermowarden.web")
 
 SCHEME = "pbkdf2_sha256"
 DEFAULT_ITERATIONS = 600_000
 MIN_ITERATIONS = 1_000
 FAILURES_ALLOWED = 5
 FAILURE_WINDOW_S = 300.0
+FAILURE_LINES_PER_MIN = 30.0
+"""Failed sign-ins are logged at most this often in all (guessing many names at once)."""
 
 Audience = Literal["facilities", "safety", "integrator"]
 
@@ -143,6 +151,27 @@ def load_users(path: str | os.PathLike[str]) -> dict[str, UserEntry]:
     return out
 
 
+def users_yaml(entries: list[UserEntry]) -> str:
+    """A whole users file (the form :func:`load_users` reads) with these entries."""
+    lines = ["users:"]
+    for e in entries:
+        lines += [f"  - name: {json.dumps(e.name)}",
+                  f"    audiences: [{', '.join(e.audiences)}]"]
+        if e.buildings is not None:
+            lines.append(f"    buildings: [{', '.join(e.buildings)}]")
+        lines.append(f"    password_hash: \"{e.password_hash}\"")
+    return "\n".join(lines) + "\n"
+
+
+def write_private(path: pathlib.Path, text: str) -> None:
+    """Write ``text`` to ``path`` readable by its owner only, replacing it in one step."""
+    tmp = path.with_name(path.name + ".tmp")
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    with os.fdopen(fd, "w", encoding="utf-8") as fh:
+        fh.write(text)
+    os.replace(tmp, path)
+
+
 @dataclass
 class Session:
     token: str
@@ -180,6 +209,9 @@ class Sessions:
         self.lock = threading.Lock()
         self.sessions: dict[str, Session] = {}
         self.failures: dict[str, deque[float]] = {}
+        self.refused_while_locked: dict[str, int] = {}
+        self.log_limit = RateLimiter(per_minute=FAILURE_LINES_PER_MIN,
+                                     burst=int(FAILURE_LINES_PER_MIN), clock=time.monotonic)
         self.store = os.fspath(store) if store is not None else None
         if self.store is not None:
             with closing(self._db()) as db:
@@ -192,15 +224,30 @@ class Sessions:
         db.execute("PRAGMA journal_mode=WAL")
         return db
 
-    def sign_in(self, name: str, password: str) -> Session | None:
-        """A new session, or None (unknown name, wrong password, or too many failures)."""
+    def sign_in(self, name: str, password: str, client: str = "") -> Session | None:
+        """A new session, or None (unknown name, wrong password, or too many failures).
+
+        Logged (``thermowarden.web``; the name quoted, never the password; ``client`` is
+        the caller's address): a sign-in at INFO; a failure, the lock after
+        ``FAILURES_ALLOWED`` failures in ``FAILURE_WINDOW_S`` and the first attempt
+        refused while locked at WARNING (failure lines at most ``FAILURE_LINES_PER_MIN``
+        a minute in all, with the number left out)."""
         now = self.now()
+        key = name[:100]
+        where = f" from {client}" if client else ""
         with self.lock:
-            fails = self.failures.setdefault(name[:100], deque())
+            fails = self.failures.setdefault(key, deque())
             while fails and fails[0] < now - FAILURE_WINDOW_S:
                 fails.popleft()
             if len(fails) >= FAILURES_ALLOWED:
+                refused = self.refused_while_locked.get(key, 0) + 1
+                self.refused_while_locked[key] = refused
+                if refused == 1:
+                    log.warning("web sign-in as %r%s refused: locked after %d failures "
+                                "within %.0f s (further attempts while locked are counted, "
+                                "not logged)", key, where, FAILURES_ALLOWED, FAILURE_WINDOW_S)
                 return None
+            locked_out = self.refused_while_locked.pop(key, 0)
         entry = self.users.get(name)
         if entry is None:  # an unknown name costs about as much as a wrong password
             hashlib.pbkdf2_hmac("sha256", password.encode("utf-8"), b"no such user",
@@ -208,11 +255,25 @@ class Sessions:
             ok = False
         else:
             ok = verify_password(password, entry.password_hash)
+        also = f"; {locked_out} attempt(s) were refused while it was locked" \
+            if locked_out else ""
         with self.lock:
             if not ok or entry is None:
-                self.failures[name[:100]].append(now)
+                fails = self.failures.setdefault(key, deque())
+                fails.append(now)
+                why = "unknown name" if entry is None else "wrong password"
+                allowed, dropped = self.log_limit.allow("failure")
+                if allowed:
+                    more = f" ({dropped} failure line(s) left out)" if dropped else ""
+                    log.warning("web sign-in as %r%s failed: %s (%d of %d failures allowed "
+                                "in %.0f s)%s%s", key, where, why, len(fails),
+                                FAILURES_ALLOWED, FAILURE_WINDOW_S, also, more)
+                if len(fails) >= FAILURES_ALLOWED:
+                    log.warning("web sign-in as %r locked for up to %.0f s after %d "
+                                "failures", key, FAILURE_WINDOW_S, len(fails))
                 if len(self.failures) > 10_000:
                     self.failures.clear()
+                    self.refused_while_locked.clear()
                 return None
             self._purge(now)
             s = Session(secrets.token_urlsafe(32), User.of(entry), now + self.lifetime_s,
@@ -223,6 +284,7 @@ class Sessions:
                 db.execute("INSERT OR REPLACE INTO web_sessions(token_sha256, name, csrf, "
                            "expires) VALUES(?, ?, ?, ?)",
                            (_digest(s.token), entry.name, s.csrf, s.expires))
+        log.info("web sign-in as %r%s%s", entry.name, where, also)
         return s
 
     def get(self, token: str | None) -> Session | None:
