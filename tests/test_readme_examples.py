@@ -9,11 +9,12 @@ import yaml
 
 from tests.conftest import REPO
 from thermowarden.config import load_site
+from thermowarden.site_model import build_site_model
 
 
-def _blocks(section: str) -> list[str]:
+def _blocks(section: str, level: str = "##") -> list[str]:
     text = (REPO / "README.md").read_text(encoding="utf-8")
-    start = text.index(f"\n## {section}\n")
+    start = text.index(f"\n{level} {section}\n")
     end = text.index("\n## ", start + 1)
     return re.findall(r"```yaml\n(.*?)```", text[start:end], flags=re.S)
 
@@ -34,11 +35,18 @@ def test_point_trust_snippet(tmp_path):
 
 def test_delivery_snippet(tmp_path):
     (block,) = _blocks("Reaching people: webhook and e-mail")
-    config = _load(tmp_path, block)
+    # its recipients per building name a building of the site (the tree snippet's)
+    (tree,) = _blocks("A site as a tree", "###")
+    config = _load(tmp_path, block + tree)
     safety = config.delivery.audiences["safety"]
     assert safety.webhook is not None and safety.email is not None
     assert safety.quiet_hours == "21:00-06:30"
     assert safety.email.to == ["safety-lead@example.org", "site-supervisor@example.org"]
+    north = safety.buildings["north"]
+    assert north.email is not None and north.email.to == ["north-duty@example.org"]
+    assert safety.escalation is not None and safety.escalation.after_s == 600
+    assert safety.escalation.email is not None
+    assert safety.escalation.email.to == ["site-manager@example.org"]
 
 
 def test_clustered_broker_snippet(tmp_path):
@@ -49,6 +57,25 @@ def test_clustered_broker_snippet(tmp_path):
     assert config.output.rule_topic_separator == "/"
 
 
+def test_site_tree_snippet(tmp_path):
+    (block,) = _blocks("A site as a tree", "###")
+    config = _load(tmp_path, block)
+    by_id = {s.id: s for s in config.spaces}
+    assert (by_id["north-201"].building, by_id["north-201"].floor) == ("north", "f2")
+    assert config.parameters(by_id["north-201"]) == {"comfort_limit_c": 26}
+    assert config.people(by_id["south-101"]).met == 1.4
+    assert by_id["yard-dock"].area == "yard" and config.occupancy(by_id["yard-dock"]).always
+    topics = {p.topic for p in build_site_model(config).points}
+    assert {"ashgrove/north/f2/201/ta", "ashgrove/south/f1/101/ta",
+            "ashgrove/north/f2/desk-201/rh"} <= topics
+
+
+def test_web_snippet(tmp_path):
+    (block,) = _blocks("The web page and HTTP API")
+    config = _load(tmp_path, block)
+    assert config.web.enabled and config.web.users_file == "web-users.yaml"
+    assert not config.web.sign_in_to_read
+    assert config.web.public_url == "https://comfort.example.org"
 def test_windows_snippet(tmp_path):
     (block,) = _blocks("Advice ahead of time")
     data = {"site": {"id": "readme", "timezone": "Europe/London", "latitude": 52.2,

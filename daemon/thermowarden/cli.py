@@ -18,7 +18,7 @@ import gzip
 import json
 import sys
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from typing import TYPE_CHECKING, Any, TextIO
 
 if TYPE_CHECKING:
@@ -428,7 +428,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     import pathlib
 
     from thermowarden.replay import FeedError, read_feed, replay
-    from thermowarden.report import build_report, render_html
+    from thermowarden.report import build_report, render_html, stored_events, stored_samples
 
     config = _load_or_report(args.config)
     if config is None:
@@ -444,7 +444,8 @@ def cmd_report(args: argparse.Namespace) -> int:
             print(f"thermowarden report: {exc}", file=sys.stderr)
             return 2
         # every event the engine raised, also those held back under a flood summary
-        samples, events = result.samples, result.raised_events
+        samples: Iterable[dict[str, Any]] = result.samples
+        events = result.raised_events
         start = args.start if args.start is not None else result.start
         end = args.end if args.end is not None else result.end + 1
     else:
@@ -459,16 +460,27 @@ def cmd_report(args: argparse.Namespace) -> int:
             print("thermowarden report: --from and --to are needed with a store",
                   file=sys.stderr)
             return 2
-        store = Store(path)
-        samples = store.samples_between(args.start, args.end)
-        events = store.events_between(args.start - 7 * 86_400, args.end)
-        store.close()
+        Store(path).close()  # a store this version can read (checked and migrated)
+        samples = stored_samples(path, args.start, args.end)
+        events = stored_events(path, args.start - 7 * 86_400, args.end)
         start, end = args.start, args.end
     if end <= start:
         print("thermowarden report: --to must be after --from", file=sys.stderr)
         return 2
-    html_text = render_html(config, build_report(config, samples, events, start, end),
-                            start, end)
+    only = None
+    scope = None
+    if args.building:
+        only = {s.id for s in config.spaces if args.building in (s.building, s.area)}
+        if not only:
+            known = sorted({x for s in config.spaces for x in (s.building, s.area) if x})
+            print(f"thermowarden report: no space is in building or area {args.building!r} "
+                  f"(known: {', '.join(known) or 'none'})", file=sys.stderr)
+            return 2
+        scope = (config.level_name("building", None, args.building)
+                 if any(s.building == args.building for s in config.spaces)
+                 else config.level_name("area", None, args.building))
+    html_text = render_html(config, build_report(config, samples, events, start, end,
+                                                 only=only), start, end, scope=scope)
     out = args.output or f"{config.site.id}-report.html"
     pathlib.Path(out).write_text(html_text, encoding="utf-8")
     print(f"report written to {out}", file=sys.stderr)
@@ -653,6 +665,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="the service's state directory (default ./state)")
     p.add_argument("--output", metavar="FILE", help="HTML file to write "
                    "(default SITE-report.html)")
+    p.add_argument("--building", metavar="ID", help="only the spaces of this building (or "
+                   "area of the site)")
     p.set_defaults(func=cmd_report)
 
     p = sub.add_parser("export", help="the conditions history from the store to CSV or Parquet")
@@ -673,9 +687,12 @@ def build_parser() -> argparse.ArgumentParser:
                        "a whole users file with them (asks for the password, or reads it "
                        "from stdin)")
     p.add_argument("name")
-    p.add_argument("--audience", action="append", required=True,
+    p.add_argument("--audience", action="append",
                    choices=["facilities", "safety", "integrator"],
-                   help="an audience whose advisories this person may act on (repeat)")
+                   help="an audience whose advisories this person may act on (repeat; "
+                   "none: reads only)")
+    p.add_argument("--building", action="append", metavar="ID",
+                   help="a building or area this person may act in (repeat; default: all)")
     p.add_argument("--file", metavar="USERS_YAML",
                    help="write to this users file: created when missing, the person added or "
                         "replaced when it exists (without it, a whole file is printed)")
@@ -705,7 +722,8 @@ def cmd_web_user(args: argparse.Namespace) -> int:
     if len(password) < 8:
         print("use a password of at least 8 characters", file=sys.stderr)
         return 2
-    entry = UserEntry(name=args.name, audiences=sorted(set(args.audience)),
+    entry = UserEntry(name=args.name, audiences=sorted(set(args.audience or [])),
+                      buildings=sorted(set(args.building)) if args.building else None,
                       password_hash=hash_password(password))
     if args.file is None:
         print(users_yaml([entry]), end="")

@@ -28,6 +28,7 @@ from thermowarden.core import radiation
 from thermowarden.core.expressions import Expression, ExpressionError, Kind, parse_expression
 from thermowarden.core.forecast import FORESIGHT_COLUMNS
 from thermowarden.core.indices import SpaceInputs, compute_indices
+from thermowarden.core.topics import TREE_PLACEHOLDERS
 from thermowarden.wbgt_basis import WbgtBasis, wbgt_basis
 
 FLAGS: Final = ("occupied", "hot_work", "indoor", "outdoor", "naturally_ventilated",
@@ -475,7 +476,7 @@ def provided_inputs(model: object) -> list[set[str]]:
     lazy_all: set[str] = set()
     lazy_some: list[tuple[frozenset[int], set[str]]] = []
     for tmpl, spec, allowed in model.templates:
-        if tmpl.placeholders == {"space"}:
+        if tmpl.placeholders <= TREE_PLACEHOLDERS:
             continue
         names: set[str] = {spec.quantity}
         if "side" in tmpl.placeholders:

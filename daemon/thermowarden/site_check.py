@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 
 from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
 from thermowarden.core.quantities import QUANTITIES
+from thermowarden.core.topics import TREE_PLACEHOLDERS
 from thermowarden.site_model import (
     DEFAULT_STUCK_AFTER_S,
     SITE,
@@ -56,6 +57,21 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
     except RulePackError as exc:
         report.issues = exc.issues
         return report
+    for tmpl, spec, allowed in report.model.templates:
+        if allowed is None or not set(tmpl.tree_placeholders) - {"space"}:
+            continue
+        named = {config.spaces[i].id for i in allowed}
+        own = {config.spaces[i].id for i, q in report.model.explicit_quantities
+               if q == spec.quantity}
+        left = [s for s in (spec.spaces if spec.spaces is not None
+                            else [s.id for s in config.spaces])
+                if s not in named and s not in own]
+        if left:
+            levels = ", ".join("{" + p + "}" for p in tmpl.tree_placeholders if p != "space")
+            more = f" and {len(left) - 3} more" if len(left) > 3 else ""
+            report.warnings.append(
+                f"template {tmpl.text}: {len(left)} space(s) ({', '.join(left[:3])}{more}) "
+                f"have no value for {levels} and get no {spec.quantity} from it")
     from thermowarden.rules import rule_applies
 
     provided = provided_inputs(report.model)
@@ -207,13 +223,16 @@ def resolved_map(model: SiteModel) -> list[str]:
             flags.append("hot work")
         if space.ventilation == "natural":
             flags.append("naturally ventilated")
+        where = "/".join(v for v in (space.building, space.floor, space.area) if v)
+        if where:
+            flags.insert(0, where)
         lines.append(f"space {sid} ({', '.join(flags)}): "
                      f"rules {', '.join(model.config.rule_packs(space)) or '-'}")
         lines.extend(by_space.get(i, ["    (no points yet)"]))
         if space.hot_work:
             lines.append(f"    WBGT rests on {bases[i].description}")
     for tmpl, spec, _ in model.templates:
-        if tmpl.placeholders != {"space"}:
+        if not tmpl.placeholders <= TREE_PLACEHOLDERS:
             lines.append(f"template {tmpl.text}: {spec.quantity}, points created as topics "
                          "appear")
     return lines

@@ -1,9 +1,11 @@
 """The resolved site: spaces, points and topic routes, built once from the configuration.
 
 Points are rows of flat arrays (structure of arrays), not objects, so a site of thousands
-of spaces costs a few kilobytes per space. Templates whose only placeholder is ``{space}``
-create their points up front; templates with ``{side}`` or ``{sensor}`` create points on
-the first message (at most :data:`MAX_SENSORS_PER_SLOT` per space and slot).
+of spaces costs a few kilobytes per space. Templates whose placeholders name only levels of
+the tree (``{building}``, ``{floor}``, ``{area}``, ``{space}``) create their points up front;
+templates with ``{side}`` or ``{sensor}`` create points on the first message (at most
+:data:`MAX_SENSORS_PER_SLOT` per space and slot). A topic finds its space through the
+values of the tree placeholders (``north``, ``f1``, ``101``), not through the space id.
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ from thermowarden.config.points import (
 from thermowarden.config.site import SiteConfig, SpaceConfig
 from thermowarden.core import radiation
 from thermowarden.core.quantities import QUANTITIES
-from thermowarden.core.topics import TopicTemplate
+from thermowarden.core.topics import TREE_PLACEHOLDERS, TopicTemplate
 from thermowarden.core.units import converter
 
 MAX_SENSORS_PER_SLOT: Final = 8
@@ -90,6 +92,13 @@ class SiteModel:
     """(space, quantity) pairs bound by explicit topics: templates do not apply to them."""
     listeners: list[Callable[[int], None]] = field(default_factory=list)
     """Called with the id of every point added after construction."""
+    template_keys: list[dict[tuple[str, ...], int]] = field(default_factory=list)
+    """Per template: the values of its tree placeholders -> the space they name."""
+
+    def template_space(self, k: int, values: dict[str, str]) -> int | None:
+        """The space a match of template ``k`` names, or None."""
+        tmpl = self.templates[k][0]
+        return self.template_keys[k].get(tuple(values[p] for p in tmpl.tree_placeholders))
 
     @property
     def n_spaces(self) -> int:
@@ -113,12 +122,23 @@ class SiteModel:
         pid = len(self.points)
         low = q.low if spec.plausible_min is None else spec.plausible_min
         high = q.high if spec.plausible_max is None else spec.plausible_max
-        rate = spec.max_change_per_min / 60.0 if spec.max_change_per_min else float("inf")
+        change = spec.max_change_per_min
+        stuck = spec.stuck_after_s
+        if space != SITE:
+            trust = self.config.trust(self.space(space)).get(spec.quantity)
+            if trust is not None:
+                if spec.plausible_min is None and trust.plausible_min is not None:
+                    low = trust.plausible_min
+                if spec.plausible_max is None and trust.plausible_max is not None:
+                    high = trust.plausible_max
+                change = change or trust.max_change_per_min
+                stuck = stuck or trust.stuck_after_s
+        rate = change / 60.0 if change else float("inf")
         self.points.append(PointSpec(key, space, spec.quantity, canonical, spec.height,
                                      sensor if sensor is not None else spec.sensor, unit,
                                      converter(q.kind, unit), low, high, spec.interval_s,
                                      spec.format, topic, spec.offset, spec.scale, rate,
-                                     spec.stuck_after_s or DEFAULT_STUCK_AFTER_S,
+                                     stuck or DEFAULT_STUCK_AFTER_S,
                                      spec.height_m, spec.globe_diameter_m,
                                      spec.globe_emissivity))
         self.point_by_key[key] = pid
@@ -146,10 +166,11 @@ class SiteModel:
             if not per_space:
                 subs.add(tmpl.subscription)
                 continue
-            others = {p: "+" for p in tmpl.placeholders if p != "space"}
-            for i, sid in enumerate(self.space_ids):
+            tree = tmpl.tree_placeholders
+            for i in range(len(self.space_ids)):
                 if (allowed is None or i in allowed) and (spaces is None or i in keep):
-                    subs.add(tmpl.render(space=sid, **others))
+                    values = self.space(i).tree_values()
+                    subs.add(tmpl.render_filter(**{p: values[p] for p in tree}))
         return minimal_filters(subs)
 
 
@@ -193,15 +214,25 @@ def build_site_model(config: SiteConfig) -> SiteModel:
             pid = model.add_point(i, p, p.topic)
             model.routes.setdefault(p.topic, []).append(pid)
             model.explicit_quantities.add((i, p.quantity))
+    values = [s.tree_values() for s in config.spaces]
     for t in config.templates:
         tmpl = TopicTemplate.parse(t.topic)
-        allowed = frozenset(model.space_index[s] for s in t.spaces) if t.spaces else None
+        tree = tmpl.tree_placeholders
+        allowed: frozenset[int] | None = (
+            frozenset(model.space_index[s] for s in t.spaces) if t.spaces else None)
+        if any(p != "space" for p in tree):
+            # a template naming a level applies only to spaces that have that level
+            allowed = frozenset(i for i in (allowed if allowed is not None else range(len(ids)))
+                                if all(p in values[i] for p in tree))
+        keys: dict[tuple[str, ...], int] = {}
+        for i in (allowed if allowed is not None else range(len(ids))):
+            keys[tuple(values[i][p] for p in tree)] = i
         model.templates.append((tmpl, t, allowed))
-        if tmpl.placeholders == {"space"}:
-            for i, sid in enumerate(ids):
-                if (allowed is None or i in allowed) and (i, t.quantity) not in \
-                        model.explicit_quantities:
-                    model.add_point(i, t, tmpl.render(space=sid))
+        model.template_keys.append(keys)
+        if tmpl.placeholders <= TREE_PLACEHOLDERS:
+            for i in sorted(keys.values()):
+                if (i, t.quantity) not in model.explicit_quantities:
+                    model.add_point(i, t, tmpl.render(**values[i]))
     return model
 
 

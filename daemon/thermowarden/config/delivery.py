@@ -11,7 +11,8 @@ from pydantic import ConfigDict, Field, SecretStr, field_validator, model_valida
 from thermowarden.config.base import Strict
 
 DeliveredEvent = Literal["raised", "escalated", "deescalated", "renotified", "acknowledged",
-                         "shelved", "unshelved", "cleared", "summary", "notice"]
+                         "shelved", "unshelved", "cleared", "summary", "notice",
+                         "unacknowledged", "report"]
 
 
 class WebhookConfig(Strict):
@@ -64,6 +65,34 @@ class EmailConfig(Strict):
     model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
 
 
+class Recipients(Strict):
+    """Further recipients: a webhook, an e-mail list, or both."""
+
+    webhook: WebhookConfig | None = None
+    email: EmailConfig | None = None
+
+    @model_validator(mode="after")
+    def _some(self) -> Recipients:
+        if self.webhook is None and self.email is None:
+            raise ValueError("give a webhook, an email, or both")
+        return self
+
+
+class EscalationConfig(Recipients):
+    """Where an urgent alert goes when nobody acknowledges (or shelves) it: ``after_s``
+    seconds after it was raised or became urgent, unless it was acknowledged, shelved or
+    cleared by then, it is sent to these recipients as an ``unacknowledged`` event."""
+
+    after_s: float = Field(600.0, ge=10.0, le=86_400.0)
+
+
+class BuildingRecipients(Recipients):
+    """The recipients of one building's (or area's) events, and optionally where its
+    unacknowledged urgent alerts go (instead of the audience's ``escalation``)."""
+
+    escalation: EscalationConfig | None = None
+
+
 def _default_events() -> list[DeliveredEvent]:
     return ["raised", "escalated", "renotified", "cleared", "summary", "notice"]
 
@@ -82,6 +111,12 @@ class AudienceDelivery(Strict):
     events: list[DeliveredEvent] = Field(default_factory=_default_events)
     quiet_hours: str | None = None
     low_priority_digest_s: float = Field(3600.0, ge=0, le=7 * 86_400)
+    buildings: dict[Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")],
+                    BuildingRecipients] = Field(default_factory=dict)
+    """Building (or area) id -> its own recipients: they receive the events of the spaces
+    there (with the same ``events``, quiet hours and digest), besides the audience's
+    recipients above."""
+    escalation: EscalationConfig | None = None
 
     @field_validator("quiet_hours")
     @classmethod
@@ -96,8 +131,8 @@ class AudienceDelivery(Strict):
 
     @model_validator(mode="after")
     def _some_channel(self) -> AudienceDelivery:
-        if self.webhook is None and self.email is None:
-            raise ValueError("give a webhook, an email, or both")
+        if self.webhook is None and self.email is None and not self.buildings:
+            raise ValueError("give a webhook, an email, or both (or recipients per building)")
         return self
 
 

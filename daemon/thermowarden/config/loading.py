@@ -24,7 +24,7 @@ from thermowarden.config.positions import (
     load_yaml_with_positions,
 )
 from thermowarden.config.rule_packs import RulePackConfig
-from thermowarden.config.site import SiteConfig
+from thermowarden.config.site import SiteConfig, TreeIssues
 from thermowarden.config.windows import window_issues
 
 ENV_PREFIX = "THERMOWARDEN_"
@@ -75,25 +75,77 @@ def _apply_environment(data: dict[str, Any], environ: Mapping[str, str],
 
 CSV_COLUMNS = ("id", "name", "kind", "hot_work", "ventilation", "met", "work_class", "clo",
                "acclimatised", "clothing", "posture", "rule_packs", "brick_class", "brick_uri",
-               "haystack_id", "haystack_tags", "phs_edition", "building", "area")
+               "haystack_id", "haystack_tags", "phs_edition")
+"""The table's original columns (still accepted as they are)."""
+_CSV_SHORT = {"met": ("people", "met"), "work_class": ("people", "work_class"),
+              "clo": ("people", "clo"), "acclimatised": ("people", "acclimatised"),
+              "clothing": ("people", "clothing"), "posture": ("people", "posture"),
+              "brick_class": ("external", "brick_class"),
+              "brick_uri": ("external", "brick_uri"),
+              "haystack_id": ("external", "haystack_id"),
+              "haystack_tags": ("external", "haystack_tags")}
+_CSV_TEXT = frozenset({"id", "name", "kind", "ventilation", "building", "floor", "area",
+                       "topic_name", "phs_edition", "combine"})
+"""Fields taken as text exactly as written; every other cell is read as YAML (numbers,
+true/false, and flow collections such as ``[{quantity: air_temperature, topic: a/b}]``)."""
+_CSV_LISTS = frozenset({("rule_packs",), ("external", "haystack_tags")})
+"""List fields a cell may also give as ``a;b;c``."""
+
+
+def _csv_column_path(col: str) -> tuple[str, ...] | str:
+    """The space field a column fills (``people.met``, ``occupancy.hours.mon``,
+    ``parameters.comfort_limit_c``), or why it fills none."""
+    import typing
+
+    from pydantic import BaseModel
+
+    from thermowarden.config.site import SpaceConfig
+
+    if col in _CSV_SHORT:
+        return _CSV_SHORT[col]
+    path = tuple(col.split("."))
+    annotation: Any = SpaceConfig
+    for k, part in enumerate(path):
+        args = (annotation, *typing.get_args(annotation))
+        mapping = next((a for a in args if typing.get_origin(a) is dict), None)
+        model = next((a for a in args if isinstance(a, type) and issubclass(a, BaseModel)),
+                     None)
+        if mapping is not None:
+            annotation = typing.get_args(mapping)[1]  # any key: a parameter, a weekday...
+            continue
+        if model is None:
+            return f" ({'.'.join(path[:k])} holds no further keys)"
+        field = model.model_fields.get(part)
+        if field is None:
+            names = list(model.model_fields) + (list(_CSV_SHORT) if k == 0 else [])
+            close = difflib.get_close_matches(part, names, n=1)
+            return f"; did you mean {close[0]!r}?" if close else ""
+        annotation = field.annotation
+    return path
 
 
 def _spaces_from_csv(path: pathlib.Path, shown: str) -> tuple[list[dict[str, Any]], SourceMap,
                                                                list[ConfigIssue]]:
-    """Spaces listed one per row. People columns (met, work_class, clo, acclimatised,
-    clothing, posture) build the space's people; list columns use ``;``."""
+    """Spaces listed one per row, a column per field a YAML space has: a plain name
+    (``building``, ``hot_work``), a dotted path into the space (``people.met``,
+    ``occupancy.always``, ``occupancy.hours.mon``, ``parameters.comfort_limit_c``,
+    ``assume.air_speed``, ``trust.air_temperature.plausible_max``), or a whole field as a
+    YAML flow value (``points``, ``occupancy``). The original short columns (met, clo,
+    brick_class...) still work; list cells may use ``;``."""
     spaces: list[dict[str, Any]] = []
     smap = SourceMap()
     issues: list[ConfigIssue] = []
     with open(path, encoding="utf-8", newline="") as fh:
         reader = csv.DictReader(fh)
         header = reader.fieldnames or []
+        paths: dict[str, tuple[str, ...]] = {}
         for col_no, col in enumerate(header, start=1):
-            if col not in CSV_COLUMNS:
-                close = difflib.get_close_matches(col, CSV_COLUMNS, n=1)
-                hint = f"; did you mean {close[0]!r}?" if close else ""
+            found = _csv_column_path(col.strip())
+            if isinstance(found, str):
                 issues.append(ConfigIssue(Position(shown, 1, col_no),
-                                          f"unknown column {col!r}{hint}"))
+                                          f"unknown column {col!r}{found}"))
+            else:
+                paths[col] = found
         if "id" not in header:
             issues.append(ConfigIssue(Position(shown, 1, 1), "the table needs an id column"))
         if issues:
@@ -101,41 +153,44 @@ def _spaces_from_csv(path: pathlib.Path, shown: str) -> tuple[list[dict[str, Any
         for i, row in enumerate(reader):
             line = reader.line_num
             space: dict[str, Any] = {}
-            people: dict[str, Any] = {}
-            external: dict[str, Any] = {}
             for col_no, col in enumerate(header, start=1):
                 raw = (row.get(col) or "").strip()
                 if raw == "":
                     continue
                 pos = Position(shown, line, col_no)
-                key: Path
-                if col in ("met", "work_class", "clo", "acclimatised", "clothing", "posture"):
-                    people[col] = yaml.safe_load(raw) if col in ("met", "clo", "acclimatised") \
-                        else raw
-                    key = ("people", col)
-                elif col in ("brick_class", "brick_uri", "haystack_id"):
-                    external[col] = raw
-                    key = ("external", col)
-                elif col == "haystack_tags":
-                    external[col] = [t.strip() for t in raw.split(";") if t.strip()]
-                    key = ("external", col)
-                elif col == "rule_packs":
-                    space[col] = [t.strip() for t in raw.split(";") if t.strip()]
-                    key = (col,)
-                elif col == "hot_work":
-                    space[col] = yaml.safe_load(raw)
-                    key = (col,)
+                key = paths[col]
+                value: Any
+                if len(key) == 1 and key[0] in _CSV_TEXT or key in (
+                        ("people", "work_class"), ("people", "clothing"), ("people", "posture"),
+                        ("external", "brick_class"), ("external", "brick_uri"),
+                        ("external", "haystack_id")):
+                    value = raw
+                elif key in _CSV_LISTS and not raw.startswith("["):
+                    value = [t.strip() for t in raw.split(";") if t.strip()]
                 else:
-                    space[col] = raw
-                    key = (col,)
+                    try:
+                        value = yaml.safe_load(raw)
+                    except yaml.YAMLError as exc:
+                        problem = getattr(exc, "problem", None) or "not valid YAML"
+                        issues.append(ConfigIssue(pos, f"{col}: {problem} (got {raw[:40]!r})"))
+                        continue
+                node = space
+                for part in key[:-1]:
+                    nxt = node.setdefault(part, {})
+                    if not isinstance(nxt, dict):
+                        issues.append(ConfigIssue(pos, f"{col}: {part} is given twice"))
+                        break
+                    node = nxt
+                else:
+                    node[key[-1]] = value
                 smap.values[(i,) + key] = pos
                 smap.keys[(i,) + key] = pos
-            if people:
-                if "clo" not in people:
-                    people.setdefault("clothing_model", "outdoor")
-                space["people"] = people
-            if external:
-                space["external"] = external
+            people = space.get("people")
+            short = {c for c in header if c in _CSV_SHORT and _CSV_SHORT[c][0] == "people"}
+            if isinstance(people, dict) and "clo" not in people and short and not any(
+                    c.startswith("people.") for c in header):
+                # the original short columns without clo: clothing follows the weather
+                people.setdefault("clothing_model", "outdoor")
             smap.values[(i,)] = Position(shown, line, 1)
             spaces.append(space)
     return spaces, smap, issues
@@ -161,15 +216,27 @@ def _secrets_in_file(data: dict[str, Any], smap: SourceMap) -> list[ConfigIssue]
     audiences = delivery.get("audiences") if isinstance(delivery, dict) else None
     if not isinstance(audiences, dict):
         return issues
+    places: list[tuple[tuple[str, ...], Any]] = []
     for name, aud in audiences.items():
         if not isinstance(aud, dict):
             continue
+        places.append(((name,), aud))
+        if isinstance(aud.get("escalation"), dict):
+            places.append(((name, "escalation"), aud["escalation"]))
+        for b, rec in (aud.get("buildings") or {}).items() \
+                if isinstance(aud.get("buildings"), dict) else []:
+            if isinstance(rec, dict):
+                places.append(((name, "buildings", str(b)), rec))
+                if isinstance(rec.get("escalation"), dict):
+                    places.append(((name, "buildings", str(b), "escalation"),
+                                   rec["escalation"]))
+    for prefix, holder in places:
         for path in (("webhook", "secret"), ("email", "smtp", "password")):
-            node: Any = aud
+            node: Any = holder
             for part in path[:-1]:
                 node = node.get(part) if isinstance(node, dict) else None
             if isinstance(node, dict) and path[-1] in node:
-                where = ("delivery", "audiences", name) + path
+                where = ("delivery", "audiences") + prefix + path
                 env = ENV_PREFIX + "__".join(str(p).upper() for p in where)
                 issues.append(ConfigIssue(smap.find(where, key=True),
                                           f"{'.'.join(map(str, where))}: secrets do not belong "
@@ -230,6 +297,11 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     except ValidationError as exc:
         issues.extend(issues_from_validation(exc, smap, env_paths))
         raise ConfigError(issues) from None
+    except TreeIssues as exc:
+        for where, message in exc.issues:
+            issues.append(ConfigIssue(smap.find(where, key=True),
+                                      f"{'.'.join(map(str, where))}: {message}"))
+        raise ConfigError(issues) from None
     issues.extend(_rule_pack_name_issues(config, smap, p))
     issues.extend(window_issues(config, smap))
     if issues:
@@ -262,9 +334,22 @@ def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathl
                                       f"{where}: unknown rule pack {name!r}{hint}"))
 
     check(config.defaults.rule_packs, ("defaults", "rule_packs"))
+    inherited: set[tuple[str, ...]] = set()
+    for b_no, b in enumerate(config.buildings):
+        levels: list[tuple[tuple[str | int, ...], Any]] = [(("buildings", b_no), b)]
+        levels += [(("buildings", b_no, kind, f_no), f) for kind in ("floors", "areas")
+                   for f_no, f in enumerate(getattr(b, kind))]
+        for where, level in levels:
+            if level.rule_packs is not None:
+                check(level.rule_packs, (*where, "rule_packs"))
+                inherited.add(tuple(level.rule_packs))
+    for a_no, a in enumerate(config.areas):
+        if a.rule_packs is not None:
+            check(a.rule_packs, ("areas", a_no, "rule_packs"))
+            inherited.add(tuple(a.rule_packs))
     for i, space in enumerate(config.spaces):
-        if space.rule_packs is not None:
-            check(space.rule_packs, ("spaces", i, "rule_packs"))
+        if space.rule_packs is not None and tuple(space.rule_packs) not in inherited:
+            check(space.rule_packs, (*config.origin(i), "rule_packs"))
     return issues
 
 

@@ -3,7 +3,7 @@ evaluation cadence and the notification-flood guard, retention of the store, the
 
 from __future__ import annotations
 
-from pydantic import Field
+from pydantic import Field, model_validator
 
 from thermowarden.config.base import Strict
 
@@ -53,3 +53,15 @@ class WebConfig(Strict):
     port: int = Field(9480, ge=1, le=65535)
     users_file: str | None = None
     session_lifetime_s: float = Field(8 * 3600.0, ge=60, le=30 * 86_400)
+    sign_in_to_read: bool = False
+    """Every page and API call needs a signed-in user (otherwise only acting does)."""
+    public_url: str | None = Field(None, pattern=r"^https?://[^/\s]+(/\S*)?$")
+    """The page's address as people reach it (behind a proxy: https://comfort.example.org);
+    messages by webhook and e-mail link to each advisory's page under it (default: this
+    host and port, when the page is enabled)."""
+
+    @model_validator(mode="after")
+    def _readers(self) -> WebConfig:
+        if self.sign_in_to_read and self.users_file is None:
+            raise ValueError("sign_in_to_read needs a users_file (nobody could sign in)")
+        return self

@@ -104,14 +104,15 @@ class Ingestor:
         segments = topic.split("/")
         found: list[int] = []
         rejection: Rejection | None = None
-        for tmpl, spec, allowed in self.model.templates:
+        for k, (tmpl, spec, allowed) in enumerate(self.model.templates):
             values = tmpl.match(segments)
             if values is None:
                 continue
-            space = self.model.space_index.get(values["space"])
+            space = self.model.template_space(k, values)
             if space is None:
+                named = ", ".join(f"{p} {values[p][:40]!r}" for p in tmpl.tree_placeholders)
                 rejection = Rejection(UNKNOWN_SPACE, NO_POINT, topic,
-                                      f"no space {values['space'][:40]!r} in the site")
+                                      f"no space with {named} in the site")
                 continue
             if not template_applies(self.model, allowed, space, spec.quantity):
                 continue

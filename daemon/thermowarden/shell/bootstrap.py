@@ -121,6 +121,21 @@ def load_configuration(config_path: str, *, broker_url: str | None = None,
     return config, load_rule_packs(names, config.rule_dirs, base=config_path)
 
 
+def delivery_site(config: SiteConfig) -> tuple[dict[str, tuple[str | None, str]],
+                                                str | None]:
+    """For delivery: space id -> (building or area id, its place as people read it), and
+    the web page's address for links in messages."""
+    places: dict[str, tuple[str | None, str]] = {}
+    for s in config.spaces:
+        b = config.level_name("building", None, s.building)
+        lv = config.level_name("floor" if s.floor is not None else "area", s.building,
+                               s.floor or s.area)
+        places[s.id] = (s.building or s.area, " · ".join(x for x in (b, lv) if x))
+    web = config.web
+    url = web.public_url or (f"http://{web.host}:{web.port}" if web.enabled else None)
+    return places, url
+
+
 def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int | None = None,
               state_dir: str | None = None, shard: tuple[int, int] | None = None,
               spaces: list[str] | None = None, protocol: str | None = None,
@@ -233,10 +248,12 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
     # always there, so a reload can turn delivery on; idle without audiences
     delivery = Delivery(config.delivery, config.site.timezone, store.path,
                         registry=metrics.registry, now=clock.now)
+    delivery.set_site(*delivery_site(config))
     service = Service(engine, link, store, metrics, inbox, control, f"{prefix}/commands/",
                       f"{prefix}/replies", clock, delivery=delivery,
                       reloader=lambda old: prepare_reload(old, load),
                       per_space_subscriptions=shard is not None or bool(spaces))
+    service.reload_observers.append(lambda e: delivery.set_site(*delivery_site(e.config)))
     if group:
         assert config.group is not None
         service.group = Group(group, instance, config.group, lease_store(config.group, group),
@@ -246,8 +263,10 @@ def bootstrap(config_path: str, *, broker_url: str | None = None, http_port: int
         service.group.attach(service)
     web = None
     if config.web.enabled:
-        view, web = build_web(config, config_path, packs, inbox, store.path, clock.now)
+        view, web, follow = build_web(config, config_path, packs, inbox, store.path,
+                                      clock.now)
         service.observers.append(view.observe)
+        service.reload_observers.append(follow)
         web.start()
     http = None
     if http_port is not None:

@@ -12,6 +12,17 @@ and go out as one digest when they end; low-priority events are collected into a
 every ``low_priority_digest_s``. The waiting count (``thermowarden_delivery_pending``) is
 read from the table when asked.
 
+Around the workers: an audience may have recipients per building (or area), which receive
+the events of the spaces there besides the audience's own (a flood summary is split by
+building for them); each set of recipients is a route (:func:`delivery_routes`) and its
+rows carry the route as their audience, so each has its own workers. Every message links
+to the advisory's page when the site has one (``page`` in the webhook JSON, a line in the
+e-mail). An urgent alert that nobody acknowledges, shelves or clears within
+``escalation.after_s`` goes to the escalation recipients as an ``unacknowledged`` event
+(:class:`Escalations`): its timer is a row of the store's ``escalations`` table written in
+the same transaction as the event's deliveries, so a restart keeps it, and a step of the
+wall clock moves it by the step, so it still waits ``after_s`` of elapsed time.
+
 Webhook: ``POST`` of the event JSON signed by the open Standard Webhooks specification
 (standardwebhooks.com; its reference library signs): the headers ``webhook-id`` (the delivery
 id, the same on every retry, so a receiver can drop repeats), ``webhook-timestamp`` (epoch
@@ -38,6 +49,7 @@ import ssl
 import threading
 import time
 import urllib.error
+import urllib.parse
 import urllib.request
 import uuid
 from collections.abc import Callable
@@ -51,6 +63,7 @@ from thermowarden.config.delivery import (
     AudienceDelivery,
     DeliveryConfig,
     EmailConfig,
+    EscalationConfig,
     WebhookConfig,
 )
 from thermowarden.core.quiet_hours import QuietHours
@@ -59,6 +72,10 @@ from thermowarden.shell.store import DELIVERIES_SCHEMA, count_rows
 log = logging.getLogger("thermowarden.delivery")
 
 SCHEMA = DELIVERIES_SCHEMA
+ESCALATE_ON = frozenset({"raised", "escalated", "renotified"})
+"""Events of an urgent advisory that start its escalation timer (once)."""
+RESOLVED_BY = frozenset({"acknowledged", "shelved", "cleared", "deescalated"})
+"""Events that stop it: somebody took it on, or it is no longer urgent."""
 EVENT_SCHEMA = "thermowarden.event/1"
 SIGNATURE_HEADER = "webhook-signature"
 TIMESTAMP_HEADER = "webhook-timestamp"
@@ -148,8 +165,48 @@ def _quantity_text(value: Any, unit: Any) -> str:
     return f"{value}{unit}"
 
 
+GROUP_SHOWN = 5
+"""Spaces named per group of a summary e-mail (the rest are counted)."""
+
+
+def _summary_lines(items: list[dict[str, Any]]) -> list[str]:
+    """A summary's items grouped by rule and building: one block per group, most urgent
+    first, with its spaces and the links to their pages (the first few)."""
+    order = {"urgent": 0, "high": 1, "medium": 2, "low": 3}
+    groups: dict[tuple[str, str], list[dict[str, Any]]] = {}
+    for it in items:
+        groups.setdefault((str(it.get("rule", "")), str(it.get("place") or "")), []).append(it)
+    lines = []
+    for (rule, place), members in sorted(
+            groups.items(), key=lambda kv: (min(order.get(str(i.get("priority")), 4)
+                                                for i in kv[1]), kv[0])):
+        top = min(members, key=lambda i: order.get(str(i.get("priority")), 4))
+        spaces = sorted({str(i.get("space", "")) for i in members})
+        where = f" in {place}" if place else ""
+        lines.append(f"{top.get('priority', '')} {rule}{where}: {len(members)} "
+                     f"notification(s), {len(spaces)} space(s)")
+        lines.append(f"  {top.get('title', '')}")
+        for it in members[:GROUP_SHOWN]:
+            link = f" {it['page']}" if it.get("page") else ""
+            lines.append(f"  - {it.get('at', '')} {it.get('event', '')} {it.get('space', '')}"
+                         f"{link}")
+        if len(members) > GROUP_SHOWN:
+            more = sorted({str(i.get("space", "")) for i in members[GROUP_SHOWN:]})
+            shown = ", ".join(more[:20]) + (" ..." if len(more) > 20 else "")
+            lines.append(f"  - and {len(members) - GROUP_SHOWN} more: {shown}")
+        lines.append("")
+    return lines
+
+
 def render_text(payload: dict[str, Any]) -> tuple[str, str]:
     """(subject, body) of an event or digest for a person."""
+    if payload.get("event") == "report":
+        scope = f" for {payload['place']}" if payload.get("place") else ""
+        return (f"daily report {payload.get('day', '')}{scope}",
+                f"The thermal comfort and heat-stress report of {payload.get('day', '')}"
+                f"{scope} is attached ({payload.get('file', '')}).\n\nHeat-stress figures are "
+                "screening values; thermowarden is advisory only: follow local regulations "
+                "and consult a qualified occupational hygienist.")
     if payload.get("event") == "notice":
         # an integrator notice about the service itself (no advisory)
         kind = str(payload.get("kind", "")).replace("_", " ")
@@ -162,23 +219,29 @@ def render_text(payload: dict[str, Any]) -> tuple[str, str]:
         return f"thermowarden notice: {kind}", "\n".join(lines)
     if payload.get("event") == "summary":
         items = payload.get("items", [])
+        scope = f" in {payload['place']}" if payload.get("place") else ""
         subject = f"{payload.get('count', len(items))} notification(s) for " \
-                  f"{payload.get('audience', '')}"
-        lines = [payload.get("note", ""), ""]
-        for it in items:
-            lines.append(f"- {it.get('at', '')} {it.get('priority', '')} {it.get('event', '')}: "
-                         f"{it.get('title', '')} ({it.get('space', '')}, "
-                         f"{it.get('advisory_id', '')})")
+                  f"{payload.get('audience', '')}{scope}"
+        lines = [payload.get("note", ""), ""] + _summary_lines(items)
+        if payload.get("page"):
+            lines.append(f"Live advisories: {payload['page']}")
         lines += ["", "thermowarden is advisory only."]
         return subject, "\n".join(lines)
     adv = payload.get("advisory", {})
     space = adv.get("space", {})
     subject = f"{adv.get('priority', '')} {payload.get('event', '')}: {adv.get('title', '')}"
     event = payload.get("event", "")
+    place = f", {payload['place']}" if payload.get("place") else ""
     lines = [f"{adv.get('title', '')}", "",
-             f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')})",
+             f"Space: {space.get('name', space.get('id', ''))} ({space.get('id', '')}{place})",
              f"Event: {event} at {payload.get('at', '')}",
              f"Priority: {adv.get('priority', '')}", ""]
+    if payload.get("page"):
+        lines[1:1] = [f"Page: {payload['page']}", ""]
+    if event == "unacknowledged":
+        lines += [f"Nobody has acknowledged this urgent alert since {adv.get('raised_at', '')}"
+                  f" ({payload.get('waited_s', 0) / 60:.0f} minutes). You receive it as the "
+                  "next person to act on it.", ""]
     numbers = adv.get("numbers") or {}
     shown_at = adv.get("numbers_at")
     if event == "cleared":
@@ -235,6 +298,14 @@ def send_email(cfg: EmailConfig, payload: dict[str, Any], delivery_id: str,
     msg["Date"] = email.utils.formatdate(now, usegmt=True)
     msg["Message-ID"] = f"<{delivery_id}@thermowarden>"
     msg.set_content(text)
+    if payload.get("event") == "report" and payload.get("path"):
+        try:
+            html_text = pathlib.Path(str(payload["path"])).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise DeliveryFailed(f"the report file cannot be read: {exc}",
+                                 permanent=True) from None
+        msg.add_attachment(html_text, subtype="html", charset="utf-8",
+                           filename=str(payload.get("file", "report.html")))
     smtp = cfg.smtp
     password = _secret(smtp.password, smtp.password_file)
     try:
@@ -275,6 +346,8 @@ class _Row:
 
 
 def _priority(payload: dict[str, Any]) -> str:
+    if payload.get("event") == "report":
+        return "urgent"  # sent when written: never held for quiet hours or a digest
     adv = payload.get("advisory")
     if isinstance(adv, dict) and isinstance(adv.get("priority"), str):
         return str(adv["priority"])
@@ -314,19 +387,30 @@ class Delivery:
                                "Deliveries stored and not yet sent (held or pending), "
                                "counted in the store", registry=r)
         self.m_pending.set_function(lambda: count_rows(self.db_path, PENDING_COUNT))
+        self.places: dict[str, tuple[str | None, str]] = {}
+        self.page_url: str | None = None
+        self.escalations = Escalations(self)
 
     def _configure(self, config: DeliveryConfig, timezone: str) -> None:
+        routes = delivery_routes(config)
         with self.lock:
             self.config = config
+            self.routes = routes
             self.quiet: dict[str, QuietHours] = {
                 a: QuietHours.parse(d.quiet_hours, timezone)
-                for a, d in config.audiences.items() if d.quiet_hours}
+                for a, d in routes.items() if d.quiet_hours}
 
     def _audience(self, name: str) -> AudienceDelivery | None:
-        for key, aud in self.config.audiences.items():
-            if key == name:
-                return aud
-        return None
+        """The recipients of a route: an audience, ``audience@building``, or an escalation
+        (``audience!escalation``, ``audience@building!escalation``)."""
+        return self.routes.get(name)
+
+    def set_site(self, places: dict[str, tuple[str | None, str]],
+                 page_url: str | None) -> None:
+        """Space id -> (building or area id, "North Building · First floor"), and the web
+        page's address for links (None: no links). Called at start and after a reload."""
+        self.places = places
+        self.page_url = page_url.rstrip("/") if page_url else None
 
     def reconfigure(self, config: DeliveryConfig, timezone: str) -> None:
         """Take a reloaded configuration; stored deliveries stay and follow the new one."""
@@ -337,18 +421,83 @@ class Delivery:
 
     # ------------------------------------------------------------------ engine thread
     def wanted(self, audience: str, payload: dict[str, Any]) -> bool:
-        aud = self._audience(audience)
-        return aud is not None and payload.get("event") in aud.events
+        """Some recipients (the audience's or its building's) want this event."""
+        return bool(self.routed(audience, payload))
 
     def stage(self, db: sqlite3.Connection, audience: str, payload: dict[str, Any],
               now: float) -> bool:
-        """Store the deliveries of one event (a row per configured channel, held or
-        pending) through ``db``, inside the caller's transaction (the engine thread's,
-        which also holds the event's outbox row). Returns True when rows were written:
-        call :meth:`wake` once the transaction is committed. An event not wanted by the
-        audience is skipped; beyond ``delivery.queue_size`` waiting deliveries it is not
-        stored (counted and logged; it was still published over MQTT)."""
-        aud = self._audience(audience)
+        """Store the deliveries of one event through ``db``, inside the caller's
+        transaction (the engine thread's, which also holds the event's outbox row): a row
+        per channel of every route that wants it (:meth:`routed`: the audience's
+        recipients and those of the space's building), held or pending; an urgent alert
+        also starts (and a later event of it stops) its escalation timer in the same
+        transaction. Returns True when delivery rows were written: call :meth:`wake` once
+        the transaction is committed. Beyond ``delivery.queue_size`` waiting deliveries an
+        event is not stored (counted and logged; it was still published over MQTT)."""
+        if audience not in self.config.audiences and audience not in self.routes:
+            return False
+        self.escalations.observe(db, audience, payload, now)
+        stored = False
+        for route, part in self.routed(audience, payload):
+            stored = self._stage_route(db, route, part, now) or stored
+        return stored
+
+    def routed(self, audience: str, payload: dict[str, Any]
+               ) -> list[tuple[str, dict[str, Any]]]:
+        """(route, payload as sent) for every set of recipients that wants this event of
+        ``audience``: the audience's own and its space's building's (a summary split by
+        building), each payload with its page link and place. Pure: :meth:`stage` stores
+        the result."""
+        payload = self._enrich(payload)
+        out = []
+        for route, part in self._split(audience, payload):
+            aud = self._audience(route)
+            if aud is not None and part.get("event") in aud.events:
+                out.append((route, part))
+        return out
+
+    def offer_report(self, day: str, site_file: pathlib.Path,
+                     building_files: dict[str, pathlib.Path]) -> int:
+        """The daily reports, to every audience (and building) whose ``events`` list
+        ``report``: the site's to the audience's recipients, each building's to its own
+        (any thread; one transaction of its own). Returns how many routes got one."""
+        parts: list[tuple[str, dict[str, Any]]] = []
+        for route, aud in list(self.routes.items()):
+            if "report" not in aud.events or "!" in route:
+                continue
+            audience, _, building = route.partition("@")
+            file = building_files.get(building) if building else site_file
+            if file is None:
+                continue
+            payload = {"schema": EVENT_SCHEMA, "event": "report", "at": _iso(self.now()),
+                       "audience": audience, "day": day, "file": file.name,
+                       "path": str(file)}
+            if building:
+                payload["place"] = self.places_label(building)
+            parts.append((route, payload))
+        if not parts:
+            return 0
+        db = self._connect()
+        try:
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                now = self.now()
+                stored = sum(self._stage_route(db, route, payload, now)
+                             for route, payload in parts)
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        finally:
+            db.close()
+        if stored:
+            self.wake()
+        return stored
+
+    def _stage_route(self, db: sqlite3.Connection, route: str, payload: dict[str, Any],
+                     now: float) -> bool:
+        """The rows of one route (``audience=route``), inside the caller's transaction."""
+        aud = self._audience(route)
         if aud is None or payload.get("event") not in aud.events:
             return False
         waiting = int(db.execute(PENDING_COUNT).fetchone()[0])
@@ -356,10 +505,10 @@ class Delivery:
             self.m_overflow.inc()
             log.error("%d deliveries already wait: an event for %s was not stored for "
                       "delivery (it was published over MQTT); delivery.queue_size is %d",
-                      waiting, audience, self.config.queue_size)
+                      waiting, route, self.config.queue_size)
             return False
         prio = _priority(payload)
-        state, due = self._placement(audience, aud, prio, now)
+        state, due = self._placement(route, aud, prio, now)
         text = json.dumps(payload)
         stored = False
         for channel in CHANNELS:
@@ -367,7 +516,7 @@ class Delivery:
                 continue
             db.execute("INSERT INTO deliveries(id, audience, channel, state, priority, due, "
                        "created, payload) VALUES(?, ?, ?, ?, ?, ?, ?, ?)",
-                       (uuid.uuid4().hex, audience, channel, state, prio, due, now, text))
+                       (uuid.uuid4().hex, route, channel, state, prio, due, now, text))
             if state == "held":
                 self.m_sent.labels(channel=channel, outcome="held").inc()
             stored = True
@@ -392,23 +541,101 @@ class Delivery:
         return stored
 
     def wake(self) -> None:
-        """Tell every worker to look at the table now (after rows were committed)."""
+        """Tell every worker (and the escalation timers) to look at the tables now (after
+        rows were committed)."""
         with self.lock:
             workers = list(self.workers.values())
         for w in workers:
             w.wake.set()
+        self.escalations.wake.set()
+
+    def clock_stepped(self, step_s: float) -> None:
+        """The wall clock was stepped by ``step_s`` (the shell measured it against the
+        monotonic clock): the escalation timers move by it, so each still waits its
+        ``after_s`` of elapsed time."""
+        db = self._connect()
+        try:
+            db.execute("UPDATE escalations SET since = since + ?, due = due + ? "
+                       "WHERE state = 'waiting'", (step_s, step_s))
+        finally:
+            db.close()
+        self.escalations.wake.set()
+
+    def _page(self, advisory_id: str | None) -> str | None:
+        if not self.page_url or not advisory_id:
+            return None
+        return f"{self.page_url}/advisories/{urllib.parse.quote(advisory_id, safe='')}"
+
+    def _enrich(self, payload: dict[str, Any]) -> dict[str, Any]:
+        """A copy with the link to the advisory's page (and its place, for people); the
+        MQTT event is left as it is."""
+        if not self.page_url and not self.places:
+            return payload
+        out = dict(payload)
+        if payload.get("event") == "summary":
+            items = []
+            for it in payload.get("items", []):
+                it = dict(it)
+                place = self.places.get(str(it.get("space")))
+                if place is not None:
+                    it["place"] = place[1]
+                page = self._page(it.get("advisory_id"))
+                if page:
+                    it["page"] = page
+                items.append(it)
+            out["items"] = items
+            if self.page_url:
+                out["page"] = self.page_url + "/"
+            return out
+        adv = payload.get("advisory")
+        if isinstance(adv, dict):
+            page = self._page(adv.get("id"))
+            if page:
+                out["page"] = page
+            place = self.places.get(str((adv.get("space") or {}).get("id")))
+            if place is not None and place[1]:
+                out["place"] = place[1]
+        return out
+
+    def _split(self, audience: str, payload: dict[str, Any]
+               ) -> list[tuple[str, dict[str, Any]]]:
+        """(route, payload) for the audience and the buildings concerned; a summary goes
+        whole to the audience and by building to each building's recipients."""
+        out: list[tuple[str, dict[str, Any]]] = [(audience, payload)]
+        if payload.get("event") == "summary":
+            parts: dict[str, list[dict[str, Any]]] = {}
+            for it in payload.get("items", []):
+                b = self.places.get(str(it.get("space")), (None, ""))[0]
+                if b is not None and f"{audience}@{b}" in self.routes:
+                    parts.setdefault(b, []).append(it)
+            for b, items in parts.items():
+                out.append((f"{audience}@{b}", {
+                    **payload, "items": items, "count": len(items),
+                    "place": self.places_label(b)}))
+            return out
+        adv = payload.get("advisory")
+        if isinstance(adv, dict):
+            b = self.places.get(str((adv.get("space") or {}).get("id")), (None, ""))[0]
+            if b is not None and f"{audience}@{b}" in self.routes:
+                out.append((f"{audience}@{b}", payload))
+        return out
+
+    def places_label(self, building: str) -> str:
+        label = next((p[1] for p in self.places.values() if p[0] == building), building)
+        return label.split(" · ")[0]
 
     # ------------------------------------------------------------------ workers
     def start(self) -> None:
-        """Start a worker for every configured receiver and every receiver that still
-        has rows waiting in the store (removed from the configuration: they are marked
-        failed)."""
+        """Start a worker for every configured receiver (each route's webhook and e-mail)
+        and every receiver that still has rows waiting in the store (removed from the
+        configuration: they are marked failed), and the escalation timers' thread."""
         self.started = True
         self._ensure_workers()
+        self.escalations.start()
 
     def _ensure_workers(self) -> None:
         targets: set[tuple[str, str]] = {
-            (str(a), c) for a, aud in self.config.audiences.items() for c in CHANNELS
+            (route, c) for route, aud in self.routes.items() for c in CHANNELS
             if getattr(aud, c) is not None}
         db = self._connect()
         try:
@@ -424,8 +651,9 @@ class Delivery:
                 worker.thread.start()
 
     def stop(self, timeout: float = 10.0) -> None:
-        """Stop the workers (an attempt under way is waited for up to ``timeout`` s in
-        all); what is not sent stays stored for the next start."""
+        """Stop the escalation timers and the workers (an attempt under way is waited for
+        up to ``timeout`` s in all); what is not sent stays stored for the next start."""
+        self.escalations.stop(timeout)
         self.stopping.set()
         self.wake()
         deadline = time.monotonic() + timeout
@@ -645,3 +873,155 @@ def _digest(audience: str, payloads: list[dict[str, Any]], now: float) -> dict[s
             "count": len(items), "items": items,
             "note": f"{len(items)} notification(s) held for quiet hours or the low-priority "
                     "digest, sent together"}
+
+
+def delivery_routes(config: DeliveryConfig) -> dict[str, AudienceDelivery]:
+    """Every set of recipients by route name: ``safety`` (the audience's own, when it has
+    any), ``safety@north`` (a building's: the audience's events, quiet hours and digest),
+    ``safety!escalation`` and ``safety@north!escalation`` (unacknowledged urgent alerts:
+    sent at once)."""
+    routes: dict[str, AudienceDelivery] = {}
+
+    def escalation(esc: EscalationConfig) -> AudienceDelivery:
+        return AudienceDelivery(webhook=esc.webhook, email=esc.email,
+                                events=["unacknowledged"], low_priority_digest_s=0)
+
+    for name, aud in config.audiences.items():
+        if aud.webhook is not None or aud.email is not None:
+            routes[name] = aud
+        if aud.escalation is not None:
+            routes[f"{name}!escalation"] = escalation(aud.escalation)
+        for b, rec in aud.buildings.items():
+            routes[f"{name}@{b}"] = AudienceDelivery(
+                webhook=rec.webhook, email=rec.email, events=aud.events,
+                quiet_hours=aud.quiet_hours, low_priority_digest_s=aud.low_priority_digest_s)
+            if rec.escalation is not None:
+                routes[f"{name}@{b}!escalation"] = escalation(rec.escalation)
+    return routes
+
+
+class Escalations:
+    """Timers of urgent alerts nobody has acknowledged yet, kept in the store's table
+    ``escalations``. :meth:`observe` writes and removes them in the transaction that stores
+    the event's deliveries (the engine thread's); a thread of their own fires the due ones:
+    in one transaction it stores the ``unacknowledged`` event's deliveries for the
+    escalation recipients (of the space's building, else of the audience) and marks the
+    timer sent. Times are on the service clock (epoch s); :meth:`Delivery.clock_stepped`
+    moves waiting timers by a step of the wall clock."""
+
+    def __init__(self, delivery: Delivery) -> None:
+        self.delivery = delivery
+        self.wake = threading.Event()
+        self.stopping = threading.Event()
+        self.thread: threading.Thread | None = None
+
+    def observe(self, db: sqlite3.Connection, audience: str, payload: dict[str, Any],
+                now: float) -> None:
+        """An event of ``audience`` being stored (inside the caller's transaction): an
+        urgent alert starts its timer (once), acknowledging, shelving, clearing or
+        de-escalating it removes the timer."""
+        event = payload.get("event")
+        adv = payload.get("advisory")
+        if event not in ESCALATE_ON | RESOLVED_BY or not isinstance(adv, dict) \
+                or not adv.get("id"):
+            return
+        if event in RESOLVED_BY:
+            db.execute("DELETE FROM escalations WHERE advisory_id = ?", (str(adv["id"]),))
+            return
+        if adv.get("priority") != "urgent":
+            return
+        building = self.delivery.places.get(str((adv.get("space") or {}).get("id")),
+                                            (None, ""))[0]
+        route = self._route(audience, building)
+        if route is None:
+            return
+        db.execute("INSERT OR IGNORE INTO escalations(advisory_id, route, since, due, "
+                   "state, payload) VALUES(?, ?, ?, ?, 'waiting', ?)",
+                   (str(adv["id"]), route[0], now, now + route[1], json.dumps(payload)))
+
+    def start(self) -> None:
+        if self.thread is not None:
+            return
+        self.thread = threading.Thread(target=self._run, name="thermowarden-escalation",
+                                       daemon=True)
+        self.thread.start()
+
+    def stop(self, timeout: float = 10.0) -> None:
+        self.stopping.set()
+        self.wake.set()
+        if self.thread is not None:
+            self.thread.join(timeout)
+
+    def _route(self, audience: str, building: str | None) -> tuple[str, float] | None:
+        """The escalation route of an alert and its delay, or None when there is none."""
+        aud = self.delivery.config.audiences.get(audience)  # type: ignore[call-overload]
+        if aud is None:
+            return None
+        rec = aud.buildings.get(building) if building is not None else None
+        if rec is not None and rec.escalation is not None:
+            return f"{audience}@{building}!escalation", rec.escalation.after_s
+        if aud.escalation is not None:
+            return f"{audience}!escalation", aud.escalation.after_s
+        return None
+
+    def _run(self) -> None:
+        db = self.delivery._connect()
+        try:
+            while not self.stopping.is_set():
+                self.wake.clear()
+                wait = self._fire(db)
+                self.wake.wait(wait)
+        except Exception:  # noqa: BLE001 - must not take the service down
+            log.exception("escalation timers failed; they wait in the store for the next "
+                          "start")
+        finally:
+            db.close()
+
+    def _fire(self, db: sqlite3.Connection) -> float:
+        """Store the due ones' deliveries; how long to wait for the next."""
+        delivery = self.delivery
+        now = delivery.now()
+        rows = db.execute("SELECT advisory_id, route, since, payload FROM escalations WHERE "
+                          "state = 'waiting' AND due <= ? ORDER BY due", (now,)).fetchall()
+        fired = False
+        for advisory_id, route, since, text in rows:
+            if self.stopping.is_set():
+                break
+            db.execute("BEGIN IMMEDIATE")
+            try:
+                try:
+                    first = json.loads(text)
+                    if not isinstance(first, dict):
+                        raise ValueError("not a JSON object")
+                except (ValueError, RecursionError) as exc:
+                    log.error("escalation of advisory %s dropped: damaged record (%s)",
+                              advisory_id, exc)
+                    db.execute("DELETE FROM escalations WHERE advisory_id = ?",
+                               (advisory_id,))
+                    db.execute("COMMIT")
+                    continue
+                waited = now - since
+                payload = delivery._enrich({**first, "event": "unacknowledged",
+                                            "at": _iso(now), "waited_s": round(waited)})
+                if delivery._audience(route) is None:
+                    db.execute("DELETE FROM escalations WHERE advisory_id = ?",
+                               (advisory_id,))
+                    log.error("escalation of urgent advisory %s dropped: its recipients "
+                              "(%s) are no longer configured", advisory_id, route)
+                elif delivery._stage_route(db, route, payload, now):
+                    db.execute("UPDATE escalations SET state = 'sent' WHERE advisory_id = ?",
+                               (advisory_id,))
+                    fired = True
+                    log.warning("urgent advisory %s not acknowledged after %.0f s: sent to %s",
+                                advisory_id, waited, route)
+            except BaseException:
+                db.execute("ROLLBACK")
+                raise
+            db.execute("COMMIT")
+        if fired:
+            delivery.wake()
+        nxt = db.execute("SELECT MIN(due) FROM escalations WHERE state = 'waiting'"
+                         ).fetchone()[0]
+        if nxt is None:
+            return IDLE_WAIT_S
+        return max(0.0, min(IDLE_WAIT_S, float(nxt) - delivery.now()))

@@ -37,6 +37,7 @@ from typing import Any
 
 from apscheduler.triggers.cron import CronTrigger
 
+from thermowarden.config import SiteConfig
 from thermowarden.core.payloads import RECORD_ABSENT
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
@@ -219,8 +220,12 @@ class Service:
         self.failures_seen: set[tuple[int, str]] = set()
         self.observers: list[Callable[[list[Effect]], None]] = []
         """Called with every batch of executed effects (the web page's live view)."""
+        self.reload_observers: list[Callable[[Engine], None]] = []
+        """Called with the new engine after every reload (the web page's site directory)."""
         self.group: Group | None = None
         """One instance of a group sharing the site's spaces (``run --group``)."""
+        self.report_thread: threading.Thread | None = None
+        """The daily report being written (never on the engine thread)."""
 
     # ------------------------------------------------------------------ health
     def alive(self) -> bool:
@@ -302,17 +307,19 @@ class Service:
             direction = "forward" if drift > 0 else "backward"
             self.metrics.clock_steps.labels(direction=direction).inc()
             log.warning("the wall clock stepped %s by %.0f s; timestamps follow it, "
-                        "durations (shelving, delays, reminders, schedules, outbox expiry) "
-                        "are kept by the monotonic clock", direction, abs(drift))
+                        "durations (shelving, delays, reminders, schedules, outbox expiry, "
+                        "escalation timers) are kept by the monotonic clock", direction, abs(drift))
         else:
             log.info("the wall clock moved %.1f s against the monotonic clock", drift)
         self.engine_clock_stepped(now, drift)
         return now
 
     def engine_clock_stepped(self, now: float, drift: float) -> None:
-        """Move the engine's timers and the outbox's expiry by a step of the wall clock,
-        and store the advisories' moved timers."""
+        """Move the engine's timers, the outbox's expiry and the escalation timers by a step
+        of the wall clock, and store the advisories' moved timers."""
         self.store.outbox_rebase(drift)
+        if self.delivery is not None:
+            self.delivery.clock_stepped(drift)
         hook = getattr(self.engine, "clock_stepped", None)
         if hook is not None:
             effects = hook(now, drift)
@@ -786,7 +793,7 @@ class Service:
             self.execute(self.engine.digest(now, self.last_digest))
             self.last_digest = now
         elif name == "report":
-            self.daily_report(now)
+            self._report_off_thread(now)
         elif name == "step":
             while self._drain():  # every message received before the step is taken in
                 pass
@@ -844,6 +851,8 @@ class Service:
             self.engine = result.engine
             for note in result.notes:
                 log.info("%s", note)
+            for observer in self.reload_observers:
+                observer(result.engine)
             self.execute(result.effects)
             config = result.engine.config
             if self.group is not None:
@@ -861,27 +870,54 @@ class Service:
             self.reloading.clear()
             self.notify("READY=1")
 
-    def daily_report(self, now: float) -> pathlib.Path:
-        """Write yesterday's report (local calendar day) next to the store."""
+    def _report_off_thread(self, now: float) -> None:
+        """Start yesterday's report on a thread of its own: it reads the store through its
+        own connection, so the engine thread goes on ticking (a day of 10,000 spaces takes
+        tens of seconds)."""
+        running = self.report_thread
+        if running is not None and running.is_alive():
+            log.warning("the daily report is still being written; this one is skipped")
+            return
+        config, path = self.engine.config, self.store.path
+
+        def work() -> None:
+            try:
+                self.daily_report(now, config, path)
+            except Exception:  # noqa: BLE001 - a failed report must not stop the service
+                self.metrics.job_errors.labels(job="report", kind="error").inc()
+                log.exception("the daily report failed")
+
+        self.report_thread = threading.Thread(target=work, name="thermowarden-report",
+                                              daemon=True)
+        self.report_thread.start()
+
+    def daily_report(self, now: float, config: SiteConfig | None = None,
+                     store_path: pathlib.Path | None = None) -> pathlib.Path:
+        """Write yesterday's reports (local calendar day) next to the store: the site's,
+        and one per building or area; returns the site's. Reads the store through a
+        connection of its own (any thread)."""
         import datetime as dt
+        import zoneinfo
 
-        from thermowarden.report import build_report, render_html
+        from thermowarden.report import write_reports
 
-        tz = self.engine.state.tz
+        config = config or self.engine.config
+        store_path = store_path or self.store.path
+        tz = zoneinfo.ZoneInfo(config.site.timezone)
         today = dt.datetime.fromtimestamp(now, tz).date()
         day = today - dt.timedelta(days=1)
         start = dt.datetime.combine(day, dt.time(0), tz).timestamp()
         end = dt.datetime.combine(today, dt.time(0), tz).timestamp()
-        config = self.engine.config
-        text = render_html(config, build_report(
-            config, self.store.samples_between(start, end),
-            self.store.events_between(start - 7 * 86_400, end), start, end), start, end)
-        folder = self.store.path.parent / "reports"
-        folder.mkdir(parents=True, exist_ok=True)
-        path = folder / f"{config.site.id}-{day.isoformat()}.html"
-        path.write_text(text, encoding="utf-8")
-        log.info("daily report written to %s", path)
-        return path
+        began = time.monotonic()
+        written = write_reports(config, store_path, store_path.parent / "reports", start, end,
+                                day.isoformat())
+        log.info("daily report written to %s (%d file(s), %.1f s)", written[0], len(written),
+                 time.monotonic() - began)
+        if self.delivery is not None:
+            stem = f"{config.site.id}-{day.isoformat()}-"
+            parts = {p.name[len(stem):-len(".html")]: p for p in written[1:]}
+            self.delivery.offer_report(day.isoformat(), written[0], parts)
+        return written[0]
 
     def run(self) -> None:
         """The engine thread: runs until :meth:`request_stop`; then stops in order."""

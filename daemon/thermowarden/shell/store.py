@@ -73,10 +73,18 @@ CREATE TABLE IF NOT EXISTS deliveries (
     error TEXT
 );
 CREATE INDEX IF NOT EXISTS deliveries_due ON deliveries(state, due);
+CREATE TABLE IF NOT EXISTS escalations (
+    advisory_id TEXT PRIMARY KEY,
+    route TEXT NOT NULL,          -- where it goes when due: <audience>[@building]!escalation
+    since REAL NOT NULL,          -- when the urgent alert was seen (service clock)
+    due REAL NOT NULL,
+    state TEXT NOT NULL,          -- waiting, sent
+    payload TEXT NOT NULL
+);
 """
 """Deliveries by webhook and e-mail (:mod:`thermowarden.shell.delivery`): written by the
 engine thread in the same transaction as the event's outbox row, sent and removed by the
-delivery workers."""
+delivery workers; with them the escalation timers of urgent alerts."""
 
 OUTBOX_COUNT = "SELECT COUNT(*) FROM outbox"
 MOVE_ASIDE_HINT = ("start once with --move-damaged-store to keep it aside as "

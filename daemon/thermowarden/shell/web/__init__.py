@@ -7,6 +7,7 @@ import pathlib
 from collections.abc import Callable, Mapping
 
 from thermowarden.config import SiteConfig
+from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack
 from thermowarden.shell.mqtt_link import Inbox
 from thermowarden.shell.web.app import CommandBridge, WebContext, WebServer, create_app
@@ -27,15 +28,34 @@ def users_path(config: SiteConfig, config_path: str | os.PathLike[str]) -> pathl
 
 def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
               packs: Mapping[str, CompiledPack], inbox: Inbox, store_path: pathlib.Path,
-              now: Callable[[], float]) -> tuple[LiveView, WebServer]:
-    """The live view (for the engine thread to feed) and the server (not yet started).
+              now: Callable[[], float]
+              ) -> tuple[LiveView, WebServer, Callable[[Engine], None]]:
+    """The live view (for the engine thread to feed), the server (not yet started) and
+    what a reload calls with the new engine (the page then follows the new site).
     A bad users file raises :class:`thermowarden.config.ConfigError`."""
     path = users_path(config, config_path)
-    sessions = Sessions(load_users(path), config.web.session_lifetime_s) if path else None
+    sessions = None
+    if path:
+        users = load_users(path)
+        places = {x for s in config.spaces for x in (s.building, s.area) if x}
+        wrong = [f"{path}: user {u.name!r} names building {b!r}, which the site does not have"
+                 f" (known: {', '.join(sorted(places)) or 'none'})"
+                 for u in users.values() for b in (u.buildings or []) if b not in places]
+        if wrong:
+            from thermowarden.config import ConfigError, ConfigIssue
+
+            raise ConfigError([ConfigIssue(None, w) for w in wrong])
+        sessions = Sessions(users, config.web.session_lifetime_s, store=store_path)
     limits = {rule.key: float(rule.config.max_shelve_s) for pack in packs.values()
               for rule in pack.rules}
     directory = SiteDirectory.build(config, limits)
     view = LiveView(config.output.prefix)
     ctx = WebContext(directory, view, StoreReader(store_path), sessions,
-                     CommandBridge(inbox, f"{config.output.prefix}/commands/", now), now)
-    return view, WebServer(create_app(ctx), config.web.host, config.web.port)
+                     CommandBridge(inbox, f"{config.output.prefix}/commands/", now), now,
+                     read_needs_sign_in=config.web.sign_in_to_read)
+
+    def follow(engine: Engine) -> None:
+        ctx.follow(SiteDirectory.build(engine.config, {
+            rt.rule.key: float(rt.rule.config.max_shelve_s) for rt in engine.rules}))
+
+    return view, WebServer(create_app(ctx), config.web.host, config.web.port), follow

@@ -18,6 +18,7 @@ import math
 import threading
 import uuid
 import zoneinfo
+from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
@@ -98,10 +99,17 @@ class WebContext:
     sessions: Sessions | None
     bridge: CommandBridge
     now: Callable[[], float]
+    read_needs_sign_in: bool = False
 
     @property
     def tz(self) -> dt.tzinfo:
         return zoneinfo.ZoneInfo(self.directory.timezone)
+
+    def follow(self, directory: SiteDirectory) -> None:
+        """A reload's site (called on the engine thread): the web thread's next request
+        reads the new directory, and the view forgets spaces that are gone."""
+        self.directory = directory
+        self.view.keep_only(set(directory.by_id))
 
 
 class BadRequest(ValueError):
@@ -223,6 +231,11 @@ def create_app(ctx: WebContext) -> Starlette:
         if advisory["audience"] not in session.user.audiences:
             return 403, {"error": f"{session.user.name} may not act on advisories for "
                                   f"{advisory['audience']}"}
+        space = ctx.directory.space(advisory["space"]["id"])
+        place = (space.building or space.area) if space is not None else None
+        if not session.user.may_act(advisory["audience"], place):
+            return 403, {"error": f"{session.user.name} may not act on advisories of "
+                                  f"{place or 'spaces outside their buildings'}"}
         body = command_body(verb, advisory, session.user.name, fields)
         reply = ctx.bridge.submit(verb, body, advisory["audience"], session.user.name)
         if reply is None:
@@ -234,9 +247,9 @@ def create_app(ctx: WebContext) -> Starlette:
 
     # ------------------------------------------------------------------ pages
     async def overview(request: Request) -> Response:
-        conditions = {s.id: ctx.view.conditions_of(s.id) for s in ctx.directory.spaces}
-        html = pages.overview(ctx.directory, conditions, ctx.view.live(),
-                              cookie_session(request), ctx.tz)
+        filters = pages.Filters.parse(request.query_params)
+        html = pages.overview(ctx.directory, ctx.view.conditions_of, ctx.view.live(),
+                              cookie_session(request), ctx.tz, filters)
         return HTMLResponse(html)
 
     async def space_page(request: Request) -> Response:
@@ -339,15 +352,16 @@ def create_app(ctx: WebContext) -> Starlette:
         return JSONResponse(doc)
 
     async def api_spaces(request: Request) -> Response:
-        live = ctx.view.live()
+        live = Counter(a["space"]["id"] for a in ctx.view.live())
         out = []
         for s in ctx.directory.spaces:
             c = ctx.view.conditions_of(s.id)
             out.append({"id": s.id, "name": s.name, "kind": s.kind, "hot_work": s.hot_work,
-                        "ventilation": s.ventilation,
+                        "ventilation": s.ventilation, "building": s.building,
+                        "floor": s.floor, "area": s.area,
                         "conditions_at": c["at"] if c else None,
                         "occupied": bool(c["occupied"]) if c else None,
-                        "live_advisories": sum(1 for a in live if a["space"]["id"] == s.id)})
+                        "live_advisories": live.get(s.id, 0)})
         return JSONResponse({"site": ctx.directory.site_id, "spaces": out})
 
     async def api_conditions(request: Request) -> Response:
@@ -470,20 +484,41 @@ def create_app(ctx: WebContext) -> Starlette:
             return result
         return handler
 
+    def reader(handler: Callable[[Request], Any], api: bool) -> Callable[[Request], Any]:
+        """A read that needs a signed-in user when ``web.sign_in_to_read`` is set: a page
+        sends to the sign-in form, an API call answers 401."""
+        if not ctx.read_needs_sign_in:
+            return handler
+
+        async def gated(request: Request) -> Response:
+            who = cookie_session(request) or bearer_session(request)
+            if who is None:
+                if api:
+                    return _error(401, "sign in first (POST /api/session) and send "
+                                       "'Authorization: Bearer <token>'",
+                                  {"WWW-Authenticate": "Bearer"})
+                here = request.url.path + (f"?{request.url.query}" if request.url.query
+                                           else "")
+                return RedirectResponse(f"/login?next={quote(here, safe='')}",
+                                        status_code=303)
+            result: Response = await handler(request)
+            return result
+        return gated
+
     routes = [
-        Route("/", overview),
-        Route("/spaces/{space_id}", space_page),
-        Route("/advisories/{advisory_id}", advisory_page),
+        Route("/", reader(overview, False)),
+        Route("/spaces/{space_id}", reader(space_page, False)),
+        Route("/advisories/{advisory_id}", reader(advisory_page, False)),
         Route("/login", by_method(GET=login_get, POST=login_post), methods=["GET", "POST"]),
         Route("/logout", logout, methods=["POST"]),
         Route("/advisories/{advisory_id}/{verb}", page_command, methods=["POST"]),
         Route("/api/openapi.json", api_openapi),
-        Route("/api/spaces", api_spaces),
-        Route("/api/spaces/{space_id}/conditions", api_conditions),
-        Route("/api/spaces/{space_id}/history", api_history),
-        Route("/api/advisories", api_advisories),
-        Route("/api/advisories/{advisory_id}", api_advisory),
-        Route("/api/events", api_events),
+        Route("/api/spaces", reader(api_spaces, True)),
+        Route("/api/spaces/{space_id}/conditions", reader(api_conditions, True)),
+        Route("/api/spaces/{space_id}/history", reader(api_history, True)),
+        Route("/api/advisories", reader(api_advisories, True)),
+        Route("/api/advisories/{advisory_id}", reader(api_advisory, True)),
+        Route("/api/events", reader(api_events, True)),
         Route("/api/session", by_method(POST=api_session_post, DELETE=api_session_delete),
               methods=["POST", "DELETE"]),
     ] + [Route(f"/api/advisories/{{advisory_id}}/{verb}", api_command(verb), methods=["POST"])

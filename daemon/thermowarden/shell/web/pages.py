@@ -9,9 +9,11 @@ import base64
 import datetime as dt
 import hashlib
 import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from html import escape
 from typing import Any
-from urllib.parse import quote
+from urllib.parse import quote, urlencode
 
 from thermowarden.shell.web import plots
 from thermowarden.shell.web.live import SiteDirectory, SpaceInfo
@@ -79,6 +81,23 @@ background:#1f5f8b;color:#fff;cursor:pointer}
 .cautions li{margin:.2rem 0}
 form.inline{display:inline}
 button.small{padding:.1rem .5rem}
+form.search{display:flex;flex-wrap:wrap;gap:.4rem .6rem;align-items:flex-end;
+background:var(--card);border:1px solid var(--line);border-radius:.5rem;padding:.6rem}
+form.search .field{display:flex;flex-direction:column;font-size:.85rem;color:var(--muted)}
+form.search .grow{flex:1 1 12rem}
+form.search input[type=search]{width:100%;padding:.35rem}
+table.rollup tr.top td{font-weight:600}
+table.rollup tr.sub td:first-child{padding-left:1.2rem}
+nav.pager{display:flex;flex-wrap:wrap;gap:.3rem .6rem;margin:.8rem 0}
+nav.pager .here{font-weight:700}
+@media (max-width:40rem){
+table.fit thead{display:none}
+table.fit tr{display:block;border-bottom:1px solid var(--line);padding:.2rem 0}
+table.fit td{display:flex;justify-content:space-between;gap:.6rem;border:0;
+padding:.1rem .4rem;text-align:right}
+table.fit td::before{content:attr(data-label);color:var(--muted);text-align:left}
+table.fit tr.sub td:first-child{padding-left:.4rem}
+}
 """
 
 SECURITY_HEADERS: dict[str, str] = {
@@ -210,6 +229,11 @@ def state_badge(state: str) -> str:
 
 def page(title: str, body: str, directory: SiteDirectory, session: Session | None,
          refresh: bool = False, here: str = "/") -> str:
+    return page_html(title, body, directory, session, refresh, here)
+
+
+def page_html(title: str, body: str, directory: SiteDirectory, session: Session | None,
+              refresh: bool = False, here: str = "/") -> str:
     who = (f'{h(session.user.name)} <form method="post" action="/logout" class="inline">'
            f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
            '<button type="submit" class="small">Sign out</button></form>'
@@ -237,43 +261,222 @@ def advisory_item(a: dict[str, Any], tz: dt.tzinfo, with_space: bool = True) -> 
             f'{local(a["raised_at"], tz)}</div></li>')
 
 
-def overview(directory: SiteDirectory, conditions: dict[str, dict[str, Any] | None],
-             live: list[dict[str, Any]], session: Session | None, tz: dt.tzinfo) -> str:
-    parts = ["<h2>Live advisories</h2>"]
-    if live:
-        parts.append('<ul class="adv">' + "".join(advisory_item(a, tz) for a in live)
-                     + "</ul>")
+PAGE_SIZE = 50
+"""Spaces per page of the overview, and the most live advisories it lists at once."""
+AUDIENCES = ("facilities", "safety", "integrator")
+PRIORITIES = ("urgent", "high", "medium", "low")
+STATES = ("active", "acknowledged", "shelved")
+
+
+@dataclass(frozen=True)
+class Filters:
+    """The overview's search: words of a space's name (or id, building, floor), where it is
+    (``north``, ``north/f2``, ``/yard`` for an area of the site), and the audience, priority
+    and state of its live advisories; and the page of spaces shown."""
+
+    q: str = ""
+    where: str = ""
+    audience: str = ""
+    priority: str = ""
+    state: str = ""
+    page: int = 1
+
+    @classmethod
+    def parse(cls, params: Mapping[str, str]) -> Filters:
+        def pick(name: str, allowed: tuple[str, ...]) -> str:
+            v = params.get(name, "")
+            return v if v in allowed else ""
+        try:
+            page = max(1, min(int(params.get("page", "1")), 1_000_000))
+        except ValueError:
+            page = 1
+        return cls(params.get("q", "").strip()[:100], params.get("where", "").strip()[:200],
+                   pick("audience", AUDIENCES), pick("priority", PRIORITIES),
+                   pick("state", STATES), page)
+
+    def url(self, **change: object) -> str:
+        values = {**self.__dict__, **change}
+        if values.get("page") == 1:
+            values.pop("page")
+        query = urlencode({k: v for k, v in values.items() if v not in ("", None)})
+        return "/?" + query if query else "/"
+
+    @property
+    def on_advisories(self) -> bool:
+        return bool(self.audience or self.priority or self.state)
+
+    def advisory_matches(self, a: dict[str, Any]) -> bool:
+        return ((not self.audience or a["audience"] == self.audience)
+                and (not self.priority or a["priority"] == self.priority)
+                and (not self.state or a["state"] == self.state))
+
+    def space_matches(self, s: SpaceInfo) -> bool:
+        if self.where:
+            b, _, lv = self.where.partition("/")
+            if (b or None) != s.building and not (b == "" and s.building is None):
+                return False
+            if lv and s.level != lv:
+                return False
+        if self.q:
+            return all(word in s.search for word in self.q.lower().split())
+        return True
+
+
+def _options(name: str, label: str, values: list[tuple[str, str]], chosen: str) -> str:
+    opts = "".join(f'<option value="{h(v)}"{" selected" if v == chosen else ""}>{h(t)}</option>'
+                   for v, t in [("", f"any {label}"), *values])
+    return (f'<label class="field"><span>{h(label.capitalize())}</span>'
+            f'<select name="{name}" id="filter-{name}">{opts}</select></label>')
+
+
+def search_form(directory: SiteDirectory, f: Filters) -> str:
+    places = []
+    for lv in directory.levels:
+        key = f"{lv.building or ''}/{lv.level}" if lv.level is not None else (lv.building or "")
+        text = lv.label if lv.level is None or lv.building is None else f"  {lv.label}"
+        if lv.level is not None and lv.building is not None:
+            parent = next((x.label for x in directory.levels
+                           if x.building == lv.building and x.level is None), lv.building)
+            text = f"{parent} · {lv.label}"
+        places.append((key, text))
+    where = _options("where", "place", places, f.where) if places else ""
+    return ('<form id="search" class="search" method="get" action="/">'
+            '<label class="field grow"><span>Search spaces</span>'
+            f'<input type="search" name="q" id="q" value="{h(f.q)}" '
+            'placeholder="name, room or floor"></label>'
+            + where
+            + _options("audience", "audience", [(a, a) for a in AUDIENCES], f.audience)
+            + _options("priority", "priority", [(p, p) for p in PRIORITIES], f.priority)
+            + _options("state", "state", [(x, x) for x in STATES], f.state)
+            + '<button type="submit" id="search-go">Show</button>'
+            + (' <a href="/">clear</a>' if f != Filters() else "") + "</form>")
+
+
+def rollup(directory: SiteDirectory, counts: dict[int, list[int]], f: Filters) -> str:
+    """Live advisories per building and floor (counts by priority), each row a link to
+    the spaces there."""
+    if not directory.levels:
+        return ""
+    head = "".join(f"<th class=num>{h(p.capitalize())}</th>" for p in PRIORITIES)
+    rows = []
+    for lv in directory.levels:
+        total = [0, 0, 0, 0]
+        for i in lv.spaces:
+            c = counts.get(i)
+            if c is not None:
+                for k in range(4):
+                    total[k] += c[k]
+        key = f"{lv.building or ''}/{lv.level}" if lv.level is not None else (lv.building or "")
+        top = lv.level is None or lv.building is None
+        link = f'<a href="{h(f.url(where=key, page=1))}">{h(lv.label)}</a>'
+        cells = "".join(
+            f'<td class="num" data-label="{h(p.capitalize())}">'
+            + (f'<span class="badge {p}">{n}</span>' if n else '<span class="muted">0</span>')
+            + "</td>" for p, n in zip(PRIORITIES, total, strict=True))
+        rows.append(f'<tr class="{"top" if top else "sub"}" data-where="{h(key)}">'
+                    f'<td data-label="Where">{"" if top else "↳ "}{link}</td>'
+                    f'<td class="num" data-label="Spaces">{len(lv.spaces)}</td>{cells}</tr>')
+    return ('<h2>By building and floor</h2><table class="fit rollup"><thead><tr>'
+            f'<th>Where</th><th class=num>Spaces</th>{head}</tr></thead><tbody>'
+            + "".join(rows) + "</tbody></table>")
+
+
+def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinfo) -> str:
+    rows = []
+    if c is not None:
+        idx = c["indices"]
+        for key, label in OVERVIEW_VALUES:
+            item = idx.get(key)
+            if item is None or (item.get("value") is None and key in (
+                    "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
+                continue
+            if key == "wbgt_reference":
+                label = reference_label(s)
+            rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
+        when = (f'as of {local(c["at"], tz)} · '
+                f'{"occupied" if c.get("occupied") else "unoccupied"}')
     else:
-        parts.append('<p class="muted">None at the moment.</p>')
-    parts.append('<h2>Spaces</h2><div class="cards">')
-    for s in directory.spaces:
-        c = conditions.get(s.id)
-        n_live = sum(1 for a in live if a["space"]["id"] == s.id)
-        rows = []
-        if c is not None:
-            idx = c["indices"]
-            for key, label in OVERVIEW_VALUES:
-                item = idx.get(key)
-                if item is None or (item.get("value") is None and key in (
-                        "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
-                    continue
-                if key == "wbgt_reference":
-                    label = reference_label(s)
-                rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
-            when = (f'as of {local(c["at"], tz)} · '
-                    f'{"occupied" if c.get("occupied") else "unoccupied"}')
-        else:
-            when = "not evaluated yet"
-        tags = [s.kind] + (["hot work"] if s.hot_work else []) + (
-            ["natural ventilation"] if s.ventilation == "natural" else [])
-        alert = (f' <span class="badge high">{n_live} live</span>' if n_live else "")
-        parts.append(
-            f'<section class="card" data-space="{h(s.id)}"><h3><a href="/spaces/'
+        when = "not evaluated yet"
+    tags = ([s.group] if s.group else []) + [s.kind] + (["hot work"] if s.hot_work else []) + (
+        ["natural ventilation"] if s.ventilation == "natural" else [])
+    alert = (f' <span class="badge high">{n_live} live</span>' if n_live else "")
+    return (f'<section class="card" data-space="{h(s.id)}"><h3><a href="/spaces/'
             f'{quote(s.id, safe="")}">{h(s.name)}</a>{alert}</h3>'
             f'<div class="note">{h(" · ".join(tags))} · {h(when)}</div>'
             f'<dl class="kv">{"".join(rows)}</dl></section>')
-    parts.append("</div>")
-    return page("Overview", "".join(parts), directory, session, refresh=True, here="/")
+
+
+def pager(f: Filters, total: int) -> str:
+    pages = max(1, math.ceil(total / PAGE_SIZE))
+    if pages == 1:
+        return ""
+    page = min(f.page, pages)
+    shown = sorted({1, pages, *range(max(1, page - 2), min(pages, page + 2) + 1)})
+    links = []
+    last = 0
+    for n in shown:
+        if n - last > 1:
+            links.append('<span class="muted">…</span>')
+        links.append(f'<span class="here">{n}</span>' if n == page
+                     else f'<a href="{h(f.url(page=n))}">{n}</a>')
+        last = n
+    prev = f'<a rel="prev" href="{h(f.url(page=page - 1))}">Previous</a>' if page > 1 else ""
+    nxt = f'<a rel="next" href="{h(f.url(page=page + 1))}">Next</a>' if page < pages else ""
+    return f'<nav class="pager" aria-label="pages">{prev} {" ".join(links)} {nxt}</nav>'
+
+
+def overview(directory: SiteDirectory, conditions_of: Callable[[str], dict[str, Any] | None],
+             live: list[dict[str, Any]], session: Session | None, tz: dt.tzinfo,
+             f: Filters | None = None) -> str:
+    """The overview: search, the roll-up by building and floor, the live advisories and
+    one page of the spaces that match. Work and size grow with the page, not the site:
+    only the counts visit every space."""
+    f = f or Filters()
+    spaces = directory.spaces
+    by_space: dict[str, list[dict[str, Any]]] = {}
+    for a in live:
+        if f.advisory_matches(a):
+            by_space.setdefault(a["space"]["id"], []).append(a)
+    counts: dict[int, list[int]] = {}
+    rank = {p: k for k, p in enumerate(PRIORITIES)}
+    for sid, items in by_space.items():
+        info = directory.space(sid)
+        if info is None:
+            continue
+        c = counts.setdefault(info.index, [0, 0, 0, 0])
+        for a in items:
+            c[rank.get(a["priority"], 3)] += 1
+    chosen = [s for s in spaces if f.space_matches(s)
+              and (not f.on_advisories or s.id in by_space)]
+    chosen_ids = {s.id for s in chosen}
+    shown_live = [a for a in live if a["space"]["id"] in chosen_ids and f.advisory_matches(a)]
+    parts = [search_form(directory, f), rollup(directory, counts, f),
+             f'<h2>Live advisories <span class="muted">({len(shown_live)})</span></h2>']
+    if shown_live:
+        parts.append('<ul class="adv">' + "".join(advisory_item(a, tz)
+                                                 for a in shown_live[:PAGE_SIZE]) + "</ul>")
+        if len(shown_live) > PAGE_SIZE:
+            parts.append(f'<p class="note">The {PAGE_SIZE} most urgent of {len(shown_live)} '
+                         "are listed: narrow the search, or pick a building or floor.</p>")
+    else:
+        parts.append('<p class="muted">None at the moment.</p>' if f == Filters()
+                     else '<p class="muted">None matches.</p>')
+    pages = max(1, math.ceil(len(chosen) / PAGE_SIZE))
+    page = min(f.page, pages)
+    first = (page - 1) * PAGE_SIZE
+    window = chosen[first:first + PAGE_SIZE]
+    what = f"{len(chosen)} of {len(spaces)}" if len(chosen) != len(spaces) else str(len(spaces))
+    span = f", {first + 1}-{first + len(window)} shown" if pages > 1 else ""
+    parts.append(f'<h2>Spaces <span class="muted" id="space-count">({what}{span})</span></h2>')
+    if window:
+        parts.append('<div class="cards">' + "".join(
+            space_card(s, conditions_of(s.id), len(by_space.get(s.id, ())), tz)
+            for s in window) + "</div>")
+    else:
+        parts.append('<p class="muted">No space matches.</p>')
+    parts.append(pager(f, len(chosen)))
+    here = f.url()
+    return page_html("Overview", "".join(parts), directory, session, refresh=True, here=here)
 
 
 def reference_label(space: SpaceInfo) -> str:
@@ -333,22 +536,25 @@ def points_table(c: dict[str, Any] | None) -> str:
                 '<span class="muted">no reading</span>'
             tags = " ".join(f"{k} {p[k]}" for k in ("side", "height", "sensor") if p.get(k))
             rows.append(
-                f'<tr><td>{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
+                f'<tr><td data-label="Point">'
+                f'{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
                 f'{f" <small class=muted>({h(tags)})</small>" if tags else ""}</td>'
-                f'<td class="num">{fmt_value(p)}</td><td>{status}</td>'
-                f'<td>{h(age_text(p.get("age_s")))}</td></tr>')
+                f'<td class="num" data-label="Last value">{fmt_value(p)}</td>'
+                f'<td data-label="Freshness">{status}</td>'
+                f'<td data-label="Received">{h(age_text(p.get("age_s")))}</td></tr>')
         assumed = [f"{QUANTITY_LABELS.get(q, q)}: {v['assumed'].removeprefix('assumed: ')}"
                    for q, v in sorted(c.get("inputs", {}).items()) if v.get("assumed")]
         note = (f'<p class="note">Not measured here, assumed: {h("; ".join(assumed))}.</p>'
                 if assumed else "")
-        return ('<div class="scroll"><table><thead><tr><th>Point</th><th>Last value</th>'
-                '<th>Freshness</th><th>Received</th></tr></thead><tbody>' + "".join(rows)
-                + "</tbody></table></div>" + note)
-    rows = [f'<tr><td>{h(QUANTITY_LABELS.get(q, q))}</td><td class="num">'
-            f'{fmt_value(v) if "value" in v else "–"}</td><td>'
+        return ('<div class="scroll"><table class="fit"><thead><tr><th>Point</th>'
+                '<th>Last value</th><th>Freshness</th><th>Received</th></tr></thead><tbody>'
+                + "".join(rows) + "</tbody></table></div>" + note)
+    rows = [f'<tr><td data-label="Input">{h(QUANTITY_LABELS.get(q, q))}</td>'
+            f'<td class="num" data-label="Value">{fmt_value(v) if "value" in v else "–"}</td>'
+            f'<td data-label="Freshness">'
             f'{h(v["assumed"]) if v.get("assumed") else FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
-    return ('<div class="scroll"><table><thead><tr><th>Input</th><th>Value</th>'
+    return ('<div class="scroll"><table class="fit"><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
 
 
@@ -356,7 +562,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                live: list[dict[str, Any]], recent: list[dict[str, Any]],
                samples: list[dict[str, Any]], start: float, end: float,
                session: Session | None, tz: dt.tzinfo) -> str:
-    tags = [space.kind] + (["hot work"] if space.hot_work else []) + (
+    tags = ([space.group] if space.group else []) + [space.kind] + (
+        ["hot work"] if space.hot_work else []) + (
         ["natural ventilation"] if space.ventilation == "natural" else [])
     parts = [f'<h2>{h(space.name)}</h2><p class="note">{h(" · ".join(tags))}'
              + (f' · as of {local(c["at"], tz, "%d %b %H:%M")} · '
@@ -441,7 +648,9 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         parts.append('<h2>Cautions</h2><ul class="cautions">'
                      + "".join(f"<li>{h(c)}</li>" for c in a["cautions"]) + "</ul>")
     if live:
-        parts.append(_actions(a, session, max_shelve_s))
+        info = directory.space(a["space"]["id"])
+        place = (info.building or info.area) if info is not None else None
+        parts.append(_actions(a, session, max_shelve_s, place))
     hist = "".join(
         f'<tr><td>{local(e.get("at"), tz, "%d %b %H:%M")}</td><td>{h(e.get("event"))}</td>'
         f'<td>{h(e.get("by", ""))}</td><td>'
@@ -501,13 +710,18 @@ def _threshold(v: dict[str, Any]) -> str:
     return fmt_value({"value": v["threshold"], "unit": v.get("unit", "")})
 
 
-def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None) -> str:
+def _actions(a: dict[str, Any], session: Session | None, max_shelve_s: float | None,
+             place: str | None = None) -> str:
     if session is None:
         return ('<h2>Act on it</h2><p><a href="/login?next=/advisories/'
                 f'{quote(a["id"], safe="")}">Sign in</a> to acknowledge or shelve.</p>')
     if a["audience"] not in session.user.audiences:
         return (f'<h2>Act on it</h2><p class="muted">Only people of the {h(a["audience"])} '
                 "audience may acknowledge or shelve this advisory.</p>")
+    if not session.user.may_act(a["audience"], place):
+        return ('<h2>Act on it</h2><p class="muted">Only people of the '
+                f'{h(a["audience"])} audience for {h(place or "this space")} may acknowledge '
+                "or shelve this advisory.</p>")
     base = f'/advisories/{quote(a["id"], safe="")}'
     csrf = f'<input type="hidden" name="csrf" value="{h(session.csrf)}">'
     out = ["<h2>Act on it</h2>"]

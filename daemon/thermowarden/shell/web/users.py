@@ -8,10 +8,17 @@ and a password hash::
         audiences: [safety, facilities]
         password_hash: "pbkdf2_sha256$600000$<salt, base64>$<hash, base64>"
 
+``audiences`` may be empty (the person reads, where reading needs a sign-in, but acts on
+nothing); ``buildings`` (building or area ids) limits acting to the advisories of spaces
+there (default: the whole site).
+
 Hashes are PBKDF2-HMAC-SHA256 (RFC 8018, section 5.2) from :mod:`hashlib`; 600,000
 iterations is the figure OWASP's password storage guidance gives for it (2023).
-``thermowarden web-user NAME`` prints an entry. Sessions live in memory only (a restart
-signs everyone out) and end ``lifetime_s`` after sign-in or at sign-out.
+``thermowarden web-user NAME`` prints an entry. Sessions end ``lifetime_s`` after sign-in
+(wall clock) or at sign-out. With a ``store`` they are also kept in the service's SQLite
+file (table ``web_sessions``: a SHA-256 of the token, never the token), so a restart signs
+nobody out; a session takes the user's current entry of the users file (removed user:
+session gone).
 """
 
 from __future__ import annotations
@@ -23,9 +30,11 @@ import json
 import os
 import pathlib
 import secrets
+import sqlite3
 import threading
 import time
 from collections import deque
+from contextlib import closing
 from dataclasses import dataclass, field
 from logging import getLogger
 from typing import Literal
@@ -91,7 +100,8 @@ class UserEntry(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     name: str = Field(min_length=1, max_length=100, pattern=r"^[^\s$][^$]*$")
-    audiences: list[Audience] = Field(min_length=1)
+    audiences: list[Audience] = Field(default_factory=list)
+    buildings: list[str] | None = None
     password_hash: str
 
     @field_validator("password_hash")
@@ -111,6 +121,17 @@ class UsersFile(BaseModel):
 class User:
     name: str
     audiences: frozenset[str]
+    buildings: frozenset[str] | None = None
+    """Building or area ids the user may act in; None: everywhere."""
+
+    def may_act(self, audience: str, building: str | None) -> bool:
+        return audience in self.audiences and (
+            self.buildings is None or (building is not None and building in self.buildings))
+
+    @classmethod
+    def of(cls, entry: UserEntry) -> User:
+        return cls(entry.name, frozenset(entry.audiences),
+                   frozenset(entry.buildings) if entry.buildings is not None else None)
 
 
 def load_users(path: str | os.PathLike[str]) -> dict[str, UserEntry]:
@@ -135,8 +156,10 @@ def users_yaml(entries: list[UserEntry]) -> str:
     lines = ["users:"]
     for e in entries:
         lines += [f"  - name: {json.dumps(e.name)}",
-                  f"    audiences: [{', '.join(e.audiences)}]",
-                  f"    password_hash: \"{e.password_hash}\""]
+                  f"    audiences: [{', '.join(e.audiences)}]"]
+        if e.buildings is not None:
+            lines.append(f"    buildings: [{', '.join(e.buildings)}]")
+        lines.append(f"    password_hash: \"{e.password_hash}\"")
     return "\n".join(lines) + "\n"
 
 
@@ -158,21 +181,48 @@ class Session:
     flash: list[str] = field(default_factory=list)
 
 
-class Sessions:
-    """Signed-in users (thread-safe). Times are monotonic seconds."""
+SESSIONS_SCHEMA = """
+CREATE TABLE IF NOT EXISTS web_sessions (
+    token_sha256 TEXT PRIMARY KEY,
+    name TEXT NOT NULL,
+    csrf TEXT NOT NULL,
+    expires REAL NOT NULL        -- wall clock, epoch s
+);
+"""
 
-    def __init__(self, users: dict[str, UserEntry], lifetime_s: float) -> None:
+
+def _digest(token: str) -> str:
+    return hashlib.sha256(token.encode("utf-8")).hexdigest()
+
+
+class Sessions:
+    """Signed-in users (thread-safe). Expiry on the wall clock (``now``, epoch s), so that
+    kept sessions mean the same after a restart; ``store`` keeps them there."""
+
+    def __init__(self, users: dict[str, UserEntry], lifetime_s: float,
+                 store: str | os.PathLike[str] | None = None) -> None:
         self.users = users
         self.dummy_iterations = max((check_hash(u.password_hash)[0] for u in users.values()),
                                     default=DEFAULT_ITERATIONS)
         self.lifetime_s = lifetime_s
-        self.now = time.monotonic
+        self.now = time.time
         self.lock = threading.Lock()
         self.sessions: dict[str, Session] = {}
         self.failures: dict[str, deque[float]] = {}
         self.refused_while_locked: dict[str, int] = {}
         self.log_limit = RateLimiter(per_minute=FAILURE_LINES_PER_MIN,
                                      burst=int(FAILURE_LINES_PER_MIN), clock=time.monotonic)
+        self.store = os.fspath(store) if store is not None else None
+        if self.store is not None:
+            with closing(self._db()) as db:
+                db.executescript(SESSIONS_SCHEMA)
+                db.execute("DELETE FROM web_sessions WHERE expires <= ?", (self.now(),))
+
+    def _db(self) -> sqlite3.Connection:
+        assert self.store is not None
+        db = sqlite3.connect(self.store, timeout=30.0, isolation_level=None)
+        db.execute("PRAGMA journal_mode=WAL")
+        return db
 
     def sign_in(self, name: str, password: str, client: str = "") -> Session | None:
         """A new session, or None (unknown name, wrong password, or too many failures).
@@ -226,28 +276,61 @@ class Sessions:
                     self.refused_while_locked.clear()
                 return None
             self._purge(now)
-            s = Session(secrets.token_urlsafe(32), User(entry.name, frozenset(entry.audiences)),
-                        now + self.lifetime_s, secrets.token_urlsafe(16))
+            s = Session(secrets.token_urlsafe(32), User.of(entry), now + self.lifetime_s,
+                        secrets.token_urlsafe(16))
             self.sessions[s.token] = s
+        if self.store is not None:
+            with closing(self._db()) as db:
+                db.execute("INSERT OR REPLACE INTO web_sessions(token_sha256, name, csrf, "
+                           "expires) VALUES(?, ?, ?, ?)",
+                           (_digest(s.token), entry.name, s.csrf, s.expires))
         log.info("web sign-in as %r%s%s", entry.name, where, also)
         return s
 
     def get(self, token: str | None) -> Session | None:
-        if not token:
+        if not token or len(token) > 200:
             return None
         now = self.now()
         with self.lock:
             s = self.sessions.get(token)
-            if s is None:
-                return None
-            if now >= s.expires:
+            if s is not None:
+                if now < s.expires:
+                    return s
                 del self.sessions[token]
-                return None
-            return s
+        if s is not None:
+            self._forget(token)
+            return None
+        return self._restore(token, now)
+
+    def _restore(self, token: str, now: float) -> Session | None:
+        """A session kept in the store before a restart (with the user's current entry)."""
+        if self.store is None:
+            return None
+        with closing(self._db()) as db:
+            row = db.execute("SELECT name, csrf, expires FROM web_sessions WHERE "
+                             "token_sha256 = ?", (_digest(token),)).fetchone()
+        if row is None:
+            return None
+        name, csrf, expires = row
+        entry = self.users.get(name)
+        if entry is None or now >= expires:
+            self._forget(token)
+            return None
+        s = Session(token, User.of(entry), float(expires), str(csrf))
+        with self.lock:
+            return self.sessions.setdefault(token, s)
+
+    def _forget(self, token: str) -> None:
+        if self.store is not None:
+            with closing(self._db()) as db:
+                db.execute("DELETE FROM web_sessions WHERE token_sha256 = ?", (_digest(token),))
 
     def sign_out(self, token: str | None) -> bool:
         with self.lock:
-            return self.sessions.pop(token or "", None) is not None
+            found = self.sessions.pop(token or "", None) is not None
+        if token:
+            self._forget(token)
+        return found
 
     def _purge(self, now: float) -> None:
         for token in [t for t, s in self.sessions.items() if now >= s.expires]:
@@ -255,4 +338,3 @@ class Sessions:
 
     def remaining_s(self, s: Session) -> float:
         return max(0.0, s.expires - self.now())
-
