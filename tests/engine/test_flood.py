@@ -109,7 +109,7 @@ def test_replay_summary_counts_every_advisory_raised_in_a_flood(tmp_path):
                 fh.write(json.dumps({"t": 1_784_000_000 + t, "topic": f"desks/{d}/ta",
                                      "payload": str(reading(k, t))}) + "\n")
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "replay", "--config", str(path),
-                        str(feed), "--summary"], capture_output=True, text=True,
+                        str(feed), "--summary", "--json"], capture_output=True, text=True,
                        timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr
     summary = json.loads(r.stdout)
