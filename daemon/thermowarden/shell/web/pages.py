@@ -15,6 +15,7 @@ from html import escape
 from typing import Any
 from urllib.parse import quote, urlencode
 
+from thermowarden.core.labels import index_label
 from thermowarden.shell.web import plots
 from thermowarden.shell.web.live import SiteDirectory, SpaceInfo
 from thermowarden.shell.web.users import Session
@@ -619,7 +620,7 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         shown = (f'At {local(a["numbers_at"], tz, "%d %b %H:%M")}' if a.get("numbers_at")
                  else "Said")
         rows = "".join(
-            f'<tr><td>{h(k)}</td><td class="num">{fmt_value(v)}</td>'
+            f'<tr><td>{h(index_label(k))}</td><td class="num">{fmt_value(v)}</td>'
             + (f'<td class="num">{fmt_value(_at_clearing(v, cleared.get(k)))}</td>'
                if cleared is not None else "")
             + f'<td class="num">{_threshold(v)}</td><td class="note">'
@@ -632,7 +633,7 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                      + rows + "</tbody></table></div>")
     if a.get("benefit"):
         parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
-            f'<dt>{h(k)}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
+            f'<dt>{h(index_label(k))}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
             + "</dl>")
     parts.append("<h2>Effect</h2>" + _effect(a.get("acted_on"), tz))
     if a.get("acknowledged"):
