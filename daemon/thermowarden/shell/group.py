@@ -627,33 +627,36 @@ class Group:
         lacks are applied now: an acknowledgement unless the advisory is acknowledged
         already or was raised or escalated after it; a shelving or unshelving unless the
         retained advisory changed after it arrived (the old holder applied it, or something
-        after it)."""
+        after it), nor a shelving when one given at or after it is in force."""
         service = self.service
         assert service is not None
         now = service.clock.now()
         self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
+        # they stay kept (with the time they arrived): the shard may change hands again
         kept = [c for c in self.commands
                 if (c.shard or self._shard_of_advisory(c.advisory_id)) == shard]
-        taken = {id(c) for c in kept}
-        self.commands = [c for c in self.commands if id(c) not in taken]
         book = service.engine.advisories
         for c in kept:
-            if self._verb(c) == "acknowledge":
-                got = book.by_id.get(c.advisory_id)
-                adv = got[0].advisories.get(got[1]) if got is not None else None
+            verb = self._verb(c)
+            got = book.by_id.get(c.advisory_id)
+            adv = got[0].advisories.get(got[1]) if got is not None else None
+            if verb == "acknowledge":
                 if adv is not None and (adv.acknowledged is not None or any(
                         h.get("event") in ("raised", "escalated")
                         and str(h.get("at", "")) > _iso(c.at) for h in adv.history)):
                     continue  # acknowledged already, or a worse level since
             else:
+                if verb == "shelve" and adv is not None and adv.shelved is not None \
+                        and str(adv.shelved.get("at", "")) >= _iso(c.at):
+                    continue  # this shelving, or a later one, is in force
                 record = next((p for p in self.records.values()
                                if p.get("id") == c.advisory_id), None)
                 h = record.get("handover") if record is not None else None
                 updated = h.get("updated_at") if isinstance(h, dict) else None
                 if isinstance(updated, int | float) and updated >= c.at:
                     continue  # the old holder applied it (or something after it)
-            log.info("applying a %s command for %s received while standing by",
-                     c.message.topic.rsplit("/", 1)[-1], c.advisory_id)
+            log.info("applying a kept %s command for %s at the takeover", verb,
+                     c.advisory_id)
             service.handle_command(c.message)
 
     def _verb(self, c: Buffered) -> str:
