@@ -273,3 +273,52 @@ def test_a_standby_taking_over_reconciles_with_what_was_published(tmp_path):
     assert got[0][2].split(".")[2] == "2"  # under the new epoch
     assert not [x for x in mine if isinstance(x, Publish) and x.payload is not None
                 and x.payload.get("id") == hot.id]
+
+
+def test_the_old_holder_taking_the_shard_back_keeps_its_acknowledgement(tmp_path):
+    """a acknowledged its hot advisory a moment before it was cut off: the reply and the
+    record were fenced, so b took the shard over from the record before the
+    acknowledgement and published on under a newer epoch. When a takes the shard back, the
+    acknowledgement it applied survives the newer record (and its history entry with it),
+    as does a shelving it applied, the later one of two winning."""
+    a, b = make(tmp_path, "a"), make(tmp_path, "b")
+    shard = a.publication.shards[0]
+    a.publication.epochs[shard] = 1
+    effects = run(a, 0, 300, **{"room-1": 34})
+    published = retained(effects)  # what reached the broker before the cut
+    hot = next(x for x in a.live_advisories() if x.rule == "testpack.hot")
+    lv = next(x for x in a.live_advisories() if x.rule == "testpack.levels")
+    reply, _ = a.command("acknowledge", json.dumps(
+        {"advisory_id": hot.id, "by": "Ana"}).encode(), 310)
+    assert reply["ok"]
+    reply, _ = a.command("shelve", json.dumps(
+        {"advisory_id": lv.id, "by": "Sam", "reason": "survey", "duration_s": 600}).encode(),
+        312)
+    assert reply["ok"]
+    run(b, 30, 300, **{"room-1": 34})  # b stood by
+    b.publication.epochs[shard] = 2
+    _, eff = b.reconcile(["room-1"], published.values(), 320.0, by="b")
+    later = eff + run(b, 330, 400, **{"room-1": 34})
+    newer = retained(later)
+    assert {p["id"]: p["acknowledged"] for p in newer.values()}[hot.id] is None
+    assert {p["id"]: p["shelved"] for p in newer.values()}[lv.id] is None
+
+    a.publication.epochs[shard] = 3
+    notes, eff = a.reconcile(["room-1"], list(newer.values()), 410.0, by="a")
+    assert notes == []
+    validate_effects(eff)
+    live = {x.rule: a.advisory_payload(x) for x in a.live_advisories()}
+    took = live["testpack.hot"]
+    assert took["id"] == hot.id and took["state"] == "acknowledged"
+    assert took["acknowledged"]["by"] == "Ana"
+    events = [h["event"] for h in took["history"]]
+    assert events.count("acknowledged") == 1 and events[-1] == "moved"
+    assert events.count("moved") == 2  # to b and back to a
+    shelved = live["testpack.levels"]
+    assert shelved["state"] == "shelved" and shelved["shelved"]["by"] == "Sam"
+    out = retained(eff)  # what a publishes at once carries both
+    assert {p["id"]: p["acknowledged"] is not None for p in out.values()}[hot.id]
+    assert {p["id"]: p["state"] for p in out.values()}[lv.id] == "shelved"
+    # and it goes on from there: no reminder before the shelving runs out
+    after = run(a, 420, 900, **{"room-1": 34})
+    assert not [e for e in published_events(after) if e[1] == lv.id]

@@ -24,6 +24,7 @@ import functools
 import math
 from collections.abc import Iterable, Iterator, Mapping
 from collections.abc import Set as AbstractSet
+from dataclasses import dataclass
 from typing import Any, Final
 
 import numpy as np
@@ -387,14 +388,17 @@ class Engine:
         return effects
 
     def adopt(self, payloads: Iterable[dict[str, Any]], now: float, *,
-              by: str | None = None) -> tuple[list[str], list[Effect]]:
+              by: str | None = None, own: Mapping[str, _Own] | None = None
+              ) -> tuple[list[str], list[Effect]]:
         """Continue live advisories another instance of the group published (their
         retained messages with ``handover``): the same advisory id, history (plus a
         ``moved`` entry), priority, acknowledgement, shelving, reminders and advice waiting
         for its effect. Only advisories of owned spaces are taken; one this instance already
         has is kept unless the message is newer. Call before the space's first evaluation.
-        Returns notes on what was not taken and the effects (the retained message with the
-        ``moved`` entry, the store row)."""
+        ``own`` (advisory id -> what this instance had of it, from :meth:`reconcile`): an
+        acknowledgement or shelving this instance applied that the message lacks is kept
+        (:func:`_merge_own`). Returns notes on what was not taken and the effects (the
+        retained message with the ``moved`` entry, the store row)."""
         records: list[dict[str, Any]] = []
         notes: list[str] = []
         owned = self.publication.owned
@@ -438,6 +442,9 @@ class Engine:
                 continue
             rt, i = got
             adv = rt.advisories[i]
+            mine_before = own.get(adv.id) if own is not None else None
+            if mine_before is not None:
+                _merge_own(rt, i, adv, mine_before, now)
             book._note(adv, now, "moved", by=by)
             effects.append(book._published(adv))
             effects.append(book._persist(adv))
@@ -454,7 +461,10 @@ class Engine:
         count; the windows, delays in progress and the clear timer stay this instance's.
         An advisory this instance raised that nobody published is taken back to pending
         with its on-delay already served, so the next evaluation raises it and says so.
-        Returns notes on records not taken and the effects (retained messages, rows)."""
+        An acknowledgement or shelving this instance applied to the published advisory
+        (as its holder before, or a command given a moment before it lost the shard) and
+        that the message lacks survives (:func:`_merge_own`). Returns notes on records not
+        taken and the effects (retained messages, rows)."""
         wanted = {i for sid in space_ids
                   if (i := self.model.space_index.get(sid)) is not None}
         records: dict[tuple[int, str], dict[str, Any]] = {}
@@ -467,11 +477,14 @@ class Engine:
             if i in wanted and isinstance(rule, str) and isinstance(p.get("handover"), dict):
                 records[(i, rule)] = p
         book = self.advisories
+        own: dict[str, _Own] = {}
         for rt in book.rules:
             for i in sorted(wanted):
                 adv = rt.advisories.get(i)
                 if adv is None:
                     continue
+                own[adv.id] = _Own(adv, State(rt.state[i]), float(rt.shelved_until[i]),
+                                   [list(s) for s in rt.shelvings.get(i, [])])
                 rec = records.get((i, rt.rule.key))
                 del rt.advisories[i]
                 book.by_id.pop(adv.id, None)
@@ -488,7 +501,7 @@ class Engine:
                     rt.pending_since[i] = now - rt.rule.config.on_delay_s
                 else:
                     rt.state[i] = State.IDLE
-        return self.adopt(records.values(), now, by=by)
+        return self.adopt(records.values(), now, by=by, own=own)
 
     def digest(self, now: float, since: float) -> list[Effect]:
         """The daily digest per audience; see :meth:`Advisories.digest`."""
@@ -512,6 +525,54 @@ class Engine:
         for adv in self.live_advisories():
             out[(adv.rule, adv.priority)] = out.get((adv.rule, adv.priority), 0) + 1
         return out
+
+
+@dataclass(frozen=True)
+class _Own:
+    """What an instance had of an advisory before taking the published message over."""
+
+    adv: Advisory
+    state: State
+    shelved_until: float
+    shelvings: list[list[float]]
+
+
+def _merge_own(rt: RuleRuntime, i: int, adv: Advisory, own: _Own, now: float) -> None:
+    """Keep in ``adv`` (just taken from a published message) the acknowledgement and the
+    shelving this instance had applied that the message lacks: an acknowledgement present
+    in either survives unless the message's history shows the advisory raised or escalated
+    after it (a worse level needs a new one); of two shelvings the later one wins, unless
+    the message's history shows it unshelved or escalated after this one, or it has run
+    out. The history entry of what is kept is put back in time order."""
+    later = {"raised", "escalated"}
+    ack = own.adv.acknowledged
+    if ack is not None and adv.acknowledged is None and State(rt.state[i]) == State.ACTIVE \
+            and not any(h.get("event") in later and h.get("at", "") > ack.get("at", "")
+                        for h in adv.history):
+        adv.acknowledged = ack
+        rt.state[i] = adv.state = State.ACKNOWLEDGED
+        _put_back(adv, own.adv, "acknowledged", ack.get("at"))
+    sh = own.adv.shelved
+    if sh is not None and own.state == State.SHELVED and own.shelved_until > now \
+            and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED, State.SHELVED) \
+            and (adv.shelved is None or adv.shelved.get("at", "") < sh.get("at", "")) \
+            and not any(h.get("event") in (later | {"unshelved"})
+                        and h.get("at", "") > sh.get("at", "") for h in adv.history):
+        adv.shelved = sh
+        rt.state[i] = adv.state = State.SHELVED
+        rt.shelved_until[i] = own.shelved_until
+        rt.shelvings[i] = own.shelvings
+        _put_back(adv, own.adv, "shelved", sh.get("at"))
+
+
+def _put_back(adv: Advisory, own: Advisory, event: str, at: object) -> None:
+    """Put ``own``'s history entry of ``event`` at ``at`` into ``adv``'s, in time order."""
+    entry = next((h for h in reversed(own.history)
+                  if h.get("event") == event and h.get("at") == at), None)
+    if entry is None or entry in adv.history:
+        return
+    adv.history.append(dict(entry))
+    adv.history.sort(key=lambda h: str(h.get("at", "")))
 
 
 def _reads(rule: CompiledRule) -> set[str]:

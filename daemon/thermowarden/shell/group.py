@@ -28,10 +28,15 @@ retained advisory of an older epoch than one already seen for its shard is ignor
 
 **Taking over.** When a shard's lease becomes this instance's, its advisories are
 reconciled with the retained advisory messages of the shard (:meth:`Engine.reconcile`:
-published ids, history, acknowledgements, shelving win), commands it received for the
-shard as a standby and the old holder had not applied are applied, and it publishes
-under the new epoch. A standby answers no command; the holder of the advisory's shard
-does (for an advisory no one has, the first live instance in name order replies).
+published ids, history, acknowledgements, shelving win, but an acknowledgement or shelving
+this instance applied that the message lacks is kept), the kept commands for the shard that
+the advisory taken over lacks are applied, and it publishes under the new epoch. Every
+instance keeps every command of the site for ``COMMANDS_KEPT_S`` (:meth:`route`), whatever
+its shard: it may stand by for or take the shard a moment after the command arrived. Only
+an instance whose lease for the advisory's shard is valid at that moment answers a command
+(:meth:`may_publish`; for an advisory no one has, the first live instance in name order
+replies), and the reply carries the shard and epoch, so that one the MQTT client would send
+again after a reconnect is dropped like a record (:meth:`allows_bytes`).
 
 People see: a retained status per instance (``<prefix>/status/<instance>``: the shards it
 holds and stands by for), metrics (spaces held, live instances, seconds since every shard
@@ -77,8 +82,9 @@ standby sees a lapsed lease within a sixth of the TTL."""
 RETRY_S = 1.0
 """A round that could not reach the store is tried again after this long."""
 COMMANDS_KEPT_S = 600.0
-"""Commands a standby received for a shard are kept this long (applied at a takeover if
-the old holder had not)."""
+"""Every instance keeps every command of the site this long, whichever shard it is for
+(applied at a takeover if the old holder had not: a standby may have joined the shard, or
+an instance taken it, just after the command arrived)."""
 
 
 def lease_clock() -> float:
@@ -232,12 +238,13 @@ class LeaseKeeper:
 
 @dataclass
 class Buffered:
-    """A command a standby received for a shard it may take over."""
+    """A command of the site, kept in case this instance takes its shard over."""
 
     message: Incoming
     at: float
     advisory_id: str
-    shard: str
+    shard: str | None
+    """The advisory's shard when it arrived (None: no advisory of that id was known)."""
 
 
 @dataclass
@@ -409,25 +416,38 @@ class Group:
         self.last_evaluated = now
 
     def route(self, m: Incoming, advisory_id: object, keep: bool = True) -> str:
-        """What to do with a command: "answer" (this instance holds the advisory's shard,
-        or no one has the advisory and this instance is the first live one), "keep" (it
-        stands by for the shard: applied if it takes the shard over; only with ``keep``),
-        or "ignore". "First" is in name order among the instances holding a shard."""
+        """What to do with a command: "answer" (this instance holds a valid lease for the
+        advisory's shard now, :meth:`may_publish`, or no one has the advisory and this
+        instance is the first live one), "keep" (it does not: kept, and applied if it takes
+        the shard over; only with ``keep``), or "ignore". With ``keep``, every command
+        naming an advisory is kept for ``COMMANDS_KEPT_S``, answered or not, whatever its
+        shard. "First" is in name order among the instances holding a shard."""
         assert self.service is not None
         shard = self._shard_of_advisory(advisory_id)
+        kept = False
+        if keep and isinstance(advisory_id, str):
+            now = self.service.clock.now()
+            self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
+            if not any(c.message is m for c in self.commands):  # not one applied again
+                self.commands.append(Buffered(m, now, advisory_id, shard))
+            kept = True
         if shard is None:  # no one has it: one instance replies with the error
             r = self.round
             working = sorted(set(r.holders.values()) & r.live) or sorted(r.live) \
                 if r is not None else []
             return "answer" if not working or working[0] == self.me else "ignore"
-        if shard in self.publishing:
+        if self.round is not None and self.may_publish(shard, self.publishing.get(shard)):
             return "answer"
-        if keep and shard in self.evaluating and isinstance(advisory_id, str):
-            now = self.service.clock.now()
-            self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
-            self.commands.append(Buffered(m, now, advisory_id, shard))
-            return "keep"
-        return "ignore"
+        return "keep" if kept else "ignore"
+
+    def fencing(self, advisory_id: object) -> dict[str, Any]:
+        """The shard and epoch a reply about ``advisory_id`` is sent under (empty when no
+        one has the advisory): a reply the client would send again after a reconnect is
+        dropped, as records are, if the lease lapsed meanwhile (:meth:`allows_bytes`)."""
+        shard = self._shard_of_advisory(advisory_id)
+        if shard is None or shard not in self.publishing:
+            return {}
+        return {"shard": shard, "epoch": self.publishing[shard]}
 
     def _shard_of_advisory(self, advisory_id: object) -> str | None:
         assert self.service is not None
@@ -603,22 +623,47 @@ class Group:
         self._send_status()
 
     def _apply_kept(self, shard: str) -> None:
-        """Commands received as a standby for ``shard`` that its old holder had not applied
-        (the retained advisory did not change after they arrived) are applied now."""
+        """Kept commands for ``shard`` (:meth:`route`) whose effect the advisory taken over
+        lacks are applied now: an acknowledgement unless the advisory is acknowledged
+        already or was raised or escalated after it; a shelving or unshelving unless the
+        retained advisory changed after it arrived (the old holder applied it, or something
+        after it), nor a shelving when one given at or after it is in force."""
         service = self.service
         assert service is not None
-        kept = [c for c in self.commands if c.shard == shard]
-        self.commands = [c for c in self.commands if c.shard != shard]
+        now = service.clock.now()
+        self.commands = [c for c in self.commands if now - c.at < COMMANDS_KEPT_S]
+        # they stay kept (with the time they arrived): the shard may change hands again
+        kept = [c for c in self.commands
+                if (c.shard or self._shard_of_advisory(c.advisory_id)) == shard]
+        book = service.engine.advisories
         for c in kept:
-            record = next((p for p in self.records.values() if p.get("id") == c.advisory_id),
-                          None)
-            h = record.get("handover") if record is not None else None
-            updated = h.get("updated_at") if isinstance(h, dict) else None
-            if isinstance(updated, int | float) and updated >= c.at:
-                continue  # the old holder applied it (or something after it)
-            log.info("applying a %s command for %s received while standing by",
-                     c.message.topic.rsplit("/", 1)[-1], c.advisory_id)
+            verb = self._verb(c)
+            got = book.by_id.get(c.advisory_id)
+            adv = got[0].advisories.get(got[1]) if got is not None else None
+            if verb == "acknowledge":
+                if adv is not None and (adv.acknowledged is not None or any(
+                        h.get("event") in ("raised", "escalated")
+                        and str(h.get("at", "")) > _iso(c.at) for h in adv.history)):
+                    continue  # acknowledged already, or a worse level since
+            else:
+                if verb == "shelve" and adv is not None and adv.shelved is not None \
+                        and str(adv.shelved.get("at", "")) >= _iso(c.at):
+                    continue  # this shelving, or a later one, is in force
+                record = next((p for p in self.records.values()
+                               if p.get("id") == c.advisory_id), None)
+                h = record.get("handover") if record is not None else None
+                updated = h.get("updated_at") if isinstance(h, dict) else None
+                if isinstance(updated, int | float) and updated >= c.at:
+                    continue  # the old holder applied it (or something after it)
+            log.info("applying a kept %s command for %s at the takeover", verb,
+                     c.advisory_id)
             service.handle_command(c.message)
+
+    def _verb(self, c: Buffered) -> str:
+        """The verb of a kept command (``<prefix>/commands/<audience>/<verb>[/<user>]``)."""
+        assert self.service is not None
+        parts = c.message.topic[len(self.service.command_prefix):].split("/")
+        return parts[1] if len(parts) in (2, 3) else parts[-1]
 
     def _send_status(self) -> None:
         service = self.service

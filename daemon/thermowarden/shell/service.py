@@ -680,6 +680,8 @@ class Service:
             identity = m.identity or (parts[2] if len(parts) == 3 else None)
             reply, effects = self.engine.command(verb, m.payload, now, audience=audience,
                                                  identity=identity)
+            if self.group is not None:  # fenced as records are (dropped, not sent late)
+                reply.update(self.group.fencing(_advisory_id(m.payload)))
         label = verb if verb in KNOWN_VERBS else "unknown"
         self.metrics.commands.labels(verb=label, ok=str(reply["ok"]).lower()).inc()
         self.execute(effects)
