@@ -263,7 +263,7 @@ def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
     directory = SiteDirectory.build(engine.config, {})
     space = directory.space("shop")
     assert space is not None
-    card = pages.overview(directory, {"shop": cond}, [], None, _dt.UTC)
+    card = pages.overview(directory, {"shop": cond}.get, [], None, _dt.UTC)
     page = pages.space_page(directory, space, cond, [], [], [], T0, T0 + 3600, None, _dt.UTC)
     adv_page = pages.advisory_page(directory, evs[-1][1]["advisory"], True, None, _dt.UTC,
                                    1800)
