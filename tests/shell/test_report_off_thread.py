@@ -103,6 +103,20 @@ def test_daily_report_leaves_the_tick_interval_alone(tmp_path, system_broker_por
         evaluate()
 
     service.evaluate = timed  # type: ignore[method-assign]
+    real_report = service.daily_report
+
+    def report_that_takes_a_while(*args, **kwargs):
+        """The real report, then the report thread holds until the engine ticked four more
+        times: the ticks must go on while a report is under way, however fast this machine
+        writes it (an idle machine wrote this one in 2 s)."""
+        path = real_report(*args, **kwargs)
+        seen = len(ticks)
+        deadline = time.monotonic() + SLOW
+        while len(ticks) < seen + 4 and time.monotonic() < deadline:
+            time.sleep(0.05)
+        return path
+
+    service.daily_report = report_that_takes_a_while  # type: ignore[method-assign]
     engine = threading.Thread(target=service.run, name="engine", daemon=True)
     engine.start()
     try:
