@@ -889,9 +889,9 @@ class Service:
                 self.metrics.job_errors.labels(job="report", kind="error").inc()
                 log.exception("the daily report failed")
 
-        self.report_thread = threading.Thread(target=work, name="thermowarden-report",
-                                              daemon=True)
-        self.report_thread.start()
+        thread = threading.Thread(target=work, name="thermowarden-report", daemon=True)
+        thread.start()
+        self.report_thread = thread  # published once started: others may join it
 
     def daily_report(self, now: float, config: SiteConfig | None = None,
                      store_path: pathlib.Path | None = None) -> pathlib.Path:
