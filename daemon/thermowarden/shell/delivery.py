@@ -477,22 +477,9 @@ class Delivery:
             parts.append((route, payload))
         if not parts:
             return 0
-        db = self._connect()
-        try:
-            db.execute("BEGIN IMMEDIATE")
-            try:
-                now = self.now()
-                stored = sum(self._stage_route(db, route, payload, now)
-                             for route, payload in parts)
-            except BaseException:
-                db.execute("ROLLBACK")
-                raise
-            db.execute("COMMIT")
-        finally:
-            db.close()
-        if stored:
-            self.wake()
-        return stored
+        now = self.now()
+        return int(self._store_apart(lambda db: sum(
+            self._stage_route(db, route, payload, now) for route, payload in parts)))
 
     def _stage_route(self, db: sqlite3.Connection, route: str, payload: dict[str, Any],
                      now: float) -> bool:
@@ -525,11 +512,17 @@ class Delivery:
     def offer(self, audience: str, payload: dict[str, Any]) -> bool:
         """Store an event's deliveries in a transaction of their own (a caller without the
         store's connection) and wake the workers. False when not wanted or not stored."""
+        return bool(self._store_apart(
+            lambda db: self.stage(db, audience, payload, self.now())))
+
+    def _store_apart(self, store: Callable[[sqlite3.Connection], int | bool]) -> int | bool:
+        """Run ``store`` in a transaction of its own on a connection of its own (rolled back
+        if it fails), then wake the workers if it stored anything; returns what it did."""
         db = self._connect()
         try:
             db.execute("BEGIN IMMEDIATE")
             try:
-                stored = self.stage(db, audience, payload, self.now())
+                stored = store(db)
             except BaseException:
                 db.execute("ROLLBACK")
                 raise
