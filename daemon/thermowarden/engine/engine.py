@@ -38,9 +38,9 @@ from thermowarden.engine.advisories import (
     ADVISORY_REFRESH_S,
     UNKNOWN_LONG_S,
     Advisories,
-    Advisory,
     RuleRuntime,
 )
+from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.crossings import Crossings
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
 from thermowarden.engine.foresight import AHEAD_TEXTS, WINDOW_TEXTS, Foresight
