@@ -357,7 +357,7 @@ def test_overlapping_subscriptions_become_one():
 
 
 def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
-    from thermowarden.report import build_report, render_html
+    from thermowarden.shell.report import build_report, render_html
 
     config = load_site(SITE, {})
     with gzip.open(FEED, "rt", encoding="utf-8") as fh:

@@ -853,7 +853,7 @@ class Service:
         import datetime as dt
         import zoneinfo
 
-        from thermowarden.report import write_reports
+        from thermowarden.shell.report import write_reports
 
         config = config or self.engine.config
         store_path = store_path or self.store.path
