@@ -294,9 +294,9 @@ class Advisories:
 
     # ------------------------------------------------------------------ evaluation
     def unknown_long(self, now: float) -> FloatArray:
-        """Per space: how many rules (other than sensor health) have been unknown for want
-        of an input for at least ``UNKNOWN_LONG_S``."""
-        since = [rt.unknown_since for rt in self.rules if rt.rule.pack != "sensor_health"]
+        """Per space: how many rules (other than those of health packs) have been unknown for
+        want of an input for at least ``UNKNOWN_LONG_S``."""
+        since = [rt.unknown_since for rt in self.rules if not rt.rule.health]
         if not since:
             return np.zeros(self.n)
         counts: FloatArray = (now - np.stack(since) >= UNKNOWN_LONG_S).sum(
@@ -309,7 +309,7 @@ class Advisories:
         parts: list[str] = []
         env = self._ctx.base
         for rt in self.rules:
-            if rt.rule.pack == "sensor_health" or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
+            if rt.rule.health or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
                 continue
             exprs = [e for _, e in rt.rule.levels] + [
                 e for e in (rt.rule.condition, rt.rule.clear) if e is not None]
