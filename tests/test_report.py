@@ -17,7 +17,7 @@ import pytest
 from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.config import load_site
 from thermowarden.replay import read_feed, replay
-from thermowarden.report import build_report, render_html
+from thermowarden.shell.report import build_report, render_html
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"

@@ -440,7 +440,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     import pathlib
 
     from thermowarden.replay import FeedError, read_feed, replay
-    from thermowarden.report import build_report, render_html, stored_events, stored_samples
+    from thermowarden.shell.report import build_report, render_html, stored_events, stored_samples
 
     config = _load_or_report(args.config)
     if config is None:

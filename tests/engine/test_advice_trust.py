@@ -20,7 +20,7 @@ from thermowarden.core import comfort
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.replay import read_feed, replay, summarise
-from thermowarden.rules import _template, load_rule_packs, name_table
+from thermowarden.rules import RulePackError, _template, load_rule_packs, name_table
 from thermowarden.site_check import check_site
 from thermowarden.site_model import build_site_model, filter_covers, minimal_filters
 
@@ -282,15 +282,30 @@ def test_check_warns_about_a_rule_that_could_never_clear(tmp_path):
     assert not any("shading.lower_shading" in w for w in report.warnings), report.warnings
 
 
-def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_path):
+def _health_pack_named(tmp_path, name: str, health: bool = True) -> None:
+    """The built-in sensor_health pack under another name, in the site's packs folder."""
+    text = (REPO / "rules" / "sensor_health.yaml").read_text()
+    assert text.startswith("pack: sensor_health\n") and "\nhealth: true\n" in text
+    text = text.replace("pack: sensor_health", f"pack: {name}", 1)
+    if not health:
+        text = text.replace("\nhealth: true\n", "\n", 1)
+    (tmp_path / "packs" / f"{name}.yaml").write_text(text)
+
+
+@pytest.mark.parametrize("health_pack", ["sensor_health", "site_watch"])
+def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_path,
+                                                                           health_pack):
     """A live advisory whose clear condition cannot be evaluated (here: no globe) is
-    reported to the integrator with the rule and the name."""
+    reported to the integrator with the rule and the name. What makes a pack watch the
+    other rules is its ``health: true``, not its name (``site_watch`` is a copy)."""
     (tmp_path / "packs").mkdir()
     (tmp_path / "packs" / "strict_shading.yaml").write_text(STRICT_SHADING)
+    if health_pack != "sensor_health":
+        _health_pack_named(tmp_path, health_pack)
     site = tmp_path / "site.yaml"
-    site.write_text(textwrap.dedent(WINDOW_ROOM_SITE % "strict_shading, sensor_health"))
+    site.write_text(textwrap.dedent(WINDOW_ROOM_SITE % f"strict_shading, {health_pack}"))
     config = load_site(site, {})
-    packs = load_rule_packs(["strict_shading", "sensor_health"], config.rule_dirs, base=site)
+    packs = load_rule_packs(["strict_shading", health_pack], config.rule_dirs, base=site)
     engine = Engine(config, build_site_model(config), packs, conditions_every_s=0,
                     start=0.0)
     t0 = 1_780_000_000.0
@@ -305,10 +320,24 @@ def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_pa
                    and "/events/" in e.topic and e.payload]
     raised = {e["advisory"]["rule"]: e["advisory"] for e in events if e["event"] == "raised"}
     assert "strict_shading.blinds" in raised
-    health = raised.get("sensor_health.rules_without_inputs")
+    health = raised.get(f"{health_pack}.rules_without_inputs")
     assert health is not None, sorted(raised)
     assert "strict_shading.blinds" in health["advice"]
     assert "globe_temperature" in health["advice"]
+
+
+def test_only_a_health_pack_may_read_rules_unknown_long(tmp_path):
+    """Other rules are evaluated before the count is known: reading it is refused, with the
+    file, line and rule, rather than leaving a rule that could never be evaluated."""
+    (tmp_path / "packs").mkdir()
+    _health_pack_named(tmp_path, "site_watch", health=False)
+    with pytest.raises(RulePackError) as caught:
+        load_rule_packs(["site_watch"], [str(tmp_path / "packs")])
+    text = str(caught.value)
+    assert "site_watch.yaml" in text and "rules_without_inputs" in text, text
+    assert "rules_unknown_long is known only to the rules of a pack with 'health: true'" \
+        in text, text
+    assert re.search(r"site_watch\.yaml:\d+", text), text
 
 
 # ----------------------------------------------------------------------------- pieces
@@ -357,7 +386,7 @@ def test_overlapping_subscriptions_become_one():
 
 
 def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
-    from thermowarden.report import build_report, render_html
+    from thermowarden.shell.report import build_report, render_html
 
     config = load_site(SITE, {})
     with gzip.open(FEED, "rt", encoding="utf-8") as fh:

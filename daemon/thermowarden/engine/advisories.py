@@ -14,7 +14,7 @@ import math
 from collections import deque
 from collections.abc import Callable, Mapping
 from collections.abc import Set as AbstractSet
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Final
 
 import numpy as np
@@ -23,16 +23,12 @@ from thermowarden.config.rule_packs import AUDIENCES, PRIORITIES
 from thermowarden.config.site import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Expression
+from thermowarden.core.json_values import iso, num
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
+from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.evaluation import RuleTruths
-from thermowarden.engine.publication import (
-    EVENT_SCHEMA,
-    REPLY_SCHEMA,
-    Publication,
-    iso,
-    num,
-)
+from thermowarden.engine.publication import EVENT_SCHEMA, REPLY_SCHEMA, Publication
 from thermowarden.engine.texts import Texts, number_at, one_space, values_at
 from thermowarden.rules import (
     HEAT_STRESS_CAUTIONS,
@@ -79,44 +75,6 @@ reviewed within the hour, and an acknowledgement must not silence an urgent aler
 rest of a shift."""
 SHELVE_BUDGET_WINDOW_S: Final = 86_400.0
 """Shelved time is summed over this rolling window for ``max_shelved_per_day_s``."""
-
-
-@dataclass
-class Advisory:
-    """One occurrence of an advisory for one space and rule."""
-
-    id: str
-    space: int
-    rule: str
-    audience: str
-    priority: str
-    state: State
-    raised_at: float
-    updated_at: float
-    title: str = ""
-    advice: str = ""
-    rationale: str = ""
-    numbers: dict[str, Any] = field(default_factory=dict)
-    benefit: dict[str, Any] = field(default_factory=dict)
-    cautions: list[str] = field(default_factory=list)
-    cleared_at: float | None = None
-    acknowledged: dict[str, Any] | None = None
-    shelved: dict[str, Any] | None = None
-    acted_on: dict[str, Any] | None = None
-    chattering: bool = False
-    history: list[dict[str, Any]] = field(default_factory=list)
-    no_effect_text: str = ""
-    """What to say if the advice is acted on and does not help (rendered with the rest)."""
-    effect_overdue: bool = False
-    """Acted on, not cleared in the expected time, and said so."""
-    rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
-    """What the texts were last rendered from (:meth:`Texts.render_key`)."""
-    lowered: bool = False
-    """Its last change of level was down (it is easing until it escalates again)."""
-    numbers_at: float | None = None
-    """When the texts and numbers were last rendered (epoch s): the last evaluation at an
-    event, or at advice acted on, where the rule's condition was not known to be false.
-    None: not known (a record from before)."""
 
 
 class CommandError(ValueError):
@@ -336,9 +294,9 @@ class Advisories:
 
     # ------------------------------------------------------------------ evaluation
     def unknown_long(self, now: float) -> FloatArray:
-        """Per space: how many rules (other than sensor health) have been unknown for want
-        of an input for at least ``UNKNOWN_LONG_S``."""
-        since = [rt.unknown_since for rt in self.rules if rt.rule.pack != "sensor_health"]
+        """Per space: how many rules (other than those of health packs) have been unknown for
+        want of an input for at least ``UNKNOWN_LONG_S``."""
+        since = [rt.unknown_since for rt in self.rules if not rt.rule.health]
         if not since:
             return np.zeros(self.n)
         counts: FloatArray = (now - np.stack(since) >= UNKNOWN_LONG_S).sum(
@@ -351,7 +309,7 @@ class Advisories:
         parts: list[str] = []
         env = self._ctx.base
         for rt in self.rules:
-            if rt.rule.pack == "sensor_health" or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
+            if rt.rule.health or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
                 continue
             exprs = [e for _, e in rt.rule.levels] + [
                 e for e in (rt.rule.condition, rt.rule.clear) if e is not None]

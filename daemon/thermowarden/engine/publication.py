@@ -15,7 +15,6 @@ Topics (``<prefix>`` is ``output.prefix``)::
 from __future__ import annotations
 
 import copy
-import datetime as dt
 import math
 from typing import TYPE_CHECKING, Any, Final
 
@@ -23,13 +22,14 @@ import numpy as np
 
 from thermowarden.config import SiteConfig
 from thermowarden.core.indices import IndexTable
+from thermowarden.core.json_values import iso, num
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.shards import shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.site_model import SITE, SiteModel
 
 if TYPE_CHECKING:
-    from thermowarden.engine.advisories import Advisory
+    from thermowarden.engine.advisory import Advisory
     from thermowarden.engine.state import Snapshot
 
 ADVISORY_SCHEMA: Final = "thermowarden.advisory/1"
@@ -43,17 +43,6 @@ CONDITIONS_MIN_S: Final = 15.0
 """Conditions of a space with new readings go out at most this often (else every minute)."""
 SITE_TOPIC_SPACE: Final = "_site"
 """The space part of event topics for site-wide messages (summaries, digests)."""
-
-
-def iso(t: float) -> str:
-    """UTC ISO 8601 with seconds, for payloads."""
-    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace(
-        "+00:00", "Z")
-
-
-def num(v: float) -> float | None:
-    """A JSON number, or null for NaN/inf (NaN never leaves the process)."""
-    return round(v, 3) if math.isfinite(v) else None
 
 
 def _input_column(snap: Snapshot, q: str) -> tuple[Any, str]:

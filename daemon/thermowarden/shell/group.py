@@ -68,8 +68,8 @@ from thermowarden.shell.leases import Lease, LeaseStore, LeaseStoreError
 from thermowarden.site_model import build_site_model
 
 if TYPE_CHECKING:
+    from thermowarden.shell.engine_host import EngineHost
     from thermowarden.shell.mqtt_link import Incoming
-    from thermowarden.shell.service import Service
 
 log = logging.getLogger("thermowarden.group")
 
@@ -271,7 +271,7 @@ class Group:
         self.rounds: queue.Queue[Round] = queue.Queue()
         self.round: Round | None = None
         self.keeper: LeaseKeeper | None = None
-        self.service: Service | None = None
+        self.service: EngineHost | None = None
         self.publishing: dict[str, int] = {}
         """Shard -> epoch, for the shards this instance may publish for now."""
         self.evaluating: frozenset[str] = frozenset()
@@ -306,7 +306,7 @@ class Group:
         self.shard_by_space = {sp.id: shard_of(sp.id, sp.area, sp.building, buckets)
                                for sp in config.spaces}
 
-    def attach(self, service: Service) -> None:
+    def attach(self, service: EngineHost) -> None:
         self.service = service
         self._site(service.engine.config)
         self._rebuild(frozenset())
