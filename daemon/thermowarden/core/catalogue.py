@@ -309,11 +309,12 @@ column of :func:`~thermowarden.core.indices.compute_indices` (its family complet
 psychrometer's wet and dry bulb where it is not measured)."""
 
 SPACE_FIELDS: Final[tuple[Index, ...]] = (
-    Index("comfort_band_lower", "°C", "Comfort band, lowest", "space", kept="band_lower",
+    Index("comfort_band_lower", "°C", "Comfort band of the space, lowest", "space",
+          kept="band_lower", exported=True),
+    Index("comfort_band_upper", "°C", "Comfort band of the space, highest", "space",
+          kept="band_upper", exported=True),
+    Index("occupied", "", "Whether the space counted as occupied", "space", kept="occupied",
           exported=True),
-    Index("comfort_band_upper", "°C", "Comfort band, highest", "space", kept="band_upper",
-          exported=True),
-    Index("occupied", "", "Occupied", "space", kept="occupied", exported=True),
 )
 """Fields of the space (its comfort band parameters; whether it counted as occupied) that
 the history keeps beside the indices."""
