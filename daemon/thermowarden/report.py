@@ -25,7 +25,9 @@ from typing import Any
 import numpy as np
 
 from thermowarden.config import SiteConfig
+from thermowarden.core import catalogue
 
+OUTDOOR_COLOURS = ("#b5651d", "#6a3d9a", "#1f5f8b")
 SAMPLE_GAP_MAX_S = 900.0
 """A sample counts for the time to the next one, but never more than 15 minutes."""
 ISO_LABELS = ("A", "B", "C", "outside C")
@@ -65,8 +67,8 @@ class SpaceReport:
     wbgt: list[float] = field(default_factory=list)
     ref_u: list[float] = field(default_factory=list)
     ref_a: list[float] = field(default_factory=list)
-    heat_index: list[float] = field(default_factory=list)
-    utci: list[float] = field(default_factory=list)
+    outdoor_lines: dict[str, list[float]] = field(default_factory=dict)
+    """Index name -> its series, for the catalogue's outdoor chart."""
     hours_occupied: float = 0.0
     helped: int = 0
 
@@ -158,8 +160,9 @@ def _series(rep: SpaceReport, sample: dict[str, Any], i: int) -> None:
     rep.wbgt.append(_f(sample["wbgt"][i]))
     rep.ref_u.append(_f(sample["ref_unacclimatised"][i]))
     rep.ref_a.append(_f(sample["ref_acclimatised"][i]))
-    rep.heat_index.append(_f((sample.get("heat_index") or [None] * (i + 1))[i]))
-    rep.utci.append(_f((sample.get("utci") or [None] * (i + 1))[i]))
+    for e in catalogue.drawn("outdoor"):
+        rep.outdoor_lines.setdefault(e.name, []).append(
+            _f((sample.get(e.kept) or [None] * (i + 1))[i]))
 
 
 def build_report(config: SiteConfig, samples: Iterable[dict[str, Any]],
@@ -291,10 +294,12 @@ def _plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> str:
     times = [num(t) for t in rep.t]
     fmt = mdates.DateFormatter("%H:%M" if end - start <= 2 * 86_400 else "%d %b",  # type: ignore[no-untyped-call]
                                tz=tz)
-    if rep.outdoor and any(math.isfinite(v) for v in rep.heat_index + rep.utci):
+    if rep.outdoor and any(math.isfinite(v) for line in rep.outdoor_lines.values()
+                           for v in line):
         fig, ax = plt.subplots(figsize=(9, 2.6))
-        ax.plot(times, rep.heat_index, color="#b5651d", lw=1.4, label="heat index (NWS)")
-        ax.plot(times, rep.utci, color="#6a3d9a", lw=1.2, label="UTCI")
+        for k, e in enumerate(catalogue.drawn("outdoor")):
+            ax.plot(times, rep.outdoor_lines[e.name], color=OUTDOOR_COLOURS[k % 3], lw=1.3,
+                    label=e.label)
         finish(ax)
         out.append(_svg(fig))
     if not rep.outdoor and any(math.isfinite(v) for v in rep.operative):

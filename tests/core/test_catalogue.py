@@ -63,6 +63,11 @@ def test_every_flag_names_something_that_exists():
         assert cat.drawn(chart.key), chart.key
 
 
+def test_demo_columns_fit_its_80_column_view():
+    assert all(len(e.short) <= 8 for e in cat.in_demo())
+    assert 14 + 9 * len(cat.in_demo()) < 80  # space name, then 9 columns per value
+
+
 def test_every_index_has_one_method_that_names_it():
     for e in cat.INDICES:
         assert e.method in cat.METHOD_BY_KEY, e.name

@@ -108,7 +108,8 @@ class Index:
     method: str = ""
     """Key of the :class:`Method` that gives its method, source and limits."""
     short: str = ""
-    """A few characters for a column heading (the demo); empty: not in the demo."""
+    """At most 8 characters for a column heading, with the unit where it helps (the demo's
+    live table); empty: not in the demo."""
     kept: str = ""
     """Key of its array in the stored report samples (the history); empty: not kept."""
     exported: bool = False
@@ -153,7 +154,7 @@ def _adaptive_en() -> Iterable[Index]:
 INDICES: Final[tuple[Index, ...]] = (
     # radiant
     Index("operative_temperature", "°C", "Operative temperature", "radiant", "operative",
-          short="Op.", kept="operative", exported=True, shown="overview", drawn="comfort",
+          short="op °C", kept="operative", exported=True, shown="overview", drawn="comfort",
           key=(COMFORT,)),
     Index("mean_radiant_temperature", "°C", "Mean radiant temperature", "radiant",
           "mean_radiant", shown="space"),
@@ -301,7 +302,7 @@ INPUTS: Final[tuple[Index, ...]] = (
     Index("air_temperature", "°C", "Air temperature", "input", kept="air_temperature",
           drawn="air"),
     Index("relative_humidity", "%", "Relative humidity", "psychrometrics", "psychrometrics",
-          short="RH",
+          short="RH %",
           kept="relative_humidity", shown="overview", drawn="humidity"),
 )
 """Measured quantities the history keeps and the page shows. Relative humidity is also a
@@ -583,6 +584,11 @@ METHODS: Final[tuple[Method, ...]] = (
 EVERYTHING: Final = INDICES + INPUTS + SPACE_FIELDS
 BY_NAME: Final[dict[str, Index]] = {e.name: e for e in EVERYTHING}
 METHOD_BY_KEY: Final[dict[str, Method]] = {m.key: m for m in METHODS}
+
+
+def in_demo() -> tuple[Index, ...]:
+    """The columns of the demo's live table, in catalogue order."""
+    return tuple(e for e in INDICES + INPUTS if e.short)
 
 
 def computed() -> tuple[Index, ...]:
