@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING, Any, Final
 import numpy as np
 
 from thermowarden.config import SiteConfig
+from thermowarden.core import catalogue
 from thermowarden.core.indices import IndexTable
 from thermowarden.core.json_values import iso, num
 from thermowarden.core.quantities import QUANTITIES
@@ -376,8 +377,9 @@ class Publication:
     # ------------------------------------------------------------------ report samples
     def sample(self, table: IndexTable, now: float, occupied: Any = None,
                air_temperature: Any = None) -> dict[str, Any]:
-        """The report sample: a few indices of every space, whether it was occupied and the
-        air temperature (arrays over the spaces; the history the web page plots), NaN as
+        """The report sample: the indices the catalogue keeps (:func:`catalogue.kept`), the
+        space's comfort band, whether it was occupied and the air temperature (arrays over
+        the spaces, under each entry's stored key; the history the web page plots), NaN as
         null."""
 
         def col(name: str) -> list[float | None]:
@@ -389,18 +391,11 @@ class Publication:
                for s in self.config.spaces]
         high = [float(self.config.parameters(s).get("comfort_limit_c", 26.0))
                 for s in self.config.spaces]
-        return {"t": now, "spaces": list(self.model.space_ids),
-                "operative": col("operative_temperature"), "pmv": col("pmv_iso"),
-                "category_iso": col("comfort_category_iso"),
-                "category_en": col("adaptive_en_category"),
-                "en_lower": col("adaptive_en_II_lower"), "en_upper": col("adaptive_en_II_upper"),
-                "band_lower": low, "band_upper": high,
-                "wbgt": col("wbgt_effective"), "ref_unacclimatised":
-                    col("wbgt_reference_unacclimatised"),
-                "ref_acclimatised": col("wbgt_reference_acclimatised"),
-                "heat_index": col("heat_index"), "utci": col("utci"),
-                "occupied": (None if occupied is None
-                             else [bool(x) for x in occupied]),
-                "air_temperature": [num(float(v)) for v in air_temperature]
-                if air_temperature is not None else [None] * len(self.model.space_ids),
-                "relative_humidity": col("relative_humidity"), "dew_point": col("dew_point")}
+        out: dict[str, Any] = {"t": now, "spaces": list(self.model.space_ids)}
+        out.update((e.kept, col(e.name)) for e in catalogue.kept() if e.name in table)
+        fields = {"comfort_band_lower": low, "comfort_band_upper": high,
+                  "occupied": None if occupied is None else [bool(x) for x in occupied],
+                  "air_temperature": [num(float(v)) for v in air_temperature]
+                  if air_temperature is not None else [None] * len(self.model.space_ids)}
+        out.update((catalogue.BY_NAME[k].kept, v) for k, v in fields.items())
+        return out
