@@ -572,6 +572,7 @@ class Group:
         ids = service.engine.model.space_ids
         self.holding = np.array([s in self.publishing for s in pub.shards], dtype=bool)
         service.link.set_subscriptions(self.subscriptions())
+        service.metrics.group_evaluated.set(len(ids))
         service.dirty = True
         if gained or gone:
             log.info("group %s: evaluating %d shard(s), %d space(s) (+%s, -%s)", self.name,
