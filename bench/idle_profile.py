@@ -87,7 +87,7 @@ def measure(cluster: NatsCluster, tmp: pathlib.Path, spaces: int, m: int, window
         load = pathlib.Path("/proc/loadavg").read_text().split()[:3]
         print(f"{spaces} spaces, {m} instance(s), {window:.0f} s idle, load {' '.join(load)}",
               flush=True)
-        for k, ((p, h), b, a) in enumerate(zip(procs, before, after, strict=True)):
+        for k, ((_, h), b, a) in enumerate(zip(procs, before, after, strict=True)):
             held = _metric(h, "thermowarden_group_owned_spaces")
             evaluated = _metric(h, "thermowarden_group_evaluated_spaces")
             main = (a[0] - b[0]) / minutes
