@@ -9,8 +9,9 @@ three-node nats-server cluster; once every space is held, the CPU time of each i
 and printed per thread: the engine thread (the process's main thread) and the others
 together (the MQTT network thread, the lease keeper and its store client, the HTTP server),
 beside the spaces the instance holds and evaluates (held and standby). With ``--profile``
-the first instance runs under cProfile (its engine thread only; its CPU figure then
-includes the profiler's cost) and the functions with the most cumulative time are printed.
+the first instance's engine thread is profiled (cProfile, over the idle window only; its CPU
+figure then includes the profiler's cost) and the functions with the most cumulative and
+own time are printed.
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ import os
 import pathlib
 import pstats
 import shutil
+import signal
 import subprocess
 import sys
 import tempfile
@@ -61,8 +63,9 @@ def measure(cluster: NatsCluster, tmp: pathlib.Path, spaces: int, m: int, window
             http = _free_port()
             head = [sys.executable]
             if profile and k == 0:
-                head += ["-m", "cProfile", "-o", str(prof)]
-            head += ["-m", "thermowarden.cli"]
+                head += [str(pathlib.Path(__file__).with_name("_profiled.py")), str(prof)]
+            else:
+                head += ["-m", "thermowarden.cli"]
             log = open(tmp / f"svc-{prefix}-{k}.log", "wb")  # noqa: SIM115
             procs.append((subprocess.Popen(
                 head + ["run", "--config", str(site), "--state-dir",
@@ -79,10 +82,15 @@ def measure(cluster: NatsCluster, tmp: pathlib.Path, spaces: int, m: int, window
                 raise RuntimeError(f"the group never held every space once: {owned}")
             time.sleep(0.5)
         time.sleep(10.0)
+        if profile:
+            procs[0][0].send_signal(signal.SIGUSR1)
         before = [_threads_cpu(p.pid) for p, _ in procs]
         w0 = time.monotonic()
         time.sleep(window)
         after = [_threads_cpu(p.pid) for p, _ in procs]
+        if profile:
+            procs[0][0].send_signal(signal.SIGUSR2)
+            time.sleep(2.0)
         minutes = (time.monotonic() - w0) / 60
         load = pathlib.Path("/proc/loadavg").read_text().split()[:3]
         print(f"{spaces} spaces, {m} instance(s), {window:.0f} s idle, load {' '.join(load)}",
