@@ -308,7 +308,15 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
     return out
 
 
+def _interrupt(_sig: int, _frame: object) -> None:
+    """SIGTERM ends the bench as Ctrl-C does: the brokers and instances it started stop."""
+    raise KeyboardInterrupt
+
+
 if __name__ == "__main__":
+    import signal as _signal
+
+    _signal.signal(_signal.SIGTERM, _interrupt)
     import json
 
     print(json.dumps(bench_cluster("--quick" in sys.argv)))

@@ -136,5 +136,13 @@ def main() -> None:
         shutil.rmtree(tmp, ignore_errors=True)
 
 
+def _interrupt(_sig: int, _frame: object) -> None:
+    """SIGTERM ends the bench as Ctrl-C does: the brokers and instances it started stop."""
+    raise KeyboardInterrupt
+
+
 if __name__ == "__main__":
+    import signal as _signal
+
+    _signal.signal(_signal.SIGTERM, _interrupt)
     main()
