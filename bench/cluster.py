@@ -137,14 +137,22 @@ def _warm(cluster: NatsCluster) -> None:
     from paho.mqtt.enums import CallbackAPIVersion
 
     for node in cluster.nodes:
-        c = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
-                        protocol=mqtt.MQTTv311)
-        c.connect("127.0.0.1", node.mqtt, 30)
-        c.loop_start()
-        info = c.publish("twwarm/x", b"1", qos=1)
-        info.wait_for_publish(60)
-        c.loop_stop()
-        c.disconnect()
+        deadline = time.monotonic() + 180
+        while True:  # a node may refuse or drop the first clients while it starts
+            c = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
+                            protocol=mqtt.MQTTv311)
+            try:
+                c.connect("127.0.0.1", node.mqtt, 30)
+                c.loop_start()
+                c.publish("twwarm/x", b"1", qos=1).wait_for_publish(60)
+                break
+            except (OSError, RuntimeError, ValueError):
+                if time.monotonic() > deadline:
+                    raise
+                time.sleep(2.0)
+            finally:
+                c.loop_stop()
+                c.disconnect()
 
 
 def _publish(port: int, prefix: str, n: int, spaces: int) -> float:
