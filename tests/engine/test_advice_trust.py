@@ -385,6 +385,31 @@ def test_overlapping_subscriptions_become_one():
         "site/+/ta", "site/room-1/rh"]
 
 
+def test_minimal_filters_equal_every_pair_compared():
+    """Comparing each filter with the kept wildcard filters only keeps what comparing it
+    with every kept filter keeps (a filter without wildcards covers only itself)."""
+    import random
+
+    def every_pair(filters: set[str]) -> list[str]:
+        kept = sorted(filters, key=lambda f: (f.count("#"), f.count("+")), reverse=True)
+        out: list[str] = []
+        for f in kept:
+            if not any(filter_covers(g, f) for g in out):
+                out.append(f)
+        return sorted(out)
+
+    rng = random.Random(24)
+    parts = ["site", "a", "b", "+", "#", "ta", "rh"]
+    for _ in range(500):
+        filters = set()
+        for _ in range(rng.randint(1, 12)):
+            levels = [rng.choice(parts) for _ in range(rng.randint(1, 4))]
+            if "#" in levels:
+                levels = levels[:levels.index("#") + 1]  # '#' only last (MQTT 4.7.1.2)
+            filters.add("/".join(levels))
+        assert minimal_filters(filters) == every_pair(filters), filters
+
+
 def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
     from thermowarden.shell.report import build_report, render_html
 

@@ -274,6 +274,9 @@ class Group:
         self.service: EngineHost | None = None
         self.publishing: dict[str, int] = {}
         """Shard -> epoch, for the shards this instance may publish for now."""
+        self.paused: dict[str, tuple[int, float]] = {}
+        """Shard -> (epoch, wall time of the last tick before) when this instance last
+        stopped publishing for it."""
         self.evaluating: frozenset[str] = frozenset()
         self.holding = np.zeros(0, dtype=bool)
         """Spaces of the shards this instance publishes for."""
@@ -572,6 +575,7 @@ class Group:
         ids = service.engine.model.space_ids
         self.holding = np.array([s in self.publishing for s in pub.shards], dtype=bool)
         service.link.set_subscriptions(self.subscriptions())
+        service.metrics.group_evaluated.set(len(ids))
         service.dirty = True
         if gained or gone:
             log.info("group %s: evaluating %d shard(s), %d space(s) (+%s, -%s)", self.name,
@@ -591,6 +595,10 @@ class Group:
             log.warning("not publishing for shard %s any more (epoch %d: lease %s)", s,
                         self.publishing[s], "lost" if self.round is None
                         or s not in self.round.held else "not confirmed in time")
+            # from the last tick on: its effects may have been fenced already (the lease
+            # ran out while it ran)
+            self.paused[s] = (self.publishing[s], self.last_evaluated
+                              if self.last_evaluated is not None else -math.inf)
         self.publishing = dict(valid)
         pub.epochs.update(valid)
         before = self.holding
@@ -604,8 +612,14 @@ class Group:
             for note in notes:
                 log.warning("%s", note)
             effects += more
+            # conditions at once: all of them when the shard is new here; when publishing
+            # resumes under the same epoch (after a stall of the loop or a late renewal: no
+            # one else held the shard meanwhile), those computed from the last tick before
+            # the pause on, which were fenced (all of them again at every pause made the
+            # next tick long, hence another stall, at 4,000 spaces on a loaded machine)
+            paused_epoch, since = self.paused.pop(shard, (None, math.inf))
             for i, s in enumerate(pub.shards):
-                if s == shard:
+                if s == shard and (paused_epoch != epoch or pub.last_conditions[i] >= since):
                     pub.last_conditions[i] = -math.inf
             log.info("publishing for shard %s under epoch %d (%d space(s), %d live "
                      "advisory(ies) continued)", shard, epoch, len(ids),
