@@ -21,10 +21,13 @@ key-value bucket or a PostgreSQL table). Two threads:
   publishes nothing until a round that began after the stall has read the leases again.
 
 **Fencing.** Every event, retained advisory and conditions record carries its shard and the
-epoch it was published under (and the event id names both); :meth:`Group.fence` drops, at
+epoch it was published under (and the event id names both), and an advisory's records and
+events a sequence number (:mod:`thermowarden.core.record_order`); :meth:`Group.fence` drops, at
 the one place effects are carried out, anything of a shard this instance may not publish
 for now, and an outbox row of an epoch it no longer holds is dropped instead of sent. A
-retained advisory of an older epoch than one already seen for its shard is ignored.
+retained advisory message is taken by the consumer rule of that module: one of an older epoch
+than seen for its shard, or whose (epoch, seq) is not above the newest taken for its
+advisory, is ignored.
 
 **Taking over.** When a shard's lease becomes this instance's, its advisories are
 reconciled with the retained advisory messages of the shard (:meth:`Engine.reconcile`:
@@ -54,12 +57,13 @@ import queue
 import threading
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from thermowarden.config import GroupConfig, SiteConfig
+from thermowarden.core.record_order import NewestSeen
 from thermowarden.core.shards import View, plan, shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
@@ -247,12 +251,6 @@ class Buffered:
     """The advisory's shard when it arrived (None: no advisory of that id was known)."""
 
 
-@dataclass
-class _Seen:
-    newest: dict[str, int] = field(default_factory=dict)
-    """Shard -> the highest epoch seen in a retained advisory message."""
-
-
 class Group:
     """See the module docstring. :meth:`update`, :meth:`receive` and :meth:`fence` run on
     the service's engine thread."""
@@ -281,7 +279,9 @@ class Group:
         self.last_turn: float | None = None
         self.records: dict[str, dict[str, Any]] = {}
         """Retained advisory messages of the site (topic -> payload), newest epoch only."""
-        self.seen = _Seen()
+        self.seen = NewestSeen()
+        """The consumer rule over the retained advisory messages (epoch per shard, order
+        key per advisory)."""
         self.ignored = 0
         """Retained advisory messages not taken: not JSON, or of an older epoch."""
         self.commands: list[Buffered] = []
@@ -404,12 +404,10 @@ class Group:
                 or not _is_int(data.get("epoch")):
             self.ignored += 1
             return
-        shard, epoch = data["shard"], int(data["epoch"])
-        newest = self.seen.newest.get(shard, -1)
-        if epoch < newest:
-            self.ignored += 1  # from a holder fenced since: never taken
+        if not self.seen.accept(data):
+            if not self.seen.is_copy(data):
+                self.ignored += 1  # older than one taken: late, or from a holder fenced since
             return
-        self.seen.newest[shard] = epoch
         self.records[topic] = data
 
     def evaluated(self, now: float) -> None:
