@@ -64,7 +64,7 @@ import numpy as np
 
 from thermowarden.config import GroupConfig, SiteConfig
 from thermowarden.core.record_order import NewestSeen
-from thermowarden.core.shards import View, plan, shard_of
+from thermowarden.core.shards import View, first_standbys, plan, shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.reload import carry_over
@@ -133,6 +133,12 @@ class LeaseKeeper:
         self.standby: frozenset[str] = frozenset()
         self.free_since: dict[str, float] = {}
         self.last_holder: dict[str, str] = {}
+        self.warm_s = 0.0
+        """A shard is handed over only to a standby that has stood by this long (set by
+        :class:`Group`: the site's WBGT window and one TTL)."""
+        self.first_standby: dict[str, str] = {}
+        self.standby_since: dict[str, float] = {}
+        """Shard -> since when its first standby has been ``first_standby[shard]``."""
         self.live_since = clock()
         self.opened = False
         self.listened = False
@@ -185,10 +191,14 @@ class LeaseKeeper:
                     self.free_since.setdefault(s, now)
             for s in [s for s in self.held if holders.get(s) != self.me]:
                 del self.held[s]  # the store says otherwise: not ours
+            for s, m in first_standbys(self.shards, holders, self.last_holder, live).items():
+                if self.first_standby.get(s) != m:
+                    self.first_standby[s] = m
+                    self.standby_since[s] = now
             p = plan(View(self.me, live, self.shards, holders, now, dict(self.free_since),
-                          self.live_since, dict(self.last_holder)),
+                          self.live_since, dict(self.last_holder), dict(self.standby_since)),
                      replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.renew_every,
-                     settle_s=self.cfg.rebalance_after_s)
+                     settle_s=self.cfg.rebalance_after_s, warm_s=self.warm_s)
             for s in p.release:
                 released = self.held.pop(s, None)
                 if released is not None:
@@ -315,6 +325,7 @@ class Group:
         service.link.status_offline["group"] = self.name
         self.keeper = LeaseKeeper(self.store, self.me, self.shards, self.cfg, self.rounds,
                                   self.clock)
+        self.keeper.warm_s = self._warm_s()
 
     def start(self) -> None:
         """Start the lease keeper (when the service starts running)."""
@@ -341,11 +352,21 @@ class Group:
         self._site(self.service.engine.config)
         if self.keeper is not None:
             self.keeper.shards = self.shards
+            self.keeper.warm_s = self._warm_s()
         self._rebuild(self.evaluating)
         self.service.engine.publication.epochs.update(self.publishing)
         self.holding = np.array([s in self.publishing
                                  for s in self.service.engine.publication.shards], dtype=bool)
         self.service.link.set_subscriptions(self.subscriptions())
+
+    def _warm_s(self) -> float:
+        """How long a standby must have stood by for a shard before it is handed the shard:
+        ``standby_warm_s``, by default the site's WBGT window (its 60-minute WBGT is then
+        whole) and one lease TTL (the rounds in which the standby learns of it and starts
+        evaluating)."""
+        if self.cfg.standby_warm_s is not None:
+            return self.cfg.standby_warm_s
+        return float(self.full.ingest.wbgt_window_s) + self.cfg.lease_ttl_s
 
     def _rebuild(self, shards: frozenset[str]) -> None:
         """Make the engine one of the spaces of ``shards`` only, carrying the state of the
