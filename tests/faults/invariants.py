@@ -16,8 +16,8 @@
   come back, and no record the rule drops is newer in content than the one it kept;
 - **evaluated**: no space goes without a conditions record for longer than the lease TTL
   plus one tick plus the conditions cadence (the resolution of this check);
-- **whole**: after a takeover, the 60-minute WBGT is not rebuilt (no ``partial`` window)
-  and is present if it was present before.
+- **whole**: after a takeover, a 60-minute WBGT that was whole before is not rebuilt (no
+  ``partial`` window), and it is present if it was present before.
 
 Each check returns human-readable violations; the test asserts the list is empty and
 prints the figures.
@@ -359,8 +359,13 @@ def check_evaluated(obs: Observed, sc: Scenario, rep: Report) -> None:
 
 def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
     """After the fault: no conditions record says the 60-minute WBGT is being rebuilt
-    (``windows.wbgt_60min.partial``) where the last record before the fault did not, and a
-    space whose time-weighted WBGT was present before the fault has it after."""
+    (``windows.wbgt_60min.partial``) for a space whose window was whole before the fault
+    (its last record before it had the time-weighted WBGT and no partial window), and a
+    space whose time-weighted WBGT was present before the fault has it after.
+
+    (A window that was not whole before the fault, in a run shorter than the window, cannot
+    be whole after it: whether a standby flags it as rebuilt then depends only on whether
+    it began standing by in the second after its holder began, or the one before.)"""
     before: dict[str, bool] = {}
     partial_before: dict[str, bool] = {}
     after_first: dict[str, bool] = {}
@@ -374,7 +379,8 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
             partial_before[space] = is_partial
         else:
             after_first.setdefault(space, present)
-            if is_partial and not partial_before.get(space, False):
+            if is_partial and before.get(space, False) and \
+                    not partial_before.get(space, False):
                 partial.add(space)
     partial -= sc.whole_exempt
     for s in sorted(partial):

@@ -195,3 +195,15 @@ def test_a_storm_of_answers_is_caught():
     msgs = clean() + [msg(60.0 + k / 100, f"{P}/replies", stray) for k in range(20)]
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
     assert any("storm" in v for v in rep.failed()["commands"])
+
+
+def test_a_window_not_whole_before_the_fault_is_not_asked_to_be_whole_after():
+    """A run shorter than the window: before the fault the holder's window was not whole
+    (no time-weighted WBGT), and the standby flags its own as rebuilt after the takeover;
+    no takeover could have done better, so that is no violation."""
+    msgs = [m for m in clean() if not m.topic.endswith("conditions")]
+    msgs += conditions_every(10.0, until=40.0, twa=None)
+    msgs += [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                 cond("s001", 2, partial=True, twa=None)) for k in range(6)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert "whole" not in rep.failed(), rep.summary()
