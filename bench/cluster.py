@@ -91,7 +91,8 @@ def _site(tmp: pathlib.Path, prefix: str, url: str, spaces: int,
         servers = ", ".join(f"'nats://127.0.0.1:{n.client}'" for n in cluster.nodes)
         group = (f"group:\n  name: bench\n  store: {{kind: nats, servers: [{servers}], "
                  f"bucket: {prefix}, stream_replicas: 3}}\n  lease_ttl_s: {LEASE_TTL_S}\n"
-                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n")
+                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n"
+                 "  standby_warm_s: 5\n")  # its rules use no window
     site = tmp / f"site-{prefix}.yaml"
     site.write_text(
         f"site: {{id: cbench, timezone: UTC}}\n"

@@ -130,6 +130,7 @@ class Publication:
             "site": self.config.site.id,
             "shard": shard,
             "epoch": epoch,
+            "seq": adv.seq,
             "space": space_ref(space),
             "rule": adv.rule,
             "audience": adv.audience,
@@ -185,7 +186,7 @@ class Publication:
         """One lifecycle transition of an advisory, as each audience receives it."""
         shard, epoch = self.fence(adv.space)
         return {"schema": EVENT_SCHEMA, "event": event, "at": iso(now), "shard": shard,
-                "epoch": epoch, "advisory": self.advisory_payload(adv)}
+                "epoch": epoch, "seq": adv.seq, "advisory": self.advisory_payload(adv)}
 
     def event_publish(self, adv: Advisory, payload: dict[str, Any]) -> Publish:
         space_id = self.model.space_ids[adv.space]
