@@ -91,3 +91,27 @@ def test_a_unit_is_a_whole_word():
     assert bare_numbers("5 hot")
     assert bare_numbers("3 Kitchens")
     assert bare_numbers("2 mins")
+
+
+@pytest.mark.parametrize("text", [
+    "ISO 7730:2005 6.2 and ASHRAE 55-2020 5.3, ASHRAE Handbook Fundamentals 2017 ch. 1",
+    "ISO 7243:2017 eq. (1)/(2); Table 5.4.2.4",
+    "Environment Canada humidex (Masterson and Richardson 1979)",
+    "the polynomial of Broede and colleagues, 2012); Liljegren et al. (2008)",
+    "ISO 8996:2021 (standard person, 1.8 m²)",
+    "PMV 0.62 (limit 0.5, ISO 7730 category B)",
+    "brings PMV from 0.86 back to 0.5; SET would fall",
+    "PMV, ISO 7730 (scale -3 to +3) 0.6 0.3 0.5 ISO 7730:2005",
+    "the sky's clearness measured now, 0.94.",
+])
+def test_references_citations_and_scales_pass(text):
+    assert problems(text) == []
+
+
+@pytest.mark.parametrize("text", [
+    "Sweat loss 1950",             # a year only after a capitalised word
+    "loss 2017",
+    "PMV 0.6, then the fans 1.0",  # the scale ends at a word that is not a small one
+])
+def test_what_looks_like_a_reference_but_is_not(text):
+    assert bare_numbers(text)

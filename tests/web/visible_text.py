@@ -31,13 +31,19 @@ What a number may be
    number of ``N of M`` counts what the second counts), and a whole number or ``N of M``
    alone in parentheses after words (a heading's count, ``Live advisories (3)``,
    ``Spaces (2 of 12)``); a page number in a pager (``Page 2``).
-5. **A standard or a named scale**: the number of a standard (``ISO 7730``, ``EN 16798-1``,
-   ``ASHRAE 55``, ``ISO 7243:2017``, ``ISO/TS 13732-2``), the number of a category
-   (``category 2``, ``class 1``), a scale's ends (``scale -3 to +3``, ``(-3 to +3)``).
-6. **The value of a dimensionless index** right after its name, with at most one
-   parenthesised note between (``PMV -0.5``, ``PMV (ISO 7730) -0.5``, ``Humidex 34``);
-   the names are :data:`DIMENSIONLESS`. A line break between name and value is allowed
-   (a table row or a card's term and value).
+5. **A standard, a reference or a named scale**: the number of a standard and a clause
+   of it (``ISO 7730``, ``EN 16798-1``, ``ASHRAE 55-2020 5.3``, ``ISO 7730:2005 6.2``,
+   ``ISO/TS 13732-2``), a reference into a document (``ch. 1``, ``eq. (1)/(2)``,
+   ``Table 5.4.2.4``, ``Annex 2``), the year of a citation (``Fundamentals 2017``,
+   ``Richardson 1979``, ``colleagues, 2012``, ``et al. (2008)``: a year from 1900 to 2099
+   after a capitalised word, or in parentheses), the
+   number of a category (``category 2``, ``class 1``), a scale's ends (``scale -3 to +3``,
+   ``(-3 to +3)``).
+6. **The value of a dimensionless index** after its name, with at most one parenthesised
+   note between (``PMV -0.5``, ``PMV (ISO 7730) -0.5``, ``Humidex 34``), and the numbers
+   that follow it joined only by small words (``PMV 0.62 (limit 0.5``, ``PMV from 0.86
+   back to 0.5``, a table row ``PMV 0.6 0.3 0.5``); the names are :data:`DIMENSIONLESS`.
+   A line break between name and value is allowed (a card's term and value).
 7. **Digits inside a word**: a number glued to letters (or to a word by a hyphen) is part
    of a name, not a number
    (``CO2``, ``f2``, ``PM10``, ``B12``, ``north-2``).
@@ -52,8 +58,8 @@ import re
 from typing import Final
 
 UNIT_SYMBOLS: Final = ("°C", "°F", "K", "%", "‰", "m/s", "km/h", "W/m²", "W/m2", "W", "kW",
-                       "Pa", "kPa", "hPa", "g", "kg", "kg/kg", "g/kg", "clo", "met", "lux",
-                       "lx", "ppm", "dB", "mm", "cm", "m", "°", "s", "min", "h", "ms")
+                       "Pa", "kPa", "hPa", "g", "kg", "kg/kg", "g/kg", "clo", "met", "lux", "m²",
+                       "m2", "lx", "ppm", "dB", "mm", "cm", "m", "°", "s", "min", "h", "ms")
 UNIT_WORDS: Final = ("seconds", "second", "minutes", "minute", "hours", "hour", "days",
                      "day", "weeks", "week", "percentage points", "percentage point",
                      "degrees", "degree", "kelvin", "watts", "watt")
@@ -71,7 +77,8 @@ COUNT_NOUNS: Final = (
     "instances", "shard", "shards", "audience", "audiences",
 )
 """Words after a whole number that make it a count (``3 spaces``, ``1 live``, ``2 of 5``)."""
-DIMENSIONLESS: Final = ("PMV", "Humidex", "humidex", "Comfort vote", "comfort vote")
+DIMENSIONLESS: Final = ("PMV", "Humidex", "humidex", "Comfort vote", "comfort vote",
+                        "Sky clearness", "clearness")
 """Names of indices without a unit, whose value directly follows the name."""
 MONTHS: Final = ("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Sept",
                  "Oct", "Nov", "Dec", "January", "February", "March", "April", "June",
@@ -106,7 +113,13 @@ _COVERED: Final = [
     re.compile(r"\bUTC\s?[+-−]\s?\d{1,2}(?::\d{2})?\b|[+-]\d{2}:\d{2}\b"),
     # standards, categories, scales
     re.compile(r"\b(?:ISO(?:/TS|/TR)?|EN|ASHRAE|ANSI|IEC|BS|DIN|NF|ACGIH|NIOSH|CIBSE|TM)"
-               r"\s+\d+(?:[-.]\d+)*(?::\d{4})?(?:[+/]A\d+(?::\d{4})?)?"),
+               r"\s+\d+(?:[-.]\d+)*(?::\d{4})?(?:[+/]A\d+(?::\d{4})?)?"
+               r"(?:(?<=\d{4})\s+\d+(?:\.\d+)+)?"),
+    # references into a document: ch. 1, eq. (1)/(2), clause 6.2, Table 5.4.2.4
+    re.compile(r"\b(?:ch|chapter|eq|Eq|equation|clause|[Aa]nnex|[Aa]ppendix|[Tt]able|"
+               r"[Ss]ection|[Ff]igure|[Ff]ig)\.?\s*\(?\d+(?:\.\d+)*\)?(?:/\(\d+\))*"),
+    # a year of a citation in parentheses (et al. (2008)); after a name: see _YEAR_AFTER
+    re.compile(r"\((?:19|20)\d\d\)"),
     re.compile(r"\b(?:[Cc]ategory|[Cc]lass|[Ll]evel|[Gg]rade|[Pp]age|[Tt]able|[Ss]ection)"
                r"\s+\d+\b"),
     re.compile(r"(?:\b[Ss]cale\s+|\()[-+−]?\d+(?:\.\d+)?\s+to\s+[-+−]?\d+(?:\.\d+)?"),
@@ -115,12 +128,17 @@ _COVERED: Final = [
     # a heading's count: (3), (2 of 12), (2 of 12, 1-50 shown)
     re.compile(r"(?<=[A-Za-z\s])\(\d+(?:\s+of\s+\d+)?(?:,\s*\d+[-–]\d+\s+shown)?\)"),
 ]
+_YEAR = re.compile(r"(?:19|20)\d\d")
+_YEAR_AFTER = re.compile(r"(?:\b[A-Z][A-Za-z]*|\bcolleagues|\bal\.),?\s+$")
+"""What comes before a year of a citation: a capitalised name, ``colleagues``, ``et al.``"""
 _count_nouns = "|".join(sorted(COUNT_NOUNS, key=len, reverse=True))
 _COUNT_AFTER = re.compile(rf"\s+(?:{_count_nouns})\b")
 _dimensionless = "|".join(re.escape(n) for n in DIMENSIONLESS)
+_CONNECTIVE = (r"(?:[-+−]?\d+(?:\.\d+)?|from|to|back|limit|of|at|most|least|below|above|"
+               r"by|now|then|was|is|and|or|the|a|measured|over)")
 _DIMENSIONLESS_BEFORE = re.compile(
     rf"\b(?:{_dimensionless})(?:,\s*(?:ISO|EN|ASHRAE)\s[\w\s-]{{1,12}}?)?"
-    rf"(?:\s*\([^()\n]{{1,60}}\))?[\s:]*$")
+    rf"(?:\s*\([^()\n]{{1,60}}\))?(?:[\s,(:]+{_CONNECTIVE})*[\s,(:]*$")
 
 
 def field_names(text: str) -> list[str]:
@@ -151,7 +169,10 @@ def bare_numbers(text: str) -> list[str]:
         whole = "." not in m.group("num")
         if whole and not m.group("sign") and _COUNT_AFTER.match(after):
             continue
-        if _DIMENSIONLESS_BEFORE.search(text[max(0, m.start() - 80):m.start()]):
+        if (not m.group("sign") and _YEAR.fullmatch(m.group("num"))
+                and _YEAR_AFTER.search(text[max(0, m.start() - 40):m.start()])):
+            continue
+        if _DIMENSIONLESS_BEFORE.search(text[max(0, m.start() - 120):m.start()]):
             continue
         before = text[max(0, m.start() - 30):m.start()].replace("\n", " ⏎ ")
         tail = text[end:end + 20].replace("\n", " ⏎ ")

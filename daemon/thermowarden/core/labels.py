@@ -178,8 +178,54 @@ def readable(text: str) -> str:
             label = QUANTITY_LABELS[name]
         elif name in INDEX_LABELS:
             label = INDEX_LABELS[name][0]
+        elif name in OTHER_VALUE_LABELS:
+            label = OTHER_VALUE_LABELS[name][0]
         else:
             return name.replace("_", " ")
         first = label.split(" ", 1)[0].rstrip(",")
         return label if first.isupper() else label[0].lower() + label[1:]
     return _FIELD.sub(words, text)
+
+
+OTHER_VALUE_LABELS: Final[dict[str, tuple[str, str]]] = {
+    # measured inputs whose canonical unit is a bare ratio
+    "turbulence_intensity": ("Turbulence intensity", "%"),
+    "shading_position": ("Shading lowered", "%"),
+    # sensor health (engine/health.py)
+    "stale_points": ("Points not reporting", "points"),
+    "stuck_points": ("Points stuck on one value", "points"),
+    "implausible_recent": ("Implausible readings refused lately", "readings"),
+    "max_disagreement": ("Largest spread between redundant sensors", "K"),
+    # advice ahead of time (engine/foresight.py)
+    "sky_clearness": ("Sky clearness (0 overcast to 1 clear)", "1"),
+    # expected benefits of the shipped rule packs (rules/*.yaml)
+    "air_speed_needed": ("Air speed needed", "m/s"),
+    "set_after": ("SET afterwards", "°C"),
+    "pmv_after": ("PMV afterwards", "1"),
+    "asymmetry_after": ("Radiant asymmetry afterwards", "K"),
+    "mean_radiant_after": ("Mean radiant temperature afterwards", "°C"),
+    "operative_after": ("Operative temperature afterwards", "°C"),
+    "pd_before": ("Dissatisfied by radiant asymmetry now", "%"),
+    "pd_after": ("Dissatisfied by radiant asymmetry afterwards", "%"),
+}
+"""Words and unit of values that are not indices: inputs in a bare ratio, sensor health,
+and the expected benefits the shipped rule packs name."""
+COUNT_UNITS: Final = frozenset({"points", "readings"})
+"""Units that count things: the value is shown as a whole number of them."""
+
+
+def value_label(name: str) -> str:
+    """The words for any value an advisory shows (index, input, health, benefit)."""
+    if name in INDEX_LABELS:
+        return INDEX_LABELS[name][0]
+    if name in OTHER_VALUE_LABELS:
+        return OTHER_VALUE_LABELS[name][0]
+    return quantity_label(name)
+
+
+def value_unit(name: str) -> str:
+    """The unit a person reads for value ``name`` when its payload gives none ("" when
+    not known)."""
+    if name in INDEX_LABELS:
+        return INDEX_LABELS[name][1]
+    return OTHER_VALUE_LABELS.get(name, ("", ""))[1]

@@ -16,12 +16,14 @@ from typing import Any
 from urllib.parse import quote, urlencode
 
 from thermowarden.core.labels import (
+    COUNT_UNITS,
     event_words,
-    index_label,
     point_tags,
     quantity_label,
     readable,
     state_text,
+    value_label,
+    value_unit,
 )
 from thermowarden.shell.web import plots
 from thermowarden.shell.web.live import SiteDirectory, SpaceInfo
@@ -200,6 +202,9 @@ def fmt_value(item: dict[str, Any] | None, compact: bool = False) -> str:
         return f'<span class="muted" title="{h(reason)}">– <small>({h(reason)})</small></span>'
     if isinstance(v, bool):
         text = "yes" if v else "no"
+    elif unit in COUNT_UNITS and isinstance(v, int | float):
+        n = round(v)
+        return h(f"{n} {unit if n != 1 else unit[:-1]}")
     elif isinstance(v, float):
         text = f"{v:.3f}" if unit == "kg/kg" else f"{v:.1f}" if abs(v) >= 0.1 or v == 0 \
             else f"{v:.2f}"
@@ -654,12 +659,12 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         shown = (f'At {local(a["numbers_at"], tz, "%d %b %H:%M")}' if a.get("numbers_at")
                  else "Said")
         rows = "".join(
-            f'<tr><td data-label="Value">{h(index_label(k))}</td>'
-            f'<td class="num" data-label="{h(shown)}">{fmt_value(v)}</td>'
+            f'<tr><td data-label="Value">{h(value_label(k))}</td>'
+            f'<td class="num" data-label="{h(shown)}">{fmt_value(with_unit(k, v))}</td>'
             + (f'<td class="num" data-label="At clearing">'
-               f'{fmt_value(_at_clearing(v, cleared.get(k)))}</td>'
+               f'{fmt_value(_at_clearing(with_unit(k, v), cleared.get(k)))}</td>'
                if cleared is not None else "")
-            + f'<td class="num" data-label="Threshold">{_threshold(v)}</td>'
+            + f'<td class="num" data-label="Threshold">{_threshold(with_unit(k, v))}</td>'
             f'<td class="note method" data-label="Method">'
             f'{h(readable(v.get("method", "")))}</td></tr>'
             for k, v in a["numbers"].items())
@@ -670,7 +675,8 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                      + rows + "</tbody></table></div>")
     if a.get("benefit"):
         parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
-            f'<dt>{h(index_label(k))}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
+            f'<dt>{h(value_label(k))}</dt><dd>{fmt_value(with_unit(k, v))}</dd>'
+            for k, v in a["benefit"].items())
             + "</dl>")
     # where it stands, in the order it happened: acknowledged by a person, then what the
     # sensors show of the advice carried out
@@ -703,6 +709,13 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                  + "</tbody></table></div>")
     return page(a["title"], "".join(parts), directory, session,
                 here=f"/advisories/{quote(a['id'], safe='')}")
+
+
+def with_unit(name: str, item: dict[str, Any]) -> dict[str, Any]:
+    """``item`` with the unit a person reads for value ``name`` where it gives none."""
+    if item.get("unit"):
+        return item
+    return {**item, "unit": value_unit(name)}
 
 
 def _at_clearing(said: dict[str, Any], value: Any) -> dict[str, Any]:
@@ -742,13 +755,13 @@ def _effect(a: dict[str, Any], followed: bool, tz: dt.tzinfo) -> str:
     out = f"<p>{h(text)}</p>"
     effect = acted.get("effect")
     if effect:
-        unit = effect.get("unit", "")
+        unit = effect.get("unit") or value_unit(str(effect.get("quantity", "")))
         rows = [("when acted on", effect.get("value_then")),
                 ("predicted", effect.get("predicted"))]
         rows += [(f'{c["after_min"]:g} min later', c.get("value"))
                  for c in effect.get("checks", [])]
         out += (f'<div class="scroll"><table><thead><tr>'
-                f'<th>{h(index_label(str(effect.get("quantity", ""))))}'
+                f'<th>{h(value_label(str(effect.get("quantity", ""))))}'
                 '</th><th>Value</th></tr></thead><tbody>'
                 + "".join(f'<tr><td>{h(label)}</td><td class="num">'
                           f'{fmt_value({"value": v, "unit": unit})}</td></tr>'
