@@ -103,6 +103,8 @@ def test_a_unit_is_a_whole_word():
     "brings PMV from 0.86 back to 0.5; SET would fall",
     "PMV, ISO 7730 (scale -3 to +3) 0.6 0.3 0.5 ISO 7730:2005",
     "the sky's clearness measured now, 0.94.",
+    "PMV when acted on 0.7\nPMV predicted 0.5\nPMV 15 min later 0.6",
+    "Sky clearness (0 to 1: overcast to clear) 0.9 1.0 0.6",
 ])
 def test_references_citations_and_scales_pass(text):
     assert problems(text) == []

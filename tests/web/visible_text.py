@@ -42,7 +42,8 @@ What a number may be
 6. **The value of a dimensionless index** after its name, with at most one parenthesised
    note between (``PMV -0.5``, ``PMV (ISO 7730) -0.5``, ``Humidex 34``), and the numbers
    that follow it joined only by small words (``PMV 0.62 (limit 0.5``, ``PMV from 0.86
-   back to 0.5``, a table row ``PMV 0.6 0.3 0.5``); the names are :data:`DIMENSIONLESS`.
+   back to 0.5``, ``PMV 15 min later 0.6``, a table row ``PMV 0.6 0.3 0.5``; the small
+   words are those of ``_CONNECTIVE``); the names are :data:`DIMENSIONLESS`.
    A line break between name and value is allowed (a card's term and value).
 7. **Digits inside a word**: a number glued to letters (or to a word by a hyphen) is part
    of a name, not a number
@@ -135,7 +136,8 @@ _count_nouns = "|".join(sorted(COUNT_NOUNS, key=len, reverse=True))
 _COUNT_AFTER = re.compile(rf"\s+(?:{_count_nouns})\b")
 _dimensionless = "|".join(re.escape(n) for n in DIMENSIONLESS)
 _CONNECTIVE = (r"(?:[-+−]?\d+(?:\.\d+)?|from|to|back|limit|of|at|most|least|below|above|"
-               r"by|now|then|was|is|and|or|the|a|measured|over)")
+               r"by|now|then|was|is|and|or|the|a|measured|over|after|"
+               r"afterwards|before|min|later|when|acted|on|predicted)")
 _DIMENSIONLESS_BEFORE = re.compile(
     rf"\b(?:{_dimensionless})(?:,\s*(?:ISO|EN|ASHRAE)\s[\w\s-]{{1,12}}?)?"
     rf"(?:\s*\([^()\n]{{1,60}}\))?(?:[\s,(:]+{_CONNECTIVE})*[\s,(:]*$")

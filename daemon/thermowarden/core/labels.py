@@ -196,8 +196,12 @@ OTHER_VALUE_LABELS: Final[dict[str, tuple[str, str]]] = {
     "stuck_points": ("Points stuck on one value", "points"),
     "implausible_recent": ("Implausible readings refused lately", "readings"),
     "max_disagreement": ("Largest spread between redundant sensors", "K"),
+    "points_total": ("Points configured", "points"),
+    "rules_unknown_long": ("Rules unable to decide for over 30 minutes", "rules"),
+    "failed_phs": ("PHS computations failed", "times"),
+    "failed_indices": ("Index computations failed", "times"),
     # advice ahead of time (engine/foresight.py)
-    "sky_clearness": ("Sky clearness (0 overcast to 1 clear)", "1"),
+    "sky_clearness": ("Sky clearness (0 to 1: overcast to clear)", "1"),
     # expected benefits of the shipped rule packs (rules/*.yaml)
     "air_speed_needed": ("Air speed needed", "m/s"),
     "set_after": ("SET afterwards", "°C"),
@@ -210,7 +214,7 @@ OTHER_VALUE_LABELS: Final[dict[str, tuple[str, str]]] = {
 }
 """Words and unit of values that are not indices: inputs in a bare ratio, sensor health,
 and the expected benefits the shipped rule packs name."""
-COUNT_UNITS: Final = frozenset({"points", "readings"})
+COUNT_UNITS: Final = frozenset({"points", "readings", "rules", "times"})
 """Units that count things: the value is shown as a whole number of them."""
 
 

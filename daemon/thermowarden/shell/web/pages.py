@@ -756,12 +756,15 @@ def _effect(a: dict[str, Any], followed: bool, tz: dt.tzinfo) -> str:
     effect = acted.get("effect")
     if effect:
         unit = effect.get("unit") or value_unit(str(effect.get("quantity", "")))
-        rows = [("when acted on", effect.get("value_then")),
-                ("predicted", effect.get("predicted"))]
-        rows += [(f'{c["after_min"]:g} min later', c.get("value"))
+        label = value_label(str(effect.get("quantity", "")))
+        # a value without a unit (PMV) is named in each row: "PMV when acted on"
+        name = "" if unit not in ("", "1") else label.split(",")[0].split(" (")[0] + " "
+        rows = [(f"{name}when acted on", effect.get("value_then")),
+                (f"{name}predicted", effect.get("predicted"))]
+        rows += [(f'{name}{c["after_min"]:g} min later', c.get("value"))
                  for c in effect.get("checks", [])]
         out += (f'<div class="scroll"><table><thead><tr>'
-                f'<th>{h(value_label(str(effect.get("quantity", ""))))}'
+                f'<th>{h(label)}'
                 '</th><th>Value</th></tr></thead><tbody>'
                 + "".join(f'<tr><td>{h(label)}</td><td class="num">'
                           f'{fmt_value({"value": v, "unit": unit})}</td></tr>'
