@@ -34,7 +34,7 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     a_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
     a_app.require(between(tpma, 10.0, 33.5),
                   "outside ASHRAE 55 adaptive range: prevailing mean outdoor 10-33.5 °C")
-    a_app.require(between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: met 1.0-1.3")
+    a_app.require(between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: 1.0-1.3 met")
     a_app.require(s.naturally_ventilated, "adaptive comfort applies to occupant-controlled "
                   "naturally ventilated spaces (ASHRAE 55-2020 5.4.1)")
     t_cmf = adaptive.ashrae_comfort_temperature(tpma)
@@ -42,7 +42,7 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
     raised = adaptive.ashrae_air_speed_increase(s.air_speed, operative)
     m55_up = (m55 + " (raised for elevated air speed above 25 °C operative, Table 5.4.2.4: "
-              "+1.2 K from 0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2)")
+              "+1.2 K from 0.6 m/s, +1.8 K from 0.9 m/s, +2.2 K from 1.2 m/s)")
     for band, half in adaptive.ASHRAE_BANDS_K.items():
         out[f"adaptive_ashrae_{band}_lower"] = a_app.column(t_cmf - half, "°C", m55)
         out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half + raised, "°C", m55_up)
@@ -52,7 +52,7 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     en_app.require(between(tpma, 10.0, 30.0),
                    "outside EN 16798-1 adaptive range: running mean outdoor 10-30 °C")
     en_app.require(between(met, 1.0, 1.3), "outside EN 16798-1 adaptive scope: sedentary "
-                   "activity, met 1.0-1.3")
+                   "activity, 1.0-1.3 met")
     en_app.require(s.naturally_ventilated, "EN 16798-1 adaptive limits apply to buildings "
                    "without mechanical cooling (naturally ventilated), not to mechanically "
                    "ventilated spaces")
@@ -67,7 +67,8 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
                     "limit only for a running mean outdoor temperature of 15 °C and above")
     m_en_up = (m_en + " (raised for elevated air speed above 25 °C operative: +1.2 K from "
-               "0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2, as pythermalcomfort's adaptive_en "
+               "0.6 m/s, +1.8 K from 0.9 m/s, +2.2 K from 1.2 m/s, as pythermalcomfort's "
+               "adaptive_en "
                "applies them)")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
         out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)

@@ -96,7 +96,8 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     ash.require(between(pmv_a, -3.0, 3.0) | ~np.isfinite(pmv_a),
                 "outside ASHRAE 55 scope: PMV beyond ±3, the end of the seven-point "
                 "sensation scale (use a heat or cold stress index)")
-    method_a = ("ASHRAE 55-2020 5.3 (vr = v + 0.3 (M - 1) unless relative_air_speed is given; "
+    method_a = ("ASHRAE 55-2020 5.3 (relative air speed: the air speed plus 0.3 m/s for each met "
+                "above 1 met, unless relative_air_speed is given; "
                 "dynamic clothing above 1.2 met; SET-based cooling effect above 0.1 m/s"
                 + assumed + ")")
     out["pmv_ashrae"] = ash.column(pmv_a, "1", method_a)

@@ -93,8 +93,8 @@ def compute(s: SpaceInputs, out: IndexTable, sun: Sun, rh: FloatArray
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
         "convection; planes: posture weights, a plane not measured at the air temperature or "
         "the assumption), or outdoors in the sun without a globe a person (as a sphere, "
-        "short-wave absorptivity 0.7) in the radiation field of Liljegren et al. (2008) (see "
-        "mean_radiant_temperature_source)")
+        "absorbing 70 % of the short-wave radiation) in the radiation field of Liljegren "
+        "et al. (2008) (see mean_radiant_temperature_source)")
     out["mean_radiant_temperature_source"] = app.column(
         np.where(app.ok, source, 0.0), "", "where the mean radiant temperature came "
         "from", MRT_SOURCES)
