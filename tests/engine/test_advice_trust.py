@@ -302,8 +302,8 @@ def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_pa
     assert "strict_shading.blinds" in raised
     health = raised.get(f"{health_pack}.rules_without_inputs")
     assert health is not None, sorted(raised)
-    assert "strict_shading.blinds" in health["advice"]
-    assert "globe_temperature" in health["advice"]
+    # in words: the rule's title and the input it lacks
+    assert "Blinds (Globe temperature)" in health["advice"], health["advice"]
 
 
 def test_only_a_health_pack_may_read_rules_unknown_long(tmp_path):
@@ -403,5 +403,5 @@ def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
     yard = spaces["loading-yard"]
     assert sum(yard.hours_iso.values()) == 0
     html = render_html(config, spaces, result.start, result.end + 1)
-    assert "heat index (NWS)" in html and "UTCI" in html
+    assert "Heat index (NWS)" in html and "UTCI" in html
     assert json.dumps(result.samples[0])  # samples stay plain JSON
