@@ -480,7 +480,7 @@ def main() -> int:
                         help="only the start-up figures (the same as --only startup)")
     parser.add_argument("--cluster", action="store_true",
                         help="also the scale-out figures on a three-node nats-server cluster "
-                             "(bench/cluster.py; 10-20 minutes)")
+                             "(bench/cluster.py; 15-30 minutes)")
     parser.add_argument("--cluster-only", action="store_true",
                         help="only the scale-out figures (the same as --only cluster)")
     parser.add_argument("--only", action="append", default=[], metavar="NAME",

@@ -304,12 +304,15 @@ class Group:
         self.last_evaluated: float | None = None
         self.full: SiteConfig
         self.shard_by_space: dict[str, str] = {}
+        self._shards: list[str] = []
 
     # ------------------------------------------------------------------ wiring
     @property
     def shards(self) -> list[str]:
-        """Every shard of the site."""
-        return sorted(set(self.shard_by_space.values()))
+        """Every shard of the site (kept from :meth:`_site`: it is read at every turn of the
+        engine loop, and listing it from the spaces cost each instance time in proportion
+        to the whole site's size)."""
+        return self._shards
 
     def _site(self, config: SiteConfig) -> None:
         """The whole site (at the start and after a reload): the engine evaluates only the
@@ -318,6 +321,7 @@ class Group:
         buckets = self.cfg.shard_buckets
         self.shard_by_space = {sp.id: shard_of(sp.id, sp.area, sp.building, buckets)
                                for sp in config.spaces}
+        self._shards = sorted(set(self.shard_by_space.values()))
 
     def attach(self, service: EngineHost) -> None:
         self.service = service
