@@ -21,7 +21,8 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
   the site per minute with no message arriving (evaluations every ``TICK_S``, conditions,
   lease renewals or heartbeats), for a site of ``S`` spaces (two sizes: 150 and 600 with
   ``--quick``, 1,000 and 4,000 without); ``cluster_<S>sp_<m>_idle_cpu_per_instance_min_ms``
-  the same per instance per minute.
+  the same per instance per minute. The idle window starts once every space is held
+  once and, with leases, no instance's share has changed for ``STEADY_S``.
 - ``cluster_<S>sp_<m>_evaluated_spaces_per_instance`` and ``..._idle_cpu_each_instance_min_ms``:
   per instance (``/`` between them), the spaces it evaluates (those of the shards it holds
   and stands by for, ``thermowarden_group_evaluated_spaces``) and its own idle CPU per
@@ -70,6 +71,9 @@ SMALL = 150
 TICK_S = 5.0
 LEASE_TTL_S = 15.0
 """Outlasts a JetStream stream leader election (5-11 s measured by the cluster test)."""
+STEADY_S = 20.0
+"""No share changed for this long (eight lease reads, each a sixth of the TTL) before the
+idle window: the group is steady."""
 
 
 class NeverHeld(RuntimeError):
@@ -191,6 +195,27 @@ def _covered(procs: list[tuple[subprocess.Popen[bytes], int]], m: int, spaces: i
         not _has_leases() or all(x > 0 for x in owned))
 
 
+def _shares(procs: list[tuple[subprocess.Popen[bytes], int]]) -> list[tuple[float, float]]:
+    return [(_metric(h, "thermowarden_group_owned_spaces"),
+             _metric(h, "thermowarden_group_evaluated_spaces")) for _, h in procs]
+
+
+def _steady(procs: list[tuple[subprocess.Popen[bytes], int]], quiet_s: float,
+            deadline: float) -> None:
+    """Wait until no instance's held or evaluated spaces have changed for ``quiet_s``: the
+    first instance takes every shard and hands the extra ones over one per lease round
+    after the others join, and a hand-over during the idle window would be counted as
+    idle cost."""
+    last, since = _shares(procs), time.time()
+    while time.time() - since < quiet_s:
+        if time.time() > deadline:
+            raise NeverHeld(f"the group's shares never settled for {quiet_s:.0f} s")
+        time.sleep(1.0)
+        now = _shares(procs)
+        if now != last:
+            last, since = now, time.time()
+
+
 def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s: float,
            n: int | None) -> dict[str, Any]:
     """Start ``m`` instances on a site of ``spaces``; idle CPU, then (``n``) throughput."""
@@ -215,6 +240,8 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
                 raise NeverHeld(f"the group of {m} never held each of {spaces} spaces once "
                                 "in 10 minutes")
             time.sleep(0.2)
+        if _has_leases():  # and no shard still being handed over (a rebuild, a reconcile)
+            _steady(procs, STEADY_S, deadline)
         # idle: the evaluations (every TICK_S), conditions (every 60 s), lease renewals or
         # heartbeats, no message arriving: CPU per space per minute and per instance
         time.sleep(2 * TICK_S)
