@@ -229,6 +229,8 @@ def test_many_messages_at_once_as_one_by_one():
     assert many.rejected == one.rejected
     assert many.accepted_by_quantity == one.accepted_by_quantity
     assert many.missed_by_quantity == one.missed_by_quantity
-    for name in ("last_value", "last_time", "last_source_time", "ring_t", "ring_v",
-                 "ring_head"):
+    for name in ("last_value", "last_time", "last_source_time"):
         np.testing.assert_array_equal(getattr(many_state, name), getattr(one_state, name))
+    for name in ("t", "v", "head"):
+        np.testing.assert_array_equal(getattr(many_state.rings, name),
+                                      getattr(one_state.rings, name))
