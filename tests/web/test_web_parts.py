@@ -13,9 +13,9 @@ import pytest
 
 from thermowarden.config import ConfigError
 from thermowarden.effects import Persist, Publish
-from thermowarden.shell.web.app import BadRequest, parse_time
 from thermowarden.shell.web.live import LiveView
 from thermowarden.shell.web.plots import Band, Chart, Line, render
+from thermowarden.shell.web.requests import BadRequest, parse_time
 from thermowarden.shell.web.users import (
     FAILURES_ALLOWED,
     Sessions,
@@ -171,7 +171,7 @@ def test_time_parameters():
 
 
 def test_openapi_document_ships_and_covers_the_api():
-    from thermowarden.shell.web.app import openapi_document
+    from thermowarden.shell.web.routes.api import openapi_document
 
     doc = openapi_document()
     assert doc["openapi"].startswith("3.")

@@ -10,7 +10,8 @@ from thermowarden.config import SiteConfig
 from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack
 from thermowarden.shell.mqtt_link import Inbox
-from thermowarden.shell.web.app import CommandBridge, WebContext, WebServer, create_app
+from thermowarden.shell.web.app import WebServer, create_app
+from thermowarden.shell.web.context import CommandBridge, WebContext
 from thermowarden.shell.web.history import StoreReader
 from thermowarden.shell.web.live import LiveView, SiteDirectory
 from thermowarden.shell.web.users import Sessions, load_users

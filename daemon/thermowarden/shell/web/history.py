@@ -35,6 +35,8 @@ SAMPLE_FIELDS = {
 """Fields of a space's history; samples written before a field existed give null."""
 
 MAX_PERIOD_S = 8 * 86_400.0
+HISTORY_DEFAULT_S = 86_400.0
+"""A space's page, and the API without ``from``, give this much of the history (s)."""
 EVENTS_LIMIT = 1000
 
 
