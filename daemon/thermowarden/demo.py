@@ -28,9 +28,9 @@ from typing import Any, TextIO
 import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion
 
-VIEW_INDICES = (("operative_temperature", "op °C"), ("pmv_iso", "PMV"),
-                ("relative_humidity", "RH %"), ("wbgt_effective", "WBGT"),
-                ("utci", "UTCI"))
+from thermowarden.core import catalogue
+
+VIEW_INDICES = tuple((e.name, e.short) for e in catalogue.in_demo())
 PRIORITY_MARK = {"low": "·", "medium": "!", "high": "!!", "urgent": "!!!"}
 
 

@@ -26,10 +26,10 @@ few degrees up, the split's formula (made for a higher sun) reads a dawn's few W
 beam, a beam of about 1,000 W/m² where the clearest sky gives 120 (0.5° up) to 400 (2° up);
 the sphere's cross-section term 1/(2 cos z) then warms a person or a globe by tens of
 kelvin at sunrise. With the sun more than about 37° up the bound exceeds anything the split
-can imply (0.85 x 0.9 of the top-of-atmosphere beam) and changes nothing. And its day count since 2000 is one day
-ahead in leap years after 2000 (2004, 2008, ... 2024: it counts that year's 29 February
-from 1 January on); the calendar here comes from the timestamp and is right. The zenith
-angle then differs by up to about 0.1° in those years.
+can imply (0.85 x 0.9 of the top-of-atmosphere beam) and changes nothing. And its day
+count since 2000 is one day ahead in leap years after 2000 (2004, 2008, ... 2024: it counts
+that year's 29 February from 1 January on); the calendar here comes from the timestamp and
+is right. The zenith angle then differs by up to about 0.1° in those years.
 """
 
 from __future__ import annotations

@@ -48,3 +48,7 @@ class Advisory:
     """When the texts and numbers were last rendered (epoch s): the last evaluation at an
     event, or at advice acted on, where the rule's condition was not known to be false.
     None: not known (a record from before)."""
+    seq: int = 0
+    """The order of its records: one more with every retained record (and its event)
+    published, continued by a new holder from the record it takes over
+    (:mod:`thermowarden.core.record_order`)."""

@@ -445,6 +445,7 @@ class Engine:
             mine_before = own.get(adv.id) if own is not None else None
             if mine_before is not None:
                 _merge_own(rt, i, adv, mine_before, now)
+                adv.seq = max(adv.seq, mine_before.adv.seq)
             book._note(adv, now, "moved", by=by)
             effects.append(book._published(adv))
             effects.append(book._persist(adv))

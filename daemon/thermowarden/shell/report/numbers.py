@@ -19,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from thermowarden.config import SiteConfig
+from thermowarden.core import catalogue
 
 SAMPLE_GAP_MAX_S = 900.0
 """A sample counts for the time to the next one, but never more than 15 minutes."""
@@ -55,8 +56,8 @@ class SpaceReport:
     wbgt: list[float] = field(default_factory=list)
     ref_u: list[float] = field(default_factory=list)
     ref_a: list[float] = field(default_factory=list)
-    heat_index: list[float] = field(default_factory=list)
-    utci: list[float] = field(default_factory=list)
+    outdoor_lines: dict[str, list[float]] = field(default_factory=dict)
+    """Index name -> its series, for the catalogue's outdoor chart."""
     hours_occupied: float = 0.0
     helped: int = 0
 
@@ -148,8 +149,9 @@ def _series(rep: SpaceReport, sample: dict[str, Any], i: int) -> None:
     rep.wbgt.append(_f(sample["wbgt"][i]))
     rep.ref_u.append(_f(sample["ref_unacclimatised"][i]))
     rep.ref_a.append(_f(sample["ref_acclimatised"][i]))
-    rep.heat_index.append(_f((sample.get("heat_index") or [None] * (i + 1))[i]))
-    rep.utci.append(_f((sample.get("utci") or [None] * (i + 1))[i]))
+    for e in catalogue.drawn("outdoor"):
+        rep.outdoor_lines.setdefault(e.name, []).append(
+            _f((sample.get(e.kept) or [None] * (i + 1))[i]))
 
 
 def build_report(config: SiteConfig, samples: Iterable[dict[str, Any]],

@@ -9,7 +9,10 @@ import io
 import math
 from typing import Any
 
+from thermowarden.core import catalogue
 from thermowarden.shell.report.numbers import SpaceReport
+
+OUTDOOR_COLOURS = ("#b5651d", "#6a3d9a", "#1f5f8b")
 
 
 def _svg(fig: Any) -> str:
@@ -45,10 +48,12 @@ def space_plots(rep: SpaceReport, tz: dt.tzinfo, start: float, end: float) -> st
     times = [num(t) for t in rep.t]
     fmt = mdates.DateFormatter("%H:%M" if end - start <= 2 * 86_400 else "%d %b",  # type: ignore[no-untyped-call]
                                tz=tz)
-    if rep.outdoor and any(math.isfinite(v) for v in rep.heat_index + rep.utci):
+    if rep.outdoor and any(math.isfinite(v) for line in rep.outdoor_lines.values()
+                           for v in line):
         fig, ax = plt.subplots(figsize=(9, 2.6))
-        ax.plot(times, rep.heat_index, color="#b5651d", lw=1.4, label="heat index (NWS)")
-        ax.plot(times, rep.utci, color="#6a3d9a", lw=1.2, label="UTCI")
+        for k, e in enumerate(catalogue.drawn("outdoor")):
+            ax.plot(times, rep.outdoor_lines[e.name], color=OUTDOOR_COLOURS[k % 3], lw=1.3,
+                    label=e.label)
         finish(ax)
         out.append(_svg(fig))
     if not rep.outdoor and any(math.isfinite(v) for v in rep.operative):

@@ -15,7 +15,7 @@ from starlette.responses import JSONResponse, Response
 
 from thermowarden.core.json_values import iso
 from thermowarden.shell.web.context import WebContext
-from thermowarden.shell.web.history import HISTORY_DEFAULT_S, MAX_PERIOD_S, SAMPLE_FIELDS
+from thermowarden.shell.web.history import HISTORY_DEFAULT_S, MAX_PERIOD_S, UNITS
 from thermowarden.shell.web.requests import BadRequest, error, parse_time
 
 
@@ -76,7 +76,7 @@ async def api_history(ctx: WebContext, request: Request) -> Response:
     for s in samples:
         s["at"] = iso(s.pop("t"))
     return JSONResponse({"space": space.id, "from": iso(start), "to": iso(end),
-                         "units": {k: u for k, (_, u) in SAMPLE_FIELDS.items()},
+                         "units": UNITS,
                          "samples": samples})
 
 
