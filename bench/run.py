@@ -238,7 +238,7 @@ def _memory_child() -> int:
 
 def bench_rules(quick: bool) -> dict[str, float]:
     from thermowarden.engine import Engine
-    from thermowarden.engine.evaluation import rule_truths
+    from thermowarden.engine.rule_truths import rule_truths
     from thermowarden.rules import builtin_pack_names, load_rule_packs
     from thermowarden.site_model import build_site_model
 

@@ -31,8 +31,8 @@ import numpy as np
 
 from thermowarden.core.columns import BoolArray
 from thermowarden.effects import Effect
-from thermowarden.engine.advisories import RuleRuntime
 from thermowarden.engine.engine import Engine
+from thermowarden.engine.rule_runtime import RuleRuntime
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
@@ -100,12 +100,7 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
     sn.outdoor_days.carry(so.outdoor_days)
     sn.wbgt.last_record = so.wbgt.last_record
     ao, an = old.advisories, new.advisories
-    an.flood = {a: deque(v) for a, v in ao.flood.items()}
-    an.suppressed = {a: list(v) for a, v in ao.suppressed.items()}
-    an.last_summary = dict(ao.last_summary)
-    an.episode = {a: (dict(v) if v is not None else None) for a, v in ao.episode.items()}
-    an.raised_count = dict(ao.raised_count)
-    an.cleared_count = dict(ao.cleared_count)
+    an.floods.carry(ao.floods)
     an.last_refresh = ao.last_refresh
     new.start = old.start
     new.last_sample = old.last_sample
