@@ -475,6 +475,9 @@ class Scenario:
     timing: Timing
     commands: list[Command] = field(default_factory=list)
     fault_started: float = 0.0
+    fault_started_wall: float | None = None
+    """The fault's start by the test machine's wall clock (the instances' clock): a
+    window ``rebuilding_since`` then or later was thrown away at a takeover."""
     fault_ended: float = 0.0
     observe_from: float = 0.0
     observe_to: float = 0.0
