@@ -224,8 +224,12 @@ class Instance:
                                         timeout=2) as r:
                 return r.status, r.read().decode()
         except urllib.error.HTTPError as exc:
-            with exc:
-                return exc.code, exc.read().decode()
+            with exc:  # closes its connection now, not whenever the collector runs
+                try:
+                    body = exc.read().decode()
+                except OSError:  # the body timed out on a loaded machine
+                    body = ""
+                return exc.code, body
         except OSError:
             return 0, ""
 
