@@ -15,12 +15,12 @@ from collections import Counter
 from typing import Any
 
 import pytest
+from thermowarden.simulated_feeds.larkfield import DAY, demo_day, night_bake
 
 from tests.conftest import REPO
 from thermowarden.ahead_summary import in_words
 from thermowarden.config import SiteConfig, load_site
 from thermowarden.replay import ReplayResult, read_feed, replay, summarise
-from thermowarden.simulated_feeds.larkfield import DAY, demo_day, night_bake
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
