@@ -25,8 +25,14 @@ def _demo_day() -> str:
     return r.stdout
 
 
-def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy():
-    first = _demo_day()
+@pytest.fixture(scope="module")
+def demo_output() -> str:
+    """One whole demo day's output (shared: a run takes minutes on a loaded machine)."""
+    return _demo_day()
+
+
+def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy(demo_output):
+    first = demo_output
     busy = subprocess.Popen([sys.executable, "-c", "while 1: pass"])
     try:
         second = _demo_day()
@@ -49,6 +55,32 @@ def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy():
     assert len(raised_lines) == counted
     # the day's own numbers: the heat of the afternoon reaches the safety lead
     assert any(" safety " in ln and "Bakery" in ln for ln in raised_lines)
+
+
+def test_demo_shows_each_outcome_of_the_advice_ahead_of_time(demo_output):
+    """Issue 29: the demo shows a crossing foreseen (then turning into the alert), an
+    ahead-of-time advisory withdrawn, and a crossing with no warning (the night bake's steam
+    vent, simulated_feeds/larkfield.py), as it happens and in its summary's words."""
+    lines = demo_output.splitlines()
+
+    def shown(at: str, event: str, title: str) -> bool:
+        return any(ln.startswith(at) and f" {event} " in ln and title in ln for ln in lines)
+
+    # the night bake as it happens: foreseen at 20:16, withdrawn at 20:44 (no crossing),
+    # then the steam vent's sudden crossing at 21:30 with no warning before it
+    assert shown("20:16", "raised", "Heat stress expected in Bakery production floor")
+    assert shown("20:44", "cleared", "Heat stress expected in Bakery production floor")
+    assert shown("21:30", "escalated", "Heat stress above the action value in Bakery")
+    assert not any(ln[:5] in ("21:28", "21:29", "21:30") and "expected" in ln for ln in lines)
+    summary = demo_output.split("demo summary")[1]
+    words = " ".join(summary.split())
+    assert "advice ahead of time" in words
+    assert ("Heat stress expected (ahead.wbgt_action): 3 crossings of Heat stress at high "
+            "priority: 2 foreseen at least 42 minutes ahead (median 43), 1 with no warning "
+            "(bakery-floor at 21:30); 3 advisories ahead of time: 1 withdrawn when the "
+            "forecast no longer held, with no crossing after it.") in words
+    assert ("Sun expected on the windows (ahead.sun_on_windows): 1 crossing of Sun on the "
+            "facade: 1 foreseen 51 minutes ahead") in words
 
 
 def test_demo_stops_after_its_duration():
@@ -137,3 +169,11 @@ def test_service_writes_a_daily_report(tmp_path):
     assert path.name.startswith("larkfield-") and "Second floor office, west facade" in text
     assert "<h2>Summary</h2>" in text
     svc.store.close()
+
+
+def test_the_demo_days_scenario_is_what_the_demo_publishes():
+    from thermowarden.simulated_feeds.larkfield import demo_day
+
+    first = [r for _, r in zip(range(200), scenario_records("larkfield-demo-day"),
+                               strict=False)]
+    assert first == [r for _, r in zip(range(200), demo_day(), strict=False)]
