@@ -18,6 +18,7 @@ from urllib.parse import quote, urlencode
 from thermowarden.core.labels import (
     COUNT_UNITS,
     event_words,
+    index_label,
     point_tags,
     quantity_label,
     readable,
@@ -141,28 +142,29 @@ HOT_WORK_ONLY = frozenset({"wbgt_effective", "wbgt_reference", "wbgt_reference_a
 """Shown only for hot-work spaces: the WBGT assessed against the reference of the workers
 there (ISO 7243) means nothing where nobody works in the heat."""
 SPACE_VALUES = (
-    ("operative_temperature", "Operative temperature"),
-    ("mean_radiant_temperature", "Mean radiant temperature"),
-    ("mean_radiant_temperature_source", "Mean radiant temperature from"),
-    ("globe_temperature_estimated", "Globe temperature, estimated"),
-    ("pmv_iso", "PMV (ISO 7730)"),
-    ("ppd_iso", "PPD (ISO 7730)"),
-    ("comfort_category_iso", "ISO 7730 category"),
-    ("adaptive_en_category", "EN 16798-1 adaptive category"),
-    ("set", "SET"),
-    ("relative_humidity", "Relative humidity"),
-    ("dew_point", "Dew point"),
-    ("draught_rate", "Draught rate"),
-    ("wbgt", "WBGT"),
-    ("wbgt_time_weighted", "WBGT, 60-minute mean"),
-    ("wbgt_effective", "WBGT with clothing adjustment"),
-    ("wbgt_reference", "WBGT reference"),
-    ("wbgt_reference_acclimatised", "WBGT reference for acclimatised workers"),
-    ("wbgt_reference_unacclimatised", "WBGT reference for workers not acclimatised"),
-    ("heat_index", "Heat index"),
-    ("humidex", "Humidex"),
-    ("utci", "UTCI"),
+    "operative_temperature",
+    "mean_radiant_temperature",
+    "mean_radiant_temperature_source",
+    "globe_temperature_estimated",
+    "pmv_iso",
+    "ppd_iso",
+    "comfort_category_iso",
+    "adaptive_en_category",
+    "set",
+    "relative_humidity",
+    "dew_point",
+    "draught_rate",
+    "wbgt",
+    "wbgt_time_weighted",
+    "wbgt_effective",
+    "wbgt_reference",
+    "wbgt_reference_acclimatised",
+    "wbgt_reference_unacclimatised",
+    "heat_index",
+    "humidex",
+    "utci",
 )
+"""The indices of a space's page, in this order, with the words of core/labels.py."""
 CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
            "are screening values; follow local regulations and a qualified occupational "
            "hygienist.")
@@ -615,8 +617,9 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                      + "".join(advisory_item(a, tz, False) for a in recent) + "</ul></details>")
     if c is not None:
         rows = []
-        for key, label in SPACE_VALUES:
+        for key in SPACE_VALUES:
             item = c["indices"].get(key)
+            label = index_label(key)
             if item is None or (key in HOT_WORK_ONLY and not space.hot_work):
                 continue
             if key == "wbgt_reference":
