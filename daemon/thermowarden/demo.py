@@ -346,6 +346,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     sensors.connect(host, port, 30)
     sensors.loop_start()
     interrupted = False
+    day_over = False
     sent = EventCount()
     service.observers.append(sent.observe)
     raised = EngineEvents()
@@ -371,6 +372,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         else:
             driver.step(end)
         dv.wait_for_events(sent, 60.0)
+        day_over = True
         if web_port is not None:
             if not view:
                 shown = _print_new(dv, shown, out)
@@ -386,7 +388,8 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         # wait until its events have reached the watcher before showing the end
         service.request_stop()
         engine_thread.join(30)
-        if not interrupted:
+        if day_over or not interrupted:
+            # (Ctrl-C on the page kept after the day: the summary is still the whole day's)
             dv.wait_for_events(sent, 20.0)
         sensors.loop_stop()
         watcher.loop_stop()

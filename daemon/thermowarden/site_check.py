@@ -129,8 +129,7 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
 def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
     """The web page's users file read exactly as ``run`` reads it: what is wrong, if
     anything (a missing file too)."""
-    from thermowarden.shell.web import users_path
-    from thermowarden.shell.web.users import load_users
+    from thermowarden.shell.web import site_users, users_path
 
     users = users_path(config, path)
     assert users is not None
@@ -139,7 +138,7 @@ def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
                             "exist (create it with `thermowarden web-user NAME --audience "
                             f"AUDIENCE --file {users}`)")]
     try:
-        load_users(users)
+        site_users(config, path)
     except ConfigError as exc:
         return list(exc.issues)
     return []
