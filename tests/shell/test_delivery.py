@@ -24,11 +24,11 @@ from tests.shell.delivery_parts import (
 )
 from thermowarden.config import DeliveryConfig
 from thermowarden.effects import Publish
-from thermowarden.shell.delivery import (
+from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.delivery_channels import (
     DELIVERY_HEADER,
     SIGNATURE_HEADER,
     TIMESTAMP_HEADER,
-    Delivery,
     render_text,
 )
 

@@ -19,8 +19,9 @@ if TYPE_CHECKING:
     from thermowarden.engine import Engine
     from thermowarden.engine.ingest import Rejection
     from thermowarden.shell.clock import Clock
+    from thermowarden.shell.inbox import Inbox
     from thermowarden.shell.metrics import Metrics
-    from thermowarden.shell.mqtt_link import Inbox, MqttLink
+    from thermowarden.shell.mqtt_link import MqttLink
 
 log = logging.getLogger("thermowarden.service")
 

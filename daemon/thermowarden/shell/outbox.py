@@ -32,8 +32,9 @@ if TYPE_CHECKING:
     from thermowarden.shell.clock import Clock
     from thermowarden.shell.delivery import Delivery
     from thermowarden.shell.group import Group
+    from thermowarden.shell.inbox import Control
     from thermowarden.shell.metrics import Metrics
-    from thermowarden.shell.mqtt_link import Control, MqttLink
+    from thermowarden.shell.mqtt_link import MqttLink
     from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")

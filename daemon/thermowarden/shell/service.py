@@ -38,10 +38,11 @@ from thermowarden.shell.clock import Clock, StepWatch
 from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.group import Group
 from thermowarden.shell.heap import freeze_heap
+from thermowarden.shell.inbox import Control, Inbox, Incoming, SensorMessage
 from thermowarden.shell.intake_counts import IntakeCounts
 from thermowarden.shell.logs import RateLimiter
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink, SensorMessage
+from thermowarden.shell.mqtt_link import MqttLink
 from thermowarden.shell.outbox import Outbox
 from thermowarden.shell.reloading import Prepared, Reloads
 from thermowarden.shell.scheduled_jobs import ScheduledJobs
