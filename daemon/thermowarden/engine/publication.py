@@ -396,6 +396,17 @@ class Publication:
             return [None if not ok else round(float(v), 3)
                     for v, ok in zip(c.values, c.present, strict=True)]
 
+        def rounded(values: Any, ok: Any) -> list[float | None]:
+            return [None if not k else round(float(v), 3)
+                    for v, k in zip(values, ok, strict=True)]
+
+        # the WBGT against the references: the 60-minute mean where it existed, and the spot
+        # value apart (both with the clothing adjustment, ISO 7243:2017); "wbgt" is the
+        # value the rules compared (the mean, else the spot value)
+        eff, twa, spot = (table["wbgt_effective"], table["wbgt_time_weighted"],
+                          table["wbgt"])
+        adjustment = eff.values - np.where(twa.present, twa.values, spot.values)
+
         low = [float(self.config.parameters(s).get("comfort_low_c", 20.0))
                for s in self.config.spaces]
         high = [float(self.config.parameters(s).get("comfort_limit_c", 26.0))
@@ -406,7 +417,10 @@ class Publication:
                 "category_en": col("adaptive_en_category"),
                 "en_lower": col("adaptive_en_II_lower"), "en_upper": col("adaptive_en_II_upper"),
                 "band_lower": low, "band_upper": high,
-                "wbgt": col("wbgt_effective"), "ref_unacclimatised":
+                "wbgt": col("wbgt_effective"),
+                "wbgt_60min": rounded(eff.values, eff.present & twa.present),
+                "wbgt_spot": rounded(spot.values + adjustment, eff.present & spot.present),
+                "ref_unacclimatised":
                     col("wbgt_reference_unacclimatised"),
                 "ref_acclimatised": col("wbgt_reference_acclimatised"),
                 "heat_index": col("heat_index"), "utci": col("utci"),
