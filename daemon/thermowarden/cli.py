@@ -144,8 +144,14 @@ def cmd_assess(args: argparse.Namespace) -> int:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
-    from thermowarden.site_check import check_site, grouped_warnings, resolved_map
+    """Validate a site; errors one per line with file:line:column; exit 0 when valid, 1
+    when refused, 3 when valid but a hot-work space gets no heat-stress evaluation."""
+    from thermowarden.site_check import (
+        check_site,
+        grouped_warnings,
+        resolved_map,
+        unsafe_warnings,
+    )
 
     report = check_site(args.config, prepare=_prepare_models)
     if not report.ok:
@@ -157,7 +163,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     assert report.model is not None
     if not args.quiet:
         print("\n".join(resolved_map(report.model)))
-    groups = grouped_warnings(report.warnings)
+    groups = grouped_warnings(report.warnings, where=report.space_positions)
     for w in groups:
         print(f"warning: {w}", file=sys.stderr)
     n = report.model.n_spaces
@@ -165,6 +171,12 @@ def cmd_check(args: argparse.Namespace) -> int:
     print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
           f"{len(report.model.points)} points, {len(report.warnings)} warning(s){grouped})",
           file=sys.stderr)
+    unsafe = unsafe_warnings(report.warnings)
+    if unsafe:
+        print(f"thermowarden check: {len(unsafe)} hot-work space(s) without a heat-stress "
+              "evaluation (exit code 3); the service would run, but would never alert the "
+              "safety lead for them", file=sys.stderr)
+        return 3
     return 0
 
 

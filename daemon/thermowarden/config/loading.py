@@ -253,6 +253,14 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     ``environ`` defaults to the process environment (the shell passes it; tests pass
     their own).
     """
+    return load_site_with_positions(path, environ)[0]
+
+
+def load_site_with_positions(path: str | os.PathLike[str],
+                             environ: Mapping[str, str] | None = None
+                             ) -> tuple[SiteConfig, SourceMap]:
+    """:func:`load_site`, and where each setting is written (file, line, column; spaces
+    from the CSV at their row), for messages about a valid site (``check``'s warnings)."""
     environ = os.environ if environ is None else environ
     p = pathlib.Path(path)
     shown = str(path)
@@ -306,7 +314,7 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     issues.extend(window_issues(config, smap))
     if issues:
         raise ConfigError(issues)
-    return config
+    return config, smap
 
 
 def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathlib.Path
