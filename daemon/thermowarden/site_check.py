@@ -224,7 +224,8 @@ def resolved_map(model: SiteModel) -> list[str]:
     lines: list[str] = []
     by_space: dict[int, list[str]] = {}
     for p in model.points:
-        tags = ", ".join(f"{k} {v}" for k, v in (("side", p.side), ("height", p.height),
+        tags = ", ".join(f"{k} {v}" for k, v in (("side", p.side_as_configured or p.side),
+                                                  ("height", p.height),
                                                   ("sensor", p.sensor)) if v)
         fmt = p.fmt.type
         line = f"    {p.quantity:<26} {p.topic}  [{p.unit or '-'}, {fmt}, every {p.interval_s:g} s"

@@ -66,6 +66,9 @@ class PointSpec:
     """Height above ground of an air_speed or wind_speed sensor (m), from its own point."""
     globe_diameter_m: float | None = None
     globe_emissivity: float | None = None
+    side_as_configured: str | None = None
+    """The side as the site names it (``window``); :attr:`side` is its ISO 7726 direction
+    (``front``), which the computations use."""
 
 
 def _point_key(space_id: str, quantity: str, side: str | None, height: str | None,
@@ -140,7 +143,7 @@ class SiteModel:
                                      spec.format, topic, spec.offset, spec.scale, rate,
                                      stuck or DEFAULT_STUCK_AFTER_S,
                                      spec.height_m, spec.globe_diameter_m,
-                                     spec.globe_emissivity))
+                                     spec.globe_emissivity, side))
         self.point_by_key[key] = pid
         for listener in self.listeners:
             listener(pid)

@@ -288,8 +288,8 @@ def _radiant(s: SpaceInputs, out: IndexTable, sun: Sun, rh: FloatArray
         mrt, "°C", "measured, or ISO 7726:1998 Annex B (globe: larger of natural and forced "
         "convection; planes: posture weights, a plane not measured at the air temperature or "
         "the assumption), or outdoors in the sun without a globe a person (as a sphere, "
-        "short-wave absorptivity 0.7) in the radiation field of Liljegren et al. (2008) (see "
-        "mean_radiant_temperature_source)")
+        "absorbing 70 % of the short-wave radiation) in the radiation field of Liljegren "
+        "et al. (2008) (see mean_radiant_temperature_source)")
     out["mean_radiant_temperature_source"] = app.column(
         np.where(app.ok, source, 0.0), "", "where the mean radiant temperature came "
         "from", MRT_SOURCES)
@@ -492,7 +492,8 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     ash.require(_between(pmv_a, -3.0, 3.0) | ~np.isfinite(pmv_a),
                 "outside ASHRAE 55 scope: PMV beyond ±3, the end of the seven-point "
                 "sensation scale (use a heat or cold stress index)")
-    method_a = ("ASHRAE 55-2020 5.3 (vr = v + 0.3 (M - 1) unless relative_air_speed is given; "
+    method_a = ("ASHRAE 55-2020 5.3 (relative air speed: the air speed plus 0.3 m/s for each met "
+                "above 1 met, unless relative_air_speed is given; "
                 "dynamic clothing above 1.2 met; SET-based cooling effect above 0.1 m/s"
                 + assumed + ")")
     out["pmv_ashrae"] = ash.column(pmv_a, "1", method_a)
@@ -559,7 +560,7 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     a_app.require(np.isfinite(tpma), "input missing: seven daily outdoor means (newest first)")
     a_app.require(_between(tpma, 10.0, 33.5),
                   "outside ASHRAE 55 adaptive range: prevailing mean outdoor 10-33.5 °C")
-    a_app.require(_between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: met 1.0-1.3")
+    a_app.require(_between(met, 1.0, 1.3), "outside ASHRAE 55 adaptive scope: 1.0-1.3 met")
     a_app.require(s.naturally_ventilated, "adaptive comfort applies to occupant-controlled "
                   "naturally ventilated spaces (ASHRAE 55-2020 5.4.1)")
     t_cmf = adaptive.ashrae_comfort_temperature(tpma)
@@ -567,7 +568,7 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     out["adaptive_ashrae_comfort"] = a_app.column(t_cmf, "°C", m55)
     raised = adaptive.ashrae_air_speed_increase(s.air_speed, operative)
     m55_up = (m55 + " (raised for elevated air speed above 25 °C operative, Table 5.4.2.4: "
-              "+1.2 K from 0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2)")
+              "+1.2 K from 0.6 m/s, +1.8 K from 0.9 m/s, +2.2 K from 1.2 m/s)")
     for band, half in adaptive.ASHRAE_BANDS_K.items():
         out[f"adaptive_ashrae_{band}_lower"] = a_app.column(t_cmf - half, "°C", m55)
         out[f"adaptive_ashrae_{band}_upper"] = a_app.column(t_cmf + half + raised, "°C", m55_up)
@@ -577,7 +578,7 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     en_app.require(_between(tpma, 10.0, 30.0),
                    "outside EN 16798-1 adaptive range: running mean outdoor 10-30 °C")
     en_app.require(_between(met, 1.0, 1.3), "outside EN 16798-1 adaptive scope: sedentary "
-                   "activity, met 1.0-1.3")
+                   "activity, 1.0-1.3 met")
     en_app.require(s.naturally_ventilated, "EN 16798-1 adaptive limits apply to buildings "
                    "without mechanical cooling (naturally ventilated), not to mechanically "
                    "ventilated spaces")
@@ -592,7 +593,8 @@ def _comfort(s: SpaceInputs, rh: FloatArray, mrt: FloatArray, operative: FloatAr
     low_app.require(tpma >= 15.0 - UPPER_TOLERANCE, "EN 16798-1 gives the adaptive lower "
                     "limit only for a running mean outdoor temperature of 15 °C and above")
     m_en_up = (m_en + " (raised for elevated air speed above 25 °C operative: +1.2 K from "
-               "0.6 m/s, +1.8 K from 0.9, +2.2 K from 1.2, as pythermalcomfort's adaptive_en "
+               "0.6 m/s, +1.8 K from 0.9 m/s, +2.2 K from 1.2 m/s, as pythermalcomfort's "
+               "adaptive_en "
                "applies them)")
     for cat, (up, down) in adaptive.EN_BANDS_K.items():
         out[f"adaptive_en_{cat}_lower"] = low_app.column(theta_c - down, "°C", m_en)

@@ -23,6 +23,7 @@ from thermowarden.config.rule_packs import AUDIENCES, PRIORITIES
 from thermowarden.config.site import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Expression
+from thermowarden.core.labels import value_label
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
 from thermowarden.engine.evaluation import RuleTruths
@@ -347,7 +348,8 @@ class Advisories:
 
     def unknown_detail(self, i: int, now: float) -> str:
         """Which rules of space ``i`` have been unknown for ``UNKNOWN_LONG_S`` and the names
-        they read that are not known, e.g. ``shading.lower_shading (mean_radiant_temperature)``."""
+        they read that are not known, in words: ``Lower the shading (Mean radiant
+        temperature)``."""
         parts: list[str] = []
         env = self._ctx.base
         for rt in self.rules:
@@ -358,7 +360,9 @@ class Advisories:
             names = sorted({n for e in exprs for n in e.names
                             if n not in rt.params and isinstance(env.get(n), np.ndarray)
                             and env[n].dtype != np.bool_ and not np.isfinite(env[n][i])})
-            parts.append(f"{rt.rule.key} ({', '.join(names) or 'inputs out of range'})")
+            # in words: the rule's title and the inputs it lacks ("Too warm (PMV, ISO 7730)")
+            lacking = ", ".join(value_label(n) for n in names) or "inputs out of range"
+            parts.append(f"{rt.rule.config.title} ({lacking})")
         return "; ".join(parts)
 
     def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,

@@ -302,7 +302,9 @@ class Publication:
                 side = f"{p.quantity}_{p.side}" if p.side and p.quantity in (
                     "plane_radiant_temperature", "radiant_flux") else p.quantity
                 height = f"{p.quantity}_{p.height}" if p.height else p.quantity
-                static.append(({"key": p.key, "quantity": p.quantity, "side": p.side,
+                # the side as the site names it (window), as people configured it
+                static.append(({"key": p.key, "quantity": p.quantity,
+                                "side": p.side_as_configured or p.side,
                                 "height": p.height, "sensor": p.sensor,
                                 "unit": q.unit if q else ""},
                                tuple({p.quantity, side, height})))
