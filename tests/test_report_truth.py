@@ -95,7 +95,7 @@ def wbgt_hours(page: str, space: str) -> tuple[str, str]:
     row = re.search(rf"<tr><td>{re.escape(space)}</td>(.*?)</tr>", page, re.S)
     assert row is not None
     cells = re.findall(r"<td>(.*?)</td>", row.group(1))
-    return cells[4], cells[5]  # WBGT > action, WBGT > limit
+    return cells[-5], cells[-4]  # WBGT > action, WBGT > limit (then 3 columns of advice)
 
 
 def test_no_wbgt_hours_before_the_60_minute_mean_existed(tmp_path):
