@@ -19,8 +19,8 @@ from tests.conftest import COMMAND_LIMIT_S, REPO
 from thermowarden.config import load_site
 from thermowarden.effects import Persist
 from thermowarden.engine.engine import Engine
-from thermowarden.report import SpaceReport, timeline_spans
 from thermowarden.rules import load_rule_packs
+from thermowarden.shell.report import SpaceReport, timeline_spans
 from thermowarden.shell.store import Store
 from thermowarden.site_model import build_site_model
 

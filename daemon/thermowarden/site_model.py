@@ -196,12 +196,20 @@ def filter_covers(wide: str, narrow: str) -> bool:
 def minimal_filters(filters: set[str]) -> list[str]:
     """One subscription per topic: drop every filter another one already covers, so
     that overlapping template and explicit topics do not make the broker deliver a
-    message twice (once per matching subscription)."""
+    message twice (once per matching subscription).
+
+    A filter without wildcards covers only itself, so each filter is compared with the
+    kept wildcard filters only: linear in the number of topics (one instance of a group
+    subscribes to every topic of its spaces, tens of thousands at a large site), where
+    comparing every pair took seconds at 1,500 spaces and grows with the square."""
     kept = sorted(filters, key=lambda f: (f.count("#"), f.count("+")), reverse=True)
     out: list[str] = []
+    wide: list[str] = []
     for f in kept:
-        if not any(filter_covers(g, f) for g in out):
+        if not any(filter_covers(g, f) for g in wide):
             out.append(f)
+            if "+" in f or "#" in f:
+                wide.append(f)
     return sorted(out)
 
 

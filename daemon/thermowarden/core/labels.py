@@ -1,9 +1,10 @@
 """Words a person reads for each index the core computes, with its unit.
 
-One place for the labels of terminal output (``assess``'s table, ``replay --summary``): an
-index's name is a field name for programs; a person reads these words and the unit beside
-the number. ``tests/core/test_labels.py`` checks that every index has words here and that
-the unit is the one the core computes.
+The labels of terminal output (``assess``'s table, ``replay --summary``) and of the web
+page: an index's name is a field name for programs; a person reads these words and the unit
+beside the number. The words are the catalogue's (:mod:`thermowarden.core.catalogue`);
+``tests/core/test_catalogue.py`` checks that every index has them and that the unit is the
+one the core computes.
 """
 
 from __future__ import annotations
@@ -11,73 +12,11 @@ from __future__ import annotations
 import re
 from typing import Final
 
-INDEX_LABELS: Final[dict[str, tuple[str, str]]] = {
-    "mean_radiant_temperature": ("Mean radiant temperature", "°C"),
-    "mean_radiant_temperature_source": ("Mean radiant temperature from", ""),
-    "globe_temperature_estimated": ("Globe temperature, estimated", "°C"),
-    "operative_temperature": ("Operative temperature", "°C"),
-    "relative_humidity": ("Relative humidity", "%"),
-    "dew_point": ("Dew point", "°C"),
-    "wet_bulb": ("Wet-bulb temperature (psychrometric)", "°C"),
-    "humidity_ratio": ("Humidity ratio", "kg/kg"),
-    "radiant_asymmetry_horizontal": ("Radiant asymmetry, window to room", "K"),
-    "radiant_asymmetry_vertical": ("Radiant asymmetry, ceiling to floor", "K"),
-    "radiant_asymmetry": ("Radiant asymmetry, largest", "K"),
-    "radiant_asymmetry_pd": ("Dissatisfied by radiant asymmetry", "%"),
-    "radiant_asymmetry_category": ("Radiant asymmetry category (ISO 7730)", "category"),
-    "draught_rate": ("Draught rate", "%"),
-    "draught_category": ("Draught category (ISO 7730)", "category"),
-    "vertical_temperature_difference": ("Air temperature, head minus ankle", "K"),
-    "vertical_temperature_difference_pd": ("Dissatisfied by head-to-ankle difference", "%"),
-    "vertical_temperature_difference_category": ("Head-to-ankle category (ISO 7730)",
-                                                 "category"),
-    "floor_temperature_pd": ("Dissatisfied by floor temperature", "%"),
-    "floor_temperature_category": ("Floor temperature category (ISO 7730)", "category"),
-    "pmv_iso": ("PMV, ISO 7730 (scale -3 to +3)", "1"),
-    "ppd_iso": ("PPD, ISO 7730", "%"),
-    "comfort_category_iso": ("Comfort category (ISO 7730)", "category"),
-    "pmv_ashrae": ("PMV, ASHRAE 55 (scale -3 to +3)", "1"),
-    "ppd_ashrae": ("PPD, ASHRAE 55", "%"),
-    "cooling_effect": ("Cooling effect of air movement", "K"),
-    "set": ("Standard effective temperature (SET)", "°C"),
-    "cooling_air_speed_needed": ("Air speed needed for comfort", "m/s"),
-    "set_at_cooling_air_speed": ("SET at that air speed", "°C"),
-    "running_mean_outdoor_temperature": ("Outdoor running mean temperature", "°C"),
-    "adaptive_ashrae_comfort": ("Adaptive comfort temperature, ASHRAE 55", "°C"),
-    "adaptive_ashrae_80_lower": ("ASHRAE 55 adaptive, 80 % acceptable, lowest", "°C"),
-    "adaptive_ashrae_80_upper": ("ASHRAE 55 adaptive, 80 % acceptable, highest", "°C"),
-    "adaptive_ashrae_90_lower": ("ASHRAE 55 adaptive, 90 % acceptable, lowest", "°C"),
-    "adaptive_ashrae_90_upper": ("ASHRAE 55 adaptive, 90 % acceptable, highest", "°C"),
-    "adaptive_en_comfort": ("Adaptive comfort temperature, EN 16798-1", "°C"),
-    "adaptive_en_I_lower": ("EN 16798-1 adaptive, category I, lowest", "°C"),
-    "adaptive_en_I_upper": ("EN 16798-1 adaptive, category I, highest", "°C"),
-    "adaptive_en_II_lower": ("EN 16798-1 adaptive, category II, lowest", "°C"),
-    "adaptive_en_II_upper": ("EN 16798-1 adaptive, category II, highest", "°C"),
-    "adaptive_en_III_lower": ("EN 16798-1 adaptive, category III, lowest", "°C"),
-    "adaptive_en_III_upper": ("EN 16798-1 adaptive, category III, highest", "°C"),
-    "adaptive_en_category": ("EN 16798-1 adaptive category", "category"),
-    "natural_wet_bulb_estimated": ("Natural wet-bulb, estimated", "°C"),
-    "wbgt": ("WBGT, spot", "°C"),
-    "metabolic_rate": ("Metabolic rate", "W"),
-    "wbgt_reference_acclimatised": ("WBGT reference, acclimatised workers", "°C"),
-    "wbgt_reference_unacclimatised": ("WBGT reference, workers not acclimatised", "°C"),
-    "wbgt_reference": ("WBGT reference, these workers", "°C"),
-    "wbgt_time_weighted": ("WBGT, 60-minute mean", "°C"),
-    "wbgt_effective": ("WBGT assessed (60-minute mean, else spot)", "°C"),
-    "wbgt_margin_acclimatised": ("Margin below the acclimatised reference", "K"),
-    "wbgt_margin_unacclimatised": ("Margin below the not-acclimatised reference", "K"),
-    "wbgt_margin": ("Margin below the reference (negative: above)", "K"),
-    "phs_rectal_temperature": ("Rectal temperature after the shift (PHS)", "°C"),
-    "phs_sweat_loss": ("Sweat loss over the shift (PHS)", "g"),
-    "phs_limit_rectal": ("Time to the rectal temperature limit (PHS)", "min"),
-    "phs_limit_water_loss_50": ("Time to the water-loss limit, average person (PHS)", "min"),
-    "phs_limit_water_loss_95": ("Time to the water-loss limit, 95 % of people (PHS)", "min"),
-    "heat_index": ("Heat index (NWS)", "°C"),
-    "humidex": ("Humidex", "1"),
-    "utci": ("UTCI, outdoor felt temperature", "°C"),
-    "condensation_margin": ("Coldest surface above the dew point", "K"),
-}
-"""Index name -> (words, unit as the core gives it)."""
+from thermowarden.core.catalogue import BY_NAME, computed
+
+INDEX_LABELS: Final[dict[str, tuple[str, str]]] = {e.name: (e.label, e.unit) for e in computed()}
+"""Index name -> (words, unit as the core gives it), for every column the core computes
+(from :mod:`thermowarden.core.catalogue`)."""
 
 CHANGE_UNIT: Final[dict[str, str]] = {"°C": "K", "1": "", "%": "percentage points"}
 """The unit of a change of an index, by the index's unit (a change in °C is in kelvin)."""
@@ -85,14 +24,14 @@ CHANGE_UNIT: Final[dict[str, str]] = {"°C": "K", "1": "", "%": "percentage poin
 
 def index_label(name: str) -> str:
     """The words for index ``name``; an unknown name is made readable, never shown raw."""
-    if name in INDEX_LABELS:
-        return INDEX_LABELS[name][0]
+    if name in BY_NAME:
+        return BY_NAME[name].label
     return name.replace("_", " ").capitalize()
 
 
 def change_unit(name: str) -> str:
     """The unit in which a change of index ``name`` is read ("K" for a temperature)."""
-    unit = INDEX_LABELS.get(name, ("", ""))[1]
+    unit = BY_NAME[name].unit if name in BY_NAME else ""
     return CHANGE_UNIT.get(unit, unit)
 
 

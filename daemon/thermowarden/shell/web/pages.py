@@ -15,6 +15,7 @@ from html import escape
 from typing import Any
 from urllib.parse import quote, urlencode
 
+from thermowarden.core import catalogue
 from thermowarden.core.labels import (
     COUNT_UNITS,
     event_words,
@@ -127,42 +128,15 @@ SECURITY_HEADERS: dict[str, str] = {
 """Sent with every response of the web page and API (W3C CSP Level 3, including
 ``frame-ancestors``; ``X-Frame-Options`` for browsers without it)."""
 
-OVERVIEW_VALUES = (
-    ("operative_temperature", "Operative temperature"),
-    ("pmv_iso", "PMV (ISO 7730)"),
-    ("relative_humidity", "Relative humidity"),
-    ("wbgt_effective", "WBGT"),
-    ("wbgt_reference", "WBGT reference"),
-    ("utci", "UTCI"),
-    ("heat_index", "Heat index"),
-)
+OVERVIEW_VALUES = catalogue.shown("overview")
+"""On every space's card: the catalogue's overview entries (one for a kind of place only
+with a value)."""
+SPACE_VALUES = catalogue.shown("space")
+"""On the space's page, with a value or why there is none."""
 HOT_WORK_ONLY = frozenset({"wbgt_effective", "wbgt_reference", "wbgt_reference_acclimatised",
                            "wbgt_reference_unacclimatised"})
 """Shown only for hot-work spaces: the WBGT assessed against the reference of the workers
 there (ISO 7243) means nothing where nobody works in the heat."""
-SPACE_VALUES = (
-    ("operative_temperature", "Operative temperature"),
-    ("mean_radiant_temperature", "Mean radiant temperature"),
-    ("mean_radiant_temperature_source", "Mean radiant temperature from"),
-    ("globe_temperature_estimated", "Globe temperature, estimated"),
-    ("pmv_iso", "PMV (ISO 7730)"),
-    ("ppd_iso", "PPD (ISO 7730)"),
-    ("comfort_category_iso", "ISO 7730 category"),
-    ("adaptive_en_category", "EN 16798-1 adaptive category"),
-    ("set", "SET"),
-    ("relative_humidity", "Relative humidity"),
-    ("dew_point", "Dew point"),
-    ("draught_rate", "Draught rate"),
-    ("wbgt", "WBGT"),
-    ("wbgt_time_weighted", "WBGT, 60-minute mean"),
-    ("wbgt_effective", "WBGT with clothing adjustment"),
-    ("wbgt_reference", "WBGT reference"),
-    ("wbgt_reference_acclimatised", "WBGT reference for acclimatised workers"),
-    ("wbgt_reference_unacclimatised", "WBGT reference for workers not acclimatised"),
-    ("heat_index", "Heat index"),
-    ("humidex", "Humidex"),
-    ("utci", "UTCI"),
-)
 CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
            "are screening values; follow local regulations and a qualified occupational "
            "hygienist.")
@@ -407,10 +381,10 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
     rows = []
     if c is not None:
         idx = c["indices"]
-        for key, label in OVERVIEW_VALUES:
+        for e in OVERVIEW_VALUES:
+            key, label = e.name, e.label
             item = idx.get(key)
-            if item is None or (item.get("value") is None and key in (
-                    "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
+            if item is None or (item.get("value") is None and e.place):
                 continue
             if key in HOT_WORK_ONLY and not s.hot_work:
                 continue  # a WBGT reference is for workers in the heat, not an office
@@ -513,36 +487,32 @@ def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
     return [s.get(key) for s in samples]
 
 
+LINE_STYLES = (("#b3471d", ""), ("#1f5f8b", "6 4"), ("#6a3d9a", "2 3"), ("#9a6b00", "8 3 2 3"),
+               ("#4f6d7a", "4 2"))
+"""Colour and dash of a chart's lines in their order (colours told apart also in grey)."""
+
+
 def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, end: float,
                  tz: dt.tzinfo) -> str:
+    """The catalogue's charts for the kind of space, each with the lines it draws (the
+    comfort chart also with the space's comfort band, or its EN 16798-1 band)."""
     times = [s["t"] for s in samples]
-    charts = [plots.Chart(
-        "Operative temperature and comfort band", "°C", times,
-        lines=[plots.Line("operative temperature", _series(samples, "operative_temperature"),
-                          "#b3471d")],
-        bands=([plots.Band("comfort band", _series(samples, "comfort_band_lower"),
-                           _series(samples, "comfort_band_upper"), "#2f7d32")]
-               if space.kind == "indoor" else [])
-        + ([plots.Band("EN 16798-1 category II", _series(samples, "adaptive_en_II_lower"),
-                       _series(samples, "adaptive_en_II_upper"), "#4f6d7a")]
-           if space.ventilation == "natural" else []))]
-    charts.append(plots.Chart(
-        "WBGT and its reference values (ISO 7243)", "°C", times, lines=[
-            plots.Line("WBGT", _series(samples, "wbgt"), "#a1002a"),
-            plots.Line("reference, acclimatised", _series(samples,
-                                                          "wbgt_reference_acclimatised"),
-                       "#9a6b00", "6 4"),
-            plots.Line("reference, unacclimatised",
-                       _series(samples, "wbgt_reference_unacclimatised"), "#4f6d7a", "2 3")]))
-    charts.append(plots.Chart("Relative humidity", "%", times, lines=[
-        plots.Line("relative humidity", _series(samples, "relative_humidity"), "#1f5f8b")]))
-    charts.append(plots.Chart("Air temperature and dew point", "°C", times, lines=[
-        plots.Line("air temperature", _series(samples, "air_temperature"), "#b3471d"),
-        plots.Line("dew point", _series(samples, "dew_point"), "#1f5f8b", "6 4")]))
-    if space.kind == "outdoor":
-        charts.append(plots.Chart("Heat index and UTCI", "°C", times, lines=[
-            plots.Line("heat index (NWS)", _series(samples, "heat_index"), "#b3471d"),
-            plots.Line("UTCI", _series(samples, "utci"), "#6a3d9a", "6 4")]))
+    charts = []
+    for chart in catalogue.CHARTS:
+        if space.kind not in chart.kinds:
+            continue
+        lines = [plots.Line(e.label, _series(samples, e.name), *LINE_STYLES[k % len(LINE_STYLES)])
+                 for k, e in enumerate(catalogue.drawn(chart.key))]
+        bands = []
+        if chart.key == "comfort" and space.kind == "indoor":
+            bands.append(plots.Band("comfort band", _series(samples, "comfort_band_lower"),
+                                    _series(samples, "comfort_band_upper"), "#2f7d32"))
+        if chart.key == "comfort" and space.ventilation == "natural":
+            bands.append(plots.Band("EN 16798-1 category II",
+                                    _series(samples, "adaptive_en_II_lower"),
+                                    _series(samples, "adaptive_en_II_upper"), "#4f6d7a"))
+        charts.append(plots.Chart(catalogue.chart_title(chart), chart.unit, times, lines=lines,
+                                  bands=bands))
     return '<div class="charts">' + "".join(plots.render(c, start, end, tz)
                                             for c in charts) + "</div>"
 
@@ -615,7 +585,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                      + "".join(advisory_item(a, tz, False) for a in recent) + "</ul></details>")
     if c is not None:
         rows = []
-        for key, label in SPACE_VALUES:
+        for e in SPACE_VALUES:
+            key, label = e.name, e.label
             item = c["indices"].get(key)
             if item is None or (key in HOT_WORK_ONLY and not space.hot_work):
                 continue
