@@ -473,11 +473,13 @@ def cmd_report(args: argparse.Namespace) -> int:
     from thermowarden.replay import FeedError, read_feed, replay
     from thermowarden.shell.report import (
         ReportFileError,
+        RuleFacts,
+        ahead_figures,
         build_report,
         last_stored_time,
         render_html,
         report_destination,
-        rule_titles,
+        rule_facts,
         stored_events,
         stored_samples,
         write_report_file,
@@ -505,7 +507,7 @@ def cmd_report(args: argparse.Namespace) -> int:
         # every event the engine raised, also those held back under a flood summary
         samples: Iterable[dict[str, Any]] = result.samples
         events = result.raised_events
-        titles = result.titles
+        rules = RuleFacts(result.titles, result.foresees)
         start = args.start if args.start is not None else result.start
         end = args.end if args.end is not None else result.end + 1
     else:
@@ -532,7 +534,7 @@ def cmd_report(args: argparse.Namespace) -> int:
             start = end - 86_400.0
         samples = stored_samples(path, start, end)
         events = stored_events(path, start - 7 * 86_400, end)
-        titles = rule_titles(config, args.config)
+        rules = rule_facts(config, args.config)
     if end <= start:
         print("thermowarden report: --to must be after --from", file=sys.stderr)
         return 2
@@ -549,8 +551,9 @@ def cmd_report(args: argparse.Namespace) -> int:
                  if any(s.building == args.building for s in config.spaces)
                  else config.level_name("area", None, args.building))
     html_text = render_html(config, build_report(config, samples, events, start, end,
-                                                 only=only, titles=titles),
-                            start, end, scope=scope)
+                                                 only=only, titles=rules.titles),
+                            start, end, scope=scope, rules=rules,
+                            ahead=ahead_figures(events, rules.foresees, start, end, only=only))
     try:
         write_report_file(out, html_text)
     except (ReportFileError, OSError) as exc:

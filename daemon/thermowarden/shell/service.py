@@ -33,7 +33,7 @@ import uuid
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from apscheduler.triggers.cron import CronTrigger
 
@@ -51,6 +51,9 @@ from thermowarden.shell.metrics import Metrics
 from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink, SensorMessage
 from thermowarden.shell.reloading import Prepared, ReloadRefused, finish_reload
 from thermowarden.shell.store import Store
+
+if TYPE_CHECKING:
+    from thermowarden.shell.report import RuleFacts
 
 log = logging.getLogger("thermowarden.service")
 
@@ -833,10 +836,11 @@ class Service:
             log.warning("the daily report is still being written; this one is skipped")
             return
         config, path = self.engine.config, self.store.path
+        rules = self._report_rules()  # read here, on the engine's thread
 
         def work() -> None:
             try:
-                self.daily_report(now, config, path)
+                self.daily_report(now, config, path, rules)
             except Exception:  # noqa: BLE001 - a failed report must not stop the service
                 self.metrics.job_errors.labels(job="report", kind="error").inc()
                 log.exception("the daily report failed")
@@ -845,11 +849,21 @@ class Service:
         thread.start()
         self.report_thread = thread  # published once started: others may join it
 
+    def _report_rules(self) -> RuleFacts:
+        """The engine's rules' titles and what its ahead-of-time rules foresee."""
+        from thermowarden.shell.report import RuleFacts
+
+        return RuleFacts({rt.rule.key: rt.rule.config.title for rt in self.engine.rules},
+                         {rt.rule.key: (f.rule, f.priority) for rt in self.engine.rules
+                          if (f := rt.rule.config.foresees) is not None})
+
     def daily_report(self, now: float, config: SiteConfig | None = None,
-                     store_path: pathlib.Path | None = None) -> pathlib.Path:
+                     store_path: pathlib.Path | None = None,
+                     rules: RuleFacts | None = None) -> pathlib.Path:
         """Write yesterday's reports (local calendar day) next to the store: the site's,
         and one per building or area; returns the site's. Reads the store through a
-        connection of its own (any thread)."""
+        connection of its own (any thread); ``rules``: as :meth:`_report_rules` gives
+        (read on the engine's thread; read here when not given)."""
         import datetime as dt
         import zoneinfo
 
@@ -864,7 +878,7 @@ class Service:
         end = dt.datetime.combine(today, dt.time(0), tz).timestamp()
         began = time.monotonic()
         written = write_reports(config, store_path, store_path.parent / "reports", start, end,
-                                day.isoformat())
+                                day.isoformat(), rules or self._report_rules())
         log.info("daily report written to %s (%d file(s), %.1f s)", written[0], len(written),
                  time.monotonic() - began)
         if self.delivery is not None:

@@ -20,7 +20,9 @@ from thermowarden.shell.report.numbers import (
     PLOT_LIMIT,
     PRIORITY_ORDER,
     SAMPLE_GAP_MAX_S,
+    RuleFacts,
     SpaceReport,
+    ahead_figures,
     build_report,
     rollup_rows,
     rule_words,
@@ -28,14 +30,15 @@ from thermowarden.shell.report.numbers import (
 )
 from thermowarden.shell.report.stored import (
     last_stored_time,
-    rule_titles,
+    rule_facts,
     stored_events,
     stored_samples,
     write_reports,
 )
 
 __all__ = ["CAUTION", "EN_LABELS", "GENERATOR", "ISO_LABELS", "PLOT_LIMIT", "PRIORITY_ORDER",
-           "SAMPLE_GAP_MAX_S", "ReportFileError", "SpaceReport", "build_report",
+           "SAMPLE_GAP_MAX_S", "ReportFileError", "RuleFacts", "SpaceReport", "ahead_figures",
+           "build_report",
            "last_stored_time", "made_by_report", "render_html", "report_destination",
-           "rollup_rows", "rule_titles", "rule_words", "stored_events", "stored_samples",
+           "rollup_rows", "rule_facts", "rule_words", "stored_events", "stored_samples",
            "timeline_spans", "write_report_file", "write_reports"]

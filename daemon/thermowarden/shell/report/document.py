@@ -13,6 +13,7 @@ from thermowarden.shell.report.files import GENERATOR
 from thermowarden.shell.report.numbers import (
     ISO_LABELS,
     PLOT_LIMIT,
+    RuleFacts,
     SpaceReport,
     rollup_rows,
     where_in_site,
@@ -60,9 +61,12 @@ def _rollup_html(config: SiteConfig, spaces: dict[str, SpaceReport]) -> str:
 
 
 def render_html(config: SiteConfig, spaces: dict[str, SpaceReport], start: float,
-                end: float, scope: str | None = None) -> str:
+                end: float, scope: str | None = None, rules: RuleFacts | None = None,
+                ahead: list[dict[str, Any]] | None = None) -> str:
     """The report as one self-contained HTML document (inline CSS and SVG, no scripts).
-    ``scope`` names the part of the site reported (a building) in the title."""
+    ``scope`` names the part of the site reported (a building) in the title; ``rules``: the
+    rules' titles; ``ahead``: the measured figures of the ahead-of-time advice
+    (:func:`~thermowarden.shell.report.numbers.ahead_figures`), a section of their own."""
     import zoneinfo
 
     tz = zoneinfo.ZoneInfo(config.site.timezone)
@@ -137,6 +141,8 @@ Advisory only: nothing was switched or moved by thermowarden.</p>
                  "counted only where that mean existed (at least 48 of the last 60 minutes "
                  "covered). Advice acted on: the equipment was put as advised (an "
                  "acknowledgement is not an action).</p></section>")
+    if ahead:
+        parts.append(_ahead_html(config, ahead, rules or RuleFacts(), tz))
     detailed = len(spaces) <= PLOT_LIMIT
     if not detailed and scope is None:
         parts.append(f"<p class=note>{len(spaces)} spaces: the plots and advisories of each "
@@ -215,3 +221,65 @@ def _effect_text(a: dict[str, Any]) -> str:
             words += (f"; {name} {eff['realised_change']:+.1f} realised, {name} "
                       f"{eff['predicted_change']:+.1f} predicted")
     return words
+
+
+def _minutes(v: float) -> str:
+    return f"{v:.0f} min"
+
+
+def _ahead_html(config: SiteConfig, figures: list[dict[str, Any]], rules: RuleFacts,
+                tz: dt.tzinfo) -> str:
+    """Measured, not promised: per rule with ahead-of-time advice, in words with units."""
+    e = html.escape
+    names = {s.id: s.name or s.id for s in config.spaces}
+    out = ["<section id=ahead><h2>Advice ahead of time, measured</h2>",
+           "<p>For each kind of advice given before a crossing happens: how many crossings "
+           "of the period it foresaw and how long before, its advisories that were not "
+           "followed by the crossing, and the crossings that came with no warning.</p>",
+           "<div class=wide><table class=ahead><tr><th>advice ahead of time</th>"
+           "<th>what it foresees</th><th>crossings foreseen</th>"
+           "<th>warned ahead by</th><th>not followed by the crossing</th>"
+           "<th>crossings with no warning</th></tr>"]
+    for r in figures:
+        target, priority = rules.foresees.get(r["rule"], (r["foresees"], None))
+        what = rules.titles.get(target) or target.rsplit(".", 1)[-1].replace("_", " ")
+        if priority is not None:
+            what += f", raised at {priority} priority or above"
+        n, seen = r["crossings"], r["foreseen"]
+        foreseen = ("no crossing" if n == 0
+                    else f"{seen} of {_count(n, 'crossing', 'crossings')}")
+        lead = r["lead_min"]
+        warned = ("-" if lead is None else
+                  f"{_minutes(lead['min'])} at least, median {_minutes(lead['median'])}")
+        parts = []
+        if r["withdrawn"]:
+            parts.append(f"{_count(r['withdrawn'], 'advisory', 'advisories')} withdrawn "
+                         "(the forecast no longer held)")
+        if r["acted_on"]:
+            parts.append(f"{_count(r['acted_on'], 'advisory', 'advisories')} whose advice "
+                         "was acted on (no crossing came)")
+        if r["live_at_end"]:
+            parts.append(f"{_count(r['live_at_end'], 'advisory', 'advisories')} still "
+                         "live at the end of the data")
+        not_followed = "; ".join(parts) if parts else "none"
+        if r["unwarned"]:
+            where = ", ".join(
+                f"{names.get(c['space'], c['space'])} at "
+                f"{dt.datetime.fromisoformat(c['at']).astimezone(tz):%H:%M}"
+                for c in r["unwarned_crossings"])
+            more = r["unwarned"] - len(r["unwarned_crossings"])
+            unwarned = (f"{_count(r['unwarned'], 'crossing', 'crossings')}: {where}"
+                        + (f" and {_count(more, 'other', 'others')}" if more > 0 else ""))
+        else:
+            unwarned = "none"
+        out.append(f"<tr><td>{e(rules.titles.get(r['rule']) or r['rule'])}</td>"
+                   f"<td>{e(what)}</td><td>{e(foreseen)}</td><td>{e(warned)}</td>"
+                   f"<td>{e(not_followed)}</td><td>{e(unwarned)}</td></tr>")
+    out.append("</table></div><p class=note>A crossing: the advice foreseen was raised, at the "
+               "priority given or above (or rose to it). Foreseen: an advisory ahead of "
+               "time was live for that space when it happened; warned ahead by: the minutes "
+               "from that advisory to the crossing. Withdrawn: it cleared by itself before "
+               "any crossing (the trend turned, the sky clouded over). A forecast from a "
+               "trend is not a weather forecast.</p></section>")
+    return "\n".join(out)
+

@@ -25,6 +25,8 @@ import numpy as np
 
 from thermowarden.config import SiteConfig
 from thermowarden.core import catalogue
+from thermowarden.core.ahead_summary import ahead_summary
+from thermowarden.core.event_lines import event_line
 
 PRIORITY_ORDER = ("low", "medium", "high", "urgent")
 SAMPLE_GAP_MAX_S = 900.0
@@ -73,6 +75,15 @@ class SpaceReport:
     helped: int = 0
     data_end: float | None = None
     """The time of the last sample or advisory event of the report in the period (epoch s)."""
+
+
+@dataclass(frozen=True)
+class RuleFacts:
+    """What a report needs of the site's rules: each rule's title (the words shown for it)
+    and, per rule with ahead-of-time advice, the rule and priority it foresees."""
+
+    titles: dict[str, str] = field(default_factory=dict)
+    foresees: dict[str, tuple[str, str | None]] = field(default_factory=dict)
 
 
 def _weights(times: list[float], end: float) -> np.ndarray:
@@ -357,3 +368,19 @@ def rule_words(a: dict[str, Any]) -> str:
     if a.get("rule_title"):
         return str(a["rule_title"])
     return str(a["rule"]).rsplit(".", 1)[-1].replace("_", " ").capitalize()
+
+
+def ahead_figures(events: list[dict[str, Any]], foresees: dict[str, tuple[str, str | None]],
+                  start: float, end: float, only: Collection[str] | None = None
+                  ) -> list[dict[str, Any]]:
+    """Measured, not promised: per rule with ahead-of-time advice, the crossings of the
+    period (and of the spaces ``only``, None: all) it foresaw, its lead times, its advisories
+    withdrawn or never followed by the crossing, and the crossings that came with no warning
+    (the figures of ``replay --summary``: :func:`thermowarden.core.ahead_summary.ahead_summary`
+    over the period). ``events``: the stored advisory events, as published (those before
+    the period too: an advisory raised before it may foresee a crossing in it; those after
+    it are left out, as a store read up to the end gives them)."""
+    lines = [event_line(e) for e in events
+             if e.get("event") != "summary" and "advisory" in e and _ts(e["at"]) < end
+             and (only is None or e["advisory"]["space"]["id"] in only)]
+    return ahead_summary(lines, foresees, end, start=start)
