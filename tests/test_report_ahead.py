@@ -64,8 +64,8 @@ def section(page: str) -> str:
 def rows(page: str) -> dict[str, dict[str, str]]:
     """Rule title -> its row's cells, as a person reads them."""
     out = {}
-    for row in re.findall(r"<tr><td>(.*?)</td></tr>", section(page), re.S):
-        cells = [html_lib.unescape(c) for c in row.split("</td><td>")]
+    for row in re.findall(r"<tr>(<td.*?)</tr>", section(page), re.S):
+        cells = [html_lib.unescape(c) for c in re.findall(r"<td[^>]*>(.*?)</td>", row)]
         out[cells[0]] = dict(zip(COLUMNS[1:], cells[1:], strict=True))
     return out
 

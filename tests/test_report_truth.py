@@ -36,10 +36,10 @@ def run_report(*args: str, cwd=None) -> subprocess.CompletedProcess[str]:
 
 
 def advisory_rows(page: str) -> list[tuple[str, str]]:
-    """(title, priority) of every row of the advisories tables."""
+    """(title, priority) of every level of every advisory of the advisories tables."""
     rows = []
-    for table in re.findall(r"<table class=advisories>(.*?)</table>", page, re.S):
-        for title, priority in re.findall(r"<tr><td>([^<]*)</td><td>([^<]*)</td>", table):
+    for table in re.findall(r'<table class="advisories cards">(.*?)</table>', page, re.S):
+        for priority, title in re.findall(r"<li>[\d:-]+ <b>(\w+)</b>: ([^<]*)</li>", table):
             rows.append((html_lib.unescape(title), priority))
     return rows
 
@@ -94,7 +94,7 @@ def feed_of_bakery(minutes: int, tg: float = 40.0, tnw: float = 30.0) -> list[di
 def wbgt_hours(page: str, space: str) -> tuple[str, str]:
     row = re.search(rf"<tr><td>{re.escape(space)}</td>(.*?)</tr>", page, re.S)
     assert row is not None
-    cells = re.findall(r"<td>(.*?)</td>", row.group(1))
+    cells = re.findall(r"<td[^>]*>(.*?)</td>", row.group(1))
     return cells[-5], cells[-4]  # WBGT > action, WBGT > limit (then 3 columns of advice)
 
 
@@ -111,7 +111,7 @@ def test_no_wbgt_hours_before_the_60_minute_mean_existed(tmp_path):
         "no 60-minute mean", "no 60-minute mean")
     # the spot value is drawn, labelled as such; no 60-minute line (matplotlib writes each
     # legend text as a comment beside its drawing)
-    assert "WBGT, spot value (not the 60-minute mean)" in page
+    assert "WBGT, spot value with the clothing adjustment (not the 60-minute mean)" in page
     assert "WBGT, 60-minute mean" not in page
 
 
@@ -222,12 +222,12 @@ def test_store_report_takes_the_last_day_and_tells_an_acknowledgement_apart(
                        r"(\d\d:\d\d) \(Europe/London\)", page)
     assert period is not None and period.group(1) == period.group(2)
     assert "19:50" <= period.group(2) <= "19:59"
-    rows = re.findall(r"<tr><td>(Heat stress [^<]*Bakery[^<]*)</td><td>(\w+)</td>"
-                      r"<td>([\d:]+)</td>(.*?)</tr>", page, re.S)
+    rows = re.findall(r"<tr><td><ul class=levels><li>[\d:]+ <b>\w+</b>: "
+                      r"(Heat stress [^<]*Bakery[^<]*)</li>.*?</ul></td>(.*?)</tr>", page, re.S)
     rows = [r for r in rows if " expected in " not in r[0]]  # not the ahead-of-time ones
     assert rows, "the bakery's heat-stress advisory is in the report"
     first = rows[0]
-    cells = re.findall(r"<td rowspan=\d+>(.*?)</td>", first[3])
+    cells = re.findall(r'<td data-label="[^"]*">(.*?)</td>', first[1])
     acknowledged, acted, cleared, effect = cells
     assert re.fullmatch(r"\d\d:\d\d by Sam, shift lead", acknowledged), acknowledged
     assert acted == "-" and effect == "-"  # an acknowledgement is not an action

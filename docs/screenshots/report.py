@@ -1,13 +1,17 @@
 """Screenshots of the report for the README, taken from the current code.
 
 Writes the shipped day's report with ``thermowarden report --feed`` (the invented Larkfield
-Works' recorded summer day) and saves PNGs of it taken with Debian's headless chromium
-(through chromedriver and selenium) next to the README's other pictures, in ``docs/``:
+Works' recorded summer day) and saves PNGs of parts of it, taken with Debian's headless
+chromium (through chromedriver and selenium, as ``make.py`` takes the web page's), next to
+this file:
 
-- ``report-summary.png``: the heading, the cautions and the summary table, 1100 pixels wide;
-- ``report-bakery.png``: the bakery's section (operative temperature, the 60-minute WBGT
-  against its references with the spot value apart, the timeline of advisories level by
-  level, and the advisories' table).
+- at laptop width (1280 CSS pixels): ``report-summary-laptop.png`` (the heading, the
+  cautions and the summary table), ``report-ahead-laptop.png`` (advice ahead of time,
+  measured) and ``report-bakery-laptop.png`` (the bakery's section: operative temperature,
+  the 60-minute WBGT against its references with the spot value apart, the timeline of
+  advisories level by level, and the advisories' table);
+- at phone width (390 CSS pixels, device scale 2): ``report-top-phone.png`` (the first
+  screen) and ``report-bakery-phone.png`` (the bakery's section).
 
 Run it with the project's environment from the repository's root::
 
@@ -19,51 +23,65 @@ Needs ``apt-get install chromium chromium-driver`` and the ``test`` extra (selen
 from __future__ import annotations
 
 import pathlib
-import shutil
 import subprocess
 import sys
 import tempfile
+from typing import Any
 
-ROOT = pathlib.Path(__file__).resolve().parents[2]
-DOCS = ROOT / "docs"
-WIDTH = 1100
-BROWSER_ARGS = ("--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-                "--disable-background-networking", "--disable-component-update",
-                "--disable-sync", "--disable-dev-shm-usage", "--hide-scrollbars")
+HERE = pathlib.Path(__file__).resolve().parent
+ROOT = HERE.parents[1]
+sys.path.insert(0, str(HERE))
+
+from make import DESKTOP_WIDTH, PHONE, browser  # noqa: E402  (the web page's screenshots)
+
+SECTIONS = (("report-summary", "#summary"), ("report-ahead", "#ahead"),
+            ("report-bakery", "#space-bakery-floor"))
+
+
+def whole_page(driver: Any, width: int) -> None:
+    """Make the window as tall as the page (an element below the first screen is drawn)."""
+    driver.set_window_size(width, 900)
+    full = int(driver.execute_script("return document.documentElement.scrollHeight"))
+    driver.set_window_size(width, min(full, 12000))
+
+
+def element(driver: Any, css: str, name: str) -> None:
+    from selenium.webdriver.common.by import By
+
+    png = driver.find_element(By.CSS_SELECTOR, css).screenshot_as_png
+    (HERE / f"{name}.png").write_bytes(png)
+    print(f"saved {HERE / name}.png")
 
 
 def main() -> int:
-    from selenium import webdriver
-    from selenium.webdriver.chrome.options import Options
-    from selenium.webdriver.chrome.service import Service
-    from selenium.webdriver.common.by import By
-
     with tempfile.TemporaryDirectory() as tmp:
         page = pathlib.Path(tmp) / "larkfield-report.html"
         subprocess.run([sys.executable, "-m", "thermowarden.cli", "report", "--config",
                         str(ROOT / "deploy" / "example-site.yaml"), "--feed",
                         str(ROOT / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"),
                         "--output", str(page)], check=True, timeout=1800)
-        opts = Options()
-        opts.binary_location = shutil.which("chromium") or "/usr/bin/chromium"
-        for a in BROWSER_ARGS:
-            opts.add_argument(a)
-        opts.add_argument(f"--window-size={WIDTH},900")
-        driver = webdriver.Chrome(service=Service(
-            executable_path=shutil.which("chromedriver") or "/usr/bin/chromedriver"),
-            options=opts)
+        laptop = browser(1.0)
         try:
-            driver.get(page.as_uri())
-            height = int(driver.execute_script(
-                "return document.documentElement.scrollHeight"))
-            driver.set_window_size(WIDTH, min(height, 8000))
-            for name, css in (("report-summary", "#summary"),
-                              ("report-bakery", "#space-bakery-floor")):
-                png = driver.find_element(By.CSS_SELECTOR, css).screenshot_as_png
-                (DOCS / f"{name}.png").write_bytes(png)
-                print(f"wrote {DOCS / name}.png")
+            laptop.get(page.as_uri())
+            whole_page(laptop, DESKTOP_WIDTH)
+            for name, css in SECTIONS:
+                element(laptop, css, f"{name}-laptop")
         finally:
-            driver.quit()
+            laptop.quit()
+        phone = browser(2.0)
+        try:
+            width, height = PHONE
+            phone.set_window_size(width, height)
+            phone.get(page.as_uri())
+            # the inner size exactly the phone's (headless: no toolbar in the outer size)
+            inner = phone.execute_script("return [window.innerWidth, window.innerHeight]")
+            phone.set_window_size(2 * width - inner[0], 2 * height - inner[1])
+            (HERE / "report-top-phone.png").write_bytes(phone.get_screenshot_as_png())
+            print(f"saved {HERE / 'report-top-phone.png'}")
+            whole_page(phone, 2 * width - inner[0])
+            element(phone, "#space-bakery-floor", "report-bakery-phone")
+        finally:
+            phone.quit()
     return 0
 
 

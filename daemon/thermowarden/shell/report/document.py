@@ -82,21 +82,31 @@ def render_html(config: SiteConfig, spaces: dict[str, SpaceReport], start: float
 <meta name="viewport" content="width=device-width, initial-scale=1">
 <title>thermowarden report: {site}, {s0:%d %b %Y %H:%M} to {s1:%d %b %Y %H:%M}</title>
 <style>
-body{{font-family:system-ui,sans-serif;margin:2em auto;max-width:1000px;color:#222}}
+body{{font-family:system-ui,sans-serif;margin:2em auto;max-width:1000px;color:#222;
+padding:0 1em}}
 h1{{font-size:1.5em}} h2{{font-size:1.15em;margin-top:2em;border-bottom:1px solid #ccc}}
 table{{border-collapse:collapse;font-size:.9em;margin:.5em 0}}
 td,th{{border:1px solid #ddd;padding:.25em .6em;text-align:right}}
 th:first-child,td:first-child{{text-align:left}} .note{{color:#666;font-size:.85em}}
 .caution{{background:#fff4e5;border-left:4px solid #d9712b;padding:.6em 1em}}
-svg{{max-width:100%;height:auto}} .wide{{overflow-x:auto}}
-.advisories td{{text-align:left;vertical-align:top}}
+svg{{width:100%;max-width:820px;height:auto;display:block}} .wide{{overflow-x:auto}}
+.advisories td,.advisories th{{text-align:left;vertical-align:top}}
+.levels{{margin:0;padding:0;list-style:none}} .levels li{{margin:.1em 0}}
+@media (max-width:640px){{
+.cards,.cards tbody,.cards tr,.cards td{{display:block}}
+.cards tr:first-child{{display:none}}
+.cards tr{{border:1px solid #ccc;margin:.6em 0;padding:.3em 0}}
+.cards td{{border:0;text-align:left}} .cards td:first-child{{font-weight:600}}
+.advisories td:first-child{{font-weight:400}}
+.cards td[data-label]::before{{content:attr(data-label) ": ";color:#666;font-weight:400}}
+}}
 </style></head><body>
 <h1>{site}: thermal comfort and heat stress</h1>
 <p>{s0:%A %d %B %Y %H:%M} to {s1:%A %d %B %Y %H:%M} ({e(config.site.timezone)}).
 Advisory only: nothing was switched or moved by thermowarden.</p>
 <p class=caution>{e(CAUTION)}</p>
 {_rollup_html(config, spaces)}
-<section id=summary><h2>Summary</h2><div class=wide><table><tr><th>space</th>{where_th}
+<section id=summary><h2>Summary</h2><div class=wide><table class=cards><tr><th>space</th>{where_th}
 <th>occupied (h)</th>
 <th>ISO 7730 A/B/C/outside (occupied h)</th>
 <th>EN 16798-1 I/II/III/outside (occupied h)</th><th>WBGT &gt; action (h)</th>
@@ -116,19 +126,20 @@ Advisory only: nothing was switched or moved by thermowarden.</p>
     for rep in spaces.values():
         med = (f", median {statistics.median(rep.minutes_to_act):.0f} min after raised"
                if rep.minutes_to_act else "")
-        parts.append(
-            f"<tr><td>{e(rep.name)}</td>"
-            + (f"<td>{e(' · '.join(x for x in where.get(rep.space_id, ()) if x))}</td>"
-               if placed else "") +
-            f"<td>{rep.hours_occupied:.1f} h</td>"
-            f"<td>{'-' if rep.outdoor else hours(rep.hours_iso)}</td>"
-            f"<td>{hours(rep.hours_en) if rep.natural else '-'}</td>"
-            f"<td>{wbgt_hours(rep, rep.hours_wbgt_action)}</td>"
-            f"<td>{wbgt_hours(rep, rep.hours_wbgt_limit)}</td>"
-            f"<td>{rep.raised} raised, {rep.acknowledged} acknowledged, "
-            f"{rep.cleared} cleared</td>"
-            f"<td>{_count(rep.acted_on, 'advisory', 'advisories')}{med}</td>"
-            f"<td>{_count(rep.helped, 'advisory', 'advisories')}</td></tr>")
+        cells = ([("where", e(" · ".join(x for x in where.get(rep.space_id, ()) if x)))]
+                 if placed else []) + [
+            ("occupied", f"{rep.hours_occupied:.1f} h"),
+            ("ISO 7730 A/B/C/outside", "-" if rep.outdoor else hours(rep.hours_iso)),
+            ("EN 16798-1 I/II/III/outside", hours(rep.hours_en) if rep.natural else "-"),
+            ("WBGT above the action value", wbgt_hours(rep, rep.hours_wbgt_action)),
+            ("WBGT above the limit", wbgt_hours(rep, rep.hours_wbgt_limit)),
+            ("advisories", f"{rep.raised} raised, {rep.acknowledged} acknowledged, "
+                           f"{rep.cleared} cleared"),
+            ("advice acted on", f"{_count(rep.acted_on, 'advisory', 'advisories')}{med}"),
+            ("helped", _count(rep.helped, "advisory", "advisories"))]
+        parts.append(f"<tr><td>{e(rep.name)}</td>"
+                     + "".join(f'<td data-label="{h}">{v}</td>' for h, v in cells)
+                     + "</tr>")
     parts.append("</table></div><p class=note>Hours are counted from 5-minute samples; comfort "
                  "categories over the hours the space was occupied, and not for outdoor "
                  "spaces (ISO 7730 does not apply there: see their heat index and UTCI). "
@@ -164,32 +175,33 @@ Advisory only: nothing was switched or moved by thermowarden.</p>
 
 
 def _advisories_html(rep: SpaceReport, tz: dt.tzinfo, end: float) -> str:
-    """The space's advisories, one row per level each reached (its title and priority at
-    that level), then who acknowledged it and when, when its advice was acted on, when it
-    cleared (or that it was still live at the end of the data) and the effect."""
+    """The space's advisories, one row each: the levels it reached (from when, its priority
+    and its title at that level), then who acknowledged it and when, when its advice was
+    acted on, when it cleared (or that it was still live at the end of the data) and the
+    effect. On a phone each advisory is a card, each value under its heading's words."""
     e = html.escape
 
     def when(t: float | None) -> str:
         return "-" if t is None else f"{dt.datetime.fromtimestamp(t, tz):%H:%M}"
 
     data_end = min(end, rep.data_end if rep.data_end is not None else end)
-    out = ["<div class=wide><table class=advisories><tr><th>advisory, at each level</th>"
-           "<th>priority</th><th>from</th><th>acknowledged</th><th>advice acted on</th>"
-           "<th>cleared</th><th>effect</th></tr>"]
+    heads = ("acknowledged", "advice acted on", "cleared", "effect")
+    out = ["<table class=\"advisories cards\"><tr><th>advisory, level by level: from, priority, "
+           "title</th>" + "".join(f"<th>{h}</th>" for h in heads) + "</tr>"]
     for a in rep.advisories:
-        n = len(a["levels"])
         ack = "-"
         if a["acknowledged"] is not None:
             ack = when(a["acknowledged"]) + (f" by {a['acknowledged_by']}"
                                              if a["acknowledged_by"] else "")
         cleared = (when(a["cleared"]) if a["cleared"] is not None
                    else f"live at the end of the data ({when(data_end)})")
-        tail = (f"<td rowspan={n}>{e(ack)}</td><td rowspan={n}>{when(a['acted'])}</td>"
-                f"<td rowspan={n}>{e(cleared)}</td><td rowspan={n}>{e(_effect_text(a))}</td>")
-        for j, lv in enumerate(a["levels"]):
-            out.append(f"<tr><td>{e(lv['title'])}</td><td>{e(lv['priority'])}</td>"
-                       f"<td>{when(lv['from'])}</td>{tail if j == 0 else ''}</tr>")
-    out.append("</table></div>")
+        levels = "".join(f"<li>{when(lv['from'])} <b>{e(lv['priority'])}</b>: "
+                         f"{e(lv['title'])}</li>" for lv in a["levels"])
+        values = (ack, when(a["acted"]), cleared, _effect_text(a))
+        out.append(f"<tr><td><ul class=levels>{levels}</ul></td>"
+                   + "".join(f'<td data-label="{h}">{e(v)}</td>'
+                             for h, v in zip(heads, values, strict=True)) + "</tr>")
+    out.append("</table>")
     return "\n".join(out)
 
 
@@ -236,7 +248,7 @@ def _ahead_html(config: SiteConfig, figures: list[dict[str, Any]], rules: RuleFa
            "<p>For each kind of advice given before a crossing happens: how many crossings "
            "of the period it foresaw and how long before, its advisories that were not "
            "followed by the crossing, and the crossings that came with no warning.</p>",
-           "<div class=wide><table class=ahead><tr><th>advice ahead of time</th>"
+           "<div class=wide><table class=\"ahead cards\"><tr><th>advice ahead of time</th>"
            "<th>what it foresees</th><th>crossings foreseen</th>"
            "<th>warned ahead by</th><th>not followed by the crossing</th>"
            "<th>crossings with no warning</th></tr>"]
@@ -272,9 +284,12 @@ def _ahead_html(config: SiteConfig, figures: list[dict[str, Any]], rules: RuleFa
                         + (f" and {_count(more, 'other', 'others')}" if more > 0 else ""))
         else:
             unwarned = "none"
+        cells = (("what it foresees", what), ("crossings foreseen", foreseen),
+                 ("warned ahead by", warned), ("not followed by the crossing", not_followed),
+                 ("crossings with no warning", unwarned))
         out.append(f"<tr><td>{e(rules.titles.get(r['rule']) or r['rule'])}</td>"
-                   f"<td>{e(what)}</td><td>{e(foreseen)}</td><td>{e(warned)}</td>"
-                   f"<td>{e(not_followed)}</td><td>{e(unwarned)}</td></tr>")
+                   + "".join(f'<td data-label="{h}">{e(v)}</td>' for h, v in cells)
+                   + "</tr>")
     out.append("</table></div><p class=note>A crossing: the advice foreseen was raised, at the "
                "priority given or above (or rose to it). Foreseen: an advisory ahead of "
                "time was live for that space when it happened; warned ahead by: the minutes "
