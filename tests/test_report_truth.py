@@ -233,6 +233,15 @@ def test_store_report_takes_the_last_day_and_tells_an_acknowledgement_apart(
     assert acted == "-" and effect == "-"  # an acknowledgement is not an action
     assert re.fullmatch(r"\d\d:\d\d", cleared), cleared
     assert "pending" not in page
+    # advice ahead of time, measured from the stored events with the site's rule packs
+    # (rules/ahead.yaml): the heat-stress warnings of the bakery and the yard came before
+    # their crossings, and no crossing came without one
+    ahead = re.search(r"<section id=ahead>(.*?)</section>", page, re.S)
+    assert ahead is not None
+    row = re.search(r"<tr><td>Heat stress expected</td>(.*?)</tr>", ahead.group(1), re.S)
+    assert row is not None
+    cells = re.findall(r"<td[^>]*>(.*?)</td>", row.group(1))
+    assert cells[1] == "2 of 2 crossings" and cells[-1] == "none", cells
 
 
 def test_a_store_without_data_says_so(tmp_path):
