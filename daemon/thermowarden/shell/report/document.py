@@ -90,7 +90,7 @@ td,th{{border:1px solid #ddd;padding:.25em .6em;text-align:right}}
 th:first-child,td:first-child{{text-align:left}} .note{{color:#666;font-size:.85em}}
 .caution{{background:#fff4e5;border-left:4px solid #d9712b;padding:.6em 1em}}
 svg{{width:100%;max-width:820px;height:auto;display:block}} .wide{{overflow-x:auto}}
-.advisories td,.advisories th{{text-align:left;vertical-align:top}}
+.advisories td,.advisories th,.ahead td,.ahead th{{text-align:left;vertical-align:top}}
 .levels{{margin:0;padding:0;list-style:none}} .levels li{{margin:.1em 0}}
 @media (max-width:640px){{
 .cards,.cards tbody,.cards tr,.cards td{{display:block}}
