@@ -28,6 +28,7 @@ if TYPE_CHECKING:
     from thermowarden.shell.clock import Clock
     from thermowarden.shell.delivery import Delivery
     from thermowarden.shell.metrics import Metrics
+    from thermowarden.shell.report import RuleFacts
     from thermowarden.shell.store import Store
 
 log = logging.getLogger("thermowarden.service")
@@ -121,10 +122,11 @@ class ScheduledJobs:
             log.warning("the daily report is still being written; this one is skipped")
             return
         config, path = self.host.engine.config, self.store.path
+        rules = self.report_rules()  # read here, on the engine's thread
 
         def work() -> None:
             try:
-                self.daily_report(now, config, path)
+                self.daily_report(now, config, path, rules)
             except Exception:  # noqa: BLE001 - a failed report must not stop the service
                 self.metrics.job_errors.labels(job="report", kind="error").inc()
                 log.exception("the daily report failed")
@@ -133,11 +135,22 @@ class ScheduledJobs:
         thread.start()
         self.report_thread = thread  # published once started: others may join it
 
+    def report_rules(self) -> RuleFacts:
+        """The engine's rules' titles and what its ahead-of-time rules foresee."""
+        from thermowarden.shell.report import RuleFacts
+
+        rules = self.host.engine.rules
+        return RuleFacts({rt.rule.key: rt.rule.config.title for rt in rules},
+                         {rt.rule.key: (f.rule, f.priority) for rt in rules
+                          if (f := rt.rule.config.foresees) is not None})
+
     def daily_report(self, now: float, config: SiteConfig | None = None,
-                     store_path: pathlib.Path | None = None) -> pathlib.Path:
+                     store_path: pathlib.Path | None = None,
+                     rules: RuleFacts | None = None) -> pathlib.Path:
         """Write yesterday's reports (local calendar day) next to the store: the site's,
         and one per building or area; returns the site's. Reads the store through a
-        connection of its own (any thread)."""
+        connection of its own (any thread); ``rules``: as :meth:`report_rules` gives (read
+        on the engine's thread; read here when not given)."""
         from thermowarden.shell.report import write_reports
 
         config = config or self.host.engine.config
@@ -149,7 +162,7 @@ class ScheduledJobs:
         end = dt.datetime.combine(today, dt.time(0), tz).timestamp()
         began = time.monotonic()
         written = write_reports(config, store_path, store_path.parent / "reports", start, end,
-                                day.isoformat())
+                                day.isoformat(), rules or self.report_rules())
         log.info("daily report written to %s (%d file(s), %.1f s)", written[0], len(written),
                  time.monotonic() - began)
         if self.delivery is not None:
