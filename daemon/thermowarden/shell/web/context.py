@@ -11,7 +11,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from thermowarden.shell.mqtt_link import Inbox, Incoming
+from thermowarden.shell.inbox import Inbox, Incoming
 from thermowarden.shell.web.history import StoreReader
 from thermowarden.shell.web.live import LiveView, SiteDirectory
 from thermowarden.shell.web.users import Sessions
