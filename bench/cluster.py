@@ -22,10 +22,19 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
   lease renewals or heartbeats), for a site of ``S`` spaces (two sizes: 150 and 600 with
   ``--quick``, 1,000 and 4,000 without); ``cluster_<S>sp_<m>_idle_cpu_per_instance_min_ms``
   the same per instance per minute.
+- ``cluster_<S>sp_<m>_evaluated_spaces_per_instance`` and ``..._idle_cpu_each_instance_min_ms``:
+  per instance (``/`` between them), the spaces it evaluates (those of the shards it holds
+  and stands by for, ``thermowarden_group_evaluated_spaces``) and its own idle CPU per
+  minute; ``..._load``: the machine's one-minute load average at the end of the idle window.
+- ``cluster_idle_fit_*``: every instance of every run fitted as ``fixed + a * evaluated +
+  b * site`` (least squares, ms per minute): ``fixed`` per instance, ``a`` per space it
+  evaluates, ``b`` per space of the whole site beyond those. ``b`` near 0 against ``a``
+  means an instance's idle cost follows its own share, not the whole site's size.
 - ``cluster_idle_site_growth_ratio``: idle CPU per instance with four instances on the large
-  site divided by one instance on the small site: each then handles the same number of
-  spaces, so 1.0 means an instance's idle cost follows the spaces it handles, not the
-  whole site's size; 4.0 would mean it grows with the site.
+  site divided by one instance on the small site. With one standby per shard each of the
+  four evaluates half the large site, twice the spaces of the one on the small site: 2.0 at
+  most when the cost follows the spaces evaluated (less, with the fixed cost per process),
+  4.0 or more if it grew with the whole site.
 
 On this 2-core machine, shared with other work, the broker nodes, the instances and the
 publisher share the cores: these are ratios and costs, not capacities.
@@ -42,6 +51,7 @@ import tempfile
 import textwrap
 import time
 import uuid
+from typing import Any
 
 sys.path.insert(0, str(pathlib.Path(__file__).resolve().parents[1]))
 
@@ -81,7 +91,8 @@ def _site(tmp: pathlib.Path, prefix: str, url: str, spaces: int,
         servers = ", ".join(f"'nats://127.0.0.1:{n.client}'" for n in cluster.nodes)
         group = (f"group:\n  name: bench\n  store: {{kind: nats, servers: [{servers}], "
                  f"bucket: {prefix}, stream_replicas: 3}}\n  lease_ttl_s: {LEASE_TTL_S}\n"
-                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n")
+                 "  replicas: 1\n  shard_buckets: 16\n  rebalance_after_s: 5\n"
+                 "  standby_warm_s: 5\n")  # its rules use no window
     site = tmp / f"site-{prefix}.yaml"
     site.write_text(
         f"site: {{id: cbench, timezone: UTC}}\n"
@@ -127,14 +138,22 @@ def _warm(cluster: NatsCluster) -> None:
     from paho.mqtt.enums import CallbackAPIVersion
 
     for node in cluster.nodes:
-        c = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
-                        protocol=mqtt.MQTTv311)
-        c.connect("127.0.0.1", node.mqtt, 30)
-        c.loop_start()
-        info = c.publish("twwarm/x", b"1", qos=1)
-        info.wait_for_publish(60)
-        c.loop_stop()
-        c.disconnect()
+        deadline = time.monotonic() + 180
+        while True:  # a node may refuse or drop the first clients while it starts
+            c = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
+                            protocol=mqtt.MQTTv311)
+            try:
+                c.connect("127.0.0.1", node.mqtt, 30)
+                c.loop_start()
+                c.publish("twwarm/x", b"1", qos=1).wait_for_publish(60)
+                break
+            except (OSError, RuntimeError, ValueError):
+                if time.monotonic() > deadline:
+                    raise
+                time.sleep(2.0)
+            finally:
+                c.loop_stop()
+                c.disconnect()
 
 
 def _publish(port: int, prefix: str, n: int, spaces: int) -> float:
@@ -162,12 +181,12 @@ def _covered(procs: list[tuple[subprocess.Popen[bytes], int]], m: int, spaces: i
 
 
 def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s: float,
-           n: int | None) -> dict[str, float]:
+           n: int | None) -> dict[str, Any]:
     """Start ``m`` instances on a site of ``spaces``; idle CPU, then (``n``) throughput."""
     prefix = f"twcl{uuid.uuid4().hex[:6]}"
     site = _site(tmp, prefix, cluster.nodes[0].url, spaces, cluster)
     procs: list[tuple[subprocess.Popen[bytes], int]] = []
-    out: dict[str, float] = {}
+    out: dict[str, Any] = {}
     try:
         for k in range(m):
             http = _free_port()
@@ -187,13 +206,19 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
         # idle: the evaluations (every TICK_S), conditions (every 60 s), lease renewals or
         # heartbeats, no message arriving: CPU per space per minute and per instance
         time.sleep(2 * TICK_S)
-        cpu0 = sum(_cpu_s(p.pid) for p, _ in procs)
+        cpu0 = [_cpu_s(p.pid) for p, _ in procs]
         w0 = time.monotonic()
         time.sleep(idle_s)
-        used = sum(_cpu_s(p.pid) for p, _ in procs) - cpu0
+        each = [_cpu_s(p.pid) - c for (p, _), c in zip(procs, cpu0, strict=True)]
         minutes = (time.monotonic() - w0) / 60
+        used = sum(each)
         out["idle_cpu_per_space_min_us"] = 1e6 * used / spaces / minutes
         out["idle_cpu_per_instance_min_ms"] = 1e3 * used / m / minutes
+        out["idle_load"] = float(pathlib.Path("/proc/loadavg").read_text().split()[0])
+        # each instance: the spaces it evaluates (held and standby) and its idle CPU
+        out["points"] = [(_metric(h, "thermowarden_group_evaluated_spaces")
+                          if _has_leases() else spaces, 1e3 * c / minutes)
+                         for (_, h), c in zip(procs, each, strict=True)]
         if n is None:
             return out
         base = sum(_metric(h, "thermowarden_messages_received_total") for _, h in procs)
@@ -220,6 +245,26 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
     return out
 
 
+def _fit(points: list[tuple[float, float, float]]) -> dict[str, float | str | None]:
+    """Each instance's idle CPU per minute as ``fixed + a * evaluated + b * site`` (least
+    squares over every instance of every run): ``a`` is what a space it evaluates costs it,
+    ``b`` what a space of the whole site costs it beyond that (0 when an instance's idle
+    cost follows only its own share)."""
+    import numpy as np
+
+    if len(points) < 4:
+        return {"cluster_idle_fit": None}
+    site, evaluated, ms = (np.array(c) for c in zip(*points, strict=True))
+    x = np.column_stack([np.ones_like(site), evaluated, site])
+    coef, *_ = np.linalg.lstsq(x, ms, rcond=None)
+    resid = ms - x @ coef
+    return {"cluster_idle_fit_fixed_ms_per_instance_min": round(float(coef[0]), 1),
+            "cluster_idle_fit_us_per_evaluated_space_min": round(1e3 * float(coef[1]), 1),
+            "cluster_idle_fit_us_per_site_space_min": round(1e3 * float(coef[2]), 1),
+            "cluster_idle_fit_rms_residual_ms": round(float(np.sqrt(np.mean(resid ** 2))),
+                                                      1)}
+
+
 def bench_cluster(quick: bool) -> dict[str, float | str | None]:
     program = nats_program()
     if program is None:
@@ -239,16 +284,23 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
         bare = _bare(cluster.nodes[0].mqtt, f"twbare{uuid.uuid4().hex[:6]}", n)
         put("cluster_bare_paho_311_msgs_per_s", round(bare) if bare else None)
         per_instance: dict[tuple[int, int], float] = {}
+        points: list[tuple[float, float, float]] = []
         small = SMALL if quick else 1000
         large = 4 * small
         for spaces in (small, large):
             for m in (1, 2, 3, 4):
                 g = _group(tmp, cluster, m, spaces, idle_s, n if spaces == large else None)
                 per_instance[(spaces, m)] = g["idle_cpu_per_instance_min_ms"]
+                points += [(float(spaces), ev, ms) for ev, ms in g["points"]]
                 put(f"cluster_{spaces}sp_{m}_idle_cpu_per_space_min_us",
                     round(g["idle_cpu_per_space_min_us"]))
                 put(f"cluster_{spaces}sp_{m}_idle_cpu_per_instance_min_ms",
                     round(g["idle_cpu_per_instance_min_ms"]))
+                put(f"cluster_{spaces}sp_{m}_evaluated_spaces_per_instance",
+                    "/".join(f"{ev:.0f}" for ev, _ in g["points"]))
+                put(f"cluster_{spaces}sp_{m}_idle_cpu_each_instance_min_ms",
+                    "/".join(f"{ms:.0f}" for _, ms in g["points"]))
+                put(f"cluster_{spaces}sp_{m}_load", g["idle_load"])
                 if "rate" in g:
                     put(f"cluster_{m}_msgs_per_s", round(g["rate"]))
                     put(f"cluster_{m}_received_per_sent", round(g["received"] / n, 3))
@@ -257,13 +309,23 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
                     put(f"cluster_{m}_cpu_per_msg_us", round(g["cpu_per_msg_us"], 1))
         put("cluster_idle_site_growth_ratio",
             round(per_instance[(large, 4)] / per_instance[(small, 1)], 2))
+        for name, value in _fit(points).items():
+            put(name, value)
     finally:
         cluster.stop()
         shutil.rmtree(tmp, ignore_errors=True)
     return out
 
 
+def _interrupt(_sig: int, _frame: object) -> None:
+    """SIGTERM ends the bench as Ctrl-C does: the brokers and instances it started stop."""
+    raise KeyboardInterrupt
+
+
 if __name__ == "__main__":
+    import signal as _signal
+
+    _signal.signal(_signal.SIGTERM, _interrupt)
     import json
 
     print(json.dumps(bench_cluster("--quick" in sys.argv)))

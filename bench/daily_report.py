@@ -5,7 +5,7 @@ not a timed test).
 
 An invented site of 10 buildings of 5 floors is given one day of 5-minute report samples
 (288 records in the shape the engine stores: every index of every space) and 2,000
-advisory events in a store, then ``report.write_reports`` writes the site's report (roll-up
+advisory events in a store, then ``shell.report.write_reports`` writes the site's report (roll-up
 by building and floor, a line per space) and one per building, as the service's daily job
 does on its own thread:
 
@@ -104,7 +104,7 @@ def main() -> None:
     args = ap.parse_args()
 
     from thermowarden.config import load_site
-    from thermowarden.report import write_reports
+    from thermowarden.shell.report import write_reports
 
     tmp = pathlib.Path(tempfile.mkdtemp(prefix="tw-report-bench-"))
     text, _ = site_text(args.spaces)

@@ -35,3 +35,14 @@ def table(name: str) -> list[dict[str, Any]]:
 @pytest.fixture
 def published() -> dict[str, Any]:
     return PUBLISHED
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    """The recorded day's replays are kept in the pytest cache between sessions (see
+    tests/recorded_day.py); without the cache plugin, within the session only."""
+    from tests import recorded_day
+
+    cache = getattr(config, "cache", None)
+    if cache is not None:
+        recorded_day.CACHE_DIR = pathlib.Path(cache.mkdir("recorded-day"))
+

@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import csv
 import datetime as dt
-import gzip
 import math
 import sys
 import zoneinfo
@@ -14,10 +13,10 @@ import zoneinfo
 import pytest
 
 from tests.conftest import REPO
+from tests.recorded_day import recorded_day
 from thermowarden.cli import main
 from thermowarden.config import load_site
 from thermowarden.export import HEADER
-from thermowarden.replay import read_feed, replay
 from thermowarden.shell.store import Store
 
 SITE = REPO / "deploy" / "example-site.yaml"
@@ -38,9 +37,7 @@ def stored(tmp_path_factory):
     """The recorded day replayed by the engine, its samples in a store (plus one sample
     of the day before, which a one-day export must leave out)."""
     config = load_site(SITE, {})
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        result = replay(config, read_feed(fh, str(FEED)), base=str(SITE), tick_s=60,
-                        samples=True)
+    result = recorded_day(60.0)
     state = tmp_path_factory.mktemp("state")
     store = Store(state / f"{config.site.id}.sqlite3")
     for s in result.samples:

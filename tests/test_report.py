@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 
 from tests.conftest import COMMAND_LIMIT_S, REPO
+from tests.recorded_day import recorded_day
 from thermowarden.config import load_site
-from thermowarden.replay import read_feed, replay
-from thermowarden.report import build_report, render_html
+from thermowarden.shell.report import build_report, render_html
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
@@ -26,9 +26,7 @@ FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 @pytest.fixture(scope="module")
 def day():
     config = load_site(SITE, {})
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        result = replay(config, read_feed(fh, str(FEED)), base=str(SITE), full_events=True,
-                        tick_s=60, samples=True)
+    result = recorded_day(60.0)
     start, end = result.start, result.end + 1
     return config, result, build_report(config, result.samples, result.events, start, end)
 

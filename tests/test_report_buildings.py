@@ -12,7 +12,7 @@ import pytest
 
 from tests.conftest import REPO
 from thermowarden.config import load_site
-from thermowarden.report import build_report, stored_samples, write_reports
+from thermowarden.shell.report import build_report, stored_samples, write_reports
 from thermowarden.shell.store import Store
 
 SITE = REPO / "deploy" / "campus-site.yaml"

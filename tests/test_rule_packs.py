@@ -131,8 +131,8 @@ def test_check_groups_identical_warnings(tmp_path):
     assert r.returncode == 0, r.stderr
     warnings = [ln for ln in r.stderr.splitlines() if ln.startswith("warning:")]
     assert len(warnings) == 2  # too_humid and too_dry, each once for all 300 spaces
-    assert warnings[0].startswith("warning: 300 spaces (s0000, s0001, s0002 and 297 more): "
-                                  "rule humidity.")
+    assert warnings[0].startswith(f"warning: {site}:6:5: 300 spaces (s0000, s0001, s0002 "
+                                  "and 297 more): rule humidity.")
     assert "600 warning(s) in 2 group(s)" in r.stderr
 
 
@@ -249,7 +249,8 @@ def test_check_says_what_each_hot_work_wbgt_rests_on_and_warns_where_nothing(tmp
               - {topic: u/tnw, quantity: natural_wet_bulb}
         """))
     r = run_check(site)
-    assert r.returncode == 0, r.stderr
+    assert r.returncode == 3, r.stderr  # valid, but people in three spaces are unprotected
+    assert "3 hot-work space(s) without a heat-stress evaluation (exit code 3)" in r.stderr
     out = r.stdout
     block = {sid: out.split(f"space {sid} ")[1].split("\nspace ")[0]
              for sid in ("measured", "yard", "shop", "bare")}
@@ -258,9 +259,13 @@ def test_check_says_what_each_hot_work_wbgt_rests_on_and_warns_where_nothing(tmp
     assert "from the solar irradiance and the sun's position" in block["yard"]
     assert "WBGT rests on nothing" in block["shop"]
     assert "air_speed" in block["shop"]
-    warnings = [ln for ln in r.stderr.splitlines() if ln.startswith("warning:")]
-    loud = {w.split(":")[1].strip(): w for w in warnings if "HOT WORK" in w}
+    warnings = [ln.removeprefix("warning: ") for ln in r.stderr.splitlines()
+                if ln.startswith("warning:")]
+    # each names where its space is written: file:line:column first
+    loud = {w.split(": ")[1]: w for w in warnings if "HOT WORK" in w}
     assert set(loud) == {"space shop", "space bare", "space unpacked"}, warnings
+    assert loud["space shop"].startswith(f"{site}:18:5: space shop: HOT WORK")
+    assert loud["space bare"].startswith(f"{site}:21:5: space bare: HOT WORK")
     assert "the safety lead will never be alerted for Bare kiln room: add" in loud["space bare"]
     assert "a globe_temperature point" in loud["space bare"]
     assert "an air_speed point (or assume: {air_speed: 0.1})" in loud["space shop"]

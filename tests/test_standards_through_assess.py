@@ -337,3 +337,26 @@ def test_wind_height_conversion(row):
     """Logarithmic profile, z0 = 0.01 m."""
     got = outdoor.wind_at_10m(np.array([row["v"]]), row["height_m"])[0]
     assert got == pytest.approx(row["v10"], abs=PUBLISHED["utci_wind_height"]["tolerance"])
+
+
+def test_a_low_sun_warms_no_more_than_the_clearest_beam_can(monkeypatch, capsys):
+    """Sunrise (0.5° up) at 52.2 N on 14 July with a pyranometer reading 40 W/m²: Liljegren's
+    split alone reads that as 90 % beam, a beam of about 1,000 W/m² that warmed a person in
+    the open by about 30 K. The beam is capped at the clearest sky's (simplified Solis by
+    pvlib, no aerosol: about 118 W/m² here), so the person's mean radiant rise over the same
+    sky without sun stays within what ASHRAE 55-2020 Appendix C (SolarCal, as pythermalcomfort
+    implements it) gives for that beam on a standing person facing the sun in the open
+    (7.6 K), and UTCI stays below moderate heat stress (26 °C, Broede et al. 2012)."""
+    from pythermalcomfort.models import solar_gain
+
+    base = {"air_temperature": 19.8, "relative_humidity": 76, "air_speed": 2.5,
+            "latitude": 52.2, "longitude": -1.5, "time": "2026-07-14T04:08:00Z",
+            "environment": "outdoor", "solar_load": True}
+    dark = assess({**base, "solar_irradiance": 0.0}, monkeypatch, capsys)
+    lit = assess({**base, "solar_irradiance": 40.0}, monkeypatch, capsys)
+    rise = value(lit, "mean_radiant_temperature") - value(dark, "mean_radiant_temperature")
+    solarcal = solar_gain(sol_altitude=0.5, sharp=0, sol_radiation_dir=118.0,
+                          sol_transmittance=1.0, f_svv=1.0, f_bes=1.0, asw=0.7,
+                          posture="standing")
+    assert 0.0 < rise <= float(solarcal.delta_mrt)
+    assert value(lit, "utci") < 26.0

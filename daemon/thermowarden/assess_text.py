@@ -13,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Final
 
+from thermowarden.core.catalogue import COMFORT, HOT_WORK, OUTDOOR, PLACES, key_rows, rows_for
 from thermowarden.core.labels import index_label
 
 DECIMALS: Final = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 0, "m/s": 2,
@@ -22,18 +23,9 @@ DECIMALS: Final = {"°C": 1, "K": 1, "%": 0, "kg/kg": 4, "W": 0, "g": 0, "min": 
 SHOWN_UNIT: Final = {"humidex": "(°C equivalent)"}
 """Units shown for dimensionless indices that are read on a temperature scale."""
 
-HOT_WORK, COMFORT, OUTDOOR = "hot work", "comfort", "outdoor heat"
-
-KEY_ROWS: Final[dict[str, tuple[str, ...]]] = {
-    HOT_WORK: ("wbgt", "wbgt_time_weighted", "wbgt_effective", "metabolic_rate",
-               "wbgt_reference", "wbgt_margin", "wbgt_reference_unacclimatised",
-               "wbgt_margin_unacclimatised", "wbgt_reference_acclimatised",
-               "wbgt_margin_acclimatised"),
-    COMFORT: ("operative_temperature", "pmv_iso", "ppd_iso", "comfort_category_iso",
-              "pmv_ashrae", "ppd_ashrae"),
-    OUTDOOR: ("utci", "heat_index", "humidex"),
-}
-"""Rows shown for each kind of place even without a value (the reason then says why)."""
+KEY_ROWS: Final[dict[str, tuple[str, ...]]] = {p: key_rows(p) for p in PLACES}
+"""Rows shown for each kind of place even without a value (the reason then says why): the
+catalogue's key rows of the place."""
 
 UTCI_BANDS: Final = ((-40.0, "extreme cold stress"), (-27.0, "very strong cold stress"),
                      (-13.0, "strong cold stress"), (0.0, "moderate cold stress"),
@@ -195,9 +187,9 @@ def _heat_stress_verdict(result: Mapping[str, Mapping[str, object]], acclimatise
             f"({_margin_words(result, 'wbgt_margin_unacclimatised')}{above_a})")
 
 
-HEAT_STRESS_ROWS: Final = ("wbgt", "natural_wet_bulb_estimated", "globe_temperature_estimated",
-                           "metabolic_rate", "phs_")
-"""Prefixes of the heat-stress rows, left out for comfort (not a place of hot work)."""
+HEAT_STRESS_ROWS: Final = rows_for(HOT_WORK)
+"""The heat-stress rows (the catalogue's rows for hot work), left out for comfort (not a
+place of hot work)."""
 
 
 def shown_rows(result: Mapping[str, Mapping[str, object]], kind: str, everything: bool,
@@ -211,7 +203,7 @@ def shown_rows(result: Mapping[str, Mapping[str, object]], kind: str, everything
     if everything:
         return list(result)
     return [k for k, item in result.items() if k in keys or (
-        item["value"] is not None and not (kind == COMFORT and k.startswith(HEAT_STRESS_ROWS)))]
+        item["value"] is not None and not (kind == COMFORT and k in HEAT_STRESS_ROWS))]
 
 
 def format_table(result: Mapping[str, Mapping[str, object]], names: list[str],

@@ -144,8 +144,14 @@ def cmd_assess(args: argparse.Namespace) -> int:
 
 
 def cmd_check(args: argparse.Namespace) -> int:
-    """Validate a site; errors one per line with file:line:column; exit 0 when valid."""
-    from thermowarden.site_check import check_site, grouped_warnings, resolved_map
+    """Validate a site; errors one per line with file:line:column; exit 0 when valid, 1
+    when refused, 3 when valid but a hot-work space gets no heat-stress evaluation."""
+    from thermowarden.site_check import (
+        check_site,
+        grouped_warnings,
+        resolved_map,
+        unsafe_warnings,
+    )
 
     report = check_site(args.config, prepare=_prepare_models)
     if not report.ok:
@@ -157,7 +163,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     assert report.model is not None
     if not args.quiet:
         print("\n".join(resolved_map(report.model)))
-    groups = grouped_warnings(report.warnings)
+    groups = grouped_warnings(report.warnings, where=report.space_positions)
     for w in groups:
         print(f"warning: {w}", file=sys.stderr)
     n = report.model.n_spaces
@@ -165,6 +171,12 @@ def cmd_check(args: argparse.Namespace) -> int:
     print(f"{args.config}: valid ({n} space{'s' if n != 1 else ''}, "
           f"{len(report.model.points)} points, {len(report.warnings)} warning(s){grouped})",
           file=sys.stderr)
+    unsafe = unsafe_warnings(report.warnings)
+    if unsafe:
+        print(f"thermowarden check: {len(unsafe)} hot-work space(s) without a heat-stress "
+              "evaluation (exit code 3); the service would run, but would never alert the "
+              "safety lead for them", file=sys.stderr)
+        return 3
     return 0
 
 
@@ -197,6 +209,8 @@ def cmd_replay(args: argparse.Namespace) -> int:
               "pack.rule.parameter=value", file=sys.stderr)
         return 2
     _prepare_models()
+    if args.coverage:
+        return _replay_coverage(args, config)
     progress = _Progress(config.site.timezone) if sys.stderr.isatty() else None
     # plain replay prints each event as it happens; a summary or comparison needs them all
     streaming = not args.summary and not args.compare
@@ -258,6 +272,35 @@ def cmd_replay(args: argparse.Namespace) -> int:
             from thermowarden.summary_text import format_summary
 
             print(format_summary(summarise(second)))
+    return 0
+
+
+def _replay_coverage(args: argparse.Namespace, config: Any) -> int:
+    """``replay --coverage``: see :func:`thermowarden.replay.replay_coverage`."""
+    from thermowarden.config import ConfigError
+    from thermowarden.coverage import format_coverage
+    from thermowarden.replay import FeedError, read_feed, replay_coverage
+
+    opener = gzip.open if args.feed.endswith(".gz") else open
+    try:
+        with opener(args.feed, "rt", encoding="utf-8") as fh:
+            _, figures = replay_coverage(config, read_feed(fh, args.feed),
+                                              base=args.config, tick_s=args.tick)
+    except OSError as exc:
+        print(f"thermowarden replay: cannot read {exc.filename}: {exc.strerror}",
+              file=sys.stderr)
+        return 2
+    except FeedError as exc:
+        print(f"thermowarden replay: {exc}", file=sys.stderr)
+        return 2
+    except ConfigError as exc:
+        _print_issues(exc)
+        return 1
+    if args.json:
+        json.dump(figures, sys.stdout, indent=2, ensure_ascii=False)
+        print()
+    else:
+        print(format_coverage(figures))
     return 0
 
 
@@ -428,7 +471,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     import pathlib
 
     from thermowarden.replay import FeedError, read_feed, replay
-    from thermowarden.report import build_report, render_html, stored_events, stored_samples
+    from thermowarden.shell.report import build_report, render_html, stored_events, stored_samples
 
     config = _load_or_report(args.config)
     if config is None:
@@ -572,8 +615,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--summary", action="store_true",
                    help="per audience and rule: notifications, advisories raised and "
                    "cleared, time active, advice followed, advice ahead of time (a table)")
+    p.add_argument("--coverage", action="store_true",
+                   help="per rule: whether it raised an advisory, how often, the "
+                   "notifications its audience got against its allowance, and for a rule "
+                   "that never raised one, why (no space with its inputs, never occupied, "
+                   "its condition never held, ...); per audience: notifications against "
+                   "the allowances")
     p.add_argument("--json", action="store_true",
-                   help="with --summary: print the summary as JSON, every figure")
+                   help="with --summary or --coverage: print JSON, every figure")
     p.add_argument("--full", action="store_true", help="print whole event payloads")
     p.add_argument("--tick", type=float, metavar="SECONDS",
                    help="evaluation interval in feed time (default: the site's tick_s)")

@@ -28,9 +28,9 @@ from typing import Any, TextIO
 import paho.mqtt.client as mqtt
 from paho.mqtt.enums import CallbackAPIVersion
 
-VIEW_INDICES = (("operative_temperature", "op °C"), ("pmv_iso", "PMV"),
-                ("relative_humidity", "RH %"), ("wbgt_effective", "WBGT"),
-                ("utci", "UTCI"))
+from thermowarden.core import catalogue
+
+VIEW_INDICES = tuple((e.name, e.short) for e in catalogue.in_demo())
 PRIORITY_MARK = {"low": "·", "medium": "!", "high": "!!", "urgent": "!!!"}
 
 
@@ -247,9 +247,9 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     printed at the start) and kept, with the clock stopped, after the day until Ctrl-C."""
     from thermowarden.config import load_site
     from thermowarden.shell.bootstrap import bootstrap
+    from thermowarden.shell.clock import Clock
     from thermowarden.shell.embedded_broker import EmbeddedBroker
     from thermowarden.shell.mqtt_link import parse_url, release_sockets
-    from thermowarden.shell.service import Clock
     from thermowarden.simulated_feeds.larkfield import larkfield_day
 
     if speed <= 0:

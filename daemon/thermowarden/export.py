@@ -3,27 +3,10 @@ service's SQLite store) as a table, one row per sample time and space.
 
 The format follows the file name: ``.csv`` (RFC 4180, UTF-8, a header row; an index that
 did not apply is an empty cell; numbers as stored) or ``.parquet`` (typed columns, nulls for
-indices that did not apply; needs the optional ``parquet`` extra, pyarrow). Columns:
-
-========================================  ======  ============================================
-column                                    unit    meaning
-========================================  ======  ============================================
-time_utc                                  -       ISO 8601, UTC
-epoch_s                                   s       the same time as epoch seconds
-space                                     -       space id
-operative_temperature                     °C      ASHRAE 55 operative temperature
-pmv_iso                                   -       ISO 7730 PMV
-comfort_category_iso                      -       ISO 7730 category (A, B, C, outside C)
-adaptive_en_category                      -       EN 16798-1 adaptive category
-adaptive_en_II_lower / _upper             °C      EN 16798-1 category II band
-comfort_band_lower / _upper               °C      the space's comfort band (its parameters)
-wbgt_effective                            °C      ISO 7243 WBGT plus clothing adjustment
-wbgt_reference_unacclimatised             °C      ISO 7243 Annex A reference value
-wbgt_reference_acclimatised               °C      ISO 7243 Annex A reference value
-heat_index                                °C      NWS heat index (outdoor spaces)
-utci                                      °C      UTCI (outdoor spaces)
-occupied                                  -       whether the space counted as occupied
-========================================  ======  ============================================
+indices that did not apply; needs the optional ``parquet`` extra, pyarrow). The columns are
+the time, the space and every entry the catalogue marks exported
+(:func:`thermowarden.core.catalogue.exported`), under its index's name; the table below is
+written from the catalogue.
 
 A column a stored sample does not have (samples written by an older version) is empty.
 """
@@ -36,28 +19,30 @@ import pathlib
 from collections.abc import Iterable, Iterator
 from typing import Any, Final
 
-from thermowarden.core.adaptive import EN_CATEGORY_LABELS
-from thermowarden.core.indices import ISO_CATEGORY_LABELS
+from thermowarden.core import catalogue
 
-COLUMNS: Final = (
-    # (exported column, key in the stored sample, labels for a category)
-    ("operative_temperature", "operative", None),
-    ("pmv_iso", "pmv", None),
-    ("comfort_category_iso", "category_iso", ISO_CATEGORY_LABELS),
-    ("adaptive_en_category", "category_en", EN_CATEGORY_LABELS),
-    ("adaptive_en_II_lower", "en_lower", None),
-    ("adaptive_en_II_upper", "en_upper", None),
-    ("comfort_band_lower", "band_lower", None),
-    ("comfort_band_upper", "band_upper", None),
-    ("wbgt_effective", "wbgt", None),
-    ("wbgt_reference_unacclimatised", "ref_unacclimatised", None),
-    ("wbgt_reference_acclimatised", "ref_acclimatised", None),
-    ("heat_index", "heat_index", None),
-    ("utci", "utci", None),
-    ("occupied", "occupied", None),
-)
+COLUMNS: Final = tuple((e.name, e.kept, e.categories) for e in catalogue.exported())
+"""(exported column, key in the stored sample, labels of a category) per column."""
 BOOLEAN: Final = frozenset({"occupied"})
 HEADER: Final = ("time_utc", "epoch_s", "space") + tuple(c for c, _, _ in COLUMNS)
+_FIXED: Final = (("time_utc", "-", "ISO 8601, UTC"), ("epoch_s", "s", "the same time as epoch "
+                 "seconds"), ("space", "-", "space id"))
+
+
+def columns_table() -> str:
+    """The columns as a reStructuredText table: name, unit, words."""
+    rows = [*_FIXED, *((e.name, e.unit if e.unit not in ("", "1", "category") else "-",
+                        e.label + (f" ({', '.join(e.categories)})" if e.categories else ""))
+                       for e in catalogue.exported())]
+    widths = [max(len(r[k]) for r in (*rows, ("column", "unit", "meaning"))) for k in range(3)]
+    rule = "  ".join("=" * w for w in widths)
+    line = "  ".join(f"{{:<{w}}}" for w in widths)
+    body = [line.format(*r).rstrip() for r in rows]
+    return "\n".join([rule, line.format("column", "unit", "meaning").rstrip(), rule, *body,
+                      rule])
+
+
+__doc__ = (__doc__ or "") + "\n" + columns_table() + "\n"
 FORMATS: Final = (".csv", ".parquet")
 
 

@@ -421,3 +421,23 @@ def compare(a: ReplayResult, b: ReplayResult) -> dict[str, list[dict[str, Any]]]
         audiences.append({"audience": aud, **pairs,
                           "changed": any(p != q for p, q in pairs.values())})
     return {"rules": rules, "audiences": audiences}
+
+
+def replay_coverage(config: SiteConfig, records: Iterable[FeedRecord],
+                    base: str | None = None, tick_s: float | None = None
+                    ) -> tuple[ReplayResult, dict[str, Any]]:
+    """Replay a feed and say, per rule, whether it raised an advisory, how often, what its
+    audience received against its allowance, and for a rule that never raised one, why
+    (:mod:`thermowarden.coverage`); per audience, the notifications against the sum of
+    its rules' allowances and the busiest 10 minutes."""
+    from thermowarden.coverage import Coverage, audience_figures
+
+    cov = Coverage()
+    result = replay(config, records, base=base, full_events=True, tick_s=tick_s,
+                    on_batch=cov.on_batch)
+    feed_s = (result.end - result.start) if math.isfinite(result.end) else 0.0
+    rules = cov.finish(result.raised_events, result.events, feed_s)
+    summary = summarise(result)
+    return result, {"feed_hours": summary["feed_hours"],
+                    "rules": [r.as_dict() for r in rules],
+                    "audiences": audience_figures(rules, summary)}

@@ -206,6 +206,9 @@ class CompiledRule:
     level_leave: Mapping[int, Expression] = dataclasses.field(default_factory=dict)
     """priority index -> the condition for lowering the advisory below that level."""
     easing: CompiledEasing | None = None
+    health: bool = False
+    """Of a health pack (``RulePackConfig.health``): evaluated after the other rules, and not
+    counted in ``rules_unknown_long``."""
 
     @property
     def lowest_level(self) -> int:
@@ -323,8 +326,9 @@ def _template(text: str, allowed: set[str], names: Mapping[str, Kind] | None = N
 
 
 def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
-                 path: tuple[str | int, ...] = ()) -> CompiledRule:
-    """Compile one rule; raises :class:`RulePackError` pointing at the bad expression."""
+                 path: tuple[str | int, ...] = (), health: bool = False) -> CompiledRule:
+    """Compile one rule (of a health pack when ``health``); raises :class:`RulePackError`
+    pointing at the bad expression."""
     names = name_table(rule.parameters)
 
     def expr(field_path: tuple[str | int, ...], text: str, want: Kind) -> Expression:
@@ -390,15 +394,26 @@ def compile_rule(pack: str, rule: RuleConfig, smap: SourceMap | None = None,
             template(("easing", "title"), e.title), template(("easing", "advice"), e.advice),
             template(("easing", "cleared_title"), e.cleared_title),
             template(("easing", "cleared_advice"), e.cleared_advice), e.rearm_s, e.rearm_rise)
+    if not health:
+        conditions = [("condition", condition), ("clear", clear), ("hold_back", hold_back),
+                      ("acted_on", acted_on)] + [(f"levels.{i}.when", x)
+                                                 for i, (_, x) in enumerate(levels)]
+        for label, cond in conditions:
+            if cond is not None and "rules_unknown_long" in cond.names:
+                where = tuple(int(x) if x.isdigit() else x for x in label.split("."))
+                pos = smap.find(path + where) if smap else None
+                raise RulePackError([ConfigIssue(pos, (
+                    f"rule {rule.id}: {label}: rules_unknown_long is known only to the rules "
+                    "of a pack with 'health: true' (evaluated after the other rules)"))])
     used: set[str] = set(rule.needs)
     return CompiledRule(pack, rule, condition, levels, clear, hold_back, acted_on, benefit,
                         tuple(numbers), templates[0], templates[1], templates[2],
                         frozenset(used), level_texts, no_effect, effect_quantity,
-                        level_leave, easing)
+                        level_leave, easing, health)
 
 
 def compile_pack(config: RulePackConfig, smap: SourceMap | None, source: str) -> CompiledPack:
-    rules = tuple(compile_rule(config.pack, r, smap, ("rules", i))
+    rules = tuple(compile_rule(config.pack, r, smap, ("rules", i), health=config.health)
                   for i, r in enumerate(config.rules))
     return CompiledPack(config.pack, config.description, rules, source)
 

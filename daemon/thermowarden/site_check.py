@@ -5,7 +5,8 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 
-from thermowarden.config import ConfigError, ConfigIssue, SiteConfig, load_site
+from thermowarden.config import ConfigError, ConfigIssue, SiteConfig
+from thermowarden.config.loading import load_site_with_positions
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.topics import TREE_PLACEHOLDERS
 from thermowarden.site_model import (
@@ -16,6 +17,8 @@ from thermowarden.site_model import (
     build_site_model,
 )
 
+HOT_WORK_UNWATCHED = "HOT WORK WITHOUT A HEAT-STRESS EVALUATION"
+
 
 @dataclass
 class CheckReport:
@@ -25,6 +28,8 @@ class CheckReport:
     model: SiteModel | None = None
     issues: list[ConfigIssue] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    space_positions: dict[str, str] = field(default_factory=dict)
+    """Where each space is written (``file:line:column``), for the warnings that name it."""
 
     @property
     def ok(self) -> bool:
@@ -35,11 +40,15 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
     """Validate the site file, the CSV it refers to, and the rule packs it names."""
     report = CheckReport()
     try:
-        config = load_site(path)
+        config, smap = load_site_with_positions(path)
     except ConfigError as exc:
         report.issues = exc.issues
         return report
     report.config = config
+    for i, space in enumerate(config.spaces):
+        where = smap.find(("spaces", i))
+        if where is not None:
+            report.space_positions[space.id] = str(where)
     report.model = build_site_model(config)
     if config.web.users_file is not None:
         report.issues.extend(users_file_issues(config, path))
@@ -163,15 +172,23 @@ def hot_work_warnings(config: SiteConfig, model: SiteModel, packs: Mapping[str, 
                           "none is assumed)")
         if to_add:
             name = space.name or space.id
-            out.append(f"space {space.id}: HOT WORK WITHOUT A HEAT-STRESS EVALUATION: the "
+            out.append(f"space {space.id}: {HOT_WORK_UNWATCHED}: the "
                        f"safety lead will never be alerted for {name}: add "
                        + "; ".join(to_add))
     return out
 
 
-def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
+def unsafe_warnings(warnings: list[str]) -> list[str]:
+    """The warnings that leave people unprotected: a hot-work space without a heat-stress
+    evaluation (``check`` exits 3 on them)."""
+    return [w for w in warnings if HOT_WORK_UNWATCHED in w]
+
+
+def grouped_warnings(warnings: list[str], shown: int = 3,
+                     where: Mapping[str, str] | None = None) -> list[str]:
     """Warnings that differ only in the space they name, as one line each:
-    ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``."""
+    ``5000 spaces (a, b, c and 4997 more): rule ... needs ...``; with ``where`` (space id
+    to ``file:line:column``) each line starts with where its first space is written."""
     groups: dict[str, list[str]] = {}
     order: list[str] = []
     for w in warnings:
@@ -188,13 +205,14 @@ def grouped_warnings(warnings: list[str], shown: int = 3) -> list[str]:
     lines = []
     for key in order:
         ids = groups[key]
+        at = f"{where[ids[0]]}: " if ids and where and ids[0] in where else ""
         if not ids:
             lines.append(key)
         elif len(ids) == 1:
-            lines.append(f"space {ids[0]}: {key}")
+            lines.append(f"{at}space {ids[0]}: {key}")
         else:
             more = f" and {len(ids) - shown} more" if len(ids) > shown else ""
-            lines.append(f"{len(ids)} spaces ({', '.join(ids[:shown])}{more}): {key}")
+            lines.append(f"{at}{len(ids)} spaces ({', '.join(ids[:shown])}{more}): {key}")
     return lines
 
 
@@ -206,7 +224,8 @@ def resolved_map(model: SiteModel) -> list[str]:
     lines: list[str] = []
     by_space: dict[int, list[str]] = {}
     for p in model.points:
-        tags = ", ".join(f"{k} {v}" for k, v in (("side", p.side), ("height", p.height),
+        tags = ", ".join(f"{k} {v}" for k, v in (("side", p.side_as_configured or p.side),
+                                                  ("height", p.height),
                                                   ("sensor", p.sensor)) if v)
         fmt = p.fmt.type
         line = f"    {p.quantity:<26} {p.topic}  [{p.unit or '-'}, {fmt}, every {p.interval_s:g} s"

@@ -15,6 +15,7 @@ from thermowarden.core.shards import (
     Plan,
     View,
     bucket_name,
+    first_standbys,
     plan,
     ranking,
     shard_of,
@@ -87,6 +88,9 @@ class Sim:
         self.rng = random.Random(seed)
         self.plans: dict[str, Plan] = {}
         self.last_holder: dict[str, dict[str, str]] = {n: {} for n in names}
+        self.warm_s = 0.0
+        self.first: dict[str, dict[str, str]] = {n: {} for n in names}
+        self.standby_since: dict[str, dict[str, float]] = {n: {} for n in names}
 
     def round(self) -> None:
         self.now += 1.0
@@ -102,9 +106,17 @@ class Sim:
                     fs.pop(s, None)
                 else:
                     fs.setdefault(s, self.now)
+            first = first_standbys(self.shards, seen, last, self.live)
+            since = self.standby_since.setdefault(me, {})
+            mine = self.first.setdefault(me, {})
+            for sh, m in first.items():
+                if mine.get(sh) != m:
+                    mine[sh] = m
+                    since[sh] = self.now
             p = plan(View(me, frozenset(self.live), self.shards, seen, self.now, dict(fs),
-                          self.live_since, dict(last)),
-                     replicas=self.replicas, grace_s=1.0, settle_s=self.settle_s)
+                          self.live_since, dict(last), dict(since)),
+                     replicas=self.replicas, grace_s=1.0, settle_s=self.settle_s,
+                     warm_s=self.warm_s)
             self.plans[me] = p
             for s in p.release:
                 del self.store.holders[s]
@@ -175,6 +187,28 @@ def test_a_newcomer_gets_its_share_one_shard_a_round_after_settling() -> None:
     assert rounds >= 3  # nothing was handed over before the live set had settled
     moved = len(sim.store.takers) - moves_before
     assert moved == sim.counts()["c"] <= 6  # only what the newcomer took moved
+    assert sim.counts()["c"] >= 4
+
+
+def test_a_shard_is_handed_over_only_to_a_standby_that_stood_by_for_warm_s() -> None:
+    """A newcomer with a short settle time and a long warm time: nothing moves until it has
+    stood by for warm_s (its windows whole), and every shard moves to the instance that was
+    its first standby all that time."""
+    sim = Sim(["a", "b"], settle_s=2.0)
+    sim.run()
+    sim.warm_s = 20.0
+    sim.live.add("c")
+    sim.live_since = sim.now
+    joined = sim.now
+    sim.store.takers.clear()
+    for _ in range(60):
+        standby_before = first_standbys(SHARDS, sim.store.holders, {}, sim.live)
+        moved = len(sim.store.takers)
+        sim.round()
+        for sh, taker in sim.store.takers[moved:]:
+            assert sim.now - joined > sim.warm_s, "handed over before the standby was warm"
+            assert taker == standby_before[sh]
+    assert sim.store.takers and {m for _, m in sim.store.takers} == {"c"}
     assert sim.counts()["c"] >= 4
 
 

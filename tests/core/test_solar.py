@@ -102,3 +102,37 @@ def test_a_trace_of_irradiance_with_the_sun_up_is_all_diffuse_without_warnings()
     assert cza[0] > 0.5
     ghi, fdir = solar.direct_fraction(np.array([2.225073858507203e-309]), cza, dist)
     assert fdir[0] == 0.0 and ghi[0] == pytest.approx(0.0, abs=1e-300)
+
+
+def test_the_beam_the_split_implies_never_exceeds_the_clearest_sky():
+    """Over every elevation from 0.5° to 90° and every reading up to 1,400 W/m², the beam
+    global x fraction / cos z is at most the clear-sky bound; above about 37° the bound is
+    above anything the split can imply, so Liljegren's reference values stand (the published
+    rows above)."""
+    cza = np.sin(np.radians(np.repeat(np.linspace(0.5, 90.0, 120), 15)))
+    ghi_in = np.tile(np.linspace(0.0, 1400.0, 15), 120)
+    dist = np.ones_like(cza)
+    ghi, fdir = solar.direct_fraction(ghi_in, cza, dist)
+    bound = solar.clear_sky_direct_normal_bound(cza, dist)
+    assert np.all(ghi * fdir / cza <= bound * (1 + 1e-9))
+    high = cza > np.sin(np.radians(38.0))
+    top = solar.SOLAR_CONSTANT_W_M2 * cza[high]
+    assert np.all(bound[high] >= solar.NORMALISED_SOLAR_MAX * solar.DIRECT_FRACTION_MAX
+                  * top / cza[high])
+
+
+def test_the_bound_is_pvlibs_clear_sky_in_the_clearest_atmosphere():
+    """The bound against pvlib's simplified Solis called directly (Ineichen 2008): aerosol
+    optical depth 0, 0.2 cm water, 800 hPa; and above its default atmosphere's beam."""
+    import pvlib
+
+    elevation = np.array([0.5, 2.0, 10.0, 38.0, 80.0])
+    cza = np.sin(np.radians(elevation))
+    bound = solar.clear_sky_direct_normal_bound(cza, np.ones(5))
+    direct = pvlib.clearsky.simplified_solis(elevation, aod700=0.0, precipitable_water=0.2,
+                                             pressure=80_000.0, dni_extra=1367.0)["dni"]
+    typical = pvlib.clearsky.simplified_solis(elevation, dni_extra=1367.0)["dni"]
+    assert np.allclose(bound, direct, rtol=1e-9)
+    assert np.all(bound > typical)
+    assert solar.clear_sky_direct_normal_bound(np.array([-0.2, np.nan]), np.ones(2)).tolist() \
+        == [0.0, 0.0]

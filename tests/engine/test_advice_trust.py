@@ -5,7 +5,6 @@ acted-on advice, sensor-health advice that names the sensor."""
 
 from __future__ import annotations
 
-import gzip
 import json
 import re
 import textwrap
@@ -15,12 +14,13 @@ import pytest
 
 from tests.conftest import REPO
 from tests.engine.conftest import validator
+from tests.recorded_day import recorded_day
 from thermowarden.config import load_site
 from thermowarden.core import comfort
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
-from thermowarden.replay import read_feed, replay, summarise
-from thermowarden.rules import _template, load_rule_packs, name_table
+from thermowarden.replay import summarise
+from thermowarden.rules import RulePackError, _template, load_rule_packs, name_table
 from thermowarden.site_check import check_site
 from thermowarden.site_model import build_site_model, filter_covers, minimal_filters
 
@@ -31,9 +31,7 @@ BAD_WORDS = re.compile(r"\b(unknown|None|nan|NaN|inf)\b")
 
 @pytest.fixture(scope="module")
 def day():
-    config = load_site(SITE, {})
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        return replay(config, read_feed(fh, str(FEED)), base=str(SITE), full_events=True)
+    return recorded_day(None)
 
 
 def _texts(adv: dict) -> list[str]:
@@ -92,31 +90,13 @@ def test_heat_stress_levels_have_their_own_advice(day):
     assert medium["advisory"]["numbers"]["wbgt_time_weighted"]["value"] is not None
 
 
-def test_notification_budget_on_the_shipped_day(day):
-    """Alarm-management practice (ISA-18.2 / EEMUA 191): no audience gets more than 24
-    notifications on the shipped day (an issue's acceptance figure for this feed), the
-    safety lead 30: the staff garden's UTCI, known from the irradiance since issue 23, adds
-    its band changes (9 of the safety lead's 28; a band edge it crosses back and forth
-    within minutes at 38 °C UTCI is a level-hysteresis matter); besides the ahead-of-time
-    advisories (issue 29: the count rises by those messages alone, see
-    tests/engine/test_ahead_replay.py)."""
-    s = summarise(day)
-    for audience, figures in s["audiences"].items():
-        limit = 30 if audience == "safety" else 24
-        ahead = sum(1 for e in day.events if e["event"] != "summary"
-                    and e["advisory"]["audience"] == audience
-                    and e["advisory"]["rule"].startswith("ahead."))
-        assert figures["notifications"] - ahead <= limit, (audience, figures, ahead)
-        assert figures["busiest_10_min"] <= 10, (audience, figures)
-    assert s["standing"], "the longest-standing advisories are listed"
-
-
 def test_summary_counts_equal_the_engines_own(day):
     s = summarise(day)
     raised_by_engine = sum(1 for e in day.raised_events if e["event"] == "raised")
     assert sum(r["raised"] for r in s["rules"]) == raised_by_engine
     sent = sum(1 for e in day.events)
     assert sum(s["notifications_by_audience"].values()) == sent
+    assert s["standing"], "the longest-standing advisories are listed"
 
 
 def test_effectiveness_of_acted_on_advice(day):
@@ -282,15 +262,30 @@ def test_check_warns_about_a_rule_that_could_never_clear(tmp_path):
     assert not any("shading.lower_shading" in w for w in report.warnings), report.warnings
 
 
-def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_path):
+def _health_pack_named(tmp_path, name: str, health: bool = True) -> None:
+    """The built-in sensor_health pack under another name, in the site's packs folder."""
+    text = (REPO / "rules" / "sensor_health.yaml").read_text()
+    assert text.startswith("pack: sensor_health\n") and "\nhealth: true\n" in text
+    text = text.replace("pack: sensor_health", f"pack: {name}", 1)
+    if not health:
+        text = text.replace("\nhealth: true\n", "\n", 1)
+    (tmp_path / "packs" / f"{name}.yaml").write_text(text)
+
+
+@pytest.mark.parametrize("health_pack", ["sensor_health", "site_watch"])
+def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_path,
+                                                                           health_pack):
     """A live advisory whose clear condition cannot be evaluated (here: no globe) is
-    reported to the integrator with the rule and the name."""
+    reported to the integrator with the rule and the name. What makes a pack watch the
+    other rules is its ``health: true``, not its name (``site_watch`` is a copy)."""
     (tmp_path / "packs").mkdir()
     (tmp_path / "packs" / "strict_shading.yaml").write_text(STRICT_SHADING)
+    if health_pack != "sensor_health":
+        _health_pack_named(tmp_path, health_pack)
     site = tmp_path / "site.yaml"
-    site.write_text(textwrap.dedent(WINDOW_ROOM_SITE % "strict_shading, sensor_health"))
+    site.write_text(textwrap.dedent(WINDOW_ROOM_SITE % f"strict_shading, {health_pack}"))
     config = load_site(site, {})
-    packs = load_rule_packs(["strict_shading", "sensor_health"], config.rule_dirs, base=site)
+    packs = load_rule_packs(["strict_shading", health_pack], config.rule_dirs, base=site)
     engine = Engine(config, build_site_model(config), packs, conditions_every_s=0,
                     start=0.0)
     t0 = 1_780_000_000.0
@@ -305,10 +300,24 @@ def test_engine_raises_sensor_health_when_a_clear_condition_stays_unknown(tmp_pa
                    and "/events/" in e.topic and e.payload]
     raised = {e["advisory"]["rule"]: e["advisory"] for e in events if e["event"] == "raised"}
     assert "strict_shading.blinds" in raised
-    health = raised.get("sensor_health.rules_without_inputs")
+    health = raised.get(f"{health_pack}.rules_without_inputs")
     assert health is not None, sorted(raised)
-    assert "strict_shading.blinds" in health["advice"]
-    assert "globe_temperature" in health["advice"]
+    # in words: the rule's title and the input it lacks
+    assert "Blinds (Globe temperature)" in health["advice"], health["advice"]
+
+
+def test_only_a_health_pack_may_read_rules_unknown_long(tmp_path):
+    """Other rules are evaluated before the count is known: reading it is refused, with the
+    file, line and rule, rather than leaving a rule that could never be evaluated."""
+    (tmp_path / "packs").mkdir()
+    _health_pack_named(tmp_path, "site_watch", health=False)
+    with pytest.raises(RulePackError) as caught:
+        load_rule_packs(["site_watch"], [str(tmp_path / "packs")])
+    text = str(caught.value)
+    assert "site_watch.yaml" in text and "rules_without_inputs" in text, text
+    assert "rules_unknown_long is known only to the rules of a pack with 'health: true'" \
+        in text, text
+    assert re.search(r"site_watch\.yaml:\d+", text), text
 
 
 # ----------------------------------------------------------------------------- pieces
@@ -356,13 +365,36 @@ def test_overlapping_subscriptions_become_one():
         "site/+/ta", "site/room-1/rh"]
 
 
+def test_minimal_filters_equal_every_pair_compared():
+    """Comparing each filter with the kept wildcard filters only keeps what comparing it
+    with every kept filter keeps (a filter without wildcards covers only itself)."""
+    import random
+
+    def every_pair(filters: set[str]) -> list[str]:
+        kept = sorted(filters, key=lambda f: (f.count("#"), f.count("+")), reverse=True)
+        out: list[str] = []
+        for f in kept:
+            if not any(filter_covers(g, f) for g in out):
+                out.append(f)
+        return sorted(out)
+
+    rng = random.Random(24)
+    parts = ["site", "a", "b", "+", "#", "ta", "rh"]
+    for _ in range(500):
+        filters = set()
+        for _ in range(rng.randint(1, 12)):
+            levels = [rng.choice(parts) for _ in range(rng.randint(1, 4))]
+            if "#" in levels:
+                levels = levels[:levels.index("#") + 1]  # '#' only last (MQTT 4.7.1.2)
+            filters.add("/".join(levels))
+        assert minimal_filters(filters) == every_pair(filters), filters
+
+
 def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
-    from thermowarden.report import build_report, render_html
+    from thermowarden.shell.report import build_report, render_html
 
     config = load_site(SITE, {})
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        result = replay(config, read_feed(fh, str(FEED)), base=str(SITE), full_events=True,
-                        tick_s=60, samples=True)
+    result = recorded_day(60.0)
     spaces = build_report(config, result.samples, result.raised_events, result.start,
                           result.end + 1)
     office = spaces["office-west"]
@@ -371,5 +403,5 @@ def test_report_counts_occupied_hours_and_fits_outdoor_spaces(day, tmp_path):
     yard = spaces["loading-yard"]
     assert sum(yard.hours_iso.values()) == 0
     html = render_html(config, spaces, result.start, result.end + 1)
-    assert "heat index (NWS)" in html and "UTCI" in html
+    assert "Heat index (NWS)" in html and "UTCI" in html
     assert json.dumps(result.samples[0])  # samples stay plain JSON

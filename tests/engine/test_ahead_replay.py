@@ -5,25 +5,21 @@
 from __future__ import annotations
 
 import datetime as dt
-import gzip
-import json
-import subprocess
-import sys
 from collections import Counter
 
 import pytest
 
-from tests.conftest import COMMAND_LIMIT_S, REPO
+from tests.conftest import REPO
+from tests.recorded_day import cli_replay_json, recorded_day, records
 from thermowarden.config import SiteConfig, load_site
-from thermowarden.replay import ReplayResult, read_feed, replay, summarise
+from thermowarden.replay import ReplayResult, replay, summarise
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 
 
 def run(config: SiteConfig) -> ReplayResult:
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        return replay(config, read_feed(fh, str(FEED)), base=str(SITE), full_events=True)
+    return replay(config, records(), base=str(SITE), full_events=True)
 
 
 def without_ahead(config: SiteConfig) -> SiteConfig:
@@ -34,8 +30,7 @@ def without_ahead(config: SiteConfig) -> SiteConfig:
 
 @pytest.fixture(scope="module")
 def days() -> tuple[ReplayResult, ReplayResult]:
-    config = load_site(SITE, {})
-    return run(config), run(without_ahead(config))
+    return recorded_day(None), run(without_ahead(load_site(SITE, {})))
 
 
 def ts(at: str) -> float:
@@ -106,10 +101,7 @@ def test_notifications_rise_by_the_ahead_messages_alone(days) -> None:
 
 
 def test_replay_summary_prints_the_ahead_of_time_figures(tmp_path) -> None:
-    out = subprocess.run([sys.executable, "-m", "thermowarden.cli", "replay", "--config",
-                          str(SITE), str(FEED), "--summary", "--json"], capture_output=True,
-                         text=True, timeout=COMMAND_LIMIT_S, check=True)
-    figures = json.loads(out.stdout)["ahead_of_time"]
+    figures = cli_replay_json("--summary")["ahead_of_time"]
     assert {r["rule"] for r in figures} == {"ahead.wbgt_action", "ahead.wbgt_limit",
                                             "ahead.sun_on_windows"}
     for r in figures:

@@ -249,7 +249,13 @@ def test_events_do_not_depend_on_the_retained_refresh(tmp_path):
         out[refresh_s] = effects
     published = {k: [e.payload for e in v if isinstance(e, Publish) and "/events/" in e.topic]
                  for k, v in out.items()}
+    # apart from seq, the advisory's record number, which counts the refreshed records too
+    seqs = {}
+    for k, events_k in published.items():
+        seqs[k] = [p.pop("seq") for p in events_k]
+        assert seqs[k] == [p["advisory"].pop("seq") for p in events_k]
     assert published[300.0] == published[0.0]
+    assert seqs[300.0] != seqs[0.0]
     hot = [p for p in published[0.0] if p["advisory"]["rule"] == "testpack.hot"]
     assert [p["event"] for p in hot] == ["raised", "renotified", "renotified", "cleared"]
     raised, reminder, _, cleared = (p["advisory"] for p in hot)

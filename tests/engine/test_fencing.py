@@ -9,7 +9,7 @@ import json
 from tests.engine.conftest import SITE, lab_engine, validate_effects
 from tests.engine.test_engine import run
 from thermowarden.core.shards import bucket_name
-from thermowarden.effects import Publish
+from thermowarden.effects import Persist, Publish
 
 AREAS = SITE.replace("  - id: room-1\n", "  - id: room-1\n    area: furnace-bay\n    building: "
                      "works\n").replace("  - id: room-2\n", "  - id: room-2\n    building: works\n")
@@ -65,3 +65,49 @@ def test_a_new_epoch_never_reuses_an_id(tmp_path):
     for e in payloads(first + later, "/events/"):
         body = json.dumps(e.payload, sort_keys=True)
         assert bodies.setdefault(e.payload["event_id"], body) == body
+
+
+def _records(effects, part="/advisories/"):
+    return [e.payload for e in effects if isinstance(e, Publish) and part in e.topic
+            and e.payload]
+
+
+def test_every_record_of_an_advisory_has_the_next_seq_and_its_event_the_same(tmp_path):
+    """seq grows by one with every retained record of an advisory (refreshes too); the
+    event of a change carries its record's (epoch, seq)."""
+    engine = lab_engine(tmp_path, site_text=AREAS)
+    engine.publication.epochs.update({"furnace-bay": 4, "works": 1})
+    effects = run(engine, 0, 1500, **{"room-1": 36}) + run(engine, 1510, 2500,
+                                                          **{"room-1": 38})
+    by_id: dict[str, list[int]] = {}
+    for p in _records(effects):
+        by_id.setdefault(p["id"], []).append(p["seq"])
+    assert by_id and all(seqs == list(range(1, len(seqs) + 1)) for seqs in by_id.values())
+    assert max(len(s) for s in by_id.values()) >= 3
+    recs = {(p["id"], p["seq"]): p for p in _records(effects)}
+    for e in _records(effects, "/events/"):
+        a = e["advisory"]
+        assert e["seq"] == a["seq"] and (a["id"], a["seq"]) in recs
+        assert recs[(a["id"], a["seq"])]["history"] == a["history"]
+    validate_effects(effects)
+
+
+def test_seq_goes_on_after_a_restart_from_the_store(tmp_path):
+    """A restarted instance (outside a group the epoch stays 0) continues each advisory's
+    seq from its stored row, which every record updates (refreshes included)."""
+    engine = lab_engine(tmp_path, site_text=AREAS)
+    effects = run(engine, 0, 1500, **{"room-1": 36})
+    rows = {e.key: e.record for e in effects if isinstance(e, Persist)
+            and e.kind == "advisory" and e.record is not None}
+    last: dict[str, int] = {}
+    for p in _records(effects):
+        last[p["id"]] = max(p["seq"], last.get(p["id"], 0))
+    again = lab_engine(tmp_path / "again", site_text=AREAS)
+    assert again.advisories.restore(list(rows.values())) == []
+    later = run(again, 1510, 2500, **{"room-1": 38})
+    first: dict[str, int] = {}
+    for p in _records(later):
+        first.setdefault(p["id"], p["seq"])
+    assert set(first) & set(last)
+    for aid in set(first) & set(last):
+        assert first[aid] == last[aid] + 1, aid

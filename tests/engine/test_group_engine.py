@@ -265,6 +265,10 @@ def test_a_standby_taking_over_reconciles_with_what_was_published(tmp_path):
     took = live["testpack.hot"]
     assert took["id"] == hot.id and took["acknowledged"]["by"] == "Ana"
     assert took["epoch"] == 2 and took["history"][-1]["event"] == "moved"
+    # its records go on from the published one's seq (under the new epoch), whatever the
+    # count b had reached while it stood by
+    assert took["seq"] == published[0]["seq"] + 1
+    assert [x.payload["seq"] for x in eff if isinstance(x, Publish)] == [took["seq"]]
     later = run(b, 310, 400, **{"room-1": 34})
     got = [(p["event"], p["advisory"]["rule"], p["event_id"]) for p in (
         x.payload for x in later if isinstance(x, Publish) and "/events/" in x.topic)]

@@ -3,16 +3,16 @@ recorded day of the example site."""
 
 from __future__ import annotations
 
-import gzip
 import re
 
 import pytest
 
 from tests.conftest import REPO
+from tests.recorded_day import recorded_day
+from tests.recorded_day import records as recorded_day_records
 from thermowarden.config import load_site
 from thermowarden.effects import Publish
 from thermowarden.engine import Engine
-from thermowarden.replay import read_feed, replay
 from thermowarden.rules import load_rule_packs
 from thermowarden.site_model import build_site_model
 
@@ -23,8 +23,7 @@ TICK_S = 60.0
 
 @pytest.fixture(scope="module")
 def records():
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        return list(read_feed(fh, str(FEED)))
+    return recorded_day_records()
 
 
 def live_style(records):
@@ -50,8 +49,7 @@ def live_style(records):
 
 
 def test_live_and_replay_give_the_same_events(records):
-    config = load_site(SITE, {})
-    batched = replay(config, records, base=str(SITE), full_events=True, tick_s=TICK_S)
+    batched = recorded_day(TICK_S)
     live, _ = live_style(records)
     assert len(batched.events) >= 40  # (the recorded day: 50 with the easing heat stress)
     assert [(e["event"], e["at"]) for e in live] == [(e["event"], e["at"]) for e in batched.events]
@@ -65,7 +63,7 @@ def test_no_event_of_the_day_says_numbers_its_condition_contradicts(records):
     on the side it was raised on, and records the values it cleared at, which may be on the
     other side."""
     config = load_site(SITE, {})
-    events = replay(config, records, base=str(SITE), full_events=True).events
+    events = recorded_day(None).events
     cleared = [e for e in events if e["event"] == "cleared"]
     assert len(cleared) >= 10
     easing = {"heat_stress.wbgt", "outdoor_heat.outdoor_heat"}

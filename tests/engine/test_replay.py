@@ -1,5 +1,5 @@
-"""Replaying the recorded day of the example site: every default rule fires, people acting
-on advice clears it, and the same feed gives the same output."""
+"""Replaying the recorded day of the example site: people acting on advice clears it, and
+the same feed gives the same output (which rules fire on it: test_replay_coverage.py)."""
 
 from __future__ import annotations
 
@@ -12,9 +12,9 @@ import pytest
 
 from tests.conftest import COMMAND_LIMIT_S, REPO
 from tests.engine.conftest import validator
+from tests.recorded_day import recorded_day
 from thermowarden.config import load_site
-from thermowarden.replay import read_feed, replay, summarise
-from thermowarden.rules import builtin_pack_names, load_rule_packs
+from thermowarden.replay import replay, summarise
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
@@ -22,23 +22,7 @@ FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 
 @pytest.fixture(scope="module")
 def day():
-    config = load_site(SITE, {})
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        return replay(config, read_feed(fh, str(FEED)), base=str(SITE), full_events=True,
-                      tick_s=60)
-
-
-def test_every_default_rule_fires(day):
-    raised = {e["advisory"]["rule"] for e in day.events if e["event"] == "raised"}
-    packs = load_rule_packs(builtin_pack_names())
-    every = {r.key for p in packs.values() for r in p.rules}
-    # a failing computation is not in a recorded day of good inputs: these two are raised
-    # by tests/engine/test_faults.py::test_a_failing_computation_stays_in_its_space
-    every -= {"sensor_health.phs_failed", "sensor_health.indices_failed"}
-    # the recorded summer day has no cool spell with fans on or blinds down: these two are
-    # raised by tests/engine/test_equipment_state.py
-    every -= {"fans.turn_down_fans", "shading.raise_shading"}
-    assert every <= raised, sorted(every - raised)
+    return recorded_day(60.0)
 
 
 def test_all_events_match_the_schema(day):

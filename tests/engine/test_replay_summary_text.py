@@ -5,10 +5,9 @@ from __future__ import annotations
 
 import json
 import re
-import subprocess
-import sys
 
 from tests.conftest import REPO
+from tests.recorded_day import cli_replay
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
@@ -17,11 +16,8 @@ FIELD_NAME = re.compile(r"\b[a-z]+(?:_[a-z0-9]+)+\b")
 
 
 def _run(*extra: str) -> str:
-    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "replay", "--config",
-                        str(SITE), str(FEED), "--summary", *extra], capture_output=True,
-                       text=True, timeout=LIMIT_S)
-    assert r.returncode == 0, r.stderr
-    return r.stdout
+    """The command's output, run once per session for the same arguments."""
+    return cli_replay("--summary", *extra)
 
 
 def test_summary_is_a_table_with_the_json_figures():

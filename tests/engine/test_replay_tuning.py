@@ -12,13 +12,14 @@ import sys
 import pytest
 
 from tests.conftest import REPO
+from tests.recorded_day import recorded_day
+from tests.recorded_day import records as recorded_day_records
 from thermowarden.conditions_file import ConditionsFileError, ConditionsWriter
 from thermowarden.config import load_site
 from thermowarden.replay import (
     SettingError,
     compare,
     parse_setting,
-    read_feed,
     replay,
 )
 
@@ -29,8 +30,7 @@ SHADING = "shading.lower_shading"
 
 @pytest.fixture(scope="module")
 def records():
-    with gzip.open(FEED, "rt", encoding="utf-8") as fh:
-        return list(read_feed(fh, str(FEED)))
+    return recorded_day_records()
 
 
 def test_cli_compare_prints_what_a_shading_threshold_changes():
@@ -64,7 +64,7 @@ def test_cli_compare_prints_what_a_shading_threshold_changes():
 
 def test_compare_counts_from_two_replays(records):
     config = load_site(SITE, {})
-    a = replay(config, records, base=str(SITE), tick_s=60)
+    a = recorded_day(60.0, full_events=False)
     b = replay(config, records, base=str(SITE), tick_s=60,
                settings={f"{SHADING}.asymmetry_limit_k": 4.0, f"{SHADING}.on_delay_s": 0.0})
     c = compare(a, b)
@@ -94,9 +94,8 @@ def test_settings_are_checked(records):
 
 def test_event_lines_carry_the_advice(records):
     """The one-line events carry the advice, and a clearing the values it cleared at."""
-    config = load_site(SITE, {})
-    full = replay(config, records, base=str(SITE), full_events=True, tick_s=60)
-    short = replay(config, records, base=str(SITE), tick_s=60)
+    full = recorded_day(60.0)
+    short = recorded_day(60.0, full_events=False)
     assert len(full.events) == len(short.events)
     for f, s in zip(full.events, short.events, strict=True):
         if s["event"] != "summary":

@@ -146,3 +146,14 @@ def test_states_take_vb_vs_and_v(office):
                       {"n": "pir", "vb": True}, {"n": "ta", "v": 23.0}],
                 "s/office/pack", NOW + 20)
     assert (r.reason, r.point) == ("unknown_state", "office/shading_position")
+
+
+@pytest.mark.parametrize("payload", [b"{not json", b"[]", b'{"n": "globe", "v": 33}'])
+def test_an_unreadable_pack_is_one_bad_message(bakery, payload):
+    """A pack that cannot be read at all is one malformed message, counted once, not once
+    per point that reads it (the globe and the natural wet bulb share this topic)."""
+    model, state, ing = bakery
+    rejected = ing.ingest(TOPIC, payload, NOW)
+    assert [r.reason for r in rejected] == ["malformed"]
+    assert sum(n for (reason, _), n in ing.rejected.items() if reason == "malformed") == 1
+    assert math.isnan(value(model, state, GLOBE)) and math.isnan(value(model, state, NWB))

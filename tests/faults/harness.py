@@ -61,9 +61,9 @@ class Timing:
     wbgt_window_s: float = 600.0
     rebalance_after_s: float = 3660.0
     """How long membership must be steady before an instance above its share hands shards
-    over (a newcomer gets its share after this). The default (h24a's) outlasts the WBGT
-    window, so the standby that takes a handed-over shard is warm; the scale test shortens
-    it to see a newcomer take its share."""
+    over (the group's default). A shard is handed over only to a standby that has stood by
+    for it for the WBGT window and a TTL (``standby_warm_s``'s default) whatever this is: the
+    scale test shortens this to 20 s and the window still holds."""
 
 
 # --------------------------------------------------------------------------- recording

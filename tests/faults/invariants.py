@@ -9,14 +9,15 @@
 - **commands**: no acknowledgement or shelving is lost: a command the service answered
   ``ok`` (or did not answer) is in the advisory's history at the end;
 - **forward**: read as a consumer must (a record of an older epoch than the newest seen
-  for its shard is dropped), the retained advisory of a topic never goes backwards: its
-  (epoch, history length) never decreases, its history only grows at the end, its priority
-  only drops with a ``deescalated`` entry, and an emptied (cleared) advisory does not come
-  back;
+  for its shard is dropped, and so is an advisory's record or event whose ``(epoch, seq)``
+  is not above the newest taken for that advisory), the retained advisory of a topic never
+  goes backwards: its ``(epoch, seq)`` only grows, its history only grows at the end, its
+  priority only drops with a ``deescalated`` entry, an emptied (cleared) advisory does not
+  come back, and no record the rule drops is newer in content than the one it kept;
 - **evaluated**: no space goes without a conditions record for longer than the lease TTL
   plus one tick plus the conditions cadence (the resolution of this check);
-- **whole**: after a takeover, the 60-minute WBGT is not rebuilt (no ``partial`` window)
-  and is present if it was present before.
+- **whole**: after a takeover, a 60-minute WBGT that was whole before is not rebuilt (no
+  ``partial`` window), and it is present if it was present before.
 
 Each check returns human-readable violations; the test asserts the list is empty and
 prints the figures.
@@ -162,11 +163,31 @@ def check_epochs(obs: Observed, rep: Report) -> None:
     rep.figures["shards_seen"] = len(epochs_per_shard)
 
 
+def _key(d: dict[str, Any]) -> tuple[int, int] | None:
+    """The order key ``(epoch, seq)`` of an advisory record or event (README, "What a
+    consumer must do"), or None when it lacks either."""
+    a = d["advisory"] if isinstance(d.get("advisory"), dict) else d
+    epoch, seq = a.get("epoch"), a.get("seq")
+    if isinstance(epoch, int) and isinstance(seq, int):
+        return epoch, seq
+    return None
+
+
 def _accepted_advisories(obs: Observed, rep: Report
                          ) -> list[tuple[float, str, dict[str, Any] | None]]:
-    """Advisory records as a consumer keeps them: one of an older epoch than the newest
-    seen for its shard (on any record or event) is dropped and counted."""
-    newest: dict[str, int] = {}
+    """Advisory records (and the advisories of events: the same state) as a consumer keeps
+    them, in receipt order, by the rule the README
+    gives (written here as a consumer would, not taken from the service's code): keep the
+    newest epoch per shard (from every event and record) and the newest ``(epoch, seq)``
+    per advisory id (from its records and its events); drop a record of an older epoch
+    than its shard's, and one whose key is not above its advisory's (the record of an event
+    already taken, a copy, or one delivered late). Counts what is dropped; a record or event without
+    ``seq`` is a violation, and so is a dropped record whose history is longer than that of
+    the one kept for its advisory under the same epoch (a newer record the rule lost:
+    ``seq`` went back)."""
+    newest_epoch: dict[str, int] = {}
+    newest_key: dict[str, tuple[int, int]] = {}
+    kept: dict[str, dict[str, Any]] = {}  # advisory id -> the record or event advisory taken
     stream: list[tuple[float, int, Any]] = []
     for t, _, d in obs.advisory_events():
         stream.append((t, 0, d))
@@ -176,28 +197,64 @@ def _accepted_advisories(obs: Observed, rep: Report
         stream.append((t, 2, d))
     stream.sort(key=lambda x: (x[0], x[1]))
     out: list[tuple[float, str, dict[str, Any] | None]] = []
-    dropped = 0
+    stale = late = copies = no_seq = 0
     for t, kind, item in stream:
         d = item[1] if kind == 1 else item
-        if d is not None:
-            shard, epoch = _shard_epoch(d)
-            if shard is not None and epoch is not None:
-                if epoch < newest.get(shard, -1):
-                    if kind == 1:
-                        dropped += 1
-                    continue
-                newest[shard] = max(epoch, newest.get(shard, -1))
-        if kind == 1:
-            out.append((t, item[0], d))
-    rep.figures["stale_advisory_records_dropped"] = dropped
+        if d is None:  # an emptied topic: the advisory last taken there cleared (its
+            # ``cleared`` event carried its last key)
+            out.append((t, item[0], None))
+            continue
+        shard, epoch = _shard_epoch(d)
+        if shard is not None and epoch is not None:
+            if epoch < newest_epoch.get(shard, -1):
+                stale += kind == 1
+                continue
+            newest_epoch[shard] = epoch
+        if kind == 2:
+            continue
+        a = d["advisory"] if kind == 0 else d
+        key = _key(d)
+        if key is None:
+            no_seq += 1
+            continue
+        prev = newest_key.get(a["id"], (-1, -1))
+        if key <= prev:
+            if kind == 1:
+                if key == prev:
+                    copies += 1
+                else:
+                    late += 1
+                    mine = kept.get(a["id"])
+                    if mine is not None and key[0] == prev[0] and \
+                            len(a.get("history", [])) > len(mine.get("history", [])):
+                        rep.add("forward", f"{item[0]}: a record of {a['id']} with a longer "
+                                           f"history than the one kept was dropped: seq "
+                                           f"{key[1]} after {prev[1]} in epoch {key[0]}")
+            continue
+        newest_key[a["id"]] = key
+        kept[a["id"]] = a
+        # an event's advisory is the consumer's view of it as much as a record is (the
+        # harness's sites separate the rule's parts in topics by "/")
+        topic = item[0] if kind == 1 else (f"{obs.prefix}/spaces/{a['space']['id']}/"
+                                           f"advisories/{a['rule'].replace('.', '/')}")
+        out.append((t, topic, a))
+    if no_seq:
+        rep.add("forward", f"{no_seq} advisory record(s) or event(s) without epoch and seq")
+    rep.figures["stale_advisory_records_dropped"] = stale
+    rep.figures["late_advisory_records_dropped"] = late
+    rep.figures["advisory_record_copies"] = copies
     return out
 
 
 def check_forward(obs: Observed, rep: Report) -> None:
-    """The retained advisory of a topic never goes backwards."""
+    """The retained advisory of a topic never goes backwards, as a consumer keeps it
+    (:func:`_accepted_advisories`): per advisory its ``(epoch, seq)`` only grows, its
+    history only grows at the end, its priority drops only with a ``deescalated`` entry,
+    and a cleared advisory does not come back."""
     last: dict[str, dict[str, Any]] = {}
     cleared: dict[str, set[str]] = defaultdict(set)
-    for _, topic, d in _accepted_advisories(obs, rep):
+    accepted = _accepted_advisories(obs, rep)
+    for _, topic, d in accepted:
         if d is None:  # emptied: the advisory cleared
             prev = last.pop(topic, None)
             if prev is not None:
@@ -210,11 +267,13 @@ def check_forward(obs: Observed, rep: Report) -> None:
         last[topic] = d
         if prev is None or prev["id"] != d["id"]:
             continue
-        pe, de = _shard_epoch(prev)[1] or 0, _shard_epoch(d)[1] or 0
+        pk, dk = _key(prev), _key(d)
         ph, dh = prev.get("history", []), d.get("history", [])
-        if (de, len(dh)) < (pe, len(ph)):
-            rep.add("forward", f"{topic}: (epoch, history) went from ({pe}, {len(ph)}) to "
-                               f"({de}, {len(dh)}): {[h['event'] for h in dh][-4:]}")
+        if pk is not None and dk is not None and dk <= pk:
+            rep.add("forward", f"{topic}: (epoch, seq) went from {pk} to {dk}")
+        if len(dh) < len(ph):
+            rep.add("forward", f"{topic}: history went from {len(ph)} to {len(dh)} entries "
+                               f"at {dk}: {[h['event'] for h in dh][-4:]}")
             continue
         if len(ph) < HISTORY_KEPT and dh[:len(ph)] != ph:
             rep.add("forward", f"{topic}: history rewritten: "
@@ -224,6 +283,7 @@ def check_forward(obs: Observed, rep: Report) -> None:
             rep.add("forward", f"{topic}: priority went from {prev['priority']} to "
                                f"{d['priority']} with no deescalation in its history")
     rep.figures["advisory_records"] = sum(1 for _ in obs.advisories)
+    rep.figures["advisory_states_kept"] = sum(1 for _, _, d in accepted if d is not None)
 
 
 def check_commands(obs: Observed, sc: Scenario, rep: Report) -> None:
@@ -299,8 +359,13 @@ def check_evaluated(obs: Observed, sc: Scenario, rep: Report) -> None:
 
 def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
     """After the fault: no conditions record says the 60-minute WBGT is being rebuilt
-    (``windows.wbgt_60min.partial``) where the last record before the fault did not, and a
-    space whose time-weighted WBGT was present before the fault has it after."""
+    (``windows.wbgt_60min.partial``) for a space whose window was whole before the fault
+    (its last record before it had the time-weighted WBGT and no partial window), and a
+    space whose time-weighted WBGT was present before the fault has it after.
+
+    (A window that was not whole before the fault, in a run shorter than the window, cannot
+    be whole after it: whether a standby flags it as rebuilt then depends only on whether
+    it began standing by in the second after its holder began, or the one before.)"""
     before: dict[str, bool] = {}
     partial_before: dict[str, bool] = {}
     after_first: dict[str, bool] = {}
@@ -314,7 +379,8 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
             partial_before[space] = is_partial
         else:
             after_first.setdefault(space, present)
-            if is_partial and not partial_before.get(space, False):
+            if is_partial and before.get(space, False) and \
+                    not partial_before.get(space, False):
                 partial.add(space)
     partial -= sc.whole_exempt
     for s in sorted(partial):

@@ -13,9 +13,12 @@ ADV = f"{P}/spaces/s001/advisories/heat_stress/wbgt"
 
 
 def adv(epoch: int, history: list[str], priority: str = "high", *, shard: str = "b3",
-        by: dict[int, str] | None = None) -> dict:
+        by: dict[int, str] | None = None, seq: int | None = None) -> dict:
+    """An advisory record; its ``seq`` is its history's length unless given (one record per
+    change)."""
     return {"id": "s001.heat_stress.wbgt.1", "rule": "heat_stress.wbgt", "space": {"id": "s001"},
             "priority": priority, "state": "active", "shard": shard, "epoch": epoch,
+            "seq": len(history) if seq is None else seq,
             "history": [{"at": f"2026-12-04T19:00:{k:02d}Z", "event": e,
                          **({"by": by[k]} if by and k in by else {})}
                         for k, e in enumerate(history)]}
@@ -23,7 +26,7 @@ def adv(epoch: int, history: list[str], priority: str = "high", *, shard: str = 
 
 def event(epoch: int, n: int, kind: str, advisory: dict, shard: str = "b3") -> dict:
     return {"schema": "thermowarden.event/1", "event": kind, "at": "2026-12-04T19:00:00Z",
-            "shard": shard, "epoch": epoch,
+            "shard": shard, "epoch": epoch, "seq": advisory["seq"],
             "event_id": f"f1.{shard}.{epoch}.{advisory['id']}.{n}", "advisory": advisory}
 
 
@@ -104,12 +107,48 @@ def test_records_without_epochs_are_caught():
 def test_a_record_going_backwards_is_caught_and_a_stale_epoch_dropped():
     msgs = clean() + [
         # the old holder's record after the new epoch: a consumer drops it (not a violation)
-        msg(61.0, ADV, adv(1, ["raised"]), True),
-        # the new epoch's record with its history cut short: a violation
-        msg(62.0, ADV, adv(2, ["raised", "moved"], "urgent"), True)]
+        msg(61.0, ADV, adv(1, ["raised"], seq=7), True),
+        # the new epoch's next record with its history cut short: a violation
+        msg(62.0, ADV, adv(2, ["raised", "moved"], "urgent", seq=4), True)]
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
     assert rep.figures["stale_advisory_records_dropped"] == 1
-    assert any("went from (2, 3) to (2, 2)" in v for v in rep.failed()["forward"])
+    assert any("history went from 3 to 2" in v for v in rep.failed()["forward"])
+
+
+def test_a_record_delivered_late_in_its_epoch_is_dropped_by_its_seq():
+    """The broker-node freeze: an older record of the same epoch, held up on the frozen
+    node, arrives after a newer one. A consumer drops it by (epoch, seq); the stream it
+    keeps never goes back."""
+    a1 = adv(1, ["raised"])
+    a2 = adv(1, ["raised", "escalated"], "urgent")
+    msgs = [*conditions_every(10.0, epoch_at=1000.0),
+            msg(1.0, f"{P}/events/safety/s001", event(1, 1, "raised", a1)),
+            msg(1.1, ADV, a1, True),
+            msg(60.0, f"{P}/events/safety/s001", event(1, 2, "escalated", a2)),
+            msg(60.1, ADV, a2, True),
+            msg(75.0, ADV, a1, True)]  # the late copy from the frozen node
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert not rep.failed(), rep.summary()
+    assert rep.figures["late_advisory_records_dropped"] == 1
+    # read by epoch alone (no seq), the same stream goes back from urgent to high
+    for m in msgs:
+        d = m.json()
+        if d is not None:
+            (d.get("advisory") or d).pop("seq", None)
+            d.pop("seq", None)
+            m.payload = json.dumps(d).encode()
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("without epoch and seq" in v for v in rep.failed()["forward"])
+
+
+def test_a_newer_record_lost_to_a_seq_that_went_back_is_caught():
+    """A holder whose seq restarted lower in the same epoch: the consumer drops its newer
+    records; the check says a record with a longer history was dropped."""
+    msgs = clean() + [msg(70.0, ADV, adv(2, ["raised", "moved", "escalated", "renotified"],
+                                         "urgent", seq=1), True)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert any("longer history than the one kept was dropped" in v
+               for v in rep.failed()["forward"])
 
 
 def test_a_priority_dropping_without_deescalation_is_caught():
@@ -156,3 +195,15 @@ def test_a_storm_of_answers_is_caught():
     msgs = clean() + [msg(60.0 + k / 100, f"{P}/replies", stray) for k in range(20)]
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
     assert any("storm" in v for v in rep.failed()["commands"])
+
+
+def test_a_window_not_whole_before_the_fault_is_not_asked_to_be_whole_after():
+    """A run shorter than the window: before the fault the holder's window was not whole
+    (no time-weighted WBGT), and the standby flags its own as rebuilt after the takeover;
+    no takeover could have done better, so that is no violation."""
+    msgs = [m for m in clean() if not m.topic.endswith("conditions")]
+    msgs += conditions_every(10.0, until=40.0, twa=None)
+    msgs += [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                 cond("s001", 2, partial=True, twa=None)) for k in range(6)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
+    assert "whole" not in rep.failed(), rep.summary()

@@ -18,7 +18,7 @@ import pytest
 
 from tests.shell.conftest import Collector, ServiceProcess, clear_retained, wait_for, write_site
 from thermowarden.shell.bootstrap import bootstrap
-from thermowarden.shell.service import Clock
+from thermowarden.shell.clock import Clock
 from thermowarden.shell.store import Store, StoreError
 
 pytestmark = pytest.mark.broker

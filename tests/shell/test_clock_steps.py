@@ -14,7 +14,7 @@ import pytest
 
 from tests.shell.conftest import SLOW, Collector, clear_retained, wait_for
 from thermowarden.shell.bootstrap import bootstrap
-from thermowarden.shell.service import Clock
+from thermowarden.shell.clock import Clock
 
 pytestmark = pytest.mark.broker
 

@@ -42,6 +42,7 @@ def group_site(tmp_path, prefix, port, spaces, schema, *, buckets=6, rebalance_s
   lease_ttl_s: {TTL_S}
   shard_buckets: {buckets}
   rebalance_after_s: {rebalance_s}
+  standby_warm_s: {rebalance_s}
 """)
 
 

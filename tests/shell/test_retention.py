@@ -7,7 +7,7 @@ from __future__ import annotations
 import textwrap
 
 from thermowarden.shell.bootstrap import bootstrap
-from thermowarden.shell.service import Clock
+from thermowarden.shell.clock import Clock
 
 NOW = 1_784_000_000.0
 DAY = 86_400.0

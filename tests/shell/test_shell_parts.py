@@ -8,8 +8,8 @@ import logging
 import socket
 
 from thermowarden.shell import systemd
+from thermowarden.shell.clock import Clock
 from thermowarden.shell.logs import JsonFormatter, RateLimiter
-from thermowarden.shell.service import Clock
 from thermowarden.shell.store import Store
 
 

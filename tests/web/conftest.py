@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import gzip
 import json
+import os
 import pathlib
+import shutil
 import threading
 import time
 import urllib.request
@@ -31,8 +33,8 @@ from tests.shell.conftest import (
     wait_for,
 )
 from thermowarden.shell.bootstrap import Running, bootstrap
+from thermowarden.shell.clock import Clock
 from thermowarden.shell.mqtt_link import release_sockets
-from thermowarden.shell.service import Clock
 from thermowarden.shell.web.users import hash_password
 
 REPO = pathlib.Path(__file__).resolve().parents[2]
@@ -40,6 +42,13 @@ FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 SITE = REPO / "deploy" / "example-site.yaml"
 SPEED = 1200.0
 """Simulated seconds per real second while the day is published (15 h in about 45 s)."""
+CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
+CHROMEDRIVER = shutil.which("chromedriver") or "/usr/bin/chromedriver"
+HAVE_BROWSER = os.path.exists(CHROMIUM) and os.path.exists(CHROMEDRIVER)
+"""Debian's chromium and chromium-driver (the browser tests skip without them)."""
+BROWSER_ARGS = ("--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+                "--disable-background-networking", "--disable-component-update",
+                "--disable-sync", "--disable-dev-shm-usage", "--hide-scrollbars")
 USERS = {"ana": ("ana-pass-1", ["safety", "facilities"]),
          "ivo": ("ivo-pass-2", ["integrator"])}
 
@@ -175,3 +184,23 @@ def web_site(tmp_path_factory, web_broker_port) -> Iterator[WebSite]:
         if running.web is not None:
             running.web.stop()
         clear_retained(system_broker_port, prefix)
+
+
+@pytest.fixture(scope="module")
+def browser() -> Iterator[object]:
+    """Headless chromium through chromedriver, 1200 x 900 to start with."""
+    from selenium import webdriver
+    from selenium.webdriver.chrome.options import Options
+    from selenium.webdriver.chrome.service import Service
+
+    opts = Options()
+    opts.binary_location = CHROMIUM
+    for a in BROWSER_ARGS:
+        opts.add_argument(a)
+    opts.add_argument("--window-size=1200,900")
+    driver = webdriver.Chrome(service=Service(executable_path=CHROMEDRIVER), options=opts)
+    driver.set_page_load_timeout(60)
+    try:
+        yield driver
+    finally:
+        driver.quit()

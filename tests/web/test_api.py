@@ -63,6 +63,10 @@ def test_history_over_a_period(web_site: WebSite):
         assert key in last
     assert any(s["utci"] is not None for s in samples)
     assert h["units"]["relative_humidity"] == "%"
+    # each field under its index's name, and under the older name it had
+    assert h["units"]["wbgt_effective"] == h["units"]["wbgt"] == "°C"
+    assert all(s["wbgt"] == s["wbgt_effective"] and s["pmv"] == s["pmv_iso"] for s in samples)
+    assert any(s["wbgt_effective"] is not None for s in samples)
     ats = [s["at"] for s in samples]
     assert ats == sorted(ats)
     assert web_site.get("/api/spaces/loading-yard/history?from=2026-07-15T00:00:00Z"

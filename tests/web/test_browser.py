@@ -12,45 +12,17 @@ import io
 import os
 import pathlib
 import re
-import shutil
-from collections.abc import Iterator
 
 import pytest
 
 from tests.shell.conftest import wait_for
-from tests.web.conftest import USERS, WebSite
-
-CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
-CHROMEDRIVER = shutil.which("chromedriver") or "/usr/bin/chromedriver"
-HAVE_BROWSER = os.path.exists(CHROMIUM) and os.path.exists(CHROMEDRIVER)
+from tests.web.conftest import HAVE_BROWSER, USERS, WebSite
 
 pytestmark = [
     pytest.mark.broker,
     pytest.mark.skipif(not HAVE_BROWSER, reason="Debian's chromium and chromium-driver are "
                        "not installed (apt-get install chromium chromium-driver)"),
 ]
-BROWSER_ARGS = ("--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-                "--disable-background-networking", "--disable-component-update",
-                "--disable-sync", "--disable-dev-shm-usage", "--hide-scrollbars")
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[object]:
-    from selenium import webdriver
-    from selenium.webdriver.chrome.options import Options
-    from selenium.webdriver.chrome.service import Service
-
-    opts = Options()
-    opts.binary_location = CHROMIUM
-    for a in BROWSER_ARGS:
-        opts.add_argument(a)
-    opts.add_argument("--window-size=1200,900")
-    driver = webdriver.Chrome(service=Service(executable_path=CHROMEDRIVER), options=opts)
-    driver.set_page_load_timeout(60)
-    try:
-        yield driver
-    finally:
-        driver.quit()
 
 
 def screenshot(driver, name: str, width: int = 1200) -> bytes:

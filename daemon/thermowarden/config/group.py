@@ -76,8 +76,14 @@ class GroupConfig(Strict):
     """Hash buckets for the spaces that declare no ``area`` or ``building``."""
     rebalance_after_s: float = Field(3660.0, ge=0)
     """An instance above its fair share hands shards over (one per lease round) only after
-    the group's membership has been steady this long, so the standby that takes each has
-    stood by long enough for its 60-minute WBGT to be whole."""
+    the group's membership has been steady this long (damping), and only to a standby that
+    has stood by for the shard for ``standby_warm_s``."""
+    standby_warm_s: float | None = Field(None, ge=0)
+    """A held shard is handed over (rebalancing) only to a standby that has stood by for it
+    this long; default the site's WBGT window (``ingest.wbgt_window_s``) plus one
+    ``lease_ttl_s``, so its 60-minute WBGT is whole when it takes the shard. Shorter only
+    for a site whose rules use no window. (A standby taking the shard of a holder that died
+    or stopped takes it at once, whatever this is.)"""
 
     @model_validator(mode="after")
     def _check(self) -> GroupConfig:

@@ -25,7 +25,7 @@ from thermowarden.config.positions import (
 )
 from thermowarden.config.rule_packs import RulePackConfig
 from thermowarden.config.site import SiteConfig, TreeIssues
-from thermowarden.config.windows import window_issues
+from thermowarden.config.site_checks import rule_pack_name_issues, window_issues
 
 ENV_PREFIX = "THERMOWARDEN_"
 
@@ -253,6 +253,14 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
     ``environ`` defaults to the process environment (the shell passes it; tests pass
     their own).
     """
+    return load_site_with_positions(path, environ)[0]
+
+
+def load_site_with_positions(path: str | os.PathLike[str],
+                             environ: Mapping[str, str] | None = None
+                             ) -> tuple[SiteConfig, SourceMap]:
+    """:func:`load_site`, and where each setting is written (file, line, column; spaces
+    from the CSV at their row), for messages about a valid site (``check``'s warnings)."""
     environ = os.environ if environ is None else environ
     p = pathlib.Path(path)
     shown = str(path)
@@ -302,55 +310,11 @@ def load_site(path: str | os.PathLike[str], environ: Mapping[str, str] | None = 
             issues.append(ConfigIssue(smap.find(where, key=True),
                                       f"{'.'.join(map(str, where))}: {message}"))
         raise ConfigError(issues) from None
-    issues.extend(_rule_pack_name_issues(config, smap, p))
+    issues.extend(rule_pack_name_issues(config, smap, p))
     issues.extend(window_issues(config, smap))
     if issues:
         raise ConfigError(issues)
-    return config
-
-
-def _rule_pack_name_issues(config: SiteConfig, smap: SourceMap, site_path: pathlib.Path
-                           ) -> list[ConfigIssue]:
-    """Every rule pack name that names no pack (in ``rule_dirs`` or built in), with its
-    position and the closest existing name; ``defaults.rule_packs`` is checked even when
-    every space names its own packs."""
-    import importlib.resources
-
-    dirs = [pathlib.Path(d) if os.path.isabs(d) else site_path.parent / d
-            for d in config.rule_dirs]
-    dirs.append(pathlib.Path(str(importlib.resources.files("thermowarden.rulepacks"))))
-    available = sorted({f.stem for d in dirs if d.is_dir() for f in d.glob("*.yaml")})
-    issues: list[ConfigIssue] = []
-
-    def check(names: list[str], path: tuple[str | int, ...]) -> None:
-        for k, name in enumerate(names):
-            if name in available:
-                continue
-            close = difflib.get_close_matches(name, available, n=1)
-            hint = (f"; did you mean {close[0]!r}?" if close
-                    else f"; available: {', '.join(available)}")
-            where = ".".join(str(x) for x in (*path, k))
-            issues.append(ConfigIssue(smap.find((*path, k)),
-                                      f"{where}: unknown rule pack {name!r}{hint}"))
-
-    check(config.defaults.rule_packs, ("defaults", "rule_packs"))
-    inherited: set[tuple[str, ...]] = set()
-    for b_no, b in enumerate(config.buildings):
-        levels: list[tuple[tuple[str | int, ...], Any]] = [(("buildings", b_no), b)]
-        levels += [(("buildings", b_no, kind, f_no), f) for kind in ("floors", "areas")
-                   for f_no, f in enumerate(getattr(b, kind))]
-        for where, level in levels:
-            if level.rule_packs is not None:
-                check(level.rule_packs, (*where, "rule_packs"))
-                inherited.add(tuple(level.rule_packs))
-    for a_no, a in enumerate(config.areas):
-        if a.rule_packs is not None:
-            check(a.rule_packs, ("areas", a_no, "rule_packs"))
-            inherited.add(tuple(a.rule_packs))
-    for i, space in enumerate(config.spaces):
-        if space.rule_packs is not None and tuple(space.rule_packs) not in inherited:
-            check(space.rule_packs, (*config.origin(i), "rule_packs"))
-    return issues
+    return config, smap
 
 
 def read_password(broker: BrokerConfig) -> str | None:

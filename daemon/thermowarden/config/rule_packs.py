@@ -168,6 +168,10 @@ class RulePackConfig(Strict):
 
     pack: str = Field(pattern=RULE_ID)
     description: str
+    health: bool = False
+    """A pack about the points and the other rules rather than the conditions (the built-in
+    ``sensor_health``): its rules are evaluated after every other rule of the space, so
+    they may read ``rules_unknown_long``, and are not counted there themselves."""
     rules: list[RuleConfig]
 
     @model_validator(mode="after")

@@ -3,16 +3,11 @@ sun-on-the-facade forecast (:mod:`thermowarden.core.facade_sun`)."""
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Literal
+from typing import Literal
 
 from pydantic import Field, model_validator
 
 from thermowarden.config.base import Strict
-from thermowarden.config.errors import ConfigIssue
-from thermowarden.config.positions import SourceMap
-
-if TYPE_CHECKING:
-    from thermowarden.config.site import SiteConfig
 
 
 class OverhangConfig(Strict):
@@ -63,29 +58,3 @@ class WindowConfig(Strict):
         names = ("north", "north-east", "east", "south-east", "south", "south-west", "west",
                  "north-west")
         return names[int((self.facade_azimuth + 22.5) // 45) % 8]
-
-
-def window_issues(config: SiteConfig, smap: SourceMap) -> list[ConfigIssue]:
-    """What the models alone cannot see: windows need the site's latitude and longitude,
-    and a window's ``shading_point`` must be the topic of a ``shading_position`` point of
-    its space (each issue at its position in the file)."""
-    issues: list[ConfigIssue] = []
-    site = config.site
-    for k, space in enumerate(config.spaces):
-        if not space.windows:
-            continue
-        if site.latitude is None or site.longitude is None:
-            issues.append(ConfigIssue(
-                smap.find(("spaces", k, "windows"), key=True),
-                f"spaces.{k}.windows: windows need the site's position: set site.latitude "
-                "and site.longitude (degrees, north and east positive)"))
-        shading = [p.topic for p in space.points if p.quantity == "shading_position"]
-        for w, window in enumerate(space.windows):
-            if window.shading_point is not None and window.shading_point not in shading:
-                where = f"spaces.{k}.windows.{w}.shading_point"
-                known = ", ".join(repr(t) for t in shading) or "none"
-                issues.append(ConfigIssue(
-                    smap.find(("spaces", k, "windows", w, "shading_point")),
-                    f"{where}: {window.shading_point!r} is not a shading_position point of "
-                    f"space {space.id!r} (its shading_position points: {known})"))
-    return issues

@@ -35,6 +35,8 @@ FLOOR_RANGES_C: dict[str, tuple[float, float]] = {
     "C": (17.0, 31.0),
 }
 CATEGORY_NAMES = ("A", "B", "C")
+ISO_CATEGORY_LABELS = (*CATEGORY_NAMES, "outside C")
+"""Label of each ISO 7730 category value (0 -> A ... 3 -> outside C)."""
 
 
 def draught_rate(air_c: FloatArray, air_speed: FloatArray,

@@ -28,10 +28,12 @@ module only says what an instance should *try*, from what it last read there:
 - an instance holding more than its share (after a standby took a dead holder's shards,
   after a newcomer joined) gives up one shard per round, and only after the live set has
   been unchanged for ``settle_s`` and while some live instance holds less than its share
-  (damping: no chain of hand-overs while instances come and go); it gives up a shard whose
-  standby is under its share, holding the fewest, and that standby takes it. Set
-  ``settle_s`` at least as long as the longest window the rules use (the 60-minute WBGT)
-  for the standby to be warm when it takes the shard.
+  (damping: no chain of hand-overs while instances come and go); it gives up only a shard
+  whose first standby is under its share *and* has stood by for it for ``warm_s`` (the
+  longest window the rules use, the 60-minute WBGT, and a round: the standby's windows are
+  whole when it takes the shard), the one whose standby holds the fewest, and that standby
+  takes it. How long a standby has stood by, each instance reads from its own rounds: the
+  time since a shard's first standby (:func:`first_standbys`) last changed.
 
 Rendezvous weights: BLAKE2b of ``shard`` and ``instance`` (8 bytes each), mixed with
 SplitMix64's finaliser (Steele, Lea and Flood, "Fast splittable pseudorandom number
@@ -86,6 +88,18 @@ def standbys(shard: str, holder: str | None, live: Iterable[str], replicas: int)
     return [m for m in ranking(shard, live) if m != holder][:max(0, replicas)]
 
 
+def first_standbys(shards: Iterable[str], holders: Mapping[str, str],
+                   last_holder: Mapping[str, str], live: Iterable[str]) -> dict[str, str]:
+    """Shard -> its first standby (a free shard: its last holder's), "" for none: what an
+    instance follows over time to know how long each standby has stood by."""
+    members = frozenset(live)
+    out: dict[str, str] = {}
+    for s in shards:
+        first = standbys(s, holders.get(s, last_holder.get(s)), members, 1)
+        out[s] = first[0] if first else ""
+    return out
+
+
 def share(n_shards: int, n_live: int) -> int:
     """The most shards one instance takes: ``ceil(shards / live instances)``."""
     return math.ceil(n_shards / n_live) if n_live > 0 else 0
@@ -110,6 +124,9 @@ class View:
     last_holder: Mapping[str, str] = field(default_factory=dict)
     """Shard -> the holder this instance last read for it (for a free shard: whose
     standby takes it first)."""
+    standby_since: Mapping[str, float] = field(default_factory=dict)
+    """Shard -> since when (this instance's reading) its first standby has been the
+    instance it is now (:func:`first_standbys`; missing: not known, not warm)."""
 
 
 @dataclass(frozen=True)
@@ -125,8 +142,10 @@ class Plan:
     share: int
 
 
-def plan(view: View, *, replicas: int, grace_s: float, settle_s: float) -> Plan:
-    """See the module docstring."""
+def plan(view: View, *, replicas: int, grace_s: float, settle_s: float,
+         warm_s: float = 0.0) -> Plan:
+    """See the module docstring. ``warm_s``: a held shard is handed over only to a first
+    standby that has stood by at least this long (``View.standby_since``)."""
     me = view.me
     if me not in view.live:
         return Plan((), tuple(s for s in view.shards if view.holders.get(s) == me),
@@ -175,11 +194,11 @@ def plan(view: View, *, replicas: int, grace_s: float, settle_s: float) -> Plan:
     release: tuple[str, ...] = ()
     if len(mine) > limit and view.now - view.live_since >= settle_s:
         under = {m for m in view.live if m != me and counts.get(m, 0) < limit}
-        if under:
-            # the shard whose first standby is an instance under its share, holding fewest
-            def key(s: str) -> tuple[int, int, str]:
-                first_standby = order[s][0] if order[s] else ""
-                return (0 if first_standby in under else 1,
-                        counts.get(first_standby, 0), s)
-            release = (min(mine, key=key),)
+        # only to a first standby under its share that has stood by for warm_s (its
+        # windows are whole), the one holding fewest
+        ready = [s for s in mine if order[s] and order[s][0] in under
+                 and (warm_s <= 0
+                      or view.now - view.standby_since.get(s, math.inf) >= warm_s)]
+        if ready:
+            release = (min(ready, key=lambda s: (counts.get(order[s][0], 0), s)),)
     return Plan(tuple(take), release, standing, limit)

@@ -3,8 +3,9 @@
 See :mod:`thermowarden.engine.engine` for the path the data takes through the modules.
 """
 
-from thermowarden.engine.advisories import Advisory, CommandError, RuleRuntime
+from thermowarden.core.json_values import iso
+from thermowarden.engine.advisories import CommandError, RuleRuntime
+from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.engine import Engine
-from thermowarden.engine.publication import iso
 
 __all__ = ["Advisory", "CommandError", "Engine", "RuleRuntime", "iso"]

@@ -14,7 +14,7 @@ import math
 from collections import deque
 from collections.abc import Callable, Mapping
 from collections.abc import Set as AbstractSet
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any, Final
 
 import numpy as np
@@ -23,16 +23,13 @@ from thermowarden.config.rule_packs import AUDIENCES, PRIORITIES
 from thermowarden.config.site import SiteConfig
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
 from thermowarden.core.expressions import Expression
+from thermowarden.core.json_values import iso, num
+from thermowarden.core.labels import value_label
 from thermowarden.core.lifecycle import IllegalTransition, State, Trigger, transition
 from thermowarden.effects import Effect, Persist
+from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.evaluation import RuleTruths
-from thermowarden.engine.publication import (
-    EVENT_SCHEMA,
-    REPLY_SCHEMA,
-    Publication,
-    iso,
-    num,
-)
+from thermowarden.engine.publication import EVENT_SCHEMA, REPLY_SCHEMA, Publication
 from thermowarden.engine.texts import Texts, number_at, one_space, values_at
 from thermowarden.rules import (
     HEAT_STRESS_CAUTIONS,
@@ -79,44 +76,6 @@ reviewed within the hour, and an acknowledgement must not silence an urgent aler
 rest of a shift."""
 SHELVE_BUDGET_WINDOW_S: Final = 86_400.0
 """Shelved time is summed over this rolling window for ``max_shelved_per_day_s``."""
-
-
-@dataclass
-class Advisory:
-    """One occurrence of an advisory for one space and rule."""
-
-    id: str
-    space: int
-    rule: str
-    audience: str
-    priority: str
-    state: State
-    raised_at: float
-    updated_at: float
-    title: str = ""
-    advice: str = ""
-    rationale: str = ""
-    numbers: dict[str, Any] = field(default_factory=dict)
-    benefit: dict[str, Any] = field(default_factory=dict)
-    cautions: list[str] = field(default_factory=list)
-    cleared_at: float | None = None
-    acknowledged: dict[str, Any] | None = None
-    shelved: dict[str, Any] | None = None
-    acted_on: dict[str, Any] | None = None
-    chattering: bool = False
-    history: list[dict[str, Any]] = field(default_factory=list)
-    no_effect_text: str = ""
-    """What to say if the advice is acted on and does not help (rendered with the rest)."""
-    effect_overdue: bool = False
-    """Acted on, not cleared in the expected time, and said so."""
-    rendered_from: tuple[object, ...] | None = field(default=None, repr=False, compare=False)
-    """What the texts were last rendered from (:meth:`Texts.render_key`)."""
-    lowered: bool = False
-    """Its last change of level was down (it is easing until it escalates again)."""
-    numbers_at: float | None = None
-    """When the texts and numbers were last rendered (epoch s): the last evaluation at an
-    event, or at advice acted on, where the rule's condition was not known to be false.
-    None: not known (a record from before)."""
 
 
 class CommandError(ValueError):
@@ -336,9 +295,9 @@ class Advisories:
 
     # ------------------------------------------------------------------ evaluation
     def unknown_long(self, now: float) -> FloatArray:
-        """Per space: how many rules (other than sensor health) have been unknown for want
-        of an input for at least ``UNKNOWN_LONG_S``."""
-        since = [rt.unknown_since for rt in self.rules if rt.rule.pack != "sensor_health"]
+        """Per space: how many rules (other than those of health packs) have been unknown for
+        want of an input for at least ``UNKNOWN_LONG_S``."""
+        since = [rt.unknown_since for rt in self.rules if not rt.rule.health]
         if not since:
             return np.zeros(self.n)
         counts: FloatArray = (now - np.stack(since) >= UNKNOWN_LONG_S).sum(
@@ -347,18 +306,21 @@ class Advisories:
 
     def unknown_detail(self, i: int, now: float) -> str:
         """Which rules of space ``i`` have been unknown for ``UNKNOWN_LONG_S`` and the names
-        they read that are not known, e.g. ``shading.lower_shading (mean_radiant_temperature)``."""
+        they read that are not known, in words: ``Lower the shading (Mean radiant
+        temperature)``."""
         parts: list[str] = []
         env = self._ctx.base
         for rt in self.rules:
-            if rt.rule.pack == "sensor_health" or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
+            if rt.rule.health or not now - rt.unknown_since[i] >= UNKNOWN_LONG_S:
                 continue
             exprs = [e for _, e in rt.rule.levels] + [
                 e for e in (rt.rule.condition, rt.rule.clear) if e is not None]
             names = sorted({n for e in exprs for n in e.names
                             if n not in rt.params and isinstance(env.get(n), np.ndarray)
                             and env[n].dtype != np.bool_ and not np.isfinite(env[n][i])})
-            parts.append(f"{rt.rule.key} ({', '.join(names) or 'inputs out of range'})")
+            # in words: the rule's title and the inputs it lacks ("Too warm (PMV, ISO 7730)")
+            lacking = ", ".join(value_label(n) for n in names) or "inputs out of range"
+            parts.append(f"{rt.rule.config.title} ({lacking})")
         return "; ".join(parts)
 
     def begin(self, base: Mapping[str, Any], table: Mapping[str, IndexColumn] | None,
@@ -645,7 +607,10 @@ class Advisories:
                                                          or mode != "level"):
                     shown = copy.copy(adv)
                     self._render(rt, shown, now, mode)
-                out.append(self._published(shown))
+                out.append(self._published(shown, counter=adv))
+                # stored with its sequence number: after a restart its records go on
+                # from the last one published, never back
+                out.append(self._persist(adv))
         return out
 
     # ------------------------------------------------------------------ acted on
@@ -886,18 +851,25 @@ class Advisories:
             return self.pub.advisory_persist(adv, {})
         return self.pub.advisory_persist(adv, self._timers(adv))
 
-    def _published(self, adv: Advisory) -> Effect:
+    def _published(self, adv: Advisory, counter: Advisory | None = None) -> Effect:
         """The retained advisory message; a live one carries its timers (``handover``), so
-        that another instance of a group can continue it (:meth:`adopt`)."""
+        that another instance of a group can continue it (:meth:`adopt`). Every call makes
+        the next record of the advisory: its ``seq`` grows by one (kept on ``counter``
+        when ``adv`` is a copy rendered for the message)."""
+        keeper = counter if counter is not None else adv
+        keeper.seq += 1
+        adv.seq = keeper.seq
         if adv.cleared_at is not None or adv.id not in self.by_id:
             return self.pub.advisory_publish(adv)
         return self.pub.advisory_publish(adv, self._timers(adv))
 
     def _emit(self, rt: RuleRuntime, adv: Advisory, event: str, now: float,
               effects: list[Effect]) -> None:
-        payload = self.pub.event_payload(adv, event, now)
         n = rt.event_count.get(adv.space, 0) + 1
         rt.event_count[adv.space] = n
+        # the record first: the event carries the same sequence number (one change)
+        record = self._published(adv)
+        payload = self.pub.event_payload(adv, event, now)
         # the shard and its lease epoch make the id unique across holders: a new holder
         # continues the count under a new epoch, and an old one is fenced from its epoch
         shard, epoch = self.pub.fence(adv.space)
@@ -906,7 +878,7 @@ class Advisories:
             self.raised_count[adv.audience] += 1
         elif event == "cleared":
             self.cleared_count[adv.audience] += 1
-        effects.append(self._published(adv))
+        effects.append(record)
         effects.append(self._persist(adv))
         effects.append(Persist("event", adv.id, payload))
         window = self._window(adv.audience, now)
@@ -1006,6 +978,10 @@ class Advisories:
                     acted_on=(dict(p["acted_on"]) if p["acted_on"] is not None else None),
                     chattering=p["chattering"],
                     history=list(p["history"]))
+                seq = p.get("seq", 0)
+                if isinstance(seq, bool) or not isinstance(seq, int) or seq < 0:
+                    raise TypeError("seq must be a whole number, 0 or more")
+                adv.seq = seq
                 level = int(rec["level"])
                 ln = rec.get("last_notified")
                 last_notified = float(ln) if ln is not None else adv.raised_at

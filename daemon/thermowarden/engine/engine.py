@@ -38,9 +38,9 @@ from thermowarden.engine.advisories import (
     ADVISORY_REFRESH_S,
     UNKNOWN_LONG_S,
     Advisories,
-    Advisory,
     RuleRuntime,
 )
+from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.crossings import Crossings
 from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
 from thermowarden.engine.foresight import AHEAD_TEXTS, WINDOW_TEXTS, Foresight
@@ -170,8 +170,8 @@ class Engine:
         crossings = self.crossings
         times = snap.times.tolist()
         evaluated: list[tuple[RuleRuntime, RuleTruths, list[bool], list[bool]]] = []
-        others = [rt for rt in book.rules if rt.rule.pack != "sensor_health"]
-        health = [rt for rt in book.rules if rt.rule.pack == "sensor_health"]
+        others = [rt for rt in book.rules if not rt.rule.health]
+        health = [rt for rt in book.rules if rt.rule.health]
         unknown_long = np.zeros(k * n)
         for group in (others, health):
             if group is health:
@@ -445,6 +445,7 @@ class Engine:
             mine_before = own.get(adv.id) if own is not None else None
             if mine_before is not None:
                 _merge_own(rt, i, adv, mine_before, now)
+                adv.seq = max(adv.seq, mine_before.adv.seq)
             book._note(adv, now, "moved", by=by)
             effects.append(book._published(adv))
             effects.append(book._persist(adv))

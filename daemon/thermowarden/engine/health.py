@@ -131,7 +131,7 @@ class PointHealth:
         q = QUANTITIES.get(p.quantity)
         label = p.quantity.replace("_", " ")
         tags = ", ".join(x for x in (p.topic, f"sensor {p.sensor}" if p.sensor else "",
-                                     f"{p.side} side" if p.side else "",
+                                     f"{p.side_as_configured or p.side} side" if p.side else "",
                                      p.height or "") if x)
         text = f"{label} ({tags})"
         if not with_value:

@@ -187,16 +187,25 @@ class Ingestor:
             return [self._reject(PAYLOAD_TOO_LARGE, key, topic,
                                  f"{len(payload)} bytes > {self.max_bytes}")]
         out: list[Rejection] = []
+        unreadable: set[tuple[type, str, str]] = set()
         for pid in route:
             spec = self.model.points[pid]
             try:
                 values = self._decode(spec.fmt, payload, now, spec.quantity)
             except DecodeError as exc:
-                out.append(self._reject(exc.reason, spec.key, topic, exc.detail))
+                # A message that several points read (a SenML pack, a shared sensor) and
+                # that fails the same way for each is one bad message: counted once.
+                whole = (spec.fmt.__class__, exc.reason, exc.detail)
+                if whole not in unreadable:
+                    unreadable.add(whole)
+                    out.append(self._reject(exc.reason, spec.key, topic, exc.detail))
                 continue
             except Exception as exc:  # noqa: BLE001 - nothing a sensor sends may escape
-                out.append(self._reject(payloads.MALFORMED, spec.key, topic,
-                                        f"undecodable: {type(exc).__name__}"))
+                whole = (spec.fmt.__class__, payloads.MALFORMED, type(exc).__name__)
+                if whole not in unreadable:
+                    unreadable.add(whole)
+                    out.append(self._reject(payloads.MALFORMED, spec.key, topic,
+                                            f"undecodable: {type(exc).__name__}"))
                 continue
             for d in values:
                 if retained and d.time is None:

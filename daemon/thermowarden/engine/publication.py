@@ -15,21 +15,22 @@ Topics (``<prefix>`` is ``output.prefix``)::
 from __future__ import annotations
 
 import copy
-import datetime as dt
 import math
 from typing import TYPE_CHECKING, Any, Final
 
 import numpy as np
 
 from thermowarden.config import SiteConfig
+from thermowarden.core import catalogue
 from thermowarden.core.indices import IndexTable
+from thermowarden.core.json_values import iso, num
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.core.shards import shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.site_model import SITE, SiteModel
 
 if TYPE_CHECKING:
-    from thermowarden.engine.advisories import Advisory
+    from thermowarden.engine.advisory import Advisory
     from thermowarden.engine.state import Snapshot
 
 ADVISORY_SCHEMA: Final = "thermowarden.advisory/1"
@@ -43,17 +44,6 @@ CONDITIONS_MIN_S: Final = 15.0
 """Conditions of a space with new readings go out at most this often (else every minute)."""
 SITE_TOPIC_SPACE: Final = "_site"
 """The space part of event topics for site-wide messages (summaries, digests)."""
-
-
-def iso(t: float) -> str:
-    """UTC ISO 8601 with seconds, for payloads."""
-    return dt.datetime.fromtimestamp(t, dt.UTC).isoformat(timespec="seconds").replace(
-        "+00:00", "Z")
-
-
-def num(v: float) -> float | None:
-    """A JSON number, or null for NaN/inf (NaN never leaves the process)."""
-    return round(v, 3) if math.isfinite(v) else None
 
 
 def _input_column(snap: Snapshot, q: str) -> tuple[Any, str]:
@@ -140,6 +130,7 @@ class Publication:
             "site": self.config.site.id,
             "shard": shard,
             "epoch": epoch,
+            "seq": adv.seq,
             "space": space_ref(space),
             "rule": adv.rule,
             "audience": adv.audience,
@@ -195,7 +186,7 @@ class Publication:
         """One lifecycle transition of an advisory, as each audience receives it."""
         shard, epoch = self.fence(adv.space)
         return {"schema": EVENT_SCHEMA, "event": event, "at": iso(now), "shard": shard,
-                "epoch": epoch, "advisory": self.advisory_payload(adv)}
+                "epoch": epoch, "seq": adv.seq, "advisory": self.advisory_payload(adv)}
 
     def event_publish(self, adv: Advisory, payload: dict[str, Any]) -> Publish:
         space_id = self.model.space_ids[adv.space]
@@ -302,7 +293,9 @@ class Publication:
                 side = f"{p.quantity}_{p.side}" if p.side and p.quantity in (
                     "plane_radiant_temperature", "radiant_flux") else p.quantity
                 height = f"{p.quantity}_{p.height}" if p.height else p.quantity
-                static.append(({"key": p.key, "quantity": p.quantity, "side": p.side,
+                # the side as the site names it (window), as people configured it
+                static.append(({"key": p.key, "quantity": p.quantity,
+                                "side": p.side_as_configured or p.side,
                                 "height": p.height, "sensor": p.sensor,
                                 "unit": q.unit if q else ""},
                                tuple({p.quantity, side, height})))
@@ -387,8 +380,9 @@ class Publication:
     # ------------------------------------------------------------------ report samples
     def sample(self, table: IndexTable, now: float, occupied: Any = None,
                air_temperature: Any = None) -> dict[str, Any]:
-        """The report sample: a few indices of every space, whether it was occupied and the
-        air temperature (arrays over the spaces; the history the web page plots), NaN as
+        """The report sample: the indices the catalogue keeps (:func:`catalogue.kept`), the
+        space's comfort band, whether it was occupied and the air temperature (arrays over
+        the spaces, under each entry's stored key; the history the web page plots), NaN as
         null."""
 
         def col(name: str) -> list[float | None]:
@@ -400,18 +394,11 @@ class Publication:
                for s in self.config.spaces]
         high = [float(self.config.parameters(s).get("comfort_limit_c", 26.0))
                 for s in self.config.spaces]
-        return {"t": now, "spaces": list(self.model.space_ids),
-                "operative": col("operative_temperature"), "pmv": col("pmv_iso"),
-                "category_iso": col("comfort_category_iso"),
-                "category_en": col("adaptive_en_category"),
-                "en_lower": col("adaptive_en_II_lower"), "en_upper": col("adaptive_en_II_upper"),
-                "band_lower": low, "band_upper": high,
-                "wbgt": col("wbgt_effective"), "ref_unacclimatised":
-                    col("wbgt_reference_unacclimatised"),
-                "ref_acclimatised": col("wbgt_reference_acclimatised"),
-                "heat_index": col("heat_index"), "utci": col("utci"),
-                "occupied": (None if occupied is None
-                             else [bool(x) for x in occupied]),
-                "air_temperature": [num(float(v)) for v in air_temperature]
-                if air_temperature is not None else [None] * len(self.model.space_ids),
-                "relative_humidity": col("relative_humidity"), "dew_point": col("dew_point")}
+        out: dict[str, Any] = {"t": now, "spaces": list(self.model.space_ids)}
+        out.update((e.kept, col(e.name)) for e in catalogue.kept() if e.name in table)
+        fields = {"comfort_band_lower": low, "comfort_band_upper": high,
+                  "occupied": None if occupied is None else [bool(x) for x in occupied],
+                  "air_temperature": [num(float(v)) for v in air_temperature]
+                  if air_temperature is not None else [None] * len(self.model.space_ids)}
+        out.update((catalogue.BY_NAME[k].kept, v) for k, v in fields.items())
+        return out

@@ -12,8 +12,8 @@ import numpy as np
 from thermowarden.config import SiteConfig
 from thermowarden.core.columns import IndexColumn
 from thermowarden.core.expressions import Expression
+from thermowarden.core.json_values import num
 from thermowarden.core.quantities import QUANTITIES
-from thermowarden.engine.publication import num
 from thermowarden.rules import CompiledRule, MessageTemplate
 from thermowarden.site_model import SiteModel
 

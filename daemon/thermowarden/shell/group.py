@@ -21,10 +21,13 @@ key-value bucket or a PostgreSQL table). Two threads:
   publishes nothing until a round that began after the stall has read the leases again.
 
 **Fencing.** Every event, retained advisory and conditions record carries its shard and the
-epoch it was published under (and the event id names both); :meth:`Group.fence` drops, at
+epoch it was published under (and the event id names both), and an advisory's records and
+events a sequence number (:mod:`thermowarden.core.record_order`); :meth:`Group.fence` drops, at
 the one place effects are carried out, anything of a shard this instance may not publish
 for now, and an outbox row of an epoch it no longer holds is dropped instead of sent. A
-retained advisory of an older epoch than one already seen for its shard is ignored.
+retained advisory message is taken by the consumer rule of that module: one of an older epoch
+than seen for its shard, or whose (epoch, seq) is not above the newest taken for its
+advisory, is ignored.
 
 **Taking over.** When a shard's lease becomes this instance's, its advisories are
 reconciled with the retained advisory messages of the shard (:meth:`Engine.reconcile`:
@@ -54,13 +57,14 @@ import queue
 import threading
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from thermowarden.config import GroupConfig, SiteConfig
-from thermowarden.core.shards import View, plan, shard_of
+from thermowarden.core.record_order import NewestSeen
+from thermowarden.core.shards import View, first_standbys, plan, shard_of
 from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.reload import carry_over
@@ -68,8 +72,8 @@ from thermowarden.shell.leases import Lease, LeaseStore, LeaseStoreError
 from thermowarden.site_model import build_site_model
 
 if TYPE_CHECKING:
+    from thermowarden.shell.engine_host import EngineHost
     from thermowarden.shell.mqtt_link import Incoming
-    from thermowarden.shell.service import Service
 
 log = logging.getLogger("thermowarden.group")
 
@@ -129,6 +133,12 @@ class LeaseKeeper:
         self.standby: frozenset[str] = frozenset()
         self.free_since: dict[str, float] = {}
         self.last_holder: dict[str, str] = {}
+        self.warm_s = 0.0
+        """A shard is handed over only to a standby that has stood by this long (set by
+        :class:`Group`: the site's WBGT window and one TTL)."""
+        self.first_standby: dict[str, str] = {}
+        self.standby_since: dict[str, float] = {}
+        """Shard -> since when its first standby has been ``first_standby[shard]``."""
         self.live_since = clock()
         self.opened = False
         self.listened = False
@@ -181,10 +191,14 @@ class LeaseKeeper:
                     self.free_since.setdefault(s, now)
             for s in [s for s in self.held if holders.get(s) != self.me]:
                 del self.held[s]  # the store says otherwise: not ours
+            for s, m in first_standbys(self.shards, holders, self.last_holder, live).items():
+                if self.first_standby.get(s) != m:
+                    self.first_standby[s] = m
+                    self.standby_since[s] = now
             p = plan(View(self.me, live, self.shards, holders, now, dict(self.free_since),
-                          self.live_since, dict(self.last_holder)),
+                          self.live_since, dict(self.last_holder), dict(self.standby_since)),
                      replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.renew_every,
-                     settle_s=self.cfg.rebalance_after_s)
+                     settle_s=self.cfg.rebalance_after_s, warm_s=self.warm_s)
             for s in p.release:
                 released = self.held.pop(s, None)
                 if released is not None:
@@ -247,12 +261,6 @@ class Buffered:
     """The advisory's shard when it arrived (None: no advisory of that id was known)."""
 
 
-@dataclass
-class _Seen:
-    newest: dict[str, int] = field(default_factory=dict)
-    """Shard -> the highest epoch seen in a retained advisory message."""
-
-
 class Group:
     """See the module docstring. :meth:`update`, :meth:`receive` and :meth:`fence` run on
     the service's engine thread."""
@@ -271,9 +279,12 @@ class Group:
         self.rounds: queue.Queue[Round] = queue.Queue()
         self.round: Round | None = None
         self.keeper: LeaseKeeper | None = None
-        self.service: Service | None = None
+        self.service: EngineHost | None = None
         self.publishing: dict[str, int] = {}
         """Shard -> epoch, for the shards this instance may publish for now."""
+        self.paused: dict[str, tuple[int, float]] = {}
+        """Shard -> (epoch, wall time of the last tick before) when this instance last
+        stopped publishing for it."""
         self.evaluating: frozenset[str] = frozenset()
         self.holding = np.zeros(0, dtype=bool)
         """Spaces of the shards this instance publishes for."""
@@ -281,7 +292,9 @@ class Group:
         self.last_turn: float | None = None
         self.records: dict[str, dict[str, Any]] = {}
         """Retained advisory messages of the site (topic -> payload), newest epoch only."""
-        self.seen = _Seen()
+        self.seen = NewestSeen()
+        """The consumer rule over the retained advisory messages (epoch per shard, order
+        key per advisory)."""
         self.ignored = 0
         """Retained advisory messages not taken: not JSON, or of an older epoch."""
         self.commands: list[Buffered] = []
@@ -306,7 +319,7 @@ class Group:
         self.shard_by_space = {sp.id: shard_of(sp.id, sp.area, sp.building, buckets)
                                for sp in config.spaces}
 
-    def attach(self, service: Service) -> None:
+    def attach(self, service: EngineHost) -> None:
         self.service = service
         self._site(service.engine.config)
         self._rebuild(frozenset())
@@ -315,6 +328,7 @@ class Group:
         service.link.status_offline["group"] = self.name
         self.keeper = LeaseKeeper(self.store, self.me, self.shards, self.cfg, self.rounds,
                                   self.clock)
+        self.keeper.warm_s = self._warm_s()
 
     def start(self) -> None:
         """Start the lease keeper (when the service starts running)."""
@@ -341,11 +355,21 @@ class Group:
         self._site(self.service.engine.config)
         if self.keeper is not None:
             self.keeper.shards = self.shards
+            self.keeper.warm_s = self._warm_s()
         self._rebuild(self.evaluating)
         self.service.engine.publication.epochs.update(self.publishing)
         self.holding = np.array([s in self.publishing
                                  for s in self.service.engine.publication.shards], dtype=bool)
         self.service.link.set_subscriptions(self.subscriptions())
+
+    def _warm_s(self) -> float:
+        """How long a standby must have stood by for a shard before it is handed the shard:
+        ``standby_warm_s``, by default the site's WBGT window (its 60-minute WBGT is then
+        whole) and one lease TTL (the rounds in which the standby learns of it and starts
+        evaluating)."""
+        if self.cfg.standby_warm_s is not None:
+            return self.cfg.standby_warm_s
+        return float(self.full.ingest.wbgt_window_s) + self.cfg.lease_ttl_s
 
     def _rebuild(self, shards: frozenset[str]) -> None:
         """Make the engine one of the spaces of ``shards`` only, carrying the state of the
@@ -404,12 +428,10 @@ class Group:
                 or not _is_int(data.get("epoch")):
             self.ignored += 1
             return
-        shard, epoch = data["shard"], int(data["epoch"])
-        newest = self.seen.newest.get(shard, -1)
-        if epoch < newest:
-            self.ignored += 1  # from a holder fenced since: never taken
+        if not self.seen.accept(data):
+            if not self.seen.is_copy(data):
+                self.ignored += 1  # older than one taken: late, or from a holder fenced since
             return
-        self.seen.newest[shard] = epoch
         self.records[topic] = data
 
     def evaluated(self, now: float) -> None:
@@ -572,6 +594,7 @@ class Group:
         ids = service.engine.model.space_ids
         self.holding = np.array([s in self.publishing for s in pub.shards], dtype=bool)
         service.link.set_subscriptions(self.subscriptions())
+        service.metrics.group_evaluated.set(len(ids))
         service.dirty = True
         if gained or gone:
             log.info("group %s: evaluating %d shard(s), %d space(s) (+%s, -%s)", self.name,
@@ -591,6 +614,10 @@ class Group:
             log.warning("not publishing for shard %s any more (epoch %d: lease %s)", s,
                         self.publishing[s], "lost" if self.round is None
                         or s not in self.round.held else "not confirmed in time")
+            # from the last tick on: its effects may have been fenced already (the lease
+            # ran out while it ran)
+            self.paused[s] = (self.publishing[s], self.last_evaluated
+                              if self.last_evaluated is not None else -math.inf)
         self.publishing = dict(valid)
         pub.epochs.update(valid)
         before = self.holding
@@ -604,8 +631,14 @@ class Group:
             for note in notes:
                 log.warning("%s", note)
             effects += more
+            # conditions at once: all of them when the shard is new here; when publishing
+            # resumes under the same epoch (after a stall of the loop or a late renewal: no
+            # one else held the shard meanwhile), those computed from the last tick before
+            # the pause on, which were fenced (all of them again at every pause made the
+            # next tick long, hence another stall, at 4,000 spaces on a loaded machine)
+            paused_epoch, since = self.paused.pop(shard, (None, math.inf))
             for i, s in enumerate(pub.shards):
-                if s == shard:
+                if s == shard and (paused_epoch != epoch or pub.last_conditions[i] >= since):
                     pub.last_conditions[i] = -math.inf
             log.info("publishing for shard %s under epoch %d (%d space(s), %d live "
                      "advisory(ies) continued)", shard, epoch, len(ids),

@@ -79,6 +79,9 @@ class Metrics:
         self.group_owned = Gauge("thermowarden_group_owned_spaces",
                                  "Spaces of the shards this instance of a group holds and "
                                  "publishes for", registry=r)
+        self.group_evaluated = Gauge("thermowarden_group_evaluated_spaces",
+                                     "Spaces this instance of a group evaluates: those of the "
+                                     "shards it holds and those it stands by for", registry=r)
         self.group_members = Gauge("thermowarden_group_members",
                                    "Live instances of the group (presence in the lease store)",
                                    registry=r)

@@ -43,6 +43,7 @@ from thermowarden.effects import Effect, Persist, Publish
 from thermowarden.engine import Engine
 from thermowarden.engine.ingest import Rejection
 from thermowarden.shell import systemd
+from thermowarden.shell.clock import Clock
 from thermowarden.shell.delivery import Delivery
 from thermowarden.shell.group import Group
 from thermowarden.shell.logs import IntervalLog, RateLimiter
@@ -78,55 +79,6 @@ EXPIRE_EVERY_S = 60.0
 REJECTION_LOG_INTERVAL_S = 600.0
 """Sensor rejections are logged once per point and reason this often (all are counted)."""
 NOTICE_TOPIC_SPACE = "_site"
-
-
-class Clock:
-    """Wall time for timestamps (:meth:`now`, epoch s, follows corrections of the system
-    clock) and monotonic time for durations (:meth:`monotonic`, s).
-
-    ``start`` and ``speed`` are for simulated days: a day starting at ``start`` that runs
-    ``speed`` times faster than real time (then :meth:`now` advances with the monotonic
-    clock). A ``driven`` clock stands still until its caller moves it (:meth:`set`), and
-    the service then evaluates only when asked (:meth:`Service.step`): the demo drives
-    it so that every run gives the same events, however busy the machine. ``wall`` and
-    ``mono`` are injectable for tests that step the clock.
-    """
-
-    def __init__(self, start: float | None = None, speed: float = 1.0,
-                 paused: bool = False, *, driven: bool = False,
-                 wall: Callable[[], float] = time.time,
-                 mono: Callable[[], float] = time.monotonic) -> None:
-        self.wall = wall
-        self.mono_clock = mono
-        self.driven = driven
-        paused = paused or driven
-        self.simulated = start is not None or speed != 1.0 or paused
-        self.anchor = wall() if start is None else start
-        self.mono = mono()
-        self.speed = speed
-        self.paused = paused
-
-    def now(self) -> float:
-        if not self.simulated:
-            return self.wall()
-        if self.paused:
-            return self.anchor
-        return self.anchor + (self.mono_clock() - self.mono) * self.speed
-
-    def monotonic(self) -> float:
-        return self.mono_clock()
-
-    def set(self, t: float) -> None:
-        """Move a driven clock to ``t`` (epoch s)."""
-        if not self.driven:
-            raise RuntimeError("only a driven clock is moved by its caller")
-        self.anchor = t
-
-    def resume(self) -> None:
-        """Start a paused (demo) clock from its anchor."""
-        if self.paused and not self.driven:
-            self.mono = self.mono_clock()
-            self.paused = False
 
 
 @dataclass
@@ -901,7 +853,7 @@ class Service:
         import datetime as dt
         import zoneinfo
 
-        from thermowarden.report import write_reports
+        from thermowarden.shell.report import write_reports
 
         config = config or self.engine.config
         store_path = store_path or self.store.path

@@ -48,7 +48,9 @@ def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
         sessions = Sessions(users, config.web.session_lifetime_s, store=store_path)
     limits = {rule.key: float(rule.config.max_shelve_s) for pack in packs.values()
               for rule in pack.rules}
-    directory = SiteDirectory.build(config, limits)
+    followed = frozenset(rule.key for pack in packs.values() for rule in pack.rules
+                         if rule.config.acted_on)
+    directory = SiteDirectory.build(config, limits, followed)
     view = LiveView(config.output.prefix)
     ctx = WebContext(directory, view, StoreReader(store_path), sessions,
                      CommandBridge(inbox, f"{config.output.prefix}/commands/", now), now,
@@ -56,6 +58,7 @@ def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
 
     def follow(engine: Engine) -> None:
         ctx.follow(SiteDirectory.build(engine.config, {
-            rt.rule.key: float(rt.rule.config.max_shelve_s) for rt in engine.rules}))
+            rt.rule.key: float(rt.rule.config.max_shelve_s) for rt in engine.rules},
+            frozenset(rt.rule.key for rt in engine.rules if rt.rule.config.acted_on)))
 
     return view, WebServer(create_app(ctx), config.web.host, config.web.port), follow

@@ -37,7 +37,7 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from thermowarden.shell.mqtt_link import Inbox, Incoming
 from thermowarden.shell.web import pages
-from thermowarden.shell.web.history import MAX_PERIOD_S, SAMPLE_FIELDS, StoreReader
+from thermowarden.shell.web.history import MAX_PERIOD_S, UNITS, StoreReader
 from thermowarden.shell.web.live import LiveView, SiteDirectory
 from thermowarden.shell.web.users import Session, Sessions
 
@@ -391,7 +391,7 @@ def create_app(ctx: WebContext) -> Starlette:
         for s in samples:
             s["at"] = iso(s.pop("t"))
         return JSONResponse({"space": space.id, "from": iso(start), "to": iso(end),
-                             "units": {k: u for k, (_, u) in SAMPLE_FIELDS.items()},
+                             "units": UNITS,
                              "samples": samples})
 
     async def api_advisories(request: Request) -> Response:

@@ -15,24 +15,21 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import Any
 
-SAMPLE_FIELDS = {
-    # API name: (sample key, unit)
-    "operative_temperature": ("operative", "°C"),
-    "comfort_band_lower": ("band_lower", "°C"),
-    "comfort_band_upper": ("band_upper", "°C"),
-    "pmv": ("pmv", ""),
-    "adaptive_en_II_lower": ("en_lower", "°C"),
-    "adaptive_en_II_upper": ("en_upper", "°C"),
-    "wbgt": ("wbgt", "°C"),
-    "wbgt_reference_acclimatised": ("ref_acclimatised", "°C"),
-    "wbgt_reference_unacclimatised": ("ref_unacclimatised", "°C"),
-    "air_temperature": ("air_temperature", "°C"),
-    "relative_humidity": ("relative_humidity", "%"),
-    "dew_point": ("dew_point", "°C"),
-    "heat_index": ("heat_index", "°C"),
-    "utci": ("utci", "°C"),
-}
-"""Fields of a space's history; samples written before a field existed give null."""
+from thermowarden.core import catalogue
+
+SAMPLE_FIELDS: dict[str, tuple[str, str]] = {
+    e.name: (e.kept, e.unit) for e in catalogue.kept() if e.categories is None and e.unit}
+"""Fields of a space's history, API name (the catalogue's name) -> (key of the stored
+sample, unit): every number the catalogue keeps. Samples written before a field existed
+give null."""
+
+OLDER_NAMES: dict[str, str] = {"pmv": "pmv_iso", "wbgt": "wbgt_effective"}
+"""Names the history API gave two fields before they took their index's name, still given
+(the same values) for the clients that read them."""
+
+UNITS: dict[str, str] = {name: unit for name, (_, unit) in SAMPLE_FIELDS.items()} | {
+    old: SAMPLE_FIELDS[name][1] for old, name in OLDER_NAMES.items()}
+"""The unit of every field of the history."""
 
 MAX_PERIOD_S = 8 * 86_400.0
 EVENTS_LIMIT = 1000
@@ -54,7 +51,8 @@ class StoreReader:
 
     def history(self, space_id: str, start: float, end: float) -> list[dict[str, Any]]:
         """One record per stored sample of ``space_id`` in [start, end): ``t`` (epoch s) and
-        every field of :data:`SAMPLE_FIELDS` (null where absent)."""
+        every field of :data:`SAMPLE_FIELDS` (null where absent), and of
+        :data:`OLDER_NAMES`."""
         with self._db() as db:
             rows = db.execute("SELECT record FROM samples WHERE t >= ? AND t < ? ORDER BY t",
                               (start, end)).fetchall()
@@ -71,6 +69,8 @@ class StoreReader:
                 v = col[i] if isinstance(col, list) and i < len(col) else None
                 item[name] = v if isinstance(v, int | float) and not isinstance(v, bool) \
                     else None
+            for old, name in OLDER_NAMES.items():
+                item[old] = item[name]
             out.append(item)
         return out
 

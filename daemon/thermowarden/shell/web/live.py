@@ -74,9 +74,13 @@ class SiteDirectory:
     levels: tuple[Level, ...] = ()
     """Buildings, each followed by its floors and areas, then the site's areas, in the
     order the site lists them; spaces in none are not in any row."""
+    followed: frozenset[str] = frozenset()
+    """Rule keys (pack.rule) whose rule says how the sensors show its advice carried out
+    (``acted_on``): only for these can a page say it was not acted on yet."""
 
     @classmethod
-    def build(cls, config: SiteConfig, max_shelve_s: dict[str, float]) -> SiteDirectory:
+    def build(cls, config: SiteConfig, max_shelve_s: dict[str, float],
+              followed: frozenset[str] = frozenset()) -> SiteDirectory:
         infos = []
         for i, s in enumerate(config.spaces):
             b_name = config.level_name("building", None, s.building)
@@ -91,10 +95,14 @@ class SiteDirectory:
         spaces = tuple(infos)
         return cls(config.site.id, config.site.name or config.site.id, config.site.timezone,
                    config.output.prefix, spaces, dict(max_shelve_s),
-                   {s.id: s for s in spaces}, _levels(config, spaces))
+                   {s.id: s for s in spaces}, _levels(config, spaces), followed)
 
     def space(self, space_id: str) -> SpaceInfo | None:
         return self.by_id.get(space_id)
+
+    def follows(self, rule: str) -> bool:
+        """Whether the sensors can show the advice of ``rule`` (pack.rule) carried out."""
+        return rule in self.followed
 
 
 def _levels(config: SiteConfig, spaces: tuple[SpaceInfo, ...]) -> tuple[Level, ...]:

@@ -15,7 +15,17 @@ from html import escape
 from typing import Any
 from urllib.parse import quote, urlencode
 
-from thermowarden.core.labels import index_label
+from thermowarden.core import catalogue
+from thermowarden.core.labels import (
+    COUNT_UNITS,
+    event_words,
+    point_tags,
+    quantity_label,
+    readable,
+    state_text,
+    value_label,
+    value_unit,
+)
 from thermowarden.shell.web import plots
 from thermowarden.shell.web.live import SiteDirectory, SpaceInfo
 from thermowarden.shell.web.users import Session
@@ -98,6 +108,7 @@ table.fit td{display:flex;justify-content:space-between;gap:.6rem;border:0;
 padding:.1rem .4rem;text-align:right}
 table.fit td::before{content:attr(data-label);color:var(--muted);text-align:left}
 table.fit tr.sub td:first-child{padding-left:.4rem}
+table.fit td.method{flex-direction:column;gap:0;text-align:left}
 }
 """
 
@@ -117,51 +128,15 @@ SECURITY_HEADERS: dict[str, str] = {
 """Sent with every response of the web page and API (W3C CSP Level 3, including
 ``frame-ancestors``; ``X-Frame-Options`` for browsers without it)."""
 
-OVERVIEW_VALUES = (
-    ("operative_temperature", "Operative temperature"),
-    ("pmv_iso", "PMV (ISO 7730)"),
-    ("relative_humidity", "Relative humidity"),
-    ("wbgt_effective", "WBGT"),
-    ("wbgt_reference", "WBGT reference"),
-    ("utci", "UTCI"),
-    ("heat_index", "Heat index"),
-)
-SPACE_VALUES = (
-    ("operative_temperature", "Operative temperature"),
-    ("mean_radiant_temperature", "Mean radiant temperature"),
-    ("mean_radiant_temperature_source", "Mean radiant temperature from"),
-    ("globe_temperature_estimated", "Globe temperature, estimated"),
-    ("pmv_iso", "PMV (ISO 7730)"),
-    ("ppd_iso", "PPD (ISO 7730)"),
-    ("comfort_category_iso", "ISO 7730 category"),
-    ("adaptive_en_category", "EN 16798-1 adaptive category"),
-    ("set", "SET"),
-    ("relative_humidity", "Relative humidity"),
-    ("dew_point", "Dew point"),
-    ("draught_rate", "Draught rate"),
-    ("wbgt", "WBGT"),
-    ("wbgt_time_weighted", "WBGT, 60-minute mean"),
-    ("wbgt_effective", "WBGT with clothing adjustment"),
-    ("wbgt_reference", "WBGT reference"),
-    ("wbgt_reference_acclimatised", "WBGT reference for acclimatised workers"),
-    ("wbgt_reference_unacclimatised", "WBGT reference for workers not acclimatised"),
-    ("heat_index", "Heat index"),
-    ("humidex", "Humidex"),
-    ("utci", "UTCI"),
-)
-QUANTITY_LABELS = {
-    "air_temperature": "Air temperature", "relative_humidity": "Relative humidity",
-    "globe_temperature": "Globe temperature", "air_speed": "Air speed",
-    "mean_radiant_temperature": "Mean radiant temperature",
-    "plane_radiant_temperature": "Plane radiant temperature", "radiant_flux": "Radiant flux",
-    "natural_wet_bulb": "Natural wet-bulb", "psychrometric_wet_bulb": "Psychrometric wet-bulb",
-    "surface_temperature": "Surface temperature", "floor_temperature": "Floor temperature",
-    "turbulence_intensity": "Turbulence intensity", "shading_position": "Shading (lowered)",
-    "fan_state": "Fans", "occupancy": "Occupancy",
-    "outdoor_air_temperature": "Outdoor air temperature",
-    "outdoor_relative_humidity": "Outdoor relative humidity", "wind_speed": "Wind speed",
-    "solar_irradiance": "Solar irradiance", "barometric_pressure": "Barometric pressure",
-}
+OVERVIEW_VALUES = catalogue.shown("overview")
+"""On every space's card: the catalogue's overview entries (one for a kind of place only
+with a value)."""
+SPACE_VALUES = catalogue.shown("space")
+"""On the space's page, with a value or why there is none."""
+HOT_WORK_ONLY = frozenset({"wbgt_effective", "wbgt_reference", "wbgt_reference_acclimatised",
+                           "wbgt_reference_unacclimatised"})
+"""Shown only for hot-work spaces: the WBGT assessed against the reference of the workers
+there (ISO 7243) means nothing where nobody works in the heat."""
 CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
            "are screening values; follow local regulations and a qualified occupational "
            "hygienist.")
@@ -192,15 +167,18 @@ def fmt_value(item: dict[str, Any] | None, compact: bool = False) -> str:
         return '<span class="muted">–</span>'
     v = item.get("value")
     unit = item.get("unit") or ""
-    if unit == "1":
+    if unit in ("1", "category"):
         unit = ""
     if v is None:
-        reason = item.get("reason") or "no fresh value"
+        reason = readable(item.get("reason") or "no fresh value")
         if compact:
             return f'<span class="muted" title="{h(reason)}">–</span>'
         return f'<span class="muted" title="{h(reason)}">– <small>({h(reason)})</small></span>'
     if isinstance(v, bool):
         text = "yes" if v else "no"
+    elif unit in COUNT_UNITS and isinstance(v, int | float):
+        n = round(v)
+        return h(f"{n} {unit if n != 1 else unit[:-1]}")
     elif isinstance(v, float):
         text = f"{v:.3f}" if unit == "kg/kg" else f"{v:.1f}" if abs(v) >= 0.1 or v == 0 \
             else f"{v:.2f}"
@@ -213,6 +191,8 @@ def fmt_value(item: dict[str, Any] | None, compact: bool = False) -> str:
 def age_text(age_s: float | None) -> str:
     if age_s is None or not math.isfinite(age_s):
         return "never"
+    if age_s < 1:  # a reading stamped a moment ahead of the service's clock
+        return "just now"
     if age_s < 90:
         return f"{age_s:.0f} s ago"
     if age_s < 5400:
@@ -226,6 +206,20 @@ def badge(priority: str) -> str:
 
 def state_badge(state: str) -> str:
     return f'<span class="badge state">{h(state)}</span>'
+
+
+def shown_state(a: dict[str, Any]) -> str:
+    """Where an advisory stands, in words: its lifecycle state, and once the sensors show
+    the advice carried out (``acted_on``) while it waits to clear, that instead of
+    ``active`` (``acted on, waiting for its effect``)."""
+    state = str(a.get("state", ""))
+    acted = a.get("acted_on")
+    if a.get("cleared_at") or not acted or state == "shelved":
+        return state
+    if acted.get("helped") is False:
+        return "acted on, no effect yet" if state == "active" else f"{state}, no effect yet"
+    return ("acted on, waiting for its effect" if state == "active"
+            else f"{state}, acted on")
 
 
 def page(title: str, body: str, directory: SiteDirectory, session: Session | None,
@@ -256,7 +250,8 @@ def page_html(title: str, body: str, directory: SiteDirectory, session: Session 
 
 def advisory_item(a: dict[str, Any], tz: dt.tzinfo, with_space: bool = True) -> str:
     space = f'{h(a["space"]["name"])} · ' if with_space else ""
-    return (f'<li class="{h(a["priority"])}">{badge(a["priority"])} {state_badge(a["state"])} '
+    return (f'<li class="{h(a["priority"])}">{badge(a["priority"])} '
+            f'{state_badge(shown_state(a))} '
             f'<a href="/advisories/{quote(a["id"], safe="")}">{h(a["title"])}</a>'
             f'<div class="note">{space}{h(a["audience"])} · raised '
             f'{local(a["raised_at"], tz)}</div></li>')
@@ -386,11 +381,13 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
     rows = []
     if c is not None:
         idx = c["indices"]
-        for key, label in OVERVIEW_VALUES:
+        for e in OVERVIEW_VALUES:
+            key, label = e.name, e.label
             item = idx.get(key)
-            if item is None or (item.get("value") is None and key in (
-                    "utci", "heat_index", "wbgt_effective", "wbgt_reference", "pmv_iso")):
+            if item is None or (item.get("value") is None and e.place):
                 continue
+            if key in HOT_WORK_ONLY and not s.hot_work:
+                continue  # a WBGT reference is for workers in the heat, not an office
             if key == "wbgt_reference":
                 label = reference_label(s)
             rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
@@ -490,36 +487,32 @@ def _series(samples: list[dict[str, Any]], key: str) -> list[float | None]:
     return [s.get(key) for s in samples]
 
 
+LINE_STYLES = (("#b3471d", ""), ("#1f5f8b", "6 4"), ("#6a3d9a", "2 3"), ("#9a6b00", "8 3 2 3"),
+               ("#4f6d7a", "4 2"))
+"""Colour and dash of a chart's lines in their order (colours told apart also in grey)."""
+
+
 def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, end: float,
                  tz: dt.tzinfo) -> str:
+    """The catalogue's charts for the kind of space, each with the lines it draws (the
+    comfort chart also with the space's comfort band, or its EN 16798-1 band)."""
     times = [s["t"] for s in samples]
-    charts = [plots.Chart(
-        "Operative temperature and comfort band", "°C", times,
-        lines=[plots.Line("operative temperature", _series(samples, "operative_temperature"),
-                          "#b3471d")],
-        bands=([plots.Band("comfort band", _series(samples, "comfort_band_lower"),
-                           _series(samples, "comfort_band_upper"), "#2f7d32")]
-               if space.kind == "indoor" else [])
-        + ([plots.Band("EN 16798-1 category II", _series(samples, "adaptive_en_II_lower"),
-                       _series(samples, "adaptive_en_II_upper"), "#4f6d7a")]
-           if space.ventilation == "natural" else []))]
-    charts.append(plots.Chart(
-        "WBGT and its reference values (ISO 7243)", "°C", times, lines=[
-            plots.Line("WBGT", _series(samples, "wbgt"), "#a1002a"),
-            plots.Line("reference, acclimatised", _series(samples,
-                                                          "wbgt_reference_acclimatised"),
-                       "#9a6b00", "6 4"),
-            plots.Line("reference, unacclimatised",
-                       _series(samples, "wbgt_reference_unacclimatised"), "#4f6d7a", "2 3")]))
-    charts.append(plots.Chart("Relative humidity", "%", times, lines=[
-        plots.Line("relative humidity", _series(samples, "relative_humidity"), "#1f5f8b")]))
-    charts.append(plots.Chart("Air temperature and dew point", "°C", times, lines=[
-        plots.Line("air temperature", _series(samples, "air_temperature"), "#b3471d"),
-        plots.Line("dew point", _series(samples, "dew_point"), "#1f5f8b", "6 4")]))
-    if space.kind == "outdoor":
-        charts.append(plots.Chart("Heat index and UTCI", "°C", times, lines=[
-            plots.Line("heat index (NWS)", _series(samples, "heat_index"), "#b3471d"),
-            plots.Line("UTCI", _series(samples, "utci"), "#6a3d9a", "6 4")]))
+    charts = []
+    for chart in catalogue.CHARTS:
+        if space.kind not in chart.kinds:
+            continue
+        lines = [plots.Line(e.label, _series(samples, e.name), *LINE_STYLES[k % len(LINE_STYLES)])
+                 for k, e in enumerate(catalogue.drawn(chart.key))]
+        bands = []
+        if chart.key == "comfort" and space.kind == "indoor":
+            bands.append(plots.Band("comfort band", _series(samples, "comfort_band_lower"),
+                                    _series(samples, "comfort_band_upper"), "#2f7d32"))
+        if chart.key == "comfort" and space.ventilation == "natural":
+            bands.append(plots.Band("EN 16798-1 category II",
+                                    _series(samples, "adaptive_en_II_lower"),
+                                    _series(samples, "adaptive_en_II_upper"), "#4f6d7a"))
+        charts.append(plots.Chart(catalogue.chart_title(chart), chart.unit, times, lines=lines,
+                                  bands=bands))
     return '<div class="charts">' + "".join(plots.render(c, start, end, tz)
                                             for c in charts) + "</div>"
 
@@ -535,28 +528,39 @@ def points_table(c: dict[str, Any] | None) -> str:
             status = '<span class="fresh">fresh</span>' if fresh else \
                 '<span class="stale">stale</span>' if p.get("value") is not None else \
                 '<span class="muted">no reading</span>'
-            tags = " ".join(f"{k} {p[k]}" for k in ("side", "height", "sensor") if p.get(k))
+            tags = point_tags(p.get("side"), p.get("height"), p.get("sensor"))
             rows.append(
-                f'<tr><td data-label="Point">'
-                f'{h(QUANTITY_LABELS.get(p["quantity"], p["quantity"]))}'
+                f'<tr><td data-label="Point">{h(quantity_label(p["quantity"]))}'
                 f'{f" <small class=muted>({h(tags)})</small>" if tags else ""}</td>'
-                f'<td class="num" data-label="Last value">{fmt_value(p)}</td>'
+                f'<td class="num" data-label="Last value">{point_value(p)}</td>'
                 f'<td data-label="Freshness">{status}</td>'
                 f'<td data-label="Received">{h(age_text(p.get("age_s")))}</td></tr>')
-        assumed = [f"{QUANTITY_LABELS.get(q, q)}: {v['assumed'].removeprefix('assumed: ')}"
+        assumed = [f"{quantity_label(q)}: {v['assumed'].removeprefix('assumed: ')}"
                    for q, v in sorted(c.get("inputs", {}).items()) if v.get("assumed")]
         note = (f'<p class="note">Not measured here, assumed: {h("; ".join(assumed))}.</p>'
                 if assumed else "")
         return ('<div class="scroll"><table class="fit"><thead><tr><th>Point</th>'
                 '<th>Last value</th><th>Freshness</th><th>Received</th></tr></thead><tbody>'
                 + "".join(rows) + "</tbody></table></div>" + note)
-    rows = [f'<tr><td data-label="Input">{h(QUANTITY_LABELS.get(q, q))}</td>'
-            f'<td class="num" data-label="Value">{fmt_value(v) if "value" in v else "–"}</td>'
+    rows = [f'<tr><td data-label="Input">{h(quantity_label(q))}</td>'
+            f'<td class="num" data-label="Value">'
+            f'{point_value({**v, "quantity": q}) if "value" in v else "–"}</td>'
             f'<td data-label="Freshness">'
             f'{h(v["assumed"]) if v.get("assumed") else FRESH if v.get("fresh") else STALE}'
             f"</td></tr>" for q, v in sorted(c.get("inputs", {}).items())]
     return ('<div class="scroll"><table class="fit"><thead><tr><th>Input</th><th>Value</th>'
             '<th>Freshness</th></tr></thead><tbody>' + "".join(rows) + "</tbody></table></div>")
+
+
+def point_value(p: dict[str, Any]) -> str:
+    """A point's last value: an equipment or occupancy state in words (``on``,
+    ``lowered``), any other quantity as a number with its unit."""
+    v = p.get("value")
+    if isinstance(v, int | float) and not isinstance(v, bool):
+        words = state_text(str(p.get("quantity", "")), float(v))
+        if words is not None:
+            return h(words)
+    return fmt_value(p)
 
 
 def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | None,
@@ -581,17 +585,22 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
                      + "".join(advisory_item(a, tz, False) for a in recent) + "</ul></details>")
     if c is not None:
         rows = []
-        for key, label in SPACE_VALUES:
+        for e in SPACE_VALUES:
+            key, label = e.name, e.label
             item = c["indices"].get(key)
-            if item is None:
+            if item is None or (key in HOT_WORK_ONLY and not space.hot_work):
                 continue
             if key == "wbgt_reference":
                 label = reference_label(space)
-            rows.append(f'<tr><td>{h(label)}</td><td class="num">{fmt_value(item)}</td>'
-                        f'<td class="note">{h(item.get("method", ""))}</td></tr>')
-        parts.append('<h2>Conditions now</h2><div class="scroll"><table><thead><tr><th>Index'
-                     '</th><th>Value</th><th>Method</th></tr></thead><tbody>' + "".join(rows)
-                     + "</tbody></table></div>")
+            rows.append(f'<tr><td data-label="Index">{h(label)}</td>'
+                        f'<td class="num" data-label="Value">{fmt_value(item)}</td>'
+                        f'<td class="note method" data-label="Method">'
+                        f'{h(readable(item.get("method", "")))}</td></tr>')
+        # table.fit: on a phone each row stacks, so the method wraps instead of running
+        # off the right edge
+        parts.append('<h2>Conditions now</h2><div class="scroll"><table class="fit stack">'
+                     '<thead><tr><th>Index</th><th>Value</th><th>Method</th></tr></thead>'
+                     '<tbody>' + "".join(rows) + "</tbody></table></div>")
     parts.append("<h2>Last 24 hours</h2>" + space_charts(space, samples, start, end, tz))
     parts.append("<h2>Points</h2>" + points_table(c))
     return page(space.name, "".join(parts), directory, session, refresh=True,
@@ -601,7 +610,8 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
 def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                   session: Session | None, tz: dt.tzinfo, max_shelve_s: float | None) -> str:
     space = a["space"]
-    parts = [f'<h2>{h(a["title"])}</h2><p>{badge(a["priority"])} {state_badge(a["state"])} '
+    parts = [f'<h2>{h(a["title"])}</h2><p>{badge(a["priority"])} '
+             f'{state_badge(shown_state(a))} '
              f'<span class="badge plain">{h(a["audience"])}</span> '
              f'<a href="/spaces/{quote(space["id"], safe="")}">{h(space["name"])}</a></p>',
              f'<p class="note">raised {local(a["raised_at"], tz, "%d %b %H:%M")} · updated '
@@ -620,27 +630,34 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         shown = (f'At {local(a["numbers_at"], tz, "%d %b %H:%M")}' if a.get("numbers_at")
                  else "Said")
         rows = "".join(
-            f'<tr><td>{h(index_label(k))}</td><td class="num">{fmt_value(v)}</td>'
-            + (f'<td class="num">{fmt_value(_at_clearing(v, cleared.get(k)))}</td>'
+            f'<tr><td data-label="Value">{h(value_label(k))}</td>'
+            f'<td class="num" data-label="{h(shown)}">{fmt_value(with_unit(k, v))}</td>'
+            + (f'<td class="num" data-label="At clearing">'
+               f'{fmt_value(_at_clearing(with_unit(k, v), cleared.get(k)))}</td>'
                if cleared is not None else "")
-            + f'<td class="num">{_threshold(v)}</td><td class="note">'
-            f'{h(v.get("method", ""))}</td></tr>'
+            + f'<td class="num" data-label="Threshold">{_threshold(with_unit(k, v))}</td>'
+            f'<td class="note method" data-label="Method">'
+            f'{h(readable(v.get("method", "")))}</td></tr>'
             for k, v in a["numbers"].items())
-        parts.append('<h2>The numbers</h2><div class="scroll"><table><thead><tr><th>Value'
-                     f'</th><th>{h(shown)}</th>'
+        parts.append('<h2>The numbers</h2><div class="scroll"><table class="fit stack">'
+                     f'<thead><tr><th>Value</th><th>{h(shown)}</th>'
                      + ("<th>At clearing</th>" if cleared is not None else "")
                      + '<th>Threshold</th><th>Method</th></tr></thead><tbody>'
                      + rows + "</tbody></table></div>")
     if a.get("benefit"):
         parts.append('<h2>Expected benefit</h2><dl class="kv">' + "".join(
-            f'<dt>{h(index_label(k))}</dt><dd>{fmt_value(v)}</dd>' for k, v in a["benefit"].items())
+            f'<dt>{h(value_label(k))}</dt><dd>{fmt_value(with_unit(k, v))}</dd>'
+            for k, v in a["benefit"].items())
             + "</dl>")
-    parts.append("<h2>Effect</h2>" + _effect(a.get("acted_on"), tz))
+    # where it stands, in the order it happened: acknowledged by a person, then what the
+    # sensors show of the advice carried out
+    parts.append("<h2>Where it stands</h2>")
     if a.get("acknowledged"):
         ack = a["acknowledged"]
         parts.append(f'<p>Acknowledged by <strong>{h(ack.get("by"))}</strong> at '
                      f'{local(ack.get("at"), tz)}'
                      + (f': {h(ack["note"])}' if ack.get("note") else "") + "</p>")
+    parts.append(_effect(a, directory.follows(a.get("rule", "")), tz))
     if a.get("shelved"):
         sh = a["shelved"]
         parts.append(f'<p>Shelved by <strong>{h(sh.get("by"))}</strong> until '
@@ -653,7 +670,8 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
         place = (info.building or info.area) if info is not None else None
         parts.append(_actions(a, session, max_shelve_s, place))
     hist = "".join(
-        f'<tr><td>{local(e.get("at"), tz, "%d %b %H:%M")}</td><td>{h(e.get("event"))}</td>'
+        f'<tr><td>{local(e.get("at"), tz, "%d %b %H:%M")}</td>'
+        f'<td>{h(event_words(str(e.get("event", ""))))}</td>'
         f'<td>{h(e.get("by", ""))}</td><td>'
         f'{h(e.get("note") or e.get("reason") or "")}</td></tr>'
         for e in reversed(a.get("history", [])))
@@ -664,15 +682,31 @@ def advisory_page(directory: SiteDirectory, a: dict[str, Any], live: bool,
                 here=f"/advisories/{quote(a['id'], safe='')}")
 
 
+def with_unit(name: str, item: dict[str, Any]) -> dict[str, Any]:
+    """``item`` with the unit a person reads for value ``name`` where it gives none."""
+    if item.get("unit"):
+        return item
+    return {**item, "unit": value_unit(name)}
+
+
 def _at_clearing(said: dict[str, Any], value: Any) -> dict[str, Any]:
     """A number's value at the clearing, in the unit of the advisory's number."""
     return {"value": value, "unit": said.get("unit", ""), "reason": "not known at clearing"}
 
 
-def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
-    """Whether the advice was acted on and what it did (effectiveness)."""
+def _effect(a: dict[str, Any], followed: bool, tz: dt.tzinfo) -> str:
+    """Whether the advice was acted on and what it did (effectiveness). ``followed``: the
+    rule says how the sensors show its advice carried out (``acted_on``); for one that
+    does not, the page claims nothing about it."""
+    acted = a.get("acted_on")
     if not acted:
-        return '<p class="muted">Not acted on yet (as far as the sensors show).</p>'
+        if a.get("cleared_at"):
+            return '<p class="muted">The condition cleared.</p>'
+        if not followed:
+            return ('<p class="muted">The sensors here cannot show whether this advice was '
+                    "carried out; it stays live until the condition clears.</p>")
+        return ('<p class="muted">The sensors do not show the advice carried out yet; it '
+                "stays live until the condition clears.</p>")
     after = acted.get("cleared_after")
     mins = acted.get("cleared_after_min")
     text = f'Acted on at {local(acted.get("at"), tz)}'
@@ -684,7 +718,7 @@ def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
     elif after is False:
         text += "; the condition did not clear afterwards."
     else:
-        text += "; waiting for the conditions to clear."
+        text += "; waiting for its effect."
     helped = acted.get("helped")
     if helped is not None:
         text += " It helped within the expected time." if helped else \
@@ -692,12 +726,16 @@ def _effect(acted: dict[str, Any] | None, tz: dt.tzinfo) -> str:
     out = f"<p>{h(text)}</p>"
     effect = acted.get("effect")
     if effect:
-        unit = effect.get("unit", "")
-        rows = [("when acted on", effect.get("value_then")),
-                ("predicted", effect.get("predicted"))]
-        rows += [(f'{c["after_min"]:g} min later', c.get("value"))
+        unit = effect.get("unit") or value_unit(str(effect.get("quantity", "")))
+        label = value_label(str(effect.get("quantity", "")))
+        # a value without a unit (PMV) is named in each row: "PMV when acted on"
+        name = "" if unit not in ("", "1") else label.split(",")[0].split(" (")[0] + " "
+        rows = [(f"{name}when acted on", effect.get("value_then")),
+                (f"{name}predicted", effect.get("predicted"))]
+        rows += [(f'{name}{c["after_min"]:g} min later', c.get("value"))
                  for c in effect.get("checks", [])]
-        out += (f'<div class="scroll"><table><thead><tr><th>{h(effect.get("quantity", ""))}'
+        out += (f'<div class="scroll"><table><thead><tr>'
+                f'<th>{h(label)}'
                 '</th><th>Value</th></tr></thead><tbody>'
                 + "".join(f'<tr><td>{h(label)}</td><td class="num">'
                           f'{fmt_value({"value": v, "unit": unit})}</td></tr>'

@@ -14,7 +14,7 @@ from html import escape
 
 WIDTH = 640
 HEIGHT = 240
-LEFT, RIGHT, TOP, BOTTOM = 44, 12, 12, 26
+LEFT, RIGHT, TOP, BOTTOM = 60, 12, 12, 26
 
 
 @dataclass(frozen=True)
@@ -108,7 +108,10 @@ def render(chart: Chart, start: float, end: float, tz: dt.tzinfo) -> str:
         yy = y(v)
         parts.append(f'<line x1="{LEFT}" y1="{yy:.1f}" x2="{WIDTH - RIGHT}" y2="{yy:.1f}" '
                      'class="grid"/>')
-        parts.append(f'<text x="{LEFT - 4}" y="{yy + 4:.1f}" text-anchor="end">{v:g}</text>')
+        # each value with its unit, as everywhere on the page
+        label = f"{v:g}{'' if chart.unit in ('%', '') else ' '}{chart.unit}"
+        parts.append(f'<text x="{LEFT - 4}" y="{yy + 4:.1f}" text-anchor="end">'
+                     f'{escape(label)}</text>')
         v += step
     first = dt.datetime.fromtimestamp(start, tz).replace(minute=0, second=0, microsecond=0)
     hours = max(1, round((end - start) / 3600 / 8))
