@@ -18,7 +18,10 @@ Units: °C, m/s, %RH, met, clo; cooling effect in K.
 
 from __future__ import annotations
 
+import itertools
 import math
+import threading
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -190,22 +193,86 @@ def _f64(a: Any) -> Any:
     return np.ascontiguousarray(a, dtype=np.float64)
 
 
+MEMO_ROWS = 1 << 17
+"""Results remembered per solver (about 20 MB each when full): the oldest quarter is
+forgotten when full."""
+
+
+class _Memo:
+    """Results of a per-row solver by the exact bits of the row's inputs.
+
+    A row's result depends on its inputs alone (the solvers are deterministic per row), so
+    a remembered result is the one computing it again would give, bit for bit. Sensors
+    report to a resolution (0.1 K, 1 %RH, 0.01 m/s) and people settings seldom change, so
+    the same inputs recur: in the same space from one minute to the next, in other
+    spaces, on other days. Thread-safe (a report thread may compute indices too)."""
+
+    def __init__(self, limit: int = MEMO_ROWS) -> None:
+        self.limit = limit
+        self.results: dict[bytes, float] = {}
+        self.lock = threading.Lock()
+        self.hits = 0
+        self.misses = 0
+
+    def apply(self, columns: list[Any], solve: Callable[[list[Any]], Any]) -> Any:
+        """``solve(columns)`` of every row, solving only the rows whose inputs it has not
+        seen (once per distinct row)."""
+        m = np.ascontiguousarray(np.column_stack([_f64(c) for c in columns]))
+        keys: list[bytes] = m.view(np.dtype((np.void, m.dtype.itemsize * m.shape[1]))
+                                   ).ravel().tolist()
+        with self.lock:
+            found = [self.results.get(k) for k in keys]
+        out = np.array([math.nan if f is None else f for f in found])
+        rows = [i for i, f in enumerate(found) if f is None]
+        if not rows:
+            self.hits += len(keys)
+            return out
+        first: dict[bytes, int] = {}
+        source = [first.setdefault(keys[i], i) for i in rows]  # first row of the same inputs
+        todo = np.fromiter(first.values(), dtype=np.intp, count=len(first))  # ascending
+        solved = np.asarray(solve([np.asarray(c)[todo] for c in columns]), dtype=np.float64)
+        out[rows] = solved[np.searchsorted(todo, source)]
+        self.hits += len(keys) - todo.size
+        self.misses += todo.size
+        with self.lock:
+            for k, v in zip(first, solved.tolist(), strict=True):
+                self.results[k] = v
+            if len(self.results) > self.limit:
+                for k in list(itertools.islice(self.results, len(self.results) - self.limit
+                                               + self.limit // 4)):
+                    del self.results[k]
+        return out
+
+
+_CE_MEMO = _Memo()
+_SPEED_MEMO = _Memo()
+
+
 def cooling_effect_rows(ta: Any, tr: Any, vr: Any, rh: Any, met: Any, clo: Any,
                         parallel: bool) -> Any:
     """Cooling effect (K) of each row (rows above still air); NaN where it cannot be
     solved. ``parallel``: over all cores (from the engine thread only)."""
-    out = np.empty(np.shape(ta)[0])
-    kernel = _cooling_effect_parallel if parallel else _cooling_effect_serial
-    kernel(_f64(ta), _f64(tr), _f64(vr), _f64(rh), _f64(met), _f64(clo), out)
-    return out
+    def solve(c: list[Any]) -> Any:
+        out = np.empty(c[0].shape[0])
+        kernel = _cooling_effect_parallel if parallel else _cooling_effect_serial
+        kernel(*(_f64(x) for x in c), out)
+        return out
+
+    return _CE_MEMO.apply([ta, tr, vr, rh, met, clo], solve)
 
 
 def air_speed_rows(ta: Any, tr: Any, rh: Any, met: Any, clo: Any, target_pmv: Any,
                    log_grid: Any, parallel: bool) -> Any:
     """Relative air speed (m/s) bringing each row's ASHRAE 55 PMV to its target (rows
     warmer than it at still air); NaN where no grid speed suffices."""
-    out = np.empty(np.shape(ta)[0])
-    kernel = _speed_parallel if parallel else _speed_serial
-    kernel(_f64(ta), _f64(tr), _f64(rh), _f64(met), _f64(clo), _f64(target_pmv),
-           _f64(log_grid), out)
-    return out
+    grid = _f64(log_grid)
+
+    def solve(c: list[Any]) -> Any:
+        out = np.empty(c[0].shape[0])
+        kernel = _speed_parallel if parallel else _speed_serial
+        kernel(*(_f64(x) for x in c[:6]), grid, out)
+        return out
+
+    n = np.shape(ta)[0]
+    grid_key = [np.full(n, grid[0]), np.full(n, grid[-1]), np.full(n, float(grid.size))]
+    return _SPEED_MEMO.apply([ta, tr, rh, met, clo, target_pmv, *grid_key], solve)
