@@ -22,7 +22,7 @@ import itertools
 import math
 import threading
 from collections.abc import Callable
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from numba import njit, prange
@@ -218,8 +218,8 @@ class _Memo:
         """``solve(columns)`` of every row, solving only the rows whose inputs it has not
         seen (once per distinct row)."""
         m = np.ascontiguousarray(np.column_stack([_f64(c) for c in columns]))
-        keys: list[bytes] = m.view(np.dtype((np.void, m.dtype.itemsize * m.shape[1]))
-                                   ).ravel().tolist()
+        keys = cast("list[bytes]", m.view(np.dtype((np.void, m.dtype.itemsize * m.shape[1]))
+                                          ).ravel().tolist())
         with self.lock:
             found = [self.results.get(k) for k in keys]
         out = np.array([math.nan if f is None else f for f in found])
@@ -254,7 +254,7 @@ def cooling_effect_rows(ta: Any, tr: Any, vr: Any, rh: Any, met: Any, clo: Any,
     solved. ``parallel``: over all cores (from the engine thread only)."""
     def solve(c: list[Any]) -> Any:
         out = np.empty(c[0].shape[0])
-        kernel = _cooling_effect_parallel if parallel else _cooling_effect_serial
+        kernel: Any = _cooling_effect_parallel if parallel else _cooling_effect_serial
         kernel(*(_f64(x) for x in c), out)
         return out
 
@@ -269,7 +269,7 @@ def air_speed_rows(ta: Any, tr: Any, rh: Any, met: Any, clo: Any, target_pmv: An
 
     def solve(c: list[Any]) -> Any:
         out = np.empty(c[0].shape[0])
-        kernel = _speed_parallel if parallel else _speed_serial
+        kernel: Any = _speed_parallel if parallel else _speed_serial
         kernel(*(_f64(x) for x in c[:6]), grid, out)
         return out
 
