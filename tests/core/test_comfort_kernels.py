@@ -72,3 +72,40 @@ def test_air_speed_needed_reaches_the_target_on_a_grid():
         one = comfort.air_speed_for_pmv(ta[i:i + 1], tr[i:i + 1], vr[i:i + 1], rh[i:i + 1],
                                         met[i:i + 1], clo[i:i + 1], target[i:i + 1])
         assert one[0] == v[i] or (np.isnan(one[0]) and np.isnan(v[i]))
+
+
+def test_remembered_results_are_the_solved_ones():
+    """The memo returns what solving gives, for repeated rows within and across calls, and
+    keeps to its size."""
+    from thermowarden.core.comfort_kernels import _Memo
+
+    solved_rows: list[int] = []
+
+    def solve(cols):
+        solved_rows.append(cols[0].size)
+        return cols[0] * 10.0 + cols[1]
+
+    memo = _Memo(limit=8)
+    a = np.array([1.0, 2.0, 1.0, 3.0, 2.0])
+    b = np.array([0.5, 0.5, 0.5, 0.5, 0.5])
+    assert memo.apply([a, b], solve).tolist() == [10.5, 20.5, 10.5, 30.5, 20.5]
+    assert solved_rows == [3]  # each distinct row once
+    assert memo.apply([a[::-1], b], solve).tolist() == [20.5, 30.5, 10.5, 20.5, 10.5]
+    assert solved_rows == [3]  # all remembered
+    c = np.array([1.0, 1.0, 4.0])
+    assert memo.apply([c, np.array([0.5, 0.25, 0.5])], solve).tolist() == [10.5, 10.25, 40.5]
+    assert solved_rows == [3, 2]
+    many = np.arange(20.0)
+    assert memo.apply([many, many], solve).tolist() == (many * 11.0).tolist()
+    assert len(memo.results) <= 8
+
+
+def test_air_speed_remembered_per_upper_speed():
+    """A speed remembered for one upper bound is not returned for another."""
+    ta = np.array([28.0])
+    args = (ta, ta, np.array([0.1]), np.array([50.0]), np.array([1.1]), np.array([0.5]),
+            np.array([0.5]))
+    wide = comfort.air_speed_for_pmv(*args)
+    assert np.isfinite(wide[0]) and wide[0] > 0.2
+    narrow = comfort.air_speed_for_pmv(*args, max_speed=0.8 * wide[0])
+    assert np.isnan(narrow[0])  # a bound below the speed needed does not suffice
