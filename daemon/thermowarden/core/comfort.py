@@ -117,7 +117,8 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
 
     ``for_cooling_effect`` selects the variant ASHRAE 55 uses inside the cooling-effect
     calculation (no metabolic correction of the still-air reference). NaN where any input
-    is missing; no range checks here.
+    is missing; no range checks here. Each distinct row of inputs is computed once and
+    remembered (``comfort_kernels.SET_MEMO``): readings at the sensors' resolution repeat.
     """
     n = np.asarray(air_c).shape[0]
     out = np.full(n, np.nan)
@@ -125,19 +126,26 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
           & np.isfinite(met) & np.isfinite(clo))
     if not ok.any():
         return out
+    from thermowarden.core import comfort_kernels
     from thermowarden.core import set_kernels as k
 
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
-    big = int(ok.sum()) >= PARALLEL_FROM
     ta = air_c[ok]
     vp = rh[ok] * _p_sat_torr(ta) / 100.0
-    with np.errstate(all="ignore"):
-        if big:
+
+    def solve(c: list[FloatArray]) -> FloatArray:
+        ta_, tr_, v_, met_, clo_, vp_, p_, _ = c
+        if ta_.size >= PARALLEL_FROM:
             kernel = k.kernel("set_for_ce_compiled" if for_cooling_effect else "set_compiled")
-            out[ok] = kernel(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok])
-        else:
-            out[ok] = k.set_serial(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok],
-                                   for_cooling_effect)
+            result: FloatArray = kernel(ta_, tr_, v_, met_, clo_, vp_, p_)
+            return result
+        return k.set_serial(ta_, tr_, v_, met_, clo_, vp_, p_,  # type: ignore[no-any-return]
+                            for_cooling_effect)
+
+    variant = np.full(ta.size, 1.0 if for_cooling_effect else 0.0)
+    with np.errstate(all="ignore"):
+        out[ok] = comfort_kernels.SET_MEMO.apply(
+            [ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok], variant], solve)
     return out
 
 

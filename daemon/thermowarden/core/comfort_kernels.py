@@ -245,6 +245,8 @@ class _Memo:
 
 
 _CE_MEMO = _Memo()
+SET_MEMO = _Memo()
+"""SET of rows (core/comfort.set_temperature)."""
 _SPEED_MEMO = _Memo()
 
 
