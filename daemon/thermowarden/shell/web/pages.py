@@ -133,10 +133,6 @@ OVERVIEW_VALUES = catalogue.shown("overview")
 with a value)."""
 SPACE_VALUES = catalogue.shown("space")
 """On the space's page, with a value or why there is none."""
-HOT_WORK_ONLY = frozenset({"wbgt_effective", "wbgt_reference", "wbgt_reference_acclimatised",
-                           "wbgt_reference_unacclimatised"})
-"""Shown only for hot-work spaces: the WBGT assessed against the reference of the workers
-there (ISO 7243) means nothing where nobody works in the heat."""
 CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
            "are screening values; follow local regulations and a qualified occupational "
            "hygienist.")
@@ -384,10 +380,9 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
         for e in OVERVIEW_VALUES:
             key, label = e.name, e.label
             item = idx.get(key)
-            if item is None or (item.get("value") is None and e.place):
+            if item is None or (item.get("value") is None and e.place) \
+                    or not applies(e, s, item):
                 continue
-            if key in HOT_WORK_ONLY and not s.hot_work:
-                continue  # a WBGT reference is for workers in the heat, not an office
             if key == "wbgt_reference":
                 label = reference_label(s)
             rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
@@ -477,6 +472,32 @@ def overview(directory: SiteDirectory, conditions_of: Callable[[str], dict[str, 
     return page_html("Overview", "".join(parts), directory, session, refresh=True, here=here)
 
 
+INDOOR_FAMILIES = frozenset({"comfort", "local_discomfort", "adaptive"})
+"""Families of indices for people indoors (ISO 7730, EN 16798-1): for comfort."""
+
+
+def places_of(space: SpaceInfo) -> frozenset[str]:
+    """The kinds of place (catalogue.PLACES) a space is: hot work where people work in the
+    heat, and comfort indoors or outdoor heat outside."""
+    kind = catalogue.OUTDOOR if space.kind == "outdoor" else catalogue.COMFORT
+    return frozenset({kind, catalogue.HOT_WORK} if space.hot_work else {kind})
+
+
+def applies(e: catalogue.Index, space: SpaceInfo, item: dict[str, Any] | None = None
+            ) -> bool:
+    """Whether a space's page shows this index: the WBGT and everything assessed against
+    its references only where people work in the heat (ISO 7243 is for workers, not for an
+    office or a garden); an index without a value only where it is meant to apply, with the
+    reason there is none (a PMV that needs an air speed in an office), not in a kind of
+    place it is not for (no "PMV -, applies to indoor spaces" for a garden)."""
+    if e.place == catalogue.HOT_WORK and not space.hot_work:
+        return False
+    if item is None or item.get("value") is not None:
+        return True
+    place = e.place or (catalogue.COMFORT if e.family in INDOOR_FAMILIES else "")
+    return not place or place in places_of(space)
+
+
 def reference_label(space: SpaceInfo) -> str:
     """The WBGT reference of the space's own workers, named as configured."""
     return ("WBGT reference (acclimatised)" if space.acclimatised
@@ -501,8 +522,11 @@ def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, 
     for chart in catalogue.CHARTS:
         if space.kind not in chart.kinds:
             continue
+        drawn = [e for e in catalogue.drawn(chart.key) if applies(e, space)]
+        if not drawn:
+            continue
         lines = [plots.Line(e.label, _series(samples, e.name), *LINE_STYLES[k % len(LINE_STYLES)])
-                 for k, e in enumerate(catalogue.drawn(chart.key))]
+                 for k, e in enumerate(drawn)]
         bands = []
         if chart.key == "comfort" and space.kind == "indoor":
             bands.append(plots.Band("comfort band", _series(samples, "comfort_band_lower"),
@@ -588,7 +612,7 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
         for e in SPACE_VALUES:
             key, label = e.name, e.label
             item = c["indices"].get(key)
-            if item is None or (key in HOT_WORK_ONLY and not space.hot_work):
+            if item is None or not applies(e, space, item):
                 continue
             if key == "wbgt_reference":
                 label = reference_label(space)
