@@ -30,6 +30,12 @@ records). Each figure is printed (and flushed) as soon as it is measured; the la
   b * site`` (least squares, ms per minute): ``fixed`` per instance, ``a`` per space it
   evaluates, ``b`` per space of the whole site beyond those. ``b`` near 0 against ``a``
   means an instance's idle cost follows its own share, not the whole site's size.
+- ``cluster_same_share_<k>_idle_ratio``: idle CPU per instance of four instances on the
+  large site against two on half of it, measured one after the other (``k`` counts the
+  pairs: a shared machine's load changes over a run, and a pair shares the load of its
+  minutes). With one standby per shard, every instance evaluates half the large site in
+  both, but the whole site doubles: about 1.0 when an instance's idle cost follows its own
+  share, up to 2.0 if it followed the whole site's size.
 - ``cluster_idle_site_growth_ratio``: idle CPU per instance with four instances on the large
   site divided by one instance on the small site. With one standby per shard each of the
   four evaluates half the large site, twice the spaces of the one on the small site: 2.0 at
@@ -59,7 +65,8 @@ from e2e import BARE, PUBLISHER, _free_port, _metric  # noqa: E402
 from tests.shell.nats_cluster import NatsCluster, nats_program  # noqa: E402
 
 SMALL = 150
-"""Spaces of the small site with --quick (1,000 without); the large one has four times."""
+"""Spaces of the small site with --quick (1,000 without); the large one has four times
+(``--sizes`` chooses both)."""
 TICK_S = 5.0
 LEASE_TTL_S = 15.0
 """Outlasts a JetStream stream leader election (5-11 s measured by the cluster test)."""
@@ -222,7 +229,7 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
         if n is None:
             return out
         base = sum(_metric(h, "thermowarden_messages_received_total") for _, h in procs)
-        cpu0 = sum(_cpu_s(p.pid) for p, _ in procs)
+        busy0 = sum(_cpu_s(p.pid) for p, _ in procs)
         t0 = _publish(cluster.nodes[0].mqtt, prefix, n, spaces)
         last, still_since = -1.0, time.time()
         while time.time() - still_since < 3.0 and time.time() - t0 < 600:
@@ -236,7 +243,7 @@ def _group(tmp: pathlib.Path, cluster: NatsCluster, m: int, spaces: int, idle_s:
         copies = max(1.0, round(received / n))
         out["rate"] = received / copies / (still_since - t0)
         out["received"] = received
-        out["cpu_per_msg_us"] = 1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - cpu0) / n
+        out["cpu_per_msg_us"] = 1e6 * (sum(_cpu_s(p.pid) for p, _ in procs) - busy0) / n
     finally:
         for p, _ in procs:
             p.terminate()
@@ -265,12 +272,20 @@ def _fit(points: list[tuple[float, float, float]]) -> dict[str, float | str | No
                                                       1)}
 
 
-def bench_cluster(quick: bool) -> dict[str, float | str | None]:
+def bench_cluster(quick: bool, sizes: tuple[int, int] | None = None,
+                  instances: tuple[int, ...] = (1, 2, 3, 4),
+                  pairs: int = 2) -> dict[str, float | str | None]:
+    """The figures above, for each count of ``instances``, at the two site ``sizes``
+    (small, large; default 150 and 600 with ``quick``, 1,000 and 4,000 without; both sizes
+    one after the other for each count), then ``pairs`` same-share pairs."""
     program = nats_program()
     if program is None:
         return {"cluster_unmeasured": "nats-server not installed"}
     n = 20_000 if quick else 60_000
     idle_s = 20.0 if quick else 60.0
+    if sizes is None:
+        sizes = (SMALL, 4 * SMALL) if quick else (1000, 4000)
+    small, large = sizes
     tmp = pathlib.Path(tempfile.mkdtemp(prefix="tw-cluster-"))
     cluster = NatsCluster(tmp / "nats", program).start()
     out: dict[str, float | str | None] = {}
@@ -285,10 +300,8 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
         put("cluster_bare_paho_311_msgs_per_s", round(bare) if bare else None)
         per_instance: dict[tuple[int, int], float] = {}
         points: list[tuple[float, float, float]] = []
-        small = SMALL if quick else 1000
-        large = 4 * small
-        for spaces in (small, large):
-            for m in (1, 2, 3, 4):
+        for m in instances:
+            for spaces in (small, large):
                 g = _group(tmp, cluster, m, spaces, idle_s, n if spaces == large else None)
                 per_instance[(spaces, m)] = g["idle_cpu_per_instance_min_ms"]
                 points += [(float(spaces), ev, ms) for ev, ms in g["points"]]
@@ -307,10 +320,23 @@ def bench_cluster(quick: bool) -> dict[str, float | str | None]:
                     put(f"cluster_{m}_vs_bare_ratio",
                         round(g["rate"] / bare, 3) if bare else None)
                     put(f"cluster_{m}_cpu_per_msg_us", round(g["cpu_per_msg_us"], 1))
-        put("cluster_idle_site_growth_ratio",
-            round(per_instance[(large, 4)] / per_instance[(small, 1)], 2))
+        if (small, 1) in per_instance and (large, 4) in per_instance:
+            put("cluster_idle_site_growth_ratio",
+                round(per_instance[(large, 4)] / per_instance[(small, 1)], 2))
         for name, value in _fit(points).items():
             put(name, value)
+        for k in range(1, pairs + 1):
+            half = _group(tmp, cluster, 2, large // 2, idle_s, None)
+            whole = _group(tmp, cluster, 4, large, idle_s, None)
+            for g, tag in ((half, f"{large // 2}sp_2"), (whole, f"{large}sp_4")):
+                put(f"cluster_same_share_{k}_{tag}_idle_cpu_each_instance_min_ms",
+                    "/".join(f"{ms:.0f}" for _, ms in g["points"]))
+                put(f"cluster_same_share_{k}_{tag}_evaluated_spaces_per_instance",
+                    "/".join(f"{ev:.0f}" for ev, _ in g["points"]))
+                put(f"cluster_same_share_{k}_{tag}_load", g["idle_load"])
+            put(f"cluster_same_share_{k}_idle_ratio",
+                round(whole["idle_cpu_per_instance_min_ms"]
+                      / half["idle_cpu_per_instance_min_ms"], 2))
     finally:
         cluster.stop()
         shutil.rmtree(tmp, ignore_errors=True)
@@ -323,9 +349,21 @@ def _interrupt(_sig: int, _frame: object) -> None:
 
 
 if __name__ == "__main__":
+    import argparse
+    import json
     import signal as _signal
 
     _signal.signal(_signal.SIGTERM, _interrupt)
-    import json
-
-    print(json.dumps(bench_cluster("--quick" in sys.argv)))
+    parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    parser.add_argument("--quick", action="store_true", help="smaller sites, shorter windows")
+    parser.add_argument("--sizes", type=int, nargs=2, metavar=("SMALL", "LARGE"),
+                        help="the two site sizes in spaces (default 1000 4000; 150 600 quick)")
+    parser.add_argument("--instances", type=int, nargs="*", default=[1, 2, 3, 4],
+                        metavar="M", help="instance counts to measure (default 1 2 3 4; "
+                                          "none: only the same-share pairs)")
+    parser.add_argument("--pairs", type=int, default=2,
+                        help="same-share pairs to measure (default 2)")
+    args = parser.parse_args()
+    sizes = (args.sizes[0], args.sizes[1]) if args.sizes else None
+    print(json.dumps(bench_cluster(args.quick, sizes, tuple(args.instances),
+                                   args.pairs)))

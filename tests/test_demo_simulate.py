@@ -172,6 +172,33 @@ def test_the_demos_page_ends_on_the_days_last_numbers(busy_day):
         assert re.search(r"<dd>[^<]*\d+(\.\d)?\s?°C", card), card
 
 
+def test_demo_shows_each_outcome_of_the_advice_ahead_of_time(busy_day):
+    """Issue 29: the demo shows a crossing foreseen (then turning into the alert), an
+    ahead-of-time advisory withdrawn, and a crossing with no warning (the night bake's steam
+    vent, simulated_feeds/larkfield.py), as it happens and in its summary's words."""
+    demo_output = busy_day.stdout
+    lines = demo_output.splitlines()
+
+    def shown(at: str, event: str, title: str) -> bool:
+        return any(ln.startswith(at) and f" {event} " in ln and title in ln for ln in lines)
+
+    # the night bake as it happens: foreseen at 20:16, withdrawn at 20:44 (no crossing),
+    # then the steam vent's sudden crossing at 21:30 with no warning before it
+    assert shown("20:16", "raised", "Heat stress expected in Bakery production floor")
+    assert shown("20:44", "cleared", "Heat stress expected in Bakery production floor")
+    assert shown("21:30", "escalated", "Heat stress above the action value in Bakery")
+    assert not any(ln[:5] in ("21:28", "21:29", "21:30") and "expected" in ln for ln in lines)
+    summary = demo_output.split("demo summary")[1]
+    words = " ".join(summary.split())
+    assert "advice ahead of time" in words
+    assert ("Heat stress expected (ahead.wbgt_action): 3 crossings of Heat stress at high "
+            "priority: 2 foreseen at least 42 minutes ahead (median 43), 1 with no warning "
+            "(bakery-floor at 21:30); 3 advisories ahead of time: 1 withdrawn when the "
+            "forecast no longer held, with no crossing after it.") in words
+    assert ("Sun expected on the windows (ahead.sun_on_windows): 1 crossing of Sun on the "
+            "facade: 1 foreseen 51 minutes ahead") in words
+
+
 def test_demo_stops_after_its_duration():
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "demo", "--duration", "5",
                         "--plain"], capture_output=True, text=True, timeout=COMMAND_LIMIT_S)

@@ -104,3 +104,48 @@ def ahead_summary(events: list[dict[str, Any]], foresees: Mapping[str, tuple[str
         })
     del end
     return out
+
+
+def _n(count: int, one: str, many: str) -> str:
+    return f"{count} {one if count == 1 else many}"
+
+
+def in_words(figures: list[dict[str, Any]], titles: Mapping[str, str],
+             tz: dt.tzinfo | None = None) -> list[str]:
+    """:func:`ahead_summary`'s figures as sentences, one per ahead-of-time rule that raised
+    an advisory or whose foreseen advisory was reached (for the demo's summary). ``titles``:
+    rule -> title; times of crossings with no warning in ``tz`` (else UTC)."""
+    out: list[str] = []
+    for r in figures:
+        if not r["ahead_advisories"] and not r["crossings"]:
+            continue
+        target, _, priority = r["foresees"].partition(" at ")
+        what = titles.get(target, target) + (f" at {priority} priority" if priority else "")
+        crossed = f"{_n(r['crossings'], 'crossing', 'crossings')} of {what}"
+        parts = []
+        if r["foreseen"]:
+            lead = r["lead_min"]
+            least, median = round(lead["min"]), round(lead["median"])
+            parts.append(f"{r['foreseen']} foreseen {least} minutes ahead" if r["foreseen"] == 1
+                         else f"{r['foreseen']} foreseen at least {least} minutes ahead "
+                         f"(median {median})")
+        if r["unwarned"]:
+            where = ", ".join(
+                f"{u['space']} at {dt.datetime.fromisoformat(u['at']).astimezone(tz):%H:%M}"
+                for u in r["unwarned_crossings"])
+            parts.append(f"{r['unwarned']} with no warning ({where})")
+        if parts:
+            crossed += ": " + ", ".join(parts)
+        ends = []
+        if r["withdrawn"]:
+            ends.append(f"{r['withdrawn']} withdrawn when the forecast no longer held, with "
+                        "no crossing after it")
+        if r["acted_on"]:
+            ends.append(f"{r['acted_on']} acted on before a crossing")
+        if r["live_at_end"]:
+            ends.append(f"{r['live_at_end']} still standing at the end")
+        given = _n(r["ahead_advisories"], "advisory", "advisories") + " ahead of time"
+        if ends:
+            given += ": " + ", ".join(ends)
+        out.append(f"{titles.get(r['rule'], r['rule'])} ({r['rule']}): {crossed}; {given}.")
+    return out

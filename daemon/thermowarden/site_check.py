@@ -102,6 +102,7 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
                     f"{', '.join(m.removeprefix(MEASURED_MARK) for m in missing)}, which no "
                     f"point provides, so it never runs there: {_remedy(missing)}")
     report.warnings.extend(hot_work_warnings(config, report.model, packs, provided))
+    report.warnings.extend(unused_windows_warnings(config, packs))
     from thermowarden.engine.finishing import unfinishable_rules
 
     if prepare is not None:
@@ -174,6 +175,26 @@ def hot_work_warnings(config: SiteConfig, model: SiteModel, packs: Mapping[str, 
             out.append(f"space {space.id}: {HOT_WORK_UNWATCHED}: the "
                        f"safety lead will never be alerted for {name}: add "
                        + "; ".join(to_add))
+    return out
+
+
+def unused_windows_warnings(config: SiteConfig, packs: Mapping[str, object]) -> list[str]:
+    """A warning for each space that declares windows but has no rule pack with a rule for
+    spaces with windows (the sun on a facade, pack ``ahead``): its windows are read for
+    nothing."""
+    from thermowarden.rules import CompiledPack
+
+    out = []
+    for space in config.spaces:
+        if not space.windows:
+            continue
+        if any(isinstance(pack := packs.get(name), CompiledPack)
+               and any(r.config.applies_to.windows for r in pack.rules)
+               for name in config.rule_packs(space)):
+            continue
+        out.append(f"space {space.id}: declares windows, but none of its rule packs has a "
+                   "rule for them, so no advice to lower the blinds before the sun reaches "
+                   "them is given: add ahead to its rule_packs, or remove the windows")
     return out
 
 

@@ -139,9 +139,14 @@ class LeaseKeeper:
         self.first_standby: dict[str, str] = {}
         self.standby_since: dict[str, float] = {}
         """Shard -> since when its first standby has been ``first_standby[shard]``."""
+        self.evaluating_since: dict[str, float] = {}
+        """Shard -> since when this instance has held it or stood by for it, without a
+        break (its own windows of the shard are this old)."""
         self.live_since = clock()
         self.opened = False
-        self.listened = False
+        self.listen_until: float | None = None
+        """Until when (monotonic) this instance only listens after it began: one lease
+        TTL from its first round that reached the store."""
         self.failing: str | None = None
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
@@ -196,18 +201,24 @@ class LeaseKeeper:
                     self.first_standby[s] = m
                     self.standby_since[s] = now
             p = plan(View(self.me, live, self.shards, holders, now, dict(self.free_since),
-                          self.live_since, dict(self.last_holder), dict(self.standby_since)),
+                          self.live_since, dict(self.last_holder), dict(self.standby_since),
+                          dict(self.evaluating_since)),
                      replicas=self.cfg.replicas, grace_s=GRACE_ROUNDS * self.renew_every,
-                     settle_s=self.cfg.rebalance_after_s, warm_s=self.warm_s)
+                     settle_s=self.cfg.rebalance_after_s, warm_s=self.warm_s,
+                     slack_s=self.cfg.lease_ttl_s)
             for s in p.release:
                 released = self.held.pop(s, None)
                 if released is not None:
                     self.store.release(released)
                     holders.pop(s, None)
                     log.info("handed shard %s over (above the fair share of %d)", s, p.share)
-            # the first round only listens: instances started together see one another
-            # before any takes a share computed without the others
-            for s in p.take if self.listened else ():
+            # the first lease TTL after it began, an instance only listens: instances
+            # started together (seconds apart on a loaded machine) see one another's
+            # presence before any takes a share computed without the others (which it
+            # would then keep: hand-overs wait for rebalance_after_s)
+            if self.listen_until is None:
+                self.listen_until = started + self.cfg.lease_ttl_s
+            for s in p.take if now >= self.listen_until else ():
                 got = self.store.take(s, self.me)
                 if got is not None:
                     self.held[s] = got
@@ -215,7 +226,12 @@ class LeaseKeeper:
                     self.free_since.pop(s, None)
             self.holders = holders
             self.standby = p.standby
-            self.listened = True
+            evaluating = set(self.held) | p.standby
+            for s in self.shards:
+                if s in evaluating:
+                    self.evaluating_since.setdefault(s, now)
+                else:
+                    self.evaluating_since.pop(s, None)
             if self.failing is not None:
                 log.warning("the lease store answers again")
                 self.failing = None
