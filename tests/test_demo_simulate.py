@@ -58,9 +58,9 @@ def busy_day() -> Iterator[BusyDay]:
     """``demo --plain --web-port`` with a busy loop on every core (so the demo shares them
     with as many processes as there are cores), read when it says the day is over, then
     stopped with Ctrl-C."""
-    from thermowarden.simulated_feeds.larkfield import larkfield_day
+    from thermowarden.simulated_feeds.larkfield import demo_day
 
-    end = max(r["t"] for r in larkfield_day())
+    end = max(r["t"] for r in demo_day())
     busy = [subprocess.Popen([sys.executable, "-c", "while 1: pass"])
             for _ in range(os.cpu_count() or 2)]
     # a second run at the same time, without a page (so the two runs do not see the same
