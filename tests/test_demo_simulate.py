@@ -281,7 +281,7 @@ def test_service_writes_a_daily_report(tmp_path):
         engine.message("larkfield/office-west/air/temperature", b"24.0", now + k)
         engine.sample_every_s = 1.0
         svc.execute(engine.tick(now + k + 0.5))
-    path = svc.daily_report(now + 86_400)
+    path = svc.scheduled.daily_report(now + 86_400)
     text = path.read_text()
     assert path.name.startswith("larkfield-") and "Second floor office, west facade" in text
     assert "<h2>Summary</h2>" in text

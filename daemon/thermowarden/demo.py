@@ -174,8 +174,8 @@ class EngineEvents:
         self.lines: list[dict[str, Any]] = []
 
     def observe(self, effects: list[Any]) -> None:
+        from thermowarden.core.event_lines import event_line
         from thermowarden.effects import Persist
-        from thermowarden.replay import event_line
 
         for e in effects:
             if isinstance(e, Persist) and e.kind == "event" and e.record \
@@ -184,7 +184,7 @@ class EngineEvents:
 
     def ahead_in_words(self, engine: Any, tz: dt.tzinfo) -> list[str]:
         """The figures ``replay --summary`` gives per ahead-of-time rule, in words."""
-        from thermowarden.ahead_summary import ahead_summary, in_words
+        from thermowarden.core.ahead_summary import ahead_summary, in_words
 
         foresees = {rt.rule.key: (f.rule, f.priority) for rt in engine.rules
                     if (f := rt.rule.config.foresees) is not None}

@@ -18,8 +18,8 @@ import pytest
 from thermowarden.simulated_feeds.larkfield import DAY, demo_day, night_bake
 
 from tests.conftest import REPO
-from thermowarden.ahead_summary import in_words
 from thermowarden.config import SiteConfig, load_site
+from thermowarden.core.ahead_summary import in_words
 from thermowarden.replay import ReplayResult, read_feed, replay, summarise
 
 SITE = REPO / "deploy" / "example-site.yaml"

@@ -24,11 +24,11 @@ from tests.shell.delivery_parts import (
 )
 from thermowarden.config import DeliveryConfig
 from thermowarden.effects import Publish
-from thermowarden.shell.delivery import (
+from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.delivery_channels import (
     DELIVERY_HEADER,
     SIGNATURE_HEADER,
     TIMESTAMP_HEADER,
-    Delivery,
     render_text,
 )
 
@@ -359,7 +359,7 @@ def test_signature_matches_the_standard_webhooks_test_vector():
     import hashlib
     import hmac
 
-    from thermowarden.shell.delivery import sign
+    from thermowarden.shell.delivery_channels import sign
 
     body = b'{"test": 2432232314}'
     assert sign("whsec_MfKQ9r8GKYqrTwjUPD8ILPZIo2LaLaSw", "msg_p5jXN8AQM9LWM0D4loKWxJek",
