@@ -109,6 +109,11 @@ padding:.1rem .4rem;text-align:right}
 table.fit td::before{content:attr(data-label);color:var(--muted);text-align:left}
 table.fit tr.sub td:first-child{padding-left:.4rem}
 table.fit td.method{flex-direction:column;gap:0;text-align:left}
+table.stack tr{display:flex;flex-wrap:wrap;align-items:baseline;column-gap:.6rem}
+table.stack td:first-child{flex:1 1 10rem;text-align:left;font-weight:600}
+table.stack td:first-child::before,table.stack td.bare::before,
+table.stack td.method::before{content:none}
+table.stack td.method{flex:1 1 100%;font-size:.8rem}
 }
 """
 
@@ -373,7 +378,8 @@ def rollup(directory: SiteDirectory, counts: dict[int, list[int]], f: Filters) -
             + "".join(rows) + "</tbody></table>")
 
 
-def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinfo) -> str:
+def space_card(s: SpaceInfo, c: dict[str, Any] | None, live: list[dict[str, Any]],
+               tz: dt.tzinfo) -> str:
     rows = []
     if c is not None:
         idx = c["indices"]
@@ -392,7 +398,11 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
         when = "not evaluated yet"
     tags = ([s.group] if s.group else []) + [s.kind] + (["hot work"] if s.hot_work else []) + (
         ["natural ventilation"] if s.ventilation == "natural" else [])
-    alert = (f' <span class="badge high">{n_live} live</span>' if n_live else "")
+    # the count in the colour of the most urgent of them (a medium advice is not red)
+    top = min((PRIORITIES.index(a["priority"]) for a in live
+               if a.get("priority") in PRIORITIES), default=None)
+    alert = (f' <span class="badge {PRIORITIES[top] if top is not None else "low"}">'
+             f'{len(live)} live</span>' if live else "")
     return (f'<section class="card" data-space="{h(s.id)}"><h3><a href="/spaces/'
             f'{quote(s.id, safe="")}">{h(s.name)}</a>{alert}</h3>'
             f'<div class="note">{h(" · ".join(tags))} · {h(when)}</div>'
@@ -463,7 +473,7 @@ def overview(directory: SiteDirectory, conditions_of: Callable[[str], dict[str, 
     parts.append(f'<h2>Spaces <span class="muted" id="space-count">({what}{span})</span></h2>')
     if window:
         parts.append('<div class="cards">' + "".join(
-            space_card(s, conditions_of(s.id), len(by_space.get(s.id, ())), tz)
+            space_card(s, conditions_of(s.id), list(by_space.get(s.id, ())), tz)
             for s in window) + "</div>")
     else:
         parts.append('<p class="muted">No space matches.</p>')
@@ -617,7 +627,7 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
             if key == "wbgt_reference":
                 label = reference_label(space)
             rows.append(f'<tr><td data-label="Index">{h(label)}</td>'
-                        f'<td class="num" data-label="Value">{fmt_value(item)}</td>'
+                        f'<td class="num bare" data-label="Value">{fmt_value(item)}</td>'
                         f'<td class="note method" data-label="Method">'
                         f'{h(readable(item.get("method", "")))}</td></tr>')
         # table.fit: on a phone each row stacks, so the method wraps instead of running
