@@ -9,7 +9,9 @@ in-process ingest on the same feed.
   space-days of feed replayed per CPU second (3 days in a full run, 6 hours in a quick one;
   generating the invented feed is counted too). Each space has readings of its own (a
   warmth and a humidity offset per space, at the sensors' resolution: 0.1 K, 1 %RH), so
-  spaces repeat each other only as often as real rooms at that resolution would; the
+  spaces repeat each other only as often as real rooms at that resolution would; no day
+  repeats another (each has its own weather, the jitter is drawn from a seeded generator:
+  the same feed every run), so nothing cached from one day serves the next wholesale; the
   indices are computed once per distinct row of inputs in a batch, so a feed whose spaces
   all read alike would overstate the figure.
 - replay_vs_ingest_ratio: that replay's messages per CPU second over the messages per CPU
@@ -61,23 +63,52 @@ def synthetic_site(n: int = SPACES):  # noqa: ANN201
                      "people": {"met": 1.2, "clo": 0.6}}})
 
 
-def synthetic_feed(n: int, hours: float, t0: float = 1_780_293_600.0) -> Iterator:  # noqa: ANN401
+FEED_SEED = 28
+"""Seed of the synthetic feed's weather and sensor jitter (the same feed in every run)."""
+
+
+def synthetic_feed(n: int, hours: float, t0: float = 1_780_293_600.0,
+                   seed: int = FEED_SEED) -> Iterator:  # noqa: ANN401
     """Invented readings from Monday 1 June 2026 06:00 UTC: a daily swing, a warm afternoon
     in some spaces (each space its own warmth and humidity), fans switched on in the warm
-    ones; all six points of a space at the same second every minute."""
+    ones; all six points of a space at the same second every minute.
+
+    No two days are alike: each day has its own weather (the swing's amplitude scaled by
+    0.8-1.2, shifted by -1 to +1 K, humidity by -6 to +6 %RH, the warmest hour moved by up
+    to half an hour either way), and every reading's jitter (0-0.2 K, 0-0.06 m/s, at the
+    sensors' resolution) is drawn afresh from a generator seeded with ``seed``, so the feed
+    is the same in every run but never repeats itself (the weather moves smoothly from one
+    day's to the next's over the day): results cached across days or
+    spaces count only where real readings would repeat too."""
+    import numpy as np
+
     from thermowarden.replay import FeedRecord
 
+    rng = np.random.default_rng(seed)
     topics = [[f"syn/z{i:04d}/{p}" for p in POINTS] for i in range(n)]
     offset = [(i * 7) % 60 for i in range(n)]
     warm = [0.5 + (i % 9) * 0.6 + 0.013 * i for i in range(n)]
+    days = int(hours // 24) + 2
+    scale = rng.uniform(0.8, 1.2, days).tolist()
+    shift = rng.uniform(-1.0, 1.0, days).tolist()
+    wet = rng.uniform(-6.0, 6.0, days).tolist()
+    phase = rng.uniform(-0.5 / 24, 0.5 / 24, days).tolist()
     for minute in range(int(hours * 60)):
+        day = minute // 1440
         day_frac = (minute % 1440) / 1440.0
-        swing = math.sin(2 * math.pi * (day_frac - 0.35))
+
+        def weather(per_day: list[float], day: int = day, f: float = day_frac) -> float:
+            return (1 - f) * per_day[day] + f * per_day[day + 1]  # no jump at midnight
+
+        sc, sh, wt = weather(scale), weather(shift), weather(wet)
+        swing = math.sin(2 * math.pi * (day_frac - 0.35 - weather(phase)))
         base = t0 + minute * 60.0
+        ta_jitter = (0.1 * rng.integers(0, 3, n)).tolist()
+        v_jitter = (0.02 * rng.integers(0, 4, n)).tolist()
         for i in range(n):
-            ta = 23.0 + warm[i] * (1 + swing) + 0.1 * ((minute + i) % 3)
-            vals = (f"{ta:.1f}", f"{48 + 10 * swing + i % 5:.0f}", f"{ta + 1.5 + swing:.1f}",
-                    f"{0.12 + 0.02 * ((minute + i) % 4):.2f}",
+            ta = 23.0 + sh + warm[i] * (1 + sc * swing) + ta_jitter[i]
+            vals = (f"{ta:.1f}", f"{48 + wt + 10 * swing + i % 5:.0f}",
+                    f"{ta + 1.5 + swing:.1f}", f"{0.12 + v_jitter[i]:.2f}",
                     "on" if ta > 27.5 else "off", "85" if swing > 0.8 else "10")
             t = base + offset[i]
             for topic, v in zip(topics[i], vals, strict=True):

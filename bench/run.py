@@ -224,11 +224,11 @@ def _memory_child() -> int:
     model = build_site_model(config)
     state = SiteState(model)
     now = 1_780_000_000.0
-    for k in range(state.ring_len + 2):  # full air-speed windows (and every point written)
+    for k in range(state.rings.length + 2):  # full air-speed windows (and every point written)
         t = now + 10.0 * k
         for pid in range(len(model.points)):
             state.record(pid, t, 20.0 + (k % 3), t)
-    end = now + 10.0 * (state.ring_len + 2)
+    end = now + 10.0 * (state.rings.length + 2)
     for k in range(361):  # a full hour of WBGT history
         state.record_wbgt(end + 10.0 * k, np.full(n, 25.0))
     state.snapshot(end + 3600.0)
@@ -238,7 +238,7 @@ def _memory_child() -> int:
 
 def bench_rules(quick: bool) -> dict[str, float]:
     from thermowarden.engine import Engine
-    from thermowarden.engine.evaluation import rule_truths
+    from thermowarden.engine.rule_truths import rule_truths
     from thermowarden.rules import builtin_pack_names, load_rule_packs
     from thermowarden.site_model import build_site_model
 

@@ -19,6 +19,17 @@ Timeline (local time, Europe/London):
   14:00        office warm and still; fans switched on at 16:00
   15:00-16:30  the studio humidity sensor drops out; the studio overheats 15:00-18:00
   18:30        the office empties
+
+The demo's day (:func:`demo_day`) is the same day, reading for reading, until 20:00 (where
+the recorded day, simulated_feeds/recorded/larkfield-day.jsonl.gz, ends), then goes on to
+23:00 with a night bake, so that the demo shows each outcome of the advice ahead of time:
+  20:00-20:25  one oven heats up: the bakery's WBGT rises, then holds just below the action
+               value (heat stress foreseen at the present rise, the forecast withdrawn
+               when the rise stops, no crossing)
+  21:30-21:40  the oven's steam vent sticks open: the WBGT jumps about 16 K at once and the
+               60-minute mean crosses the action value within the minute, before a trend
+               could see it (a crossing with no warning)
+  21:45-22:00  the bake ends and the oven cools; the alert eases and clears before 23:00
 """
 
 from __future__ import annotations
@@ -94,7 +105,26 @@ def office(h: float) -> dict[str, float]:
             "presence": 1.0 if occupied else 0.0}
 
 
-def bakery(h: float) -> dict[str, float]:
+DEMO_END_H = 23.0
+"""The demo's day ends at 23:00 (after the night bake)."""
+NIGHT_BAKE_H = 20.0
+
+
+def night_bake(h: float) -> dict[str, float]:
+    """The bakery from 20:00 on the demo's day: one oven, then a stuck steam vent."""
+    oven = _ramp(h, 20.0, 20.0 + 25 / 60, 0.0, 0.405) if h < 21.75 else \
+        _ramp(h, 21.75, 22.0, 0.405, 0.0)
+    steam = 1.0 if 21.5 <= h < 21.5 + 10 / 60 else 0.0
+    tg = 25.0 + 15.0 * oven + 11.0 * steam
+    tnw = 19.0 + 8.0 * oven + 18.0 * steam
+    return {"tg": tg, "tnw": tnw, "ankle": 23.0 + 4.0 * oven + 4.0 * steam,
+            "head": 25.0 + 7.0 * oven + 8.0 * steam, "rh": 42.0 + 5.0 * oven + 40.0 * steam,
+            "v": 0.35}
+
+
+def bakery(h: float, evening: bool = False) -> dict[str, float]:
+    if evening and h >= NIGHT_BAKE_H:
+        return night_bake(h)
     ovens = _ramp(h, 8.0, 11.5, 0.0, 1.0) * (1.0 if h < 17.0 else _ramp(h, 17.0, 17.5, 1.0, 0.0))
     if 12.0 <= h < 13.0:
         ovens *= 0.35
@@ -136,8 +166,10 @@ def larkfield_days(days: int = 3, seed: int = 20260714, step_s: float = 60.0
 
 
 def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.0,
-                  step_s: float = 60.0, day: dt.date = DAY) -> Iterator[dict[str, Any]]:
-    """The feed records, in time order: {t, topic, payload}."""
+                  step_s: float = 60.0, day: dt.date = DAY, evening: bool = False
+                  ) -> Iterator[dict[str, Any]]:
+    """The feed records, in time order: {t, topic, payload}; ``evening``: the bakery's
+    night bake from 20:00 (the demo's day)."""
     rng = np.random.default_rng(seed)
     t0 = _local(start_h, day)
     steps = int((end_h - start_h) * 3600 / step_s)
@@ -172,7 +204,7 @@ def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.
             out.append(_rec(t + 7, f"{p}/blinds", "down" if o["blinds"] >= 80 else "up"))
             out.append(_rec(t + 7, f"{p}/fans", "on" if o["fans"] else "off"))
 
-        b = bakery(h)
+        b = bakery(h, evening)
         q = "larkfield/bakery-floor"
         out.append(_rec(t + 8, f"{q}/senml", [
             {"bn": "urn:dev:bakery:", "bt": int(t + 8), "n": "globe", "u": "Cel",
@@ -210,6 +242,12 @@ def larkfield_day(seed: int = 20260714, start_h: float = 5.0, end_h: float = 20.
                         f"{max(s['v'] + noise(0.03), 0.03):.2f}"))
         out.sort(key=lambda rec: rec["t"])
         yield from out
+
+
+def demo_day(seed: int = 20260714) -> Iterator[dict[str, Any]]:
+    """The demo's day: the recorded day's 05:00-20:00 reading for reading, then the night
+    bake to 22:30 (module docstring)."""
+    return larkfield_day(seed, end_h=DEMO_END_H, evening=True)
 
 
 def write_feed(path: str, **kwargs: Any) -> int:

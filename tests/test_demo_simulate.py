@@ -5,41 +5,130 @@ from __future__ import annotations
 
 import gzip
 import json
+import os
+import re
+import signal
 import subprocess
 import sys
+import threading
+import urllib.request
+import zoneinfo
+from collections.abc import Iterator
+from dataclasses import dataclass
+from typing import Any
 
 import pytest
 
 from tests.conftest import COMMAND_LIMIT_S, REPO
+from tests.shell.conftest import free_port, wait_for
 from thermowarden.simulate import retime, scenario_records
 
 SITE = REPO / "deploy" / "example-site.yaml"
 
 
-def _demo_day() -> str:
-    """The whole demo day, unpaced (the clock is driven by the demo either way)."""
-    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "demo", "--plain",
-                        "--speed", "1000000"], capture_output=True, text=True,
-                       timeout=COMMAND_LIMIT_S)
-    assert r.returncode == 0, r.stderr[-3000:]
-    return r.stdout
+DAY_LIMIT_S = 3 * COMMAND_LIMIT_S
+"""Upper limit for a whole demo day with every core busy (a stop for a demo that hangs:
+a day took 6.5 minutes unpaced with the load average at 12 to 20, and more than 15 minutes
+at 35 with busy loops on both cores)."""
 
 
-def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy():
-    first = _demo_day()
-    busy = subprocess.Popen([sys.executable, "-c", "while 1: pass"])
+@dataclass
+class BusyDay:
+    """A demo day run with every core busy and its web page on, and what the page showed
+    once the day was over."""
+
+    stdout: str
+    plain: str
+    """The output of a second run at the same time, without its page."""
+    end: float
+    spaces: list[dict[str, Any]]
+    conditions: dict[str, dict[str, Any]]
+    live: list[dict[str, Any]]
+    overview: str
+
+
+def _get(base: str, path: str) -> Any:
+    with urllib.request.urlopen(base + path, timeout=30) as r:
+        body = r.read().decode()
+        return json.loads(body) if path.startswith("/api/") else body
+
+
+@pytest.fixture(scope="module")
+def busy_day() -> Iterator[BusyDay]:
+    """``demo --plain --web-port`` with a busy loop on every core (so the demo shares them
+    with as many processes as there are cores), read when it says the day is over, then
+    stopped with Ctrl-C."""
+    from thermowarden.simulated_feeds.larkfield import demo_day
+
+    end = max(r["t"] for r in demo_day())
+    busy = [subprocess.Popen([sys.executable, "-c", "while 1: pass"])
+            for _ in range(os.cpu_count() or 2)]
+    # a second run at the same time, without a page (so the two runs do not see the same
+    # moments of the machine's load)
+    plain = subprocess.Popen([sys.executable, "-m", "thermowarden.cli", "demo", "--plain",
+                              "--speed", "1000000"],
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    port = free_port()
+    proc = subprocess.Popen([sys.executable, "-m", "thermowarden.cli", "demo", "--plain",
+                             "--speed", "1000000", "--web-port", str(port)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    lines: list[str] = []
+    assert proc.stdout is not None
+    reader = threading.Thread(target=lambda: lines.extend(iter(proc.stdout.readline, "")),
+                              daemon=True)
+    reader.start()
     try:
-        second = _demo_day()
+        wait_for(lambda: any("the day is over" in x for x in lines) or proc.poll() is not None,
+                 DAY_LIMIT_S, "the demo to finish its day")
+        for b in busy:
+            b.kill()
+            b.wait(10)
+        assert proc.poll() is None, proc.stderr.read()[-3000:] if proc.stderr else ""
+        base = f"http://127.0.0.1:{port}"
+        spaces = _get(base, "/api/spaces")["spaces"]
+        day = BusyDay(
+            stdout="", plain="", end=end, spaces=spaces,
+            conditions={s["id"]: _get(base, f"/api/spaces/{s['id']}/conditions")
+                        for s in spaces},
+            live=_get(base, "/api/advisories")["advisories"],
+            overview=_get(base, "/"))
+        proc.send_signal(signal.SIGINT)
+        assert proc.wait(120) == 0
+        reader.join(30)
+        day.stdout = "".join(lines)
+        out, err = plain.communicate(timeout=DAY_LIMIT_S)
+        assert plain.returncode == 0, err[-3000:]
+        day.plain = out
+        yield day
     finally:
-        busy.kill()
-        busy.wait(10)
+        if plain.poll() is None:
+            plain.kill()
+            plain.communicate(timeout=10)
+        for b in busy:
+            if b.poll() is None:
+                b.kill()
+                b.wait(10)
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
+        for f in (proc.stdout, proc.stderr):
+            if f is not None:
+                f.close()
+
+
+def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy(busy_day):
+    first = busy_day.plain
+    second = busy_day.stdout
     assert "started an embedded MQTT broker" in first
     assert "demo summary" in first and "advisories raised:" in first
     assert " raised " in first  # events shown as they happen
     assert "occupational hygienist" in first
 
     def events(out: str) -> list[str]:
-        return [ln for ln in out.splitlines() if "embedded MQTT broker" not in ln]
+        # the broker's port and the page's address and password differ from run to run,
+        # and the run with the page was stopped with Ctrl-C (after its day)
+        return [ln for ln in out.splitlines() if "embedded MQTT broker" not in ln
+                and "http://127.0.0.1:" not in ln and ln != "interrupted; stopped cleanly"]
 
     assert events(first) == events(second)
     # every event counted in the summary was printed, the late ones too
@@ -49,6 +138,66 @@ def test_demo_gives_the_same_events_every_run_even_with_both_cores_busy():
     assert len(raised_lines) == counted
     # the day's own numbers: the heat of the afternoon reaches the safety lead
     assert any(" safety " in ln and "Bakery" in ln for ln in raised_lines)
+
+
+def test_the_demos_page_ends_on_the_days_last_numbers(busy_day):
+    """Issue 26 saw the page stop "as of 22:30", 2.5 simulated hours after the feed, every
+    space "-", and the integrator told that 10 points stopped reporting: here every space
+    is evaluated at the day's last readings (within the 60 s between two readings), with its
+    numbers and every point fresh, and no sensor-health advice says a point stopped
+    reporting."""
+    import datetime as dt
+
+    from thermowarden.config import load_site
+
+    end = dt.datetime.fromtimestamp(busy_day.end, dt.UTC)
+    tz = zoneinfo.ZoneInfo(load_site(SITE).site.timezone)
+    assert len(busy_day.spaces) == 5
+    for s in busy_day.spaces:
+        at = dt.datetime.fromisoformat(s["conditions_at"].replace("Z", "+00:00"))
+        # (a space is evaluated when a reading arrives: the garden reads only the weather
+        # station's, sent every 60 s)
+        assert abs((at - end).total_seconds()) <= 60, (s["id"], s["conditions_at"])
+        c = busy_day.conditions[s["id"]]
+        assert c["indices"]["operative_temperature"]["value"] is not None, s["id"]
+        stale = [p["key"] for p in c["points"] if not p["fresh"]]
+        assert not stale, (s["id"], stale)
+    assert not [a["title"] for a in busy_day.live if a["rule"] == "sensor_health.stale_point"]
+    # each card of the overview says the day's last time and shows a temperature
+    cards = busy_day.overview.split('<section class="card"')[1:]
+    assert len(cards) == 5
+    last = end.astimezone(tz).strftime("%H:%M")
+    for card in cards:
+        assert f"as of {last}" in card or \
+            f"as of {(end - dt.timedelta(seconds=60)).astimezone(tz):%H:%M}" in card, card
+        assert re.search(r"<dd>[^<]*\d+(\.\d)?\s?°C", card), card
+
+
+def test_demo_shows_each_outcome_of_the_advice_ahead_of_time(busy_day):
+    """Issue 29: the demo shows a crossing foreseen (then turning into the alert), an
+    ahead-of-time advisory withdrawn, and a crossing with no warning (the night bake's steam
+    vent, simulated_feeds/larkfield.py), as it happens and in its summary's words."""
+    demo_output = busy_day.stdout
+    lines = demo_output.splitlines()
+
+    def shown(at: str, event: str, title: str) -> bool:
+        return any(ln.startswith(at) and f" {event} " in ln and title in ln for ln in lines)
+
+    # the night bake as it happens: foreseen at 20:16, withdrawn at 20:44 (no crossing),
+    # then the steam vent's sudden crossing at 21:30 with no warning before it
+    assert shown("20:16", "raised", "Heat stress expected in Bakery production floor")
+    assert shown("20:44", "cleared", "Heat stress expected in Bakery production floor")
+    assert shown("21:30", "escalated", "Heat stress above the action value in Bakery")
+    assert not any(ln[:5] in ("21:28", "21:29", "21:30") and "expected" in ln for ln in lines)
+    summary = demo_output.split("demo summary")[1]
+    words = " ".join(summary.split())
+    assert "advice ahead of time" in words
+    assert ("Heat stress expected (ahead.wbgt_action): 3 crossings of Heat stress at high "
+            "priority: 2 foreseen at least 42 minutes ahead (median 43), 1 with no warning "
+            "(bakery-floor at 21:30); 3 advisories ahead of time: 1 withdrawn when the "
+            "forecast no longer held, with no crossing after it.") in words
+    assert ("Sun expected on the windows (ahead.sun_on_windows): 1 crossing of Sun on the "
+            "facade: 1 foreseen 51 minutes ahead") in words
 
 
 def test_demo_stops_after_its_duration():
@@ -132,7 +281,7 @@ def test_service_writes_a_daily_report(tmp_path):
         engine.message("larkfield/office-west/air/temperature", b"24.0", now + k)
         engine.sample_every_s = 1.0
         svc.execute(engine.tick(now + k + 0.5))
-    path = svc.daily_report(now + 86_400)
+    path = svc.scheduled.daily_report(now + 86_400)
     text = path.read_text()
     assert path.name.startswith("larkfield-") and "Second floor office, west facade" in text
     assert "<h2>Summary</h2>" in text

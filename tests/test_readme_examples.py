@@ -97,3 +97,32 @@ def test_group_snippets(tmp_path):
     config = _load(tmp_path, postgres)
     assert config.group is not None and config.group.store.kind == "postgres"
     assert config.group.store.table_schema == "thermowarden"
+
+
+def test_the_readmes_commands_work_without_activating_the_environment():
+    """Every command of the README that runs this checkout's programs names them through
+    ``.venv/bin/`` (nothing to activate), the first-run and test times are given as
+    measured figures, and the check command runs as written (``.venv/bin/`` standing for
+    the folder of the interpreter running this test)."""
+    import pathlib
+    import subprocess
+    import sys
+
+    text = (REPO / "README.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"```sh\n(.*?)```", text, flags=re.S)
+    checkout = [ln for b in blocks for ln in b.splitlines()
+                if re.search(r"\b(deploy|simulated_feeds)/", ln) or "pip install -e" in ln]
+    assert checkout
+    for line in checkout:
+        for cmd in re.split(r"\s*&&\s*", line.strip()):
+            assert cmd.startswith((".venv/bin/", "python3 -m venv ")), line
+    intro = text.split("\n---\n", 1)[0]
+    # measured, with the machine they were measured on
+    assert re.search(r"`\.ci/run` took \d+ minutes", intro)
+    assert re.search(r"compil\w+ the comfort models[^.]*\d+ s\s+measured", intro, flags=re.S)
+    assert re.search(r"demo's day[^.]*measured[^.]*took\s+\d+ min \d+ s", intro, flags=re.S)
+    check = next(ln for ln in checkout if " check " in ln).strip()
+    bindir = pathlib.Path(sys.executable).parent
+    argv = [str(bindir / check.split()[0].removeprefix(".venv/bin/")), *check.split()[1:]]
+    r = subprocess.run(argv, cwd=REPO, capture_output=True, text=True, timeout=600)
+    assert r.returncode == 0 and ": valid (5 spaces" in r.stderr, r.stderr[-2000:]

@@ -28,6 +28,8 @@ def sample(config, t: float, hot: set[str]) -> dict:
             "en_lower": [None] * n, "en_upper": [None] * n, "band_lower": [20.0] * n,
             "band_upper": [26.0] * n,
             "wbgt": [29.0 if i == "yard-dock" else None for i in ids],
+            "wbgt_60min": [29.0 if i == "yard-dock" else None for i in ids],
+            "wbgt_spot": [29.0 if i == "yard-dock" else None for i in ids],
             "ref_unacclimatised": [27.5 if i == "yard-dock" else None for i in ids],
             "ref_acclimatised": [30.5 if i == "yard-dock" else None for i in ids],
             "heat_index": [None] * n, "utci": [None] * n, "occupied": [True] * n}

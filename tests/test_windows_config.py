@@ -90,3 +90,20 @@ def test_bad_windows_are_refused_with_position(tmp_path: pathlib.Path, change: s
     p = write(tmp_path, SITE.replace(change, line))
     (msg,) = issues(p)
     assert msg.startswith(f"{p}:") and "spaces.0.windows.0" in msg and expected in msg
+
+
+def test_check_warns_of_windows_no_rule_reads(tmp_path: pathlib.Path) -> None:
+    """Windows serve only the sun-on-the-facade advice (pack ahead): a space that declares
+    them without that pack gets a warning from check, with what to do."""
+    from thermowarden.site_check import check_site
+
+    report = check_site(str(write(tmp_path, SITE)))  # default packs: no ahead
+    assert report.ok, [str(i) for i in report.issues]
+    (w,) = [w for w in report.warnings if "windows" in w]
+    assert w.startswith("space room-1: declares windows, but none of its rule packs")
+    assert "add ahead to its rule_packs" in w
+    with_ahead = SITE.replace("    windows:", "    rule_packs: [comfort, ahead]\n    windows:")
+    report = check_site(str(write(tmp_path, with_ahead)))
+    assert report.ok and not [w for w in report.warnings if "declares windows" in w]
+    example = check_site(str(REPO / "deploy" / "example-site.yaml"))
+    assert not [w for w in example.warnings if "declares windows" in w]

@@ -471,11 +471,29 @@ def cmd_report(args: argparse.Namespace) -> int:
     import pathlib
 
     from thermowarden.replay import FeedError, read_feed, replay
-    from thermowarden.shell.report import build_report, render_html, stored_events, stored_samples
+    from thermowarden.shell.report import (
+        ReportFileError,
+        RuleFacts,
+        ahead_figures,
+        build_report,
+        last_stored_time,
+        render_html,
+        report_destination,
+        rule_facts,
+        stored_events,
+        stored_samples,
+        write_report_file,
+    )
 
     config = _load_or_report(args.config)
     if config is None:
         return 1
+    try:  # before the work: a file that would be written over is refused at once
+        out, note = report_destination(args.output,
+                                       pathlib.Path(f"{config.site.id}-report.html"))
+    except ReportFileError as exc:
+        print(f"thermowarden report: {exc}", file=sys.stderr)
+        return 2
     _prepare_models()
     if args.feed:
         opener = gzip.open if args.feed.endswith(".gz") else open
@@ -489,6 +507,7 @@ def cmd_report(args: argparse.Namespace) -> int:
         # every event the engine raised, also those held back under a flood summary
         samples: Iterable[dict[str, Any]] = result.samples
         events = result.raised_events
+        rules = RuleFacts(result.titles, result.foresees)
         start = args.start if args.start is not None else result.start
         end = args.end if args.end is not None else result.end + 1
     else:
@@ -499,14 +518,23 @@ def cmd_report(args: argparse.Namespace) -> int:
             print(f"thermowarden report: no store at {path} (give --state-dir or --feed)",
                   file=sys.stderr)
             return 2
-        if args.start is None or args.end is None:
-            print("thermowarden report: --from and --to are needed with a store",
-                  file=sys.stderr)
-            return 2
         Store(path).close()  # a store this version can read (checked and migrated)
-        samples = stored_samples(path, args.start, args.end)
-        events = stored_events(path, args.start - 7 * 86_400, args.end)
         start, end = args.start, args.end
+        if end is None:  # the last day of data (or the day from --from)
+            if start is not None:
+                end = start + 86_400.0
+            else:
+                last = last_stored_time(path)
+                if last is None:
+                    print(f"thermowarden report: the store {path} holds no data yet",
+                          file=sys.stderr)
+                    return 2
+                end = last + 1.0
+        if start is None:
+            start = end - 86_400.0
+        samples = stored_samples(path, start, end)
+        events = stored_events(path, start - 7 * 86_400, end)
+        rules = rule_facts(config, args.config)
     if end <= start:
         print("thermowarden report: --to must be after --from", file=sys.stderr)
         return 2
@@ -523,9 +551,16 @@ def cmd_report(args: argparse.Namespace) -> int:
                  if any(s.building == args.building for s in config.spaces)
                  else config.level_name("area", None, args.building))
     html_text = render_html(config, build_report(config, samples, events, start, end,
-                                                 only=only), start, end, scope=scope)
-    out = args.output or f"{config.site.id}-report.html"
-    pathlib.Path(out).write_text(html_text, encoding="utf-8")
+                                                 only=only, titles=rules.titles),
+                            start, end, scope=scope, rules=rules,
+                            ahead=ahead_figures(events, rules.foresees, start, end, only=only))
+    try:
+        write_report_file(out, html_text)
+    except (ReportFileError, OSError) as exc:
+        print(f"thermowarden report: {exc}", file=sys.stderr)
+        return 2
+    if note:
+        print(f"thermowarden report: {note}", file=sys.stderr)
     print(f"report written to {out}", file=sys.stderr)
     return 0
 
@@ -706,14 +741,16 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("report", help="an HTML report per site and period")
     p.add_argument("--config", required=True, metavar="SITE", help="site configuration")
     p.add_argument("--from", dest="start", type=_when, metavar="WHEN",
-                   help="start (ISO 8601; UTC unless an offset is given)")
-    p.add_argument("--to", dest="end", type=_when, metavar="WHEN", help="end (ISO 8601)")
+                   help="start (ISO 8601; UTC unless an offset is given; default: a day "
+                   "before --to)")
+    p.add_argument("--to", dest="end", type=_when, metavar="WHEN", help="end (ISO 8601; "
+                   "default: a day after --from, else the end of the stored data)")
     p.add_argument("--feed", metavar="FEED", help="report on a recorded feed instead of the "
                    "service's store")
     p.add_argument("--state-dir", default="state", metavar="DIR",
                    help="the service's state directory (default ./state)")
-    p.add_argument("--output", metavar="FILE", help="HTML file to write "
-                   "(default SITE-report.html)")
+    p.add_argument("--output", metavar="FILE", help="HTML file to write (default "
+                   "SITE-report.html; a file a report did not write is never written over)")
     p.add_argument("--building", metavar="ID", help="only the spaces of this building (or "
                    "area of the site)")
     p.set_defaults(func=cmd_report)

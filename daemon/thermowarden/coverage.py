@@ -32,7 +32,7 @@ import numpy.typing as npt
 from thermowarden.config import SiteConfig
 from thermowarden.config.rule_packs import RuleConfig
 from thermowarden.engine import Engine
-from thermowarden.engine.evaluation import rule_truths
+from thermowarden.engine.rule_truths import rule_truths
 from thermowarden.rules import (
     CompiledPack,
     missing_inputs,

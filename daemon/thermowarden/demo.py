@@ -131,7 +131,8 @@ class DemoView:
         out.write("\x1b[H\x1b[2J" + "\n".join(lines) + "\n")
         out.flush()
 
-    def summary(self) -> str:
+    def summary(self, ahead: list[str] | None = None) -> str:
+        """The summary; ``ahead``: the advice ahead of time in words (:class:`EngineEvents`)."""
         with self.lock:
             raised = Counter(e["advisory"]["audience"] for e in self.events
                              if e["event"] == "raised")
@@ -144,6 +145,11 @@ class DemoView:
             if self.acted:
                 out.append("cleared after people acted on the advice:")
                 out.extend(f"  {a}" for a in self.acted)
+            if ahead:
+                out.append("advice ahead of time (counted as replay --summary counts it):")
+                for sentence in ahead:
+                    out.extend(textwrap.wrap(sentence, self.width - 1, initial_indent="  ",
+                                             subsequent_indent="    "))
             out.append("heat-stress alerts are screening advice: follow local regulations "
                        "and a qualified occupational hygienist.")
         return "\n".join(out)
@@ -158,6 +164,32 @@ class EventCount:
     def observe(self, effects: list[Any]) -> None:
         self.n += sum(1 for e in effects if getattr(e, "topic", "").find("/events/") >= 0
                       and getattr(e, "qos", 0) == 1)
+
+
+class EngineEvents:
+    """Every lifecycle event the engine raised, sent or held back (its stored events, an
+    observer of its effects), one line each, for the advice-ahead-of-time figures."""
+
+    def __init__(self) -> None:
+        self.lines: list[dict[str, Any]] = []
+
+    def observe(self, effects: list[Any]) -> None:
+        from thermowarden.core.event_lines import event_line
+        from thermowarden.effects import Persist
+
+        for e in effects:
+            if isinstance(e, Persist) and e.kind == "event" and e.record \
+                    and e.record.get("event") != "summary" and e.record.get("advisory"):
+                self.lines.append(event_line(e.record))
+
+    def ahead_in_words(self, engine: Any, tz: dt.tzinfo) -> list[str]:
+        """The figures ``replay --summary`` gives per ahead-of-time rule, in words."""
+        from thermowarden.core.ahead_summary import ahead_summary, in_words
+
+        foresees = {rt.rule.key: (f.rule, f.priority) for rt in engine.rules
+                    if (f := rt.rule.config.foresees) is not None}
+        titles = {rt.rule.key: rt.rule.config.title for rt in engine.rules}
+        return in_words(ahead_summary(self.lines, foresees, None), titles, tz)
 
 
 def _by_time(records: list[dict[str, Any]]) -> Iterator[tuple[float, list[dict[str, Any]]]]:
@@ -250,7 +282,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     from thermowarden.shell.clock import Clock
     from thermowarden.shell.embedded_broker import EmbeddedBroker
     from thermowarden.shell.mqtt_link import parse_url, release_sockets
-    from thermowarden.simulated_feeds.larkfield import larkfield_day
+    from thermowarden.simulated_feeds.larkfield import demo_day
 
     if speed <= 0:
         raise ValueError("--speed must be positive")
@@ -263,7 +295,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         out.write(f"started an embedded MQTT broker on 127.0.0.1:{embedded.port} (MQTT 3.1.1)\n")
     site_path = example_site()
     config = load_site(site_path)
-    records = list(larkfield_day())
+    records = list(demo_day())
     start, end = records[0]["t"], records[-1]["t"]
     state_dir = tempfile.mkdtemp(prefix="thermowarden-demo-")
     # the demo drives the service's clock: every reading is in before the clock moves on,
@@ -314,8 +346,11 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     sensors.connect(host, port, 30)
     sensors.loop_start()
     interrupted = False
+    day_over = False
     sent = EventCount()
     service.observers.append(sent.observe)
+    raised = EngineEvents()
+    service.observers.append(raised.observe)
     try:
         # --duration counts from the start of the simulated day, not from the start-up (a
         # loaded machine may take a while to start the service)
@@ -337,6 +372,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         else:
             driver.step(end)
         dv.wait_for_events(sent, 60.0)
+        day_over = True
         if web_port is not None:
             if not view:
                 shown = _print_new(dv, shown, out)
@@ -352,7 +388,8 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         # wait until its events have reached the watcher before showing the end
         service.request_stop()
         engine_thread.join(30)
-        if not interrupted:
+        if day_over or not interrupted:
+            # (Ctrl-C on the page kept after the day: the summary is still the whole day's)
             dv.wait_for_events(sent, 20.0)
         sensors.loop_stop()
         watcher.loop_stop()
@@ -368,7 +405,7 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
         dv.render(clock.now(), start, end, out)
     else:
         _print_new(dv, shown, out)
-    out.write(dv.summary() + "\n")
+    out.write(dv.summary(raised.ahead_in_words(service.engine, dv.tz)) + "\n")
     if interrupted:
         out.write("interrupted; stopped cleanly\n")
     return 0

@@ -18,8 +18,9 @@ from typing import Any
 
 import numpy as np
 
-from thermowarden.ahead_summary import ahead_summary
 from thermowarden.config import SiteConfig
+from thermowarden.core.ahead_summary import ahead_summary
+from thermowarden.core.event_lines import event_line
 from thermowarden.core.payloads import DecodeError, parse_timestamp
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
@@ -89,37 +90,6 @@ class ReplayResult:
     messages: int = 0
     start: float = math.nan
     end: float = math.nan
-
-
-def local_time(at: str, tz: dt.tzinfo | None) -> str:
-    """An ISO 8601 time (as published, in UTC) in the site's time zone, to the second."""
-    if tz is None:
-        return at
-    when = dt.datetime.fromisoformat(at.replace("Z", "+00:00")).astimezone(tz)
-    return when.isoformat(timespec="seconds")
-
-
-def event_line(payload: dict[str, Any], tz: dt.tzinfo | None = None) -> dict[str, Any]:
-    """The one-line form of an event: when (in the site's time zone when ``tz`` is given),
-    what, where, which rule, who, how urgent, the advice (for a clearing, what it advised)
-    and, for a clearing, the values it cleared at."""
-    at = local_time(payload["at"], tz)
-    if payload["event"] == "summary":
-        return {"at": at, "event": "summary", "space": None, "rule": None,
-                "audience": payload["audience"], "priority": None, "count": payload["count"]}
-    adv = payload["advisory"]
-    line = {"at": at, "event": payload["event"], "space": adv["space"]["id"],
-            "rule": adv["rule"], "audience": adv["audience"], "priority": adv["priority"],
-            "advisory_id": adv["id"], "title": adv["title"], "advice": adv["advice"]}
-    if payload["event"] == "cleared":
-        history = adv.get("history") or []
-        if history and history[-1].get("values") is not None:
-            line["values"] = history[-1]["values"]  # why it cleared (the advice: why raised)
-        if history and history[-1].get("turned_into"):
-            line["turned_into"] = history[-1]["turned_into"]  # an ahead-of-time advisory
-    if adv.get("acted_on"):
-        line["acted_on"] = adv["acted_on"]
-    return line
 
 
 LIFECYCLE_SETTINGS = ("on_delay_s", "off_delay_s", "renotify_s")
@@ -258,7 +228,6 @@ ORDER = ("low", "medium", "high", "urgent")
 
 
 def _ts(s: str) -> float:
-    import datetime as dt
 
     return dt.datetime.fromisoformat(s.replace("Z", "+00:00")).timestamp()
 
@@ -274,7 +243,7 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
     advice given, followed (and how soon), helped (cleared within the rule's expected
     time), and the realised change of the target quantity against the predicted one.
     ``ahead_of_time``: per ahead-of-time rule, the crossings it foresaw and missed and its
-    lead times (:mod:`thermowarden.ahead_summary`).
+    lead times (:mod:`thermowarden.core.ahead_summary`).
     """
     engine_events = [event_line(x) if "schema" in x else x
                      for x in result.raised_events] or [
@@ -383,7 +352,7 @@ def summarise(result: ReplayResult) -> dict[str, Any]:
             "notifications_by_audience": {a: v["notifications"] for a, v in audiences.items()},
             "audiences": audiences, "standing": standing[:5],
             "effectiveness": effectiveness,
-            "ahead_of_time": ahead_summary(engine_events, result.foresees, end)}
+            "ahead_of_time": ahead_summary(engine_events, result.foresees, None)}
 
 
 RULE_FIGURES = ("raised", "cleared", "still_active", "max_active_min")

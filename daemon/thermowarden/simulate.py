@@ -19,6 +19,9 @@ from typing import Any, TextIO
 SCENARIOS: dict[str, str] = {
     "larkfield-day": "one summer day at Larkfield Works (deploy/example-site.yaml): office "
                      "sun and fans, bakery heat, loading yard, studio, sensor faults",
+    "larkfield-demo-day": "the demo's day: larkfield-day, then a night bake in the bakery to "
+                          "23:00 (heat stress foreseen, a forecast withdrawn, a sudden "
+                          "crossing with no warning)",
     "larkfield-heatwave": "several whole days of a building heat wave at Larkfield Works "
                           "(the studio's running mean outdoor temperature moves)",
 }
@@ -27,10 +30,13 @@ _TIME_KEYS = ("ts", "time", "bt")
 
 def scenario_records(name: str, days: int = 3, seed: int | None = None
                      ) -> Iterator[dict[str, Any]]:
-    from thermowarden.simulated_feeds.larkfield import larkfield_day, larkfield_days
+    from thermowarden.simulated_feeds.larkfield import demo_day, larkfield_day, larkfield_days
 
     if name == "larkfield-day":
         records: Iterator[dict[str, Any]] = larkfield_day(seed=seed or 20260714)
+        return records
+    if name == "larkfield-demo-day":
+        records = demo_day(seed=seed or 20260714)
         return records
     if name == "larkfield-heatwave":
         records = larkfield_days(days=days, seed=seed or 20260714)

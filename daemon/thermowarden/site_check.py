@@ -102,6 +102,7 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
                     f"{', '.join(m.removeprefix(MEASURED_MARK) for m in missing)}, which no "
                     f"point provides, so it never runs there: {_remedy(missing)}")
     report.warnings.extend(hot_work_warnings(config, report.model, packs, provided))
+    report.warnings.extend(unused_windows_warnings(config, packs))
     from thermowarden.engine.finishing import unfinishable_rules
 
     if prepare is not None:
@@ -128,8 +129,7 @@ def check_site(path: str, prepare: Callable[[], None] | None = None) -> CheckRep
 def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
     """The web page's users file read exactly as ``run`` reads it: what is wrong, if
     anything (a missing file too)."""
-    from thermowarden.shell.web import users_path
-    from thermowarden.shell.web.users import load_users
+    from thermowarden.shell.web import site_users, users_path
 
     users = users_path(config, path)
     assert users is not None
@@ -138,7 +138,7 @@ def users_file_issues(config: SiteConfig, path: str) -> list[ConfigIssue]:
                             "exist (create it with `thermowarden web-user NAME --audience "
                             f"AUDIENCE --file {users}`)")]
     try:
-        load_users(users)
+        site_users(config, path)
     except ConfigError as exc:
         return list(exc.issues)
     return []
@@ -175,6 +175,26 @@ def hot_work_warnings(config: SiteConfig, model: SiteModel, packs: Mapping[str, 
             out.append(f"space {space.id}: {HOT_WORK_UNWATCHED}: the "
                        f"safety lead will never be alerted for {name}: add "
                        + "; ".join(to_add))
+    return out
+
+
+def unused_windows_warnings(config: SiteConfig, packs: Mapping[str, object]) -> list[str]:
+    """A warning for each space that declares windows but has no rule pack with a rule for
+    spaces with windows (the sun on a facade, pack ``ahead``): its windows are read for
+    nothing."""
+    from thermowarden.rules import CompiledPack
+
+    out = []
+    for space in config.spaces:
+        if not space.windows:
+            continue
+        if any(isinstance(pack := packs.get(name), CompiledPack)
+               and any(r.config.applies_to.windows for r in pack.rules)
+               for name in config.rule_packs(space)):
+            continue
+        out.append(f"space {space.id}: declares windows, but none of its rule packs has a "
+                   "rule for them, so no advice to lower the blinds before the sun reaches "
+                   "them is given: add ahead to its rule_packs, or remove the windows")
     return out
 
 

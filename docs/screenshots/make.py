@@ -15,6 +15,10 @@ minutes; a busy machine takes longer)::
     .venv/bin/python docs/screenshots/make.py
 
 Needs ``apt-get install chromium chromium-driver`` and the ``test`` extra (selenium).
+
+``--page URL --password PASSWORD`` takes the pictures of a demo already started with
+``--web-port`` whose day is over (its password is on its second line), instead of running
+one.
 """
 
 from __future__ import annotations
@@ -126,25 +130,22 @@ def shoot(driver: Any, url: str, name: str, width: int, height: int | None) -> N
 
 
 def main() -> int:
+    import argparse
+
+    ap = argparse.ArgumentParser(description="Screenshots of the web page for the README.")
+    ap.add_argument("--page", metavar="URL", help="a running demo's page (its day over)")
+    ap.add_argument("--password", help="that demo's password for the user demo")
+    args = ap.parse_args()
+    if args.page:
+        if not args.password:
+            ap.error("--page needs --password")
+        shoot_all(args.page.rstrip("/"), args.password)
+        return 0
     port = free_port()
     base = f"http://127.0.0.1:{port}"
     proc, password = start_demo(port)
     try:
-        advisory = acknowledge_one(base, password)
-        phone = browser(2.0)
-        try:
-            shoot(phone, base + "/", "web-overview-phone", *PHONE)
-            shoot(phone, base + "/spaces/office-west", "web-space-phone", *PHONE)
-        finally:
-            phone.quit()
-        desk = browser(1.0)
-        try:
-            shoot(desk, base + "/", "web-overview-desktop", DESKTOP_WIDTH, None)
-            if advisory:
-                shoot(desk, f"{base}/advisories/{advisory}", "web-advisory-desktop",
-                      DESKTOP_WIDTH, None)
-        finally:
-            desk.quit()
+        shoot_all(base, password)
     finally:
         proc.send_signal(signal.SIGINT)
         try:
@@ -152,6 +153,25 @@ def main() -> int:
         except subprocess.TimeoutExpired:
             proc.kill()
     return 0
+
+
+def shoot_all(base: str, password: str) -> None:
+    """Acknowledge one advisory, then take every picture."""
+    advisory = acknowledge_one(base, password)
+    phone = browser(2.0)
+    try:
+        shoot(phone, base + "/", "web-overview-phone", *PHONE)
+        shoot(phone, base + "/spaces/office-west", "web-space-phone", *PHONE)
+    finally:
+        phone.quit()
+    desk = browser(1.0)
+    try:
+        shoot(desk, base + "/", "web-overview-desktop", DESKTOP_WIDTH, None)
+        if advisory:
+            shoot(desk, f"{base}/advisories/{advisory}", "web-advisory-desktop",
+                  DESKTOP_WIDTH, None)
+    finally:
+        desk.quit()
 
 
 if __name__ == "__main__":

@@ -91,6 +91,8 @@ class Sim:
         self.warm_s = 0.0
         self.first: dict[str, dict[str, str]] = {n: {} for n in names}
         self.standby_since: dict[str, dict[str, float]] = {n: {} for n in names}
+        self.evaluating_since: dict[str, dict[str, float]] = {n: {} for n in names}
+        self.slack_s = 0.0
 
     def round(self) -> None:
         self.now += 1.0
@@ -113,15 +115,21 @@ class Sim:
                 if mine.get(sh) != m:
                     mine[sh] = m
                     since[sh] = self.now
+            evaluating = self.evaluating_since.setdefault(me, {})
             p = plan(View(me, frozenset(self.live), self.shards, seen, self.now, dict(fs),
-                          self.live_since, dict(last), dict(since)),
+                          self.live_since, dict(last), dict(since), dict(evaluating)),
                      replicas=self.replicas, grace_s=1.0, settle_s=self.settle_s,
-                     warm_s=self.warm_s)
+                     warm_s=self.warm_s, slack_s=self.slack_s)
             self.plans[me] = p
             for s in p.release:
                 del self.store.holders[s]
             for s in p.take:
                 self.store.take(s, me)
+            for s in self.shards:
+                if self.store.holders.get(s) == me or s in p.standby:
+                    evaluating.setdefault(s, self.now)
+                else:
+                    evaluating.pop(s, None)
 
     def counts(self) -> dict[str, int]:
         out = {m: 0 for m in self.live}
@@ -210,6 +218,33 @@ def test_a_shard_is_handed_over_only_to_a_standby_that_stood_by_for_warm_s() -> 
             assert taker == standby_before[sh]
     assert sim.store.takers and {m for _, m in sim.store.takers} == {"c"}
     assert sim.counts()["c"] >= 4
+
+
+def test_instances_started_a_few_rounds_apart_share_at_once_without_waiting_warm_s() -> None:
+    """The first of a group's instances takes every shard before the others are seen (they
+    started a few rounds later); they stand by for its shards from then on, so their windows
+    are as whole as its own: it hands them their share once the live set has settled,
+    without waiting warm_s (the first instance would otherwise keep the whole site for it).
+    A newcomer that comes later than the slack still waits warm_s."""
+    sim = Sim(["a"], settle_s=3.0)
+    sim.warm_s, sim.slack_s = 600.0, 5.0
+    sim.run()
+    assert sim.counts() == {"a": len(SHARDS)}
+    sim.live |= {"b", "c"}
+    sim.live_since = sim.now
+    rounds = sim.run()
+    assert rounds < 60 and max(sim.counts().values()) <= share(len(SHARDS), 3)
+    for _, m in sim.store.takers[len(SHARDS):]:
+        assert m in ("b", "c")
+    # a fourth instance long after: nothing moves to it within warm_s
+    for _ in range(20):
+        sim.round()
+    sim.live.add("d")
+    sim.live_since = sim.now
+    before = len(sim.store.takers)
+    for _ in range(30):
+        sim.round()
+    assert len(sim.store.takers) == before, "handed over to a standby that was not warm"
 
 
 @settings(max_examples=30, deadline=None)

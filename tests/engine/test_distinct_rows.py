@@ -13,7 +13,7 @@ import pytest
 from thermowarden.config import load_site
 from thermowarden.core.indices import SpaceInputs, compute_indices
 from thermowarden.engine import Engine
-from thermowarden.engine.evaluation import compute_distinct, take_inputs
+from thermowarden.engine.index_rows import compute_distinct, take_inputs
 from thermowarden.rules import load_rule_packs
 from thermowarden.site_model import build_site_model
 

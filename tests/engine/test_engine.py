@@ -515,7 +515,7 @@ def test_a_level_that_relapses_waits_longer_before_it_is_lowered_again(lab):
     (RELAPSE_HOLD_S) instead of going down and up every few minutes; the escalation is
     immediate every time (alarm-management practice: a level that comes and goes several
     times an hour is chattering)."""
-    from thermowarden.engine.advisories import RELAPSE_HOLD_S
+    from thermowarden.engine.rule_runtime import RELAPSE_HOLD_S
 
     lv = "testpack.levels"
     run(lab, 0, 20, **{"room-2": 36})  # high

@@ -13,7 +13,7 @@ from tests.engine.test_engine import command, events, run
 from thermowarden.config import load_site
 from thermowarden.effects import Persist, Publish
 from thermowarden.engine import Engine
-from thermowarden.engine.evaluation import COMPUTATION_FAILED
+from thermowarden.engine.index_rows import COMPUTATION_FAILED
 from thermowarden.rules import load_rule_packs
 from thermowarden.site_model import build_site_model
 
@@ -58,6 +58,7 @@ def test_a_failing_computation_stays_in_its_space(tmp_path, monkeypatch):
     # pythermalcomfort 4.8's ISO 7933 PHS did for a posture it did not know); the two
     # others must go on. The posture itself is now mapped, so the fault is injected.
     import thermowarden.engine.evaluation as evaluation
+    import thermowarden.engine.index_rows as index_rows
 
     real = evaluation.compute_indices
 
@@ -67,6 +68,7 @@ def test_a_failing_computation_stays_in_its_space(tmp_path, monkeypatch):
         return real(inputs, with_phs=with_phs)
 
     monkeypatch.setattr(evaluation, "compute_indices", failing)
+    monkeypatch.setattr(index_rows, "compute_indices", failing)  # distinct rows
     engine = foundry(tmp_path, ["standing", "crouching", "standing"])
     effects = []
     for t in range(0, 700, 60):
@@ -98,6 +100,7 @@ def test_a_failing_computation_stays_in_its_space_and_ticks_in_a_batch(tmp_path,
     # 41 °C (minutes 5 to 9). Evaluated one tick at a time and as one batch of ticks (as
     # replay does), only bay-1 fails, only at those ticks, and both give the same events.
     import thermowarden.engine.evaluation as evaluation
+    import thermowarden.engine.index_rows as index_rows
 
     real = evaluation.compute_indices
 
@@ -107,6 +110,7 @@ def test_a_failing_computation_stays_in_its_space_and_ticks_in_a_batch(tmp_path,
         return real(inputs, with_phs=with_phs)
 
     monkeypatch.setattr(evaluation, "compute_indices", failing)
+    monkeypatch.setattr(index_rows, "compute_indices", failing)  # distinct rows
 
     def feed(engine, t):
         hot_bays(engine, t, 3)

@@ -103,7 +103,7 @@ def test_seq_goes_on_after_a_restart_from_the_store(tmp_path):
     for p in _records(effects):
         last[p["id"]] = max(p["seq"], last.get(p["id"], 0))
     again = lab_engine(tmp_path / "again", site_text=AREAS)
-    assert again.advisories.restore(list(rows.values())) == []
+    assert again.restore(list(rows.values())) == []
     later = run(again, 1510, 2500, **{"room-1": 38})
     first: dict[str, int] = {}
     for p in _records(later):

@@ -85,7 +85,7 @@ def test_a_300_space_flood_stays_within_10_notifications_in_any_10_minutes(tmp_p
     # held for the next update
     individual = [p for p, _ in sent if p["event"] != "summary"]
     listed = sum(s["count"] for s in summaries)
-    pending = len(engine.advisories.suppressed["facilities"])
+    pending = len(engine.advisories.floods.suppressed["facilities"])
     assert len(individual) + listed + pending == len(stored)
     assert summaries[-1]["flood"]["held_total"] == listed
     # the flood is told at once (a place in the window is kept for it), then updated

@@ -187,12 +187,20 @@ def _feed() -> list[tuple[str, bytes, float, bool]]:
     topics = ["larkfield/office-west/air/temperature", "larkfield/office-west/air/humidity",
               "larkfield/studio-north/globe", "larkfield/bakery-floor/air/ankle",
               "larkfield/office-west/anemometer", "larkfield/nowhere/air/temperature",
-              "larkfield/office-west/unknown"]
+              "larkfield/office-west/unknown", "larkfield/office-west/blinds",
+              "larkfield/office-west/fans"]
+    # states: configured words, on/off words, booleans, numbers, JSON, and words refused
+    states = [b"down", b"half", b"up", b" up ", b"on", b"OFF", b"true", b"1", b"0", b"50",
+              b"nan", b"maybe", b'"on"', b"{bad", b'{"v": 1}', b"", b"\xff", b"Down", b"150"]
     feed = []
     t = NOW
-    for k in range(3000):
+    for k in range(4000):
         topic = topics[k % len(topics)]
-        payload = odd[k % len(odd)] if k % 3 == 0 else f"{18 + (k * 7) % 130 / 10:.1f}".encode()
+        if topic.endswith(("blinds", "fans")):
+            payload = states[(k // len(topics)) % len(states)]
+        else:
+            payload = (odd[k % len(odd)] if k % 3 == 0
+                       else f"{18 + (k * 7) % 130 / 10:.1f}".encode())
         t += 1.0
         # sometimes back in time (out of order), sometimes retained
         feed.append((topic, payload, t - 100 if k % 50 == 0 else t, k % 97 == 0))
@@ -229,6 +237,8 @@ def test_many_messages_at_once_as_one_by_one():
     assert many.rejected == one.rejected
     assert many.accepted_by_quantity == one.accepted_by_quantity
     assert many.missed_by_quantity == one.missed_by_quantity
-    for name in ("last_value", "last_time", "last_source_time", "ring_t", "ring_v",
-                 "ring_head"):
+    for name in ("last_value", "last_time", "last_source_time"):
         np.testing.assert_array_equal(getattr(many_state, name), getattr(one_state, name))
+    for name in ("t", "v", "head"):
+        np.testing.assert_array_equal(getattr(many_state.rings, name),
+                                      getattr(one_state.rings, name))

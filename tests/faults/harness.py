@@ -224,8 +224,12 @@ class Instance:
                                         timeout=2) as r:
                 return r.status, r.read().decode()
         except urllib.error.HTTPError as exc:
-            with exc:
-                return exc.code, exc.read().decode()
+            with exc:  # closes its connection now, not whenever the collector runs
+                try:
+                    body = exc.read().decode()
+                except OSError:  # the body timed out on a loaded machine
+                    body = ""
+                return exc.code, body
         except OSError:
             return 0, ""
 
@@ -475,6 +479,9 @@ class Scenario:
     timing: Timing
     commands: list[Command] = field(default_factory=list)
     fault_started: float = 0.0
+    fault_started_wall: float | None = None
+    """The fault's start by the test machine's wall clock (the instances' clock): a
+    window ``rebuilding_since`` then or later was thrown away at a takeover."""
     fault_ended: float = 0.0
     observe_from: float = 0.0
     observe_to: float = 0.0

@@ -288,16 +288,15 @@ def check_forward(obs: Observed, rep: Report) -> None:
 
 def check_commands(obs: Observed, sc: Scenario, rep: Report) -> None:
     """Every acknowledgement and shelving answered ok (or not answered) is kept in the
-    advisory's history as the last records show it."""
+    advisory's history at the end, as a consumer keeps it (:func:`_accepted_advisories`:
+    the record or event of the highest ``(epoch, seq)``, none of a stale epoch): a command
+    taken only by a holder whose epoch was already superseded is lost, even if that
+    holder's record had it."""
     replies = {d.get("request_id"): d for _, d in obs.replies}
     latest: dict[str, dict[str, Any]] = {}
-    for _, _, d in obs.advisory_events():
-        latest[d["advisory"]["id"]] = d["advisory"]
-    for _, _, d, _ in obs.advisories:
+    for _, _, d in _accepted_advisories(obs, Report()):
         if d is not None:
-            a = latest.get(d["id"])
-            if a is None or len(d.get("history", [])) >= len(a.get("history", [])):
-                latest[d["id"]] = d
+            latest[d["id"]] = d
     kept = 0
     for c in sc.commands:
         reply = replies.get(c.request_id)
@@ -365,15 +364,27 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
 
     (A window that was not whole before the fault, in a run shorter than the window, cannot
     be whole after it: whether a standby flags it as rebuilt then depends only on whether
-    it began standing by in the second after its holder began, or the one before.)"""
+    it began standing by in the second after its holder began, or the one before.)
+
+    In every run, also one shorter than the window: no conditions record after the fault
+    says its window is being rebuilt since the fault began or later
+    (``windows.wbgt_60min.rebuilding_since`` at or after ``fault_started_wall``, to the
+    second): the instance that took the space over threw away, or never had, the readings
+    a warm standby keeps."""
     before: dict[str, bool] = {}
     partial_before: dict[str, bool] = {}
     after_first: dict[str, bool] = {}
     partial: set[str] = set()
+    cold: dict[str, str] = {}
     for t, space, d in obs.conditions:
         twa = (d.get("indices") or {}).get("wbgt_time_weighted") or {}
         present = twa.get("value") is not None
-        is_partial = bool(((d.get("windows") or {}).get("wbgt_60min") or {}).get("partial"))
+        window = (d.get("windows") or {}).get("wbgt_60min") or {}
+        is_partial = bool(window.get("partial"))
+        since = window.get("rebuilding_since")
+        if t >= sc.fault_started and sc.fault_started_wall is not None and \
+                isinstance(since, str) and _ts(since) >= int(sc.fault_started_wall):
+            cold.setdefault(space, since)
         if t < sc.fault_started:
             before[space] = present
             partial_before[space] = is_partial
@@ -385,6 +396,11 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
     partial -= sc.whole_exempt
     for s in sorted(partial):
         rep.add("whole", f"{s}: the 60-minute WBGT was rebuilt after the fault (partial)")
+    for s, since in sorted(cold.items()):
+        if s not in sc.whole_exempt:
+            rep.add("whole", f"{s}: its 60-minute WBGT window restarted at {since}, after "
+                             f"the fault began (a takeover by an instance that was not "
+                             f"standing by)")
     lost = [s for s, p in before.items()
             if p and after_first.get(s) is False and s not in sc.whole_exempt]
     for s in lost:
@@ -392,6 +408,7 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
                          f"absent after it")
     rep.figures["twa_present_before"] = sum(before.values())
     rep.figures["partial_after"] = len(partial)
+    rep.figures["windows_restarted_after_fault"] = len(set(cold) - sc.whole_exempt)
     rep.figures["whole_exempt"] = len(sc.whole_exempt)
 
 

@@ -90,6 +90,7 @@ def run_fault(tmp_path, store: str | None, fault: Fault, *, victim: str = "b",
             run.warm_window(hot)
         run.command("acknowledge", ids[hot[0]], during_fault=False)
         run.scenario.fault_started = time.monotonic()
+        run.scenario.fault_started_wall = time.time()
         fault.begin(run, victim)
         run.escalate(hot[1:])
         hold(fault.hold_s / 2)
@@ -110,6 +111,8 @@ def run_fault(tmp_path, store: str | None, fault: Fault, *, victim: str = "b",
         print(f"\n{fault.name} ({store or 'main group'}): {rep.summary()}")
         assert t_urgent is not None, "the alerts never became urgent after the fault"
         assert not rep.failed(), rep.summary()
+        if warm:  # the window check had whole windows to keep
+            assert rep.figures["twa_present_before"] >= len(hot), rep.summary()
     finally:
         run.close()
 
@@ -151,6 +154,7 @@ def scale_out_and_in(tmp_path, warm: bool) -> None:
             run.warm_window(hot)
         run.command("acknowledge", ids[hot[0]], during_fault=False)
         run.scenario.fault_started = time.monotonic()
+        run.scenario.fault_started_wall = time.time()
         if warm:
             # c takes its share only once it has stood by for the window (not after the
             # 20 s the rebalance time alone would allow)
@@ -179,6 +183,8 @@ def scale_out_and_in(tmp_path, warm: bool) -> None:
         print(f"\nscale out and in ({'whole window' if warm else 'quick'}): "
               f"{rep.summary()}")
         assert not rep.failed(), rep.summary()
+        if warm:  # the window check had whole windows to keep
+            assert rep.figures["twa_present_before"] >= len(hot), rep.summary()
     finally:
         run.close()
 

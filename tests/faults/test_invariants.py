@@ -30,11 +30,14 @@ def event(epoch: int, n: int, kind: str, advisory: dict, shard: str = "b3") -> d
             "event_id": f"f1.{shard}.{epoch}.{advisory['id']}.{n}", "advisory": advisory}
 
 
-def cond(space: str, epoch: int, *, partial: bool = False, twa: float | None = 27.0) -> dict:
+def cond(space: str, epoch: int, *, partial: bool = False, twa: float | None = 27.0,
+         since: str | None = None) -> dict:
     d = {"schema": "thermowarden.conditions/1", "space": {"id": space}, "shard": "b3",
          "epoch": epoch, "indices": {"wbgt_time_weighted": {"value": twa}}}
     if partial:
         d["windows"] = {"wbgt_60min": {"partial": True}}
+    if since is not None:
+        d["windows"] = {"wbgt_60min": {"partial": twa is None, "rebuilding_since": since}}
     return d
 
 
@@ -173,6 +176,18 @@ def test_a_lost_acknowledgement_is_caught():
     assert rep.figures["commands_kept"] == 1
 
 
+def test_an_acknowledgement_only_a_superseded_holder_kept_is_caught():
+    """The old holder (epoch 1) took the acknowledgement after the new one (epoch 2) took
+    over; its record is longer than the new holder's, but a consumer drops it as stale."""
+    cmd = Command("acknowledge", "s001.heat_stress.wbgt.1", "fault-ack-1", "r1", 55.0, True)
+    stale = adv(1, ["raised", "escalated", "escalated", "acknowledged", "renotified"],
+                "urgent", by={3: "fault-ack-1"})
+    msgs = clean() + [msg(61.0, ADV, stale, True)]
+    rep = check_all(sorted(msgs, key=lambda m: m.t), scenario(commands=[cmd]))
+    assert any("not in its history" in v for v in rep.failed()["commands"]), rep.summary()
+    assert rep.figures["stale_advisory_records_dropped"] == 1
+
+
 def test_a_space_left_unevaluated_is_caught():
     msgs = [m for m in clean() if not (40.0 < m.t < 75.0 and m.topic.endswith("conditions"))]
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
@@ -207,3 +222,27 @@ def test_a_window_not_whole_before_the_fault_is_not_asked_to_be_whole_after():
                  cond("s001", 2, partial=True, twa=None)) for k in range(6)]
     rep = check_all(sorted(msgs, key=lambda m: m.t), scenario())
     assert "whole" not in rep.failed(), rep.summary()
+
+
+FAULT_WALL = 1796410800.0
+"""2026-12-04T19:00:00Z, the fault's start by the wall clock in these sequences."""
+
+
+def test_a_window_restarted_at_the_takeover_is_caught_in_a_short_run():
+    """A run shorter than the window: the window was not whole before the fault, but the
+    instance that took over started its window after the fault began (it was not standing
+    by): caught. One rebuilding since the group's start, before the fault, is not."""
+    msgs = [m for m in clean() if not m.topic.endswith("conditions")]
+    msgs += conditions_every(10.0, until=40.0, twa=None, since="2026-12-04T18:59:10Z")
+    early = msgs + [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                        cond("s001", 2, twa=None, since="2026-12-04T18:59:10Z"))
+                    for k in range(6)]
+    rep = check_all(sorted(early, key=lambda m: m.t), scenario(fault_started_wall=FAULT_WALL))
+    assert "whole" not in rep.failed(), rep.summary()
+    late = msgs + [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                       cond("s001", 2, twa=None, since="2026-12-04T19:00:15Z"))
+                   for k in range(6)]
+    rep = check_all(sorted(late, key=lambda m: m.t), scenario(fault_started_wall=FAULT_WALL))
+    assert any("restarted at 2026-12-04T19:00:15Z" in v for v in rep.failed()["whole"]), \
+        rep.summary()
+    assert rep.figures["windows_restarted_after_fault"] == 1

@@ -303,7 +303,11 @@ class ServiceProcess:
                 return r.status, r.read().decode()
         except urllib.error.HTTPError as exc:
             with exc:  # closes its connection now, not whenever the collector runs
-                return exc.code, exc.read().decode()
+                try:
+                    body = exc.read().decode()
+                except OSError:  # the body timed out on a loaded machine
+                    body = ""
+                return exc.code, body
         except OSError:
             return 0, ""
 

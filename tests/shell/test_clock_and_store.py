@@ -94,7 +94,7 @@ def test_clock_steps_forward_and_back(tmp_path, system_broker_port):
         reading(True, 23.0)
         reading(False, 23.5)
         wait_for(lambda: accepted(m) >= 3, 15, "readings after the step")
-        digest = next(j for j in service.calendar if j.name == "digest")
+        digest = next(j for j in service.scheduled.calendar if j.name == "digest")
         assert digest.due > clock.now() + 22 * 3600  # tomorrow's
         # back two hours: evaluations go on, readings are taken, the digest does not run again
         evaluations = sample(m, "thermowarden_evaluation_seconds_count")

@@ -108,7 +108,7 @@ def test_shelving_and_conditions_through_a_clock_step(tmp_path, system_broker_po
         ok, parts = service.ready()
         assert ok and parts["conditions"], parts
         # /readyz: not ready while no conditions go out (as if none had for ten minutes)
-        service.last_conditions_sent -= 600.0
+        service.outbox.last_conditions_sent -= 600.0
         ok, parts = service.ready()
         assert not ok and parts["conditions"] is False, parts
         wait_for(lambda: service.ready()[0], SLOW, "ready again with the next conditions")

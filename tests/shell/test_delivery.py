@@ -24,11 +24,11 @@ from tests.shell.delivery_parts import (
 )
 from thermowarden.config import DeliveryConfig
 from thermowarden.effects import Publish
-from thermowarden.shell.delivery import (
+from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.delivery_channels import (
     DELIVERY_HEADER,
     SIGNATURE_HEADER,
     TIMESTAMP_HEADER,
-    Delivery,
     render_text,
 )
 
@@ -346,3 +346,25 @@ def test_an_email_of_a_clearing_told_with_its_own_numbers_says_so(tmp_path):
         subject.endswith("cleared: Cleared in room-2 at 31.0 °C")
     assert "Now: Cleared at 31.0 °C." in text
     assert "Why it was raised" not in text and "It advised" not in text
+
+
+def test_signature_matches_the_standard_webhooks_test_vector():
+    """The signature of the Standard Webhooks specification's own example: secret
+    ``whsec_MfKQ9r8GKYqrTwjUPD8ILPZIo2LaLaSw``, id ``msg_p5jXN8AQM9LWM0D4loKWxJek``,
+    timestamp 1614265330 and body ``{"test": 2432232314}`` sign as
+    ``v1,g0hM9SsE+OTPJTGt/tmIKtSyZlE3uFJELVlNIOLJ1OE=`` (the test vector of the
+    specification's reference library, standard-webhooks/standard-webhooks,
+    libraries/python/tests/test_webhooks.py, test_sign_function)."""
+    import base64
+    import hashlib
+    import hmac
+
+    from thermowarden.shell.delivery_channels import sign
+
+    body = b'{"test": 2432232314}'
+    assert sign("whsec_MfKQ9r8GKYqrTwjUPD8ILPZIo2LaLaSw", "msg_p5jXN8AQM9LWM0D4loKWxJek",
+                1614265330, body) == "v1,g0hM9SsE+OTPJTGt/tmIKtSyZlE3uFJELVlNIOLJ1OE="
+    # a secret without the whsec_ prefix is its UTF-8 bytes (README, Delivery): the same
+    # construction by hand, HMAC-SHA256 of "<id>.<timestamp>.<body>", base64, "v1," before
+    mac = hmac.new(SECRET.encode(), b"msg_1.1614265330." + body, hashlib.sha256).digest()
+    assert sign(SECRET, "msg_1", 1614265330, body) == "v1," + base64.b64encode(mac).decode()

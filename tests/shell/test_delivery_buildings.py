@@ -24,7 +24,8 @@ from tests.shell.delivery_parts import (
 )
 from tests.shell.test_delivery import SECRET, local
 from thermowarden.config import ConfigError, DeliveryConfig, load_site
-from thermowarden.shell.delivery import Delivery, render_text
+from thermowarden.shell.delivery import Delivery
+from thermowarden.shell.delivery_channels import render_text
 
 PAGE = "https://comfort.works.invalid"
 PLACES = {"kiln-hall": ("works", "Works · Ground floor"), "yard": ("yard", "Yard")}

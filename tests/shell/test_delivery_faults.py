@@ -23,7 +23,7 @@ from tests.shell.conftest import (
     write_site,
 )
 from tests.shell.delivery_parts import Receiver, SmtpSink
-from thermowarden.shell.delivery import DELIVERY_HEADER
+from thermowarden.shell.delivery_channels import DELIVERY_HEADER
 
 pytestmark = pytest.mark.broker
 

@@ -93,6 +93,10 @@ def test_containerfile_context_builds_the_package(tmp_path):
                    "thermowarden/shell/service.py",
                    "thermowarden/engine/advisories.py"):
         assert needed in names, needed
+    # every package of the source tree ships (pyproject lists them one by one)
+    for init in sorted((REPO / "daemon").rglob("__init__.py")):
+        module = init.relative_to(REPO / "daemon").as_posix()
+        assert module in names, f"{module} is not in the wheel (pyproject packages)"
     assert "/readyz" in re.search(r"^HEALTHCHECK .*$", text, re.M).group(0)
 
 

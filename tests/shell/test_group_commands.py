@@ -12,7 +12,7 @@ import uuid
 from tests.shell.conftest import free_port, write_site
 from tests.shell.lease_parts import PG_DSN, drop_schema, need_postgres
 from thermowarden.shell.bootstrap import bootstrap
-from thermowarden.shell.group import Round
+from thermowarden.shell.lease_keeper import Round
 from thermowarden.shell.leases import Lease
 from thermowarden.shell.mqtt_link import Incoming
 

@@ -11,7 +11,7 @@ import uuid
 import pytest
 
 from tests.shell.conftest import SLOW, Collector, clear_retained, wait_for, write_site
-from thermowarden.shell import service as service_module
+from thermowarden.shell import intake_counts
 from thermowarden.shell.bootstrap import bootstrap
 from thermowarden.shell.logs import IntervalLog
 
@@ -52,7 +52,7 @@ def test_interval_log_one_line_per_key_per_interval():
 def test_service_logs_a_flood_of_bad_payloads_once(tmp_path, system_broker_port, caplog,
                                                     monkeypatch):
     port = system_broker_port
-    monkeypatch.setattr(service_module, "REJECTION_LOG_INTERVAL_S", 3.0)
+    monkeypatch.setattr(intake_counts, "REJECTION_LOG_INTERVAL_S", 3.0)
     prefix = f"twrej-{uuid.uuid4().hex[:6]}"
     site = write_site(tmp_path, prefix, port, ["room-a", "room-b"])
     running = bootstrap(str(site), state_dir=str(tmp_path / "state"))

@@ -103,7 +103,7 @@ def test_daily_report_leaves_the_tick_interval_alone(tmp_path, system_broker_por
         evaluate()
 
     service.evaluate = timed  # type: ignore[method-assign]
-    real_report = service.daily_report
+    real_report = service.scheduled.daily_report
 
     def report_that_takes_a_while(*args, **kwargs):
         """The real report, then the report thread holds until the engine ticked four more
@@ -116,18 +116,18 @@ def test_daily_report_leaves_the_tick_interval_alone(tmp_path, system_broker_por
             time.sleep(0.05)
         return path
 
-    service.daily_report = report_that_takes_a_while  # type: ignore[method-assign]
+    service.scheduled.daily_report = report_that_takes_a_while  # type: ignore[method-assign]
     engine = threading.Thread(target=service.run, name="engine", daemon=True)
     engine.start()
     try:
         wait_for(lambda: len(ticks) >= 3, SLOW, "the engine ticking")
         service.jobs.put("report")  # as the calendar does at 06:30
-        wait_for(lambda: service.report_thread is not None, SLOW, "the report to start")
+        wait_for(lambda: service.scheduled.report_thread is not None, SLOW, "the report to start")
         began = time.monotonic()
-        assert service.report_thread is not None
-        service.report_thread.join(300)
+        assert service.scheduled.report_thread is not None
+        service.scheduled.report_thread.join(300)
         ended = time.monotonic()
-        assert not service.report_thread.is_alive()
+        assert not service.scheduled.report_thread.is_alive()
         reports = state / "reports"
         day = (today - dt.timedelta(days=1)).isoformat()
         site_report = reports / f"{site_id}-{day}.html"

@@ -129,7 +129,7 @@ def test_reconnect_wait_ends_as_soon_as_a_broker_answers(tmp_path):
     result: list[bool] = []
     waiter = threading.Thread(target=lambda: result.append(link._wait(60.0, probe=True)))
     waiter.start()
-    assert not link._probe()  # nothing listens yet
+    assert not link.nodes.probe()  # nothing listens yet
     broker = Mosquitto(tmp_path, port=port).start()
     try:
         wait_for(lambda: not waiter.is_alive(), 30, "the wait to end early")

@@ -181,11 +181,8 @@ def test_search_filters_and_pages(big):
     assert len(cards(get(big, "/?priority=extreme&page=abc"))) == PAGE_SIZE
 
 
-HAVE_BROWSER = False
-try:
-    from tests.web.test_browser import HAVE_BROWSER, browser, no_sideways_scroll  # noqa: F401
-except ImportError:  # pragma: no cover - selenium missing
-    pass
+from tests.web.conftest import HAVE_BROWSER  # noqa: E402  (the browser fixture is there too)
+from tests.web.test_browser import no_sideways_scroll  # noqa: E402
 
 
 @pytest.mark.skipif(not HAVE_BROWSER, reason="Debian's chromium and chromium-driver are "

@@ -166,3 +166,14 @@ def test_an_advisory_page_reads_as_words_with_units():
     text = unescape(re.sub(r"<[^>]+>", "\n", body))
     assert problems(text) == []
     assert "34.3%" in text and "1 point" in text and "0.3 m/s" in text
+
+
+def test_a_cards_live_count_has_the_colour_of_its_most_urgent_advisory():
+    from thermowarden.shell.web.live import SpaceInfo
+
+    garden = SpaceInfo("staff-garden", "Staff garden", "outdoor", False, "mechanical", 0)
+    medium = pages.space_card(garden, None, [{"priority": "medium"}, {"priority": "low"}], UTC)
+    assert '<span class="badge medium">2 live</span>' in medium
+    high = pages.space_card(garden, None, [{"priority": "low"}, {"priority": "high"}], UTC)
+    assert '<span class="badge high">2 live</span>' in high
+    assert "live</span>" not in pages.space_card(garden, None, [], UTC)

@@ -161,3 +161,26 @@ def test_nothing_is_cut_off_on_a_phone(browser, web_site: WebSite, path):
             "return document.documentElement.scrollWidth <= window.innerWidth + 1")
     finally:
         browser.set_window_size(1200, 900)
+
+
+@pytest.mark.parametrize(("space", "shown", "left_out"), [
+    # an office: comfort, no WBGT anywhere (ISO 7243 is for people working in the heat)
+    ("office-west", ["PMV, ISO 7730", "Operative temperature and comfort band"],
+     ["WBGT", "UTCI", "applies to indoor spaces"]),
+    # a garden where people sit outdoors: outdoor heat, neither the indoor comfort indices
+    # ("PMV - applies to indoor spaces") nor the WBGT and its references
+    ("staff-garden", ["UTCI, outdoor felt temperature", "Heat index (NWS)"],
+     ["WBGT", "PMV", "Draught rate", "EN 16798-1 adaptive", "applies to indoor spaces",
+      "no reading"]),
+    # a hot-work yard outdoors: the WBGT with its workers' reference, and outdoor heat
+    ("loading-yard", ["WBGT reference (not acclimatised)", "WBGT and its reference values",
+                      "UTCI, outdoor felt temperature"], ["PMV", "applies to indoor spaces"]),
+])
+def test_a_space_page_shows_what_applies_to_its_kind_of_place(browser, web_site: WebSite,
+                                                              space, shown, left_out):
+    browser.get(f"{web_site.base}/spaces/{space}")
+    text = visible(browser)
+    for words in shown:
+        assert words in text, (space, words)
+    for words in left_out:
+        assert words not in text, (space, words, text[:3000])

@@ -13,9 +13,9 @@ import pytest
 
 from thermowarden.config import ConfigError
 from thermowarden.effects import Persist, Publish
-from thermowarden.shell.web.app import BadRequest, parse_time
 from thermowarden.shell.web.live import LiveView
 from thermowarden.shell.web.plots import Band, Chart, Line, render
+from thermowarden.shell.web.requests import BadRequest, parse_time
 from thermowarden.shell.web.users import (
     FAILURES_ALLOWED,
     Sessions,
@@ -171,7 +171,7 @@ def test_time_parameters():
 
 
 def test_openapi_document_ships_and_covers_the_api():
-    from thermowarden.shell.web.app import openapi_document
+    from thermowarden.shell.web.routes.api import openapi_document
 
     doc = openapi_document()
     assert doc["openapi"].startswith("3.")
@@ -321,3 +321,45 @@ def test_run_refuses_a_bad_users_file_with_its_line(tmp_path):
     assert r.returncode == 78  # EX_CONFIG: the unit's RestartPreventExitStatus
     assert "users.yaml:4" in r.stderr and "pasword_hash" in r.stderr
     assert "nothing was started" in r.stderr
+
+
+@pytest.mark.parametrize("users", [
+    # entries without the users: key
+    "  - name: ana\n    audiences: [safety]\n    password_hash: x\n",
+    # a misspelt field
+    "users:\n  - name: ana\n    audiences: [safety]\n    pasword_hash: x\n",
+    # a building the site does not have (the example site has none)
+    "web-user:north",
+    # the same person twice
+    "web-user:twice",
+])
+def test_check_refuses_every_users_file_run_refuses(tmp_path, users):
+    """``check`` and ``run`` read the users file through the same function: whatever makes
+    ``run`` stop with 78 makes ``check`` fail, naming the same problem."""
+    import subprocess
+    import sys
+
+    from thermowarden.site_check import check_site
+
+    site = tmp_path / "site.yaml"
+    site.write_text((REPO / "deploy" / "example-site.yaml").read_text()
+                    + "\nweb: {enabled: true, port: 1, users_file: users.yaml}\n")
+    path = tmp_path / "users.yaml"
+    if users == "web-user:north":
+        assert _web_user("ana", "--audience", "safety", "--building", "north",
+                         "--file", str(path)).returncode == 0
+    elif users == "web-user:twice":
+        assert _web_user("ana", "--audience", "safety", "--file", str(path)).returncode == 0
+        text = path.read_text()
+        path.write_text(text + text.split("users:\n", 1)[1])
+    else:
+        path.write_text(users)
+    report = check_site(str(site))
+    assert not report.ok
+    r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "run", "--config", str(site),
+                        "--state-dir", str(tmp_path / "state")],
+                       capture_output=True, text=True, timeout=120)
+    assert r.returncode == 78, r.stderr[-2000:]
+    for issue in report.issues:
+        said = str(issue).split(": ", 1)[-1]
+        assert said[:40] in r.stderr, (said, r.stderr[-2000:])

@@ -75,7 +75,7 @@ COUNT_NOUNS: Final = (
     "acknowledged", "shelved", "urgent", "high", "medium", "low", "stale", "fresh",
     "missing", "other", "others", "index", "indices", "window", "windows", "fan", "fans",
     "blind", "blinds", "night", "nights", "week", "weeks", "month", "months", "instance",
-    "instances", "shard", "shards", "audience", "audiences",
+    "instances", "shard", "shards", "audience", "audiences", "crossing", "crossings",
 )
 """Words after a whole number that make it a count (``3 spaces``, ``1 live``, ``2 of 5``)."""
 DIMENSIONLESS: Final = ("PMV", "Humidex", "humidex", "Comfort vote", "comfort vote",

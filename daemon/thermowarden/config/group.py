@@ -81,9 +81,11 @@ class GroupConfig(Strict):
     standby_warm_s: float | None = Field(None, ge=0)
     """A held shard is handed over (rebalancing) only to a standby that has stood by for it
     this long; default the site's WBGT window (``ingest.wbgt_window_s``) plus one
-    ``lease_ttl_s``, so its 60-minute WBGT is whole when it takes the shard. Shorter only
-    for a site whose rules use no window. (A standby taking the shard of a holder that died
-    or stopped takes it at once, whatever this is.)"""
+    ``lease_ttl_s``, so its 60-minute WBGT is whole when it takes the shard; or to one that
+    has stood by for it since the holder began to evaluate it (within one ``lease_ttl_s``:
+    its windows are as whole as the holder's). Shorter only for a site whose rules use no
+    window. (A standby taking the shard of a holder that died or stopped takes it at once,
+    whatever this is.)"""
 
     @model_validator(mode="after")
     def _check(self) -> GroupConfig:

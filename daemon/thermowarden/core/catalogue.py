@@ -320,6 +320,18 @@ SPACE_FIELDS: Final[tuple[Index, ...]] = (
 """Fields of the space (its comfort band parameters; whether it counted as occupied) that
 the history keeps beside the indices."""
 
+REPORT_FIELDS: Final[tuple[Index, ...]] = (
+    Index("wbgt_mean_60min", "°C", "WBGT, 60-minute mean with the clothing adjustment",
+          "heat_stress", "wbgt", kept="wbgt_60min", place=HOT_WORK),
+    Index("wbgt_spot_adjusted", "°C", "WBGT, spot value with the clothing adjustment",
+          "heat_stress", "wbgt", kept="wbgt_spot", place=HOT_WORK),
+)
+"""The WBGT the report compares with its references, kept apart from the value the rules
+compared (``wbgt_effective``: the 60-minute mean, else the spot value): the 60-minute mean
+only where it existed (ISO 7243:2017, at least 48 of the last 60 minutes covered) and the
+spot value, both with the clothing adjustment. Written by the engine's report sample;
+samples stored before they were kept give none."""
+
 
 METHODS: Final[tuple[Method, ...]] = (
     Method(
@@ -581,7 +593,7 @@ METHODS: Final[tuple[Method, ...]] = (
 )
 """The README's methods table, row by row."""
 
-EVERYTHING: Final = INDICES + INPUTS + SPACE_FIELDS
+EVERYTHING: Final = INDICES + INPUTS + SPACE_FIELDS + REPORT_FIELDS
 BY_NAME: Final[dict[str, Index]] = {e.name: e for e in EVERYTHING}
 METHOD_BY_KEY: Final[dict[str, Method]] = {m.key: m for m in METHODS}
 

@@ -17,7 +17,6 @@ import numpy as np
 
 from thermowarden.core.columns import FloatArray
 from thermowarden.core.ptc_models import model
-from thermowarden.core.solve import IndexArray, illinois
 
 STILL_AIR = 0.1
 """m/s: the still-air speed of ASHRAE 55's elevated-air-speed method."""
@@ -118,7 +117,8 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
 
     ``for_cooling_effect`` selects the variant ASHRAE 55 uses inside the cooling-effect
     calculation (no metabolic correction of the still-air reference). NaN where any input
-    is missing; no range checks here.
+    is missing; no range checks here. Each distinct row of inputs is computed once and
+    remembered (``comfort_kernels.SET_MEMO``): readings at the sensors' resolution repeat.
     """
     n = np.asarray(air_c).shape[0]
     out = np.full(n, np.nan)
@@ -126,19 +126,26 @@ def set_temperature(air_c: FloatArray, mrt_c: FloatArray, speed: FloatArray, rh:
           & np.isfinite(met) & np.isfinite(clo))
     if not ok.any():
         return out
+    from thermowarden.core import comfort_kernels
     from thermowarden.core import set_kernels as k
 
     p = np.broadcast_to(np.asarray(pressure_pa, dtype=np.float64), (n,))
-    big = int(ok.sum()) >= PARALLEL_FROM
     ta = air_c[ok]
     vp = rh[ok] * _p_sat_torr(ta) / 100.0
-    with np.errstate(all="ignore"):
-        if big:
+
+    def solve(c: list[FloatArray]) -> FloatArray:
+        ta_, tr_, v_, met_, clo_, vp_, p_, _ = c
+        if ta_.size >= PARALLEL_FROM:
             kernel = k.kernel("set_for_ce_compiled" if for_cooling_effect else "set_compiled")
-            out[ok] = kernel(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok])
-        else:
-            out[ok] = k.set_serial(ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok],
-                                   for_cooling_effect)
+            result: FloatArray = kernel(ta_, tr_, v_, met_, clo_, vp_, p_)
+            return result
+        return k.set_serial(ta_, tr_, v_, met_, clo_, vp_, p_,  # type: ignore[no-any-return]
+                            for_cooling_effect)
+
+    variant = np.full(ta.size, 1.0 if for_cooling_effect else 0.0)
+    with np.errstate(all="ignore"):
+        out[ok] = comfort_kernels.SET_MEMO.apply(
+            [ta, mrt_c[ok], speed[ok], met[ok], clo[ok], vp, p[ok], variant], solve)
     return out
 
 
@@ -147,9 +154,12 @@ def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, 
     """Cooling effect (K) of elevated air speed, ASHRAE 55-2020 5.3.2.1 and Appendix D.
 
     CE is the equal drop of air and mean radiant temperature that gives, at still air
-    (0.1 m/s), the SET of the actual conditions. 0 where vr <= 0.1 m/s. Solved for all
-    spaces at once by bracketed regula falsi on [0, 40] K until the SET residual is within
-    0.01 K (CE to about 0.01 K: SET falls about 1 K per K of CE).
+    (0.1 m/s), the SET of the actual conditions. 0 where vr <= 0.1 m/s. Solved per space by
+    bracketed regula falsi (Illinois) on [0, 40] K until the SET residual is within 0.01 K
+    (CE to about 0.01 K: SET falls about 1 K per K of CE): the upper bracket starts just
+    beyond that estimate (1.2 K per K of SET difference, plus 0.05 K) and widens to 40 K
+    only where it does not bracket. No bracket: the elevated speed does not cool (CE 0), as
+    ASHRAE 55 / pythermalcomfort. Compiled per space (core/comfort_kernels.py).
     """
     ta = np.asarray(air_c, dtype=np.float64)
     tr = np.asarray(mrt_c, dtype=np.float64)
@@ -159,32 +169,12 @@ def cooling_effect(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArray, 
                           & np.isfinite(clo))
     if todo.size == 0:
         return ce
-    ta_s, tr_s, rh_s, met_s, clo_s = ta[todo], tr[todo], rh[todo], met[todo], clo[todo]
-    still = np.full(todo.size, STILL_AIR)
-    target = set_temperature(ta_s, tr_s, rel_speed[todo], rh_s, met_s, clo_s,
-                             for_cooling_effect=True)
+    from thermowarden.core import comfort_kernels
 
-    def residual(x: FloatArray, idx: IndexArray) -> FloatArray:
-        s = set_temperature(ta_s[idx] - x, tr_s[idx] - x, still[idx], rh_s[idx], met_s[idx],
-                            clo_s[idx], for_cooling_effect=True)
-        result: FloatArray = s - target[idx]
-        return result
-
-    all_idx = np.arange(todo.size)
-    lo = np.zeros(todo.size)
-    f_lo = residual(lo, all_idx)
-    # SET falls by roughly 1 K per K of equal air and radiant drop: start the upper bracket
-    # just beyond that estimate and widen only where it does not bracket.
-    hi = np.clip(f_lo * 1.2 + 0.05, 0.05, 40.0)
-    f_hi = residual(hi, all_idx)
-    wide = np.flatnonzero(f_hi > 0)
-    if wide.size:
-        hi[wide] = 40.0
-        f_hi[wide] = residual(hi[wide], wide)
-    sol = illinois(residual, lo, hi, f_lo, f_hi, tolerance=0.005, residual_tolerance=0.01)
-    # no bracket: the elevated speed does not cool (CE 0), as ASHRAE 55 / pythermalcomfort
-    sol = np.where(np.isnan(sol) & np.isfinite(f_lo), 0.0, sol)
-    ce[todo] = np.maximum(sol, 0.0)
+    with np.errstate(all="ignore"):
+        ce[todo] = comfort_kernels.cooling_effect_rows(
+            ta[todo], tr[todo], np.asarray(rel_speed)[todo], np.asarray(rh)[todo],
+            np.asarray(met)[todo], np.asarray(clo)[todo], parallel=todo.size >= PARALLEL_FROM)
     return ce
 
 
@@ -209,11 +199,18 @@ def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArra
 
     The number behind fan advice. Steps (ASHRAE 55-2020 5.3.2 and Appendix D):
     1. the cooling effect needed, CEn: Fanger's PMV at still air with ta - CEn and
-       tr - CEn equals the target (regula falsi on [0, 15] K);
+       tr - CEn equals the target (regula falsi on [0, 15] K, to 0.002 K or a PMV residual
+       of 0.001);
     2. the SET that cooling effect stands for: SET(ta - CEn, tr - CEn, 0.1 m/s);
-    3. the air speed whose SET equals it (regula falsi on [0.1, max_speed] m/s).
+    3. the air speed whose SET equals it: SET is close to linear in log(speed), but not
+       monotone in speed everywhere (the convective coefficient has a floor at low speeds),
+       so a bracket from the two ends can miss a root: log-spaced speeds between still air
+       and ``max_speed`` (:data:`SPEED_GRID_POINTS`) are scanned from the lowest, and regula
+       falsi in log(speed) refines between the first pair that brackets the target (to
+       0.005 in log speed or 0.01 K of SET).
     NaN where the space is not warmer than the target (no speed needed; the caller
-    reports the current speed) or where even ``max_speed`` does not suffice.
+    reports the current speed) or where even ``max_speed`` does not suffice. Still air
+    where it already suffices. Compiled per space (core/comfort_kernels.py).
     """
     ta = np.asarray(air_c, dtype=np.float64)
     tr = np.asarray(mrt_c, dtype=np.float64)
@@ -223,63 +220,12 @@ def air_speed_for_pmv(air_c: FloatArray, mrt_c: FloatArray, rel_speed: FloatArra
     warm = np.flatnonzero(np.isfinite(still_pmv) & (still_pmv > target_pmv))
     if warm.size == 0:
         return out
-    ta_w, tr_w, rh_w, met_w, clo_w = ta[warm], tr[warm], rh[warm], met[warm], clo[warm]
+    from thermowarden.core import comfort_kernels
+
     tgt = np.broadcast_to(np.asarray(target_pmv, dtype=np.float64), (n,))[warm]
-    still = np.full(warm.size, STILL_AIR)
-
-    def pmv_residual(x: FloatArray, idx: IndexArray) -> FloatArray:
-        p = pmv_fanger(ta_w[idx] - x, tr_w[idx] - x, still[idx], rh_w[idx], met_w[idx],
-                       clo_w[idx])
-        result: FloatArray = tgt[idx] - p
-        return result
-
-    all_idx = np.arange(warm.size)
-    lo = np.zeros(warm.size)
-    hi = np.full(warm.size, 15.0)
-    ce_needed = illinois(pmv_residual, lo, hi, pmv_residual(lo, all_idx),
-                         pmv_residual(hi, all_idx), tolerance=0.002,
-                         residual_tolerance=0.001)
-    ok = np.isfinite(ce_needed)
-    target_set = np.full(warm.size, np.nan)
-    target_set[ok] = set_temperature(ta_w[ok] - ce_needed[ok], tr_w[ok] - ce_needed[ok],
-                                     still[ok], rh_w[ok], met_w[ok], clo_w[ok],
-                                     for_cooling_effect=True)
-
-    # SET is close to linear in log(speed): search there.
-    def set_residual(log_v: FloatArray, idx: IndexArray) -> FloatArray:
-        s = set_temperature(ta_w[idx], tr_w[idx], np.exp(log_v), rh_w[idx], met_w[idx],
-                            clo_w[idx], for_cooling_effect=True)
-        result: FloatArray = target_set[idx] - s
-        return result
-
-    # SET is not monotone in speed everywhere (the convective coefficient has a floor at
-    # low speeds), so a bracket from the two ends can miss a root: scan a log-spaced grid
-    # first and refine between the first pair of grid speeds that brackets the target.
-    # A space leaves the scan at its first bracketing pair (or at once where still air
-    # already suffices), so a space needing little air costs a few grid speeds, not all.
     grid = np.linspace(np.log(STILL_AIR), np.log(max_speed), SPEED_GRID_POINTS)
-    v_lo = np.full(warm.size, np.nan)
-    v_hi = np.full(warm.size, np.nan)
-    f_lo = np.full(warm.size, np.nan)
-    f_hi = np.full(warm.size, np.nan)
-    active = np.flatnonzero(ok)
-    f_prev = set_residual(np.full(active.size, grid[0]), active)
-    still_suffices = np.zeros(warm.size, dtype=bool)
-    still_suffices[active] = f_prev >= 0
-    keep = f_prev < 0
-    active, f_prev = active[keep], f_prev[keep]
-    for j in range(1, grid.size):
-        if active.size == 0:
-            break
-        f_next = set_residual(np.full(active.size, grid[j]), active)
-        crossed = (f_prev <= 0) & (f_next >= 0)
-        rows = active[crossed]
-        v_lo[rows], v_hi[rows] = grid[j - 1], grid[j]
-        f_lo[rows], f_hi[rows] = f_prev[crossed], f_next[crossed]
-        active, f_prev = active[~crossed], f_next[~crossed]
-    log_speed = illinois(set_residual, v_lo, v_hi, f_lo, f_hi, tolerance=0.005,
-                         residual_tolerance=0.01)
-    speed = np.exp(log_speed)
-    speed = np.where(still_suffices, STILL_AIR, speed)  # still air already suffices
-    out[warm] = speed
+    with np.errstate(all="ignore"):
+        out[warm] = comfort_kernels.air_speed_rows(
+            ta[warm], tr[warm], np.asarray(rh)[warm], np.asarray(met)[warm],
+            np.asarray(clo)[warm], tgt, grid, parallel=warm.size >= PARALLEL_FROM)
     return out

@@ -29,11 +29,15 @@ module only says what an instance should *try*, from what it last read there:
   after a newcomer joined) gives up one shard per round, and only after the live set has
   been unchanged for ``settle_s`` and while some live instance holds less than its share
   (damping: no chain of hand-overs while instances come and go); it gives up only a shard
-  whose first standby is under its share *and* has stood by for it for ``warm_s`` (the
-  longest window the rules use, the 60-minute WBGT, and a round: the standby's windows are
-  whole when it takes the shard), the one whose standby holds the fewest, and that standby
-  takes it. How long a standby has stood by, each instance reads from its own rounds: the
-  time since a shard's first standby (:func:`first_standbys`) last changed.
+  whose first standby is under its share *and* is warm, the one whose standby holds the
+  fewest, and that standby takes it. A standby is warm when it has stood by for the shard
+  for ``warm_s`` (the longest window the rules use, the 60-minute WBGT, and a round: its
+  windows are whole when it takes the shard), or when it has stood by for it since the
+  holder itself began evaluating the shard, within ``slack_s`` (a round: its windows are
+  then as whole as the holder's; this is what lets a group whose instances started a few
+  seconds apart share the site at once, instead of the first one keeping every shard for
+  ``warm_s``). How long a standby has stood by, each instance reads from its own rounds:
+  the time since a shard's first standby (:func:`first_standbys`) last changed.
 
 Rendezvous weights: BLAKE2b of ``shard`` and ``instance`` (8 bytes each), mixed with
 SplitMix64's finaliser (Steele, Lea and Flood, "Fast splittable pseudorandom number
@@ -127,6 +131,9 @@ class View:
     standby_since: Mapping[str, float] = field(default_factory=dict)
     """Shard -> since when (this instance's reading) its first standby has been the
     instance it is now (:func:`first_standbys`; missing: not known, not warm)."""
+    evaluating_since: Mapping[str, float] = field(default_factory=dict)
+    """Shard -> since when this instance has evaluated it (held or standing by) without a
+    break: how old its own windows of the shard are."""
 
 
 @dataclass(frozen=True)
@@ -143,9 +150,10 @@ class Plan:
 
 
 def plan(view: View, *, replicas: int, grace_s: float, settle_s: float,
-         warm_s: float = 0.0) -> Plan:
+         warm_s: float = 0.0, slack_s: float = 0.0) -> Plan:
     """See the module docstring. ``warm_s``: a held shard is handed over only to a first
-    standby that has stood by at least this long (``View.standby_since``)."""
+    standby that has stood by at least this long (``View.standby_since``), or since at
+    most ``slack_s`` after this instance began evaluating it (``View.evaluating_since``)."""
     me = view.me
     if me not in view.live:
         return Plan((), tuple(s for s in view.shards if view.holders.get(s) == me),
@@ -194,11 +202,25 @@ def plan(view: View, *, replicas: int, grace_s: float, settle_s: float,
     release: tuple[str, ...] = ()
     if len(mine) > limit and view.now - view.live_since >= settle_s:
         under = {m for m in view.live if m != me and counts.get(m, 0) < limit}
-        # only to a first standby under its share that has stood by for warm_s (its
-        # windows are whole), the one holding fewest
+        # only to a first standby under its share that is warm (its windows are whole, or
+        # as whole as this instance's own), the one holding fewest
         ready = [s for s in mine if order[s] and order[s][0] in under
-                 and (warm_s <= 0
-                      or view.now - view.standby_since.get(s, math.inf) >= warm_s)]
+                 and _warm(view, s, warm_s, slack_s)]
         if ready:
             release = (min(ready, key=lambda s: (counts.get(order[s][0], 0), s)),)
     return Plan(tuple(take), release, standing, limit)
+
+
+def _warm(view: View, shard: str, warm_s: float, slack_s: float) -> bool:
+    """Whether the first standby of ``shard`` (held by ``view.me``) may be handed it: it has
+    stood by for ``warm_s``, or since ``view.me`` began evaluating the shard (within
+    ``slack_s``), so that its windows are as whole as the holder's."""
+    if warm_s <= 0:
+        return True
+    since = view.standby_since.get(shard)
+    if since is None:
+        return False
+    if view.now - since >= warm_s:
+        return True
+    mine = view.evaluating_since.get(shard)
+    return mine is not None and since - mine <= slack_s

@@ -19,8 +19,9 @@ from thermowarden.config.rule_packs import PRIORITIES
 from thermowarden.core.columns import BoolArray
 from thermowarden.core.lifecycle import State, Trigger
 from thermowarden.effects import Effect, Publish
-from thermowarden.engine.advisories import Advisories, RuleRuntime
-from thermowarden.engine.evaluation import RuleTruths
+from thermowarden.engine.advisories import Advisories
+from thermowarden.engine.rule_runtime import RuleRuntime
+from thermowarden.engine.rule_truths import RuleTruths
 
 
 class Crossings:
@@ -68,10 +69,10 @@ class Crossings:
                 into = target.advisories.get(i)
                 ahead_id = ahead.advisories[i].id
                 audience = ahead.rule.config.audience
-                flood = self.book.flood[audience]
+                flood = self.book.floods.flood[audience]
                 counted = len(flood)
                 before = len(effects)
-                self.book._apply(ahead, i, Trigger.OFF_DELAY_ELAPSED, now, effects,
+                self.book.apply(ahead, i, Trigger.OFF_DELAY_ELAPSED, now, effects,
                                  extra={"turned_into": into.id if into is not None else None})
                 ahead.pending_since[i] = np.nan
                 sent = [e for e in effects[before:]
@@ -81,7 +82,7 @@ class Crossings:
                     if len(flood) > counted:
                         flood.pop()  # not sent: not counted against the flood limit
                 else:
-                    held = self.book.suppressed[audience]
+                    held = self.book.floods.suppressed[audience]
                     if held and held[-1].get("event") == "cleared" \
                             and held[-1]["advisory"]["id"] == ahead_id:
                         held.pop()  # held back for a flood summary: not summarised either

@@ -7,6 +7,13 @@ The data's path, one module per step::
               -> lifecycle per (space, rule)                 engine/advisories.py, texts.py
               -> payloads, topics, records (effects)         engine/publication.py
 
+(``state`` draws on sensor_slots, air_speed_rings, schedules, outdoor_days, wbgt_window
+and space_constants; ``evaluation`` on index_rows, and the rules' truths are
+``rule_truths``; ``advisories`` on rule_runtime, easing, acted_on, floods and
+advisory_records; commands are ``engine/commands.py``, rules unknown for long
+``engine/unknown_rules.py``, a batch of ticks as rows ``engine/tick_batch.py``, the hand-over
+of advisories between the instances of a group ``engine/handover.py``.)
+
 It does no I/O and reads no clock, so a whole day of a site replays in a test. One thread
 only: the service's engine thread, or the replay loop.
 
@@ -22,35 +29,40 @@ from __future__ import annotations
 
 import functools
 import math
-from collections.abc import Iterable, Iterator, Mapping
+from collections.abc import Iterable, Mapping
 from collections.abc import Set as AbstractSet
-from dataclasses import dataclass
 from typing import Any, Final
 
 import numpy as np
 
 from thermowarden.config import SiteConfig
-from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
+from thermowarden.core.columns import BoolArray, IndexColumn
 from thermowarden.core.indices import IndexTable
-from thermowarden.core.lifecycle import State
 from thermowarden.effects import Effect, Persist
-from thermowarden.engine.advisories import (
-    ADVISORY_REFRESH_S,
-    UNKNOWN_LONG_S,
-    Advisories,
-    RuleRuntime,
-)
+from thermowarden.engine import advisory_records, commands, handover
+from thermowarden.engine.advisories import ADVISORY_REFRESH_S, Advisories
 from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.crossings import Crossings
-from thermowarden.engine.evaluation import Evaluation, RuleTruths, rule_truths
+from thermowarden.engine.evaluation import Evaluation
 from thermowarden.engine.foresight import AHEAD_TEXTS, WINDOW_TEXTS, Foresight
 from thermowarden.engine.foresight import text_fields as foresight_texts
 from thermowarden.engine.health import PointHealth
 from thermowarden.engine.ingest import IMPLAUSIBLE_REASONS, Ingestor, Rejection
 from thermowarden.engine.publication import Publication
+from thermowarden.engine.rule_runtime import RuleRuntime
+from thermowarden.engine.rule_truths import RuleTruths, rule_truths
 from thermowarden.engine.state import Capture, SiteState, Snapshot
 from thermowarden.engine.texts import Texts
-from thermowarden.rules import CompiledPack, CompiledRule
+from thermowarden.engine.tick_batch import (
+    RowView,
+    patch_rows,
+    reads,
+    repeated_ticks,
+    unknown_trajectory,
+)
+from thermowarden.engine.unknown_rules import UNKNOWN_LONG_S, count_long
+from thermowarden.engine.unknown_rules import detail as unknown_detail
+from thermowarden.rules import CompiledPack
 from thermowarden.site_model import SITE, SiteModel
 
 AHEAD_FIELDS: Final = frozenset((*AHEAD_TEXTS, *WINDOW_TEXTS))
@@ -176,7 +188,7 @@ class Engine:
         for group in (others, health):
             if group is health:
                 if k == 1:  # exact: the count depends on the lifecycle too
-                    unknown_long = book.unknown_long(float(snap.times[0]))
+                    unknown_long = count_long(book.rules, n, float(snap.times[0]))
                 env["rules_unknown_long"] = unknown_long
             for rt in group:
                 if not rt.mask.any() and not rt.advisories:
@@ -186,7 +198,7 @@ class Engine:
                           else rt.params)
                 truths = rule_truths(rt.rule, params, mask, env, k * n)
                 u = (mask & truths.lacking & ~truths.raise_.known).reshape(k, n)
-                since = _unknown_trajectory(u, rt.unknown_since, snap.times)
+                since = unknown_trajectory(u, rt.unknown_since, snap.times)
                 if group is others:
                     before = np.concatenate([rt.unknown_since[None, :], since[:-1]])
                     unknown_long += (snap.times[:, None] - before >= UNKNOWN_LONG_S).ravel()
@@ -194,9 +206,9 @@ class Engine:
                                         u[1:] != u[:-1]]).any(axis=1)
                 hits = np.asarray(truths.raise_.true.reshape(k, n).any(axis=1) | flips)
                 anything = [bool(x) for x in hits]
-                evaluated.append((rt, truths, anything, _repeats(truths, k, n)))
+                evaluated.append((rt, truths, anything, repeated_ticks(truths, k, n)))
         evaluated.sort(key=lambda e: book.rules.index(e[0]))
-        readers = [e for e in evaluated if "rules_unknown_long" in _reads(e[0].rule)]
+        readers = [e for e in evaluated if "rules_unknown_long" in reads(e[0].rule)]
         effects: list[Effect] = []
         sample_due = self.sample_every_s > 0
         due = {id(rt): -math.inf for rt, *_ in evaluated}
@@ -217,13 +229,13 @@ class Engine:
                 # the unknown-for-long count depends on the lifecycle (a live advisory whose
                 # clear condition is unknown; exact without one): where the estimate was
                 # wrong, re-evaluate the rules that read it
-                exact = book.unknown_long(now)
+                exact = count_long(book.rules, n, now)
                 if not np.array_equal(exact, unknown_long[rows]):
                     unknown_long[rows] = exact
                     view_j = dict(RowView(env, rows))
                     for rt, truths, anything, repeats in readers:
                         one = rule_truths(rt.rule, rt.params, rt.mask, view_j, n)
-                        _patch_rows(truths, one, rows)
+                        patch_rows(truths, one, rows)
                         anything[j] = True
                         repeats[j] = False
                         if j + 1 < k:
@@ -241,7 +253,7 @@ class Engine:
                 due[id(rt)] = rt.next_due()
             if crossings:
                 crossings.settle(now, effects)
-            book.flush_summaries(now, effects)
+            book.floods.flush_summaries(now, effects)
             if sample_due and now - self.last_sample >= self.sample_every_s:
                 self.last_sample = now
                 at = (dict(self.evaluation.tick_rows(table, snap.inputs, rows)) if k > 1
@@ -294,7 +306,7 @@ class Engine:
         if wanted & AHEAD_FIELDS and self.evaluation.foresight is not None:
             fields.update(foresight_texts(self.evaluation.foresight, i, now, table, wanted))
         if "rules_unknown_detail" in wanted:
-            unknown = self.advisories.unknown_detail(i, now)
+            unknown = unknown_detail(self.advisories.rules, env, i, now)
             if unknown:
                 fields["rules_unknown_detail"] = unknown
         return fields
@@ -308,8 +320,8 @@ class Engine:
     # ------------------------------------------------------------------ commands, restore
     def command(self, verb: str, body: bytes, now: float, audience: str | None = None,
                 identity: str | None = None) -> tuple[dict[str, Any], list[Effect]]:
-        """Acknowledge, shelve or unshelve an advisory; see :meth:`Advisories.command`."""
-        return self.advisories.command(verb, body, now, audience, identity)
+        """Acknowledge, shelve or unshelve an advisory; see :func:`commands.command`."""
+        return commands.command(self.advisories, verb, body, now, audience, identity)
 
     def clock_stepped(self, now: float, step_s: float) -> list[Effect]:
         """The wall clock was stepped by ``step_s`` (negative: back) at ``now``.
@@ -331,8 +343,9 @@ class Engine:
 
     def restore(self, records: list[dict[str, Any]],
                 malformed: list[str] | None = None) -> list[str]:
-        """Bring back stored live advisories; see :meth:`Advisories.restore`."""
-        return self.advisories.restore(records, malformed)
+        """Bring back stored live advisories; see :func:`advisory_records.restore`."""
+        book = self.advisories
+        return advisory_records.restore(book.rules, book.model, book.by_id, records, malformed)
 
     # ------------------------------------------------------------------ groups
     @property
@@ -388,125 +401,23 @@ class Engine:
         return effects
 
     def adopt(self, payloads: Iterable[dict[str, Any]], now: float, *,
-              by: str | None = None, own: Mapping[str, _Own] | None = None
-              ) -> tuple[list[str], list[Effect]]:
+              by: str | None = None) -> tuple[list[str], list[Effect]]:
         """Continue live advisories another instance of the group published (their
-        retained messages with ``handover``): the same advisory id, history (plus a
-        ``moved`` entry), priority, acknowledgement, shelving, reminders and advice waiting
-        for its effect. Only advisories of owned spaces are taken; one this instance already
-        has is kept unless the message is newer. Call before the space's first evaluation.
-        ``own`` (advisory id -> what this instance had of it, from :meth:`reconcile`): an
-        acknowledgement or shelving this instance applied that the message lacks is kept
-        (:func:`_merge_own`). Returns notes on what was not taken and the effects (the
-        retained message with the ``moved`` entry, the store row)."""
-        records: list[dict[str, Any]] = []
-        notes: list[str] = []
-        owned = self.publication.owned
-        book = self.advisories
-        for p in payloads:
-            h = p.get("handover")
-            try:
-                sid = p["space"]["id"]
-                rule = p["rule"]
-                aid = p["id"]
-            except (KeyError, TypeError):
-                notes.append("an advisory message without space, rule or id was not taken")
-                continue
-            if not (isinstance(sid, str) and isinstance(rule, str) and isinstance(aid, str)):
-                notes.append("an advisory message whose space, rule or id is not text was "
-                             "not taken")
-                continue
-            i = self.model.space_index.get(sid)
-            if i is None or not owned[i]:
-                continue
-            if not isinstance(h, dict):
-                notes.append(f"advisory {sid}/{rule} not taken: its message carries no "
-                             "handover state")
-                continue
-            mine = next((a for rt in book.rules if rt.rule.key == rule
-                         for j, a in rt.advisories.items() if j == i), None)
-            updated = h.get("updated_at")
-            if isinstance(updated, bool) or not isinstance(updated, int | float):
-                notes.append(f"advisory {sid}/{rule} not taken: its handover state has no "
-                             "time")
-                continue
-            if mine is not None and (mine.id != aid or mine.updated_at >= updated):
-                continue
-            # the message's own space, rule and payload win over anything in its handover
-            records.append({**h, "payload": p, "space": sid, "rule": rule})
-        notes += book.restore(records)
-        effects: list[Effect] = []
-        for rec in records:
-            got = book.by_id.get(rec["payload"]["id"])
-            if got is None:
-                continue
-            rt, i = got
-            adv = rt.advisories[i]
-            mine_before = own.get(adv.id) if own is not None else None
-            if mine_before is not None:
-                _merge_own(rt, i, adv, mine_before, now)
-                adv.seq = max(adv.seq, mine_before.adv.seq)
-            book._note(adv, now, "moved", by=by)
-            effects.append(book._published(adv))
-            effects.append(book._persist(adv))
-        return notes, effects
+        retained messages with ``handover``); see :func:`handover.adopt`. Returns notes on
+        what was not taken and the effects."""
+        return handover.adopt(self.advisories, self.publication.owned, payloads, now, by=by)
 
     def reconcile(self, space_ids: Iterable[str], payloads: Iterable[dict[str, Any]],
                   now: float, *, by: str | None = None) -> tuple[list[str], list[Effect]]:
-        """Take over spaces this instance has been evaluating as a standby (without
-        publishing): what was *published* for them wins over what it computed.
-
-        For each (space, rule) with a retained advisory message (``payloads``, each with its
-        ``handover``), this instance's own advisory is replaced by it: the published id,
-        history (plus a ``moved`` entry), priority, acknowledgement, shelving and event
-        count; the windows, delays in progress and the clear timer stay this instance's.
-        An advisory this instance raised that nobody published is taken back to pending
-        with its on-delay already served, so the next evaluation raises it and says so.
-        An acknowledgement or shelving this instance applied to the published advisory
-        (as its holder before, or a command given a moment before it lost the shard) and
-        that the message lacks survives (:func:`_merge_own`). Returns notes on records not
-        taken and the effects (retained messages, rows)."""
-        wanted = {i for sid in space_ids
-                  if (i := self.model.space_index.get(sid)) is not None}
-        records: dict[tuple[int, str], dict[str, Any]] = {}
-        for p in payloads:
-            try:
-                i = self.model.space_index.get(p["space"]["id"])
-                rule = p["rule"]
-            except (KeyError, TypeError):
-                continue
-            if i in wanted and isinstance(rule, str) and isinstance(p.get("handover"), dict):
-                records[(i, rule)] = p
-        book = self.advisories
-        own: dict[str, _Own] = {}
-        for rt in book.rules:
-            for i in sorted(wanted):
-                adv = rt.advisories.get(i)
-                if adv is None:
-                    continue
-                own[adv.id] = _Own(adv, State(rt.state[i]), float(rt.shelved_until[i]),
-                                   [list(s) for s in rt.shelvings.get(i, [])])
-                rec = records.get((i, rt.rule.key))
-                del rt.advisories[i]
-                book.by_id.pop(adv.id, None)
-                rt.event_count.pop(i, None)
-                rt.raised_times.pop(i, None)
-                rt.level[i] = rt.rule.base_priority
-                for arr in (rt.last_notified, rt.shelved_until, rt.lower_since):
-                    arr[i] = np.nan
-                rt.acted_now[i] = False
-                if rec is None:
-                    # pending with its on-delay served: raised (and published) at the next
-                    # evaluation if its condition still holds
-                    rt.state[i] = State.PENDING
-                    rt.pending_since[i] = now - rt.rule.config.on_delay_s
-                else:
-                    rt.state[i] = State.IDLE
-        return self.adopt(records.values(), now, by=by, own=own)
+        """Take over spaces this instance has been evaluating as a standby: what was
+        published for them wins over what it computed; see :func:`handover.reconcile`."""
+        return handover.reconcile(self.advisories, self.publication.owned, space_ids,
+                                  payloads, now, by=by)
 
     def digest(self, now: float, since: float) -> list[Effect]:
-        """The daily digest per audience; see :meth:`Advisories.digest`."""
-        return self.advisories.digest(now, since)
+        """The daily digest per audience; see :meth:`Floods.digest`."""
+        book = self.advisories
+        return book.floods.digest(now, since, book.live(), self.model.space_ids)
 
     # ------------------------------------------------------------------ queries
     def conditions_payload(self, i: int) -> dict[str, Any]:
@@ -527,122 +438,3 @@ class Engine:
             out[(adv.rule, adv.priority)] = out.get((adv.rule, adv.priority), 0) + 1
         return out
 
-
-@dataclass(frozen=True)
-class _Own:
-    """What an instance had of an advisory before taking the published message over."""
-
-    adv: Advisory
-    state: State
-    shelved_until: float
-    shelvings: list[list[float]]
-
-
-def _merge_own(rt: RuleRuntime, i: int, adv: Advisory, own: _Own, now: float) -> None:
-    """Keep in ``adv`` (just taken from a published message) the acknowledgement and the
-    shelving this instance had applied that the message lacks: an acknowledgement present
-    in either survives unless the message's history shows the advisory raised or escalated
-    after it (a worse level needs a new one); of two shelvings the later one wins, unless
-    the message's history shows it unshelved or escalated after this one, or it has run
-    out. The history entry of what is kept is put back in time order."""
-    later = {"raised", "escalated"}
-    ack = own.adv.acknowledged
-    if ack is not None and adv.acknowledged is None and State(rt.state[i]) == State.ACTIVE \
-            and not any(h.get("event") in later and h.get("at", "") > ack.get("at", "")
-                        for h in adv.history):
-        adv.acknowledged = ack
-        rt.state[i] = adv.state = State.ACKNOWLEDGED
-        _put_back(adv, own.adv, "acknowledged", ack.get("at"))
-    sh = own.adv.shelved
-    if sh is not None and own.state == State.SHELVED and own.shelved_until > now \
-            and State(rt.state[i]) in (State.ACTIVE, State.ACKNOWLEDGED, State.SHELVED) \
-            and (adv.shelved is None or adv.shelved.get("at", "") < sh.get("at", "")) \
-            and not any(h.get("event") in (later | {"unshelved"})
-                        and h.get("at", "") > sh.get("at", "") for h in adv.history):
-        adv.shelved = sh
-        rt.state[i] = adv.state = State.SHELVED
-        rt.shelved_until[i] = own.shelved_until
-        rt.shelvings[i] = own.shelvings
-        _put_back(adv, own.adv, "shelved", sh.get("at"))
-
-
-def _put_back(adv: Advisory, own: Advisory, event: str, at: object) -> None:
-    """Put ``own``'s history entry of ``event`` at ``at`` into ``adv``'s, in time order."""
-    entry = next((h for h in reversed(own.history)
-                  if h.get("event") == event and h.get("at") == at), None)
-    if entry is None or entry in adv.history:
-        return
-    adv.history.append(dict(entry))
-    adv.history.sort(key=lambda h: str(h.get("at", "")))
-
-
-def _reads(rule: CompiledRule) -> set[str]:
-    """Every name a rule's conditions read."""
-    exprs = [e for _, e in rule.levels] + [e for e in (rule.condition, rule.clear,
-                                                        rule.hold_back, rule.acted_on) if e]
-    return {name for e in exprs for name in e.names}
-
-
-def _patch_rows(truths: RuleTruths, one: RuleTruths, rows: slice) -> None:
-    """Write one tick's re-evaluated truths into the batch's rows."""
-    truths.raise_.value[rows] = one.raise_.value
-    truths.raise_.known[rows] = one.raise_.known
-    truths.clear.value[rows] = one.clear.value
-    truths.clear.known[rows] = one.clear.known
-    truths.hold[rows] = one.hold
-    truths.level[rows] = one.level
-    truths.lacking[rows] = one.lacking
-    if truths.acted_on is not None and one.acted_on is not None:
-        truths.acted_on[rows] = one.acted_on
-
-
-def _repeats(truths: RuleTruths, k: int, n: int) -> list[bool]:
-    """Per tick: are the rule's conditions in every space the same as at the tick before?
-    (The first tick of a batch is never a repeat.)"""
-    out = np.zeros(k, dtype=bool)
-    if k > 1:
-        same = np.ones(k - 1, dtype=bool)
-        parts = [truths.raise_.value, truths.raise_.known, truths.clear.value,
-                 truths.clear.known, truths.hold, truths.level, truths.lacking]
-        if truths.acted_on is not None:
-            parts.append(truths.acted_on)
-        for a in parts:
-            grid = a.reshape(k, n)
-            same &= (grid[1:] == grid[:-1]).all(axis=1)
-        out[1:] = same
-    result: list[bool] = out.tolist()
-    return result
-
-
-def _unknown_trajectory(u: Any, since: FloatArray, times: FloatArray) -> FloatArray:
-    """Since when each space has been unknown for want of an input, after each tick, as
-    :meth:`Advisories.step` keeps it: the time the current run of ``u`` (K x N) began, or
-    the earlier ``since`` when the run started before these ticks."""
-    k, n = u.shape
-    last_known = np.maximum.accumulate(np.where(~u, np.arange(k)[:, None], -1), axis=0)
-    began = np.where(last_known >= 0, times[np.minimum(last_known + 1, k - 1)],
-                     np.fmin(since, times[0])[None, :])
-    result: FloatArray = np.where(u, began, np.nan)
-    return result
-
-
-class RowView(Mapping[str, Any]):
-    """One tick's rows of the rules' environment (arrays are sliced when read)."""
-
-    def __init__(self, env: Mapping[str, Any], rows: slice) -> None:
-        self._env = env
-        self._rows = rows
-
-    def __getitem__(self, name: str) -> Any:
-        v = self._env[name]
-        if isinstance(v, np.ndarray):
-            return v[self._rows]
-        if isinstance(v, dict):
-            return {q: a[self._rows] for q, a in v.items()}
-        return v
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._env)
-
-    def __len__(self) -> int:
-        return len(self._env)

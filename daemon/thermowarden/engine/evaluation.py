@@ -1,4 +1,5 @@
-"""Evaluation: a snapshot of the site -> indices -> the environment rules see -> rule truths.
+"""Evaluation: a snapshot of the site -> indices -> the environment rules see (the rules'
+truths over it: :mod:`thermowarden.engine.rule_truths`).
 
 Indices are computed for all spaces in one vectorised call (ISO 7933 PHS, which simulates a
 whole work period, only every ``PHS_EVERY_S``). Rule conditions are three-valued over the
@@ -13,17 +14,13 @@ integrator's advisory and the metrics.
 
 from __future__ import annotations
 
-import dataclasses
-from collections import ChainMap
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass, fields
 from typing import Any, Final
 
 import numpy as np
 import numpy.typing as npt
 
 from thermowarden.core.columns import BoolArray, FloatArray, IndexColumn
-from thermowarden.core.expressions import Truth
 from thermowarden.core.indices import (
     IndexTable,
     SpaceInputs,
@@ -35,174 +32,24 @@ from thermowarden.core.indices import (
 from thermowarden.core.radiation import SIDES
 from thermowarden.engine.foresight import Foresight
 from thermowarden.engine.health import PointHealth
+from thermowarden.engine.index_rows import (
+    COMPUTATION_FAILED,
+    compute_distinct,
+    concat_columns,
+    input_matrix,
+    merge_tables,
+    rows_of,
+    take_inputs,
+    with_method,
+)
 from thermowarden.engine.state import SiteState, Snapshot
-from thermowarden.rules import CompiledRule
 
 PHS_EVERY_S: Final = 300.0
 """ISO 7933 PHS simulates a whole work period per space: it is refreshed every 5 minutes."""
-COMPUTATION_FAILED: Final = "the computation failed for this space's inputs"
 PHS_GROUP: Final = "phs"
 _NOT_COMPUTED: Final = -1e300
 """Remembered input of a space whose indices were not computed (never a real input)."""
 ALL_GROUP: Final = "indices"
-
-
-def take_inputs(s: SpaceInputs, idx: npt.NDArray[np.intp]) -> SpaceInputs:
-    """The inputs of the spaces ``idx`` only."""
-    changes: dict[str, Any] = {"n": int(idx.size)}
-    for f in dataclasses.fields(s):
-        v = getattr(s, f.name)
-        if isinstance(v, np.ndarray):
-            changes[f.name] = v[idx]
-        elif isinstance(v, dict):
-            changes[f.name] = {k: a[idx] for k, a in v.items()}
-        elif isinstance(v, tuple) and len(v) == s.n:
-            changes[f.name] = tuple(v[int(i)] for i in idx)
-    return dataclasses.replace(s, **changes)
-
-
-def merge_tables(n: int, parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
-                 template: IndexTable | None = None) -> IndexTable:
-    """One table over ``n`` spaces (or rows) from tables of subsets; columns missing for a
-    space (its computation failed) are absent with :data:`COMPUTATION_FAILED`. Columns of
-    ``template`` (an earlier table) that no part has are absent for every space."""
-    names: dict[str, IndexColumn] = {}
-    for _, t in [*parts, (np.zeros(0, dtype=np.intp), template or {})]:
-        for name, col in t.items():
-            names.setdefault(name, col)
-    out: IndexTable = {}
-    for name, proto in names.items():
-        reasons: list[str] = ["", COMPUTATION_FAILED]
-        values = np.full(n, np.nan)
-        codes = np.ones(n, dtype=proto.codes.dtype)
-        for idx, t in parts:
-            part = t.get(name)
-            if part is None:
-                continue
-            remap = np.array([0] + [_reason_code(reasons, r) for r in part.reasons[1:]],
-                             dtype=proto.codes.dtype)
-            values[idx] = part.values
-            codes[idx] = remap[part.codes]
-        out[name] = IndexColumn(values, codes, tuple(reasons), proto.unit, proto.method,
-                                proto.labels)
-    return out
-
-
-def _reason_code(reasons: list[str], reason: str) -> int:
-    if reason not in reasons:
-        reasons.append(reason)
-    return reasons.index(reason)
-
-
-@dataclass(frozen=True)
-class RuleTruths:
-    """One rule's conditions over all spaces at one evaluation."""
-
-    raise_: Truth
-    """The raise condition (false where the rule does not apply or the space is empty)."""
-    clear: Truth
-    hold: BoolArray
-    """Hold-back condition true: do not start raising."""
-    level: npt.NDArray[np.int8]
-    """Priority index of the highest true level (or the rule's base priority), -1 if none."""
-    lacking: BoolArray
-    """An input the rule ``needs`` is missing or stale."""
-    acted_on: BoolArray | None
-    """The acted-on condition (equipment in the state the advice asks for)."""
-
-    def rows(self, rows: slice) -> RuleTruths:
-        """The same truths for a slice of rows (one tick of a batch)."""
-        return RuleTruths(Truth(self.raise_.value[rows], self.raise_.known[rows]),
-                          Truth(self.clear.value[rows], self.clear.known[rows]),
-                          self.hold[rows], self.level[rows], self.lacking[rows],
-                          None if self.acted_on is None else self.acted_on[rows])
-
-
-
-def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
-    """The same inputs for a subset of rows."""
-    given: dict[str, object] = {}
-    for f in fields(s):
-        v = getattr(s, f.name)
-        if f.name == "n":
-            continue
-        if isinstance(v, np.ndarray):
-            given[f.name] = v[index]
-        elif isinstance(v, dict):
-            given[f.name] = {k: a[index] for k, a in v.items()}
-        elif isinstance(v, tuple):
-            given[f.name] = tuple(v[int(i)] for i in index)
-        else:
-            given[f.name] = v
-    return SpaceInputs.create(int(index.size), **given)
-
-
-def _row_keys(s: SpaceInputs) -> npt.NDArray[np.void]:
-    """One opaque key per row: the bytes of the row's inputs (arrays, plane radiant
-    temperatures, and the posture and PHS edition as codes), of those that are not the same
-    bits in every row. Equal keys: equal inputs."""
-    cols = [getattr(s, f.name) for f in fields(s) if isinstance(getattr(s, f.name), np.ndarray)]
-    cols += [s.plane_radiant[k] for k in sorted(s.plane_radiant)]
-    for texts in (s.posture, s.phs_edition):
-        if isinstance(texts, tuple) and len(set(texts)) > 1:
-            codes = {t: float(c) for c, t in enumerate(sorted(set(texts)))}
-            cols.append(np.array([codes[t] for t in texts]))
-    m = np.column_stack([c.astype(np.float64) for c in cols])
-    bits = m.view(np.uint64)
-    # only the columns whose bits vary (most inputs are the same in every row: defaults,
-    # people)
-    varies = (bits != bits[:1]).any(axis=0)
-    m = np.ascontiguousarray(m[:, varies] if varies.any() else m[:, :1])
-    keys: npt.NDArray[np.void] = m.view(np.dtype((np.void, m.dtype.itemsize * m.shape[1]))
-                                        ).ravel()
-    return keys
-
-
-def compute_distinct(s: SpaceInputs, with_phs: bool) -> IndexTable:
-    """:func:`compute_indices` of ``s``, each distinct row of inputs computed once (rows of
-    many ticks or spaces often repeat: sensors report to a resolution, equipment and
-    occupancy change seldom). Every index of a row depends on that row's inputs alone, and
-    the rows computed hold every distinct input, so the table is the one of computing every
-    row (the column's reasons and methods, which depend on which inputs occur, included)."""
-    if s.n < 2:
-        return compute_indices(s, with_phs=with_phs)
-    _, first, inverse = np.unique(_row_keys(s), return_index=True, return_inverse=True)
-    if first.size == s.n:
-        return compute_indices(s, with_phs=with_phs)
-    order = np.argsort(first)  # the distinct rows in the order they first occur
-    rank = np.empty_like(order)
-    rank[order] = np.arange(order.size)
-    table = compute_indices(rows_of(s, first[order]), with_phs=with_phs)
-    return select(table, rank[inverse.ravel()])
-
-
-def with_method(col: IndexColumn, method: str) -> IndexColumn:
-    return IndexColumn(col.values, col.codes, col.reasons, col.unit, method, col.labels)
-
-
-def concat_columns(parts: list[IndexColumn]) -> IndexColumn:
-    """One column from columns of the same index computed in separate calls (their reason
-    tables differ: codes are mapped onto one table)."""
-    reasons: list[str] = list(parts[0].reasons)
-    codes = []
-    for col in parts:
-        for r in col.reasons:
-            if r not in reasons:
-                reasons.append(r)
-        remap = np.array([reasons.index(r) for r in col.reasons], dtype=np.int16)
-        codes.append(remap[col.codes])
-    first = parts[0]
-    return IndexColumn(np.concatenate([c.values for c in parts]), np.concatenate(codes),
-                       tuple(reasons), first.unit, first.method, first.labels)
-
-
-def _input_matrix(s: SpaceInputs) -> FloatArray:
-    """Every per-row input that indices depend on (the time-weighted WBGT excepted: it is
-    applied afterwards), one column each."""
-    cols = [getattr(s, f.name) for f in fields(s)
-            if f.name != "wbgt_time_weighted" and isinstance(getattr(s, f.name), np.ndarray)]
-    cols += [s.plane_radiant[k] for k in sorted(s.plane_radiant)]
-    return np.column_stack([c.astype(np.float64) for c in cols])
 
 
 class Evaluation:
@@ -236,7 +83,7 @@ class Evaluation:
         n = self.n
         rows = s.n
         k = rows // n
-        m = _input_matrix(s)
+        m = input_matrix(s)
         prev = self._last_inputs
         have_prev = (prev is not None and prev.shape[1] == m.shape[1]
                      and self._last_table is not None)
@@ -500,62 +347,3 @@ class TickRows(Mapping[str, IndexColumn]):
 
     def __len__(self) -> int:
         return len(self._table)
-
-
-def rule_truths(rule: CompiledRule, params: dict[str, FloatArray], mask: BoolArray,
-                base: dict[str, Any], n: int) -> RuleTruths:
-    """Evaluate one rule's raise, clear, hold-back and acted-on conditions over ``n`` spaces.
-
-    ``mask`` says where the rule applies (its pack is enabled and the space has its inputs);
-    outside it the rule is false and clear. An ``occupied_only`` rule is false and clear in
-    an unoccupied space. A levelled rule is true at its highest true level and known only
-    when every level is known or one is true.
-    """
-    cfg = rule.config
-    env = ChainMap(params, base)
-    level_idx = np.full(n, -1, dtype=np.int8)
-    if rule.levels:
-        value = np.zeros(n, dtype=bool)
-        all_known = np.ones(n, dtype=bool)
-        for prio, expr in rule.levels:
-            t = expr.evaluate_truth(env, n)
-            level_idx = np.where(t.true, np.int8(prio), level_idx)
-            value |= t.true
-            all_known &= t.known
-        cond = Truth(value, value | all_known)
-    else:
-        assert rule.condition is not None
-        cond = rule.condition.evaluate_truth(env, n)
-        level_idx = np.where(cond.true, np.int8(rule.base_priority), level_idx)
-    assumed_only = np.zeros(n, dtype=bool)
-    for name in cfg.measured:  # an assumption may not stand in for these: unknown there
-        flags = base["_assumed"].get(name)
-        if flags is not None:
-            assumed_only |= flags
-    if assumed_only.any():
-        cond = Truth(cond.value & ~assumed_only, cond.known & ~assumed_only)
-    occupied = base["occupied"]
-    if cfg.occupied_only:
-        cond = Truth(cond.value & occupied, cond.known | ~occupied)
-    cond = Truth(cond.value & mask, cond.known | ~mask)
-    clear = rule.clear.evaluate_truth(env, n) if rule.clear else Truth(~cond.value, cond.known)
-    if assumed_only.any():
-        clear = Truth(clear.value & ~assumed_only, clear.known & ~assumed_only)
-    if cfg.occupied_only:
-        clear = Truth(clear.value | ~occupied, clear.known | ~occupied)
-    clear = Truth(clear.value | ~mask, clear.known | ~mask)
-    hold = (rule.hold_back.evaluate_truth(env, n).true if rule.hold_back
-            else np.zeros(n, dtype=bool))
-    # a rule "cannot be evaluated" when an input it needs is missing or stale (not when
-    # an index is merely outside its method's range)
-    lacking = np.zeros(n, dtype=bool)
-    for name in rule.needs:
-        present = base["_present"].get(name)
-        if present is not None:
-            lacking |= ~present
-        elif isinstance(base.get(name), np.ndarray) and base[name].dtype != np.bool_:
-            lacking |= ~np.isfinite(base[name])  # a derived need (wbgt): its value
-    lacking |= assumed_only
-    acted = rule.acted_on.evaluate_truth(env, n).true if rule.acted_on is not None else None
-    return RuleTruths(cond, clear, hold, level_idx, lacking, acted)
-

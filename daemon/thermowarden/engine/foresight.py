@@ -160,11 +160,11 @@ class Foresight:
         n = h.size
         window = forecast.MEAN_WINDOW_MIN
         wanted = minute - window + np.arange(window)  # oldest first
-        slots = wanted % st.wbgt_minute.shape[1]
-        have = st.wbgt_minute[np.ix_(h, slots)] == wanted[None, :]
-        weight = np.where(have, st.wbgt_weight[np.ix_(h, slots)], 0.0)
+        slots = wanted % st.wbgt.minute.shape[1]
+        have = st.wbgt.minute[np.ix_(h, slots)] == wanted[None, :]
+        weight = np.where(have, st.wbgt.weight[np.ix_(h, slots)], 0.0)
         with np.errstate(invalid="ignore", divide="ignore"):
-            values = np.where(weight > 0, st.wbgt_sum[np.ix_(h, slots)]
+            values = np.where(weight > 0, st.wbgt.sum[np.ix_(h, slots)]
                               / np.where(weight > 0, weight, 1.0), np.nan)
         recent = slice(window - self.window_bins, window)
         centres = (wanted[recent].astype(np.float64) * 60.0 + 30.0)

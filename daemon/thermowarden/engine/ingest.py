@@ -73,6 +73,9 @@ class Ingestor:
         self.accepted = 0
         self.rejected: Counter[tuple[str, str]] = Counter()
         self._cache: dict[str, list[int]] = {t: list(p) for t, p in model.routes.items()}
+        self._state_values: dict[tuple[int, bytes], float] = {}
+        """(point, payload) -> the value of a state payload that decodes to one plain value
+        (``on``, ``off``, a configured word): equipment repeats a few words."""
         self._negative: dict[str, Rejection] = {}
         self._lazy_count: Counter[tuple[int, str]] = Counter()
         self.last_points: list[int] = []
@@ -227,7 +230,9 @@ class Ingestor:
         A plain number for a known single-point topic (the common case) takes a short
         path: ``float()`` straight from the bytes (for ASCII text the same number as
         decoding, stripping and converting; anything it refuses, and a value that is not
-        finite, goes the general way for the exact rejection), then the same checks."""
+        finite, goes the general way for the exact rejection), then the same checks; so
+        does a state payload of such a topic that decodes to one plain value, remembered
+        per point and payload (equipment repeats a few words)."""
         out: list[tuple[float, Rejection]] = []
         touched: list[int] = []
         cache = self._cache
@@ -240,24 +245,51 @@ class Ingestor:
                     len(payload) <= max_bytes:
                 pid = route[0]
                 spec = points[pid]
-                if spec.fmt.__class__ is NumberFormat:
+                fmt_class = spec.fmt.__class__
+                if fmt_class is NumberFormat:
                     try:
                         number = float(payload)
                     except ValueError:
                         number = math.nan
-                    if isfinite(number):
-                        self.received += 1
-                        r = self._store_value(pid, number, None, None, now, topic)
-                        if r is None:
-                            touched.append(pid)
-                        else:
-                            out.append((now, r))
-                        continue
+                elif fmt_class is StateFormat:
+                    number = self._state_value(pid, payload, now)
+                else:
+                    number = math.nan
+                if isfinite(number):
+                    self.received += 1
+                    r = self._store_value(pid, number, None, None, now, topic)
+                    if r is None:
+                        touched.append(pid)
+                    else:
+                        out.append((now, r))
+                    continue
             for r in self.ingest(topic, payload, now, retained):
                 out.append((now, r))
             touched.extend(self.last_points)
         self.last_points = touched
         return out
+
+    STATE_VALUES_KEPT: Final = 65_536
+
+    def _state_value(self, pid: int, payload: bytes, now: float) -> float:
+        """The value of a state payload that decodes to one plain value (no time or unit of
+        its own), remembered per point and payload; NaN for any other (the general path
+        then takes it, with its exact rejection)."""
+        key = (pid, payload)
+        value = self._state_values.get(key)
+        if value is not None:
+            return value
+        spec = self.model.points[pid]
+        try:
+            decoded = self._decode(spec.fmt, payload, now, spec.quantity)
+        except Exception:  # noqa: BLE001 - the general path rejects it
+            return math.nan
+        if len(decoded) != 1 or decoded[0].time is not None or decoded[0].unit is not None:
+            return math.nan
+        value = decoded[0].value
+        if len(self._state_values) < self.STATE_VALUES_KEPT:
+            self._state_values[key] = value
+        return value
 
     def _store(self, pid: int, d: Decoded, now: float, topic: str) -> Rejection | None:
         r = self._store_value(pid, d.value, d.time, d.unit, now, topic)

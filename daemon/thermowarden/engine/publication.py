@@ -381,7 +381,8 @@ class Publication:
     def sample(self, table: IndexTable, now: float, occupied: Any = None,
                air_temperature: Any = None) -> dict[str, Any]:
         """The report sample: the indices the catalogue keeps (:func:`catalogue.kept`), the
-        space's comfort band, whether it was occupied and the air temperature (arrays over
+        space's comfort band, whether it was occupied, the air temperature and the WBGT the
+        report draws against its references (:data:`catalogue.REPORT_FIELDS`) (arrays over
         the spaces, under each entry's stored key; the history the web page plots), NaN as
         null."""
 
@@ -389,6 +390,17 @@ class Publication:
             c = table[name]
             return [None if not ok else round(float(v), 3)
                     for v, ok in zip(c.values, c.present, strict=True)]
+
+        def rounded(values: Any, ok: Any) -> list[float | None]:
+            return [None if not k else round(float(v), 3)
+                    for v, k in zip(values, ok, strict=True)]
+
+        # the WBGT against the references: the 60-minute mean where it existed, and the spot
+        # value apart (both with the clothing adjustment, ISO 7243:2017); "wbgt" is the
+        # value the rules compared (the mean, else the spot value)
+        eff, twa, spot = (table["wbgt_effective"], table["wbgt_time_weighted"],
+                          table["wbgt"])
+        adjustment = eff.values - np.where(twa.present, twa.values, spot.values)
 
         low = [float(self.config.parameters(s).get("comfort_low_c", 20.0))
                for s in self.config.spaces]
@@ -399,6 +411,11 @@ class Publication:
         fields = {"comfort_band_lower": low, "comfort_band_upper": high,
                   "occupied": None if occupied is None else [bool(x) for x in occupied],
                   "air_temperature": [num(float(v)) for v in air_temperature]
-                  if air_temperature is not None else [None] * len(self.model.space_ids)}
+                  if air_temperature is not None else [None] * len(self.model.space_ids),
+                  # the WBGT against the references, for the report: the 60-minute mean
+                  # only where it existed, and the spot value apart
+                  "wbgt_mean_60min": rounded(eff.values, eff.present & twa.present),
+                  "wbgt_spot_adjusted": rounded(spot.values + adjustment,
+                                                eff.present & spot.present)}
         out.update((catalogue.BY_NAME[k].kept, v) for k, v in fields.items())
         return out

@@ -31,8 +31,8 @@ import numpy as np
 
 from thermowarden.core.columns import BoolArray
 from thermowarden.effects import Effect
-from thermowarden.engine.advisories import RuleRuntime
 from thermowarden.engine.engine import Engine
+from thermowarden.engine.rule_runtime import RuleRuntime
 from thermowarden.site_model import SITE, PointSpec, SiteModel
 
 _LIFECYCLE = ("state", "level", "pending_since", "clear_since", "last_notified",
@@ -97,17 +97,10 @@ def carry_over(old: Engine, new: Engine) -> tuple[list[Effect], list[str]]:
 
     # site-wide state
     so, sn = old.state, new.state
-    sn.daily_means = list(so.daily_means)
-    sn._day, sn._day_sum, sn._day_weight = so._day, so._day_sum, so._day_weight
-    sn._last_outdoor_t, sn.outdoor_6am = so._last_outdoor_t, so.outdoor_6am
-    sn._last_wbgt_record = so._last_wbgt_record
+    sn.outdoor_days.carry(so.outdoor_days)
+    sn.wbgt.last_record = so.wbgt.last_record
     ao, an = old.advisories, new.advisories
-    an.flood = {a: deque(v) for a, v in ao.flood.items()}
-    an.suppressed = {a: list(v) for a, v in ao.suppressed.items()}
-    an.last_summary = dict(ao.last_summary)
-    an.episode = {a: (dict(v) if v is not None else None) for a, v in ao.episode.items()}
-    an.raised_count = dict(ao.raised_count)
-    an.cleared_count = dict(ao.cleared_count)
+    an.floods.carry(ao.floods)
     an.last_refresh = ao.last_refresh
     new.start = old.start
     new.last_sample = old.last_sample
@@ -133,17 +126,7 @@ def _carry_points(old: Engine, new: Engine, pairs: list[tuple[int, int]]) -> Non
     for name in ("last_value", "last_time", "last_source_time"):
         getattr(sn, name)[dst] = getattr(so, name)[src]
     for a, b in pairs:
-        ro, rn = so.ring_row[a], sn.ring_row[b]
-        if ro < 0 or rn < 0:
-            continue
-        # oldest first, then keep the newest that fit the new ring
-        order = (np.arange(so.ring_len) + so.ring_head[ro]) % so.ring_len
-        t = so.ring_t[ro, order]
-        v = so.ring_v[ro, order]
-        keep = min(sn.ring_len, so.ring_len)
-        sn.ring_t[rn, :keep] = t[-keep:]
-        sn.ring_v[rn, :keep] = v[-keep:]
-        sn.ring_head[rn] = keep % sn.ring_len
+        sn.rings.carry_point(so.rings, a, b)
     ho, hn = old.health, new.health
     if ho.last_change.size:
         npts = len(new.model.points)
@@ -160,9 +143,7 @@ def _carry_spaces(old: Engine, new: Engine, pairs: list[tuple[int, int]]) -> Non
     for i, j in pairs:
         if i == SITE:
             continue
-        sn.wbgt_sum[j] = so.wbgt_sum[i]
-        sn.wbgt_weight[j] = so.wbgt_weight[i]
-        sn.wbgt_minute[j] = so.wbgt_minute[i]
+        sn.wbgt.carry_space(so.wbgt, i, j)
         new.health.implausible[j] = deque(old.health.implausible[i], maxlen=200)
         new.health.implausible_points[j] = dict(old.health.implausible_points[i])
         pn.last_conditions[j] = po.last_conditions[i]

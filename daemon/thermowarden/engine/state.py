@@ -3,11 +3,14 @@ the index core takes.
 
 Everything is a numpy array indexed by point or by space; the engine thread is the only
 one that touches it. Time is always an argument (epoch seconds); nothing here reads a clock.
+:class:`SiteState` stores the points' latest readings and assembles the snapshot from its
+parts: ``sensor_slots`` (combining the sensors of a space), ``air_speed_rings`` (the air
+speed window), ``schedules`` (occupancy), ``outdoor_days`` (the outdoor running mean),
+``wbgt_window`` (the 60-minute WBGT) and ``space_constants`` (what the configuration fixes).
 """
 
 from __future__ import annotations
 
-import datetime as dt
 import math
 import zoneinfo
 from dataclasses import dataclass, field
@@ -17,29 +20,21 @@ import numpy as np
 import numpy.typing as npt
 
 from thermowarden.config.service import IngestConfig
-from thermowarden.config.site import OccupancyConfig, SiteConfig
+from thermowarden.config.site import SiteConfig
 from thermowarden.core import radiation
 from thermowarden.core.adaptive import running_mean_outdoor
 from thermowarden.core.columns import BoolArray, FloatArray
 from thermowarden.core.indices import SpaceInputs
-from thermowarden.core.psychrometrics import STANDARD_PRESSURE_PA, pressure_from_altitude
-from thermowarden.site_model import HEIGHT_WEIGHTS, SITE, SiteModel
+from thermowarden.engine.air_speed_rings import AirSpeedRings, window_mean_and_turbulence
+from thermowarden.engine.outdoor_days import OutdoorDays
+from thermowarden.engine.schedules import Schedules
+from thermowarden.engine.sensor_slots import Slot, build_slots, combine, extreme
+from thermowarden.engine.space_constants import space_constants
+from thermowarden.engine.wbgt_window import WbgtWindow
+from thermowarden.site_model import SiteModel
 
 IntArray = npt.NDArray[np.int64]
 
-WBGT_BIN_S: Final = 60.0
-MIN_TWA_COVERAGE: Final = 0.8
-DEFAULT_AIR_SPEED_HEIGHT_M: Final = 1.1
-"""Height of a space's air speed sensor unless its point says height_m: ISO 7726's abdomen
-height of a standing person."""
-WIND_HEIGHT_M: Final = 10.0
-"""Height of the site's wind_speed unless its point says height_m (meteorological 10 m)."""
-WBGT_BINS: Final = 61
-"""Per-minute WBGT bins kept: the current, partial minute and the 60 before it, so that the
-60-minute mean covers a full 60 minutes (the oldest bin counts for the part of its minute
-still inside the window)."""
-"""A time-weighted WBGT needs 48 of its 60 minutes covered."""
-DAILY_MEANS_KEPT: Final = 30
 SIMPLE_SLOTS: Final = ("relative_humidity", "globe_temperature", "mean_radiant_temperature",
                        "natural_wet_bulb", "psychrometric_wet_bulb", "floor_temperature",
                        "turbulence_intensity")
@@ -102,15 +97,6 @@ class Snapshot:
         return int(self.times.size)
 
 
-@dataclass
-class _Slot:
-    pids: IntArray
-    spaces: IntArray
-    weights: FloatArray
-    flux: BoolArray | None = None
-    """For plane slots: which points measure radiant flux (converted to a temperature)."""
-
-
 class SiteState:
     """Buffers for every point of a site and the per-space windows derived from them."""
 
@@ -124,37 +110,18 @@ class SiteState:
         self.last_time = np.full(self._cap, np.nan)
         self.last_source_time = np.full(self._cap, np.nan)
         self.interval = np.full(self._cap, np.inf)
-        self.ring_row = np.full(self._cap, -1, dtype=np.int64)
         intervals = [p.interval_s for p in model.points if p.quantity == "air_speed"] or [10.0]
-        self.ring_len = int(min(256, max(8, math.ceil(self.ingest_cfg.air_speed_window_s
-                                                      / max(min(intervals), 1.0)) + 2)))
-        self._ring_cap = 16
-        self.ring_t = np.full((self._ring_cap, self.ring_len), np.nan)
-        self.ring_v = np.full((self._ring_cap, self.ring_len), np.nan)
-        self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
-        self._ring_rows = 0
-        self._ring_writes = 0
-        self._ring_copy: tuple[int, int, FloatArray, FloatArray] = (-1, -1, np.empty((0, 0)),
-                                                                    np.empty((0, 0)))
+        self.rings = AirSpeedRings(int(min(256, max(8, math.ceil(
+            self.ingest_cfg.air_speed_window_s / max(min(intervals), 1.0)) + 2))))
         self.n_points = 0
         for pid in range(len(model.points)):
             self._on_new_point(pid)
         model.listeners.append(self._on_new_point)
-        n = model.n_spaces
-        self.wbgt_sum = np.zeros((n, WBGT_BINS))
-        self.wbgt_weight = np.zeros((n, WBGT_BINS))
-        self.wbgt_minute = np.full((n, WBGT_BINS), -1, dtype=np.int64)
-        self._last_wbgt_record: float | None = None
-        self.daily_means: list[float] = list(cfg.site.outdoor_daily_means)
-        """Completed daily mean outdoor temperatures, newest first (°C)."""
-        self._day: dt.date | None = None
-        self._day_sum = 0.0
-        self._day_weight = 0.0
-        self._last_outdoor_t: float | None = None
-        self.outdoor_6am: float = math.nan
+        self.wbgt = WbgtWindow(model.n_spaces, self.ingest_cfg.wbgt_window_s)
+        self.outdoor_days = OutdoorDays(self.tz, list(cfg.site.outdoor_daily_means))
         self._slots_version = -1
-        self._slots: dict[str, _Slot] = {}
-        self._context = self._build_context()
+        self._slots: dict[str, Slot] = {}
+        self._context, self.wind_height_m = space_constants(model)
         assume = [cfg.assumptions(space) for space in cfg.spaces]
         self.assumed_air_speed = np.array(
             [a.air_speed if a.air_speed is not None else np.nan for a in assume])
@@ -166,13 +133,16 @@ class SiteState:
             [a.relative_humidity if a.relative_humidity is not None else np.nan
              for a in assume])
         """Relative humidity (%) per space; NaN where nothing is assumed."""
-        groups: dict[int, tuple[OccupancyConfig, list[int]]] = {}
-        for i, space in enumerate(cfg.spaces):
-            occ = cfg.occupancy(space)
-            groups.setdefault(id(occ), (occ, []))[1].append(i)
-        self._occupancy_groups = [(occ, np.array(m, dtype=np.int64))
-                                  for occ, m in groups.values()]
-        """Spaces sharing one occupancy schedule, so a tick evaluates each schedule once."""
+        self.schedules = Schedules(cfg, self.tz)
+
+    @property
+    def daily_means(self) -> list[float]:
+        """Completed daily mean outdoor temperatures, newest first (°C)."""
+        return self.outdoor_days.daily_means
+
+    @daily_means.setter
+    def daily_means(self, means: list[float]) -> None:
+        self.outdoor_days.daily_means = means
 
     # ------------------------------------------------------------------ points
     def _grow(self, need: int) -> None:
@@ -186,28 +156,13 @@ class SiteState:
         old_i = self.interval
         self.interval = np.full(self._cap, np.inf)
         self.interval[:old_i.size] = old_i
-        old_r = self.ring_row
-        self.ring_row = np.full(self._cap, -1, dtype=np.int64)
-        self.ring_row[:old_r.size] = old_r
 
     def _on_new_point(self, pid: int) -> None:
         spec = self.model.points[pid]
         if pid >= self._cap:
             self._grow(pid + 1)
         self.interval[pid] = spec.interval_s
-        if spec.quantity == "air_speed" or (spec.quantity == "wind_speed"):
-            if self._ring_rows >= self._ring_cap:
-                self._ring_cap *= 2
-                for name in ("ring_t", "ring_v"):
-                    old = getattr(self, name)
-                    new = np.full((self._ring_cap, self.ring_len), np.nan)
-                    new[:old.shape[0]] = old
-                    setattr(self, name, new)
-                old_h = self.ring_head
-                self.ring_head = np.zeros(self._ring_cap, dtype=np.int64)
-                self.ring_head[:old_h.size] = old_h
-            self.ring_row[pid] = self._ring_rows
-            self._ring_rows += 1
+        self.rings.add_point(pid, spec.quantity in ("air_speed", "wind_speed"))
         self.n_points = max(self.n_points, pid + 1)
 
     # ------------------------------------------------------------------ readings
@@ -223,225 +178,32 @@ class SiteState:
         self.last_value[pid] = value
         self.last_time[pid] = t
         self.last_source_time[pid] = source_time
-        row = self.ring_row[pid]
-        if row >= 0:
-            h = self.ring_head[row]
-            self.ring_t[row, h] = t
-            self.ring_v[row, h] = value
-            self.ring_head[row] = (h + 1) % self.ring_len
-            self._ring_writes += 1
-
-    # ------------------------------------------------------------------ context
-    def _build_context(self) -> dict[str, object]:
-        cfg = self.model.config
-        spaces = cfg.spaces
-        n = len(spaces)
-        people = [cfg.people(s) for s in spaces]
-        globe_d = np.full(n, 0.15)
-        globe_e = np.full(n, 0.95)
-        for p in self.model.points:  # each point's own globe (not the first on its topic)
-            if p.space != SITE and p.quantity == "globe_temperature":
-                if p.globe_diameter_m:
-                    globe_d[p.space] = p.globe_diameter_m
-                if p.globe_emissivity:
-                    globe_e[p.space] = p.globe_emissivity
-        # heights of the air speed sensors (UTCI converts to 10 m): a space's own air_speed
-        # point at 1.1 m unless it says height_m; the site's wind_speed at 10 m unless it says
-        speed_height = np.full(n, DEFAULT_AIR_SPEED_HEIGHT_M)
-        self.wind_height_m = WIND_HEIGHT_M
-        for p in self.model.points:
-            # each point's own height (several points may share one topic: a SenML pack)
-            if p.quantity not in ("air_speed", "wind_speed") or p.height_m is None:
-                continue
-            if p.space == SITE:
-                self.wind_height_m = p.height_m
-            else:
-                speed_height[p.space] = p.height_m
-        if cfg.site.barometric_pressure_pa is not None:
-            pressure = cfg.site.barometric_pressure_pa
-        elif cfg.site.altitude_m is not None:
-            pressure = float(pressure_from_altitude(cfg.site.altitude_m))
-        else:
-            pressure = STANDARD_PRESSURE_PA
-        indoor = np.array([s.kind == "indoor" for s in spaces], dtype=bool)
-        solar = np.array([(s.solar_load if s.solar_load is not None else s.kind == "outdoor")
-                          for s in spaces], dtype=bool)
-        return {
-            "met": np.array([p.met_value for p in people]),
-            "clo": np.array([p.clo if p.clothing_model == "fixed" and p.clo is not None
-                             else np.nan for p in people]),
-            "acclimatised": np.array([p.acclimatised for p in people], dtype=bool),
-            "clothing_adjustment_k": np.array([p.adjustment_k for p in people]),
-            "posture": tuple(p.posture for p in people),
-            "indoor": indoor, "solar_load": solar,
-            "hot_work": np.array([s.hot_work for s in spaces], dtype=bool),
-            "naturally_ventilated": np.array([s.ventilation == "natural" for s in spaces],
-                                             dtype=bool),
-            "pressure_pa": np.full(n, pressure),
-            "latitude": np.full(n, np.nan if cfg.site.latitude is None else cfg.site.latitude),
-            "longitude": np.full(n, np.nan if cfg.site.longitude is None
-                                 else cfg.site.longitude),
-            "air_speed_height_m": speed_height,
-            "globe_diameter_m": globe_d, "globe_emissivity": globe_e,
-            "target_pmv": np.array([float(cfg.parameters(s).get("target_pmv", 0.5))
-                                    for s in spaces]),
-            "phs_edition": tuple(s.phs_edition for s in spaces),
-        }
-
-    # ------------------------------------------------------------------ slots
-    def _build_slots(self) -> None:
-        model = self.model
-        groups: dict[str, tuple[list[int], list[int], list[float]]] = {}
-        combine = [s.combine for s in model.config.spaces]
-
-        def add(slot: str, pid: int, space: int, w: float) -> None:
-            g = groups.setdefault(slot, ([], [], []))
-            g[0].append(pid)
-            g[1].append(space)
-            g[2].append(w)
-
-        for pid, p in enumerate(model.points):
-            if p.space == SITE:
-                add(p.quantity, pid, 0, 1.0)
-                continue
-            w = HEIGHT_WEIGHTS[p.height] if combine[p.space] == "height_weighted" else 1.0
-            if p.quantity in ("plane_radiant_temperature", "radiant_flux"):
-                add(f"plane:{p.side}", pid, p.space, 1.0)
-            elif p.quantity == "air_temperature":
-                add("air_temperature", pid, p.space, w)
-                if p.height in ("head", "ankle"):
-                    add(f"air_temperature_{p.height}", pid, p.space, 1.0)
-            else:
-                add(p.quantity, pid, p.space, w)
-            # redundant sensors are compared only with sensors at the same height (and
-            # radiant sensors only with sensors facing the same side, below)
-            if p.side is None:
-                add(f"height:{p.height or 'any'}:{p.quantity}", pid, p.space, 1.0)
-        self._slots = {k: _Slot(np.array(v[0], dtype=np.int64), np.array(v[1], dtype=np.int64),
-                                np.array(v[2], dtype=np.float64)) for k, v in groups.items()}
-        for name, slot in self._slots.items():
-            if name.startswith("plane:"):
-                slot.flux = np.array([model.points[p].quantity == "radiant_flux"
-                                      for p in slot.pids], dtype=bool)
-        self._slots_version = len(model.points)
+        self.rings.record(pid, t, value)
 
     # ------------------------------------------------------------------ snapshot
-    def _combine(self, slot: _Slot, values: FloatArray, fresh: BoolArray, n: int
-                 ) -> tuple[FloatArray, FloatArray]:
-        """Weighted mean per row (time x space) of fresh values, and the spread (max - min).
-
-        ``values`` and ``fresh`` are (K, points); the results are (K * n,)."""
-        k = values.shape[0]
-        v = values[:, slot.pids]
-        ok = fresh[:, slot.pids] & np.isfinite(v)
-        rows = (np.arange(k)[:, None] * n + slot.spaces[None, :]).ravel()
-        w = np.where(ok, slot.weights[None, :], 0.0).ravel()
-        okr = ok.ravel()
-        vr = v.ravel()
-        num = np.bincount(rows, weights=np.where(okr, vr, 0.0) * w, minlength=k * n)
-        den = np.bincount(rows, weights=w, minlength=k * n)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.where(den > 0, num / den, np.nan)
-        hi = np.full(k * n, -np.inf)
-        lo = np.full(k * n, np.inf)
-        np.maximum.at(hi, rows[okr], vr[okr])
-        np.minimum.at(lo, rows[okr], vr[okr])
-        count = np.bincount(rows[okr], minlength=k * n)
-        spread = np.where(count >= 2, hi - lo, np.nan)
-        return mean, spread
-
-    def _extreme(self, slot: _Slot, values: FloatArray, fresh: BoolArray, n: int,
-                 highest: bool) -> FloatArray:
-        """Highest (or lowest) fresh value per row (time x space), NaN if none."""
-        k = values.shape[0]
-        v = values[:, slot.pids]
-        ok = (fresh[:, slot.pids] & np.isfinite(v)).ravel()
-        rows = (np.arange(k)[:, None] * n + slot.spaces[None, :]).ravel()[ok]
-        out = np.full(k * n, -np.inf if highest else np.inf)
-        (np.maximum if highest else np.minimum).at(out, rows, v.ravel()[ok])
-        result: FloatArray = np.where(np.isfinite(out), out, np.nan)
-        return result
-
-    def _air_speed_window(self, times: FloatArray, t: FloatArray, v: FloatArray
-                          ) -> tuple[FloatArray, FloatArray]:
-        """Mean air speed over the window and turbulence intensity (%) per (time, point),
-        from ring buffers ``t``, ``v`` of shape (K, points, ring length).
-
-        ISO 7726:1998: the mean over the measuring period (3 min suggested) and the
-        turbulence intensity = 100 x standard deviation / mean.
-        """
-        now = times[:, None, None]
-        inside = np.isfinite(t) & (t >= now - self.ingest_cfg.air_speed_window_s) & (t <= now)
-        cnt = inside.sum(axis=2)
-        s = np.where(inside, v, 0.0).sum(axis=2)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            mean = np.where(cnt > 0, s / cnt, np.nan)
-            var = np.where(inside, (v - mean[:, :, None]) ** 2, 0.0).sum(axis=2) / np.maximum(
-                cnt - 1, 1)
-            tu = np.where((cnt >= 3) & (mean > 0.05), 100.0 * np.sqrt(var) / mean, np.nan)
-        return mean, tu
-
     def occupied(self, now: float, states: FloatArray) -> BoolArray:
         """Occupied per space: a fresh occupancy point wins, else the weekly schedule."""
         return self.occupied_many(np.array([now]), states)
 
     def occupied_many(self, times: FloatArray, states: FloatArray) -> BoolArray:
         """:meth:`occupied` at each of ``times``; ``states`` holds K x N rows."""
-        n = self.model.n_spaces
-        out = np.zeros(times.size * n, dtype=bool)
-        last_minute: int | None = None
-        row = np.zeros(n, dtype=bool)
-        for j, now in enumerate(times.tolist()):
-            minute = int(now // 60)
-            if minute != last_minute:  # schedules have minute resolution
-                last_minute = minute
-                local = dt.datetime.fromtimestamp(now, self.tz)
-                day = ("mon", "tue", "wed", "thu", "fri", "sat", "sun")[local.weekday()]
-                hhmm = local.strftime("%H:%M")
-                row = np.zeros(n, dtype=bool)
-                for occ, members in self._occupancy_groups:
-                    row[members] = _scheduled(occ, local.date(), day, hhmm)
-            out[j * n:(j + 1) * n] = row
-        result: BoolArray = np.where(np.isfinite(states), states >= 0.5, out)
-        return result
-
-    def _roll_outdoor(self, now: float, outdoor_t: float) -> None:
-        """Accumulate the local-day mean outdoor temperature; push it at local midnight."""
-        local = dt.datetime.fromtimestamp(now, self.tz)
-        today = local.date()
-        if self._day is not None and today != self._day:
-            if self._day_weight >= 0.5 * 86_400 * 0.5:  # at least 12 h of data
-                self.daily_means.insert(0, self._day_sum / self._day_weight)
-                del self.daily_means[DAILY_MEANS_KEPT:]
-            self._day_sum = 0.0
-            self._day_weight = 0.0
-        self._day = today
-        if self._last_outdoor_t is not None and math.isfinite(outdoor_t):
-            dt_s = min(now - self._last_outdoor_t, 3600.0)
-            if dt_s > 0:
-                self._day_sum += outdoor_t * dt_s
-                self._day_weight += dt_s
-        self._last_outdoor_t = now
-        if math.isfinite(outdoor_t) and local.hour == 6 and (
-                not math.isfinite(self.outdoor_6am) or local.minute < 5):
-            self.outdoor_6am = outdoor_t
+        return self.schedules.occupied_many(times, states)
 
     def capture(self, now: float) -> Capture:
         """Copy what an evaluation at ``now`` needs from the points (cheap; see
         :meth:`snapshot_many`)."""
-        if self._slots_version != len(self.model.points):
-            self._build_slots()
+        self._check_slots()
         p = self.n_points
         slot = self._slots.get("air_speed")
-        version = (self._ring_writes, self._slots_version)
-        if self._ring_copy[:2] != version:
-            if slot is not None:
-                rows = self.ring_row[slot.pids]
-                self._ring_copy = (*version, self.ring_t[rows], self.ring_v[rows])
-            else:
-                self._ring_copy = (*version, np.empty((0, 0)), np.empty((0, 0)))
+        ring_t, ring_v = self.rings.copy_of(slot.pids if slot is not None else None,
+                                            self._slots_version)
         return Capture(now, self.last_value[:p].copy(), self.last_time[:p].copy(),
-                       self._ring_copy[2], self._ring_copy[3])
+                       ring_t, ring_v)
+
+    def _check_slots(self) -> None:
+        if self._slots_version != len(self.model.points):
+            self._slots = build_slots(self.model)
+            self._slots_version = len(self.model.points)
 
     def snapshot(self, now: float) -> Snapshot:
         """All spaces at ``now``: index inputs (stale -> NaN), states, freshness."""
@@ -451,8 +213,7 @@ class SiteState:
         """All spaces at each captured time, as K x N rows, computed as one set of array
         operations. Captures must be in time order and are taken in order (the outdoor
         daily means roll forward through them)."""
-        if self._slots_version != len(self.model.points):
-            self._build_slots()
+        self._check_slots()
         n = self.model.n_spaces
         k = len(caps)
         npts = self.n_points
@@ -485,14 +246,14 @@ class SiteState:
                 continue
             if name.startswith("height:"):
                 # sensors at one height may be compared; different heights differ by design
-                _, hspread = self._combine(slot, values, fresh, n)
+                _, hspread = combine(slot, values, fresh, n)
                 q = name.split(":", 2)[2]
                 spread[q] = np.fmax(spread.get(q, np.full(rows, np.nan)), hspread)
                 continue
             if name == "surface_temperature":
-                got[name] = self._extreme(slot, values, fresh, n, highest=False)
+                got[name] = extreme(slot, values, fresh, n, highest=False)
                 continue
-            got[name], _ = self._combine(slot, values, fresh, n)
+            got[name], _ = combine(slot, values, fresh, n)
         planes: dict[str, FloatArray] = {}
         for side in radiation.SIDES:
             slot = self._slots.get(f"plane:{side}")
@@ -504,7 +265,7 @@ class SiteState:
                 vals = values.copy()
                 vals[:, slot.pids[flux]] = radiation.plane_radiant_temperature_from_flux(
                     values[:, slot.pids[flux]])
-            planes[side], spread[f"plane_radiant_temperature_{side}"] = self._combine(
+            planes[side], spread[f"plane_radiant_temperature_{side}"] = combine(
                 slot, vals, fresh, n)
         nan_rows = np.full(rows, np.nan)
         speed = nan_rows
@@ -516,13 +277,14 @@ class SiteState:
             usable = np.array([j for j, c in enumerate(caps)
                                if c.ring_t.shape[0] == slot.pids.size], dtype=np.int64)
             if usable.size:
-                mean_v, tu = self._air_speed_window(
+                mean_v, tu = window_mean_and_turbulence(
                     times[usable], np.stack([caps[j].ring_t for j in usable.tolist()]),
-                    np.stack([caps[j].ring_v for j in usable.tolist()]))
+                    np.stack([caps[j].ring_v for j in usable.tolist()]),
+                    self.ingest_cfg.air_speed_window_s)
                 point_vals[np.ix_(usable, slot.pids)] = mean_v
                 point_tu[np.ix_(usable, slot.pids)] = tu
-            speed, spread["air_speed"] = self._combine(slot, point_vals, fresh, n)
-            turbulence, _ = self._combine(slot, point_tu, fresh, n)
+            speed, spread["air_speed"] = combine(slot, point_vals, fresh, n)
+            turbulence, _ = combine(slot, point_tu, fresh, n)
         measured_tu = got.get("turbulence_intensity", nan_rows)
         turbulence = np.where(np.isfinite(measured_tu), measured_tu, turbulence)
 
@@ -546,21 +308,22 @@ class SiteState:
         clo_outdoor = np.full(k, np.nan)
         days_rolled: dict[int, list[float]] = {}
         out_t = outdoor["outdoor_air_temperature"].tolist()
+        days = self.outdoor_days
         for j, now in enumerate(times.tolist()):
-            known = len(self.daily_means)
-            self._roll_outdoor(now, out_t[j])
-            if len(self.daily_means) != known and self.daily_means:
-                days_rolled[j] = list(self.daily_means)
+            known = len(days.daily_means)
+            days.roll(now, out_t[j])
+            if len(days.daily_means) != known and days.daily_means:
+                days_rolled[j] = list(days.daily_means)
             if j == 0 or j in days_rolled:
-                mean = (float(running_mean_outdoor([self.daily_means])[0])
-                        if len(self.daily_means) >= 7 else math.nan)
+                mean = (float(running_mean_outdoor([days.daily_means])[0])
+                        if len(days.daily_means) >= 7 else math.nan)
             rm[j] = mean
-            clo_outdoor[j] = self.outdoor_6am if math.isfinite(self.outdoor_6am) else out_t[j]
+            clo_outdoor[j] = days.at_6am if math.isfinite(days.at_6am) else out_t[j]
         states = {}
         for q in STATE_QUANTITIES:
             slot = self._slots.get(q)
             states[q] = (nan_rows if slot is None
-                         else self._extreme(slot, values, fresh, n, highest=True))
+                         else extreme(slot, values, fresh, n, highest=True))
         twa = np.repeat(np.full(k, np.nan), n)
         twa[(k - 1) * n:] = self.wbgt_time_weighted(float(times[-1]))
         context = {name: (np.tile(v, k) if isinstance(v, np.ndarray) else
@@ -640,56 +403,9 @@ class SiteState:
 
     # ------------------------------------------------------------------ WBGT history
     def record_wbgt(self, now: float, wbgt: FloatArray) -> None:
-        """Add this tick's WBGT (°C per space) to the per-minute bins of the 60-min window.
-
-        Each tick's value holds from the previous tick to this one (sample and hold, at most
-        two minutes), which is the time weighting of ISO 7243 / NIOSH for sampled data.
-        """
-        last = self._last_wbgt_record
-        self._last_wbgt_record = now
-        if last is None:
-            return
-        dt_s = min(now - last, 2 * WBGT_BIN_S)
-        if dt_s <= 0:
-            return
-        minute = int(now // WBGT_BIN_S)
-        slot = minute % WBGT_BINS
-        stale = self.wbgt_minute[:, slot] != minute
-        self.wbgt_sum[stale, slot] = 0.0
-        self.wbgt_weight[stale, slot] = 0.0
-        self.wbgt_minute[:, slot] = minute
-        ok = np.isfinite(wbgt)
-        self.wbgt_sum[ok, slot] += wbgt[ok] * dt_s
-        self.wbgt_weight[ok, slot] += dt_s
+        """Add this tick's WBGT (°C per space) to the 60-minute window (:class:`WbgtWindow`)."""
+        self.wbgt.record(now, wbgt)
 
     def wbgt_time_weighted(self, now: float) -> FloatArray:
-        """Time-weighted WBGT over the 60 minutes before ``now`` (°C); NaN below 80 % coverage.
-
-        The window is exactly 60 minutes: the current partial minute, the 59 minutes before
-        it in full, and the part of the minute before those still inside the window (its
-        bin weighted by that fraction, the samples taken as spread over their minute).
-        """
-        minute = int(now // WBGT_BIN_S)
-        elapsed = (now - minute * WBGT_BIN_S) / WBGT_BIN_S
-        age = minute - self.wbgt_minute
-        factor = np.where((age >= 0) & (age < 60), 1.0, np.where(age == 60, 1.0 - elapsed, 0.0))
-        s = (self.wbgt_sum * factor).sum(axis=1)
-        w = (self.wbgt_weight * factor).sum(axis=1)
-        window = self.ingest_cfg.wbgt_window_s
-        with np.errstate(invalid="ignore", divide="ignore"):
-            result: FloatArray = np.where(w >= MIN_TWA_COVERAGE * min(window, 3600.0), s / w,
-                                          np.nan)
-        return result
-
-
-def _scheduled(occ: OccupancyConfig, date: dt.date, day: str, hhmm: str) -> bool:
-    if occ.always:
-        return True
-    if date in occ.holidays:
-        return False
-    for span in occ.hours.get(day, []):  # type: ignore[call-overload]
-        start, end = span.split("-")
-        if start <= hhmm < end:
-            return True
-    return False
-
+        """Time-weighted WBGT over the 60 minutes before ``now`` (°C); NaN below 80 % coverage."""
+        return self.wbgt.time_weighted(now)

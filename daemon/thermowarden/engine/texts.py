@@ -1,21 +1,46 @@
 """What an advisory says: its numbers, expected benefit, title, advice and rationale for one
-space, rendered from the rule's templates with the values of the moment."""
+space, rendered from the rule's templates with the values of the moment
+(:class:`RenderContext`, the evaluation in progress), its level's texts or the rule's easing
+and cleared texts, and the time since advice was acted on."""
 
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
+from collections.abc import Set as AbstractSet
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from thermowarden.config import SiteConfig
-from thermowarden.core.columns import IndexColumn
+from thermowarden.core.columns import BoolArray, IndexColumn
 from thermowarden.core.expressions import Expression
 from thermowarden.core.json_values import num
 from thermowarden.core.quantities import QUANTITIES
 from thermowarden.rules import CompiledRule, MessageTemplate
 from thermowarden.site_model import SiteModel
+
+
+def no_details(i: int, wanted: AbstractSet[str]) -> dict[str, object]:
+    return {}
+
+
+@dataclass
+class RenderContext:
+    """The evaluation in progress, for rendering texts with the numbers of the moment."""
+
+    base: Mapping[str, Any]
+    table: Mapping[str, IndexColumn] | None
+    details: Callable[[int, AbstractSet[str]], dict[str, object]] = no_details
+    """Text fields of one space that are not arrays (sensor names, the WBGT basis)."""
+    evaluated: BoolArray | None = None
+    """The spaces this evaluation computed (None: all). A space taken over from another
+    instance since has no numbers of its own here yet: its texts are not rendered again
+    until it has been evaluated."""
+
+    def has_numbers(self, i: int) -> bool:
+        return self.table is not None and (self.evaluated is None or bool(self.evaluated[i]))
 
 
 def one_space(expr: Expression, env: Mapping[str, Any], params: Mapping[str, Any],
@@ -83,6 +108,14 @@ NOT_NOW = ("The measurements behind this advisory are not available at the momen
            "numbers for the reasons.")
 
 
+def values_now(rule: CompiledRule, ctx: RenderContext, params: Mapping[str, Any], i: int,
+               n: int) -> dict[str, Any]:
+    """The values of the rule's numbers for space ``i`` in this evaluation (units as in
+    an advisory's ``numbers``; None where not known)."""
+    numbers, _, _ = values_at(rule, ctx.base, params, ctx.table, i, n)
+    return {name: item["value"] for name, item in numbers.items()}
+
+
 class Texts:
     """Renders advisories of one site."""
 
@@ -90,6 +123,39 @@ class Texts:
         self.config = config
         self.model = model
         self.site_name = config.site.name or config.site.id
+
+    def show(self, rule: CompiledRule, adv: Any, ctx: RenderContext,
+             params: Mapping[str, Any], level: int, now: float | None = None,
+             mode: str = "level", clear_in_min: float | None = None) -> None:
+        """Render ``adv``'s texts with the numbers of this evaluation (``ctx``) at priority
+        index ``level``: its level's texts, or (``mode``) the rule's ``easing`` texts (with
+        the projected ``clear_in_min``) or ``cleared`` texts. Not again where nothing they
+        read has changed since the last rendering; ``now`` (None: keep) is when the
+        advisory's numbers are of."""
+        extra = dict(ctx.details(adv.space, rule.template_names))
+        texts = None
+        easing = rule.easing
+        if easing is not None and mode == "easing":
+            texts = (easing.title, easing.advice)
+            if clear_in_min is not None:
+                extra["clear_in_min"] = clear_in_min
+        elif easing is not None and mode == "cleared":
+            texts = (easing.cleared_title, easing.cleared_advice)
+        if adv.acted_on is not None and now is not None:
+            t0 = float(adv.acted_on.get("_t", adv.updated_at))
+            extra["acted_minutes_ago"] = max(0.0, (now - t0) / 60)
+            effect = adv.acted_on.get("effect")
+            if effect is not None and effect.get("predicted") is not None:
+                extra["effect_predicted"] = effect["predicted"]
+        key = (adv.effect_overdue, mode, self.render_key(
+            rule, adv.space, ctx.base, params, ctx.table, level, extra))
+        adv.numbers_at = now if now is not None else adv.numbers_at
+        if key == adv.rendered_from:
+            return  # the same values as at the last rendering: the same texts
+        self.render(rule, adv, ctx.base, params, ctx.table, level, extra, texts)
+        if adv.effect_overdue and adv.no_effect_text:
+            adv.advice = adv.no_effect_text
+        adv.rendered_from = key
 
     def render(self, rule: CompiledRule, adv: Any, env: Mapping[str, Any],
                params: Mapping[str, Any], table: Mapping[str, IndexColumn] | None, level: int,

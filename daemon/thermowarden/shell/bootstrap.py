@@ -29,11 +29,13 @@ from thermowarden.engine import Engine, iso
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.shell.clock import Clock
 from thermowarden.shell.delivery import Delivery
-from thermowarden.shell.group import Group, lease_clock
+from thermowarden.shell.group import Group
 from thermowarden.shell.http_ops import start_http
+from thermowarden.shell.inbox import Control, Inbox
+from thermowarden.shell.lease_keeper import lease_clock
 from thermowarden.shell.leases import LeaseStore
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
+from thermowarden.shell.mqtt_link import MqttLink
 from thermowarden.shell.reloading import prepare_reload
 from thermowarden.shell.service import Service
 from thermowarden.shell.store import (

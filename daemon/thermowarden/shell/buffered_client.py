@@ -352,3 +352,21 @@ class BufferedClient(mqtt.Client):
                            "packet": bytearray(b""), "to_process": 0, "pos": 0}
         self._bytes_seen = True
         return rc
+
+
+def no_op(*args: Any) -> None:
+    """paho's socket-registration callbacks, where nothing is to be done (setting them selects
+    paho's queue-only publishing path: see :mod:`thermowarden.shell.mqtt_link`)."""
+
+
+def release_sockets(client: mqtt.Client) -> None:
+    """Close a stopped paho client's sockets now, its wake-up socket pair included.
+
+    paho (2.2) closes that pair only when the client object is finalised. A client held in a
+    reference cycle (its callbacks are bound methods of its owner) is finalised by the cyclic
+    collector, which may finalise the pair's sockets first: they are then closed late, with a
+    ResourceWarning, in whatever code happens to run the collector. Call it once the client's
+    network loop has ended; a later ``loop()`` makes a new pair."""
+    reset = getattr(client, "_reset_sockets", None)  # paho's own closing of both
+    if callable(reset):
+        reset()

@@ -14,8 +14,9 @@ if TYPE_CHECKING:
     from thermowarden.effects import Effect
     from thermowarden.engine import Engine
     from thermowarden.shell.clock import Clock
+    from thermowarden.shell.inbox import Incoming
     from thermowarden.shell.metrics import Metrics
-    from thermowarden.shell.mqtt_link import Incoming, MqttLink
+    from thermowarden.shell.mqtt_link import MqttLink
 
 
 class EngineHost(Protocol):

@@ -24,20 +24,10 @@ paho keeps every QoS 1 message it was handed until the broker acknowledges it, a
 reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
-Retained commands are never executed (a retained command would run again at every
-reconnect): they are counted and cleared without a reply. Under MQTT 5 the command
-subscription asks for the retain flag as published, so even the first, live delivery of a
-retained command is refused; MQTT 3.1.1 cannot tell a live retained message from a plain
-one, so there the service clears the topic's retained message after every command it
-executes. An empty message on a command topic (such a clearing, the service's own included:
-3.1.1 has no "no local") is no command: it is dropped without a reply. Command bodies over
-the limit are not decoded.
-A message over ``max_packet_bytes`` (the larger of the payload and command limits, plus
-some room for the topic) is never held whole, on either protocol: the client reads its
-fixed header, drops its bytes as they come (see :class:`BufferedClient`) and hands the
-engine thread its topic and size, so it is counted and refused like any payload over the
-limit. Under MQTT 5 the client announces a maximum packet size of :data:`SEEN_PACKET_BYTES`
-(or ``max_packet_bytes`` when larger), far above the limit, so the broker sends it what it
+Received messages are sorted by kind onto the inbox by :mod:`thermowarden.shell.
+message_sorting` (retained and oversized commands, oversized sensor messages).
+Under MQTT 5 the client announces a maximum packet size of :data:`SEEN_PACKET_BYTES` (or
+``max_packet_bytes`` when larger), far above the limit, so the broker sends it what it
 refuses and it can count it; the broker drops anything larger for this client (Mosquitto
 logs it, and counts it nowhere the service can read).
 """
@@ -48,14 +38,10 @@ import json
 import logging
 import queue
 import random
-import socket
 import ssl
 import threading
 import time
-import urllib.parse
-from collections import deque
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 import paho.mqtt.client as mqtt
@@ -65,8 +51,17 @@ from paho.mqtt.properties import Properties
 from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
-from thermowarden.shell.buffered_client import BufferedClient, Oversized
+from thermowarden.shell.broker_nodes import BrokerNodes, parse_url
+from thermowarden.shell.buffered_client import BufferedClient, no_op, release_sockets
+from thermowarden.shell.inbox import Control, Inbox, Incoming, SensorMessage
+from thermowarden.shell.message_sorting import MessageSorter
 from thermowarden.shell.metrics import Metrics
+
+__all__ = ["Control", "Inbox", "Incoming", "MqttLink", "SensorMessage", "parse_url",
+           "release_sockets"]
+"""Also named here: the hand-over's types (:mod:`thermowarden.shell.inbox`), the URL parser
+(:mod:`thermowarden.shell.broker_nodes`) and the socket release
+(:mod:`thermowarden.shell.buffered_client`), for the modules that import them from here."""
 
 log = logging.getLogger("thermowarden.mqtt")
 
@@ -82,108 +77,6 @@ its limits without holding them; larger ones the broker drops."""
 SYS_TOPICS = ("$SYS/broker/publish/messages/dropped",
               "$SYS/broker/store/messages/count")
 """Mosquitto's own counters: messages it dropped (queue limits), messages it holds."""
-
-
-@dataclass(slots=True)
-class Incoming:
-    """A message from the broker, as the engine thread receives it."""
-
-    topic: str
-    payload: bytes
-    received: float
-    response_topic: str | None = None
-    correlation: bytes | None = None
-    retained: bool = False
-    identity: str | None = None
-    """The sender's identity from the configured MQTT 5 user property (commands only)."""
-    oversize: int = 0
-    """A command body over the limit: its length (the body itself is dropped)."""
-    kind: str = "sensor"
-    """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys",
-    "watch" (a group's status records and retained advisories) or "oversize" (a sensor
-    message over the packet limit, dropped unread: ``oversize`` is its size)."""
-    on_reply: Callable[[dict[str, Any]], None] | None = None
-    """For a command from the web page or API: called with the engine's reply."""
-
-
-@dataclass(frozen=True)
-class Control:
-    """A connection event or a publish acknowledgement."""
-
-    kind: str  # "connected", "disconnected", "subscribed", "puback", "refused", "dropped"
-    mid: int = 0
-    reason: str = ""
-    failed: bool = False
-    topic: str = ""
-    """puback: the topic of the acknowledged (or refused) message, where known."""
-
-
-SensorMessage = tuple[str, bytes, float, bool]
-"""A sensor message as the engine thread receives it: topic, payload, when it was received
-(epoch s) and whether the broker kept it (retained)."""
-
-
-class Inbox:
-    """A bounded hand-over from the network thread to the engine thread.
-
-    A deque (append and popleft are atomic in CPython) with a wake-up event: cheaper per
-    message than ``queue.Queue``, which takes a lock and a condition for every item. The
-    event is set only when it is not set already (the engine thread clears it when it
-    wakes), so a flood does not take its lock once per message. Sensor messages travel as
-    :data:`SensorMessage` tuples, everything else as :class:`Incoming`. ``put`` refuses
-    (returns False) when full; the caller counts the overflow.
-    """
-
-    def __init__(self, maxsize: int) -> None:
-        self.maxsize = maxsize
-        self.items: deque[Incoming | SensorMessage] = deque()
-        self.ready = threading.Event()
-
-    def put(self, item: Incoming | SensorMessage) -> bool:
-        if len(self.items) >= self.maxsize:
-            return False
-        self.items.append(item)
-        if not self.ready.is_set():  # the flag read is cheap; set() takes a lock
-            self.ready.set()
-        return True
-
-    def wait(self, timeout: float) -> None:
-        """Block until something arrives (or ``timeout``)."""
-        if not self.items:
-            self.ready.wait(timeout)
-        self.ready.clear()
-
-    def take(self, limit: int) -> list[Incoming | SensorMessage]:
-        """Up to ``limit`` items, oldest first."""
-        items = self.items
-        popleft = items.popleft
-        return [popleft() for _ in range(min(limit, len(items)))]
-
-    def qsize(self) -> int:
-        return len(self.items)
-
-
-def _no_op(*args: Any) -> None:
-    """paho's socket-registration callbacks: nothing to do (see the module docstring)."""
-
-
-def release_sockets(client: mqtt.Client) -> None:
-    """Close a stopped paho client's sockets now, its wake-up socket pair included.
-
-    paho (2.2) closes that pair only when the client object is finalised. A client held in a
-    reference cycle (its callbacks are bound methods of its owner) is finalised by the cyclic
-    collector, which may finalise the pair's sockets first: they are then closed late, with a
-    ResourceWarning, in whatever code happens to run the collector. Call it once the client's
-    network loop has ended; a later ``loop()`` makes a new pair."""
-    reset = getattr(client, "_reset_sockets", None)  # paho's own closing of both
-    if callable(reset):
-        reset()
-
-
-def parse_url(url: str) -> tuple[str, int, bool]:
-    u = urllib.parse.urlparse(url)
-    tls = u.scheme == "mqtts"
-    return u.hostname or "127.0.0.1", u.port or (8883 if tls else 1883), tls
 
 
 class MqttLink:
@@ -206,9 +99,6 @@ class MqttLink:
         if echo_prefix:
             self.subscriptions.append(echo_prefix + "#")
         self.read_sys = read_sys
-        self.watch = watch
-        """Topic prefixes delivered as kind "watch" (a group's status records and retained
-        advisories), not counted as sensor messages."""
         self.status_topic = status_topic
         self.status_online = status_online
         self.status_offline = status_offline
@@ -218,17 +108,17 @@ class MqttLink:
         self.control = control
         self.metrics = metrics
         self.v5 = cfg.protocol == "5"
-        self.nodes = [parse_url(u) for u in [cfg.url, *cfg.fallback_urls]]
-        """Every broker node: (host, port, tls), tried in turn."""
-        self.node = 0
-        self.host, self.port, tls = self.nodes[0]
+        self.nodes = BrokerNodes([cfg.url, *cfg.fallback_urls])
+        tls = self.nodes.tls
         self.client = BufferedClient(
             callback_api_version=CallbackAPIVersion.VERSION2, client_id=client_id,
             protocol=mqtt.MQTTv5 if self.v5 else mqtt.MQTTv311,
             reconnect_on_failure=False)
         self.client.max_queued_messages_set(0)
         self.client.max_publish_bytes = max_packet_bytes
-        self.client.on_oversized = self._on_oversized
+        self.sorter = MessageSorter(inbox, metrics, self.client, command_prefix, now,
+                                    max_command_bytes, identity_property, echo_prefix, watch)
+        self.client.on_oversized = self.sorter.on_oversized
         if cfg.username:
             self.client.username_pw_set(cfg.username, read_password(cfg))
         if tls or cfg.tls is not None:
@@ -240,24 +130,21 @@ class MqttLink:
             self.client.tls_insecure_set(False)  # the broker's host name is checked
         self.client.on_connect = self._on_connect
         self.client.on_disconnect = self._on_disconnect
-        self.client.on_message = self._on_message
+        self.client.on_message = self.sorter.on_message
         self.client.on_publish = self._on_publish
         self.client.on_subscribe = self._on_subscribe
         # the network thread alone writes the socket (see the module docstring)
-        self.client.on_socket_register_write = _no_op
-        self.client.on_socket_unregister_write = _no_op
+        self.client.on_socket_register_write = no_op
+        self.client.on_socket_unregister_write = no_op
         self.connected = threading.Event()
         self.subscribed = threading.Event()
         self._stop = threading.Event()
         self._stopping = threading.Event()  # an orderly stop: a disconnect is expected
         self._thread: threading.Thread | None = None
         self._connects = 0
-        self.received = 0
-        """Messages received (the metric is updated from this by the engine thread)."""
         self._pending_subs: set[int] = set()
         self._refused = False
         """The broker refused the latest connection (its CONNACK said so)."""
-        self._round_start = 0
         self.qos0: set[str] = set()
         """Topic filters subscribed at QoS 0 (a group's heartbeats: on a JetStream-backed
         broker QoS 0 deliveries do not wait for the streams)."""
@@ -271,6 +158,30 @@ class MqttLink:
         shard whose lease lapsed while the connection was down."""
         self._retry_subs: set[str] = set()
         """Subscriptions the broker refused: asked for again every ``RETRY_SUBSCRIBE_S``."""
+
+    @property
+    def received(self) -> int:
+        """Sensor messages received (the metric is updated from this by the engine thread)."""
+        return self.sorter.received
+
+    @property
+    def watch(self) -> tuple[str, ...]:
+        """Topic prefixes delivered as kind "watch" (a group's status records and retained
+        advisories), not counted as sensor messages."""
+        return self.sorter.watch
+
+    @watch.setter
+    def watch(self, prefixes: tuple[str, ...]) -> None:
+        self.sorter.watch = prefixes
+
+    @property
+    def host(self) -> str:
+        """The broker node in use."""
+        return self.nodes.host
+
+    @property
+    def port(self) -> int:
+        return self.nodes.port
 
     # ---------------------------------------------------------------- callbacks (enqueue only)
     def _on_connect(self, client: mqtt.Client, userdata: Any, flags: Any, reason: Any,
@@ -354,71 +265,6 @@ class MqttLink:
             self.subscribed.set()
             self.control.put(Control("subscribed"))
 
-    def _on_message(self, client: mqtt.Client, userdata: Any, msg: mqtt.MQTTMessage) -> None:
-        topic = msg.topic
-        if topic.startswith(self.command_prefix):  # only commands carry reply properties
-            if not msg.payload:
-                # the clearing of a retained command (the service's own, or anyone's):
-                # never a command, never answered (MQTT 3.1.1 has no "no local", so the
-                # service receives its own clearing; answering it looped)
-                return
-            if msg.retain:
-                # never executed: it would run again at every reconnect
-                self.metrics.retained_commands.inc()
-                client.publish(topic, b"", qos=1, retain=True)  # clear it
-                return
-            props = getattr(msg, "properties", None)
-            size = len(msg.payload)
-            item = Incoming(topic, b"" if size > self.max_command_bytes else bytes(msg.payload),
-                            self.now(), getattr(props, "ResponseTopic", None),
-                            getattr(props, "CorrelationData", None), kind="command",
-                            identity=self._identity(props),
-                            oversize=size if size > self.max_command_bytes else 0)
-        elif self.echo_prefix and topic.startswith(self.echo_prefix):
-            item = Incoming(topic, bytes(msg.payload), 0.0, kind="echo")
-        elif topic.startswith("$SYS/"):
-            item = Incoming(topic, bytes(msg.payload), 0.0, kind="sys")
-        elif self.watch and topic.startswith(self.watch):
-            item = Incoming(topic, bytes(msg.payload), self.now(), retained=bool(msg.retain),
-                            kind="watch")
-        else:
-            # the common case, kept to the minimum: a plain tuple (no per-message object
-            # the garbage collector has to follow) and a plain counter (no lock)
-            self.received += 1
-            if not self.inbox.put((topic, bytes(msg.payload), self.now(), bool(msg.retain))):
-                self.metrics.queue_overflow.inc()
-            return
-        if not self.inbox.put(item):
-            self.metrics.queue_overflow.inc()
-
-    def _on_oversized(self, msg: Oversized) -> None:
-        """A message over ``max_packet_bytes``, dropped unread (its topic and size only)."""
-        topic = msg.topic
-        if topic.startswith(self.command_prefix):
-            if msg.retain:
-                self.metrics.retained_commands.inc()
-                self.client.publish(topic, b"", qos=1, retain=True)  # clear it
-                return
-            item = Incoming(topic, b"", self.now(), kind="command", oversize=msg.size)
-        elif (self.echo_prefix and topic.startswith(self.echo_prefix)) or \
-                topic.startswith("$SYS/") or (self.watch and topic.startswith(self.watch)):
-            return  # not from a sensor: nothing to count it against
-        else:
-            self.received += 1
-            item = Incoming(topic, b"", self.now(), retained=bool(msg.retain),
-                            kind="oversize", oversize=msg.size)
-        if not self.inbox.put(item):
-            self.metrics.queue_overflow.inc()
-
-    def _identity(self, props: Any) -> str | None:
-        name = self.identity_property
-        if not name or props is None:
-            return None
-        for key, value in getattr(props, "UserProperty", None) or []:
-            if key == name:
-                return str(value)[:200]
-        return None
-
     def _on_publish(self, client: mqtt.Client, userdata: Any, mid: int, reason: Any,
                     properties: Any) -> None:
         failed = bool(getattr(reason, "is_failure", False))
@@ -429,30 +275,6 @@ class MqttLink:
     def start(self) -> None:
         self._thread = threading.Thread(target=self._run, name="mqtt", daemon=True)
         self._thread.start()
-
-    def _probe(self) -> bool:
-        """True when a broker node's port accepts a TCP connection (that node is tried
-        next)."""
-        for k in range(len(self.nodes)):
-            j = (self.node + k) % len(self.nodes)
-            host, port, _ = self.nodes[j]
-            try:
-                with socket.create_connection((host, port), timeout=0.5):
-                    self._use(j)
-                    return True
-            except OSError:
-                continue
-        return False
-
-    def _use(self, j: int) -> None:
-        self.node = j
-        self.host, self.port, _ = self.nodes[j]
-
-    def _next_node(self) -> bool:
-        """Move to the next broker node; True when that starts a new round over all nodes
-        (wait before it), always True with one node."""
-        self._use((self.node + 1) % len(self.nodes))
-        return self.node == self._round_start
 
     def _prune_resends(self) -> None:
         """Drop what paho would send again after this connect that may no longer be sent
@@ -494,19 +316,19 @@ class MqttLink:
                 return False
             if self._stop.wait(min(PROBE_EVERY_S, left)):
                 return False
-            if probe and self._probe():
+            if probe and self.nodes.probe():
                 return True
         return False
 
     def _run(self) -> None:
         backoff = BACKOFF_START_S
-        self._round_start = self.node
+        self.nodes.new_round()
         while not self._stop.is_set():
             try:
                 self._connect()
             except (OSError, ssl.SSLError, ValueError) as exc:
                 failed = f"{self.host}:{self.port}"
-                if not self._next_node():
+                if not self.nodes.next():
                     log.warning("cannot reach broker %s (%s); trying %s:%s", failed, exc,
                                 self.host, self.port)
                     continue
@@ -516,7 +338,7 @@ class MqttLink:
                 backoff = min(BACKOFF_CAP_S, backoff * 2)
                 if self._wait(wait, probe=True):
                     backoff = BACKOFF_START_S  # the broker answers again: start over
-                self._round_start = self.node
+                self.nodes.new_round()
                 continue
             refused = self._refused = False
             last_retry = time.monotonic()
@@ -544,11 +366,11 @@ class MqttLink:
             if refused and len(self.nodes) > 1:
                 # another node may accept us (3.1.1 "server unavailable"); the wait below
                 # still applies, so refusing nodes are not tried in a tight loop
-                self._next_node()
+                self.nodes.next()
             elif len(self.nodes) > 1:
                 # a clustered broker: another node carries on at once (this one may be gone)
-                self._next_node()
-                self._round_start = self.node
+                self.nodes.next()
+                self.nodes.new_round()
                 log.warning("connection to the broker lost; connecting to %s:%s", self.host,
                             self.port)
                 self._wait(random.uniform(0.05, 0.25), probe=False)
@@ -561,7 +383,7 @@ class MqttLink:
                 self._wait(wait, probe=False)
             elif self._wait(wait, probe=True):
                 backoff = BACKOFF_START_S
-            self._round_start = self.node
+            self.nodes.new_round()
 
     # ---------------------------------------------------------------- publishing
     def publish(self, topic: str, payload: dict[str, Any] | None, qos: int, retain: bool,

@@ -31,9 +31,12 @@ def _marker() -> pathlib.Path | None:
     base = cache_dir()
     if base is None:
         return None
-    kernels = pathlib.Path(__file__).resolve().parents[1] / "core" / "set_kernels.py"
+    core = pathlib.Path(__file__).resolve().parents[1] / "core"
     try:
-        source = hashlib.sha1(kernels.read_bytes()).hexdigest()[:12]
+        digest = hashlib.sha1()
+        for kernels in ("set_kernels.py", "comfort_kernels.py"):
+            digest.update((core / kernels).read_bytes())
+        source = digest.hexdigest()[:12]
         versions = "-".join(metadata.version(p) for p in ("pythermalcomfort", "numba"))
     except (OSError, metadata.PackageNotFoundError):
         return None
@@ -69,11 +72,18 @@ def warm_up(say: Callable[[str], None] | None = None) -> float:
         clo=np.array([0.6, 0.6]), met=np.array([1.2, 2.5]), hot_work=np.array([False, True]),
         indoor=np.array([True, False]))
     compute_indices(s, with_phs=True)
-    if cold:  # the multi-core SET kernels too (built lazily, for batches of 512 or more)
-        from thermowarden.core import set_kernels
+    if cold:  # the multi-core kernels too (built lazily, for batches of 512 or more), and
+        # the air-speed solver (the sample has no space warm enough to need it)
+        from thermowarden.core import comfort_kernels, set_kernels
 
         for name in ("set_compiled", "set_for_ce_compiled"):
             set_kernels.kernel(name)
+        one = np.array([30.0])
+        for parallel in (False, True):
+            comfort_kernels.cooling_effect_rows(one, one, one / 60, one + 20, one / 25,
+                                                one / 50, parallel)
+            comfort_kernels.air_speed_rows(one, one, one + 20, one / 25, one / 50, one / 60,
+                                           np.log([0.1, 2.0]), parallel)
     took = time.monotonic() - t0
     if marker is not None and cold:
         try:

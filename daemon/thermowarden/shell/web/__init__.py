@@ -10,10 +10,11 @@ from thermowarden.config import SiteConfig
 from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack
 from thermowarden.shell.mqtt_link import Inbox
-from thermowarden.shell.web.app import CommandBridge, WebContext, WebServer, create_app
+from thermowarden.shell.web.app import WebServer, create_app
+from thermowarden.shell.web.context import CommandBridge, WebContext
 from thermowarden.shell.web.history import StoreReader
 from thermowarden.shell.web.live import LiveView, SiteDirectory
-from thermowarden.shell.web.users import Sessions, load_users
+from thermowarden.shell.web.users import Sessions, UserEntry, load_users
 
 __all__ = ["LiveView", "WebServer", "build_web"]
 
@@ -26,6 +27,26 @@ def users_path(config: SiteConfig, config_path: str | os.PathLike[str]) -> pathl
     return p if p.is_absolute() else pathlib.Path(config_path).parent / p
 
 
+def site_users(config: SiteConfig, config_path: str | os.PathLike[str]
+               ) -> dict[str, UserEntry] | None:
+    """The users of the site's users file as ``run`` takes them (``check`` reads them through
+    this too): None without a users file; a bad file, or a user who names a building or area
+    the site does not have, raises :class:`thermowarden.config.ConfigError`."""
+    path = users_path(config, config_path)
+    if path is None:
+        return None
+    users = load_users(path)
+    places = {x for s in config.spaces for x in (s.building, s.area) if x}
+    wrong = [f"{path}: user {u.name!r} names building {b!r}, which the site does not have"
+             f" (known: {', '.join(sorted(places)) or 'none'})"
+             for u in users.values() for b in (u.buildings or []) if b not in places]
+    if wrong:
+        from thermowarden.config import ConfigError, ConfigIssue
+
+        raise ConfigError([ConfigIssue(None, w) for w in wrong])
+    return users
+
+
 def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
               packs: Mapping[str, CompiledPack], inbox: Inbox, store_path: pathlib.Path,
               now: Callable[[], float]
@@ -33,18 +54,9 @@ def build_web(config: SiteConfig, config_path: str | os.PathLike[str],
     """The live view (for the engine thread to feed), the server (not yet started) and
     what a reload calls with the new engine (the page then follows the new site).
     A bad users file raises :class:`thermowarden.config.ConfigError`."""
-    path = users_path(config, config_path)
+    users = site_users(config, config_path)
     sessions = None
-    if path:
-        users = load_users(path)
-        places = {x for s in config.spaces for x in (s.building, s.area) if x}
-        wrong = [f"{path}: user {u.name!r} names building {b!r}, which the site does not have"
-                 f" (known: {', '.join(sorted(places)) or 'none'})"
-                 for u in users.values() for b in (u.buildings or []) if b not in places]
-        if wrong:
-            from thermowarden.config import ConfigError, ConfigIssue
-
-            raise ConfigError([ConfigIssue(None, w) for w in wrong])
+    if users is not None:
         sessions = Sessions(users, config.web.session_lifetime_s, store=store_path)
     limits = {rule.key: float(rule.config.max_shelve_s) for pack in packs.values()
               for rule in pack.rules}

@@ -32,6 +32,8 @@ UNITS: dict[str, str] = {name: unit for name, (_, unit) in SAMPLE_FIELDS.items()
 """The unit of every field of the history."""
 
 MAX_PERIOD_S = 8 * 86_400.0
+HISTORY_DEFAULT_S = 86_400.0
+"""A space's page, and the API without ``from``, give this much of the history (s)."""
 EVENTS_LIMIT = 1000
 
 

@@ -109,6 +109,11 @@ padding:.1rem .4rem;text-align:right}
 table.fit td::before{content:attr(data-label);color:var(--muted);text-align:left}
 table.fit tr.sub td:first-child{padding-left:.4rem}
 table.fit td.method{flex-direction:column;gap:0;text-align:left}
+table.stack tr{display:flex;flex-wrap:wrap;align-items:baseline;column-gap:.6rem}
+table.stack td:first-child{flex:1 1 10rem;text-align:left;font-weight:600}
+table.stack td:first-child::before,table.stack td.bare::before,
+table.stack td.method::before{content:none}
+table.stack td.method{flex:1 1 100%;font-size:.8rem}
 }
 """
 
@@ -133,10 +138,6 @@ OVERVIEW_VALUES = catalogue.shown("overview")
 with a value)."""
 SPACE_VALUES = catalogue.shown("space")
 """On the space's page, with a value or why there is none."""
-HOT_WORK_ONLY = frozenset({"wbgt_effective", "wbgt_reference", "wbgt_reference_acclimatised",
-                           "wbgt_reference_unacclimatised"})
-"""Shown only for hot-work spaces: the WBGT assessed against the reference of the workers
-there (ISO 7243) means nothing where nobody works in the heat."""
 CAUTION = ("Advisory only: thermowarden never switches or moves anything. Heat-stress figures "
            "are screening values; follow local regulations and a qualified occupational "
            "hygienist.")
@@ -377,17 +378,17 @@ def rollup(directory: SiteDirectory, counts: dict[int, list[int]], f: Filters) -
             + "".join(rows) + "</tbody></table>")
 
 
-def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinfo) -> str:
+def space_card(s: SpaceInfo, c: dict[str, Any] | None, live: list[dict[str, Any]],
+               tz: dt.tzinfo) -> str:
     rows = []
     if c is not None:
         idx = c["indices"]
         for e in OVERVIEW_VALUES:
             key, label = e.name, e.label
             item = idx.get(key)
-            if item is None or (item.get("value") is None and e.place):
+            if item is None or (item.get("value") is None and e.place) \
+                    or not applies(e, s, item):
                 continue
-            if key in HOT_WORK_ONLY and not s.hot_work:
-                continue  # a WBGT reference is for workers in the heat, not an office
             if key == "wbgt_reference":
                 label = reference_label(s)
             rows.append(f"<dt>{h(label)}</dt><dd>{fmt_value(item, compact=True)}</dd>")
@@ -397,7 +398,11 @@ def space_card(s: SpaceInfo, c: dict[str, Any] | None, n_live: int, tz: dt.tzinf
         when = "not evaluated yet"
     tags = ([s.group] if s.group else []) + [s.kind] + (["hot work"] if s.hot_work else []) + (
         ["natural ventilation"] if s.ventilation == "natural" else [])
-    alert = (f' <span class="badge high">{n_live} live</span>' if n_live else "")
+    # the count in the colour of the most urgent of them (a medium advice is not red)
+    top = min((PRIORITIES.index(a["priority"]) for a in live
+               if a.get("priority") in PRIORITIES), default=None)
+    alert = (f' <span class="badge {PRIORITIES[top] if top is not None else "low"}">'
+             f'{len(live)} live</span>' if live else "")
     return (f'<section class="card" data-space="{h(s.id)}"><h3><a href="/spaces/'
             f'{quote(s.id, safe="")}">{h(s.name)}</a>{alert}</h3>'
             f'<div class="note">{h(" · ".join(tags))} · {h(when)}</div>'
@@ -468,13 +473,39 @@ def overview(directory: SiteDirectory, conditions_of: Callable[[str], dict[str, 
     parts.append(f'<h2>Spaces <span class="muted" id="space-count">({what}{span})</span></h2>')
     if window:
         parts.append('<div class="cards">' + "".join(
-            space_card(s, conditions_of(s.id), len(by_space.get(s.id, ())), tz)
+            space_card(s, conditions_of(s.id), list(by_space.get(s.id, ())), tz)
             for s in window) + "</div>")
     else:
         parts.append('<p class="muted">No space matches.</p>')
     parts.append(pager(f, len(chosen)))
     here = f.url()
     return page_html("Overview", "".join(parts), directory, session, refresh=True, here=here)
+
+
+INDOOR_FAMILIES = frozenset({"comfort", "local_discomfort", "adaptive"})
+"""Families of indices for people indoors (ISO 7730, EN 16798-1): for comfort."""
+
+
+def places_of(space: SpaceInfo) -> frozenset[str]:
+    """The kinds of place (catalogue.PLACES) a space is: hot work where people work in the
+    heat, and comfort indoors or outdoor heat outside."""
+    kind = catalogue.OUTDOOR if space.kind == "outdoor" else catalogue.COMFORT
+    return frozenset({kind, catalogue.HOT_WORK} if space.hot_work else {kind})
+
+
+def applies(e: catalogue.Index, space: SpaceInfo, item: dict[str, Any] | None = None
+            ) -> bool:
+    """Whether a space's page shows this index: the WBGT and everything assessed against
+    its references only where people work in the heat (ISO 7243 is for workers, not for an
+    office or a garden); an index without a value only where it is meant to apply, with the
+    reason there is none (a PMV that needs an air speed in an office), not in a kind of
+    place it is not for (no "PMV -, applies to indoor spaces" for a garden)."""
+    if e.place == catalogue.HOT_WORK and not space.hot_work:
+        return False
+    if item is None or item.get("value") is not None:
+        return True
+    place = e.place or (catalogue.COMFORT if e.family in INDOOR_FAMILIES else "")
+    return not place or place in places_of(space)
 
 
 def reference_label(space: SpaceInfo) -> str:
@@ -501,8 +532,11 @@ def space_charts(space: SpaceInfo, samples: list[dict[str, Any]], start: float, 
     for chart in catalogue.CHARTS:
         if space.kind not in chart.kinds:
             continue
+        drawn = [e for e in catalogue.drawn(chart.key) if applies(e, space)]
+        if not drawn:
+            continue
         lines = [plots.Line(e.label, _series(samples, e.name), *LINE_STYLES[k % len(LINE_STYLES)])
-                 for k, e in enumerate(catalogue.drawn(chart.key))]
+                 for k, e in enumerate(drawn)]
         bands = []
         if chart.key == "comfort" and space.kind == "indoor":
             bands.append(plots.Band("comfort band", _series(samples, "comfort_band_lower"),
@@ -588,12 +622,12 @@ def space_page(directory: SiteDirectory, space: SpaceInfo, c: dict[str, Any] | N
         for e in SPACE_VALUES:
             key, label = e.name, e.label
             item = c["indices"].get(key)
-            if item is None or (key in HOT_WORK_ONLY and not space.hot_work):
+            if item is None or not applies(e, space, item):
                 continue
             if key == "wbgt_reference":
                 label = reference_label(space)
             rows.append(f'<tr><td data-label="Index">{h(label)}</td>'
-                        f'<td class="num" data-label="Value">{fmt_value(item)}</td>'
+                        f'<td class="num bare" data-label="Value">{fmt_value(item)}</td>'
                         f'<td class="note method" data-label="Method">'
                         f'{h(readable(item.get("method", "")))}</td></tr>')
         # table.fit: on a phone each row stacks, so the method wraps instead of running

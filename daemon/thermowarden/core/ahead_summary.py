@@ -8,6 +8,10 @@ ahead-of-time advisory to the crossing: minimum and median), the ahead-of-time a
 withdrawn (cleared by their own condition: the trend turned, the sky clouded over), acted on
 (the advice followed, e.g. the blinds lowered, and cleared after), still live at the end of
 the feed, and never followed by a crossing; and the crossings that came with no warning.
+
+Over a whole replay, or over a period (the report's day): then the crossings in the period
+and the ahead-of-time advisories raised in it are counted (a crossing in the period may have
+been foreseen by one raised before it; its lead time counts).
 """
 
 from __future__ import annotations
@@ -47,10 +51,15 @@ def crossings(events: list[dict[str, Any]], rule: str, priority: str | None
 
 
 def ahead_summary(events: list[dict[str, Any]], foresees: Mapping[str, tuple[str, str | None]],
-                  end: float | None) -> list[dict[str, Any]]:
+                  end: float | None, start: float | None = None) -> list[dict[str, Any]]:
     """The figures of the module docstring per ahead-of-time rule, from the engine's
     one-line ``events`` (every lifecycle event, sent or held back); ``foresees``: ahead rule
-    -> (foreseen rule, priority or None)."""
+    -> (foreseen rule, priority or None). ``start``, ``end`` (epoch s; None: open): the
+    period whose crossings and ahead-of-time advisories count."""
+
+    def within(t: float) -> bool:
+        return (start is None or t >= start) and (end is None or t < end)
+
     out: list[dict[str, Any]] = []
     for rule, (target, priority) in sorted(foresees.items()):
         spans: list[dict[str, Any]] = []
@@ -70,7 +79,7 @@ def ahead_summary(events: list[dict[str, Any]], foresees: Mapping[str, tuple[str
             elif e.get("acted_on") and e["advisory_id"] in live:
                 live[e["advisory_id"]]["acted_on"] = True
         spans.extend(live.values())
-        crossed = crossings(events, target, priority)
+        crossed = [c for c in crossings(events, target, priority) if within(c[1])]
         leads: list[float] = []
         unwarned: list[dict[str, Any]] = []
         followed: set[int] = set()
@@ -85,11 +94,12 @@ def ahead_summary(events: list[dict[str, Any]], foresees: Mapping[str, tuple[str
             else:
                 unwarned.append({"space": space, "at": dt.datetime.fromtimestamp(
                     t, dt.UTC).isoformat(timespec="seconds"), "advisory_id": aid})
-        not_followed = [s for k, s in enumerate(spans) if k not in followed]
+        counted = [k for k, s in enumerate(spans) if within(s["raised"])]
+        not_followed = [spans[k] for k in counted if k not in followed]
         out.append({
             "rule": rule,
             "foresees": target + (f" at {priority}" if priority else ""),
-            "ahead_advisories": len(spans),
+            "ahead_advisories": len(counted),
             "crossings": len(crossed),
             "foreseen": len(leads),
             "lead_min": ({"min": round(min(leads), 1),
@@ -102,5 +112,49 @@ def ahead_summary(events: list[dict[str, Any]], foresees: Mapping[str, tuple[str
             "unwarned": len(unwarned),
             "unwarned_crossings": unwarned[:10],
         })
-    del end
+    return out
+
+
+def _n(count: int, one: str, many: str) -> str:
+    return f"{count} {one if count == 1 else many}"
+
+
+def in_words(figures: list[dict[str, Any]], titles: Mapping[str, str],
+             tz: dt.tzinfo | None = None) -> list[str]:
+    """:func:`ahead_summary`'s figures as sentences, one per ahead-of-time rule that raised
+    an advisory or whose foreseen advisory was reached (for the demo's summary). ``titles``:
+    rule -> title; times of crossings with no warning in ``tz`` (else UTC)."""
+    out: list[str] = []
+    for r in figures:
+        if not r["ahead_advisories"] and not r["crossings"]:
+            continue
+        target, _, priority = r["foresees"].partition(" at ")
+        what = titles.get(target, target) + (f" at {priority} priority" if priority else "")
+        crossed = f"{_n(r['crossings'], 'crossing', 'crossings')} of {what}"
+        parts = []
+        if r["foreseen"]:
+            lead = r["lead_min"]
+            least, median = round(lead["min"]), round(lead["median"])
+            parts.append(f"{r['foreseen']} foreseen {least} minutes ahead" if r["foreseen"] == 1
+                         else f"{r['foreseen']} foreseen at least {least} minutes ahead "
+                         f"(median {median})")
+        if r["unwarned"]:
+            where = ", ".join(
+                f"{u['space']} at {dt.datetime.fromisoformat(u['at']).astimezone(tz):%H:%M}"
+                for u in r["unwarned_crossings"])
+            parts.append(f"{r['unwarned']} with no warning ({where})")
+        if parts:
+            crossed += ": " + ", ".join(parts)
+        ends = []
+        if r["withdrawn"]:
+            ends.append(f"{r['withdrawn']} withdrawn when the forecast no longer held, with "
+                        "no crossing after it")
+        if r["acted_on"]:
+            ends.append(f"{r['acted_on']} acted on before a crossing")
+        if r["live_at_end"]:
+            ends.append(f"{r['live_at_end']} still standing at the end")
+        given = _n(r["ahead_advisories"], "advisory", "advisories") + " ahead of time"
+        if ends:
+            given += ": " + ", ".join(ends)
+        out.append(f"{titles.get(r['rule'], r['rule'])} ({r['rule']}): {crossed}; {given}.")
     return out
