@@ -11,12 +11,11 @@ import os
 import pathlib
 import subprocess
 import sys
-from collections.abc import Iterator
 
 import pytest
 
 from tests.conftest import COMMAND_LIMIT_S, REPO
-from tests.web.conftest import CHROMEDRIVER, CHROMIUM, HAVE_BROWSER
+from tests.web.conftest import HAVE_BROWSER
 from tests.web.visible_text import problems
 
 pytestmark = pytest.mark.skipif(not HAVE_BROWSER, reason="Debian's chromium and "
@@ -25,9 +24,6 @@ pytestmark = pytest.mark.skipif(not HAVE_BROWSER, reason="Debian's chromium and 
 
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
-BROWSER_ARGS = ("--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-                "--disable-background-networking", "--disable-component-update",
-                "--disable-sync", "--disable-dev-shm-usage", "--hide-scrollbars")
 
 
 @pytest.fixture(scope="module")
@@ -39,25 +35,6 @@ def report_page(tmp_path_factory) -> pathlib.Path:
                        cwd=folder, timeout=COMMAND_LIMIT_S)
     assert r.returncode == 0, r.stderr
     return folder / "larkfield-report.html"
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[object]:
-    from selenium import webdriver
-    from selenium.webdriver.chrome.options import Options
-    from selenium.webdriver.chrome.service import Service
-
-    opts = Options()
-    opts.binary_location = CHROMIUM
-    for a in BROWSER_ARGS:
-        opts.add_argument(a)
-    opts.add_argument("--window-size=1100,900")
-    driver = webdriver.Chrome(service=Service(executable_path=CHROMEDRIVER), options=opts)
-    driver.set_page_load_timeout(60)
-    try:
-        yield driver
-    finally:
-        driver.quit()
 
 
 def keep(driver, name: str, width: int) -> None:
