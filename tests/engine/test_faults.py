@@ -194,6 +194,7 @@ def test_commands_must_go_to_the_advisory_audience(lab):
     validate_effects(eff)
 
 
+@pytest.mark.long
 def test_repeated_shelving_never_exceeds_the_rules_daily_limit(lab):
     # the urgent level of "levels" (max_shelve_s 600): a script that shelves it again
     # every time it comes back gets 600 s of silence a day in total, not more
