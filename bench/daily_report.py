@@ -31,7 +31,7 @@ REPO = pathlib.Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO / "daemon"))
 
 
-def site_text(n: int, buildings: int = 10, floors: int = 5) -> str:
+def site_text(n: int, buildings: int = 10, floors: int = 5) -> tuple[str, int]:
     per_floor = max(1, n // (buildings * floors))
     lines = ["site: {id: bench, name: Bench Campus, timezone: UTC}",
              "defaults: {occupancy: {always: true}, people: {met: 1.2, clo: 0.6}}",

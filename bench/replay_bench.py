@@ -32,6 +32,11 @@ import pathlib
 import sys
 import time
 from collections.abc import Callable, Iterator
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from thermowarden.config import SiteConfig
+    from thermowarden.replay import FeedRecord
 
 REPO = pathlib.Path(__file__).resolve().parent.parent
 
@@ -39,7 +44,7 @@ SPACES = 200
 POINTS = ("ta", "rh", "tg", "v", "fan", "shade")
 
 
-def synthetic_site(n: int = SPACES):  # noqa: ANN201
+def synthetic_site(n: int = SPACES) -> SiteConfig:
     from thermowarden.config import SiteConfig
     from thermowarden.rules import builtin_pack_names
 
@@ -68,7 +73,7 @@ FEED_SEED = 28
 
 
 def synthetic_feed(n: int, hours: float, t0: float = 1_780_293_600.0,
-                   seed: int = FEED_SEED) -> Iterator:  # noqa: ANN401
+                   seed: int = FEED_SEED) -> Iterator[FeedRecord]:
     """Invented readings from Monday 1 June 2026 06:00 UTC: a daily swing, a warm afternoon
     in some spaces (each space its own warmth and humidity), fans switched on in the warm
     ones; all six points of a space at the same second every minute.

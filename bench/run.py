@@ -57,6 +57,7 @@ sys.path.insert(0, str(__import__("pathlib").Path(__file__).resolve().parent))
 
 from thermowarden.config import SiteConfig  # noqa: E402
 from thermowarden.core.indices import SpaceInputs, compute_indices  # noqa: E402
+from thermowarden.effects import Effect  # noqa: E402
 
 
 def invented_spaces(n: int, seed: int = 7) -> SpaceInputs:
@@ -239,6 +240,8 @@ def _memory_child() -> int:
 def bench_rules(quick: bool) -> dict[str, float]:
     from thermowarden.engine import Engine
     from thermowarden.engine.rule_truths import rule_truths
+    from thermowarden.engine.tick_batch import reads
+    from thermowarden.engine.unknown_rules import count_long
     from thermowarden.rules import builtin_pack_names, load_rule_packs
     from thermowarden.site_model import build_site_model
 
@@ -251,7 +254,11 @@ def bench_rules(quick: bool) -> dict[str, float]:
     snap = engine.state.snapshot(0.0)
     book = engine.advisories
     env = engine.evaluation.environment(snap, table, 0.0)
-    env["rules_unknown_long"] = book.unknown_long(0.0)
+    env["rules_unknown_long"] = count_long(book.rules, n, 0.0)
+    for rt in book.rules:  # the ahead-of-time columns: not computed here, unknown
+        for name in reads(rt.rule):
+            if name not in env:
+                env[name] = np.full(n, np.nan)
     for k in ("air_temperature", "globe_temperature", "air_speed", "natural_wet_bulb"):
         env[k] = getattr(spaces, k)
     env["relative_humidity"] = spaces.relative_humidity
@@ -260,12 +267,12 @@ def bench_rules(quick: bool) -> dict[str, float]:
     engine.last_snapshot = snap
 
     def one_tick(now: float) -> float:
-        effects: list = []
+        effects: list[Effect] = []
         t0 = time.perf_counter()
         book.begin(env, table)
         for rt in book.rules:
             book.step(rt, rule_truths(rt.rule, rt.params, rt.mask, env, n), now, effects)
-        book.flush_summaries(now, effects)
+        book.floods.flush_summaries(now, effects)
         return time.perf_counter() - t0
 
     one_tick(0.0)  # pending

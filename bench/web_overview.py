@@ -155,8 +155,8 @@ def main() -> None:
         "api_spaces_ms": round(statistics.median(r[2] for r in api) * 1000, 1),
         "api_spaces_bytes": api[0][0],
     }
-    for k, v in figures.items():
-        print(f"{k:>20}: {v}")
+    for name, v in figures.items():
+        print(f"{name:>20}: {v}")
     print(json.dumps(figures))
 
 
