@@ -2,7 +2,8 @@
 truths over it: :mod:`thermowarden.engine.rule_truths`).
 
 Indices are computed for all spaces in one vectorised call (ISO 7933 PHS, which simulates a
-whole work period, only every ``PHS_EVERY_S``). Rule conditions are three-valued over the
+whole work period, only every ``PHS_EVERY_S``, on its own: with the humidity and mean radiant
+temperature it reads, not the other families again). Rule conditions are three-valued over the
 spaces (true / false / unknown); unknown never raises and never clears.
 
 A computation that raises for one space's inputs fails for that space alone: the spaces are
