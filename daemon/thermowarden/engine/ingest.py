@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 from collections import Counter
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from typing import Final
 
@@ -78,6 +78,10 @@ class Ingestor:
         (``on``, ``off``, a configured word): equipment repeats a few words."""
         self._negative: dict[str, Rejection] = {}
         self._lazy_count: Counter[tuple[int, str]] = Counter()
+        self._fast: list[tuple[Callable[[float], float], float, float, float, float, float,
+                               str]] = []
+        """Per point: convert, scale, offset, low, high, max_change_per_s, quantity (the
+        inline path of :meth:`ingest_many`; points are only ever appended)."""
         self.last_points: list[int] = []
         """Points that took a reading from the last message."""
         self.accepted_by_quantity: Counter[str] = Counter()
@@ -239,35 +243,102 @@ class Ingestor:
         points = self.model.points
         max_bytes = self.max_bytes
         isfinite = math.isfinite
-        for topic, payload, now, retained in items:
-            route = cache.get(topic)
-            if route is not None and len(route) == 1 and not retained and \
-                    len(payload) <= max_bytes:
-                pid = route[0]
-                spec = points[pid]
-                fmt_class = spec.fmt.__class__
-                if fmt_class is NumberFormat:
-                    try:
-                        number = float(payload)
-                    except ValueError:
-                        number = math.nan
-                elif fmt_class is StateFormat:
-                    number = self._state_value(pid, payload, now)
-                else:
-                    number = math.nan
-                if isfinite(number):
-                    self.received += 1
-                    r = self._store_value(pid, number, None, None, now, topic)
-                    if r is None:
-                        touched.append(pid)
+        # A reading without a timestamp of its own is taken at ``now``: it is never too old
+        # or in the future unless those limits are negative, and never a duplicate. Such a
+        # reading of a known point, in the canonical unit, is checked and recorded inline
+        # below with exactly the steps of _store_value; any rejection goes through it.
+        inline = not (0.0 > self.max_age) and not (0.0 > self.skew)
+        state = self.state
+        rings = state.rings
+        last_time = state.last_time
+        last_value = state.last_value
+        last_source = state.last_source_time
+        interval = state.interval
+        ring_row = rings.row
+        ring_len = rings.length
+        nan = math.nan
+        inf = math.inf
+        fast = self._fast
+        received = accepted = 0
+        by_quantity: dict[str, int] = {}
+        try:
+            for topic, payload, now, retained in items:
+                route = cache.get(topic)
+                if route is not None and len(route) == 1 and not retained and \
+                        len(payload) <= max_bytes:
+                    pid = route[0]
+                    spec = points[pid]
+                    fmt_class = spec.fmt.__class__
+                    if fmt_class is NumberFormat:
+                        try:
+                            number = float(payload)
+                        except ValueError:
+                            number = math.nan
+                    elif fmt_class is StateFormat:
+                        number = self._state_value(pid, payload, now)
                     else:
-                        out.append((now, r))
-                    continue
-            for r in self.ingest(topic, payload, now, retained):
-                out.append((now, r))
-            touched.extend(self.last_points)
+                        number = math.nan
+                    if isfinite(number):
+                        received += 1
+                        if inline:
+                            if pid >= len(fast):
+                                self._extend_fast()
+                                fast = self._fast
+                            convert, scale, offset, low, high, max_change, quantity = fast[pid]
+                            value = convert(number) * scale + offset
+                            if isfinite(value) and low <= value <= high:
+                                last_t = last_time[pid]
+                                if not now < last_t and (
+                                        max_change == inf or last_t != last_t
+                                        or abs(value - last_value[pid])
+                                        <= max_change * (now - last_t) + 1e-9):
+                                    gap = interval[pid]
+                                    if now - last_t > GAP_FACTOR * gap:
+                                        self.missed_by_quantity[quantity] += \
+                                            int(round((now - last_t) / gap)) - 1
+                                    last_value[pid] = value
+                                    last_time[pid] = now
+                                    last_source[pid] = nan
+                                    row = ring_row[pid]
+                                    if row >= 0:
+                                        h = rings.head[row]
+                                        rings.t[row, h] = now
+                                        rings.v[row, h] = value
+                                        rings.head[row] = (h + 1) % ring_len
+                                        rings.writes += 1
+                                    by_quantity[quantity] = by_quantity.get(quantity, 0) + 1
+                                    accepted += 1
+                                    touched.append(pid)
+                                    continue
+                        r = self._store_value(pid, number, None, None, now, topic)
+                        if r is None:
+                            touched.append(pid)
+                        else:
+                            out.append((now, r))
+                        continue
+                for r in self.ingest(topic, payload, now, retained):
+                    out.append((now, r))
+                touched.extend(self.last_points)
+                # a new point may have grown the state's arrays
+                last_time = state.last_time
+                last_value = state.last_value
+                last_source = state.last_source_time
+                interval = state.interval
+                ring_row = rings.row
+        finally:
+            self.received += received
+            self.accepted += accepted
+            counts = self.accepted_by_quantity
+            for quantity, n in by_quantity.items():
+                counts[quantity] += n
         self.last_points = touched
         return out
+
+    def _extend_fast(self) -> None:
+        """The per-point constants of the inline path, for points added since."""
+        for spec in self.model.points[len(self._fast):]:
+            self._fast.append((spec.convert, spec.scale, spec.offset, spec.low, spec.high,
+                               spec.max_change_per_s, spec.quantity))
 
     STATE_VALUES_KEPT: Final = 65_536
 
