@@ -14,7 +14,7 @@ import numpy as np
 from thermowarden.core.columns import BoolArray
 from thermowarden.engine.advisory import Advisory
 from thermowarden.engine.rule_runtime import RuleRuntime
-from thermowarden.engine.texts import RenderContext, number_at
+from thermowarden.engine.texts import RenderContext, number_at, numbers_at
 
 TREND_WINDOW_S: Final = 900.0
 """The trend of an easing advisory's quantity is fitted over this long (least squares)."""
@@ -57,13 +57,18 @@ def sample_trends(rules: list[RuleRuntime], ctx: RenderContext, now: float) -> N
             watched |= {int(i) for i in np.flatnonzero(rt.rearm_until > now)}
         for i in [i for i in rt.trends if i not in watched]:
             del rt.trends[i]
+        due: list[tuple[int, deque[tuple[float, float]]]] = []
         for i in watched:
             if not ctx.has_numbers(i):
                 continue
             q = rt.trends.setdefault(i, deque())
             if q and now - q[-1][0] < TREND_EVERY_S:
                 continue
-            v = number_at(easing.quantity, ctx.base, rt.params, i)
+            due.append((i, q))
+        if not due:
+            continue
+        values = numbers_at(easing.quantity, ctx.base, rt.params, [i for i, _ in due])
+        for (_, q), v in zip(due, values, strict=True):
             if not math.isfinite(v):
                 continue
             q.append((now, v))

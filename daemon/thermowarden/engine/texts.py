@@ -57,6 +57,17 @@ def number_at(expr: Expression, env: Mapping[str, Any], params: Mapping[str, Any
     return float(expr.evaluate_number(one_space(expr, env, params, i), 1)[0])
 
 
+def numbers_at(expr: Expression, env: Mapping[str, Any], params: Mapping[str, Any],
+               spaces: list[int]) -> list[float]:
+    """The values of a number expression in each of ``spaces``, as :func:`number_at` gives
+    them one by one (expressions are element-wise), evaluated once over those spaces."""
+    idx = np.array(spaces, dtype=np.intp)
+    sub = {name: (params[name] if name in params else env[name])[idx]
+           for name in expr.names}
+    values: list[float] = expr.evaluate_number(sub, len(spaces)).tolist()
+    return values
+
+
 def values_at(rule: CompiledRule, env: Mapping[str, Any], params: Mapping[str, Any],
               table: Mapping[str, IndexColumn] | None, i: int, n: int
               ) -> tuple[dict[str, Any], dict[str, Any], dict[str, object]]:
