@@ -131,11 +131,13 @@ class Advisories:
                 if adv.acted_on is not None:
                     self._follow_effect(rt, adv, now, effects)
         # cleared
+        # (the longer hold of a chattering advisory matters only where it may clear now)
+        clearing = live & clear.true
         off = np.full(self.n, cfg.off_delay_s)
-        for i in np.flatnonzero(live):
+        for i in np.flatnonzero(clearing):
             if rt.advisories[int(i)].chattering:
                 off[i] = max(cfg.off_delay_s, CHATTER_HOLD_S)
-        gone = live & clear.true & (now - rt.clear_since >= off)
+        gone = clearing & (now - rt.clear_since >= off)
         for i in np.flatnonzero(gone):
             self.apply(rt, int(i), Trigger.OFF_DELAY_ELAPSED, now, effects)
         live &= ~gone
