@@ -198,3 +198,41 @@ def test_check_shows_each_points_own_settings(tmp_path):
     assert spare.endswith("(x 1.02 +0.2 °C)")
     (rh,) = [line for line in lines if "t/office/rh" in line]
     assert rh.endswith("]")
+
+
+def test_runs_of_messages_are_checked_as_one_by_one(tmp_path):
+    """Ingest of a run of messages (replay, the service) takes each reading of a
+    calibrated, range- and rate-limited point exactly as one message at a time does: the
+    same rejections, gaps counted, stored values and rings."""
+    import numpy as np
+
+    config = _site(tmp_path)
+    feed = []
+    t = NOW
+    for k in range(600):
+        t += 30.0 if k % 41 else 400.0  # now and then a gap of several intervals
+        # spikes: too fast (k % 53), out of the plausible range (k % 59)
+        ta = 22.0 + (k % 7) * 0.6 + (9.0 if k % 53 == 0 else 0.0) + (25.0 if k % 59 == 0
+                                                                      else 0.0)
+        feed.append(("t/office/ta", f"{ta:.1f}".encode(), t if k % 67 else t - 90, False))
+        feed.append(("t/office/ta-f", f"{ta * 1.8 + 32 + (k % 29 == 0) * 60:.1f}".encode(), t,
+                     False))
+        feed.append(("t/office/rh", b"45" if k % 31 else b"nan", t, False))
+    runs, one = [], []
+    for way in (runs, one):
+        model = build_site_model(config)
+        state = SiteState(model)
+        way.extend([model, state, Ingestor(model, state), []])
+    for msg in feed:
+        one[3].extend((msg[2], r) for r in one[2].ingest(*msg))
+    for i in range(0, len(feed), 37):
+        runs[3].extend(runs[2].ingest_many(feed[i:i + 37]))
+    assert runs[3] == one[3]
+    reasons = {r.reason for _, r in one[3]}
+    assert {IMPLAUSIBLE, IMPLAUSIBLE_CHANGE, "out_of_order", "not_finite"} <= reasons
+    for name in ("received", "accepted", "rejected", "accepted_by_quantity",
+                 "missed_by_quantity"):
+        assert getattr(runs[2], name) == getattr(one[2], name), name
+    assert sum(one[2].missed_by_quantity.values()) > 0
+    for name in ("last_value", "last_time", "last_source_time"):
+        np.testing.assert_array_equal(getattr(runs[1], name), getattr(one[1], name))
