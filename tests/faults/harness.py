@@ -423,13 +423,15 @@ def space_ids(n: int) -> list[str]:
 def write_site(tmp: pathlib.Path, prefix: str, broker_url: str, spaces: list[str],
                timing: Timing, group_yaml: str = "") -> pathlib.Path:
     """A site of hot-work spaces (moderate work, unacclimatised) with the heat-stress pack;
-    nats-server's MQTT needs 3.1.1, "/" rule separators and QoS 0 subscriptions."""
+    nats-server's MQTT needs 3.1.1, "/" rule separators and QoS 0 subscriptions (commands at
+QoS 1 in a session the cluster keeps while an instance moves to another node)."""
     text = textwrap.dedent(f"""\
         site: {{id: f{uuid.uuid4().hex[:6]}, timezone: UTC}}
         broker:
           url: {broker_url}
           protocol: "3.1.1"
           subscribe_qos: 0
+          persistent_session: true
           keepalive_s: {timing.keepalive_s:g}
         output: {{prefix: {prefix}, rule_topic_separator: "/"}}
         evaluation: {{tick_s: {timing.tick_s:g}, flood_limit: 100000}}
