@@ -99,7 +99,7 @@ def main() -> None:
     from thermowarden.config import load_site
     from thermowarden.engine import Engine
     from thermowarden.rules import load_rule_packs
-    from thermowarden.shell.mqtt_link import Inbox
+    from thermowarden.shell.inbox import Inbox
     from thermowarden.shell.web import build_web
     from thermowarden.site_model import build_site_model
 

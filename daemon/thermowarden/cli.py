@@ -419,7 +419,7 @@ def cmd_simulate(args: argparse.Namespace) -> int:
     """Publish a scenario live, or write it as a feed for replay."""
     from thermowarden.config import read_password
     from thermowarden.demo import example_site
-    from thermowarden.shell.mqtt_link import parse_url
+    from thermowarden.shell.broker_nodes import parse_url
     from thermowarden.simulate import publish_live, scenario_records, write_feed
 
     args.config = args.config or str(example_site())

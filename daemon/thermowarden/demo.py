@@ -279,9 +279,10 @@ def run_demo(broker_url: str | None, duration: float | None, speed: float, view:
     printed at the start) and kept, with the clock stopped, after the day until Ctrl-C."""
     from thermowarden.config import load_site
     from thermowarden.shell.bootstrap import bootstrap
+    from thermowarden.shell.broker_nodes import parse_url
+    from thermowarden.shell.buffered_client import release_sockets
     from thermowarden.shell.clock import Clock
     from thermowarden.shell.embedded_broker import EmbeddedBroker
-    from thermowarden.shell.mqtt_link import parse_url, release_sockets
     from thermowarden.simulated_feeds.larkfield import demo_day
 
     if speed <= 0:

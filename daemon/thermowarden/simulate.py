@@ -94,7 +94,7 @@ def publish_live(records: Iterator[dict[str, Any]], host: str, port: int, protoc
     import paho.mqtt.client as mqtt
     from paho.mqtt.enums import CallbackAPIVersion
 
-    from thermowarden.shell.mqtt_link import release_sockets
+    from thermowarden.shell.buffered_client import release_sockets
 
     client = mqtt.Client(callback_api_version=CallbackAPIVersion.VERSION2,
                          protocol=mqtt.MQTTv5 if protocol == "5" else mqtt.MQTTv311)

@@ -229,8 +229,10 @@ def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
     (acclimatised)"; acclimatised, the REL (28.3 °C)."""
     import datetime as _dt
 
-    from thermowarden.shell.web import pages
+    from thermowarden.shell.web.advisory_page import advisory_page
     from thermowarden.shell.web.live import SiteDirectory
+    from thermowarden.shell.web.overview_page import overview
+    from thermowarden.shell.web.space_page import space_page
 
     engine = site_engine(tmp_path, acclimatised=acclimatised)
     run = drive(engine, PROFILE, 150, space_ids=("shop",))
@@ -263,10 +265,9 @@ def test_references_follow_the_workers_acclimatisation(tmp_path, acclimatised):
     directory = SiteDirectory.build(engine.config, {})
     space = directory.space("shop")
     assert space is not None
-    card = pages.overview(directory, {"shop": cond}.get, [], None, _dt.UTC)
-    page = pages.space_page(directory, space, cond, [], [], [], T0, T0 + 3600, None, _dt.UTC)
-    adv_page = pages.advisory_page(directory, evs[-1][1]["advisory"], True, None, _dt.UTC,
-                                   1800)
+    card = overview(directory, {"shop": cond}.get, [], None, _dt.UTC)
+    page = space_page(directory, space, cond, [], [], [], T0, T0 + 3600, None, _dt.UTC)
+    adv_page = advisory_page(directory, evs[-1][1]["advisory"], True, None, _dt.UTC, 1800)
     want = "WBGT reference (acclimatised)" if acclimatised else \
         "WBGT reference (not acclimatised)"
     for html in (card, page):

@@ -32,7 +32,7 @@ from paho.mqtt.enums import CallbackAPIVersion
 
 from tests.shell.conftest import SLOW, free_port, wait_for
 from tests.shell.nats_cluster import NatsCluster
-from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.buffered_client import release_sockets
 from thermowarden.shell.wall_offset import ENV as WALL_OFFSET_ENV
 
 # Spot WBGT indoors (ISO 7243:2017, no solar load): 0.7 natural wet-bulb + 0.3 globe.

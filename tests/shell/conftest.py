@@ -24,7 +24,7 @@ import pytest
 from paho.mqtt.enums import CallbackAPIVersion
 
 from tests.conftest import COMMAND_LIMIT_S
-from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.buffered_client import release_sockets
 
 REPO = pathlib.Path(__file__).resolve().parents[2]
 MOSQUITTO = shutil.which("mosquitto") or (

@@ -16,8 +16,7 @@ from paho.mqtt.packettypes import PacketTypes
 from paho.mqtt.properties import Properties
 
 from tests.shell.conftest import SLOW, wait_for
-from thermowarden.shell.buffered_client import READ_CHUNK, BufferedClient
-from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.buffered_client import READ_CHUNK, BufferedClient, release_sockets
 
 
 def _record(msg: mqtt.MQTTMessage) -> tuple[Any, ...]:

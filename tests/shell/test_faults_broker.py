@@ -25,7 +25,7 @@ from tests.shell.conftest import (
     wait_for,
     write_site,
 )
-from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.buffered_client import release_sockets
 
 pytestmark = pytest.mark.broker
 

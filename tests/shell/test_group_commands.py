@@ -12,9 +12,9 @@ import uuid
 from tests.shell.conftest import free_port, write_site
 from tests.shell.lease_parts import PG_DSN, drop_schema, need_postgres
 from thermowarden.shell.bootstrap import bootstrap
+from thermowarden.shell.inbox import Incoming
 from thermowarden.shell.lease_keeper import Round
 from thermowarden.shell.leases import Lease
-from thermowarden.shell.mqtt_link import Incoming
 
 
 def test_commands_are_kept_by_every_instance_and_answered_only_under_a_valid_lease(

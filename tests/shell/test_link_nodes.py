@@ -11,8 +11,9 @@ import pytest
 
 from tests.shell.conftest import SLOW, Collector, free_port, wait_for
 from thermowarden.config import BrokerConfig
+from thermowarden.shell.inbox import Control, Inbox
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Inbox, MqttLink
+from thermowarden.shell.mqtt_link import MqttLink
 
 pytestmark = pytest.mark.broker
 

@@ -20,7 +20,7 @@ from tests.shell.conftest import (
     need_program,
     wait_for,
 )
-from thermowarden.shell.mqtt_link import release_sockets
+from thermowarden.shell.buffered_client import release_sockets
 
 pytestmark = pytest.mark.broker
 

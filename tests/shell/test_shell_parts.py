@@ -120,8 +120,9 @@ def test_reconnect_wait_ends_as_soon_as_a_broker_answers(tmp_path):
 
     from tests.shell.conftest import Mosquitto, free_port, wait_for
     from thermowarden.config import BrokerConfig
+    from thermowarden.shell.inbox import Inbox
     from thermowarden.shell.metrics import Metrics
-    from thermowarden.shell.mqtt_link import Inbox, MqttLink
+    from thermowarden.shell.mqtt_link import MqttLink
 
     port = free_port()
     link = MqttLink(BrokerConfig(url=f"mqtt://127.0.0.1:{port}"), [], "t/status", {}, {},

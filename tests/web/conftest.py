@@ -33,8 +33,8 @@ from tests.shell.conftest import (
     wait_for,
 )
 from thermowarden.shell.bootstrap import Running, bootstrap
+from thermowarden.shell.buffered_client import release_sockets
 from thermowarden.shell.clock import Clock
-from thermowarden.shell.mqtt_link import release_sockets
 from thermowarden.shell.web.users import hash_password
 
 REPO = pathlib.Path(__file__).resolve().parents[2]

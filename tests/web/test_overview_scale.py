@@ -19,9 +19,9 @@ from tests.shell.conftest import wait_for
 from thermowarden.config import load_site
 from thermowarden.engine import Engine
 from thermowarden.rules import load_rule_packs
-from thermowarden.shell.mqtt_link import Inbox
+from thermowarden.shell.inbox import Inbox
 from thermowarden.shell.web import LiveView, build_web
-from thermowarden.shell.web.pages import PAGE_SIZE
+from thermowarden.shell.web.overview_page import PAGE_SIZE
 from thermowarden.site_model import build_site_model
 
 PACK = """\

@@ -19,8 +19,11 @@ from thermowarden.core.labels import (
     value_label,
 )
 from thermowarden.core.quantities import QUANTITIES
-from thermowarden.shell.web import pages
+from thermowarden.shell.web.advisory_page import advisory_page
+from thermowarden.shell.web.fragments import advisory_item, age_text, fmt_value, shown_state
 from thermowarden.shell.web.live import SiteDirectory
+from thermowarden.shell.web.overview_page import space_card
+from thermowarden.shell.web.space_page import point_value
 from thermowarden.site_model import build_site_model
 
 UTC = dt.UTC
@@ -38,12 +41,12 @@ def test_states_read_as_states(quantity, value, words):
 
 
 def test_a_points_value_is_a_state_or_a_number_with_its_unit():
-    assert pages.point_value({"quantity": "fan_state", "value": 1.0, "unit": ""}) == "on"
-    assert pages.point_value({"quantity": "shading_position", "value": 100.0,
+    assert point_value({"quantity": "fan_state", "value": 1.0, "unit": ""}) == "on"
+    assert point_value({"quantity": "shading_position", "value": 100.0,
                               "unit": ""}) == "lowered"
-    assert pages.point_value({"quantity": "air_speed", "value": 0.25,
+    assert point_value({"quantity": "air_speed", "value": 0.25,
                               "unit": "m/s"}) == "0.2 m/s"
-    assert "–" in pages.point_value({"quantity": "fan_state", "value": None, "unit": ""})
+    assert "–" in point_value({"quantity": "fan_state", "value": None, "unit": ""})
 
 
 def test_every_state_quantity_has_words():
@@ -83,10 +86,10 @@ def test_values_beyond_the_indices_have_words_and_units():
         assert "_" not in words and words[0].isupper(), name
         assert unit, name
     assert value_label("air_temperature") == "Air temperature"
-    assert pages.fmt_value({"value": 2.0, "unit": "points"}) == "2 points"
-    assert pages.fmt_value({"value": 1.0, "unit": "points"}) == "1 point"
-    assert pages.fmt_value({"value": "A", "unit": "category"}) == "A"
-    assert pages.age_text(-9.0) == "just now"
+    assert fmt_value({"value": 2.0, "unit": "points"}) == "2 points"
+    assert fmt_value({"value": 1.0, "unit": "points"}) == "1 point"
+    assert fmt_value({"value": "A", "unit": "category"}) == "A"
+    assert age_text(-9.0) == "just now"
 
 
 def _advisory(**change) -> dict:
@@ -110,14 +113,14 @@ def test_advice_acted_on_is_not_shown_as_just_active():
     """Five minutes after the fans went on, the fans advisory reads "acted on, waiting for
     its effect", in the list and on its page, not "active"."""
     a = _advisory(acted_on=ACTED)
-    assert pages.shown_state(a) == "acted on, waiting for its effect"
-    assert "acted on, waiting for its effect" in pages.advisory_item(a, UTC)
-    assert pages.shown_state(_advisory()) == "active"
-    assert pages.shown_state(_advisory(acted_on={**ACTED, "helped": False})) == \
+    assert shown_state(a) == "acted on, waiting for its effect"
+    assert "acted on, waiting for its effect" in advisory_item(a, UTC)
+    assert shown_state(_advisory()) == "active"
+    assert shown_state(_advisory(acted_on={**ACTED, "helped": False})) == \
         "acted on, no effect yet"
-    assert pages.shown_state(_advisory(state="acknowledged", acted_on=ACTED)) == \
+    assert shown_state(_advisory(state="acknowledged", acted_on=ACTED)) == \
         "acknowledged, acted on"
-    assert pages.shown_state(_advisory(acted_on=ACTED, state="cleared",
+    assert shown_state(_advisory(acted_on=ACTED, state="cleared",
                                        cleared_at="2026-07-14T14:30:00Z")) == "cleared"
 
 
@@ -133,16 +136,16 @@ def test_an_acknowledged_alert_is_not_also_not_acted_on():
     a = _advisory(rule="heat_stress.wbgt", audience="safety", state="acknowledged",
                   acknowledged={"by": "ana", "at": "2026-07-14T14:03:00Z",
                                 "note": "water and shade"})
-    html = pages.advisory_page(_directory(frozenset({"fans.switch_on_fans"})), a, True,
+    html = advisory_page(_directory(frozenset({"fans.switch_on_fans"})), a, True,
                                None, UTC, 3600.0)
     assert "Acknowledged by <strong>ana</strong>" in html
     assert "Not acted on" not in html and "not acted on" not in html
     assert html.index("Acknowledged by") < html.index("cannot show whether")
     # a rule that follows its advice says what the sensors show
-    followed = pages.advisory_page(_directory(frozenset({"fans.switch_on_fans"})),
+    followed = advisory_page(_directory(frozenset({"fans.switch_on_fans"})),
                                    _advisory(), True, None, UTC, 3600.0)
     assert "The sensors do not show the advice carried out yet" in followed
-    acted = pages.advisory_page(_directory(frozenset({"fans.switch_on_fans"})),
+    acted = advisory_page(_directory(frozenset({"fans.switch_on_fans"})),
                                 _advisory(acted_on=ACTED), True, None, UTC, 3600.0)
     assert "Acted on at" in acted and "PMV when acted on" in acted
 
@@ -160,7 +163,7 @@ def test_an_advisory_page_reads_as_words_with_units():
                  "pmv_after": {"value": 0.5}},
         history=[{"at": "2026-07-14T14:00:00Z", "event": "raised"},
                  {"at": "2026-07-14T14:05:00Z", "event": "deescalated"}])
-    html = pages.advisory_page(_directory(frozenset({"fans.switch_on_fans"})), a, True,
+    html = advisory_page(_directory(frozenset({"fans.switch_on_fans"})), a, True,
                                None, UTC, 3600.0)
     body = html.split("<main>", 1)[1]
     text = unescape(re.sub(r"<[^>]+>", "\n", body))
@@ -172,8 +175,8 @@ def test_a_cards_live_count_has_the_colour_of_its_most_urgent_advisory():
     from thermowarden.shell.web.live import SpaceInfo
 
     garden = SpaceInfo("staff-garden", "Staff garden", "outdoor", False, "mechanical", 0)
-    medium = pages.space_card(garden, None, [{"priority": "medium"}, {"priority": "low"}], UTC)
+    medium = space_card(garden, None, [{"priority": "medium"}, {"priority": "low"}], UTC)
     assert '<span class="badge medium">2 live</span>' in medium
-    high = pages.space_card(garden, None, [{"priority": "low"}, {"priority": "high"}], UTC)
+    high = space_card(garden, None, [{"priority": "low"}, {"priority": "high"}], UTC)
     assert '<span class="badge high">2 live</span>' in high
-    assert "live</span>" not in pages.space_card(garden, None, [], UTC)
+    assert "live</span>" not in space_card(garden, None, [], UTC)

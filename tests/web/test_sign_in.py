@@ -16,7 +16,7 @@ from tests.web.test_overview_scale import PACK, free_port, site_text
 from thermowarden.config import ConfigError, load_site
 from thermowarden.engine import Engine
 from thermowarden.rules import load_rule_packs
-from thermowarden.shell.mqtt_link import Inbox
+from thermowarden.shell.inbox import Inbox
 from thermowarden.shell.web import build_web
 from thermowarden.shell.web.users import Sessions, hash_password, load_users
 from thermowarden.site_model import build_site_model

@@ -32,7 +32,7 @@ from thermowarden.shell.logs import RateLimiter
 if TYPE_CHECKING:
     from thermowarden.effects import Effect
     from thermowarden.engine import Engine
-    from thermowarden.shell.group import Group
+    from thermowarden.shell.group.instance import Group
     from thermowarden.shell.inbox import Incoming
     from thermowarden.shell.metrics import Metrics
     from thermowarden.shell.mqtt_link import MqttLink

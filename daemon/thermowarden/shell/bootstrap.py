@@ -29,7 +29,7 @@ from thermowarden.engine import Engine, iso
 from thermowarden.rules import CompiledPack, load_rule_packs
 from thermowarden.shell.clock import Clock
 from thermowarden.shell.delivery import Delivery
-from thermowarden.shell.group import Group
+from thermowarden.shell.group.instance import Group
 from thermowarden.shell.http_ops import start_http
 from thermowarden.shell.inbox import Control, Inbox
 from thermowarden.shell.lease_keeper import lease_clock

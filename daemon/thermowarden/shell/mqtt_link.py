@@ -61,17 +61,11 @@ from paho.mqtt.properties import Properties
 from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from thermowarden.config import BrokerConfig, read_password
-from thermowarden.shell.broker_nodes import BrokerNodes, parse_url
+from thermowarden.shell.broker_nodes import BrokerNodes
 from thermowarden.shell.buffered_client import BufferedClient, no_op, release_sockets
-from thermowarden.shell.inbox import Control, Inbox, Incoming, SensorMessage
+from thermowarden.shell.inbox import Control, Inbox
 from thermowarden.shell.message_sorting import MessageSorter
 from thermowarden.shell.metrics import Metrics
-
-__all__ = ["Control", "Inbox", "Incoming", "MqttLink", "SensorMessage", "parse_url",
-           "release_sockets"]
-"""Also named here: the hand-over's types (:mod:`thermowarden.shell.inbox`), the URL parser
-(:mod:`thermowarden.shell.broker_nodes`) and the socket release
-(:mod:`thermowarden.shell.buffered_client`), for the modules that import them from here."""
 
 log = logging.getLogger("thermowarden.mqtt")
 

@@ -31,7 +31,7 @@ from thermowarden.shell.logs import RateLimiter
 if TYPE_CHECKING:
     from thermowarden.shell.clock import Clock
     from thermowarden.shell.delivery import Delivery
-    from thermowarden.shell.group import Group
+    from thermowarden.shell.group.instance import Group
     from thermowarden.shell.inbox import Control
     from thermowarden.shell.metrics import Metrics
     from thermowarden.shell.mqtt_link import MqttLink

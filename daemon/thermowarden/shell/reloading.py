@@ -33,7 +33,7 @@ from thermowarden.site_model import SiteModel, build_site_model
 
 if TYPE_CHECKING:
     from thermowarden.shell.delivery import Delivery
-    from thermowarden.shell.group import Group
+    from thermowarden.shell.group.instance import Group
     from thermowarden.shell.mqtt_link import MqttLink
 
 log = logging.getLogger("thermowarden.service")

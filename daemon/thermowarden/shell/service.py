@@ -36,7 +36,7 @@ from thermowarden.shell import systemd
 from thermowarden.shell.advisory_commands import AdvisoryCommands
 from thermowarden.shell.clock import Clock, StepWatch
 from thermowarden.shell.delivery import Delivery
-from thermowarden.shell.group import Group
+from thermowarden.shell.group.instance import Group
 from thermowarden.shell.heap import freeze_heap
 from thermowarden.shell.inbox import Control, Inbox, Incoming, SensorMessage
 from thermowarden.shell.intake_counts import IntakeCounts

@@ -108,7 +108,14 @@ class NatsLeaseStore:
                                             daemon=True)
             self._thread.start()
         if self._kv is None:
-            self._run(self._open(), timeout=max(10.0, 3 * self.timeout_s))
+            self._run(self._open(), timeout=self.open_timeout_s + 1.0)
+
+    @property
+    def open_timeout_s(self) -> float:
+        """How long opening the bucket may take, s: a cluster that was just started (or lost
+        a node) answers JetStream requests only once it has elected its leaders, so a
+        request that times out is sent again until this is over."""
+        return max(10.0, 3 * self.timeout_s)
 
     async def _open(self) -> None:
         async def quiet(exc: Exception) -> None:
@@ -121,8 +128,23 @@ class NatsLeaseStore:
                 ping_interval=max(1, round(self.ttl_s / 3)), max_outstanding_pings=2,
                 error_cb=quiet, name="thermowarden-leases")
         js = self._nc.jetstream(timeout=self.timeout_s)
+        deadline = time.monotonic() + self.open_timeout_s - self.timeout_s
+        while True:
+            try:
+                kv = await self._create_or_bind(js)
+                break
+            except (nats.errors.TimeoutError, nats.js.errors.ServiceUnavailableError):
+                if time.monotonic() >= deadline:
+                    raise
+                log.info("nats-server: JetStream not answering yet; asking again")
+                await asyncio.sleep(0.25)
+        self._kv = kv
+
+    async def _create_or_bind(self, js: Any) -> Any:
+        """The group's bucket, created with its TTL and replicas, or the existing one when
+        its TTL is the group's."""
         try:
-            kv = await js.create_key_value(KeyValueConfig(
+            return await js.create_key_value(KeyValueConfig(
                 bucket=self.bucket, history=1, ttl=self.ttl_s,
                 replicas=self.stream_replicas))
         except nats.js.errors.BadRequestError:
@@ -136,7 +158,7 @@ class NatsLeaseStore:
                     f"the key-value bucket {self.bucket!r} exists with a TTL of "
                     f"{ttl if ttl is not None else 'none'} s, not the group's lease_ttl_s of "
                     f"{self.ttl_s:g} s: delete the bucket or use another name") from None
-        self._kv = kv
+            return kv
 
     def close(self) -> None:
         loop, nc = self._loop, self._nc

@@ -9,7 +9,7 @@ from collections.abc import Callable, Mapping
 from thermowarden.config import SiteConfig
 from thermowarden.engine import Engine
 from thermowarden.rules import CompiledPack
-from thermowarden.shell.mqtt_link import Inbox
+from thermowarden.shell.inbox import Inbox
 from thermowarden.shell.web.app import WebServer, create_app
 from thermowarden.shell.web.context import CommandBridge, WebContext
 from thermowarden.shell.web.history import StoreReader

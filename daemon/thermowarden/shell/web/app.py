@@ -25,8 +25,8 @@ from starlette.responses import RedirectResponse, Response
 from starlette.routing import Route
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from thermowarden.shell.web import pages
 from thermowarden.shell.web.context import WebContext
+from thermowarden.shell.web.layout import SECURITY_HEADERS
 from thermowarden.shell.web.requests import (
     SIGN_IN_FIRST,
     bearer_session,
@@ -103,7 +103,7 @@ def create_app(ctx: WebContext) -> Starlette:
 
 
 class SecurityHeaders:
-    """Adds :data:`pages.SECURITY_HEADERS` to every HTTP response (pure ASGI)."""
+    """Adds :data:`SECURITY_HEADERS` to every HTTP response (pure ASGI)."""
 
     def __init__(self, app: ASGIApp) -> None:
         self.app = app
@@ -116,7 +116,7 @@ class SecurityHeaders:
         async def send_with_headers(message: Message) -> None:
             if message["type"] == "http.response.start":
                 headers = MutableHeaders(scope=message)
-                for name, value in pages.SECURITY_HEADERS.items():
+                for name, value in SECURITY_HEADERS.items():
                     headers[name] = value
             await send(message)
 

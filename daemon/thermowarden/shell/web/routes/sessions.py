@@ -9,8 +9,8 @@ from starlette.concurrency import run_in_threadpool
 from starlette.requests import Request
 from starlette.responses import HTMLResponse, JSONResponse, RedirectResponse, Response
 
-from thermowarden.shell.web import pages
 from thermowarden.shell.web.context import WebContext
+from thermowarden.shell.web.login_page import login_page
 from thermowarden.shell.web.requests import (
     COOKIE,
     BadRequest,
@@ -26,23 +26,23 @@ from thermowarden.shell.web.requests import (
 
 async def login_get(ctx: WebContext, request: Request) -> Response:
     next_url = request.query_params.get("next", "/")
-    return HTMLResponse(pages.login_page(ctx.directory, local_path(next_url), None,
-                                         ctx.sessions is not None))
+    return HTMLResponse(login_page(ctx.directory, local_path(next_url), None,
+                                   ctx.sessions is not None))
 
 
 async def login_post(ctx: WebContext, request: Request) -> Response:
     if ctx.sessions is None:
-        return HTMLResponse(pages.login_page(ctx.directory, "/", None, False), 404)
+        return HTMLResponse(login_page(ctx.directory, "/", None, False), 404)
     try:
         fields = await form(request)
     except BadRequest as exc:
-        return HTMLResponse(pages.login_page(ctx.directory, "/", str(exc), True), 400)
+        return HTMLResponse(login_page(ctx.directory, "/", str(exc), True), 400)
     next_url = local_path(fields.get("next", "/"))
     session = await run_in_threadpool(ctx.sessions.sign_in, fields.get("name", ""),
                                       fields.get("password", ""), client(request))
     if session is None:
-        return HTMLResponse(pages.login_page(ctx.directory, next_url,
-                                             "Name or password not accepted.", True), 401)
+        return HTMLResponse(login_page(ctx.directory, next_url,
+                                       "Name or password not accepted.", True), 401)
     resp = RedirectResponse(next_url, status_code=303)
     resp.set_cookie(COOKIE, session.token, max_age=int(ctx.sessions.lifetime_s),
                     httponly=True, samesite="strict", path="/")
