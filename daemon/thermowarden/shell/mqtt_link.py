@@ -24,15 +24,9 @@ paho keeps every QoS 1 message it was handed until the broker acknowledges it, a
 reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
-With ``broker.persistent_session`` (MQTT 3.1.1) every connection asks the broker to keep the
-session (clean session off, the same client id), with the command topics subscribed at QoS
-1: the broker keeps the commands sent while the connection is down or moving to another node
-of a cluster and delivers them after the reconnection (nats-server keeps MQTT sessions in
-JetStream, across its nodes; it sends an unacknowledged message again after its
-``ack_wait``, 30 s by default). Sensor subscriptions stay at ``subscribe_qos``. A run's first
-connection only ends an earlier run's session (its commands are not this run's) with a clean
-session, and disconnects: a session begun with clean session on is not kept past its
-connection, so the run cannot begin with one and keep it.
+``broker.persistent_session`` (MQTT 3.1.1, see its docstring): every connection asks for the
+session the broker keeps, commands at QoS 1; a run's first connection only ends an earlier
+run's session (clean session on) and disconnects, as a session begun clean is not kept.
 
 Received messages are sorted by kind onto the inbox by :mod:`thermowarden.shell.
 message_sorting` (retained and oversized commands, oversized sensor messages).
@@ -114,10 +108,9 @@ class MqttLink:
         self.v5 = cfg.protocol == "5"
         self.persistent = cfg.persistent_session and not self.v5
         """MQTT 3.1.1 with a session kept between the connections of this run."""
-        self._session_begun = False
-        """Persistent: an earlier run's session was ended (the next connect keeps one)."""
-        self._begin_session = False
-        """Persistent: that connection was just made and closed; connect again at once."""
+        self._session_begun = self._begin_session = False
+        """Persistent: an earlier run's session was ended; that connection was just closed
+        (connect again at once)."""
         self.nodes = BrokerNodes([cfg.url, *cfg.fallback_urls])
         tls = self.nodes.tls
         self.client = BufferedClient(
