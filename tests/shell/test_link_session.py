@@ -20,8 +20,9 @@ from tests.shell.conftest import SLOW, free_port, wait_for
 from tests.shell.nats_cluster import NatsCluster, nats_program
 from thermowarden.config import BrokerConfig
 from thermowarden.shell.advisory_commands import SEEN_KEPT_S, AdvisoryCommands
+from thermowarden.shell.inbox import Control, Inbox, Incoming
 from thermowarden.shell.metrics import Metrics
-from thermowarden.shell.mqtt_link import Control, Inbox, Incoming, MqttLink
+from thermowarden.shell.mqtt_link import MqttLink
 
 PREFIX = "twsess"
 COMMANDS = f"{PREFIX}/commands/"
