@@ -180,6 +180,7 @@ def test_a_margin_inside_instrument_accuracy_is_called_reached():
     assert "treat as reached" in " ".join(r.stdout.split("\n\n")[0].split())
 
 
+@pytest.mark.long
 def test_assumptions_fill_in_and_are_marked():
     """A thermostat's reading with declared assumptions, as a site's ``assume`` does; the
     PMV is the same as with the values given as readings (ISO 7730 Table D.1 gives +0.77 at
@@ -235,6 +236,7 @@ def test_the_verdict_follows_the_workers_acclimatisation(acclimatised, verdict):
                                                         abs=0.01)
 
 
+@pytest.mark.long
 @pytest.mark.parametrize("speed, raised", [(0.3, 0.0), (0.6, 1.2), (0.9, 1.8), (1.2, 2.2)])
 def test_adaptive_upper_limits_rise_with_air_speed(speed, raised):
     """ASHRAE 55-2020 5.4.2.4, Table 5.4.2.4: +1.2 K at 0.6 m/s, +1.8 K at 0.9, +2.2 K at

@@ -23,6 +23,8 @@ from tests.conftest import COMMAND_LIMIT_S, REPO
 from tests.shell.conftest import free_port, wait_for
 from thermowarden.simulate import retime, scenario_records
 
+pytestmark = pytest.mark.long  # out of the fast set (DEVELOPERS.md)
+
 SITE = REPO / "deploy" / "example-site.yaml"
 
 

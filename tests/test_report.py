@@ -88,6 +88,7 @@ def test_html_is_self_contained(day, tmp_path):
     (tmp_path / "r.html").write_text(text)
 
 
+@pytest.mark.long
 def test_report_cli_from_feed(tmp_path):
     out = tmp_path / "report.html"
     r = subprocess.run([sys.executable, "-m", "thermowarden.cli", "report", "--config",
@@ -101,6 +102,7 @@ CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 
 
 @pytest.mark.skipif(CHROMIUM is None, reason="no headless chromium on this machine")
+@pytest.mark.long
 def test_report_opens_in_a_headless_browser(day, tmp_path):
     config, result, report = day
     page = tmp_path / "report.html"

@@ -24,6 +24,8 @@ from thermowarden.shell.report import SpaceReport, timeline_spans
 from thermowarden.shell.store import Store
 from thermowarden.site_model import build_site_model
 
+pytestmark = pytest.mark.long  # out of the fast set (DEVELOPERS.md)
+
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 BAKERY_TOPIC = "larkfield/bakery-floor/senml"

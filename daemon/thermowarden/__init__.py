@@ -28,6 +28,12 @@ def _default_numba_cache() -> None:
         base = _os.environ.get("XDG_CACHE_HOME") or str(_pathlib.Path.home() / ".cache")
         _os.environ["NUMBA_CACHE_DIR"] = str(_pathlib.Path(base) / "thermowarden" / "numba")
     _os.environ.setdefault("NUMBA_CACHE_LOCATOR_CLASSES", _LOCATORS)
+    # numba's OpenMP threading layer (GNU libgomp, read when numba first starts its
+    # threads): idle worker threads block instead of spinning after each multi-core
+    # kernel, so they take no CPU from the engine or from other processes between batches
+    # (the engine's batches are milliseconds apart, far longer than a thread's wake-up).
+    # An explicit OMP_WAIT_POLICY wins.
+    _os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
 
 
 _default_numba_cache()

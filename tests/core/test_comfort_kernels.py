@@ -85,7 +85,7 @@ def test_remembered_results_are_the_solved_ones():
         solved_rows.append(cols[0].size)
         return cols[0] * 10.0 + cols[1]
 
-    memo = _Memo(limit=8)
+    memo = _Memo(slots=8)
     a = np.array([1.0, 2.0, 1.0, 3.0, 2.0])
     b = np.array([0.5, 0.5, 0.5, 0.5, 0.5])
     assert memo.apply([a, b], solve).tolist() == [10.5, 20.5, 10.5, 30.5, 20.5]
@@ -97,7 +97,7 @@ def test_remembered_results_are_the_solved_ones():
     assert solved_rows == [3, 2]
     many = np.arange(20.0)
     assert memo.apply([many, many], solve).tolist() == (many * 11.0).tolist()
-    assert len(memo.results) <= 8
+    assert len(memo) <= 8
 
 
 def test_air_speed_remembered_per_upper_speed():
@@ -109,3 +109,28 @@ def test_air_speed_remembered_per_upper_speed():
     assert np.isfinite(wide[0]) and wide[0] > 0.2
     narrow = comfort.air_speed_for_pmv(*args, max_speed=0.8 * wide[0])
     assert np.isnan(narrow[0])  # a bound below the speed needed does not suffice
+
+
+def test_memo_gives_what_solving_gives_whatever_its_size():
+    """Rows that recur and rows that differ in one bit only, in tables too small for them
+    (slots taken over): every result is the one solving the row gives."""
+    from thermowarden.core.comfort_kernels import _Memo
+
+    rng = np.random.default_rng(5)
+    base = np.round(rng.uniform(20.0, 35.0, (40, 3)), 1)
+    base[1] = base[0]
+    base[1, 2] = np.nextafter(base[0, 2], np.inf)  # one bit apart
+    base[2:4] = base[0]
+    base[2, 1], base[3, 1] = 0.0, -0.0  # the same number, not the same bits
+
+    def solve(cols):
+        return cols[0] * 1000.0 + cols[1] * 10.0 + cols[2]
+
+    for slots in (1, 4, 64, 4096):
+        memo = _Memo(slots=slots)
+        for _ in range(6):
+            rows = base[rng.integers(0, len(base), 25)]
+            cols = [rows[:, 0], rows[:, 1], rows[:, 2]]
+            assert memo.apply(cols, solve).tolist() == solve(cols).tolist(), slots
+        assert len(memo) <= slots
+    assert memo.hits > 0

@@ -56,6 +56,7 @@ def test_mean_radiant_rise_against_ashrae_55_appendix_c_table(row: dict[str, str
     assert rise == pytest.approx(float(row["delMrt"]), abs=0.051)
 
 
+@pytest.mark.long
 def test_where_the_table_and_the_library_differ() -> None:
     # Measured: every row of this half of the table has the sun on the horizon (0°
     # altitude). 164 of its 192 rows agree within the rounding (above); the other 28 are

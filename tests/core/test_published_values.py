@@ -233,6 +233,7 @@ def test_wet_bulb(row):
     assert got == pytest.approx(row["twb"], abs=PUBLISHED["wet_bulb"]["tolerance"])
 
 
+@pytest.mark.long
 def test_psychrometrics_against_psychrolib_over_a_grid():
     """Reference library psychrolib 2.5 (ASHRAE Handbook 2017 equations) [lib] over a grid of
     conditions and at altitude, including below freezing.

@@ -166,6 +166,7 @@ spaces:
 """
 
 
+@pytest.mark.long
 def test_a_site_wide_flood_is_counted_and_clears(tmp_path):
     n = 300
     site = tmp_path / "site.yaml"

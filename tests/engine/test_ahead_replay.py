@@ -100,6 +100,7 @@ def test_notifications_rise_by_the_ahead_messages_alone(days) -> None:
     assert others(day) == others(before)
 
 
+@pytest.mark.long
 def test_replay_summary_prints_the_ahead_of_time_figures(tmp_path) -> None:
     figures = cli_replay_json("--summary")["ahead_of_time"]
     assert {r["rule"] for r in figures} == {"ahead.wbgt_action", "ahead.wbgt_limit",

@@ -509,6 +509,7 @@ def test_after_a_clearing_the_lowest_level_waits_for_a_rise(tmp_path):
     assert events(rising, "room-2", lv)[:1] == [("raised", lv, "medium")]
 
 
+@pytest.mark.long
 def test_a_level_that_relapses_waits_longer_before_it_is_lowered_again(lab):
     """A value swinging across a band edge every 10 minutes (a passing cloud in the sun):
     lowered once after the 5-minute hold, back up at once, then held at the higher level

@@ -60,15 +60,15 @@ def test_a_failing_computation_stays_in_its_space(tmp_path, monkeypatch):
     import thermowarden.engine.evaluation as evaluation
     import thermowarden.engine.index_rows as index_rows
 
-    real = evaluation.compute_indices
+    real = evaluation.compute_phs
 
-    def failing(inputs, with_phs=False):
-        if with_phs and any(p == "crouching" for p in inputs.posture):
+    def failing(inputs):
+        if any(p == "crouching" for p in inputs.posture):
             raise ValueError("posture 'crouching' is not understood by the PHS model")
-        return real(inputs, with_phs=with_phs)
+        return real(inputs)
 
-    monkeypatch.setattr(evaluation, "compute_indices", failing)
-    monkeypatch.setattr(index_rows, "compute_indices", failing)  # distinct rows
+    monkeypatch.setattr(evaluation, "compute_phs", failing)
+    monkeypatch.setattr(index_rows, "compute_phs", failing)  # distinct rows
     engine = foundry(tmp_path, ["standing", "crouching", "standing"])
     effects = []
     for t in range(0, 700, 60):
@@ -194,6 +194,7 @@ def test_commands_must_go_to_the_advisory_audience(lab):
     validate_effects(eff)
 
 
+@pytest.mark.long
 def test_repeated_shelving_never_exceeds_the_rules_daily_limit(lab):
     # the urgent level of "levels" (max_shelve_s 600): a script that shelves it again
     # every time it comes back gets 600 s of silence a day in total, not more

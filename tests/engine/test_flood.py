@@ -11,6 +11,8 @@ import json
 import subprocess
 import sys
 
+import pytest
+
 from tests.conftest import COMMAND_LIMIT_S
 from tests.engine.conftest import PACK, validate_effects
 from thermowarden.config import load_site
@@ -47,6 +49,7 @@ def busiest(times, span=600.0):
     return max((sum(1 for u in times if t <= u < t + span) for t in times), default=0)
 
 
+@pytest.mark.long
 def test_a_300_space_flood_stays_within_10_notifications_in_any_10_minutes(tmp_path):
     path = site(tmp_path)
     config = load_site(path, {})

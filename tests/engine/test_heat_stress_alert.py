@@ -114,6 +114,7 @@ def value(payload, name):
     return payload["advisory"]["numbers"][name]["value"]
 
 
+@pytest.mark.long
 @pytest.mark.parametrize("space", ["yard", "shop"])
 def test_a_hot_work_space_without_a_wet_bulb_sensor_gets_the_alert(tmp_path, space):
     """Outdoors (the site's wind, with solar load) and indoors (an air-speed point): the

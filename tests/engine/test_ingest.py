@@ -154,6 +154,7 @@ def fresh_site(topic_index: int):
 
 @settings(max_examples=300, deadline=None)
 @given(topic_index=st.integers(0, 50), raw=st.binary(max_size=300))
+@pytest.mark.long
 def test_fuzz_bytes_only_readings_or_counted_rejections(topic_index, raw):
     model, state, ing, topic = fresh_site(topic_index)
     before = ing.accepted + sum(ing.rejected.values())
@@ -167,6 +168,7 @@ def test_fuzz_bytes_only_readings_or_counted_rejections(topic_index, raw):
 
 @settings(max_examples=300, deadline=None)
 @given(topic_index=st.integers(0, 50), doc=json_values)
+@pytest.mark.long
 def test_fuzz_json_shapes(topic_index, doc):
     model, state, ing, topic = fresh_site(topic_index)
     payload = json.dumps(doc, allow_nan=True).encode()

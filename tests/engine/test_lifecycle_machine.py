@@ -8,6 +8,7 @@ import pathlib
 import tempfile
 import textwrap
 
+import pytest
 from hypothesis import HealthCheck, settings
 from hypothesis import strategies as st
 from hypothesis.stateful import RuleBasedStateMachine, invariant, rule
@@ -100,4 +101,4 @@ class EngineMachine(RuleBasedStateMachine):
 EngineMachine.TestCase.settings = settings(max_examples=60, stateful_step_count=40,
                                            deadline=None,
                                            suppress_health_check=[HealthCheck.too_slow])
-TestEngineLifecycle = EngineMachine.TestCase
+TestEngineLifecycle = pytest.mark.long(EngineMachine.TestCase)

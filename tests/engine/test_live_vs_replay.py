@@ -16,6 +16,8 @@ from thermowarden.engine import Engine
 from thermowarden.rules import load_rule_packs
 from thermowarden.site_model import build_site_model
 
+pytestmark = pytest.mark.long  # out of the fast set (DEVELOPERS.md)
+
 SITE = REPO / "deploy" / "example-site.yaml"
 FEED = REPO / "simulated_feeds" / "recorded" / "larkfield-day.jsonl.gz"
 TICK_S = 60.0

@@ -65,6 +65,7 @@ def test_summary_counts(day):
     assert s["messages"] == day.messages > 20_000
 
 
+@pytest.mark.long
 def test_cli_replay_is_deterministic(tmp_path):
     # a two-hour slice keeps the subprocess quick
     part = tmp_path / "slice.jsonl"

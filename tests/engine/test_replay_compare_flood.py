@@ -9,8 +9,12 @@ import json
 import subprocess
 import sys
 
+import pytest
+
 from thermowarden.config import load_site
 from thermowarden.replay import compare, read_feed, replay, summarise
+
+pytestmark = pytest.mark.long  # out of the fast set (DEVELOPERS.md)
 
 LIMIT_S = 900
 ZONES, HOT = 600, 500

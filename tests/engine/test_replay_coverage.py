@@ -104,6 +104,7 @@ def test_the_allowance_reads_the_rules_settings():
         2 * 86_400.0 // warm.renotify_s)
 
 
+@pytest.mark.long
 def test_the_command_prints_the_same_figures(coverage):
     text = cli_replay("--coverage", "--tick", "60")
     for r in coverage["rules"]:

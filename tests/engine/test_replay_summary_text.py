@@ -6,6 +6,8 @@ from __future__ import annotations
 import json
 import re
 
+import pytest
+
 from tests.conftest import REPO
 from tests.recorded_day import cli_replay
 
@@ -20,6 +22,7 @@ def _run(*extra: str) -> str:
     return cli_replay("--summary", *extra)
 
 
+@pytest.mark.long
 def test_summary_is_a_table_with_the_json_figures():
     text = _run()
     figures = json.loads(_run("--json"))

@@ -33,6 +33,7 @@ def records():
     return recorded_day_records()
 
 
+@pytest.mark.long
 def test_cli_compare_prints_what_a_shading_threshold_changes():
     cmd = [sys.executable, "-m", "thermowarden.cli", "replay", "--config", str(SITE),
            str(FEED), "--compare", "--set", f"{SHADING}.asymmetry_limit_k=25",

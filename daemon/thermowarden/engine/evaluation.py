@@ -2,7 +2,8 @@
 truths over it: :mod:`thermowarden.engine.rule_truths`).
 
 Indices are computed for all spaces in one vectorised call (ISO 7933 PHS, which simulates a
-whole work period, only every ``PHS_EVERY_S``). Rule conditions are three-valued over the
+whole work period, only every ``PHS_EVERY_S``, on its own: with the humidity and mean radiant
+temperature it reads, not the other families again). Rule conditions are three-valued over the
 spaces (true / false / unknown); unknown never raises and never clears.
 
 A computation that raises for one space's inputs fails for that space alone: the spaces are
@@ -25,6 +26,7 @@ from thermowarden.core.indices import (
     IndexTable,
     SpaceInputs,
     compute_indices,
+    compute_phs,
     relative_humidity_method,
     select,
     with_time_weighted_wbgt,
@@ -35,6 +37,7 @@ from thermowarden.engine.health import PointHealth
 from thermowarden.engine.index_rows import (
     COMPUTATION_FAILED,
     compute_distinct,
+    compute_phs_distinct,
     concat_columns,
     input_matrix,
     merge_tables,
@@ -132,7 +135,7 @@ class Evaluation:
         """Indices without PHS of the inputs ``s`` (rows ``rows`` of the batch, in order),
         isolated per row; records which spaces failed at their latest computed row."""
         n = self.n
-        table, failed = self._isolated(s, rows % n, with_phs=False)
+        table, failed = self._isolated(s, rows % n)
         self.failure_count += len(failed)
         latest = np.full(n, -1)
         np.maximum.at(latest, rows % n, np.arange(rows.size))
@@ -171,13 +174,13 @@ class Evaluation:
                     self.last_phs = t
         if due:
             rows = np.concatenate([np.arange(j * n, (j + 1) * n) for j in due])
-            fresh, failed = self._isolated(rows_of(s, rows), rows % n, with_phs=True)
-            self.failure_count += sum(1 for g, _ in failed.values() if g == PHS_GROUP)
+            fresh, failed = self._phs_isolated(rows_of(s, rows), rows % n,
+                                               self._every_failed(table)[rows])
+            self.failure_count += len(failed)
             last = (len(due) - 1) * n
-            self._phs_failures = {r - last: f for r, f in failed.items()
-                                  if r >= last and f[0] == PHS_GROUP}
+            self._phs_failures = {r - last: f for r, f in failed.items() if r >= last}
             self._note()
-            refreshed = {name: col for name, col in fresh.items() if name.startswith("phs_")}
+            refreshed = fresh
         else:
             refreshed = {}
         if refreshed or self.phs_columns:
@@ -221,58 +224,92 @@ class Evaluation:
         return TickRows(table, rows, relative_humidity_method(
             np.isfinite(s.relative_humidity[rows])))
 
-    def _isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp], with_phs: bool
-                  ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
-        """:func:`compute_indices` for every row of ``inputs`` (row r is of space
-        ``space[r]``); a row whose inputs make it raise is found by splitting, retried
-        without PHS, and left without those indices. Returns the table and, per failed row,
-        the index group that failed and the error."""
+    def _phs_isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp],
+                      every_failed: BoolArray
+                      ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
+        """The ISO 7933 PHS columns alone (:func:`compute_phs`) of every row of ``inputs``
+        (row r is of space ``space[r]``); the other families are not computed again. Rows
+        whose other indices failed (``every_failed``) are left without PHS too, as a
+        computation of every index would; a row whose inputs make PHS raise is found by
+        splitting and left without PHS. Returns the columns and, per failed row, the group
+        (PHS) and the error."""
         failed: dict[int, tuple[str, str]] = {}
-        known_bad = [i for i, (group, _) in self.failures.items() if group == ALL_GROUP
-                     or (with_phs and group == PHS_GROUP)]
-        bad_rows = np.isin(space, known_bad)
-        if not bad_rows.any():
+        known_bad = [i for i, (group, _) in self.failures.items() if group == PHS_GROUP]
+        bad_rows = np.isin(space, known_bad) & ~every_failed
+        if not bad_rows.any() and not every_failed.any():
             try:
-                return compute_distinct(inputs, with_phs), failed
+                return compute_phs_distinct(inputs), failed
             except Exception:  # noqa: BLE001 - found and isolated below
                 pass
         parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
-        self._split(inputs, np.flatnonzero(~bad_rows), with_phs, parts, failed)
+        self._split_phs(inputs, np.flatnonzero(~bad_rows & ~every_failed), parts, failed)
         for r in np.flatnonzero(bad_rows).tolist():
-            self._split(inputs, np.array([r], dtype=np.intp), with_phs, parts, failed)
-        table = merge_tables(inputs.n, parts, self._last_table)
-        phs_failed = [r for r, (group, _) in failed.items() if group == PHS_GROUP]
-        if phs_failed:
-            for name, col in table.items():
-                if name.startswith("phs_"):
-                    col.codes[phs_failed] = col.reasons.index(COMPUTATION_FAILED)
-                    col.values[phs_failed] = np.nan
-        return table, failed
+            self._split_phs(inputs, np.array([r], dtype=np.intp), parts, failed)
+        template = {name: col for name, col in (self._last_table or {}).items()
+                    if name.startswith("phs_")}
+        return merge_tables(inputs.n, parts, template), failed
 
-    def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp], with_phs: bool,
-               parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
-               failed: dict[int, tuple[str, str]]) -> None:
+    def _split_phs(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp],
+                   parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+                   failed: dict[int, tuple[str, str]]) -> None:
         if idx.size == 0:
             return
         try:
-            parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=with_phs)))
+            parts.append((idx, compute_phs(take_inputs(inputs, idx))))
             return
         except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
             error = f"{type(exc).__name__}: {exc}"[:300]
         if idx.size > 1:
             half = idx.size // 2
-            self._split(inputs, idx[:half], with_phs, parts, failed)
-            self._split(inputs, idx[half:], with_phs, parts, failed)
+            self._split_phs(inputs, idx[:half], parts, failed)
+            self._split_phs(inputs, idx[half:], parts, failed)
             return
-        i = int(idx[0])
-        if with_phs:
+        failed[int(idx[0])] = (PHS_GROUP, error)
+
+    def _isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp]
+                  ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
+        """:func:`compute_indices` without PHS for every row of ``inputs`` (row r is of
+        space ``space[r]``); a row whose inputs make it raise is found by splitting and left
+        without indices. Returns the table and, per failed row, the group and the error."""
+        failed: dict[int, tuple[str, str]] = {}
+        known_bad = [i for i, (group, _) in self.failures.items() if group == ALL_GROUP]
+        bad_rows = np.isin(space, known_bad)
+        if not bad_rows.any():
             try:
-                parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=False)))
-                failed[i] = (PHS_GROUP, error)
-                return
-            except Exception as exc:  # noqa: BLE001
-                error = f"{type(exc).__name__}: {exc}"[:300]
-        failed[i] = (ALL_GROUP, error)
+                return compute_distinct(inputs, False), failed
+            except Exception:  # noqa: BLE001 - found and isolated below
+                pass
+        parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
+        self._split(inputs, np.flatnonzero(~bad_rows), parts, failed)
+        for r in np.flatnonzero(bad_rows).tolist():
+            self._split(inputs, np.array([r], dtype=np.intp), parts, failed)
+        return merge_tables(inputs.n, parts, self._last_table), failed
+
+    def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp],
+               parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
+               failed: dict[int, tuple[str, str]]) -> None:
+        if idx.size == 0:
+            return
+        try:
+            parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=False)))
+            return
+        except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
+            error = f"{type(exc).__name__}: {exc}"[:300]
+        if idx.size > 1:
+            half = idx.size // 2
+            self._split(inputs, idx[:half], parts, failed)
+            self._split(inputs, idx[half:], parts, failed)
+            return
+        failed[int(idx[0])] = (ALL_GROUP, error)
+
+    @staticmethod
+    def _every_failed(table: IndexTable) -> BoolArray:
+        """Per row: every index failed (its computation raised for the row's inputs)."""
+        col = table["relative_humidity"]
+        if COMPUTATION_FAILED not in col.reasons:
+            return np.zeros(col.codes.size, dtype=bool)
+        result: BoolArray = col.codes == col.reasons.index(COMPUTATION_FAILED)
+        return result
 
     @staticmethod
     def failure_columns(table: Mapping[str, IndexColumn]) -> dict[str, FloatArray]:

@@ -5,6 +5,7 @@ computed once, tables of parts merged back into one (rows not computed absent wi
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Callable
 from dataclasses import fields
 from typing import Any, Final
 
@@ -12,7 +13,13 @@ import numpy as np
 import numpy.typing as npt
 
 from thermowarden.core.columns import FloatArray, IndexColumn
-from thermowarden.core.indices import IndexTable, SpaceInputs, compute_indices, select
+from thermowarden.core.indices import (
+    IndexTable,
+    SpaceInputs,
+    compute_indices,
+    compute_phs,
+    select,
+)
 
 COMPUTATION_FAILED: Final = "the computation failed for this space's inputs"
 
@@ -109,15 +116,25 @@ def compute_distinct(s: SpaceInputs, with_phs: bool) -> IndexTable:
     occupancy change seldom). Every index of a row depends on that row's inputs alone, and
     the rows computed hold every distinct input, so the table is the one of computing every
     row (the column's reasons and methods, which depend on which inputs occur, included)."""
+    return _distinct(s, lambda rows: compute_indices(rows, with_phs=with_phs))
+
+
+def compute_phs_distinct(s: SpaceInputs) -> IndexTable:
+    """:func:`compute_phs` (the ISO 7933 PHS columns alone) of ``s``, each distinct row of
+    inputs computed once, as :func:`compute_distinct`."""
+    return _distinct(s, compute_phs)
+
+
+def _distinct(s: SpaceInputs, compute: Callable[[SpaceInputs], IndexTable]) -> IndexTable:
     if s.n < 2:
-        return compute_indices(s, with_phs=with_phs)
+        return compute(s)
     _, first, inverse = np.unique(_row_keys(s), return_index=True, return_inverse=True)
     if first.size == s.n:
-        return compute_indices(s, with_phs=with_phs)
+        return compute(s)
     order = np.argsort(first)  # the distinct rows in the order they first occur
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
-    table = compute_indices(rows_of(s, first[order]), with_phs=with_phs)
+    table = compute(rows_of(s, first[order]))
     return select(table, rank[inverse.ravel()])
 
 

@@ -49,7 +49,7 @@ from thermowarden.core.local_discomfort import ISO_CATEGORY_LABELS
 
 __all__ = ["COMFORT_MET_ASSUMED", "FAMILIES", "ISO_CATEGORY_LABELS", "MET_W_M2", "MRT_SOURCES",
            "UPPER_TOLERANCE", "Derived", "IndexColumn", "IndexTable", "SpaceInputs", "Sun",
-           "compute_indices", "relative_humidity_method", "select", "space_result",
+           "compute_indices", "compute_phs", "relative_humidity_method", "select", "space_result",
            "with_time_weighted_wbgt"]
 
 FAMILIES: Final[tuple[ModuleType, ...]] = (local_discomfort, comfort, adaptive, heat_stress,
@@ -73,6 +73,19 @@ def compute_indices(s: SpaceInputs, with_phs: bool = True) -> IndexTable:
     derived = Derived(rh, mrt, operative, mrt_from_sun, sun, with_phs)
     for family in FAMILIES:
         family.compute(s, derived, out)
+    return out
+
+
+def compute_phs(s: SpaceInputs) -> IndexTable:
+    """Only the ISO 7933 PHS columns of :func:`compute_indices` (the same columns, value for
+    value), with only what they read: the relative humidity and the mean radiant
+    temperature. The engine refreshes PHS on its own schedule with this, without computing
+    the other families again."""
+    sun = sun_over(s)
+    rh = psychrometrics.compute(s, {})
+    mrt, operative, mrt_from_sun = radiant.compute(s, {}, sun, rh)
+    out: IndexTable = {}
+    heat_stress.compute_phs(s, Derived(rh, mrt, operative, mrt_from_sun, sun, True), out)
     return out
 
 

@@ -4,6 +4,9 @@ Annex A, NIOSH REL/RAL), and ISO 7933 PHS."""
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from typing import Final
+
 import numpy as np
 
 from thermowarden.core import heat_stress
@@ -24,7 +27,7 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     """Natural wet bulb (estimated where not measured), WBGT, its reference values and
     margins (ISO 7243:2017), and ISO 7933 PHS for hot work when ``d.with_phs``."""
     n = s.n
-    rh, mrt, sun, mrt_from_sun, with_phs = d.rh, d.mrt, d.sun, d.mrt_from_sun, d.with_phs
+    rh, mrt, sun, mrt_from_sun = d.rh, d.mrt, d.sun, d.mrt_from_sun
     # natural wet bulb: measured, else the wetted-wick energy balance (Liljegren et al. 2008)
     # with the wick's radiation from the mean radiant temperature (a globe) or, outdoors in
     # the open without one, from the global irradiance and the sun's position (then the
@@ -110,17 +113,32 @@ def compute(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
         heat_stress.REFERENCE_METHOD + ", for the space's workers as configured: "
         "acclimatised (REL) or not (RAL)")
     _wbgt_assessment(s.wbgt_time_weighted, w, s.clothing_adjustment_k, out)
+    compute_phs(s, d, out)
 
+
+PHS_COLUMNS: Final[Mapping[str, tuple[str, str]]] = {"t_re": ("phs_rectal_temperature", "°C"),
+               "sweat_loss_g": ("phs_sweat_loss", "g"),
+               "d_lim_t_re": ("phs_limit_rectal", "min"),
+               "d_lim_loss_50": ("phs_limit_water_loss_50", "min"),
+               "d_lim_loss_95": ("phs_limit_water_loss_95", "min")}
+"""Result of the PHS model -> (index name, unit) of its column."""
+
+
+def compute_phs(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
+    """The ISO 7933 PHS columns (rectal temperature °C, sweat loss g, the duration limits
+    min) of hot-work spaces, each in the edition it asks for; absent with "PHS not
+    requested" when not ``d.with_phs``. Reads only the inputs, the relative humidity and
+    the mean radiant temperature of ``d`` (the engine refreshes PHS on its own schedule
+    without the other families: :func:`thermowarden.core.indices.compute_phs`)."""
+    n = s.n
+    rh, mrt, with_phs = d.rh, d.mrt, d.with_phs
     # ISO 7933 PHS, hot work only; each space in the edition it asks for
     editions = np.array(s.phs_edition if isinstance(s.phs_edition, tuple)
                         else (s.phs_edition,) * n, dtype=object)
     used = sorted({str(e) for e in editions}, reverse=True)
     method_phs = (f"ISO 7933:{used[0]}" if len(used) == 1
                   else "ISO 7933:2023 or 2004 (the phs_edition of each space)")
-    phs_names = {"t_re": ("phs_rectal_temperature", "°C"), "sweat_loss_g": ("phs_sweat_loss", "g"),
-                 "d_lim_t_re": ("phs_limit_rectal", "min"),
-                 "d_lim_loss_50": ("phs_limit_water_loss_50", "min"),
-                 "d_lim_loss_95": ("phs_limit_water_loss_95", "min")}
+    phs_names = PHS_COLUMNS
     if not with_phs:
         for name, unit in phs_names.values():
             out[name] = absent(n, "PHS not requested for this evaluation", unit, method_phs)
