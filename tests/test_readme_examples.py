@@ -54,6 +54,7 @@ def test_clustered_broker_snippet(tmp_path):
     config = _load(tmp_path, block)
     assert config.broker.fallback_urls == ["mqtt://10.0.0.12:1883", "mqtt://10.0.0.13:1883"]
     assert (config.broker.protocol, config.broker.subscribe_qos) == ("3.1.1", 0)
+    assert config.broker.persistent_session
     assert config.output.rule_topic_separator == "/"
 
 

@@ -100,6 +100,7 @@ class Watcher:
         self.client.on_message = self._on_message
         self.client.on_disconnect = lambda *a: self.connected.clear()
         self._pending: set[int] = set()
+        self._topic_of: dict[int, str] = {}
         self.client.on_subscribe = self._on_subscribe
         self.client.connect(host, port, 30)
         self.client.loop_start()
@@ -108,15 +109,33 @@ class Watcher:
     def _on_connect(self, client, userdata, flags, reason, properties):
         with self.lock:
             self._pending = set()
+            self._topic_of = {}
             for t in self.topics:
-                self._pending.add(client.subscribe(t, qos=1)[1])
+                self._subscribe(client, t)
+
+    def _subscribe(self, client, topic: str) -> None:
+        mid = client.subscribe(topic, qos=1)[1]
+        self._pending.add(mid)
+        self._topic_of[mid] = topic
 
     def _on_subscribe(self, client, userdata, mid, reason_codes, properties):
+        refused = any(getattr(r, "is_failure", False) or getattr(r, "value", 0) == 0x80
+                      for r in reason_codes)
         with self.lock:
             self._pending.discard(mid)
+            topic = self._topic_of.pop(mid, None)
+            if refused and topic is not None:
+                # nats-server refuses a QoS 1 subscription while its JetStream elects
+                # leaders (a node stopped): ask again, or the watcher hears nothing more
+                threading.Timer(1.0, self._retry, (client, topic)).start()
+                return
             done = not self._pending
         if done:
             self.connected.set()
+
+    def _retry(self, client, topic: str) -> None:
+        with self.lock:
+            self._subscribe(client, topic)
 
     def _on_message(self, client, userdata, msg):
         r = Received(time.monotonic(), msg.topic, bytes(msg.payload), bool(msg.retain))
@@ -423,13 +442,15 @@ def space_ids(n: int) -> list[str]:
 def write_site(tmp: pathlib.Path, prefix: str, broker_url: str, spaces: list[str],
                timing: Timing, group_yaml: str = "") -> pathlib.Path:
     """A site of hot-work spaces (moderate work, unacclimatised) with the heat-stress pack;
-    nats-server's MQTT needs 3.1.1, "/" rule separators and QoS 0 subscriptions."""
+    nats-server's MQTT needs 3.1.1, "/" rule separators and QoS 0 subscriptions (commands at
+QoS 1 in a session the cluster keeps while an instance moves to another node)."""
     text = textwrap.dedent(f"""\
         site: {{id: f{uuid.uuid4().hex[:6]}, timezone: UTC}}
         broker:
           url: {broker_url}
           protocol: "3.1.1"
           subscribe_qos: 0
+          persistent_session: true
           keepalive_s: {timing.keepalive_s:g}
         output: {{prefix: {prefix}, rule_topic_separator: "/"}}
         evaluation: {{tick_s: {timing.tick_s:g}, flood_limit: 100000}}

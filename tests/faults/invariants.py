@@ -368,9 +368,10 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
 
     In every run, also one shorter than the window: no conditions record after the fault
     says its window is being rebuilt since the fault began or later
-    (``windows.wbgt_60min.rebuilding_since`` at or after ``fault_started_wall``, to the
-    second): the instance that took the space over threw away, or never had, the readings
-    a warm standby keeps."""
+    (``windows.wbgt_60min.rebuilding_since`` in a second after the one the fault began in:
+    the record gives whole seconds, so a window that began in the fault's own second may
+    have begun before it, and no takeover comes within a second of a fault): the instance
+    that took the space over threw away, or never had, the readings a warm standby keeps."""
     before: dict[str, bool] = {}
     partial_before: dict[str, bool] = {}
     after_first: dict[str, bool] = {}
@@ -383,7 +384,7 @@ def check_whole(obs: Observed, sc: Scenario, rep: Report) -> None:
         is_partial = bool(window.get("partial"))
         since = window.get("rebuilding_since")
         if t >= sc.fault_started and sc.fault_started_wall is not None and \
-                isinstance(since, str) and _ts(since) >= int(sc.fault_started_wall):
+                isinstance(since, str) and _ts(since) > int(sc.fault_started_wall):
             cold.setdefault(space, since)
         if t < sc.fault_started:
             before[space] = present

@@ -33,12 +33,14 @@ TIMING = Timing(tick_s=1.0, keepalive_s=8.0, lease_ttl_s=15.0)
 @dataclass
 class Fault:
     """``begin`` and ``end`` act on the run and the victim's name; ``hold_s`` is how long
-    the fault lasts (the commands of the test go out half-way)."""
+    the fault lasts; the commands of the test go out ``commands_at_s`` into it (half-way
+    when None)."""
 
     name: str
     begin: Callable[[FaultRun, str], None]
     end: Callable[[FaultRun, str], None]
     hold_s: float
+    commands_at_s: float | None = None
 
 
 def _nothing(run: FaultRun, victim: str) -> None:
@@ -59,7 +61,11 @@ KILL = Fault("kill", lambda r, v: r.instances[v].kill(), _nothing, 0.0)
 PAUSE = Fault("pause", lambda r, v: r.instances[v].pause(), lambda r, v: r.instances[v].resume(),
               2 * TIMING.lease_ttl_s)
 NODE_PAUSE = Fault("node-pause", lambda r, v: pause_node(r.cluster, _node_of(r, v)),
-                   lambda r, v: resume_node(r.cluster, _node_of(r, v)), 30.0)
+                   lambda r, v: resume_node(r.cluster, _node_of(r, v)), 30.0,
+                   commands_at_s=2.0)
+"""The commands go out 2 s after the holder's node stopped: before its MQTT client can
+notice (it waits a keepalive, 8 s, for an answer to its ping), so they go to the stopped
+node and must be kept for the holder until it has moved to another."""
 PARTITION = Fault("partition", lambda r, v: r.ns.cut(), lambda r, v: r.ns.heal(), 30.0)
 CLOCK_STEP = Fault("clock-step", _step("300"), _step("0"), 3 * TIMING.lease_ttl_s)
 
@@ -93,10 +99,11 @@ def run_fault(tmp_path, store: str | None, fault: Fault, *, victim: str = "b",
         run.scenario.fault_started_wall = time.time()
         fault.begin(run, victim)
         run.escalate(hot[1:])
-        hold(fault.hold_s / 2)
+        at = fault.hold_s / 2 if fault.commands_at_s is None else fault.commands_at_s
+        hold(at)
         run.command("acknowledge", ids[hot[1]], during_fault=True)
         run.command("shelve", ids[hot[2]], during_fault=True)
-        hold(fault.hold_s / 2)
+        hold(fault.hold_s - at)
         fault.end(run, victim)
         run.scenario.fault_ended = time.monotonic()
         t_urgent = wait_until(lambda: all((run.heat_record(s) or {}).get("priority") ==

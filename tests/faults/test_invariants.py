@@ -246,3 +246,23 @@ def test_a_window_restarted_at_the_takeover_is_caught_in_a_short_run():
     assert any("restarted at 2026-12-04T19:00:15Z" in v for v in rep.failed()["whole"]), \
         rep.summary()
     assert rep.figures["windows_restarted_after_fault"] == 1
+
+
+def test_a_window_begun_in_the_faults_own_second_is_not_taken_for_a_restart():
+    """Records give whole seconds: a window whose readings began half a second before the
+    fault, in the same second, reads as begun at the fault's second and is not a restart
+    (seen in the clock-step case); one begun the second after is."""
+    msgs = [m for m in clean() if not m.topic.endswith("conditions")]
+    msgs += conditions_every(10.0, until=40.0, twa=None, since="2026-12-04T19:00:00Z")
+    same = msgs + [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                       cond("s001", 2, twa=None, since="2026-12-04T19:00:00Z"))
+                   for k in range(6)]
+    rep = check_all(sorted(same, key=lambda m: m.t),
+                    scenario(fault_started_wall=FAULT_WALL + 0.5))
+    assert "whole" not in rep.failed(), rep.summary()
+    after = msgs + [msg(50.0 + k * 10, f"{P}/spaces/s001/conditions",
+                        cond("s001", 2, twa=None, since="2026-12-04T19:00:01Z"))
+                    for k in range(6)]
+    rep = check_all(sorted(after, key=lambda m: m.t),
+                    scenario(fault_started_wall=FAULT_WALL + 0.5))
+    assert rep.figures["windows_restarted_after_fault"] == 1, rep.summary()

@@ -37,6 +37,17 @@ class BrokerConfig(Strict):
     """QoS of the service's subscriptions. 0 for nats-server: there a QoS 1 subscription is
     a JetStream consumer, whose creation holds up everything else the client sends for
     seconds while the cluster moves its streams after a node's end."""
+    persistent_session: bool = False
+    """MQTT 3.1.1: the broker keeps the session between the connections of one run (clean
+    session off, the same client id) and commands are subscribed at QoS 1, so a command
+    sent while the connection is down, or moving from a stopped node of a clustered broker
+    to another, is delivered after the reconnection instead of lost. A run's first
+    connection only ends the session an earlier run left (clean session on; a session
+    begun clean is not kept past its connection) and disconnects. Sensor subscriptions stay
+    at ``subscribe_qos`` (at 0 the broker keeps none of them). A command the broker
+    delivers again (its DUP flag set) after this run handled the same topic and body is
+    dropped. nats-server sends an unacknowledged message again after its MQTT
+    ``ack_wait`` (30 s by default), not at the reconnection."""
     keepalive_s: int = Field(30, ge=5, le=3600)
     username: str | None = None
     password: SecretStr | None = None

@@ -9,6 +9,12 @@ a trusted gateway) takes precedence. In a group, the instance holding the adviso
 answers. The reply goes to ``<prefix>/replies`` or, when the command asks for one below it,
 to that topic.
 
+A command the broker delivers again (its DUP flag: a QoS 1 message whose acknowledgement it
+did not get, after a lost connection or its redelivery time) is dropped when the same topic
+and body arrived within ``SEEN_KEPT_S``: it was handled already (a second shelving would
+start the shelving again, a second acknowledgement would be refused). One sent again by a
+person is a new message, without the flag, and is handled.
+
 Runs on the engine thread (:mod:`thermowarden.shell.service`).
 """
 
@@ -16,6 +22,8 @@ from __future__ import annotations
 
 import json
 import logging
+import time
+from collections import OrderedDict
 from typing import TYPE_CHECKING, Any, Protocol
 
 from thermowarden.core.json_values import iso
@@ -33,6 +41,12 @@ log = logging.getLogger("thermowarden.service")
 
 KNOWN_VERBS = frozenset({"acknowledge", "shelve", "unshelve"})
 """Only these become metric labels; anything else is counted as "unknown"."""
+SEEN_KEPT_S = 600.0
+"""How long the topic and body of a command from the broker are remembered (a redelivery of
+one of them is dropped); nats-server sends an unacknowledged message again after 30 s by
+default."""
+SEEN_MAX = 10_000
+"""At most this many remembered (the oldest go first)."""
 
 
 class CommandHost(Protocol):
@@ -63,6 +77,35 @@ class AdvisoryCommands:
         self.command_prefix = command_prefix
         self.reply_topic = reply_topic
         self.limiter = RateLimiter()
+        self.seen: OrderedDict[tuple[str, bytes], float] = OrderedDict()
+        """(topic, body) of the commands from the broker -> when (monotonic s) they
+        arrived, oldest first."""
+        self.redeliveries_dropped = 0
+
+    def first_time(self, m: Incoming, now: float) -> bool:
+        """Remember a command from the broker; False for a redelivery (DUP flag) of one
+        that arrived within ``SEEN_KEPT_S`` (see the module docstring)."""
+        seen = self.seen
+        while seen and (len(seen) > SEEN_MAX or
+                        now - next(iter(seen.values())) > SEEN_KEPT_S):
+            seen.popitem(last=False)
+        key = (m.topic, m.payload)
+        if m.redelivered and key in seen:
+            return False
+        seen[key] = now
+        seen.move_to_end(key)
+        return True
+
+    def receive(self, m: Incoming) -> None:
+        """A command as it arrives (from the broker or the web page): a redelivery of one
+        handled already is dropped, anything else handled."""
+        if m.on_reply is None and not m.oversize and \
+                not self.first_time(m, time.monotonic()):
+            self.redeliveries_dropped += 1
+            log.info("a command delivered again by the broker was dropped: it was handled "
+                     "already (%s)", m.topic)
+            return
+        self.handle(m)
 
     def handle(self, m: Incoming) -> None:
         """Act on one command and answer it (see the module docstring)."""

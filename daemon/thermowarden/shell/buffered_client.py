@@ -115,6 +115,11 @@ class BufferedClient(mqtt.Client):
         self.on_oversized: Callable[[Oversized], None] | None = None
         """Called (instead of ``on_message``) with each oversized PUBLISH dropped unread."""
 
+    def session_kept(self, kept: bool) -> None:
+        """MQTT 3.1.1: whether the next CONNECT asks the broker for the session it keeps
+        (clean session off) or a new one (paho reads the flag at every connect)."""
+        self._clean_session = not kept
+
     def message_callback_add(self, sub: str, callback: Any) -> None:
         self._filtered = True
         super().message_callback_add(sub, callback)

@@ -32,6 +32,8 @@ class Incoming:
     """"sensor", "command", "echo" (our own event, MQTT 3.1.1 delivery check), "sys",
     "watch" (a group's status records and retained advisories) or "oversize" (a sensor
     message over the packet limit, dropped unread: ``oversize`` is its size)."""
+    redelivered: bool = False
+    """A command the broker sends again (the DUP flag): it may have been handled already."""
     on_reply: Callable[[dict[str, Any]], None] | None = None
     """For a command from the web page or API: called with the engine's reply."""
 

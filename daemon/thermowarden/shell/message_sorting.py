@@ -70,7 +70,8 @@ class MessageSorter:
                             self.now(), getattr(props, "ResponseTopic", None),
                             getattr(props, "CorrelationData", None), kind="command",
                             identity=self.identity(props),
-                            oversize=size if size > self.max_command_bytes else 0)
+                            oversize=size if size > self.max_command_bytes else 0,
+                            redelivered=bool(msg.dup))
         elif self.echo_prefix and topic.startswith(self.echo_prefix):
             item = Incoming(topic, bytes(msg.payload), 0.0, kind="echo")
         elif topic.startswith("$SYS/"):

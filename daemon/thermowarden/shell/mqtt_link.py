@@ -24,6 +24,10 @@ paho keeps every QoS 1 message it was handed until the broker acknowledges it, a
 reconnects, and sends it again (DUP set, same packet id) after a reconnect: the service
 hands each outbox row to paho once and never publishes it again while paho holds it.
 
+``broker.persistent_session`` (MQTT 3.1.1, see its docstring): every connection asks for the
+session the broker keeps, commands at QoS 1; a run's first connection only ends an earlier
+run's session (clean session on) and disconnects, as a session begun clean is not kept.
+
 Received messages are sorted by kind onto the inbox by :mod:`thermowarden.shell.
 message_sorting` (retained and oversized commands, oversized sensor messages).
 Under MQTT 5 the client announces a maximum packet size of :data:`SEEN_PACKET_BYTES` (or
@@ -102,6 +106,11 @@ class MqttLink:
         self.control = control
         self.metrics = metrics
         self.v5 = cfg.protocol == "5"
+        self.persistent = cfg.persistent_session and not self.v5
+        """MQTT 3.1.1 with a session kept between the connections of this run."""
+        self._session_begun = self._begin_session = False
+        """Persistent: an earlier run's session was ended; that connection was just closed
+        (connect again at once)."""
         self.nodes = BrokerNodes([cfg.url, *cfg.fallback_urls])
         tls = self.nodes.tls
         self.client = BufferedClient(
@@ -186,6 +195,11 @@ class MqttLink:
             self._refused = True
             self.control.put(Control("refused", reason=str(reason)))
             return
+        if self.persistent and not self._session_begun:
+            # an earlier run's session is ended; this run's begins with the next connect
+            self._session_begun = self._begin_session = True
+            client.disconnect()
+            return
         self._connects += 1
         if self._connects > 1:
             self.metrics.reconnects.inc()
@@ -209,6 +223,9 @@ class MqttLink:
             # executed, not even once
             _, mid = self.client.subscribe(topic, options=SubscribeOptions(
                 qos=1, retainAsPublished=True))
+        elif self.persistent and topic.startswith(self.command_prefix):
+            # kept for this client by the broker while it is away (the session)
+            _, mid = self.client.subscribe(topic, qos=1)
         else:
             _, mid = self.client.subscribe(
                 topic, qos=0 if topic in self.qos0 else self.cfg.subscribe_qos)
@@ -237,7 +254,7 @@ class MqttLink:
         self.connected.clear()
         self.subscribed.clear()
         self.metrics.connected.set(0)
-        if not self._stopping.is_set():
+        if not self._stopping.is_set() and not self._begin_session:
             self.control.put(Control("disconnected", reason=str(reason)))
 
     def _on_subscribe(self, client: mqtt.Client, userdata: Any, mid: int, reasons: Any,
@@ -298,6 +315,9 @@ class MqttLink:
             self.client.connect(self.host, self.port, self.cfg.keepalive_s,
                                 clean_start=True, properties=props)
         else:
+            if self.persistent:
+                # see the module docstring: a clean session once, to end an earlier run's
+                self.client.session_kept(self._session_begun)
             self.client.connect(self.host, self.port, self.cfg.keepalive_s)
 
     def _wait(self, seconds: float, probe: bool) -> bool:
@@ -356,6 +376,9 @@ class MqttLink:
                         self._retry_subs.clear()
             if self._stop.is_set() or self._stopping.is_set():
                 break
+            if self._begin_session:  # the earlier run's session is ended: connect again
+                self._begin_session = False
+                continue
             self.connected.clear()
             if refused and len(self.nodes) > 1:
                 # another node may accept us (3.1.1 "server unavailable"); the wait below

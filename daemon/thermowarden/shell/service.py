@@ -227,7 +227,7 @@ class Service:
 
     def _handle_message(self, m: Incoming) -> None:
         if m.kind == "command":
-            self.commands.handle(m)
+            self.commands.receive(m)
             return
         if m.kind == "echo":
             self.outbox.echoed(m.payload)
