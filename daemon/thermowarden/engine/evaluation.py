@@ -15,7 +15,7 @@ integrator's advisory and the metrics.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping
+from collections.abc import Callable, Iterator, Mapping
 from typing import Any, Final
 
 import numpy as np
@@ -54,6 +54,11 @@ _NOT_COMPUTED: Final = -1e300
 """Remembered input of a space whose indices were not computed (never a real input)."""
 ALL_GROUP: Final = "indices"
 
+
+
+def _without_phs(inputs: SpaceInputs) -> IndexTable:
+    """Every index family but ISO 7933 PHS (refreshed on its own)."""
+    return compute_indices(inputs, with_phs=False)
 
 class Evaluation:
     """Computes indices and the rules' environment for one site, for one or many ticks."""
@@ -242,29 +247,14 @@ class Evaluation:
             except Exception:  # noqa: BLE001 - found and isolated below
                 pass
         parts: list[tuple[npt.NDArray[np.intp], IndexTable]] = []
-        self._split_phs(inputs, np.flatnonzero(~bad_rows & ~every_failed), parts, failed)
+        self._split(inputs, np.flatnonzero(~bad_rows & ~every_failed), parts, failed,
+                    compute_phs, PHS_GROUP)
         for r in np.flatnonzero(bad_rows).tolist():
-            self._split_phs(inputs, np.array([r], dtype=np.intp), parts, failed)
+            self._split(inputs, np.array([r], dtype=np.intp), parts, failed, compute_phs,
+                        PHS_GROUP)
         template = {name: col for name, col in (self._last_table or {}).items()
                     if name.startswith("phs_")}
         return merge_tables(inputs.n, parts, template), failed
-
-    def _split_phs(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp],
-                   parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
-                   failed: dict[int, tuple[str, str]]) -> None:
-        if idx.size == 0:
-            return
-        try:
-            parts.append((idx, compute_phs(take_inputs(inputs, idx))))
-            return
-        except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
-            error = f"{type(exc).__name__}: {exc}"[:300]
-        if idx.size > 1:
-            half = idx.size // 2
-            self._split_phs(inputs, idx[:half], parts, failed)
-            self._split_phs(inputs, idx[half:], parts, failed)
-            return
-        failed[int(idx[0])] = (PHS_GROUP, error)
 
     def _isolated(self, inputs: SpaceInputs, space: npt.NDArray[np.intp]
                   ) -> tuple[IndexTable, dict[int, tuple[str, str]]]:
@@ -287,20 +277,24 @@ class Evaluation:
 
     def _split(self, inputs: SpaceInputs, idx: npt.NDArray[np.intp],
                parts: list[tuple[npt.NDArray[np.intp], IndexTable]],
-               failed: dict[int, tuple[str, str]]) -> None:
+               failed: dict[int, tuple[str, str]],
+               compute: Callable[[SpaceInputs], IndexTable] = _without_phs,
+               group: str = ALL_GROUP) -> None:
+        """``compute`` of the rows ``idx`` into ``parts``; where it raises, each half again,
+        down to the single rows that fail (kept in ``failed`` with ``group`` and the error)."""
         if idx.size == 0:
             return
         try:
-            parts.append((idx, compute_indices(take_inputs(inputs, idx), with_phs=False)))
+            parts.append((idx, compute(take_inputs(inputs, idx))))
             return
         except Exception as exc:  # noqa: BLE001 - isolated to the rows that fail
             error = f"{type(exc).__name__}: {exc}"[:300]
         if idx.size > 1:
             half = idx.size // 2
-            self._split(inputs, idx[:half], parts, failed)
-            self._split(inputs, idx[half:], parts, failed)
+            self._split(inputs, idx[:half], parts, failed, compute, group)
+            self._split(inputs, idx[half:], parts, failed, compute, group)
             return
-        failed[int(idx[0])] = (ALL_GROUP, error)
+        failed[int(idx[0])] = (group, error)
 
     @staticmethod
     def _every_failed(table: IndexTable) -> BoolArray:
