@@ -65,12 +65,7 @@ def compute_indices(s: SpaceInputs, with_phs: bool = True) -> IndexTable:
     which the engine runs on its own, slower schedule.
     """
     out: IndexTable = {}
-    sun = sun_over(s)
-    humidity: IndexTable = {}
-    rh = psychrometrics.compute(s, humidity)
-    mrt, operative, mrt_from_sun = radiant.compute(s, out, sun, rh)
-    out.update(humidity)
-    derived = Derived(rh, mrt, operative, mrt_from_sun, sun, with_phs)
+    derived = _derived(s, out, with_phs)
     for family in FAMILIES:
         family.compute(s, derived, out)
     return out
@@ -81,12 +76,20 @@ def compute_phs(s: SpaceInputs) -> IndexTable:
     value), with only what they read: the relative humidity and the mean radiant
     temperature. The engine refreshes PHS on its own schedule with this, without computing
     the other families again."""
-    sun = sun_over(s)
-    rh = psychrometrics.compute(s, {})
-    mrt, operative, mrt_from_sun = radiant.compute(s, {}, sun, rh)
     out: IndexTable = {}
-    heat_stress.compute_phs(s, Derived(rh, mrt, operative, mrt_from_sun, sun, True), out)
+    heat_stress.compute_phs(s, _derived(s, {}, True), out)
     return out
+
+
+def _derived(s: SpaceInputs, out: IndexTable, with_phs: bool) -> Derived:
+    """What the families read: the sun, the relative humidity and the mean radiant and
+    operative temperatures (their columns, radiant then humidity, added to ``out``)."""
+    sun = sun_over(s)
+    humidity: IndexTable = {}
+    rh = psychrometrics.compute(s, humidity)
+    mrt, operative, mrt_from_sun = radiant.compute(s, out, sun, rh)
+    out.update(humidity)
+    return Derived(rh, mrt, operative, mrt_from_sun, sun, with_phs)
 
 
 def space_result(table: IndexTable, i: int) -> dict[str, dict[str, object]]:

@@ -138,9 +138,9 @@ def compute_phs(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     used = sorted({str(e) for e in editions}, reverse=True)
     method_phs = (f"ISO 7933:{used[0]}" if len(used) == 1
                   else "ISO 7933:2023 or 2004 (the phs_edition of each space)")
-    phs_names = PHS_COLUMNS
+
     if not with_phs:
-        for name, unit in phs_names.values():
+        for name, unit in PHS_COLUMNS.values():
             out[name] = absent(n, "PHS not requested for this evaluation", unit, method_phs)
         return
     is_2004 = editions == "2004"
@@ -171,7 +171,7 @@ def compute_phs(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
     app.require(is_2004 | between(m_wm2, 56.0, 250.0), "outside ISO 7933:2023 range: "
                 "metabolic rate 56-250 W/m²")
     ok = app.ok
-    res = {k: np.full(n, np.nan) for k in phs_names}
+    res = {k: np.full(n, np.nan) for k in PHS_COLUMNS}
     for edition in used:
         sel = ok & (editions == edition)
         if not sel.any():
@@ -179,9 +179,9 @@ def compute_phs(s: SpaceInputs, d: Derived, out: IndexTable) -> None:
         part = heat_stress.predicted_heat_strain(
             np.where(sel, s.air_temperature, np.nan), mrt, s.air_speed, rh, m_wm2, clo,
             list(s.posture), s.acclimatised.astype(np.float64), edition=edition)
-        for key in phs_names:
+        for key in PHS_COLUMNS:
             res[key] = np.where(sel, part[key], res[key])
-    for key, (name, unit) in phs_names.items():
+    for key, (name, unit) in PHS_COLUMNS.items():
         out[name] = app.column(res[key], unit, method_phs)
 
 
