@@ -287,21 +287,23 @@ class Ingestor:
                             convert, scale, offset, low, high, max_change, quantity = fast[pid]
                             value = convert(number) * scale + offset
                             if isfinite(value) and low <= value <= high:
-                                last_t = last_time[pid]
+                                # .item(): a Python float, compared and subtracted
+                                # without NumPy's scalar machinery (the same IEEE values)
+                                last_t = last_time.item(pid)
                                 if not now < last_t and (
                                         max_change == inf or last_t != last_t
-                                        or abs(value - last_value[pid])
+                                        or abs(value - last_value.item(pid))
                                         <= max_change * (now - last_t) + 1e-9):
-                                    gap = interval[pid]
+                                    gap = interval.item(pid)
                                     if now - last_t > GAP_FACTOR * gap:
                                         self.missed_by_quantity[quantity] += \
                                             int(round((now - last_t) / gap)) - 1
                                     last_value[pid] = value
                                     last_time[pid] = now
                                     last_source[pid] = nan
-                                    row = ring_row[pid]
+                                    row = ring_row.item(pid)
                                     if row >= 0:
-                                        h = rings.head[row]
+                                        h = rings.head.item(row)
                                         rings.t[row, h] = now
                                         rings.v[row, h] = value
                                         rings.head[row] = (h + 1) % ring_len
