@@ -136,7 +136,8 @@ class RuleRuntime:
         following the effect of advice acted on); until then, a step with the same
         conditions as the last one changes nothing."""
         cfg = self.rule.config
-        live = self.state >= State.ACTIVE
+        active, acknowledged = State.ACTIVE, State.ACKNOWLEDGED  # (each State.X is a call)
+        live = self.state >= active
         followed = self._effect_due()
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until, self.rearm_check]
         if live.any():
@@ -145,11 +146,11 @@ class RuleRuntime:
             intervals = self.renotify_intervals()
             if intervals is not None:
                 # (no reminder while the equipment is as the advice asks)
-                times.append(np.where((self.state == State.ACTIVE) & ~self.acted_now,
+                times.append(np.where((self.state == active) & ~self.acted_now,
                                       self.last_notified, np.nan) + intervals[self.level])
             # an acknowledged urgent advisory is reminded of all the same (see step)
             urgent = PRIORITIES.index("urgent")
-            times.append(np.where((self.state == State.ACKNOWLEDGED) & (self.level >= urgent),
+            times.append(np.where((self.state == acknowledged) & (self.level >= urgent),
                                   self.last_notified, np.nan) + self.urgent_remind_s())
         if self.leave_watch:
             return -math.inf
