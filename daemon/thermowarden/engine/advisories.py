@@ -131,7 +131,7 @@ class Advisories:
                     effects.append(self.persist(adv))
             for i in np.flatnonzero(live):
                 adv = rt.advisories[int(i)]
-                if adv.acted_on is not None:
+                if adv.acted_on is not None and rt.settled.get(adv.space) is not adv.acted_on:
                     self._follow_effect(rt, adv, now, effects)
         # cleared
         # (the longer hold of a chattering advisory matters only where it may clear now)

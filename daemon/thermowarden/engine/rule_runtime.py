@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 from collections import deque
 from collections.abc import Mapping
-from typing import Final
+from typing import Any, Final
 
 import numpy as np
 
@@ -79,6 +79,9 @@ class RuleRuntime:
         """After a clearing of a rule with ``easing.rearm_s``: until when its lowest level
         is raised again only against the easing trend."""
         self.trends: dict[int, deque[tuple[float, float]]] = {}
+        self.settled: dict[int, dict[str, Any]] = {}
+        """Per space: the record of advice acted on that has nothing more to follow (said
+        not to have helped, every check of its effect taken): see ``acted_on.follow``."""
         """Per space: (time, value) of the easing quantity, while live or re-arming."""
         self.rearm_check = np.full(n, np.nan)
         """When a raise held back while re-arming is looked at again: at the next sample of
@@ -168,7 +171,7 @@ class RuleRuntime:
         due = math.inf
         for adv in self.advisories.values():
             rec = adv.acted_on
-            if rec is None:
+            if rec is None or self.settled.get(adv.space) is rec:
                 continue
             t0 = float(rec.get("_t", adv.updated_at))
             i = adv.space
