@@ -199,22 +199,28 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     # the messages between two ticks go in as one run, as the service takes what arrived
     # between its evaluations (Engine.messages: the same result as one by one)
     pending: list[tuple[str, bytes, float, bool]] = []
+    add = pending.append
+    count = 0  # messages since result.messages was last brought up to date
     for rec in records:
+        t = rec.t
         if next_tick is None:
-            next_tick = math.floor(rec.t / tick_s) * tick_s + tick_s
-            result.start = rec.t
-        if rec.t >= next_tick:
+            next_tick = math.floor(t / tick_s) * tick_s + tick_s
+            result.start = t
+        if t >= next_tick:
             engine.messages(pending)
             pending.clear()
-            while rec.t >= next_tick:
+            result.messages += count
+            count = 0
+            while t >= next_tick:
                 captures.append(engine.capture(next_tick))
                 if len(captures) >= batch or (on_event is not None
                                               and next_tick - captures[0].now >= STREAM_BATCH_S):
                     run_ticks()
                 next_tick += tick_s
-        pending.append((rec.topic, rec.payload, rec.t, False))
-        result.messages += 1
-        last_t = rec.t
+        add((rec.topic, rec.payload, t, False))
+        count += 1
+        last_t = t
+    result.messages += count
     engine.messages(pending)
     if last_t is not None and next_tick is not None:
         captures.append(engine.capture(max(next_tick, last_t)))

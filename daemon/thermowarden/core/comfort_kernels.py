@@ -192,11 +192,12 @@ def _f64(a: Any) -> Any:
     return np.ascontiguousarray(a, dtype=np.float64)
 
 
-MEMO_SLOTS = 1 << 17
-"""Results remembered per solver, at most: 24 bytes a slot, 3.1 MB per solver, 9.4 MB for
-the three. On the bench's 72-hour replay (bench/replay_bench.py) as fast as 131,072 results
-per solver held in dictionaries (about 68 MB): the slots taken over cost a few more
-solutions, the look-ups done as array operations save their time."""
+MEMO_SLOTS = 1 << 18
+"""Results remembered per solver, at most: 28 bytes a slot, 7.3 MB per solver, 22 MB for
+the three. On the bench's 72-hour replay (bench/replay_bench.py: 238,463 distinct rows for
+the cooling effect, 163,374 for the air speed, 376,401 for SET) the rows solved again after
+their slot was taken over fall from 84,000, 53,000 and 173,000 (131,072 slots, one place a
+row) to 21,500, 8,500 and 66,500, about 5 % of the replay's CPU time."""
 
 _MIX = (np.uint64(0xBF58476D1CE4E5B9), np.uint64(0x94D049BB133111EB))
 _SEEDS = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xD1B54A32D192ED03))
@@ -230,11 +231,13 @@ class _Memo:
     the same inputs recur: in the same space from one minute to the next, in other
     spaces, on other days. Thread-safe (a report thread may compute indices too).
 
-    A fixed table of ``slots`` results (24 bytes each, whatever the number of inputs): a
-    row is known by two independent 64-bit hashes of its inputs' bits, the first also
-    choosing its slot; a new result takes its slot from the one there before. Two rows of
-    different inputs are taken for each other only if both hashes agree (a chance of about
-    2**-128 per pair of rows), which no replay or service life comes near."""
+    A fixed table of ``slots`` results (28 bytes each, whatever the number of inputs): a
+    row is known by two independent 64-bit hashes of its inputs' bits, and may sit in one
+    of two slots, the first chosen by the first hash, the second by the second (two-way,
+    as a set-associative cache); a new result takes the one of its two slots used least
+    recently (by the number of the call that last stored or found a result there). Two rows
+    of different inputs are taken for each other only if both hashes agree (a chance of
+    about 2**-128 per pair of rows), which no replay or service life comes near."""
 
     def __init__(self, slots: int = MEMO_SLOTS) -> None:
         assert slots & (slots - 1) == 0, "a power of two"
@@ -242,6 +245,8 @@ class _Memo:
         self.key1 = np.zeros(slots, dtype=np.uint64)
         self.key2 = np.zeros(slots, dtype=np.uint64)  # (0, 0): empty
         self.values = np.zeros(slots)
+        self.used = np.zeros(slots, dtype=np.uint32)  # the call that last used the slot
+        self.calls = 0
         self.lock = threading.Lock()
         self.hits = 0
         self.misses = 0
@@ -252,34 +257,44 @@ class _Memo:
 
     @property
     def nbytes(self) -> int:
-        return int(self.key1.nbytes + self.key2.nbytes + self.values.nbytes)
+        return int(self.key1.nbytes + self.key2.nbytes + self.values.nbytes
+                   + self.used.nbytes)
 
     def apply(self, columns: list[Any], solve: Callable[[list[Any]], Any]) -> Any:
         """``solve(columns)`` of every row, solving only the rows whose inputs it has not
         seen (once per distinct row)."""
         m = np.ascontiguousarray(np.column_stack([_f64(c) for c in columns]))
         h1, h2 = _row_hashes(m)
-        slot = (h1 & self.mask).astype(np.intp)
+        first = (h1 & self.mask).astype(np.intp)
+        second = (h2 & self.mask).astype(np.intp)
         with self.lock:
-            known = (self.key1[slot] == h1) & (self.key2[slot] == h2)
+            self.calls += 1
+            call = self.calls
+            in_first = (self.key1[first] == h1) & (self.key2[first] == h2)
+            in_second = ~in_first & (self.key1[second] == h1) & (self.key2[second] == h2)
+            slot = np.where(in_second, second, first)
+            known = in_first | in_second
             out = np.where(known, self.values[slot], math.nan)
+            self.used[slot[known]] = call
         rows = np.flatnonzero(~known)
         if rows.size == 0:
             self.hits += int(known.size)
             return out
         # the first row of each distinct input among those not known
         pair = np.column_stack([h1[rows], h2[rows]])
-        _, first, inverse = np.unique(pair, axis=0, return_index=True, return_inverse=True)
-        todo = rows[first]
+        _, once, inverse = np.unique(pair, axis=0, return_index=True, return_inverse=True)
+        todo = rows[once]
         solved = np.asarray(solve([np.asarray(c)[todo] for c in columns]), dtype=np.float64)
         out[rows] = solved[inverse.ravel()]
         self.hits += int(known.size - todo.size)
         self.misses += int(todo.size)
         with self.lock:
-            at = slot[todo]
+            a, b = first[todo], second[todo]
+            at = np.where(self.used[b] < self.used[a], b, a)
             self.key1[at] = h1[todo]
             self.key2[at] = h2[todo]
             self.values[at] = solved
+            self.used[at] = call
         return out
 
 

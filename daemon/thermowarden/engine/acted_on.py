@@ -49,14 +49,19 @@ def follow(rt: RuleRuntime, adv: Advisory, now: float, ctx: RenderContext) -> in
     the equipment still as asked, the notice comes then."""
     rec = adv.acted_on
     assert rec is not None
+    if rt.settled.get(adv.space) is rec:
+        return None
     eff = rt.rule.config.effect
     t0 = float(rec.get("_t", adv.updated_at))
     wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S
-    if eff is not None and rec.get("effect") is not None and rt.rule.effect_quantity:
+    done: set[float] = set()
+    quantity = rt.rule.effect_quantity
+    checked = eff is not None and rec.get("effect") is not None and quantity is not None
+    if checked and eff is not None and quantity is not None:
         done = {c["after_min"] for c in rec["effect"]["checks"]}
         for after in eff.checks_s:
             if now - t0 >= after and after / 60 not in done:
-                v = number_at(rt.rule.effect_quantity, ctx.base, rt.params, adv.space)
+                v = number_at(quantity, ctx.base, rt.params, adv.space)
                 rec["effect"]["checks"].append({"after_min": after / 60, "value": num(v)})
                 then = rec["effect"]["value_then"]
                 if then is not None and math.isfinite(v):
@@ -67,6 +72,11 @@ def follow(rt: RuleRuntime, adv: Advisory, now: float, ctx: RenderContext) -> in
         adv.effect_overdue = True
         rec["helped"] = False
         return round((now - t0) / 60)
+    checks_s = eff.checks_s if checked and eff is not None else ()
+    if adv.effect_overdue and all(after / 60 in done or now - t0 >= after
+                                  for after in checks_s):
+        # said, and every check taken (before or just now): nothing more to do for it
+        rt.settled[i] = rec
     return None
 
 

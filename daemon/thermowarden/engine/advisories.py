@@ -44,6 +44,9 @@ from thermowarden.engine.texts import RenderContext, Texts, no_details, one_spac
 from thermowarden.rules import HEAT_STRESS_CAUTIONS, CompiledPack
 from thermowarden.site_model import SiteModel
 
+# module names for the states the step uses: each State.X is an enum __getattr__ call
+_IDLE, _PENDING, _ACTIVE, _ACKNOWLEDGED, _SHELVED = tuple(State)
+
 HISTORY_KEPT: Final = 50
 ADVISORY_REFRESH_S: Final = 300.0
 """Live advisories are republished (retained) this often."""
@@ -87,7 +90,7 @@ class Advisories:
         rt.raise_true = cond.true & rt.mask
         rt.now_level = np.where(rt.mask, level_idx, -1).astype(np.int8)
         rt.leave_watch = False
-        live_before = rt.state >= State.ACTIVE
+        live_before = rt.state >= _ACTIVE
         # unknown for want of an input: the raise condition while an input it needs is
         # missing, or the clear condition of a live advisory whatever the reason (unknown
         # never clears, so such an advisory would stand for ever)
@@ -96,24 +99,24 @@ class Advisories:
         state = rt.state
         # idle -> pending (just after a clearing, not at the lowest level while the space is
         # still easing: see RuleEasing.rearm_s)
-        blocked = easing.rearming(rt, cond.true & (state <= State.PENDING), level_idx, now,
+        blocked = easing.rearming(rt, cond.true & (state <= _PENDING), level_idx, now,
                                   self.n)
-        start = (state == State.IDLE) & cond.true & ~hold & ~blocked
+        start = (state == _IDLE) & cond.true & ~hold & ~blocked
         rt.rearm_check = np.full(self.n, np.nan)
         for i in np.flatnonzero(blocked):
             q = rt.trends.get(int(i))
             rt.rearm_check[i] = (q[-1][0] if q else now) + easing.TREND_EVERY_S
         rt.pending_since = np.where(start, now, rt.pending_since)
-        state[start] = State.PENDING
+        state[start] = _PENDING
         # pending -> idle (false, unknown, or held back)
-        drop = (state == State.PENDING) & ~(cond.true & ~hold & ~blocked)
-        state[drop] = State.IDLE
+        drop = (state == _PENDING) & ~(cond.true & ~hold & ~blocked)
+        state[drop] = _IDLE
         rt.pending_since[drop] = np.nan
         # pending -> active
-        due = (state == State.PENDING) & cond.true & (now - rt.pending_since >= cfg.on_delay_s)
+        due = (state == _PENDING) & cond.true & (now - rt.pending_since >= cfg.on_delay_s)
         for i in np.flatnonzero(due):
             self._raise(rt, int(i), int(level_idx[i]), now, effects)
-        live = state >= State.ACTIVE
+        live = state >= _ACTIVE
         if not live.any():
             return
         rt.clear_since = np.where(live & clear.true, np.fmin(rt.clear_since, now), np.nan)
@@ -128,7 +131,7 @@ class Advisories:
                     effects.append(self.persist(adv))
             for i in np.flatnonzero(live):
                 adv = rt.advisories[int(i)]
-                if adv.acted_on is not None:
+                if adv.acted_on is not None and rt.settled.get(adv.space) is not adv.acted_on:
                     self._follow_effect(rt, adv, now, effects)
         # cleared
         # (the longer hold of a chattering advisory matters only where it may clear now)
@@ -142,7 +145,7 @@ class Advisories:
             self.apply(rt, int(i), Trigger.OFF_DELAY_ELAPSED, now, effects)
         live &= ~gone
         # shelving expiry
-        expired = live & (state == State.SHELVED) & (now >= rt.shelved_until)
+        expired = live & (state == _SHELVED) & (now >= rt.shelved_until)
         for i in np.flatnonzero(expired):
             self.apply(rt, int(i), Trigger.SHELVE_EXPIRED, now, effects)
         # escalation within one advisory: up at once; down as the numbers fall, whatever
@@ -186,14 +189,14 @@ class Advisories:
         intervals = rt.renotify_intervals()
         if intervals is not None:
             every = intervals[rt.level]
-            again = (live & (state == State.ACTIVE) & ~rt.acted_now
+            again = (live & (state == _ACTIVE) & ~rt.acted_now
                      & (now - rt.last_notified >= every))
             for i in np.flatnonzero(again):
                 self.apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)
         # an acknowledgement does not silence an urgent advisory for ever
         urgent = PRIORITIES.index("urgent")
         remind_s = rt.urgent_remind_s()
-        reminded = (live & (state == State.ACKNOWLEDGED) & (rt.level >= urgent)
+        reminded = (live & (state == _ACKNOWLEDGED) & (rt.level >= urgent)
                     & (now - rt.last_notified >= remind_s))
         for i in np.flatnonzero(reminded):
             self.apply(rt, int(i), Trigger.RENOTIFY_DUE, now, effects)

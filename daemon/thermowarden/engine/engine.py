@@ -101,6 +101,7 @@ class Engine:
         self.last_table: IndexTable | None = None
         self.last_snapshot: Snapshot | None = None
         self.ticks = 0
+        self._space_of = np.zeros(0, dtype=np.int64)
         self.last_batch: tuple[Snapshot, IndexTable] | None = None
         """The snapshot and indices of the latest :meth:`tick_many` (K x N rows)."""
 
@@ -132,11 +133,11 @@ class Engine:
         ingest = self.ingest
         rejected = ingest.ingest_many(items)
         points = self.model.points
-        touched = self.publication.touched
-        for pid in ingest.last_points:
-            space = points[pid].space
-            if space != SITE:
-                touched[space] = True
+        if len(self._space_of) < len(points):  # each point's space (points only grow)
+            self._space_of = np.array([p.space for p in points], dtype=np.int64)
+        if ingest.last_points:
+            spaces = self._space_of[ingest.last_points]
+            self.publication.touched[spaces[spaces != SITE]] = True
         out: list[Rejection] = []
         for now, r in rejected:
             if r.reason in IMPLAUSIBLE_REASONS:

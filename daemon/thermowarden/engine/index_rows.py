@@ -74,6 +74,7 @@ def _reason_code(reasons: list[str], reason: str) -> int:
 def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
     """The same inputs for a subset of rows."""
     given: dict[str, object] = {}
+    at: list[int] | None = None  # the rows as Python ints, for the tuples
     for f in fields(s):
         v = getattr(s, f.name)
         if f.name == "n":
@@ -83,7 +84,9 @@ def rows_of(s: SpaceInputs, index: npt.NDArray[np.intp]) -> SpaceInputs:
         elif isinstance(v, dict):
             given[f.name] = {k: a[index] for k, a in v.items()}
         elif isinstance(v, tuple):
-            given[f.name] = tuple(v[int(i)] for i in index)
+            if at is None:
+                at = index.tolist()
+            given[f.name] = tuple([v[i] for i in at])
         else:
             given[f.name] = v
     return SpaceInputs.create(int(index.size), **given)

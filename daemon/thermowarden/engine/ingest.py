@@ -47,6 +47,9 @@ GAP_FACTOR: Final = 1.5
 """A gap longer than this many reporting intervals counts the readings missed in it."""
 NO_POINT: Final = "-"
 _NEGATIVE_CACHE_LIMIT: Final = 10_000
+QuickEntry = tuple[int, bool, Callable[[float], float], float, float, float, float, float, str]
+"""A topic's point, whether its payload is a plain number (else a state), convert, scale,
+offset, low, high, max_change_per_s, quantity (:meth:`Ingestor._quick_entry`)."""
 
 
 @dataclass(frozen=True)
@@ -78,10 +81,9 @@ class Ingestor:
         (``on``, ``off``, a configured word): equipment repeats a few words."""
         self._negative: dict[str, Rejection] = {}
         self._lazy_count: Counter[tuple[int, str]] = Counter()
-        self._fast: list[tuple[Callable[[float], float], float, float, float, float, float,
-                               str]] = []
-        """Per point: convert, scale, offset, low, high, max_change_per_s, quantity (the
-        inline path of :meth:`ingest_many`; points are only ever appended)."""
+        self._quick: dict[str, QuickEntry | tuple[()]] = {}
+        """Per known topic, the constants of the short path of :meth:`ingest_many` (see
+        :meth:`_quick_entry`; a topic's points and their settings never change)."""
         self.last_points: list[int] = []
         """Points that took a reading from the last message."""
         self.accepted_by_quantity: Counter[str] = Counter()
@@ -239,8 +241,7 @@ class Ingestor:
         per point and payload (equipment repeats a few words)."""
         out: list[tuple[float, Rejection]] = []
         touched: list[int] = []
-        cache = self._cache
-        points = self.model.points
+        quick = self._quick
         max_bytes = self.max_bytes
         isfinite = math.isfinite
         # A reading without a timestamp of its own is taken at ``now``: it is never too old
@@ -258,50 +259,45 @@ class Ingestor:
         ring_len = rings.length
         nan = math.nan
         inf = math.inf
-        fast = self._fast
         received = accepted = 0
         by_quantity: dict[str, int] = {}
         try:
             for topic, payload, now, retained in items:
-                route = cache.get(topic)
-                if route is not None and len(route) == 1 and not retained and \
-                        len(payload) <= max_bytes:
-                    pid = route[0]
-                    spec = points[pid]
-                    fmt_class = spec.fmt.__class__
-                    if fmt_class is NumberFormat:
+                entry = quick.get(topic)
+                if entry is None:
+                    entry = self._quick_entry(topic)
+                if entry and not retained and len(payload) <= max_bytes:
+                    (pid, number_format, convert, scale, offset, low, high, max_change,
+                     quantity) = entry
+                    if number_format:
                         try:
                             number = float(payload)
                         except ValueError:
                             number = math.nan
-                    elif fmt_class is StateFormat:
-                        number = self._state_value(pid, payload, now)
                     else:
-                        number = math.nan
+                        number = self._state_value(pid, payload, now)
                     if isfinite(number):
                         received += 1
                         if inline:
-                            if pid >= len(fast):
-                                self._extend_fast()
-                                fast = self._fast
-                            convert, scale, offset, low, high, max_change, quantity = fast[pid]
                             value = convert(number) * scale + offset
                             if isfinite(value) and low <= value <= high:
-                                last_t = last_time[pid]
+                                # .item(): a Python float, compared and subtracted
+                                # without NumPy's scalar machinery (the same IEEE values)
+                                last_t = last_time.item(pid)
                                 if not now < last_t and (
                                         max_change == inf or last_t != last_t
-                                        or abs(value - last_value[pid])
+                                        or abs(value - last_value.item(pid))
                                         <= max_change * (now - last_t) + 1e-9):
-                                    gap = interval[pid]
+                                    gap = interval.item(pid)
                                     if now - last_t > GAP_FACTOR * gap:
                                         self.missed_by_quantity[quantity] += \
                                             int(round((now - last_t) / gap)) - 1
                                     last_value[pid] = value
                                     last_time[pid] = now
                                     last_source[pid] = nan
-                                    row = ring_row[pid]
+                                    row = ring_row.item(pid)
                                     if row >= 0:
-                                        h = rings.head[row]
+                                        h = rings.head.item(row)
                                         rings.t[row, h] = now
                                         rings.v[row, h] = value
                                         rings.head[row] = (h + 1) % ring_len
@@ -334,11 +330,22 @@ class Ingestor:
         self.last_points = touched
         return out
 
-    def _extend_fast(self) -> None:
-        """The per-point constants of the inline path, for points added since."""
-        for spec in self.model.points[len(self._fast):]:
-            self._fast.append((spec.convert, spec.scale, spec.offset, spec.low, spec.high,
-                               spec.max_change_per_s, spec.quantity))
+    def _quick_entry(self, topic: str) -> QuickEntry | tuple[()]:
+        """The constants of the short path of :meth:`ingest_many` for a known topic of one
+        point whose payload is a plain number or a state (kept), ``()`` for any other known
+        topic (kept: it goes the general way), ``()`` unkept for a topic not yet known."""
+        route = self._cache.get(topic)
+        if route is None:
+            return ()
+        entry: QuickEntry | tuple[()] = ()
+        if len(route) == 1:
+            spec = self.model.points[route[0]]
+            if spec.fmt.__class__ in (NumberFormat, StateFormat):
+                entry = (route[0], spec.fmt.__class__ is NumberFormat, spec.convert,
+                         spec.scale, spec.offset, spec.low, spec.high,
+                         spec.max_change_per_s, spec.quantity)
+        self._quick[topic] = entry
+        return entry
 
     STATE_VALUES_KEPT: Final = 65_536
 

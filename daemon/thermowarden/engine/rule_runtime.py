@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 from collections import deque
 from collections.abc import Mapping
-from typing import Final
+from typing import Any, Final
 
 import numpy as np
 
@@ -79,6 +79,9 @@ class RuleRuntime:
         """After a clearing of a rule with ``easing.rearm_s``: until when its lowest level
         is raised again only against the easing trend."""
         self.trends: dict[int, deque[tuple[float, float]]] = {}
+        self.settled: dict[int, dict[str, Any]] = {}
+        """Per space: the record of advice acted on that has nothing more to follow (said
+        not to have helped, every check of its effect taken): see ``acted_on.follow``."""
         """Per space: (time, value) of the easing quantity, while live or re-arming."""
         self.rearm_check = np.full(n, np.nan)
         """When a raise held back while re-arming is looked at again: at the next sample of
@@ -136,7 +139,8 @@ class RuleRuntime:
         following the effect of advice acted on); until then, a step with the same
         conditions as the last one changes nothing."""
         cfg = self.rule.config
-        live = self.state >= State.ACTIVE
+        active, acknowledged = State.ACTIVE, State.ACKNOWLEDGED  # (each State.X is a call)
+        live = self.state >= active
         followed = self._effect_due()
         times = [self.pending_since + cfg.on_delay_s, self.shelved_until, self.rearm_check]
         if live.any():
@@ -145,11 +149,11 @@ class RuleRuntime:
             intervals = self.renotify_intervals()
             if intervals is not None:
                 # (no reminder while the equipment is as the advice asks)
-                times.append(np.where((self.state == State.ACTIVE) & ~self.acted_now,
+                times.append(np.where((self.state == active) & ~self.acted_now,
                                       self.last_notified, np.nan) + intervals[self.level])
             # an acknowledged urgent advisory is reminded of all the same (see step)
             urgent = PRIORITIES.index("urgent")
-            times.append(np.where((self.state == State.ACKNOWLEDGED) & (self.level >= urgent),
+            times.append(np.where((self.state == acknowledged) & (self.level >= urgent),
                                   self.last_notified, np.nan) + self.urgent_remind_s())
         if self.leave_watch:
             return -math.inf
@@ -167,7 +171,7 @@ class RuleRuntime:
         due = math.inf
         for adv in self.advisories.values():
             rec = adv.acted_on
-            if rec is None:
+            if rec is None or self.settled.get(adv.space) is rec:
                 continue
             t0 = float(rec.get("_t", adv.updated_at))
             i = adv.space

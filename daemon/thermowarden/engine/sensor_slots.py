@@ -77,6 +77,16 @@ def combine(slot: Slot, values: FloatArray, fresh: BoolArray, n: int
     w = np.where(ok, slot.weights[None, :], 0.0).ravel()
     okr = ok.ravel()
     vr = v.ravel()
+    if np.unique(slot.spaces).size == slot.spaces.size:
+        # one point a space (the common case): no spread, and each row's sums are its one
+        # term, added to 0.0 as bincount does (so -0.0 becomes 0.0 there too)
+        num = np.zeros(k * n)
+        den = np.zeros(k * n)
+        num[rows] = 0.0 + np.where(okr, vr, 0.0) * w
+        den[rows] = 0.0 + w
+        with np.errstate(invalid="ignore", divide="ignore"):
+            single: FloatArray = np.where(den > 0, num / den, np.nan)
+        return single, np.full(k * n, np.nan)
     num = np.bincount(rows, weights=np.where(okr, vr, 0.0) * w, minlength=k * n)
     den = np.bincount(rows, weights=w, minlength=k * n)
     with np.errstate(invalid="ignore", divide="ignore"):

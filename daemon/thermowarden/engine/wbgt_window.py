@@ -32,6 +32,9 @@ class WbgtWindow:
         self.weight = np.zeros((n_spaces, WBGT_BINS))
         self.minute = np.full((n_spaces, WBGT_BINS), -1, dtype=np.int64)
         self.last_record: float | None = None
+        self._uniform = n_spaces > 0
+        """Every space's bins are of the same minutes (each tick records every space; only
+        :meth:`carry_space` makes them differ): the weights are worked out once."""
 
     def record(self, now: float, wbgt: FloatArray) -> None:
         """Add this tick's WBGT (°C per space) to the per-minute bins of the 60-min window.
@@ -65,7 +68,8 @@ class WbgtWindow:
         """
         minute = int(now // WBGT_BIN_S)
         elapsed = (now - minute * WBGT_BIN_S) / WBGT_BIN_S
-        age = minute - self.minute
+        # one row of minutes stands for all where they are the same (the same factors)
+        age = minute - (self.minute[0] if self._uniform else self.minute)
         factor = np.where((age >= 0) & (age < 60), 1.0, np.where(age == 60, 1.0 - elapsed, 0.0))
         s = (self.sum * factor).sum(axis=1)
         w = (self.weight * factor).sum(axis=1)
@@ -76,6 +80,7 @@ class WbgtWindow:
 
     def carry_space(self, old: WbgtWindow, i: int, j: int) -> None:
         """Space ``j`` takes over the bins of space ``i`` of ``old`` (a reload)."""
+        self._uniform = False
         self.sum[j] = old.sum[i]
         self.weight[j] = old.weight[i]
         self.minute[j] = old.minute[i]
