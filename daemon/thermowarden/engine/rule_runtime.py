@@ -79,10 +79,10 @@ class RuleRuntime:
         """After a clearing of a rule with ``easing.rearm_s``: until when its lowest level
         is raised again only against the easing trend."""
         self.trends: dict[int, deque[tuple[float, float]]] = {}
+        """Per space: (time, value) of the easing quantity, while live or re-arming."""
         self.settled: dict[int, dict[str, Any]] = {}
         """Per space: the record of advice acted on that has nothing more to follow (said
         not to have helped, every check of its effect taken): see ``acted_on.follow``."""
-        """Per space: (time, value) of the easing quantity, while live or re-arming."""
         self.rearm_check = np.full(n, np.nan)
         """When a raise held back while re-arming is looked at again: at the next sample of
         its trend."""
