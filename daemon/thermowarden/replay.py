@@ -200,17 +200,15 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
     # between its evaluations (Engine.messages: the same result as one by one)
     pending: list[tuple[str, bytes, float, bool]] = []
     add = pending.append
-    count = 0  # messages since result.messages was last brought up to date
     for rec in records:
         t = rec.t
         if next_tick is None:
             next_tick = math.floor(t / tick_s) * tick_s + tick_s
             result.start = t
         if t >= next_tick:
+            result.messages += len(pending)
             engine.messages(pending)
             pending.clear()
-            result.messages += count
-            count = 0
             while t >= next_tick:
                 captures.append(engine.capture(next_tick))
                 if len(captures) >= batch or (on_event is not None
@@ -218,9 +216,8 @@ def replay(config: SiteConfig, records: Iterable[FeedRecord],
                     run_ticks()
                 next_tick += tick_s
         add((rec.topic, rec.payload, t, False))
-        count += 1
         last_t = t
-    result.messages += count
+    result.messages += len(pending)
     engine.messages(pending)
     if last_t is not None and next_tick is not None:
         captures.append(engine.capture(max(next_tick, last_t)))

@@ -48,9 +48,7 @@ def follow(rt: RuleRuntime, adv: Advisory, now: float, ctx: RenderContext) -> in
     reading missing: the notice would have no numbers). Should it be true again with
     the equipment still as asked, the notice comes then."""
     rec = adv.acted_on
-    assert rec is not None
-    if rt.settled.get(adv.space) is rec:
-        return None
+    assert rec is not None  # (and not settled: the step does not call it then)
     eff = rt.rule.config.effect
     t0 = float(rec.get("_t", adv.updated_at))
     wait_s = eff.wait_s if eff is not None else EFFECT_WAIT_S

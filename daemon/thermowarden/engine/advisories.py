@@ -44,8 +44,8 @@ from thermowarden.engine.texts import RenderContext, Texts, no_details, one_spac
 from thermowarden.rules import HEAT_STRESS_CAUTIONS, CompiledPack
 from thermowarden.site_model import SiteModel
 
-# module names for the states the step uses: each State.X is an enum __getattr__ call
-_IDLE, _PENDING, _ACTIVE, _ACKNOWLEDGED, _SHELVED = tuple(State)
+_IDLE, _PENDING, _ACTIVE = State.IDLE, State.PENDING, State.ACTIVE  # (each State.X: a call)
+_ACKNOWLEDGED, _SHELVED = State.ACKNOWLEDGED, State.SHELVED
 
 HISTORY_KEPT: Final = 50
 ADVISORY_REFRESH_S: Final = 300.0

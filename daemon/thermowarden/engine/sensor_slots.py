@@ -5,7 +5,7 @@ and the spread between redundant sensors."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import numpy.typing as npt
@@ -26,6 +26,11 @@ class Slot:
     weights: FloatArray
     flux: BoolArray | None = None
     """For plane slots: which points measure radiant flux (converted to a temperature)."""
+    one_a_space: bool = field(init=False)
+    """No space has two points here (the common case): combining assigns each point's term."""
+
+    def __post_init__(self) -> None:
+        self.one_a_space = bool(np.unique(self.spaces).size == self.spaces.size)
 
 
 def build_slots(model: SiteModel) -> dict[str, Slot]:
@@ -77,7 +82,7 @@ def combine(slot: Slot, values: FloatArray, fresh: BoolArray, n: int
     w = np.where(ok, slot.weights[None, :], 0.0).ravel()
     okr = ok.ravel()
     vr = v.ravel()
-    if np.unique(slot.spaces).size == slot.spaces.size:
+    if slot.one_a_space:
         # one point a space (the common case): no spread, and each row's sums are its one
         # term, added to 0.0 as bincount does (so -0.0 becomes 0.0 there too)
         num = np.zeros(k * n)
